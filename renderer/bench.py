@@ -1,0 +1,223 @@
+"""``ossicle bench``: speed and memory of the render, as ratios measured in one run.
+
+For each layout a noise stem (48 kHz, PCM_24 WAV) is generated, then three cases run,
+each in a fresh process so that its peak memory is its own:
+
+* **ossicle** — the streaming engine, end to end (read, convolve, write);
+* **baseline** — the whole stem read into memory, ``scipy.signal.oaconvolve`` once per
+  (channel, ear) filter, summed, written; the same filters as ours;
+* **I/O floor** — only reading the stem in blocks and writing an output of the same size.
+
+The planning step (reading and resampling the HRIR set) is excluded from every case: it
+is the same for all and does not grow with the stem. Peak memory is the process's
+maximum resident set size minus its size just before the case started.
+"""
+
+from __future__ import annotations
+
+import multiprocessing as mp
+import os
+import platform
+import resource
+import tempfile
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+
+BENCH_LAYOUTS = ("2.0", "5.1", "7.1.4")
+BENCH_SAMPLERATE = 48000
+BENCH_HRTF = "mit-kemar"
+#: The memory-growth check renders a stem this many times longer than the speed cases.
+MEMORY_FACTOR = 10
+
+
+def _maxrss_bytes() -> int:
+    # ru_maxrss is in KiB on Linux (bytes on macOS).
+    scale = 1 if platform.system() == "Darwin" else 1024
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * scale
+
+
+def _rss_bytes() -> int:
+    try:
+        with open("/proc/self/statm") as fh:
+            return int(fh.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
+    except OSError:  # not Linux: fall back to the peak so far
+        return _maxrss_bytes()
+
+
+def make_noise_stem(path: str | os.PathLike, channels: int, seconds: float,
+                    samplerate: int = BENCH_SAMPLERATE, seed: int = 1) -> None:
+    """Write a white-noise stem at -20 dBFS RMS per channel, in blocks."""
+    from .audio_io import OutputWriter
+
+    rng = np.random.default_rng(seed)
+    frames = int(seconds * samplerate)
+    block = 1 << 16
+    with OutputWriter(path, samplerate, channels, subtype="PCM_24", frames_hint=frames) as w:
+        for start in range(0, frames, block):
+            n = min(block, frames - start)
+            w.write((0.1 * rng.standard_normal((n, channels))).astype(np.float32))
+
+
+def _case_ours(stem: str, layout: str, out: str) -> dict:
+    from .render import RenderSettings, render
+
+    report = render([stem], out, RenderSettings(layout=layout, hrtf=BENCH_HRTF))
+    return {"seconds": report["timings_s"]["render"], "block_size": report["engine"]["block_size"]}
+
+
+def _case_baseline(stem: str, layout: str, out: str) -> dict:
+    from .audio_io import read_audio, write_audio
+    from .convolution import convolve_reference
+    from .render import RenderSettings, plan_render
+
+    plan = plan_render([stem], RenderSettings(layout=layout, hrtf=BENCH_HRTF))
+    t0 = time.perf_counter()
+    data, rate = read_audio(stem)
+    y = convolve_reference(data, plan.filters)
+    write_audio(out, y.astype(np.float32), rate, subtype="PCM_24")
+    return {"seconds": time.perf_counter() - t0}
+
+
+def _case_io_floor(stem: str, layout: str, out: str) -> dict:
+    from .audio_io import OutputWriter, StemReader
+    from .convolution import DEFAULT_BLOCK_SIZE
+    from .render import RenderSettings, plan_render
+
+    plan = plan_render([stem], RenderSettings(layout=layout, hrtf=BENCH_HRTF))
+    info = plan.stem
+    tail = plan.filters.shape[-1] - 1
+    t0 = time.perf_counter()
+    with StemReader(info) as reader, OutputWriter(
+        out, info.samplerate, 2, subtype="PCM_24", frames_hint=info.frames + tail
+    ) as writer:
+        for block in reader.blocks(DEFAULT_BLOCK_SIZE):
+            # Two of the input's channels stand in for the ears: same size, same entropy.
+            writer.write(block[:, :2] if block.shape[1] >= 2 else np.repeat(block, 2, axis=1))
+        writer.write(np.zeros((tail, 2), dtype=np.float32))
+    return {"seconds": time.perf_counter() - t0}
+
+
+_CASES = {"ossicle": _case_ours, "baseline": _case_baseline, "io_floor": _case_io_floor}
+
+
+def _child(conn, case: str, stem: str, layout: str, out: str) -> None:
+    try:
+        import renderer.render  # noqa: F401  (imports outside the measured memory)
+
+        before = _rss_bytes()
+        result = _CASES[case](stem, layout, out)
+        result["peak_memory_bytes"] = max(_maxrss_bytes() - before, 0)
+        conn.send(("ok", result))
+    except BaseException as exc:  # report any failure to the parent, never hang it
+        conn.send(("error", f"{type(exc).__name__}: {exc}"))
+    finally:
+        conn.close()
+
+
+def _run_case(case: str, stem: str, layout: str, out: str) -> dict:
+    ctx = mp.get_context("spawn")
+    parent, child = ctx.Pipe(duplex=False)
+    proc = ctx.Process(target=_child, args=(child, case, stem, layout, out))
+    proc.start()
+    child.close()
+    try:
+        status, payload = parent.recv()
+    except EOFError:
+        status, payload = "error", f"the {case} process died (exit code {proc.exitcode})"
+    proc.join()
+    if status != "ok":
+        raise RuntimeError(f"bench case {case} on {layout} failed: {payload}")
+    return payload
+
+
+def run_bench(
+    seconds: float = 60.0,
+    layouts: list[str] | None = None,
+    *,
+    memory_check: bool = True,
+    progress: Callable[[str], None] | None = None,
+    workdir: str | os.PathLike | None = None,
+) -> dict:
+    """Run the benchmark and return its figures (JSON-ready)."""
+    from .layouts import get_layout
+
+    say = progress or (lambda msg: None)
+    layouts = list(layouts or BENCH_LAYOUTS)
+    results: dict = {
+        "samplerate": BENCH_SAMPLERATE,
+        "seconds": seconds,
+        "hrtf": BENCH_HRTF,
+        "cpu_count": os.cpu_count(),
+        "machine": platform.machine(),
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "layouts": {},
+    }
+    with tempfile.TemporaryDirectory(prefix="ossicle-bench-", dir=workdir) as tmp:
+        for name in layouts:
+            layout = get_layout(name)
+            stem = str(Path(tmp) / f"noise-{layout.name}.wav")
+            say(f"bench: generating {seconds:g} s {layout.name} noise stem")
+            make_noise_stem(stem, layout.channels, seconds)
+            row: dict = {"channels": layout.channels}
+            for case in _CASES:
+                say(f"bench: {layout.name} {case}")
+                r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"))
+                row[case] = {
+                    "seconds": round(r["seconds"], 4),
+                    "x_real_time": round(seconds / r["seconds"], 1),
+                    "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
+                }
+                if "block_size" in r:
+                    row["block_size"] = r["block_size"]
+            row["speedup_vs_baseline"] = round(row["baseline"]["seconds"] / row["ossicle"]["seconds"], 2)
+            row["ratio_to_io_floor"] = round(row["ossicle"]["seconds"] / row["io_floor"]["seconds"], 2)
+            results["layouts"][layout.name] = row
+            os.remove(stem)
+        if memory_check:
+            name = "7.1.4" if "7.1.4" in layouts else layouts[-1]
+            layout = get_layout(name)
+            mem: dict = {"layout": layout.name}
+            for label, length in (("short", seconds), ("long", seconds * MEMORY_FACTOR)):
+                stem = str(Path(tmp) / f"mem-{label}.wav")
+                say(f"bench: memory check, {length:g} s {layout.name} stem")
+                make_noise_stem(stem, layout.channels, length)
+                r = _run_case("ossicle", stem, layout.name, str(Path(tmp) / "mem-out.wav"))
+                mem[label] = {"seconds_of_audio": length,
+                              "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1)}
+                os.remove(stem)
+            mem["growth_mb"] = round(mem["long"]["peak_memory_mb"] - mem["short"]["peak_memory_mb"], 1)
+            results["memory"] = mem
+    return results
+
+
+def format_bench(result: dict) -> str:
+    """The benchmark figures as a plain-text table."""
+    lines = [
+        f"ossicle bench: {result['seconds']:g} s noise stems at {result['samplerate']} Hz, "
+        f"HRTF {result['hrtf']}, {result['cpu_count']} CPU(s), numpy {result['numpy']}",
+        "",
+        f"{'layout':<7} {'ch':>3} {'ossicle xRT':>12} {'baseline xRT':>13} {'I/O floor xRT':>14}"
+        f" {'speed-up':>9} {'ours/floor':>11} {'peak MB':>8}",
+    ]
+    for name, row in result["layouts"].items():
+        lines.append(
+            f"{name:<7} {row['channels']:>3} {row['ossicle']['x_real_time']:>12.1f} "
+            f"{row['baseline']['x_real_time']:>13.1f} {row['io_floor']['x_real_time']:>14.1f} "
+            f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
+            f"{row['ossicle']['peak_memory_mb']:>8.1f}"
+        )
+    mem = result.get("memory")
+    if mem:
+        lines += [
+            "",
+            f"memory growth ({mem['layout']}): {mem['short']['seconds_of_audio']:g} s -> "
+            f"{mem['short']['peak_memory_mb']:.1f} MB, {mem['long']['seconds_of_audio']:g} s -> "
+            f"{mem['long']['peak_memory_mb']:.1f} MB (growth {mem['growth_mb']:+.1f} MB)",
+        ]
+    lines += ["", "xRT = seconds of audio per second of wall time (higher is faster); "
+              "baseline = scipy.signal.oaconvolve per filter on the whole stem."]
+    return "\n".join(lines)

@@ -1,0 +1,79 @@
+"""A summary of a SOFA file for people: what it holds and whether it can be rendered with."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from .geometry import vector_to_direction
+from .hrir import HrirSet, file_sha256
+from .sofa import read_sofa
+
+
+def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict:
+    """Summarise a SOFA file; raises :class:`~renderer.errors.SofaError` if it is unusable.
+
+    Returns a JSON-ready dict with the figures and, under ``"text"``, the same figures
+    as display strings in a fixed order.
+    """
+    data = read_sofa(path, emitter=emitter)
+    hset = HrirSet.from_sofa(data, sha256=file_sha256(path))
+    az, el = vector_to_direction(hset.directions)
+    itd_min, itd_max = hset.itd_range()
+    grid = hset._grid()
+    warnings: list[str] = []
+    if data.room_type not in ("free field", "freefield", "free-field", ""):
+        warnings.append(
+            f"RoomType is {data.room_type!r}: the responses include a room; renders with this "
+            "set should not add a synthetic room"
+        )
+    if grid.hull is None and grid.ring_order is None:
+        warnings.append("the directions cannot be triangulated; every lookup uses the nearest one")
+    elif grid.hull is not None and not grid.facet_ok.all():
+        warnings.append(
+            "the grid has gaps (e.g. no low elevations); directions there use the nearest "
+            "measurement"
+        )
+    attrs = data.attributes
+    summary = {
+        "file": Path(path).name,
+        "sha256": hset.sha256,
+        "convention": data.convention,
+        "convention_version": data.convention_version,
+        "sofa_version": data.sofa_version,
+        "room_type": data.room_type,
+        "emitter": data.emitter,
+        "measurements": data.measurements,
+        "taps": data.taps,
+        "samplerate": data.samplerate,
+        "duration_ms": round(1000 * data.taps / data.samplerate, 3),
+        "elevation_range_deg": [round(float(el.min()), 2), round(float(el.max()), 2)],
+        "azimuth_range_deg": [round(float(az.min()), 2), round(float(az.max()), 2)],
+        "grid_spacing_deg": round(grid.spacing_deg, 2),
+        "distance_m": (
+            None if np.all(np.isnan(data.distances)) else round(float(np.nanmedian(data.distances)), 3)
+        ),
+        "itd_range_ms": [round(itd_min * 1000, 3), round(itd_max * 1000, 3)],
+        "title": attrs.get("Title", ""),
+        "database": attrs.get("DatabaseName", ""),
+        "listener": attrs.get("ListenerShortName", ""),
+        "licence": attrs.get("License", ""),
+        "warnings": warnings,
+    }
+    summary["text"] = {
+        "convention": f"{data.convention} {data.convention_version} (SOFA {data.sofa_version})",
+        "room type": data.room_type or "(not given)",
+        "directions": f"{data.measurements}, elevation {summary['elevation_range_deg'][0]:g} to "
+        f"{summary['elevation_range_deg'][1]:g} deg, median spacing {summary['grid_spacing_deg']:g} deg",
+        "taps": f"{data.taps} ({summary['duration_ms']:g} ms)",
+        "sample rate": f"{data.samplerate:g} Hz",
+        "ITD range": f"{summary['itd_range_ms'][0]:+.3f} to {summary['itd_range_ms'][1]:+.3f} ms "
+        "(onset-based, left ear leading positive)",
+        "title": summary["title"] or "-",
+        "database": summary["database"] or "-",
+        "licence": summary["licence"] or "-",
+        "sha256": hset.sha256,
+    }
+    return summary

@@ -1,0 +1,332 @@
+"""One binaural render, from stem files to a two-channel file and its report.
+
+:func:`plan_render` decides everything that does not need the audio (layout, channel
+order, HRIR pair per loudspeaker, the filter bank); :func:`render` streams the stem
+through the convolution engine into the output and returns the report.
+"""
+
+from __future__ import annotations
+
+import os
+import platform
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .audio_io import OutputWriter, StemInfo, StemReader, probe_stem, subtype_for
+from .channel_mask import labels_from_mask
+from .convolution import DEFAULT_BLOCK_SIZE, BinauralConvolver
+from .errors import LayoutError, RendererError
+from .geometry import direction_to_vector, vector_to_direction
+from .hrir import HrirSet, load_hrir_set
+from .layouts import Layout, get_layout, labels_from_filenames, resolve_channel_order
+from .lfe import LfeOptions, lfe_filter
+from .onsets import onset_times
+
+#: Speed of sound used for loudspeaker distance compensation (m/s, dry air at 20 C).
+SPEED_OF_SOUND = 343.0
+
+#: Low-frequency band (Hz) over which the set's level is read to place the LFE.
+LFE_REFERENCE_BAND_HZ = (40.0, 120.0)
+
+
+class RenderCancelled(RendererError):
+    """The render was cancelled by its caller; no output was left behind."""
+
+
+@dataclass(frozen=True)
+class RenderSettings:
+    """Everything a render depends on besides the stem.
+
+    Attributes
+    ----------
+    layout : str or Layout
+        Layout name (``ossicle layouts``) or a JSON layout file.
+    channel_order : sequence of str, optional
+        Labels of the file channels in file order; overrides masks and file names.
+    hrtf : str
+        A shipped set's name (``ossicle hrtf list``) or a SOFA file.
+    lfe : LfeOptions
+        How the LFE channel reaches the ears.
+    subtype : str
+        ``PCM_16`` (TPDF-dithered), ``PCM_24`` or ``FLOAT``.
+    format : str, optional
+        ``wav`` or ``flac``; from the output's extension when omitted.
+    seed : int
+        Seed of every random choice (dither), so a render is repeatable.
+    block_size : int
+        Frames per engine block.
+    """
+
+    layout: str | Layout = "7.1.4"
+    channel_order: Sequence[str] | None = None
+    hrtf: str = ""
+    lfe: LfeOptions = field(default_factory=LfeOptions)
+    subtype: str = "PCM_24"
+    format: str | None = None
+    seed: int = 0
+    block_size: int = DEFAULT_BLOCK_SIZE
+
+
+@dataclass(frozen=True)
+class RenderPlan:
+    """What a render will do, decided before any audio is read."""
+
+    stem: StemInfo
+    layout: Layout
+    order: tuple[int, ...]  # file channel i feeds layout speaker order[i]
+    order_source: str
+    hrir_set: HrirSet
+    filters: np.ndarray  # (C, 2, L) in file channel order
+    speakers: tuple[dict, ...]
+    warnings: tuple[str, ...]
+
+
+def resolve_hrtf(name_or_path: str | os.PathLike | None) -> tuple[str, str]:
+    """Path and display name of an HRTF set given by shipped name or file path."""
+    from hrtf_sets import DEFAULT_SET, get_shipped
+
+    value = os.fspath(name_or_path) if name_or_path else DEFAULT_SET
+    if value.lower().endswith(".sofa") or os.sep in value or "/" in value:
+        return value, Path(value).name
+    shipped = get_shipped(value)
+    return str(shipped.path), shipped.name
+
+
+def _choose_order(
+    stem: StemInfo, layout: Layout, channel_order: Sequence[str] | None
+) -> tuple[tuple[int, ...], str, list[str]]:
+    warnings: list[str] = []
+    if stem.channels != layout.channels:
+        raise LayoutError(
+            f"the stem has {stem.channels} channel(s) but layout {layout.name!r} has "
+            f"{layout.channels} ({', '.join(layout.labels)}); choose the layout the stem was "
+            f"mixed for"
+        )
+    if channel_order:
+        return resolve_channel_order(layout, list(channel_order)), "--channel-order", warnings
+    if len(stem.paths) > 1:
+        labels = labels_from_filenames(list(stem.paths))
+        if labels is not None:
+            return resolve_channel_order(layout, labels), "file names", warnings
+        warnings.append(
+            "the mono files' names carry no channel labels; they were taken in the order "
+            f"given as {', '.join(layout.labels)}"
+        )
+        return tuple(range(layout.channels)), "file order", warnings
+    if stem.channel_mask:
+        labels = labels_from_mask(stem.channel_mask, stem.channels, layout)
+        if labels is not None:
+            try:
+                return resolve_channel_order(layout, labels), "WAV channel mask", warnings
+            except LayoutError as exc:
+                warnings.append(f"the WAV channel mask does not fit the layout ({exc}); ")
+        else:
+            warnings.append(
+                f"the WAV channel mask 0x{stem.channel_mask:X} does not describe "
+                f"{stem.channels} channels; used the layout's default order"
+            )
+    return tuple(range(layout.channels)), "layout default", warnings
+
+
+def _lfe_reference(hset: HrirSet) -> tuple[float, int]:
+    """Low-frequency gain and onset (samples) of the set's front direction."""
+    front = hset.pair(direction_to_vector(0.0, 0.0)).ir
+    n = 1 << int(np.ceil(np.log2(max(hset.samplerate, front.shape[-1] * 4))))
+    spec = np.abs(np.fft.rfft(front, n=n, axis=-1))
+    freqs = np.fft.rfftfreq(n, 1 / hset.samplerate)
+    lo, hi = LFE_REFERENCE_BAND_HZ
+    band = (freqs >= lo) & (freqs <= hi)
+    gain = float(np.mean(spec[:, band])) if band.any() else float(np.mean(spec[:, 0]))
+    onset = int(round(float(np.mean(onset_times(front)))))
+    return gain, onset
+
+
+def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -> RenderPlan:
+    """Probe the stem and build the filter bank, validating everything up front."""
+    stem = probe_stem(inputs)
+    layout = settings.layout if isinstance(settings.layout, Layout) else get_layout(settings.layout)
+    order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
+    path, name = resolve_hrtf(settings.hrtf)
+    hset = load_hrir_set(path, stem.samplerate, name=name)
+
+    distances = [s.distance for s in layout.speakers if s.distance and not s.lfe]
+    ref_distance = max(distances) if distances else None
+    lfe_gain, lfe_onset = _lfe_reference(hset) if layout.lfe_indices else (1.0, 0)
+
+    pairs: list[np.ndarray] = []
+    speakers: list[dict] = []
+    for channel, speaker_index in enumerate(order):
+        spk = layout.speakers[speaker_index]
+        entry: dict = {"channel": channel, "label": spk.label}
+        if spk.lfe:
+            ir = lfe_filter(stem.samplerate, settings.lfe, reference_gain=lfe_gain, delay=lfe_onset)
+            entry.update(lfe=True, method="lfe", cutoff_hz=settings.lfe.cutoff_hz,
+                         gain_db=settings.lfe.gain_db)
+        else:
+            pair = hset.pair(spk.vector)
+            ir = pair.ir
+            used_az, used_el = vector_to_direction(hset.directions[list(pair.neighbours)])
+            entry.update(
+                azimuth=spk.azimuth,
+                elevation=spk.elevation,
+                method=pair.method,
+                measured=[
+                    {"azimuth": round(float(a), 3), "elevation": round(float(e), 3),
+                     "weight": round(w, 6)}
+                    for a, e, w in zip(np.atleast_1d(used_az), np.atleast_1d(used_el), pair.weights)
+                ],
+                angular_error_deg=round(pair.angular_error, 3),
+            )
+            if pair.warning:
+                warnings.append(f"{spk.label}: {pair.warning}")
+            if spk.distance and ref_distance:
+                # Nearer loudspeakers arrive earlier and louder (1/r), as in the room.
+                delay = (ref_distance - spk.distance) / SPEED_OF_SOUND * stem.samplerate
+                gain = ref_distance / spk.distance
+                shift = int(round(delay))
+                ir = np.concatenate([np.zeros((2, shift)), ir * gain], axis=1)
+                entry.update(distance_m=spk.distance, delay_samples=shift,
+                             distance_gain_db=round(20 * np.log10(gain), 3))
+        pairs.append(ir)
+        speakers.append(entry)
+
+    length = max(p.shape[-1] for p in pairs)
+    filters = np.zeros((len(pairs), 2, length), dtype=np.float64)
+    for i, p in enumerate(pairs):
+        filters[i, :, : p.shape[-1]] = p
+    return RenderPlan(stem, layout, order, order_source, hset, filters, tuple(speakers),
+                      tuple(warnings))
+
+
+def render(
+    inputs: Sequence[str | os.PathLike],
+    output: str | os.PathLike,
+    settings: RenderSettings,
+    *,
+    progress: Callable[[float], None] | None = None,
+    cancelled: Callable[[], bool] | None = None,
+) -> dict:
+    """Render a stem to a binaural file and return the report.
+
+    Parameters
+    ----------
+    inputs : sequence of path
+        One multichannel file, or several mono files.
+    output : path
+        The output file; written under a temporary name and renamed when complete.
+    settings : RenderSettings
+        Layout, channel order, HRTF set, LFE, output format.
+    progress : callable, optional
+        Called with the fraction done (0 to 1) as blocks are written.
+    cancelled : callable, optional
+        Polled once per block; when it returns True the render stops, leaves no output
+        and raises :class:`RenderCancelled`.
+    """
+    t0 = time.perf_counter()
+    subtype = subtype_for(settings.subtype)
+    plan = plan_render(inputs, settings)
+    t_plan = time.perf_counter()
+    stem = plan.stem
+    engine = BinauralConvolver(plan.filters, block_size=settings.block_size)
+    total = stem.frames + engine.filter_length - 1
+    done = 0
+    peak = 0.0
+
+    def emit(block: np.ndarray) -> None:
+        nonlocal done, peak
+        writer.write(block)
+        if block.size:
+            peak = max(peak, float(np.max(np.abs(block))))
+        done += len(block)
+        if progress is not None:
+            progress(min(done / total, 1.0))
+
+    with StemReader(stem) as reader, OutputWriter(
+        output,
+        stem.samplerate,
+        2,
+        format=settings.format,
+        subtype=subtype,
+        frames_hint=total,
+        seed=settings.seed,
+    ) as writer:
+        for block in reader.blocks(engine.block_size):
+            if cancelled is not None and cancelled():
+                raise RenderCancelled("render cancelled")
+            emit(engine.process(block))
+        for block in engine.flush():
+            emit(block)
+        clipped = writer.clipped_samples
+        out_format = writer.format
+    t_end = time.perf_counter()
+
+    warnings = list(plan.warnings)
+    if clipped:
+        warnings.append(
+            f"{clipped} output samples exceeded full scale and were clipped; lower the stem's "
+            "level or write FLOAT"
+        )
+    if len(set(stem.frames_per_file)) > 1:
+        warnings.append(
+            "the mono files differ in length; shorter ones were padded with silence"
+        )
+    duration = stem.frames / stem.samplerate
+    hset = plan.hrir_set
+    return {
+        "ossicle_version": __version__,
+        "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+        "input": {
+            "files": [Path(p).name for p in stem.paths],
+            "format": stem.format,
+            "subtype": stem.subtype,
+            "samplerate": stem.samplerate,
+            "channels": stem.channels,
+            "frames": stem.frames,
+            "duration_s": round(duration, 6),
+            "channel_mask": None if stem.channel_mask is None else f"0x{stem.channel_mask:X}",
+        },
+        "layout": plan.layout.to_dict(),
+        "channel_order": {
+            "labels": [plan.layout.speakers[i].label for i in plan.order],
+            "source": plan.order_source,
+        },
+        "hrtf": {
+            "name": hset.name,
+            "file": Path(hset.source).name,
+            "sha256": hset.sha256,
+            "convention": hset.convention,
+            "measurements": hset.measurements,
+            "samplerate": hset.samplerate,
+            "taps": hset.taps,
+        },
+        "speakers": list(plan.speakers),
+        "lfe": {"cutoff_hz": settings.lfe.cutoff_hz, "gain_db": settings.lfe.gain_db,
+                "order": settings.lfe.order},
+        "output": {
+            "file": Path(output).name,
+            "format": out_format,
+            "subtype": subtype,
+            "samplerate": stem.samplerate,
+            "channels": 2,
+            "frames": done,
+            "filter_length": engine.filter_length,
+            "peak_dbfs": round(20 * np.log10(peak), 2) if peak > 0 else None,
+            "clipped_samples": clipped,
+            "dither": "TPDF" if subtype == "PCM_16" else None,
+            "seed": settings.seed,
+        },
+        "engine": {"block_size": engine.block_size, "partitions": engine.partitions},
+        "timings_s": {
+            "plan": round(t_plan - t0, 4),
+            "render": round(t_end - t_plan, 4),
+            "total": round(t_end - t0, 4),
+            "x_real_time": round(duration / max(t_end - t_plan, 1e-9), 1),
+        },
+        "platform": {"python": platform.python_version(), "machine": platform.machine()},
+        "warnings": warnings,
+    }

@@ -1,0 +1,1 @@
+"""ossicle service: command line and (later) the HTTP API and job queue."""

@@ -1,0 +1,314 @@
+"""The ``ossicle`` command line.
+
+Each subcommand is a thin shell over the renderer's public functions. Errors in what
+the user gave (files, layouts, options) print one line on stderr and exit with status 2;
+progress goes to stderr only when it is a terminal.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+import time
+from collections.abc import Sequence
+from pathlib import Path
+
+import renderer
+from renderer import RendererError
+
+EXIT_BAD_INPUT = 2
+EXIT_INTERRUPTED = 130
+
+
+class _Progress:
+    """A one-line progress display on stderr, silent when stderr is not a terminal."""
+
+    def __init__(self, label: str, enabled: bool | None = None) -> None:
+        self.label = label
+        self.enabled = sys.stderr.isatty() if enabled is None else enabled
+        self.start = time.monotonic()
+        self.last = -1.0
+
+    def __call__(self, fraction: float) -> None:
+        if not self.enabled:
+            return
+        now = time.monotonic()
+        if fraction < 1.0 and now - self.last < 0.1:
+            return
+        self.last = now
+        elapsed = now - self.start
+        eta = elapsed * (1 - fraction) / fraction if fraction > 0 else 0.0
+        bar = "#" * int(fraction * 30)
+        sys.stderr.write(
+            f"\r{self.label} [{bar:<30}] {fraction * 100:5.1f}%  {elapsed:5.1f}s"
+            f"  ~{eta:4.0f}s left "
+        )
+        sys.stderr.flush()
+
+    def done(self) -> None:
+        if self.enabled:
+            sys.stderr.write("\n")
+            sys.stderr.flush()
+
+
+def _labels(value: str) -> list[str]:
+    labels = [v.strip() for v in value.split(",") if v.strip()]
+    if not labels:
+        raise argparse.ArgumentTypeError("expected comma-separated channel labels, e.g. L,R,C,LFE,Ls,Rs")
+    return labels
+
+
+def _print_json(data: object) -> None:
+    json.dump(data, sys.stdout, indent=2)
+    sys.stdout.write("\n")
+
+
+# -- render ----------------------------------------------------------------------------
+
+
+def _default_report_path(output: str) -> str:
+    p = Path(output)
+    return str(p.with_name(p.stem + ".report.json"))
+
+
+def _write_json(path: str, data: object) -> None:
+    tmp = Path(path).with_name("." + Path(path).name + ".part")
+    tmp.write_text(json.dumps(data, indent=2) + "\n")
+    os.replace(tmp, path)
+
+
+def cmd_render(args: argparse.Namespace) -> int:
+    from renderer.lfe import LfeOptions
+    from renderer.render import RenderSettings, render
+
+    settings = RenderSettings(
+        layout=args.layout,
+        channel_order=args.channel_order,
+        hrtf=args.hrtf or "",
+        lfe=LfeOptions(cutoff_hz=args.lfe_cutoff, gain_db=args.lfe_gain),
+        subtype=args.subtype,
+        format=args.format,
+        seed=args.seed,
+        **({"block_size": args.block_size} if args.block_size else {}),
+    )
+    progress = _Progress("rendering", enabled=False if args.quiet else None)
+    try:
+        report = render(args.inputs, args.output, settings, progress=progress)
+    finally:
+        progress.done()
+    report_path = None if args.report == "none" else (args.report or _default_report_path(args.output))
+    if report_path:
+        _write_json(report_path, report)
+    if not args.quiet:
+        out = report["output"]
+        print(
+            f"wrote {args.output}: {out['frames'] / out['samplerate']:.2f} s, "
+            f"{out['samplerate']} Hz, {out['subtype']}, peak "
+            f"{out['peak_dbfs'] if out['peak_dbfs'] is not None else '-inf'} dBFS, "
+            f"{report['timings_s']['x_real_time']}x real time"
+            + (f"; report {report_path}" if report_path else ""),
+            file=sys.stderr,
+        )
+        for w in report["warnings"]:
+            print(f"warning: {w}", file=sys.stderr)
+    return 0
+
+
+# -- layouts ---------------------------------------------------------------------------
+
+
+def cmd_layouts(args: argparse.Namespace) -> int:
+    from renderer.layouts import LAYOUTS
+
+    if args.json:
+        _print_json([layout.to_dict() for layout in LAYOUTS.values()])
+        return 0
+    for layout in LAYOUTS.values():
+        print(f"{layout.name:<7} {layout.channels:>2} channels  {layout.description}")
+        cells = []
+        for s in layout.speakers:
+            cells.append(f"{s.label}(LFE)" if s.lfe else f"{s.label} {s.azimuth:+g}/{s.elevation:+g}")
+        print("        " + ", ".join(cells))
+    print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
+    print("Channel order shown is the default file order; override with --channel-order.")
+    return 0
+
+
+# -- hrtf ------------------------------------------------------------------------------
+
+
+def cmd_hrtf_list(args: argparse.Namespace) -> int:
+    from hrtf_sets import DEFAULT_SET, list_shipped
+
+    sets = list_shipped()
+    if args.json:
+        _print_json(
+            [
+                {"name": s.name, "file": s.filename, "title": s.title, "citation": s.citation,
+                 "licence": s.licence, "default": s.name == DEFAULT_SET}
+                for s in sets
+            ]
+        )
+        return 0
+    for s in sets:
+        mark = " (default)" if s.name == DEFAULT_SET else ""
+        print(f"{s.name}{mark}: {s.title}")
+        print(f"    file {s.filename}; {s.licence}")
+        print(f"    cite: {s.citation}")
+    return 0
+
+
+def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
+    from renderer.inspect import inspect_sofa
+
+    summary = inspect_sofa(args.file, emitter=args.emitter)
+    if args.json:
+        _print_json(summary)
+        return 0
+    print(f"{summary['file']}: usable")
+    width = max(len(k) for k in summary["text"])
+    for key, value in summary["text"].items():
+        print(f"  {key:<{width}}  {value}")
+    for w in summary["warnings"]:
+        print(f"  warning: {w}")
+    return 0
+
+
+# -- bench and demo --------------------------------------------------------------------
+
+
+def cmd_bench(args: argparse.Namespace) -> int:
+    from renderer.bench import format_bench, run_bench
+
+    result = run_bench(
+        seconds=args.seconds,
+        layouts=[args.layout] if args.layout else None,
+        memory_check=not args.no_memory,
+        progress=None if args.json else lambda msg: print(msg, file=sys.stderr),
+    )
+    if args.json:
+        _print_json(result)
+    else:
+        print(format_bench(result))
+    return 0
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from renderer.demo import run_demo
+
+    progress = _Progress("rendering demo")
+    try:
+        result = run_demo(args.dir, progress=progress)
+    finally:
+        progress.done()
+    print(f"demo stem:   {result['stem']}  (7.1.4, {result['duration_s']:.1f} s)")
+    print(f"binaural:    {result['output']}")
+    print(f"report:      {result['report']}")
+    print("Listen on headphones at a low volume first.")
+    return 0
+
+
+# -- parser ----------------------------------------------------------------------------
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="ossicle",
+        description="Render multichannel loudspeaker stems to binaural headphone mixes.",
+    )
+    parser.add_argument("--version", action="version", version=f"ossicle {renderer.__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser(
+        "render",
+        help="render a stem to a binaural file",
+        description="Render one interleaved multichannel file, or several mono files, to a "
+        "two-channel binaural file. Mono files get their channel labels from their names "
+        "(mix.L.wav, mix_Ls.wav, ...) or from --channel-order.",
+    )
+    p.add_argument("inputs", nargs="+", metavar="INPUT", help="stem file(s)")
+    p.add_argument("-o", "--output", required=True, help="output file (.wav or .flac)")
+    p.add_argument("--layout", required=True, help="layout name (see 'ossicle layouts') or a JSON file")
+    p.add_argument("--channel-order", type=_labels, metavar="L,R,C,...",
+                   help="labels of the file's channels in file order")
+    p.add_argument("--hrtf", metavar="NAME|FILE.sofa",
+                   help="shipped set name (see 'ossicle hrtf list') or a SOFA file; default mit-kemar")
+    p.add_argument("--format", choices=["wav", "flac"], help="output format (default: from the extension)")
+    p.add_argument("--subtype", default="PCM_24", type=str.upper,
+                   choices=["PCM_16", "PCM_24", "FLOAT"], help="sample format (default PCM_24)")
+    p.add_argument("--seed", type=int, default=0, help="seed for dither (default 0)")
+    p.add_argument("--report", metavar="FILE.json",
+                   help="where to write the JSON report (default: OUTPUT's name + .report.json; "
+                   "'none' to skip)")
+    p.add_argument("--lfe-cutoff", type=float, default=120.0, metavar="HZ",
+                   help="LFE low-pass corner (default 120; 0 = no low-pass)")
+    p.add_argument("--lfe-gain", type=float, default=10.0, metavar="DB",
+                   help="LFE in-band gain (default +10 dB)")
+    p.add_argument("--block-size", type=int, metavar="FRAMES", help="engine block size (advanced)")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress or summary")
+    p.set_defaults(func=cmd_render)
+
+    p = sub.add_parser("layouts", help="list loudspeaker layouts with labels and angles")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=cmd_layouts)
+
+    p = sub.add_parser("hrtf", help="list shipped HRTF sets or inspect a SOFA file")
+    hsub = p.add_subparsers(dest="hrtf_command", metavar="ACTION")
+    q = hsub.add_parser("list", help="the shipped HRTF sets")
+    q.add_argument("--json", action="store_true")
+    q.set_defaults(func=cmd_hrtf_list)
+    q = hsub.add_parser("inspect", help="summarise a SOFA file or say why it cannot be used")
+    q.add_argument("file", metavar="FILE.sofa")
+    q.add_argument("--emitter", type=int, help="emitter to use in a GeneralFIR-E file")
+    q.add_argument("--json", action="store_true")
+    q.set_defaults(func=cmd_hrtf_inspect)
+    p.set_defaults(func=lambda a: _missing_action(p))
+
+    p = sub.add_parser(
+        "bench",
+        help="measure render speed against a baseline and the I/O floor",
+        description="Render generated noise stems and compare, in one run, our engine with a "
+        "per-filter scipy.signal.oaconvolve baseline and with the cost of reading and writing "
+        "alone. Peak memory is measured in a separate process per case.",
+    )
+    p.add_argument("--json", action="store_true")
+    p.add_argument("--seconds", type=float, default=60.0, help="stem length (default 60)")
+    p.add_argument("--layout", help="only this layout (default: 2.0, 5.1, 7.1.4)")
+    p.add_argument("--no-memory", action="store_true",
+                   help="skip the memory-growth check (a 10x longer stem)")
+    p.set_defaults(func=cmd_bench)
+
+    p = sub.add_parser("demo", help="synthesise a demo 7.1.4 stem and render it")
+    p.add_argument("dir", nargs="?", default="ossicle-demo", help="folder for the files (default ossicle-demo)")
+    p.set_defaults(func=cmd_demo)
+    return parser
+
+
+def _missing_action(parser: argparse.ArgumentParser) -> int:
+    parser.print_help(sys.stderr)
+    return EXIT_BAD_INPUT
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help(sys.stderr)
+        return EXIT_BAD_INPUT
+    try:
+        return int(args.func(args) or 0)
+    except RendererError as exc:
+        print(f"ossicle: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
+        print(f"ossicle: error: {exc.strerror}: {exc.filename!r}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("ossicle: interrupted; no partial output was kept", file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

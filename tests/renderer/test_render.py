@@ -1,0 +1,169 @@
+"""End-to-end renders: physical plausibility, channel order, LFE, errors, report."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from renderer.audio_io import read_audio, write_audio
+from renderer.convolution import convolve_reference
+from renderer.errors import LayoutError, RendererError
+from renderer.layouts import get_layout
+from renderer.onsets import interaural_time_difference
+from renderer.render import RenderCancelled, RenderSettings, plan_render, render
+
+FS = 48000
+
+
+def _noise(frames: int, seed: int = 0) -> np.ndarray:
+    return (0.1 * np.random.default_rng(seed).standard_normal(frames)).astype(np.float32)
+
+
+def _stem(tmp_path, layout: str, feeds: dict[str, np.ndarray], frames: int = FS // 2):
+    lay = get_layout(layout)
+    data = np.zeros((frames, lay.channels), dtype=np.float32)
+    for label, sig in feeds.items():
+        data[: len(sig), lay.index(label)] = sig
+    path = tmp_path / f"stem-{layout}.wav"
+    write_audio(path, data, FS, subtype="FLOAT")
+    return path, data
+
+
+def _render(tmp_path, stem, layout, **kw):
+    out = tmp_path / "out.wav"
+    settings = RenderSettings(layout=layout, subtype="FLOAT", **kw)
+    report = render([stem], out, settings)
+    y, rate = read_audio(out)
+    assert rate == FS
+    return y, report
+
+
+def _energy(x: np.ndarray) -> float:
+    return float(np.sum(np.asarray(x, dtype=np.float64) ** 2))
+
+
+def test_left_front_reaches_the_left_ear_earlier_and_louder(tmp_path):
+    stem, _ = _stem(tmp_path, "5.1", {"L": _noise(FS // 2)})
+    y, report = _render(tmp_path, stem, "5.1", hrtf="mit-kemar")
+    assert _energy(y[:, 0]) > 2 * _energy(y[:, 1])
+    plan = plan_render([stem], RenderSettings(layout="5.1"))
+    left_pair = plan.filters[get_layout("5.1").index("L")]
+    # Left leads (positive ITD in our convention) for a source at +30 degrees.
+    assert interaural_time_difference(left_pair, FS) > 0.1e-3
+    assert report["speakers"][0]["label"] == "L"
+
+
+def test_symmetric_stem_on_symmetric_set_gives_identical_ears(tmp_path):
+    s = _noise(FS // 2, 1)
+    feeds = {"L": s, "R": s, "C": _noise(FS // 2, 2), "Ls": 0.5 * s, "Rs": 0.5 * s}
+    stem, _ = _stem(tmp_path, "5.1", feeds)
+    y, _ = _render(tmp_path, stem, "5.1", hrtf="rigid-sphere")
+    assert _energy(y) > 0
+    assert_allclose(y[:, 0], y[:, 1], atol=1e-6)
+
+
+def test_front_centre_alone_has_no_interaural_delay(tmp_path):
+    stem, _ = _stem(tmp_path, "5.1", {"C": _noise(FS // 2)})
+    plan = plan_render([stem], RenderSettings(layout="5.1", hrtf="mit-kemar"))
+    centre = plan.filters[get_layout("5.1").index("C")]
+    # KEMAR's frontal measurement: the ears are within a few microseconds of each other.
+    assert abs(interaural_time_difference(centre, FS)) < 30e-6
+
+
+def test_output_equals_direct_convolution_of_the_plan(tmp_path):
+    """The whole pipeline against scipy.signal.oaconvolve of the same filters, summed."""
+    feeds = {label: _noise(FS // 3, k) for k, label in enumerate(get_layout("7.1.4").labels)}
+    stem, data = _stem(tmp_path, "7.1.4", feeds, frames=FS // 3)
+    y, report = _render(tmp_path, stem, "7.1.4", block_size=1024)
+    plan = plan_render([stem], RenderSettings(layout="7.1.4"))
+    ref = convolve_reference(data, plan.filters)
+    assert y.shape == ref.shape == (len(data) + plan.filters.shape[-1] - 1, 2)
+    assert_allclose(y, ref, atol=1e-6)
+    assert report["output"]["frames"] == len(ref)
+
+
+def test_lfe_goes_to_both_ears_low_passed(tmp_path):
+    stem, _ = _stem(tmp_path, "5.1", {"LFE": _noise(FS // 2)})
+    y, report = _render(tmp_path, stem, "5.1")
+    assert_allclose(y[:, 0], y[:, 1])
+    spec = np.abs(np.fft.rfft(y[:, 0])) ** 2
+    f = np.fft.rfftfreq(len(y), 1 / FS)
+    # 4th-order Butterworth at 120 Hz: -48 dB by 480 Hz, so little energy above 500 Hz.
+    assert spec[f > 500].sum() < 1e-3 * spec[f < 120].sum()
+    lfe = [s for s in report["speakers"] if s["label"] == "LFE"][0]
+    assert lfe["method"] == "lfe" and lfe["gain_db"] == 10.0
+
+
+def test_mono_files_named_by_label_match_the_interleaved_render(tmp_path):
+    lay = get_layout("5.1")
+    feeds = {label: _noise(FS // 4, k) for k, label in enumerate(lay.labels)}
+    stem, data = _stem(tmp_path, "5.1", feeds, frames=FS // 4)
+    y_inter, _ = _render(tmp_path, stem, "5.1")
+    monos = []
+    for label in reversed(lay.labels):  # given in a different order: names decide
+        p = tmp_path / f"scene_{label}.wav"
+        write_audio(p, data[:, [lay.index(label)]], FS, subtype="FLOAT")
+        monos.append(p)
+    out = tmp_path / "mono-out.wav"
+    report = render(monos, out, RenderSettings(layout="5.1", subtype="FLOAT"))
+    y_mono, _ = read_audio(out)
+    assert report["channel_order"]["source"] == "file names"
+    assert_allclose(y_mono, y_inter, atol=1e-7)
+
+
+def test_channel_order_option_permutes_channels(tmp_path):
+    stem, _ = _stem(tmp_path, "5.1", {"L": _noise(FS // 4)})
+    # Declare that file channel 0 is actually the right loudspeaker.
+    y, report = _render(tmp_path, stem, "5.1", channel_order=["R", "L", "C", "LFE", "Ls", "Rs"])
+    assert _energy(y[:, 1]) > 2 * _energy(y[:, 0])
+    assert report["channel_order"]["labels"][0] == "R"
+
+
+def test_channel_count_mismatch_is_a_clear_error(tmp_path):
+    stem, _ = _stem(tmp_path, "5.1", {"L": _noise(100)})
+    with pytest.raises(LayoutError, match=r"6 channel\(s\) but layout '7.1' has 8"):
+        render([stem], tmp_path / "x.wav", RenderSettings(layout="7.1"))
+    assert not (tmp_path / "x.wav").exists()
+
+
+def test_cancel_leaves_no_output(tmp_path):
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(FS)}, frames=FS)
+    out = tmp_path / "cancelled.wav"
+    with pytest.raises(RenderCancelled):
+        render([stem], out, RenderSettings(layout="2.0", block_size=1024), cancelled=lambda: True)
+    assert not out.exists()
+    assert list(tmp_path.glob("*.part")) == [] and list(tmp_path.glob(".*.part")) == []
+
+
+def test_pcm16_render_is_repeatable_for_a_seed(tmp_path):
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(FS // 4), "R": _noise(FS // 4, 3)})
+    outs = []
+    for name, seed in (("a", 5), ("b", 5), ("c", 6)):
+        out = tmp_path / f"{name}.wav"
+        render([stem], out, RenderSettings(layout="2.0", subtype="PCM_16", seed=seed))
+        outs.append(out.read_bytes())
+    assert outs[0] == outs[1]
+    assert outs[0] != outs[2]
+
+
+def test_report_is_json_and_names_what_was_used(tmp_path):
+    stem, _ = _stem(tmp_path, "7.1.4", {"Ltf": _noise(FS // 4)})
+    _, report = _render(tmp_path, stem, "7.1.4")
+    text = json.dumps(report)
+    assert json.loads(text)["hrtf"]["sha256"] and len(report["hrtf"]["sha256"]) == 64
+    methods = {s["label"]: s["method"] for s in report["speakers"]}
+    assert methods["LFE"] == "lfe"
+    assert set(methods.values()) <= {"measured", "interpolated", "nearest", "lfe"}
+    for s in report["speakers"]:
+        if s["method"] != "lfe":
+            assert_allclose(sum(m["weight"] for m in s["measured"]), 1.0, atol=1e-5)
+    assert report["timings_s"]["total"] > 0
+
+
+def test_unknown_hrtf_set_is_a_renderer_error(tmp_path):
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(100)})
+    with pytest.raises(RendererError, match="no-such-set"):
+        render([stem], tmp_path / "x.wav", RenderSettings(layout="2.0", hrtf="no-such-set"))

@@ -1,0 +1,141 @@
+"""The ``ossicle`` command line: happy paths and one-line errors with exit status 2."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from renderer.audio_io import read_audio, write_audio
+from service.cli import main
+
+FS = 48000
+
+
+def _run(*args: str) -> subprocess.CompletedProcess:
+    """Run the CLI in a fresh interpreter, as a user would (no TTY: no progress)."""
+    return subprocess.run(
+        [sys.executable, "-m", "service.cli", *args], capture_output=True, text=True, timeout=120
+    )
+
+
+def _assert_one_line_error(proc: subprocess.CompletedProcess, pattern: str) -> None:
+    assert proc.returncode == 2, proc.stderr
+    assert "Traceback" not in proc.stderr
+    lines = [line for line in proc.stderr.splitlines() if line.strip()]
+    assert len(lines) == 1, proc.stderr
+    assert lines[0].startswith("ossicle: error:")
+    assert pattern in lines[0]
+
+
+@pytest.fixture
+def stem51(tmp_path):
+    data = np.zeros((FS // 4, 6), dtype=np.float32)
+    data[:, 0] = 0.1 * np.random.default_rng(0).standard_normal(FS // 4)
+    path = tmp_path / "take.wav"
+    write_audio(path, data, FS)
+    return path
+
+
+def test_render_writes_output_and_report(tmp_path, stem51):
+    out = tmp_path / "take.bin.wav"
+    proc = _run("render", str(stem51), "-o", str(out), "--layout", "5.1")
+    assert proc.returncode == 0, proc.stderr
+    y, rate = read_audio(out)
+    assert y.shape[1] == 2 and rate == FS
+    report = json.loads((tmp_path / "take.bin.report.json").read_text())
+    assert report["layout"]["name"] == "5.1"
+    assert "wrote" in proc.stderr
+
+
+def test_render_wrong_layout_is_one_line_exit_2(tmp_path, stem51):
+    proc = _run("render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "7.1.4")
+    _assert_one_line_error(proc, "layout '7.1.4' has 12")
+    assert not (tmp_path / "o.wav").exists()
+
+
+def test_render_unknown_layout_lists_choices(tmp_path, stem51):
+    proc = _run("render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "4.0.9")
+    _assert_one_line_error(proc, "7.1.4")
+
+
+def test_render_missing_input(tmp_path):
+    proc = _run("render", str(tmp_path / "nope.wav"), "-o", str(tmp_path / "o.wav"), "--layout", "5.1")
+    _assert_one_line_error(proc, "nope.wav")
+
+
+def test_render_malformed_sofa(tmp_path, stem51):
+    bad = tmp_path / "bad.sofa"
+    bad.write_bytes(b"\x89HDF\r\n\x1a\n" + b"\0" * 100)
+    proc = _run("render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "5.1", "--hrtf", str(bad))
+    _assert_one_line_error(proc, "bad.sofa")
+
+
+def test_text_file_as_audio(tmp_path):
+    txt = tmp_path / "notes.wav"
+    txt.write_text("these are not samples\n")
+    proc = _run("render", str(txt), "-o", str(tmp_path / "o.wav"), "--layout", "2.0")
+    _assert_one_line_error(proc, "notes.wav")
+
+
+def test_layouts_json_lists_the_standard_layouts(capsys):
+    assert main(["layouts", "--json"]) == 0
+    names = [entry["name"] for entry in json.loads(capsys.readouterr().out)]
+    for name in ("2.0", "5.1", "7.1", "5.1.2", "5.1.4", "7.1.2", "7.1.4", "9.1.6", "22.2"):
+        assert name in names
+
+
+def test_layouts_text(capsys):
+    assert main(["layouts"]) == 0
+    out = capsys.readouterr().out
+    assert "7.1.4" in out and "Ltf" in out
+
+
+def test_hrtf_list(capsys):
+    assert main(["hrtf", "list", "--json"]) == 0
+    sets = json.loads(capsys.readouterr().out)
+    assert {s["name"] for s in sets} >= {"mit-kemar", "rigid-sphere"}
+    assert [s["name"] for s in sets if s["default"]] == ["mit-kemar"]
+
+
+def test_hrtf_inspect_shipped_file(capsys, repo_root):
+    assert main(["hrtf", "inspect", str(repo_root / "hrtf_sets" / "MIT_KEMAR_normal_pinna.sofa"), "--json"]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    assert summary["measurements"] == 710 and summary["samplerate"] == 44100
+    # ITD range of KEMAR: about +/-0.7 ms at the ears' axis (common practice).
+    assert 0.6 < summary["itd_range_ms"][1] < 0.8
+    assert -0.8 < summary["itd_range_ms"][0] < -0.6
+
+
+def test_hrtf_inspect_malformed_files(shared_sofa_dir):
+    for path in sorted((shared_sofa_dir / "malformed").glob("*.sofa"))[:4]:
+        proc = _run("hrtf", "inspect", str(path))
+        _assert_one_line_error(proc, path.name)
+
+
+def test_no_command_prints_help():
+    proc = _run()
+    assert proc.returncode == 2 and "usage" in proc.stderr.lower()
+
+
+def test_demo_renders_a_714_stem(tmp_path, capsys):
+    assert main(["demo", str(tmp_path / "demo")]) == 0
+    stem, rate = read_audio(tmp_path / "demo" / "harbour-bells.7.1.4.wav")
+    assert stem.shape[1] == 12 and rate == 48000
+    out, _ = read_audio(tmp_path / "demo" / "harbour-bells.binaural.wav")
+    assert out.shape[1] == 2 and len(out) > len(stem)
+    assert "low volume" in capsys.readouterr().out
+
+
+def test_bench_smoke(capsys, tmp_path):
+    """The benchmark runs end to end on a tiny stem (its figures are not asserted: timing
+    belongs to `ossicle bench`, not to tests)."""
+    from renderer.bench import format_bench, run_bench
+
+    result = run_bench(seconds=1.0, layouts=["2.0"], memory_check=False, workdir=tmp_path)
+    row = result["layouts"]["2.0"]
+    assert set(row) >= {"ossicle", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor"}
+    assert "2.0" in format_bench(result)
