@@ -33,7 +33,12 @@ from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from .errors import HrirError
 from .geometry import angle_between, normalize, vector_to_direction
-from .onsets import fractional_delay, interaural_time_difference, onset_times
+from .onsets import (
+    cross_correlation_itd,
+    fractional_delay,
+    interaural_time_difference,
+    onset_times,
+)
 from .sofa import SofaData, read_sofa
 
 #: A requested direction this close (degrees) to a measured one uses that measurement as it is.
@@ -111,6 +116,8 @@ class HrirSet:
         SOFA convention of the file.
     room_type : str
         SOFA ``RoomType`` ("free field" for anechoic sets).
+    dropped : int
+        Measurements of the file left out because an ear's response was all zeros.
     """
 
     name: str
@@ -121,6 +128,7 @@ class HrirSet:
     sha256: str = ""
     convention: str = ""
     room_type: str = "free field"
+    dropped: int = 0
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -144,6 +152,18 @@ class HrirSet:
         """Build a set from a validated SOFA file, applying its ``Data.Delay``."""
         ir = data.ir
         delay = np.asarray(data.delay, dtype=float)
+        directions = data.directions
+        # Measurements with a silent ear (placeholders in GeneralFIR files, dead channels)
+        # cannot be aligned or rendered; drop them and say how many went.
+        live = np.all(np.any(ir != 0, axis=-1), axis=-1)
+        if not live.any():
+            raise HrirError(
+                f"{Path(data.path).name!r}: every impulse response is zero; there is nothing "
+                "to render with"
+            )
+        dropped = int((~live).sum())
+        if dropped:
+            ir, delay, directions = ir[live], delay[live], directions[live]
         if np.any(delay != 0):
             extra = int(np.ceil(delay.max())) + 1
             ir = fractional_delay(ir, delay, length=ir.shape[-1] + extra)
@@ -151,11 +171,12 @@ class HrirSet:
             name=name or Path(data.path).name,
             samplerate=float(data.samplerate),
             ir=ir,
-            directions=data.directions,
+            directions=directions,
             source=str(data.path),
             sha256=sha256,
             convention=data.convention,
             room_type=data.room_type,
+            dropped=dropped,
         )
 
     @property
@@ -176,7 +197,11 @@ class HrirSet:
                 f"cannot resample HRIR set {self.name!r} from {self.samplerate:g} Hz "
                 f"to {samplerate!r} Hz"
             )
+        # resample_poly keeps the waveform's amplitude; an impulse response must instead keep
+        # its frequency response, and at a higher rate it has proportionally more samples
+        # per unit time, so scale by old rate / new rate.
         ir = signal.resample_poly(self.ir, ratio.numerator, ratio.denominator, axis=-1)
+        ir *= self.samplerate / samplerate
         return HrirSet(
             name=self.name,
             samplerate=float(samplerate),
@@ -247,10 +272,13 @@ class HrirSet:
         return interaural_time_difference(self.ir[index], self.samplerate)
 
     def itd_range(self) -> tuple[float, float]:
-        """Smallest and largest ITD over the set, in seconds."""
-        on = self._onsets()
-        itds = (on[:, 1] - on[:, 0]) / self.samplerate
-        return float(itds.min()), float(itds.max())
+        """Smallest and largest ITD over the set, in seconds.
+
+        Uses the threshold-free interaural cross-correlation below 1.5 kHz, which a
+        stray early spike in the far ear cannot fool (an onset threshold can be).
+        """
+        itds = [cross_correlation_itd(self.ir[i], self.samplerate) for i in range(self.measurements)]
+        return float(min(itds)), float(max(itds))
 
     # -- internals ----------------------------------------------------------------------
 

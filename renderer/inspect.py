@@ -19,11 +19,16 @@ def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict
     as display strings in a fixed order.
     """
     data = read_sofa(path, emitter=emitter)
+    # Raises HrirError when every response is zero: such a file reads but cannot render.
     hset = HrirSet.from_sofa(data, sha256=file_sha256(path))
     az, el = vector_to_direction(hset.directions)
     itd_min, itd_max = hset.itd_range()
     grid = hset._grid()
     warnings: list[str] = []
+    if hset.dropped:
+        warnings.append(
+            f"{hset.dropped} of {data.measurements} measurements have a silent ear and are left out"
+        )
     if data.room_type not in ("free field", "freefield", "free-field", ""):
         warnings.append(
             f"RoomType is {data.room_type!r}: the responses include a room; renders with this "
@@ -70,7 +75,7 @@ def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict
         "taps": f"{data.taps} ({summary['duration_ms']:g} ms)",
         "sample rate": f"{data.samplerate:g} Hz",
         "ITD range": f"{summary['itd_range_ms'][0]:+.3f} to {summary['itd_range_ms'][1]:+.3f} ms "
-        "(onset-based, left ear leading positive)",
+        "(interaural cross-correlation below 1.5 kHz; positive: left ear leads)",
         "title": summary["title"] or "-",
         "database": summary["database"] or "-",
         "licence": summary["licence"] or "-",

@@ -265,15 +265,11 @@ def render(
         out_format = writer.format
     t_end = time.perf_counter()
 
-    warnings = list(plan.warnings)
+    warnings = list(stem.warnings) + list(plan.warnings)
     if clipped:
         warnings.append(
             f"{clipped} output samples exceeded full scale and were clipped; lower the stem's "
             "level or write FLOAT"
-        )
-    if len(set(stem.frames_per_file)) > 1:
-        warnings.append(
-            "the mono files differ in length; shorter ones were padded with silence"
         )
     duration = stem.frames / stem.samplerate
     hset = plan.hrir_set
