@@ -124,7 +124,10 @@ def _choose_order(
             try:
                 return resolve_channel_order(layout, labels), "WAV channel mask", warnings
             except LayoutError as exc:
-                warnings.append(f"the WAV channel mask does not fit the layout ({exc}); ")
+                warnings.append(
+                    f"the WAV channel mask does not fit the layout ({exc}); used the layout's "
+                    "default order"
+                )
         else:
             warnings.append(
                 f"the WAV channel mask 0x{stem.channel_mask:X} does not describe "
