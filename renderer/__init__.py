@@ -1,4 +1,9 @@
-"""ossicle's DSP library: SOFA HRIR sets, layouts, streaming binaural convolution."""
+"""ossicle's DSP library: SOFA HRIR sets, layouts, streaming binaural convolution.
+
+The public surface is what this module exports (plus ``renderer.render.render``, the
+whole render, which keeps its module's name); other submodule names are implementation.
+Directions follow :mod:`renderer.geometry` (azimuth positive to the left, elevation up).
+"""
 
 from __future__ import annotations
 
@@ -6,5 +11,80 @@ __version__ = "0.1.0"
 
 from .errors import AudioError, HrirError, LayoutError, RendererError, SofaError
 
+# Everything else is imported on first use (PEP 562), so that ``import renderer`` (and the
+# error types) stays cheap and does not load netCDF4, soundfile or scipy until needed.
+_LAZY = {
+    "OutputWriter": "audio_io",
+    "StemInfo": "audio_io",
+    "StemReader": "audio_io",
+    "probe_stem": "audio_io",
+    "read_audio": "audio_io",
+    "write_audio": "audio_io",
+    "BinauralConvolver": "convolution",
+    "convolve_reference": "convolution",
+    "HrirPair": "hrir",
+    "HrirSet": "hrir",
+    "load_hrir_set": "hrir",
+    "LAYOUTS": "layouts",
+    "Layout": "layouts",
+    "Speaker": "layouts",
+    "get_layout": "layouts",
+    "load_layout_file": "layouts",
+    "LfeOptions": "lfe",
+    "RenderCancelled": "render",
+    "RenderPlan": "render",
+    "RenderSettings": "render",
+    "plan_render": "render",
+    "SofaData": "sofa",
+    "read_sofa": "sofa",
+    "write_sofa": "sofa",
+}
+
+
+def __getattr__(name: str) -> object:
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'renderer' has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)
+
+
 __all__ = [
-    "__version__","AudioError", "HrirError", "LayoutError", "RendererError", "SofaError"]
+    "LAYOUTS",
+    "AudioError",
+    "BinauralConvolver",
+    "HrirError",
+    "HrirPair",
+    "HrirSet",
+    "LayoutError",
+    "Layout",
+    "LfeOptions",
+    "OutputWriter",
+    "RenderCancelled",
+    "RenderPlan",
+    "RenderSettings",
+    "RendererError",
+    "SofaData",
+    "SofaError",
+    "Speaker",
+    "StemInfo",
+    "StemReader",
+    "__version__",
+    "convolve_reference",
+    "get_layout",
+    "load_hrir_set",
+    "load_layout_file",
+    "plan_render",
+    "probe_stem",
+    "read_audio",
+    "read_sofa",
+    "write_audio",
+    "write_sofa",
+]
