@@ -112,7 +112,13 @@ def _choose_order(
     if len(stem.paths) > 1:
         labels = labels_from_filenames(list(stem.paths))
         if labels is not None:
-            return resolve_channel_order(layout, labels), "file names", warnings
+            try:
+                return resolve_channel_order(layout, labels), "file names", warnings
+            except LayoutError as exc:
+                raise LayoutError(
+                    f"the file names give the labels {', '.join(labels)}, which do not fit: "
+                    f"{exc}; rename the files or give --channel-order"
+                ) from None
         warnings.append(
             "the mono files' names carry no channel labels; they were taken in the order "
             f"given as {', '.join(layout.labels)}"

@@ -264,7 +264,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--emitter", type=int, help="emitter to use in a GeneralFIR-E file")
     q.add_argument("--json", action="store_true")
     q.set_defaults(func=cmd_hrtf_inspect)
-    p.set_defaults(func=lambda a: _missing_action(p))
+    p.set_defaults(func=lambda a, parser=p: _missing_action(parser))
 
     p = sub.add_parser(
         "bench",

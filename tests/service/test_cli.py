@@ -139,3 +139,10 @@ def test_bench_smoke(capsys, tmp_path):
     row = result["layouts"]["2.0"]
     assert set(row) >= {"ossicle", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor"}
     assert "2.0" in format_bench(result)
+
+
+def test_hrtf_without_action_shows_its_own_help():
+    # Regression: the help shown was another subcommand's (late-bound parser variable).
+    proc = _run("hrtf")
+    assert proc.returncode == 2
+    assert "inspect" in proc.stderr and "demo" not in proc.stderr
