@@ -280,6 +280,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="skip the memory-growth check (a 10x longer stem)")
     p.set_defaults(func=cmd_bench)
 
+    from service.serve_cli import add_serve_parser
+
+    add_serve_parser(sub)
+
     p = sub.add_parser("demo", help="synthesise a demo 7.1.4 stem and render it")
     p.add_argument("dir", nargs="?", default="ossicle-demo", help="folder for the files (default ossicle-demo)")
     p.set_defaults(func=cmd_demo)

@@ -1,0 +1,64 @@
+"""The FastAPI application: ``create_app(settings)``.
+
+The app owns the storage, the job store and (in ``ossicle serve``) nothing else: worker
+processes are started by :mod:`service.serve_cli`. A background task runs the retention
+sweep; startup removes leftovers of interrupted uploads.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+from collections.abc import AsyncIterator
+
+from fastapi import FastAPI
+
+from renderer import __version__
+
+from .jobs import open_queue
+from .problems import install_problem_handlers
+from .retention import sweep
+from .routes import catalog, renders, stems
+from .settings import ServiceSettings
+from .storage import Storage
+
+
+def create_app(settings: ServiceSettings) -> FastAPI:
+    """The API v1 app for ``settings`` (DESIGN.md, "HTTP contract")."""
+    storage = Storage(settings.data_dir)
+    queue = open_queue(settings.queue_url, str(storage.root))
+
+    @contextlib.asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        storage.clean_tmp()
+        task = asyncio.create_task(_sweep_forever(app))
+        try:
+            yield
+        finally:
+            task.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await task
+
+    app = FastAPI(
+        title="ossicle",
+        version=__version__,
+        description="Binaural renders of multichannel loudspeaker stems. Upload a stem, "
+        "queue a render, poll it, download the two-channel file. Errors are RFC 9457 "
+        "problem details.",
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    app.state.storage = storage
+    app.state.queue = queue
+    install_problem_handlers(app)
+    app.include_router(catalog.router)
+    app.include_router(stems.router)
+    app.include_router(renders.router)
+    return app
+
+
+async def _sweep_forever(app: FastAPI) -> None:
+    settings: ServiceSettings = app.state.settings
+    while True:
+        await asyncio.sleep(settings.sweep_s)
+        await asyncio.to_thread(sweep, app.state.storage, app.state.queue, settings.retention_s)

@@ -1,0 +1,223 @@
+"""A worker process: claims render jobs, runs each in a child, keeps its lease.
+
+``python -m service.jobs.worker`` (started by ``ossicle serve``) reads its settings as
+JSON from ``OSSICLE_WORKER_SETTINGS``. The render runs in a child process
+(:mod:`service.jobs.render_child`) so that the worker stays responsive: it heartbeats,
+reports progress, and kills the child when the job is cancelled or its lease is lost.
+A child that dies without a word (a crash, the OOM killer) puts the job back in the
+queue with the attempt counted; after ``max_attempts`` the job fails with a message
+that says why.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import socket
+import subprocess
+import sys
+import threading
+import time
+import uuid
+from pathlib import Path
+
+from ..settings import ServiceSettings
+from ..storage import Storage
+from .queue import Job, JobQueue, open_queue
+
+SETTINGS_ENV = "OSSICLE_WORKER_SETTINGS"
+
+#: Time a child gets to stop after SIGTERM before it is killed (s).
+TERM_GRACE_S = 1.5
+
+#: How often a worker sweeps the store for expired leases (s).
+RECOVER_INTERVAL_S = 1.0
+
+
+def output_paths(storage: Storage, job: Job) -> tuple[Path, Path]:
+    """Where a job's audio and report go."""
+    folder = storage.path("renders", job.id)
+    ext = job.payload.get("options", {}).get("format") or "wav"
+    return folder / f"output.{ext}", folder / "report.json"
+
+
+def child_spec(storage: Storage, job: Job) -> dict:
+    """The JSON spec a render child gets; ValueError if the stem or HRTF set is gone."""
+    payload = job.payload
+    stem = storage.read_meta("stems", payload["stem_id"])
+    folder = storage.path("stems", payload["stem_id"])
+    inputs = [str(folder / f["stored"]) for f in stem["files"]]
+    names = {}
+    for f in stem["files"]:
+        names[str(folder / f["stored"])] = f["name"]
+        names[f["stored"]] = f["name"]
+    options = dict(payload["options"])
+    hrtf_id = payload.get("hrtf_id")
+    if hrtf_id:
+        hrtf = storage.read_meta("hrtf", hrtf_id)
+        path = storage.path("hrtf", hrtf_id) / hrtf["stored"]
+        options["hrtf"] = str(path)
+        names[str(path)] = hrtf["name"]
+    output, report = output_paths(storage, job)
+    output.parent.mkdir(parents=True, exist_ok=True)
+    return {"inputs": inputs, "output": str(output), "report": str(report),
+            "options": options, "names": names,
+            "input_names": [f["name"] for f in stem["files"]],
+            "output_name": payload.get("download_name")}
+
+
+class Worker:
+    """Claims and runs jobs until :meth:`stop` is called (or its parent process dies)."""
+
+    def __init__(self, settings: ServiceSettings, queue: JobQueue | None = None,
+                 *, name: str | None = None) -> None:
+        self.settings = settings
+        self.storage = Storage(settings.data_dir)
+        self.queue = queue or open_queue(settings.queue_url, str(settings.data_dir))
+        self.name = name or f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
+        self._stop = threading.Event()
+        self._parent = os.getppid()
+        #: The render child's command line (tests substitute one that crashes).
+        self.child_command = [sys.executable, "-m", "service.jobs.render_child"]
+
+    def stop(self) -> None:
+        self._stop.set()
+
+    def _orphaned(self) -> bool:
+        return os.getppid() != self._parent
+
+    def run(self, *, once: bool = False) -> None:
+        """The claim loop; with ``once``, return after one job (or none waiting)."""
+        next_recover = 0.0
+        while not self._stop.is_set() and not self._orphaned():
+            now = time.monotonic()
+            if now >= next_recover:
+                self.queue.recover(self.settings.max_attempts)
+                next_recover = now + RECOVER_INTERVAL_S
+            job = self.queue.claim(self.name, self.settings.lease_s)
+            if job is None:
+                if once:
+                    return
+                self._stop.wait(self.settings.poll_s)
+                continue
+            self.run_job(job)
+            if once:
+                return
+
+    def run_job(self, job: Job) -> None:
+        """Render one claimed job in a child process and record how it ended."""
+        q, s = self.queue, self.settings
+        try:
+            spec = child_spec(self.storage, job)
+        except Exception as exc:  # the stem or set was deleted or expired meanwhile
+            detail = getattr(exc, "detail", None) or str(exc)
+            q.fail(job.id, self.name, f"cannot start the render: {detail}")
+            return
+        proc = subprocess.Popen(
+            self.child_command,
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
+            cwd=os.getcwd(),
+        )
+        messages: list[dict] = []
+        latest = {"progress": 0.0}
+
+        def read() -> None:
+            assert proc.stdout is not None
+            for line in proc.stdout:
+                try:
+                    msg = json.loads(line)
+                except ValueError:
+                    continue
+                if "progress" in msg:
+                    latest["progress"] = float(msg["progress"])
+                else:
+                    messages.append(msg)
+
+        reader = threading.Thread(target=read, daemon=True)
+        reader.start()
+        assert proc.stdin is not None
+        try:
+            proc.stdin.write(json.dumps(spec))
+            proc.stdin.close()
+        except BrokenPipeError:
+            pass
+
+        reported = 0.0
+        lost = False
+        handed_back = False
+        while proc.poll() is None:
+            time.sleep(s.tick_s)
+            if proc.poll() is not None:
+                break
+            ok = q.heartbeat(job.id, self.name, s.lease_s)
+            if ok and latest["progress"] > reported:
+                reported = latest["progress"]
+                ok = q.progress(job.id, self.name, reported)
+            if not ok:
+                lost = True
+                self._terminate(proc)
+                break
+            if self._stop.is_set() or self._orphaned():
+                self._terminate(proc)
+                handed_back = True
+                break
+        proc.wait()
+        reader.join(timeout=5)
+        if proc.stdout is not None:
+            proc.stdout.close()
+        final = messages[-1] if messages else {}
+        if lost or handed_back:
+            self._remove_partial(spec)
+            if handed_back:
+                q.release(job.id, self.name)
+            return
+        if "done" in final and proc.returncode == 0:
+            q.complete(job.id, self.name, final["done"])
+        elif "error" in final:
+            q.fail(job.id, self.name, final["error"])
+            self._remove_partial(spec)
+        elif "cancelled" in final:
+            self._remove_partial(spec)
+        else:
+            # Died without a word: a crash or the OOM killer. Count it against the job.
+            self._remove_partial(spec)
+            current = q.get(job.id)
+            if current.attempts >= s.max_attempts:
+                q.fail(job.id, self.name,
+                       f"the render process died {current.attempts} times (exit status "
+                       f"{proc.returncode}; a crash or running out of memory) and was given up; "
+                       "the stem may be damaged or too large for this server")
+            else:
+                q.release(job.id, self.name, count_attempt=True)
+
+    @staticmethod
+    def _terminate(proc: subprocess.Popen) -> None:
+        if proc.poll() is not None:
+            return
+        proc.terminate()
+        try:
+            proc.wait(TERM_GRACE_S)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+
+    @staticmethod
+    def _remove_partial(spec: dict) -> None:
+        """Remove temporary output left by a killed child (never the finished file)."""
+        folder = Path(spec["output"]).parent
+        for leftover in folder.glob(".*.part"):
+            leftover.unlink(missing_ok=True)
+
+
+def main() -> int:
+    settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
+    worker = Worker(settings)
+    signal.signal(signal.SIGTERM, lambda *_: worker.stop())
+    signal.signal(signal.SIGINT, lambda *_: worker.stop())
+    worker.run()
+    worker.queue.close()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

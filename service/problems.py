@@ -1,0 +1,106 @@
+"""Errors as RFC 9457 problem details, in one place.
+
+Every error response of the API is ``application/problem+json`` with ``type``, ``title``,
+``status`` and ``detail`` (RFC 9457, section 3.1); validation errors add an ``errors``
+list. Renderer errors are mapped here to the status that fits, so route handlers can
+let them propagate.
+"""
+
+from __future__ import annotations
+
+from http import HTTPStatus
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from renderer.errors import AudioError, RendererError
+
+PROBLEM_TYPE = "application/problem+json"
+
+#: Statuses the contract names (DESIGN.md, "HTTP contract").
+BAD_REQUEST, UNAUTHORIZED, NOT_FOUND, CONFLICT = 400, 401, 404, 409
+TOO_LARGE, UNSUPPORTED, UNPROCESSABLE, QUEUE_FULL, NO_SPACE = 413, 415, 422, 429, 507
+
+
+class Problem(Exception):
+    """An error the API answers with a problem-details body."""
+
+    def __init__(self, status: int, detail: str, *, title: str | None = None,
+                 headers: dict[str, str] | None = None, **extra: object) -> None:
+        super().__init__(detail)
+        self.status = status
+        self.detail = detail
+        self.title = title or HTTPStatus(status).phrase
+        self.headers = headers or {}
+        self.extra = extra
+
+
+def problem_response(status: int, detail: str, *, title: str | None = None,
+                     instance: str | None = None, headers: dict[str, str] | None = None,
+                     **extra: object) -> JSONResponse:
+    """A problem-details response (RFC 9457)."""
+    body: dict = {
+        "type": "about:blank",
+        "title": title or HTTPStatus(status).phrase,
+        "status": status,
+        "detail": detail,
+    }
+    if instance:
+        body["instance"] = instance
+    body.update(extra)
+    return JSONResponse(body, status_code=status, headers=headers, media_type=PROBLEM_TYPE)
+
+
+def renderer_status(exc: RendererError) -> int:
+    """The HTTP status for a renderer error raised on a request's input.
+
+    Undecodable or unsupported audio is 415; everything else the renderer refuses
+    (layouts, channel orders, SOFA contents) is a well-formed but unusable request, 422.
+    """
+    return UNSUPPORTED if isinstance(exc, AudioError) else UNPROCESSABLE
+
+
+def _location(loc: tuple | list) -> str:
+    parts = [str(p) for p in loc if p not in ("body",)]
+    return ".".join(parts) or "body"
+
+
+def install_problem_handlers(app: FastAPI) -> None:
+    """Make every error of ``app`` a problem-details response."""
+
+    @app.exception_handler(Problem)
+    async def _problem(request: Request, exc: Problem) -> JSONResponse:
+        return problem_response(exc.status, exc.detail, title=exc.title,
+                                instance=request.url.path, headers=exc.headers, **exc.extra)
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
+        errors = [
+            {"field": _location(e.get("loc", ())), "message": e.get("msg", "invalid")}
+            for e in exc.errors()
+        ]
+        detail = "; ".join(f"{e['field']}: {e['message']}" for e in errors) or "invalid request"
+        return problem_response(UNPROCESSABLE, detail, title="Invalid request",
+                                instance=request.url.path, errors=errors)
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http(request: Request, exc: StarletteHTTPException) -> JSONResponse:
+        detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
+        if exc.status_code == NOT_FOUND and detail == "Not Found":
+            detail = f"no such resource: {request.url.path!r}; the API lives under /v1 (see /docs)"
+        elif exc.status_code == 405:
+            detail = f"{request.method} is not allowed on {request.url.path!r}"
+        return problem_response(exc.status_code, detail, instance=request.url.path,
+                                headers=getattr(exc, "headers", None))
+
+    @app.exception_handler(RendererError)
+    async def _renderer(request: Request, exc: RendererError) -> JSONResponse:
+        return problem_response(renderer_status(exc), str(exc), instance=request.url.path)
+
+    @app.exception_handler(Exception)
+    async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
+        # Reached only by a bug: say so without leaking internals.
+        return problem_response(500, "an internal error occurred; the server log has details",
+                                instance=request.url.path)

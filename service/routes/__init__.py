@@ -1,0 +1,1 @@
+"""HTTP routes of API v1, one module per resource."""

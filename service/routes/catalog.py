@@ -1,0 +1,135 @@
+"""``/v1/health``, ``/v1/layouts``, ``/v1/rooms`` and ``/v1/hrtf-sets``."""
+
+from __future__ import annotations
+
+import shutil
+import time
+
+from anyio import to_thread
+from fastapi import APIRouter, Depends, Request, Response
+
+from renderer import __version__
+
+from ..auth import current_owner
+from ..hrtf_check import HrtfCheckFailed, check_sofa
+from ..problems import BAD_REQUEST, UNPROCESSABLE, Problem
+from ..storage import META, Storage, new_id, write_json_atomic
+from ..uploads import declared_length, receive_files
+
+router = APIRouter(prefix="/v1")
+
+_SOFA_BODY = {
+    "requestBody": {
+        "required": True,
+        "content": {"multipart/form-data": {"schema": {
+            "type": "object", "required": ["file"],
+            "properties": {"file": {"type": "string", "format": "binary",
+                                    "description": "a SOFA (AES69) file"}},
+        }}},
+    }
+}
+
+
+@router.get("/health", tags=["service"], summary="Liveness and queue counts")
+def health(request: Request) -> dict:
+    return {"status": "ok", "version": __version__, "queue": request.app.state.queue.counts(),
+            "auth": request.app.state.settings.auth_enabled}
+
+
+@router.get("/layouts", tags=["catalog"], summary="Loudspeaker layouts")
+def layouts(owner: str = Depends(current_owner)) -> list[dict]:
+    from renderer.layouts import LAYOUTS
+
+    return [layout.to_dict() for layout in LAYOUTS.values()]
+
+
+def room_names() -> list[str]:
+    """Names of the room presets the renderer has (only "none" until it has a room model)."""
+    try:
+        from renderer.room import ROOMS  # type: ignore[import-not-found]
+    except ImportError:
+        return ["none"]
+    names = list(ROOMS)
+    return names if "none" in names else ["none", *names]
+
+
+@router.get("/rooms", tags=["catalog"], summary="Room presets")
+def rooms(owner: str = Depends(current_owner)) -> list[dict]:
+    try:
+        from renderer.room import ROOMS  # type: ignore[import-not-found]
+    except ImportError:
+        ROOMS = {}
+    out = []
+    for name in room_names():
+        entry = ROOMS.get(name) if hasattr(ROOMS, "get") else None
+        described = entry.to_dict() if hasattr(entry, "to_dict") else {}
+        out.append({**described, "name": name})
+    return out
+
+
+def hrtf_summary(meta: dict) -> dict:
+    out = {k: v for k, v in meta.items() if k not in ("owner", "created_ts", "stored")}
+    out["kind"] = "uploaded"
+    out["links"] = {"self": f"/v1/hrtf-sets/{meta['id']}"}
+    return out
+
+
+@router.get("/hrtf-sets", tags=["hrtf"], summary="Shipped and uploaded HRTF sets")
+def list_hrtf_sets(request: Request, owner: str = Depends(current_owner)) -> list[dict]:
+    from hrtf_sets import DEFAULT_SET, list_shipped
+
+    shipped = [{"id": s.name, "name": s.name, "kind": "shipped", "title": s.title,
+                "citation": s.citation, "licence": s.licence, "description": s.description,
+                "default": s.name == DEFAULT_SET} for s in list_shipped()]
+    storage: Storage = request.app.state.storage
+    return shipped + [hrtf_summary(m) for m in storage.list_meta("hrtf", owner)]
+
+
+@router.get("/hrtf-sets/{set_id}", tags=["hrtf"], summary="One uploaded HRTF set")
+def get_hrtf_set(set_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
+    return hrtf_summary(request.app.state.storage.read_meta("hrtf", set_id, owner))
+
+
+@router.delete("/hrtf-sets/{set_id}", tags=["hrtf"], status_code=204,
+               summary="Delete an uploaded HRTF set")
+def delete_hrtf_set(set_id: str, request: Request,
+                    owner: str = Depends(current_owner)) -> Response:
+    storage: Storage = request.app.state.storage
+    storage.read_meta("hrtf", set_id, owner)
+    storage.delete("hrtf", set_id)
+    return Response(status_code=204)
+
+
+@router.post("/hrtf-sets", tags=["hrtf"], status_code=201, openapi_extra=_SOFA_BODY,
+             summary="Upload a SOFA file as an HRTF set")
+async def upload_hrtf_set(request: Request, response: Response,
+                          owner: str = Depends(current_owner)) -> dict:
+    settings = request.app.state.settings
+    storage: Storage = request.app.state.storage
+    length = declared_length(request, settings.max_hrtf_bytes)
+    storage.check_space(length or 0, settings.min_free_bytes)
+    folder = storage.new_tmp()
+    try:
+        files = await receive_files(request, folder, limit=settings.max_hrtf_bytes)
+        if len(files) != 1:
+            raise Problem(BAD_REQUEST, f"send one SOFA file as field 'file', not {len(files)}")
+        up = files[0]
+        set_id = new_id()
+        stored = folder / f"{set_id}.sofa"
+        up.path.rename(stored)
+        try:
+            summary = await to_thread.run_sync(
+                lambda: check_sofa(stored, up.filename, timeout_s=settings.hrtf_check_timeout_s,
+                                   memory_bytes=settings.hrtf_check_memory_bytes))
+        except HrtfCheckFailed as exc:
+            raise Problem(UNPROCESSABLE, str(exc)) from None
+        meta = {"id": set_id, "owner": owner, "name": up.filename, "stored": stored.name,
+                "size": up.size, "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+                "created_ts": time.time(), **summary.to_dict()}
+        write_json_atomic(folder / META, meta)
+        storage.commit(folder, "hrtf", set_id)
+    except BaseException:
+        shutil.rmtree(folder, ignore_errors=True)
+        raise
+    response.headers["Location"] = f"/v1/hrtf-sets/{set_id}"
+    return hrtf_summary(meta)

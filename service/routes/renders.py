@@ -1,0 +1,290 @@
+"""``/v1/renders``: queue a render, follow it, cancel or delete it, download the result.
+
+Everything that can be checked without audio is checked here, from the stem's stored
+probe, before the job is queued: layout against channel count, channel order, HRTF set,
+room, loudness and true-peak options, output format. Rendering itself happens only in
+a worker (:mod:`service.jobs.worker`); a route never calls DSP.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import re
+import time
+from pathlib import Path
+from typing import Annotated, Literal
+
+from fastapi import APIRouter, Depends, Query, Request, Response
+from fastapi.responses import FileResponse
+from pydantic import BaseModel, ConfigDict, Field
+
+from renderer.errors import LayoutError
+from renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_channel_order
+
+from ..auth import current_owner
+from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
+from ..jobs.worker import output_paths
+from ..problems import CONFLICT, NOT_FOUND, QUEUE_FULL, UNPROCESSABLE, Problem
+from ..storage import Storage, new_id, valid_id
+from .catalog import room_names
+
+router = APIRouter(prefix="/v1/renders", tags=["renders"])
+
+Label = Annotated[str, Field(min_length=1, max_length=16)]
+Lufs = Annotated[float, Field(gt=-70, lt=0, allow_inf_nan=False)]
+Dbtp = Annotated[float, Field(ge=-20, le=0, allow_inf_nan=False)]
+
+_MEDIA = {"wav": "audio/wav", "flac": "audio/flac"}
+_UNSAFE = re.compile(r"[^A-Za-z0-9._ -]+")
+
+
+class RenderRequest(BaseModel):
+    """What to render (the JSON body of ``POST /v1/renders``)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    stem_id: str = Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")
+    layout: Annotated[str, Field(max_length=64)] | dict | None = Field(
+        None, description="layout name (GET /v1/layouts) or a layout object; default: the "
+        "stem's suggested layout")
+    channel_order: list[Label] | None = Field(None, max_length=64,
+                                              description="labels of the file channels in order")
+    hrtf: Annotated[str, Field(max_length=64)] | None = Field(
+        None, description="shipped set name or uploaded set id (GET /v1/hrtf-sets)")
+    room: Annotated[str, Field(max_length=64)] = Field("none", description="GET /v1/rooms")
+    loudness: Lufs | Literal["match", "none"] | None = Field(
+        None, description="integrated loudness target in LUFS, 'match' or 'none'")
+    true_peak: Dbtp | Literal["off"] | None = Field(None, description="ceiling in dBTP or 'off'")
+    format: Literal["wav", "flac"] = "wav"
+    subtype: Literal["PCM_16", "PCM_24", "FLOAT"] = "PCM_24"
+    seed: int = Field(0, ge=0, le=2**32 - 1)
+    block_size: int | None = Field(None, ge=64, le=65536,
+                                   description="engine block size in frames (advanced)")
+
+
+def _iso(ts: float | None) -> str | None:
+    """ISO 8601 UTC with milliseconds, or None."""
+    if ts is None:
+        return None
+    return time.strftime("%Y-%m-%dT%H:%M:%S", time.gmtime(ts)) + f".{int(ts % 1 * 1000):03d}Z"
+
+
+def render_view(job: Job) -> dict:
+    """The public JSON of a render job."""
+    base = f"/v1/renders/{job.id}"
+    links = {"self": base, "stem": f"/v1/stems/{job.payload.get('stem_id')}"}
+    if job.state is JobState.DONE:
+        links.update(audio=f"{base}/audio", report=f"{base}/report")
+    return {
+        "id": job.id,
+        "state": job.state.value,
+        "progress": round(job.progress, 4),
+        "message": job.message or None,
+        "attempts": job.attempts,
+        "created": _iso(job.created),
+        "started": _iso(job.started),
+        "finished": _iso(job.finished),
+        "request": job.payload.get("request", {}),
+        "result": job.result,
+        "links": links,
+    }
+
+
+def _layout(value: str | dict | None, stem: dict) -> Layout:
+    if value is None:
+        value = stem.get("suggested_layout")
+        if value is None:
+            raise Problem(UNPROCESSABLE, f"the stem has {stem['channels']} channels and no layout "
+                          f"is suggested for it; give 'layout' (one of {', '.join(LAYOUTS)}) "
+                          "or a layout object")
+    if isinstance(value, dict):
+        try:
+            return layout_from_dict(value, name="custom", origin="layout")
+        except LayoutError as exc:
+            raise Problem(UNPROCESSABLE, str(exc)) from None
+    # Names only: over HTTP a layout is never read from a server path.
+    for name, layout in LAYOUTS.items():
+        if name.lower() == value.strip().lower():
+            return layout
+    raise Problem(UNPROCESSABLE, f"unknown layout {value!r}; choose one of {', '.join(LAYOUTS)} "
+                  "or send a layout object")
+
+
+def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, str | None]:
+    """(shipped name, uploaded id) for the request's HRTF set; 422 if unknown."""
+    from hrtf_sets import DEFAULT_SET, SHIPPED
+
+    if value is None:
+        return DEFAULT_SET, None
+    for s in SHIPPED:
+        if s.name == value.strip().lower():
+            return s.name, None
+    if valid_id(value):
+        try:
+            storage.read_meta("hrtf", value, owner)
+            return None, value
+        except Problem:
+            pass
+    names = ", ".join(repr(s.name) for s in SHIPPED)
+    raise Problem(UNPROCESSABLE, f"unknown HRTF set {value!r}; shipped sets: {names}, or the id "
+                  "of a set you uploaded (GET /v1/hrtf-sets)")
+
+
+def _delivery_options(req: RenderRequest) -> dict:
+    """Room, loudness and true-peak options, passed on only where the renderer has them."""
+    from renderer.render import RenderSettings
+
+    available = {f.name for f in dataclasses.fields(RenderSettings)}
+    out: dict = {}
+    rooms = room_names()
+    if req.room not in rooms:
+        raise Problem(UNPROCESSABLE, f"unknown room {req.room!r}; choose one of "
+                      f"{', '.join(rooms)}")
+    checks = (("room", req.room, "none"), ("loudness", req.loudness, "none"),
+              ("true_peak", req.true_peak, "off"))
+    for name, value, neutral in checks:
+        if value is None:
+            continue
+        if name in available:
+            out[name] = value
+        elif value != neutral:
+            raise Problem(UNPROCESSABLE, f"option {name!r} is not available in this version of "
+                          f"the renderer yet; leave it out or set it to {neutral!r}")
+    return out
+
+
+def _download_name(stem: dict, fmt: str) -> str:
+    first = Path(stem["files"][0]["name"]).stem if stem["files"] else "render"
+    if len(stem["files"]) > 1 and stem.get("labels_source") == "file names":
+        first = re.split(r"[._\- ]", first)[0] or first  # drop the channel label
+    base = _UNSAFE.sub("_", first).strip(" .") or "render"
+    return f"{base[:100]}.binaural.{fmt}"
+
+
+def _job(request: Request, render_id: str, owner: str) -> Job:
+    if not valid_id(render_id):
+        raise Problem(NOT_FOUND, f"no render with id {render_id!r}")
+    try:
+        job = request.app.state.queue.get(render_id)
+    except JobNotFound:
+        raise Problem(NOT_FOUND, f"no render with id {render_id!r}") from None
+    if job.owner != owner:
+        raise Problem(NOT_FOUND, f"no render with id {render_id!r}")
+    return job
+
+
+@router.post("", status_code=202, summary="Queue a render")
+def create_render(req: RenderRequest, request: Request, response: Response,
+                  owner: str = Depends(current_owner)) -> dict:
+    settings = request.app.state.settings
+    storage: Storage = request.app.state.storage
+    stem = storage.read_meta("stems", req.stem_id, owner)
+    layout = _layout(req.layout, stem)
+    if layout.channels != stem["channels"]:
+        raise Problem(UNPROCESSABLE, f"the stem has {stem['channels']} channel(s) but layout "
+                      f"{layout.name!r} has {layout.channels} ({', '.join(layout.labels)}); "
+                      "choose the layout the stem was mixed for")
+    try:
+        if req.channel_order:
+            resolve_channel_order(layout, req.channel_order)
+        elif stem.get("labels_source") == "file names" and stem.get("channel_labels"):
+            resolve_channel_order(layout, stem["channel_labels"])
+    except LayoutError as exc:
+        raise Problem(UNPROCESSABLE, str(exc)) from None
+    if req.block_size is not None and req.block_size & (req.block_size - 1):
+        raise Problem(UNPROCESSABLE, f"block_size must be a power of two (64 to 65536), got "
+                      f"{req.block_size}")
+    if req.format == "flac" and req.subtype == "FLOAT":
+        raise Problem(UNPROCESSABLE, "FLAC holds integer samples only; choose subtype PCM_16 or "
+                      "PCM_24, or format 'wav'")
+    shipped, hrtf_id = _hrtf(req.hrtf, storage, owner)
+    options = {
+        "layout": layout.to_dict() if isinstance(req.layout, dict) else layout.name,
+        "channel_order": req.channel_order,
+        "hrtf": shipped,
+        "subtype": req.subtype,
+        "format": req.format,
+        "seed": req.seed,
+        "block_size": req.block_size,
+        **_delivery_options(req),
+    }
+    payload = {"stem_id": req.stem_id, "hrtf_id": hrtf_id, "options": options,
+               "download_name": _download_name(stem, req.format),
+               "request": req.model_dump()}
+    job_id = new_id()
+    try:
+        job = request.app.state.queue.submit(job_id, owner, payload,
+                                             max_queued=settings.max_queued)
+    except QueueFull as exc:
+        raise Problem(QUEUE_FULL, f"the queue is full ({exc}); try again in a minute",
+                      headers={"Retry-After": "30"}) from None
+    response.headers["Location"] = f"/v1/renders/{job_id}"
+    return render_view(job)
+
+
+@router.get("", summary="List your renders, newest first")
+def list_renders(request: Request, owner: str = Depends(current_owner),
+                 limit: int = Query(100, ge=1, le=1000)) -> list[dict]:
+    return [render_view(j) for j in request.app.state.queue.list(owner=owner, limit=limit)]
+
+
+@router.get("/{render_id}", summary="State and progress of a render")
+def get_render(render_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
+    return render_view(_job(request, render_id, owner))
+
+
+@router.delete("/{render_id}", summary="Cancel a queued or running render, or delete a "
+               "finished one", responses={204: {"description": "deleted"}})
+def delete_render(render_id: str, request: Request,
+                  owner: str = Depends(current_owner)) -> Response:
+    job = _job(request, render_id, owner)
+    queue = request.app.state.queue
+    storage: Storage = request.app.state.storage
+    if not job.state.finished:
+        try:
+            job = queue.cancel(render_id)
+        except WrongState:
+            job = queue.get(render_id)  # finished meanwhile: fall through to delete
+        else:
+            return Response(json.dumps(render_view(job)), status_code=200,
+                            media_type="application/json")
+    try:
+        queue.delete(render_id)
+    except (WrongState, JobNotFound):
+        pass
+    storage.delete("renders", render_id)
+    return Response(status_code=204)
+
+
+def _done(request: Request, render_id: str, owner: str) -> Job:
+    job = _job(request, render_id, owner)
+    if job.state is not JobState.DONE:
+        hint = {"queued": "poll until it is done", "running": "poll until it is done"}.get(
+            job.state.value, "its output was not kept")
+        raise Problem(CONFLICT, f"render {render_id!r} is {job.state.value}; {hint}")
+    return job
+
+
+@router.get("/{render_id}/audio", summary="Download the binaural file (HTTP Range supported)",
+            response_class=FileResponse,
+            responses={200: {"content": {"audio/wav": {}, "audio/flac": {}}},
+                       206: {"description": "partial content"}})
+def get_audio(render_id: str, request: Request, owner: str = Depends(current_owner)):
+    job = _done(request, render_id, owner)
+    output, _ = output_paths(request.app.state.storage, job)
+    if not output.is_file():
+        raise Problem(NOT_FOUND, f"the audio of render {render_id!r} is gone (expired or deleted)")
+    fmt = job.payload["options"].get("format", "wav")
+    return FileResponse(output, media_type=_MEDIA.get(fmt, "application/octet-stream"),
+                        filename=job.payload.get("download_name") or f"render.{fmt}")
+
+
+@router.get("/{render_id}/report", summary="The render report (JSON)")
+def get_report(render_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
+    job = _done(request, render_id, owner)
+    _, report = output_paths(request.app.state.storage, job)
+    try:
+        return json.loads(report.read_text())
+    except (OSError, ValueError):
+        raise Problem(NOT_FOUND, f"the report of render {render_id!r} is gone") from None

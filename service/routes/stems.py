@@ -1,0 +1,177 @@
+"""``/v1/stems``: upload (streamed to disk), describe and delete stems."""
+
+from __future__ import annotations
+
+import re
+import time
+from pathlib import Path
+
+from anyio import to_thread
+from fastapi import APIRouter, Depends, Request, Response
+
+from renderer.audio_io import probe_stem
+from renderer.channel_mask import labels_from_mask
+from renderer.errors import AudioError
+from renderer.layouts import labels_from_filenames, suggest_layout
+
+from ..auth import current_owner
+from ..problems import CONFLICT, UNPROCESSABLE, UNSUPPORTED, Problem
+from ..storage import META, Storage, new_id, write_json_atomic
+from ..uploads import UploadedFile, declared_length, receive_files
+
+router = APIRouter(prefix="/v1/stems", tags=["stems"])
+
+_SAFE_EXT = re.compile(r"\.[a-z0-9]{1,5}")
+_SAFE_LABEL = re.compile(r"[A-Za-z0-9+\-]{1,16}")
+
+_UPLOAD_BODY = {
+    "requestBody": {
+        "required": True,
+        "content": {
+            "multipart/form-data": {
+                "schema": {
+                    "type": "object",
+                    "required": ["file"],
+                    "properties": {
+                        "file": {"type": "array", "items": {"type": "string", "format": "binary"},
+                                 "description": "one multichannel file, or several mono files"},
+                    },
+                }
+            }
+        },
+    }
+}
+
+
+def stem_summary(meta: dict) -> dict:
+    """The public JSON of a stem (its metadata without the owner)."""
+    out = {k: v for k, v in meta.items() if k not in ("owner", "created_ts")}
+    out["files"] = [{k: v for k, v in f.items() if k != "stored"} for f in meta["files"]]
+    out["links"] = {"self": f"/v1/stems/{meta['id']}"}
+    return out
+
+
+def _stored_name(index: int, upload: UploadedFile, label: str | None) -> str:
+    suffix = Path(upload.filename).suffix.lower()
+    ext = suffix if _SAFE_EXT.fullmatch(suffix) else ".audio"
+    # The label goes into the stored name so that the renderer reads it from the file
+    # name, exactly as it does for files given on the command line.
+    tag = f".{label}" if label and _SAFE_LABEL.fullmatch(label) else ""
+    return f"{index:02d}{tag}{ext}"
+
+
+def _user_message(exc: Exception, names: dict[str, str]) -> str:
+    """A renderer message with our stored paths replaced by the client's file names."""
+    text = str(exc)
+    for stored, user in sorted(names.items(), key=lambda kv: -len(kv[0])):
+        text = text.replace(stored, user)
+    return text
+
+
+def _probe(folder: Path, uploads: list[UploadedFile], max_channels: int,
+           max_duration_s: float) -> dict:
+    """Name the parts, probe them and describe the stem; raises Problem (415/422)."""
+    several = len(uploads) > 1
+    labels = labels_from_filenames([u.filename for u in uploads]) if several else None
+    stored: list[Path] = []
+    names: dict[str, str] = {}
+    for i, up in enumerate(uploads):
+        dest = folder / _stored_name(i, up, labels[i] if labels else None)
+        up.path.rename(dest)
+        stored.append(dest)
+        names[str(dest)] = up.filename
+        names[dest.name] = up.filename
+    # Each file alone first: what fails here is the file's own format (415) ...
+    infos = []
+    for path in stored:
+        try:
+            infos.append(probe_stem([path]))
+        except AudioError as exc:
+            raise Problem(UNSUPPORTED, _user_message(exc, names)) from None
+    # ... and what fails only together is a mismatch between the files (422).
+    try:
+        stem = probe_stem(stored)
+    except AudioError as exc:
+        raise Problem(UNPROCESSABLE, _user_message(exc, names)) from None
+    if stem.channels > max_channels:
+        raise Problem(UNPROCESSABLE, f"the stem has {stem.channels} channels; this server "
+                      f"accepts at most {max_channels}")
+    if stem.duration > max_duration_s:
+        raise Problem(UNPROCESSABLE, f"the stem lasts {stem.duration:.1f} s; this server "
+                      f"accepts at most {max_duration_s:.0f} s")
+    source = "file names" if labels else None
+    if not several and stem.channel_mask:
+        labels = labels_from_mask(stem.channel_mask, stem.channels)
+        source = "WAV channel mask" if labels else None
+    layout = suggest_layout(stem.channels, labels)
+    if layout is None and labels is not None:
+        layout = suggest_layout(stem.channels)
+    return {
+        "files": [
+            {"name": up.filename, "stored": path.name, "size": up.size, "sha256": up.sha256,
+             "channels": info.channels, "frames": info.frames}
+            for up, path, info in zip(uploads, stored, infos)
+        ],
+        "format": stem.format,
+        "subtype": stem.subtype,
+        "samplerate": stem.samplerate,
+        "channels": stem.channels,
+        "frames": stem.frames,
+        "duration_s": round(stem.duration, 6),
+        "channel_mask": None if stem.channel_mask is None else f"0x{stem.channel_mask:X}",
+        "channel_labels": labels,
+        "labels_source": source,
+        "suggested_layout": layout.name if layout else None,
+        "warnings": [_user_message(w, names) for w in stem.warnings],
+    }
+
+
+@router.post("", status_code=201, openapi_extra=_UPLOAD_BODY,
+             summary="Upload a stem: one multichannel file or several mono files")
+async def upload_stem(request: Request, response: Response,
+                      owner: str = Depends(current_owner)) -> dict:
+    settings = request.app.state.settings
+    storage: Storage = request.app.state.storage
+    length = declared_length(request, settings.max_upload_bytes)
+    storage.check_space(length or 0, settings.min_free_bytes)
+    folder = storage.new_tmp()
+    try:
+        uploads = await receive_files(request, folder, limit=settings.max_upload_bytes)
+        described = await to_thread.run_sync(
+            _probe, folder, uploads, settings.max_channels, settings.max_duration_s)
+        stem_id = new_id()
+        meta = {"id": stem_id, "owner": owner,
+                "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+                "created_ts": time.time(), **described}
+        write_json_atomic(folder / META, meta)
+        storage.commit(folder, "stems", stem_id)
+    except BaseException:
+        import shutil
+
+        shutil.rmtree(folder, ignore_errors=True)
+        raise
+    response.headers["Location"] = f"/v1/stems/{stem_id}"
+    return stem_summary(meta)
+
+
+@router.get("", summary="List your stems")
+def list_stems(request: Request, owner: str = Depends(current_owner)) -> list[dict]:
+    return [stem_summary(m) for m in request.app.state.storage.list_meta("stems", owner)]
+
+
+@router.get("/{stem_id}", summary="Describe a stem")
+def get_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
+    return stem_summary(request.app.state.storage.read_meta("stems", stem_id, owner))
+
+
+@router.delete("/{stem_id}", status_code=204, summary="Delete a stem")
+def delete_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> Response:
+    storage: Storage = request.app.state.storage
+    storage.read_meta("stems", stem_id, owner)
+    busy = [j.id for j in request.app.state.queue.list(owner=owner, active=True)
+            if j.payload.get("stem_id") == stem_id]
+    if busy:
+        raise Problem(CONFLICT, f"stem {stem_id!r} is used by render(s) {', '.join(busy)} that "
+                      "are queued or running; cancel them first")
+    storage.delete("stems", stem_id)
+    return Response(status_code=204)

@@ -1,0 +1,1 @@
+"""Operator tools for the service (load checks); not imported by the app."""

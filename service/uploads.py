@@ -1,0 +1,165 @@
+"""Streaming multipart uploads to disk.
+
+FastAPI's ``UploadFile`` spools each part through python-multipart with a size limit
+that only truncates; a multi-GB stem needs the body streamed to disk in chunks, hashed
+on the way, and refused with 413 as soon as it exceeds the limit. This module feeds
+``request.stream()`` to python-multipart's push parser and writes each file part to its
+own file in a folder the caller owns (and removes on failure).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import BinaryIO
+
+from python_multipart.exceptions import MultipartParseError
+from python_multipart.multipart import MultipartParser, parse_options_header
+from starlette.requests import ClientDisconnect, Request
+
+from .problems import BAD_REQUEST, TOO_LARGE, UNSUPPORTED, Problem
+
+#: Longest file name kept as metadata (characters); longer names are cut.
+MAX_NAME_CHARS = 255
+
+#: Most file parts in one request (a 22.2 stem as mono files is 24; 22.2 plus spares).
+MAX_PARTS = 128
+
+#: Bytes of form fields other than files kept per request.
+MAX_FIELD_BYTES = 64 * 1024
+
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
+@dataclass(frozen=True)
+class UploadedFile:
+    """One file part written to disk."""
+
+    field: str
+    filename: str  # the client's name, metadata only: base name, no control characters
+    path: Path
+    size: int
+    sha256: str
+
+
+def clean_filename(raw: str) -> str:
+    """The client's file name reduced to harmless metadata (base name, printable)."""
+    name = raw.replace("\\", "/").split("/")[-1]
+    name = _CONTROL.sub("", name).strip()
+    if name in ("", ".", ".."):
+        name = "upload"
+    return name[:MAX_NAME_CHARS]
+
+
+def declared_length(request: Request, limit: int) -> int | None:
+    """The Content-Length, or 413 before reading if it exceeds ``limit``."""
+    value = request.headers.get("content-length")
+    if value is None:
+        return None
+    try:
+        length = int(value)
+    except ValueError:
+        raise Problem(BAD_REQUEST, f"Content-Length {value!r} is not a number") from None
+    if length > limit:
+        raise Problem(TOO_LARGE, f"the upload is {length} bytes; at most {limit} are accepted "
+                      f"({limit / 1e9:.2f} GB)")
+    return length
+
+
+async def receive_files(request: Request, folder: Path, *, limit: int,
+                        field: str = "file") -> list[UploadedFile]:
+    """Stream the multipart body's ``field`` parts into ``folder`` (``part-N``).
+
+    Raises
+    ------
+    Problem
+        415 if the body is not multipart/form-data, 400 if it is malformed or has no
+        ``field`` part, 413 once more than ``limit`` bytes have arrived.
+    """
+    ctype, options = parse_options_header(request.headers.get("content-type", ""))
+    if ctype != b"multipart/form-data" or b"boundary" not in options:
+        raise Problem(UNSUPPORTED, f"expected a multipart/form-data body with {field!r} file "
+                      f"parts, got Content-Type {request.headers.get('content-type', '')!r}")
+
+    files: list[UploadedFile] = []
+    state: dict = {"headers": {}, "name": b"", "value": b"", "fh": None}
+    current: dict = {}
+
+    def on_header_field(data: bytes, start: int, end: int) -> None:
+        state["name"] += data[start:end]
+
+    def on_header_value(data: bytes, start: int, end: int) -> None:
+        state["value"] += data[start:end]
+        if len(state["value"]) > 8192:
+            raise Problem(BAD_REQUEST, "a multipart header is longer than 8192 bytes")
+
+    def on_header_end() -> None:
+        state["headers"][state["name"].lower()] = state["value"]
+        state["name"], state["value"] = b"", b""
+
+    def on_headers_finished() -> None:
+        _, opts = parse_options_header(state["headers"].get(b"content-disposition", b""))
+        name = opts.get(b"name", b"").decode("utf-8", "replace")
+        filename = opts.get(b"filename")
+        current.clear()
+        current.update(field=name, is_file=filename is not None and name == field)
+        if current["is_file"]:
+            if len(files) >= MAX_PARTS:
+                raise Problem(BAD_REQUEST, f"at most {MAX_PARTS} files per upload")
+            path = folder / f"part-{len(files)}"
+            current.update(filename=clean_filename(filename.decode("utf-8", "replace")),
+                           path=path, size=0, digest=hashlib.sha256(),
+                           fh=open(path, "wb"))  # noqa: SIM115 - closed in on_part_end
+        else:
+            current.update(size=0)
+
+    def on_part_data(data: bytes, start: int, end: int) -> None:
+        chunk = data[start:end]
+        current["size"] += len(chunk)
+        if current.get("is_file"):
+            fh: BinaryIO = current["fh"]
+            fh.write(chunk)
+            current["digest"].update(chunk)
+        elif current["size"] > MAX_FIELD_BYTES:
+            raise Problem(BAD_REQUEST, f"form field {current['field']!r} is too long")
+
+    def on_part_end() -> None:
+        if current.get("is_file"):
+            current["fh"].close()
+            files.append(UploadedFile(current["field"], current["filename"], current["path"],
+                                      current["size"], current["digest"].hexdigest()))
+        state["headers"] = {}
+        current.clear()
+
+    parser = MultipartParser(
+        options[b"boundary"],
+        {"on_header_field": on_header_field, "on_header_value": on_header_value,
+         "on_header_end": on_header_end, "on_headers_finished": on_headers_finished,
+         "on_part_data": on_part_data, "on_part_end": on_part_end},
+    )
+    received = 0
+    try:
+        async for chunk in request.stream():
+            received += len(chunk)
+            if received > limit:
+                raise Problem(TOO_LARGE, f"the upload exceeded {limit} bytes "
+                              f"({limit / 1e9:.2f} GB), the most accepted")
+            parser.write(chunk)
+        parser.finalize()
+        if current.get("is_file"):
+            raise Problem(BAD_REQUEST, "the upload ended in the middle of a file; send it again")
+    except MultipartParseError as exc:
+        raise Problem(BAD_REQUEST, f"the multipart body is malformed: {exc}") from None
+    except ClientDisconnect:
+        raise Problem(BAD_REQUEST, "the client disconnected before the upload finished") \
+            from None
+    finally:
+        fh = current.get("fh")
+        if fh is not None and not fh.closed:
+            fh.close()
+    if not files:
+        raise Problem(BAD_REQUEST, f"no file in the upload: send the audio as multipart "
+                      f"field {field!r} (repeat it for several mono files)")
+    return files
