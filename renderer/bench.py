@@ -61,19 +61,33 @@ def make_noise_stem(path: str | os.PathLike, channels: int, seconds: float,
             w.write((0.1 * rng.standard_normal((n, channels))).astype(np.float32))
 
 
-def _case_ours(stem: str, layout: str, out: str) -> dict:
-    from .render import RenderSettings, render
+def _settings(layout: str, room: str, mode: str = "shared"):
+    from .render import RenderSettings
 
-    report = render([stem], out, RenderSettings(layout=layout, hrtf=BENCH_HRTF))
+    return RenderSettings(layout=layout, hrtf=BENCH_HRTF, room=room, room_mode=mode)
+
+
+def _case_ours(stem: str, layout: str, out: str, room: str) -> dict:
+    from .render import render
+
+    report = render([stem], out, _settings(layout, room))
     return {"seconds": report["timings_s"]["render"], "block_size": report["engine"]["block_size"]}
 
 
-def _case_baseline(stem: str, layout: str, out: str) -> dict:
+def _case_ours_exact(stem: str, layout: str, out: str, room: str) -> dict:
+    from .render import render
+
+    report = render([stem], out, _settings(layout, room, "exact"))
+    return {"seconds": report["timings_s"]["render"]}
+
+
+def _case_baseline(stem: str, layout: str, out: str, room: str) -> dict:
     from .audio_io import read_audio, write_audio
     from .convolution import convolve_reference
-    from .render import RenderSettings, plan_render
+    from .render import plan_render
 
-    plan = plan_render([stem], RenderSettings(layout=layout, hrtf=BENCH_HRTF))
+    # With a room the baseline convolves the full room response of every loudspeaker.
+    plan = plan_render([stem], _settings(layout, room, "exact"))
     t0 = time.perf_counter()
     data, rate = read_audio(stem)
     y = convolve_reference(data, plan.filters)
@@ -81,14 +95,14 @@ def _case_baseline(stem: str, layout: str, out: str) -> dict:
     return {"seconds": time.perf_counter() - t0}
 
 
-def _case_io_floor(stem: str, layout: str, out: str) -> dict:
+def _case_io_floor(stem: str, layout: str, out: str, room: str) -> dict:
     from .audio_io import OutputWriter, StemReader
     from .convolution import DEFAULT_BLOCK_SIZE
-    from .render import RenderSettings, plan_render
+    from .render import plan_render
 
-    plan = plan_render([stem], RenderSettings(layout=layout, hrtf=BENCH_HRTF))
+    plan = plan_render([stem], _settings(layout, room))
     info = plan.stem
-    tail = plan.filters.shape[-1] - 1
+    tail = plan.length - 1
     t0 = time.perf_counter()
     with StemReader(info) as reader, OutputWriter(
         out, info.samplerate, 2, subtype="PCM_24", frames_hint=info.frames + tail
@@ -100,15 +114,16 @@ def _case_io_floor(stem: str, layout: str, out: str) -> dict:
     return {"seconds": time.perf_counter() - t0}
 
 
-_CASES = {"ossicle": _case_ours, "baseline": _case_baseline, "io_floor": _case_io_floor}
+_CASES = {"ossicle": _case_ours, "ossicle_exact": _case_ours_exact, "baseline": _case_baseline,
+          "io_floor": _case_io_floor}
 
 
-def _child(conn, case: str, stem: str, layout: str, out: str) -> None:
+def _child(conn, case: str, stem: str, layout: str, out: str, room: str) -> None:
     try:
         import renderer.render  # noqa: F401  (imports outside the measured memory)
 
         before = _rss_bytes()
-        result = _CASES[case](stem, layout, out)
+        result = _CASES[case](stem, layout, out, room)
         result["peak_memory_bytes"] = max(_maxrss_bytes() - before, 0)
         conn.send(("ok", result))
     except BaseException as exc:  # report any failure to the parent, never hang it
@@ -117,10 +132,10 @@ def _child(conn, case: str, stem: str, layout: str, out: str) -> None:
         conn.close()
 
 
-def _run_case(case: str, stem: str, layout: str, out: str) -> dict:
+def _run_case(case: str, stem: str, layout: str, out: str, room: str = "none") -> dict:
     ctx = mp.get_context("spawn")
     parent, child = ctx.Pipe(duplex=False)
-    proc = ctx.Process(target=_child, args=(child, case, stem, layout, out))
+    proc = ctx.Process(target=_child, args=(child, case, stem, layout, out, room))
     proc.start()
     child.close()
     try:
@@ -140,8 +155,14 @@ def run_bench(
     memory_check: bool = True,
     progress: Callable[[str], None] | None = None,
     workdir: str | os.PathLike | None = None,
+    room: str = "none",
 ) -> dict:
-    """Run the benchmark and return its figures (JSON-ready)."""
+    """Run the benchmark and return its figures (JSON-ready).
+
+    With a ``room``, ossicle renders with the shared tail, an extra case renders the exact
+    mode (a full room response per loudspeaker), and the baseline convolves those full
+    responses.
+    """
     from .layouts import get_layout
 
     say = progress or (lambda msg: None)
@@ -150,6 +171,7 @@ def run_bench(
         "samplerate": BENCH_SAMPLERATE,
         "seconds": seconds,
         "hrtf": BENCH_HRTF,
+        "room": room,
         "cpu_count": os.cpu_count(),
         "machine": platform.machine(),
         "python": platform.python_version(),
@@ -163,9 +185,10 @@ def run_bench(
             say(f"bench: generating {seconds:g} s {layout.name} noise stem")
             make_noise_stem(stem, layout.channels, seconds)
             row: dict = {"channels": layout.channels}
-            for case in _CASES:
+            cases = [c for c in _CASES if room != "none" or c != "ossicle_exact"]
+            for case in cases:
                 say(f"bench: {layout.name} {case}")
-                r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"))
+                r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"), room)
                 row[case] = {
                     "seconds": round(r["seconds"], 4),
                     "x_real_time": round(seconds / r["seconds"], 1),
@@ -175,6 +198,9 @@ def run_bench(
                     row["block_size"] = r["block_size"]
             row["speedup_vs_baseline"] = round(row["baseline"]["seconds"] / row["ossicle"]["seconds"], 2)
             row["ratio_to_io_floor"] = round(row["ossicle"]["seconds"] / row["io_floor"]["seconds"], 2)
+            if "ossicle_exact" in row:
+                row["exact_vs_shared"] = round(
+                    row["ossicle_exact"]["seconds"] / row["ossicle"]["seconds"], 2)
             results["layouts"][layout.name] = row
             os.remove(stem)
         if memory_check:
@@ -185,7 +211,7 @@ def run_bench(
                 stem = str(Path(tmp) / f"mem-{label}.wav")
                 say(f"bench: memory check, {length:g} s {layout.name} stem")
                 make_noise_stem(stem, layout.channels, length)
-                r = _run_case("ossicle", stem, layout.name, str(Path(tmp) / "mem-out.wav"))
+                r = _run_case("ossicle", stem, layout.name, str(Path(tmp) / "mem-out.wav"), room)
                 mem[label] = {"seconds_of_audio": length,
                               "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1)}
                 os.remove(stem)
@@ -198,7 +224,8 @@ def format_bench(result: dict) -> str:
     """The benchmark figures as a plain-text table."""
     lines = [
         f"ossicle bench: {result['seconds']:g} s noise stems at {result['samplerate']} Hz, "
-        f"HRTF {result['hrtf']}, {result['cpu_count']} CPU(s), numpy {result['numpy']}",
+        f"HRTF {result['hrtf']}, room {result.get('room', 'none')}, {result['cpu_count']} CPU(s), "
+        f"numpy {result['numpy']}",
         "",
         f"{'layout':<7} {'ch':>3} {'ossicle xRT':>12} {'baseline xRT':>13} {'I/O floor xRT':>14}"
         f" {'speed-up':>9} {'ours/floor':>11} {'peak MB':>8}",
@@ -209,6 +236,8 @@ def format_bench(result: dict) -> str:
             f"{row['baseline']['x_real_time']:>13.1f} {row['io_floor']['x_real_time']:>14.1f} "
             f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
             f"{row['ossicle']['peak_memory_mb']:>8.1f}"
+            + (f"   exact mode {row['ossicle_exact']['x_real_time']:.1f} xRT "
+               f"({row['exact_vs_shared']:.2f}x the shared time)" if "ossicle_exact" in row else "")
         )
     mem = result.get("memory")
     if mem:

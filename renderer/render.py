@@ -26,6 +26,11 @@ from .hrir import HrirSet, load_hrir_set
 from .layouts import Layout, get_layout, labels_from_filenames, resolve_channel_order
 from .lfe import LfeOptions, lfe_filter
 from .onsets import onset_times
+from .room import Room, get_room
+from .room_filters import build_room_filters, exact_brirs
+
+#: Room modes: the diffuse tail shared by all loudspeakers, or a whole response per loudspeaker.
+ROOM_MODES = ("shared", "exact")
 
 #: Speed of sound used for loudspeaker distance compensation (m/s, dry air at 20 C).
 SPEED_OF_SOUND = 343.0
@@ -57,9 +62,14 @@ class RenderSettings:
     format : str, optional
         ``wav`` or ``flac``; from the output's extension when omitted.
     seed : int
-        Seed of every random choice (dither), so a render is repeatable.
+        Seed of every random choice (dither, the room's tail), so a render is repeatable.
     block_size : int
         Frames per engine block.
+    room : str, Room or None
+        ``"none"``, a preset (``small``, ``medium``, ``large``) or a JSON room file.
+    room_mode : str
+        ``"shared"`` (the diffuse tail rendered once from a weighted sum of the channels)
+        or ``"exact"`` (a full room response per loudspeaker; for comparison).
     """
 
     layout: str | Layout = "7.1.4"
@@ -70,6 +80,8 @@ class RenderSettings:
     format: str | None = None
     seed: int = 0
     block_size: int = DEFAULT_BLOCK_SIZE
+    room: str | Room | None = "none"
+    room_mode: str = "shared"
 
 
 @dataclass(frozen=True)
@@ -84,6 +96,18 @@ class RenderPlan:
     filters: np.ndarray  # (C, 2, L) in file channel order
     speakers: tuple[dict, ...]
     warnings: tuple[str, ...]
+    tail: np.ndarray | None = None  # (2, Lt): shared room tail, or None
+    tail_weights: np.ndarray | None = None  # (C,) in file channel order
+    tail_offset: int = 0
+    room: dict | None = None  # the room's report section
+
+    @property
+    def length(self) -> int:
+        """Length of the whole response: output frames = input frames + length - 1."""
+        n = self.filters.shape[-1]
+        if self.tail is not None:
+            n = max(n, self.tail_offset + self.tail.shape[-1])
+        return n
 
 
 def resolve_hrtf(name_or_path: str | os.PathLike | None) -> tuple[str, str]:
@@ -163,9 +187,39 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
     path, name = resolve_hrtf(settings.hrtf)
     hset = load_hrir_set(path, stem.samplerate, name=name)
 
+    room, room_filters, room_report = None, None, None
+    if settings.room_mode not in ROOM_MODES:
+        raise RendererError(
+            f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
+        )
+    requested_room = get_room(settings.room)
+    if requested_room is not None and _is_measured_room(hset):
+        warnings.append(
+            f"HRTF set {hset.name!r} already holds room responses (RoomType "
+            f"{hset.room_type!r}); rendered as measured, the synthetic room "
+            f"{requested_room.name!r} was not added"
+        )
+        room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type,
+                       "requested": requested_room.name}
+    elif requested_room is not None:
+        room = requested_room
+        room_filters = build_room_filters(hset, layout, room, stem.samplerate, seed=settings.seed)
+        room_report = {"synthetic": True, "mode": settings.room_mode, **room_filters.report}
+        warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
+    elif _is_measured_room(hset):
+        room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
+
+    # Without a room, optional loudspeaker distances act as in an uncalibrated room: the
+    # farther loudspeakers arrive later and quieter (1/r), relative to the nearest. With a
+    # room, the room model places each loudspeaker at its distance itself.
     distances = [s.distance for s in layout.speakers if s.distance and not s.lfe]
-    ref_distance = max(distances) if distances else None
+    near = min(distances) if distances and room is None else None
     lfe_gain, lfe_onset = _lfe_reference(hset) if layout.lfe_indices else (1.0, 0)
+    if room_filters is not None:
+        lfe_onset += int(round(room_filters.report["reference_arrival_samples"]))
+    brirs = None
+    if room_filters is not None and settings.room_mode == "exact":
+        brirs = exact_brirs(room_filters)
 
     pairs: list[np.ndarray] = []
     speakers: list[dict] = []
@@ -193,10 +247,12 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
             )
             if pair.warning:
                 warnings.append(f"{spk.label}: {pair.warning}")
-            if spk.distance and ref_distance:
-                # Nearer loudspeakers arrive earlier and louder (1/r), as in the room.
-                delay = (ref_distance - spk.distance) / SPEED_OF_SOUND * stem.samplerate
-                gain = ref_distance / spk.distance
+            if room_filters is not None:
+                ir = (brirs if brirs is not None else room_filters.early)[speaker_index]
+                entry["room"] = True
+            elif spk.distance and near:
+                delay = (spk.distance - near) / SPEED_OF_SOUND * stem.samplerate
+                gain = near / spk.distance
                 shift = int(round(delay))
                 ir = np.concatenate([np.zeros((2, shift)), ir * gain], axis=1)
                 entry.update(distance_m=spk.distance, delay_samples=shift,
@@ -208,8 +264,65 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
     filters = np.zeros((len(pairs), 2, length), dtype=np.float64)
     for i, p in enumerate(pairs):
         filters[i, :, : p.shape[-1]] = p
+    tail = tail_weights = None
+    tail_offset = 0
+    if room_filters is not None and brirs is None:
+        tail = room_filters.tail
+        tail_weights = np.asarray(room_filters.tail_weights)[list(order)]
+        tail_offset = int(room_filters.tail_offset)
     return RenderPlan(stem, layout, order, order_source, hset, filters, tuple(speakers),
-                      tuple(warnings))
+                      tuple(warnings), tail, tail_weights, tail_offset, room_report)
+
+
+def _is_measured_room(hset: HrirSet) -> bool:
+    """Does the set already hold room responses (a reverberant RoomType or a BRIR convention)?"""
+    room_type = (hset.room_type or "").lower().replace("-", " ")
+    return room_type not in ("", "free field", "freefield", "anechoic") or "brir" in hset.convention.lower()
+
+
+class _Engine:
+    """The per-channel convolution plus, with a room, the shared tail path.
+
+    The tail path mixes the channels with the plan's tail weights, delays the mix by the
+    tail offset (a FIFO: cheaper than leading zeros in the tail filter, which would cost
+    whole zero partitions) and convolves it with the two-ear tail.
+    """
+
+    def __init__(self, plan: RenderPlan, block_size: int) -> None:
+        self.direct = BinauralConvolver(plan.filters, block_size=block_size)
+        self.block_size = self.direct.block_size
+        self.channels = plan.filters.shape[0]
+        self.tail = None
+        if plan.tail is not None:
+            self.tail = BinauralConvolver(plan.tail[None], block_size=block_size)
+            self.weights = np.asarray(plan.tail_weights, dtype=np.float32)
+            self.fifo = np.zeros(plan.tail_offset, dtype=np.float32)
+
+    def process(self, block: np.ndarray) -> np.ndarray:
+        out = self.direct.process(block)
+        if self.tail is not None:
+            mono = np.concatenate([self.fifo, block @ self.weights])
+            n = len(block)
+            self.fifo = mono[n:]
+            out = out + self.tail.process(mono[:n, None])
+        return out
+
+    def tail_blocks(self, frames: int):
+        """The remaining ``frames`` of output after the last input (zeros pushed through)."""
+        zeros = np.zeros((self.block_size, self.channels), dtype=np.float32)
+        while frames > 0:
+            n = min(frames, self.block_size)
+            yield self.process(zeros[:n])
+            frames -= n
+
+    def describe(self) -> dict:
+        info = {"block_size": self.block_size, "partitions": self.direct.partitions,
+                "filter_length": self.direct.filter_length}
+        if self.tail is not None:
+            info["shared_tail"] = {"length": self.tail.filter_length,
+                                   "partitions": self.tail.partitions,
+                                   "offset": len(self.fifo)}
+        return info
 
 
 def render(
@@ -241,8 +354,8 @@ def render(
     plan = plan_render(inputs, settings)
     t_plan = time.perf_counter()
     stem = plan.stem
-    engine = BinauralConvolver(plan.filters, block_size=settings.block_size)
-    total = stem.frames + engine.filter_length - 1
+    engine = _Engine(plan, settings.block_size)
+    total = stem.frames + plan.length - 1
     done = 0
     peak = 0.0
 
@@ -268,7 +381,9 @@ def render(
             if cancelled is not None and cancelled():
                 raise RenderCancelled("render cancelled")
             emit(engine.process(block))
-        for block in engine.flush():
+        for block in engine.tail_blocks(plan.length - 1):
+            if cancelled is not None and cancelled():
+                raise RenderCancelled("render cancelled")
             emit(block)
         clipped = writer.clipped_samples
         out_format = writer.format
@@ -319,13 +434,14 @@ def render(
             "samplerate": stem.samplerate,
             "channels": 2,
             "frames": done,
-            "filter_length": engine.filter_length,
+            "filter_length": plan.length,
             "peak_dbfs": round(20 * np.log10(peak), 2) if peak > 0 else None,
             "clipped_samples": clipped,
             "dither": "TPDF" if subtype == "PCM_16" else None,
             "seed": settings.seed,
         },
-        "engine": {"block_size": engine.block_size, "partitions": engine.partitions},
+        "engine": engine.describe(),
+        "room": plan.room,
         "timings_s": {
             "plan": round(t_plan - t0, 4),
             "render": round(t_end - t_plan, 4),

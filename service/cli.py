@@ -15,6 +15,8 @@ import time
 from collections.abc import Sequence
 from pathlib import Path
 
+import numpy as np
+
 import renderer
 from renderer import RendererError
 
@@ -91,6 +93,8 @@ def cmd_render(args: argparse.Namespace) -> int:
         subtype=args.subtype,
         format=args.format,
         seed=args.seed,
+        room=args.room,
+        room_mode=args.room_mode,
         **({"block_size": args.block_size} if args.block_size else {}),
     )
     progress = _Progress("rendering", enabled=False if args.quiet else None)
@@ -133,6 +137,25 @@ def cmd_layouts(args: argparse.Namespace) -> int:
         print("        " + ", ".join(cells))
     print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
     print("Channel order shown is the default file order; override with --channel-order.")
+    return 0
+
+
+def cmd_rooms(args: argparse.Namespace) -> int:
+    from renderer.room import ROOMS
+
+    if args.json:
+        _print_json([room.to_dict() for room in ROOMS.values()])
+        return 0
+    for room in ROOMS.values():
+        d = room.to_dict()
+        x, y, z = room.dimensions
+        rt = ", ".join(f"{t:.2f}" for t in room.rt60)
+        print(f"{room.name:<7} {x:g} x {y:g} x {z:g} m, {d.get('volume_m3', x * y * z):.0f} m3  "
+              f"{room.description}")
+        print(f"        RT60 (Eyring) 125 Hz-8 kHz: {rt} s; mixing time "
+              f"{float(room.mixing_time) * 1e3:.0f} ms; critical distance "
+              f"{np.mean(room.critical_distance):.2f} m")
+    print("\nA custom room is a JSON file: see examples/rooms/.")
     return 0
 
 
@@ -186,6 +209,7 @@ def cmd_bench(args: argparse.Namespace) -> int:
         seconds=args.seconds,
         layouts=[args.layout] if args.layout else None,
         memory_check=not args.no_memory,
+        room=args.room,
         progress=None if args.json else lambda msg: print(msg, file=sys.stderr),
     )
     if args.json:
@@ -235,6 +259,12 @@ def build_parser() -> argparse.ArgumentParser:
                    help="labels of the file's channels in file order")
     p.add_argument("--hrtf", metavar="NAME|FILE.sofa",
                    help="shipped set name (see 'ossicle hrtf list') or a SOFA file; default mit-kemar")
+    p.add_argument("--room", default="none", metavar="none|small|medium|large|FILE.json",
+                   help="synthetic room around the loudspeakers (default none; 'ossicle rooms' "
+                   "lists the presets)")
+    p.add_argument("--room-mode", default="shared", choices=["shared", "exact"],
+                   help="shared: the diffuse tail rendered once for all loudspeakers (default); "
+                   "exact: a full room response per loudspeaker")
     p.add_argument("--format", choices=["wav", "flac"], help="output format (default: from the extension)")
     p.add_argument("--subtype", default="PCM_24", type=str.upper,
                    choices=["PCM_16", "PCM_24", "FLOAT"], help="sample format (default PCM_24)")
@@ -253,6 +283,10 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("layouts", help="list loudspeaker layouts with labels and angles")
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=cmd_layouts)
+
+    p = sub.add_parser("rooms", help="list the room presets with their figures")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=cmd_rooms)
 
     p = sub.add_parser("hrtf", help="list shipped HRTF sets or inspect a SOFA file")
     hsub = p.add_subparsers(dest="hrtf_command", metavar="ACTION")
@@ -276,6 +310,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     p.add_argument("--seconds", type=float, default=60.0, help="stem length (default 60)")
     p.add_argument("--layout", help="only this layout (default: 2.0, 5.1, 7.1.4)")
+    p.add_argument("--room", default="none", help="render in this room (e.g. large); the baseline "
+                   "then convolves full room responses, and the exact mode is timed too")
     p.add_argument("--no-memory", action="store_true",
                    help="skip the memory-growth check (a 10x longer stem)")
     p.set_defaults(func=cmd_bench)

@@ -167,3 +167,63 @@ def test_unknown_hrtf_set_is_a_renderer_error(tmp_path):
     stem, _ = _stem(tmp_path, "2.0", {"L": _noise(100)})
     with pytest.raises(RendererError, match="no-such-set"):
         render([stem], tmp_path / "x.wav", RenderSettings(layout="2.0", hrtf="no-such-set"))
+
+
+# -- the room ---------------------------------------------------------------------------
+
+
+def test_room_render_shared_tail_equals_exact_brirs(tmp_path):
+    """Shared-tail rendering (tail once, from the weighted channel sum, through a FIFO)
+    against scipy.signal.oaconvolve of the full per-loudspeaker room responses."""
+    lay = get_layout("5.1")
+    feeds = {label: _noise(FS // 4, k) for k, label in enumerate(lay.labels)}
+    stem, data = _stem(tmp_path, "5.1", feeds, frames=FS // 4)
+    y, report = _render(tmp_path, stem, "5.1", room="small", block_size=2048)
+    exact = plan_render([stem], RenderSettings(layout="5.1", room="small", room_mode="exact"))
+    assert exact.tail is None
+    ref = convolve_reference(data, exact.filters)
+    assert y.shape == ref.shape
+    assert_allclose(y, ref, atol=1e-6)
+    assert report["room"]["synthetic"] and report["room"]["mode"] == "shared"
+    assert report["engine"]["shared_tail"]["length"] > 0
+    assert report["output"]["frames"] == len(data) + exact.length - 1
+
+
+def test_room_is_deterministic_for_a_seed(tmp_path):
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(FS // 8)}, frames=FS // 8)
+    outs = []
+    for name, seed in (("a", 3), ("b", 3), ("c", 4)):
+        out = tmp_path / f"{name}.wav"
+        render([stem], out, RenderSettings(layout="2.0", room="small", seed=seed, subtype="FLOAT"))
+        outs.append(read_audio(out)[0])
+    assert np.array_equal(outs[0], outs[1])
+    assert not np.array_equal(outs[0], outs[2])
+
+
+def test_room_lengthens_the_output_and_adds_reverberant_energy(tmp_path):
+    stem, _ = _stem(tmp_path, "5.1", {"C": _noise(FS // 8)}, frames=FS // 8)
+    dry, _ = _render(tmp_path, stem, "5.1")
+    wet, report = _render(tmp_path, stem, "5.1", room="medium")
+    assert len(wet) > len(dry) + FS // 4  # a tail of several hundred ms
+    late = wet[len(dry):]
+    assert _energy(late) > 1e-4 * _energy(wet)
+    assert report["room"]["rt60_requested_s"]
+
+
+def test_measured_room_set_is_rendered_as_it_is(tmp_path):
+    """A SOFA file whose RoomType says 'reverberant' already holds the room: no synthetic room."""
+    from tests.renderer import sofa_factory
+
+    spec = sofa_factory.simple_free_field()
+    spec.attrs["RoomType"] = "reverberant"
+    sofa = sofa_factory.write(tmp_path / "brir.sofa", spec)
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(FS // 8)}, frames=FS // 8)
+    _, report = _render(tmp_path, stem, "2.0", room="large", hrtf=str(sofa))
+    assert report["room"]["synthetic"] is False and report["room"]["measured_room"] is True
+    assert any("already holds room responses" in w for w in report["warnings"])
+
+
+def test_unknown_room_mode_is_an_error(tmp_path):
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(100)})
+    with pytest.raises(RendererError, match="room mode 'approx'"):
+        render([stem], tmp_path / "x.wav", RenderSettings(layout="2.0", room="small", room_mode="approx"))
