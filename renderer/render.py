@@ -26,6 +26,7 @@ from .hrir import HrirSet, load_hrir_set
 from .layouts import Layout, get_layout, labels_from_filenames, resolve_channel_order
 from .lfe import LfeOptions, lfe_filter
 from .onsets import onset_times
+from .pipeline import BackgroundWriter, prefetch
 from .room import Room, get_room
 from .room_filters import build_room_filters, exact_brirs
 
@@ -361,7 +362,7 @@ def render(
 
     def emit(block: np.ndarray) -> None:
         nonlocal done, peak
-        writer.write(block)
+        background.submit(block)
         if block.size:
             peak = max(peak, float(np.max(np.abs(block))))
         done += len(block)
@@ -377,14 +378,17 @@ def render(
         frames_hint=total,
         seed=settings.seed,
     ) as writer:
-        for block in reader.blocks(engine.block_size):
-            if cancelled is not None and cancelled():
-                raise RenderCancelled("render cancelled")
-            emit(engine.process(block))
-        for block in engine.tail_blocks(plan.length - 1):
-            if cancelled is not None and cancelled():
-                raise RenderCancelled("render cancelled")
-            emit(block)
+        # Reading, convolving and writing overlap (renderer.pipeline); the writer thread
+        # is drained before the output file is closed and renamed.
+        with BackgroundWriter(writer.write) as background:
+            for block in prefetch(reader.blocks(engine.block_size)):
+                if cancelled is not None and cancelled():
+                    raise RenderCancelled("render cancelled")
+                emit(engine.process(block))
+            for block in engine.tail_blocks(plan.length - 1):
+                if cancelled is not None and cancelled():
+                    raise RenderCancelled("render cancelled")
+                emit(block)
         clipped = writer.clipped_samples
         out_format = writer.format
     t_end = time.perf_counter()
