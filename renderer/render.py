@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 import platform
 import time
+import uuid
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -27,8 +28,14 @@ from .layouts import Layout, get_layout, labels_from_filenames, resolve_channel_
 from .lfe import LfeOptions, lfe_filter
 from .onsets import onset_times
 from .pipeline import BackgroundWriter, prefetch
+from .delivery import DeliveryOptions, deliver
+from .loudness import LoudnessMeter, channel_weights
 from .room import Room, get_room
 from .room_filters import build_room_filters, exact_brirs
+
+#: Fraction of the progress bar given to the render pass; the delivery stage's pass over
+#: the two-channel render takes the rest.
+RENDER_PROGRESS_SHARE = 0.85
 
 #: Room modes: the diffuse tail shared by all loudspeakers, or a whole response per loudspeaker.
 ROOM_MODES = ("shared", "exact")
@@ -71,6 +78,13 @@ class RenderSettings:
     room_mode : str
         ``"shared"`` (the diffuse tail rendered once from a weighted sum of the channels)
         or ``"exact"`` (a full room response per loudspeaker; for comparison).
+    loudness : float, "match" or None
+        Integrated loudness target of the output in LUFS; ``"match"`` (default) keeps the
+        input stem's programme loudness (BS.1770, surround weights, LFE excluded); None
+        applies no gain.
+    true_peak : float or None
+        True-peak limiter ceiling in dBTP (default -1); None turns the limiter off (the
+        report then says so).
     """
 
     layout: str | Layout = "7.1.4"
@@ -83,6 +97,8 @@ class RenderSettings:
     block_size: int = DEFAULT_BLOCK_SIZE
     room: str | Room | None = "none"
     room_mode: str = "shared"
+    loudness: float | str | None = "match"
+    true_peak: float | None = -1.0
 
 
 @dataclass(frozen=True)
@@ -326,6 +342,69 @@ class _Engine:
         return info
 
 
+def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: str,
+            fmt: str | None, progress, cancelled, meter_input: bool) -> dict:
+    """Stream the stem through the engine into ``path``; meter input and output on the way.
+
+    The input meter runs in the reader thread and the output meter in the writer thread,
+    so on two cores they add little to the render's time.
+    """
+    stem = plan.stem
+    engine = _Engine(plan, settings.block_size)
+    total = stem.frames + plan.length - 1
+    input_meter = None
+    if meter_input:
+        weights = channel_weights(plan.layout)[list(plan.order)]
+        input_meter = LoudnessMeter(stem.samplerate, stem.channels, weights)
+    output_meter = LoudnessMeter(stem.samplerate, 2)
+    state = {"done": 0, "peak": 0.0}
+
+    def metered(blocks):
+        for block in blocks:
+            if input_meter is not None:
+                input_meter.process(block)
+            yield block
+
+    def write(block: np.ndarray) -> None:
+        output_meter.process(block)
+        writer.write(block)
+
+    def emit(block: np.ndarray) -> None:
+        background.submit(block)
+        if block.size:
+            state["peak"] = max(state["peak"], float(np.max(np.abs(block))))
+        state["done"] += len(block)
+        if progress is not None:
+            progress(min(state["done"] / total, 1.0))
+
+    with StemReader(stem) as reader, OutputWriter(
+        path, stem.samplerate, 2, format=fmt, subtype=subtype, frames_hint=total,
+        seed=settings.seed,
+    ) as writer:
+        # Reading, convolving and writing overlap (renderer.pipeline); the writer thread
+        # is drained before the output file is closed and renamed.
+        with BackgroundWriter(write) as background:
+            for block in prefetch(metered(reader.blocks(engine.block_size))):
+                if cancelled is not None and cancelled():
+                    raise RenderCancelled("render cancelled")
+                emit(engine.process(block))
+            for block in engine.tail_blocks(plan.length - 1):
+                if cancelled is not None and cancelled():
+                    raise RenderCancelled("render cancelled")
+                emit(block)
+        clipped = writer.clipped_samples
+        out_format = writer.format
+    return {
+        "frames": state["done"],
+        "peak": state["peak"],
+        "clipped": clipped,
+        "format": out_format,
+        "engine": engine.describe(),
+        "input_loudness": None if input_meter is None else input_meter.result().integrated_lufs,
+        "render_measurement": output_meter.result(),
+    }
+
+
 def render(
     inputs: Sequence[str | os.PathLike],
     output: str | os.PathLike,
@@ -352,53 +431,62 @@ def render(
     """
     t0 = time.perf_counter()
     subtype = subtype_for(settings.subtype)
+    options = DeliveryOptions(loudness=settings.loudness, true_peak=settings.true_peak)
     plan = plan_render(inputs, settings)
     t_plan = time.perf_counter()
     stem = plan.stem
-    engine = _Engine(plan, settings.block_size)
-    total = stem.frames + plan.length - 1
-    done = 0
-    peak = 0.0
-
-    def emit(block: np.ndarray) -> None:
-        nonlocal done, peak
-        background.submit(block)
-        if block.size:
-            peak = max(peak, float(np.max(np.abs(block))))
-        done += len(block)
-        if progress is not None:
-            progress(min(done / total, 1.0))
-
-    with StemReader(stem) as reader, OutputWriter(
-        output,
-        stem.samplerate,
-        2,
-        format=settings.format,
-        subtype=subtype,
-        frames_hint=total,
-        seed=settings.seed,
-    ) as writer:
-        # Reading, convolving and writing overlap (renderer.pipeline); the writer thread
-        # is drained before the output file is closed and renamed.
-        with BackgroundWriter(writer.write) as background:
-            for block in prefetch(reader.blocks(engine.block_size)):
-                if cancelled is not None and cancelled():
-                    raise RenderCancelled("render cancelled")
-                emit(engine.process(block))
-            for block in engine.tail_blocks(plan.length - 1):
-                if cancelled is not None and cancelled():
-                    raise RenderCancelled("render cancelled")
-                emit(block)
-        clipped = writer.clipped_samples
-        out_format = writer.format
+    out_path = Path(output)
+    direct = options.loudness is None and options.true_peak is None
+    # With a delivery stage the engine writes a float32 render beside the output, which
+    # the stage reads back (gain, limiter, dither, final subtype) and then removes.
+    temp = out_path if direct else out_path.with_name(f".{out_path.name}.{uuid.uuid4().hex[:8]}.render.wav")
+    share = 1.0 if direct else RENDER_PROGRESS_SHARE
+    try:
+        streamed = _stream(
+            plan, settings, temp,
+            subtype=subtype if direct else "FLOAT",
+            fmt=settings.format if direct else "wav",
+            progress=None if progress is None else (lambda f: progress(share * f)),
+            cancelled=cancelled,
+            meter_input=options.loudness == "match",
+        )
+        t_render = time.perf_counter()
+        delivery = None
+        if not direct:
+            delivery = deliver(
+                temp, out_path, options,
+                input_loudness=streamed["input_loudness"],
+                subtype=subtype, format=settings.format, seed=settings.seed,
+                progress=None if progress is None else (lambda f: progress(share + (1 - share) * f)),
+                cancelled=cancelled,
+                render_measurement=streamed["render_measurement"],
+            )
+    finally:
+        if not direct:
+            temp.unlink(missing_ok=True)
     t_end = time.perf_counter()
 
     warnings = list(stem.warnings) + list(plan.warnings)
-    if clipped:
+    if delivery is not None:
+        warnings.extend(delivery["warnings"])
+        clipped = delivery["clipped_samples"]
+        out_format = delivery["output"]["format"]
+        peak_dbfs = delivery["output"].get("sample_peak_dbfs")
+    else:
+        clipped = streamed["clipped"]
+        out_format = streamed["format"]
+        peak = streamed["peak"]
+        peak_dbfs = round(20 * np.log10(peak), 2) if peak > 0 else None
         warnings.append(
-            f"{clipped} output samples exceeded full scale and were clipped; lower the stem's "
-            "level or write FLOAT"
+            "the true-peak limiter is off and no loudness target is set: the output keeps the "
+            "render's level, peaks included"
         )
+        if clipped:
+            warnings.append(
+                f"{clipped} output samples exceeded full scale and were clipped; lower the "
+                "stem's level, set a loudness target, or write FLOAT"
+            )
+    done = streamed["frames"]
     duration = stem.frames / stem.samplerate
     hset = plan.hrir_set
     return {
@@ -439,16 +527,18 @@ def render(
             "channels": 2,
             "frames": done,
             "filter_length": plan.length,
-            "peak_dbfs": round(20 * np.log10(peak), 2) if peak > 0 else None,
+            "peak_dbfs": peak_dbfs,
             "clipped_samples": clipped,
             "dither": "TPDF" if subtype == "PCM_16" else None,
             "seed": settings.seed,
         },
-        "engine": engine.describe(),
+        "engine": streamed["engine"],
+        "delivery": delivery,
         "room": plan.room,
         "timings_s": {
             "plan": round(t_plan - t0, 4),
-            "render": round(t_end - t_plan, 4),
+            "render": round(t_render - t_plan, 4),
+            "delivery": round(t_end - t_render, 4),
             "total": round(t_end - t0, 4),
             "x_real_time": round(duration / max(t_end - t_plan, 1e-9), 1),
         },

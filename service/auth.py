@@ -24,8 +24,12 @@ def owner_of(token: str) -> str:
     return hashlib.sha256(token.encode()).hexdigest()[:16]
 
 
-def current_owner(request: Request) -> str:
-    """FastAPI dependency: the caller's owner id, or 401 when tokens are on and none fits."""
+async def current_owner(request: Request) -> str:
+    """FastAPI dependency: the caller's owner id, or 401 when tokens are on and none fits.
+
+    ``async`` although it awaits nothing: FastAPI runs a plain function dependency in its
+    thread pool, a hop per request that a poll does not need.
+    """
     tokens: tuple[str, ...] = request.app.state.settings.tokens
     if not tokens:
         return ANONYMOUS

@@ -82,6 +82,7 @@ def _write_json(path: str, data: object) -> None:
 
 
 def cmd_render(args: argparse.Namespace) -> int:
+    from renderer.delivery import parse_loudness, parse_true_peak
     from renderer.lfe import LfeOptions
     from renderer.render import RenderSettings, render
 
@@ -95,6 +96,8 @@ def cmd_render(args: argparse.Namespace) -> int:
         seed=args.seed,
         room=args.room,
         room_mode=args.room_mode,
+        loudness=parse_loudness(args.loudness),
+        true_peak=parse_true_peak(args.true_peak),
         **({"block_size": args.block_size} if args.block_size else {}),
     )
     progress = _Progress("rendering", enabled=False if args.quiet else None)
@@ -107,16 +110,42 @@ def cmd_render(args: argparse.Namespace) -> int:
         _write_json(report_path, report)
     if not args.quiet:
         out = report["output"]
+        level = ""
+        d = report.get("delivery")
+        if d:
+            o = d["output"]
+            level = (f", {o['integrated_lufs'] if o['integrated_lufs'] is not None else '-inf'} LUFS"
+                     f", true peak {d['true_peak_after_dbtp']} dBTP")
         print(
             f"wrote {args.output}: {out['frames'] / out['samplerate']:.2f} s, "
-            f"{out['samplerate']} Hz, {out['subtype']}, peak "
-            f"{out['peak_dbfs'] if out['peak_dbfs'] is not None else '-inf'} dBFS, "
+            f"{out['samplerate']} Hz, {out['subtype']}{level}, "
             f"{report['timings_s']['x_real_time']}x real time"
             + (f"; report {report_path}" if report_path else ""),
             file=sys.stderr,
         )
         for w in report["warnings"]:
             print(f"warning: {w}", file=sys.stderr)
+    return 0
+
+
+def cmd_loudness(args: argparse.Namespace) -> int:
+    from renderer.delivery import format_measurement
+    from renderer.layouts import get_layout
+    from renderer.loudness import channel_weights, measure_file
+
+    results = []
+    for path in args.files:
+        weights = None
+        if args.layout:
+            weights = channel_weights(get_layout(args.layout))
+        result = measure_file(path, weights)
+        results.append((path, result))
+    if args.json:
+        _print_json([{"file": Path(p).name, **r.to_dict(series=args.series)} for p, r in results])
+        return 0
+    for path, result in results:
+        print(f"{path}:")
+        print(format_measurement(result))
     return 0
 
 
@@ -265,6 +294,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--room-mode", default="shared", choices=["shared", "exact"],
                    help="shared: the diffuse tail rendered once for all loudspeakers (default); "
                    "exact: a full room response per loudspeaker")
+    p.add_argument("--loudness", default="match", metavar="LUFS|match|none",
+                   help="integrated loudness of the output (ITU-R BS.1770): a LUFS target such as "
+                   "-23 (EBU R128), -16 or -14; 'match' keeps the stem's own programme loudness "
+                   "(default); 'none' applies no gain")
+    p.add_argument("--true-peak", default="-1", metavar="DBTP|off",
+                   help="true-peak limiter ceiling (default -1 dBTP); 'off' turns the limiter "
+                   "off (the report says so)")
     p.add_argument("--format", choices=["wav", "flac"], help="output format (default: from the extension)")
     p.add_argument("--subtype", default="PCM_24", type=str.upper,
                    choices=["PCM_16", "PCM_24", "FLOAT"], help="sample format (default PCM_24)")
@@ -279,6 +315,19 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--block-size", type=int, metavar="FRAMES", help="engine block size (advanced)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress or summary")
     p.set_defaults(func=cmd_render)
+
+    p = sub.add_parser(
+        "loudness",
+        help="measure loudness, loudness range and true peak of audio files",
+        description="ITU-R BS.1770-4 integrated loudness, maximum momentary and short-term "
+        "loudness, EBU Tech 3342 loudness range, and 4x-oversampled true peak of each file. "
+        "Give --layout to weight a multichannel stem's surrounds (+1.5 dB) and leave out its LFE.",
+    )
+    p.add_argument("files", nargs="+", metavar="FILE")
+    p.add_argument("--layout", help="the stem's layout, for BS.1770 channel weights")
+    p.add_argument("--json", action="store_true")
+    p.add_argument("--series", action="store_true", help="with --json: include the 10 Hz series")
+    p.set_defaults(func=cmd_loudness)
 
     p = sub.add_parser("layouts", help="list loudspeaker layouts with labels and angles")
     p.add_argument("--json", action="store_true", help="machine-readable output")

@@ -13,7 +13,9 @@ from http import HTTPStatus
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
+from pydantic import BaseModel, ConfigDict, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.routing import Match
 
 from renderer.errors import AudioError, RendererError
 
@@ -22,6 +24,63 @@ PROBLEM_TYPE = "application/problem+json"
 #: Statuses the contract names (DESIGN.md, "HTTP contract").
 BAD_REQUEST, UNAUTHORIZED, NOT_FOUND, CONFLICT = 400, 401, 404, 409
 TOO_LARGE, UNSUPPORTED, UNPROCESSABLE, QUEUE_FULL, NO_SPACE = 413, 415, 422, 429, 507
+RANGE_NOT_SATISFIABLE = 416
+
+
+class FieldError(BaseModel):
+    """One invalid field of a request (our extension member ``errors``)."""
+
+    field: str = Field(description="where: 'query.limit', 'stem_id', 'body' ...")
+    message: str
+
+
+class ProblemDetails(BaseModel):
+    """The body of every error response (RFC 9457, section 3.1)."""
+
+    model_config = ConfigDict(extra="allow")
+
+    type: str = Field("about:blank", description="RFC 9457 problem type URI")
+    title: str = Field(description="the HTTP status phrase, or a short summary")
+    status: int = Field(ge=400, le=599)
+    detail: str = Field(description="what was wrong and what to do about it")
+    instance: str | None = Field(None, description="the request path")
+    errors: list[FieldError] | None = Field(None, description="validation errors, one per field")
+
+
+_PROBLEM_SCHEMA = ProblemDetails.model_json_schema(ref_template="#/components/schemas/{model}")
+_PROBLEM_SCHEMA.pop("$defs", None)
+_PROBLEM_SCHEMA["properties"]["errors"] = {
+    "anyOf": [{"type": "array", "items": FieldError.model_json_schema()}, {"type": "null"}],
+    "description": "validation errors, one per field",
+}
+
+_WHY = {
+    400: "malformed request (e.g. a broken multipart body)",
+    401: "an API token is needed or is not valid (only when tokens are on)",
+    404: "no such object, or it is not yours",
+    409: "the object is in the wrong state for this",
+    413: "the upload is larger than this server accepts",
+    415: "not multipart, or audio that cannot be decoded",
+    416: "the Range cannot be satisfied",
+    422: "the request is well-formed but cannot be used (validation errors)",
+    429: "the render queue is full; retry after Retry-After seconds",
+    507: "not enough disk space for the upload",
+}
+
+
+def problem_responses(*statuses: int) -> dict[int | str, dict]:
+    """OpenAPI ``responses`` documenting problem-details answers with ``statuses``.
+
+    Every operation also gets 422, which FastAPI would otherwise document with its own
+    validation-error body (not what :func:`install_problem_handlers` sends).
+    """
+    out: dict[int | str, dict] = {}
+    for status in sorted({*statuses, UNPROCESSABLE}):
+        out[status] = {
+            "description": _WHY.get(status, HTTPStatus(status).phrase),
+            "content": {PROBLEM_TYPE: {"schema": _PROBLEM_SCHEMA}},
+        }
+    return out
 
 
 class Problem(Exception):
@@ -90,10 +149,14 @@ def install_problem_handlers(app: FastAPI) -> None:
         detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
         if exc.status_code == NOT_FOUND and detail == "Not Found":
             detail = f"no such resource: {request.url.path!r}; the API lives under /v1 (see /docs)"
-        elif exc.status_code == 405:
-            detail = f"{request.method} is not allowed on {request.url.path!r}"
+        headers = getattr(exc, "headers", None)
+        if exc.status_code == 405:
+            allowed = _allowed_methods(request)
+            detail = (f"{request.method} is not allowed on {request.url.path!r}; "
+                      f"allowed: {', '.join(allowed)}")
+            headers = {**(headers or {}), "Allow": ", ".join(allowed)}
         return problem_response(exc.status_code, detail, instance=request.url.path,
-                                headers=getattr(exc, "headers", None))
+                                headers=headers)
 
     @app.exception_handler(RendererError)
     async def _renderer(request: Request, exc: RendererError) -> JSONResponse:
@@ -104,3 +167,16 @@ def install_problem_handlers(app: FastAPI) -> None:
         # Reached only by a bug: say so without leaking internals.
         return problem_response(500, "an internal error occurred; the server log has details",
                                 instance=request.url.path)
+
+
+def _allowed_methods(request: Request) -> list[str]:
+    """Methods of every route on the request's path (RFC 9110, section 15.5.6: a 405
+    lists them in ``Allow``). Starlette's own 405 names only the first matching route's,
+    but FastAPI makes one route per method."""
+    methods: set[str] = set()
+    for route in request.app.router.routes:
+        match, _ = route.matches({**request.scope, "method": "GET"})
+        route_methods = getattr(route, "methods", None)
+        if match is not Match.NONE and route_methods:
+            methods |= set(route_methods)
+    return sorted(methods)

@@ -68,13 +68,21 @@ def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--max-upload-gb", type=_positive(float), help="largest upload (default 8)")
     p.add_argument("--max-queued", type=_positive(int), help="queued renders before 429 "
                    "(default 100)")
+    p.add_argument("--max-channels", type=_positive(int),
+                   help="most channels in a stem, else 422 (default 64)")
+    p.add_argument("--max-duration-hours", type=_positive(float),
+                   help="longest stem, else 422 (default 3)")
+    p.add_argument("--max-hrtf-mb", type=_positive(float),
+                   help="largest SOFA upload, else 413 (default 256)")
     p.add_argument("--retention-hours", type=_positive(float),
                    help="delete stems and renders after this long (default 168)")
     p.add_argument("--lease-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--tick-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--max-attempts", type=_positive(int), help=argparse.SUPPRESS)
     p.add_argument("--sweep-seconds", type=_positive(float), help=argparse.SUPPRESS)
-    p.add_argument("--min-free-mb", type=float, help=argparse.SUPPRESS)
+    p.add_argument("--min-free-mb", type=float,
+                   help="disk space that must stay free after an upload, else 507 "
+                   "(default 1024)")
     p.add_argument("--log-level", default="warning",
                    choices=["critical", "error", "warning", "info", "debug"])
     p.set_defaults(func=cmd_serve)
@@ -87,6 +95,9 @@ def settings_from_args(args: argparse.Namespace):
     overrides = {
         "max_upload_bytes": args.max_upload_gb and int(args.max_upload_gb * 1e9),
         "max_queued": args.max_queued,
+        "max_channels": args.max_channels,
+        "max_duration_s": args.max_duration_hours and args.max_duration_hours * 3600,
+        "max_hrtf_bytes": args.max_hrtf_mb and int(args.max_hrtf_mb * 2**20),
         "retention_s": args.retention_hours and args.retention_hours * 3600,
         "lease_s": args.lease_seconds,
         "tick_s": args.tick_seconds,

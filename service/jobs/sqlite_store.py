@@ -73,6 +73,13 @@ class SqliteJobQueue:
             for statement in _SCHEMA.strip().split(";"):
                 if statement.strip():
                     db.execute(statement)
+        # Reads (a poll of a job's state, lists, counts) go through read-only connections,
+        # one per thread, that take no Python lock: in WAL mode a reader sees the last
+        # committed state and never waits for a writer (SQLite documentation, "WAL"), so
+        # a poll is never queued behind a submit, a claim or a heartbeat.
+        self._local = threading.local()
+        self._readers: list[sqlite3.Connection] = []
+        self._closed = False
 
     # -- plumbing ----------------------------------------------------------------------
 
@@ -87,8 +94,23 @@ class SqliteJobQueue:
                 raise
             self._db.execute("COMMIT")
 
-    def _row(self, job_id: str) -> sqlite3.Row:
-        row = self._db.execute("SELECT * FROM jobs WHERE id = ?", (job_id,)).fetchone()
+    def _reader(self) -> sqlite3.Connection:
+        db = getattr(self._local, "db", None)
+        if db is None:
+            if self._closed:
+                raise sqlite3.ProgrammingError("the job store is closed")
+            uri = self.path.resolve().as_uri() + "?mode=ro"
+            db = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT_S, isolation_level=None,
+                                 check_same_thread=False)
+            db.row_factory = sqlite3.Row
+            self._local.db = db
+            with self._lock:
+                self._readers.append(db)
+        return db
+
+    def _row(self, job_id: str, db: sqlite3.Connection | None = None) -> sqlite3.Row:
+        db = self._db if db is None else db
+        row = db.execute("SELECT * FROM jobs WHERE id = ?", (job_id,)).fetchone()
         if row is None:
             raise JobNotFound(job_id)
         return row
@@ -180,8 +202,7 @@ class SqliteJobQueue:
             return self._job(self._row(job_id))
 
     def get(self, job_id: str) -> Job:
-        with self._lock:
-            return self._job(self._row(job_id))
+        return self._job(self._row(job_id, self._reader()))
 
     def list(self, owner: str | None = None, *, active: bool | None = None,
              limit: int = 1000) -> list[Job]:
@@ -195,8 +216,7 @@ class SqliteJobQueue:
             params.extend(_FINISHED)
         sql = "SELECT * FROM jobs" + (" WHERE " + " AND ".join(where) if where else "")
         sql += " ORDER BY seq DESC LIMIT ?"
-        with self._lock:
-            return [self._job(r) for r in self._db.execute(sql, (*params, int(limit)))]
+        return [self._job(r) for r in self._reader().execute(sql, (*params, int(limit)))]
 
     def delete(self, job_id: str) -> None:
         with self._write() as db:
@@ -224,13 +244,16 @@ class SqliteJobQueue:
             return [r["id"] for r in rows]
 
     def counts(self) -> dict[str, int]:
-        with self._lock:
-            rows = self._db.execute("SELECT state, COUNT(*) AS n FROM jobs GROUP BY state")
-            found = {r["state"]: r["n"] for r in rows}
+        rows = self._reader().execute("SELECT state, COUNT(*) AS n FROM jobs GROUP BY state")
+        found = {r["state"]: r["n"] for r in rows}
         return {s.value: found.get(s.value, 0) for s in JobState}
 
     def close(self) -> None:
         with self._lock:
+            self._closed = True
+            for db in self._readers:
+                db.close()
+            self._readers.clear()
             self._db.close()
 
 

@@ -34,6 +34,19 @@ TERM_GRACE_S = 1.5
 #: How often a worker sweeps the store for expired leases (s).
 RECOVER_INTERVAL_S = 1.0
 
+#: Thread counts of the numeric libraries in a render child. Parallelism comes from the
+#: worker processes (one render each); a render that also spread over every core would
+#: compete with the others and with the API for the same cores.
+SINGLE_THREADED = {name: "1" for name in (
+    "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMEXPR_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS")}
+
+
+def child_environment(base: dict[str, str] | None = None) -> dict[str, str]:
+    """The environment of a render child: ``base`` (default: ours) with single-threaded
+    numeric libraries (the child also lowers its own priority, see render_child)."""
+    return {**(os.environ if base is None else base), **SINGLE_THREADED}
+
 
 def output_paths(storage: Storage, job: Job) -> tuple[Path, Path]:
     """Where a job's audio and report go."""
@@ -117,7 +130,7 @@ class Worker:
         proc = subprocess.Popen(
             self.child_command,
             stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
-            cwd=os.getcwd(),
+            cwd=os.getcwd(), env=child_environment(),
         )
         messages: list[dict] = []
         latest = {"progress": 0.0}

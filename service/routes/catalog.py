@@ -12,9 +12,11 @@ from renderer import __version__
 
 from ..auth import current_owner
 from ..hrtf_check import HrtfCheckFailed, check_sofa
-from ..problems import BAD_REQUEST, UNPROCESSABLE, Problem
+from ..problems import (BAD_REQUEST, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED, UNPROCESSABLE,
+                        UNSUPPORTED, Problem, problem_responses)
 from ..storage import META, Storage, new_id, write_json_atomic
 from ..uploads import declared_length, receive_files
+from .models import Health
 
 router = APIRouter(prefix="/v1")
 
@@ -30,13 +32,15 @@ _SOFA_BODY = {
 }
 
 
-@router.get("/health", tags=["service"], summary="Liveness and queue counts")
+@router.get("/health", tags=["service"], summary="Liveness and queue counts",
+            response_model=Health)
 def health(request: Request) -> dict:
     return {"status": "ok", "version": __version__, "queue": request.app.state.queue.counts(),
             "auth": request.app.state.settings.auth_enabled}
 
 
-@router.get("/layouts", tags=["catalog"], summary="Loudspeaker layouts")
+@router.get("/layouts", tags=["catalog"], summary="Loudspeaker layouts",
+            responses=problem_responses(UNAUTHORIZED))
 def layouts(owner: str = Depends(current_owner)) -> list[dict]:
     from renderer.layouts import LAYOUTS
 
@@ -53,7 +57,8 @@ def room_names() -> list[str]:
     return names if "none" in names else ["none", *names]
 
 
-@router.get("/rooms", tags=["catalog"], summary="Room presets")
+@router.get("/rooms", tags=["catalog"], summary="Room presets",
+            responses=problem_responses(UNAUTHORIZED))
 def rooms(owner: str = Depends(current_owner)) -> list[dict]:
     try:
         from renderer.room import ROOMS  # type: ignore[import-not-found]
@@ -74,7 +79,8 @@ def hrtf_summary(meta: dict) -> dict:
     return out
 
 
-@router.get("/hrtf-sets", tags=["hrtf"], summary="Shipped and uploaded HRTF sets")
+@router.get("/hrtf-sets", tags=["hrtf"], summary="Shipped and uploaded HRTF sets",
+            responses=problem_responses(UNAUTHORIZED))
 def list_hrtf_sets(request: Request, owner: str = Depends(current_owner)) -> list[dict]:
     from hrtf_sets import DEFAULT_SET, list_shipped
 
@@ -85,13 +91,15 @@ def list_hrtf_sets(request: Request, owner: str = Depends(current_owner)) -> lis
     return shipped + [hrtf_summary(m) for m in storage.list_meta("hrtf", owner)]
 
 
-@router.get("/hrtf-sets/{set_id}", tags=["hrtf"], summary="One uploaded HRTF set")
+@router.get("/hrtf-sets/{set_id}", tags=["hrtf"], summary="One uploaded HRTF set",
+            responses=problem_responses(UNAUTHORIZED, NOT_FOUND))
 def get_hrtf_set(set_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
     return hrtf_summary(request.app.state.storage.read_meta("hrtf", set_id, owner))
 
 
 @router.delete("/hrtf-sets/{set_id}", tags=["hrtf"], status_code=204,
-               summary="Delete an uploaded HRTF set")
+               summary="Delete an uploaded HRTF set",
+               responses=problem_responses(UNAUTHORIZED, NOT_FOUND))
 def delete_hrtf_set(set_id: str, request: Request,
                     owner: str = Depends(current_owner)) -> Response:
     storage: Storage = request.app.state.storage
@@ -101,6 +109,8 @@ def delete_hrtf_set(set_id: str, request: Request,
 
 
 @router.post("/hrtf-sets", tags=["hrtf"], status_code=201, openapi_extra=_SOFA_BODY,
+             responses=problem_responses(UNAUTHORIZED, BAD_REQUEST, TOO_LARGE, UNSUPPORTED,
+                                         NO_SPACE),
              summary="Upload a SOFA file as an HRTF set")
 async def upload_hrtf_set(request: Request, response: Response,
                           owner: str = Depends(current_owner)) -> dict:

@@ -15,11 +15,12 @@ from renderer.errors import AudioError
 from renderer.layouts import labels_from_filenames, suggest_layout
 
 from ..auth import current_owner
-from ..problems import CONFLICT, UNPROCESSABLE, UNSUPPORTED, Problem
+from ..problems import (BAD_REQUEST, CONFLICT, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED,
+                        UNPROCESSABLE, UNSUPPORTED, Problem, problem_responses)
 from ..storage import META, Storage, new_id, write_json_atomic
 from ..uploads import UploadedFile, declared_length, receive_files
 
-router = APIRouter(prefix="/v1/stems", tags=["stems"])
+router = APIRouter(prefix="/v1/stems", tags=["stems"], responses=problem_responses(UNAUTHORIZED))
 
 _SAFE_EXT = re.compile(r"\.[a-z0-9]{1,5}")
 _SAFE_LABEL = re.compile(r"[A-Za-z0-9+\-]{1,16}")
@@ -127,6 +128,7 @@ def _probe(folder: Path, uploads: list[UploadedFile], max_channels: int,
 
 
 @router.post("", status_code=201, openapi_extra=_UPLOAD_BODY,
+             responses=problem_responses(BAD_REQUEST, TOO_LARGE, UNSUPPORTED, NO_SPACE),
              summary="Upload a stem: one multichannel file or several mono files")
 async def upload_stem(request: Request, response: Response,
                       owner: str = Depends(current_owner)) -> dict:
@@ -159,12 +161,13 @@ def list_stems(request: Request, owner: str = Depends(current_owner)) -> list[di
     return [stem_summary(m) for m in request.app.state.storage.list_meta("stems", owner)]
 
 
-@router.get("/{stem_id}", summary="Describe a stem")
+@router.get("/{stem_id}", summary="Describe a stem", responses=problem_responses(NOT_FOUND))
 def get_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
     return stem_summary(request.app.state.storage.read_meta("stems", stem_id, owner))
 
 
-@router.delete("/{stem_id}", status_code=204, summary="Delete a stem")
+@router.delete("/{stem_id}", status_code=204, summary="Delete a stem",
+               responses=problem_responses(NOT_FOUND, CONFLICT))
 def delete_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> Response:
     storage: Storage = request.app.state.storage
     storage.read_meta("stems", stem_id, owner)

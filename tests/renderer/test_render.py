@@ -33,7 +33,9 @@ def _stem(tmp_path, layout: str, feeds: dict[str, np.ndarray], frames: int = FS 
 
 
 def _render(tmp_path, stem, layout, **kw):
+    """A raw render (no loudness gain, no limiter) unless the test asks for delivery."""
     out = tmp_path / "out.wav"
+    kw = {"loudness": None, "true_peak": None, **kw}
     settings = RenderSettings(layout=layout, subtype="FLOAT", **kw)
     report = render([stem], out, settings)
     y, rate = read_audio(out)
@@ -108,7 +110,8 @@ def test_mono_files_named_by_label_match_the_interleaved_render(tmp_path):
         write_audio(p, data[:, [lay.index(label)]], FS, subtype="FLOAT")
         monos.append(p)
     out = tmp_path / "mono-out.wav"
-    report = render(monos, out, RenderSettings(layout="5.1", subtype="FLOAT"))
+    report = render(monos, out, RenderSettings(layout="5.1", subtype="FLOAT", loudness=None,
+                                               true_peak=None))
     y_mono, _ = read_audio(out)
     assert report["channel_order"]["source"] == "file names"
     assert_allclose(y_mono, y_inter, atol=1e-7)
@@ -194,7 +197,8 @@ def test_room_is_deterministic_for_a_seed(tmp_path):
     outs = []
     for name, seed in (("a", 3), ("b", 3), ("c", 4)):
         out = tmp_path / f"{name}.wav"
-        render([stem], out, RenderSettings(layout="2.0", room="small", seed=seed, subtype="FLOAT"))
+        render([stem], out, RenderSettings(layout="2.0", room="small", seed=seed, subtype="FLOAT",
+                                           loudness=None, true_peak=None))
         outs.append(read_audio(out)[0])
     assert np.array_equal(outs[0], outs[1])
     assert not np.array_equal(outs[0], outs[2])
@@ -227,3 +231,51 @@ def test_unknown_room_mode_is_an_error(tmp_path):
     stem, _ = _stem(tmp_path, "2.0", {"L": _noise(100)})
     with pytest.raises(RendererError, match="room mode 'approx'"):
         render([stem], tmp_path / "x.wav", RenderSettings(layout="2.0", room="small", room_mode="approx"))
+
+
+# -- delivery ---------------------------------------------------------------------------
+
+
+def test_default_render_matches_the_input_loudness_under_the_ceiling(tmp_path):
+    """Default delivery: 'match' the stem's programme loudness (BS.1770 weights from the
+    layout), limiter at -1 dBTP. Output loudness checked with pyloudnorm (ITU filter,
+    filter_class="DeMan"), an independent implementation of ITU-R BS.1770."""
+    import pyloudnorm
+
+    from renderer.loudness import channel_weights, measure_file, true_peak
+
+    lay = get_layout("5.1")
+    feeds = {label: _noise(2 * FS, k) for k, label in enumerate(lay.labels) if label != "LFE"}
+    stem, data = _stem(tmp_path, "5.1", feeds, frames=2 * FS)
+    out = tmp_path / "delivered.wav"
+    report = render([stem], out, RenderSettings(layout="5.1", subtype="FLOAT"))
+    y, _ = read_audio(out)
+    expected_in = measure_file(stem, channel_weights(lay)).integrated_lufs
+    d = report["delivery"]
+    assert_allclose(d["input_integrated_lufs"], expected_in, atol=0.01)
+    got = pyloudnorm.Meter(FS, filter_class="DeMan").integrated_loudness(y.astype(np.float64))
+    assert abs(got - expected_in) < 0.1
+    assert true_peak(y, FS) <= -1.0
+    assert d["limiter"]["enabled"] and d["ceiling_dbtp"] == -1.0
+
+
+def test_loud_target_is_limited_to_the_ceiling(tmp_path):
+    """A target far above what the material allows: the limiter holds the ceiling, checked
+    by an independent 4x-oversampled true-peak measurement of the written file."""
+    from renderer.loudness import true_peak
+
+    stem, _ = _stem(tmp_path, "2.0", {"L": 4 * _noise(FS), "R": 4 * _noise(FS, 9)}, frames=FS)
+    out = tmp_path / "loud.wav"
+    report = render([stem], out, RenderSettings(layout="2.0", loudness=-8.0, true_peak=-2.0))
+    y, _ = read_audio(out)
+    assert true_peak(y, FS) <= -2.0
+    lim = report["delivery"]["limiter"]
+    assert lim["samples_limited"] > 0 and lim["max_gain_reduction_db"] > 0
+    assert not list(tmp_path.glob(".*.render.wav"))  # the float temporary is gone
+
+
+def test_limiter_off_and_no_target_keeps_the_raw_level_and_says_so(tmp_path):
+    stem, data = _stem(tmp_path, "2.0", {"L": _noise(FS // 4)}, frames=FS // 4)
+    y, report = _render(tmp_path, stem, "2.0")
+    assert report["delivery"] is None
+    assert any("limiter is off" in w for w in report["warnings"])

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
 import sys
 import threading
 import time
@@ -69,17 +68,35 @@ def test_validation_errors_are_problem_details(client):
              "no stem")
 
 
-def test_options_the_renderer_lacks_are_refused_with_a_reason(client, tmp_path):
-    stem = _stem(client, tmp_path)
-    fields = {f.name for f in dataclasses.fields(RenderSettings)}
-    if "loudness" in fields:
-        pytest.skip("the renderer has a loudness option now")
-    _problem(client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1",
-                                              "loudness": -23}), 422, "not available")
-    # The neutral value is fine either way.
-    resp = client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1",
-                                            "loudness": "none", "true_peak": "off"})
-    assert resp.status_code == 202, resp.text
+def test_room_and_delivery_options_reach_the_renderer(make_client, tmp_path):
+    """Room, loudness and true-peak fields of POST /v1/renders end up in the render: the
+    report names the room and the delivery target, and the audio equals a direct render
+    with the same settings (oracle: renderer.render.render)."""
+    client = make_client(**FAST)
+    paths = write_mono_set(tmp_path, "5.1", FS // 5)
+    stem = client.post("/v1/stems", files=files_field(paths)).json()
+    body = {"stem_id": stem["id"], "room": "small", "loudness": -20, "true_peak": -2, "seed": 3}
+    job = client.post("/v1/renders", json=body).json()
+    _worker(client).run(once=True)
+    done = client.get(f"/v1/renders/{job['id']}").json()
+    assert done["state"] == "done", done
+    report = client.get(done["links"]["report"]).json()
+    assert report["room"]["synthetic"] and report["room"]["room"]["name"] == "small"
+    assert report["delivery"]["target_lufs"] == -20 and report["delivery"]["ceiling_dbtp"] == -2
+    out = tmp_path / "got.wav"
+    out.write_bytes(client.get(done["links"]["audio"]).content)
+    ref = tmp_path / "ref.wav"
+    render(paths, ref, RenderSettings(layout="5.1", room="small", loudness=-20.0, true_peak=-2.0,
+                                      seed=3))
+    assert_array_equal(read_audio(out)[0], read_audio(ref)[0])
+
+    # The words: no gain and no limiter.
+    job = client.post("/v1/renders", json={"stem_id": stem["id"], "loudness": "none",
+                                           "true_peak": "off"}).json()
+    _worker(client).run(once=True)
+    done = client.get(f"/v1/renders/{job['id']}").json()
+    assert done["state"] == "done", done
+    assert client.get(done["links"]["report"]).json()["delivery"] is None
 
 
 def test_queue_full_is_429(make_client, tmp_path):
@@ -239,3 +256,33 @@ def test_retention_sweep_removes_old_items(make_client, tmp_path):
     assert removed["stems"] == 1 and removed["renders"] == 1
     assert client.get(f"/v1/stems/{stem['id']}").status_code == 404
     assert np.isfinite(removed["tmp"])
+
+
+def test_progress_rises_while_rendering_then_reads_done(make_client, tmp_path):
+    from service.routes.models import RenderView
+
+    client = make_client(**FAST)
+    # 40 s of stereo in 64-frame blocks: a couple of seconds of rendering, long enough
+    # for several progress reports (the child reports every 0.1 s, the worker every tick).
+    stem = _stem(client, tmp_path, channels=2, frames=FS * 40)
+    job = client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "2.0",
+                                           "block_size": 64}).json()
+    thread = threading.Thread(target=_worker(client).run, kwargs={"once": True})
+    thread.start()
+    seen: list[tuple[str, float]] = []
+    deadline = time.monotonic() + 60
+    while True:
+        resp = client.get(f"/v1/renders/{job['id']}")
+        assert resp.status_code == 200, resp.text
+        view = RenderView.model_validate(resp.json())  # the documented shape, every poll
+        seen.append((view.state, view.progress))
+        if view.state not in ("queued", "running"):
+            break
+        assert time.monotonic() < deadline, seen[-5:]
+        time.sleep(0.02)
+    thread.join(timeout=10)
+    progress = [p for _, p in seen]
+    during = sorted({p for state, p in seen if state == "running" and 0.0 < p < 1.0})
+    assert len(during) >= 2, seen  # reported while rendering, not only at the end
+    assert all(b >= a for a, b in zip(progress, progress[1:])), progress  # never goes back
+    assert seen[-1] == ("done", 1.0), seen[-1]
