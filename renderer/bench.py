@@ -3,7 +3,10 @@
 For each layout a noise stem (48 kHz, PCM_24 WAV) is generated, then three cases run,
 each in a fresh process so that its peak memory is its own:
 
-* **ossicle** — the streaming engine, end to end (read, convolve, write);
+* **ossicle** — the streaming engine, end to end (read, convolve, write), raw: no
+  loudness gain, no limiter;
+* **ossicle_delivered** — the same with the default delivery stage (-23 LUFS, true-peak
+  limiter at -1 dBTP): what delivery adds is reported as a share of the raw render;
 * **baseline** — the whole stem read into memory, ``scipy.signal.oaconvolve`` once per
   (channel, ear) filter, summed, written; the same filters as ours;
 * **I/O floor** — only reading the stem in blocks and writing an output of the same size.
@@ -61,10 +64,13 @@ def make_noise_stem(path: str | os.PathLike, channels: int, seconds: float,
             w.write((0.1 * rng.standard_normal((n, channels))).astype(np.float32))
 
 
-def _settings(layout: str, room: str, mode: str = "shared"):
+def _settings(layout: str, room: str, mode: str = "shared", delivered: bool = False):
     from .render import RenderSettings
 
-    return RenderSettings(layout=layout, hrtf=BENCH_HRTF, room=room, room_mode=mode)
+    # The speed cases render raw (no loudness gain, no limiter): the engine and its I/O.
+    # The delivered case adds the default delivery stage (-23 LUFS, limiter at -1 dBTP).
+    extra = {} if delivered else {"loudness": None, "true_peak": None}
+    return RenderSettings(layout=layout, hrtf=BENCH_HRTF, room=room, room_mode=mode, **extra)
 
 
 def _case_ours(stem: str, layout: str, out: str, room: str) -> dict:
@@ -72,6 +78,14 @@ def _case_ours(stem: str, layout: str, out: str, room: str) -> dict:
 
     report = render([stem], out, _settings(layout, room))
     return {"seconds": report["timings_s"]["render"], "block_size": report["engine"]["block_size"]}
+
+
+def _case_delivered(stem: str, layout: str, out: str, room: str) -> dict:
+    from .render import render
+
+    report = render([stem], out, _settings(layout, room, delivered=True))
+    t = report["timings_s"]
+    return {"seconds": t["render"] + t["delivery"]}
 
 
 def _case_ours_exact(stem: str, layout: str, out: str, room: str) -> dict:
@@ -114,8 +128,8 @@ def _case_io_floor(stem: str, layout: str, out: str, room: str) -> dict:
     return {"seconds": time.perf_counter() - t0}
 
 
-_CASES = {"ossicle": _case_ours, "ossicle_exact": _case_ours_exact, "baseline": _case_baseline,
-          "io_floor": _case_io_floor}
+_CASES = {"ossicle": _case_ours, "ossicle_delivered": _case_delivered,
+          "ossicle_exact": _case_ours_exact, "baseline": _case_baseline, "io_floor": _case_io_floor}
 
 
 def _child(conn, case: str, stem: str, layout: str, out: str, room: str) -> None:
@@ -196,8 +210,12 @@ def run_bench(
                 }
                 if "block_size" in r:
                     row["block_size"] = r["block_size"]
+
             row["speedup_vs_baseline"] = round(row["baseline"]["seconds"] / row["ossicle"]["seconds"], 2)
             row["ratio_to_io_floor"] = round(row["ossicle"]["seconds"] / row["io_floor"]["seconds"], 2)
+            # What the delivery stage (measure, gain, limiter, final write) adds to a render.
+            row["delivery_added"] = round(
+                row["ossicle_delivered"]["seconds"] / row["ossicle"]["seconds"] - 1, 3)
             if "ossicle_exact" in row:
                 row["exact_vs_shared"] = round(
                     row["ossicle_exact"]["seconds"] / row["ossicle"]["seconds"], 2)
@@ -236,6 +254,7 @@ def format_bench(result: dict) -> str:
             f"{row['baseline']['x_real_time']:>13.1f} {row['io_floor']['x_real_time']:>14.1f} "
             f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
             f"{row['ossicle']['peak_memory_mb']:>8.1f}"
+            + f"   delivery +{row['delivery_added'] * 100:.0f} %"
             + (f"   exact mode {row['ossicle_exact']['x_real_time']:.1f} xRT "
                f"({row['exact_vs_shared']:.2f}x the shared time)" if "ossicle_exact" in row else "")
         )
@@ -248,5 +267,6 @@ def format_bench(result: dict) -> str:
             f"{mem['long']['peak_memory_mb']:.1f} MB (growth {mem['growth_mb']:+.1f} MB)",
         ]
     lines += ["", "xRT = seconds of audio per second of wall time (higher is faster); "
-              "baseline = scipy.signal.oaconvolve per filter on the whole stem."]
+              "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
+              "delivery = loudness + limiter + final write, as a share of the render pass."]
     return "\n".join(lines)

@@ -7,10 +7,12 @@ through the convolution engine into the output and returns the report.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import platform
 import time
 import uuid
+from concurrent.futures import ThreadPoolExecutor
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -32,6 +34,11 @@ from .delivery import DeliveryOptions, deliver
 from .loudness import LoudnessMeter, channel_weights
 from .room import Room, get_room
 from .room_filters import build_room_filters, exact_brirs
+
+#: Default loudness target: -23 LUFS integrated, the EBU R128 programme level.
+DEFAULT_LOUDNESS = -23.0
+#: Default true-peak ceiling of the limiter (EBU R128 allows -1 dBTP).
+DEFAULT_TRUE_PEAK = -1.0
 
 #: Fraction of the progress bar given to the render pass; the delivery stage's pass over
 #: the two-channel render takes the rest.
@@ -79,9 +86,10 @@ class RenderSettings:
         ``"shared"`` (the diffuse tail rendered once from a weighted sum of the channels)
         or ``"exact"`` (a full room response per loudspeaker; for comparison).
     loudness : float, "match" or None
-        Integrated loudness target of the output in LUFS; ``"match"`` (default) keeps the
-        input stem's programme loudness (BS.1770, surround weights, LFE excluded); None
-        applies no gain.
+        Integrated loudness target of the output in LUFS (default -23, EBU R128);
+        ``"match"`` keeps the input stem's programme loudness (BS.1770, surround weights,
+        LFE excluded; it costs a loudness pass over every input channel); None applies no
+        gain.
     true_peak : float or None
         True-peak limiter ceiling in dBTP (default -1); None turns the limiter off (the
         report then says so).
@@ -97,8 +105,8 @@ class RenderSettings:
     block_size: int = DEFAULT_BLOCK_SIZE
     room: str | Room | None = "none"
     room_mode: str = "shared"
-    loudness: float | str | None = "match"
-    true_peak: float | None = -1.0
+    loudness: float | str | None = DEFAULT_LOUDNESS
+    true_peak: float | None = DEFAULT_TRUE_PEAK
 
 
 @dataclass(frozen=True)
@@ -314,15 +322,23 @@ class _Engine:
             self.tail = BinauralConvolver(plan.tail[None], block_size=block_size)
             self.weights = np.asarray(plan.tail_weights, dtype=np.float32)
             self.fifo = np.zeros(plan.tail_offset, dtype=np.float32)
+            self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ossicle-tail")
 
     def process(self, block: np.ndarray) -> np.ndarray:
+        if self.tail is None:
+            return self.direct.process(block)
+        mono = np.concatenate([self.fifo, block @ self.weights])
+        n = len(block)
+        self.fifo = mono[n:]
+        # The tail's convolution runs on a second thread while this one does the
+        # per-channel part: both are FFTs and array arithmetic that release the GIL.
+        pending = self._pool.submit(self.tail.process, mono[:n, None])
         out = self.direct.process(block)
+        return out + pending.result()
+
+    def close(self) -> None:
         if self.tail is not None:
-            mono = np.concatenate([self.fifo, block @ self.weights])
-            n = len(block)
-            self.fifo = mono[n:]
-            out = out + self.tail.process(mono[:n, None])
-        return out
+            self._pool.shutdown(wait=True)
 
     def tail_blocks(self, frames: int):
         """The remaining ``frames`` of output after the last input (zeros pushed through)."""
@@ -343,7 +359,8 @@ class _Engine:
 
 
 def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: str,
-            fmt: str | None, progress, cancelled, meter_input: bool) -> dict:
+            fmt: str | None, progress, cancelled, meter_input: bool,
+            meter_output: bool) -> dict:
     """Stream the stem through the engine into ``path``; meter input and output on the way.
 
     The input meter runs in the reader thread and the output meter in the writer thread,
@@ -356,7 +373,7 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
     if meter_input:
         weights = channel_weights(plan.layout)[list(plan.order)]
         input_meter = LoudnessMeter(stem.samplerate, stem.channels, weights)
-    output_meter = LoudnessMeter(stem.samplerate, 2)
+    output_meter = LoudnessMeter(stem.samplerate, 2) if meter_output else None
     state = {"done": 0, "peak": 0.0}
 
     def metered(blocks):
@@ -366,7 +383,8 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
             yield block
 
     def write(block: np.ndarray) -> None:
-        output_meter.process(block)
+        if output_meter is not None:
+            output_meter.process(block)
         writer.write(block)
 
     def emit(block: np.ndarray) -> None:
@@ -377,7 +395,7 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
         if progress is not None:
             progress(min(state["done"] / total, 1.0))
 
-    with StemReader(stem) as reader, OutputWriter(
+    with contextlib.closing(engine), StemReader(stem) as reader, OutputWriter(
         path, stem.samplerate, 2, format=fmt, subtype=subtype, frames_hint=total,
         seed=settings.seed,
     ) as writer:
@@ -401,7 +419,7 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
         "format": out_format,
         "engine": engine.describe(),
         "input_loudness": None if input_meter is None else input_meter.result().integrated_lufs,
-        "render_measurement": output_meter.result(),
+        "render_measurement": None if output_meter is None else output_meter.result(),
     }
 
 
@@ -449,6 +467,7 @@ def render(
             progress=None if progress is None else (lambda f: progress(share * f)),
             cancelled=cancelled,
             meter_input=options.loudness == "match",
+            meter_output=not direct,
         )
         t_render = time.perf_counter()
         delivery = None

@@ -294,10 +294,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--room-mode", default="shared", choices=["shared", "exact"],
                    help="shared: the diffuse tail rendered once for all loudspeakers (default); "
                    "exact: a full room response per loudspeaker")
-    p.add_argument("--loudness", default="match", metavar="LUFS|match|none",
+    p.add_argument("--loudness", default="-23", metavar="LUFS|match|none",
                    help="integrated loudness of the output (ITU-R BS.1770): a LUFS target such as "
-                   "-23 (EBU R128), -16 or -14; 'match' keeps the stem's own programme loudness "
-                   "(default); 'none' applies no gain")
+                   "-23 (EBU R128, the default), -16 or -14; 'match' keeps the stem's own "
+                   "programme loudness; 'none' applies no gain")
     p.add_argument("--true-peak", default="-1", metavar="DBTP|off",
                    help="true-peak limiter ceiling (default -1 dBTP); 'off' turns the limiter "
                    "off (the report says so)")

@@ -62,16 +62,15 @@ def build_settings(options: dict):
     if "channel_order" in kwargs:
         kwargs["channel_order"] = tuple(kwargs["channel_order"])
     # The HTTP API spells "no gain" and "limiter off" as words; the renderer as None.
-    if "loudness" in options:
+    # Left out (None): the renderer's defaults.
+    if options.get("loudness") is not None:
         from renderer.delivery import parse_loudness
 
-        kwargs["loudness"] = parse_loudness(str(options["loudness"])) \
-            if options["loudness"] is not None else "match"
-    if "true_peak" in options:
+        kwargs["loudness"] = parse_loudness(str(options["loudness"]))
+    if options.get("true_peak") is not None:
         from renderer.delivery import parse_true_peak
 
-        kwargs["true_peak"] = parse_true_peak(str(options["true_peak"])) \
-            if options["true_peak"] is not None else -1.0
+        kwargs["true_peak"] = parse_true_peak(str(options["true_peak"]))
     return RenderSettings(**kwargs)
 
 

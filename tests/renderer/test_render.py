@@ -236,10 +236,10 @@ def test_unknown_room_mode_is_an_error(tmp_path):
 # -- delivery ---------------------------------------------------------------------------
 
 
-def test_default_render_matches_the_input_loudness_under_the_ceiling(tmp_path):
-    """Default delivery: 'match' the stem's programme loudness (BS.1770 weights from the
-    layout), limiter at -1 dBTP. Output loudness checked with pyloudnorm (ITU filter,
-    filter_class="DeMan"), an independent implementation of ITU-R BS.1770."""
+def test_match_keeps_the_input_loudness_under_the_ceiling(tmp_path):
+    """'match' the stem's programme loudness (BS.1770 weights from the layout), limiter at
+    -1 dBTP. Output loudness checked with pyloudnorm (ITU filter, filter_class="DeMan"), an
+    independent implementation of ITU-R BS.1770."""
     import pyloudnorm
 
     from renderer.loudness import channel_weights, measure_file, true_peak
@@ -248,7 +248,7 @@ def test_default_render_matches_the_input_loudness_under_the_ceiling(tmp_path):
     feeds = {label: _noise(2 * FS, k) for k, label in enumerate(lay.labels) if label != "LFE"}
     stem, data = _stem(tmp_path, "5.1", feeds, frames=2 * FS)
     out = tmp_path / "delivered.wav"
-    report = render([stem], out, RenderSettings(layout="5.1", subtype="FLOAT"))
+    report = render([stem], out, RenderSettings(layout="5.1", subtype="FLOAT", loudness="match"))
     y, _ = read_audio(out)
     expected_in = measure_file(stem, channel_weights(lay)).integrated_lufs
     d = report["delivery"]
@@ -279,3 +279,16 @@ def test_limiter_off_and_no_target_keeps_the_raw_level_and_says_so(tmp_path):
     y, report = _render(tmp_path, stem, "2.0")
     assert report["delivery"] is None
     assert any("limiter is off" in w for w in report["warnings"])
+
+
+def test_default_delivery_is_ebu_r128_programme_level(tmp_path):
+    """Default: -23 LUFS integrated (EBU R128), read back with pyloudnorm (ITU filter)."""
+    import pyloudnorm
+
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(2 * FS), "R": _noise(2 * FS, 5)}, frames=2 * FS)
+    out = tmp_path / "r128.wav"
+    report = render([stem], out, RenderSettings(layout="2.0"))
+    y, _ = read_audio(out)
+    got = pyloudnorm.Meter(FS, filter_class="DeMan").integrated_loudness(y.astype(np.float64))
+    assert abs(got - -23.0) < 0.1
+    assert report["delivery"]["target_lufs"] == -23.0
