@@ -12,7 +12,8 @@ each in a fresh process so that its peak memory is its own:
 * **I/O floor** — only reading the stem in blocks and writing an output of the same size.
 
 The planning step (reading and resampling the HRIR set) is excluded from every case: it
-is the same for all and does not grow with the stem. Peak memory is the process's
+is the same for all and does not grow with the stem. Each case runs three times in its
+process and the fastest run counts. Peak memory is the process's
 maximum resident set size minus its size just before the case started.
 """
 
@@ -32,6 +33,8 @@ import numpy as np
 BENCH_LAYOUTS = ("2.0", "5.1", "7.1.4")
 BENCH_SAMPLERATE = 48000
 BENCH_HRTF = "mit-kemar"
+#: Runs of each case in its process; the fastest counts.
+REPEATS = 3
 #: The memory-growth check renders a stem this many times longer than the speed cases.
 MEMORY_FACTOR = 10
 
@@ -137,7 +140,11 @@ def _child(conn, case: str, stem: str, layout: str, out: str, room: str) -> None
         import renderer.render  # noqa: F401  (imports outside the measured memory)
 
         before = _rss_bytes()
-        result = _CASES[case](stem, layout, out, room)
+        # Best of REPEATS: the machine's other work only ever adds time, so the minimum is
+        # the steadiest estimate of a case's own cost (common practice in benchmarking).
+        runs = [_CASES[case](stem, layout, out, room) for _ in range(REPEATS)]
+        result = min(runs, key=lambda r: r["seconds"])
+        result["all_seconds"] = [round(r["seconds"], 4) for r in runs]
         result["peak_memory_bytes"] = max(_maxrss_bytes() - before, 0)
         conn.send(("ok", result))
     except BaseException as exc:  # report any failure to the parent, never hang it
@@ -205,6 +212,7 @@ def run_bench(
                 r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"), room)
                 row[case] = {
                     "seconds": round(r["seconds"], 4),
+                    "runs_s": r["all_seconds"],
                     "x_real_time": round(seconds / r["seconds"], 1),
                     "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
                 }
