@@ -54,7 +54,6 @@ their labels may be free text.
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import re
@@ -67,6 +66,7 @@ import numpy as np
 
 from .errors import LayoutError
 from .geometry import direction_to_vector
+from .jsonfile import read_json_file
 
 __all__ = [
     "LAYOUTS",
@@ -568,27 +568,8 @@ def load_layout_file(path: str | os.PathLike) -> Layout:
         If the file cannot be read, is not valid JSON (the message gives the line and
         column) or does not describe a valid layout.
     """
-    p = Path(path)
-    origin = str(path)
-    try:
-        size = p.stat().st_size
-        if size > MAX_LAYOUT_FILE_BYTES:
-            raise LayoutError(
-                f"{origin!r} is {size} bytes; a layout file may be at most "
-                f"{MAX_LAYOUT_FILE_BYTES} bytes"
-            )
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise LayoutError(f"layout file {origin!r} does not exist") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise LayoutError(f"cannot read layout file {origin!r}: {exc}") from exc
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise LayoutError(
-            f"{origin!r} is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}"
-        ) from None
-    return layout_from_dict(data, name=p.stem, origin=origin)
+    data = read_json_file(path, kind="layout", max_bytes=MAX_LAYOUT_FILE_BYTES, error=LayoutError)
+    return layout_from_dict(data, name=Path(path).stem, origin=str(path))
 
 
 def get_layout(name_or_path: str | os.PathLike) -> Layout:

@@ -63,7 +63,6 @@ included). Room files are JSON, read by :func:`load_room_file` (schema:
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import types
@@ -74,6 +73,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import RendererError
+from .jsonfile import read_json_file
 
 __all__ = [
     "BANDS_HZ",
@@ -703,27 +703,8 @@ def load_room_file(path: str | os.PathLike) -> Room:
         If the file cannot be read, is not valid JSON (the message gives the line and
         column) or does not describe a valid room.
     """
-    p = Path(path)
-    origin = str(path)
-    try:
-        size = p.stat().st_size
-        if size > MAX_ROOM_FILE_BYTES:
-            raise RoomError(
-                f"{origin!r} is {size} bytes; a room file may be at most "
-                f"{MAX_ROOM_FILE_BYTES} bytes"
-            )
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise RoomError(f"room file {origin!r} does not exist") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RoomError(f"cannot read room file {origin!r}: {exc}") from exc
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise RoomError(
-            f"{origin!r} is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}"
-        ) from None
-    return room_from_dict(data, name=p.stem, origin=origin)
+    data = read_json_file(path, kind="room", max_bytes=MAX_ROOM_FILE_BYTES, error=RoomError)
+    return room_from_dict(data, name=Path(path).stem, origin=str(path))
 
 
 # -- presets -----------------------------------------------------------------------------
