@@ -15,13 +15,14 @@ import math
 import os
 import re
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from .errors import RendererError
 from .limiter import TruePeakLimiter
 from .loudness import LoudnessMeter, LoudnessResult
+from .pipeline import BackgroundWriter
 
 __all__ = [
     "DELIVERY_BLOCK_FRAMES",
@@ -167,7 +168,9 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         The float render (any channel count; a binaural render has two). Only read.
     render_measurement : LoudnessResult, optional
         The render's measurement if the caller metered it while writing ``temp_path``;
-        then the measuring pass is skipped and the file is read once.
+        then the measuring pass is skipped and the file is read once. Only its
+        integrated loudness is used (the true peaks come from the second pass), so it
+        may be measured without the true peak.
     output_path : path-like
         The delivered file, written under a temporary name and renamed when complete.
     options : DeliveryOptions
@@ -219,7 +222,7 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
     if render_measurement is not None:
         measured = render_measurement
     else:
-        before = LoudnessMeter(rate, channels)
+        before = LoudnessMeter(rate, channels, measure_true_peak=False)
         with StemReader(info) as reader:
             for block in reader.blocks(DELIVERY_BLOCK_FRAMES, reuse=True):
                 poll()
@@ -245,35 +248,52 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         else:
             gain_db = target_lufs - rendered
     gain = 10.0 ** (gain_db / 20.0)
-    tp_before = None if measured.true_peak_dbtp is None else measured.true_peak_dbtp + gain_db
 
-    # Pass 2: gain, limiter, meter, write.
+    # Pass 2: gain, limiter, meter, write. The limiter's interpolation gives the true
+    # peaks before and after it; without a limiter the output is the render after gain.
     limiter = None
     if options.true_peak is not None:
         limiter = TruePeakLimiter(rate, channels, ceiling_dbtp=options.true_peak)
-    after = LoudnessMeter(rate, channels)
+    after = LoudnessMeter(rate, channels, measure_true_peak=limiter is None)
 
     with StemReader(info) as reader, OutputWriter(
         output_path, rate, channels, format=format, subtype=subtype, frames_hint=total,
         seed=seed,
     ) as writer:
 
-        def emit(block: np.ndarray) -> None:
+        def write(block: np.ndarray) -> None:
             if block.shape[0]:
-                after.process(block)
                 writer.write(block)
 
-        for block in reader.blocks(DELIVERY_BLOCK_FRAMES, reuse=True):
-            poll()
-            # `block` is reused by the next read: everything below consumes it at once.
-            scaled = block * np.float32(gain) if gain_db else block
-            emit(limiter.process(scaled) if limiter is not None else scaled)
-            report(_PASS1_SHARE + (1 - _PASS1_SHARE) * reader.frames_read / total)
-        if limiter is not None:
-            emit(limiter.flush())
+        # Encoding the output (the slowest part, at 24 bits) runs in a writer thread
+        # beside the limiter and the meter (renderer.pipeline); it is drained before the
+        # output file is closed.
+        with BackgroundWriter(write) as background:
+
+            def emit(block: np.ndarray) -> None:
+                after.process(block)
+                background.submit(block)
+
+            for block in reader.blocks(DELIVERY_BLOCK_FRAMES, reuse=True):
+                poll()
+                # `block` is reused by the next read: the thread gets new arrays only (the
+                # limiter's output, the gain's product, or else a copy).
+                scaled = block * np.float32(gain) if gain_db else block
+                if limiter is not None:
+                    emit(limiter.process(scaled))
+                else:
+                    emit(scaled if gain_db else scaled.copy())
+                report(_PASS1_SHARE + (1 - _PASS1_SHARE) * reader.frames_read / total)
+            if limiter is not None:
+                emit(limiter.flush())
         clipped = writer.clipped_samples
         out_format = writer.format
     result = after.result()
+    if limiter is not None:
+        result = replace(result, true_peak_dbtp=_dbtp(limiter.output_true_peak))
+        tp_before = _dbtp(limiter.input_true_peak)
+    else:
+        tp_before = result.true_peak_dbtp
     report(1.0)
 
     tp_after = result.true_peak_dbtp
@@ -363,6 +383,10 @@ def _check_number(what: str, value: object, bounds: tuple[float, float], unit: s
         interval = f"between {lo:g} and {hi:g}" if open_interval else f"from {lo:g} to {hi:g}"
         raise DeliveryError(f"{what} {shown!r} is out of range; choose {interval} {unit}")
     return v
+
+
+def _dbtp(peak: float) -> float | None:
+    return 20.0 * math.log10(peak) if peak > 0 else None
 
 
 def _round(value: float | None, digits: int = 2) -> float | None:

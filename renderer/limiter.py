@@ -118,6 +118,11 @@ class TruePeakLimiter:
         Frames emitted so far with a gain below 1 (ramps and release included).
     corrections : int
         Checking passes that had to lower the gain again (diagnostic).
+    input_true_peak, output_true_peak : float
+        True peaks (linear) of the input received and of the output emitted so far, as
+        :class:`renderer.loudness.TruePeakMeter` reads them; after :meth:`flush` they
+        include the interpolation past the end. Both come from the interpolation the
+        limiter does anyway, so a caller need not meter either again.
     latency : int
         Frames held inside; :meth:`process` returns fewer frames than it is given until
         the pipeline is full, and :meth:`flush` returns the rest.
@@ -169,6 +174,9 @@ class TruePeakLimiter:
         self._x = np.zeros((e, c))  # input frames [emitted - E, received)
         self._p = np.zeros(0)  # point peaks for [emitted, received)
         self._f = np.ones(0)  # extra gain limits from corrections, same frames
+        self._t = np.zeros(0)  # threshold each point of _p was computed with, same frames
+        self._in_peak = 0.0
+        self._out_peak = 0.0
         self._emitted = 0
         self._received = 0
         self._steps = 0
@@ -194,7 +202,7 @@ class TruePeakLimiter:
             raise AudioError(f"expected float samples, got dtype {str(x.dtype)!r}")
         if x.shape[0] and not np.all(np.isfinite(x)):
             raise AudioError("the block holds NaN or infinity")
-        self._append(x.astype(np.float64))
+        self._append(x)
         out = []
         while self._received >= (self._steps + 1) * _STEP + self._reach:
             out.append(self._step((self._steps + 1) * _STEP, final=False))
@@ -212,13 +220,17 @@ class TruePeakLimiter:
         # does; points further on read nothing.
         if e:
             tail = np.zeros((e, self.channels))
-            self._p = np.concatenate([self._p, self._interp.point_peaks(
-                tail, threshold=self._target, context=self._x[-e:])])
+            threshold = min(self._target, self._in_peak)
+            peaks = self._interp.point_peaks(tail, threshold=threshold, context=self._x[-e:])
+            self._in_peak = max(self._in_peak, float(peaks.max()))
+            self._p = np.concatenate([self._p, peaks])
+            self._t = np.concatenate([self._t, np.full(e, threshold)])
             self._x = np.concatenate([self._x, tail])
             self._f = np.concatenate([self._f, np.ones(e)])
         last = end + e
         pad = self._reach + self._L + e
         self._p = np.concatenate([self._p, np.zeros(pad)])
+        self._t = np.concatenate([self._t, np.zeros(pad)])
         self._f = np.concatenate([self._f, np.ones(pad)])
         out = []
         while True:
@@ -231,16 +243,25 @@ class TruePeakLimiter:
 
     # ---------------------------------------------------------------------- internals
 
-    def _append(self, x: np.ndarray) -> None:
-        if x.shape[0] == 0:
+    def _append(self, block: np.ndarray) -> None:
+        if block.shape[0] == 0:
             return
+        x = block.astype(np.float64)
         e = self._E
+        # The gain needs every point above the target exactly; the input's true peak
+        # needs those above its running maximum (a meter's rule, seeded with the sample
+        # peak): one interpolation serves both.
+        self._in_peak = max(self._in_peak, float(x.max()), -float(x.min()))
+        threshold = min(self._target, self._in_peak)
         # float32 is ample for the peaks (errors near 1e-7 against margins of 1e-3) and
         # twice as fast.
-        peaks = self._interp.point_peaks(x.astype(np.float32), threshold=self._target,
+        peaks = self._interp.point_peaks(block.astype(np.float32, copy=False),
+                                         threshold=threshold,
                                          context=self._x[-e:] if e else None)
+        self._in_peak = max(self._in_peak, float(peaks.max()))
         self._x = np.concatenate([self._x, x])
         self._p = np.concatenate([self._p, peaks])
+        self._t = np.concatenate([self._t, np.full(x.shape[0], threshold)])
         self._f = np.concatenate([self._f, np.ones(x.shape[0])])
         self._received += x.shape[0]
 
@@ -253,7 +274,8 @@ class TruePeakLimiter:
         p = self._p[:m + self._reach]
         f = self._f[:m + lookahead - 1 + e].copy()
 
-        idle = (not np.any(p) and self._r_prev == 0.0 and not np.any(self._u_hist)
+        # Points at or under the target need no gain (they may read lower, or 0).
+        idle = (not np.any(p > self._target) and self._r_prev == 0.0 and not np.any(self._u_hist)
                 and bool(np.all(f == 1.0)) and np.array_equal(self._z_hist, self._x[:e]))
         if idle:
             g = np.ones(m)
@@ -266,7 +288,8 @@ class TruePeakLimiter:
                 g, r, u, held0 = self._gain(p, f, m)
                 # Checked as it will be written: in float32.
                 z = (x * g[:, None]).astype(np.float32)
-                peaks = self._interp.point_peaks(z, threshold=self._check,
+                # Exact above the output's running peak too, for output_true_peak.
+                peaks = self._interp.point_peaks(z, threshold=min(self._check, self._out_peak),
                                                  context=self._z_hist if e else None)
                 over = np.flatnonzero(peaks > self._check)
                 if over.size == 0:
@@ -284,6 +307,10 @@ class TruePeakLimiter:
 
         stop = end if final and end is not None else max(start, checked - self._lag)
         count = stop - start
+        # Points of the frames emitted now are final (and at the end, those past it).
+        k = m if final else max(count, 0)
+        if k:
+            self._track_output(z[:k], None if idle else peaks[:k], p[:k], self._t[:k])
         if count <= 0:
             return np.zeros((0, self.channels), dtype=np.float32)
         out = z[:count]
@@ -305,8 +332,38 @@ class TruePeakLimiter:
         self._x = self._x[count:]
         self._p = self._p[count:]
         self._f = self._f[count:]
+        self._t = self._t[count:]
         self._emitted = stop
         return out
+
+    def _track_output(self, z: np.ndarray, checked: np.ndarray | None, p: np.ndarray,
+                      t: np.ndarray) -> None:
+        """Raise the output's running true peak with the final points of ``z``.
+
+        ``checked`` holds the points of a step that was checked (exact above the running
+        peak). An idle step passes its input unchanged, so its points are the input's,
+        exact above the thresholds ``t`` they were computed with; where a threshold is
+        above the running peak they are computed again, like a meter would.
+        """
+        self._out_peak = max(self._out_peak, float(z.max()), -float(z.min()))
+        if checked is None:
+            if float(t.max()) <= self._out_peak:
+                checked = p
+            else:
+                e = self._E
+                checked = self._interp.point_peaks(z, threshold=self._out_peak,
+                                                   context=self._z_hist if e else None)
+        self._out_peak = max(self._out_peak, float(checked.max()))
+
+    @property
+    def input_true_peak(self) -> float:
+        """True peak of the input so far (linear); see the class attributes."""
+        return self._in_peak
+
+    @property
+    def output_true_peak(self) -> float:
+        """True peak of the output so far (linear); see the class attributes."""
+        return self._out_peak
 
     def _gain(self, p: np.ndarray, f: np.ndarray, m: int) -> tuple[np.ndarray, ...]:
         """Gain of the frames [emitted, emitted + m) from point peaks and extra limits."""
