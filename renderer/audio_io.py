@@ -38,6 +38,7 @@ from types import TracebackType
 import numpy as np
 import soundfile as sf
 
+from .blocks import check_block
 from .errors import AudioError
 
 __all__ = [
@@ -571,12 +572,7 @@ class OutputWriter:
         """
         if self._sf is None:
             raise AudioError(f"the writer of {self.path!r} is closed")
-        x = np.asarray(block)
-        if x.ndim != 2 or x.shape[1] != self.channels:
-            raise AudioError(f"expected a block of shape (frames, {self.channels}), "
-                             f"got {x.shape!r}")
-        if not np.issubdtype(x.dtype, np.floating):
-            raise AudioError(f"expected float samples, got dtype {str(x.dtype)!r}")
+        x = check_block(block, self.channels)
         n = x.shape[0]
         if n == 0:
             return

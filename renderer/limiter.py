@@ -36,6 +36,7 @@ import math
 import numpy as np
 from scipy.ndimage import maximum_filter1d
 
+from .blocks import check_block
 from .errors import AudioError
 from .loudness import PeakInterpolator
 
@@ -194,12 +195,7 @@ class TruePeakLimiter:
         """Feed a ``(n, channels)`` float block; return the frames now final (float32)."""
         if self._flushed:
             raise AudioError("the limiter was flushed; create a new one for another stream")
-        x = np.asarray(block)
-        if x.ndim != 2 or x.shape[1] != self.channels:
-            raise AudioError(f"expected a block of shape (frames, {self.channels}), "
-                             f"got {x.shape!r}")
-        if not np.issubdtype(x.dtype, np.floating):
-            raise AudioError(f"expected float samples, got dtype {str(x.dtype)!r}")
+        x = check_block(block, self.channels)
         if x.shape[0] and not np.all(np.isfinite(x)):
             raise AudioError("the block holds NaN or infinity")
         self._append(x)

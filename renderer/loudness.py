@@ -35,6 +35,7 @@ import numpy as np
 from scipy import signal
 from scipy.ndimage import correlate1d
 
+from .blocks import check_block
 from .errors import AudioError
 
 if TYPE_CHECKING:
@@ -409,7 +410,7 @@ class TruePeakMeter:
 
     def process(self, block: np.ndarray) -> None:
         """Meter a ``(n, channels)`` block of float samples."""
-        x = _check_block(block, self.channels)
+        x = check_block(block, self.channels)
         n = x.shape[0]
         if n == 0:
             return
@@ -689,7 +690,7 @@ class LoudnessMeter:
 
     def process(self, block: np.ndarray) -> None:
         """Meter a ``(n, channels)`` block of float samples."""
-        x = _check_block(block, self.channels)
+        x = check_block(block, self.channels)
         n = x.shape[0]
         if n == 0:
             return
@@ -817,15 +818,6 @@ def _check_channels(channels: object) -> int:
             or channels < 1:
         raise AudioError(f"channels must be a positive integer, not {channels!r}")
     return int(channels)
-
-
-def _check_block(block: np.ndarray, channels: int) -> np.ndarray:
-    x = np.asarray(block)
-    if x.ndim != 2 or x.shape[1] != channels:
-        raise AudioError(f"expected a block of shape (frames, {channels}), got {x.shape!r}")
-    if not np.issubdtype(x.dtype, np.floating):
-        raise AudioError(f"expected float samples, got dtype {str(x.dtype)!r}")
-    return x
 
 
 def _row_max(a: np.ndarray) -> np.ndarray:
