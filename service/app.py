@@ -19,6 +19,7 @@ from .jobs import open_queue
 from .problems import install_problem_handlers
 from .retention import sweep
 from .routes import catalog, renders, stems
+from .routes.pages import install_pages
 from .settings import ServiceSettings
 from .storage import Storage
 
@@ -55,6 +56,7 @@ def create_app(settings: ServiceSettings) -> FastAPI:
     app.include_router(catalog.router)
     app.include_router(stems.router)
     app.include_router(renders.router)
+    install_pages(app)
     return app
 
 
