@@ -192,6 +192,28 @@ def test_room_render_shared_tail_equals_exact_brirs(tmp_path):
     assert report["output"]["frames"] == len(data) + exact.length - 1
 
 
+@pytest.mark.parametrize("chunk, block", [(1500, 512), (4096, 4096), (700, 1024)])
+def test_shared_tail_in_chunks_equals_exact_brirs(tmp_path, monkeypatch, chunk, block):
+    """The tail convolved in chunks larger than (or equal to) the engine block, with the
+    direct output held until its tail is ready: still the whole convolution, frame for
+    frame (oracle: scipy.signal.oaconvolve of the full room responses), whatever the
+    chunk, block and stem lengths."""
+    import renderer.render as render_module
+
+    monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", chunk)
+    lay = get_layout("5.1")
+    frames = FS // 5 + 37
+    feeds = {label: _noise(frames, k) for k, label in enumerate(lay.labels)}
+    stem, data = _stem(tmp_path, "5.1", feeds, frames=frames)
+    y, report = _render(tmp_path, stem, "5.1", room="small", block_size=block)
+    exact = plan_render([stem], RenderSettings(layout="5.1", room="small", room_mode="exact"))
+    ref = convolve_reference(data, exact.filters)
+    assert y.shape == ref.shape
+    assert_allclose(y, ref, atol=1e-6)
+    assert report["engine"]["shared_tail"]["block_size"] % block == 0
+    assert report["engine"]["shared_tail"]["block_size"] >= chunk
+
+
 def test_room_is_deterministic_for_a_seed(tmp_path):
     stem, _ = _stem(tmp_path, "2.0", {"L": _noise(FS // 8)}, frames=FS // 8)
     outs = []
