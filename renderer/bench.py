@@ -238,10 +238,17 @@ def run_bench(
                 say(f"bench: memory check, {length:g} s {layout.name} stem")
                 make_noise_stem(stem, layout.channels, length)
                 r = _run_case("ossicle", stem, layout.name, str(Path(tmp) / "mem-out.wav"), room)
+                # The delivered render too: its two passes stream, so it must stay flat.
+                say(f"bench: memory check, {length:g} s {layout.name} stem, delivered")
+                d = _run_case("ossicle_delivered", stem, layout.name,
+                              str(Path(tmp) / "mem-out.wav"), room)
                 mem[label] = {"seconds_of_audio": length,
-                              "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1)}
+                              "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
+                              "delivered_peak_memory_mb": round(d["peak_memory_bytes"] / 1e6, 1)}
                 os.remove(stem)
             mem["growth_mb"] = round(mem["long"]["peak_memory_mb"] - mem["short"]["peak_memory_mb"], 1)
+            mem["delivered_growth_mb"] = round(mem["long"]["delivered_peak_memory_mb"]
+                                               - mem["short"]["delivered_peak_memory_mb"], 1)
             results["memory"] = mem
     return results
 
@@ -274,6 +281,13 @@ def format_bench(result: dict) -> str:
             f"{mem['short']['peak_memory_mb']:.1f} MB, {mem['long']['seconds_of_audio']:g} s -> "
             f"{mem['long']['peak_memory_mb']:.1f} MB (growth {mem['growth_mb']:+.1f} MB)",
         ]
+        if "delivered_growth_mb" in mem:
+            lines.append(
+                f"delivered ({mem['layout']}):     {mem['short']['seconds_of_audio']:g} s -> "
+                f"{mem['short']['delivered_peak_memory_mb']:.1f} MB, "
+                f"{mem['long']['seconds_of_audio']:g} s -> "
+                f"{mem['long']['delivered_peak_memory_mb']:.1f} MB "
+                f"(growth {mem['delivered_growth_mb']:+.1f} MB)")
     lines += ["", "xRT = seconds of audio per second of wall time (higher is faster); "
               "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
               "delivery = loudness + limiter + final write, as a share of the render pass."]

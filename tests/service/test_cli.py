@@ -141,6 +141,19 @@ def test_bench_smoke(capsys, tmp_path):
     assert "2.0" in format_bench(result)
 
 
+def test_bench_memory_check_covers_the_delivered_render(tmp_path):
+    """The memory check runs the raw and the delivered render at both lengths (figures
+    not asserted, as above: only that they are measured and shown)."""
+    from renderer.bench import format_bench, run_bench
+
+    result = run_bench(seconds=0.5, layouts=["2.0"], workdir=tmp_path)
+    mem = result["memory"]
+    for label in ("short", "long"):
+        assert mem[label]["peak_memory_mb"] >= 0 and mem[label]["delivered_peak_memory_mb"] >= 0
+    assert "delivered_growth_mb" in mem
+    assert "delivered (2.0)" in format_bench(result)
+
+
 def test_hrtf_without_action_shows_its_own_help():
     # Regression: the help shown was another subcommand's (late-bound parser variable).
     proc = _run("hrtf")
