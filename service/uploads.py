@@ -9,17 +9,23 @@ own file in a folder the caller owns (and removes on failure).
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import re
+import shutil
+from collections.abc import AsyncIterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import BinaryIO
+from typing import TYPE_CHECKING, BinaryIO
 
 from python_multipart.exceptions import MultipartParseError
 from python_multipart.multipart import MultipartParser, parse_options_header
 from starlette.requests import ClientDisconnect, Request
 
 from .problems import BAD_REQUEST, TOO_LARGE, UNSUPPORTED, Problem
+
+if TYPE_CHECKING:
+    from .storage import Storage
 
 #: Longest file name kept as metadata (characters); longer names are cut.
 MAX_NAME_CHARS = 255
@@ -163,3 +169,23 @@ async def receive_files(request: Request, folder: Path, *, limit: int,
         raise Problem(BAD_REQUEST, f"no file in the upload: send the audio as multipart "
                       f"field {field!r} (repeat it for several mono files)")
     return files
+
+
+@contextlib.asynccontextmanager
+async def staged_upload(request: Request, storage: Storage, *, limit: int,
+                        min_free_bytes: int) -> AsyncIterator[tuple[Path, list[UploadedFile]]]:
+    """Receive an upload into a new temporary folder; remove the folder if anything fails.
+
+    Checks the declared length against ``limit`` (413) and the free disk space (507)
+    before reading a byte. The body of the ``async with`` moves what it keeps into the
+    store (:meth:`Storage.commit`); on any exception, there or here, nothing is left.
+    """
+    length = declared_length(request, limit)
+    storage.check_space(length or 0, min_free_bytes)
+    folder = storage.new_tmp()
+    try:
+        files = await receive_files(request, folder, limit=limit)
+        yield folder, files
+    except BaseException:
+        shutil.rmtree(folder, ignore_errors=True)
+        raise

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import shutil
 import time
 
 from anyio import to_thread
@@ -15,7 +14,7 @@ from ..hrtf_check import HrtfCheckFailed, check_sofa
 from ..problems import (BAD_REQUEST, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED, UNPROCESSABLE,
                         UNSUPPORTED, Problem, problem_responses)
 from ..storage import META, Storage, new_id, write_json_atomic
-from ..uploads import declared_length, receive_files
+from ..uploads import staged_upload
 from .models import Health
 
 router = APIRouter(prefix="/v1")
@@ -116,11 +115,8 @@ async def upload_hrtf_set(request: Request, response: Response,
                           owner: str = Depends(current_owner)) -> dict:
     settings = request.app.state.settings
     storage: Storage = request.app.state.storage
-    length = declared_length(request, settings.max_hrtf_bytes)
-    storage.check_space(length or 0, settings.min_free_bytes)
-    folder = storage.new_tmp()
-    try:
-        files = await receive_files(request, folder, limit=settings.max_hrtf_bytes)
+    async with staged_upload(request, storage, limit=settings.max_hrtf_bytes,
+                             min_free_bytes=settings.min_free_bytes) as (folder, files):
         if len(files) != 1:
             raise Problem(BAD_REQUEST, f"send one SOFA file as field 'file', not {len(files)}")
         up = files[0]
@@ -138,8 +134,5 @@ async def upload_hrtf_set(request: Request, response: Response,
                 "created_ts": time.time(), **summary.to_dict()}
         write_json_atomic(folder / META, meta)
         storage.commit(folder, "hrtf", set_id)
-    except BaseException:
-        shutil.rmtree(folder, ignore_errors=True)
-        raise
     response.headers["Location"] = f"/v1/hrtf-sets/{set_id}"
     return hrtf_summary(meta)

@@ -18,7 +18,7 @@ from ..auth import current_owner
 from ..problems import (BAD_REQUEST, CONFLICT, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED,
                         UNPROCESSABLE, UNSUPPORTED, Problem, problem_responses)
 from ..storage import META, Storage, new_id, write_json_atomic
-from ..uploads import UploadedFile, declared_length, receive_files
+from ..uploads import UploadedFile, staged_upload
 
 router = APIRouter(prefix="/v1/stems", tags=["stems"], responses=problem_responses(UNAUTHORIZED))
 
@@ -134,11 +134,8 @@ async def upload_stem(request: Request, response: Response,
                       owner: str = Depends(current_owner)) -> dict:
     settings = request.app.state.settings
     storage: Storage = request.app.state.storage
-    length = declared_length(request, settings.max_upload_bytes)
-    storage.check_space(length or 0, settings.min_free_bytes)
-    folder = storage.new_tmp()
-    try:
-        uploads = await receive_files(request, folder, limit=settings.max_upload_bytes)
+    async with staged_upload(request, storage, limit=settings.max_upload_bytes,
+                             min_free_bytes=settings.min_free_bytes) as (folder, uploads):
         described = await to_thread.run_sync(
             _probe, folder, uploads, settings.max_channels, settings.max_duration_s)
         stem_id = new_id()
@@ -147,11 +144,6 @@ async def upload_stem(request: Request, response: Response,
                 "created_ts": time.time(), **described}
         write_json_atomic(folder / META, meta)
         storage.commit(folder, "stems", stem_id)
-    except BaseException:
-        import shutil
-
-        shutil.rmtree(folder, ignore_errors=True)
-        raise
     response.headers["Location"] = f"/v1/stems/{stem_id}"
     return stem_summary(meta)
 
