@@ -47,12 +47,16 @@ class LocalServer:
     back and stop) and the data directory is removed.
     """
 
-    def __init__(self, workers: int, extra_args: list[str] | None = None) -> None:
+    def __init__(self, workers: int, extra_args: list[str] | None = None,
+                 data_dir: str | os.PathLike[str] | None = None) -> None:
         self.workers = workers
         self.extra_args = list(extra_args or [])
         self.port = free_port()
         self.url = f"http://127.0.0.1:{self.port}"
-        self.data_dir = Path(tempfile.mkdtemp(prefix="ossicle-measure-"))
+        # A given data directory is the caller's (a restart test reuses it) and is kept.
+        self._own_dir = data_dir is None
+        self.data_dir = Path(tempfile.mkdtemp(prefix="ossicle-measure-")) / "data" \
+            if data_dir is None else Path(data_dir)
         self.proc: subprocess.Popen | None = None
 
     @property
@@ -63,7 +67,7 @@ class LocalServer:
     def __enter__(self) -> LocalServer:
         self.proc = subprocess.Popen(
             [sys.executable, "-m", "service.serve_cli", "--port", str(self.port),
-             "--data-dir", str(self.data_dir / "data"), "--workers", str(self.workers),
+             "--data-dir", str(self.data_dir), "--workers", str(self.workers),
              *self.extra_args],
             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
         )
@@ -92,7 +96,8 @@ class LocalServer:
                     self.proc.wait()
             if self.proc.stderr is not None:
                 self.proc.stderr.close()
-        shutil.rmtree(self.data_dir, ignore_errors=True)
+        if self._own_dir:
+            shutil.rmtree(self.data_dir.parent, ignore_errors=True)
 
 
 def cpu_seconds(pid: int) -> float:

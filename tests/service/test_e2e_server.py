@@ -11,9 +11,6 @@ from __future__ import annotations
 
 import os
 import signal
-import socket
-import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -25,48 +22,22 @@ from stem_factory import FS, files_field, write_mono_set, write_stem
 from renderer.audio_io import read_audio
 from renderer.render import RenderSettings, render
 from service.jobs.sqlite_store import SqliteJobQueue
-
-REPO = Path(__file__).resolve().parents[2]
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
+from service.tools.local_server import LocalServer
 
 
-class Server:
+
+class Server(LocalServer):
+    """A started ``ossicle serve`` on ``data_dir`` with short lease and tick times."""
+
     def __init__(self, data_dir: Path, workers: int) -> None:
-        self.port = _free_port()
-        self.url = f"http://127.0.0.1:{self.port}"
-        self.proc = subprocess.Popen(
-            [sys.executable, "-m", "service.serve_cli", "--port", str(self.port),
-             "--data-dir", str(data_dir), "--workers", str(workers), "--lease-seconds", "2",
-             "--tick-seconds", "0.05", "--min-free-mb", "0"],
-            cwd=REPO, stderr=subprocess.PIPE, text=True,
-        )
+        super().__init__(workers, ["--lease-seconds", "2", "--tick-seconds", "0.05",
+                                   "--min-free-mb", "0"], data_dir=data_dir)
+        self.__enter__()
         self.http = httpx.Client(base_url=self.url, timeout=30)
-        deadline = time.monotonic() + 30
-        while True:
-            try:
-                if self.http.get("/v1/health").status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            if self.proc.poll() is not None or time.monotonic() > deadline:
-                raise RuntimeError(f"server did not start: {self.proc.stderr.read()}")
-            time.sleep(0.1)
 
     def stop(self) -> None:
         self.http.close()
-        if self.proc.poll() is None:
-            self.proc.send_signal(signal.SIGTERM)
-            try:
-                self.proc.wait(20)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait()
-        self.proc.stderr.close()
+        self.__exit__(None, None, None)
 
     def wait_done(self, job_id: str, timeout: float = 60) -> dict:
         deadline = time.monotonic() + timeout
