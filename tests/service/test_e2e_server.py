@@ -25,7 +25,6 @@ from service.jobs.sqlite_store import SqliteJobQueue
 from service.tools.local_server import LocalServer
 
 
-
 class Server(LocalServer):
     """A started ``ossicle serve`` on ``data_dir`` with short lease and tick times."""
 
