@@ -263,15 +263,15 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
 
         def write(block: np.ndarray) -> None:
             if block.shape[0]:
+                after.process(block)
                 writer.write(block)
 
-        # Encoding the output (the slowest part, at 24 bits) runs in a writer thread
-        # beside the limiter and the meter (renderer.pipeline); it is drained before the
-        # output file is closed.
+        # Metering and encoding the output run in a writer thread beside the reading and
+        # the limiter (renderer.pipeline), in order; it is drained before the output file
+        # is closed and before the meter is read.
         with BackgroundWriter(write) as background:
 
             def emit(block: np.ndarray) -> None:
-                after.process(block)
                 background.submit(block)
 
             for block in reader.blocks(DELIVERY_BLOCK_FRAMES, reuse=True):
