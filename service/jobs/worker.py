@@ -28,6 +28,10 @@ from .queue import Job, JobQueue, open_queue
 
 SETTINGS_ENV = "OSSICLE_WORKER_SETTINGS"
 
+#: ``payload["kind"]`` of a job that builds a blind comparison (service.comparisons)
+#: instead of rendering; jobs without a kind are renders.
+COMPARISON_KIND = "comparison"
+
 #: Time a child gets to stop after SIGTERM before it is killed (s).
 TERM_GRACE_S = 1.5
 
@@ -93,6 +97,9 @@ class Worker:
         self._parent = os.getppid()
         #: The render child's command line (tests substitute one that crashes).
         self.child_command = [sys.executable, "-m", "service.jobs.render_child"]
+        #: The command line of a comparison build (a job whose payload kind is
+        #: "comparison"; it speaks the render child's protocol).
+        self.comparison_command = [sys.executable, "-m", "service.comparisons.build_child"]
 
     def stop(self) -> None:
         self._stop.set()
@@ -121,14 +128,21 @@ class Worker:
     def run_job(self, job: Job) -> None:
         """Render one claimed job in a child process and record how it ended."""
         q, s = self.queue, self.settings
+        comparison = job.payload.get("kind") == COMPARISON_KIND
         try:
-            spec = child_spec(self.storage, job)
+            if comparison:
+                from ..comparisons.build_child import child_spec as comparison_spec
+
+                spec = comparison_spec(self.storage, dict(job.payload), job.id)
+            else:
+                spec = child_spec(self.storage, job)
         except Exception as exc:  # the stem or set was deleted or expired meanwhile
             detail = getattr(exc, "detail", None) or str(exc)
-            q.fail(job.id, self.name, f"cannot start the render: {detail}")
+            what = "the comparison" if comparison else "the render"
+            q.fail(job.id, self.name, f"cannot start {what}: {detail}")
             return
         proc = subprocess.Popen(
-            self.child_command,
+            self.comparison_command if comparison else self.child_command,
             stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
             cwd=os.getcwd(), env=child_environment(),
         )
