@@ -72,9 +72,9 @@ def loudest_window(short_term: Sequence[float], interval_s: float, block_s: floa
     The window's loudness is the power mean of the readings whose blocks lie inside it;
     candidate starts are the readings' starts. Ties go to the earliest window.
     """
-    if length_s >= duration_s or not short_term:
-        return 0.0
     values = np.asarray(short_term, dtype=float)
+    if length_s >= duration_s or values.size == 0:
+        return 0.0
     power = np.power(10.0, values / 10.0)
     inside = max(1, int(math.floor((length_s - block_s) / interval_s + 1e-9)) + 1)
     last_start = duration_s - length_s
