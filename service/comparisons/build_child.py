@@ -47,7 +47,7 @@ def run(spec: dict) -> int:
     from renderer.render import RenderCancelled
 
     from ..jobs import render_child as rc
-    from .builder import BuildError, build
+    from .builder import BUILD_PROCESSES, BuildError, build
 
     names = spec.get("names", {})
     last = [0.0]
@@ -61,7 +61,8 @@ def run(spec: dict) -> int:
     folder = Path(spec["folder"])
     try:
         prepared = build(spec["inputs"], spec["variants"], spec["excerpt"], folder,
-                         progress=progress, cancelled=rc._cancelled)
+                         progress=progress, cancelled=rc._cancelled,
+                         processes=spec.get("processes", BUILD_PROCESSES))
     except RenderCancelled:
         rc._emit({"cancelled": True})
         return rc.EXIT_CANCELLED

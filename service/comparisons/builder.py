@@ -21,9 +21,12 @@ route handler. Steps:
 
 from __future__ import annotations
 
+import json
 import math
+import multiprocessing
 import os
 import tempfile
+import time
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
@@ -48,6 +51,16 @@ CEILING_DBTP = -1.0
 #: Output sample format of the trial files: 24-bit PCM has a fixed header in libsndfile
 #: (its float WAV adds a PEAK chunk whose values would differ between variants).
 TRIAL_SUBTYPE = "PCM_24"
+
+
+#: Processes that render a comparison's variants at once (forked from the build child
+#: after the renderer and the HRIR sets are loaded, so they start warm). A listener is
+#: waiting for the build, unlike a batch render, so it may use both cores of a small
+#: machine; renders stay one process each (service.jobs.worker).
+BUILD_PROCESSES = max(1, min(2, os.cpu_count() or 1))
+
+#: How often the build child gathers its render processes' progress (s).
+_GATHER_S = 0.05
 
 
 class BuildError(ValueError):
@@ -140,9 +153,72 @@ def choose_window(inputs: Sequence[str], settings, length_s: float) -> float:
     return loudest_window(series, interval, block, length_s, stem.duration)
 
 
+def _render_forked(jobs: list, processes: int, samplerate: int,
+                   progress: Callable[[float], None],
+                   cancelled: Callable[[], bool] | None) -> None:
+    """Render ``jobs`` (inputs, output, settings) in ``processes`` forked processes.
+
+    The HRIR sets are loaded first, so the forks share them; each fork renders every
+    ``processes``-th job, reports progress through shared memory and stops when the
+    parent asks (or dies). Errors come back as JSON text, not pickles.
+    """
+    from renderer.errors import RendererError
+    from renderer.hrir import load_hrir_set
+    from renderer.render import RenderCancelled, render, resolve_hrtf
+
+    for hrtf in {s.hrtf for _, _, s in jobs}:
+        path, name = resolve_hrtf(hrtf)
+        load_hrir_set(path, samplerate, name=name)
+    ctx = multiprocessing.get_context("fork")
+    done = ctx.Array("d", len(jobs), lock=False)
+    stop = ctx.Value("b", 0, lock=False)
+    errors = ctx.SimpleQueue()
+
+    def work(indices: list[int]) -> None:
+        parent = os.getppid()
+
+        def stopped() -> bool:
+            return bool(stop.value) or os.getppid() != parent
+
+        for i in indices:
+            ins, out, settings = jobs[i]
+            try:
+                render(ins, out, settings, cancelled=stopped,
+                       progress=lambda f, i=i: done.__setitem__(i, f))
+            except RenderCancelled:
+                os._exit(3)
+            except RendererError as exc:
+                errors.put(json.dumps({"index": i, "error": str(exc)}))
+                os._exit(2)
+        os._exit(0)
+
+    procs = [ctx.Process(target=work, args=(list(range(k, len(jobs), processes)),))
+             for k in range(processes)]
+    for p in procs:
+        p.start()
+    try:
+        while any(p.is_alive() for p in procs):
+            time.sleep(_GATHER_S)
+            progress(sum(done[:]) / len(jobs))
+            if cancelled is not None and cancelled():
+                stop.value = 1
+    finally:
+        stop.value = 1
+        for p in procs:
+            p.join()
+    if cancelled is not None and cancelled():
+        raise RenderCancelled("render cancelled")
+    if not errors.empty():
+        raise RendererError(json.loads(errors.get())["error"])
+    codes = [p.exitcode for p in procs]
+    if any(code != 0 for code in codes):
+        raise BuildError(f"a render process of the comparison died (exit status {codes}); "
+                         "the stem may be too large for this server")
+
+
 def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder: Path, *,
           progress: Callable[[float], None] | None = None,
-          cancelled: Callable[[], bool] | None = None) -> dict:
+          cancelled: Callable[[], bool] | None = None, processes: int = 1) -> dict:
     """Build the trial files of a comparison in ``folder`` and return what was done.
 
     Parameters
@@ -155,6 +231,8 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
         ``{"start": s or None, "length": s}``; no start: the loudest window.
     folder : Path
         The comparison's folder; trial files go to ``audio/{index}.wav`` in it.
+    processes : int
+        Render processes (forked; :data:`BUILD_PROCESSES` in the build child).
 
     Returns
     -------
@@ -199,13 +277,17 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
     window = ((start_f - pre_f) / sr, (pre_f + frames) / sr)
 
     cut: list[np.ndarray] = []
-    share = 0.85 / len(settings)
     with tempfile.TemporaryDirectory(dir=folder, prefix=".build-") as tmp:
-        for i, s in enumerate(settings):
-            out = Path(tmp) / f"{i}.wav"
-            base = 0.05 + i * share
-            render(inputs, out, dataclasses.replace(s, excerpt=window),
-                   progress=lambda f, base=base: report(base + share * f), cancelled=cancelled)
+        jobs = [(list(inputs), Path(tmp) / f"{i}.wav", dataclasses.replace(s, excerpt=window))
+                for i, s in enumerate(settings)]
+        render_progress = lambda f: report(0.05 + 0.85 * f)  # noqa: E731
+        if processes > 1 and len(jobs) > 1:
+            _render_forked(jobs, min(processes, len(jobs)), sr, render_progress, cancelled)
+        else:
+            for i, (ins, out, s) in enumerate(jobs):
+                render(ins, out, s, cancelled=cancelled,
+                       progress=lambda f, i=i: render_progress((i + f) / len(jobs)))
+        for i, (_, out, _) in enumerate(jobs):
             audio, _ = read_audio(out)
             os.unlink(out)
             x = np.zeros((frames, 2), dtype=np.float32)

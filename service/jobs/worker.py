@@ -100,6 +100,9 @@ class Worker:
         #: The command line of a comparison build (a job whose payload kind is
         #: "comparison"; it speaks the render child's protocol).
         self.comparison_command = [sys.executable, "-m", "service.comparisons.build_child"]
+        #: Fork comparison builds from this (warmed-up) process instead of starting
+        #: ``comparison_command`` (service.comparisons.forked); ``main`` turns it on.
+        self.fork_builds = False
 
     def stop(self) -> None:
         self._stop.set()
@@ -141,11 +144,17 @@ class Worker:
             what = "the comparison" if comparison else "the render"
             q.fail(job.id, self.name, f"cannot start {what}: {detail}")
             return
-        proc = subprocess.Popen(
-            self.comparison_command if comparison else self.child_command,
-            stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
-            cwd=os.getcwd(), env=child_environment(),
-        )
+        if comparison and self.fork_builds:
+            from ..comparisons.forked import ForkedBuild
+            from .render_child import RENDER_NICENESS
+
+            proc = ForkedBuild(spec, RENDER_NICENESS)
+        else:
+            proc = subprocess.Popen(
+                self.comparison_command if comparison else self.child_command,
+                stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
+                cwd=os.getcwd(), env=child_environment(),
+            )
         messages: list[dict] = []
         latest = {"progress": 0.0}
 
@@ -163,10 +172,10 @@ class Worker:
 
         reader = threading.Thread(target=read, daemon=True)
         reader.start()
-        assert proc.stdin is not None
         try:
-            proc.stdin.write(json.dumps(spec))
-            proc.stdin.close()
+            if proc.stdin is not None:  # a forked build has its spec already
+                proc.stdin.write(json.dumps(spec))
+                proc.stdin.close()
         except BrokenPipeError:
             pass
 
@@ -239,6 +248,16 @@ class Worker:
 def main() -> int:
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
+    # Comparison builds fork from this process, so it loads what they need once, with
+    # the numeric libraries single-threaded as in every render child.
+    os.environ.update(SINGLE_THREADED)
+    from ..comparisons.forked import warm_up
+
+    try:
+        warm_up()
+    except Exception:  # noqa: BLE001 - a build reports such a problem itself, with context
+        pass
+    worker.fork_builds = True
     signal.signal(signal.SIGTERM, lambda *_: worker.stop())
     signal.signal(signal.SIGINT, lambda *_: worker.stop())
     worker.run()

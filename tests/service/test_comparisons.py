@@ -272,3 +272,32 @@ def test_retention_removes_old_sessions_but_not_one_being_built(make_client, tmp
     removed = sweep(storage, queue, max_age_s=-1)
     assert removed["comparisons"] == 1 and removed["renders"] == 0
     assert client.get(f"/v1/comparisons/{cid}").status_code == 404
+
+
+def test_a_real_server_builds_in_a_forked_warm_worker(tmp_path):
+    """``ossicle serve`` forks builds from its warmed-up worker (service.comparisons.forked)."""
+    import time
+
+    import httpx
+
+    from service.tools.local_server import LocalServer
+
+    path = write_stem(tmp_path / "tide.wav", FS * 3, 6)
+    with LocalServer(workers=1) as server, httpx.Client(base_url=server.url, timeout=30) as http:
+        stem = http.post("/v1/stems", files=files_field([path])).json()
+        view = http.post("/v1/comparisons", json=_body(stem["id"], mode="abx", trials=2,
+                                                        excerpt={"length": 2.0})).json()
+        deadline = time.monotonic() + 60
+        seen = {view["state"]}
+        while view["state"] == "preparing" and time.monotonic() < deadline:
+            time.sleep(0.05)
+            view = http.get(f"/v1/comparisons/{view['id']}").json()
+            seen.add(view["state"])
+        assert view["state"] == "ready", view
+        assert view["excerpt"]["automatic"] and view["excerpt"]["length"] == 2.0
+        sizes = {len(http.get(u).content) for t in view["trials"] for u in t["audio"].values()}
+        assert len(sizes) == 1
+        # Cancelling a build in progress: a second session, deleted at once.
+        other = http.post("/v1/comparisons", json=_body(stem["id"])).json()
+        assert http.delete(f"/v1/comparisons/{other['id']}").status_code == 204
+        assert http.get("/v1/health").json()["status"] == "ok"
