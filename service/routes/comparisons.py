@@ -26,7 +26,7 @@ from ..comparisons import session as sessions
 from ..comparisons.assignment import draw_trials
 from ..jobs import JobNotFound, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND
-from ..problems import (CONFLICT, NOT_FOUND, QUEUE_FULL, UNAUTHORIZED, UNPROCESSABLE, Problem,
+from ..problems import (BAD_REQUEST, CONFLICT, NOT_FOUND, QUEUE_FULL, UNAUTHORIZED, UNPROCESSABLE, Problem,
                         problem_responses)
 from ..storage import META, Storage, new_id, valid_id, write_json_atomic
 from .renders import RenderRequest, render_options
@@ -168,7 +168,7 @@ def _json(data: object, status: int = 200, headers: dict | None = None) -> Respo
 
 @router.post("", status_code=202, summary="Start a blind comparison", response_model=None,
              responses={202: {"model": ComparisonView},
-                        **problem_responses(NOT_FOUND, QUEUE_FULL)})
+                        **problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL)})
 def create_comparison(req: ComparisonRequest, request: Request,
                       owner: str = Depends(current_owner)) -> Response:
     settings = request.app.state.settings
@@ -294,7 +294,8 @@ def get_trial_audio(comparison_id: str, request: Request,
 
 @router.post("/{comparison_id}/trials/{index}/answer", summary="Answer one trial",
              response_model=None,
-             responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND, CONFLICT)})
+             responses={200: {"model": ComparisonView},
+                        **problem_responses(BAD_REQUEST, NOT_FOUND, CONFLICT)})
 def answer_trial(comparison_id: str, body: AnswerRequest, request: Request,
                  index: int = Path(ge=0, le=99),
                  owner: str = Depends(current_owner)) -> Response:
