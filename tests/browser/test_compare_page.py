@@ -101,3 +101,49 @@ def test_listen_switch_answer_and_see_the_results(page, live_server, comparison,
     with httpx.Client(base_url=live_server.url) as http:
         result = http.get(f"/v1/comparisons/{comparison['id']}/results").json()
     assert [t["answer"] for t in result["trials"]] == ["A", "B", "B"]
+
+
+def test_abx_with_an_api_token(page, tmp_path, artefacts):
+    """With tokens on, the page asks for one and sends it with every request (the audio
+    too: fetched with an Authorization header, then decoded)."""
+    from service.tools.local_server import LocalServer
+
+    token = "listening-room-token-0123"
+    tokens = tmp_path / "tokens.txt"
+    tokens.write_text(token + "\n")
+    path = tmp_path / "foghorn.wav"
+    write_audio(path, noise(FS * 3, 6, seed=5), FS)
+    auth = {"Authorization": f"Bearer {token}"}
+    with LocalServer(workers=1, extra_args=["--tokens-file", str(tokens)]) as server, \
+            httpx.Client(base_url=server.url, timeout=30, headers=auth) as http:
+        stem = http.post("/v1/stems", files=[("file", (path.name, path.read_bytes(),
+                                                       "audio/wav"))]).json()
+        view = http.post("/v1/comparisons", json={
+            "stem_id": stem["id"], "mode": "abx", "trials": 2, "excerpt": {"length": 2.0},
+            "variants": [{"layout": "5.1"}, {"layout": "5.1", "hrtf": "rigid-sphere"}]}).json()
+        page.goto(f"{server.url}/compare/{view['id']}")
+        page.wait_for_selector("#token-box:not([hidden])")
+        page.fill("#token", token)
+        page.click("#token-form button")
+        page.wait_for_selector("body[data-state=listening]")
+        assert page.locator("#sources button").all_inner_texts() == ["A", "B", "X"]
+        assert "X is A" in page.locator("#answers").inner_text()
+        page.keyboard.press("Space")
+        page.wait_for_function("window.ossicleListening.playing()")
+        assert page.evaluate("window.ossicleListening.sourceCount()") == 3
+        page.keyboard.press("x")
+        page.wait_for_timeout(100)
+        g = _gains(page)
+        assert g["X"] == pytest.approx(1.0, abs=1e-3)
+        assert g["A"] == pytest.approx(0.0, abs=1e-3) and g["B"] == pytest.approx(0.0, abs=1e-3)
+        page.keyboard.press("l")  # loop the (whole) excerpt while playing
+        assert page.locator("#loop-on").is_checked()
+        page.keyboard.press("1")
+        page.wait_for_selector("body[data-trial='1'][data-state=listening]")
+        page.keyboard.press("2")
+        page.wait_for_selector("body[data-state=results]")
+        assert "correct of 2 answered" in page.locator("#summary").inner_text()
+        page.screenshot(path=str(artefacts / "compare-abx-results.png"), full_page=True)
+        result = http.get(f"/v1/comparisons/{view['id']}/results").json()
+        assert [t["answer"] for t in result["trials"]] == ["A", "B"]
+        assert result["abx"]["answered"] == 2
