@@ -301,3 +301,24 @@ def test_a_real_server_builds_in_a_forked_warm_worker(tmp_path):
         other = http.post("/v1/comparisons", json=_body(stem["id"])).json()
         assert http.delete(f"/v1/comparisons/{other['id']}").status_code == 204
         assert http.get("/v1/health").json()["status"] == "ok"
+
+
+def test_the_build_spec_points_an_uploaded_hrtf_set_at_its_stored_file(client, tmp_path):
+    from service.comparisons.build_child import child_spec
+    from service.storage import write_json_atomic
+
+    storage = client.app.state.storage
+    stem = _stem(client, tmp_path)
+    tmp = storage.new_tmp()
+    write_json_atomic(tmp / "meta.json", {"id": "c" * 32, "owner": "", "name": "mine.sofa",
+                                          "stored": "set.sofa"})
+    storage.commit(tmp, "hrtf", "c" * 32)
+    payload = {"comparison_id": "d" * 32, "stem_id": stem["id"],
+               "excerpt": {"start": None, "length": 2.0},
+               "variants": [{"options": {"layout": "5.1"}, "hrtf_id": None},
+                            {"options": {"layout": "5.1", "hrtf": None}, "hrtf_id": "c" * 32}]}
+    spec = child_spec(storage, payload, "d" * 32)
+    assert "hrtf" not in spec["variants"][0]
+    assert spec["variants"][1]["hrtf"] == str(storage.path("hrtf", "c" * 32) / "set.sofa")
+    assert spec["names"][spec["variants"][1]["hrtf"]] == "mine.sofa"  # for error messages
+    assert spec["output"].endswith("prepared.json")
