@@ -27,6 +27,7 @@ Decisions worth knowing
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import re
 import secrets
@@ -121,6 +122,9 @@ class StemInfo:
         Frames of each file; they differ when shorter mono files are padded.
     warnings : tuple of str
         Things a report should mention (padding, a file cut short).
+    start : int
+        First frame that :class:`StemReader` reads (0: the start of the files). With
+        :meth:`window`, ``frames`` counts from here.
     """
 
     paths: tuple[str, ...]
@@ -132,11 +136,30 @@ class StemInfo:
     channel_mask: int | None = None
     frames_per_file: tuple[int, ...] = ()
     warnings: tuple[str, ...] = ()
+    start: int = 0
 
     @property
     def duration(self) -> float:
         """Length of the stem in seconds."""
         return self.frames / self.samplerate
+
+    def window(self, start: int, frames: int) -> StemInfo:
+        """The same stem limited to ``frames`` frames from frame ``start`` (clamped to the
+        stem), for rendering an excerpt without reading the rest.
+
+        Raises
+        ------
+        AudioError
+            If ``start`` is negative or not before the end, or ``frames`` is not positive.
+        """
+        start, frames = int(start), int(frames)
+        if start < 0 or start >= self.start + self.frames or frames < 1:
+            raise AudioError(
+                f"an excerpt from frame {start} of {frames} frame(s) does not fit a stem of "
+                f"{self.frames} frames ({self.duration:.3f} s)"
+            )
+        frames = min(frames, self.start + self.frames - start)
+        return dataclasses.replace(self, start=start, frames=frames)
 
 
 @dataclass(frozen=True)
@@ -362,7 +385,8 @@ class StemReader:
         blocksize = int(blocksize)
         channels = self.info.channels
         for f in self._files:
-            f.seek(0)
+            # A mono file shorter than the window's start contributes silence.
+            f.seek(min(self.info.start, f.frames))
         self.frames_read = 0
         return self._iterate(blocksize, channels, reuse)
 

@@ -93,6 +93,9 @@ class RenderSettings:
     true_peak : float or None
         True-peak limiter ceiling in dBTP (default -1); None turns the limiter off (the
         report then says so).
+    excerpt : (float, float) or None
+        ``(start, length)`` in seconds: render only that window of the stem (cut to the
+        stem's end); only those frames are read. None renders the whole stem.
     """
 
     layout: str | Layout = "7.1.4"
@@ -107,6 +110,7 @@ class RenderSettings:
     room_mode: str = "shared"
     loudness: float | str | None = DEFAULT_LOUDNESS
     true_peak: float | None = DEFAULT_TRUE_PEAK
+    excerpt: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -204,9 +208,28 @@ def _lfe_reference(hset: HrirSet) -> tuple[float, int]:
     return gain, onset
 
 
+def _excerpt(stem: StemInfo, excerpt: tuple[float, float]) -> StemInfo:
+    """The window ``(start, length)`` seconds of ``stem``; RendererError if it misses."""
+    try:
+        start_s, length_s = (float(v) for v in excerpt)
+    except (TypeError, ValueError):
+        raise RendererError(f"excerpt must be (start, length) in seconds, not {excerpt!r}") \
+            from None
+    if not (np.isfinite(start_s) and np.isfinite(length_s)) or start_s < 0 or length_s <= 0:
+        raise RendererError(f"excerpt must have a start >= 0 and a length > 0 seconds, not "
+                            f"{excerpt!r}")
+    if start_s >= stem.duration:
+        raise RendererError(f"the excerpt starts at {start_s:g} s but the stem is only "
+                            f"{stem.duration:.3f} s long")
+    return stem.window(round(start_s * stem.samplerate),
+                       max(1, round(length_s * stem.samplerate)))
+
+
 def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -> RenderPlan:
     """Probe the stem and build the filter bank, validating everything up front."""
     stem = probe_stem(inputs)
+    if settings.excerpt is not None:
+        stem = _excerpt(stem, settings.excerpt)
     layout = settings.layout if isinstance(settings.layout, Layout) else get_layout(settings.layout)
     order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
     path, name = resolve_hrtf(settings.hrtf)
@@ -614,6 +637,7 @@ def render(
             "frames": stem.frames,
             "duration_s": round(duration, 6),
             "channel_mask": None if stem.channel_mask is None else f"0x{stem.channel_mask:X}",
+            "excerpt_start_s": round(stem.start / stem.samplerate, 6) if stem.start else None,
         },
         "layout": plan.layout.to_dict(),
         "channel_order": {

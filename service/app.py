@@ -18,7 +18,7 @@ from renderer import __version__
 from .jobs import open_queue
 from .problems import install_problem_handlers
 from .retention import sweep
-from .routes import catalog, renders, stems
+from .routes import catalog, comparisons, renders, stems
 from .routes.pages import install_pages
 from .settings import ServiceSettings
 from .storage import Storage
@@ -56,6 +56,7 @@ def create_app(settings: ServiceSettings) -> FastAPI:
     app.include_router(catalog.router)
     app.include_router(stems.router)
     app.include_router(renders.router)
+    app.include_router(comparisons.router)
     install_pages(app)
     return app
 

@@ -61,6 +61,8 @@ def build_settings(options: dict):
         kwargs["layout"] = layout_from_dict(kwargs["layout"], name="custom")
     if "channel_order" in kwargs:
         kwargs["channel_order"] = tuple(kwargs["channel_order"])
+    if "excerpt" in kwargs:  # [start, length] in seconds; only that window is read
+        kwargs["excerpt"] = tuple(float(v) for v in kwargs["excerpt"])
     # The HTTP API spells "no gain" and "limiter off" as words; the renderer as None.
     # Left out (None): the renderer's defaults.
     if options.get("loudness") is not None:

@@ -28,6 +28,10 @@ from .queue import Job, JobQueue, open_queue
 
 SETTINGS_ENV = "OSSICLE_WORKER_SETTINGS"
 
+#: ``payload["kind"]`` of a job that builds a blind comparison (service.comparisons)
+#: instead of rendering; jobs without a kind are renders.
+COMPARISON_KIND = "comparison"
+
 #: Time a child gets to stop after SIGTERM before it is killed (s).
 TERM_GRACE_S = 1.5
 
@@ -93,6 +97,12 @@ class Worker:
         self._parent = os.getppid()
         #: The render child's command line (tests substitute one that crashes).
         self.child_command = [sys.executable, "-m", "service.jobs.render_child"]
+        #: The command line of a comparison build (a job whose payload kind is
+        #: "comparison"; it speaks the render child's protocol).
+        self.comparison_command = [sys.executable, "-m", "service.comparisons.build_child"]
+        #: Fork comparison builds from this (warmed-up) process instead of starting
+        #: ``comparison_command`` (service.comparisons.forked); ``main`` turns it on.
+        self.fork_builds = False
 
     def stop(self) -> None:
         self._stop.set()
@@ -121,17 +131,30 @@ class Worker:
     def run_job(self, job: Job) -> None:
         """Render one claimed job in a child process and record how it ended."""
         q, s = self.queue, self.settings
+        comparison = job.payload.get("kind") == COMPARISON_KIND
         try:
-            spec = child_spec(self.storage, job)
+            if comparison:
+                from ..comparisons.build_child import child_spec as comparison_spec
+
+                spec = comparison_spec(self.storage, dict(job.payload), job.id)
+            else:
+                spec = child_spec(self.storage, job)
         except Exception as exc:  # the stem or set was deleted or expired meanwhile
             detail = getattr(exc, "detail", None) or str(exc)
-            q.fail(job.id, self.name, f"cannot start the render: {detail}")
+            what = "the comparison" if comparison else "the render"
+            q.fail(job.id, self.name, f"cannot start {what}: {detail}")
             return
-        proc = subprocess.Popen(
-            self.child_command,
-            stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
-            cwd=os.getcwd(), env=child_environment(),
-        )
+        if comparison and self.fork_builds:
+            from ..comparisons.forked import ForkedBuild
+            from .render_child import RENDER_NICENESS
+
+            proc = ForkedBuild(spec, RENDER_NICENESS)
+        else:
+            proc = subprocess.Popen(
+                self.comparison_command if comparison else self.child_command,
+                stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
+                cwd=os.getcwd(), env=child_environment(),
+            )
         messages: list[dict] = []
         latest = {"progress": 0.0}
 
@@ -149,10 +172,10 @@ class Worker:
 
         reader = threading.Thread(target=read, daemon=True)
         reader.start()
-        assert proc.stdin is not None
         try:
-            proc.stdin.write(json.dumps(spec))
-            proc.stdin.close()
+            if proc.stdin is not None:  # a forked build has its spec already
+                proc.stdin.write(json.dumps(spec))
+                proc.stdin.close()
         except BrokenPipeError:
             pass
 
@@ -225,6 +248,16 @@ class Worker:
 def main() -> int:
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
+    # Comparison builds fork from this process, so it loads what they need once, with
+    # the numeric libraries single-threaded as in every render child.
+    os.environ.update(SINGLE_THREADED)
+    from ..comparisons.forked import warm_up
+
+    try:
+        warm_up()
+    except Exception:  # noqa: BLE001 - a build reports such a problem itself, with context
+        pass
+    worker.fork_builds = True
     signal.signal(signal.SIGTERM, lambda *_: worker.stop())
     signal.signal(signal.SIGINT, lambda *_: worker.stop())
     worker.run()

@@ -24,7 +24,7 @@ from renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_channel_
 
 from ..auth import current_owner
 from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
-from ..jobs.worker import output_paths
+from ..jobs.worker import COMPARISON_KIND, output_paths
 from ..problems import (BAD_REQUEST, CONFLICT, NOT_FOUND, QUEUE_FULL, RANGE_NOT_SATISFIABLE,
                         UNAUTHORIZED, UNPROCESSABLE, Problem, problem_responses)
 from ..storage import Storage, new_id, valid_id
@@ -173,18 +173,16 @@ def _job(request: Request, render_id: str, owner: str) -> Job:
         job = request.app.state.queue.get(render_id)
     except JobNotFound:
         raise Problem(NOT_FOUND, f"no render with id {render_id!r}") from None
-    if job.owner != owner:
+    if job.owner != owner or job.payload.get("kind") == COMPARISON_KIND:
         raise Problem(NOT_FOUND, f"no render with id {render_id!r}")
     return job
 
 
-@router.post("", status_code=202, summary="Queue a render", response_model=RenderView,
-             responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL))
-def create_render(req: RenderRequest, request: Request, response: Response,
-                  owner: str = Depends(current_owner)) -> dict:
-    settings = request.app.state.settings
-    storage: Storage = request.app.state.storage
-    stem = storage.read_meta("stems", req.stem_id, owner)
+def render_options(req: RenderRequest, stem: dict, storage: Storage,
+                   owner: str) -> tuple[dict, str | None]:
+    """A render job's options and uploaded HRTF id for ``req`` on ``stem``, every option
+    checked against the stem's probe (422 problems otherwise). Also used by comparisons,
+    whose variants are renders of one stem."""
     layout = _layout(req.layout, stem)
     if layout.channels != stem["channels"]:
         raise Problem(UNPROCESSABLE, f"the stem has {stem['channels']} channel(s) but layout "
@@ -214,6 +212,17 @@ def create_render(req: RenderRequest, request: Request, response: Response,
         "block_size": req.block_size,
         **_delivery_options(req),
     }
+    return options, hrtf_id
+
+
+@router.post("", status_code=202, summary="Queue a render", response_model=RenderView,
+             responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL))
+def create_render(req: RenderRequest, request: Request, response: Response,
+                  owner: str = Depends(current_owner)) -> dict:
+    settings = request.app.state.settings
+    storage: Storage = request.app.state.storage
+    stem = storage.read_meta("stems", req.stem_id, owner)
+    options, hrtf_id = render_options(req, stem, storage, owner)
     payload = {"stem_id": req.stem_id, "hrtf_id": hrtf_id, "options": options,
                "download_name": _download_name(stem, req.format),
                "request": req.model_dump()}
@@ -231,7 +240,9 @@ def create_render(req: RenderRequest, request: Request, response: Response,
 @router.get("", summary="List your renders, newest first", response_model=list[RenderView])
 def list_renders(request: Request, owner: str = Depends(current_owner),
                  limit: int = Query(100, ge=1, le=1000)) -> list[dict]:
-    return [render_view(j) for j in request.app.state.queue.list(owner=owner, limit=limit)]
+    # Comparison builds share the queue but are not renders (see /v1/comparisons).
+    jobs = request.app.state.queue.list(owner=owner, limit=limit)
+    return [render_view(j) for j in jobs if j.payload.get("kind") != COMPARISON_KIND]
 
 
 @router.get("/{render_id}", summary="State and progress of a render", response_model=None,

@@ -1,0 +1,109 @@
+"""Comparison builds forked from a warm worker, instead of a freshly started interpreter.
+
+A fresh build child spends a second or more importing numpy and scipy and loading the
+HRIR set before it renders anything, and a listener is waiting for it. A worker started
+by ``ossicle serve`` imports the renderer once (:func:`warm_up`) and forks each build
+from itself: the fork starts with everything loaded and shares the cached HRIR set.
+:class:`ForkedBuild` looks to the worker like the ``subprocess.Popen`` of a build child
+(the same JSON-lines protocol on its ``stdout``), so the worker's lease, progress and
+cancel handling stay the same.
+
+Renders keep their own fresh child: they are batch work, and a clean process per render
+bounds their memory.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+
+__all__ = ["ForkedBuild", "warm_up"]
+
+#: Sample rate at which the default HRIR set is loaded ahead (Hz): the usual rate of
+#: production stems (common practice); at another rate the set is loaded on first use.
+WARM_SAMPLERATE = 48000
+
+
+def warm_up() -> None:
+    """Import what a build needs and load the default HRIR set, before the first build."""
+    from hrtf_sets import DEFAULT_SET
+    from renderer.hrir import load_hrir_set
+    from renderer.render import resolve_hrtf
+
+    from . import builder  # noqa: F401
+
+    path, name = resolve_hrtf(DEFAULT_SET)
+    load_hrir_set(path, WARM_SAMPLERATE, name=name)
+
+
+class ForkedBuild:
+    """A build running in a fork of this process, with the interface of ``Popen``."""
+
+    def __init__(self, spec: dict, niceness: int) -> None:
+        read, write = os.pipe()
+        pid = os.fork()
+        if pid == 0:  # the build: never returns
+            code = 70
+            try:
+                os.close(read)
+                os.dup2(write, 1)
+                os.close(write)
+                code = _child(spec, niceness)
+            finally:
+                os._exit(code)
+        os.close(write)
+        self.pid = pid
+        self.stdin = None
+        self.stdout = os.fdopen(read, "r")
+        self.returncode: int | None = None
+
+    def poll(self) -> int | None:
+        if self.returncode is None:
+            pid, status = os.waitpid(self.pid, os.WNOHANG)
+            if pid:
+                self.returncode = os.waitstatus_to_exitcode(status)
+        return self.returncode
+
+    def wait(self, timeout: float | None = None) -> int:
+        deadline = None if timeout is None else time.monotonic() + timeout
+        while self.poll() is None:
+            if deadline is not None and time.monotonic() > deadline:
+                raise subprocess.TimeoutExpired("comparison build", timeout)
+            time.sleep(0.01)
+        assert self.returncode is not None
+        return self.returncode
+
+    def terminate(self) -> None:
+        self._signal(signal.SIGTERM)
+
+    def kill(self) -> None:
+        self._signal(signal.SIGKILL)
+
+    def _signal(self, sig: int) -> None:
+        if self.poll() is None:
+            try:
+                os.kill(self.pid, sig)
+            except ProcessLookupError:
+                pass
+
+
+def _child(spec: dict, niceness: int) -> int:
+    from ..jobs import render_child as rc
+    from .build_child import run
+
+    rc._parent = os.getppid()  # the worker: if it dies, the build stops
+    rc._stop = False
+    signal.signal(signal.SIGTERM, rc._on_term)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        os.nice(niceness)
+    except OSError:
+        pass
+    sys.stdout = os.fdopen(1, "w", buffering=1)
+    try:
+        return run(spec)
+    finally:
+        sys.stdout.flush()
