@@ -1,4 +1,4 @@
-"""Where the service keeps files: ``DATA_DIR/{stems,renders,hrtf,tmp}/ID/...``.
+"""Where the service keeps files: ``DATA_DIR/{stems,renders,hrtf,comparisons,tmp}/ID/...``.
 
 Ids are uuid4 hex, made here and checked with a full-match pattern before they touch a
 path; a user's file name is metadata only. Objects are assembled in ``tmp/`` and renamed

@@ -21,7 +21,7 @@ from ..problems import NOT_FOUND, Problem
 STATIC_DIR = Path(__file__).resolve().parents[1] / "static"
 
 _ID = re.compile(r"[0-9a-f]{32}")
-_NO_STORE = {"Cache-Control": "no-cache"}
+_REVALIDATE = {"Cache-Control": "no-cache"}  # pages: always revalidated, never stale
 
 router = APIRouter(include_in_schema=False)
 
@@ -30,7 +30,7 @@ def _page(name: str) -> FileResponse:
     path = STATIC_DIR / name
     if not path.is_file():
         raise Problem(NOT_FOUND, f"the page {name!r} is not installed")
-    return FileResponse(path, media_type="text/html", headers=_NO_STORE)
+    return FileResponse(path, media_type="text/html", headers=_REVALIDATE)
 
 
 @router.get("/")
