@@ -32,6 +32,7 @@ from .onsets import onset_times
 from .pipeline import BackgroundWriter, prefetch
 from .delivery import DeliveryOptions, deliver
 from .loudness import LoudnessMeter, channel_weights
+from .plot_data import plot_section
 from .room import Room, get_room
 from .room_filters import build_room_filters, exact_brirs
 
@@ -578,6 +579,7 @@ def render(
         "engine": streamed["engine"],
         "delivery": delivery,
         "room": plan.room,
+        "plots": plot_section(plan, out_path, delivery),
         "timings_s": {
             "plan": round(t_plan - t0, 4),
             "render": round(t_render - t_plan, 4),
