@@ -157,7 +157,7 @@ function fmtFreq(f) {
  */
 export function lineChart({ title, series, hlines = [], xLabel, yLabel, logX = false,
                             yMin, yMax, xTicks, description }) {
-  const W = 640, H = 280, L = 56, Rm = 16, T = 28, B = 44;
+  const W = 640, H = 300, L = 56, Rm = 16, T = 44, B = 44;
   const pw = W - L - Rm, ph = H - T - B;
   const xs = series.flatMap((s) => s.x);
   const ys = series.flatMap((s) => s.y).filter((v) => Number.isFinite(v));
@@ -195,10 +195,10 @@ export function lineChart({ title, series, hlines = [], xLabel, yLabel, logX = f
   const legend = svgEl("g", { class: "chart-legend" });
   let lx = L + pw;
   [...series, ...hlines].reverse().forEach((s) => {
-    const label = text(lx, 18, s.name, { "text-anchor": "end", class: `legend ${s.cls || ""}` });
+    const label = text(lx, 36, s.name, { "text-anchor": "end", class: `legend ${s.cls || ""}` });
     legend.append(label);
-    const width = 7 * s.name.length + 22;
-    legend.append(svgEl("line", { x1: lx - width + 4, x2: lx - width + 16, y1: 14, y2: 14, class: `swatch ${s.cls || ""}` }));
+    const width = 6.5 * s.name.length + 20;
+    legend.append(svgEl("line", { x1: lx - width + 2, x2: lx - width + 14, y1: 32, y2: 32, class: `swatch ${s.cls || ""}` }));
     lx -= width + 8;
   });
   svg.append(legend);
