@@ -648,7 +648,8 @@ async function showReport(id) {
       ["speed", `${fmt(report.timings_s.x_real_time, 0)} × real time`],
     ]),
     d ? factTable("Delivery", [
-      ["target", d.target_lufs === null ? String(d.target) : `${fmt(d.target_lufs, 1, "LUFS")}`],
+      ["target", d.target === "match" ? `the stem's own loudness (${fmt(d.target_lufs, 1, "LUFS")})`
+        : d.target_lufs === null ? "none (no gain)" : fmt(d.target_lufs, 1, "LUFS")],
       ["integrated loudness", `${fmt(d.render_integrated_lufs, 1)} → ${fmt(d.output.integrated_lufs, 1, "LUFS")} (gain ${fmt(d.gain_db, 1, "dB")})`],
       ["loudness range", fmt(d.output.loudness_range_lu, 1, "LU")],
       ["max momentary / short-term", `${fmt(d.output.momentary_max_lufs, 1)} / ${fmt(d.output.short_term_max_lufs, 1, "LUFS")}`],

@@ -360,3 +360,24 @@ def test_keyboard_labels_and_contrast(page, live_server, stems, artefacts):
     for fg, bg in pairs:
         assert _contrast(fg, bg) >= 4.5, (fg, bg)
     page.screenshot(path=str(artefacts / "web-ui-keyboard.png"), full_page=True)
+
+
+def test_cancel_and_delete_from_the_list(page, stems, artefacts):
+    # No workers: a render stays queued until it is cancelled.
+    with LocalServer(workers=0) as server:
+        _, ids = _two_renders(server, stems / "harbour-night.wav")
+        open_page(page, server)
+        row = page.locator(f"#renders tr[data-id='{ids[0]}']")
+        assert row.get_attribute("data-state") == "queued"
+        assert row.locator(".act-download").is_hidden()
+        row.locator(".act-cancel").click()
+        row.locator(".state-text", has_text="cancelled").wait_for()
+        assert httpx.get(f"{server.url}/v1/renders/{ids[0]}").json()["state"] == "cancelled"
+        assert row.locator(".act-cancel").is_hidden()
+        page.screenshot(path=str(artefacts / "web-ui-cancelled.png"), full_page=True)
+        page.once("dialog", lambda dialog: dialog.accept())
+        row.locator(".act-delete").click()
+        row.wait_for(state="detached")
+        assert httpx.get(f"{server.url}/v1/renders/{ids[0]}").status_code == 404
+        # The other render is untouched and still followed.
+        assert page.locator(f"#renders tr[data-id='{ids[1]}']").get_attribute("data-state") == "queued"
