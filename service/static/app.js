@@ -656,6 +656,16 @@ async function showReport(id) {
       ["true peak", `${fmt(d.true_peak_before_dbtp, 1)} → ${fmt(d.true_peak_after_dbtp, 1, "dBTP")}`],
       ["limiter", d.limiter.enabled ? `ceiling ${d.ceiling_dbtp} dBTP, up to ${fmt(d.limiter.max_gain_reduction_db, 1, "dB")} reduction` : "off"],
     ]) : factTable("Delivery", [["", "no loudness gain and no limiter"]])));
+  const measured = report.room && report.room.rt60_measured;
+  if (measured) {
+    const bands = measured.bands_hz.map((b) => (b >= 1000 ? `${b / 1000}k` : `${b}`));
+    body.append(factTable("Room reverberation (measured back from the rendered response)", [
+      ["bands (Hz)", bands.join(" / ")],
+      ["RT60 asked (s)", (report.room.rt60_requested_s || []).map((t) => fmt(t, 2)).join(" / ")],
+      ["T20 (s)", measured.t20_s.map((t) => fmt(t, 2)).join(" / ")],
+      ["EDT (s)", measured.edt_s.map((t) => fmt(t, 2)).join(" / ")],
+    ]));
+  }
   if ((report.warnings || []).length) {
     body.append(el("h3", {}, "Warnings"), el("ul", { class: "warnings" }, ...report.warnings.map((w) => el("li", {}, w))));
   }

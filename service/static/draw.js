@@ -45,34 +45,43 @@ function layer(elevation) {
   return "ear";
 }
 
+/** Radius of each layer's ring on the top view (ear level on the middle ring). */
+const LAYER_RADIUS = { ear: 92, upper: 56, zenith: 0, lower: 118 };
+
 /**
- * Top view of a layout: the listener in the middle, each loudspeaker at its azimuth,
- * projected by its elevation. Ear-level loudspeakers are circles, raised ones diamonds,
- * lowered ones dashed diamonds; LFE channels sit in a box below (they have no direction).
+ * Top view of a layout: the listener in the middle, each loudspeaker at its azimuth on
+ * the ring of its layer. Ear-level loudspeakers are circles on the middle ring, raised
+ * ones filled diamonds on the inner ring (overhead: at the centre), lowered ones dashed
+ * diamonds on the outer ring; LFE channels sit in a box below (they have no direction).
+ * Rings stand for layers, not for distances, so that labels of stacked loudspeakers
+ * (ear level and raised at the same azimuth) do not collide.
  */
 export function layoutPicture(layout) {
-  const R = 92;
   const speakers = layout.speakers || [];
   const directional = speakers.filter((s) => !s.lfe);
   const lfe = speakers.filter((s) => s.lfe);
+  const kinds = new Set(directional.map((s) => layer(s.elevation)));
+  const raised = directional.filter((s) => s.elevation > 10).length;
+  const lowered = directional.filter((s) => s.elevation < -10).length;
   const svg = svgEl("svg", {
-    viewBox: "-130 -130 260 290", class: "layout-picture", role: "img",
+    viewBox: "-150 -150 300 330", role: "img",
+    class: `layout-picture${directional.length > 16 ? " dense" : ""}`,
     "aria-label": `Top view of layout ${layout.name}: ${directional.length} loudspeakers` +
-      (lfe.length ? ` and ${lfe.length} LFE` : "") +
-      `. ${directional.filter((s) => s.elevation > 10).length} raised, ` +
-      `${directional.filter((s) => s.elevation < -10).length} lowered.`,
+      (lfe.length ? ` and ${lfe.length} LFE` : "") + `. ${raised} raised, ${lowered} lowered.`,
   });
-  svg.append(svgEl("circle", { cx: 0, cy: 0, r: R, class: "ring" }));
-  svg.append(svgEl("circle", { cx: 0, cy: 0, r: R * Math.cos(Math.PI / 6), class: "ring ring-upper" }));
+  svg.append(svgEl("circle", { cx: 0, cy: 0, r: LAYER_RADIUS.ear, class: "ring" }));
+  if (kinds.has("upper")) svg.append(svgEl("circle", { cx: 0, cy: 0, r: LAYER_RADIUS.upper, class: "ring ring-upper" }));
+  if (kinds.has("lower")) svg.append(svgEl("circle", { cx: 0, cy: 0, r: LAYER_RADIUS.lower, class: "ring ring-upper" }));
   // The listener: a head with a nose pointing to the front, and two ears.
   svg.append(svgEl("ellipse", { cx: -13, cy: 0, rx: 3, ry: 6, class: "head" }));
   svg.append(svgEl("ellipse", { cx: 13, cy: 0, rx: 3, ry: 6, class: "head" }));
   svg.append(svgEl("circle", { cx: 0, cy: 0, r: 12, class: "head" }));
   svg.append(svgEl("path", { d: "M -4 -11 L 0 -18 L 4 -11", class: "head" }));
-  svg.append(text(0, -R - 22, "front", { class: "axis-note", "text-anchor": "middle" }));
+  svg.append(text(0, -140, "front", { class: "axis-note", "text-anchor": "middle" }));
   for (const s of directional) {
     const kind = layer(s.elevation);
-    const p = topViewPoint(s.azimuth, s.elevation, R);
+    const r = LAYER_RADIUS[kind];
+    const p = topViewPoint(s.azimuth, 0, r);
     let mark;
     if (kind === "ear") {
       mark = svgEl("circle", { cx: p.x, cy: p.y, r: 7, class: "spk spk-ear" });
@@ -84,27 +93,32 @@ export function layoutPicture(layout) {
       });
     }
     const g = svgEl("g", { class: "speaker", "data-label": s.label, "data-layer": kind }, [mark]);
-    // Labels go outside the mark, away from the centre (or beside the zenith one).
+    // Labels away from the centre, but towards it on the inner ring (clear of the middle
+    // ring's labels), and beside an overhead one.
     const len = Math.hypot(p.x, p.y);
-    const ux = len > 1 ? p.x / len : 1;
+    let ux = len > 1 ? p.x / len : 1;
     const uy = len > 1 ? p.y / len : 0;
-    const lx = p.x + ux * 16;
-    const ly = p.y + uy * 16 + 4;
-    g.append(text(lx, ly, s.label, { class: "spk-label", "text-anchor": Math.abs(ux) < 0.3 ? "middle" : ux > 0 ? "start" : "end" }));
+    const out = kind === "upper" ? -15 : 16;
+    // An overhead loudspeaker sits on the head; its label goes just below the head.
+    const lx = kind === "zenith" ? 0 : p.x + ux * out;
+    const ly = kind === "zenith" ? 30 : p.y + uy * out + 4;
+    if (kind === "zenith") ux = 0;
+    const towards = kind === "upper" ? -ux : ux;
+    g.append(text(lx, ly, s.label, { class: "spk-label", "text-anchor": Math.abs(ux) < 0.3 ? "middle" : towards > 0 ? "start" : "end" }));
     titled(g, `${s.label}: azimuth ${s.azimuth}°, elevation ${s.elevation}°`);
     svg.append(g);
   }
   // Legend and LFE box.
-  const legendY = R + 40;
-  svg.append(svgEl("circle", { cx: -118, cy: legendY, r: 5, class: "spk spk-ear" }));
-  svg.append(text(-108, legendY + 4, "ear level", { class: "legend" }));
-  svg.append(svgEl("path", { d: `M -48 ${legendY - 6} L -42 ${legendY} L -48 ${legendY + 6} L -54 ${legendY} Z`, class: "spk spk-upper" }));
-  svg.append(text(-37, legendY + 4, "raised", { class: "legend" }));
-  svg.append(svgEl("path", { d: `M 10 ${legendY - 6} L 16 ${legendY} L 10 ${legendY + 6} L 4 ${legendY} Z`, class: "spk spk-lower" }));
-  svg.append(text(21, legendY + 4, "lowered", { class: "legend" }));
+  const legendY = 160;
+  svg.append(svgEl("circle", { cx: -138, cy: legendY, r: 5, class: "spk spk-ear" }));
+  svg.append(text(-128, legendY + 4, "ear level", { class: "legend" }));
+  svg.append(svgEl("path", { d: `M -68 ${legendY - 6} L -62 ${legendY} L -68 ${legendY + 6} L -74 ${legendY} Z`, class: "spk spk-upper" }));
+  svg.append(text(-57, legendY + 4, "raised", { class: "legend" }));
+  svg.append(svgEl("path", { d: `M -10 ${legendY - 6} L -4 ${legendY} L -10 ${legendY + 6} L -16 ${legendY} Z`, class: "spk spk-lower" }));
+  svg.append(text(1, legendY + 4, "lowered", { class: "legend" }));
   if (lfe.length) {
-    svg.append(svgEl("rect", { x: 70, y: legendY - 8, width: 52, height: 16, rx: 3, class: "spk spk-lfe" }));
-    svg.append(text(96, legendY + 4, lfe.map((s) => s.label).join(" "), { class: "legend", "text-anchor": "middle" }));
+    svg.append(svgEl("rect", { x: 70, y: legendY - 8, width: 72, height: 16, rx: 3, class: "spk spk-lfe" }));
+    svg.append(text(106, legendY + 4, lfe.map((s) => s.label).join(" "), { class: "legend", "text-anchor": "middle" }));
   }
   return svg;
 }

@@ -107,6 +107,7 @@ def test_upload_render_follow_download_and_read_report(page, live_server, stems,
     assert loud.locator("line.hline").count() == 1  # the -23 LUFS target line
     assert page.locator("#report-panel").inner_text().count("LUFS") >= 2
     assert page.locator("#report-panel .caution").count() == 1
+    assert "T20 (s)" in page.locator("#report-panel").inner_text()  # the room's figures
     page.screenshot(path=str(artefacts / "web-ui-report.png"), full_page=True)
 
     # The preview starts at a reduced level (hearing safety).
