@@ -112,6 +112,8 @@ async function loadCatalog() {
   fillHrtf();
   if (state.stem) fillLayouts();
   await refreshRenders();
+  const linked = REPORT_HASH.exec(window.location.hash);
+  if (linked && $("#report-panel").hidden) showReport(linked[1]);
   return true;
 }
 
@@ -553,7 +555,10 @@ async function removeRender(id, how) {
   } catch (err) {
     say("#compare-message", `Could not ${how} the render: ${err.message}`);
   }
-  if (how === "delete" && $("#report-panel").dataset.id === id) $("#report-panel").hidden = true;
+  if (how === "delete" && $("#report-panel").dataset.id === id) {
+    $("#report-panel").hidden = true;
+    history.replaceState(null, "", window.location.pathname);
+  }
   await refreshRenders();
 }
 
@@ -620,7 +625,11 @@ function factTable(caption, rows) {
   return table;
 }
 
+/** Address of a report view: /#report=ID, so that a report can be bookmarked or shared. */
+const REPORT_HASH = /^#report=([0-9a-f]{32})$/;
+
 async function showReport(id) {
+  if (window.location.hash !== `#report=${id}`) history.replaceState(null, "", `#report=${id}`);
   const panel = $("#report-panel");
   const body = $("#report-body");
   panel.hidden = false;

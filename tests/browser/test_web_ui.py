@@ -110,6 +110,10 @@ def test_upload_render_follow_download_and_read_report(page, live_server, stems,
     assert "T20 (s)" in page.locator("#report-panel").inner_text()  # the room's figures
     page.screenshot(path=str(artefacts / "web-ui-report.png"), full_page=True)
 
+    # The report view has its own address: a reload (or a bookmark) opens it again.
+    assert page.url.endswith(f"/#report={render_id}")
+    page.reload()
+    page.wait_for_selector("#report-panel .charts svg.chart")
     # The preview starts at a reduced level (hearing safety).
     page.click("#preview-button")
     audio = page.locator("#report-panel audio")
@@ -184,11 +188,12 @@ def test_valid_sofa_upload_becomes_selectable(page, live_server, stems, shared_s
     assert "uploaded: Pulse.sofa" in page.locator("#hrtf option:checked").inner_text()
 
 
-def test_token_server_asks_for_a_token_and_keeps_it_in_the_session(page, tmp_path, artefacts):
+def test_token_server_asks_for_a_token_and_keeps_it_in_the_session(page, tmp_path, stems,
+                                                                   artefacts):
     token = secrets.token_urlsafe(24)
     tokens = tmp_path / "tokens.txt"
     tokens.write_text(token + "\n")
-    with LocalServer(workers=0, extra_args=["--tokens-file", str(tokens)]) as server:
+    with LocalServer(workers=1, extra_args=["--tokens-file", str(tokens)]) as server:
         sent: list[str | None] = []
         page.on("request", lambda r: sent.append(r.headers.get("authorization"))
                 if "/v1/layouts" in r.url else None)
@@ -213,6 +218,18 @@ def test_token_server_asks_for_a_token_and_keeps_it_in_the_session(page, tmp_pat
         page.wait_for_selector("#server-status:has-text('tokens on')")
         page.locator("#room option").nth(1).wait_for(state="attached")
         assert page.locator("#token-panel").is_hidden()
+        # Upload (XMLHttpRequest), render and download (fetch + blob) all carry the token.
+        upload_stem(page, stems / "harbour-night.wav")
+        page.click("#render-button")
+        row = row_of_newest(page)
+        row.locator(".state-text", has_text="done").wait_for(timeout=120_000)
+        with page.expect_download() as info:
+            row.locator(".act-download").click()
+        with sf.SoundFile(info.value.path()) as f:
+            assert f.channels == 2
+        # Without the token the same render is refused: the page really sent it.
+        plain = httpx.get(f"{server.url}/v1/renders/{row.get_attribute('data-id')}")
+        assert plain.status_code == 401
 
 
 def _two_renders(server: LocalServer, stem_path: Path) -> tuple[str, list[str]]:
