@@ -462,17 +462,37 @@ async function stemLabel(stemId) {
   return state.stemNames.get(stemId);
 }
 
-async function refreshRenders() {
+let refreshing = null;
+let refreshAgain = false;
+
+/** Refresh the list; calls while one is in flight fold into one more after it. */
+function refreshRenders() {
+  if (refreshing) {
+    refreshAgain = true;
+    return refreshing;
+  }
+  refreshing = fetchRenders().finally(() => {
+    refreshing = null;
+    if (refreshAgain) {
+      refreshAgain = false;
+      refreshRenders();
+    }
+  });
+  return refreshing;
+}
+
+async function fetchRenders() {
   clearTimeout(state.pollTimer);
   try {
     state.renders = await api("/v1/renders?limit=100");
   } catch (err) {
     if (!(err instanceof ApiError && err.status === 401)) {
-      say("#compare-message", `cannot list the renders: ${err.message}`);
+      say("#renders-message", `Cannot list the renders: ${err.message}`);
       state.pollTimer = setTimeout(refreshRenders, POLL_MS * 5);
     }
     return;
   }
+  if ($("#renders-message").textContent.startsWith("Cannot list")) say("#renders-message", "");
   await drawRenders();
   if (state.renders.some((r) => r.state === "queued" || r.state === "running")) {
     state.pollTimer = setTimeout(refreshRenders, POLL_MS);
@@ -539,12 +559,12 @@ async function drawRenders() {
 }
 
 async function downloadRender(id) {
-  say("#compare-message", "");
+  say("#renders-message", "");
   try {
     const got = await download(`/v1/renders/${id}/audio`, `render-${id.slice(0, 8)}.wav`);
-    say("#compare-message", `Saved ${got.name} (${fmtBytes(got.size)}).`, "ok");
+    say("#renders-message", `Saved ${got.name} (${fmtBytes(got.size)}).`, "ok");
   } catch (err) {
-    say("#compare-message", `The download failed: ${err.message}`);
+    say("#renders-message", `The download failed: ${err.message}`);
   }
 }
 
@@ -553,7 +573,7 @@ async function removeRender(id, how) {
   try {
     await api(`/v1/renders/${id}`, { method: "DELETE" });
   } catch (err) {
-    say("#compare-message", `Could not ${how} the render: ${err.message}`);
+    say("#renders-message", `Could not ${how} the render: ${err.message}`);
   }
   if (how === "delete" && $("#report-panel").dataset.id === id) {
     $("#report-panel").hidden = true;
