@@ -210,6 +210,7 @@ function showStem(stem) {
   for (const w of stem.warnings || []) rows.push(["warning", w]);
   for (const [k, v] of rows) facts.append(el("dt", {}, k), el("dd", {}, v));
   facts.hidden = false;
+  facts.dataset.stemId = stem.id;
   $("#settings-panel").hidden = false;
   state.mappingEdited = false;
   fillLayouts();

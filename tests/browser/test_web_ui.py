@@ -153,6 +153,37 @@ def test_several_mono_files_dropped_get_labels_from_their_names(page, live_serve
     page.on("request", lambda r: requests.append(r.url) if r.method == "POST" else None)
     page.click("#render-button")
     assert not any(u.endswith("/v1/renders") for u in requests)
+    # A real correction (swap the first two channels) is sent as the channel order.
+    page.select_option("#map-1", mapping[0])
+    assert page.locator("#mapping-message").inner_text() == ""
+    with page.expect_request(lambda r: r.url.endswith("/v1/renders") and r.method == "POST") as req:
+        page.click("#render-button")
+    sent = json.loads(req.value.post_data)
+    assert sent["channel_order"] == [mapping[1], mapping[0], *mapping[2:]]
+    assert sent["layout"] == "5.1" and sent["loudness"] == -23 and sent["true_peak"] == -1
+    page.locator("#render-message", has_text="queued").wait_for()
+
+
+def test_refused_render_request_shows_the_servers_reason(page, live_server, stems):
+    open_page(page, live_server)
+    upload_stem(page, stems / "harbour-night.wav")
+    # Out of range is caught by the form itself (the API's range: above -70 LUFS) ...
+    posts: list[str] = []
+    page.on("request", lambda r: posts.append(r.url) if r.method == "POST" else None)
+    page.fill("#loudness", "-80")
+    page.click("#render-button")
+    assert page.locator("#loudness").evaluate("e => e.validity.rangeUnderflow")
+    assert not any(u.endswith("/v1/renders") for u in posts)
+    page.fill("#loudness", "-23")
+    # ... and what only the server knows comes back in its words: the stem was deleted.
+    stem_id = page.evaluate("document.querySelector('#stem-facts').dataset.stemId")
+    assert httpx.delete(f"{live_server.url}/v1/stems/{stem_id}").status_code == 204
+    detail = httpx.post(f"{live_server.url}/v1/renders",
+                        json={"stem_id": stem_id, "layout": "5.1"}).json()["detail"]
+    page.click("#render-button")
+    message = page.locator("#render-message")
+    message.filter(has_text="not queued").wait_for()
+    assert detail in message.inner_text()
 
 
 @pytest.mark.shared
