@@ -600,12 +600,22 @@ function updateCompare() {
 }
 $("#compare-mode").addEventListener("change", updateCompare);
 
-/** The render options of a render request, for a comparison variant (no stem_id). */
+/**
+ * Render options that shape the sound, the ones a comparison variant takes. Loudness, the
+ * limiter and the file format are left out: the comparison level-matches the variants
+ * itself and plays them in the browser.
+ */
+const VARIANT_FIELDS = ["layout", "channel_order", "hrtf", "room", "seed", "block_size"];
+
+/** A comparison variant from a render request: its sound options and a readable name. */
 function variantOf(request) {
   const out = {};
-  for (const [k, v] of Object.entries(request)) {
-    if (k !== "stem_id" && v !== null && v !== undefined) out[k] = v;
+  for (const k of VARIANT_FIELDS) {
+    if (request[k] !== null && request[k] !== undefined) out[k] = request[k];
   }
+  const set = state.hrtfSets.find((s) => s.id === request.hrtf);
+  const layout = typeof request.layout === "string" ? request.layout : "custom layout";
+  out.name = `${layout} · room ${request.room || "none"} · ${set ? set.name : request.hrtf || "default HRTF"}`.slice(0, 64);
   return out;
 }
 

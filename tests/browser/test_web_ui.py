@@ -309,9 +309,14 @@ def test_blind_comparison_posts_the_selected_renders_settings(page, live_server,
     assert body["excerpt"] == {"length": 8}
     assert [v["room"] for v in body["variants"]] == ["none", "medium"]  # oldest first
     for v in body["variants"]:
-        assert "stem_id" not in v
+        # Only the options that shape the sound (the comparison contract's variant
+        # fields), and a name for the reveal.
+        assert set(v) <= {"name", "layout", "channel_order", "hrtf", "room", "seed",
+                          "block_size"}
         assert v["layout"] == "5.1" and v["seed"] == 3
         assert None not in v.values()
+        assert 0 < len(v["name"]) <= 64
+    assert "room medium" in body["variants"][1]["name"]
     page.screenshot(path=str(artefacts / "web-ui-comparison.png"), full_page=True)
 
     # ABX takes exactly two renders: two are selected, so it may start.
