@@ -324,6 +324,24 @@ def test_blind_comparison_posts_the_selected_renders_settings(page, live_server,
     assert button.is_enabled()
 
 
+def test_blind_comparison_with_the_real_comparison_api(page, live_server, stems):
+    paths = httpx.get(f"{live_server.url}/openapi.json").json()["paths"]
+    if "/v1/comparisons" not in paths:
+        pytest.skip("this build has no comparison API (POST /v1/comparisons) yet")
+    _, ids = _two_renders(live_server, stems / "harbour-night.wav")
+    open_page(page, live_server)
+    for render_id in ids:
+        page.locator(f"#sel-{render_id}").check()
+    with page.expect_response(lambda r: r.url.endswith("/v1/comparisons")) as answer:
+        with page.context.expect_page() as opened:
+            page.click("#compare-button")
+    assert answer.value.status == 202, answer.value.text()
+    made = answer.value.json()
+    assert page.locator("#compare-link").get_attribute("href") == made["links"]["page"]
+    opened.value.wait_for_load_state()
+    assert opened.value.url.endswith(made["links"]["page"])
+
+
 def test_comparison_unavailable_says_so(page, live_server, stems):
     _, ids = _two_renders(live_server, stems / "harbour-night.wav")
     page.route("**/v1/comparisons", lambda route: route.fulfill(
