@@ -579,7 +579,6 @@ def render(
         "engine": streamed["engine"],
         "delivery": delivery,
         "room": plan.room,
-        "plots": plot_section(plan, out_path, delivery),
         "timings_s": {
             "plan": round(t_plan - t0, 4),
             "render": round(t_render - t_plan, 4),
@@ -588,5 +587,6 @@ def render(
             "x_real_time": round(duration / max(t_end - t_plan, 1e-9), 1),
         },
         "platform": {"python": platform.python_version(), "machine": platform.machine()},
+        "plots": plot_section(plan, out_path, delivery),
         "warnings": warnings,
     }
