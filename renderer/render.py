@@ -32,6 +32,7 @@ from .onsets import onset_times
 from .pipeline import BackgroundWriter, prefetch
 from .delivery import DeliveryOptions, deliver
 from .loudness import LoudnessMeter, channel_weights
+from .plot_data import plot_section
 from .room import Room, get_room
 from .room_filters import build_room_filters, exact_brirs
 
@@ -680,5 +681,6 @@ def render(
             "x_real_time": round(duration / max(t_end - t_plan, 1e-9), 1),
         },
         "platform": {"python": platform.python_version(), "machine": platform.machine()},
+        "plots": plot_section(plan, out_path, delivery),
         "warnings": warnings,
     }
