@@ -63,6 +63,12 @@ DECAY_FLOOR_DB = -90.0
 SPECTRUM_LEVEL_FLOOR_DB = -200.0
 """Level reported for a band with no energy at all (digital silence)."""
 
+SPECTRUM_SEGMENTS = 96
+"""Most segments the report's spectrum analyses (about 65 s of audio at 48 kHz, evenly
+spread over the render): the long-term average of a longer render is estimated from that
+many, so the plots cost the same whatever the length (common practice for display
+spectra; Welch's estimate converges as 1/sqrt(segments))."""
+
 _LOWEST_BAND_HZ = 20.0
 _READ_FRAMES = 1 << 16
 
@@ -98,9 +104,22 @@ class SpectrumMeter:
     nfft : int, optional
         Segment length; by default the power of two at or above 0.68 s of audio (32768 at
         44.1 and 48 kHz: 1.5 Hz bins, so the narrowest band, at 20 Hz, spans 3 bins).
+    stride : int, optional
+        Analyse every ``stride``-th segment only (1, the default: all of them, which is
+        Welch's method exactly). :meth:`for_length` picks it from a known length.
     """
 
-    def __init__(self, samplerate: float, channels: int, nfft: int | None = None) -> None:
+    @classmethod
+    def for_length(cls, samplerate: float, channels: int, frames: int,
+                   max_segments: int = SPECTRUM_SEGMENTS) -> SpectrumMeter:
+        """A meter that analyses at most ``max_segments`` segments of ``frames``, evenly spread."""
+        meter = cls(samplerate, channels)
+        total = (frames - meter.nfft) // meter._hop + 1 if frames >= meter.nfft else 0
+        meter.stride = max(1, -(-total // max_segments))
+        return meter
+
+    def __init__(self, samplerate: float, channels: int, nfft: int | None = None,
+                 stride: int = 1) -> None:
         self.samplerate = float(samplerate)
         self.channels = int(channels)
         self.nfft = int(nfft or 1 << int(math.ceil(math.log2(0.68 * samplerate))))
@@ -109,7 +128,9 @@ class SpectrumMeter:
         self._hop = self.nfft // 2
         self._buffer = np.zeros((0, self.channels), dtype=np.float32)
         self._power = np.zeros((self.nfft // 2 + 1, self.channels))
-        self._segments = 0
+        self._segments = 0  # segments analysed
+        self._seen = 0  # segments passed, analysed or not
+        self.stride = max(1, int(stride))
         self.frames = 0
 
     def process(self, block: np.ndarray) -> None:
@@ -121,13 +142,20 @@ class SpectrumMeter:
         if n_seg > 0:
             # Segments as strided views of the buffer: (segments, channels, nfft).
             view = np.lib.stride_tricks.sliding_window_view(buf, self.nfft, axis=0)
-            segs = view[: (n_seg - 1) * self._hop + 1 : self._hop] * self._window32
-            # float32 FFTs (scipy keeps single precision, numpy would not): level figures
-            # to 0.01 dB need far less than float32's 1e-7; sums are kept in float64.
-            spec = scipy.fft.rfft(segs, axis=-1)
-            power = spec.real ** 2 + spec.imag ** 2
-            self._power += power.sum(axis=0, dtype=np.float64).T
-            self._segments += n_seg
+            # The segments of this call whose overall index is a multiple of the stride.
+            first = -self._seen % self.stride
+            picked = range(first, n_seg, self.stride)
+            if len(picked):
+                starts = slice(first * self._hop, (n_seg - 1) * self._hop + 1,
+                               self.stride * self._hop)
+                segs = view[starts] * self._window32
+                # float32 FFTs (scipy keeps single precision, numpy would not): level
+                # figures to 0.01 dB need far less than float32's 1e-7; sums in float64.
+                spec = scipy.fft.rfft(segs, axis=-1)
+                power = spec.real ** 2 + spec.imag ** 2
+                self._power += power.sum(axis=0, dtype=np.float64).T
+                self._segments += len(picked)
+            self._seen += n_seg
             buf = buf[n_seg * self._hop:]
         self._buffer = buf.copy()
 
@@ -306,7 +334,7 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str],
 
     t0 = time.perf_counter()
     info = probe_stem([output])
-    spectrum = SpectrumMeter(info.samplerate, info.channels)
+    spectrum = SpectrumMeter.for_length(info.samplerate, info.channels, info.frames)
     series = None if delivery is None else delivery.get("output", {}).get("series")
     meter = None if series is not None else LoudnessMeter(info.samplerate, info.channels,
                                                           measure_true_peak=False)
@@ -334,9 +362,11 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str],
         "spectra": {
             "what": "long-term average level per one-third-octave band (IEC 61260-1 "
                     "centres), dB of mean square re full scale (a full-scale sine reads "
-                    "-3.01 dB); Welch, Hann, 50 % overlap",
+                    "-3.01 dB); Welch, Hann, 50 % overlap, at most "
+                    f"{SPECTRUM_SEGMENTS} segments evenly spread",
             "ears": ["left", "right"][:info.channels],
             "nfft": spectrum.nfft,
+            "segments": spectrum._segments,
             **bands,
         },
         "room_decay": decay,

@@ -83,6 +83,36 @@ def test_white_noise_bands_match_scipy_welch():
     assert_allclose(levels[:, upper_bands], np.tile(expected[upper_bands], (2, 1)), atol=0.5)
 
 
+def test_strided_meter_analyses_a_bounded_even_sample_of_segments():
+    # A long render is estimated from at most SPECTRUM_SEGMENTS segments, evenly spread;
+    # the choice does not depend on the block sizes, and stride 1 is Welch's method.
+    rng = np.random.default_rng(5)
+    x = 0.1 * rng.standard_normal((40 * FS, 2)).astype(np.float32)
+    full = SpectrumMeter(FS, 2)
+    full.process(x)
+    bounded = SpectrumMeter.for_length(FS, 2, len(x), max_segments=16)
+    assert bounded.stride > 1
+    for start in range(0, len(x), 30011):  # odd blocks
+        bounded.process(x[start:start + 30011])
+    assert 0 < bounded._segments <= 16
+    # The same segments, chosen by hand: every stride-th of the full set.
+    hop, nfft = full.nfft // 2, full.nfft
+    window = signal.get_window("hann", nfft)
+    picked = range(0, (len(x) - nfft) // hop + 1, bounded.stride)
+    power = sum(np.abs(np.fft.rfft(x[k * hop:k * hop + nfft].astype(np.float64)
+                                   * window[:, None], axis=0)) ** 2 for k in picked)
+    _, ms = bounded.mean_square()
+    scale = np.full(nfft // 2 + 1, 2.0)
+    scale[[0, -1]] = 1.0
+    assert_allclose(ms, power / len(picked) * scale[:, None] / (nfft * np.sum(window ** 2)),
+                    rtol=1e-4, atol=1e-14)
+    # And the estimate stays near the full one for stationary noise (bands >= 200 Hz).
+    centres = np.array(full.band_levels()["centres_hz"])
+    upper = centres >= 200
+    assert_allclose(np.array(bounded.band_levels()["levels_db"])[:, upper],
+                    np.array(full.band_levels()["levels_db"])[:, upper], atol=1.0)
+
+
 def test_short_signal_is_one_segment_of_its_own_length():
     t = np.arange(4000) / FS
     meter = SpectrumMeter(FS, 1)
