@@ -27,7 +27,7 @@ from .storage import Storage
 def create_app(settings: ServiceSettings) -> FastAPI:
     """The API v1 app for ``settings`` (DESIGN.md, "HTTP contract")."""
     storage = Storage(settings.data_dir)
-    queue = open_queue(settings.queue_url, str(storage.root))
+    queue = open_queue(settings.queue_url, str(storage.root), **settings.broker_options())
 
     @contextlib.asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
