@@ -18,7 +18,6 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import dramatiq
-import redis
 from dramatiq.brokers.redis import RedisBroker
 
 #: Name of the Dramatiq queue and actor of render jobs.
@@ -40,24 +39,19 @@ MAINTENANCE_CHANCE = 0.1
 #: Longest sleep of an idle consumer between two fetches (ms); bounds enqueue-to-start.
 IDLE_POLL_MS = 50
 
-#: Redis connect and command timeouts (s): an outage shows as an error within seconds.
-CONNECT_TIMEOUT_S = 2.0
-COMMAND_TIMEOUT_S = 5.0
-
 #: Dead-lettered messages (an actor that raised; a bug) are kept this long (ms): 1 day.
 DEAD_MESSAGE_TTL_MS = 86_400_000
 
 
-def make_broker(url: str, namespace: str, *, heartbeat_timeout_s: float = HEARTBEAT_TIMEOUT_S,
+def make_broker(client, namespace: str, *, heartbeat_timeout_s: float = HEARTBEAT_TIMEOUT_S,
                 maintenance_chance: float = MAINTENANCE_CHANCE) -> RedisBroker:
-    """A Redis broker on ``url`` whose keys start with ``namespace``.
+    """A Redis broker on ``client`` (a redis-py client of the job store, which owns the
+    connection settings) whose keys start with ``namespace``.
 
     No middleware: Dramatiq's time limit (10 min by default) would kill long renders,
     and its retries are replaced by the attempts count in the job record.
     """
     chance = int(round(min(max(maintenance_chance, 0.0), 1.0) * 1_000_000))
-    client = redis.Redis.from_url(url, socket_connect_timeout=CONNECT_TIMEOUT_S,
-                                  socket_timeout=COMMAND_TIMEOUT_S)
     broker = RedisBroker(client=client, namespace=namespace, middleware=[],
                          heartbeat_timeout=int(heartbeat_timeout_s * 1000),
                          maintenance_chance=chance, dead_message_ttl=DEAD_MESSAGE_TTL_MS)
@@ -68,8 +62,8 @@ def make_broker(url: str, namespace: str, *, heartbeat_timeout_s: float = HEARTB
 class Delivery:
     """Sends job ids to workers and, in a worker, receives them one at a time."""
 
-    def __init__(self, url: str, namespace: str, **broker_options: float) -> None:
-        self.broker = make_broker(url, namespace, **broker_options)
+    def __init__(self, client, namespace: str, **broker_options: float) -> None:
+        self.broker = make_broker(client, namespace, **broker_options)
 
     def send(self, job_id: str) -> None:
         """Enqueue a message for ``job_id``; redis errors propagate."""
@@ -97,5 +91,5 @@ class Delivery:
         return int(self.broker.client.llen(f"{self.broker.namespace}:{QUEUE_NAME}"))
 
     def close(self) -> None:
+        """Close the broker (the client belongs to the job store, which closes it)."""
         self.broker.close()
-        self.broker.client.close()

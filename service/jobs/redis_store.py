@@ -31,6 +31,10 @@ from .states import JobState
 #: Key prefix when the URL names none.
 DEFAULT_PREFIX = "ossicle"
 
+#: Connect and command timeouts (s): an outage shows as an error within seconds.
+CONNECT_TIMEOUT_S = 2.0
+COMMAND_TIMEOUT_S = 5.0
+
 #: A queued job whose message is not confirmed sent after this long is sent again (s).
 RESEND_AFTER_S = 2.0
 
@@ -222,8 +226,6 @@ class RedisJobQueue:
 
     def __init__(self, url: str, *, clock: Callable[[], float] = time.time,
                  deliver: bool = True, **broker_options: float) -> None:
-        from .redis_delivery import COMMAND_TIMEOUT_S, CONNECT_TIMEOUT_S
-
         self.redis_url, name = parse_url(url)
         self.prefix = name + ":"
         self.where = display_url(self.redis_url)
@@ -246,7 +248,7 @@ class RedisJobQueue:
         if self._delivery is None:
             from .redis_delivery import Delivery
 
-            self._delivery = Delivery(self.redis_url, self.prefix + "dramatiq",
+            self._delivery = Delivery(self.client, self.prefix + "dramatiq",
                                       **self._broker_options)
         return self._delivery
 
