@@ -168,10 +168,17 @@ def test_render_through_a_worker_matches_the_renderer(cluster, tmp_path):
     assert api.http.get("/v1/health").json()["queue"]["done"] == 1
 
 
+def _children(pid: int) -> set[int]:
+    """Live child processes of ``pid`` (Linux lists them per thread that started them)."""
+    found = set()
+    for task in Path(f"/proc/{pid}/task").iterdir():
+        found |= {int(c) for c in (task / "children").read_text().split()}
+    return found
+
+
 def test_sigkill_of_a_worker_mid_render_is_redelivered_to_the_other(cluster, tmp_path):
     api = cluster.api()
-    cluster.workers(1)
-    cluster.workers(1)
+    groups = [cluster.workers(1), cluster.workers(1)]
     store = cluster.store()
     path = write_stem(tmp_path / "long.wav", FS * 30, 2, seed=8)
     job_id = _submit(api, path, layout="2.0", block_size=64)
@@ -190,6 +197,10 @@ def test_sigkill_of_a_worker_mid_render_is_redelivered_to_the_other(cluster, tmp
     got = _download(api, done, tmp_path / "got.wav")
     assert_array_equal(got, _reference(path, tmp_path / "ref.wav", layout="2.0", block_size=64))
     assert list((cluster.data_dir / "renders" / job_id).glob(".*.part")) == []
+    # ossicle worker replaced the process that was killed.
+    killed = int(first.split(":")[1])
+    alive = [_children(g.proc.pid) for g in groups]
+    assert all(len(c) == 1 for c in alive) and killed not in set().union(*alive), alive
 
 
 def test_two_apis_share_jobs_and_cancel_stops_a_running_render(cluster, tmp_path):
