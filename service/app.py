@@ -15,7 +15,7 @@ from fastapi import FastAPI
 
 from renderer import __version__
 
-from .jobs import open_queue
+from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
 from .retention import sweep
 from .routes import catalog, renders, stems
@@ -64,7 +64,11 @@ async def _sweep_forever(app: FastAPI) -> None:
     settings: ServiceSettings = app.state.settings
     while True:
         await asyncio.sleep(settings.sweep_s)
-        await asyncio.to_thread(sweep, app.state.storage, app.state.queue, settings.retention_s)
+        try:
+            await asyncio.to_thread(sweep, app.state.storage, app.state.queue,
+                                    settings.retention_s)
+        except QueueUnavailable:
+            pass  # the job store is down (a network backend); the next sweep tries again
 
 
 def _warm_up() -> None:

@@ -226,3 +226,24 @@ def test_in_process_app_on_redis_reports_counts(redis_queue_url, make_client):
     assert health.status_code == 200, health.text
     assert health.json()["queue"] == {"queued": 0, "running": 0, "done": 0, "failed": 0,
                                       "cancelled": 0}
+
+
+def test_retention_sweep_survives_an_outage(tmp_path):
+    # The app's background sweep must outlive a job store that does not answer.
+    import asyncio
+
+    from service.app import _sweep_forever, create_app
+    from service.settings import ServiceSettings
+
+    down = f"redis://127.0.0.1:{free_port()}/0"
+    app = create_app(ServiceSettings(data_dir=tmp_path / "data", queue_url=down, sweep_s=0.01))
+
+    async def run() -> bool:
+        task = asyncio.create_task(_sweep_forever(app))
+        await asyncio.sleep(0.3)  # many sweeps, each meeting QueueUnavailable
+        alive = not task.done()
+        task.cancel()
+        return alive
+
+    assert asyncio.run(run())
+    app.state.queue.close()
