@@ -17,7 +17,7 @@ from renderer import __version__
 
 from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
-from .retention import sweep
+from .retention import TMP_MAX_AGE_S, sweep
 from .routes import catalog, renders, stems
 from .routes.pages import install_pages
 from .settings import ServiceSettings
@@ -31,7 +31,9 @@ def create_app(settings: ServiceSettings) -> FastAPI:
 
     @contextlib.asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
-        storage.clean_tmp()
+        # A shared queue means other API processes may be mid-upload in the same data
+        # directory: only then leave recent leftovers to the sweep.
+        storage.clean_tmp(older_than_s=TMP_MAX_AGE_S if settings.broker_options() else 0.0)
         await asyncio.to_thread(_warm_up)
         task = asyncio.create_task(_sweep_forever(app))
         try:

@@ -247,3 +247,42 @@ def test_retention_sweep_survives_an_outage(tmp_path):
 
     assert asyncio.run(run())
     app.state.queue.close()
+
+
+def test_a_second_api_on_a_shared_queue_keeps_uploads_in_progress(tmp_path, redis_queue_url,
+                                                                   make_client):
+    # Several API processes share the data directory with Redis: one starting up must not
+    # remove another's upload in progress from tmp/ (the embedded backend still does).
+    first = make_client(queue_url=redis_queue_url)
+    in_progress = tmp_path / "data" / "tmp" / "upload-in-progress.part"
+    in_progress.write_bytes(b"RIFF")
+    make_client(queue_url=redis_queue_url)
+    assert in_progress.exists()
+    make_client()  # sqlite: a single server owns the folder and clears it at start-up
+    assert not in_progress.exists()
+    assert first.get("/v1/health").status_code == 200
+
+
+def test_retention_sweeps_of_two_apis_do_not_trip_over_each_other(tmp_path, redis_queue_url):
+    from service.retention import sweep
+    from service.storage import Storage
+
+    storage = Storage(tmp_path / "data")
+    one, two = RedisJobQueue(redis_queue_url), RedisJobQueue(redis_queue_url)
+    one.submit("a", "", {}, max_queued=10)
+    one.cancel("a")
+    stale = list(one.list(active=False))
+    two.delete("a")  # the other API's sweep got there first
+
+    class Late:
+        """``one`` as seen by a sweep that listed the job before it was deleted."""
+
+        def list(self, *args, active=None, **kwargs):
+            return stale if active is False else []
+
+        def delete(self, job_id):
+            return one.delete(job_id)
+
+    assert sweep(storage, Late(), max_age_s=-1)["renders"] == 0
+    one.close()
+    two.close()
