@@ -15,9 +15,9 @@ from fastapi import FastAPI
 
 from renderer import __version__
 
-from .jobs import open_queue
+from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
-from .retention import sweep
+from .retention import TMP_MAX_AGE_S, sweep
 from .routes import catalog, comparisons, renders, stems
 from .routes.pages import install_pages
 from .settings import ServiceSettings
@@ -27,11 +27,13 @@ from .storage import Storage
 def create_app(settings: ServiceSettings) -> FastAPI:
     """The API v1 app for ``settings`` (DESIGN.md, "HTTP contract")."""
     storage = Storage(settings.data_dir)
-    queue = open_queue(settings.queue_url, str(storage.root))
+    queue = open_queue(settings.queue_url, str(storage.root), **settings.broker_options())
 
     @contextlib.asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
-        storage.clean_tmp()
+        # A shared queue means other API processes may be mid-upload in the same data
+        # directory: only then leave recent leftovers to the sweep.
+        storage.clean_tmp(older_than_s=TMP_MAX_AGE_S if settings.broker_options() else 0.0)
         await asyncio.to_thread(_warm_up)
         task = asyncio.create_task(_sweep_forever(app))
         try:
@@ -65,7 +67,11 @@ async def _sweep_forever(app: FastAPI) -> None:
     settings: ServiceSettings = app.state.settings
     while True:
         await asyncio.sleep(settings.sweep_s)
-        await asyncio.to_thread(sweep, app.state.storage, app.state.queue, settings.retention_s)
+        try:
+            await asyncio.to_thread(sweep, app.state.storage, app.state.queue,
+                                    settings.retention_s)
+        except QueueUnavailable:
+            pass  # the job store is down (a network backend); the next sweep tries again
 
 
 def _warm_up() -> None:

@@ -369,6 +369,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_serve_parser(sub)
 
+    from service.worker_cli import add_worker_parser
+
+    add_worker_parser(sub)
+
     p = sub.add_parser("demo", help="synthesise a demo 7.1.4 stem and render it")
     p.add_argument("dir", nargs="?", default="ossicle-demo", help="folder for the files (default ossicle-demo)")
     p.set_defaults(func=cmd_demo)

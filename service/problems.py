@@ -19,12 +19,18 @@ from starlette.routing import Match
 
 from renderer.errors import AudioError, RendererError
 
+from .jobs.queue import QueueUnavailable
+
 PROBLEM_TYPE = "application/problem+json"
 
 #: Statuses the contract names (DESIGN.md, "HTTP contract").
 BAD_REQUEST, UNAUTHORIZED, NOT_FOUND, CONFLICT = 400, 401, 404, 409
 TOO_LARGE, UNSUPPORTED, UNPROCESSABLE, QUEUE_FULL, NO_SPACE = 413, 415, 422, 429, 507
 RANGE_NOT_SATISFIABLE = 416
+UNAVAILABLE = 503
+
+#: Retry-After of a 503 while the job store is down (s).
+UNAVAILABLE_RETRY_S = 5
 
 
 class FieldError(BaseModel):
@@ -64,6 +70,7 @@ _WHY = {
     416: "the Range cannot be satisfied",
     422: "the request is well-formed but cannot be used (validation errors)",
     429: "the render queue is full; retry after Retry-After seconds",
+    503: "the job store (Redis) does not answer; retry after Retry-After seconds",
     507: "not enough disk space for the upload",
 }
 
@@ -161,6 +168,12 @@ def install_problem_handlers(app: FastAPI) -> None:
     @app.exception_handler(RendererError)
     async def _renderer(request: Request, exc: RendererError) -> JSONResponse:
         return problem_response(renderer_status(exc), str(exc), instance=request.url.path)
+
+    @app.exception_handler(QueueUnavailable)
+    async def _queue_down(request: Request, exc: QueueUnavailable) -> JSONResponse:
+        return problem_response(UNAVAILABLE, f"{exc}; nothing was changed, try again shortly",
+                                title="Job store unavailable", instance=request.url.path,
+                                headers={"Retry-After": str(UNAVAILABLE_RETRY_S)})
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> JSONResponse:

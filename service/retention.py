@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import time
 
-from .jobs import JobQueue, WrongState
+from .jobs import JobNotFound, JobQueue, WrongState
 from .storage import Storage
 
 #: Leftovers in ``tmp/`` older than this are removed by a sweep (s); younger ones may be
@@ -37,7 +37,7 @@ def sweep(storage: Storage, queue: JobQueue, max_age_s: float) -> dict[str, int]
         if (job.finished or job.updated) < cutoff:
             try:
                 queue.delete(job.id)
-            except WrongState:
+            except (WrongState, JobNotFound):  # another API process's sweep was first
                 continue
             if job.payload.get("kind") == "comparison":
                 continue  # a comparison's build job: its session went above

@@ -49,8 +49,9 @@ def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
         "serve",
         help="run the HTTP API and its render workers",
-        description="Serve the HTTP API (v1; OpenAPI page at /docs) with an embedded SQLite "
-        "job queue and render worker processes. Binds 127.0.0.1 unless told otherwise.",
+        description="Serve the HTTP API (v1; OpenAPI page at /docs) with a job queue (embedded "
+        "SQLite by default, or Redis for several machines) and render worker processes. "
+        "Binds 127.0.0.1 unless told otherwise.",
     )
     p.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1)")
     p.add_argument("--port", type=int, default=8000, help="port (default 8000)")
@@ -60,7 +61,9 @@ def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
                    help=f"render worker processes (default cores - 1 = {default_workers()}; "
                    "0 = API only)")
     p.add_argument("--queue", default="sqlite:", metavar="URL",
-                   help="job store: 'sqlite:' (embedded, default)")
+                   help="job store: 'sqlite:' (embedded, default) or redis://HOST:PORT/DB "
+                   "(scale-out: jobs shared by several API processes and 'ossicle worker' "
+                   "machines)")
     p.add_argument("--tokens-file", metavar="FILE",
                    help="API tokens, one per line (also read from $OSSICLE_TOKENS)")
     p.add_argument("--insecure", action="store_true",
@@ -80,6 +83,7 @@ def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--tick-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--max-attempts", type=_positive(int), help=argparse.SUPPRESS)
     p.add_argument("--sweep-seconds", type=_positive(float), help=argparse.SUPPRESS)
+    p.add_argument("--broker-heartbeat-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--min-free-mb", type=float,
                    help="disk space that must stay free after an upload, else 507 "
                    "(default 1024)")
@@ -103,6 +107,7 @@ def settings_from_args(args: argparse.Namespace):
         "tick_s": args.tick_seconds,
         "max_attempts": args.max_attempts,
         "sweep_s": args.sweep_seconds,
+        "broker_heartbeat_s": args.broker_heartbeat_seconds,
         "min_free_bytes": None if args.min_free_mb is None else int(args.min_free_mb * 2**20),
     }
     return ServiceSettings(

@@ -46,6 +46,14 @@ DEFAULT_POLL_S = 0.05
 #: Attempts after which a job whose worker keeps dying is failed instead of retried.
 DEFAULT_MAX_ATTEMPTS = 3
 
+#: Broker heartbeat timeout of the Redis backend (s): Dramatiq redelivers the messages of
+#: a worker silent this long (its default, 60 s, with its default maintenance chance took
+#: minutes to redeliver). See service/jobs/redis_delivery.py.
+DEFAULT_BROKER_HEARTBEAT_S = 30.0
+
+#: Share of Redis broker commands that run its dead-worker maintenance.
+DEFAULT_BROKER_MAINTENANCE_CHANCE = 0.1
+
 #: Stems and renders older than this are deleted by the retention sweep (s): 7 days.
 DEFAULT_RETENTION_S = 7 * 24 * 3600.0
 
@@ -89,6 +97,8 @@ class ServiceSettings:
     tick_s: float = DEFAULT_TICK_S
     poll_s: float = DEFAULT_POLL_S
     max_attempts: int = DEFAULT_MAX_ATTEMPTS
+    broker_heartbeat_s: float = DEFAULT_BROKER_HEARTBEAT_S
+    broker_maintenance_chance: float = DEFAULT_BROKER_MAINTENANCE_CHANCE
     retention_s: float = DEFAULT_RETENTION_S
     sweep_s: float = DEFAULT_SWEEP_S
     min_free_bytes: int = DEFAULT_MIN_FREE_BYTES
@@ -103,6 +113,13 @@ class ServiceSettings:
     @property
     def auth_enabled(self) -> bool:
         return bool(self.tokens)
+
+    def broker_options(self) -> dict[str, float]:
+        """Options of a network queue backend (:func:`service.jobs.open_queue`)."""
+        if not self.queue_url.startswith(("redis://", "rediss://")):
+            return {}
+        return {"heartbeat_timeout_s": self.broker_heartbeat_s,
+                "maintenance_chance": self.broker_maintenance_chance}
 
     def replace(self, **changes: object) -> ServiceSettings:
         return dataclasses.replace(self, **changes)

@@ -26,6 +26,44 @@ def shared_sofa_dir() -> Path:
     return _require_shared()
 
 
+#: Redis the tests use: $OSSICLE_TEST_REDIS_URL (set by .ci/run) or the local default.
+#: Every test works under its own key prefix and deletes its keys afterwards.
+REDIS_URL_ENV = "OSSICLE_TEST_REDIS_URL"
+DEFAULT_TEST_REDIS = "redis://127.0.0.1:6379/0"
+
+
+@pytest.fixture(scope="session")
+def redis_server_url() -> str:
+    """A Redis that answers: skipped where none runs, required when CI=true."""
+    import redis
+
+    url = os.environ.get(REDIS_URL_ENV) or DEFAULT_TEST_REDIS
+    try:
+        client = redis.Redis.from_url(url, socket_connect_timeout=2)
+        client.ping()
+        client.close()
+    except redis.exceptions.RedisError as exc:
+        reason = f"no Redis answers at {url} ({exc}); set ${REDIS_URL_ENV} or start redis-server"
+        if os.environ.get("CI") == "true":
+            pytest.fail(f"CI=true but {reason}")
+        pytest.skip(reason)
+    return url
+
+
+@pytest.fixture
+def redis_queue_url(redis_server_url):
+    """``redis://...?prefix=UNIQUE`` for one test; its keys are deleted afterwards."""
+    import uuid
+
+    from service.jobs.redis_store import RedisJobQueue
+
+    url = f"{redis_server_url}?prefix=ossicle-test-{uuid.uuid4().hex[:12]}"
+    yield url
+    q = RedisJobQueue(url, deliver=False)
+    q.purge()
+    q.close()
+
+
 @pytest.fixture(scope="session")
 def repo_root() -> Path:
     return REPO_ROOT

@@ -40,3 +40,13 @@ def test_each_library_behind_one_door():
         for lib, door in doors.items():
             if lib in used:
                 assert path.name == door, f"{path.name} imports {lib}; only {door} may"
+
+
+def test_queue_libraries_behind_one_door_each():
+    service = RENDERER.parent / "service"
+    doors = {"dramatiq": "redis_delivery.py", "redis": "redis_store.py"}
+    for path in service.rglob("*.py"):
+        used = _imports(path)
+        for lib, door in doors.items():
+            if lib in used:
+                assert path.name == door, f"{path.name} imports {lib}; only {door} may"

@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
-from .queue import Job, JobNotFound, JobQueue, QueueError, QueueFull, WrongState, open_queue
+from .queue import (Job, JobNotFound, JobQueue, QueueError, QueueFull, QueueUnavailable,
+                    WrongState, open_queue)
 from .states import FINISHED, JobState, can_move
 
 __all__ = ["FINISHED", "Job", "JobNotFound", "JobQueue", "JobState", "QueueError", "QueueFull",
-           "WrongState", "can_move", "open_queue"]
+           "QueueUnavailable", "WrongState", "can_move", "open_queue"]

@@ -22,6 +22,13 @@ def default_workers() -> int:
     return max((os.cpu_count() or 2) - 1, 1)
 
 
+def worker_module(queue_url: str) -> str:
+    """The module a worker process of ``queue_url``'s backend runs."""
+    if queue_url.startswith(("redis://", "rediss://")):
+        return "service.jobs.redis_worker"
+    return "service.jobs.worker"
+
+
 class WorkerPool:
     """``count`` worker processes that are restarted when they die.
 
@@ -29,9 +36,12 @@ class WorkerPool:
     again once its lease expires, by the new worker or another.
     """
 
-    def __init__(self, settings: ServiceSettings, count: int) -> None:
+    def __init__(self, settings: ServiceSettings, count: int, *,
+                 module: str | None = None) -> None:
         self.settings = settings
         self.count = count
+        #: The worker's module: the embedded claim loop, or the Redis consumer.
+        self.module = module or worker_module(settings.queue_url)
         self.procs: list[subprocess.Popen] = []
         self.restarts = 0
         self._stop = threading.Event()
@@ -41,7 +51,7 @@ class WorkerPool:
     def _spawn(self) -> subprocess.Popen:
         env = dict(os.environ)
         env[SETTINGS_ENV] = self.settings.to_json()
-        return subprocess.Popen([sys.executable, "-m", "service.jobs.worker"], env=env)
+        return subprocess.Popen([sys.executable, "-m", self.module], env=env)
 
     def start(self) -> None:
         with self._lock:

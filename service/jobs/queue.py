@@ -26,6 +26,11 @@ class QueueFull(QueueError):
     """More jobs are queued than the store accepts."""
 
 
+class QueueUnavailable(QueueError):
+    """The job store does not answer (a network store is down or unreachable); the API
+    answers 503 and retries on the next request."""
+
+
 class JobNotFound(QueueError, KeyError):
     """No job with that id."""
 
@@ -108,8 +113,10 @@ class JobQueue(Protocol):
         """Release the store's resources."""
 
 
-def open_queue(url: str, data_dir: str) -> JobQueue:
-    """The backend for ``url``: ``sqlite:`` (embedded, in ``data_dir``) or ``sqlite:PATH``.
+def open_queue(url: str, data_dir: str, **options: float) -> JobQueue:
+    """The backend for ``url``: ``sqlite:`` (embedded, in ``data_dir``), ``sqlite:PATH``,
+    or ``redis://HOST:PORT/DB[?prefix=NAME]`` (scale-out; ``options`` go to its broker,
+    see :class:`~service.jobs.redis_store.RedisJobQueue`).
 
     Raises
     ------
@@ -126,5 +133,9 @@ def open_queue(url: str, data_dir: str) -> JobQueue:
         from .sqlite_store import SqliteJobQueue
 
         return SqliteJobQueue(Path(url[len("sqlite:"):]))
+    if url.startswith(("redis://", "rediss://")):
+        from .redis_store import RedisJobQueue
+
+        return RedisJobQueue(url, **options)
     raise ValueError(f"no queue backend for {url!r}; available: 'sqlite:' (embedded, the "
-                     "default); the Redis backend is not built yet")
+                     "default) and 'redis://HOST:PORT/DB' (scale-out)")

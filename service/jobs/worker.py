@@ -24,7 +24,7 @@ from pathlib import Path
 
 from ..settings import ServiceSettings
 from ..storage import Storage
-from .queue import Job, JobQueue, open_queue
+from .queue import Job, JobQueue, QueueUnavailable, open_queue
 
 SETTINGS_ENV = "OSSICLE_WORKER_SETTINGS"
 
@@ -91,7 +91,8 @@ class Worker:
                  *, name: str | None = None) -> None:
         self.settings = settings
         self.storage = Storage(settings.data_dir)
-        self.queue = queue or open_queue(settings.queue_url, str(settings.data_dir))
+        self.queue = queue or open_queue(settings.queue_url, str(settings.data_dir),
+                                         **settings.broker_options())
         self.name = name or f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
         self._stop = threading.Event()
         self._parent = os.getppid()
@@ -182,14 +183,22 @@ class Worker:
         reported = 0.0
         lost = False
         handed_back = False
+        unreachable_since: float | None = None
         while proc.poll() is None:
             time.sleep(s.tick_s)
             if proc.poll() is not None:
                 break
-            ok = q.heartbeat(job.id, self.name, s.lease_s)
-            if ok and latest["progress"] > reported:
-                reported = latest["progress"]
-                ok = q.progress(job.id, self.name, reported)
+            try:
+                ok = q.heartbeat(job.id, self.name, s.lease_s)
+                if ok and latest["progress"] > reported:
+                    reported = latest["progress"]
+                    ok = q.progress(job.id, self.name, reported)
+                unreachable_since = None
+            except QueueUnavailable:
+                # A network store is down: keep rendering while the lease could still
+                # be ours; past it, another worker may have the job.
+                unreachable_since = unreachable_since or time.monotonic()
+                ok = time.monotonic() - unreachable_since < s.lease_s
             if not ok:
                 lost = True
                 self._terminate(proc)
@@ -203,6 +212,28 @@ class Worker:
         if proc.stdout is not None:
             proc.stdout.close()
         final = messages[-1] if messages else {}
+        try:
+            self._record(job, spec, proc, final, lost, handed_back)
+        except QueueUnavailable:
+            # Could not record the end within a lease: the job's lease expires and it is
+            # rendered again (delivery is at least once; outputs are replaced atomically).
+            pass
+
+    def _record(self, job: Job, spec: dict, proc: subprocess.Popen, final: dict,
+                lost: bool, handed_back: bool) -> None:
+        """Record how a render ended, retrying while a network store is briefly down."""
+        deadline = time.monotonic() + self.settings.lease_s
+        while True:
+            try:
+                return self._record_once(job, spec, proc, final, lost, handed_back)
+            except QueueUnavailable:
+                if time.monotonic() > deadline or self._stop.is_set():
+                    raise
+                time.sleep(min(1.0, self.settings.lease_s / 4))
+
+    def _record_once(self, job: Job, spec: dict, proc: subprocess.Popen, final: dict,
+                     lost: bool, handed_back: bool) -> None:
+        q, s = self.queue, self.settings
         if lost or handed_back:
             self._remove_partial(spec)
             if handed_back:

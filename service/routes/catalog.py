@@ -11,8 +11,8 @@ from renderer import __version__
 
 from ..auth import current_owner
 from ..hrtf_check import HrtfCheckFailed, check_sofa
-from ..problems import (BAD_REQUEST, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED, UNPROCESSABLE,
-                        UNSUPPORTED, Problem, problem_responses)
+from ..problems import (BAD_REQUEST, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED, UNAVAILABLE,
+                        UNPROCESSABLE, UNSUPPORTED, Problem, problem_responses)
 from ..storage import META, Storage, new_id, write_json_atomic
 from ..uploads import staged_upload
 from .models import Health
@@ -32,8 +32,10 @@ _SOFA_BODY = {
 
 
 @router.get("/health", tags=["service"], summary="Liveness and queue counts",
-            response_model=Health)
+            response_model=Health, responses=problem_responses(UNAVAILABLE))
 def health(request: Request) -> dict:
+    """Queue counts; 503 (problem details naming the job store) while the queue's store
+    does not answer, so that load balancers and container health checks see it."""
     return {"status": "ok", "version": __version__, "queue": request.app.state.queue.counts(),
             "auth": request.app.state.settings.auth_enabled}
 

@@ -26,8 +26,8 @@ from ..comparisons import session as sessions
 from ..comparisons.assignment import draw_trials
 from ..jobs import JobNotFound, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND
-from ..problems import (BAD_REQUEST, CONFLICT, NOT_FOUND, QUEUE_FULL, UNAUTHORIZED, UNPROCESSABLE, Problem,
-                        problem_responses)
+from ..problems import (BAD_REQUEST, CONFLICT, NOT_FOUND, QUEUE_FULL, UNAUTHORIZED, UNAVAILABLE,
+                        UNPROCESSABLE, Problem, problem_responses)
 from ..storage import META, Storage, new_id, valid_id, write_json_atomic
 from .renders import RenderRequest, render_options
 
@@ -168,7 +168,7 @@ def _json(data: object, status: int = 200, headers: dict | None = None) -> Respo
 
 @router.post("", status_code=202, summary="Start a blind comparison", response_model=None,
              responses={202: {"model": ComparisonView},
-                        **problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL)})
+                        **problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE)})
 def create_comparison(req: ComparisonRequest, request: Request,
                       owner: str = Depends(current_owner)) -> Response:
     settings = request.app.state.settings

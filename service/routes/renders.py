@@ -26,7 +26,8 @@ from ..auth import current_owner
 from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND, output_paths
 from ..problems import (BAD_REQUEST, CONFLICT, NOT_FOUND, QUEUE_FULL, RANGE_NOT_SATISFIABLE,
-                        UNAUTHORIZED, UNPROCESSABLE, Problem, problem_responses)
+                        UNAUTHORIZED, UNAVAILABLE, UNPROCESSABLE, Problem,
+                        problem_responses)
 from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
@@ -216,7 +217,7 @@ def render_options(req: RenderRequest, stem: dict, storage: Storage,
 
 
 @router.post("", status_code=202, summary="Queue a render", response_model=RenderView,
-             responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL))
+             responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE))
 def create_render(req: RenderRequest, request: Request, response: Response,
                   owner: str = Depends(current_owner)) -> dict:
     settings = request.app.state.settings

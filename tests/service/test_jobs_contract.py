@@ -1,7 +1,8 @@
 """The contract every job store backend must pass (DESIGN.md, "Queue").
 
-Parametrised over backends: add the Redis backend to ``BACKENDS`` when it exists. Lease
-expiry is tested with a fake clock, so nothing here sleeps.
+Parametrised over backends: the embedded SQLite store and the Redis store (against a
+real Redis, skipped where none runs and required when CI=true; see tests/conftest.py).
+Lease expiry is tested with a fake clock, so nothing here sleeps.
 """
 
 from __future__ import annotations
@@ -23,11 +24,19 @@ class FakeClock:
         return self.now
 
 
-def _sqlite(tmp_path, clock):
+def _sqlite(request, tmp_path, clock):
     return SqliteJobQueue(tmp_path / "jobs.sqlite3", clock=clock)
 
 
-BACKENDS = {"sqlite": _sqlite}
+def _redis(request, tmp_path, clock):
+    from service.jobs.redis_store import RedisJobQueue
+
+    # One prefix per test (the fixture deletes its keys), shared by every queue the test
+    # opens, as several API and worker processes share one Redis.
+    return RedisJobQueue(request.getfixturevalue("redis_queue_url"), clock=clock)
+
+
+BACKENDS = {"sqlite": _sqlite, "redis": _redis}
 
 
 @pytest.fixture(params=sorted(BACKENDS))
@@ -35,7 +44,7 @@ def make_queue(request, tmp_path):
     made: list = []
 
     def make(clock=None):
-        q = BACKENDS[request.param](tmp_path, clock or FakeClock())
+        q = BACKENDS[request.param](request, tmp_path, clock or FakeClock())
         made.append(q)
         return q
 
