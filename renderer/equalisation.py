@@ -69,8 +69,9 @@ MAX_CELL_FACTOR = 3.0
 #: an equalised HRIR still fits one partition, so equalisation costs nothing per block.
 INVERSE_SECONDS = 2048 / 48000
 
-#: No boost below this frequency (Hz) whatever the set holds: the audio band's lower edge.
+#: No boost outside these frequencies (Hz) whatever the set holds: the audio band.
 LOWEST_HZ = 20.0
+HIGHEST_HZ = 20000.0
 
 #: Octave-band centres (Hz) of the text summary (IEC 61260 nominal frequencies).
 OCTAVE_CENTRES_HZ = (63, 125, 250, 500, 1000, 2000, 4000, 8000, 16000)
@@ -210,7 +211,7 @@ def usable_band(df: DiffuseField) -> tuple[float, float]:
 
     The band around 1 kHz where the third-octave-smoothed response stays above
     :data:`USABLE_FLOOR_DB` relative to the reference level (:data:`REFERENCE_BAND_HZ`),
-    and not below :data:`LOWEST_HZ`.
+    and inside :data:`LOWEST_HZ` to :data:`HIGHEST_HZ`.
     """
     smooth = smooth_fractional_octave(df.freqs, df.power.mean(axis=0), 1.0 / 3.0)
     level = 10 * np.log10(np.maximum(smooth, 1e-30))
@@ -222,7 +223,8 @@ def usable_band(df: DiffuseField) -> tuple[float, float]:
     while lo > floor and ok[lo - 1]:
         lo -= 1
     hi = centre
-    while hi < len(ok) - 1 and ok[hi + 1]:
+    ceiling = min(int(np.searchsorted(df.freqs, HIGHEST_HZ, side="right")), len(ok)) - 1
+    while hi < ceiling and ok[hi + 1]:
         hi += 1
     return float(df.freqs[lo]), float(df.freqs[hi])
 

@@ -322,7 +322,7 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
     filters *= gain
     if tail is not None:
         tail = tail * gain
-    calibration = {"gain_db": round(20 * np.log10(gain), 3), "reference": CALIBRATION_REFERENCE,
+    calibration = {"gain_db": round(float(20 * np.log10(gain)), 3), "reference": CALIBRATION_REFERENCE,
                    "applied": "to every filter, before the delivery stage"}
     return RenderPlan(stem, layout, order, order_source, hset, filters, tuple(speakers),
                       tuple(warnings), tail, tail_weights, tail_offset, room_report,
