@@ -47,6 +47,10 @@ MAX_IR_SECONDS = 1.0
 #: Largest gain (dB, either sign) a band or the overall gain may ask for.
 MAX_GAIN_DB = 24.0
 
+#: Zeros put before an impulse response that is resampled (input samples; about 0.7 ms at
+#: 44.1 kHz): room for the resampling filter's pre-ringing.
+RESAMPLE_LEAD = 32
+
 #: Most bands in one file.
 MAX_BANDS = 64
 
@@ -258,7 +262,11 @@ def _from_audio(path: Path, samplerate: float, meta: dict) -> HeadphoneEq:
     if rate != samplerate:
         ratio = Fraction(samplerate / rate).limit_denominator(10000)
         # Scale by old rate / new rate so the frequency response, not the waveform, is kept.
-        ir = signal.resample_poly(ir, ratio.numerator, ratio.denominator, axis=-1) * (rate / samplerate)
+        # Lead zeros first: resample_poly aligns output and input starts, which would cut
+        # off the interpolation's pre-ringing of an IR that starts at its first sample.
+        lead = np.zeros((ir.shape[0], RESAMPLE_LEAD))
+        ir = signal.resample_poly(np.concatenate([lead, ir], axis=1), ratio.numerator,
+                                  ratio.denominator, axis=-1) * (rate / samplerate)
     if ir.shape[-1] > MAX_IR_SECONDS * samplerate:
         raise HeadphoneEqError(
             f"headphone EQ impulse response {path.name!r} is {ir.shape[-1] / samplerate:.2f} s "
