@@ -29,13 +29,15 @@ The equalised set is computed once per set and rate and cached with the set
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.fft
 from scipy.spatial import SphericalVoronoi
 
 from .errors import RendererError
-from .hrir import HrirSet
+from .hrir import HrirPair, HrirSet
 
 #: The equalisation choices of ``--eq``.
 EQ_CHOICES = ("none", "diffuse-field")
@@ -182,7 +184,7 @@ def diffuse_field(hset: HrirSet, *, weighted: bool = True, n_fft: int | None = N
     power = np.zeros((2, n // 2 + 1))
     # In chunks: a 1550-direction set at n = 8192 would otherwise need 200 MB of spectra.
     for start in range(0, hset.measurements, 128):
-        spec = np.fft.rfft(hset.ir[start:start + 128], n=n, axis=-1)
+        spec = scipy.fft.rfft(hset.ir[start:start + 128], n=n, axis=-1)
         power += np.einsum("m,mef->ef", w[start:start + 128], np.abs(spec) ** 2)
     freqs = np.fft.rfftfreq(n, 1.0 / hset.samplerate)
     return DiffuseField(freqs, power, weights, weighting, capped, hset.samplerate)
@@ -303,6 +305,34 @@ def describe(hset: HrirSet) -> dict:
     return equalised(hset)[1]
 
 
+@dataclass(frozen=True, eq=False)
+class EqualisedHrirSet(HrirSet):
+    """An HRIR set with one equalisation filter applied to every response.
+
+    :attr:`ir` holds the equalised responses (for whole-set uses such as the room's
+    diffuse tail), but direction lookups run on the original set and filter the chosen
+    pair: the filter is the same for every direction, so filtering after interpolation
+    equals interpolating filtered responses, and the lookup's preparation (onsets,
+    alignment, triangulation) stays on the shorter original responses, shared with
+    renders that do not equalise.
+    """
+
+    raw: HrirSet | None = None
+    fir: np.ndarray | None = None
+
+    def pair(self, direction: np.ndarray) -> HrirPair:
+        return self._filtered(self.raw.pair(direction))
+
+    def nearest_pair(self, direction: np.ndarray, *, exclude: int | None = None) -> HrirPair:
+        return self._filtered(self.raw.nearest_pair(direction, exclude=exclude))
+
+    def _grid(self):
+        return self.raw._grid()
+
+    def _filtered(self, pair: HrirPair) -> HrirPair:
+        return dataclasses.replace(pair, ir=_convolve_all(pair.ir, self.fir))
+
+
 def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
     """The set with its diffuse-field inverse applied to every HRIR, and the EQ summary.
 
@@ -315,7 +345,9 @@ def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
     df = diffuse_field(hset)
     fir, summary = inverse_filter(df)
     ir = _convolve_all(hset.ir, fir)
-    eq_set = HrirSet(
+    eq_set = EqualisedHrirSet(
+        raw=hset,
+        fir=fir,
         name=hset.name,
         samplerate=hset.samplerate,
         ir=ir,
@@ -341,8 +373,8 @@ def _convolve_all(ir: np.ndarray, fir: np.ndarray) -> np.ndarray:
     """Every response convolved with one filter (full length)."""
     length = ir.shape[-1] + len(fir) - 1
     n = 1 << int(np.ceil(np.log2(length)))
-    g = np.fft.rfft(fir, n=n)
-    return np.fft.irfft(np.fft.rfft(ir, n=n, axis=-1) * g, n=n, axis=-1)[..., :length]
+    g = scipy.fft.rfft(fir, n=n)
+    return scipy.fft.irfft(scipy.fft.rfft(ir, n=n, axis=-1) * g, n=n, axis=-1)[..., :length]
 
 
 def check_eq(value: str | None) -> str | None:
