@@ -202,3 +202,22 @@ def test_lookups_filter_after_interpolating_like_interpolating_filtered_response
     la = 20 * np.log10(np.abs(np.fft.rfft(a.ir, n, axis=-1)))[:, band]
     lb = 20 * np.log10(np.abs(np.fft.rfft(b.ir, n, axis=-1)))[:, band]
     assert np.median(np.abs(la - lb)) < 0.1
+
+
+def test_sets_holding_a_room_are_not_equalised_by_default():
+    from renderer.render import _equalise
+
+    grid = _icosahedron()
+    rng = np.random.default_rng(1)
+    ir = rng.standard_normal((len(grid), 2, 512)) * np.exp(-np.arange(512) / 80)
+    room = HrirSet("hall", 48000.0, ir, grid, room_type="reverberant")
+    warnings: list[str] = []
+    hset, report = _equalise(room, None, warnings)
+    assert hset is room and report["type"] == "none" and "room" in report["chosen"]
+    assert not warnings
+    hset, report = _equalise(room, "diffuse-field", warnings)
+    assert report["type"] == "diffuse-field" and report["chosen"] == "requested"
+    assert any("include a room" in w for w in warnings)
+    free = HrirSet("free", 48000.0, ir, grid)
+    _, report = _equalise(free, None, [])
+    assert report["type"] == "diffuse-field" and report["chosen"] == "default for a free-field set"
