@@ -313,8 +313,7 @@ class EqualisedHrirSet(HrirSet):
     diffuse tail), but direction lookups run on the original set and filter the chosen
     pair: the filter is the same for every direction, so filtering after interpolation
     equals interpolating filtered responses, and the lookup's preparation (onsets,
-    alignment, triangulation) stays on the shorter original responses, shared with
-    renders that do not equalise.
+    alignment, triangulation) stays on the shorter original responses.
     """
 
     raw: HrirSet | None = None
@@ -345,8 +344,14 @@ def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
     df = diffuse_field(hset)
     fir, summary = inverse_filter(df)
     ir = _convolve_all(hset.ir, fir)
+    # The lookups run on a twin of the original set (same arrays, own caches), not on the
+    # set itself: the set caches the equalised set, and a reference back would make a
+    # cycle that keeps both alive until the cyclic garbage collector runs.
+    lookup = HrirSet(name=hset.name, samplerate=hset.samplerate, ir=hset.ir,
+                     directions=hset.directions, source=hset.source, sha256=hset.sha256,
+                     convention=hset.convention, room_type=hset.room_type, dropped=hset.dropped)
     eq_set = EqualisedHrirSet(
-        raw=hset,
+        raw=lookup,
         fir=fir,
         name=hset.name,
         samplerate=hset.samplerate,
