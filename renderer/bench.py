@@ -9,7 +9,11 @@ each in a fresh process so that its peak memory is its own:
   limiter at -1 dBTP): what delivery adds is reported as a share of the raw render;
 * **baseline** — the whole stem read into memory, ``scipy.signal.oaconvolve`` once per
   (channel, ear) filter, summed, written; the same filters as ours;
-* **I/O floor** — only reading the stem in blocks and writing an output of the same size.
+* **I/O floor** — only reading the stem in blocks and writing an output of the same size;
+* **eq_on / eq_off** — the raw render with and without diffuse-field equalisation (the
+  render pass, as for the other cases); the set's cache is cleared before each run, and
+  the planning time is kept too, so the EQ's one-off preparation per set and rate (the
+  diffuse-field response, the inverse, the filtered set) is reported on its own.
 
 The planning step (reading and resampling the HRIR set) is excluded from every case: it
 is the same for all and does not grow with the stem. Each case runs three times in its
@@ -131,8 +135,29 @@ def _case_io_floor(stem: str, layout: str, out: str, room: str) -> dict:
     return {"seconds": time.perf_counter() - t0}
 
 
+def _case_eq(stem: str, layout: str, out: str, room: str, eq: str) -> dict:
+    import dataclasses
+
+    from .hrir import _load_cached
+    from .render import render
+
+    _load_cached.cache_clear()  # the set is read, resampled (and equalised) in every run
+    report = render([stem], out, dataclasses.replace(_settings(layout, room), eq=eq))
+    t = report["timings_s"]
+    return {"seconds": t["render"], "plan_seconds": t["plan"]}
+
+
+def _case_eq_on(stem: str, layout: str, out: str, room: str) -> dict:
+    return _case_eq(stem, layout, out, room, "diffuse-field")
+
+
+def _case_eq_off(stem: str, layout: str, out: str, room: str) -> dict:
+    return _case_eq(stem, layout, out, room, "none")
+
+
 _CASES = {"ossicle": _case_ours, "ossicle_delivered": _case_delivered,
-          "ossicle_exact": _case_ours_exact, "baseline": _case_baseline, "io_floor": _case_io_floor}
+          "ossicle_exact": _case_ours_exact, "baseline": _case_baseline, "io_floor": _case_io_floor,
+          "eq_off": _case_eq_off, "eq_on": _case_eq_on}
 
 
 def _child(conn, case: str, stem: str, layout: str, out: str, room: str) -> None:
@@ -145,6 +170,8 @@ def _child(conn, case: str, stem: str, layout: str, out: str, room: str) -> None
         runs = [_CASES[case](stem, layout, out, room) for _ in range(REPEATS)]
         result = min(runs, key=lambda r: r["seconds"])
         result["all_seconds"] = [round(r["seconds"], 4) for r in runs]
+        if "plan_seconds" in result:
+            result["plan_seconds"] = min(r["plan_seconds"] for r in runs)
         result["peak_memory_bytes"] = max(_maxrss_bytes() - before, 0)
         conn.send(("ok", result))
     except BaseException as exc:  # report any failure to the parent, never hang it
@@ -216,6 +243,8 @@ def run_bench(
                     "x_real_time": round(seconds / r["seconds"], 1),
                     "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
                 }
+                if "plan_seconds" in r:
+                    row[case]["plan_seconds"] = round(r["plan_seconds"], 4)
                 if "block_size" in r:
                     row["block_size"] = r["block_size"]
 
@@ -224,6 +253,11 @@ def run_bench(
             # What the delivery stage (measure, gain, limiter, final write) adds to a render.
             row["delivery_added"] = round(
                 row["ossicle_delivered"]["seconds"] / row["ossicle"]["seconds"] - 1, 3)
+            # What diffuse-field equalisation adds to a raw render's pass, and its one-off
+            # preparation (once per set and rate in a process; planning time on - off).
+            row["eq_added"] = round(row["eq_on"]["seconds"] / row["eq_off"]["seconds"] - 1, 3)
+            row["eq_prepare_s"] = round(
+                row["eq_on"]["plan_seconds"] - row["eq_off"]["plan_seconds"], 3)
             if "ossicle_exact" in row:
                 row["exact_vs_shared"] = round(
                     row["ossicle_exact"]["seconds"] / row["ossicle"]["seconds"], 2)
@@ -270,6 +304,7 @@ def format_bench(result: dict) -> str:
             f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
             f"{row['ossicle']['peak_memory_mb']:>8.1f}"
             + f"   delivery +{row['delivery_added'] * 100:.0f} %"
+            + f"   EQ on {row['eq_added'] * 100:+.1f} % (preparation {row['eq_prepare_s']:+.2f} s once)"
             + (f"   exact mode {row['ossicle_exact']['x_real_time']:.1f} xRT "
                f"({row['exact_vs_shared']:.2f}x the shared time)" if "ossicle_exact" in row else "")
         )
@@ -290,5 +325,7 @@ def format_bench(result: dict) -> str:
                 f"(growth {mem['delivered_growth_mb']:+.1f} MB)")
     lines += ["", "xRT = seconds of audio per second of wall time (higher is faster); "
               "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
-              "delivery = loudness + limiter + final write, as a share of the render pass."]
+              "delivery = loudness + limiter + final write, as a share of the render pass; "
+              "EQ on = a raw render pass with diffuse-field equalisation against one without; "
+              "preparation = its one-off cost per HRTF set and rate."]
     return "\n".join(lines)

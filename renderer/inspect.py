@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .equalisation import describe as diffuse_field_summary
 from .geometry import vector_to_direction
 from .hrir import HrirSet, file_sha256
 from .sofa import read_sofa
@@ -67,6 +68,16 @@ def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict
         "licence": attrs.get("License", ""),
         "warnings": warnings,
     }
+    # The diffuse-field response (solid-angle weighted), its usable band and the inverse
+    # filter a render would apply with --eq diffuse-field.
+    df = diffuse_field_summary(hset)
+    summary["diffuse_field"] = df
+    lo, hi = df["usable_band_hz"]
+    if df["boost_limited"]:
+        warnings.append(
+            f"the diffuse-field inverse reaches its {df['max_boost_db']:g} dB boost limit; the "
+            "deepest dips are only partly filled"
+        )
     summary["text"] = {
         "convention": f"{data.convention} {data.convention_version} (SOFA {data.sofa_version})",
         "room type": data.room_type or "(not given)",
@@ -79,6 +90,9 @@ def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict
         "title": summary["title"] or "-",
         "database": summary["database"] or "-",
         "licence": summary["licence"] or "-",
+        "diffuse field": f"{df['weighting']} weights ({df['capped_cells']} edge cells capped, "
+        f"{df['covered_solid_angle_sr']:g} sr); usable band {lo:g} to {hi:g} Hz; the inverse "
+        f"boosts up to {df['max_boost_db']:+.1f} dB and cuts up to {df['max_cut_db']:.1f} dB",
         "sha256": hset.sha256,
     }
     return summary

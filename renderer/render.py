@@ -20,6 +20,9 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from .biquads import HeadphoneEq, load_headphone_eq
+from .calibration import REFERENCE as CALIBRATION_REFERENCE, calibration_gain
+from .equalisation import check_eq, equalised
 from .audio_io import OutputWriter, StemInfo, StemReader, probe_stem, subtype_for
 from .channel_mask import labels_from_mask
 from .convolution import DEFAULT_BLOCK_SIZE, BinauralConvolver
@@ -97,6 +100,14 @@ class RenderSettings:
     excerpt : (float, float) or None
         ``(start, length)`` in seconds: render only that window of the stem (cut to the
         stem's end); only those frames are read. None renders the whole stem.
+    eq : str or None
+        ``"diffuse-field"`` (the set's diffuse-field inverse on every HRIR) or ``"none"``;
+        None (default) chooses diffuse-field for free-field sets and none for sets that
+        already hold a room (measured BRIRs).
+    headphone_eq : path, list or dict, optional
+        Headphone compensation applied once to the two-channel output: a JSON band list
+        file, an impulse response (WAV/FLAC), or the parsed band list itself
+        (:mod:`renderer.biquads`).
     """
 
     layout: str | Layout = "7.1.4"
@@ -112,6 +123,8 @@ class RenderSettings:
     loudness: float | str | None = DEFAULT_LOUDNESS
     true_peak: float | None = DEFAULT_TRUE_PEAK
     excerpt: tuple[float, float] | None = None
+    eq: str | None = None
+    headphone_eq: str | os.PathLike | list | dict | None = None
 
 
 @dataclass(frozen=True)
@@ -130,6 +143,9 @@ class RenderPlan:
     tail_weights: np.ndarray | None = None  # (C,) in file channel order
     tail_offset: int = 0
     room: dict | None = None  # the room's report section
+    eq: dict | None = None  # the equalisation's report section
+    calibration: dict | None = None  # the calibration's report section
+    headphone: HeadphoneEq | None = None  # applied to the two-channel output
 
     @property
     def length(self) -> int:
@@ -137,6 +153,8 @@ class RenderPlan:
         n = self.filters.shape[-1]
         if self.tail is not None:
             n = max(n, self.tail_offset + self.tail.shape[-1])
+        if self.headphone is not None:
+            n += self.headphone.ir.shape[-1] - 1
         return n
 
 
@@ -235,6 +253,11 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
     order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
     path, name = resolve_hrtf(settings.hrtf)
     hset = load_hrir_set(path, stem.samplerate, name=name)
+    hset, eq_report = _equalise(hset, settings.eq, warnings)
+    headphone = None
+    if settings.headphone_eq is not None:
+        headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
+        eq_report["headphone"] = headphone.report
 
     room, room_filters, room_report = None, None, None
     if settings.room_mode not in ROOM_MODES:
@@ -319,8 +342,61 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
         tail = room_filters.tail
         tail_weights = np.asarray(room_filters.tail_weights)[list(order)]
         tail_offset = int(room_filters.tail_offset)
+    gain = _calibrate(filters, speakers, tail, tail_weights, tail_offset, stem.samplerate)
+    filters *= gain
+    if tail is not None:
+        tail = tail * gain
+    calibration = {"gain_db": round(float(20 * np.log10(gain)), 3), "reference": CALIBRATION_REFERENCE,
+                   "applied": "to every filter, before the delivery stage"}
     return RenderPlan(stem, layout, order, order_source, hset, filters, tuple(speakers),
-                      tuple(warnings), tail, tail_weights, tail_offset, room_report)
+                      tuple(warnings), tail, tail_weights, tail_offset, room_report,
+                      eq_report, calibration, headphone)
+
+
+def _equalise(hset: HrirSet, choice: str | None, warnings: list[str]) -> tuple[HrirSet, dict]:
+    """Apply the equalisation asked for (or the set's default); the report section."""
+    choice = check_eq(choice)
+    measured_room = _is_measured_room(hset)
+    if choice is None:
+        choice = "none" if measured_room else "diffuse-field"
+        reason = ("default: the set holds room responses" if measured_room
+                  else "default for a free-field set")
+    else:
+        reason = "requested"
+        if choice == "diffuse-field" and measured_room:
+            warnings.append(
+                f"diffuse-field equalisation of {hset.name!r}, whose responses include a room "
+                f"(RoomType {hset.room_type!r}): the room's colour is averaged in and removed too"
+            )
+    report: dict = {"type": choice, "chosen": reason, "diffuse_field": None, "headphone": None}
+    if choice == "diffuse-field":
+        hset, summary = equalised(hset)
+        report["diffuse_field"] = summary
+        if summary.get("boost_limited"):
+            warnings.append(
+                f"HRTF set {hset.name!r}: the diffuse-field inverse reached its boost limit "
+                f"({summary['max_boost_db']:g} dB); the deepest dips are only partly filled"
+            )
+    return hset, report
+
+
+def _calibrate(filters: np.ndarray, speakers: Sequence[dict], tail: np.ndarray | None,
+               tail_weights: np.ndarray | None, tail_offset: int, samplerate: float) -> float:
+    """The calibration gain (:mod:`renderer.calibration`) of a filter bank."""
+    mains = [i for i, s in enumerate(speakers) if not s.get("lfe")]
+
+    def responses():
+        for i in mains:
+            r = filters[i]
+            if tail is not None:
+                n = max(r.shape[-1], tail_offset + tail.shape[-1])
+                full = np.zeros((2, n))
+                full[:, : r.shape[-1]] = r
+                full[:, tail_offset: tail_offset + tail.shape[-1]] += tail_weights[i] * tail
+                r = full
+            yield r
+
+    return calibration_gain(responses(), len(mains), samplerate)
 
 
 def _is_measured_room(hset: HrirSet) -> bool:
@@ -356,6 +432,9 @@ class _Engine:
         self.block_size = self.direct.block_size
         self.channels = plan.filters.shape[0]
         self.tail = None
+        # Headphone compensation: once, on the two-channel output (each ear to itself).
+        self.headphone = (None if plan.headphone is None else
+                          BinauralConvolver(plan.headphone.filters(), block_size=block_size))
         if plan.tail is not None:
             # A power of two (the convolver's rule) and so a whole number of engine blocks.
             chunk = max(self.block_size, 1 << max(0, int(TAIL_BLOCK_FRAMES) - 1).bit_length())
@@ -371,6 +450,10 @@ class _Engine:
             self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ossicle-tail")
 
     def process(self, block: np.ndarray) -> np.ndarray:
+        out = self._binaural(block)
+        return out if self.headphone is None else self.headphone.process(out)
+
+    def _binaural(self, block: np.ndarray) -> np.ndarray:
         if self.tail is None:
             return self.direct.process(block)
         n = len(block)
@@ -438,12 +521,17 @@ class _Engine:
                 self._submit_tail()
             self._collect_tail()
         out = self._take(self._direct_frames)
+        if self.headphone is not None:
+            out = self.headphone.process(out)
         if len(out):
             yield out
 
     def describe(self) -> dict:
         info = {"block_size": self.block_size, "partitions": self.direct.partitions,
                 "filter_length": self.direct.filter_length}
+        if self.headphone is not None:
+            info["headphone_eq"] = {"length": self.headphone.filter_length,
+                                    "partitions": self.headphone.partitions}
         if self.tail is not None:
             info["shared_tail"] = {"length": self.tail.filter_length,
                                    "block_size": self.tail.block_size,
@@ -673,6 +761,8 @@ def render(
         "engine": streamed["engine"],
         "delivery": delivery,
         "room": plan.room,
+        "eq": plan.eq,
+        "calibration": plan.calibration,
         "timings_s": {
             "plan": round(t_plan - t0, 4),
             "render": round(t_render - t_plan, 4),

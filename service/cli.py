@@ -98,6 +98,8 @@ def cmd_render(args: argparse.Namespace) -> int:
         room_mode=args.room_mode,
         loudness=parse_loudness(args.loudness),
         true_peak=parse_true_peak(args.true_peak),
+        eq=args.eq,
+        headphone_eq=args.headphone_eq,
         **({"block_size": args.block_size} if args.block_size else {}),
     )
     progress = _Progress("rendering", enabled=False if args.quiet else None)
@@ -223,6 +225,12 @@ def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
     width = max(len(k) for k in summary["text"])
     for key, value in summary["text"].items():
         print(f"  {key:<{width}}  {value}")
+    df = summary.get("diffuse_field")
+    if df:
+        bands = "  ".join(f"{fc}: {'-' if v is None else f'{v:+.1f}'}"
+                          for fc, v in df["octave_bands_db"].items())
+        print(f"  diffuse-field response (dB re 500 Hz-2 kHz, by octave band centre in Hz):")
+        print(f"    {bands}")
     for w in summary["warnings"]:
         print(f"  warning: {w}")
     return 0
@@ -301,6 +309,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--true-peak", default="-1", metavar="DBTP|off",
                    help="true-peak limiter ceiling (default -1 dBTP); 'off' turns the limiter "
                    "off (the report says so)")
+    p.add_argument("--eq", choices=["none", "diffuse-field"],
+                   help="equalisation of the HRTF set: diffuse-field (the default for free-field "
+                   "sets; removes the colour all directions share) or none (the default for sets "
+                   "that hold a room)")
+    p.add_argument("--headphone-eq", metavar="FILE",
+                   help="headphone compensation applied to the output: a JSON list of parametric "
+                   "bands or an impulse response (WAV/FLAC, any rate); see examples/headphone_eq/")
     p.add_argument("--format", choices=["wav", "flac"], help="output format (default: from the extension)")
     p.add_argument("--subtype", default="PCM_24", type=str.upper,
                    choices=["PCM_16", "PCM_24", "FLOAT"], help="sample format (default PCM_24)")

@@ -43,6 +43,18 @@ _MEDIA = {"wav": "audio/wav", "flac": "audio/flac"}
 _UNSAFE = re.compile(r"[^A-Za-z0-9._ -]+")
 
 
+class EqBand(BaseModel):
+    """One parametric band of an inline headphone EQ (Audio EQ Cookbook biquads)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    type: Literal["peaking", "low_shelf", "high_shelf", "low_pass", "high_pass"]
+    frequency: float = Field(gt=0, le=96000, allow_inf_nan=False, description="Hz")
+    gain_db: float = Field(0.0, ge=-24, le=24, allow_inf_nan=False,
+                           description="dB (peaking and shelves; ignored by the pass filters)")
+    q: float = Field(0.7071067811865476, ge=0.05, le=50, allow_inf_nan=False)
+
+
 class RenderRequest(BaseModel):
     """What to render (the JSON body of ``POST /v1/renders``)."""
 
@@ -60,6 +72,12 @@ class RenderRequest(BaseModel):
     loudness: Lufs | Literal["match", "none"] | None = Field(
         None, description="integrated loudness target in LUFS, 'match' or 'none'")
     true_peak: Dbtp | Literal["off"] | None = Field(None, description="ceiling in dBTP or 'off'")
+    eq: Literal["none", "diffuse-field"] | None = Field(
+        None, description="HRTF set equalisation; default diffuse-field for free-field sets, "
+        "none for sets that hold a room")
+    headphone_eq: list[EqBand] | None = Field(
+        None, min_length=1, max_length=64,
+        description="headphone compensation applied to the output: parametric bands")
     format: Literal["wav", "flac"] = "wav"
     subtype: Literal["PCM_16", "PCM_24", "FLOAT"] = "PCM_24"
     seed: int = Field(0, ge=0, le=2**32 - 1)
@@ -203,6 +221,11 @@ def render_options(req: RenderRequest, stem: dict, storage: Storage,
         raise Problem(UNPROCESSABLE, "FLAC holds integer samples only; choose subtype PCM_16 or "
                       "PCM_24, or format 'wav'")
     shipped, hrtf_id = _hrtf(req.hrtf, storage, owner)
+    for i, band in enumerate(req.headphone_eq or []):
+        if band.frequency >= stem["samplerate"] / 2:
+            raise Problem(UNPROCESSABLE, f"headphone_eq band {i + 1}: frequency "
+                          f"{band.frequency:g} Hz is not below the stem's Nyquist frequency, "
+                          f"{stem['samplerate'] / 2:g} Hz")
     options = {
         "layout": layout.to_dict() if isinstance(req.layout, dict) else layout.name,
         "channel_order": req.channel_order,
@@ -211,6 +234,9 @@ def render_options(req: RenderRequest, stem: dict, storage: Storage,
         "format": req.format,
         "seed": req.seed,
         "block_size": req.block_size,
+        "eq": req.eq,
+        "headphone_eq": (None if req.headphone_eq is None
+                         else [b.model_dump() for b in req.headphone_eq]),
         **_delivery_options(req),
     }
     return options, hrtf_id

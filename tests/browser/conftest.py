@@ -35,9 +35,13 @@ def chromium_path() -> str:
     return path
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="module")
 def browser() -> Iterator[object]:
-    """One headless Chromium for the session (playwright ``Browser``)."""
+    """One headless Chromium per test module (playwright ``Browser``).
+
+    Module scope, not session: playwright's sync API keeps an asyncio loop marked as
+    running in this thread while it is open, and later tests that call ``asyncio.run``
+    would fail (regression: test_retention_sweep_survives_an_outage after the pages)."""
     try:
         from playwright.sync_api import sync_playwright
     except ImportError:

@@ -51,6 +51,32 @@ def test_render_writes_output_and_report(tmp_path, stem51):
     assert "wrote" in proc.stderr
 
 
+def test_render_with_eq_options_reports_them(tmp_path, stem51, repo_root):
+    out = tmp_path / "take.bin.wav"
+    bright = repo_root / "examples" / "headphone_eq" / "bright.json"
+    proc = _run("render", str(stem51), "-o", str(out), "--layout", "5.1", "--eq", "none",
+                "--headphone-eq", str(bright))
+    assert proc.returncode == 0, proc.stderr
+    report = json.loads((tmp_path / "take.bin.report.json").read_text())
+    assert report["eq"]["type"] == "none" and report["eq"]["chosen"] == "requested"
+    assert report["eq"]["headphone"]["file"] == "bright.json"
+    assert len(report["eq"]["headphone"]["sha256"]) == 64
+    # The default for a free-field set: diffuse-field, with the curve's summary.
+    proc = _run("render", str(stem51), "-o", str(out), "--layout", "5.1")
+    report = json.loads((tmp_path / "take.bin.report.json").read_text())
+    assert report["eq"]["type"] == "diffuse-field"
+    assert report["eq"]["diffuse_field"]["octave_bands_db"]["1000"] is not None
+
+
+def test_render_bad_headphone_eq_is_one_line_exit_2(tmp_path, stem51):
+    bad = tmp_path / "cans.json"
+    bad.write_text('[{"type": "notch", "frequency": 100}]')
+    proc = _run("render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "5.1",
+                "--headphone-eq", str(bad))
+    _assert_one_line_error(proc, "unknown type 'notch'")
+    assert not (tmp_path / "o.wav").exists()
+
+
 def test_render_wrong_layout_is_one_line_exit_2(tmp_path, stem51):
     proc = _run("render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "7.1.4")
     _assert_one_line_error(proc, "layout '7.1.4' has 12")
@@ -108,6 +134,12 @@ def test_hrtf_inspect_shipped_file(capsys, repo_root):
     # ITD range of KEMAR: about +/-0.7 ms at the ears' axis (common practice).
     assert 0.6 < summary["itd_range_ms"][1] < 0.8
     assert -0.8 < summary["itd_range_ms"][0] < -0.6
+
+
+def test_hrtf_inspect_shows_the_diffuse_field_curve(capsys, repo_root):
+    assert main(["hrtf", "inspect", str(repo_root / "hrtf_sets" / "rigid_sphere.sofa")]) == 0
+    out = capsys.readouterr().out
+    assert "diffuse-field response" in out and "usable band" in out and "1000: " in out
 
 
 def test_hrtf_inspect_malformed_files(shared_sofa_dir):

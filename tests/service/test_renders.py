@@ -50,6 +50,10 @@ def _worker(client) -> Worker:
         ({"layout": "5.1", "format": "flac", "subtype": "FLOAT"}, "FLAC holds integer"),
         ({"layout": "5.1", "block_size": 1000}, "power of two"),
         ({"layout": "5.1", "colour": "red"}, "colour"),
+        ({"layout": "5.1", "eq": "flat"}, "eq"),
+        ({"layout": "5.1", "headphone_eq": [{"type": "notch", "frequency": 100}]}, "type"),
+        ({"layout": "5.1", "headphone_eq": [{"type": "peaking", "frequency": 30000}]},
+         "not below the stem's Nyquist frequency"),
     ],
 )
 def test_bad_requests_are_422_before_queueing(client, tmp_path, body, pattern):
@@ -286,3 +290,28 @@ def test_progress_rises_while_rendering_then_reads_done(make_client, tmp_path):
     assert len(during) >= 2, seen  # reported while rendering, not only at the end
     assert all(b >= a for a, b in zip(progress, progress[1:])), progress  # never goes back
     assert seen[-1] == ("done", 1.0), seen[-1]
+
+
+def test_eq_and_inline_headphone_eq_reach_the_renderer(make_client, tmp_path):
+    """``eq`` and an inline ``headphone_eq`` band list of POST /v1/renders: the report names
+    them and the audio equals a direct render with the same settings (oracle:
+    renderer.render.render)."""
+    client = make_client(**FAST)
+    paths = write_mono_set(tmp_path, "5.1", FS // 5)
+    stem = client.post("/v1/stems", files=files_field(paths)).json()
+    bands = [{"type": "high_shelf", "frequency": 8000, "gain_db": 3.0, "q": 0.7071}]
+    body = {"stem_id": stem["id"], "eq": "none", "headphone_eq": bands, "seed": 2}
+    job = client.post("/v1/renders", json=body).json()
+    _worker(client).run(once=True)
+    done = client.get(f"/v1/renders/{job['id']}").json()
+    assert done["state"] == "done", done
+    report = client.get(done["links"]["report"]).json()
+    assert report["eq"]["type"] == "none" and report["eq"]["headphone"]["kind"] == "bands"
+    assert report["eq"]["headphone"]["bands"][0]["type"] == "high_shelf"
+    assert "gain_db" in report["calibration"]
+    out = tmp_path / "got.wav"
+    out.write_bytes(client.get(done["links"]["audio"]).content)
+    ref = tmp_path / "ref.wav"
+    render(paths, ref, RenderSettings(layout="5.1", eq="none", seed=2,
+                                      headphone_eq=[dict(b) for b in bands]))
+    assert_array_equal(read_audio(out)[0], read_audio(ref)[0])
