@@ -214,6 +214,29 @@ def test_shared_tail_in_chunks_equals_exact_brirs(tmp_path, monkeypatch, chunk, 
     assert report["engine"]["shared_tail"]["block_size"] >= chunk
 
 
+def test_room_and_headphone_eq_equal_the_cascade_of_references(tmp_path, monkeypatch):
+    """Shared tail in chunks, then headphone EQ on the two ears: the render equals the
+    exact room responses convolved (scipy.signal.oaconvolve) and then the headphone
+    filter bank convolved again, over the whole length."""
+    import renderer.render as render_module
+
+    monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", 3000)
+    bands = [{"type": "peaking", "frequency": 3000.0, "gain_db": -4.0, "q": 1.2},
+             {"type": "high_shelf", "frequency": 8000.0, "gain_db": 3.0, "q": 0.7}]
+    lay = get_layout("5.1")
+    frames = FS // 5 + 11
+    feeds = {label: _noise(frames, k) for k, label in enumerate(lay.labels)}
+    stem, data = _stem(tmp_path, "5.1", feeds, frames=frames)
+    y, report = _render(tmp_path, stem, "5.1", room="small", block_size=1024,
+                        headphone_eq=bands)
+    exact = plan_render([stem], RenderSettings(layout="5.1", room="small", room_mode="exact",
+                                               headphone_eq=bands))
+    ref = convolve_reference(convolve_reference(data, exact.filters), exact.headphone.filters())
+    assert y.shape == ref.shape
+    assert_allclose(y, ref, atol=2e-6)
+    assert "headphone_eq" in report["engine"]
+
+
 def test_room_is_deterministic_for_a_seed(tmp_path):
     stem, _ = _stem(tmp_path, "2.0", {"L": _noise(FS // 8)}, frames=FS // 8)
     outs = []
