@@ -22,7 +22,7 @@ import numpy as np
 from .errors import RendererError
 from .limiter import TruePeakLimiter
 from .loudness import LoudnessMeter, LoudnessResult
-from .pipeline import BackgroundWriter
+from .pipeline import BackgroundWriter, prefetch
 
 __all__ = [
     "DELIVERY_BLOCK_FRAMES",
@@ -274,15 +274,15 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
             def emit(block: np.ndarray) -> None:
                 background.submit(block)
 
-            for block in reader.blocks(DELIVERY_BLOCK_FRAMES, reuse=True):
+            # Reading runs a block ahead on its own thread (new arrays each time, so the
+            # writer thread may hold them): this thread only scales and limits.
+            for block in prefetch(reader.blocks(DELIVERY_BLOCK_FRAMES)):
                 poll()
-                # `block` is reused by the next read: the thread gets new arrays only (the
-                # limiter's output, the gain's product, or else a copy).
                 scaled = block * np.float32(gain) if gain_db else block
                 if limiter is not None:
                     emit(limiter.process(scaled))
                 else:
-                    emit(scaled if gain_db else scaled.copy())
+                    emit(scaled)
                 report(_PASS1_SHARE + (1 - _PASS1_SHARE) * reader.frames_read / total)
             if limiter is not None:
                 emit(limiter.flush())
