@@ -188,8 +188,10 @@ def test_trial_audio_tells_nothing_but_the_sound(make_client, tmp_path):
             assert url == f"/v1/comparisons/{cid}/audio/{token}"
             # A random token only: no variant index, name or label in the address.
             assert len(token) == 32 and int(token, 16) >= 0
-            assert not any(word in url for word in ("near", "room", "variant", label.lower()
-                                                    + "/"))
+            # (Regression: the check once looked for "a/" in the whole URL, which a
+            # session id ending in the hex digit a or b contains by chance.)
+            assert not any(word in token for word in ("near", "room", "variant"))
+            assert token != cid
             urls.append(url)
             by_variant[stored["labels"][label]].append(url)
     assert len(set(urls)) == len(urls) == 18  # a fresh token for every label of every trial
