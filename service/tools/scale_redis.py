@@ -150,7 +150,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         with LocalServer(0, ["--queue", url, "--max-queued", "1000"]) as server, \
                 httpx.Client(base_url=server.url, timeout=60) as http:
-            data_dir = str(server.data_dir / "data")
+            data_dir = str(server.data_dir)
             files = [("file", (f"batch{i}.wav", wav_bytes(args.seconds, 12, seed=i),
                                "audio/wav")) for i in range(args.batch)]
             stems = [http.post("/v1/stems", files=[f]).json()["id"] for f in files]
