@@ -299,21 +299,14 @@ def get_trial_audio(comparison_id: str, request: Request,
 def answer_trial(comparison_id: str, body: AnswerRequest, request: Request,
                  index: int = Path(ge=0, le=99),
                  owner: str = Depends(current_owner)) -> Response:
-    _session(request, comparison_id, owner)
-    storage: Storage = request.app.state.storage
-    built = sessions.prepared(storage, comparison_id)
-
-    def change(meta: dict) -> None:
+    def step(meta: dict, built: dict) -> None:
         try:
             sessions.answer(meta, index, body.choice, built)
         except IndexError:
             raise Problem(NOT_FOUND, f"no trial {index}; this comparison has trials 0 to "
                           f"{len(meta['trials']) - 1}") from None
-        except sessions.SessionError as exc:
-            raise Problem(CONFLICT, str(exc)) from None
 
-    meta = sessions.update(storage, comparison_id, owner, change)
-    return _json(_view(request, meta))
+    return _change(request, comparison_id, owner, step)
 
 
 @router.post("/{comparison_id}/finish", summary="Finish now and open the reveal",
@@ -321,13 +314,18 @@ def answer_trial(comparison_id: str, body: AnswerRequest, request: Request,
              responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND, CONFLICT)})
 def finish_comparison(comparison_id: str, request: Request,
                       owner: str = Depends(current_owner)) -> Response:
+    return _change(request, comparison_id, owner, sessions.finish)
+
+
+def _change(request: Request, comparison_id: str, owner: str, step) -> Response:
+    """Apply ``step(meta, prepared)`` to a session under its lock; 409 on a SessionError."""
     _session(request, comparison_id, owner)
     storage: Storage = request.app.state.storage
     built = sessions.prepared(storage, comparison_id)
 
     def change(meta: dict) -> None:
         try:
-            sessions.finish(meta, built)
+            step(meta, built)
         except sessions.SessionError as exc:
             raise Problem(CONFLICT, str(exc)) from None
 
