@@ -1,12 +1,16 @@
 """The delivery stage: loudness-normalise a finished render, limit its true peak, write it.
 
 :func:`deliver` reads the float32 render twice. Pass 1 measures it (BS.1770-4 /
-EBU R 128, :mod:`renderer.loudness`). The gain is then ``target - measured`` (or the
-input stem's loudness minus the measured one for ``"match"``, or 0 for ``None``).
-Pass 2 applies the gain, the true-peak limiter (:mod:`renderer.limiter`) unless it is
-off, meters the result and writes it with :class:`renderer.audio_io.OutputWriter`
-(TPDF dither at 16 bits, atomic rename). The report section it returns says what was
-done and what came out.
+EBU R 128, :mod:`renderer.loudness`); a render made by :func:`renderer.render.render`
+was measured while it was written, and then pass 1 is skipped. The gain is then
+``target - measured`` (or the input stem's loudness minus the measured one for
+``"match"``, or 0 for ``None``). Pass 2 applies the gain, the true-peak limiter
+(:mod:`renderer.limiter`) unless it is off, meters the result and writes it with
+:class:`renderer.audio_io.OutputWriter` (TPDF dither at 16 bits, atomic rename). The
+render's true peak plus the gain tells the limiter beforehand whether anything can reach
+the ceiling; if not, it passes the render through without interpolating it (the same
+samples it would emit otherwise). The report section it returns says what was done and
+what came out.
 """
 
 from __future__ import annotations
@@ -168,9 +172,10 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         The float render (any channel count; a binaural render has two). Only read.
     render_measurement : LoudnessResult, optional
         The render's measurement if the caller metered it while writing ``temp_path``;
-        then the measuring pass is skipped and the file is read once. Only its
-        integrated loudness is used (the true peaks come from the second pass), so it
-        may be measured without the true peak.
+        then the measuring pass is skipped and the file is read once. Its integrated
+        loudness sets the gain; its true peak, if it was measured, tells the limiter
+        whether it has anything to do (``known_true_peak`` of
+        :class:`renderer.limiter.TruePeakLimiter`).
     output_path : path-like
         The delivered file, written under a temporary name and renamed when complete.
     options : DeliveryOptions
@@ -222,7 +227,7 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
     if render_measurement is not None:
         measured = render_measurement
     else:
-        before = LoudnessMeter(rate, channels, measure_true_peak=False)
+        before = LoudnessMeter(rate, channels)
         with StemReader(info) as reader:
             for block in reader.blocks(DELIVERY_BLOCK_FRAMES, reuse=True):
                 poll()
@@ -253,26 +258,28 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
     # peaks before and after it; without a limiter the output is the render after gain.
     limiter = None
     if options.true_peak is not None:
-        limiter = TruePeakLimiter(rate, channels, ceiling_dbtp=options.true_peak)
+        known = None
+        if measured.true_peak_dbtp is not None:
+            known = 10.0 ** ((measured.true_peak_dbtp + gain_db) / 20.0)
+        limiter = TruePeakLimiter(rate, channels, ceiling_dbtp=options.true_peak,
+                                  known_true_peak=known)
     after = LoudnessMeter(rate, channels, measure_true_peak=limiter is None)
 
     with StemReader(info) as reader, OutputWriter(
         output_path, rate, channels, format=format, subtype=subtype, frames_hint=total,
         seed=seed,
     ) as writer:
-
-        def write(block: np.ndarray) -> None:
-            if block.shape[0]:
-                after.process(block)
-                writer.write(block)
-
-        # Metering and encoding the output run in a writer thread beside the reading and
-        # the limiter (renderer.pipeline), in order; it is drained before the output file
-        # is closed and before the meter is read.
-        with BackgroundWriter(write) as background:
+        # Metering and encoding the output each run in a thread of their own beside the
+        # reading and the limiter (renderer.pipeline), in order; both are drained before
+        # the output file is closed and before the meter is read. The blocks are new
+        # arrays that nobody changes, so the two threads may share them.
+        with BackgroundWriter(writer.write) as encoding, \
+                BackgroundWriter(after.process) as metering:
 
             def emit(block: np.ndarray) -> None:
-                background.submit(block)
+                if block.shape[0]:
+                    metering.submit(block)
+                    encoding.submit(block)
 
             # Reading runs a block ahead on its own thread (new arrays each time, so the
             # writer thread may hold them): this thread only scales and limits.

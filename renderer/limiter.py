@@ -85,6 +85,11 @@ _STEP = 8192
 # emitted (the look-ahead plus the lag below) and one step's new frames, so larger steps
 # mean less recomputation but more delay inside the limiter.
 
+_BYPASS_MARGIN = 1e-5
+# A known true peak at most target * (1 - 1e-5) (0.0001 dB under) lets the limiter pass
+# its input through: the input's own points differ from the known value times a gain by
+# float32 rounding (about 1e-7 relative), a hundred times less.
+
 _NORMAL_PASSES = 8
 _MAX_PASSES = 64
 _U_SCALE = float(2**36)
@@ -110,6 +115,14 @@ class TruePeakLimiter:
         Look-ahead and attack ramp, 0.5 to 50 ms (:data:`DEFAULT_LOOKAHEAD_MS`).
     release_ms : float
         Release time constant, 1 to 5000 ms (:data:`DEFAULT_RELEASE_MS`).
+    known_true_peak : float, optional
+        The input's true peak (linear), measured in advance with the same interpolation
+        (:class:`renderer.loudness.TruePeakMeter`), e.g. while the input was being made,
+        times any gain applied since. When it is clearly under the target (by
+        :data:`_BYPASS_MARGIN`, far more than float32 rounding of the gain) no point can
+        need a gain, so the limiter would pass every frame unchanged: it then does so at
+        once, without interpolating, and both true peaks report this value. Otherwise it
+        is ignored and the limiter works as without it.
 
     Attributes
     ----------
@@ -119,6 +132,8 @@ class TruePeakLimiter:
         Frames emitted so far with a gain below 1 (ramps and release included).
     corrections : int
         Checking passes that had to lower the gain again (diagnostic).
+    bypassed : bool
+        True when ``known_true_peak`` showed there is nothing to limit.
     input_true_peak, output_true_peak : float
         True peaks (linear) of the input received and of the output emitted so far, as
         :class:`renderer.loudness.TruePeakMeter` reads them; after :meth:`flush` they
@@ -138,7 +153,8 @@ class TruePeakLimiter:
 
     def __init__(self, samplerate: int, channels: int, ceiling_dbtp: float = DEFAULT_CEILING_DBTP,
                  lookahead_ms: float = DEFAULT_LOOKAHEAD_MS,
-                 release_ms: float = DEFAULT_RELEASE_MS) -> None:
+                 release_ms: float = DEFAULT_RELEASE_MS,
+                 known_true_peak: float | None = None) -> None:
         if isinstance(samplerate, bool) or not isinstance(samplerate, (int, np.integer)) \
                 or not 8000 <= samplerate <= 768000:
             raise AudioError(f"sample rate must be an integer from 8000 to 768000 Hz, "
@@ -188,6 +204,16 @@ class TruePeakLimiter:
         self.max_gain_reduction_db = 0.0
         self.samples_limited = 0
         self.corrections = 0
+        self.bypassed = False
+        if known_true_peak is not None:
+            known = float(known_true_peak)
+            if not math.isfinite(known) or known < 0.0:
+                raise AudioError(f"known_true_peak must be a finite level >= 0, "
+                                 f"not {known_true_peak!r}")
+            if known <= self._target * (1.0 - _BYPASS_MARGIN):
+                self.bypassed = True
+                self.latency = 0
+                self._in_peak = self._out_peak = known
 
     # ------------------------------------------------------------------------ public
 
@@ -198,6 +224,10 @@ class TruePeakLimiter:
         x = check_block(block, self.channels)
         if x.shape[0] and not np.all(np.isfinite(x)):
             raise AudioError("the block holds NaN or infinity")
+        if self.bypassed:
+            self._received += x.shape[0]
+            self._emitted = self._received
+            return x.astype(np.float32)
         self._append(x)
         out = []
         while self._received >= (self._steps + 1) * _STEP + self._reach:
@@ -210,6 +240,8 @@ class TruePeakLimiter:
         if self._flushed:
             return np.zeros((0, self.channels), dtype=np.float32)
         self._flushed = True
+        if self.bypassed:
+            return np.zeros((0, self.channels), dtype=np.float32)
         end = self._received
         e = self._E
         # The points around the last frames read the silence after the end, as a meter

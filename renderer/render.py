@@ -549,7 +549,7 @@ _METER_BATCH = 262144
 
 def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: str,
             fmt: str | None, progress, cancelled, meter_input: bool,
-            meter_output: bool) -> dict:
+            meter_output: bool, scratch: bool = False) -> dict:
     """Stream the stem through the engine into ``path``; meter input and output on the way.
 
     The input meter runs in the reader thread and the output meter in the writer thread,
@@ -562,10 +562,11 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
     if meter_input:
         weights = channel_weights(plan.layout)[list(plan.order)]
         input_meter = LoudnessMeter(stem.samplerate, stem.channels, weights)
-    # The delivery stage needs only the render's loudness; it reads the true peaks off
-    # its limiter's interpolation.
-    output_meter = (LoudnessMeter(stem.samplerate, 2, measure_true_peak=False)
-                    if meter_output else None)
+    # The delivery stage takes the render's loudness and true peak from here: with the
+    # true peak known, its limiter need not interpolate a render that cannot reach the
+    # ceiling (renderer.limiter, known_true_peak). The meter runs on the writer thread,
+    # beside the engine.
+    output_meter = LoudnessMeter(stem.samplerate, 2) if meter_output else None
     state = {"done": 0, "peak": 0.0}
 
     def metered(blocks):
@@ -601,7 +602,7 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
 
     with contextlib.closing(engine), StemReader(stem) as reader, OutputWriter(
         path, stem.samplerate, 2, format=fmt, subtype=subtype, frames_hint=total,
-        seed=settings.seed,
+        seed=settings.seed, durable=not scratch,
     ) as writer:
         # Reading, convolving and writing overlap (renderer.pipeline); the writer thread
         # is drained before the output file is closed and renamed.
@@ -674,6 +675,7 @@ def render(
             cancelled=cancelled,
             meter_input=options.loudness == "match",
             meter_output=not direct,
+            scratch=not direct,
         )
         t_render = time.perf_counter()
         delivery = None

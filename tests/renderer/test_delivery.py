@@ -72,6 +72,20 @@ def test_targets_are_reached_when_the_limiter_stays_idle(render, tmp_path, targe
     assert report["warnings"] == []
 
 
+@pytest.mark.parametrize("target", [-23.0, -3.0])  # limiter idle, then working hard
+def test_a_measurement_passed_in_gives_the_same_delivery(render, tmp_path, target):
+    """The render pass's measurement (true peak included) lets the stage skip its
+    measuring pass and, when the render cannot reach the ceiling, the limiter's
+    interpolation; the file and the report stay as without it."""
+    options = DeliveryOptions(loudness=target)
+    plain = deliver(render, tmp_path / "plain.wav", options, input_loudness=None)
+    told = deliver(render, tmp_path / "told.wav", options, input_loudness=None,
+                   render_measurement=measure_file(render))
+    assert sha256(tmp_path / "told.wav") == sha256(tmp_path / "plain.wav")
+    assert told == plain
+    assert (plain["limiter"]["samples_limited"] > 0) == (target == -3.0)
+
+
 def test_match_reproduces_the_input_loudness(render, tmp_path):
     out = tmp_path / "out.wav"
     report = deliver(render, out, DeliveryOptions(loudness="match"), input_loudness=-19.3)

@@ -104,6 +104,41 @@ def test_signals_below_the_ceiling_pass_bit_identically():
     assert lim.samples_limited == 0 and lim.max_gain_reduction_db == 0.0
 
 
+@pytest.mark.parametrize("scale", [0.05, 0.15])  # about -14 and -3 dBTP: under the target
+def test_a_known_true_peak_under_the_target_bypasses_with_the_same_output(scale):
+    rng = np.random.default_rng(9)
+    x = (rng.standard_normal((2 * FS, 2)) * scale).astype(np.float32)
+    known = 10 ** (true_peak(x, FS) / 20)
+    full, lim_full = limit(x, sizes=30000)
+    quick, lim_quick = limit(x, sizes=30000, known_true_peak=known)
+    assert lim_quick.bypassed and not lim_full.bypassed
+    assert_array_equal(quick, full)
+    assert lim_quick.samples_limited == lim_full.samples_limited == 0
+    # The full limiter measures what the bypass is told (float32 interpolation both).
+    assert_allclose(lim_quick.input_true_peak, lim_full.input_true_peak, rtol=1e-6)
+    assert_allclose(lim_quick.output_true_peak, lim_full.output_true_peak, rtol=1e-6)
+
+
+def test_a_known_true_peak_over_the_target_changes_nothing():
+    x = SIGNALS["noise 12 dB over the ceiling"].astype(np.float32)
+    known = 10 ** (true_peak(x, FS) / 20)
+    plain, lim_plain = limit(x, sizes=20000)
+    told, lim_told = limit(x, sizes=20000, known_true_peak=known)
+    assert not lim_told.bypassed
+    assert_array_equal(told, plain)
+    assert lim_told.samples_limited == lim_plain.samples_limited > 0
+    assert lim_told.output_true_peak == lim_plain.output_true_peak
+    # Just under the target but not by the bypass margin: the limiter works as usual.
+    edge = TruePeakLimiter(FS, 2, known_true_peak=10 ** ((-1 - TARGET_MARGIN_DB) / 20))
+    assert not edge.bypassed
+
+
+@pytest.mark.parametrize("value", [-0.1, float("nan"), float("inf")])
+def test_a_bad_known_true_peak_is_refused(value):
+    with pytest.raises(AudioError, match="known_true_peak must be a finite level >= 0"):
+        TruePeakLimiter(FS, 2, known_true_peak=value)
+
+
 def offset_signal(rng: np.random.Generator) -> np.ndarray:
     """DC 0.5 plus a little noise (no frame near zero, so the gain can be read back as
     output / input), with a burst well over the ceiling in the middle."""
