@@ -294,6 +294,7 @@ class PeakInterpolator:
         phases = taps.reshape(-1, self.factor).T if self.factor > 1 else taps[None, :]
         self._matrix = np.ascontiguousarray(phases[:, ::-1].T)  # (history + 1, factor)
         self.bound_gain = float(max(1.0, np.abs(phases).sum(axis=1).max()))
+        self._buffers: dict[str, np.ndarray] = {}
 
     def point_peaks(self, block: np.ndarray, threshold: float = 0.0,
                     context: np.ndarray | None = None) -> np.ndarray:
@@ -312,51 +313,64 @@ class PeakInterpolator:
         Returns
         -------
         numpy.ndarray
-            ``(n,)`` float64. Every value above ``threshold`` is exact; a point whose
-            value is at most ``threshold`` may read lower (0 where nothing was computed).
+            ``(n,)`` float64, a new array. Every value above ``threshold`` is exact; a
+            point whose value is at most ``threshold`` may read lower (0 where nothing
+            was computed).
+
+        Notes
+        -----
+        Working arrays are kept from call to call (blocks of a stream mostly have one
+        size), since on this kind of work a fresh large array costs more in page faults
+        than the arithmetic done in it. So an instance serves one thread at a time.
         """
         x = np.asarray(block)
         e = self.history
         n = x.shape[0]
-        out = np.zeros(n)
+        out = np.zeros(-(-n // _CHUNK) * _CHUNK)
         if n == 0:
             return out
         c = x.shape[1]
+        if self.factor == 1:
+            mag = np.abs(x).max(axis=1)
+            return np.where(mag > threshold, mag, 0.0).astype(np.float64)
         # Channel-major copy, padded so that the window (e + 1 frames) of every point lies
         # in `span` whole chunks; numpy is fast along long contiguous rows only.
         span = -(-(_CHUNK + e) // _CHUNK)
-        chunks = -(-n // _CHUNK)
+        chunks = out.size // _CHUNK
         total = (chunks + span - 1) * _CHUNK
-        xt = np.zeros((c, total), dtype=x.dtype)
+        xt = self._scratch("signal", (c, total), x.dtype)
         if context is not None and e:
             xt[:, :e] = np.asarray(context)[-e:].T
+        else:
+            xt[:, :e] = 0.0
         xt[:, e:e + n] = x.T
-        level = np.abs(xt)
-        mag = level[0, e:e + n].astype(np.float64)  # the samples themselves, over channels
-        for ch in range(1, c):
-            np.maximum(mag, level[ch, e:e + n], out=mag)
-        if self.factor == 1:
-            return np.where(mag > threshold, mag, 0.0)
+        xt[:, e + n:] = 0.0
+        level = np.abs(xt, out=self._scratch("level", (c, total), x.dtype))
         width = 1
         while width < _CHUNK:  # pairwise maxima down to one value per chunk
-            level = np.maximum(level[:, 0::2], level[:, 1::2])
+            half = self._scratch(f"level/{2 * width}", (c, level.shape[1] // 2), x.dtype)
+            level = np.maximum(level[:, 0::2], level[:, 1::2], out=half)
             width *= 2
-        window_max = level[:, :chunks].copy()  # (C, chunks)
+        window_max = self._scratch("window", (c, chunks), x.dtype)
+        window_max[...] = level[:, :chunks]
         for k in range(1, span):
             np.maximum(window_max, level[:, k:k + chunks], out=window_max)
         chans, rows = np.nonzero(self.bound_gain * window_max > threshold)
         if rows.size == 0:
-            return out
+            return out[:n]
         if rows.size > _DENSE_FRACTION * window_max.size:
             peak = np.zeros(n, dtype=x.dtype)
+            y = self._scratch("phase", (c, e + n), x.dtype)
             for p in range(self.factor):
-                y = correlate1d(xt[:, :e + n], self._matrix[:, p], axis=1, mode="constant",
-                                origin=-((e + 1) // 2))[:, :n]  # y[j] uses xt[j .. j + e]
+                correlate1d(xt[:, :e + n], self._matrix[:, p], axis=1, mode="constant",
+                            origin=-((e + 1) // 2), output=y)  # y[j] uses xt[j .. j + e]
                 np.abs(y, out=y)
                 for ch in range(c):
-                    np.maximum(peak, y[ch], out=peak)
-            np.maximum(out, peak, out=out)
-            return np.maximum(out, mag, out=out)
+                    np.maximum(peak, y[ch, :n], out=peak)
+            np.maximum(out[:n], peak, out=out[:n])
+            for ch in range(c):
+                np.maximum(out[:n], np.abs(xt[ch, e:e + n]), out=out[:n])
+            return out[:n]
         framed = xt.reshape(c, -1, _CHUNK)
         segments = np.concatenate([framed[chans, rows + k] for k in range(span)], axis=1)
         coef = self._matrix.astype(x.dtype)
@@ -368,16 +382,25 @@ class PeakInterpolator:
                 np.multiply(segments[:, k:k + _CHUNK], coef[k, p], out=term)
                 acc += term
             np.maximum(peak, np.abs(acc, out=acc), out=peak)
-        point = np.zeros((chunks, _CHUNK))
-        for ch in range(c):  # rows are unique within a channel
+        # The samples themselves (the last frames of each window: the chunk's own frames),
+        # then the channels' maxima per chunk; rows are unique within a channel.
+        np.maximum(peak, np.abs(segments[:, e:e + _CHUNK]), out=peak)
+        point = out.reshape(chunks, _CHUNK)
+        for ch in range(c):
             sel = chans == ch
             if np.any(sel):
                 r = rows[sel]
                 point[r] = np.maximum(point[r], peak[sel])
-        point = point.ravel()[:n]
-        hit = point > 0
-        out[hit] = np.maximum(point[hit], mag[hit])
-        return out
+        return out[:n]
+
+    def _scratch(self, name: str, shape: tuple[int, int], dtype: np.dtype) -> np.ndarray:
+        """A working array of this shape kept for the next call (contents undefined)."""
+        size = shape[0] * shape[1]
+        buf = self._buffers.get(name)
+        if buf is None or buf.dtype != dtype or buf.size < size:
+            buf = np.empty(max(size, 1), dtype=dtype)
+            self._buffers[name] = buf
+        return buf[:size].reshape(shape)
 
 
 class TruePeakMeter:

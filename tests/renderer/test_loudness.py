@@ -33,6 +33,7 @@ from renderer.loudness import (
     PeakInterpolator,
     TruePeakMeter,
     channel_weights,
+    interpolation_taps,
     k_weighting_parameters,
     k_weighting_sos,
     measure_file,
@@ -326,6 +327,37 @@ def test_bad_input_is_refused_with_clear_messages():
 
 
 # -------------------------------------------------------------------------- true peak
+
+
+@pytest.mark.parametrize("threshold", [0.0, 0.25, 0.6, 2.0])
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_point_peaks_against_zero_stuffing_and_convolution(threshold, dtype):
+    # Oracle: textbook interpolation (insert factor - 1 zeros after every sample, convolve
+    # with the interpolation taps, numpy.convolve); point q gathers the outputs q * F ..
+    # q * F + F - 1 and the sample itself. Computed with and without context, over blocks
+    # whose lengths are not multiples of the chunk, sparse and dense.
+    rng = np.random.default_rng(21)
+    interp = PeakInterpolator(FS)
+    f, e = interp.factor, interp.history
+    taps = interpolation_taps(f)
+    for n, c in ((1, 1), (7, 2), (1001, 2), (4099, 3)):
+        x = (rng.standard_normal((n + e, c)) * rng.uniform(0.02, 0.4, size=(n + e, 1)))
+        x = x.astype(dtype)
+        context, block = x[:e], x[e:]
+        expected = np.zeros(n)
+        for ch in range(c):
+            u = np.zeros((n + e) * f)
+            u[::f] = x[:, ch]
+            y = np.convolve(u, taps)[e * f:(n + e) * f].reshape(n, f)
+            expected = np.maximum(expected, np.abs(y).max(axis=1))
+        expected = np.maximum(expected, np.abs(block).max(axis=1))
+        got = interp.point_peaks(block, threshold=threshold, context=context)
+        assert got.shape == (n,) and got.dtype == np.float64
+        above = expected > threshold
+        tol = 2e-6 if dtype == np.float32 else 1e-12
+        assert_allclose(got[above], expected[above], rtol=tol, atol=tol)
+        assert np.all(got[~above] <= threshold + tol)
+        assert np.all(got <= expected + tol)
 
 
 def test_skipping_never_changes_a_value_above_the_threshold():
