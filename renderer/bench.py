@@ -5,20 +5,30 @@ each in a fresh process so that its peak memory is its own:
 
 * **ossicle** — the streaming engine, end to end (read, convolve, write), raw: no
   loudness gain, no limiter;
-* **ossicle_delivered** — the same with the default delivery stage (-23 LUFS, true-peak
-  limiter at -1 dBTP): what delivery adds is reported as a share of the raw render;
+* **delivery** — the raw render against the same with the default delivery stage
+  (-23 LUFS, true-peak limiter at -1 dBTP), and with a loud one (:data:`LOUD_TARGET_LUFS`,
+  where the limiter has work to do on the noise stem), in :data:`DELIVERY_ROUNDS`
+  interleaved rounds in one process: what delivery adds is reported as a share of the
+  raw render, the median over the rounds of each round's ratio;
 * **baseline** — the whole stem read into memory, ``scipy.signal.oaconvolve`` once per
   (channel, ear) filter, summed, written; the same filters as ours;
 * **I/O floor** — only reading the stem in blocks and writing an output of the same size;
 * **eq_on / eq_off** — the raw render with and without diffuse-field equalisation (the
-  render pass, as for the other cases), in :data:`EQ_PAIRS` alternating pairs in one
-  process (the fastest of each counts); the set's cache is cleared before each run, and
-  the planning time is kept too, so the EQ's one-off preparation per set and rate (the
-  diffuse-field response, the inverse, the filtered set) is reported on its own.
+  render pass, as for the other cases), in :data:`EQ_ROUNDS` interleaved rounds in one
+  process (the median of the rounds' ratios counts); the set's cache is cleared before
+  each run, and the planning time is kept too, so the EQ's one-off preparation per set and
+  rate (the diffuse-field response, the inverse, the filtered set) is reported on its own.
+
+Why rounds: the machines this runs on drift by 20-50 % over tens of seconds (other work,
+clock and cache state), far more than the few per cent the EQ and delivery figures look
+for. Cases run one after the other in separate processes compare different moments;
+variants alternated in one process, in an order reversed every round (A B, B A, ...), and
+compared round by round see the same moment, and the median of the rounds' ratios ignores
+a round that was disturbed (common practice in benchmarking: paired, interleaved trials).
 
 The planning step (reading and resampling the HRIR set) is excluded from every case: it
-is the same for all and does not grow with the stem. Each case runs three times in its
-process and the fastest run counts. Peak memory is the process's
+is the same for all and does not grow with the stem. The other cases run three times in
+their process and the fastest run counts. Peak memory is the process's
 maximum resident set size minus its size just before the case started.
 """
 
@@ -88,12 +98,19 @@ def _case_ours(stem: str, layout: str, out: str, room: str) -> dict:
     return {"seconds": report["timings_s"]["render"], "block_size": report["engine"]["block_size"]}
 
 
-def _case_delivered(stem: str, layout: str, out: str, room: str) -> dict:
+def _case_delivered(stem: str, layout: str, out: str, room: str,
+                    loudness: float | None = None) -> dict:
+    import dataclasses
+
     from .render import render
 
-    report = render([stem], out, _settings(layout, room, delivered=True))
+    settings = _settings(layout, room, delivered=True)
+    if loudness is not None:
+        settings = dataclasses.replace(settings, loudness=loudness)
+    report = render([stem], out, settings)
     t = report["timings_s"]
-    return {"seconds": t["render"] + t["delivery"]}
+    return {"seconds": t["render"] + t["delivery"],
+            "samples_limited": report["delivery"]["limiter"]["samples_limited"]}
 
 
 def _case_ours_exact(stem: str, layout: str, out: str, room: str) -> dict:
@@ -148,44 +165,92 @@ def _case_eq(stem: str, layout: str, out: str, room: str, eq: str) -> dict:
     return {"seconds": t["render"], "plan_seconds": t["plan"]}
 
 
-#: Alternating (off, on) pairs of the EQ comparison. The two differ by a few per cent at
-#: most, less than this machine's drift between cases run one after the other (20-50 %
-#: seen), so they run interleaved in one process and the fastest of each counts.
-EQ_PAIRS = 5
+#: Rounds of the EQ comparison (off and on, interleaved; see the module's notes).
+EQ_ROUNDS = 7
+
+#: Rounds of the delivery comparison (raw, default delivery, loud delivery).
+DELIVERY_ROUNDS = 5
+
+#: Loudness target of the delivery case whose limiter works: on the bench's noise stems
+#: (true peak about 9 dB over the integrated loudness) -9 LUFS puts the peaks over the
+#: -1 dBTP ceiling, and the limiter lowers about 5 % of the frames of a 7.1.4 render.
+LOUD_TARGET_LUFS = -9.0
+
+
+def interleaved(variants: dict[str, Callable[[], dict]], rounds: int) -> dict[str, list[dict]]:
+    """Run each variant once per round, the order reversed every other round.
+
+    Returns every variant's results, round by round, so that they can be compared
+    round by round (:func:`round_ratios`).
+    """
+    names = list(variants)
+    runs: dict[str, list[dict]] = {name: [] for name in names}
+    for i in range(rounds):
+        for name in (names if i % 2 == 0 else names[::-1]):
+            runs[name].append(variants[name]())
+    return runs
+
+
+def round_ratios(runs: list[dict], reference: list[dict]) -> list[float]:
+    """Each round's time over the reference's time in the same round."""
+    return [r["seconds"] / ref["seconds"] for r, ref in zip(runs, reference)]
+
+
+def _summary(runs: list[dict], reference: list[dict] | None = None) -> dict:
+    out = {"seconds": min(r["seconds"] for r in runs),
+           "all_seconds": [round(r["seconds"], 4) for r in runs]}
+    if "plan_seconds" in runs[0]:
+        out["plan_seconds"] = min(r["plan_seconds"] for r in runs)
+    if reference is not None:
+        ratios = round_ratios(runs, reference)
+        out["round_ratios"] = [round(x, 4) for x in ratios]
+        out["median_ratio"] = float(np.median(ratios))
+    return out
 
 
 def _case_eq_pair(stem: str, layout: str, out: str, room: str) -> dict:
-    off, on = [], []
-    for _ in range(EQ_PAIRS):
-        off.append(_case_eq(stem, layout, out, room, "none"))
-        on.append(_case_eq(stem, layout, out, room, "diffuse-field"))
-
-    def best(runs: list[dict]) -> dict:
-        return {"seconds": min(r["seconds"] for r in runs),
-                "plan_seconds": min(r["plan_seconds"] for r in runs),
-                "all_seconds": [round(r["seconds"], 4) for r in runs]}
-
-    return {**best(on), "off": best(off)}
+    runs = interleaved({
+        "off": lambda: _case_eq(stem, layout, out, room, "none"),
+        "on": lambda: _case_eq(stem, layout, out, room, "diffuse-field"),
+    }, EQ_ROUNDS)
+    return {**_summary(runs["on"], runs["off"]), "off": _summary(runs["off"])}
 
 
-_CASES = {"ossicle": _case_ours, "ossicle_delivered": _case_delivered,
+def _case_delivery(stem: str, layout: str, out: str, room: str) -> dict:
+    runs = interleaved({
+        "raw": lambda: _case_ours(stem, layout, out, room),
+        "default": lambda: _case_delivered(stem, layout, out, room),
+        "loud": lambda: _case_delivered(stem, layout, out, room, LOUD_TARGET_LUFS),
+    }, DELIVERY_ROUNDS)
+    return {**_summary(runs["default"], runs["raw"]),
+            "raw": _summary(runs["raw"]),
+            "loud": {**_summary(runs["loud"], runs["raw"]),
+                     "target_lufs": LOUD_TARGET_LUFS,
+                     "samples_limited": runs["loud"][0]["samples_limited"]}}
+
+
+_CASES = {"ossicle": _case_ours, "delivery": _case_delivery,
           "ossicle_exact": _case_ours_exact, "baseline": _case_baseline, "io_floor": _case_io_floor,
           "eq_pair": _case_eq_pair}
-#: Cases that repeat themselves (their own alternation) instead of REPEATS times.
-_SELF_REPEATING = {"eq_pair"}
+#: Cases that repeat themselves (their own interleaved rounds) instead of REPEATS times.
+_SELF_REPEATING = {"eq_pair", "delivery"}
+#: Cases run only by the memory check.
+_MEMORY_CASES = {"ossicle_delivered": _case_delivered}
 
 
-def _child(conn, case: str, stem: str, layout: str, out: str, room: str) -> None:
+def _child(conn, case: str, stem: str, layout: str, out: str, room: str,
+           repeats: int = REPEATS) -> None:
     try:
         import renderer.render  # noqa: F401  (imports outside the measured memory)
 
         before = _rss_bytes()
         # Best of REPEATS: the machine's other work only ever adds time, so the minimum is
         # the steadiest estimate of a case's own cost (common practice in benchmarking).
+        fn = _CASES.get(case) or _MEMORY_CASES[case]
         if case in _SELF_REPEATING:
-            result = _CASES[case](stem, layout, out, room)
+            result = fn(stem, layout, out, room)
         else:
-            runs = [_CASES[case](stem, layout, out, room) for _ in range(REPEATS)]
+            runs = [fn(stem, layout, out, room) for _ in range(repeats)]
             result = min(runs, key=lambda r: r["seconds"])
             result["all_seconds"] = [round(r["seconds"], 4) for r in runs]
         result["peak_memory_bytes"] = max(_maxrss_bytes() - before, 0)
@@ -196,10 +261,11 @@ def _child(conn, case: str, stem: str, layout: str, out: str, room: str) -> None
         conn.close()
 
 
-def _run_case(case: str, stem: str, layout: str, out: str, room: str = "none") -> dict:
+def _run_case(case: str, stem: str, layout: str, out: str, room: str = "none",
+              repeats: int = REPEATS) -> dict:
     ctx = mp.get_context("spawn")
     parent, child = ctx.Pipe(duplex=False)
-    proc = ctx.Process(target=_child, args=(child, case, stem, layout, out, room))
+    proc = ctx.Process(target=_child, args=(child, case, stem, layout, out, room, repeats))
     proc.start()
     child.close()
     try:
@@ -263,8 +329,24 @@ def run_bench(
 
                 peak = round(r["peak_memory_bytes"] / 1e6, 1)
                 if case == "eq_pair":
-                    row["eq_on"] = {**figures(r), "peak_memory_mb": peak}
+                    row["eq_on"] = {**figures(r), "peak_memory_mb": peak,
+                                    "round_ratios": r["round_ratios"]}
                     row["eq_off"] = {**figures(r["off"]), "peak_memory_mb": peak}
+                    # What diffuse-field equalisation adds to a raw render's pass, and its
+                    # one-off preparation (once per set and rate in a process).
+                    row["eq_added"] = round(r["median_ratio"] - 1, 3)
+                    row["eq_prepare_s"] = round(r["plan_seconds"] - r["off"]["plan_seconds"], 3)
+                elif case == "delivery":
+                    # What the delivery stage (measure, gain, limiter, final write) adds.
+                    row["ossicle_delivered"] = {**figures(r), "peak_memory_mb": peak,
+                                                "round_ratios": r["round_ratios"]}
+                    row["ossicle_delivered_loud"] = {
+                        **figures(r["loud"]), "round_ratios": r["loud"]["round_ratios"],
+                        "target_lufs": r["loud"]["target_lufs"],
+                        "samples_limited": r["loud"]["samples_limited"]}
+                    row["delivery_raw"] = figures(r["raw"])
+                    row["delivery_added"] = round(r["median_ratio"] - 1, 3)
+                    row["delivery_loud_added"] = round(r["loud"]["median_ratio"] - 1, 3)
                 else:
                     row[case] = {**figures(r), "peak_memory_mb": peak}
                 if "block_size" in r:
@@ -272,14 +354,6 @@ def run_bench(
 
             row["speedup_vs_baseline"] = round(row["baseline"]["seconds"] / row["ossicle"]["seconds"], 2)
             row["ratio_to_io_floor"] = round(row["ossicle"]["seconds"] / row["io_floor"]["seconds"], 2)
-            # What the delivery stage (measure, gain, limiter, final write) adds to a render.
-            row["delivery_added"] = round(
-                row["ossicle_delivered"]["seconds"] / row["ossicle"]["seconds"] - 1, 3)
-            # What diffuse-field equalisation adds to a raw render's pass, and its one-off
-            # preparation (once per set and rate in a process; planning time on - off).
-            row["eq_added"] = round(row["eq_on"]["seconds"] / row["eq_off"]["seconds"] - 1, 3)
-            row["eq_prepare_s"] = round(
-                row["eq_on"]["plan_seconds"] - row["eq_off"]["plan_seconds"], 3)
             if "ossicle_exact" in row:
                 row["exact_vs_shared"] = round(
                     row["ossicle_exact"]["seconds"] / row["ossicle"]["seconds"], 2)
@@ -297,7 +371,7 @@ def run_bench(
                 # The delivered render too: its two passes stream, so it must stay flat.
                 say(f"bench: memory check, {length:g} s {layout.name} stem, delivered")
                 d = _run_case("ossicle_delivered", stem, layout.name,
-                              str(Path(tmp) / "mem-out.wav"), room)
+                              str(Path(tmp) / "mem-out.wav"), room, repeats=1)
                 mem[label] = {"seconds_of_audio": length,
                               "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
                               "delivered_peak_memory_mb": round(d["peak_memory_bytes"] / 1e6, 1)}
@@ -325,7 +399,9 @@ def format_bench(result: dict) -> str:
             f"{row['baseline']['x_real_time']:>13.1f} {row['io_floor']['x_real_time']:>14.1f} "
             f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
             f"{row['ossicle']['peak_memory_mb']:>8.1f}"
-            + f"   delivery +{row['delivery_added'] * 100:.0f} %"
+            + f"   delivery {row['delivery_added'] * 100:+.0f} % "
+              f"(limiting, {row['ossicle_delivered_loud']['target_lufs']:g} LUFS: "
+              f"{row['delivery_loud_added'] * 100:+.0f} %)"
             + f"   EQ on {row['eq_added'] * 100:+.1f} % (preparation {row['eq_prepare_s']:+.2f} s once)"
             + (f"   exact mode {row['ossicle_exact']['x_real_time']:.1f} xRT "
                f"({row['exact_vs_shared']:.2f}x the shared time)" if "ossicle_exact" in row else "")
@@ -347,7 +423,9 @@ def format_bench(result: dict) -> str:
                 f"(growth {mem['delivered_growth_mb']:+.1f} MB)")
     lines += ["", "xRT = seconds of audio per second of wall time (higher is faster); "
               "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
-              "delivery = loudness + limiter + final write, as a share of the render pass; "
+              "delivery = loudness + limiter + final write, as a share of the raw render "
+              "(default -23 LUFS, and a loud target at which the limiter works); "
               "EQ on = a raw render pass with diffuse-field equalisation against one without; "
-              "preparation = its one-off cost per HRTF set and rate."]
+              "preparation = its one-off cost per HRTF set and rate. Delivery and EQ are "
+              "medians of per-round ratios of renders interleaved in one process."]
     return "\n".join(lines)

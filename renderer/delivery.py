@@ -15,6 +15,7 @@ what came out.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import re
@@ -53,6 +54,10 @@ LOUDNESS_RANGE = (-70.0, 0.0)
 TRUE_PEAK_RANGE = (-30.0, 0.0)
 """Closed interval of accepted ceilings in dBTP."""
 
+_NO_CLIP_DBFS = -0.01
+# A render whose sample peak after the gain stays under this cannot clip or saturate in
+# any output subtype (PCM_16 dither adds at most 1 LSB, -90 dB), so its output is the
+# render times the gain.
 _PASS1_SHARE = 0.3  # share of the progress bar for the measuring pass (no writing)
 _MATCH = "match"
 _OFF_WORDS = ("none", "off")
@@ -163,19 +168,19 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
             subtype: str = "PCM_24", format: str | None = None, seed: int = 0,
             progress: Callable[[float], None] | None = None,
             cancelled: Callable[[], bool] | None = None,
-            render_measurement: LoudnessResult | None = None) -> dict:
+            render_meter: LoudnessMeter | None = None) -> dict:
     """Normalise, limit and write a render; return the report's delivery section.
 
     Parameters
     ----------
     temp_path : path-like
         The float render (any channel count; a binaural render has two). Only read.
-    render_measurement : LoudnessResult, optional
-        The render's measurement if the caller metered it while writing ``temp_path``;
-        then the measuring pass is skipped and the file is read once. Its integrated
-        loudness sets the gain; its true peak, if it was measured, tells the limiter
-        whether it has anything to do (``known_true_peak`` of
-        :class:`renderer.limiter.TruePeakLimiter`).
+    render_meter : LoudnessMeter, optional
+        The meter that measured ``temp_path`` as the caller wrote it (true peak
+        included); then the measuring pass is skipped and the file is read once. Its
+        integrated loudness sets the gain; its true peak tells the limiter whether it
+        has anything to do (``known_true_peak`` of
+        :class:`renderer.limiter.TruePeakLimiter`). It is not changed.
     output_path : path-like
         The delivered file, written under a temporary name and renamed when complete.
     options : DeliveryOptions
@@ -200,6 +205,11 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         ``target_lufs`` (the level aimed at, or None), ``input_integrated_lufs``,
         ``render_integrated_lufs`` (before gain), ``gain_db``, ``output`` (the
         delivered file's measurement, :meth:`LoudnessResult.to_dict`),
+        ``output_from_render`` (True when the output was the render times the gain, no
+        sample limited or clipped: then ``output`` is the render's measurement with the
+        gain, :meth:`LoudnessMeter.result`, which is what metering the output reads,
+        to float rounding and the output's own rounding or dither, and the output is
+        not metered again),
         ``true_peak_before_dbtp`` (the render after gain, before limiting),
         ``true_peak_after_dbtp``, ``ceiling_dbtp``, ``limiter`` (``enabled``,
         ``max_gain_reduction_db``, ``samples_limited``, and look-ahead and release),
@@ -224,8 +234,8 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
             progress(min(max(fraction, 0.0), 1.0))
 
     # Pass 1: measure the render as it is (unless the caller metered it while writing it).
-    if render_measurement is not None:
-        measured = render_measurement
+    if render_meter is not None:
+        before = render_meter
     else:
         before = LoudnessMeter(rate, channels)
         with StemReader(info) as reader:
@@ -233,7 +243,7 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
                 poll()
                 before.process(block)
                 report(_PASS1_SHARE * reader.frames_read / total)
-        measured = before.result()
+    measured = before.result()
     rendered = measured.integrated_lufs
 
     target = options.loudness
@@ -263,23 +273,41 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
             known = 10.0 ** ((measured.true_peak_dbtp + gain_db) / 20.0)
         limiter = TruePeakLimiter(rate, channels, ceiling_dbtp=options.true_peak,
                                   known_true_peak=known)
-    after = LoudnessMeter(rate, channels, measure_true_peak=limiter is None)
+    # When the output will be the render times the gain (the limiter has nothing to do,
+    # and nothing reaches full scale), metering it again would only repeat the render's
+    # measurement shifted by the gain: that is taken instead (LoudnessMeter.result).
+    # Otherwise the output is metered as it is written.
+    unchanged = limiter is None or limiter.bypassed
+    peak = measured.sample_peak_dbfs
+    from_render = (unchanged and measured.true_peak_dbtp is not None and peak is not None
+                   and peak + gain_db < _NO_CLIP_DBFS)
+    after = None if from_render else LoudnessMeter(rate, channels,
+                                                   measure_true_peak=limiter is None)
 
     with StemReader(info) as reader, OutputWriter(
         output_path, rate, channels, format=format, subtype=subtype, frames_hint=total,
         seed=seed,
     ) as writer:
-        # Metering and encoding the output each run in a thread of their own beside the
+        # Metering and writing the output each run in a thread of their own beside the
         # reading and the limiter (renderer.pipeline), in order; both are drained before
         # the output file is closed and before the meter is read. The blocks are new
-        # arrays that nobody changes, so the two threads may share them.
-        with BackgroundWriter(writer.write) as encoding, \
-                BackgroundWriter(after.process) as metering:
+        # arrays that nobody changes, so the two threads may share them. When the output
+        # is not metered, this thread converts the blocks to the output's samples
+        # (quantisation, dither) and the other only writes them.
+        with contextlib.ExitStack() as threads:
+            if after is None:
+                writing = threads.enter_context(BackgroundWriter(writer.write_encoded))
+            else:
+                writing = threads.enter_context(BackgroundWriter(writer.write))
+                metering = threads.enter_context(BackgroundWriter(after.process))
 
             def emit(block: np.ndarray) -> None:
                 if block.shape[0]:
-                    metering.submit(block)
-                    encoding.submit(block)
+                    if after is None:
+                        writing.submit(writer.encode(block))
+                    else:
+                        metering.submit(block)
+                        writing.submit(block)
 
             # Reading runs a block ahead on its own thread (new arrays each time, so the
             # writer thread may hold them): this thread only scales and limits.
@@ -295,12 +323,16 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
                 emit(limiter.flush())
         clipped = writer.clipped_samples
         out_format = writer.format
-    result = after.result()
-    if limiter is not None:
-        result = replace(result, true_peak_dbtp=_dbtp(limiter.output_true_peak))
-        tp_before = _dbtp(limiter.input_true_peak)
-    else:
+    if after is None:
+        result = before.result(gain_db)
         tp_before = result.true_peak_dbtp
+    else:
+        result = after.result()
+        if limiter is not None:
+            result = replace(result, true_peak_dbtp=_dbtp(limiter.output_true_peak))
+            tp_before = _dbtp(limiter.input_true_peak)
+        else:
+            tp_before = result.true_peak_dbtp
     report(1.0)
 
     tp_after = result.true_peak_dbtp
@@ -331,6 +363,7 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         "render_integrated_lufs": _round(rendered),
         "gain_db": round(gain_db, 2),
         "output": {**result.to_dict(), "format": out_format, "subtype": subtype},
+        "output_from_render": after is None,
         "true_peak_before_dbtp": _round(tp_before),
         "true_peak_after_dbtp": _round(tp_after),
         "ceiling_dbtp": options.true_peak,

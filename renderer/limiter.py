@@ -121,8 +121,9 @@ class TruePeakLimiter:
         times any gain applied since. When it is clearly under the target (by
         :data:`_BYPASS_MARGIN`, far more than float32 rounding of the gain) no point can
         need a gain, so the limiter would pass every frame unchanged: it then does so at
-        once, without interpolating, and both true peaks report this value. Otherwise it
-        is ignored and the limiter works as without it.
+        once, without interpolating (:meth:`process` returns a float32 block itself, not
+        a copy), and both true peaks report this value. Otherwise it is ignored and the
+        limiter works as without it.
 
     Attributes
     ----------
@@ -227,7 +228,7 @@ class TruePeakLimiter:
         if self.bypassed:
             self._received += x.shape[0]
             self._emitted = self._received
-            return x.astype(np.float32)
+            return np.asarray(x, dtype=np.float32)  # a float32 block itself, uncopied
         self._append(x)
         out = []
         while self._received >= (self._steps + 1) * _STEP + self._reach:

@@ -44,6 +44,7 @@ if TYPE_CHECKING:
 __all__ = [
     "ABSOLUTE_GATE_LUFS",
     "K_WEIGHTING_48K",
+    "MAX_RESULT_GAIN_DB",
     "SERIES_FLOOR_LUFS",
     "SERIES_MAX_POINTS",
     "TAPS_PER_PHASE",
@@ -104,7 +105,13 @@ _KAISER_BETA = 8.0
 
 _SUB_BLOCKS_MOMENTARY = 4  # 400 ms in 100 ms steps
 _SUB_BLOCKS_SHORT_TERM = 30  # 3 s
-_HIST_LO = ABSOLUTE_GATE_LUFS
+MAX_RESULT_GAIN_DB = 70.0
+"""Largest gain :meth:`LoudnessMeter.result` can apply to a measurement: blocks down to
+this far under the absolute gate are kept, so that any gain up to it finds every block
+the gate would pass. (A loudness target is under 0 LUFS and a render with any block
+above -70 LUFS measures above it, so a delivery gain is always smaller.)"""
+
+_HIST_LO = ABSOLUTE_GATE_LUFS - MAX_RESULT_GAIN_DB
 _HIST_HI = 40.0
 _HIST_STEP = 0.01
 _HIST_BINS = int(round((_HIST_HI - _HIST_LO) / _HIST_STEP))
@@ -569,7 +576,12 @@ class LoudnessResult:
 
 
 class _Histogram:
-    """Block loudness above the absolute gate, as counts and power sums in 0.01 LU bins."""
+    """Block loudness as counts and power sums in 0.01 LU bins, from :data:`_HIST_LO` up.
+
+    The gates are applied when the histogram is read, to the blocks' loudness plus a
+    ``shift`` in LU: the same audio scaled by that gain (block powers scale exactly;
+    a block is taken at its bin's centre, as for the relative gate).
+    """
 
     def __init__(self) -> None:
         self.counts = np.zeros(_HIST_BINS, dtype=np.int64)
@@ -577,42 +589,48 @@ class _Histogram:
 
     def add(self, power: np.ndarray) -> None:
         loud = _lufs(power)
-        keep = loud > ABSOLUTE_GATE_LUFS
+        keep = loud > _HIST_LO
         if not np.any(keep):
             return
         idx = np.clip(((loud[keep] - _HIST_LO) / _HIST_STEP).astype(np.int64), 0,
                       _HIST_BINS - 1)
         # Only the span of bins hit is counted and added to: the same sums as over all
-        # bins (adding 0.0 changes nothing), without touching 11 000 bins per block.
+        # bins (adding 0.0 changes nothing), without touching 18 000 bins per block.
         lo = int(idx.min())
         idx -= lo
         span = int(idx.max()) + 1
         self.counts[lo:lo + span] += np.bincount(idx, minlength=span)
         self.power[lo:lo + span] += np.bincount(idx, weights=power[keep], minlength=span)
 
-    def relative_mask(self, gate_lu: float) -> np.ndarray | None:
-        """Bins above the relative gate (None if nothing passed the absolute gate)."""
-        total = int(self.counts.sum())
+    @staticmethod
+    def _centres(shift: float) -> np.ndarray:
+        return _HIST_LO + (np.arange(_HIST_BINS) + 0.5) * _HIST_STEP + shift
+
+    def relative_mask(self, gate_lu: float, shift: float = 0.0) -> np.ndarray | None:
+        """Bins above both gates (None if nothing passed the absolute gate)."""
+        centres = self._centres(shift)
+        absolute = (centres > ABSOLUTE_GATE_LUFS) & (self.counts > 0)
+        total = int(self.counts[absolute].sum())
         if total == 0:
             return None
-        gate = _lufs(self.power.sum() / total) + gate_lu
-        centres = _HIST_LO + (np.arange(_HIST_BINS) + 0.5) * _HIST_STEP
-        return (centres > gate) & (self.counts > 0)
+        gate = _lufs(self.power[absolute].sum() * _gain_power(shift) / total) + gate_lu
+        return absolute & (centres > gate)
 
-    def gated_loudness(self, gate_lu: float) -> float | None:
-        mask = self.relative_mask(gate_lu)
+    def gated_loudness(self, gate_lu: float, shift: float = 0.0) -> float | None:
+        mask = self.relative_mask(gate_lu, shift)
         if mask is None or not np.any(mask):
             return None
-        return float(_lufs(self.power[mask].sum() / self.counts[mask].sum()))
+        return float(_lufs(self.power[mask].sum() * _gain_power(shift)
+                           / self.counts[mask].sum()))
 
-    def loudness_range(self) -> float | None:
-        mask = self.relative_mask(LRA_RELATIVE_GATE_LU)
+    def loudness_range(self, shift: float = 0.0) -> float | None:
+        mask = self.relative_mask(LRA_RELATIVE_GATE_LU, shift)
         if mask is None or not np.any(mask):
             return None
         counts = np.where(mask, self.counts, 0)
         cum = np.cumsum(counts)
         n = int(cum[-1])
-        centres = _HIST_LO + (np.arange(_HIST_BINS) + 0.5) * _HIST_STEP
+        centres = self._centres(0.0)
         values = []
         for pct in LRA_PERCENTILES:
             rank = int(round((n - 1) * pct / 100.0))  # nearest rank, 0-based
@@ -620,8 +638,16 @@ class _Histogram:
         return float(values[1] - values[0])
 
 
+def _gain_power(shift_db: float) -> float:
+    return 1.0 if shift_db == 0.0 else 10.0 ** (shift_db / 10.0)
+
+
 class _Series:
-    """A plot series capped at SERIES_MAX_POINTS by pairwise maxima."""
+    """A plot series capped at SERIES_MAX_POINTS by pairwise maxima.
+
+    Readings are kept as they are (minus infinity for silence); the floor is applied
+    when the series is read, after any shift.
+    """
 
     def __init__(self) -> None:
         self.values: list[float] = []
@@ -630,7 +656,7 @@ class _Series:
         self._n = 0
 
     def extend(self, loudness: np.ndarray) -> None:
-        for v in np.maximum(loudness, SERIES_FLOOR_LUFS).tolist():
+        for v in np.asarray(loudness, dtype=float).tolist():
             self._acc = max(self._acc, v)
             self._n += 1
             if self._n == self.factor:
@@ -641,8 +667,9 @@ class _Series:
                     self.values = [max(v2[i], v2[i + 1]) for i in range(0, len(v2), 2)]
                     self.factor *= 2
 
-    def snapshot(self) -> tuple[float, ...]:
-        return tuple(self.values + ([self._acc] if self._n else []))
+    def snapshot(self, shift: float = 0.0) -> tuple[float, ...]:
+        values = self.values + ([self._acc] if self._n else [])
+        return tuple(max(v + shift, SERIES_FLOOR_LUFS) for v in values)
 
 
 class LoudnessMeter:
@@ -779,25 +806,39 @@ class LoudnessMeter:
         self._recent_energy = e[-self._keep:]
         self._recent_count = c[-self._keep:]
 
-    def result(self) -> LoudnessResult:
-        """The measurement so far (the meter can keep going afterwards)."""
+    def result(self, gain_db: float = 0.0) -> LoudnessResult:
+        """The measurement so far (the meter can keep going afterwards).
+
+        Parameters
+        ----------
+        gain_db : float
+            Report instead the measurement of the same audio scaled by this gain, up to
+            :data:`MAX_RESULT_GAIN_DB`: loudness values move by the gain, block powers
+            scale exactly and both gates are applied to the scaled blocks (each taken at
+            its 0.01 LU bin, as the relative gate always does), peaks scale. This is
+            what metering the scaled audio reads, to float rounding.
+        """
+        shift = float(gain_db)
+        if not math.isfinite(shift) or shift > MAX_RESULT_GAIN_DB:
+            raise AudioError(f"gain_db must be a finite number up to "
+                             f"{MAX_RESULT_GAIN_DB:g} dB, not {gain_db!r}")
         tp = self.true_peak
         if tp is None:
             true_peak_dbtp, sample_peak = None, self._sample_peak
         else:
-            true_peak_dbtp, sample_peak = _finite(_db(tp.peak)), tp.sample_peak
+            true_peak_dbtp, sample_peak = _finite(_db(tp.peak) + shift), tp.sample_peak
         return LoudnessResult(
             samplerate=self.samplerate,
             channels=self.channels,
             frames=self.frames,
-            integrated_lufs=self._gating.gated_loudness(RELATIVE_GATE_LU),
-            momentary_max_lufs=_finite(self._m_max),
-            short_term_max_lufs=_finite(self._s_max),
-            loudness_range_lu=self._short.loudness_range(),
+            integrated_lufs=self._gating.gated_loudness(RELATIVE_GATE_LU, shift),
+            momentary_max_lufs=_finite(self._m_max + shift),
+            short_term_max_lufs=_finite(self._s_max + shift),
+            loudness_range_lu=self._short.loudness_range(shift),
             true_peak_dbtp=true_peak_dbtp,
-            sample_peak_dbfs=_finite(_db(sample_peak)),
-            momentary_series=self._momentary.snapshot(),
-            short_term_series=self._short_series.snapshot(),
+            sample_peak_dbfs=_finite(_db(sample_peak) + shift),
+            momentary_series=self._momentary.snapshot(shift),
+            short_term_series=self._short_series.snapshot(shift),
             momentary_interval_s=round(0.1 * self._momentary.factor, 6),
             short_term_interval_s=round(0.1 * self._short_series.factor, 6),
         )

@@ -626,7 +626,7 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
         "format": out_format,
         "engine": engine.describe(),
         "input_loudness": None if input_meter is None else input_meter.result().integrated_lufs,
-        "render_measurement": None if output_meter is None else output_meter.result(),
+        "render_meter": output_meter,
     }
 
 
@@ -686,7 +686,7 @@ def render(
                 subtype=subtype, format=settings.format, seed=settings.seed,
                 progress=None if progress is None else (lambda f: progress(share + (1 - share) * f)),
                 cancelled=cancelled,
-                render_measurement=streamed["render_measurement"],
+                render_meter=streamed["render_meter"],
             )
     finally:
         if not direct:

@@ -74,16 +74,26 @@ def test_targets_are_reached_when_the_limiter_stays_idle(render, tmp_path, targe
 
 @pytest.mark.parametrize("target", [-23.0, -3.0])  # limiter idle, then working hard
 def test_a_measurement_passed_in_gives_the_same_delivery(render, tmp_path, target):
-    """The render pass's measurement (true peak included) lets the stage skip its
-    measuring pass and, when the render cannot reach the ceiling, the limiter's
-    interpolation; the file and the report stay as without it."""
+    """The render pass's meter (true peak included) lets the stage skip its measuring
+    pass and, when the render cannot reach the ceiling, the limiter's interpolation and
+    the output's metering; the file stays the same, and the report within rounding."""
     options = DeliveryOptions(loudness=target)
     plain = deliver(render, tmp_path / "plain.wav", options, input_loudness=None)
+    meter = LoudnessMeter(FS, 2)
+    meter.process(read_audio(render)[0])
     told = deliver(render, tmp_path / "told.wav", options, input_loudness=None,
-                   render_measurement=measure_file(render))
+                   render_meter=meter)
     assert sha256(tmp_path / "told.wav") == sha256(tmp_path / "plain.wav")
+    loud = target == -3.0
+    assert (plain["limiter"]["samples_limited"] > 0) == loud
     assert told == plain
-    assert (plain["limiter"]["samples_limited"] > 0) == (target == -3.0)
+    # Unless the limiter works, the output's figures are the render's plus the gain;
+    # metering the delivered file reads the same (within the report's 0.01 rounding).
+    assert told["output_from_render"] is not loud
+    again = measure_file(tmp_path / "told.wav").to_dict(series=False)
+    for key in ("integrated_lufs", "momentary_max_lufs", "short_term_max_lufs",
+                "loudness_range_lu", "true_peak_dbtp", "sample_peak_dbfs"):
+        assert_allclose(told["output"][key], again[key], atol=0.011, err_msg=key)
 
 
 def test_match_reproduces_the_input_loudness(render, tmp_path):

@@ -221,3 +221,30 @@ def test_sets_holding_a_room_are_not_equalised_by_default():
     free = HrirSet("free", 48000.0, ir, grid)
     _, report = _equalise(free, None, [])
     assert report["type"] == "diffuse-field" and report["chosen"] == "default for a free-field set"
+
+
+@pytest.mark.parametrize("rate", [44100, 48000, 96000])
+@pytest.mark.parametrize("path", SHIPPED, ids=lambda p: p.stem)
+def test_equalisation_leaves_the_engines_work_per_block_unchanged(tmp_path, path, rate):
+    """Why EQ costs nothing per block: an equalised HRIR is longer (the inverse filter
+    adds INVERSE_SECONDS), but it still fits the engine's single partition, so the
+    engine does the same transforms and multiply-accumulates with and without it.
+    (`ossicle bench` measures the time; this checks the cause, deterministically.)"""
+    import dataclasses
+
+    from renderer.audio_io import write_audio
+    from renderer.render import RenderSettings, _Engine, plan_render
+
+    stem = tmp_path / "stem.wav"
+    write_audio(stem, np.zeros((rate // 10, 12), dtype=np.float32), rate)
+    settings = RenderSettings(layout="7.1.4", hrtf=str(path), loudness=None, true_peak=None)
+    engines, taps = {}, {}
+    for eq in ("none", "diffuse-field"):
+        plan = plan_render([stem], dataclasses.replace(settings, eq=eq))
+        taps[eq] = plan.hrir_set.taps
+        engine = _Engine(plan, settings.block_size)
+        engines[eq] = engine.describe()
+        engine.close()
+    off, on = engines["none"], engines["diffuse-field"]
+    assert taps["diffuse-field"] > taps["none"]  # the inverse is there
+    assert on["block_size"] == off["block_size"] and on["partitions"] == off["partitions"] == 1

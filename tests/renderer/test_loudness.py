@@ -326,6 +326,56 @@ def test_bad_input_is_refused_with_clear_messages():
         LoudnessMeter(100, 2)
 
 
+@pytest.mark.parametrize("offset_db, gain_db", [
+    (0.0, -25.0), (0.0, -8.0), (0.0, 0.0), (0.0, 6.0), (0.0, 27.0), (-50.0, 65.0)])
+def test_a_result_with_gain_reads_what_metering_the_scaled_audio_reads(offset_db, gain_db):
+    # The same meter on the audio scaled by the gain is the reference. The programme
+    # holds passages near and below the absolute gate (-70 LUFS), and digital silence,
+    # so that gains up and down move blocks across both gates; the last case is a very
+    # quiet programme brought up by nearly the largest gain.
+    rng = np.random.default_rng(31)
+    levels = [-18.0, -40.0, -66.0, -71.0, -78.0, -95.0, None, -30.0, -69.0, -120.0]
+    parts = []
+    for level in levels:
+        seg = np.zeros((2 * FS, 2))
+        if level is not None:
+            seg = rng.standard_normal((2 * FS, 2)) * 10 ** ((level + 3.0 + offset_db) / 20)
+        parts.append(seg)
+    x = np.concatenate(parts)
+    meter = LoudnessMeter(FS, 2)
+    meter.process(x)
+    derived = meter.result(gain_db)
+    direct_meter = LoudnessMeter(FS, 2)
+    direct_meter.process(x * 10 ** (gain_db / 20))
+    direct = direct_meter.result()
+    for name in ("integrated_lufs", "loudness_range_lu"):
+        a, b = getattr(derived, name), getattr(direct, name)
+        assert (a is None) == (b is None), name
+        if a is not None:
+            assert_allclose(a, b, atol=0.02, err_msg=name)  # two bins at most
+    for name in ("momentary_max_lufs", "short_term_max_lufs", "true_peak_dbtp",
+                 "sample_peak_dbfs"):
+        assert_allclose(getattr(derived, name), getattr(direct, name), atol=1e-6, err_msg=name)
+    # Readings over 100 dB under the loudest passage are the filters' decaying state and
+    # float rounding; they are compared only as being that low.
+    for a, b in ((derived.momentary_series, direct.momentary_series),
+                 (derived.short_term_series, direct.short_term_series)):
+        a, b = np.array(a), np.array(b)
+        audible = b > b.max() - 100.0
+        assert_allclose(a[audible], b[audible], atol=1e-6)
+        assert np.all(a[~audible] <= b.max() - 99.0)
+    assert derived.frames == direct.frames
+
+
+def test_a_result_with_too_much_gain_is_refused():
+    meter = LoudnessMeter(FS, 2)
+    meter.process(np.zeros((FS, 2)))
+    with pytest.raises(AudioError, match="gain_db must be a finite number up to 70 dB"):
+        meter.result(70.5)
+    with pytest.raises(AudioError, match="gain_db must be a finite number"):
+        meter.result(float("nan"))
+
+
 # -------------------------------------------------------------------------- true peak
 
 

@@ -169,8 +169,35 @@ def test_bench_smoke(capsys, tmp_path):
 
     result = run_bench(seconds=1.0, layouts=["2.0"], memory_check=False, workdir=tmp_path)
     row = result["layouts"]["2.0"]
-    assert set(row) >= {"ossicle", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor"}
+    assert set(row) >= {"ossicle", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor",
+                        "delivery_added", "delivery_loud_added", "eq_added", "eq_prepare_s"}
+    from renderer.bench import DELIVERY_ROUNDS, EQ_ROUNDS
+
+    assert len(row["ossicle_delivered"]["round_ratios"]) == DELIVERY_ROUNDS
+    assert len(row["ossicle_delivered_loud"]["round_ratios"]) == DELIVERY_ROUNDS
+    assert len(row["eq_on"]["round_ratios"]) == EQ_ROUNDS
     assert "2.0" in format_bench(result)
+
+
+def test_bench_rounds_alternate_and_compare_within_a_round():
+    """Interleaved rounds reverse their order every other round, and each round's ratio
+    uses the reference run of the same round."""
+    from renderer.bench import interleaved, round_ratios
+
+    calls = []
+    times = iter([1.0, 2.0, 4.0, 3.0, 5.0, 10.0])  # A B | B A | A B
+
+    def variant(name):
+        def run():
+            calls.append(name)
+            return {"seconds": next(times)}
+        return run
+
+    runs = interleaved({"A": variant("A"), "B": variant("B")}, 3)
+    assert calls == ["A", "B", "B", "A", "A", "B"]
+    assert [r["seconds"] for r in runs["A"]] == [1.0, 3.0, 5.0]
+    assert [r["seconds"] for r in runs["B"]] == [2.0, 4.0, 10.0]
+    assert round_ratios(runs["B"], runs["A"]) == [2.0, 4.0 / 3.0, 2.0]
 
 
 def test_bench_memory_check_covers_the_delivered_render(tmp_path):
