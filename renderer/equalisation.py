@@ -36,6 +36,7 @@ import numpy as np
 import scipy.fft
 from scipy.spatial import SphericalVoronoi
 
+from .convolution import DEFAULT_BLOCK_SIZE
 from .errors import RendererError
 from .hrir import HrirPair, HrirSet
 
@@ -70,6 +71,13 @@ MAX_CELL_FACTOR = 3.0
 #: for twelfth-octave detail down to about 200 Hz; with the engine's 8192-frame partitions
 #: an equalised HRIR still fits one partition, so equalisation costs nothing per block.
 INVERSE_SECONDS = 2048 / 48000
+
+#: Shortest inverse filter in seconds (about 21 ms). At high rates the inverse is
+#: shortened, down to this, where its full length would push an HRIR that fits one
+#: engine partition into a second one (the KEMAR set at 192 kHz: 2230 taps plus 8192
+#: would need two partitions of 8192; 5962 taps fit), which would double the engine's
+#: multiply-accumulate work for a little more resolution below about 300 Hz.
+MIN_INVERSE_SECONDS = 1024 / 48000
 
 #: No boost outside these frequencies (Hz) whatever the set holds: the audio band.
 LOWEST_HZ = 20.0
@@ -168,9 +176,22 @@ def fft_size(hset: HrirSet) -> int:
     return max(8192, 1 << int(np.ceil(np.log2(need))))
 
 
-def inverse_taps(samplerate: float) -> int:
-    """Taps of the inverse filter at a rate (:data:`INVERSE_SECONDS`, even)."""
-    return 2 * int(round(INVERSE_SECONDS * samplerate / 2))
+def inverse_taps(samplerate: float, set_taps: int | None = None) -> int:
+    """Taps of the inverse filter at a rate (:data:`INVERSE_SECONDS`, even).
+
+    With ``set_taps``, shortened so that the equalised responses, ``set_taps + taps - 1``
+    long, need no more engine partitions (:data:`renderer.convolution.DEFAULT_BLOCK_SIZE`
+    frames) than the set's own, where :data:`MIN_INVERSE_SECONDS` is enough for that.
+    """
+    taps = 2 * int(round(INVERSE_SECONDS * samplerate / 2))
+    if set_taps is not None:
+        block = DEFAULT_BLOCK_SIZE
+        room = -(-int(set_taps) // block) * block - int(set_taps) + 1  # fits the same parts
+        shortest = 2 * int(round(MIN_INVERSE_SECONDS * samplerate / 2))
+        fit = room - room % 2
+        if fit >= shortest:  # else the equalised set spills over whatever the length
+            taps = min(taps, fit)
+    return taps
 
 
 def diffuse_field(hset: HrirSet, *, weighted: bool = True, n_fft: int | None = None) -> DiffuseField:
@@ -342,7 +363,7 @@ def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
     if cached is not None:
         return cached
     df = diffuse_field(hset)
-    fir, summary = inverse_filter(df)
+    fir, summary = inverse_filter(df, inverse_taps(hset.samplerate, hset.taps))
     ir = _convolve_all(hset.ir, fir)
     # The lookups run on a twin of the original set (same arrays, own caches), not on the
     # set itself: the set caches the equalised set, and a reference back would make a
