@@ -15,9 +15,12 @@ each in a fresh process so that its peak memory is its own:
 * **I/O floor** — only reading the stem in blocks and writing an output of the same size;
 * **eq_on / eq_off** — the raw render with and without diffuse-field equalisation (the
   render pass, as for the other cases), in :data:`EQ_ROUNDS` interleaved rounds in one
-  process (the median of the rounds' ratios counts); the set's cache is cleared before
-  each run, and the planning time is kept too, so the EQ's one-off preparation per set and
-  rate (the diffuse-field response, the inverse, the filtered set) is reported on its own.
+  process (the median of the rounds' ratios counts), with the sets prepared as a process
+  keeps them (cached per set and rate); and the engine alone on the first
+  :data:`EQ_ENGINE_SECONDS` of the stem, block by block (:func:`_eq_engine_work`), which
+  is steadier. The one-off preparation per set and rate (the
+  diffuse-field response, the inverse, the filtered set) is timed apart, as the planning
+  time of a first render from a cold cache with EQ on, less the same with EQ off.
 
 Why rounds: the machines this runs on drift by 20-50 % over tens of seconds (other work,
 clock and cache state), far more than the few per cent the EQ and delivery figures look
@@ -153,13 +156,14 @@ def _case_io_floor(stem: str, layout: str, out: str, room: str) -> dict:
     return {"seconds": time.perf_counter() - t0}
 
 
-def _case_eq(stem: str, layout: str, out: str, room: str, eq: str) -> dict:
+def _case_eq(stem: str, layout: str, out: str, room: str, eq: str, cold: bool = False) -> dict:
     import dataclasses
 
     from .hrir import _load_cached
     from .render import render
 
-    _load_cached.cache_clear()  # the set is read, resampled (and equalised) in every run
+    if cold:  # the set is read, resampled (and equalised) again
+        _load_cached.cache_clear()
     report = render([stem], out, dataclasses.replace(_settings(layout, room), eq=eq))
     t = report["timings_s"]
     return {"seconds": t["render"], "plan_seconds": t["plan"]}
@@ -209,11 +213,71 @@ def _summary(runs: list[dict], reference: list[dict] | None = None) -> dict:
 
 
 def _case_eq_pair(stem: str, layout: str, out: str, room: str) -> dict:
+    # The one-off preparation: planning from a cold cache, once each, with the render.
+    cold = {eq: _case_eq(stem, layout, out, room, eq, cold=True)
+            for eq in ("none", "diffuse-field")}
+    # Then the render passes with both sets prepared, as a process holds them (cached per
+    # set and rate): the equalisation is precomputed, and what is left to compare is its
+    # effect on the render itself.
     runs = interleaved({
         "off": lambda: _case_eq(stem, layout, out, room, "none"),
         "on": lambda: _case_eq(stem, layout, out, room, "diffuse-field"),
     }, EQ_ROUNDS)
-    return {**_summary(runs["on"], runs["off"]), "off": _summary(runs["off"])}
+    on = {**_summary(runs["on"], runs["off"]),
+          "plan_seconds": cold["diffuse-field"]["plan_seconds"]}
+    off = {**_summary(runs["off"]), "plan_seconds": cold["none"]["plan_seconds"]}
+    return {**on, "off": off, "engine": _eq_engine_work(stem, layout, room)}
+
+
+#: Rounds and length of the EQ's engine-alone comparison.
+EQ_ENGINE_ROUNDS = 10
+EQ_ENGINE_SECONDS = 20.0
+
+
+def _eq_engine_work(stem: str, layout: str, room: str) -> dict:
+    """The engine alone, EQ off and on: the same blocks, each timed on its own.
+
+    Every block is processed once per round by each engine, rounds interleaved; the
+    figure is the sum over blocks of each block's fastest time. The machine's other work
+    only ever adds to a block's time, so the fastest of several tries is the block's own
+    cost, and the sum compares the engines' work without the minute-scale drift that
+    whole renders see. (What the EQ could change is only here: it changes the filters,
+    nothing else in the render.)
+    """
+    import dataclasses
+
+    from .audio_io import StemReader
+    from .render import _Engine, plan_render
+
+    settings = _settings(layout, room)
+    plans = {eq: plan_render([stem], dataclasses.replace(settings, eq=eq))
+             for eq in ("none", "diffuse-field")}
+    limit = int(EQ_ENGINE_SECONDS * BENCH_SAMPLERATE)
+    blocks = []
+    with StemReader(plans["none"].stem) as reader:
+        for block in reader.blocks(settings.block_size):
+            blocks.append(block)
+            if len(blocks) * settings.block_size >= limit:
+                break
+
+    def run(eq: str) -> dict:
+        engine = _Engine(plans[eq], settings.block_size)
+        times = []
+        try:
+            for block in blocks:
+                t0 = time.perf_counter()
+                engine.process(block)
+                times.append(time.perf_counter() - t0)
+        finally:
+            engine.close()
+        return {"seconds": sum(times), "blocks": times}
+
+    runs = interleaved({"off": lambda: run("none"), "on": lambda: run("diffuse-field")},
+                       EQ_ENGINE_ROUNDS)
+    best = {k: float(np.min([r["blocks"] for r in v], axis=0).sum()) for k, v in runs.items()}
+    return {"blocks": len(blocks), "rounds": EQ_ENGINE_ROUNDS,
+            "off_seconds": round(best["off"], 5), "on_seconds": round(best["on"], 5),
+            "ratio": best["on"] / best["off"]}
 
 
 def _case_delivery(stem: str, layout: str, out: str, room: str) -> dict:
@@ -335,6 +399,8 @@ def run_bench(
                     # What diffuse-field equalisation adds to a raw render's pass, and its
                     # one-off preparation (once per set and rate in a process).
                     row["eq_added"] = round(r["median_ratio"] - 1, 3)
+                    row["eq_engine"] = {k: v for k, v in r["engine"].items() if k != "ratio"}
+                    row["eq_engine_added"] = round(r["engine"]["ratio"] - 1, 4)
                     row["eq_prepare_s"] = round(r["plan_seconds"] - r["off"]["plan_seconds"], 3)
                 elif case == "delivery":
                     # What the delivery stage (measure, gain, limiter, final write) adds.
@@ -402,7 +468,8 @@ def format_bench(result: dict) -> str:
             + f"   delivery {row['delivery_added'] * 100:+.0f} % "
               f"(limiting, {row['ossicle_delivered_loud']['target_lufs']:g} LUFS: "
               f"{row['delivery_loud_added'] * 100:+.0f} %)"
-            + f"   EQ on {row['eq_added'] * 100:+.1f} % (preparation {row['eq_prepare_s']:+.2f} s once)"
+            + f"   EQ on {row['eq_added'] * 100:+.1f} %, engine per block "
+              f"{row['eq_engine_added'] * 100:+.1f} % (preparation {row['eq_prepare_s']:+.2f} s once)"
             + (f"   exact mode {row['ossicle_exact']['x_real_time']:.1f} xRT "
                f"({row['exact_vs_shared']:.2f}x the shared time)" if "ossicle_exact" in row else "")
         )
@@ -425,7 +492,8 @@ def format_bench(result: dict) -> str:
               "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
               "delivery = loudness + limiter + final write, as a share of the raw render "
               "(default -23 LUFS, and a loud target at which the limiter works); "
-              "EQ on = a raw render pass with diffuse-field equalisation against one without; "
+              "EQ on = a raw render pass with diffuse-field equalisation against one without, "
+              "and the engine alone, each block's fastest of several interleaved tries; "
               "preparation = its one-off cost per HRTF set and rate. Delivery and EQ are "
               "medians of per-round ratios of renders interleaved in one process."]
     return "\n".join(lines)

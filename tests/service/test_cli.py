@@ -176,6 +176,7 @@ def test_bench_smoke(capsys, tmp_path):
     assert len(row["ossicle_delivered"]["round_ratios"]) == DELIVERY_ROUNDS
     assert len(row["ossicle_delivered_loud"]["round_ratios"]) == DELIVERY_ROUNDS
     assert len(row["eq_on"]["round_ratios"]) == EQ_ROUNDS
+    assert row["eq_engine"]["blocks"] >= 1 and row["eq_engine"]["on_seconds"] > 0
     assert "2.0" in format_bench(result)
 
 
