@@ -202,6 +202,11 @@ class TruePeakLimiter:
         self._u_hist = np.zeros(lookahead - 1, dtype=np.int64)
         self._z_hist = np.zeros((e, c), dtype=np.float32)
         self._flushed = False
+        # Frames whose point is above the target, in order (only those not yet emitted),
+        # and the end of the frames whose extra limits (_f) a correction may have lowered:
+        # the idle test of a step needs only these, not a scan of its arrays.
+        self._overs = np.zeros(0, dtype=np.int64)
+        self._f_lowered_until = 0
         self.max_gain_reduction_db = 0.0
         self.samples_limited = 0
         self.corrections = 0
@@ -252,6 +257,7 @@ class TruePeakLimiter:
             threshold = min(self._target, self._in_peak)
             peaks = self._interp.point_peaks(tail, threshold=threshold, context=self._x[-e:])
             self._in_peak = max(self._in_peak, float(peaks.max()))
+            self._note_overs(peaks, end)
             self._p = np.concatenate([self._p, peaks])
             self._t = np.concatenate([self._t, np.full(e, threshold)])
             self._x = np.concatenate([self._x, tail])
@@ -288,11 +294,18 @@ class TruePeakLimiter:
                                          threshold=threshold,
                                          context=self._x[-e:] if e else None)
         self._in_peak = max(self._in_peak, float(peaks.max()))
+        self._note_overs(peaks, self._received)
         self._x = np.concatenate([self._x, x])
         self._p = np.concatenate([self._p, peaks])
         self._t = np.concatenate([self._t, np.full(x.shape[0], threshold)])
         self._f = np.concatenate([self._f, np.ones(x.shape[0])])
         self._received += x.shape[0]
+
+    def _note_overs(self, peaks: np.ndarray, first: int) -> None:
+        """Record the frames (``first`` + index) of points above the target."""
+        over = np.flatnonzero(peaks > self._target)
+        if over.size:
+            self._overs = np.concatenate([self._overs, over + first])
 
     def _step(self, checked: int, final: bool, end: int | None = None) -> np.ndarray:
         """Settle the gain of frames [emitted, checked) and emit what can no longer change."""
@@ -301,45 +314,48 @@ class TruePeakLimiter:
         e, lookahead = self._E, self._L
         x = self._x[e:e + m]  # input frames [start, checked)
         p = self._p[:m + self._reach]
-        f = self._f[:m + lookahead - 1 + e].copy()
-
-        # Points at or under the target need no gain (they may read lower, or 0).
-        idle = (not np.any(p > self._target) and self._r_prev == 0.0 and not np.any(self._u_hist)
-                and bool(np.all(f == 1.0)) and np.array_equal(self._z_hist, self._x[:e]))
-        if idle:
-            g = np.ones(m)
-            z = x.astype(np.float32)
-            r = np.zeros(m)
-            u = np.zeros(m, dtype=np.int64)
-            held0 = np.zeros(1)
-        else:
-            for passes in range(_MAX_PASSES):
-                g, r, u, held0 = self._gain(p, f, m)
-                # Checked as it will be written: in float32.
-                z = (x * g[:, None]).astype(np.float32)
-                # Exact above the output's running peak too, for output_true_peak.
-                peaks = self._interp.point_peaks(z, threshold=min(self._check, self._out_peak),
-                                                 context=self._z_hist if e else None)
-                over = np.flatnonzero(peaks > self._check)
-                if over.size == 0:
-                    break
-                self.corrections += 1
-                # Lower the limit of every sample in the window of each point still
-                # over, in proportion to its excess (last resort: mute the windows).
-                aim = min(self._target, self._check * _CORRECTION_AIM)
-                scale = aim / peaks[over] if passes < _NORMAL_PASSES else np.zeros(over.size)
-                for d in range(e + 1):
-                    j = over - d
-                    ok = j >= 0
-                    np.minimum.at(f, j[ok], g[j[ok]] * scale[ok])
-            self._f[:f.size] = f
-
         stop = end if final and end is not None else max(start, checked - self._lag)
+
+        # Points at or under the target need no gain (they may read lower, or 0). A step
+        # is idle when none of its points is over, no release or ramp is running and no
+        # correction lowered a limit in its window: then its gain is exactly 1, which the
+        # general path below would compute too, only slower.
+        first_over = int(np.searchsorted(self._overs, start))
+        idle = ((first_over == self._overs.size
+                 or self._overs[first_over] >= start + p.size)
+                and start >= self._f_lowered_until and self._r_prev == 0.0
+                and not np.any(self._u_hist) and np.array_equal(self._z_hist, self._x[:e]))
+        if idle:
+            return self._pass_idle(x, p, start, stop, final)
+
+        f = self._f[:m + lookahead - 1 + e].copy()
+        for passes in range(_MAX_PASSES):
+            g, r, u, held0 = self._gain(p, f, m)
+            # Checked as it will be written: in float32.
+            z = (x * g[:, None]).astype(np.float32)
+            # Exact above the output's running peak too, for output_true_peak.
+            peaks = self._interp.point_peaks(z, threshold=min(self._check, self._out_peak),
+                                             context=self._z_hist if e else None)
+            over = np.flatnonzero(peaks > self._check)
+            if over.size == 0:
+                break
+            self.corrections += 1
+            # Lower the limit of every sample in the window of each point still
+            # over, in proportion to its excess (last resort: mute the windows).
+            aim = min(self._target, self._check * _CORRECTION_AIM)
+            scale = aim / peaks[over] if passes < _NORMAL_PASSES else np.zeros(over.size)
+            for d in range(e + 1):
+                j = over - d
+                ok = j >= 0
+                np.minimum.at(f, j[ok], g[j[ok]] * scale[ok])
+            self._f_lowered_until = max(self._f_lowered_until, start + f.size)
+        self._f[:f.size] = f
+
         count = stop - start
         # Points of the frames emitted now are final (and at the end, those past it).
         k = m if final else max(count, 0)
         if k:
-            self._track_output(z[:k], None if idle else peaks[:k], p[:k], self._t[:k])
+            self._track_output(z[:k], peaks[:k], p[:k], self._t[:k])
         if count <= 0:
             return np.zeros((0, self.channels), dtype=np.float32)
         out = z[:count]
@@ -353,17 +369,40 @@ class TruePeakLimiter:
         # Carry the state of the frames emitted into the next step.
         self._r_prev = float(r[count - 1])
         if lookahead > 1:
-            if start == 0 and not idle:
+            if start == 0:
                 self._u_hist = np.full(lookahead - 1, _quantise(held0)[0])
             self._u_hist = np.concatenate([self._u_hist, u])[count:count + lookahead - 1]
+        self._advance(z, count, stop)
+        return out
+
+    def _pass_idle(self, x: np.ndarray, p: np.ndarray, start: int, stop: int,
+                   final: bool) -> np.ndarray:
+        """Emit an idle step's frames as they are (gain 1; the state stays at rest)."""
+        count = stop - start
+        k = x.shape[0] if final else max(count, 0)
+        z = x[:k].astype(np.float32)
+        if k:
+            self._track_output(z, None, p[:k], self._t[:k])
+        if count <= 0:
+            return np.zeros((0, self.channels), dtype=np.float32)
+        # The release, the ramp history (all 0) and the counters do not change.
+        self._advance(z, count, stop)
+        return z[:count]
+
+    def _advance(self, z: np.ndarray, count: int, stop: int) -> None:
+        """Drop the ``count`` frames emitted (output ``z`` starts with them)."""
+        e = self._E
         if e:
-            self._z_hist = np.concatenate([self._z_hist, z])[count:count + e]
+            if count >= e:
+                self._z_hist = z[count - e:count].copy()
+            else:
+                self._z_hist = np.concatenate([self._z_hist, z[:count]])[count:count + e]
         self._x = self._x[count:]
         self._p = self._p[count:]
         self._f = self._f[count:]
         self._t = self._t[count:]
+        self._overs = self._overs[np.searchsorted(self._overs, stop):]
         self._emitted = stop
-        return out
 
     def _track_output(self, z: np.ndarray, checked: np.ndarray | None, p: np.ndarray,
                       t: np.ndarray) -> None:
