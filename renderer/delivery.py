@@ -9,8 +9,10 @@ was measured while it was written, and then pass 1 is skipped. The gain is then
 :class:`renderer.audio_io.OutputWriter` (TPDF dither at 16 bits, atomic rename). The
 render's true peak plus the gain tells the limiter beforehand whether anything can reach
 the ceiling; if not, it passes the render through without interpolating it (the same
-samples it would emit otherwise). The report section it returns says what was done and
-what came out.
+samples it would emit otherwise), and the output, the render times the gain, is not
+metered again: its figures are the render's meter read with the gain
+(:meth:`renderer.loudness.LoudnessMeter.result`). The report section it returns says what
+was done and what came out.
 """
 
 from __future__ import annotations
