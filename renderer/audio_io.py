@@ -548,7 +548,6 @@ class OutputWriter:
         self.samplerate = int(samplerate)
         self.channels = int(channels)
         self.frames_written = 0
-        self._frames_encoded = 0
         self.clipped_samples = 0
         self.peak = 0.0
         self.durable = bool(durable)
@@ -601,50 +600,33 @@ class OutputWriter:
             If the block has the wrong shape, holds NaN or infinity, the writer is
             closed, or a WAV without ``frames_hint`` would grow past the RIFF limit.
         """
-        self.write_encoded(self.encode(block))
-
-    def encode(self, block: np.ndarray) -> np.ndarray:
-        """Check a block and convert it to the file's samples, without writing it.
-
-        :meth:`write` is :meth:`write_encoded` of :meth:`encode`; called apart, the
-        conversion (quantisation, dither) and the writing can run on two threads. Blocks
-        must be encoded in order, and written in the same order. Raises as :meth:`write`;
-        :attr:`peak` and :attr:`clipped_samples` count the blocks encoded.
-        """
         if self._sf is None:
             raise AudioError(f"the writer of {self.path!r} is closed")
         x = check_block(block, self.channels)
         n = x.shape[0]
         if n == 0:
-            return np.zeros((0, self.channels), dtype=np.float32)
+            return
         # Two reductions stand for the finiteness check, the peak and the clip test: min
         # and max propagate NaN and show infinities, and most blocks need nothing more.
         lo, hi = float(np.min(x)), float(np.max(x))
         if not (np.isfinite(lo) and np.isfinite(hi)):
             bad = int(np.argmax(~np.all(np.isfinite(x), axis=1)))
             raise AudioError(f"block holds NaN or infinity at frame "
-                             f"{self._frames_encoded + bad} of {self.path!r}")
-        if self.format == "WAV" and _exceeds_riff(self._frames_encoded + n, self.channels,
+                             f"{self.frames_written + bad} of {self.path!r}")
+        if self.format == "WAV" and _exceeds_riff(self.frames_written + n, self.channels,
                                                   self.subtype):
             raise AudioError(
                 f"{self.path!r} would exceed the 4 GiB WAV limit; pass frames_hint so it is "
                 "written as RF64, or write .rf64 or .w64"
             )
         self.peak = max(self.peak, -lo, hi)
-        self._frames_encoded += n
         if self.subtype == "FLOAT":
-            return x.astype(np.float32, copy=False)
-        if hi >= 1.0 or lo < -1.0:
-            self.clipped_samples += int(np.count_nonzero((x >= 1.0) | (x < -1.0)))
-        return self._quantise(x)
-
-    def write_encoded(self, data: np.ndarray) -> None:
-        """Append samples returned by :meth:`encode`."""
-        if self._sf is None:
-            raise AudioError(f"the writer of {self.path!r} is closed")
-        if data.shape[0]:
-            self._sf.write(data)
-            self.frames_written += data.shape[0]
+            self._sf.write(x.astype(np.float32, copy=False))
+        else:
+            if hi >= 1.0 or lo < -1.0:
+                self.clipped_samples += int(np.count_nonzero((x >= 1.0) | (x < -1.0)))
+            self._sf.write(self._quantise(x))
+        self.frames_written += n
 
     def _quantise(self, x: np.ndarray) -> np.ndarray:
         bits = _PCM_BITS[self.subtype]

@@ -290,26 +290,21 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         output_path, rate, channels, format=format, subtype=subtype, frames_hint=total,
         seed=seed,
     ) as writer:
-        # Metering and writing the output each run in a thread of their own beside the
-        # reading and the limiter (renderer.pipeline), in order; both are drained before
-        # the output file is closed and before the meter is read. The blocks are new
-        # arrays that nobody changes, so the two threads may share them. When the output
-        # is not metered, this thread converts the blocks to the output's samples
-        # (quantisation, dither) and the other only writes them.
+        # Writing (and, unless its figures come from the render's meter, metering) the
+        # output run in threads of their own beside the reading and the limiter
+        # (renderer.pipeline), in order; both are drained before the output file is
+        # closed and before the meter is read. The blocks are new arrays that nobody
+        # changes, so the two threads may share them.
         with contextlib.ExitStack() as threads:
-            if after is None:
-                writing = threads.enter_context(BackgroundWriter(writer.write_encoded))
-            else:
-                writing = threads.enter_context(BackgroundWriter(writer.write))
-                metering = threads.enter_context(BackgroundWriter(after.process))
+            writing = threads.enter_context(BackgroundWriter(writer.write))
+            metering = None if after is None else threads.enter_context(
+                BackgroundWriter(after.process))
 
             def emit(block: np.ndarray) -> None:
                 if block.shape[0]:
-                    if after is None:
-                        writing.submit(writer.encode(block))
-                    else:
+                    if metering is not None:
                         metering.submit(block)
-                        writing.submit(block)
+                    writing.submit(block)
 
             # Reading runs a block ahead on its own thread (new arrays each time, so the
             # writer thread may hold them): this thread only scales and limits.
