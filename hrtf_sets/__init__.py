@@ -1,4 +1,4 @@
-"""HRTF sets shipped with ossicle, each with its citation.
+"""HRTF sets shipped with earfold, each with its citation.
 
 The catalogue is plain data: importing it needs neither netCDF4 nor any audio library.
 Each set is a SOFA (AES69) file next to this module, with a Markdown note of the same
@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-from renderer.errors import HrirError
+from earfold.renderer.errors import HrirError
 
 __all__ = ["DEFAULT_SET", "SHIPPED", "ShippedSet", "get_shipped", "list_shipped"]
 
@@ -20,7 +20,7 @@ _HERE = Path(__file__).resolve().parent
 
 @dataclass(frozen=True)
 class ShippedSet:
-    """One HRTF set shipped with ossicle.
+    """One HRTF set shipped with earfold.
 
     Attributes
     ----------
@@ -80,11 +80,11 @@ SHIPPED: tuple[ShippedSet, ...] = (
             "Duda, R. O. and Martens, W. L. (1998), Range dependence of the response of a "
             "spherical head model, J. Acoust. Soc. Am. 104(5), 3048-3058"
         ),
-        licence="CC0-1.0 (computed by ossicle; no rights reserved)",
+        licence="CC0-1.0 (computed by earfold; no rights reserved)",
         description=(
             "plane-wave response of a rigid sphere with point ears at +/-90 degrees "
             "azimuth: full-sphere grid at about 10 degrees spacing, 256 taps at 48 kHz; "
-            "no pinna, so no elevation cues; regenerate with 'python -m renderer.sphere'"
+            "no pinna, so no elevation cues; regenerate with 'python -m earfold.renderer.sphere'"
         ),
     ),
 )

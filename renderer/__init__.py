@@ -1,8 +1,8 @@
-"""ossicle's DSP library: SOFA HRIR sets, layouts, streaming binaural convolution.
+"""earfold's DSP library: SOFA HRIR sets, layouts, streaming binaural convolution.
 
-The public surface is what this module exports (plus ``renderer.render.render``, the
+The public surface is what this module exports (plus ``earfold.renderer.render.render``, the
 whole render, which keeps its module's name); other submodule names are implementation.
-Directions follow :mod:`renderer.geometry` (azimuth positive to the left, elevation up).
+Directions follow :mod:`earfold.renderer.geometry` (azimuth positive to the left, elevation up).
 """
 
 from __future__ import annotations
@@ -11,7 +11,7 @@ __version__ = "0.1.0"
 
 from .errors import AudioError, HrirError, LayoutError, RendererError, SofaError
 
-# Everything else is imported on first use (PEP 562), so that ``import renderer`` (and the
+# Everything else is imported on first use (PEP 562), so that ``import earfold.renderer`` (and the
 # error types) stays cheap and does not load netCDF4, soundfile or scipy until needed.
 _LAZY = {
     "OutputWriter": "audio_io",
@@ -54,7 +54,7 @@ _LAZY = {
 def __getattr__(name: str) -> object:
     module = _LAZY.get(name)
     if module is None:
-        raise AttributeError(f"module 'renderer' has no attribute {name!r}")
+        raise AttributeError(f"module 'earfold.renderer' has no attribute {name!r}")
     import importlib
 
     value = getattr(importlib.import_module(f".{module}", __name__), name)

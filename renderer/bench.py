@@ -1,9 +1,9 @@
-"""``ossicle bench``: speed and memory of the render, as ratios measured in one run.
+"""``earfold bench``: speed and memory of the render, as ratios measured in one run.
 
 For each layout a noise stem (48 kHz, PCM_24 WAV) is generated, then three cases run,
 each in a fresh process so that its peak memory is its own:
 
-* **ossicle** — the streaming engine, end to end (read, convolve, write), raw: no
+* **earfold** — the streaming engine, end to end (read, convolve, write), raw: no
   loudness gain, no limiter;
 * **delivery** — the raw render against the same with the default delivery stage
   (-23 LUFS, true-peak limiter at -1 dBTP), and with a loud one (:data:`LOUD_TARGET_LUFS`,
@@ -293,19 +293,19 @@ def _case_delivery(stem: str, layout: str, out: str, room: str) -> dict:
                      "samples_limited": runs["loud"][0]["samples_limited"]}}
 
 
-_CASES = {"ossicle": _case_ours, "delivery": _case_delivery,
-          "ossicle_exact": _case_ours_exact, "baseline": _case_baseline, "io_floor": _case_io_floor,
+_CASES = {"earfold": _case_ours, "delivery": _case_delivery,
+          "earfold_exact": _case_ours_exact, "baseline": _case_baseline, "io_floor": _case_io_floor,
           "eq_pair": _case_eq_pair}
 #: Cases that repeat themselves (their own interleaved rounds) instead of REPEATS times.
 _SELF_REPEATING = {"eq_pair", "delivery"}
 #: Cases run only by the memory check.
-_MEMORY_CASES = {"ossicle_delivered": _case_delivered}
+_MEMORY_CASES = {"earfold_delivered": _case_delivered}
 
 
 def _child(conn, case: str, stem: str, layout: str, out: str, room: str,
            repeats: int = REPEATS) -> None:
     try:
-        import renderer.render  # noqa: F401  (imports outside the measured memory)
+        import earfold.renderer.render  # noqa: F401  (imports outside the measured memory)
 
         before = _rss_bytes()
         # Best of REPEATS: the machine's other work only ever adds time, so the minimum is
@@ -353,7 +353,7 @@ def run_bench(
 ) -> dict:
     """Run the benchmark and return its figures (JSON-ready).
 
-    With a ``room``, ossicle renders with the shared tail, an extra case renders the exact
+    With a ``room``, earfold renders with the shared tail, an extra case renders the exact
     mode (a full room response per loudspeaker), and the baseline convolves those full
     responses.
     """
@@ -372,14 +372,14 @@ def run_bench(
         "numpy": np.__version__,
         "layouts": {},
     }
-    with tempfile.TemporaryDirectory(prefix="ossicle-bench-", dir=workdir) as tmp:
+    with tempfile.TemporaryDirectory(prefix="earfold-bench-", dir=workdir) as tmp:
         for name in layouts:
             layout = get_layout(name)
             stem = str(Path(tmp) / f"noise-{layout.name}.wav")
             say(f"bench: generating {seconds:g} s {layout.name} noise stem")
             make_noise_stem(stem, layout.channels, seconds)
             row: dict = {"channels": layout.channels}
-            cases = [c for c in _CASES if room != "none" or c != "ossicle_exact"]
+            cases = [c for c in _CASES if room != "none" or c != "earfold_exact"]
             for case in cases:
                 say(f"bench: {layout.name} {case}")
                 r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"), room)
@@ -404,9 +404,9 @@ def run_bench(
                     row["eq_prepare_s"] = round(r["plan_seconds"] - r["off"]["plan_seconds"], 3)
                 elif case == "delivery":
                     # What the delivery stage (measure, gain, limiter, final write) adds.
-                    row["ossicle_delivered"] = {**figures(r), "peak_memory_mb": peak,
+                    row["earfold_delivered"] = {**figures(r), "peak_memory_mb": peak,
                                                 "round_ratios": r["round_ratios"]}
-                    row["ossicle_delivered_loud"] = {
+                    row["earfold_delivered_loud"] = {
                         **figures(r["loud"]), "round_ratios": r["loud"]["round_ratios"],
                         "target_lufs": r["loud"]["target_lufs"],
                         "samples_limited": r["loud"]["samples_limited"]}
@@ -418,11 +418,11 @@ def run_bench(
                 if "block_size" in r:
                     row["block_size"] = r["block_size"]
 
-            row["speedup_vs_baseline"] = round(row["baseline"]["seconds"] / row["ossicle"]["seconds"], 2)
-            row["ratio_to_io_floor"] = round(row["ossicle"]["seconds"] / row["io_floor"]["seconds"], 2)
-            if "ossicle_exact" in row:
+            row["speedup_vs_baseline"] = round(row["baseline"]["seconds"] / row["earfold"]["seconds"], 2)
+            row["ratio_to_io_floor"] = round(row["earfold"]["seconds"] / row["io_floor"]["seconds"], 2)
+            if "earfold_exact" in row:
                 row["exact_vs_shared"] = round(
-                    row["ossicle_exact"]["seconds"] / row["ossicle"]["seconds"], 2)
+                    row["earfold_exact"]["seconds"] / row["earfold"]["seconds"], 2)
             results["layouts"][layout.name] = row
             os.remove(stem)
         if memory_check:
@@ -433,10 +433,10 @@ def run_bench(
                 stem = str(Path(tmp) / f"mem-{label}.wav")
                 say(f"bench: memory check, {length:g} s {layout.name} stem")
                 make_noise_stem(stem, layout.channels, length)
-                r = _run_case("ossicle", stem, layout.name, str(Path(tmp) / "mem-out.wav"), room)
+                r = _run_case("earfold", stem, layout.name, str(Path(tmp) / "mem-out.wav"), room)
                 # The delivered render too: its two passes stream, so it must stay flat.
                 say(f"bench: memory check, {length:g} s {layout.name} stem, delivered")
-                d = _run_case("ossicle_delivered", stem, layout.name,
+                d = _run_case("earfold_delivered", stem, layout.name,
                               str(Path(tmp) / "mem-out.wav"), room, repeats=1)
                 mem[label] = {"seconds_of_audio": length,
                               "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
@@ -452,26 +452,26 @@ def run_bench(
 def format_bench(result: dict) -> str:
     """The benchmark figures as a plain-text table."""
     lines = [
-        f"ossicle bench: {result['seconds']:g} s noise stems at {result['samplerate']} Hz, "
+        f"earfold bench: {result['seconds']:g} s noise stems at {result['samplerate']} Hz, "
         f"HRTF {result['hrtf']}, room {result.get('room', 'none')}, {result['cpu_count']} CPU(s), "
         f"numpy {result['numpy']}",
         "",
-        f"{'layout':<7} {'ch':>3} {'ossicle xRT':>12} {'baseline xRT':>13} {'I/O floor xRT':>14}"
+        f"{'layout':<7} {'ch':>3} {'earfold xRT':>12} {'baseline xRT':>13} {'I/O floor xRT':>14}"
         f" {'speed-up':>9} {'ours/floor':>11} {'peak MB':>8}",
     ]
     for name, row in result["layouts"].items():
         lines.append(
-            f"{name:<7} {row['channels']:>3} {row['ossicle']['x_real_time']:>12.1f} "
+            f"{name:<7} {row['channels']:>3} {row['earfold']['x_real_time']:>12.1f} "
             f"{row['baseline']['x_real_time']:>13.1f} {row['io_floor']['x_real_time']:>14.1f} "
             f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
-            f"{row['ossicle']['peak_memory_mb']:>8.1f}"
+            f"{row['earfold']['peak_memory_mb']:>8.1f}"
             + f"   delivery {row['delivery_added'] * 100:+.0f} % "
-              f"(limiting, {row['ossicle_delivered_loud']['target_lufs']:g} LUFS: "
+              f"(limiting, {row['earfold_delivered_loud']['target_lufs']:g} LUFS: "
               f"{row['delivery_loud_added'] * 100:+.0f} %)"
             + f"   EQ on {row['eq_added'] * 100:+.1f} %, engine per block "
               f"{row['eq_engine_added'] * 100:+.1f} % (preparation {row['eq_prepare_s']:+.2f} s once)"
-            + (f"   exact mode {row['ossicle_exact']['x_real_time']:.1f} xRT "
-               f"({row['exact_vs_shared']:.2f}x the shared time)" if "ossicle_exact" in row else "")
+            + (f"   exact mode {row['earfold_exact']['x_real_time']:.1f} xRT "
+               f"({row['exact_vs_shared']:.2f}x the shared time)" if "earfold_exact" in row else "")
         )
     mem = result.get("memory")
     if mem:

@@ -10,7 +10,7 @@ from .errors import AudioError
 def check_block(block: np.ndarray, channels: int) -> np.ndarray:
     """``block`` as an array of shape ``(frames, channels)`` with float samples.
 
-    Raises :class:`~renderer.errors.AudioError` naming the expected and actual shape or
+    Raises :class:`~earfold.renderer.errors.AudioError` naming the expected and actual shape or
     dtype. No copy is made.
     """
     x = np.asarray(block)

@@ -11,7 +11,7 @@ header alone, with plain file reads (no audio library), from:
 
 What it returns, by design: None for a file that is no WAV at all (FLAC, AIFF, ...),
 for a WAV whose format is not ``WAVE_FORMAT_EXTENSIBLE`` (plain PCM or float), and for
-a mask of 0 (no positions assigned). :class:`~renderer.errors.AudioError` for a file
+a mask of 0 (no positions assigned). :class:`~earfold.renderer.errors.AudioError` for a file
 that claims to be a WAV but whose header is broken (cut short, format chunk too small,
 no format chunk), since such a file cannot be trusted for anything else either.
 

@@ -1,17 +1,17 @@
 """The delivery stage: loudness-normalise a finished render, limit its true peak, write it.
 
 :func:`deliver` reads the float32 render twice. Pass 1 measures it (BS.1770-4 /
-EBU R 128, :mod:`renderer.loudness`); a render made by :func:`renderer.render.render`
+EBU R 128, :mod:`earfold.renderer.loudness`); a render made by :func:`earfold.renderer.render.render`
 was measured while it was written, and then pass 1 is skipped. The gain is then
 ``target - measured`` (or the input stem's loudness minus the measured one for
 ``"match"``, or 0 for ``None``). Pass 2 applies the gain, the true-peak limiter
-(:mod:`renderer.limiter`) unless it is off, meters the result and writes it with
-:class:`renderer.audio_io.OutputWriter` (TPDF dither at 16 bits, atomic rename). The
+(:mod:`earfold.renderer.limiter`) unless it is off, meters the result and writes it with
+:class:`earfold.renderer.audio_io.OutputWriter` (TPDF dither at 16 bits, atomic rename). The
 render's true peak plus the gain tells the limiter beforehand whether anything can reach
 the ceiling; if not, it passes the render through without interpolating it (the same
 samples it would emit otherwise), and the output, the render times the gain, is not
 metered again: its figures are the render's meter read with the gain
-(:meth:`renderer.loudness.LoudnessMeter.result`). The report section it returns says what
+(:meth:`earfold.renderer.loudness.LoudnessMeter.result`). The report section it returns says what
 was done and what came out.
 """
 
@@ -182,23 +182,23 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         included); then the measuring pass is skipped and the file is read once. Its
         integrated loudness sets the gain; its true peak tells the limiter whether it
         has anything to do (``known_true_peak`` of
-        :class:`renderer.limiter.TruePeakLimiter`). It is not changed.
+        :class:`earfold.renderer.limiter.TruePeakLimiter`). It is not changed.
     output_path : path-like
         The delivered file, written under a temporary name and renamed when complete.
     options : DeliveryOptions
         Loudness target and true-peak ceiling.
     input_loudness : float or None
-        Integrated loudness of the input stem in LUFS (:func:`renderer.loudness.
-        measure_file` with :func:`renderer.loudness.channel_weights`); used by
+        Integrated loudness of the input stem in LUFS (:func:`earfold.renderer.loudness.
+        measure_file` with :func:`earfold.renderer.loudness.channel_weights`); used by
         ``"match"``. None when it could not be measured (silent stem).
     subtype, format, seed
-        Passed to :class:`renderer.audio_io.OutputWriter` (``seed`` seeds the PCM_16
+        Passed to :class:`earfold.renderer.audio_io.OutputWriter` (``seed`` seeds the PCM_16
         dither).
     progress : callable, optional
         Called with the fraction done, 0 to 1 over both passes.
     cancelled : callable, optional
         Polled once per block; when it returns True, raises
-        :class:`renderer.render.RenderCancelled` and leaves no output.
+        :class:`earfold.renderer.render.RenderCancelled` and leaves no output.
 
     Returns
     -------
@@ -292,7 +292,7 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
     ) as writer:
         # Writing (and, unless its figures come from the render's meter, metering) the
         # output run in threads of their own beside the reading and the limiter
-        # (renderer.pipeline), in order; both are drained before the output file is
+        # (earfold.renderer.pipeline), in order; both are drained before the output file is
         # closed and before the meter is read. The blocks are new arrays that nobody
         # changes, so the two threads may share them.
         with contextlib.ExitStack() as threads:

@@ -88,7 +88,7 @@ def make_demo_stem(rate: int = DEMO_SAMPLERATE, seed: int = DEMO_SEED) -> tuple[
     return stem.astype(np.float32), labels
 
 
-def run_demo(directory: str | os.PathLike = "ossicle-demo", *,
+def run_demo(directory: str | os.PathLike = "earfold-demo", *,
              progress: Callable[[float], None] | None = None) -> dict:
     """Write the demo stem into ``directory``, render it with the defaults, return the paths."""
     from .render import RenderSettings, render

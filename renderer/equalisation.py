@@ -180,7 +180,7 @@ def inverse_taps(samplerate: float, set_taps: int | None = None) -> int:
     """Taps of the inverse filter at a rate (:data:`INVERSE_SECONDS`, even).
 
     With ``set_taps``, shortened so that the equalised responses, ``set_taps + taps - 1``
-    long, need no more engine partitions (:data:`renderer.convolution.DEFAULT_BLOCK_SIZE`
+    long, need no more engine partitions (:data:`earfold.renderer.convolution.DEFAULT_BLOCK_SIZE`
     frames) than the set's own, where :data:`MIN_INVERSE_SECONDS` is enough for that.
     """
     taps = 2 * int(round(INVERSE_SECONDS * samplerate / 2))
@@ -322,7 +322,7 @@ def octave_summary(df: DiffuseField) -> dict[str, float | None]:
 
 
 def describe(hset: HrirSet) -> dict:
-    """Diffuse-field figures of a set (for ``ossicle hrtf inspect`` and reports)."""
+    """Diffuse-field figures of a set (for ``earfold hrtf inspect`` and reports)."""
     return equalised(hset)[1]
 
 

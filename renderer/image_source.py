@@ -15,7 +15,7 @@ pressure reflection gain per band, the product over the walls hit of
 ``beta = sqrt(1 - alpha)`` (recalled; the energy absorbed at each hit is ``alpha``), the
 air attenuation per band when the room has it, and the arrival direction at the listener.
 
-Axes (see :mod:`renderer.room`): room ``x`` runs from the back wall to the front wall,
+Axes (see :mod:`earfold.renderer.room`): room ``x`` runs from the back wall to the front wall,
 ``y`` from the right wall to the left wall, ``z`` up; the listener faces the front wall,
 so the listener frame (x front, y left, z up) is the room frame moved to the listener, and
 an image at ``q`` arrives from the unit vector ``(q - listener) / |q - listener|``.
@@ -47,7 +47,7 @@ class ImageSources:
     orders : ndarray of int, shape (K,)
         Number of reflections.
     hits : ndarray of int, shape (K, 6)
-        Reflections off each surface, in :data:`renderer.room.SURFACES` order.
+        Reflections off each surface, in :data:`earfold.renderer.room.SURFACES` order.
     distances : ndarray, shape (K,)
         Path length to the listener (m).
     delays : ndarray, shape (K,)

@@ -14,7 +14,7 @@ from .sofa import read_sofa
 
 
 def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict:
-    """Summarise a SOFA file; raises :class:`~renderer.errors.SofaError` if it is unusable.
+    """Summarise a SOFA file; raises :class:`~earfold.renderer.errors.SofaError` if it is unusable.
 
     Returns a JSON-ready dict with the figures and, under ``"text"``, the same figures
     as display strings in a fixed order.

@@ -12,7 +12,7 @@ level in each octave band decays exponentially, -60 dB in that band's RT60:
    coloured by the set's diffuse-field power response, so that the tail sounds through the
    same ears as the early part. The mixing is done per bin rather than per octave band
    because a head's coherence falls from 1 to about 0 within the 250 Hz and 500 Hz bands.
-2. **Bands.** The noise is split into the octave bands of :data:`renderer.room.BANDS_HZ`
+2. **Bands.** The noise is split into the octave bands of :data:`earfold.renderer.room.BANDS_HZ`
    by zero-phase weights in the frequency domain (:func:`band_weights`): raised-cosine
    crossfades on a log-frequency axis, half an octave either side of each crossover (the
    geometric mean of two centres), so adjacent bands overlap and the weights **sum to

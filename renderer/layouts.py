@@ -3,7 +3,7 @@
 A :class:`Layout` is an ordered tuple of :class:`Speaker` s; its order is the layout's
 default channel order in a file (file channel *i* carries speaker *i* unless a channel
 order, a WAV channel mask or the stems' file names say otherwise). Directions follow
-:mod:`renderer.geometry`: degrees, azimuth positive to the LEFT, elevation up, as in
+:mod:`earfold.renderer.geometry`: degrees, azimuth positive to the LEFT, elevation up, as in
 ITU-R BS.2051.
 
 Built-in layouts (positions from ITU-R BS.2051, "Advanced sound system for programme
@@ -394,14 +394,14 @@ LAYOUTS: Mapping[str, Layout] = types.MappingProxyType({
         _layout("7.1", _BED_71, "7.1 surround (sides and backs)", f"{_BS2051} I (0+7+0)"),
         _layout("7.1.2", (*_BED_71, *_pair("Ltf", 45, 30)),
                 "7.1 with two front tops",
-                f"{_BS2051} I (0+7+0) plus the front tops of system J (ossicle's definition)"),
+                f"{_BS2051} I (0+7+0) plus the front tops of system J (earfold's definition)"),
         _layout("7.1.4", (*_BED_71, *_pair("Ltf", 45, 30), *_pair("Ltr", 135, 30)),
                 "7.1 with four tops", f"{_BS2051} J (4+7+0)"),
         _layout("9.1.6", (*_BED_71, *_pair("Lw", 60), *_pair("Ltf", 45, 30),
                           *_pair("Ltm", 90, 30), *_pair("Ltr", 135, 30)),
                 "7.1 with front wides and six tops",
                 f"{_BS2051} J (4+7+0) plus wides at +-60 and tops at +-90/+30 "
-                "(ossicle's definition; not a BS.2051 system)"),
+                "(earfold's definition; not a BS.2051 system)"),
         _layout("22.2", _bs2051_22_2(), "22.2 (three layers, two LFE)",
                 f"{_BS2051} H (9+10+3)"),
     )

@@ -1,7 +1,7 @@
 """A look-ahead true-peak limiter that keeps a render under its ceiling.
 
 The gain is computed from the same interpolated peaks the true-peak meter reads
-(:class:`renderer.loudness.PeakInterpolator`), applied identically to every channel (so
+(:class:`earfold.renderer.loudness.PeakInterpolator`), applied identically to every channel (so
 a binaural image does not move), and checked: the limited signal is interpolated again
 before it leaves, and wherever a point still reads above the ceiling the gain there is
 lowered and recomputed. The output is time-aligned with the input and exactly as long.
@@ -109,7 +109,7 @@ class TruePeakLimiter:
         Channels per frame; all share one gain.
     ceiling_dbtp : float
         Ceiling in dBTP, from -60 to 0. The output's true peak (4x oversampled,
-        :class:`renderer.loudness.TruePeakMeter`) does not exceed it; the gain aims
+        :class:`earfold.renderer.loudness.TruePeakMeter`) does not exceed it; the gain aims
         :data:`TARGET_MARGIN_DB` below.
     lookahead_ms : float
         Look-ahead and attack ramp, 0.5 to 50 ms (:data:`DEFAULT_LOOKAHEAD_MS`).
@@ -117,7 +117,7 @@ class TruePeakLimiter:
         Release time constant, 1 to 5000 ms (:data:`DEFAULT_RELEASE_MS`).
     known_true_peak : float, optional
         The input's true peak (linear), measured in advance with the same interpolation
-        (:class:`renderer.loudness.TruePeakMeter`), e.g. while the input was being made,
+        (:class:`earfold.renderer.loudness.TruePeakMeter`), e.g. while the input was being made,
         times any gain applied since. When it is clearly under the target (by
         :data:`_BYPASS_MARGIN`, far more than float32 rounding of the gain) no point can
         need a gain, so the limiter would pass every frame unchanged: it then does so at
@@ -137,7 +137,7 @@ class TruePeakLimiter:
         True when ``known_true_peak`` showed there is nothing to limit.
     input_true_peak, output_true_peak : float
         True peaks (linear) of the input received and of the output emitted so far, as
-        :class:`renderer.loudness.TruePeakMeter` reads them; after :meth:`flush` they
+        :class:`earfold.renderer.loudness.TruePeakMeter` reads them; after :meth:`flush` they
         include the interpolation past the end. Both come from the interpolation the
         limiter does anyway, so a caller need not meter either again.
     latency : int

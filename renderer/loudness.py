@@ -220,7 +220,7 @@ def channel_weights(layout: Layout | str) -> np.ndarray:
     Parameters
     ----------
     layout : Layout or str
-        A :class:`renderer.layouts.Layout` or a layout name.
+        A :class:`earfold.renderer.layouts.Layout` or a layout name.
 
     Returns
     -------
@@ -853,7 +853,7 @@ def measure_file(path: str | os.PathLike[str] | Sequence[str | os.PathLike[str]]
     ----------
     path : path-like or sequence of path-like
         One file, or several mono files read as the channels of one stem
-        (:func:`renderer.audio_io.probe_stem`).
+        (:func:`earfold.renderer.audio_io.probe_stem`).
     weights : sequence of float, optional
         Channel weights (:func:`channel_weights`); 1.0 per channel by default.
     blocksize : int

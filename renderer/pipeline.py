@@ -53,7 +53,7 @@ def prefetch(items: Iterable[Any], depth: int = QUEUE_DEPTH) -> Iterator[Any]:
         except BaseException as exc:  # handed to the consumer, raised there
             put(_Failure(exc))
 
-    thread = threading.Thread(target=run, name="ossicle-prefetch", daemon=True)
+    thread = threading.Thread(target=run, name="earfold-prefetch", daemon=True)
     thread.start()
     try:
         while True:
@@ -79,7 +79,7 @@ class BackgroundWriter:
         self._write = write
         self._queue: queue.Queue = queue.Queue(maxsize=depth)
         self._error: BaseException | None = None
-        self._thread = threading.Thread(target=self._run, name="ossicle-writer", daemon=True)
+        self._thread = threading.Thread(target=self._run, name="earfold-writer", daemon=True)
         self._thread.start()
 
     def _run(self) -> None:

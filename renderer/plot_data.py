@@ -18,7 +18,7 @@ Three kinds of curve, each bounded in size whatever the length of the render:
   one whose RT60 the room section reports). Only when a room was used.
 
 :func:`plot_section` builds the whole section with one extra read of the output file;
-:func:`renderer.render.render` calls it last.
+:func:`earfold.renderer.render.render` calls it last.
 """
 
 from __future__ import annotations
@@ -216,7 +216,7 @@ def energy_decay(ir: np.ndarray, samplerate: float, bands: tuple[float, ...] = B
 
     Each band is filtered as for ISO 3382-1 measurements (a 6th-order Butterworth
     band-pass from ``fc / sqrt(2)`` to ``fc sqrt(2)``, as
-    :func:`renderer.room_filters.measure_rt60` does), squared, summed over rows (ears) and
+    :func:`earfold.renderer.room_filters.measure_rt60` does), squared, summed over rows (ears) and
     integrated backwards (:func:`schroeder_db`).
 
     Parameters

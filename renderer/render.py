@@ -69,11 +69,11 @@ class RenderSettings:
     Attributes
     ----------
     layout : str or Layout
-        Layout name (``ossicle layouts``) or a JSON layout file.
+        Layout name (``earfold layouts``) or a JSON layout file.
     channel_order : sequence of str, optional
         Labels of the file channels in file order; overrides masks and file names.
     hrtf : str
-        A shipped set's name (``ossicle hrtf list``) or a SOFA file.
+        A shipped set's name (``earfold hrtf list``) or a SOFA file.
     lfe : LfeOptions
         How the LFE channel reaches the ears.
     subtype : str
@@ -107,7 +107,7 @@ class RenderSettings:
     headphone_eq : path, list or dict, optional
         Headphone compensation applied once to the two-channel output: a JSON band list
         file, an impulse response (WAV/FLAC), or the parsed band list itself
-        (:mod:`renderer.biquads`).
+        (:mod:`earfold.renderer.biquads`).
     """
 
     layout: str | Layout = "7.1.4"
@@ -160,7 +160,7 @@ class RenderPlan:
 
 def resolve_hrtf(name_or_path: str | os.PathLike | None) -> tuple[str, str]:
     """Path and display name of an HRTF set given by shipped name or file path."""
-    from hrtf_sets import DEFAULT_SET, get_shipped
+    from earfold.hrtf_sets import DEFAULT_SET, get_shipped
 
     value = os.fspath(name_or_path) if name_or_path else DEFAULT_SET
     if value.lower().endswith(".sofa") or os.sep in value or "/" in value:
@@ -382,7 +382,7 @@ def _equalise(hset: HrirSet, choice: str | None, warnings: list[str]) -> tuple[H
 
 def _calibrate(filters: np.ndarray, speakers: Sequence[dict], tail: np.ndarray | None,
                tail_weights: np.ndarray | None, tail_offset: int, samplerate: float) -> float:
-    """The calibration gain (:mod:`renderer.calibration`) of a filter bank."""
+    """The calibration gain (:mod:`earfold.renderer.calibration`) of a filter bank."""
     mains = [i for i, s in enumerate(speakers) if not s.get("lfe")]
 
     def responses():
@@ -447,7 +447,7 @@ class _Engine:
             self._direct_frames = 0
             self._tail_ready = np.zeros((0, 2), dtype=np.float32)
             self._pending = None  # the tail chunk being convolved
-            self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ossicle-tail")
+            self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="earfold-tail")
 
     def process(self, block: np.ndarray) -> np.ndarray:
         out = self._binaural(block)
@@ -564,7 +564,7 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
         input_meter = LoudnessMeter(stem.samplerate, stem.channels, weights)
     # The delivery stage takes the render's loudness and true peak from here: with the
     # true peak known, its limiter need not interpolate a render that cannot reach the
-    # ceiling (renderer.limiter, known_true_peak). The meter runs on the writer thread,
+    # ceiling (earfold.renderer.limiter, known_true_peak). The meter runs on the writer thread,
     # beside the engine.
     output_meter = LoudnessMeter(stem.samplerate, 2) if meter_output else None
     state = {"done": 0, "peak": 0.0}
@@ -604,7 +604,7 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
         path, stem.samplerate, 2, format=fmt, subtype=subtype, frames_hint=total,
         seed=settings.seed, durable=not scratch,
     ) as writer:
-        # Reading, convolving and writing overlap (renderer.pipeline); the writer thread
+        # Reading, convolving and writing overlap (earfold.renderer.pipeline); the writer thread
         # is drained before the output file is closed and renamed.
         with BackgroundWriter(write) as background:
             for block in prefetch(metered(reader.blocks(engine.block_size))):
@@ -717,7 +717,7 @@ def render(
     duration = stem.frames / stem.samplerate
     hset = plan.hrir_set
     return {
-        "ossicle_version": __version__,
+        "earfold_version": __version__,
         "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         "input": {
             "files": [Path(p).name for p in stem.paths],

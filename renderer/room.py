@@ -1,13 +1,13 @@
 """The synthetic room: a shoebox, where the listener sits, what its surfaces absorb.
 
 A :class:`Room` describes a rectangular room well enough for the image-source early part
-(:mod:`renderer.image_source`) and the statistical late tail (:mod:`renderer.late_tail`):
+(:mod:`earfold.renderer.image_source`) and the statistical late tail (:mod:`earfold.renderer.late_tail`):
 
 * **Frame.** Room coordinates are metres from one corner: ``x`` runs from the *back* wall
   (``x = 0``) to the *front* wall (``x = length``), ``y`` from the *right* wall (``y = 0``)
   to the *left* wall (``y = width``), ``z`` from the *floor* (``z = 0``) to the *ceiling*
   (``z = height``). The listener faces the front wall, so these axes are those of the
-  listener frame of :mod:`renderer.geometry` (x front, y left, z up) translated to the
+  listener frame of :mod:`earfold.renderer.geometry` (x front, y left, z up) translated to the
   listener's position: no rotation anywhere. A loudspeaker at direction ``v`` and distance
   ``d`` stands at ``listener + d * v``.
 * **Bands.** Absorption and reverberation time are given per octave band,

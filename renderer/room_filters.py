@@ -1,11 +1,11 @@
 """Turn a room, an HRIR set and a layout into the filters the convolution engine runs.
 
 The response of loudspeaker ``c`` at the ears is split in two (the hybrid of image
-sources and a statistical tail, :mod:`renderer.image_source`, :mod:`renderer.late_tail`):
+sources and a statistical tail, :mod:`earfold.renderer.image_source`, :mod:`earfold.renderer.late_tail`):
 
 * ``early[c]`` -- the direct sound and every image-source reflection that arrives before
   the tail has faded in, each through the HRIR pair of its own arrival direction
-  (:meth:`renderer.hrir.HrirSet.pair`), at its own fractional delay, scaled by ``1/r``
+  (:meth:`earfold.renderer.hrir.HrirSet.pair`), at its own fractional delay, scaled by ``1/r``
   and filtered by its walls (and the air). The reflections, not the direct sound, fade
   out with a cosine over the crossfade that starts at ``tail_offset``;
 * ``tail`` -- one diffuse tail shared by all loudspeakers, starting at ``tail_offset``
@@ -32,13 +32,13 @@ tail starts ``mixing_time`` after the direct sound of the farthest loudspeaker.
 Level. Paths are scaled ``r_ref / distance`` with ``r_ref`` the farthest loudspeaker's
 distance, so that loudspeaker's direct sound keeps the HRIR's own level, nearer ones are
 louder, and the tail, whose level is set for a direct sound of unit amplitude at
-``r_ref`` (:func:`renderer.late_tail.late_tail`), is the same for every loudspeaker:
+``r_ref`` (:func:`earfold.renderer.late_tail.late_tail`), is the same for every loudspeaker:
 ``tail_weights`` is 1, or 0 for an LFE channel, whose rows are left at zero for the render
 to fill.
 
 Wall filters. An image's seven band gains (the product of its walls' ``sqrt(1 - alpha)``
 and the air's attenuation) become a magnitude response through the zero-phase band
-weights of :func:`renderer.late_tail.band_weights` (which sum to 1, so equal gains give a
+weights of :func:`earfold.renderer.late_tail.band_weights` (which sum to 1, so equal gains give a
 flat response) and then a minimum-phase filter by the real-cepstrum (homomorphic) method
 (Oppenheim and Schafer, *Discrete-Time Signal Processing*, ch. 13): causal, no pre-echo,
 its energy at the reflection's arrival. Images with the same gains (the same walls, and

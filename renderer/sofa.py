@@ -3,13 +3,13 @@
 :func:`read_sofa` turns the SOFA variants met in practice into one normalised, frozen
 :class:`SofaData`: left ear first, ``Data.Delay`` in samples for every measurement,
 directions as unit vectors in the listener's frame (x = the listener's view, y = left,
-z = up, as in :mod:`renderer.geometry`), distances in metres. Nothing downstream sees raw
+z = up, as in :mod:`earfold.renderer.geometry`), distances in metres. Nothing downstream sees raw
 SOFA. Supported conventions: ``SimpleFreeFieldHRIR`` (headers 0.4 to 2.x),
 ``GeneralFIR`` and ``GeneralFIR-E`` (one emitter picked). Positions may be cartesian or
 spherical, in degrees or radians, metres spelled any usual way; every variable may be
 given once for all measurements (``I``) or per measurement (``M``).
 
-Every problem with a file raises :class:`~renderer.errors.SofaError` whose message starts
+Every problem with a file raises :class:`~earfold.renderer.errors.SofaError` whose message starts
 with the file name; errors of the netCDF/HDF5 layer (damaged, truncated or fuzzed files)
 are re-raised as :class:`SofaError` with their cause, and the file is always closed.
 
@@ -922,9 +922,9 @@ def write_sofa(
         "Version": "2.0",
         "SOFAConventions": "SimpleFreeFieldHRIR",
         "SOFAConventionsVersion": "1.0",
-        "APIName": "ossicle",
+        "APIName": "earfold",
         "APIVersion": __version__,
-        "ApplicationName": "ossicle",
+        "ApplicationName": "earfold",
         "ApplicationVersion": __version__,
         "AuthorContact": "",
         "Comment": "",

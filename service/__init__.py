@@ -1,1 +1,1 @@
-"""ossicle service: command line and (later) the HTTP API and job queue."""
+"""earfold service: command line and (later) the HTTP API and job queue."""

@@ -1,7 +1,7 @@
 """The FastAPI application: ``create_app(settings)``.
 
-The app owns the storage, the job store and (in ``ossicle serve``) nothing else: worker
-processes are started by :mod:`service.serve_cli`. A background task runs the retention
+The app owns the storage, the job store and (in ``earfold serve``) nothing else: worker
+processes are started by :mod:`earfold.service.serve_cli`. A background task runs the retention
 sweep; startup removes leftovers of interrupted uploads.
 """
 
@@ -13,7 +13,7 @@ from collections.abc import AsyncIterator
 
 from fastapi import FastAPI
 
-from renderer import __version__
+from earfold.renderer import __version__
 
 from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
@@ -44,7 +44,7 @@ def create_app(settings: ServiceSettings) -> FastAPI:
                 await task
 
     app = FastAPI(
-        title="ossicle",
+        title="earfold",
         version=__version__,
         description="Binaural renders of multichannel loudspeaker stems. Upload a stem, "
         "queue a render, poll it, download the two-channel file. Errors are RFC 9457 "
@@ -81,8 +81,8 @@ def _warm_up() -> None:
     HRTF sets; importing those (numpy, scipy) on first use cost the first submit most of
     a second (measured: 900 ms submit-to-running on a cold server, 20-50 ms warm).
     """
-    import hrtf_sets  # noqa: F401
-    import renderer.render  # noqa: F401
+    import earfold.hrtf_sets  # noqa: F401
+    import earfold.renderer.render  # noqa: F401
 
     from .routes.catalog import room_names
 

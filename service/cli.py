@@ -1,4 +1,4 @@
-"""The ``ossicle`` command line.
+"""The ``earfold`` command line.
 
 Each subcommand is a thin shell over the renderer's public functions. Errors in what
 the user gave (files, layouts, options) print one line on stderr and exit with status 2;
@@ -17,8 +17,8 @@ from pathlib import Path
 
 import numpy as np
 
-import renderer
-from renderer import RendererError
+import earfold.renderer
+from earfold.renderer import RendererError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
@@ -82,9 +82,9 @@ def _write_json(path: str, data: object) -> None:
 
 
 def cmd_render(args: argparse.Namespace) -> int:
-    from renderer.delivery import parse_loudness, parse_true_peak
-    from renderer.lfe import LfeOptions
-    from renderer.render import RenderSettings, render
+    from earfold.renderer.delivery import parse_loudness, parse_true_peak
+    from earfold.renderer.lfe import LfeOptions
+    from earfold.renderer.render import RenderSettings, render
 
     settings = RenderSettings(
         layout=args.layout,
@@ -131,9 +131,9 @@ def cmd_render(args: argparse.Namespace) -> int:
 
 
 def cmd_loudness(args: argparse.Namespace) -> int:
-    from renderer.delivery import format_measurement
-    from renderer.layouts import get_layout
-    from renderer.loudness import channel_weights, measure_file
+    from earfold.renderer.delivery import format_measurement
+    from earfold.renderer.layouts import get_layout
+    from earfold.renderer.loudness import channel_weights, measure_file
 
     results = []
     for path in args.files:
@@ -155,7 +155,7 @@ def cmd_loudness(args: argparse.Namespace) -> int:
 
 
 def cmd_layouts(args: argparse.Namespace) -> int:
-    from renderer.layouts import LAYOUTS
+    from earfold.renderer.layouts import LAYOUTS
 
     if args.json:
         _print_json([layout.to_dict() for layout in LAYOUTS.values()])
@@ -172,7 +172,7 @@ def cmd_layouts(args: argparse.Namespace) -> int:
 
 
 def cmd_rooms(args: argparse.Namespace) -> int:
-    from renderer.room import ROOMS
+    from earfold.renderer.room import ROOMS
 
     if args.json:
         _print_json([room.to_dict() for room in ROOMS.values()])
@@ -194,7 +194,7 @@ def cmd_rooms(args: argparse.Namespace) -> int:
 
 
 def cmd_hrtf_list(args: argparse.Namespace) -> int:
-    from hrtf_sets import DEFAULT_SET, list_shipped
+    from earfold.hrtf_sets import DEFAULT_SET, list_shipped
 
     sets = list_shipped()
     if args.json:
@@ -215,7 +215,7 @@ def cmd_hrtf_list(args: argparse.Namespace) -> int:
 
 
 def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
-    from renderer.inspect import inspect_sofa
+    from earfold.renderer.inspect import inspect_sofa
 
     summary = inspect_sofa(args.file, emitter=args.emitter)
     if args.json:
@@ -240,7 +240,7 @@ def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
 
 
 def cmd_bench(args: argparse.Namespace) -> int:
-    from renderer.bench import format_bench, run_bench
+    from earfold.renderer.bench import format_bench, run_bench
 
     result = run_bench(
         seconds=args.seconds,
@@ -257,7 +257,7 @@ def cmd_bench(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from renderer.demo import run_demo
+    from earfold.renderer.demo import run_demo
 
     progress = _Progress("rendering demo")
     try:
@@ -276,10 +276,10 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="ossicle",
+        prog="earfold",
         description="Render multichannel loudspeaker stems to binaural headphone mixes.",
     )
-    parser.add_argument("--version", action="version", version=f"ossicle {renderer.__version__}")
+    parser.add_argument("--version", action="version", version=f"earfold {earfold.renderer.__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser(
@@ -291,13 +291,13 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="stem file(s)")
     p.add_argument("-o", "--output", required=True, help="output file (.wav or .flac)")
-    p.add_argument("--layout", required=True, help="layout name (see 'ossicle layouts') or a JSON file")
+    p.add_argument("--layout", required=True, help="layout name (see 'earfold layouts') or a JSON file")
     p.add_argument("--channel-order", type=_labels, metavar="L,R,C,...",
                    help="labels of the file's channels in file order")
     p.add_argument("--hrtf", metavar="NAME|FILE.sofa",
-                   help="shipped set name (see 'ossicle hrtf list') or a SOFA file; default mit-kemar")
+                   help="shipped set name (see 'earfold hrtf list') or a SOFA file; default mit-kemar")
     p.add_argument("--room", default="none", metavar="none|small|medium|large|FILE.json",
-                   help="synthetic room around the loudspeakers (default none; 'ossicle rooms' "
+                   help="synthetic room around the loudspeakers (default none; 'earfold rooms' "
                    "lists the presets)")
     p.add_argument("--room-mode", default="shared", choices=["shared", "exact"],
                    help="shared: the diffuse tail rendered once for all loudspeakers (default); "
@@ -380,16 +380,16 @@ def build_parser() -> argparse.ArgumentParser:
                    help="skip the memory-growth check (a 10x longer stem)")
     p.set_defaults(func=cmd_bench)
 
-    from service.serve_cli import add_serve_parser
+    from earfold.service.serve_cli import add_serve_parser
 
     add_serve_parser(sub)
 
-    from service.worker_cli import add_worker_parser
+    from earfold.service.worker_cli import add_worker_parser
 
     add_worker_parser(sub)
 
     p = sub.add_parser("demo", help="synthesise a demo 7.1.4 stem and render it")
-    p.add_argument("dir", nargs="?", default="ossicle-demo", help="folder for the files (default ossicle-demo)")
+    p.add_argument("dir", nargs="?", default="earfold-demo", help="folder for the files (default earfold-demo)")
     p.set_defaults(func=cmd_demo)
     return parser
 
@@ -408,13 +408,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args.func(args) or 0)
     except RendererError as exc:
-        print(f"ossicle: error: {exc}", file=sys.stderr)
+        print(f"earfold: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
-        print(f"ossicle: error: {exc.strerror}: {exc.filename!r}", file=sys.stderr)
+        print(f"earfold: error: {exc.strerror}: {exc.filename!r}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
-        print("ossicle: interrupted; no partial output was kept", file=sys.stderr)
+        print("earfold: interrupted; no partial output was kept", file=sys.stderr)
         return EXIT_INTERRUPTED
 
 

@@ -2,10 +2,10 @@
 
 A SOFA file is HDF5, parsed by a C library; a hostile or broken file could crash it,
 spin, or allocate without bound. So the API never opens an upload itself: it runs
-``python -m service.hrtf_check FILE`` under a time limit (killed when it runs over) and
+``python -m earfold.service.hrtf_check FILE`` under a time limit (killed when it runs over) and
 an address-space limit (``RLIMIT_AS``, set by the child on itself before it imports
 netCDF4), and reads one JSON line back. The child checks exactly what a render would
-use: :func:`renderer.sofa.read_sofa` then :meth:`renderer.hrir.HrirSet.from_sofa`.
+use: :func:`earfold.renderer.sofa.read_sofa` then :meth:`earfold.renderer.hrir.HrirSet.from_sofa`.
 """
 
 from __future__ import annotations
@@ -48,7 +48,7 @@ def check_sofa(path: str | os.PathLike, display_name: str, *, timeout_s: float,
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1")
     try:
         proc = subprocess.run(
-            [sys.executable, "-m", "service.hrtf_check", os.fspath(path), str(memory_bytes)],
+            [sys.executable, "-m", "earfold.service.hrtf_check", os.fspath(path), str(memory_bytes)],
             capture_output=True, text=True, timeout=timeout_s, env=env,
         )
     except subprocess.TimeoutExpired:
@@ -79,9 +79,9 @@ def _child(path: str, memory_bytes: int) -> int:
 
     resource.setrlimit(resource.RLIMIT_AS, (memory_bytes, memory_bytes))
     try:
-        from renderer.errors import RendererError
-        from renderer.hrir import HrirSet, file_sha256
-        from renderer.sofa import read_sofa
+        from earfold.renderer.errors import RendererError
+        from earfold.renderer.hrir import HrirSet, file_sha256
+        from earfold.renderer.sofa import read_sofa
 
         data = read_sofa(path)
         hset = HrirSet.from_sofa(data, sha256=file_sha256(path))

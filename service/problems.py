@@ -17,7 +17,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.routing import Match
 
-from renderer.errors import AudioError, RendererError
+from earfold.renderer.errors import AudioError, RendererError
 
 from .jobs.queue import QueueUnavailable
 

@@ -1,7 +1,7 @@
-"""``ossicle serve``: the HTTP API on uvicorn plus its worker processes.
+"""``earfold serve``: the HTTP API on uvicorn plus its worker processes.
 
-:func:`add_serve_parser` adds the subcommand to the ``ossicle`` parser; ``python -m
-service.serve_cli`` runs it alone. It binds 127.0.0.1 by default and refuses a
+:func:`add_serve_parser` adds the subcommand to the ``earfold`` parser; ``python -m
+earfold.service.serve_cli`` runs it alone. It binds 127.0.0.1 by default and refuses a
 non-loopback address without API tokens unless ``--insecure`` is given.
 """
 
@@ -16,8 +16,8 @@ from pathlib import Path
 
 EXIT_BAD_INPUT = 2
 
-#: Data directory when none is given: ``ossicle-data`` in the current directory.
-DEFAULT_DATA_DIR = "ossicle-data"
+#: Data directory when none is given: ``earfold-data`` in the current directory.
+DEFAULT_DATA_DIR = "earfold-data"
 
 
 def is_loopback(host: str) -> bool:
@@ -43,7 +43,7 @@ def _positive(kind: type):
 
 
 def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
-    """Add ``serve`` to the ``ossicle`` subcommands."""
+    """Add ``serve`` to the ``earfold`` subcommands."""
     from .jobs.pool import default_workers
 
     p = subparsers.add_parser(
@@ -62,10 +62,10 @@ def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
                    "0 = API only)")
     p.add_argument("--queue", default="sqlite:", metavar="URL",
                    help="job store: 'sqlite:' (embedded, default) or redis://HOST:PORT/DB "
-                   "(scale-out: jobs shared by several API processes and 'ossicle worker' "
+                   "(scale-out: jobs shared by several API processes and 'earfold worker' "
                    "machines)")
     p.add_argument("--tokens-file", metavar="FILE",
-                   help="API tokens, one per line (also read from $OSSICLE_TOKENS)")
+                   help="API tokens, one per line (also read from $EARFOLD_TOKENS)")
     p.add_argument("--insecure", action="store_true",
                    help="allow a non-loopback address without API tokens")
     p.add_argument("--max-upload-gb", type=_positive(float), help="largest upload (default 8)")
@@ -123,15 +123,15 @@ def cmd_serve(args: argparse.Namespace) -> int:
     try:
         settings = settings_from_args(args)
     except ValueError as exc:
-        print(f"ossicle: error: {exc}", file=sys.stderr)
+        print(f"earfold: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     if not is_loopback(args.host) and not settings.tokens and not args.insecure:
-        print(f"ossicle: error: refusing to serve on {args.host!r} without API tokens; give "
-              "--tokens-file FILE (or $OSSICLE_TOKENS), bind 127.0.0.1, or pass --insecure",
+        print(f"earfold: error: refusing to serve on {args.host!r} without API tokens; give "
+              "--tokens-file FILE (or $EARFOLD_TOKENS), bind 127.0.0.1, or pass --insecure",
               file=sys.stderr)
         return EXIT_BAD_INPUT
     if args.workers < 0:
-        print(f"ossicle: error: --workers must be >= 0, got {args.workers}", file=sys.stderr)
+        print(f"earfold: error: --workers must be >= 0, got {args.workers}", file=sys.stderr)
         return EXIT_BAD_INPUT
     import uvicorn
 
@@ -141,12 +141,12 @@ def cmd_serve(args: argparse.Namespace) -> int:
     try:
         app = create_app(settings)
     except (OSError, ValueError) as exc:
-        print(f"ossicle: error: {exc}", file=sys.stderr)
+        print(f"earfold: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     pool = WorkerPool(settings, args.workers)
     pool.start()
     host = f"[{args.host}]" if ":" in args.host else args.host
-    print(f"ossicle serving on http://{host}:{args.port}  (API docs: http://{host}:{args.port}"
+    print(f"earfold serving on http://{host}:{args.port}  (API docs: http://{host}:{args.port}"
           f"/docs; {args.workers} worker(s); data in {settings.data_dir}"
           f"{'; tokens on' if settings.tokens else ''})", file=sys.stderr, flush=True)
     try:
@@ -158,7 +158,7 @@ def cmd_serve(args: argparse.Namespace) -> int:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="ossicle")
+    parser = argparse.ArgumentParser(prog="earfold")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     add_serve_parser(sub)
     argv = list(sys.argv[1:] if argv is None else argv)

@@ -1,6 +1,6 @@
 """Settings of the HTTP service and its workers.
 
-One frozen :class:`ServiceSettings` is built once (by ``ossicle serve`` or a test) and
+One frozen :class:`ServiceSettings` is built once (by ``earfold serve`` or a test) and
 passed down; nothing reads global mutable state. Each default is a documented constant
 so that its reasoning sits beside its value. Settings cross process boundaries as JSON
 (:meth:`ServiceSettings.to_json`), never pickled.
@@ -68,7 +68,7 @@ DEFAULT_HRTF_CHECK_TIMEOUT_S = 30.0
 DEFAULT_HRTF_CHECK_MEMORY_BYTES = 2 * 1024**3
 
 #: Environment variable holding API tokens (comma-separated), as an alternative to a file.
-TOKENS_ENV = "OSSICLE_TOKENS"
+TOKENS_ENV = "EARFOLD_TOKENS"
 
 
 @dataclass(frozen=True)
@@ -115,7 +115,7 @@ class ServiceSettings:
         return bool(self.tokens)
 
     def broker_options(self) -> dict[str, float]:
-        """Options of a network queue backend (:func:`service.jobs.open_queue`)."""
+        """Options of a network queue backend (:func:`earfold.service.jobs.open_queue`)."""
         if not self.queue_url.startswith(("redis://", "rediss://")):
             return {}
         return {"heartbeat_timeout_s": self.broker_heartbeat_s,
@@ -140,7 +140,7 @@ class ServiceSettings:
 
 
 def read_tokens(path: str | os.PathLike | None = None, env: dict | None = None) -> tuple[str, ...]:
-    """API tokens from a file (one per line, ``#`` comments) and/or ``OSSICLE_TOKENS``.
+    """API tokens from a file (one per line, ``#`` comments) and/or ``EARFOLD_TOKENS``.
 
     Raises
     ------

@@ -1,4 +1,4 @@
-"""``ossicle worker``: render worker processes for a shared queue, without the API.
+"""``earfold worker``: render worker processes for a shared queue, without the API.
 
 Run it on every machine that reaches the queue (Redis) and the shared data directory.
 It starts ``--processes`` worker processes, one render at a time each, and restarts any
@@ -28,7 +28,7 @@ def default_processes() -> int:
 
 
 def add_worker_parser(subparsers: argparse._SubParsersAction) -> None:
-    """Add ``worker`` to the ``ossicle`` subcommands."""
+    """Add ``worker`` to the ``earfold`` subcommands."""
     p = subparsers.add_parser(
         "worker",
         help="run render workers for a shared queue (scale-out)",
@@ -55,7 +55,7 @@ def add_worker_parser(subparsers: argparse._SubParsersAction) -> None:
 
 
 def worker_settings(args: argparse.Namespace):
-    """ServiceSettings of ``ossicle worker``; ValueError for a queue it cannot use."""
+    """ServiceSettings of ``earfold worker``; ValueError for a queue it cannot use."""
     from .settings import ServiceSettings
 
     if not args.queue.startswith(("redis://", "rediss://", "sqlite:")):
@@ -99,17 +99,17 @@ def cmd_worker(args: argparse.Namespace) -> int:
     try:
         settings = worker_settings(args)
     except ValueError as exc:
-        print(f"ossicle: error: {exc}", file=sys.stderr)
+        print(f"earfold: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     if args.check:
         problem = check(settings)
         if problem:
-            print(f"ossicle: unhealthy: {problem}", file=sys.stderr)
+            print(f"earfold: unhealthy: {problem}", file=sys.stderr)
             return EXIT_UNHEALTHY
-        print("ossicle: worker check ok", file=sys.stderr)
+        print("earfold: worker check ok", file=sys.stderr)
         return 0
     if not settings.data_dir.is_dir():
-        print(f"ossicle: error: the data directory {str(settings.data_dir)!r} does not exist; "
+        print(f"earfold: error: the data directory {str(settings.data_dir)!r} does not exist; "
               "give the folder the API serves from (--data-dir)", file=sys.stderr)
         return EXIT_BAD_INPUT
     from .jobs.pool import WorkerPool
@@ -121,13 +121,13 @@ def cmd_worker(args: argparse.Namespace) -> int:
     pool = WorkerPool(settings, args.processes)
     pool.start()
     where = display_url(settings.queue_url) if "://" in settings.queue_url else settings.queue_url
-    print(f"ossicle worker: {args.processes} process(es) taking renders from {where}; data in "
+    print(f"earfold worker: {args.processes} process(es) taking renders from {where}; data in "
           f"{settings.data_dir}", file=sys.stderr, flush=True)
     try:
         while not stop.wait(1.0):
             pass
     finally:
-        print("ossicle worker: stopping; running renders are handed back", file=sys.stderr,
+        print("earfold worker: stopping; running renders are handed back", file=sys.stderr,
               flush=True)
         pool.stop()
     return 0

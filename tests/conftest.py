@@ -26,9 +26,9 @@ def shared_sofa_dir() -> Path:
     return _require_shared()
 
 
-#: Redis the tests use: $OSSICLE_TEST_REDIS_URL (set by .ci/run) or the local default.
+#: Redis the tests use: $EARFOLD_TEST_REDIS_URL (set by .ci/run) or the local default.
 #: Every test works under its own key prefix and deletes its keys afterwards.
-REDIS_URL_ENV = "OSSICLE_TEST_REDIS_URL"
+REDIS_URL_ENV = "EARFOLD_TEST_REDIS_URL"
 DEFAULT_TEST_REDIS = "redis://127.0.0.1:6379/0"
 
 
@@ -55,9 +55,9 @@ def redis_queue_url(redis_server_url):
     """``redis://...?prefix=UNIQUE`` for one test; its keys are deleted afterwards."""
     import uuid
 
-    from service.jobs.redis_store import RedisJobQueue
+    from earfold.service.jobs.redis_store import RedisJobQueue
 
-    url = f"{redis_server_url}?prefix=ossicle-test-{uuid.uuid4().hex[:12]}"
+    url = f"{redis_server_url}?prefix=earfold-test-{uuid.uuid4().hex[:12]}"
     yield url
     q = RedisJobQueue(url, deliver=False)
     q.purge()

@@ -14,7 +14,7 @@ FORBIDDEN = ("fastapi", "starlette", "uvicorn", "redis", "dramatiq", "service", 
 
 def test_importing_renderer_pulls_in_no_web_or_queue_package():
     code = (
-        "import sys, renderer, renderer.render, renderer.bench, renderer.demo, renderer.inspect\n"
+        "import sys, earfold.renderer, earfold.renderer.render, earfold.renderer.bench, earfold.renderer.demo, earfold.renderer.inspect\n"
         f"bad = [m for m in sys.modules if m.split('.')[0] in {FORBIDDEN!r}]\n"
         "print(','.join(bad))"
     )

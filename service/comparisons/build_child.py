@@ -1,6 +1,6 @@
-"""The process that builds one comparison for a worker: ``python -m service.comparisons.build_child``.
+"""The process that builds one comparison for a worker: ``python -m earfold.service.comparisons.build_child``.
 
-It speaks the protocol of :mod:`service.jobs.render_child` (a JSON spec on stdin; JSON
+It speaks the protocol of :mod:`earfold.service.jobs.render_child` (a JSON spec on stdin; JSON
 lines ``{"progress": f}``, then ``{"done": ...}``, ``{"error": message}`` or
 ``{"cancelled": true}`` on stdout) and writes ``prepared.json`` into the comparison's
 folder when the trial files are in place; the session reads as ready from then on.
@@ -43,8 +43,8 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
 
 def run(spec: dict) -> int:
     """Build the comparison of ``spec``; returns the exit status."""
-    from renderer.errors import RendererError
-    from renderer.render import RenderCancelled
+    from earfold.renderer.errors import RendererError
+    from earfold.renderer.render import RenderCancelled
 
     from ..jobs import render_child as rc
     from .builder import BUILD_PROCESSES, BuildError, build

@@ -1,6 +1,6 @@
 """The comparison builder: renders each variant's excerpt, level-matches, writes trial files.
 
-It runs in a worker's child process (:mod:`service.comparisons.build_child`), never in a
+It runs in a worker's child process (:mod:`earfold.service.comparisons.build_child`), never in a
 route handler. Steps:
 
 1. The excerpt window: given, or automatic, the loudest window of the chosen length by
@@ -56,7 +56,7 @@ TRIAL_SUBTYPE = "PCM_24"
 #: Processes that render a comparison's variants at once (forked from the build child
 #: after the renderer and the HRIR sets are loaded, so they start warm). A listener is
 #: waiting for the build, unlike a batch render, so it may use both cores of a small
-#: machine; renders stay one process each (service.jobs.worker).
+#: machine; renders stay one process each (earfold.service.jobs.worker).
 BUILD_PROCESSES = max(1, min(2, os.cpu_count() or 1))
 
 #: How often the build child gathers its render processes' progress (s).
@@ -124,7 +124,7 @@ def _fade(x: np.ndarray, frames: int) -> None:
 
 
 def _measure(x: np.ndarray, samplerate: int) -> tuple[float | None, float | None]:
-    from renderer.loudness import LoudnessMeter
+    from earfold.renderer.loudness import LoudnessMeter
 
     meter = LoudnessMeter(samplerate, x.shape[1])
     meter.process(x)
@@ -134,9 +134,9 @@ def _measure(x: np.ndarray, samplerate: int) -> tuple[float | None, float | None
 
 def choose_window(inputs: Sequence[str], settings, length_s: float) -> float:
     """Start (s) of the loudest ``length_s`` window of the stem (see :func:`loudest_window`)."""
-    from renderer.audio_io import StemReader
-    from renderer.loudness import LoudnessMeter, channel_weights
-    from renderer.render import plan_render
+    from earfold.renderer.audio_io import StemReader
+    from earfold.renderer.loudness import LoudnessMeter, channel_weights
+    from earfold.renderer.render import plan_render
 
     plan = plan_render(inputs, settings)
     stem = plan.stem
@@ -162,9 +162,9 @@ def _render_forked(jobs: list, processes: int, samplerate: int,
     ``processes``-th job, reports progress through shared memory and stops when the
     parent asks (or dies). Errors come back as JSON text, not pickles.
     """
-    from renderer.errors import RendererError
-    from renderer.hrir import load_hrir_set
-    from renderer.render import RenderCancelled, render, resolve_hrtf
+    from earfold.renderer.errors import RendererError
+    from earfold.renderer.hrir import load_hrir_set
+    from earfold.renderer.render import RenderCancelled, render, resolve_hrtf
 
     for hrtf in {s.hrtf for _, _, s in jobs}:
         path, name = resolve_hrtf(hrtf)
@@ -244,8 +244,8 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
     """
     import dataclasses
 
-    from renderer.audio_io import probe_stem, read_audio, write_audio
-    from renderer.render import render
+    from earfold.renderer.audio_io import probe_stem, read_audio, write_audio
+    from earfold.renderer.render import render
 
     from ..jobs.render_child import build_settings
 

@@ -2,7 +2,7 @@
 
 A fresh build child spends a second or more importing numpy and scipy and loading the
 HRIR set before it renders anything, and a listener is waiting for it. A worker started
-by ``ossicle serve`` imports the renderer once (:func:`warm_up`) and forks each build
+by ``earfold serve`` imports the renderer once (:func:`warm_up`) and forks each build
 from itself: the fork starts with everything loaded and shares the cached HRIR set.
 :class:`ForkedBuild` looks to the worker like the ``subprocess.Popen`` of a build child
 (the same JSON-lines protocol on its ``stdout``), so the worker's lease, progress and
@@ -29,9 +29,9 @@ WARM_SAMPLERATE = 48000
 
 def warm_up() -> None:
     """Import what a build needs and load the default HRIR set, before the first build."""
-    from hrtf_sets import DEFAULT_SET
-    from renderer.hrir import load_hrir_set
-    from renderer.render import resolve_hrtf
+    from earfold.hrtf_sets import DEFAULT_SET
+    from earfold.renderer.hrir import load_hrir_set
+    from earfold.renderer.render import resolve_hrtf
 
     from . import builder  # noqa: F401
 

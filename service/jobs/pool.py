@@ -1,4 +1,4 @@
-"""The worker processes of ``ossicle serve``: started, watched, restarted, stopped."""
+"""The worker processes of ``earfold serve``: started, watched, restarted, stopped."""
 
 from __future__ import annotations
 
@@ -25,8 +25,8 @@ def default_workers() -> int:
 def worker_module(queue_url: str) -> str:
     """The module a worker process of ``queue_url``'s backend runs."""
     if queue_url.startswith(("redis://", "rediss://")):
-        return "service.jobs.redis_worker"
-    return "service.jobs.worker"
+        return "earfold.service.jobs.redis_worker"
+    return "earfold.service.jobs.worker"
 
 
 class WorkerPool:

@@ -116,7 +116,7 @@ class JobQueue(Protocol):
 def open_queue(url: str, data_dir: str, **options: float) -> JobQueue:
     """The backend for ``url``: ``sqlite:`` (embedded, in ``data_dir``), ``sqlite:PATH``,
     or ``redis://HOST:PORT/DB[?prefix=NAME]`` (scale-out; ``options`` go to its broker,
-    see :class:`~service.jobs.redis_store.RedisJobQueue`).
+    see :class:`~earfold.service.jobs.redis_store.RedisJobQueue`).
 
     Raises
     ------

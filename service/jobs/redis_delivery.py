@@ -1,7 +1,7 @@
 """Delivery of render jobs to workers on many machines, through Dramatiq's Redis broker.
 
 The only module that imports Dramatiq. A message carries nothing but a job id: the job
-record in Redis (:mod:`service.jobs.redis_store`) is the truth about a job, and a
+record in Redis (:mod:`earfold.service.jobs.redis_store`) is the truth about a job, and a
 message only tells some worker "look at this job". Duplicate or stale messages are
 therefore harmless: a worker that receives one for a job that is not queued (already
 taken, cancelled, finished, deleted) acknowledges it and does nothing.

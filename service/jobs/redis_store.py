@@ -1,17 +1,17 @@
 """The Redis job store: job records every API replica and worker sees, for scale-out.
 
-``redis://HOST:PORT/DB`` (optionally ``?prefix=NAME``, default ``ossicle``). Each job is
+``redis://HOST:PORT/DB`` (optionally ``?prefix=NAME``, default ``earfold``). Each job is
 a hash ``{prefix}:job:{id}``; sorted sets index the jobs by state, by owner and by lease
 expiry. Every change is one Lua script, so it is atomic on the server: two workers never
 claim the same job, and a late report of a worker that lost its lease changes nothing.
 Times come from the caller's clock (tests pass a fake one), as in the embedded store.
 
 Whenever a job becomes queued (submitted, handed back, its lease expired) a message
-with its id is sent through :mod:`service.jobs.redis_delivery`. A job whose message
+with its id is sent through :mod:`earfold.service.jobs.redis_delivery`. A job whose message
 could not be sent (Redis failed in between) stays in an "unsent" set that
 :meth:`RedisJobQueue.recover` sends again, so no job waits forever for a message.
 
-Redis errors become :class:`~service.jobs.queue.QueueUnavailable`, which the API
+Redis errors become :class:`~earfold.service.jobs.queue.QueueUnavailable`, which the API
 answers with 503. Redis must persist its data (``appendonly yes``) for jobs to survive
 a restart of Redis itself.
 """
@@ -29,7 +29,7 @@ from .queue import Job, JobNotFound, QueueFull, QueueUnavailable, WrongState
 from .states import JobState
 
 #: Key prefix when the URL names none.
-DEFAULT_PREFIX = "ossicle"
+DEFAULT_PREFIX = "earfold"
 
 #: Connect and command timeouts (s): an outage shows as an error within seconds.
 CONNECT_TIMEOUT_S = 2.0
@@ -208,7 +208,7 @@ def display_url(url: str) -> str:
 
 
 class RedisJobQueue:
-    """:class:`~service.jobs.queue.JobQueue` on Redis, with delivery through Dramatiq.
+    """:class:`~earfold.service.jobs.queue.JobQueue` on Redis, with delivery through Dramatiq.
 
     Parameters
     ----------
@@ -221,7 +221,7 @@ class RedisJobQueue:
         alone may turn it off.
     broker_options : float
         ``heartbeat_timeout_s`` and ``maintenance_chance`` of the broker
-        (:func:`service.jobs.redis_delivery.make_broker`).
+        (:func:`earfold.service.jobs.redis_delivery.make_broker`).
     """
 
     def __init__(self, url: str, *, clock: Callable[[], float] = time.time,

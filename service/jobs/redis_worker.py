@@ -1,13 +1,13 @@
-"""A worker process of the Redis backend: ``python -m service.jobs.redis_worker``.
+"""A worker process of the Redis backend: ``python -m earfold.service.jobs.redis_worker``.
 
-Started by ``ossicle worker`` (or ``ossicle serve --queue redis://...``), which
-supervises it, with its settings as JSON in ``OSSICLE_WORKER_SETTINGS``. It consumes
+Started by ``earfold worker`` (or ``earfold serve --queue redis://...``), which
+supervises it, with its settings as JSON in ``EARFOLD_WORKER_SETTINGS``. It consumes
 job-id messages one at a time (one Dramatiq worker thread, prefetch 1), claims the job
-in its Redis record, and renders it through :class:`service.jobs.worker.Worker`: in a
+in its Redis record, and renders it through :class:`earfold.service.jobs.worker.Worker`: in a
 child process, so that this process keeps heartbeating the job's lease, notices a
 cancellation within a tick, and kills the child. Its main thread sweeps the store for
 expired leases (a dead worker's job) and unsent messages every
-:data:`~service.jobs.worker.RECOVER_INTERVAL_S`.
+:data:`~earfold.service.jobs.worker.RECOVER_INTERVAL_S`.
 """
 
 from __future__ import annotations
@@ -23,7 +23,7 @@ from ..settings import ServiceSettings
 from .queue import QueueUnavailable
 from .worker import RECOVER_INTERVAL_S, SETTINGS_ENV, Worker
 
-log = logging.getLogger("ossicle.worker")
+log = logging.getLogger("earfold.worker")
 
 #: How long a consumer waits for a running render to hand its job back on shutdown (ms).
 STOP_TIMEOUT_MS = 10_000

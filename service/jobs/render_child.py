@@ -1,4 +1,4 @@
-"""The process that runs one render for a worker: ``python -m service.jobs.render_child``.
+"""The process that runs one render for a worker: ``python -m earfold.service.jobs.render_child``.
 
 It reads a JSON spec on stdin and writes JSON lines on stdout: ``{"progress": f}`` as
 blocks are written, then one of ``{"done": summary}``, ``{"error": message}`` (bad input,
@@ -52,8 +52,8 @@ def _clean(text: str, names: dict[str, str]) -> str:
 
 def build_settings(options: dict):
     """RenderSettings from a job's JSON options; unknown keys are ignored."""
-    from renderer.layouts import layout_from_dict
-    from renderer.render import RenderSettings
+    from earfold.renderer.layouts import layout_from_dict
+    from earfold.renderer.render import RenderSettings
 
     known = {f.name for f in dataclasses.fields(RenderSettings)}
     kwargs = {k: v for k, v in options.items() if k in known and v is not None}
@@ -66,11 +66,11 @@ def build_settings(options: dict):
     # The HTTP API spells "no gain" and "limiter off" as words; the renderer as None.
     # Left out (None): the renderer's defaults.
     if options.get("loudness") is not None:
-        from renderer.delivery import parse_loudness
+        from earfold.renderer.delivery import parse_loudness
 
         kwargs["loudness"] = parse_loudness(str(options["loudness"]))
     if options.get("true_peak") is not None:
-        from renderer.delivery import parse_true_peak
+        from earfold.renderer.delivery import parse_true_peak
 
         kwargs["true_peak"] = parse_true_peak(str(options["true_peak"]))
     return RenderSettings(**kwargs)
@@ -78,8 +78,8 @@ def build_settings(options: dict):
 
 def run(spec: dict) -> int:
     """Render ``spec`` (inputs, output, report, options, names); returns the exit status."""
-    from renderer.errors import RendererError
-    from renderer.render import RenderCancelled, render
+    from earfold.renderer.errors import RendererError
+    from earfold.renderer.render import RenderCancelled, render
 
     names = spec.get("names", {})
     last = [0.0]

@@ -48,7 +48,7 @@ _FINISHED = tuple(s.value for s in FINISHED)
 
 
 class SqliteJobQueue:
-    """:class:`~service.jobs.queue.JobQueue` on a SQLite file.
+    """:class:`~earfold.service.jobs.queue.JobQueue` on a SQLite file.
 
     Parameters
     ----------
@@ -260,4 +260,4 @@ class SqliteJobQueue:
 def _poison_message(attempts: int) -> str:
     return (f"the render stopped its worker {attempts} times (a crash or running out of "
             "memory) and was given up; the stem may be damaged or too large for this server; "
-            "check it with 'ossicle render' on the command line")
+            "check it with 'earfold render' on the command line")

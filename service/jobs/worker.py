@@ -1,8 +1,8 @@
 """A worker process: claims render jobs, runs each in a child, keeps its lease.
 
-``python -m service.jobs.worker`` (started by ``ossicle serve``) reads its settings as
-JSON from ``OSSICLE_WORKER_SETTINGS``. The render runs in a child process
-(:mod:`service.jobs.render_child`) so that the worker stays responsive: it heartbeats,
+``python -m earfold.service.jobs.worker`` (started by ``earfold serve``) reads its settings as
+JSON from ``EARFOLD_WORKER_SETTINGS``. The render runs in a child process
+(:mod:`earfold.service.jobs.render_child`) so that the worker stays responsive: it heartbeats,
 reports progress, and kills the child when the job is cancelled or its lease is lost.
 A child that dies without a word (a crash, the OOM killer) puts the job back in the
 queue with the attempt counted; after ``max_attempts`` the job fails with a message
@@ -26,9 +26,9 @@ from ..settings import ServiceSettings
 from ..storage import Storage
 from .queue import Job, JobQueue, QueueUnavailable, open_queue
 
-SETTINGS_ENV = "OSSICLE_WORKER_SETTINGS"
+SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
 
-#: ``payload["kind"]`` of a job that builds a blind comparison (service.comparisons)
+#: ``payload["kind"]`` of a job that builds a blind comparison (earfold.service.comparisons)
 #: instead of rendering; jobs without a kind are renders.
 COMPARISON_KIND = "comparison"
 
@@ -97,12 +97,12 @@ class Worker:
         self._stop = threading.Event()
         self._parent = os.getppid()
         #: The render child's command line (tests substitute one that crashes).
-        self.child_command = [sys.executable, "-m", "service.jobs.render_child"]
+        self.child_command = [sys.executable, "-m", "earfold.service.jobs.render_child"]
         #: The command line of a comparison build (a job whose payload kind is
         #: "comparison"; it speaks the render child's protocol).
-        self.comparison_command = [sys.executable, "-m", "service.comparisons.build_child"]
+        self.comparison_command = [sys.executable, "-m", "earfold.service.comparisons.build_child"]
         #: Fork comparison builds from this (warmed-up) process instead of starting
-        #: ``comparison_command`` (service.comparisons.forked); ``main`` turns it on.
+        #: ``comparison_command`` (earfold.service.comparisons.forked); ``main`` turns it on.
         self.fork_builds = False
 
     def stop(self) -> None:

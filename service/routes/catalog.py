@@ -7,7 +7,7 @@ import time
 from anyio import to_thread
 from fastapi import APIRouter, Depends, Request, Response
 
-from renderer import __version__
+from earfold.renderer import __version__
 
 from ..auth import current_owner
 from ..hrtf_check import HrtfCheckFailed, check_sofa
@@ -43,7 +43,7 @@ def health(request: Request) -> dict:
 @router.get("/layouts", tags=["catalog"], summary="Loudspeaker layouts",
             responses=problem_responses(UNAUTHORIZED))
 def layouts(owner: str = Depends(current_owner)) -> list[dict]:
-    from renderer.layouts import LAYOUTS
+    from earfold.renderer.layouts import LAYOUTS
 
     return [layout.to_dict() for layout in LAYOUTS.values()]
 
@@ -51,7 +51,7 @@ def layouts(owner: str = Depends(current_owner)) -> list[dict]:
 def room_names() -> list[str]:
     """Names of the room presets the renderer has (only "none" until it has a room model)."""
     try:
-        from renderer.room import ROOMS  # type: ignore[import-not-found]
+        from earfold.renderer.room import ROOMS  # type: ignore[import-not-found]
     except ImportError:
         return ["none"]
     names = list(ROOMS)
@@ -62,7 +62,7 @@ def room_names() -> list[str]:
             responses=problem_responses(UNAUTHORIZED))
 def rooms(owner: str = Depends(current_owner)) -> list[dict]:
     try:
-        from renderer.room import ROOMS  # type: ignore[import-not-found]
+        from earfold.renderer.room import ROOMS  # type: ignore[import-not-found]
     except ImportError:
         ROOMS = {}
     out = []
@@ -83,7 +83,7 @@ def hrtf_summary(meta: dict) -> dict:
 @router.get("/hrtf-sets", tags=["hrtf"], summary="Shipped and uploaded HRTF sets",
             responses=problem_responses(UNAUTHORIZED))
 def list_hrtf_sets(request: Request, owner: str = Depends(current_owner)) -> list[dict]:
-    from hrtf_sets import DEFAULT_SET, list_shipped
+    from earfold.hrtf_sets import DEFAULT_SET, list_shipped
 
     shipped = [{"id": s.name, "name": s.name, "kind": "shipped", "title": s.title,
                 "citation": s.citation, "licence": s.licence, "description": s.description,

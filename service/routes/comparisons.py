@@ -1,9 +1,9 @@
 """``/v1/comparisons``: blind, level-matched A/B and ABX sessions of render variants.
 
 ``POST`` checks every variant as a render of the stem would be checked, draws the blind
-assignment (:mod:`service.comparisons.assignment`), stores the session and queues one
+assignment (:mod:`earfold.service.comparisons.assignment`), stores the session and queues one
 build job (payload kind ``"comparison"``) that a worker runs: excerpt renders, level
-matching, trial files (:mod:`service.comparisons.builder`). The routes here only read
+matching, trial files (:mod:`earfold.service.comparisons.builder`). The routes here only read
 and write the session's JSON; they never touch audio samples.
 
 Blindness: before the reveal no answer says which variant plays under which label.

@@ -3,7 +3,7 @@
 Everything that can be checked without audio is checked here, from the stem's stored
 probe, before the job is queued: layout against channel count, channel order, HRTF set,
 room, loudness and true-peak options, output format. Rendering itself happens only in
-a worker (:mod:`service.jobs.worker`); a route never calls DSP.
+a worker (:mod:`earfold.service.jobs.worker`); a route never calls DSP.
 """
 
 from __future__ import annotations
@@ -19,8 +19,8 @@ from fastapi import APIRouter, Depends, Query, Request, Response
 from fastapi.responses import FileResponse
 from pydantic import BaseModel, ConfigDict, Field
 
-from renderer.errors import LayoutError
-from renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_channel_order
+from earfold.renderer.errors import LayoutError
+from earfold.renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_channel_order
 
 from ..auth import current_owner
 from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
@@ -136,7 +136,7 @@ def _layout(value: str | dict | None, stem: dict) -> Layout:
 
 def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, str | None]:
     """(shipped name, uploaded id) for the request's HRTF set; 422 if unknown."""
-    from hrtf_sets import DEFAULT_SET, SHIPPED
+    from earfold.hrtf_sets import DEFAULT_SET, SHIPPED
 
     if value is None:
         return DEFAULT_SET, None
@@ -156,7 +156,7 @@ def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, 
 
 def _delivery_options(req: RenderRequest) -> dict:
     """Room, loudness and true-peak options, passed on only where the renderer has them."""
-    from renderer.render import RenderSettings
+    from earfold.renderer.render import RenderSettings
 
     available = {f.name for f in dataclasses.fields(RenderSettings)}
     out: dict = {}

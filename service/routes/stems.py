@@ -9,10 +9,10 @@ from pathlib import Path
 from anyio import to_thread
 from fastapi import APIRouter, Depends, Request, Response
 
-from renderer.audio_io import probe_stem
-from renderer.channel_mask import labels_from_mask
-from renderer.errors import AudioError
-from renderer.layouts import labels_from_filenames, suggest_layout
+from earfold.renderer.audio_io import probe_stem
+from earfold.renderer.channel_mask import labels_from_mask
+from earfold.renderer.errors import AudioError
+from earfold.renderer.layouts import labels_from_filenames, suggest_layout
 
 from ..auth import current_owner
 from ..problems import (BAD_REQUEST, CONFLICT, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED,

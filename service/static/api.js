@@ -5,7 +5,7 @@
 // problem-details text (RFC 9457) a person can read. The token lives in sessionStorage
 // only: it is gone when the tab closes.
 
-const TOKEN_KEY = "ossicle.token";
+const TOKEN_KEY = "earfold.token";
 
 export class ApiError extends Error {
   constructor(status, detail, body) {

@@ -84,7 +84,7 @@ async function start() {
     return;
   }
   state.auth = Boolean(health.auth);
-  $("#server-status").textContent = `connected to ossicle ${health.version}` +
+  $("#server-status").textContent = `connected to earfold ${health.version}` +
     (state.auth ? " (API tokens on)" : "");
   $("#token-forget").hidden = !state.auth;
   if (state.auth && !getToken()) {

@@ -12,7 +12,7 @@
   const TRANSPORT_RAMP_S = 0.008; // fade in/out on play and stop (8 ms)
   const START_DELAY_S = 0.05;     // schedule ahead so every source starts on the same frame
   const POLL_MS = 400;
-  const TOKEN_KEY = "ossicle.token";
+  const TOKEN_KEY = "earfold.token";
 
   const $ = (id) => document.getElementById(id);
   const id = location.pathname.split("/").filter(Boolean).pop();
@@ -426,7 +426,7 @@
   });
 
   // For tests and the curious: the page's audio state, read-only.
-  window.ossicleListening = {
+  window.earfoldListening = {
     gains: () => Object.fromEntries(Object.entries(state.gains).map(([l, g]) => [l, g.gain.value])),
     position, active: () => state.active, playing: () => state.playing,
     sourceCount: () => state.sources.length, master: () => state.master && state.master.gain.value,

@@ -2,11 +2,11 @@
 
 ::
 
-    python -m service.tools.comparison_latency               # spawns its own server
-    python -m service.tools.comparison_latency --auto        # automatic (loudest) excerpt
-    python -m service.tools.comparison_latency --url http://127.0.0.1:8000 --token T
+    python -m earfold.service.tools.comparison_latency               # spawns its own server
+    python -m earfold.service.tools.comparison_latency --auto        # automatic (loudest) excerpt
+    python -m earfold.service.tools.comparison_latency --url http://127.0.0.1:8000 --token T
 
-Without ``--url`` it starts ``ossicle serve --workers 2`` (the embedded SQLite queue) on a
+Without ``--url`` it starts ``earfold serve --workers 2`` (the embedded SQLite queue) on a
 free loopback port with a temporary data directory, removed afterwards. It uploads a
 generated 7.1.4 stem (``--stem-seconds``, 48 kHz, 16-bit noise whose level changes every
 second), then, ``--runs`` times: posts a comparison of four variants (KEMAR dry, KEMAR

@@ -2,10 +2,10 @@
 
 ::
 
-    python -m service.tools.load_poll                      # spawns its own server
-    python -m service.tools.load_poll --url http://127.0.0.1:8000 --token T
+    python -m earfold.service.tools.load_poll                      # spawns its own server
+    python -m earfold.service.tools.load_poll --url http://127.0.0.1:8000 --token T
 
-Without ``--url`` it starts ``ossicle serve --workers 2`` on a free loopback port with a
+Without ``--url`` it starts ``earfold serve --workers 2`` on a free loopback port with a
 temporary data directory (removed afterwards), so it can also read the server's CPU time.
 
 1. Submit-to-running with idle workers: ``--trials`` renders submitted one at a time;
@@ -212,7 +212,7 @@ async def run(url: str, *, pollers: int, seconds: float, interval: float, trials
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m service.tools.load_poll",
+    p = argparse.ArgumentParser(prog="python -m earfold.service.tools.load_poll",
                                 description=__doc__.split("\n\n")[0])
     p.add_argument("--url", help="a running server (loopback only); default: spawn one")
     p.add_argument("--workers", type=int, default=2, help="workers of a spawned server")

@@ -1,4 +1,4 @@
-"""A throw-away ``ossicle serve`` on a loopback port, for the measurement scripts.
+"""A throw-away ``earfold serve`` on a loopback port, for the measurement scripts.
 
 The scripts in this package measure a real server process (so that its CPU time and
 memory can be read from ``/proc``) and never talk to anything but loopback addresses.
@@ -25,7 +25,7 @@ START_TIMEOUT_S = 60.0
 
 def require_loopback(url: str) -> str:
     """``url`` if its host is a loopback address; ValueError otherwise."""
-    from service.serve_cli import is_loopback
+    from earfold.service.serve_cli import is_loopback
 
     host = urlsplit(url).hostname or ""
     if not is_loopback(host):
@@ -41,7 +41,7 @@ def free_port() -> int:
 
 
 class LocalServer:
-    """``ossicle serve`` with ``workers`` workers on a free port and a temporary data dir.
+    """``earfold serve`` with ``workers`` workers on a free port and a temporary data dir.
 
     Use as a context manager; on exit the server gets SIGTERM (its workers hand jobs
     back and stop) and the data directory is removed.
@@ -55,7 +55,7 @@ class LocalServer:
         self.url = f"http://127.0.0.1:{self.port}"
         # A given data directory is the caller's (a restart test reuses it) and is kept.
         self._own_dir = data_dir is None
-        self.data_dir = Path(tempfile.mkdtemp(prefix="ossicle-measure-")) / "data" \
+        self.data_dir = Path(tempfile.mkdtemp(prefix="earfold-measure-")) / "data" \
             if data_dir is None else Path(data_dir)
         self.proc: subprocess.Popen | None = None
 
@@ -66,7 +66,7 @@ class LocalServer:
 
     def __enter__(self) -> LocalServer:
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "service.serve_cli", "--port", str(self.port),
+            [sys.executable, "-m", "earfold.service.serve_cli", "--port", str(self.port),
              "--data-dir", str(self.data_dir), "--workers", str(self.workers),
              *self.extra_args],
             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,

@@ -2,14 +2,14 @@
 
 ::
 
-    python -m service.tools.scale_redis                         # Redis on 127.0.0.1:6379/0
-    python -m service.tools.scale_redis --redis redis://127.0.0.1:6380/0 --seconds 30
+    python -m earfold.service.tools.scale_redis                         # Redis on 127.0.0.1:6379/0
+    python -m earfold.service.tools.scale_redis --redis redis://127.0.0.1:6380/0 --seconds 30
 
-It starts ``ossicle serve --queue redis://...?prefix=UNIQUE --workers 0`` on a free
+It starts ``earfold serve --queue redis://...?prefix=UNIQUE --workers 0`` on a free
 loopback port (temporary data directory) and, in the same run:
 
 1. Throughput: a batch of ``--batch`` 7.1.4 renders of generated ``--seconds``-second
-   stems, submitted at once, with ``ossicle worker --processes 1`` and then with
+   stems, submitted at once, with ``earfold worker --processes 1`` and then with
    ``--processes 2``. The batch time is from the first ``created`` to the last
    ``finished`` stamp of the job records (server clocks, microsecond resolution); the
    ratio of the two is the speed-up.
@@ -66,7 +66,7 @@ def _stamp(store, job: dict, key: str) -> float:
 
 def _workers(url: str, data_dir: str, processes: int) -> subprocess.Popen:
     return subprocess.Popen(
-        [sys.executable, "-m", "service.cli", "worker", "--queue", url, "--data-dir", data_dir,
+        [sys.executable, "-m", "earfold.service.cli", "worker", "--queue", url, "--data-dir", data_dir,
          "--processes", str(processes)], stderr=subprocess.DEVNULL)
 
 
@@ -130,7 +130,7 @@ def overhead(store, http: httpx.Client, url: str, data_dir: str, tiny: str, tria
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m service.tools.scale_redis",
+    p = argparse.ArgumentParser(prog="python -m earfold.service.tools.scale_redis",
                                 description=__doc__.split("\n\n")[0])
     p.add_argument("--redis", default="redis://127.0.0.1:6379/0", help="Redis (loopback only)")
     p.add_argument("--batch", type=int, default=8, help="renders per batch (default 8)")
@@ -140,9 +140,9 @@ def main(argv: list[str] | None = None) -> int:
     args = p.parse_args(argv)
     host = urlsplit(args.redis).hostname or ""
     require_loopback(f"http://{host}/")
-    url = f"{args.redis}?prefix=ossicle-measure-{uuid.uuid4().hex[:10]}"
+    url = f"{args.redis}?prefix=earfold-measure-{uuid.uuid4().hex[:10]}"
 
-    from service.jobs.redis_store import RedisJobQueue
+    from earfold.service.jobs.redis_store import RedisJobQueue
 
     store = RedisJobQueue(url, deliver=False)
     store.ping()

@@ -2,9 +2,9 @@
 
 ::
 
-    python -m service.tools.upload_memory                 # 2 GB, spawns its own server
+    python -m earfold.service.tools.upload_memory                 # 2 GB, spawns its own server
 
-Starts ``ossicle serve --workers 0`` on a free loopback port with a temporary data
+Starts ``earfold serve --workers 0`` on a free loopback port with a temporary data
 directory, then uploads one WAV of ``--gb`` GB (10^9 bytes) to ``POST /v1/stems`` as a
 streamed multipart body generated on the fly (the client never holds the file either;
 Content-Length is declared, as curl does). The server's resident memory is read from
@@ -99,7 +99,7 @@ def measure(gb: float) -> dict:
 
             sampler = threading.Thread(target=sample, daemon=True)
             sampler.start()
-            boundary = "ossicle-measure-boundary-7f3a"
+            boundary = "earfold-measure-boundary-7f3a"
             length, body = multipart_body(int(gb * 1e9), boundary)
             t0 = time.perf_counter()
             resp = http.post("/v1/stems", content=body, headers={
@@ -134,7 +134,7 @@ def measure(gb: float) -> dict:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m service.tools.upload_memory",
+    p = argparse.ArgumentParser(prog="python -m earfold.service.tools.upload_memory",
                                 description=__doc__.split("\n\n")[0])
     p.add_argument("--gb", type=float, default=2.0, help="upload size in GB (10^9 bytes)")
     args = p.parse_args(argv)

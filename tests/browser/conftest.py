@@ -1,4 +1,4 @@
-"""Fixtures of the browser tests: a real ``ossicle serve`` and headless Chromium.
+"""Fixtures of the browser tests: a real ``earfold serve`` and headless Chromium.
 
 The pages are driven through playwright with the system's Chromium (Debian's ``chromium``
 package, ``/usr/bin/chromium``), never a downloaded browser. Where Chromium or playwright
@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from service.tools.local_server import LocalServer
+from earfold.service.tools.local_server import LocalServer
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 ARTEFACTS = REPO_ROOT / "test-artifacts"
@@ -28,8 +28,8 @@ def _missing(reason: str) -> None:
 
 
 def chromium_path() -> str:
-    """The system Chromium: ``$OSSICLE_CHROMIUM``, else ``chromium`` on PATH."""
-    path = os.environ.get("OSSICLE_CHROMIUM") or shutil.which("chromium") or ""
+    """The system Chromium: ``$EARFOLD_CHROMIUM``, else ``chromium`` on PATH."""
+    path = os.environ.get("EARFOLD_CHROMIUM") or shutil.which("chromium") or ""
     if not path or not Path(path).exists():
         _missing("Chromium is not installed (Debian: apt-get install chromium)")
     return path
@@ -70,7 +70,7 @@ def page(browser) -> Iterator[object]:
 
 @pytest.fixture(scope="module")
 def live_server() -> Iterator[LocalServer]:
-    """``ossicle serve`` with one worker on a free loopback port and a temporary data dir."""
+    """``earfold serve`` with one worker on a free loopback port and a temporary data dir."""
     with LocalServer(workers=1) as server:
         yield server
 

@@ -1,4 +1,4 @@
-"""The blind listening page in headless Chromium, against a real ``ossicle serve``.
+"""The blind listening page in headless Chromium, against a real ``earfold serve``.
 
 The test uploads a generated 5.1 stem, starts an A/B comparison of two variants, opens
 ``/compare/{id}``, plays, switches between A and B (checking that the sources keep
@@ -13,7 +13,7 @@ import time
 import httpx
 import pytest
 
-from renderer.audio_io import write_audio
+from earfold.renderer.audio_io import write_audio
 from tests.service.stem_factory import FS, noise
 
 pytestmark = pytest.mark.browser
@@ -45,7 +45,7 @@ def comparison(live_server, tmp_path_factory) -> dict:
 
 
 def _gains(page) -> dict:
-    return page.evaluate("window.ossicleListening.gains()")
+    return page.evaluate("window.earfoldListening.gains()")
 
 
 def test_listen_switch_answer_and_see_the_results(page, live_server, comparison, artefacts):
@@ -55,24 +55,24 @@ def test_listen_switch_answer_and_see_the_results(page, live_server, comparison,
     assert "Protect your hearing" in page.locator("#caution").inner_text()
     # Playback starts 20 dB down (common practice for previews; the issue asks for it).
     assert page.locator("#volume").input_value() == "-20"
-    assert page.evaluate("window.ossicleListening.master()") == pytest.approx(0.1, rel=1e-3)
+    assert page.evaluate("window.earfoldListening.master()") == pytest.approx(0.1, rel=1e-3)
 
     page.locator("#play").click()
-    page.wait_for_function("window.ossicleListening.playing()")
-    page.wait_for_function("window.ossicleListening.position() > 0.3")
-    assert page.evaluate("window.ossicleListening.sourceCount()") == 2  # A and B together
+    page.wait_for_function("window.earfoldListening.playing()")
+    page.wait_for_function("window.earfoldListening.position() > 0.3")
+    assert page.evaluate("window.earfoldListening.sourceCount()") == 2  # A and B together
     g = _gains(page)
     assert g["A"] == pytest.approx(1.0, abs=1e-3) and g["B"] == pytest.approx(0.0, abs=1e-3)
 
-    before = page.evaluate("window.ossicleListening.position()")
+    before = page.evaluate("window.earfoldListening.position()")
     page.keyboard.press("b")
     page.wait_for_timeout(150)  # many times the 3 ms ramp
-    after = page.evaluate("window.ossicleListening.position()")
+    after = page.evaluate("window.earfoldListening.position()")
     g = _gains(page)
     assert g["B"] == pytest.approx(1.0, abs=1e-3) and g["A"] == pytest.approx(0.0, abs=1e-3)
-    assert page.evaluate("window.ossicleListening.active()") == "B"
+    assert page.evaluate("window.earfoldListening.active()") == "B"
     # Switching moved only the gains: the same sources play on, the position went on.
-    assert page.evaluate("window.ossicleListening.sourceCount()") == 2
+    assert page.evaluate("window.earfoldListening.sourceCount()") == 2
     assert after > before
     assert page.locator("#sources button[data-label=B]").get_attribute("aria-pressed") == "true"
     page.locator("#sources button[data-label=A]").click()
@@ -106,7 +106,7 @@ def test_listen_switch_answer_and_see_the_results(page, live_server, comparison,
 def test_abx_with_an_api_token(page, tmp_path, artefacts):
     """With tokens on, the page asks for one and sends it with every request (the audio
     too: fetched with an Authorization header, then decoded)."""
-    from service.tools.local_server import LocalServer
+    from earfold.service.tools.local_server import LocalServer
 
     token = "listening-room-token-0123"
     tokens = tmp_path / "tokens.txt"
@@ -129,8 +129,8 @@ def test_abx_with_an_api_token(page, tmp_path, artefacts):
         assert page.locator("#sources button").all_inner_texts() == ["A", "B", "X"]
         assert "X is A" in page.locator("#answers").inner_text()
         page.keyboard.press("Space")
-        page.wait_for_function("window.ossicleListening.playing()")
-        assert page.evaluate("window.ossicleListening.sourceCount()") == 3
+        page.wait_for_function("window.earfoldListening.playing()")
+        assert page.evaluate("window.earfoldListening.sourceCount()") == 3
         page.keyboard.press("x")
         page.wait_for_timeout(100)
         g = _gains(page)

@@ -1,4 +1,4 @@
-"""The render page at ``/``, driven in headless Chromium against a real ``ossicle serve``.
+"""The render page at ``/``, driven in headless Chromium against a real ``earfold serve``.
 
 Each test saves a screenshot in ``test-artifacts/`` (the ``artefacts`` fixture).
 """
@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from service.tools.local_server import LocalServer
+from earfold.service.tools.local_server import LocalServer
 from tests.service.stem_factory import FS, write_mono_set, write_stem
 
 pytestmark = pytest.mark.browser
@@ -241,7 +241,7 @@ def test_token_server_asks_for_a_token_and_keeps_it_in_the_session(page, tmp_pat
         panel.wait_for(state="hidden")
         assert page.locator("#room option").count() >= 2  # the catalogue loaded
         assert sent[-1] == f"Bearer {token}"
-        assert page.evaluate("sessionStorage.getItem('ossicle.token')") == token
+        assert page.evaluate("sessionStorage.getItem('earfold.token')") == token
         assert page.evaluate("localStorage.length") == 0
         assert token not in page.evaluate("document.cookie")
         # A reload in the same tab keeps the token; the page does not ask again.

@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
-import renderer.audio_io as aio
+import earfold.renderer.audio_io as aio
 from audio_factory import pcm_codes, sine, write_au, write_pattern_wav, write_wav
-from renderer.audio_io import (
+from earfold.renderer.audio_io import (
     OutputWriter,
     StemInfo,
     StemReader,
@@ -24,7 +24,7 @@ from renderer.audio_io import (
     subtype_for,
     write_audio,
 )
-from renderer.errors import AudioError
+from earfold.renderer.errors import AudioError
 
 FS = 48000
 LSB16 = 2.0**-15
@@ -253,9 +253,9 @@ def test_blocks_memory_does_not_grow_with_file_length(tmp_path):
 
 
 def test_channel_mask_is_taken_from_the_channel_mask_module(tmp_path, monkeypatch):
-    fake = types.ModuleType("renderer.channel_mask")
+    fake = types.ModuleType("earfold.renderer.channel_mask")
     fake.read_channel_mask = lambda path: 0x3F  # type: ignore[attr-defined]
-    monkeypatch.setitem(sys.modules, "renderer.channel_mask", fake)
+    monkeypatch.setitem(sys.modules, "earfold.renderer.channel_mask", fake)
     path = write_wav(tmp_path / "six.wav", _noise(100, 6), FS, 16)
     assert probe_stem([path]).channel_mask == 0x3F
     a = _mono(tmp_path, "a.wav", 0.1, 10)
@@ -264,7 +264,7 @@ def test_channel_mask_is_taken_from_the_channel_mask_module(tmp_path, monkeypatc
 
 
 def test_missing_channel_mask_module_is_tolerated(tmp_path, monkeypatch):
-    monkeypatch.setitem(sys.modules, "renderer.channel_mask", None)  # import fails
+    monkeypatch.setitem(sys.modules, "earfold.renderer.channel_mask", None)  # import fails
     path = write_wav(tmp_path / "two.wav", _noise(100, 2), FS, 16)
     assert probe_stem([path]).channel_mask is None
 

@@ -5,11 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from renderer.audio_io import read_audio, write_audio
-from renderer.calibration import pink_band
-from renderer.layouts import get_layout
-from renderer.loudness import LoudnessMeter
-from renderer.render import RenderSettings, render
+from earfold.renderer.audio_io import read_audio, write_audio
+from earfold.renderer.calibration import pink_band
+from earfold.renderer.layouts import get_layout
+from earfold.renderer.loudness import LoudnessMeter
+from earfold.renderer.render import RenderSettings, render
 
 FS = 48000
 SECONDS = 8.0

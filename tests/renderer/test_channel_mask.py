@@ -8,16 +8,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from renderer.audio_io import write_audio
-from renderer.channel_mask import (
+from earfold.renderer.audio_io import write_audio
+from earfold.renderer.channel_mask import (
     SPEAKER_BITS,
     labels_from_mask,
     mask_for_labels,
     mask_to_speakers,
     read_channel_mask,
 )
-from renderer.errors import AudioError, LayoutError
-from renderer.layouts import LAYOUTS, layout_from_dict, resolve_channel_order
+from earfold.renderer.errors import AudioError, LayoutError
+from earfold.renderer.layouts import LAYOUTS, layout_from_dict, resolve_channel_order
 
 # KSDATAFORMAT_SUBTYPE_PCM {00000001-0000-0010-8000-00aa00389b71}, as stored (Microsoft
 # WAVEFORMATEXTENSIBLE documentation).
@@ -124,7 +124,7 @@ def test_non_wav_files_give_none(tmp_path):
 
 
 def test_files_written_by_libsndfile(tmp_path):
-    # Reference library: libsndfile (through renderer.audio_io) writes 6-channel RF64 as
+    # Reference library: libsndfile (through earfold.renderer.audio_io) writes 6-channel RF64 as
     # WAVE_FORMAT_EXTENSIBLE with the 5.1 mask 0x3F, FLAC with no RIFF header at all
     # (observed with libsndfile 1.2).
     x = np.zeros((16, 6), dtype=np.float32)

@@ -10,7 +10,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.spatial import SphericalVoronoi
 
-from renderer.equalisation import (
+from earfold.renderer.equalisation import (
     MAX_BOOST_DB,
     MAX_CELL_FACTOR,
     EqualisationError,
@@ -21,8 +21,8 @@ from renderer.equalisation import (
     solid_angle_weights,
     voronoi_areas,
 )
-from renderer.hrir import HrirSet, load_hrir_set
-from renderer.sofa import read_sofa
+from earfold.renderer.hrir import HrirSet, load_hrir_set
+from earfold.renderer.sofa import read_sofa
 
 REPO = Path(__file__).resolve().parents[2]
 SHIPPED = [REPO / "hrtf_sets" / "MIT_KEMAR_normal_pinna.sofa", REPO / "hrtf_sets" / "rigid_sphere.sofa"]
@@ -122,7 +122,7 @@ def test_equalised_shipped_sets_are_flat_within_1db(path, rate):
 
 
 def test_equalised_measured_sets_are_flat_within_1db(shared_sofa_dir):
-    from renderer.errors import HrirError
+    from earfold.renderer.errors import HrirError
 
     measured = sorted((shared_sofa_dir / "measured").glob("*.sofa"))
     checked = []
@@ -185,7 +185,7 @@ def test_lookups_filter_after_interpolating_like_interpolating_filtered_response
     """The equalised set looks directions up on the original responses and filters the
     pair; a plain set built from the filtered responses must give the same pair (exactly
     at a measured direction, to within its onset estimate elsewhere)."""
-    from renderer.geometry import direction_to_vector
+    from earfold.renderer.geometry import direction_to_vector
 
     raw = load_hrir_set(SHIPPED[0], 48000)
     eq_set, _ = equalised(raw)
@@ -206,7 +206,7 @@ def test_lookups_filter_after_interpolating_like_interpolating_filtered_response
 
 
 def test_sets_holding_a_room_are_not_equalised_by_default():
-    from renderer.render import _equalise
+    from earfold.renderer.render import _equalise
 
     grid = _icosahedron()
     rng = np.random.default_rng(1)
@@ -230,12 +230,12 @@ def test_equalisation_leaves_the_engines_work_per_block_unchanged(tmp_path, path
     """Why EQ costs nothing per block: an equalised HRIR is longer (the inverse filter
     adds INVERSE_SECONDS, shortened at 192 kHz), but it still fits the engine's single
     partition, so the engine does the same transforms and multiply-accumulates with and
-    without it. (`ossicle bench` measures the time; this checks the cause, without a
+    without it. (`earfold bench` measures the time; this checks the cause, without a
     clock.)"""
     import dataclasses
 
-    from renderer.audio_io import write_audio
-    from renderer.render import RenderSettings, _Engine, plan_render
+    from earfold.renderer.audio_io import write_audio
+    from earfold.renderer.render import RenderSettings, _Engine, plan_render
 
     stem = tmp_path / "stem.wav"
     write_audio(stem, np.zeros((rate // 10, 12), dtype=np.float32), rate)

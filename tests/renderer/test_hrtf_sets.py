@@ -11,13 +11,13 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-import hrtf_sets
-from hrtf_sets import DEFAULT_SET, SHIPPED, ShippedSet, get_shipped, list_shipped
-from renderer.errors import HrirError
-from renderer.geometry import direction_to_vector
-from renderer.onsets import cross_correlation_itd, interaural_time_difference
-from renderer.sofa import read_sofa
-from renderer.sphere import main as sphere_main
+import earfold.hrtf_sets
+from earfold.hrtf_sets import DEFAULT_SET, SHIPPED, ShippedSet, get_shipped, list_shipped
+from earfold.renderer.errors import HrirError
+from earfold.renderer.geometry import direction_to_vector
+from earfold.renderer.onsets import cross_correlation_itd, interaural_time_difference
+from earfold.renderer.sofa import read_sofa
+from earfold.renderer.sphere import main as sphere_main
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 A = 0.0875  # head radius, m (REFERENCES.md)
@@ -59,7 +59,7 @@ def test_entries_are_frozen():
 
 @pytest.mark.parametrize("entry", SHIPPED, ids=lambda s: s.name)
 def test_files_and_citation_notes_exist(entry: ShippedSet):
-    assert entry.path.parent == Path(hrtf_sets.__file__).resolve().parent
+    assert entry.path.parent == Path(earfold.hrtf_sets.__file__).resolve().parent
     assert entry.path.is_file()
     assert entry.notes_path.is_file()
     notes = entry.notes_path.read_text(encoding="utf-8")
@@ -84,8 +84,8 @@ def test_catalogue_imports_without_netcdf4():
     # listing sets never needs the SOFA reader.
     code = (
         "import sys; sys.modules['netCDF4'] = None; sys.modules['soundfile'] = None\n"
-        "import hrtf_sets\n"
-        "print(len(hrtf_sets.list_shipped()))\n"
+        "import earfold.hrtf_sets\n"
+        "print(len(earfold.hrtf_sets.list_shipped()))\n"
     )
     done = subprocess.run(
         [sys.executable, "-c", code], cwd=REPO_ROOT, capture_output=True, text=True, timeout=60

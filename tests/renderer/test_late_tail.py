@@ -9,10 +9,10 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from hrtf_sets import get_shipped
-from renderer.geometry import direction_to_vector
-from renderer.hrir import HrirSet, load_hrir_set
-from renderer.late_tail import (
+from earfold.hrtf_sets import get_shipped
+from earfold.renderer.geometry import direction_to_vector
+from earfold.renderer.hrir import HrirSet, load_hrir_set
+from earfold.renderer.late_tail import (
     EAR_DISTANCE,
     TAIL_RANGE_DB,
     band_weights,
@@ -22,8 +22,8 @@ from renderer.late_tail import (
     sphere_coherence,
     tail_length,
 )
-from renderer.room import BANDS_HZ, ROOMS, SURFACES, RoomError, room_from_dict
-from renderer.room_filters import measure_rt60
+from earfold.renderer.room import BANDS_HZ, ROOMS, SURFACES, RoomError, room_from_dict
+from earfold.renderer.room_filters import measure_rt60
 
 FS = 16000
 

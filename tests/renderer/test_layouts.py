@@ -11,9 +11,9 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from renderer.channel_mask import labels_from_mask
-from renderer.errors import LayoutError
-from renderer.layouts import (
+from earfold.renderer.channel_mask import labels_from_mask
+from earfold.renderer.errors import LayoutError
+from earfold.renderer.layouts import (
     LAYOUTS,
     MAX_SPEAKERS,
     Layout,

@@ -1,7 +1,7 @@
 """Tests of the look-ahead true-peak limiter.
 
 The ceiling is checked with an independent reading of the output: a fresh
-:class:`renderer.loudness.TruePeakMeter` (BS.1770-4 Annex 2 method, 4x oversampling,
+:class:`earfold.renderer.loudness.TruePeakMeter` (BS.1770-4 Annex 2 method, 4x oversampling,
 checked against EBU Tech 3341 in test_loudness.py) run on the float32 output. Hard
 signals follow the issue's list: full-scale square waves, fs/4 sines at 45 degrees,
 clipped noise, single impulses (also on the first and last frame), bursts after silence,
@@ -14,9 +14,9 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
-from renderer.errors import AudioError
-from renderer.limiter import TARGET_MARGIN_DB, TruePeakLimiter
-from renderer.loudness import true_peak
+from earfold.renderer.errors import AudioError
+from earfold.renderer.limiter import TARGET_MARGIN_DB, TruePeakLimiter
+from earfold.renderer.loudness import true_peak
 
 FS = 48000
 
@@ -231,7 +231,7 @@ def stricter_check(x: np.ndarray, monkeypatch=None, normal_passes=None):
     pass leaves points over and the correction passes must act (white box: on real
     settings the first pass has always sufficed on the signals above)."""
     if normal_passes is not None:
-        import renderer.limiter as limiter_module
+        import earfold.renderer.limiter as limiter_module
 
         monkeypatch.setattr(limiter_module, "_NORMAL_PASSES", normal_passes)
     lim = TruePeakLimiter(FS, x.shape[1])

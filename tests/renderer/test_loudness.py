@@ -23,11 +23,11 @@ import pytest
 import scipy.signal
 from numpy.testing import assert_allclose
 
-import renderer.loudness as loudness
-from renderer.audio_io import write_audio
-from renderer.errors import AudioError
-from renderer.layouts import get_layout
-from renderer.loudness import (
+import earfold.renderer.loudness as loudness
+from earfold.renderer.audio_io import write_audio
+from earfold.renderer.errors import AudioError
+from earfold.renderer.layouts import get_layout
+from earfold.renderer.loudness import (
     K_WEIGHTING_48K,
     LoudnessMeter,
     PeakInterpolator,

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from renderer.errors import HrirError
-from renderer.onsets import (
+from earfold.renderer.errors import HrirError
+from earfold.renderer.onsets import (
     cross_correlation_itd,
     fractional_delay,
     interaural_time_difference,

@@ -6,7 +6,7 @@ import threading
 
 import pytest
 
-from renderer.pipeline import BackgroundWriter, prefetch
+from earfold.renderer.pipeline import BackgroundWriter, prefetch
 
 
 def test_prefetch_keeps_order_and_items():

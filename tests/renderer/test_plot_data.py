@@ -10,10 +10,10 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from renderer.audio_io import write_audio
-from renderer.plot_data import (LOUDNESS_POINTS, SpectrumMeter, energy_decay, schroeder_db,
+from earfold.renderer.audio_io import write_audio
+from earfold.renderer.plot_data import (LOUDNESS_POINTS, SpectrumMeter, energy_decay, schroeder_db,
                                 thin_series, third_octave_bands)
-from renderer.render import RenderSettings, render
+from earfold.renderer.render import RenderSettings, render
 
 FS = 48000
 

@@ -8,12 +8,12 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from renderer.audio_io import read_audio, write_audio
-from renderer.convolution import convolve_reference
-from renderer.errors import LayoutError, RendererError
-from renderer.layouts import get_layout
-from renderer.onsets import interaural_time_difference
-from renderer.render import RenderCancelled, RenderSettings, plan_render, render
+from earfold.renderer.audio_io import read_audio, write_audio
+from earfold.renderer.convolution import convolve_reference
+from earfold.renderer.errors import LayoutError, RendererError
+from earfold.renderer.layouts import get_layout
+from earfold.renderer.onsets import interaural_time_difference
+from earfold.renderer.render import RenderCancelled, RenderSettings, plan_render, render
 
 FS = 48000
 
@@ -198,7 +198,7 @@ def test_shared_tail_in_chunks_equals_exact_brirs(tmp_path, monkeypatch, chunk, 
     direct output held until its tail is ready: still the whole convolution, frame for
     frame (oracle: scipy.signal.oaconvolve of the full room responses), whatever the
     chunk, block and stem lengths."""
-    import renderer.render as render_module
+    import earfold.renderer.render as render_module
 
     monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", chunk)
     lay = get_layout("5.1")
@@ -218,7 +218,7 @@ def test_room_and_headphone_eq_equal_the_cascade_of_references(tmp_path, monkeyp
     """Shared tail in chunks, then headphone EQ on the two ears: the render equals the
     exact room responses convolved (scipy.signal.oaconvolve) and then the headphone
     filter bank convolved again, over the whole length."""
-    import renderer.render as render_module
+    import earfold.renderer.render as render_module
 
     monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", 3000)
     bands = [{"type": "peaking", "frequency": 3000.0, "gain_db": -4.0, "q": 1.2},
@@ -287,7 +287,7 @@ def test_match_keeps_the_input_loudness_under_the_ceiling(tmp_path):
     independent implementation of ITU-R BS.1770."""
     import pyloudnorm
 
-    from renderer.loudness import channel_weights, measure_file, true_peak
+    from earfold.renderer.loudness import channel_weights, measure_file, true_peak
 
     lay = get_layout("5.1")
     feeds = {label: _noise(2 * FS, k) for k, label in enumerate(lay.labels) if label != "LFE"}
@@ -307,7 +307,7 @@ def test_match_keeps_the_input_loudness_under_the_ceiling(tmp_path):
 def test_loud_target_is_limited_to_the_ceiling(tmp_path):
     """A target far above what the material allows: the limiter holds the ceiling, checked
     by an independent 4x-oversampled true-peak measurement of the written file."""
-    from renderer.loudness import true_peak
+    from earfold.renderer.loudness import true_peak
 
     stem, _ = _stem(tmp_path, "2.0", {"L": 4 * _noise(FS), "R": 4 * _noise(FS, 9)}, frames=FS)
     out = tmp_path / "loud.wav"

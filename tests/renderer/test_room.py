@@ -11,9 +11,9 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
-from renderer.errors import RendererError
-from renderer.layouts import LAYOUTS
-from renderer.room import (
+from earfold.renderer.errors import RendererError
+from earfold.renderer.layouts import LAYOUTS
+from earfold.renderer.room import (
     BANDS_HZ,
     ROOMS,
     SURFACES,

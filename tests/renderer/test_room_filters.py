@@ -10,18 +10,18 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
-from renderer.convolution import convolve_reference
-from renderer.geometry import direction_to_vector
-from renderer.hrir import HrirSet
-from renderer.layouts import Layout, Speaker, get_layout
-from renderer.room import BANDS_HZ, ROOMS, SPEED_OF_SOUND, SURFACES, RoomError, room_from_dict
-from renderer.room_filters import (
+from earfold.renderer.convolution import convolve_reference
+from earfold.renderer.geometry import direction_to_vector
+from earfold.renderer.hrir import HrirSet
+from earfold.renderer.layouts import Layout, Speaker, get_layout
+from earfold.renderer.room import BANDS_HZ, ROOMS, SPEED_OF_SOUND, SURFACES, RoomError, room_from_dict
+from earfold.renderer.room_filters import (
     _minimum_phase_spectrum,
     build_room_filters,
     exact_brirs,
     measure_rt60,
 )
-from renderer.sphere import sphere_grid
+from earfold.renderer.sphere import sphere_grid
 
 FS = 16000
 

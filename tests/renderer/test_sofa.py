@@ -1,4 +1,4 @@
-"""Tests of renderer.sofa: reading the SOFA variants met in practice, rejecting broken files,
+"""Tests of earfold.renderer.sofa: reading the SOFA variants met in practice, rejecting broken files,
 and writing SimpleFreeFieldHRIR 1.0 files.
 
 Synthetic files come from the committed generator ``sofa_factory`` (netCDF4 directly); the
@@ -22,9 +22,9 @@ from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
 import sofa_factory as fac
-from renderer.errors import SofaError
-from renderer.geometry import direction_to_vector
-from renderer.sofa import MAX_TAPS, SofaData, read_sofa, write_sofa
+from earfold.renderer.errors import SofaError
+from earfold.renderer.geometry import direction_to_vector
+from earfold.renderer.sofa import MAX_TAPS, SofaData, read_sofa, write_sofa
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 
@@ -189,8 +189,8 @@ def test_malformed_files_neither_crash_nor_hang(shared_sofa_dir):
     # A crash in the HDF5 C library would kill pytest itself; one child reads all files.
     script = (
         "import sys\n"
-        "from renderer.sofa import read_sofa\n"
-        "from renderer.errors import SofaError\n"
+        "from earfold.renderer.sofa import read_sofa\n"
+        "from earfold.renderer.errors import SofaError\n"
         "for p in sys.argv[1:]:\n"
         "    try:\n"
         "        read_sofa(p)\n"
@@ -249,7 +249,7 @@ def test_truncated_synthetic_file_raises(tmp_path):
 def test_spherical_degrees_baseline(tmp_path):
     spec = fac.simple_free_field()
     data = read_sofa(write_spec(tmp_path, spec))
-    # Unit vectors against renderer.geometry (the SOFA spherical convention, AES69).
+    # Unit vectors against earfold.renderer.geometry (the SOFA spherical convention, AES69).
     assert_allclose(data.directions, expected_directions(), atol=1e-12)
     assert_allclose(data.distances, fac.RADIUS, rtol=1e-12)
     assert_array_equal(data.ir, spec.variables["Data.IR"].data)
@@ -694,7 +694,7 @@ def test_write_read_round_trip_is_exact(tmp_path):
         "SimpleFreeFieldHRIR", "1.0", "2.0", "FIR",
     )
     assert data.room_type == "free field"
-    assert data.attributes["APIName"] == "ossicle"
+    assert data.attributes["APIName"] == "earfold"
 
 
 def test_write_global_delay_and_scalar_distance(tmp_path):
@@ -717,7 +717,7 @@ REQUIRED_ATTRIBUTES = {
     "SOFAConventionsVersion": "1.0",
     "DataType": "FIR",
     "RoomType": "free field",
-    "APIName": "ossicle",
+    "APIName": "earfold",
 }
 REQUIRED_PRESENT = [
     "APIVersion", "AuthorContact", "Organization", "License", "DateCreated", "DateModified",

@@ -7,10 +7,10 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import special
 
-from renderer.errors import HrirError
-from renderer.geometry import direction_to_vector
-from renderer.onsets import cross_correlation_itd, interaural_time_difference, onset_times
-from renderer.sphere import (
+from earfold.renderer.errors import HrirError
+from earfold.renderer.geometry import direction_to_vector
+from earfold.renderer.onsets import cross_correlation_itd, interaural_time_difference, onset_times
+from earfold.renderer.sphere import (
     LEAD_SAMPLES,
     series_terms,
     sphere_grid,

@@ -12,8 +12,8 @@ with warnings.catch_warnings():
     warnings.filterwarnings("ignore", message="Using `httpx` with `starlette.testclient`")
     from starlette.testclient import TestClient
 
-from service.app import create_app
-from service.settings import ServiceSettings
+from earfold.service.app import create_app
+from earfold.service.settings import ServiceSettings
 
 
 @pytest.fixture

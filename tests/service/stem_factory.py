@@ -6,8 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-from renderer.audio_io import write_audio
-from renderer.layouts import get_layout
+from earfold.renderer.audio_io import write_audio
+from earfold.renderer.layouts import get_layout
 
 FS = 48000
 

@@ -1,4 +1,4 @@
-"""The ``ossicle`` command line: happy paths and one-line errors with exit status 2."""
+"""The ``earfold`` command line: happy paths and one-line errors with exit status 2."""
 
 from __future__ import annotations
 
@@ -9,8 +9,8 @@ import sys
 import numpy as np
 import pytest
 
-from renderer.audio_io import read_audio, write_audio
-from service.cli import main
+from earfold.renderer.audio_io import read_audio, write_audio
+from earfold.service.cli import main
 
 FS = 48000
 
@@ -18,7 +18,7 @@ FS = 48000
 def _run(*args: str) -> subprocess.CompletedProcess:
     """Run the CLI in a fresh interpreter, as a user would (no TTY: no progress)."""
     return subprocess.run(
-        [sys.executable, "-m", "service.cli", *args], capture_output=True, text=True, timeout=120
+        [sys.executable, "-m", "earfold.service.cli", *args], capture_output=True, text=True, timeout=120
     )
 
 
@@ -27,7 +27,7 @@ def _assert_one_line_error(proc: subprocess.CompletedProcess, pattern: str) -> N
     assert "Traceback" not in proc.stderr
     lines = [line for line in proc.stderr.splitlines() if line.strip()]
     assert len(lines) == 1, proc.stderr
-    assert lines[0].startswith("ossicle: error:")
+    assert lines[0].startswith("earfold: error:")
     assert pattern in lines[0]
 
 
@@ -164,17 +164,17 @@ def test_demo_renders_a_714_stem(tmp_path, capsys):
 
 def test_bench_smoke(capsys, tmp_path):
     """The benchmark runs end to end on a tiny stem (its figures are not asserted: timing
-    belongs to `ossicle bench`, not to tests)."""
-    from renderer.bench import format_bench, run_bench
+    belongs to `earfold bench`, not to tests)."""
+    from earfold.renderer.bench import format_bench, run_bench
 
     result = run_bench(seconds=1.0, layouts=["2.0"], memory_check=False, workdir=tmp_path)
     row = result["layouts"]["2.0"]
-    assert set(row) >= {"ossicle", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor",
+    assert set(row) >= {"earfold", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor",
                         "delivery_added", "delivery_loud_added", "eq_added", "eq_prepare_s"}
-    from renderer.bench import DELIVERY_ROUNDS, EQ_ROUNDS
+    from earfold.renderer.bench import DELIVERY_ROUNDS, EQ_ROUNDS
 
-    assert len(row["ossicle_delivered"]["round_ratios"]) == DELIVERY_ROUNDS
-    assert len(row["ossicle_delivered_loud"]["round_ratios"]) == DELIVERY_ROUNDS
+    assert len(row["earfold_delivered"]["round_ratios"]) == DELIVERY_ROUNDS
+    assert len(row["earfold_delivered_loud"]["round_ratios"]) == DELIVERY_ROUNDS
     assert len(row["eq_on"]["round_ratios"]) == EQ_ROUNDS
     assert row["eq_engine"]["blocks"] >= 1 and row["eq_engine"]["on_seconds"] > 0
     assert "2.0" in format_bench(result)
@@ -183,7 +183,7 @@ def test_bench_smoke(capsys, tmp_path):
 def test_bench_rounds_alternate_and_compare_within_a_round():
     """Interleaved rounds reverse their order every other round, and each round's ratio
     uses the reference run of the same round."""
-    from renderer.bench import interleaved, round_ratios
+    from earfold.renderer.bench import interleaved, round_ratios
 
     calls = []
     times = iter([1.0, 2.0, 4.0, 3.0, 5.0, 10.0])  # A B | B A | A B
@@ -204,7 +204,7 @@ def test_bench_rounds_alternate_and_compare_within_a_round():
 def test_bench_memory_check_covers_the_delivered_render(tmp_path):
     """The memory check runs the raw and the delivered render at both lengths (figures
     not asserted, as above: only that they are measured and shown)."""
-    from renderer.bench import format_bench, run_bench
+    from earfold.renderer.bench import format_bench, run_bench
 
     result = run_bench(seconds=0.5, layouts=["2.0"], workdir=tmp_path)
     mem = result["memory"]

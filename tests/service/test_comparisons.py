@@ -1,7 +1,7 @@
 """``/v1/comparisons``: requests, states, blindness, answers, resuming, reveal and export.
 
 Builds run through the real queue: the test's worker claims the comparison job and runs
-the build child, as ``ossicle serve`` does.
+the build child, as ``earfold serve`` does.
 
 References
 ----------
@@ -20,8 +20,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from renderer.audio_io import write_audio
-from service.jobs.worker import Worker
+from earfold.renderer.audio_io import write_audio
+from earfold.service.jobs.worker import Worker
 from tests.service.stem_factory import FS, files_field, noise, write_stem
 
 FAST = {"tick_s": 0.05, "poll_s": 0.02, "lease_s": 5.0}
@@ -262,7 +262,7 @@ def test_an_unknown_or_malformed_id_is_404(client):
 
 
 def test_retention_removes_old_sessions_but_not_one_being_built(make_client, tmp_path):
-    from service.retention import sweep
+    from earfold.service.retention import sweep
 
     client = make_client()
     stem = _stem(client, tmp_path)
@@ -277,12 +277,12 @@ def test_retention_removes_old_sessions_but_not_one_being_built(make_client, tmp
 
 
 def test_a_real_server_builds_in_a_forked_warm_worker(tmp_path):
-    """``ossicle serve`` forks builds from its warmed-up worker (service.comparisons.forked)."""
+    """``earfold serve`` forks builds from its warmed-up worker (earfold.service.comparisons.forked)."""
     import time
 
     import httpx
 
-    from service.tools.local_server import LocalServer
+    from earfold.service.tools.local_server import LocalServer
 
     path = write_stem(tmp_path / "tide.wav", FS * 3, 6)
     with LocalServer(workers=1) as server, httpx.Client(base_url=server.url, timeout=30) as http:
@@ -306,8 +306,8 @@ def test_a_real_server_builds_in_a_forked_warm_worker(tmp_path):
 
 
 def test_the_build_spec_points_an_uploaded_hrtf_set_at_its_stored_file(client, tmp_path):
-    from service.comparisons.build_child import child_spec
-    from service.storage import write_json_atomic
+    from earfold.service.comparisons.build_child import child_spec
+    from earfold.service.storage import write_json_atomic
 
     storage = client.app.state.storage
     stem = _stem(client, tmp_path)

@@ -1,4 +1,4 @@
-"""Statistics and blind assignment of comparisons (service.comparisons.stats, .assignment).
+"""Statistics and blind assignment of comparisons (earfold.service.comparisons.stats, .assignment).
 
 References
 ----------
@@ -18,7 +18,7 @@ import re
 import pytest
 from scipy import stats
 
-from service.comparisons import (binomial_p_at_least, binomial_p_two_sided, draw_trials,
+from earfold.service.comparisons import (binomial_p_at_least, binomial_p_two_sided, draw_trials,
                                  preference_counts)
 
 # ----------------------------------------------------------------------------- p-values

@@ -21,7 +21,7 @@ import pytest
 import yaml
 from stem_factory import FS, files_field, write_stem
 
-from service.tools.local_server import free_port
+from earfold.service.tools.local_server import free_port
 
 REPO = Path(__file__).resolve().parents[2]
 DOCKER = REPO / "docker"
@@ -57,12 +57,12 @@ def test_dockerfile_slim_base_non_root_healthcheck_and_sets():
     assert users and users[-1] not in ("root", "0")
     (health,) = instruction("HEALTHCHECK")
     assert "/v1/health" in health
-    assert json.loads(instruction("ENTRYPOINT")[0]) == ["ossicle"]
+    assert json.loads(instruction("ENTRYPOINT")[0]) == ["earfold"]
     copied = " ".join(instruction("COPY"))
     assert "hrtf_sets" in copied and "renderer" in copied and "service" in copied
     # A regular install, so the shipped SOFA sets come as package data.
     run = " ".join(instruction("RUN"))
-    assert "pip install ." in run and "-e " not in run
+    assert "pip install '.[redis]'" in run and "-e " not in run
     ignore = (DOCKER / "Dockerfile.dockerignore").read_text().split()
     assert "!hrtf_sets/" in ignore
 
@@ -71,10 +71,11 @@ def test_shipped_sets_are_package_data():
     import tomllib
 
     project = tomllib.loads((REPO / "pyproject.toml").read_text())
-    assert "*.sofa" in project["tool"]["setuptools"]["package-data"]["hrtf_sets"]
+    assert "*.sofa" in project["tool"]["setuptools"]["package-data"]["earfold.hrtf_sets"]
     assert list((REPO / "hrtf_sets").glob("*.sofa"))
-    deps = " ".join(project["project"]["dependencies"])
-    assert "dramatiq" in deps and "redis" in deps
+    # The queue libraries are the [redis] extra, which the image installs.
+    extra = " ".join(project["project"]["optional-dependencies"]["redis"])
+    assert "dramatiq" in extra and "redis" in extra
 
 
 def test_compose_has_api_scalable_workers_redis_and_a_shared_volume():
@@ -90,7 +91,7 @@ def test_compose_has_api_scalable_workers_redis_and_a_shared_volume():
     assert worker["volumes"][0].split(":")[0] == volume
     assert volume in compose()["volumes"]
     assert "--appendonly" in redis["command"]
-    assert api["environment"]["OSSICLE_TOKENS"].startswith("${OSSICLE_TOKENS:?")
+    assert api["environment"]["EARFOLD_TOKENS"].startswith("${EARFOLD_TOKENS:?")
     assert "--check" in worker["healthcheck"]["test"]
     readme = (REPO / "README.md").read_text()
     assert "docker compose -f docker/compose.yaml up --scale worker=4" in readme
@@ -102,8 +103,8 @@ def _local(argv: list[str], data: Path, port: int, queue_url: str) -> list[str]:
     for arg in argv:
         arg = arg.replace("redis://redis:6379/0", queue_url).replace("8000", str(port))
         out.append(str(data) if arg == "/data" else arg)
-    if out and out[0] == "ossicle":
-        out = [sys.executable, "-m", "service.cli", *out[1:]]
+    if out and out[0] == "earfold":
+        out = [sys.executable, "-m", "earfold.service.cli", *out[1:]]
     elif out and out[0] == "python":
         out = [sys.executable, *out[1:]]
     return out
@@ -127,7 +128,7 @@ def test_the_image_commands_run_and_render(tmp_path, redis_queue_url, procs):
     data = tmp_path / "data"
     data.mkdir()
     port = free_port()
-    env = {**os.environ, "OSSICLE_TOKENS": TOKEN}
+    env = {**os.environ, "EARFOLD_TOKENS": TOKEN}
     entry = json.loads(instruction("ENTRYPOINT")[0])
     services = compose()["services"]
     api_cmd = _local(entry + services["api"]["command"], data, port, redis_queue_url)

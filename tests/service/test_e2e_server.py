@@ -1,4 +1,4 @@
-"""End to end against a real ``ossicle serve`` process on a loopback port.
+"""End to end against a real ``earfold serve`` process on a loopback port.
 
 Uploads generated stems, renders, polls, downloads and compares the samples with the
 renderer run directly on the same files with the same settings (the oracle: they must be
@@ -19,14 +19,14 @@ import pytest
 from numpy.testing import assert_array_equal
 from stem_factory import FS, files_field, write_mono_set, write_stem
 
-from renderer.audio_io import read_audio
-from renderer.render import RenderSettings, render
-from service.jobs.sqlite_store import SqliteJobQueue
-from service.tools.local_server import LocalServer
+from earfold.renderer.audio_io import read_audio
+from earfold.renderer.render import RenderSettings, render
+from earfold.service.jobs.sqlite_store import SqliteJobQueue
+from earfold.service.tools.local_server import LocalServer
 
 
 class Server(LocalServer):
-    """A started ``ossicle serve`` on ``data_dir`` with short lease and tick times."""
+    """A started ``earfold serve`` on ``data_dir`` with short lease and tick times."""
 
     def __init__(self, data_dir: Path, workers: int) -> None:
         super().__init__(workers, ["--lease-seconds", "2", "--tick-seconds", "0.05",

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from hrtf_sets import get_shipped
-from service.hrtf_check import HrtfCheckFailed, check_sofa
+from earfold.hrtf_sets import get_shipped
+from earfold.service.hrtf_check import HrtfCheckFailed, check_sofa
 
 
 def _upload(client, name: str, content: bytes):

@@ -12,8 +12,8 @@ import threading
 
 import pytest
 
-from service.jobs import JobNotFound, JobQueue, JobState, QueueFull, WrongState, can_move
-from service.jobs.sqlite_store import SqliteJobQueue
+from earfold.service.jobs import JobNotFound, JobQueue, JobState, QueueFull, WrongState, can_move
+from earfold.service.jobs.sqlite_store import SqliteJobQueue
 
 
 class FakeClock:
@@ -29,7 +29,7 @@ def _sqlite(request, tmp_path, clock):
 
 
 def _redis(request, tmp_path, clock):
-    from service.jobs.redis_store import RedisJobQueue
+    from earfold.service.jobs.redis_store import RedisJobQueue
 
     # One prefix per test (the fixture deletes its keys), shared by every queue the test
     # opens, as several API and worker processes share one Redis.

@@ -16,15 +16,15 @@ import pytest
 import schemathesis  # noqa: E402  (a declared test dependency: fail loudly when missing)
 from hypothesis import HealthCheck, settings  # noqa: E402 - schemathesis brings hypothesis
 
-from service.app import create_app  # noqa: E402
-from service.settings import ServiceSettings  # noqa: E402
+from earfold.service.app import create_app  # noqa: E402
+from earfold.service.settings import ServiceSettings  # noqa: E402
 
 #: Examples per operation; enough to reach each documented status, few enough for CI.
 MAX_EXAMPLES = 12
 
 # The schema is read when the module is collected, so the app exists from then on; its
 # data directory goes away with the module (see the fixture below).
-_DATA = tempfile.TemporaryDirectory(prefix="ossicle-fuzz-")
+_DATA = tempfile.TemporaryDirectory(prefix="earfold-fuzz-")
 APP = create_app(ServiceSettings(data_dir=_DATA.name, min_free_bytes=0,
                                  hrtf_check_timeout_s=10.0))
 schema = schemathesis.openapi.from_asgi("/openapi.json", APP)

@@ -19,9 +19,9 @@ import pytest
 from stem_factory import FS, files_field, write_stem
 from test_redis_scaleout import Api, Workers
 
-from service.jobs import QueueUnavailable
-from service.jobs.redis_store import RedisJobQueue, display_url, parse_url
-from service.tools.local_server import free_port
+from earfold.service.jobs import QueueUnavailable
+from earfold.service.jobs.redis_store import RedisJobQueue, display_url, parse_url
+from earfold.service.tools.local_server import free_port
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -125,7 +125,7 @@ def test_store_calls_raise_queue_unavailable_when_nothing_listens():
 
 
 def test_queue_url_parsing():
-    assert parse_url("redis://h:6380/2") == ("redis://h:6380/2", "ossicle")
+    assert parse_url("redis://h:6380/2") == ("redis://h:6380/2", "earfold")
     assert parse_url("redis://h:6380/2?prefix=site-b") == ("redis://h:6380/2", "site-b")
     assert parse_url("redis://h/0?prefix=x&ssl_cert_reqs=none") == (
         "redis://h/0?ssl_cert_reqs=none", "x")
@@ -160,7 +160,7 @@ def test_unsent_messages_are_sent_again(redis_queue_url):
 
 
 def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "service.cli", *args], cwd=REPO,
+    return subprocess.run([sys.executable, "-m", "earfold.service.cli", *args], cwd=REPO,
                           capture_output=True, text=True, timeout=60)
 
 
@@ -183,9 +183,9 @@ def test_worker_check(tmp_path, redis_queue_url):
 
 def test_poison_job_fails_after_its_attempts(redis_queue_url, tmp_path):
     # A render child that dies without a word every time (as under the OOM killer).
-    from service.jobs.redis_worker import RedisWorker
-    from service.settings import ServiceSettings
-    from service.storage import Storage, new_id, write_json_atomic
+    from earfold.service.jobs.redis_worker import RedisWorker
+    from earfold.service.settings import ServiceSettings
+    from earfold.service.storage import Storage, new_id, write_json_atomic
 
     data = tmp_path / "data"
     storage = Storage(data)
@@ -232,8 +232,8 @@ def test_retention_sweep_survives_an_outage(tmp_path):
     # The app's background sweep must outlive a job store that does not answer.
     import asyncio
 
-    from service.app import _sweep_forever, create_app
-    from service.settings import ServiceSettings
+    from earfold.service.app import _sweep_forever, create_app
+    from earfold.service.settings import ServiceSettings
 
     down = f"redis://127.0.0.1:{free_port()}/0"
     app = create_app(ServiceSettings(data_dir=tmp_path / "data", queue_url=down, sweep_s=0.01))
@@ -264,8 +264,8 @@ def test_a_second_api_on_a_shared_queue_keeps_uploads_in_progress(tmp_path, redi
 
 
 def test_retention_sweeps_of_two_apis_do_not_trip_over_each_other(tmp_path, redis_queue_url):
-    from service.retention import sweep
-    from service.storage import Storage
+    from earfold.service.retention import sweep
+    from earfold.service.storage import Storage
 
     storage = Storage(tmp_path / "data")
     one, two = RedisJobQueue(redis_queue_url), RedisJobQueue(redis_queue_url)

@@ -1,5 +1,5 @@
-"""Scale-out on Redis with real processes: ``ossicle serve --queue redis://...`` (API
-only) and ``ossicle worker`` processes sharing one data directory, as on several machines.
+"""Scale-out on Redis with real processes: ``earfold serve --queue redis://...`` (API
+only) and ``earfold worker`` processes sharing one data directory, as on several machines.
 
 Against a real Redis (skipped where none answers, required when CI=true; each test under
 its own key prefix). The oracle of every finished render is the renderer run directly on
@@ -21,23 +21,23 @@ import pytest
 from numpy.testing import assert_array_equal
 from stem_factory import FS, files_field, write_stem
 
-from renderer.audio_io import read_audio
-from renderer.render import RenderSettings, render
-from service.jobs.redis_store import RedisJobQueue
-from service.tools.local_server import free_port
+from earfold.renderer.audio_io import read_audio
+from earfold.renderer.render import RenderSettings, render
+from earfold.service.jobs.redis_store import RedisJobQueue
+from earfold.service.tools.local_server import free_port
 
 REPO = Path(__file__).resolve().parents[2]
 FAST = ["--lease-seconds", "2", "--tick-seconds", "0.05"]
 
 
 class Api:
-    """``ossicle serve --queue URL --workers 0`` on a free port."""
+    """``earfold serve --queue URL --workers 0`` on a free port."""
 
     def __init__(self, data_dir: Path, queue_url: str, workers: int = 0) -> None:
         self.port = free_port()
         self.url = f"http://127.0.0.1:{self.port}"
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "service.serve_cli", "--port", str(self.port),
+            [sys.executable, "-m", "earfold.service.serve_cli", "--port", str(self.port),
              "--data-dir", str(data_dir), "--workers", str(workers), "--queue", queue_url,
              "--min-free-mb", "0", *FAST],
             cwd=REPO, stderr=subprocess.PIPE, text=True)
@@ -69,11 +69,11 @@ class Api:
 
 
 class Workers:
-    """``ossicle worker --queue URL --data-dir DIR --processes N`` (its own machine)."""
+    """``earfold worker --queue URL --data-dir DIR --processes N`` (its own machine)."""
 
     def __init__(self, data_dir: Path, queue_url: str, processes: int = 1) -> None:
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "service.cli", "worker", "--queue", queue_url,
+            [sys.executable, "-m", "earfold.service.cli", "worker", "--queue", queue_url,
              "--data-dir", str(data_dir), "--processes", str(processes), *FAST,
              "--broker-heartbeat-seconds", "4"],
             cwd=REPO, stderr=subprocess.PIPE, text=True)
@@ -197,7 +197,7 @@ def test_sigkill_of_a_worker_mid_render_is_redelivered_to_the_other(cluster, tmp
     got = _download(api, done, tmp_path / "got.wav")
     assert_array_equal(got, _reference(path, tmp_path / "ref.wav", layout="2.0", block_size=64))
     assert list((cluster.data_dir / "renders" / job_id).glob(".*.part")) == []
-    # ossicle worker replaced the process that was killed.
+    # earfold worker replaced the process that was killed.
     killed = int(first.split(":")[1])
     alive = [_children(g.proc.pid) for g in groups]
     assert all(len(c) == 1 for c in alive) and killed not in set().union(*alive), alive
@@ -261,7 +261,7 @@ def test_queue_limit_answers_429(cluster, tmp_path):
         api.stop()
     # A second API with a small queue limit, same Redis prefix.
     proc = subprocess.Popen(
-        [sys.executable, "-m", "service.serve_cli", "--port", str(port := free_port()),
+        [sys.executable, "-m", "earfold.service.serve_cli", "--port", str(port := free_port()),
          "--data-dir", str(data), "--workers", "0", "--queue", cluster.url,
          "--min-free-mb", "0", "--max-queued", "2"], cwd=REPO, stderr=subprocess.PIPE, text=True)
     try:

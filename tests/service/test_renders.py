@@ -11,9 +11,9 @@ import pytest
 from numpy.testing import assert_array_equal
 from stem_factory import FS, files_field, write_mono_set, write_stem
 
-from renderer.audio_io import read_audio
-from renderer.render import RenderSettings, render
-from service.jobs.worker import Worker
+from earfold.renderer.audio_io import read_audio
+from earfold.renderer.render import RenderSettings, render
+from earfold.service.jobs.worker import Worker
 
 FAST = {"tick_s": 0.05, "poll_s": 0.02, "lease_s": 5.0}
 
@@ -75,7 +75,7 @@ def test_validation_errors_are_problem_details(client):
 def test_room_and_delivery_options_reach_the_renderer(make_client, tmp_path):
     """Room, loudness and true-peak fields of POST /v1/renders end up in the render: the
     report names the room and the delivery target, and the audio equals a direct render
-    with the same settings (oracle: renderer.render.render)."""
+    with the same settings (oracle: earfold.renderer.render.render)."""
     client = make_client(**FAST)
     paths = write_mono_set(tmp_path, "5.1", FS // 5)
     stem = client.post("/v1/stems", files=files_field(paths)).json()
@@ -248,7 +248,7 @@ def test_catalog_endpoints(client):
 
 
 def test_retention_sweep_removes_old_items(make_client, tmp_path):
-    from service.retention import sweep
+    from earfold.service.retention import sweep
 
     client = make_client()
     stem = _stem(client, tmp_path)
@@ -263,7 +263,7 @@ def test_retention_sweep_removes_old_items(make_client, tmp_path):
 
 
 def test_progress_rises_while_rendering_then_reads_done(make_client, tmp_path):
-    from service.routes.models import RenderView
+    from earfold.service.routes.models import RenderView
 
     client = make_client(**FAST)
     # 40 s of stereo in 64-frame blocks: a couple of seconds of rendering, long enough
@@ -295,7 +295,7 @@ def test_progress_rises_while_rendering_then_reads_done(make_client, tmp_path):
 def test_eq_and_inline_headphone_eq_reach_the_renderer(make_client, tmp_path):
     """``eq`` and an inline ``headphone_eq`` band list of POST /v1/renders: the report names
     them and the audio equals a direct render with the same settings (oracle:
-    renderer.render.render)."""
+    earfold.renderer.render.render)."""
     client = make_client(**FAST)
     paths = write_mono_set(tmp_path, "5.1", FS // 5)
     stem = client.post("/v1/stems", files=files_field(paths)).json()

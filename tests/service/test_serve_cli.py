@@ -1,4 +1,4 @@
-"""``ossicle serve`` options: limits reach the settings; loopback-only by default."""
+"""``earfold serve`` options: limits reach the settings; loopback-only by default."""
 
 from __future__ import annotations
 
@@ -6,17 +6,17 @@ import argparse
 
 import pytest
 
-from service.serve_cli import add_serve_parser, is_loopback, settings_from_args
+from earfold.service.serve_cli import add_serve_parser, is_loopback, settings_from_args
 
 
 def _parse(*argv: str) -> argparse.Namespace:
-    parser = argparse.ArgumentParser(prog="ossicle")
+    parser = argparse.ArgumentParser(prog="earfold")
     add_serve_parser(parser.add_subparsers(dest="command"))
     return parser.parse_args(["serve", *argv])
 
 
 def test_limit_options_reach_the_settings(tmp_path, monkeypatch):
-    monkeypatch.delenv("OSSICLE_TOKENS", raising=False)
+    monkeypatch.delenv("EARFOLD_TOKENS", raising=False)
     s = settings_from_args(_parse("--data-dir", str(tmp_path), "--max-upload-gb", "2",
                                   "--max-channels", "24", "--max-duration-hours", "0.5",
                                   "--max-hrtf-mb", "64", "--max-queued", "7",
