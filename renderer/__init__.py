@@ -1,7 +1,9 @@
 """earfold's DSP library: SOFA HRIR sets, layouts, streaming binaural convolution.
 
-The public surface is what this module exports (plus ``earfold.renderer.render.render``, the
-whole render, which keeps its module's name); other submodule names are implementation.
+The public surface is what this module exports (plus :func:`earfold.renderer.render.render`,
+the whole render, which keeps its wing's name). The renderer is laid out in wings, one
+concept each, every wing naming its own public surface in its ``__init__``; DEVELOPERS.md
+has the map and says which way imports go.
 Directions follow :mod:`earfold.renderer.geometry` (azimuth positive to the left, elevation up).
 """
 
@@ -9,45 +11,51 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-from .errors import AudioError, HrirError, LayoutError, RendererError, SofaError
+from .errors import (
+    AudioError,
+    HrirError,
+    LayoutError,
+    RenderCancelled,
+    RendererError,
+    RoomError,
+    SofaError,
+)
 
 # Everything else is imported on first use (PEP 562), so that ``import earfold.renderer`` (and the
 # error types) stays cheap and does not load netCDF4, soundfile or scipy until needed.
 _LAZY = {
-    "OutputWriter": "audio_io",
-    "StemInfo": "audio_io",
-    "StemReader": "audio_io",
-    "probe_stem": "audio_io",
-    "read_audio": "audio_io",
-    "write_audio": "audio_io",
-    "HeadphoneEq": "biquads",
-    "load_headphone_eq": "biquads",
-    "calibration_gain": "calibration",
-    "BinauralConvolver": "convolution",
-    "diffuse_field": "equalisation",
-    "equalised": "equalisation",
-    "convolve_reference": "convolution",
-    "HrirPair": "hrir",
-    "HrirSet": "hrir",
-    "load_hrir_set": "hrir",
+    "OutputWriter": "io",
+    "StemInfo": "io",
+    "StemReader": "io",
+    "probe_stem": "io",
+    "read_audio": "io",
+    "write_audio": "io",
+    "HeadphoneEq": "eq",
+    "load_headphone_eq": "eq",
+    "calibration_gain": "eq",
+    "BinauralConvolver": "engine",
+    "diffuse_field": "eq",
+    "equalised": "eq",
+    "convolve_reference": "engine",
+    "HrirPair": "hrtf",
+    "HrirSet": "hrtf",
+    "load_hrir_set": "hrtf",
     "LAYOUTS": "layouts",
     "Layout": "layouts",
     "Speaker": "layouts",
     "get_layout": "layouts",
     "load_layout_file": "layouts",
-    "LfeOptions": "lfe",
-    "RenderCancelled": "render",
+    "LfeOptions": "engine",
     "RenderPlan": "render",
     "RenderSettings": "render",
     "plan_render": "render",
     "ROOMS": "room",
     "Room": "room",
-    "RoomError": "room",
     "get_room": "room",
     "load_room_file": "room",
-    "SofaData": "sofa",
-    "read_sofa": "sofa",
-    "write_sofa": "sofa",
+    "SofaData": "hrtf",
+    "read_sofa": "hrtf",
+    "write_sofa": "hrtf",
 }
 
 

@@ -82,8 +82,8 @@ def _write_json(path: str, data: object) -> None:
 
 
 def cmd_render(args: argparse.Namespace) -> int:
-    from earfold.renderer.delivery import parse_loudness, parse_true_peak
-    from earfold.renderer.lfe import LfeOptions
+    from earfold.renderer.loudness import parse_loudness, parse_true_peak
+    from earfold.renderer.engine import LfeOptions
     from earfold.renderer.render import RenderSettings, render
 
     settings = RenderSettings(
@@ -131,7 +131,7 @@ def cmd_render(args: argparse.Namespace) -> int:
 
 
 def cmd_loudness(args: argparse.Namespace) -> int:
-    from earfold.renderer.delivery import format_measurement
+    from earfold.renderer.loudness import format_measurement
     from earfold.renderer.layouts import get_layout
     from earfold.renderer.loudness import channel_weights, measure_file
 
@@ -215,7 +215,7 @@ def cmd_hrtf_list(args: argparse.Namespace) -> int:
 
 
 def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
-    from earfold.renderer.inspect import inspect_sofa
+    from earfold.renderer.tools import inspect_sofa
 
     summary = inspect_sofa(args.file, emitter=args.emitter)
     if args.json:
@@ -240,7 +240,7 @@ def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
 
 
 def cmd_bench(args: argparse.Namespace) -> int:
-    from earfold.renderer.bench import format_bench, run_bench
+    from earfold.renderer.tools import format_bench, run_bench
 
     result = run_bench(
         seconds=args.seconds,
@@ -257,7 +257,7 @@ def cmd_bench(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from earfold.renderer.demo import run_demo
+    from earfold.renderer.tools import run_demo
 
     progress = _Progress("rendering demo")
     try:

@@ -5,7 +5,7 @@ spin, or allocate without bound. So the API never opens an upload itself: it run
 ``python -m earfold.service.hrtf_check FILE`` under a time limit (killed when it runs over) and
 an address-space limit (``RLIMIT_AS``, set by the child on itself before it imports
 netCDF4), and reads one JSON line back. The child checks exactly what a render would
-use: :func:`earfold.renderer.sofa.read_sofa` then :meth:`earfold.renderer.hrir.HrirSet.from_sofa`.
+use: :func:`earfold.renderer.hrtf.sofa.read_sofa` then :meth:`earfold.renderer.hrtf.hrir.HrirSet.from_sofa`.
 """
 
 from __future__ import annotations
@@ -80,8 +80,8 @@ def _child(path: str, memory_bytes: int) -> int:
     resource.setrlimit(resource.RLIMIT_AS, (memory_bytes, memory_bytes))
     try:
         from earfold.renderer.errors import RendererError
-        from earfold.renderer.hrir import HrirSet, file_sha256
-        from earfold.renderer.sofa import read_sofa
+        from earfold.renderer.hrtf import HrirSet, file_sha256
+        from earfold.renderer.hrtf import read_sofa
 
         data = read_sofa(path)
         hset = HrirSet.from_sofa(data, sha256=file_sha256(path))

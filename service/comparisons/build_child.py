@@ -44,7 +44,7 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
 def run(spec: dict) -> int:
     """Build the comparison of ``spec``; returns the exit status."""
     from earfold.renderer.errors import RendererError
-    from earfold.renderer.render import RenderCancelled
+    from earfold.renderer.errors import RenderCancelled
 
     from ..jobs import render_child as rc
     from .builder import BUILD_PROCESSES, BuildError, build

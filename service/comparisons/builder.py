@@ -134,7 +134,7 @@ def _measure(x: np.ndarray, samplerate: int) -> tuple[float | None, float | None
 
 def choose_window(inputs: Sequence[str], settings, length_s: float) -> float:
     """Start (s) of the loudest ``length_s`` window of the stem (see :func:`loudest_window`)."""
-    from earfold.renderer.audio_io import StemReader
+    from earfold.renderer.io import StemReader
     from earfold.renderer.loudness import LoudnessMeter, channel_weights
     from earfold.renderer.render import plan_render
 
@@ -163,8 +163,9 @@ def _render_forked(jobs: list, processes: int, samplerate: int,
     parent asks (or dies). Errors come back as JSON text, not pickles.
     """
     from earfold.renderer.errors import RendererError
-    from earfold.renderer.hrir import load_hrir_set
-    from earfold.renderer.render import RenderCancelled, render, resolve_hrtf
+    from earfold.renderer.hrtf import load_hrir_set
+    from earfold.renderer.errors import RenderCancelled
+    from earfold.renderer.render import render, resolve_hrtf
 
     for hrtf in {s.hrtf for _, _, s in jobs}:
         path, name = resolve_hrtf(hrtf)
@@ -244,7 +245,7 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
     """
     import dataclasses
 
-    from earfold.renderer.audio_io import probe_stem, read_audio, write_audio
+    from earfold.renderer.io import probe_stem, read_audio, write_audio
     from earfold.renderer.render import render
 
     from ..jobs.render_child import build_settings

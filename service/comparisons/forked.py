@@ -30,7 +30,7 @@ WARM_SAMPLERATE = 48000
 def warm_up() -> None:
     """Import what a build needs and load the default HRIR set, before the first build."""
     from earfold.hrtf_sets import DEFAULT_SET
-    from earfold.renderer.hrir import load_hrir_set
+    from earfold.renderer.hrtf import load_hrir_set
     from earfold.renderer.render import resolve_hrtf
 
     from . import builder  # noqa: F401

@@ -66,11 +66,11 @@ def build_settings(options: dict):
     # The HTTP API spells "no gain" and "limiter off" as words; the renderer as None.
     # Left out (None): the renderer's defaults.
     if options.get("loudness") is not None:
-        from earfold.renderer.delivery import parse_loudness
+        from earfold.renderer.loudness import parse_loudness
 
         kwargs["loudness"] = parse_loudness(str(options["loudness"]))
     if options.get("true_peak") is not None:
-        from earfold.renderer.delivery import parse_true_peak
+        from earfold.renderer.loudness import parse_true_peak
 
         kwargs["true_peak"] = parse_true_peak(str(options["true_peak"]))
     return RenderSettings(**kwargs)
@@ -79,7 +79,8 @@ def build_settings(options: dict):
 def run(spec: dict) -> int:
     """Render ``spec`` (inputs, output, report, options, names); returns the exit status."""
     from earfold.renderer.errors import RendererError
-    from earfold.renderer.render import RenderCancelled, render
+    from earfold.renderer.errors import RenderCancelled
+    from earfold.renderer.render import render
 
     names = spec.get("names", {})
     last = [0.0]

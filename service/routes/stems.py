@@ -9,8 +9,8 @@ from pathlib import Path
 from anyio import to_thread
 from fastapi import APIRouter, Depends, Request, Response
 
-from earfold.renderer.audio_io import probe_stem
-from earfold.renderer.channel_mask import labels_from_mask
+from earfold.renderer.io import probe_stem
+from earfold.renderer.layouts import labels_from_mask
 from earfold.renderer.errors import AudioError
 from earfold.renderer.layouts import labels_from_filenames, suggest_layout
 

@@ -13,7 +13,7 @@ import time
 import httpx
 import pytest
 
-from earfold.renderer.audio_io import write_audio
+from earfold.renderer.io import write_audio
 from tests.service.stem_factory import FS, noise
 
 pytestmark = pytest.mark.browser

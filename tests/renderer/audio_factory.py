@@ -1,7 +1,7 @@
 """Generators of test audio files, written byte by byte.
 
 These writers use only ``struct`` and numpy, not the module under test nor soundfile,
-so that reading them checks ``earfold.renderer.audio_io`` against an independent encoding of
+so that reading them checks ``earfold.renderer.io.audio`` against an independent encoding of
 the formats (RIFF/WAVE as Microsoft documents it, Sun AU; common practice). They can
 also write files no careful encoder would: headers that promise more data than follows,
 zero channels, rates out of range.

@@ -3,18 +3,16 @@
 from __future__ import annotations
 
 import json
-import sys
 import tracemalloc
-import types
 from pathlib import Path
 
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
-import earfold.renderer.audio_io as aio
+import earfold.renderer.io.audio as aio
 from audio_factory import pcm_codes, sine, write_au, write_pattern_wav, write_wav
-from earfold.renderer.audio_io import (
+from earfold.renderer.io import (
     OutputWriter,
     StemInfo,
     StemReader,
@@ -252,21 +250,13 @@ def test_blocks_memory_does_not_grow_with_file_length(tmp_path):
 # ---------------------------------------------------------------- channel mask
 
 
-def test_channel_mask_is_taken_from_the_channel_mask_module(tmp_path, monkeypatch):
-    fake = types.ModuleType("earfold.renderer.channel_mask")
-    fake.read_channel_mask = lambda path: 0x3F  # type: ignore[attr-defined]
-    monkeypatch.setitem(sys.modules, "earfold.renderer.channel_mask", fake)
+def test_channel_mask_is_read_from_the_header_of_one_interleaved_file(tmp_path, monkeypatch):
+    monkeypatch.setattr(aio, "read_channel_mask", lambda path: 0x3F)
     path = write_wav(tmp_path / "six.wav", _noise(100, 6), FS, 16)
     assert probe_stem([path]).channel_mask == 0x3F
     a = _mono(tmp_path, "a.wav", 0.1, 10)
     b = _mono(tmp_path, "b.wav", 0.1, 10)
     assert probe_stem([a, b]).channel_mask is None  # a mask describes one interleaved file
-
-
-def test_missing_channel_mask_module_is_tolerated(tmp_path, monkeypatch):
-    monkeypatch.setitem(sys.modules, "earfold.renderer.channel_mask", None)  # import fails
-    path = write_wav(tmp_path / "two.wav", _noise(100, 2), FS, 16)
-    assert probe_stem([path]).channel_mask is None
 
 
 # ---------------------------------------------------------------- RF64 and atomic writes

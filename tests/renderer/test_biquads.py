@@ -10,16 +10,16 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from earfold.renderer.audio_io import write_audio
-from earfold.renderer.biquads import (
+from earfold.renderer.io import write_audio
+from earfold.renderer.eq import (
     BAND_TYPES,
     Band,
-    HeadphoneEqError,
     bands_sos,
     cookbook_biquad,
     load_headphone_eq,
     parse_bands,
 )
+from earfold.renderer.errors import HeadphoneEqError
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -145,7 +145,7 @@ def test_example_ir_is_reproduced_by_its_generator_and_matches_the_bands(tmp_pat
     fresh = module.make(tmp_path / "dark-ir.wav")
     committed = REPO / "examples" / "headphone_eq" / "dark-ir.wav"
     # Samples, not bytes: a float WAV's PEAK chunk carries a time stamp.
-    from earfold.renderer.audio_io import read_audio
+    from earfold.renderer.io import read_audio
 
     np.testing.assert_array_equal(read_audio(fresh)[0], read_audio(committed)[0])
     # Read at 48 kHz (resampled from 44.1 kHz), it keeps the band list's response.

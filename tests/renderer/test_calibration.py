@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from earfold.renderer.audio_io import read_audio, write_audio
-from earfold.renderer.calibration import pink_band
+from earfold.renderer.io import read_audio, write_audio
+from earfold.renderer.eq import pink_band
 from earfold.renderer.layouts import get_layout
 from earfold.renderer.loudness import LoudnessMeter
 from earfold.renderer.render import RenderSettings, render

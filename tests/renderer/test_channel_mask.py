@@ -8,14 +8,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from earfold.renderer.audio_io import write_audio
-from earfold.renderer.channel_mask import (
+from earfold.renderer.io import write_audio
+from earfold.renderer.layouts import (
     SPEAKER_BITS,
     labels_from_mask,
     mask_for_labels,
     mask_to_speakers,
-    read_channel_mask,
 )
+from earfold.renderer.io import read_channel_mask
 from earfold.renderer.errors import AudioError, LayoutError
 from earfold.renderer.layouts import LAYOUTS, layout_from_dict, resolve_channel_order
 
@@ -124,7 +124,7 @@ def test_non_wav_files_give_none(tmp_path):
 
 
 def test_files_written_by_libsndfile(tmp_path):
-    # Reference library: libsndfile (through earfold.renderer.audio_io) writes 6-channel RF64 as
+    # Reference library: libsndfile (through earfold.renderer.io.audio) writes 6-channel RF64 as
     # WAVE_FORMAT_EXTENSIBLE with the 5.1 mask 0x3F, FLAC with no RIFF header at all
     # (observed with libsndfile 1.2).
     x = np.zeros((16, 6), dtype=np.float32)

@@ -13,11 +13,7 @@ import pytest
 import scipy.signal
 from numpy.testing import assert_allclose
 
-from earfold.renderer.convolution import (
-    DEFAULT_BLOCK_SIZE,
-    BinauralConvolver,
-    convolve_reference,
-)
+from earfold.renderer.engine import DEFAULT_BLOCK_SIZE, BinauralConvolver, convolve_reference
 from earfold.renderer.errors import AudioError, HrirError, RendererError
 
 TOLERANCE = 1e-6  # of full scale (the reference output's peak): the engine's accuracy target

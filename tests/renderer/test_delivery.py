@@ -3,7 +3,7 @@
 Delivered loudness is read back from the written file by pyloudnorm (PyPI,
 ``Meter(rate, filter_class="DeMan")``, an independent BS.1770-4 implementation) where it
 is installed, and by our own meter otherwise; the true peak by
-:func:`earfold.renderer.loudness.true_peak` (checked against EBU Tech 3341 in
+:func:`earfold.renderer.loudness.meter.true_peak` (checked against EBU Tech 3341 in
 test_loudness.py). Test renders are made here: noise bursts as programme material.
 """
 
@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.audio_io import read_audio, write_audio
-from earfold.renderer.delivery import (
-    DeliveryError,
+from earfold.renderer.io import read_audio, write_audio
+from earfold.renderer.errors import DeliveryError
+from earfold.renderer.loudness import (
     DeliveryOptions,
     deliver,
     format_measurement,
@@ -26,7 +26,7 @@ from earfold.renderer.delivery import (
     parse_true_peak,
 )
 from earfold.renderer.loudness import LoudnessMeter, measure_file, true_peak
-from earfold.renderer.render import RenderCancelled
+from earfold.renderer.errors import RenderCancelled
 
 FS = 48000
 

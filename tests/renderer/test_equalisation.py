@@ -10,10 +10,9 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.spatial import SphericalVoronoi
 
-from earfold.renderer.equalisation import (
+from earfold.renderer.eq import (
     MAX_BOOST_DB,
     MAX_CELL_FACTOR,
-    EqualisationError,
     check_eq,
     diffuse_field,
     equalised,
@@ -21,8 +20,9 @@ from earfold.renderer.equalisation import (
     solid_angle_weights,
     voronoi_areas,
 )
-from earfold.renderer.hrir import HrirSet, load_hrir_set
-from earfold.renderer.sofa import read_sofa
+from earfold.renderer.errors import EqualisationError
+from earfold.renderer.hrtf import HrirSet, load_hrir_set
+from earfold.renderer.hrtf import read_sofa
 
 REPO = Path(__file__).resolve().parents[2]
 SHIPPED = [REPO / "hrtf_sets" / "MIT_KEMAR_normal_pinna.sofa", REPO / "hrtf_sets" / "rigid_sphere.sofa"]
@@ -206,7 +206,7 @@ def test_lookups_filter_after_interpolating_like_interpolating_filtered_response
 
 
 def test_sets_holding_a_room_are_not_equalised_by_default():
-    from earfold.renderer.render import _equalise
+    from earfold.renderer.render._render import _equalise
 
     grid = _icosahedron()
     rng = np.random.default_rng(1)
@@ -234,8 +234,9 @@ def test_equalisation_leaves_the_engines_work_per_block_unchanged(tmp_path, path
     clock.)"""
     import dataclasses
 
-    from earfold.renderer.audio_io import write_audio
-    from earfold.renderer.render import RenderSettings, _Engine, plan_render
+    from earfold.renderer.io import write_audio
+    from earfold.renderer.render import RenderSettings, plan_render
+    from earfold.renderer.render._render import _Engine
 
     stem = tmp_path / "stem.wav"
     write_audio(stem, np.zeros((rate // 10, 12), dtype=np.float32), rate)

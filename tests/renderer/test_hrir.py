@@ -10,7 +10,7 @@ from scipy.signal.windows import tukey
 from earfold.hrtf_sets import get_shipped
 from earfold.renderer.errors import HrirError
 from earfold.renderer.geometry import direction_to_vector, vector_to_direction
-from earfold.renderer.hrir import HrirSet, load_hrir_set
+from earfold.renderer.hrtf import HrirSet, load_hrir_set
 
 
 def _grid(step: float = 10.0, min_el: float = -90.0) -> tuple[np.ndarray, np.ndarray]:

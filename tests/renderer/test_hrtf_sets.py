@@ -15,9 +15,9 @@ import earfold.hrtf_sets
 from earfold.hrtf_sets import DEFAULT_SET, SHIPPED, ShippedSet, get_shipped, list_shipped
 from earfold.renderer.errors import HrirError
 from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.onsets import cross_correlation_itd, interaural_time_difference
-from earfold.renderer.sofa import read_sofa
-from earfold.renderer.sphere import main as sphere_main
+from earfold.renderer.hrtf import cross_correlation_itd, interaural_time_difference
+from earfold.renderer.hrtf import read_sofa
+from earfold.renderer.hrtf import main as sphere_main
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 A = 0.0875  # head radius, m (REFERENCES.md)

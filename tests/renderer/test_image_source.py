@@ -7,8 +7,10 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.image_source import image_sources
-from earfold.renderer.room import SPEED_OF_SOUND, SURFACES, RoomError, room_from_dict
+from earfold.renderer.room import image_sources
+from earfold.renderer.room import SURFACES, room_from_dict
+from earfold.renderer.room.model import SPEED_OF_SOUND
+from earfold.renderer.errors import RoomError
 
 FS = 48000
 DIMS = (6.0, 4.5, 3.2)

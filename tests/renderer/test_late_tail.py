@@ -11,8 +11,8 @@ from scipy import signal
 
 from earfold.hrtf_sets import get_shipped
 from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.hrir import HrirSet, load_hrir_set
-from earfold.renderer.late_tail import (
+from earfold.renderer.hrtf import HrirSet, load_hrir_set
+from earfold.renderer.room import (
     EAR_DISTANCE,
     TAIL_RANGE_DB,
     band_weights,
@@ -22,8 +22,9 @@ from earfold.renderer.late_tail import (
     sphere_coherence,
     tail_length,
 )
-from earfold.renderer.room import BANDS_HZ, ROOMS, SURFACES, RoomError, room_from_dict
-from earfold.renderer.room_filters import measure_rt60
+from earfold.renderer.room import BANDS_HZ, ROOMS, SURFACES, room_from_dict
+from earfold.renderer.errors import RoomError
+from earfold.renderer.room import measure_rt60
 
 FS = 16000
 

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.channel_mask import labels_from_mask
+from earfold.renderer.layouts import labels_from_mask
 from earfold.renderer.errors import LayoutError
 from earfold.renderer.layouts import (
     LAYOUTS,

@@ -23,8 +23,8 @@ import pytest
 import scipy.signal
 from numpy.testing import assert_allclose
 
-import earfold.renderer.loudness as loudness
-from earfold.renderer.audio_io import write_audio
+import earfold.renderer.loudness.meter as loudness
+from earfold.renderer.io import write_audio
 from earfold.renderer.errors import AudioError
 from earfold.renderer.layouts import get_layout
 from earfold.renderer.loudness import (

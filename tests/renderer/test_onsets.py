@@ -7,7 +7,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from earfold.renderer.errors import HrirError
-from earfold.renderer.onsets import (
+from earfold.renderer.hrtf import (
     cross_correlation_itd,
     fractional_delay,
     interaural_time_difference,

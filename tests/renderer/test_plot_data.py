@@ -10,9 +10,15 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from earfold.renderer.audio_io import write_audio
-from earfold.renderer.plot_data import (LOUDNESS_POINTS, SpectrumMeter, energy_decay, schroeder_db,
-                                thin_series, third_octave_bands)
+from earfold.renderer.io import write_audio
+from earfold.renderer.render import (
+    LOUDNESS_POINTS,
+    SpectrumMeter,
+    energy_decay,
+    schroeder_db,
+    thin_series,
+    third_octave_bands,
+)
 from earfold.renderer.render import RenderSettings, render
 
 FS = 48000

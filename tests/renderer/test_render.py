@@ -8,12 +8,13 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.audio_io import read_audio, write_audio
-from earfold.renderer.convolution import convolve_reference
+from earfold.renderer.io import read_audio, write_audio
+from earfold.renderer.engine import convolve_reference
 from earfold.renderer.errors import LayoutError, RendererError
 from earfold.renderer.layouts import get_layout
-from earfold.renderer.onsets import interaural_time_difference
-from earfold.renderer.render import RenderCancelled, RenderSettings, plan_render, render
+from earfold.renderer.hrtf import interaural_time_difference
+from earfold.renderer.errors import RenderCancelled
+from earfold.renderer.render import RenderSettings, plan_render, render
 
 FS = 48000
 
@@ -198,7 +199,7 @@ def test_shared_tail_in_chunks_equals_exact_brirs(tmp_path, monkeypatch, chunk, 
     direct output held until its tail is ready: still the whole convolution, frame for
     frame (oracle: scipy.signal.oaconvolve of the full room responses), whatever the
     chunk, block and stem lengths."""
-    import earfold.renderer.render as render_module
+    import earfold.renderer.render._render as render_module
 
     monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", chunk)
     lay = get_layout("5.1")
@@ -218,7 +219,7 @@ def test_room_and_headphone_eq_equal_the_cascade_of_references(tmp_path, monkeyp
     """Shared tail in chunks, then headphone EQ on the two ears: the render equals the
     exact room responses convolved (scipy.signal.oaconvolve) and then the headphone
     filter bank convolved again, over the whole length."""
-    import earfold.renderer.render as render_module
+    import earfold.renderer.render._render as render_module
 
     monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", 3000)
     bands = [{"type": "peaking", "frequency": 3000.0, "gain_db": -4.0, "q": 1.2},

@@ -18,7 +18,6 @@ from earfold.renderer.room import (
     ROOMS,
     SURFACES,
     Room,
-    RoomError,
     absorption_for_rt60,
     air_attenuation_db_per_km,
     eyring_rt60,
@@ -28,6 +27,7 @@ from earfold.renderer.room import (
     room_from_dict,
     sabine_rt60,
 )
+from earfold.renderer.errors import RoomError
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "examples" / "rooms"
 

@@ -10,18 +10,16 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.convolution import convolve_reference
+from earfold.renderer.engine import convolve_reference
 from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.hrir import HrirSet
+from earfold.renderer.hrtf import HrirSet
 from earfold.renderer.layouts import Layout, Speaker, get_layout
-from earfold.renderer.room import BANDS_HZ, ROOMS, SPEED_OF_SOUND, SURFACES, RoomError, room_from_dict
-from earfold.renderer.room_filters import (
-    _minimum_phase_spectrum,
-    build_room_filters,
-    exact_brirs,
-    measure_rt60,
-)
-from earfold.renderer.sphere import sphere_grid
+from earfold.renderer.room import BANDS_HZ, ROOMS, SURFACES, room_from_dict
+from earfold.renderer.room.model import SPEED_OF_SOUND
+from earfold.renderer.errors import RoomError
+from earfold.renderer.room.filters import _minimum_phase_spectrum
+from earfold.renderer.room import build_room_filters, exact_brirs, measure_rt60
+from earfold.renderer.hrtf import sphere_grid
 
 FS = 16000
 

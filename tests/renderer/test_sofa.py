@@ -1,4 +1,4 @@
-"""Tests of earfold.renderer.sofa: reading the SOFA variants met in practice, rejecting broken files,
+"""Tests of earfold.renderer.hrtf.sofa: reading the SOFA variants met in practice, rejecting broken files,
 and writing SimpleFreeFieldHRIR 1.0 files.
 
 Synthetic files come from the committed generator ``sofa_factory`` (netCDF4 directly); the
@@ -24,7 +24,7 @@ from scipy import signal
 import sofa_factory as fac
 from earfold.renderer.errors import SofaError
 from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.sofa import MAX_TAPS, SofaData, read_sofa, write_sofa
+from earfold.renderer.hrtf import MAX_TAPS, SofaData, read_sofa, write_sofa
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 
@@ -189,7 +189,7 @@ def test_malformed_files_neither_crash_nor_hang(shared_sofa_dir):
     # A crash in the HDF5 C library would kill pytest itself; one child reads all files.
     script = (
         "import sys\n"
-        "from earfold.renderer.sofa import read_sofa\n"
+        "from earfold.renderer.hrtf.sofa import read_sofa\n"
         "from earfold.renderer.errors import SofaError\n"
         "for p in sys.argv[1:]:\n"
         "    try:\n"

@@ -9,8 +9,12 @@ from scipy import special
 
 from earfold.renderer.errors import HrirError
 from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.onsets import cross_correlation_itd, interaural_time_difference, onset_times
-from earfold.renderer.sphere import (
+from earfold.renderer.hrtf import (
+    cross_correlation_itd,
+    interaural_time_difference,
+    onset_times,
+)
+from earfold.renderer.hrtf import (
     LEAD_SAMPLES,
     series_terms,
     sphere_grid,

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
-from earfold.renderer.audio_io import write_audio
+from earfold.renderer.io import write_audio
 from earfold.renderer.layouts import get_layout
 
 FS = 48000

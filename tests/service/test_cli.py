@@ -9,7 +9,7 @@ import sys
 import numpy as np
 import pytest
 
-from earfold.renderer.audio_io import read_audio, write_audio
+from earfold.renderer.io import read_audio, write_audio
 from earfold.service.cli import main
 
 FS = 48000
@@ -165,13 +165,13 @@ def test_demo_renders_a_714_stem(tmp_path, capsys):
 def test_bench_smoke(capsys, tmp_path):
     """The benchmark runs end to end on a tiny stem (its figures are not asserted: timing
     belongs to `earfold bench`, not to tests)."""
-    from earfold.renderer.bench import format_bench, run_bench
+    from earfold.renderer.tools import format_bench, run_bench
 
     result = run_bench(seconds=1.0, layouts=["2.0"], memory_check=False, workdir=tmp_path)
     row = result["layouts"]["2.0"]
     assert set(row) >= {"earfold", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor",
                         "delivery_added", "delivery_loud_added", "eq_added", "eq_prepare_s"}
-    from earfold.renderer.bench import DELIVERY_ROUNDS, EQ_ROUNDS
+    from earfold.renderer.tools import DELIVERY_ROUNDS, EQ_ROUNDS
 
     assert len(row["earfold_delivered"]["round_ratios"]) == DELIVERY_ROUNDS
     assert len(row["earfold_delivered_loud"]["round_ratios"]) == DELIVERY_ROUNDS
@@ -183,7 +183,7 @@ def test_bench_smoke(capsys, tmp_path):
 def test_bench_rounds_alternate_and_compare_within_a_round():
     """Interleaved rounds reverse their order every other round, and each round's ratio
     uses the reference run of the same round."""
-    from earfold.renderer.bench import interleaved, round_ratios
+    from earfold.renderer.tools import interleaved, round_ratios
 
     calls = []
     times = iter([1.0, 2.0, 4.0, 3.0, 5.0, 10.0])  # A B | B A | A B
@@ -204,7 +204,7 @@ def test_bench_rounds_alternate_and_compare_within_a_round():
 def test_bench_memory_check_covers_the_delivered_render(tmp_path):
     """The memory check runs the raw and the delivered render at both lengths (figures
     not asserted, as above: only that they are measured and shown)."""
-    from earfold.renderer.bench import format_bench, run_bench
+    from earfold.renderer.tools import format_bench, run_bench
 
     result = run_bench(seconds=0.5, layouts=["2.0"], workdir=tmp_path)
     mem = result["memory"]

@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from earfold.renderer.audio_io import write_audio
+from earfold.renderer.io import write_audio
 from earfold.service.jobs.worker import Worker
 from tests.service.stem_factory import FS, files_field, noise, write_stem
 

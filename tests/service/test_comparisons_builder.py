@@ -2,7 +2,7 @@
 
 References
 ----------
-* Level matching is checked with the project's BS.1770-4 meter (earfold.renderer.loudness,
+* Level matching is checked with the project's BS.1770-4 meter (earfold.renderer.loudness.meter,
   itself checked against EBU Tech 3341) to 0.1 LU, and independently with pyloudnorm
   (PyPI, ``filter_class="DeMan"``, the ITU filter; see ../shared/REFERENCES.md) to 0.2 LU.
 * Scaling by g dB moves integrated loudness and true peak by exactly g dB (BS.1770 is a
@@ -17,7 +17,7 @@ import struct
 import numpy as np
 import pytest
 
-from earfold.renderer.audio_io import read_audio, write_audio
+from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.errors import RendererError
 from earfold.renderer.loudness import LoudnessMeter
 from earfold.renderer.render import RenderSettings, render
@@ -133,7 +133,7 @@ def test_common_level_is_the_loudest_unless_a_peak_forbids_it():
 def built(tmp_path_factory):
     """Three variants of one 5.1 stem that differ in level by several dB.
 
-    Layout and HRTF set alone no longer change the level (earfold.renderer.calibration), so the
+    Layout and HRTF set alone no longer change the level (earfold.renderer.eq.calibration), so the
     third variant maps the loud 220 Hz tone of file channel 2 to the LFE, whose 120 Hz
     low-pass takes most of it away."""
     folder = tmp_path_factory.mktemp("build")

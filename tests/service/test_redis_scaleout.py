@@ -21,7 +21,7 @@ import pytest
 from numpy.testing import assert_array_equal
 from stem_factory import FS, files_field, write_stem
 
-from earfold.renderer.audio_io import read_audio
+from earfold.renderer.io import read_audio
 from earfold.renderer.render import RenderSettings, render
 from earfold.service.jobs.redis_store import RedisJobQueue
 from earfold.service.tools.local_server import free_port

@@ -11,7 +11,7 @@ import pytest
 from numpy.testing import assert_array_equal
 from stem_factory import FS, files_field, write_mono_set, write_stem
 
-from earfold.renderer.audio_io import read_audio
+from earfold.renderer.io import read_audio
 from earfold.renderer.render import RenderSettings, render
 from earfold.service.jobs.worker import Worker
 
@@ -75,7 +75,7 @@ def test_validation_errors_are_problem_details(client):
 def test_room_and_delivery_options_reach_the_renderer(make_client, tmp_path):
     """Room, loudness and true-peak fields of POST /v1/renders end up in the render: the
     report names the room and the delivery target, and the audio equals a direct render
-    with the same settings (oracle: earfold.renderer.render.render)."""
+    with the same settings (oracle: earfold.renderer.render._render.render)."""
     client = make_client(**FAST)
     paths = write_mono_set(tmp_path, "5.1", FS // 5)
     stem = client.post("/v1/stems", files=files_field(paths)).json()
@@ -295,7 +295,7 @@ def test_progress_rises_while_rendering_then_reads_done(make_client, tmp_path):
 def test_eq_and_inline_headphone_eq_reach_the_renderer(make_client, tmp_path):
     """``eq`` and an inline ``headphone_eq`` band list of POST /v1/renders: the report names
     them and the audio equals a direct render with the same settings (oracle:
-    earfold.renderer.render.render)."""
+    earfold.renderer.render._render.render)."""
     client = make_client(**FAST)
     paths = write_mono_set(tmp_path, "5.1", FS // 5)
     stem = client.post("/v1/stems", files=files_field(paths)).json()

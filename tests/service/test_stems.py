@@ -7,7 +7,7 @@ import hashlib
 import pytest
 from stem_factory import FS, files_field, write_mono_set, write_stem
 
-from earfold.renderer.audio_io import probe_stem
+from earfold.renderer.io import probe_stem
 
 
 def _tmp_is_empty(client) -> bool:

@@ -1,0 +1,31 @@
+"""Audio in and out: probing stems, streaming reads, the output writer, WAV headers.
+
+soundfile is imported here and nowhere else in the renderer.
+"""
+
+from __future__ import annotations
+
+from .audio import (
+    OutputWriter,
+    StemInfo,
+    StemReader,
+    audio_formats,
+    probe_stem,
+    read_audio,
+    subtype_for,
+    write_audio,
+)
+from .wav_header import WAVE_FORMAT_EXTENSIBLE, read_channel_mask
+
+__all__ = [
+    "WAVE_FORMAT_EXTENSIBLE",
+    "OutputWriter",
+    "StemInfo",
+    "StemReader",
+    "audio_formats",
+    "probe_stem",
+    "read_audio",
+    "read_channel_mask",
+    "subtype_for",
+    "write_audio",
+]
