@@ -8,8 +8,9 @@ from pathlib import Path
 from typing import Any
 
 
-def read_json_file(path: str | os.PathLike, *, kind: str, max_bytes: int,
-                   error: type[Exception]) -> Any:
+def read_json_file(
+    path: str | os.PathLike, *, kind: str, max_bytes: int, error: type[Exception]
+) -> Any:
     """Parse a JSON file, raising ``error`` with a message a person can act on.
 
     Parameters
@@ -28,7 +29,9 @@ def read_json_file(path: str | os.PathLike, *, kind: str, max_bytes: int,
     try:
         size = p.stat().st_size
         if size > max_bytes:
-            raise error(f"{origin!r} is {size} bytes; a {kind} file may be at most {max_bytes} bytes")
+            raise error(
+                f"{origin!r} is {size} bytes; a {kind} file may be at most {max_bytes} bytes"
+            )
         text = p.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise error(f"{kind} file {origin!r} does not exist") from None

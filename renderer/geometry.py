@@ -21,9 +21,7 @@ def direction_to_vector(azimuth: np.ndarray | float, elevation: np.ndarray | flo
     """
     az = np.radians(np.asarray(azimuth, dtype=float))
     el = np.radians(np.asarray(elevation, dtype=float))
-    return np.stack(
-        [np.cos(el) * np.cos(az), np.cos(el) * np.sin(az), np.sin(el)], axis=-1
-    )
+    return np.stack([np.cos(el) * np.cos(az), np.cos(el) * np.sin(az), np.sin(el)], axis=-1)
 
 
 def vector_to_direction(vectors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -68,8 +68,7 @@ async def _sweep_forever(app: FastAPI) -> None:
     while True:
         await asyncio.sleep(settings.sweep_s)
         try:
-            await asyncio.to_thread(sweep, app.state.storage, app.state.queue,
-                                    settings.retention_s)
+            await asyncio.to_thread(sweep, app.state.storage, app.state.queue, settings.retention_s)
         except QueueUnavailable:
             pass  # the job store is down (a network backend); the next sweep tries again
 

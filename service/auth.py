@@ -36,12 +36,18 @@ async def current_owner(request: Request) -> str:
     header = request.headers.get("authorization", "")
     scheme, _, given = header.partition(" ")
     if scheme.lower() != "bearer" or not given.strip():
-        raise Problem(UNAUTHORIZED, "this server needs an API token: send "
-                      "'Authorization: Bearer TOKEN'", headers={"WWW-Authenticate": "Bearer"})
+        raise Problem(
+            UNAUTHORIZED,
+            "this server needs an API token: send 'Authorization: Bearer TOKEN'",
+            headers={"WWW-Authenticate": "Bearer"},
+        )
     given = given.strip()
     # Compare against every token in constant time, so timing does not leak a prefix.
     match = [t for t in tokens if hmac.compare_digest(t.encode(), given.encode())]
     if not match:
-        raise Problem(UNAUTHORIZED, "the API token is not valid on this server",
-                      headers={"WWW-Authenticate": "Bearer"})
+        raise Problem(
+            UNAUTHORIZED,
+            "the API token is not valid on this server",
+            headers={"WWW-Authenticate": "Bearer"},
+        )
     return owner_of(match[0])

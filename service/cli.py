@@ -58,7 +58,9 @@ class _Progress:
 def _labels(value: str) -> list[str]:
     labels = [v.strip() for v in value.split(",") if v.strip()]
     if not labels:
-        raise argparse.ArgumentTypeError("expected comma-separated channel labels, e.g. L,R,C,LFE,Ls,Rs")
+        raise argparse.ArgumentTypeError(
+            "expected comma-separated channel labels, e.g. L,R,C,LFE,Ls,Rs"
+        )
     return labels
 
 
@@ -82,8 +84,8 @@ def _write_json(path: str, data: object) -> None:
 
 
 def cmd_render(args: argparse.Namespace) -> int:
-    from earfold.renderer.loudness import parse_loudness, parse_true_peak
     from earfold.renderer.engine import LfeOptions
+    from earfold.renderer.loudness import parse_loudness, parse_true_peak
     from earfold.renderer.render import RenderSettings, render
 
     settings = RenderSettings(
@@ -107,7 +109,9 @@ def cmd_render(args: argparse.Namespace) -> int:
         report = render(args.inputs, args.output, settings, progress=progress)
     finally:
         progress.done()
-    report_path = None if args.report == "none" else (args.report or _default_report_path(args.output))
+    report_path = (
+        None if args.report == "none" else (args.report or _default_report_path(args.output))
+    )
     if report_path:
         _write_json(report_path, report)
     if not args.quiet:
@@ -116,8 +120,10 @@ def cmd_render(args: argparse.Namespace) -> int:
         d = report.get("delivery")
         if d:
             o = d["output"]
-            level = (f", {o['integrated_lufs'] if o['integrated_lufs'] is not None else '-inf'} LUFS"
-                     f", true peak {d['true_peak_after_dbtp']} dBTP")
+            level = (
+                f", {o['integrated_lufs'] if o['integrated_lufs'] is not None else '-inf'} LUFS"
+                f", true peak {d['true_peak_after_dbtp']} dBTP"
+            )
         print(
             f"wrote {args.output}: {out['frames'] / out['samplerate']:.2f} s, "
             f"{out['samplerate']} Hz, {out['subtype']}{level}, "
@@ -131,9 +137,8 @@ def cmd_render(args: argparse.Namespace) -> int:
 
 
 def cmd_loudness(args: argparse.Namespace) -> int:
-    from earfold.renderer.loudness import format_measurement
     from earfold.renderer.layouts import get_layout
-    from earfold.renderer.loudness import channel_weights, measure_file
+    from earfold.renderer.loudness import channel_weights, format_measurement, measure_file
 
     results = []
     for path in args.files:
@@ -164,7 +169,9 @@ def cmd_layouts(args: argparse.Namespace) -> int:
         print(f"{layout.name:<7} {layout.channels:>2} channels  {layout.description}")
         cells = []
         for s in layout.speakers:
-            cells.append(f"{s.label}(LFE)" if s.lfe else f"{s.label} {s.azimuth:+g}/{s.elevation:+g}")
+            cells.append(
+                f"{s.label}(LFE)" if s.lfe else f"{s.label} {s.azimuth:+g}/{s.elevation:+g}"
+            )
         print("        " + ", ".join(cells))
     print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
     print("Channel order shown is the default file order; override with --channel-order.")
@@ -181,11 +188,15 @@ def cmd_rooms(args: argparse.Namespace) -> int:
         d = room.to_dict()
         x, y, z = room.dimensions
         rt = ", ".join(f"{t:.2f}" for t in room.rt60)
-        print(f"{room.name:<7} {x:g} x {y:g} x {z:g} m, {d.get('volume_m3', x * y * z):.0f} m3  "
-              f"{room.description}")
-        print(f"        RT60 (Eyring) 125 Hz-8 kHz: {rt} s; mixing time "
-              f"{float(room.mixing_time) * 1e3:.0f} ms; critical distance "
-              f"{np.mean(room.critical_distance):.2f} m")
+        print(
+            f"{room.name:<7} {x:g} x {y:g} x {z:g} m, {d.get('volume_m3', x * y * z):.0f} m3  "
+            f"{room.description}"
+        )
+        print(
+            f"        RT60 (Eyring) 125 Hz-8 kHz: {rt} s; mixing time "
+            f"{float(room.mixing_time) * 1e3:.0f} ms; critical distance "
+            f"{np.mean(room.critical_distance):.2f} m"
+        )
     print("\nA custom room is a JSON file: see examples/rooms/.")
     return 0
 
@@ -200,8 +211,14 @@ def cmd_hrtf_list(args: argparse.Namespace) -> int:
     if args.json:
         _print_json(
             [
-                {"name": s.name, "file": s.filename, "title": s.title, "citation": s.citation,
-                 "licence": s.licence, "default": s.name == DEFAULT_SET}
+                {
+                    "name": s.name,
+                    "file": s.filename,
+                    "title": s.title,
+                    "citation": s.citation,
+                    "licence": s.licence,
+                    "default": s.name == DEFAULT_SET,
+                }
                 for s in sets
             ]
         )
@@ -227,9 +244,10 @@ def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
         print(f"  {key:<{width}}  {value}")
     df = summary.get("diffuse_field")
     if df:
-        bands = "  ".join(f"{fc}: {'-' if v is None else f'{v:+.1f}'}"
-                          for fc, v in df["octave_bands_db"].items())
-        print(f"  diffuse-field response (dB re 500 Hz-2 kHz, by octave band centre in Hz):")
+        bands = "  ".join(
+            f"{fc}: {'-' if v is None else f'{v:+.1f}'}" for fc, v in df["octave_bands_db"].items()
+        )
+        print("  diffuse-field response (dB re 500 Hz-2 kHz, by octave band centre in Hz):")
         print(f"    {bands}")
     for w in summary["warnings"]:
         print(f"  warning: {w}")
@@ -279,7 +297,9 @@ def build_parser() -> argparse.ArgumentParser:
         prog="earfold",
         description="Render multichannel loudspeaker stems to binaural headphone mixes.",
     )
-    parser.add_argument("--version", action="version", version=f"earfold {earfold.renderer.__version__}")
+    parser.add_argument(
+        "--version", action="version", version=f"earfold {earfold.renderer.__version__}"
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser(
@@ -291,42 +311,93 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="stem file(s)")
     p.add_argument("-o", "--output", required=True, help="output file (.wav or .flac)")
-    p.add_argument("--layout", required=True, help="layout name (see 'earfold layouts') or a JSON file")
-    p.add_argument("--channel-order", type=_labels, metavar="L,R,C,...",
-                   help="labels of the file's channels in file order")
-    p.add_argument("--hrtf", metavar="NAME|FILE.sofa",
-                   help="shipped set name (see 'earfold hrtf list') or a SOFA file; default mit-kemar")
-    p.add_argument("--room", default="none", metavar="none|small|medium|large|FILE.json",
-                   help="synthetic room around the loudspeakers (default none; 'earfold rooms' "
-                   "lists the presets)")
-    p.add_argument("--room-mode", default="shared", choices=["shared", "exact"],
-                   help="shared: the diffuse tail rendered once for all loudspeakers (default); "
-                   "exact: a full room response per loudspeaker")
-    p.add_argument("--loudness", default="-23", metavar="LUFS|match|none",
-                   help="integrated loudness of the output (ITU-R BS.1770): a LUFS target such as "
-                   "-23 (EBU R128, the default), -16 or -14; 'match' keeps the stem's own "
-                   "programme loudness; 'none' applies no gain")
-    p.add_argument("--true-peak", default="-1", metavar="DBTP|off",
-                   help="true-peak limiter ceiling (default -1 dBTP); 'off' turns the limiter "
-                   "off (the report says so)")
-    p.add_argument("--eq", choices=["none", "diffuse-field"],
-                   help="equalisation of the HRTF set: diffuse-field (the default for free-field "
-                   "sets; removes the colour all directions share) or none (the default for sets "
-                   "that hold a room)")
-    p.add_argument("--headphone-eq", metavar="FILE",
-                   help="headphone compensation applied to the output: a JSON list of parametric "
-                   "bands or an impulse response (WAV/FLAC, any rate); see examples/headphone_eq/")
-    p.add_argument("--format", choices=["wav", "flac"], help="output format (default: from the extension)")
-    p.add_argument("--subtype", default="PCM_24", type=str.upper,
-                   choices=["PCM_16", "PCM_24", "FLOAT"], help="sample format (default PCM_24)")
+    p.add_argument(
+        "--layout", required=True, help="layout name (see 'earfold layouts') or a JSON file"
+    )
+    p.add_argument(
+        "--channel-order",
+        type=_labels,
+        metavar="L,R,C,...",
+        help="labels of the file's channels in file order",
+    )
+    p.add_argument(
+        "--hrtf",
+        metavar="NAME|FILE.sofa",
+        help="shipped set name (see 'earfold hrtf list') or a SOFA file; default mit-kemar",
+    )
+    p.add_argument(
+        "--room",
+        default="none",
+        metavar="none|small|medium|large|FILE.json",
+        help="synthetic room around the loudspeakers (default none; 'earfold rooms' "
+        "lists the presets)",
+    )
+    p.add_argument(
+        "--room-mode",
+        default="shared",
+        choices=["shared", "exact"],
+        help="shared: the diffuse tail rendered once for all loudspeakers (default); "
+        "exact: a full room response per loudspeaker",
+    )
+    p.add_argument(
+        "--loudness",
+        default="-23",
+        metavar="LUFS|match|none",
+        help="integrated loudness of the output (ITU-R BS.1770): a LUFS target such as "
+        "-23 (EBU R128, the default), -16 or -14; 'match' keeps the stem's own "
+        "programme loudness; 'none' applies no gain",
+    )
+    p.add_argument(
+        "--true-peak",
+        default="-1",
+        metavar="DBTP|off",
+        help="true-peak limiter ceiling (default -1 dBTP); 'off' turns the limiter "
+        "off (the report says so)",
+    )
+    p.add_argument(
+        "--eq",
+        choices=["none", "diffuse-field"],
+        help="equalisation of the HRTF set: diffuse-field (the default for free-field "
+        "sets; removes the colour all directions share) or none (the default for sets "
+        "that hold a room)",
+    )
+    p.add_argument(
+        "--headphone-eq",
+        metavar="FILE",
+        help="headphone compensation applied to the output: a JSON list of parametric "
+        "bands or an impulse response (WAV/FLAC, any rate); see examples/headphone_eq/",
+    )
+    p.add_argument(
+        "--format", choices=["wav", "flac"], help="output format (default: from the extension)"
+    )
+    p.add_argument(
+        "--subtype",
+        default="PCM_24",
+        type=str.upper,
+        choices=["PCM_16", "PCM_24", "FLOAT"],
+        help="sample format (default PCM_24)",
+    )
     p.add_argument("--seed", type=int, default=0, help="seed for dither (default 0)")
-    p.add_argument("--report", metavar="FILE.json",
-                   help="where to write the JSON report (default: OUTPUT's name + .report.json; "
-                   "'none' to skip)")
-    p.add_argument("--lfe-cutoff", type=float, default=120.0, metavar="HZ",
-                   help="LFE low-pass corner (default 120; 0 = no low-pass)")
-    p.add_argument("--lfe-gain", type=float, default=10.0, metavar="DB",
-                   help="LFE in-band gain (default +10 dB)")
+    p.add_argument(
+        "--report",
+        metavar="FILE.json",
+        help="where to write the JSON report (default: OUTPUT's name + .report.json; "
+        "'none' to skip)",
+    )
+    p.add_argument(
+        "--lfe-cutoff",
+        type=float,
+        default=120.0,
+        metavar="HZ",
+        help="LFE low-pass corner (default 120; 0 = no low-pass)",
+    )
+    p.add_argument(
+        "--lfe-gain",
+        type=float,
+        default=10.0,
+        metavar="DB",
+        help="LFE in-band gain (default +10 dB)",
+    )
     p.add_argument("--block-size", type=int, metavar="FRAMES", help="engine block size (advanced)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress or summary")
     p.set_defaults(func=cmd_render)
@@ -374,10 +445,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     p.add_argument("--seconds", type=float, default=60.0, help="stem length (default 60)")
     p.add_argument("--layout", help="only this layout (default: 2.0, 5.1, 7.1.4)")
-    p.add_argument("--room", default="none", help="render in this room (e.g. large); the baseline "
-                   "then convolves full room responses, and the exact mode is timed too")
-    p.add_argument("--no-memory", action="store_true",
-                   help="skip the memory-growth check (a 10x longer stem)")
+    p.add_argument(
+        "--room",
+        default="none",
+        help="render in this room (e.g. large); the baseline "
+        "then convolves full room responses, and the exact mode is timed too",
+    )
+    p.add_argument(
+        "--no-memory", action="store_true", help="skip the memory-growth check (a 10x longer stem)"
+    )
     p.set_defaults(func=cmd_bench)
 
     from earfold.service.serve_cli import add_serve_parser
@@ -389,7 +465,9 @@ def build_parser() -> argparse.ArgumentParser:
     add_worker_parser(sub)
 
     p = sub.add_parser("demo", help="synthesise a demo 7.1.4 stem and render it")
-    p.add_argument("dir", nargs="?", default="earfold-demo", help="folder for the files (default earfold-demo)")
+    p.add_argument(
+        "dir", nargs="?", default="earfold-demo", help="folder for the files (default earfold-demo)"
+    )
     p.set_defaults(func=cmd_demo)
     return parser
 

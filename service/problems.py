@@ -93,8 +93,15 @@ def problem_responses(*statuses: int) -> dict[int | str, dict]:
 class Problem(Exception):
     """An error the API answers with a problem-details body."""
 
-    def __init__(self, status: int, detail: str, *, title: str | None = None,
-                 headers: dict[str, str] | None = None, **extra: object) -> None:
+    def __init__(
+        self,
+        status: int,
+        detail: str,
+        *,
+        title: str | None = None,
+        headers: dict[str, str] | None = None,
+        **extra: object,
+    ) -> None:
         super().__init__(detail)
         self.status = status
         self.detail = detail
@@ -103,9 +110,15 @@ class Problem(Exception):
         self.extra = extra
 
 
-def problem_response(status: int, detail: str, *, title: str | None = None,
-                     instance: str | None = None, headers: dict[str, str] | None = None,
-                     **extra: object) -> JSONResponse:
+def problem_response(
+    status: int,
+    detail: str,
+    *,
+    title: str | None = None,
+    instance: str | None = None,
+    headers: dict[str, str] | None = None,
+    **extra: object,
+) -> JSONResponse:
     """A problem-details response (RFC 9457)."""
     body: dict = {
         "type": "about:blank",
@@ -138,8 +151,14 @@ def install_problem_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(Problem)
     async def _problem(request: Request, exc: Problem) -> JSONResponse:
-        return problem_response(exc.status, exc.detail, title=exc.title,
-                                instance=request.url.path, headers=exc.headers, **exc.extra)
+        return problem_response(
+            exc.status,
+            exc.detail,
+            title=exc.title,
+            instance=request.url.path,
+            headers=exc.headers,
+            **exc.extra,
+        )
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
@@ -148,8 +167,9 @@ def install_problem_handlers(app: FastAPI) -> None:
             for e in exc.errors()
         ]
         detail = "; ".join(f"{e['field']}: {e['message']}" for e in errors) or "invalid request"
-        return problem_response(UNPROCESSABLE, detail, title="Invalid request",
-                                instance=request.url.path, errors=errors)
+        return problem_response(
+            UNPROCESSABLE, detail, title="Invalid request", instance=request.url.path, errors=errors
+        )
 
     @app.exception_handler(StarletteHTTPException)
     async def _http(request: Request, exc: StarletteHTTPException) -> JSONResponse:
@@ -159,11 +179,12 @@ def install_problem_handlers(app: FastAPI) -> None:
         headers = getattr(exc, "headers", None)
         if exc.status_code == 405:
             allowed = _allowed_methods(request)
-            detail = (f"{request.method} is not allowed on {request.url.path!r}; "
-                      f"allowed: {', '.join(allowed)}")
+            detail = (
+                f"{request.method} is not allowed on {request.url.path!r}; "
+                f"allowed: {', '.join(allowed)}"
+            )
             headers = {**(headers or {}), "Allow": ", ".join(allowed)}
-        return problem_response(exc.status_code, detail, instance=request.url.path,
-                                headers=headers)
+        return problem_response(exc.status_code, detail, instance=request.url.path, headers=headers)
 
     @app.exception_handler(RendererError)
     async def _renderer(request: Request, exc: RendererError) -> JSONResponse:
@@ -171,15 +192,20 @@ def install_problem_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(QueueUnavailable)
     async def _queue_down(request: Request, exc: QueueUnavailable) -> JSONResponse:
-        return problem_response(UNAVAILABLE, f"{exc}; nothing was changed, try again shortly",
-                                title="Job store unavailable", instance=request.url.path,
-                                headers={"Retry-After": str(UNAVAILABLE_RETRY_S)})
+        return problem_response(
+            UNAVAILABLE,
+            f"{exc}; nothing was changed, try again shortly",
+            title="Job store unavailable",
+            instance=request.url.path,
+            headers={"Retry-After": str(UNAVAILABLE_RETRY_S)},
+        )
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
         # Reached only by a bug: say so without leaking internals.
-        return problem_response(500, "an internal error occurred; the server log has details",
-                                instance=request.url.path)
+        return problem_response(
+            500, "an internal error occurred; the server log has details", instance=request.url.path
+        )
 
 
 def _allowed_methods(request: Request) -> list[str]:

@@ -39,6 +39,7 @@ def _positive(kind: type):
         if value <= 0:
             raise argparse.ArgumentTypeError(f"must be > 0, got {text!r}")
         return value
+
     return parse
 
 
@@ -55,40 +56,64 @@ def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1)")
     p.add_argument("--port", type=int, default=8000, help="port (default 8000)")
-    p.add_argument("--data-dir", default=DEFAULT_DATA_DIR,
-                   help=f"stems, renders and the job store (default ./{DEFAULT_DATA_DIR})")
-    p.add_argument("--workers", type=int, default=default_workers(),
-                   help=f"render worker processes (default cores - 1 = {default_workers()}; "
-                   "0 = API only)")
-    p.add_argument("--queue", default="sqlite:", metavar="URL",
-                   help="job store: 'sqlite:' (embedded, default) or redis://HOST:PORT/DB "
-                   "(scale-out: jobs shared by several API processes and 'earfold worker' "
-                   "machines)")
-    p.add_argument("--tokens-file", metavar="FILE",
-                   help="API tokens, one per line (also read from $EARFOLD_TOKENS)")
-    p.add_argument("--insecure", action="store_true",
-                   help="allow a non-loopback address without API tokens")
+    p.add_argument(
+        "--data-dir",
+        default=DEFAULT_DATA_DIR,
+        help=f"stems, renders and the job store (default ./{DEFAULT_DATA_DIR})",
+    )
+    p.add_argument(
+        "--workers",
+        type=int,
+        default=default_workers(),
+        help=f"render worker processes (default cores - 1 = {default_workers()}; 0 = API only)",
+    )
+    p.add_argument(
+        "--queue",
+        default="sqlite:",
+        metavar="URL",
+        help="job store: 'sqlite:' (embedded, default) or redis://HOST:PORT/DB "
+        "(scale-out: jobs shared by several API processes and 'earfold worker' "
+        "machines)",
+    )
+    p.add_argument(
+        "--tokens-file",
+        metavar="FILE",
+        help="API tokens, one per line (also read from $EARFOLD_TOKENS)",
+    )
+    p.add_argument(
+        "--insecure", action="store_true", help="allow a non-loopback address without API tokens"
+    )
     p.add_argument("--max-upload-gb", type=_positive(float), help="largest upload (default 8)")
-    p.add_argument("--max-queued", type=_positive(int), help="queued renders before 429 "
-                   "(default 100)")
-    p.add_argument("--max-channels", type=_positive(int),
-                   help="most channels in a stem, else 422 (default 64)")
-    p.add_argument("--max-duration-hours", type=_positive(float),
-                   help="longest stem, else 422 (default 3)")
-    p.add_argument("--max-hrtf-mb", type=_positive(float),
-                   help="largest SOFA upload, else 413 (default 256)")
-    p.add_argument("--retention-hours", type=_positive(float),
-                   help="delete stems and renders after this long (default 168)")
+    p.add_argument(
+        "--max-queued", type=_positive(int), help="queued renders before 429 (default 100)"
+    )
+    p.add_argument(
+        "--max-channels", type=_positive(int), help="most channels in a stem, else 422 (default 64)"
+    )
+    p.add_argument(
+        "--max-duration-hours", type=_positive(float), help="longest stem, else 422 (default 3)"
+    )
+    p.add_argument(
+        "--max-hrtf-mb", type=_positive(float), help="largest SOFA upload, else 413 (default 256)"
+    )
+    p.add_argument(
+        "--retention-hours",
+        type=_positive(float),
+        help="delete stems and renders after this long (default 168)",
+    )
     p.add_argument("--lease-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--tick-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--max-attempts", type=_positive(int), help=argparse.SUPPRESS)
     p.add_argument("--sweep-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--broker-heartbeat-seconds", type=_positive(float), help=argparse.SUPPRESS)
-    p.add_argument("--min-free-mb", type=float,
-                   help="disk space that must stay free after an upload, else 507 "
-                   "(default 1024)")
-    p.add_argument("--log-level", default="warning",
-                   choices=["critical", "error", "warning", "info", "debug"])
+    p.add_argument(
+        "--min-free-mb",
+        type=float,
+        help="disk space that must stay free after an upload, else 507 (default 1024)",
+    )
+    p.add_argument(
+        "--log-level", default="warning", choices=["critical", "error", "warning", "info", "debug"]
+    )
     p.set_defaults(func=cmd_serve)
 
 
@@ -126,9 +151,11 @@ def cmd_serve(args: argparse.Namespace) -> int:
         print(f"earfold: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     if not is_loopback(args.host) and not settings.tokens and not args.insecure:
-        print(f"earfold: error: refusing to serve on {args.host!r} without API tokens; give "
-              "--tokens-file FILE (or $EARFOLD_TOKENS), bind 127.0.0.1, or pass --insecure",
-              file=sys.stderr)
+        print(
+            f"earfold: error: refusing to serve on {args.host!r} without API tokens; give "
+            "--tokens-file FILE (or $EARFOLD_TOKENS), bind 127.0.0.1, or pass --insecure",
+            file=sys.stderr,
+        )
         return EXIT_BAD_INPUT
     if args.workers < 0:
         print(f"earfold: error: --workers must be >= 0, got {args.workers}", file=sys.stderr)
@@ -146,12 +173,21 @@ def cmd_serve(args: argparse.Namespace) -> int:
     pool = WorkerPool(settings, args.workers)
     pool.start()
     host = f"[{args.host}]" if ":" in args.host else args.host
-    print(f"earfold serving on http://{host}:{args.port}  (API docs: http://{host}:{args.port}"
-          f"/docs; {args.workers} worker(s); data in {settings.data_dir}"
-          f"{'; tokens on' if settings.tokens else ''})", file=sys.stderr, flush=True)
+    print(
+        f"earfold serving on http://{host}:{args.port}  (API docs: http://{host}:{args.port}"
+        f"/docs; {args.workers} worker(s); data in {settings.data_dir}"
+        f"{'; tokens on' if settings.tokens else ''})",
+        file=sys.stderr,
+        flush=True,
+    )
     try:
-        uvicorn.run(app, host=args.host, port=args.port, log_level=args.log_level,
-                    access_log=args.log_level in ("info", "debug"))
+        uvicorn.run(
+            app,
+            host=args.host,
+            port=args.port,
+            log_level=args.log_level,
+            access_log=args.log_level in ("info", "debug"),
+        )
     finally:
         pool.stop()
     return 0

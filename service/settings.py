@@ -118,8 +118,10 @@ class ServiceSettings:
         """Options of a network queue backend (:func:`earfold.service.jobs.open_queue`)."""
         if not self.queue_url.startswith(("redis://", "rediss://")):
             return {}
-        return {"heartbeat_timeout_s": self.broker_heartbeat_s,
-                "maintenance_chance": self.broker_maintenance_chance}
+        return {
+            "heartbeat_timeout_s": self.broker_heartbeat_s,
+            "maintenance_chance": self.broker_maintenance_chance,
+        }
 
     def replace(self, **changes: object) -> ServiceSettings:
         return dataclasses.replace(self, **changes)
@@ -154,8 +156,9 @@ def read_tokens(path: str | os.PathLike | None = None, env: dict | None = None) 
         try:
             text = Path(path).read_text()
         except OSError as exc:
-            raise ValueError(f"cannot read the tokens file {str(path)!r}: {exc.strerror or exc}") \
-                from None
+            raise ValueError(
+                f"cannot read the tokens file {str(path)!r}: {exc.strerror or exc}"
+            ) from None
         for line in text.splitlines():
             line = line.split("#", 1)[0].strip()
             if line:
@@ -163,5 +166,7 @@ def read_tokens(path: str | os.PathLike | None = None, env: dict | None = None) 
     tokens += [t.strip() for t in env.get(TOKENS_ENV, "").split(",") if t.strip()]
     short = [t[:4] + "..." for t in tokens if len(t) < 16]
     if short:
-        raise ValueError(f"API tokens must be at least 16 characters; too short: {', '.join(short)}")
+        raise ValueError(
+            f"API tokens must be at least 16 characters; too short: {', '.join(short)}"
+        )
     return tuple(dict.fromkeys(tokens))

@@ -140,7 +140,8 @@ class Storage:
             except FileNotFoundError:
                 continue
             shutil.rmtree(entry, ignore_errors=True) if entry.is_dir() else entry.unlink(
-                missing_ok=True)
+                missing_ok=True
+            )
             removed += 1
         return removed
 
@@ -151,5 +152,9 @@ class Storage:
 
 
 def _noun(kind: str) -> str:
-    return {"stems": "stem", "renders": "render", "hrtf": "HRTF set",
-            "comparisons": "comparison"}.get(kind, kind)
+    return {
+        "stems": "stem",
+        "renders": "render",
+        "hrtf": "HRTF set",
+        "comparisons": "comparison",
+    }.get(kind, kind)

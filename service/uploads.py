@@ -69,13 +69,16 @@ def declared_length(request: Request, limit: int) -> int | None:
     except ValueError:
         raise Problem(BAD_REQUEST, f"Content-Length {value!r} is not a number") from None
     if length > limit:
-        raise Problem(TOO_LARGE, f"the upload is {length} bytes; at most {limit} are accepted "
-                      f"({limit / 1e9:.2f} GB)")
+        raise Problem(
+            TOO_LARGE,
+            f"the upload is {length} bytes; at most {limit} are accepted ({limit / 1e9:.2f} GB)",
+        )
     return length
 
 
-async def receive_files(request: Request, folder: Path, *, limit: int,
-                        field: str = "file") -> list[UploadedFile]:
+async def receive_files(
+    request: Request, folder: Path, *, limit: int, field: str = "file"
+) -> list[UploadedFile]:
     """Stream the multipart body's ``field`` parts into ``folder`` (``part-N``).
 
     Raises
@@ -86,8 +89,11 @@ async def receive_files(request: Request, folder: Path, *, limit: int,
     """
     ctype, options = parse_options_header(request.headers.get("content-type", ""))
     if ctype != b"multipart/form-data" or b"boundary" not in options:
-        raise Problem(UNSUPPORTED, f"expected a multipart/form-data body with {field!r} file "
-                      f"parts, got Content-Type {request.headers.get('content-type', '')!r}")
+        raise Problem(
+            UNSUPPORTED,
+            f"expected a multipart/form-data body with {field!r} file "
+            f"parts, got Content-Type {request.headers.get('content-type', '')!r}",
+        )
 
     files: list[UploadedFile] = []
     state: dict = {"headers": {}, "name": b"", "value": b"", "fh": None}
@@ -115,9 +121,13 @@ async def receive_files(request: Request, folder: Path, *, limit: int,
             if len(files) >= MAX_PARTS:
                 raise Problem(BAD_REQUEST, f"at most {MAX_PARTS} files per upload")
             path = folder / f"part-{len(files)}"
-            current.update(filename=clean_filename(filename.decode("utf-8", "replace")),
-                           path=path, size=0, digest=hashlib.sha256(),
-                           fh=open(path, "wb"))  # noqa: SIM115 - closed in on_part_end
+            current.update(
+                filename=clean_filename(filename.decode("utf-8", "replace")),
+                path=path,
+                size=0,
+                digest=hashlib.sha256(),
+                fh=open(path, "wb"),
+            )  # noqa: SIM115 - closed in on_part_end
         else:
             current.update(size=0)
 
@@ -134,24 +144,38 @@ async def receive_files(request: Request, folder: Path, *, limit: int,
     def on_part_end() -> None:
         if current.get("is_file"):
             current["fh"].close()
-            files.append(UploadedFile(current["field"], current["filename"], current["path"],
-                                      current["size"], current["digest"].hexdigest()))
+            files.append(
+                UploadedFile(
+                    current["field"],
+                    current["filename"],
+                    current["path"],
+                    current["size"],
+                    current["digest"].hexdigest(),
+                )
+            )
         state["headers"] = {}
         current.clear()
 
     parser = MultipartParser(
         options[b"boundary"],
-        {"on_header_field": on_header_field, "on_header_value": on_header_value,
-         "on_header_end": on_header_end, "on_headers_finished": on_headers_finished,
-         "on_part_data": on_part_data, "on_part_end": on_part_end},
+        {
+            "on_header_field": on_header_field,
+            "on_header_value": on_header_value,
+            "on_header_end": on_header_end,
+            "on_headers_finished": on_headers_finished,
+            "on_part_data": on_part_data,
+            "on_part_end": on_part_end,
+        },
     )
     received = 0
     try:
         async for chunk in request.stream():
             received += len(chunk)
             if received > limit:
-                raise Problem(TOO_LARGE, f"the upload exceeded {limit} bytes "
-                              f"({limit / 1e9:.2f} GB), the most accepted")
+                raise Problem(
+                    TOO_LARGE,
+                    f"the upload exceeded {limit} bytes ({limit / 1e9:.2f} GB), the most accepted",
+                )
             parser.write(chunk)
         parser.finalize()
         if current.get("is_file"):
@@ -159,21 +183,24 @@ async def receive_files(request: Request, folder: Path, *, limit: int,
     except MultipartParseError as exc:
         raise Problem(BAD_REQUEST, f"the multipart body is malformed: {exc}") from None
     except ClientDisconnect:
-        raise Problem(BAD_REQUEST, "the client disconnected before the upload finished") \
-            from None
+        raise Problem(BAD_REQUEST, "the client disconnected before the upload finished") from None
     finally:
         fh = current.get("fh")
         if fh is not None and not fh.closed:
             fh.close()
     if not files:
-        raise Problem(BAD_REQUEST, f"no file in the upload: send the audio as multipart "
-                      f"field {field!r} (repeat it for several mono files)")
+        raise Problem(
+            BAD_REQUEST,
+            f"no file in the upload: send the audio as multipart "
+            f"field {field!r} (repeat it for several mono files)",
+        )
     return files
 
 
 @contextlib.asynccontextmanager
-async def staged_upload(request: Request, storage: Storage, *, limit: int,
-                        min_free_bytes: int) -> AsyncIterator[tuple[Path, list[UploadedFile]]]:
+async def staged_upload(
+    request: Request, storage: Storage, *, limit: int, min_free_bytes: int
+) -> AsyncIterator[tuple[Path, list[UploadedFile]]]:
     """Receive an upload into a new temporary folder; remove the folder if anything fails.
 
     Checks the declared length against ``limit`` (413) and the free disk space (507)

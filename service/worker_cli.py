@@ -37,16 +37,29 @@ def add_worker_parser(subparsers: argparse._SubParsersAction) -> None:
         "API's data directory (a network filesystem). Stops on Ctrl-C or SIGTERM, handing "
         "running jobs back.",
     )
-    p.add_argument("--queue", required=True, metavar="URL",
-                   help="job store: redis://HOST:PORT/DB (optionally ?prefix=NAME)")
-    p.add_argument("--data-dir", default=DEFAULT_DATA_DIR,
-                   help=f"the data directory the API uses (default ./{DEFAULT_DATA_DIR})")
-    p.add_argument("--processes", type=_positive(int), default=default_processes(),
-                   help=f"render worker processes (default: one per core = "
-                   f"{default_processes()})")
-    p.add_argument("--check", action="store_true",
-                   help="only check that the queue answers and the data directory is "
-                   "writable; exit 0 if so, 1 if not")
+    p.add_argument(
+        "--queue",
+        required=True,
+        metavar="URL",
+        help="job store: redis://HOST:PORT/DB (optionally ?prefix=NAME)",
+    )
+    p.add_argument(
+        "--data-dir",
+        default=DEFAULT_DATA_DIR,
+        help=f"the data directory the API uses (default ./{DEFAULT_DATA_DIR})",
+    )
+    p.add_argument(
+        "--processes",
+        type=_positive(int),
+        default=default_processes(),
+        help=f"render worker processes (default: one per core = {default_processes()})",
+    )
+    p.add_argument(
+        "--check",
+        action="store_true",
+        help="only check that the queue answers and the data directory is "
+        "writable; exit 0 if so, 1 if not",
+    )
     p.add_argument("--lease-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--tick-seconds", type=_positive(float), help=argparse.SUPPRESS)
     p.add_argument("--max-attempts", type=_positive(int), help=argparse.SUPPRESS)
@@ -64,11 +77,17 @@ def worker_settings(args: argparse.Namespace):
         from .jobs.redis_store import parse_url
 
         parse_url(args.queue)
-    overrides = {"lease_s": args.lease_seconds, "tick_s": args.tick_seconds,
-                 "max_attempts": args.max_attempts,
-                 "broker_heartbeat_s": args.broker_heartbeat_seconds}
-    return ServiceSettings(data_dir=Path(args.data_dir).resolve(), queue_url=args.queue,
-                           **{k: v for k, v in overrides.items() if v is not None})
+    overrides = {
+        "lease_s": args.lease_seconds,
+        "tick_s": args.tick_seconds,
+        "max_attempts": args.max_attempts,
+        "broker_heartbeat_s": args.broker_heartbeat_seconds,
+    }
+    return ServiceSettings(
+        data_dir=Path(args.data_dir).resolve(),
+        queue_url=args.queue,
+        **{k: v for k, v in overrides.items() if v is not None},
+    )
 
 
 def check(settings) -> str | None:
@@ -80,8 +99,7 @@ def check(settings) -> str | None:
     if not os.access(settings.data_dir, os.W_OK):
         return f"the data directory {str(settings.data_dir)!r} is not writable"
     try:
-        queue = open_queue(settings.queue_url, str(settings.data_dir),
-                           **settings.broker_options())
+        queue = open_queue(settings.queue_url, str(settings.data_dir), **settings.broker_options())
     except ValueError as exc:
         return str(exc)
     try:
@@ -109,8 +127,11 @@ def cmd_worker(args: argparse.Namespace) -> int:
         print("earfold: worker check ok", file=sys.stderr)
         return 0
     if not settings.data_dir.is_dir():
-        print(f"earfold: error: the data directory {str(settings.data_dir)!r} does not exist; "
-              "give the folder the API serves from (--data-dir)", file=sys.stderr)
+        print(
+            f"earfold: error: the data directory {str(settings.data_dir)!r} does not exist; "
+            "give the folder the API serves from (--data-dir)",
+            file=sys.stderr,
+        )
         return EXIT_BAD_INPUT
     from .jobs.pool import WorkerPool
     from .jobs.redis_store import display_url
@@ -121,13 +142,18 @@ def cmd_worker(args: argparse.Namespace) -> int:
     pool = WorkerPool(settings, args.processes)
     pool.start()
     where = display_url(settings.queue_url) if "://" in settings.queue_url else settings.queue_url
-    print(f"earfold worker: {args.processes} process(es) taking renders from {where}; data in "
-          f"{settings.data_dir}", file=sys.stderr, flush=True)
+    print(
+        f"earfold worker: {args.processes} process(es) taking renders from {where}; data in "
+        f"{settings.data_dir}",
+        file=sys.stderr,
+        flush=True,
+    )
     try:
         while not stop.wait(1.0):
             pass
     finally:
-        print("earfold worker: stopping; running renders are handed back", file=sys.stderr,
-              flush=True)
+        print(
+            "earfold worker: stopping; running renders are handed back", file=sys.stderr, flush=True
+        )
         pool.stop()
     return 0

@@ -10,7 +10,11 @@ import sys
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parents[1]
-PACKAGES = {"renderer": "earfold.renderer", "service": "earfold.service", "hrtf_sets": "earfold.hrtf_sets"}
+PACKAGES = {
+    "renderer": "earfold.renderer",
+    "service": "earfold.service",
+    "hrtf_sets": "earfold.hrtf_sets",
+}
 FORBIDDEN = ("fastapi", "starlette", "uvicorn", "redis", "dramatiq", "httpx", "sqlite3", "pydantic")
 
 #: The renderer's foundation: modules every wing may import.
@@ -92,7 +96,7 @@ def test_no_module_imports_another_in_a_circle():
         stack.append(node)
         for nxt in sorted(GRAPH[node]):
             if state.get(nxt) == 1:
-                cycles.append(" -> ".join(stack[stack.index(nxt):] + [nxt]))
+                cycles.append(" -> ".join(stack[stack.index(nxt) :] + [nxt]))
             elif nxt not in state:
                 visit(nxt, stack)
         stack.pop()
@@ -130,11 +134,15 @@ def test_wings_import_only_downward_and_through_each_others_surface():
             if wing in FOUNDATION:
                 problems.append(f"{name} (foundation) imports {target} (wing {other!r})")
             elif other not in WINGS[wing]:
-                problems.append(f"{name} (wing {wing!r}) imports {target} (wing {other!r}), "
-                                "which is not below it")
+                problems.append(
+                    f"{name} (wing {wing!r}) imports {target} (wing {other!r}), "
+                    "which is not below it"
+                )
             elif any(part.startswith("_") for part in target.split(".")[3:]):
-                problems.append(f"{name} imports {target}, a private module of wing {other!r}; "
-                                "import from the wing's __init__")
+                problems.append(
+                    f"{name} imports {target}, a private module of wing {other!r}; "
+                    "import from the wing's __init__"
+                )
     assert not problems, "\n".join(sorted(problems))
 
 
@@ -142,7 +150,9 @@ def test_renderer_never_imports_the_service():
     for name, targets in GRAPH.items():
         if name.startswith("earfold.renderer"):
             bad = [t for t in targets if t.startswith("earfold.service")]
-            assert not bad, f"{name} imports {bad}; the service imports the renderer, never the reverse"
+            assert not bad, (
+                f"{name} imports {bad}; the service imports the renderer, never the reverse"
+            )
 
 
 def test_importing_renderer_pulls_in_no_web_or_queue_package():
@@ -179,4 +189,6 @@ def test_each_library_behind_one_door():
         used = _top_level_imports(path)
         for lib, door in doors.items():
             if lib in used:
-                assert path == door, f"{path.relative_to(REPO)} imports {lib}; only {door.relative_to(REPO)} may"
+                assert path == door, (
+                    f"{path.relative_to(REPO)} imports {lib}; only {door.relative_to(REPO)} may"
+                )

@@ -22,8 +22,8 @@ TAPS = 2048
 
 def make(path: Path = HERE / "dark-ir.wav") -> Path:
     sys.path.insert(0, str(HERE.parents[1]))
-    from earfold.renderer.io import write_audio
     from earfold.renderer.eq import load_headphone_eq
+    from earfold.renderer.io import write_audio
 
     eq = load_headphone_eq(HERE / "dark.json", RATE)
     ir = np.zeros(TAPS)

@@ -1,9 +1,8 @@
-"""The streaming convolution engine and the LFE path.
-"""
+"""The streaming convolution engine and the LFE path."""
 
 from __future__ import annotations
 
-from .convolution import BinauralConvolver, DEFAULT_BLOCK_SIZE, convolve_reference
+from .convolution import DEFAULT_BLOCK_SIZE, BinauralConvolver, convolve_reference
 from .lfe import LfeOptions, lfe_filter
 
 __all__ = [

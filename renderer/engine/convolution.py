@@ -32,8 +32,13 @@ import scipy.signal
 
 from ..errors import AudioError, HrirError
 
-__all__ = ["DEFAULT_BLOCK_SIZE", "MIN_BLOCK_SIZE", "MAX_BLOCK_SIZE", "BinauralConvolver",
-           "convolve_reference"]
+__all__ = [
+    "DEFAULT_BLOCK_SIZE",
+    "MIN_BLOCK_SIZE",
+    "MAX_BLOCK_SIZE",
+    "BinauralConvolver",
+    "convolve_reference",
+]
 
 #: Default number of frames per engine block.
 #:
@@ -62,8 +67,10 @@ MIN_BLOCK_SIZE = 64
 #: Largest allowed block size (2**20 frames, about 22 s at 48 kHz); larger only costs memory.
 MAX_BLOCK_SIZE = 1 << 20
 
-_DTYPES = {np.dtype(np.float32): np.dtype(np.complex64),
-           np.dtype(np.float64): np.dtype(np.complex128)}
+_DTYPES = {
+    np.dtype(np.float32): np.dtype(np.complex64),
+    np.dtype(np.float64): np.dtype(np.complex128),
+}
 
 
 def _check_filters(filters: np.ndarray) -> np.ndarray:
@@ -124,12 +131,20 @@ class BinauralConvolver:
     F. Wefers, *Partitioned convolution algorithms for real-time auralization* (2015).
     """
 
-    def __init__(self, filters: np.ndarray, block_size: int = DEFAULT_BLOCK_SIZE, *,
-                 dtype: np.dtype | type = np.float32) -> None:
+    def __init__(
+        self,
+        filters: np.ndarray,
+        block_size: int = DEFAULT_BLOCK_SIZE,
+        *,
+        dtype: np.dtype | type = np.float32,
+    ) -> None:
         arr = _check_filters(filters)
-        if (isinstance(block_size, bool) or not isinstance(block_size, (int, np.integer))
-                or not MIN_BLOCK_SIZE <= block_size <= MAX_BLOCK_SIZE
-                or block_size & (block_size - 1)):
+        if (
+            isinstance(block_size, bool)
+            or not isinstance(block_size, (int, np.integer))
+            or not MIN_BLOCK_SIZE <= block_size <= MAX_BLOCK_SIZE
+            or block_size & (block_size - 1)
+        ):
             raise AudioError(
                 f"block_size must be a power of two from {MIN_BLOCK_SIZE} to "
                 f"{MAX_BLOCK_SIZE} frames, got {block_size!r}"
@@ -159,8 +174,7 @@ class BinauralConvolver:
         padded[:, :, :length] = arr
         cut = padded.reshape(channels, 2, parts, b).transpose(1, 2, 0, 3)  # (2, P, C, B)
         spectra = scipy.fft.rfft(cut, n=2 * b, axis=-1)
-        self._spectra = np.ascontiguousarray(spectra.reshape(2, parts * channels, bins),
-                                             dtype=cplx)
+        self._spectra = np.ascontiguousarray(spectra.reshape(2, parts * channels, bins), dtype=cplx)
 
         # The FDL holds each block's spectrum twice, at slots w and w + P, with w stepping
         # down by one per block: the P most recent spectra are then always the contiguous
@@ -224,11 +238,11 @@ class BinauralConvolver:
         while pos < n:
             take = min(b - self._fill, n - pos)
             start = b + self._fill
-            self._window[:, start:start + take] = x[pos:pos + take].T
+            self._window[:, start : start + take] = x[pos : pos + take].T
             if self._fill == 0 and take == b:
-                out[pos:pos + take] = self._whole_block().T
+                out[pos : pos + take] = self._whole_block().T
             else:
-                out[pos:pos + take] = self._part_block()[:, self._fill:self._fill + take].T
+                out[pos : pos + take] = self._part_block()[:, self._fill : self._fill + take].T
             self._fill += take
             pos += take
             if self._fill == b:
@@ -260,12 +274,12 @@ class BinauralConvolver:
         """Time-domain output (2, B) of partitions ``first .. last - 1``."""
         c = self.channels
         w = self._slot
-        x = self._fdl[w + first:w + last].reshape((last - first) * c, -1)
+        x = self._fdl[w + first : w + last].reshape((last - first) * c, -1)
         prod = self._products[: x.shape[0]]
         for ear in range(2):
-            np.multiply(x, self._spectra[ear, first * c:last * c], out=prod)
+            np.multiply(x, self._spectra[ear, first * c : last * c], out=prod)
             self._ears[ear] = _pairwise_sum(prod)
-        return scipy.fft.irfft(self._ears, n=2 * self.block_size, axis=-1)[:, self.block_size:]
+        return scipy.fft.irfft(self._ears, n=2 * self.block_size, axis=-1)[:, self.block_size :]
 
     def _whole_block(self) -> np.ndarray:
         self._transform_window()

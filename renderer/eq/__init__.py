@@ -1,5 +1,4 @@
-"""Tone and level: diffuse-field equalisation, headphone EQ, level calibration.
-"""
+"""Tone and level: diffuse-field equalisation, headphone EQ, level calibration."""
 
 from __future__ import annotations
 

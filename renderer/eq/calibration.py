@@ -30,8 +30,10 @@ from ..loudness import k_weighting_sos
 PINK_BAND_HZ = (20.0, 20000.0)
 
 #: What the report says the reference is.
-REFERENCE = ("diffuse pink noise, equal level in every loudspeaker, LFE silent: the render "
-             "reads the stem's own BS.1770 loudness (channel weights 1.0)")
+REFERENCE = (
+    "diffuse pink noise, equal level in every loudspeaker, LFE silent: the render "
+    "reads the stem's own BS.1770 loudness (channel weights 1.0)"
+)
 
 
 def pink_band(samplerate: float) -> tuple[float, float]:

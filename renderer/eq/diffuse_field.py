@@ -37,9 +37,9 @@ import scipy.fft
 from scipy.spatial import SphericalVoronoi
 
 from ..engine import DEFAULT_BLOCK_SIZE
-from ..signals import minimum_phase_spectrum
-from ..errors import EqualisationError, RendererError
+from ..errors import EqualisationError
 from ..hrtf import HrirPair, HrirSet
+from ..signals import minimum_phase_spectrum
 
 #: The equalisation choices of ``--eq``.
 EQ_CHOICES = ("none", "diffuse-field")
@@ -88,8 +88,6 @@ HIGHEST_HZ = 20000.0
 OCTAVE_CENTRES_HZ = (63, 125, 250, 500, 1000, 2000, 4000, 8000, 16000)
 
 
-
-
 @dataclass(frozen=True)
 class DiffuseField:
     """The diffuse-field response of a set.
@@ -130,8 +128,9 @@ def voronoi_areas(directions: np.ndarray) -> np.ndarray:
     """
     d = np.asarray(directions, dtype=float)
     d = d / np.linalg.norm(d, axis=1, keepdims=True)
-    unique, inverse, counts = np.unique(np.round(d, 9), axis=0, return_inverse=True,
-                                        return_counts=True)
+    unique, inverse, counts = np.unique(
+        np.round(d, 9), axis=0, return_inverse=True, return_counts=True
+    )
     inverse = inverse.reshape(-1)
     if len(unique) < 4 or np.linalg.matrix_rank(unique - unique.mean(0), tol=1e-6) < 3:
         raise EqualisationError(
@@ -193,7 +192,9 @@ def inverse_taps(samplerate: float, set_taps: int | None = None) -> int:
     return taps
 
 
-def diffuse_field(hset: HrirSet, *, weighted: bool = True, n_fft: int | None = None) -> DiffuseField:
+def diffuse_field(
+    hset: HrirSet, *, weighted: bool = True, n_fft: int | None = None
+) -> DiffuseField:
     """The set's diffuse-field response (``weighted=False``: plain mean over directions)."""
     n = n_fft or fft_size(hset)
     if weighted:
@@ -204,8 +205,8 @@ def diffuse_field(hset: HrirSet, *, weighted: bool = True, n_fft: int | None = N
     power = np.zeros((2, n // 2 + 1))
     # In chunks: a 1550-direction set at n = 8192 would otherwise need 200 MB of spectra.
     for start in range(0, hset.measurements, 32):
-        spec = scipy.fft.rfft(hset.ir[start:start + 32], n=n, axis=-1)
-        power += np.einsum("m,mef->ef", w[start:start + 32], np.abs(spec) ** 2)
+        spec = scipy.fft.rfft(hset.ir[start : start + 32], n=n, axis=-1)
+        power += np.einsum("m,mef->ef", w[start : start + 32], np.abs(spec) ** 2)
     freqs = np.fft.rfftfreq(n, 1.0 / hset.samplerate)
     return DiffuseField(freqs, power, weights, weighting, capped, hset.samplerate)
 
@@ -275,17 +276,17 @@ def inverse_filter(df: DiffuseField, taps: int | None = None) -> tuple[np.ndarra
     first, last = np.flatnonzero(inside)[[0, -1]]
     # Outside the usable band: hold the edge gain, but never boost there.
     gain[:first] = min(gain[first], 0.0)
-    gain[last + 1:] = min(gain[last], 0.0)
+    gain[last + 1 :] = min(gain[last], 0.0)
     # Smooth the clamped target so the edges do not ring.
     gain_lin = np.sqrt(smooth_fractional_octave(df.freqs, 10 ** (gain / 10), SMOOTHING_OCTAVES))
     fir = _minimum_phase(gain_lin / 10 ** (ref / 20), n, n_taps)
-    boost = gain[first:last + 1]
+    boost = gain[first : last + 1]
     summary = {
         "usable_band_hz": [round(lo, 1), round(hi, 1)],
         "reference_level_db": round(ref, 2),
         "max_boost_db": round(float(boost.max()), 2),
         "max_cut_db": round(float(-boost.min()), 2),
-        "boost_limited": bool(np.any(ref - level[first:last + 1] > MAX_BOOST_DB)),
+        "boost_limited": bool(np.any(ref - level[first : last + 1] > MAX_BOOST_DB)),
         "smoothing_octaves": round(SMOOTHING_OCTAVES, 4),
         "taps": n_taps,
     }
@@ -362,9 +363,17 @@ def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
     # The lookups run on a twin of the original set (same arrays, own caches), not on the
     # set itself: the set caches the equalised set, and a reference back would make a
     # cycle that keeps both alive until the cyclic garbage collector runs.
-    lookup = HrirSet(name=hset.name, samplerate=hset.samplerate, ir=hset.ir,
-                     directions=hset.directions, source=hset.source, sha256=hset.sha256,
-                     convention=hset.convention, room_type=hset.room_type, dropped=hset.dropped)
+    lookup = HrirSet(
+        name=hset.name,
+        samplerate=hset.samplerate,
+        ir=hset.ir,
+        directions=hset.directions,
+        source=hset.source,
+        sha256=hset.sha256,
+        convention=hset.convention,
+        room_type=hset.room_type,
+        dropped=hset.dropped,
+    )
     eq_set = EqualisedHrirSet(
         raw=lookup,
         fir=fir,
@@ -401,8 +410,8 @@ def _convolve_all(ir: np.ndarray, fir: np.ndarray) -> np.ndarray:
     flat = ir.reshape(-1, ir.shape[-1])
     out = np.empty((flat.shape[0], length))
     for start in range(0, flat.shape[0], 128):
-        spec = scipy.fft.rfft(flat[start:start + 128], n=n, axis=-1)
-        out[start:start + 128] = scipy.fft.irfft(spec * g, n=n, axis=-1)[:, :length]
+        spec = scipy.fft.rfft(flat[start : start + 128], n=n, axis=-1)
+        out[start : start + 128] = scipy.fft.irfft(spec * g, n=n, axis=-1)[:, :length]
     return out.reshape(ir.shape[:-1] + (length,))
 
 
@@ -410,4 +419,6 @@ def check_eq(value: str | None) -> str | None:
     """Validate an ``--eq`` value (None: the set's default)."""
     if value is None or value in EQ_CHOICES:
         return value
-    raise EqualisationError(f"unknown equalisation {value!r}; choose one of {', '.join(EQ_CHOICES)}")
+    raise EqualisationError(
+        f"unknown equalisation {value!r}; choose one of {', '.join(EQ_CHOICES)}"
+    )

@@ -28,7 +28,7 @@ from typing import Any
 import numpy as np
 from scipy import signal
 
-from ..errors import HeadphoneEqError, RendererError
+from ..errors import HeadphoneEqError
 
 #: Band types of a JSON headphone EQ (Audio EQ Cookbook names, in snake case).
 BAND_TYPES = ("peaking", "low_shelf", "high_shelf", "low_pass", "high_pass")
@@ -55,8 +55,6 @@ RESAMPLE_LEAD = 32
 MAX_BANDS = 64
 
 
-
-
 @dataclass(frozen=True)
 class Band:
     """One parametric band."""
@@ -67,8 +65,12 @@ class Band:
     q: float = DEFAULT_Q
 
     def to_dict(self) -> dict:
-        return {"type": self.type, "frequency": self.frequency, "gain_db": self.gain_db,
-                "q": round(self.q, 6)}
+        return {
+            "type": self.type,
+            "frequency": self.frequency,
+            "gain_db": self.gain_db,
+            "q": round(self.q, 6),
+        }
 
 
 def cookbook_biquad(band: Band, samplerate: float) -> np.ndarray:
@@ -96,16 +98,24 @@ def cookbook_biquad(band: Band, samplerate: float) -> np.ndarray:
         den = [1 + alpha / a, -2 * cw, 1 - alpha / a]
     elif band.type == "low_shelf":
         r = 2 * math.sqrt(a) * alpha
-        b = [a * ((a + 1) - (a - 1) * cw + r), 2 * a * ((a - 1) - (a + 1) * cw),
-             a * ((a + 1) - (a - 1) * cw - r)]
-        den = [(a + 1) + (a - 1) * cw + r, -2 * ((a - 1) + (a + 1) * cw),
-               (a + 1) + (a - 1) * cw - r]
+        b = [
+            a * ((a + 1) - (a - 1) * cw + r),
+            2 * a * ((a - 1) - (a + 1) * cw),
+            a * ((a + 1) - (a - 1) * cw - r),
+        ]
+        den = [
+            (a + 1) + (a - 1) * cw + r,
+            -2 * ((a - 1) + (a + 1) * cw),
+            (a + 1) + (a - 1) * cw - r,
+        ]
     elif band.type == "high_shelf":
         r = 2 * math.sqrt(a) * alpha
-        b = [a * ((a + 1) + (a - 1) * cw + r), -2 * a * ((a - 1) + (a + 1) * cw),
-             a * ((a + 1) + (a - 1) * cw - r)]
-        den = [(a + 1) - (a - 1) * cw + r, 2 * ((a - 1) - (a + 1) * cw),
-               (a + 1) - (a - 1) * cw - r]
+        b = [
+            a * ((a + 1) + (a - 1) * cw + r),
+            -2 * a * ((a - 1) + (a + 1) * cw),
+            a * ((a + 1) + (a - 1) * cw - r),
+        ]
+        den = [(a + 1) - (a - 1) * cw + r, 2 * ((a - 1) - (a + 1) * cw), (a + 1) - (a - 1) * cw - r]
     elif band.type == "low_pass":
         b = [(1 - cw) / 2, 1 - cw, (1 - cw) / 2]
         den = [1 + alpha, -2 * cw, 1 - alpha]
@@ -113,7 +123,9 @@ def cookbook_biquad(band: Band, samplerate: float) -> np.ndarray:
         b = [(1 + cw) / 2, -(1 + cw), (1 + cw) / 2]
         den = [1 + alpha, -2 * cw, 1 - alpha]
     else:
-        raise HeadphoneEqError(f"unknown band type {band.type!r}; choose one of {', '.join(BAND_TYPES)}")
+        raise HeadphoneEqError(
+            f"unknown band type {band.type!r}; choose one of {', '.join(BAND_TYPES)}"
+        )
     return np.array([b[0], b[1], b[2], den[0], den[1], den[2]]) / den[0]
 
 
@@ -128,14 +140,18 @@ def parse_bands(value: Any, *, source: str = "headphone EQ") -> tuple[list[Band]
     if isinstance(value, dict):
         unknown = set(value) - {"bands", "gain_db", "name", "description"}
         if unknown:
-            raise HeadphoneEqError(f"{source}: unknown key(s) {', '.join(sorted(map(repr, unknown)))}; "
-                                   "expected 'bands', 'gain_db', 'name', 'description'")
+            raise HeadphoneEqError(
+                f"{source}: unknown key(s) {', '.join(sorted(map(repr, unknown)))}; "
+                "expected 'bands', 'gain_db', 'name', 'description'"
+            )
         gain = _number(value.get("gain_db", 0.0), f"{source}: gain_db")
         if abs(gain) > MAX_GAIN_DB:
             raise HeadphoneEqError(f"{source}: gain_db {gain!r} is outside +/-{MAX_GAIN_DB:g} dB")
         value = value.get("bands")
     if not isinstance(value, list) or not value:
-        raise HeadphoneEqError(f"{source}: expected a non-empty list of bands, got {type(value).__name__}")
+        raise HeadphoneEqError(
+            f"{source}: expected a non-empty list of bands, got {type(value).__name__}"
+        )
     if len(value) > MAX_BANDS:
         raise HeadphoneEqError(f"{source}: {len(value)} bands; at most {MAX_BANDS}")
     bands = []
@@ -145,18 +161,24 @@ def parse_bands(value: Any, *, source: str = "headphone EQ") -> tuple[list[Band]
             raise HeadphoneEqError(f"{where}: expected an object, got {item!r}")
         unknown = set(item) - {"type", "frequency", "gain_db", "q"}
         if unknown:
-            raise HeadphoneEqError(f"{where}: unknown key(s) {', '.join(sorted(map(repr, unknown)))}; "
-                                   "expected 'type', 'frequency', 'gain_db', 'q'")
+            raise HeadphoneEqError(
+                f"{where}: unknown key(s) {', '.join(sorted(map(repr, unknown)))}; "
+                "expected 'type', 'frequency', 'gain_db', 'q'"
+            )
         kind = item.get("type")
         if kind not in BAND_TYPES:
-            raise HeadphoneEqError(f"{where}: unknown type {kind!r}; choose one of {', '.join(BAND_TYPES)}")
+            raise HeadphoneEqError(
+                f"{where}: unknown type {kind!r}; choose one of {', '.join(BAND_TYPES)}"
+            )
         freq = _number(item.get("frequency"), f"{where}: frequency")
         band_gain = _number(item.get("gain_db", 0.0), f"{where}: gain_db")
         q = _number(item.get("q", DEFAULT_Q), f"{where}: q")
         if freq <= 0:
             raise HeadphoneEqError(f"{where}: frequency must be positive, got {freq!r}")
         if abs(band_gain) > MAX_GAIN_DB:
-            raise HeadphoneEqError(f"{where}: gain_db {band_gain!r} is outside +/-{MAX_GAIN_DB:g} dB")
+            raise HeadphoneEqError(
+                f"{where}: gain_db {band_gain!r} is outside +/-{MAX_GAIN_DB:g} dB"
+            )
         if not 0.05 <= q <= 50:
             raise HeadphoneEqError(f"{where}: q must be between 0.05 and 50, got {q!r}")
         bands.append(Band(kind, freq, band_gain, q))
@@ -204,9 +226,9 @@ def bands_impulse_response(bands: list[Band], gain_db: float, samplerate: float)
     impulse = np.zeros(n_max)
     impulse[0] = 10 ** (gain_db / 20)
     h = signal.sosfilt(sos, impulse)
-    energy = np.cumsum((h ** 2)[::-1])[::-1]  # energy from each sample to the end
+    energy = np.cumsum((h**2)[::-1])[::-1]  # energy from each sample to the end
     keep = int(np.searchsorted(-energy, -energy[0] * 10 ** (IIR_DECAY_DB / 10)))
-    return h[:max(keep, 64)]
+    return h[: max(keep, 64)]
 
 
 def load_headphone_eq(value: str | os.PathLike | list | dict, samplerate: float) -> HeadphoneEq:
@@ -214,13 +236,16 @@ def load_headphone_eq(value: str | os.PathLike | list | dict, samplerate: float)
     if isinstance(value, (list, dict)):
         bands, gain = parse_bands(value, source="headphone_eq")
         text = json.dumps(value, sort_keys=True).encode()
-        return _from_bands(bands, gain, samplerate, {"file": None,
-                                                     "sha256": hashlib.sha256(text).hexdigest()})
+        return _from_bands(
+            bands, gain, samplerate, {"file": None, "sha256": hashlib.sha256(text).hexdigest()}
+        )
     path = Path(os.fspath(value))
     try:
         raw = path.read_bytes()
     except OSError as exc:
-        raise HeadphoneEqError(f"cannot read headphone EQ {str(path)!r}: {exc.strerror or exc}") from None
+        raise HeadphoneEqError(
+            f"cannot read headphone EQ {str(path)!r}: {exc.strerror or exc}"
+        ) from None
     digest = hashlib.sha256(raw).hexdigest()
     meta = {"file": path.name, "sha256": digest}
     if path.suffix.lower() == ".json":
@@ -235,14 +260,23 @@ def load_headphone_eq(value: str | os.PathLike | list | dict, samplerate: float)
 
 def _from_bands(bands: list[Band], gain: float, samplerate: float, meta: dict) -> HeadphoneEq:
     h = bands_impulse_response(bands, gain, samplerate)
-    return HeadphoneEq(np.stack([h, h]), float(samplerate), "bands",
-                       {**meta, "kind": "bands", "gain_db": gain,
-                        "bands": [b.to_dict() for b in bands], "taps": len(h)})
+    return HeadphoneEq(
+        np.stack([h, h]),
+        float(samplerate),
+        "bands",
+        {
+            **meta,
+            "kind": "bands",
+            "gain_db": gain,
+            "bands": [b.to_dict() for b in bands],
+            "taps": len(h),
+        },
+    )
 
 
 def _from_audio(path: Path, samplerate: float, meta: dict) -> HeadphoneEq:
-    from ..io import read_audio  # soundfile stays behind audio_io
     from ..errors import AudioError
+    from ..io import read_audio  # soundfile stays behind audio_io
 
     try:
         data, rate = read_audio(path)
@@ -263,8 +297,9 @@ def _from_audio(path: Path, samplerate: float, meta: dict) -> HeadphoneEq:
         # Lead zeros first: resample_poly aligns output and input starts, which would cut
         # off the interpolation's pre-ringing of an IR that starts at its first sample.
         lead = np.zeros((ir.shape[0], RESAMPLE_LEAD))
-        ir = signal.resample_poly(np.concatenate([lead, ir], axis=1), ratio.numerator,
-                                  ratio.denominator, axis=-1) * (rate / samplerate)
+        ir = signal.resample_poly(
+            np.concatenate([lead, ir], axis=1), ratio.numerator, ratio.denominator, axis=-1
+        ) * (rate / samplerate)
     if ir.shape[-1] > MAX_IR_SECONDS * samplerate:
         raise HeadphoneEqError(
             f"headphone EQ impulse response {path.name!r} is {ir.shape[-1] / samplerate:.2f} s "
@@ -274,6 +309,15 @@ def _from_audio(path: Path, samplerate: float, meta: dict) -> HeadphoneEq:
         raise HeadphoneEqError(f"headphone EQ impulse response {path.name!r} is silent")
     if ir.shape[0] == 1:
         ir = np.concatenate([ir, ir])
-    return HeadphoneEq(ir, float(samplerate), "impulse response",
-                       {**meta, "kind": "impulse response", "source_samplerate": rate,
-                        "channels": int(data.shape[1]), "taps": int(ir.shape[-1])})
+    return HeadphoneEq(
+        ir,
+        float(samplerate),
+        "impulse response",
+        {
+            **meta,
+            "kind": "impulse response",
+            "source_samplerate": rate,
+            "channels": int(data.shape[1]),
+            "taps": int(ir.shape[-1]),
+        },
+    )

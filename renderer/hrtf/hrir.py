@@ -277,7 +277,9 @@ class HrirSet:
         Uses the threshold-free interaural cross-correlation below 1.5 kHz, which a
         stray early spike in the far ear cannot fool (an onset threshold can be).
         """
-        itds = [cross_correlation_itd(self.ir[i], self.samplerate) for i in range(self.measurements)]
+        itds = [
+            cross_correlation_itd(self.ir[i], self.samplerate) for i in range(self.measurements)
+        ]
         return float(min(itds)), float(max(itds))
 
     # -- internals ----------------------------------------------------------------------
@@ -375,7 +377,9 @@ def _build_grid(directions: np.ndarray, name: str) -> _Grid:
             basis_v = np.cross(normal, basis_u)
             ang = np.arctan2(directions @ basis_v, directions @ basis_u)
             order = np.argsort(ang)
-            return _Grid(tree, spacing, None, None, None, order, np.stack([basis_u, basis_v, normal]))
+            return _Grid(
+                tree, spacing, None, None, None, order, np.stack([basis_u, basis_v, normal])
+            )
     return _Grid(tree, spacing, None, None, None)
 
 
@@ -409,7 +413,9 @@ def file_sha256(path: str | os.PathLike) -> str:
 
 
 @functools.lru_cache(maxsize=16)
-def _load_cached(path: str, mtime_ns: int, size: int, samplerate: float | None, name: str) -> HrirSet:
+def _load_cached(
+    path: str, mtime_ns: int, size: int, samplerate: float | None, name: str
+) -> HrirSet:
     data = read_sofa(path)
     hset = HrirSet.from_sofa(data, name=name, sha256=file_sha256(path))
     return hset if samplerate is None else hset.resampled(samplerate)

@@ -27,9 +27,9 @@ import os
 import re
 import types
 import uuid
+from collections.abc import Mapping
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
-from typing import Mapping
+from datetime import UTC, datetime
 
 import netCDF4
 import numpy as np
@@ -482,7 +482,11 @@ def _read(ds: netCDF4.Dataset, path: str, label: str, emitter: int | None) -> So
     if "Data.Delay" in variables:
         var = variables["Data.Delay"]
         d = _arrange(
-            _numeric(var, label, "Data.Delay"), var.dimensions, ("M", "R", "E"), sizes3, label,
+            _numeric(var, label, "Data.Delay"),
+            var.dimensions,
+            ("M", "R", "E"),
+            sizes3,
+            label,
             "Data.Delay",
         )
         d = d[:, :, picked if d.shape[2] > 1 else 0]
@@ -586,6 +590,7 @@ def _arrange(
 
     def fits(axis_names: tuple[str, ...] | list[str]) -> bool:
         return all(s == sizes[n] or s == 1 for n, s in zip(axis_names, arr.shape))
+
     if len(set(names)) == len(names) and set(names) <= set(order):
         if not fits(names):
             bad = [(n, s) for n, s in zip(names, arr.shape) if s not in (1, sizes[n])]
@@ -637,8 +642,10 @@ def _units(units: str, ptype: str, label: str, name: str) -> tuple[float, float,
         return (np.pi / 180.0, np.pi / 180.0, 1.0)
     if len(tokens) == 1 and kinds[0] == "angle":
         return (scales[0], scales[0], 1.0)
-    if len(tokens) in (2, 3) and kinds[:2] == ["angle", "angle"] and (
-        len(tokens) == 2 or kinds[2] == "length"
+    if (
+        len(tokens) in (2, 3)
+        and kinds[:2] == ["angle", "angle"]
+        and (len(tokens) == 2 or kinds[2] == "length")
     ):
         return (scales[0], scales[1], 1.0)
     raise SofaError(
@@ -658,13 +665,13 @@ def _to_cartesian(
     ptype = var_attrs.get("type", "").strip().lower()
     units = var_attrs.get("units", "")
     if not ptype:
-        ptype = "spherical" if any(
-            _UNITS.get(t, ("", 0))[0] == "angle" for t in re.split(r"[,\s]+", units.lower())
-        ) else default_type
-    if ptype not in ("cartesian", "spherical"):
-        raise SofaError(
-            f"{label}: {name} has Type {ptype!r}; supported: 'cartesian', 'spherical'"
+        ptype = (
+            "spherical"
+            if any(_UNITS.get(t, ("", 0))[0] == "angle" for t in re.split(r"[,\s]+", units.lower()))
+            else default_type
         )
+    if ptype not in ("cartesian", "spherical"):
+        raise SofaError(f"{label}: {name} has Type {ptype!r}; supported: 'cartesian', 'spherical'")
     scale = _units(units, ptype, label, name)
     if ptype == "cartesian":
         return values.astype(np.float64), np.ones(values.shape[:-1], dtype=bool)
@@ -747,7 +754,11 @@ def _emitter_offset(
     if "harmonic" in var_attrs.get("type", "").lower():
         return np.zeros((1, 3))  # an emitter in spherical harmonics has no position
     arr = _arrange(
-        _numeric(var, label, "EmitterPosition"), var.dimensions, ("E", "C", "M"), sizes, label,
+        _numeric(var, label, "EmitterPosition"),
+        var.dimensions,
+        ("E", "C", "M"),
+        sizes,
+        label,
         "EmitterPosition",
     )
     arr = np.moveaxis(arr[picked if arr.shape[0] > 1 else 0], 0, -1)  # (1 or M, 3)
@@ -786,14 +797,21 @@ def _receiver_swap(
         return no_swap
     var = variables["ReceiverPosition"]
     arr = _arrange(
-        _numeric(var, label, "ReceiverPosition"), var.dimensions, ("R", "C", "M"), sizes, label,
+        _numeric(var, label, "ReceiverPosition"),
+        var.dimensions,
+        ("R", "C", "M"),
+        sizes,
+        label,
         "ReceiverPosition",
     )
     if arr.shape[0] == 1:
         return no_swap  # one position for both receivers: nothing tells them apart
     xyz, _known = _to_cartesian(
-        np.moveaxis(arr, 1, -1), _var_attributes(var, label, "ReceiverPosition"), "cartesian",
-        label, "ReceiverPosition",
+        np.moveaxis(arr, 1, -1),
+        _var_attributes(var, label, "ReceiverPosition"),
+        "cartesian",
+        label,
+        "ReceiverPosition",
     )  # (R, 1 or M, 3)
     dy = xyz[0, :, 1] - xyz[1, :, 1]
     return np.broadcast_to(dy < -_RECEIVER_TOLERANCE, (M,)).copy()
@@ -888,9 +906,7 @@ def write_sofa(
         raise SofaError(f"{label}: azimuth must be finite degrees")
     if not np.all(np.isfinite(el) & (np.abs(el) <= 90)):
         bad = el[~(np.isfinite(el) & (np.abs(el) <= 90))][0]
-        raise SofaError(
-            f"{label}: elevation must be within -90 to 90 degrees, got {float(bad)!r}"
-        )
+        raise SofaError(f"{label}: elevation must be within -90 to 90 degrees, got {float(bad)!r}")
     try:
         dist = np.broadcast_to(np.asarray(distance, dtype=np.float64), (M,))
     except ValueError:
@@ -915,7 +931,7 @@ def write_sofa(
     if not (np.isfinite(offset) and offset > 0):
         raise SofaError(f"{label}: receiver_offset must be > 0 metres, got {receiver_offset!r}")
 
-    now = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M:%S")
+    now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S")
     # Mandatory global attributes of SimpleFreeFieldHRIR 1.0 (AES69-2020), in its order.
     globals_: dict[str, str] = {
         "Conventions": "SOFA",
@@ -972,17 +988,25 @@ def write_sofa(
 
             put("ListenerPosition", ("I", "C"), [[0.0, 0.0, 0.0]], Type="cartesian", Units="metre")
             put(
-                "ReceiverPosition", ("R", "C", "I"),
+                "ReceiverPosition",
+                ("R", "C", "I"),
                 [[[0.0], [offset], [0.0]], [[0.0], [-offset], [0.0]]],
-                Type="cartesian", Units="metre",
+                Type="cartesian",
+                Units="metre",
             )
             put(
-                "SourcePosition", ("M", "C"), np.stack([az, el, dist], axis=-1),
-                Type="spherical", Units="degree, degree, metre",
+                "SourcePosition",
+                ("M", "C"),
+                np.stack([az, el, dist], axis=-1),
+                Type="spherical",
+                Units="degree, degree, metre",
             )
             put(
-                "EmitterPosition", ("E", "C", "I"), [[[0.0], [0.0], [0.0]]],
-                Type="cartesian", Units="metre",
+                "EmitterPosition",
+                ("E", "C", "I"),
+                [[[0.0], [0.0], [0.0]]],
+                Type="cartesian",
+                Units="metre",
             )
             put("ListenerUp", ("I", "C"), [[0.0, 0.0, 1.0]])
             put("ListenerView", ("I", "C"), [[1.0, 0.0, 0.0]], Type="cartesian", Units="metre")

@@ -375,6 +375,7 @@ def build_sphere_set(
     )
     # Imported here so that the model itself never needs netCDF4.
     from .sofa import write_sofa
+
     attributes = {
         "Title": "Rigid sphere, far field, ears at +/-90 degrees azimuth",
         "ListenerShortName": "rigid-sphere",

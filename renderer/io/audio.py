@@ -215,8 +215,15 @@ def _probe_file(path: str) -> _FileInfo:
             f"{p.name!r} is cut short: its header declares {declared} bytes of audio but "
             f"the file holds {present}; read the {info.frames} frames present"
         )
-    return _FileInfo(path, info.format, info.subtype, int(info.samplerate),
-                     int(info.channels), int(info.frames), note)
+    return _FileInfo(
+        path,
+        info.format,
+        info.subtype,
+        int(info.samplerate),
+        int(info.channels),
+        int(info.frames),
+        note,
+    )
 
 
 def probe_stem(paths: Sequence[str | os.PathLike[str]] | str | os.PathLike[str]) -> StemInfo:
@@ -270,8 +277,9 @@ def probe_stem(paths: Sequence[str | os.PathLike[str]] | str | os.PathLike[str])
         rates = sorted({f.samplerate for f in files})
         if len(rates) > 1:
             listing = ", ".join(f"{Path(f.path).name!r}: {f.samplerate} Hz" for f in files)
-            raise AudioError(f"the mono files differ in sample rate ({listing}); resample them "
-                             "to one rate")
+            raise AudioError(
+                f"the mono files differ in sample rate ({listing}); resample them to one rate"
+            )
         lengths = [f.frames for f in files]
         if len(set(lengths)) > 1:
             longest = max(lengths)
@@ -339,8 +347,12 @@ class StemReader:
     def __enter__(self) -> StemReader:
         return self
 
-    def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
-                 tb: TracebackType | None) -> None:
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
         self.close()
 
     def close(self) -> None:
@@ -366,8 +378,11 @@ class StemReader:
         Several mono files are read in lock-step and stacked as columns, in the order of
         ``info.paths``; a file that ends early contributes silence.
         """
-        if isinstance(blocksize, bool) or not isinstance(blocksize, (int, np.integer)) \
-                or blocksize < 1:
+        if (
+            isinstance(blocksize, bool)
+            or not isinstance(blocksize, (int, np.integer))
+            or blocksize < 1
+        ):
             raise AudioError(f"blocksize must be a positive integer, not {blocksize!r}")
         if not self._files:
             raise AudioError(f"the reader of {self.info.paths[0]!r} is closed")
@@ -498,33 +513,56 @@ class OutputWriter:
     PCM_24 and FLOAT are not dithered. FLOAT is never clipped.
     """
 
-    def __init__(self, path: str | os.PathLike[str], samplerate: int, channels: int = 2, *,
-                 format: str | None = None, subtype: str = "PCM_24",
-                 frames_hint: int | None = None, seed: int = 0,
-                 durable: bool = True) -> None:
+    def __init__(
+        self,
+        path: str | os.PathLike[str],
+        samplerate: int,
+        channels: int = 2,
+        *,
+        format: str | None = None,
+        subtype: str = "PCM_24",
+        frames_hint: int | None = None,
+        seed: int = 0,
+        durable: bool = True,
+    ) -> None:
         dest = Path(os.fspath(path))
         fmt = _output_format(dest, format)
         subtype = subtype_for(subtype)
-        if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) \
-                or not 1 <= channels <= MAX_CHANNELS:
-            raise AudioError(f"channels must be an integer from 1 to {MAX_CHANNELS}, "
-                             f"not {channels!r}")
-        if isinstance(samplerate, bool) or not isinstance(samplerate, (int, np.integer)) \
-                or not MIN_SAMPLERATE <= samplerate <= MAX_SAMPLERATE:
-            raise AudioError(f"unsupported output sample rate {samplerate!r}; supported: "
-                             f"{MIN_SAMPLERATE} to {MAX_SAMPLERATE} Hz")
+        if (
+            isinstance(channels, bool)
+            or not isinstance(channels, (int, np.integer))
+            or not 1 <= channels <= MAX_CHANNELS
+        ):
+            raise AudioError(
+                f"channels must be an integer from 1 to {MAX_CHANNELS}, not {channels!r}"
+            )
+        if (
+            isinstance(samplerate, bool)
+            or not isinstance(samplerate, (int, np.integer))
+            or not MIN_SAMPLERATE <= samplerate <= MAX_SAMPLERATE
+        ):
+            raise AudioError(
+                f"unsupported output sample rate {samplerate!r}; supported: "
+                f"{MIN_SAMPLERATE} to {MAX_SAMPLERATE} Hz"
+            )
         if fmt == "FLAC":
             if subtype not in _FLAC_SUBTYPES:
                 raise AudioError(
                     f"FLAC cannot hold subtype {subtype!r}; valid combinations: "
-                    + "; ".join(f"{e}: {', '.join(_valid_subtypes(f))}"
-                                for e, f in OUTPUT_FORMATS.items())
+                    + "; ".join(
+                        f"{e}: {', '.join(_valid_subtypes(f))}" for e, f in OUTPUT_FORMATS.items()
+                    )
                 )
             if channels > _FLAC_MAX_CHANNELS:
-                raise AudioError(f"FLAC holds at most {_FLAC_MAX_CHANNELS} channels, not "
-                                 f"{channels}; write .wav, .w64 or .rf64")
-        if fmt == "WAV" and frames_hint is not None and _exceeds_riff(
-                int(frames_hint), int(channels), subtype):
+                raise AudioError(
+                    f"FLAC holds at most {_FLAC_MAX_CHANNELS} channels, not "
+                    f"{channels}; write .wav, .w64 or .rf64"
+                )
+        if (
+            fmt == "WAV"
+            and frames_hint is not None
+            and _exceeds_riff(int(frames_hint), int(channels), subtype)
+        ):
             fmt = "RF64"
         if dest.is_dir():
             raise AudioError(f"output path {str(dest)!r} is a directory")
@@ -544,13 +582,17 @@ class OutputWriter:
         self._tmp = self._create_temp(dest)
         try:
             self._sf: sf.SoundFile | None = sf.SoundFile(
-                self._tmp, mode="w", samplerate=self.samplerate, channels=self.channels,
-                format=fmt, subtype=subtype)
+                self._tmp,
+                mode="w",
+                samplerate=self.samplerate,
+                channels=self.channels,
+                format=fmt,
+                subtype=subtype,
+            )
         except BaseException as exc:
             self._remove_temp()
             if isinstance(exc, (sf.SoundFileError, OSError)):
-                raise AudioError(f"cannot write {str(dest)!r}: {_soundfile_reason(exc)}") \
-                    from exc
+                raise AudioError(f"cannot write {str(dest)!r}: {_soundfile_reason(exc)}") from exc
             raise
 
     @staticmethod
@@ -564,8 +606,9 @@ class OutputWriter:
             except FileExistsError:
                 continue
             except OSError as exc:
-                raise AudioError(f"cannot create a file beside {str(dest)!r}: "
-                                 f"{exc.strerror or exc}") from exc
+                raise AudioError(
+                    f"cannot create a file beside {str(dest)!r}: {exc.strerror or exc}"
+                ) from exc
             os.close(fd)
             return str(tmp)
         raise AudioError(f"cannot find a free temporary name beside {str(dest)!r}")
@@ -573,8 +616,12 @@ class OutputWriter:
     def __enter__(self) -> OutputWriter:
         return self
 
-    def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
-                 tb: TracebackType | None) -> None:
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
         if exc_type is None:
             self.close()
         else:
@@ -600,10 +647,12 @@ class OutputWriter:
         lo, hi = float(np.min(x)), float(np.max(x))
         if not (np.isfinite(lo) and np.isfinite(hi)):
             bad = int(np.argmax(~np.all(np.isfinite(x), axis=1)))
-            raise AudioError(f"block holds NaN or infinity at frame "
-                             f"{self.frames_written + bad} of {self.path!r}")
-        if self.format == "WAV" and _exceeds_riff(self.frames_written + n, self.channels,
-                                                  self.subtype):
+            raise AudioError(
+                f"block holds NaN or infinity at frame {self.frames_written + bad} of {self.path!r}"
+            )
+        if self.format == "WAV" and _exceeds_riff(
+            self.frames_written + n, self.channels, self.subtype
+        ):
             raise AudioError(
                 f"{self.path!r} would exceed the 4 GiB WAV limit; pass frames_hint so it is "
                 "written as RF64, or write .rf64 or .w64"
@@ -708,13 +757,14 @@ def read_audio(path: str | os.PathLike[str]) -> tuple[np.ndarray, int]:
     done = 0
     with StemReader(info) as reader:
         for block in reader.blocks(1 << 16, reuse=True):
-            data[done:done + len(block)] = block
+            data[done : done + len(block)] = block
             done += len(block)
     return data[:done], info.samplerate
 
 
-def write_audio(path: str | os.PathLike[str], data: np.ndarray, samplerate: int,
-                subtype: str = "PCM_24") -> None:
+def write_audio(
+    path: str | os.PathLike[str], data: np.ndarray, samplerate: int, subtype: str = "PCM_24"
+) -> None:
     """Write a whole (small) array atomically, format from the extension.
 
     ``data`` is frames x channels; a 1-D array is written as one channel. PCM_16 is
@@ -725,8 +775,9 @@ def write_audio(path: str | os.PathLike[str], data: np.ndarray, samplerate: int,
         x = x[:, None]
     if x.ndim != 2:
         raise AudioError(f"expected audio of shape (frames, channels), got {x.shape!r}")
-    with OutputWriter(path, samplerate, x.shape[1], subtype=subtype,
-                      frames_hint=x.shape[0]) as writer:
+    with OutputWriter(
+        path, samplerate, x.shape[1], subtype=subtype, frames_hint=x.shape[0]
+    ) as writer:
         writer.write(x)
 
 
@@ -752,8 +803,11 @@ def audio_formats() -> dict:
             ext: {
                 "format": fmt,
                 "subtypes": list(_valid_subtypes(fmt)),
-                **({"note": "written as RF64 when the data would exceed 4 GiB"}
-                   if fmt == "WAV" else {}),
+                **(
+                    {"note": "written as RF64 when the data would exceed 4 GiB"}
+                    if fmt == "WAV"
+                    else {}
+                ),
             }
             for ext, fmt in OUTPUT_FORMATS.items()
         },

@@ -1,12 +1,11 @@
-"""Loudspeaker layouts (ITU-R BS.2051 positions), channel labels and orders, WAV channel masks.
-"""
+"""Loudspeaker layouts (ITU-R BS.2051 positions), channel labels and orders, WAV channel masks."""
 
 from __future__ import annotations
 
 from .catalogue import (
     LAYOUTS,
-    Layout,
     MAX_SPEAKERS,
+    Layout,
     Speaker,
     canonical_label,
     get_layout,

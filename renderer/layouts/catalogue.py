@@ -65,8 +65,8 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import LayoutError
-from ..geometry import direction_to_vector
 from ..files import read_json_file
+from ..geometry import direction_to_vector
 
 __all__ = [
     "LAYOUTS",
@@ -372,46 +372,97 @@ def _layout(name: str, speakers: Sequence[Speaker], description: str, source: st
 
 def _bs2051_22_2() -> tuple[Speaker, ...]:
     order = [
-        ("M+060", 60, 0), ("M-060", -60, 0), ("M+000", 0, 0), ("LFE1", 45, -30),
-        ("M+135", 135, 0), ("M-135", -135, 0), ("M+030", 30, 0), ("M-030", -30, 0),
-        ("M+180", 180, 0), ("LFE2", -45, -30), ("M+090", 90, 0), ("M-090", -90, 0),
-        ("U+045", 45, 30), ("U-045", -45, 30), ("U+000", 0, 30), ("T+000", 0, 90),
-        ("U+135", 135, 30), ("U-135", -135, 30), ("U+090", 90, 30), ("U-090", -90, 30),
-        ("U+180", 180, 30), ("B+000", 0, -30), ("B+045", 45, -30), ("B-045", -45, -30),
+        ("M+060", 60, 0),
+        ("M-060", -60, 0),
+        ("M+000", 0, 0),
+        ("LFE1", 45, -30),
+        ("M+135", 135, 0),
+        ("M-135", -135, 0),
+        ("M+030", 30, 0),
+        ("M-030", -30, 0),
+        ("M+180", 180, 0),
+        ("LFE2", -45, -30),
+        ("M+090", 90, 0),
+        ("M-090", -90, 0),
+        ("U+045", 45, 30),
+        ("U-045", -45, 30),
+        ("U+000", 0, 30),
+        ("T+000", 0, 90),
+        ("U+135", 135, 30),
+        ("U-135", -135, 30),
+        ("U+090", 90, 30),
+        ("U-090", -90, 30),
+        ("U+180", 180, 30),
+        ("B+000", 0, -30),
+        ("B+045", 45, -30),
+        ("B-045", -45, -30),
     ]
     return tuple(_spk(label, az, el) for label, az, el in order)
 
 
-LAYOUTS: Mapping[str, Layout] = types.MappingProxyType({
-    layout.name: layout
-    for layout in (
-        _layout("2.0", _pair("L", 30), "stereo", f"{_BS2051} A (0+2+0)"),
-        _layout("5.1", _BED_51, "5.1 surround", f"{_BS2051} B (0+5+0)"),
-        _layout("5.1.2", (*_BED_51, *_pair("Ltf", 30, 30)),
-                "5.1 with two front tops", f"{_BS2051} C (2+5+0)"),
-        _layout("5.1.4", (*_BED_51, *_pair("Ltf", 30, 30), *_pair("Ltr", 110, 30)),
-                "5.1 with four tops", f"{_BS2051} D (4+5+0)"),
-        _layout("7.1", _BED_71, "7.1 surround (sides and backs)", f"{_BS2051} I (0+7+0)"),
-        _layout("7.1.2", (*_BED_71, *_pair("Ltf", 45, 30)),
+LAYOUTS: Mapping[str, Layout] = types.MappingProxyType(
+    {
+        layout.name: layout
+        for layout in (
+            _layout("2.0", _pair("L", 30), "stereo", f"{_BS2051} A (0+2+0)"),
+            _layout("5.1", _BED_51, "5.1 surround", f"{_BS2051} B (0+5+0)"),
+            _layout(
+                "5.1.2",
+                (*_BED_51, *_pair("Ltf", 30, 30)),
+                "5.1 with two front tops",
+                f"{_BS2051} C (2+5+0)",
+            ),
+            _layout(
+                "5.1.4",
+                (*_BED_51, *_pair("Ltf", 30, 30), *_pair("Ltr", 110, 30)),
+                "5.1 with four tops",
+                f"{_BS2051} D (4+5+0)",
+            ),
+            _layout("7.1", _BED_71, "7.1 surround (sides and backs)", f"{_BS2051} I (0+7+0)"),
+            _layout(
+                "7.1.2",
+                (*_BED_71, *_pair("Ltf", 45, 30)),
                 "7.1 with two front tops",
-                f"{_BS2051} I (0+7+0) plus the front tops of system J (earfold's definition)"),
-        _layout("7.1.4", (*_BED_71, *_pair("Ltf", 45, 30), *_pair("Ltr", 135, 30)),
-                "7.1 with four tops", f"{_BS2051} J (4+7+0)"),
-        _layout("9.1.6", (*_BED_71, *_pair("Lw", 60), *_pair("Ltf", 45, 30),
-                          *_pair("Ltm", 90, 30), *_pair("Ltr", 135, 30)),
+                f"{_BS2051} I (0+7+0) plus the front tops of system J (earfold's definition)",
+            ),
+            _layout(
+                "7.1.4",
+                (*_BED_71, *_pair("Ltf", 45, 30), *_pair("Ltr", 135, 30)),
+                "7.1 with four tops",
+                f"{_BS2051} J (4+7+0)",
+            ),
+            _layout(
+                "9.1.6",
+                (
+                    *_BED_71,
+                    *_pair("Lw", 60),
+                    *_pair("Ltf", 45, 30),
+                    *_pair("Ltm", 90, 30),
+                    *_pair("Ltr", 135, 30),
+                ),
                 "7.1 with front wides and six tops",
                 f"{_BS2051} J (4+7+0) plus wides at +-60 and tops at +-90/+30 "
-                "(earfold's definition; not a BS.2051 system)"),
-        _layout("22.2", _bs2051_22_2(), "22.2 (three layers, two LFE)",
-                f"{_BS2051} H (9+10+3)"),
-    )
-})
+                "(earfold's definition; not a BS.2051 system)",
+            ),
+            _layout(
+                "22.2", _bs2051_22_2(), "22.2 (three layers, two LFE)", f"{_BS2051} H (9+10+3)"
+            ),
+        )
+    }
+)
 """Built-in layouts by name, in the default channel order documented in the module."""
 
 # How many channels most often mean which layout, for counts shared by several (8 and
 # 10): the flat 7.1 is commoner than 5.1.2, and 5.1.4 than 7.1.2 (common practice).
-_PREFERRED_BY_COUNT = {2: "2.0", 6: "5.1", 8: "7.1", 10: "5.1.4", 12: "7.1.4",
-                       16: "9.1.6", 24: "22.2"}
+_PREFERRED_BY_COUNT = {
+    2: "2.0",
+    6: "5.1",
+    8: "7.1",
+    10: "5.1.4",
+    12: "7.1.4",
+    16: "9.1.6",
+    24: "22.2",
+}
 
 
 # -- custom layouts --------------------------------------------------------------------
@@ -434,8 +485,12 @@ def _check_label(value: object, what: str, origin: str | None) -> str:
     if not isinstance(value, str):
         raise LayoutError(f"{_where(origin)}{what} label must be a string, got {value!r}")
     # Commas separate labels in --channel-order; surrounding blanks would be invisible.
-    if (not 1 <= len(value) <= MAX_LABEL_LENGTH or not value.isprintable()
-            or value != value.strip() or "," in value):
+    if (
+        not 1 <= len(value) <= MAX_LABEL_LENGTH
+        or not value.isprintable()
+        or value != value.strip()
+        or "," in value
+    ):
         raise LayoutError(
             f"{_where(origin)}{what} label {value!r} must be 1 to {MAX_LABEL_LENGTH} "
             "printable characters without commas or surrounding spaces"
@@ -641,8 +696,11 @@ def resolve_channel_order(layout: Layout, labels: Sequence[str]) -> tuple[int, .
     problems = []
     if unknown:
         problems.append(f"unknown label(s) {', '.join(unknown)}")
-    dupes = [f"{layout.labels[i]} (given as {', '.join(map(repr, given))})"
-             for i, given in claimed.items() if len(given) > 1]
+    dupes = [
+        f"{layout.labels[i]} (given as {', '.join(map(repr, given))})"
+        for i, given in claimed.items()
+        if len(given) > 1
+    ]
     if dupes:
         problems.append(f"repeated: {'; '.join(dupes)}")
     missing = [layout.labels[i] for i in range(layout.channels) if i not in claimed]

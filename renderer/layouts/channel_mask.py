@@ -23,20 +23,49 @@ __all__ = [
     "mask_to_speakers",
 ]
 
-SPEAKER_BITS: Mapping[str, int] = types.MappingProxyType({
-    "FL": 0x1, "FR": 0x2, "FC": 0x4, "LFE": 0x8, "BL": 0x10, "BR": 0x20,
-    "FLC": 0x40, "FRC": 0x80, "BC": 0x100, "SL": 0x200, "SR": 0x400, "TC": 0x800,
-    "TFL": 0x1000, "TFC": 0x2000, "TFR": 0x4000, "TBL": 0x8000, "TBC": 0x10000,
-    "TBR": 0x20000,
-})
+SPEAKER_BITS: Mapping[str, int] = types.MappingProxyType(
+    {
+        "FL": 0x1,
+        "FR": 0x2,
+        "FC": 0x4,
+        "LFE": 0x8,
+        "BL": 0x10,
+        "BR": 0x20,
+        "FLC": 0x40,
+        "FRC": 0x80,
+        "BC": 0x100,
+        "SL": 0x200,
+        "SR": 0x400,
+        "TC": 0x800,
+        "TFL": 0x1000,
+        "TFC": 0x2000,
+        "TFR": 0x4000,
+        "TBL": 0x8000,
+        "TBC": 0x10000,
+        "TBR": 0x20000,
+    }
+)
 """Speaker position bits of ``dwChannelMask`` (Microsoft ksmedia.h ``SPEAKER_*``)."""
 
 _BIT_NAMES = {bit: name for name, bit in SPEAKER_BITS.items()}
 
 _MASK_TO_LABEL = {
-    "FL": "L", "FR": "R", "FC": "C", "LFE": "LFE", "FLC": "Lc", "FRC": "Rc", "BC": "Bc",
-    "SL": "Ls", "SR": "Rs", "TC": "Tc", "TFL": "Ltf", "TFC": "Tfc", "TFR": "Rtf",
-    "TBL": "Ltr", "TBC": "Trc", "TBR": "Rtr",
+    "FL": "L",
+    "FR": "R",
+    "FC": "C",
+    "LFE": "LFE",
+    "FLC": "Lc",
+    "FRC": "Rc",
+    "BC": "Bc",
+    "SL": "Ls",
+    "SR": "Rs",
+    "TC": "Tc",
+    "TFL": "Ltf",
+    "TFC": "Tfc",
+    "TFR": "Rtf",
+    "TBL": "Ltr",
+    "TBC": "Trc",
+    "TBR": "Rtr",
 }
 _LABEL_TO_MASK = {label: name for name, label in _MASK_TO_LABEL.items()}
 

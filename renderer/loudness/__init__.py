@@ -1,5 +1,4 @@
-"""Loudness and delivery: the BS.1770 meter and true peak, the limiter, the delivery stage.
-"""
+"""Loudness and delivery: the BS.1770 meter and true peak, the limiter, the delivery stage."""
 
 from __future__ import annotations
 

@@ -27,10 +27,10 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..defaults import LOUDNESS_RANGE_LUFS, TRUE_PEAK_RANGE_DBTP
-from ..errors import DeliveryError, RendererError
+from ..errors import DeliveryError
+from ..pipeline import BackgroundWriter, prefetch
 from .limiter import TruePeakLimiter
 from .meter import LoudnessMeter, LoudnessResult
-from ..pipeline import BackgroundWriter, prefetch
 
 __all__ = [
     "DELIVERY_BLOCK_FRAMES",
@@ -61,8 +61,6 @@ _OFF_WORDS = ("none", "off")
 _NUMBER = re.compile(r"^\s*([+-]?(?:\d+(?:\.\d*)?|\.\d+))\s*([a-z]*)\s*$", re.IGNORECASE)
 
 
-
-
 @dataclass(frozen=True)
 class DeliveryOptions:
     """How a render is delivered.
@@ -84,14 +82,24 @@ class DeliveryOptions:
         loud = self.loudness
         if isinstance(loud, str):
             if loud != _MATCH:
-                raise DeliveryError(f"loudness must be a LUFS number, {_MATCH!r} or None, "
-                                    f"not {loud!r}; use parse_loudness() for text")
+                raise DeliveryError(
+                    f"loudness must be a LUFS number, {_MATCH!r} or None, "
+                    f"not {loud!r}; use parse_loudness() for text"
+                )
         elif loud is not None:
-            object.__setattr__(self, "loudness", _check_number(
-                "loudness target", loud, LOUDNESS_RANGE_LUFS, "LUFS", open_interval=True))
+            object.__setattr__(
+                self,
+                "loudness",
+                _check_number(
+                    "loudness target", loud, LOUDNESS_RANGE_LUFS, "LUFS", open_interval=True
+                ),
+            )
         if self.true_peak is not None:
-            object.__setattr__(self, "true_peak", _check_number(
-                "true-peak ceiling", self.true_peak, TRUE_PEAK_RANGE_DBTP, "dBTP"))
+            object.__setattr__(
+                self,
+                "true_peak",
+                _check_number("true-peak ceiling", self.true_peak, TRUE_PEAK_RANGE_DBTP, "dBTP"),
+            )
 
 
 def parse_loudness(value: str) -> float | str | None:
@@ -124,8 +132,9 @@ def parse_loudness(value: str) -> float | str | None:
             f"{LOUDNESS_RANGE_LUFS[0]:g} and {LOUDNESS_RANGE_LUFS[1]:g} (e.g. -23), 'match' to keep "
             f"the input's loudness, or 'none' for no gain"
         )
-    return _check_number("loudness target", number, LOUDNESS_RANGE_LUFS, "LUFS",
-                         open_interval=True, shown=value)
+    return _check_number(
+        "loudness target", number, LOUDNESS_RANGE_LUFS, "LUFS", open_interval=True, shown=value
+    )
 
 
 def parse_true_peak(value: str) -> float | None:
@@ -158,12 +167,19 @@ def parse_true_peak(value: str) -> float | None:
     return _check_number("true-peak ceiling", number, TRUE_PEAK_RANGE_DBTP, "dBTP", shown=value)
 
 
-def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[str],
-            options: DeliveryOptions, *, input_loudness: float | None,
-            subtype: str = "PCM_24", format: str | None = None, seed: int = 0,
-            progress: Callable[[float], None] | None = None,
-            cancelled: Callable[[], bool] | None = None,
-            render_meter: LoudnessMeter | None = None) -> dict:
+def deliver(
+    temp_path: str | os.PathLike[str],
+    output_path: str | os.PathLike[str],
+    options: DeliveryOptions,
+    *,
+    input_loudness: float | None,
+    subtype: str = "PCM_24",
+    format: str | None = None,
+    seed: int = 0,
+    progress: Callable[[float], None] | None = None,
+    cancelled: Callable[[], bool] | None = None,
+    render_meter: LoudnessMeter | None = None,
+) -> dict:
     """Normalise, limit and write a render; return the report's delivery section.
 
     Parameters
@@ -247,14 +263,18 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
     if target == _MATCH:
         target_lufs = None if input_loudness is None else float(input_loudness)
         if target_lufs is None:
-            warnings.append("the input stem's loudness could not be measured (silent, or "
-                            "shorter than 400 ms): 'match' applied no gain")
+            warnings.append(
+                "the input stem's loudness could not be measured (silent, or "
+                "shorter than 400 ms): 'match' applied no gain"
+            )
     elif target is not None:
         target_lufs = float(target)
     if target_lufs is not None:
         if rendered is None:
-            warnings.append("the render is silent or shorter than 400 ms (no block above "
-                            "-70 LUFS): no loudness gain applied")
+            warnings.append(
+                "the render is silent or shorter than 400 ms (no block above "
+                "-70 LUFS): no loudness gain applied"
+            )
         else:
             gain_db = target_lufs - rendered
     gain = 10.0 ** (gain_db / 20.0)
@@ -266,23 +286,37 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         known = None
         if measured.true_peak_dbtp is not None:
             known = 10.0 ** ((measured.true_peak_dbtp + gain_db) / 20.0)
-        limiter = TruePeakLimiter(rate, channels, ceiling_dbtp=options.true_peak,
-                                  known_true_peak=known)
+        limiter = TruePeakLimiter(
+            rate, channels, ceiling_dbtp=options.true_peak, known_true_peak=known
+        )
     # When the output will be the render times the gain (the limiter has nothing to do,
     # and nothing reaches full scale), metering it again would only repeat the render's
     # measurement shifted by the gain: that is taken instead (LoudnessMeter.result).
     # Otherwise the output is metered as it is written.
     unchanged = limiter is None or limiter.bypassed
     peak = measured.sample_peak_dbfs
-    from_render = (unchanged and measured.true_peak_dbtp is not None and peak is not None
-                   and peak + gain_db < _NO_CLIP_DBFS)
-    after = None if from_render else LoudnessMeter(rate, channels,
-                                                   measure_true_peak=limiter is None)
+    from_render = (
+        unchanged
+        and measured.true_peak_dbtp is not None
+        and peak is not None
+        and peak + gain_db < _NO_CLIP_DBFS
+    )
+    after = (
+        None if from_render else LoudnessMeter(rate, channels, measure_true_peak=limiter is None)
+    )
 
-    with StemReader(info) as reader, OutputWriter(
-        output_path, rate, channels, format=format, subtype=subtype, frames_hint=total,
-        seed=seed,
-    ) as writer:
+    with (
+        StemReader(info) as reader,
+        OutputWriter(
+            output_path,
+            rate,
+            channels,
+            format=format,
+            subtype=subtype,
+            frames_hint=total,
+            seed=seed,
+        ) as writer,
+    ):
         # Writing (and, unless its figures come from the render's meter, metering) the
         # output run in threads of their own beside the reading and the limiter
         # (earfold.renderer.pipeline), in order; both are drained before the output file is
@@ -290,8 +324,9 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         # changes, so the two threads may share them.
         with contextlib.ExitStack() as threads:
             writing = threads.enter_context(BackgroundWriter(writer.write))
-            metering = None if after is None else threads.enter_context(
-                BackgroundWriter(after.process))
+            metering = (
+                None if after is None else threads.enter_context(BackgroundWriter(after.process))
+            )
 
             def emit(block: np.ndarray) -> None:
                 if block.shape[0]:
@@ -328,9 +363,11 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
     tp_after = result.true_peak_dbtp
     if limiter is None:
         if tp_after is not None and tp_after > 0.0:
-            warnings.append(f"the limiter is off and the output's true peak is "
-                            f"{tp_after:+.2f} dBTP, above 0 dBTP: it may distort on "
-                            "playback or conversion")
+            warnings.append(
+                f"the limiter is off and the output's true peak is "
+                f"{tp_after:+.2f} dBTP, above 0 dBTP: it may distort on "
+                "playback or conversion"
+            )
     elif limiter.max_gain_reduction_db > HEAVY_LIMITING_DB:
         warnings.append(
             f"the limiter reduced the level by up to {limiter.max_gain_reduction_db:.1f} dB "
@@ -338,13 +375,16 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
             "this material"
         )
     if clipped:
-        warnings.append(f"{clipped} samples exceeded full scale and were clipped in the "
-                        f"{subtype} output")
+        warnings.append(
+            f"{clipped} samples exceeded full scale and were clipped in the {subtype} output"
+        )
     if target_lufs is not None and rendered is not None and result.integrated_lufs is not None:
         shortfall = target_lufs - result.integrated_lufs
         if shortfall > 0.5:
-            warnings.append(f"the output reads {result.integrated_lufs:.1f} LUFS, "
-                            f"{shortfall:.1f} LU below the target, because of limiting")
+            warnings.append(
+                f"the output reads {result.integrated_lufs:.1f} LUFS, "
+                f"{shortfall:.1f} LU below the target, because of limiting"
+            )
 
     return {
         "target": target,
@@ -360,7 +400,8 @@ def deliver(temp_path: str | os.PathLike[str], output_path: str | os.PathLike[st
         "limiter": {
             "enabled": limiter is not None,
             "max_gain_reduction_db": round(limiter.max_gain_reduction_db, 2)
-            if limiter is not None else 0.0,
+            if limiter is not None
+            else 0.0,
             "samples_limited": limiter.samples_limited if limiter is not None else 0,
             "lookahead_ms": limiter.lookahead_ms if limiter is not None else None,
             "release_ms": limiter.release_ms if limiter is not None else None,
@@ -384,8 +425,11 @@ def format_measurement(result: LoudnessResult) -> str:
         ("short-term max", level(result.short_term_max_lufs, "LUFS", "under 3 s of audio")),
         ("true peak", level(result.true_peak_dbtp, "dBTP", "digital silence")),
         ("sample peak", level(result.sample_peak_dbfs, "dBFS", "digital silence")),
-        ("duration", f"{result.duration_s:7.1f} s ({result.samplerate:g} Hz, "
-                     f"{result.channels} channel{'s' if result.channels != 1 else ''})"),
+        (
+            "duration",
+            f"{result.duration_s:7.1f} s ({result.samplerate:g} Hz, "
+            f"{result.channels} channel{'s' if result.channels != 1 else ''})",
+        ),
     ]
     width = max(len(name) for name, _ in lines)
     return "\n".join(f"{name:<{width}}  {text}" for name, text in lines)
@@ -400,12 +444,22 @@ def _parse_number(value: object, units: tuple[str, ...]) -> float | None:
     return float(match.group(1))
 
 
-def _check_number(what: str, value: object, bounds: tuple[float, float], unit: str, *,
-                  open_interval: bool = False, shown: object = None) -> float:
+def _check_number(
+    what: str,
+    value: object,
+    bounds: tuple[float, float],
+    unit: str,
+    *,
+    open_interval: bool = False,
+    shown: object = None,
+) -> float:
     lo, hi = bounds
     shown = value if shown is None else shown
-    if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) \
-            or not math.isfinite(float(value)):
+    if (
+        isinstance(value, bool)
+        or not isinstance(value, (int, float, np.number))
+        or not math.isfinite(float(value))
+    ):
         raise DeliveryError(f"invalid {what} {shown!r}; expected a number of {unit}")
     v = float(value)
     inside = lo < v < hi if open_interval else lo <= v <= hi

@@ -153,16 +153,28 @@ class TruePeakLimiter:
     Signals whose true peak stays below the target pass bit-identically.
     """
 
-    def __init__(self, samplerate: int, channels: int, ceiling_dbtp: float = DEFAULT_CEILING_DBTP,
-                 lookahead_ms: float = DEFAULT_LOOKAHEAD_MS,
-                 release_ms: float = DEFAULT_RELEASE_MS,
-                 known_true_peak: float | None = None) -> None:
-        if isinstance(samplerate, bool) or not isinstance(samplerate, (int, np.integer)) \
-                or not 8000 <= samplerate <= 768000:
-            raise AudioError(f"sample rate must be an integer from 8000 to 768000 Hz, "
-                             f"not {samplerate!r}")
-        if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) \
-                or channels < 1:
+    def __init__(
+        self,
+        samplerate: int,
+        channels: int,
+        ceiling_dbtp: float = DEFAULT_CEILING_DBTP,
+        lookahead_ms: float = DEFAULT_LOOKAHEAD_MS,
+        release_ms: float = DEFAULT_RELEASE_MS,
+        known_true_peak: float | None = None,
+    ) -> None:
+        if (
+            isinstance(samplerate, bool)
+            or not isinstance(samplerate, (int, np.integer))
+            or not 8000 <= samplerate <= 768000
+        ):
+            raise AudioError(
+                f"sample rate must be an integer from 8000 to 768000 Hz, not {samplerate!r}"
+            )
+        if (
+            isinstance(channels, bool)
+            or not isinstance(channels, (int, np.integer))
+            or channels < 1
+        ):
             raise AudioError(f"channels must be a positive integer, not {channels!r}")
         _check_range("ceiling_dbtp", ceiling_dbtp, *TRUE_PEAK_RANGE_DBTP, "dBTP")
         _check_range("lookahead_ms", lookahead_ms, 0.5, 50.0, "ms")
@@ -215,8 +227,9 @@ class TruePeakLimiter:
         if known_true_peak is not None:
             known = float(known_true_peak)
             if not math.isfinite(known) or known < 0.0:
-                raise AudioError(f"known_true_peak must be a finite level >= 0, "
-                                 f"not {known_true_peak!r}")
+                raise AudioError(
+                    f"known_true_peak must be a finite level >= 0, not {known_true_peak!r}"
+                )
             if known <= self._target * (1.0 - _BYPASS_MARGIN):
                 self.bypassed = True
                 self.latency = 0
@@ -291,9 +304,11 @@ class TruePeakLimiter:
         threshold = min(self._target, self._in_peak)
         # float32 is ample for the peaks (errors near 1e-7 against margins of 1e-3) and
         # twice as fast.
-        peaks = self._interp.point_peaks(block.astype(np.float32, copy=False),
-                                         threshold=threshold,
-                                         context=self._x[-e:] if e else None)
+        peaks = self._interp.point_peaks(
+            block.astype(np.float32, copy=False),
+            threshold=threshold,
+            context=self._x[-e:] if e else None,
+        )
         self._in_peak = max(self._in_peak, float(peaks.max()))
         self._note_overs(peaks, self._received)
         self._x = np.concatenate([self._x, x])
@@ -313,8 +328,8 @@ class TruePeakLimiter:
         start = self._emitted
         m = checked - start
         e, lookahead = self._E, self._L
-        x = self._x[e:e + m]  # input frames [start, checked)
-        p = self._p[:m + self._reach]
+        x = self._x[e : e + m]  # input frames [start, checked)
+        p = self._p[: m + self._reach]
         stop = end if final and end is not None else max(start, checked - self._lag)
 
         # Points at or under the target need no gain (they may read lower, or 0). A step
@@ -322,21 +337,25 @@ class TruePeakLimiter:
         # correction lowered a limit in its window: then its gain is exactly 1, which the
         # general path below would compute too, only slower.
         first_over = int(np.searchsorted(self._overs, start))
-        idle = ((first_over == self._overs.size
-                 or self._overs[first_over] >= start + p.size)
-                and start >= self._f_lowered_until and self._r_prev == 0.0
-                and not np.any(self._u_hist) and np.array_equal(self._z_hist, self._x[:e]))
+        idle = (
+            (first_over == self._overs.size or self._overs[first_over] >= start + p.size)
+            and start >= self._f_lowered_until
+            and self._r_prev == 0.0
+            and not np.any(self._u_hist)
+            and np.array_equal(self._z_hist, self._x[:e])
+        )
         if idle:
             return self._pass_idle(x, p, start, stop, final)
 
-        f = self._f[:m + lookahead - 1 + e].copy()
+        f = self._f[: m + lookahead - 1 + e].copy()
         for passes in range(_MAX_PASSES):
             g, r, u, held0 = self._gain(p, f, m)
             # Checked as it will be written: in float32.
             z = (x * g[:, None]).astype(np.float32)
             # Exact above the output's running peak too, for output_true_peak.
-            peaks = self._interp.point_peaks(z, threshold=min(self._check, self._out_peak),
-                                             context=self._z_hist if e else None)
+            peaks = self._interp.point_peaks(
+                z, threshold=min(self._check, self._out_peak), context=self._z_hist if e else None
+            )
             over = np.flatnonzero(peaks > self._check)
             if over.size == 0:
                 break
@@ -350,7 +369,7 @@ class TruePeakLimiter:
                 ok = j >= 0
                 np.minimum.at(f, j[ok], g[j[ok]] * scale[ok])
             self._f_lowered_until = max(self._f_lowered_until, start + f.size)
-        self._f[:f.size] = f
+        self._f[: f.size] = f
 
         count = stop - start
         # Points of the frames emitted now are final (and at the end, those past it).
@@ -365,19 +384,19 @@ class TruePeakLimiter:
         if np.any(limited):
             self.samples_limited += int(np.count_nonzero(limited))
             lowest = max(float(gains.min()), 1e-15)  # a muted window counts as 300 dB
-            self.max_gain_reduction_db = max(self.max_gain_reduction_db,
-                                             -20.0 * math.log10(lowest))
+            self.max_gain_reduction_db = max(self.max_gain_reduction_db, -20.0 * math.log10(lowest))
         # Carry the state of the frames emitted into the next step.
         self._r_prev = float(r[count - 1])
         if lookahead > 1:
             if start == 0:
                 self._u_hist = np.full(lookahead - 1, _quantise(held0)[0])
-            self._u_hist = np.concatenate([self._u_hist, u])[count:count + lookahead - 1]
+            self._u_hist = np.concatenate([self._u_hist, u])[count : count + lookahead - 1]
         self._advance(z, count, stop)
         return out
 
-    def _pass_idle(self, x: np.ndarray, p: np.ndarray, start: int, stop: int,
-                   final: bool) -> np.ndarray:
+    def _pass_idle(
+        self, x: np.ndarray, p: np.ndarray, start: int, stop: int, final: bool
+    ) -> np.ndarray:
         """Emit an idle step's frames as they are (gain 1; the state stays at rest)."""
         count = stop - start
         k = x.shape[0] if final else max(count, 0)
@@ -395,18 +414,19 @@ class TruePeakLimiter:
         e = self._E
         if e:
             if count >= e:
-                self._z_hist = z[count - e:count].copy()
+                self._z_hist = z[count - e : count].copy()
             else:
-                self._z_hist = np.concatenate([self._z_hist, z[:count]])[count:count + e]
+                self._z_hist = np.concatenate([self._z_hist, z[:count]])[count : count + e]
         self._x = self._x[count:]
         self._p = self._p[count:]
         self._f = self._f[count:]
         self._t = self._t[count:]
-        self._overs = self._overs[np.searchsorted(self._overs, stop):]
+        self._overs = self._overs[np.searchsorted(self._overs, stop) :]
         self._emitted = stop
 
-    def _track_output(self, z: np.ndarray, checked: np.ndarray | None, p: np.ndarray,
-                      t: np.ndarray) -> None:
+    def _track_output(
+        self, z: np.ndarray, checked: np.ndarray | None, p: np.ndarray, t: np.ndarray
+    ) -> None:
         """Raise the output's running true peak with the final points of ``z``.
 
         ``checked`` holds the points of a step that was checked (exact above the running
@@ -420,8 +440,9 @@ class TruePeakLimiter:
                 checked = p
             else:
                 e = self._E
-                checked = self._interp.point_peaks(z, threshold=self._out_peak,
-                                                   context=self._z_hist if e else None)
+                checked = self._interp.point_peaks(
+                    z, threshold=self._out_peak, context=self._z_hist if e else None
+                )
         self._out_peak = max(self._out_peak, float(checked.max()))
 
     @property
@@ -493,7 +514,10 @@ def _join(parts: list[np.ndarray], channels: int) -> np.ndarray:
 
 
 def _check_range(name: str, value: object, lo: float, hi: float, unit: str) -> None:
-    if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) \
-            or not math.isfinite(float(value)) or not lo <= float(value) <= hi:
-        raise AudioError(f"{name} must be a number from {lo:g} to {hi:g} {unit}, "
-                         f"not {value!r}")
+    if (
+        isinstance(value, bool)
+        or not isinstance(value, (int, float, np.number))
+        or not math.isfinite(float(value))
+        or not lo <= float(value) <= hi
+    ):
+        raise AudioError(f"{name} must be a number from {lo:g} to {hi:g} {unit}, not {value!r}")

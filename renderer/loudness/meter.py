@@ -62,10 +62,11 @@ __all__ = [
 ]
 
 K_WEIGHTING_48K = {
-    "shelf": ((1.53512485958697, -2.69169618940638, 1.19839281085285),
-              (1.0, -1.69065929318241, 0.73248077421585)),
-    "highpass": ((1.0, -2.0, 1.0),
-                 (1.0, -1.99004745483398, 0.99007225036621)),
+    "shelf": (
+        (1.53512485958697, -2.69169618940638, 1.19839281085285),
+        (1.0, -1.69065929318241, 0.73248077421585),
+    ),
+    "highpass": ((1.0, -2.0, 1.0), (1.0, -1.99004745483398, 0.99007225036621)),
 }
 """The K-weighting biquads at 48 kHz as published in ITU-R BS.1770-4 (Tables 1 and 2),
 ``(b, a)`` per stage."""
@@ -196,9 +197,14 @@ def k_weighting_sos(samplerate: float) -> np.ndarray:
     k = math.tan(math.pi * sh["f0"] / fs)
     kq = k / sh["q"]
     a0 = 1 + kq + k * k
-    shelf = [(sh["vh"] + sh["vb"] * kq + k * k) / a0, 2 * (k * k - sh["vh"]) / a0,
-             (sh["vh"] - sh["vb"] * kq + k * k) / a0,
-             1.0, 2 * (k * k - 1) / a0, (1 - kq + k * k) / a0]
+    shelf = [
+        (sh["vh"] + sh["vb"] * kq + k * k) / a0,
+        2 * (k * k - sh["vh"]) / a0,
+        (sh["vh"] - sh["vb"] * kq + k * k) / a0,
+        1.0,
+        2 * (k * k - 1) / a0,
+        (1 - kq + k * k) / a0,
+    ]
 
     k = math.tan(math.pi * hp["f0"] / fs)
     kq = k / hp["q"]
@@ -269,8 +275,10 @@ def interpolation_taps(factor: int) -> np.ndarray:
     """
     if factor == 1:
         return np.ones(1)
-    return signal.firwin(factor * TAPS_PER_PHASE, 1.0 / factor,
-                         window=("kaiser", _KAISER_BETA)) * factor
+    return (
+        signal.firwin(factor * TAPS_PER_PHASE, 1.0 / factor, window=("kaiser", _KAISER_BETA))
+        * factor
+    )
 
 
 class PeakInterpolator:
@@ -303,8 +311,9 @@ class PeakInterpolator:
         self.bound_gain = float(max(1.0, np.abs(phases).sum(axis=1).max()))
         self._buffers: dict[str, np.ndarray] = {}
 
-    def point_peaks(self, block: np.ndarray, threshold: float = 0.0,
-                    context: np.ndarray | None = None) -> np.ndarray:
+    def point_peaks(
+        self, block: np.ndarray, threshold: float = 0.0, context: np.ndarray | None = None
+    ) -> np.ndarray:
         """Peak magnitude of every point of a block, over channels, phases and the sample.
 
         Parameters
@@ -350,8 +359,8 @@ class PeakInterpolator:
             xt[:, :e] = np.asarray(context)[-e:].T
         else:
             xt[:, :e] = 0.0
-        xt[:, e:e + n] = x.T
-        xt[:, e + n:] = 0.0
+        xt[:, e : e + n] = x.T
+        xt[:, e + n :] = 0.0
         level = np.abs(xt, out=self._scratch("level", (c, total), x.dtype))
         width = 1
         while width < _CHUNK:  # pairwise maxima down to one value per chunk
@@ -361,7 +370,7 @@ class PeakInterpolator:
         window_max = self._scratch("window", (c, chunks), x.dtype)
         window_max[...] = level[:, :chunks]
         for k in range(1, span):
-            np.maximum(window_max, level[:, k:k + chunks], out=window_max)
+            np.maximum(window_max, level[:, k : k + chunks], out=window_max)
         chans, rows = np.nonzero(self.bound_gain * window_max > threshold)
         if rows.size == 0:
             return out[:n]
@@ -369,14 +378,20 @@ class PeakInterpolator:
             peak = np.zeros(n, dtype=x.dtype)
             y = self._scratch("phase", (c, e + n), x.dtype)
             for p in range(self.factor):
-                correlate1d(xt[:, :e + n], self._matrix[:, p], axis=1, mode="constant",
-                            origin=-((e + 1) // 2), output=y)  # y[j] uses xt[j .. j + e]
+                correlate1d(
+                    xt[:, : e + n],
+                    self._matrix[:, p],
+                    axis=1,
+                    mode="constant",
+                    origin=-((e + 1) // 2),
+                    output=y,
+                )  # y[j] uses xt[j .. j + e]
                 np.abs(y, out=y)
                 for ch in range(c):
                     np.maximum(peak, y[ch, :n], out=peak)
             np.maximum(out[:n], peak, out=out[:n])
             for ch in range(c):
-                np.maximum(out[:n], np.abs(xt[ch, e:e + n]), out=out[:n])
+                np.maximum(out[:n], np.abs(xt[ch, e : e + n]), out=out[:n])
             return out[:n]
         framed = xt.reshape(c, -1, _CHUNK)
         segments = np.concatenate([framed[chans, rows + k] for k in range(span)], axis=1)
@@ -386,12 +401,12 @@ class PeakInterpolator:
         for p in range(self.factor):
             acc = segments[:, 0:_CHUNK] * coef[0, p]
             for k in range(1, e + 1):
-                np.multiply(segments[:, k:k + _CHUNK], coef[k, p], out=term)
+                np.multiply(segments[:, k : k + _CHUNK], coef[k, p], out=term)
                 acc += term
             np.maximum(peak, np.abs(acc, out=acc), out=peak)
         # The samples themselves (the last frames of each window: the chunk's own frames),
         # then the channels' maxima per chunk; rows are unique within a channel.
-        np.maximum(peak, np.abs(segments[:, e:e + _CHUNK]), out=peak)
+        np.maximum(peak, np.abs(segments[:, e : e + _CHUNK]), out=peak)
         point = out.reshape(chunks, _CHUNK)
         for ch in range(c):
             sel = chans == ch
@@ -463,8 +478,9 @@ class TruePeakMeter:
         e = self.interpolator.history
         if not e:
             return self._peak
-        peaks = self.interpolator.point_peaks(np.zeros((e, self.channels)),
-                                              threshold=self._peak, context=self._history)
+        peaks = self.interpolator.point_peaks(
+            np.zeros((e, self.channels)), threshold=self._peak, context=self._history
+        )
         return max(self._peak, float(peaks.max()))
 
     @property
@@ -592,15 +608,14 @@ class _Histogram:
         keep = loud > _HIST_LO
         if not np.any(keep):
             return
-        idx = np.clip(((loud[keep] - _HIST_LO) / _HIST_STEP).astype(np.int64), 0,
-                      _HIST_BINS - 1)
+        idx = np.clip(((loud[keep] - _HIST_LO) / _HIST_STEP).astype(np.int64), 0, _HIST_BINS - 1)
         # Only the span of bins hit is counted and added to: the same sums as over all
         # bins (adding 0.0 changes nothing), without touching 18 000 bins per block.
         lo = int(idx.min())
         idx -= lo
         span = int(idx.max()) + 1
-        self.counts[lo:lo + span] += np.bincount(idx, minlength=span)
-        self.power[lo:lo + span] += np.bincount(idx, weights=power[keep], minlength=span)
+        self.counts[lo : lo + span] += np.bincount(idx, minlength=span)
+        self.power[lo : lo + span] += np.bincount(idx, weights=power[keep], minlength=span)
 
     @staticmethod
     def _centres(shift: float) -> np.ndarray:
@@ -620,8 +635,7 @@ class _Histogram:
         mask = self.relative_mask(gate_lu, shift)
         if mask is None or not np.any(mask):
             return None
-        return float(_lufs(self.power[mask].sum() * _gain_power(shift)
-                           / self.counts[mask].sum()))
+        return float(_lufs(self.power[mask].sum() * _gain_power(shift) / self.counts[mask].sum()))
 
     def loudness_range(self, shift: float = 0.0) -> float | None:
         mask = self.relative_mask(LRA_RELATIVE_GATE_LU, shift)
@@ -698,11 +712,19 @@ class LoudnessMeter:
     (:class:`TruePeakMeter`).
     """
 
-    def __init__(self, samplerate: float, channels: int,
-                 weights: Sequence[float] | np.ndarray | None = None, *,
-                 measure_true_peak: bool = True) -> None:
-        if isinstance(samplerate, bool) or not isinstance(samplerate, (int, float, np.number)) \
-                or not 8000 <= samplerate <= 768000:
+    def __init__(
+        self,
+        samplerate: float,
+        channels: int,
+        weights: Sequence[float] | np.ndarray | None = None,
+        *,
+        measure_true_peak: bool = True,
+    ) -> None:
+        if (
+            isinstance(samplerate, bool)
+            or not isinstance(samplerate, (int, float, np.number))
+            or not 8000 <= samplerate <= 768000
+        ):
             raise AudioError(f"sample rate must be from 8000 to 768000 Hz, not {samplerate!r}")
         self.samplerate = samplerate
         self.channels = _check_channels(channels)
@@ -711,8 +733,10 @@ class LoudnessMeter:
         else:
             w = np.asarray(weights, dtype=float).ravel()
             if w.shape != (self.channels,) or not np.all(np.isfinite(w)) or np.any(w < 0):
-                raise AudioError(f"weights must be {self.channels} finite non-negative "
-                                 f"numbers, one per channel, not {weights!r}")
+                raise AudioError(
+                    f"weights must be {self.channels} finite non-negative "
+                    f"numbers, one per channel, not {weights!r}"
+                )
         self.weights = w
         self._sos = k_weighting_sos(samplerate)
         self._zi = np.zeros((self._sos.shape[0], self.channels, 2))  # time-last layout
@@ -803,8 +827,8 @@ class LoudnessMeter:
             loud = _lufs(power)
             series.extend(loud)
             setattr(self, attr, max(getattr(self, attr), float(np.max(loud))))
-        self._recent_energy = e[-self._keep:]
-        self._recent_count = c[-self._keep:]
+        self._recent_energy = e[-self._keep :]
+        self._recent_count = c[-self._keep :]
 
     def result(self, gain_db: float = 0.0) -> LoudnessResult:
         """The measurement so far (the meter can keep going afterwards).
@@ -820,8 +844,9 @@ class LoudnessMeter:
         """
         shift = float(gain_db)
         if not math.isfinite(shift) or shift > MAX_RESULT_GAIN_DB:
-            raise AudioError(f"gain_db must be a finite number up to "
-                             f"{MAX_RESULT_GAIN_DB:g} dB, not {gain_db!r}")
+            raise AudioError(
+                f"gain_db must be a finite number up to {MAX_RESULT_GAIN_DB:g} dB, not {gain_db!r}"
+            )
         tp = self.true_peak
         if tp is None:
             true_peak_dbtp, sample_peak = None, self._sample_peak
@@ -844,9 +869,11 @@ class LoudnessMeter:
         )
 
 
-def measure_file(path: str | os.PathLike[str] | Sequence[str | os.PathLike[str]],
-                 weights: Sequence[float] | np.ndarray | None = None,
-                 blocksize: int = 65536) -> LoudnessResult:
+def measure_file(
+    path: str | os.PathLike[str] | Sequence[str | os.PathLike[str]],
+    weights: Sequence[float] | np.ndarray | None = None,
+    blocksize: int = 65536,
+) -> LoudnessResult:
     """Measure a file (or the mono files of one stem) in one streaming pass.
 
     Parameters
@@ -878,8 +905,7 @@ def measure_file(path: str | os.PathLike[str] | Sequence[str | os.PathLike[str]]
 
 
 def _check_channels(channels: object) -> int:
-    if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) \
-            or channels < 1:
+    if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) or channels < 1:
         raise AudioError(f"channels must be a positive integer, not {channels!r}")
     return int(channels)
 

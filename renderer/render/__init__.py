@@ -1,5 +1,4 @@
-"""One render: options, plan, streaming through the engine, delivery and the report.
-"""
+"""One render: options, plan, streaming through the engine, delivery and the report."""
 
 from __future__ import annotations
 

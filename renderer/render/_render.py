@@ -12,34 +12,33 @@ import os
 import platform
 import time
 import uuid
-from concurrent.futures import ThreadPoolExecutor
 from collections.abc import Callable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from .. import __version__
-from ..eq import HeadphoneEq, load_headphone_eq
-from ..eq import REFERENCE as CALIBRATION_REFERENCE, calibration_gain
-from ..eq import check_eq, equalised
-from ..io import OutputWriter, StemInfo, StemReader, probe_stem, subtype_for
-from ..layouts import labels_from_mask
-from ..engine import DEFAULT_BLOCK_SIZE, BinauralConvolver
 from ..defaults import DEFAULT_LOUDNESS_LUFS, DEFAULT_TRUE_PEAK_DBTP, SPEED_OF_SOUND
+from ..engine import DEFAULT_BLOCK_SIZE, BinauralConvolver, LfeOptions, lfe_filter
+from ..eq import REFERENCE as CALIBRATION_REFERENCE
+from ..eq import HeadphoneEq, calibration_gain, check_eq, equalised, load_headphone_eq
 from ..errors import LayoutError, RenderCancelled, RendererError
 from ..geometry import direction_to_vector, vector_to_direction
-from ..hrtf import HrirSet, load_hrir_set
-from ..layouts import Layout, get_layout, labels_from_filenames, resolve_channel_order
-from ..engine import LfeOptions, lfe_filter
-from ..hrtf import onset_times
+from ..hrtf import HrirSet, load_hrir_set, onset_times
+from ..io import OutputWriter, StemInfo, StemReader, probe_stem, subtype_for
+from ..layouts import (
+    Layout,
+    get_layout,
+    labels_from_filenames,
+    labels_from_mask,
+    resolve_channel_order,
+)
+from ..loudness import DeliveryOptions, LoudnessMeter, channel_weights, deliver
 from ..pipeline import BackgroundWriter, prefetch
-from ..loudness import DeliveryOptions, deliver
-from ..loudness import LoudnessMeter, channel_weights
+from ..room import Room, build_room_filters, exact_brirs, get_room
 from .plot_data import plot_section
-from ..room import Room, get_room
-from ..room import build_room_filters, exact_brirs
-
 
 #: Fraction of the progress bar given to the render pass; the delivery stage's pass over
 #: the two-channel render takes the rest.
@@ -50,8 +49,6 @@ ROOM_MODES = ("shared", "exact")
 
 #: Low-frequency band (Hz) over which the set's level is read to place the LFE.
 LFE_REFERENCE_BAND_HZ = (40.0, 120.0)
-
-
 
 
 @dataclass(frozen=True)
@@ -224,16 +221,18 @@ def _excerpt(stem: StemInfo, excerpt: tuple[float, float]) -> StemInfo:
     try:
         start_s, length_s = (float(v) for v in excerpt)
     except (TypeError, ValueError):
-        raise RendererError(f"excerpt must be (start, length) in seconds, not {excerpt!r}") \
-            from None
+        raise RendererError(
+            f"excerpt must be (start, length) in seconds, not {excerpt!r}"
+        ) from None
     if not (np.isfinite(start_s) and np.isfinite(length_s)) or start_s < 0 or length_s <= 0:
-        raise RendererError(f"excerpt must have a start >= 0 and a length > 0 seconds, not "
-                            f"{excerpt!r}")
+        raise RendererError(
+            f"excerpt must have a start >= 0 and a length > 0 seconds, not {excerpt!r}"
+        )
     if start_s >= stem.duration:
-        raise RendererError(f"the excerpt starts at {start_s:g} s but the stem is only "
-                            f"{stem.duration:.3f} s long")
-    return stem.window(round(start_s * stem.samplerate),
-                       max(1, round(length_s * stem.samplerate)))
+        raise RendererError(
+            f"the excerpt starts at {start_s:g} s but the stem is only {stem.duration:.3f} s long"
+        )
+    return stem.window(round(start_s * stem.samplerate), max(1, round(length_s * stem.samplerate)))
 
 
 def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -> RenderPlan:
@@ -263,8 +262,12 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
             f"{hset.room_type!r}); rendered as measured, the synthetic room "
             f"{requested_room.name!r} was not added"
         )
-        room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type,
-                       "requested": requested_room.name}
+        room_report = {
+            "synthetic": False,
+            "measured_room": True,
+            "room_type": hset.room_type,
+            "requested": requested_room.name,
+        }
     elif requested_room is not None:
         room = requested_room
         room_filters = build_room_filters(hset, layout, room, stem.samplerate, seed=settings.seed)
@@ -292,8 +295,12 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
         entry: dict = {"channel": channel, "label": spk.label}
         if spk.lfe:
             ir = lfe_filter(stem.samplerate, settings.lfe, reference_gain=lfe_gain, delay=lfe_onset)
-            entry.update(lfe=True, method="lfe", cutoff_hz=settings.lfe.cutoff_hz,
-                         gain_db=settings.lfe.gain_db)
+            entry.update(
+                lfe=True,
+                method="lfe",
+                cutoff_hz=settings.lfe.cutoff_hz,
+                gain_db=settings.lfe.gain_db,
+            )
         else:
             pair = hset.pair(spk.vector)
             ir = pair.ir
@@ -303,8 +310,11 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
                 elevation=spk.elevation,
                 method=pair.method,
                 measured=[
-                    {"azimuth": round(float(a), 3), "elevation": round(float(e), 3),
-                     "weight": round(w, 6)}
+                    {
+                        "azimuth": round(float(a), 3),
+                        "elevation": round(float(e), 3),
+                        "weight": round(w, 6),
+                    }
                     for a, e, w in zip(np.atleast_1d(used_az), np.atleast_1d(used_el), pair.weights)
                 ],
                 angular_error_deg=round(pair.angular_error, 3),
@@ -319,8 +329,11 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
                 gain = near / spk.distance
                 shift = int(round(delay))
                 ir = np.concatenate([np.zeros((2, shift)), ir * gain], axis=1)
-                entry.update(distance_m=spk.distance, delay_samples=shift,
-                             distance_gain_db=round(20 * np.log10(gain), 3))
+                entry.update(
+                    distance_m=spk.distance,
+                    delay_samples=shift,
+                    distance_gain_db=round(20 * np.log10(gain), 3),
+                )
         pairs.append(ir)
         speakers.append(entry)
 
@@ -338,11 +351,28 @@ def plan_render(inputs: Sequence[str | os.PathLike], settings: RenderSettings) -
     filters *= gain
     if tail is not None:
         tail = tail * gain
-    calibration = {"gain_db": round(float(20 * np.log10(gain)), 3), "reference": CALIBRATION_REFERENCE,
-                   "applied": "to every filter, before the delivery stage"}
-    return RenderPlan(stem, layout, order, order_source, hset, filters, tuple(speakers),
-                      tuple(warnings), tail, tail_weights, tail_offset, room_report,
-                      eq_report, calibration, headphone)
+    calibration = {
+        "gain_db": round(float(20 * np.log10(gain)), 3),
+        "reference": CALIBRATION_REFERENCE,
+        "applied": "to every filter, before the delivery stage",
+    }
+    return RenderPlan(
+        stem,
+        layout,
+        order,
+        order_source,
+        hset,
+        filters,
+        tuple(speakers),
+        tuple(warnings),
+        tail,
+        tail_weights,
+        tail_offset,
+        room_report,
+        eq_report,
+        calibration,
+        headphone,
+    )
 
 
 def _equalise(hset: HrirSet, choice: str | None, warnings: list[str]) -> tuple[HrirSet, dict]:
@@ -351,8 +381,11 @@ def _equalise(hset: HrirSet, choice: str | None, warnings: list[str]) -> tuple[H
     measured_room = _is_measured_room(hset)
     if choice is None:
         choice = "none" if measured_room else "diffuse-field"
-        reason = ("default: the set holds room responses" if measured_room
-                  else "default for a free-field set")
+        reason = (
+            "default: the set holds room responses"
+            if measured_room
+            else "default for a free-field set"
+        )
     else:
         reason = "requested"
         if choice == "diffuse-field" and measured_room:
@@ -372,8 +405,14 @@ def _equalise(hset: HrirSet, choice: str | None, warnings: list[str]) -> tuple[H
     return hset, report
 
 
-def _calibrate(filters: np.ndarray, speakers: Sequence[dict], tail: np.ndarray | None,
-               tail_weights: np.ndarray | None, tail_offset: int, samplerate: float) -> float:
+def _calibrate(
+    filters: np.ndarray,
+    speakers: Sequence[dict],
+    tail: np.ndarray | None,
+    tail_weights: np.ndarray | None,
+    tail_offset: int,
+    samplerate: float,
+) -> float:
     """The calibration gain (:mod:`earfold.renderer.eq.calibration`) of a filter bank."""
     mains = [i for i, s in enumerate(speakers) if not s.get("lfe")]
 
@@ -384,7 +423,7 @@ def _calibrate(filters: np.ndarray, speakers: Sequence[dict], tail: np.ndarray |
                 n = max(r.shape[-1], tail_offset + tail.shape[-1])
                 full = np.zeros((2, n))
                 full[:, : r.shape[-1]] = r
-                full[:, tail_offset: tail_offset + tail.shape[-1]] += tail_weights[i] * tail
+                full[:, tail_offset : tail_offset + tail.shape[-1]] += tail_weights[i] * tail
                 r = full
             yield r
 
@@ -394,7 +433,10 @@ def _calibrate(filters: np.ndarray, speakers: Sequence[dict], tail: np.ndarray |
 def _is_measured_room(hset: HrirSet) -> bool:
     """Does the set already hold room responses (a reverberant RoomType or a BRIR convention)?"""
     room_type = (hset.room_type or "").lower().replace("-", " ")
-    return room_type not in ("", "free field", "freefield", "anechoic") or "brir" in hset.convention.lower()
+    return (
+        room_type not in ("", "free field", "freefield", "anechoic")
+        or "brir" in hset.convention.lower()
+    )
 
 
 #: Frames per call of the shared tail's convolver (rounded up to a power of two, and at
@@ -425,8 +467,11 @@ class _Engine:
         self.channels = plan.filters.shape[0]
         self.tail = None
         # Headphone compensation: once, on the two-channel output (each ear to itself).
-        self.headphone = (None if plan.headphone is None else
-                          BinauralConvolver(plan.headphone.filters(), block_size=block_size))
+        self.headphone = (
+            None
+            if plan.headphone is None
+            else BinauralConvolver(plan.headphone.filters(), block_size=block_size)
+        )
         if plan.tail is not None:
             # A power of two (the convolver's rule) and so a whole number of engine blocks.
             chunk = max(self.block_size, 1 << max(0, int(TAIL_BLOCK_FRAMES) - 1).bit_length())
@@ -519,16 +564,23 @@ class _Engine:
             yield out
 
     def describe(self) -> dict:
-        info = {"block_size": self.block_size, "partitions": self.direct.partitions,
-                "filter_length": self.direct.filter_length}
+        info = {
+            "block_size": self.block_size,
+            "partitions": self.direct.partitions,
+            "filter_length": self.direct.filter_length,
+        }
         if self.headphone is not None:
-            info["headphone_eq"] = {"length": self.headphone.filter_length,
-                                    "partitions": self.headphone.partitions}
+            info["headphone_eq"] = {
+                "length": self.headphone.filter_length,
+                "partitions": self.headphone.partitions,
+            }
         if self.tail is not None:
-            info["shared_tail"] = {"length": self.tail.filter_length,
-                                   "block_size": self.tail.block_size,
-                                   "partitions": self.tail.partitions,
-                                   "offset": len(self.fifo)}
+            info["shared_tail"] = {
+                "length": self.tail.filter_length,
+                "block_size": self.tail.block_size,
+                "partitions": self.tail.partitions,
+                "offset": len(self.fifo),
+            }
         return info
 
 
@@ -539,9 +591,19 @@ _METER_BATCH = 262144
 # 262144 about 0.04 s.
 
 
-def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: str,
-            fmt: str | None, progress, cancelled, meter_input: bool,
-            meter_output: bool, scratch: bool = False) -> dict:
+def _stream(
+    plan: RenderPlan,
+    settings: RenderSettings,
+    path: Path,
+    *,
+    subtype: str,
+    fmt: str | None,
+    progress,
+    cancelled,
+    meter_input: bool,
+    meter_output: bool,
+    scratch: bool = False,
+) -> dict:
     """Stream the stem through the engine into ``path``; meter input and output on the way.
 
     The input meter runs in the reader thread and the output meter in the writer thread,
@@ -592,10 +654,20 @@ def _stream(plan: RenderPlan, settings: RenderSettings, path: Path, *, subtype: 
         if progress is not None:
             progress(min(state["done"] / total, 1.0))
 
-    with contextlib.closing(engine), StemReader(stem) as reader, OutputWriter(
-        path, stem.samplerate, 2, format=fmt, subtype=subtype, frames_hint=total,
-        seed=settings.seed, durable=not scratch,
-    ) as writer:
+    with (
+        contextlib.closing(engine),
+        StemReader(stem) as reader,
+        OutputWriter(
+            path,
+            stem.samplerate,
+            2,
+            format=fmt,
+            subtype=subtype,
+            frames_hint=total,
+            seed=settings.seed,
+            durable=not scratch,
+        ) as writer,
+    ):
         # Reading, convolving and writing overlap (earfold.renderer.pipeline); the writer thread
         # is drained before the output file is closed and renamed.
         with BackgroundWriter(write) as background:
@@ -656,11 +728,17 @@ def render(
     direct = options.loudness is None and options.true_peak is None
     # With a delivery stage the engine writes a float32 render beside the output, which
     # the stage reads back (gain, limiter, dither, final subtype) and then removes.
-    temp = out_path if direct else out_path.with_name(f".{out_path.name}.{uuid.uuid4().hex[:8]}.render.wav")
+    temp = (
+        out_path
+        if direct
+        else out_path.with_name(f".{out_path.name}.{uuid.uuid4().hex[:8]}.render.wav")
+    )
     share = 1.0 if direct else RENDER_PROGRESS_SHARE
     try:
         streamed = _stream(
-            plan, settings, temp,
+            plan,
+            settings,
+            temp,
             subtype=subtype if direct else "FLOAT",
             fmt=settings.format if direct else "wav",
             progress=None if progress is None else (lambda f: progress(share * f)),
@@ -673,10 +751,16 @@ def render(
         delivery = None
         if not direct:
             delivery = deliver(
-                temp, out_path, options,
+                temp,
+                out_path,
+                options,
                 input_loudness=streamed["input_loudness"],
-                subtype=subtype, format=settings.format, seed=settings.seed,
-                progress=None if progress is None else (lambda f: progress(share + (1 - share) * f)),
+                subtype=subtype,
+                format=settings.format,
+                seed=settings.seed,
+                progress=None
+                if progress is None
+                else (lambda f: progress(share + (1 - share) * f)),
                 cancelled=cancelled,
                 render_meter=streamed["render_meter"],
             )
@@ -737,8 +821,11 @@ def render(
             "taps": hset.taps,
         },
         "speakers": list(plan.speakers),
-        "lfe": {"cutoff_hz": settings.lfe.cutoff_hz, "gain_db": settings.lfe.gain_db,
-                "order": settings.lfe.order},
+        "lfe": {
+            "cutoff_hz": settings.lfe.cutoff_hz,
+            "gain_db": settings.lfe.gain_db,
+            "order": settings.lfe.order,
+        },
         "output": {
             "file": Path(output).name,
             "format": out_format,

@@ -110,16 +110,18 @@ class SpectrumMeter:
     """
 
     @classmethod
-    def for_length(cls, samplerate: float, channels: int, frames: int,
-                   max_segments: int = SPECTRUM_SEGMENTS) -> SpectrumMeter:
+    def for_length(
+        cls, samplerate: float, channels: int, frames: int, max_segments: int = SPECTRUM_SEGMENTS
+    ) -> SpectrumMeter:
         """A meter that analyses at most ``max_segments`` segments of ``frames``, evenly spread."""
         meter = cls(samplerate, channels)
         total = (frames - meter.nfft) // meter._hop + 1 if frames >= meter.nfft else 0
         meter.stride = max(1, -(-total // max_segments))
         return meter
 
-    def __init__(self, samplerate: float, channels: int, nfft: int | None = None,
-                 stride: int = 1) -> None:
+    def __init__(
+        self, samplerate: float, channels: int, nfft: int | None = None, stride: int = 1
+    ) -> None:
         self.samplerate = float(samplerate)
         self.channels = int(channels)
         self.nfft = int(nfft or 1 << int(math.ceil(math.log2(0.68 * samplerate))))
@@ -146,17 +148,18 @@ class SpectrumMeter:
             first = -self._seen % self.stride
             picked = range(first, n_seg, self.stride)
             if len(picked):
-                starts = slice(first * self._hop, (n_seg - 1) * self._hop + 1,
-                               self.stride * self._hop)
+                starts = slice(
+                    first * self._hop, (n_seg - 1) * self._hop + 1, self.stride * self._hop
+                )
                 segs = view[starts] * self._window32
                 # float32 FFTs (scipy keeps single precision, numpy would not): level
                 # figures to 0.01 dB need far less than float32's 1e-7; sums in float64.
                 spec = scipy.fft.rfft(segs, axis=-1)
-                power = spec.real ** 2 + spec.imag ** 2
+                power = spec.real**2 + spec.imag**2
                 self._power += power.sum(axis=0, dtype=np.float64).T
                 self._segments += len(picked)
             self._seen += n_seg
-            buf = buf[n_seg * self._hop:]
+            buf = buf[n_seg * self._hop :]
         self._buffer = buf.copy()
 
     def mean_square(self) -> tuple[np.ndarray, np.ndarray]:
@@ -170,8 +173,14 @@ class SpectrumMeter:
         elif len(self._buffer):
             n_own = len(self._buffer)
             window = signal.get_window("hann", n_own) if n_own > 1 else np.ones(1)
-            power = np.abs(np.fft.rfft(self._buffer.astype(np.float64) * window[:, None],
-                                       n=self.nfft, axis=0)) ** 2
+            power = (
+                np.abs(
+                    np.fft.rfft(
+                        self._buffer.astype(np.float64) * window[:, None], n=self.nfft, axis=0
+                    )
+                )
+                ** 2
+            )
             n = self.nfft
         else:
             return np.fft.rfftfreq(self.nfft, 1 / self.samplerate), np.zeros_like(self._power)
@@ -180,7 +189,7 @@ class SpectrumMeter:
         if self.nfft % 2 == 0:
             scale[-1] = 1.0
         # sum_n (w x)^2 = (1/N) sum_k |X_k|^2, and the window's own energy is sum w^2.
-        ms = power * scale[:, None] / (n * np.sum(window ** 2))
+        ms = power * scale[:, None] / (n * np.sum(window**2))
         return np.fft.rfftfreq(self.nfft, 1 / self.samplerate), ms
 
     def band_levels(self) -> dict:
@@ -193,8 +202,10 @@ class SpectrumMeter:
             p = ms[band].sum(axis=0)
             levels.append([_db10(v) for v in p])
         per_channel = np.array(levels).T if levels else np.zeros((self.channels, 0))
-        return {"centres_hz": [round(float(c), 2) for c in centres],
-                "levels_db": [[round(float(v), 2) for v in row] for row in per_channel]}
+        return {
+            "centres_hz": [round(float(c), 2) for c in centres],
+            "levels_db": [[round(float(v), 2) for v in row] for row in per_channel],
+        }
 
 
 def schroeder_db(energy: np.ndarray) -> np.ndarray:
@@ -210,8 +221,13 @@ def schroeder_db(energy: np.ndarray) -> np.ndarray:
         return 10.0 * np.log10(edc / edc[0])
 
 
-def energy_decay(ir: np.ndarray, samplerate: float, bands: tuple[float, ...] = BANDS_HZ,
-                 points: int = DECAY_POINTS, floor_db: float = DECAY_FLOOR_DB) -> dict:
+def energy_decay(
+    ir: np.ndarray,
+    samplerate: float,
+    bands: tuple[float, ...] = BANDS_HZ,
+    points: int = DECAY_POINTS,
+    floor_db: float = DECAY_FLOOR_DB,
+) -> dict:
     """Energy decay curves of an impulse response per octave band.
 
     Each band is filtered as for ISO 3382-1 measurements (a 6th-order Butterworth
@@ -262,8 +278,9 @@ def energy_decay(ir: np.ndarray, samplerate: float, bands: tuple[float, ...] = B
     }
 
 
-def thin_series(values: list[float] | tuple[float, ...], interval_s: float,
-                max_points: int = LOUDNESS_POINTS) -> tuple[list[float], float]:
+def thin_series(
+    values: list[float] | tuple[float, ...], interval_s: float, max_points: int = LOUDNESS_POINTS
+) -> tuple[list[float], float]:
     """At most ``max_points`` values: the maximum of each group of ``k`` consecutive ones.
 
     Returns the thinned values and their new interval (``k * interval_s``).
@@ -272,7 +289,7 @@ def thin_series(values: list[float] | tuple[float, ...], interval_s: float,
     k = max(1, math.ceil(len(vals) / max_points)) if vals else 1
     if k == 1:
         return [round(float(v), 1) for v in vals], interval_s
-    out = [round(float(max(vals[i:i + k])), 1) for i in range(0, len(vals), k)]
+    out = [round(float(max(vals[i : i + k])), 1) for i in range(0, len(vals), k)]
     return out, round(interval_s * k, 6)
 
 
@@ -281,10 +298,12 @@ def _loudness(series: dict, delivery: dict | None, integrated: float | None) -> 
     s, s_dt = thin_series(series["short_term_lufs"], series["short_term_interval_s"])
     return {
         "what": "delivered file, both ears (BS.1770-4); each point the loudest reading of "
-                "its interval",
-        "momentary_lufs": m, "momentary_interval_s": m_dt,
+        "its interval",
+        "momentary_lufs": m,
+        "momentary_interval_s": m_dt,
         "momentary_start_s": series.get("momentary_start_s", 0.4),
-        "short_term_lufs": s, "short_term_interval_s": s_dt,
+        "short_term_lufs": s,
+        "short_term_interval_s": s_dt,
         "short_term_start_s": series.get("short_term_start_s", 3.0),
         "integrated_lufs": integrated,
         "target_lufs": None if delivery is None else delivery.get("target_lufs"),
@@ -295,8 +314,11 @@ def _room_response(plan: RenderPlan) -> tuple[np.ndarray, str] | None:
     """The binaural room response of the first non-LFE loudspeaker, in layout order."""
     if plan.room is None:
         return None
-    channels = [(speaker, ch) for ch, speaker in enumerate(plan.order)
-                if not plan.layout.speakers[speaker].lfe]
+    channels = [
+        (speaker, ch)
+        for ch, speaker in enumerate(plan.order)
+        if not plan.layout.speakers[speaker].lfe
+    ]
     if not channels:
         return None
     speaker, ch = min(channels)
@@ -304,15 +326,15 @@ def _room_response(plan: RenderPlan) -> tuple[np.ndarray, str] | None:
     if plan.tail is not None and plan.tail_weights is not None:
         length = max(ir.shape[-1], plan.tail_offset + plan.tail.shape[-1])
         full = np.zeros((2, length))
-        full[:, :ir.shape[-1]] = ir
-        full[:, plan.tail_offset:plan.tail_offset + plan.tail.shape[-1]] += (
-            float(plan.tail_weights[ch]) * plan.tail)
+        full[:, : ir.shape[-1]] = ir
+        full[:, plan.tail_offset : plan.tail_offset + plan.tail.shape[-1]] += (
+            float(plan.tail_weights[ch]) * plan.tail
+        )
         ir = full
     return ir, plan.layout.speakers[speaker].label
 
 
-def plot_section(plan: RenderPlan, output: str | os.PathLike[str],
-                 delivery: dict | None) -> dict:
+def plot_section(plan: RenderPlan, output: str | os.PathLike[str], delivery: dict | None) -> dict:
     """The report's ``plots`` section for a finished render.
 
     Parameters
@@ -336,8 +358,11 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str],
     info = probe_stem([output])
     spectrum = SpectrumMeter.for_length(info.samplerate, info.channels, info.frames)
     series = None if delivery is None else delivery.get("output", {}).get("series")
-    meter = None if series is not None else LoudnessMeter(info.samplerate, info.channels,
-                                                          measure_true_peak=False)
+    meter = (
+        None
+        if series is not None
+        else LoudnessMeter(info.samplerate, info.channels, measure_true_peak=False)
+    )
     with StemReader(info) as reader:
         for block in reader.blocks(_READ_FRAMES, reuse=True):
             spectrum.process(block)
@@ -346,7 +371,9 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str],
     if meter is not None:
         measured = meter.result()
         series = measured.to_dict()["series"]
-        integrated = None if measured.integrated_lufs is None else round(measured.integrated_lufs, 2)
+        integrated = (
+            None if measured.integrated_lufs is None else round(measured.integrated_lufs, 2)
+        )
     else:
         integrated = delivery["output"].get("integrated_lufs")
     bands = spectrum.band_levels()
@@ -354,17 +381,20 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str],
     decay = None
     if room is not None:
         ir, label = room
-        decay = {"what": f"binaural room response of {label!r}, both ears; Schroeder "
-                         "integration per octave band", "speaker": label,
-                 **energy_decay(ir, info.samplerate)}
+        decay = {
+            "what": f"binaural room response of {label!r}, both ears; Schroeder "
+            "integration per octave band",
+            "speaker": label,
+            **energy_decay(ir, info.samplerate),
+        }
     return {
         "loudness": _loudness(series, delivery, integrated),
         "spectra": {
             "what": "long-term average level per one-third-octave band (IEC 61260-1 "
-                    "centres), dB of mean square re full scale (a full-scale sine reads "
-                    "-3.01 dB); Welch, Hann, 50 % overlap, at most "
-                    f"{SPECTRUM_SEGMENTS} segments evenly spread",
-            "ears": ["left", "right"][:info.channels],
+            "centres), dB of mean square re full scale (a full-scale sine reads "
+            "-3.01 dB); Welch, Hann, 50 % overlap, at most "
+            f"{SPECTRUM_SEGMENTS} segments evenly spread",
+            "ears": ["left", "right"][: info.channels],
             "nfft": spectrum.nfft,
             "segments": spectrum._segments,
             **bands,

@@ -19,8 +19,8 @@ from .late_tail import (
 from .model import (
     BANDS_HZ,
     ROOMS,
-    Room,
     SURFACES,
+    Room,
     absorption_for_rt60,
     air_attenuation_db_per_km,
     eyring_rt60,

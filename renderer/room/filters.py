@@ -57,13 +57,13 @@ import scipy.fft
 from scipy import signal
 
 from ..defaults import SPEED_OF_SOUND
-from ..signals import minimum_phase_spectrum
+from ..errors import RoomError
 from ..hrtf import HrirSet
+from ..layouts import Layout
+from ..signals import minimum_phase_spectrum
 from .image_source import image_sources
 from .late_tail import DEFAULT_CROSSFADE_S, band_weights, diffuse_field, late_tail
-from ..layouts import Layout
 from .model import BANDS_HZ, Room
-from ..errors import RoomError
 
 __all__ = ["LEAD_SAMPLES", "RoomFilters", "build_room_filters", "exact_brirs", "measure_rt60"]
 
@@ -137,12 +137,11 @@ def _fit_decay(t: np.ndarray, edc_db: np.ndarray, top: float, bottom: float) -> 
     i0, i1 = int(below_top[0]), int(below_bottom[0])
     if i1 - i0 < 3:
         return None
-    slope = np.polyfit(t[i0:i1 + 1], edc_db[i0:i1 + 1], 1)[0]
+    slope = np.polyfit(t[i0 : i1 + 1], edc_db[i0 : i1 + 1], 1)[0]
     return float(-60.0 / slope) if slope < 0 else None
 
 
-def measure_rt60(ir: np.ndarray, samplerate: float,
-                 bands: tuple[float, ...] = BANDS_HZ) -> dict:
+def measure_rt60(ir: np.ndarray, samplerate: float, bands: tuple[float, ...] = BANDS_HZ) -> dict:
     """Reverberation times of an impulse response per octave band (ISO 3382-1).
 
     Each band is filtered with a 6th-order Butterworth band-pass from ``fc / sqrt(2)`` to
@@ -198,8 +197,9 @@ def measure_rt60(ir: np.ndarray, samplerate: float,
 
 
 def _check_rate(samplerate: float) -> float:
-    if isinstance(samplerate, bool) or not isinstance(samplerate, (int, float, np.integer,
-                                                                   np.floating)):
+    if isinstance(samplerate, bool) or not isinstance(
+        samplerate, (int, float, np.integer, np.floating)
+    ):
         raise RoomError(f"sampling rate must be a number of Hz, got {samplerate!r}")
     if not (math.isfinite(samplerate) and 8000 <= samplerate <= 384000):
         raise RoomError(f"sampling rate {samplerate!r} Hz is outside 8000..384000 Hz")
@@ -249,8 +249,11 @@ def build_room_filters(
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise RoomError(f"seed {seed!r} must be a non-negative integer")
     n_order = room.order if order is None else order
-    if isinstance(n_order, bool) or not isinstance(n_order, (int, np.integer)) \
-            or not 0 <= n_order <= 6:
+    if (
+        isinstance(n_order, bool)
+        or not isinstance(n_order, (int, np.integer))
+        or not 0 <= n_order <= 6
+    ):
         raise RoomError(f"image-source order {order!r} must be an integer from 0 to 6")
     if not (math.isfinite(crossfade_s) and 0 <= crossfade_s <= 0.1):
         raise RoomError(f"crossfade {crossfade_s!r} s must be 0 to 0.1 s")
@@ -262,8 +265,10 @@ def build_room_filters(
     if not active:
         raise RoomError(f"layout {layout.name!r} has only LFE channels; nothing to place in a room")
     distances = {i: (speakers[i].distance or room.speaker_radius) for i in active}
-    positions = {i: room.speaker_position(speakers[i].vector, distances[i],
-                                          label=speakers[i].label) for i in active}
+    positions = {
+        i: room.speaker_position(speakers[i].vector, distances[i], label=speakers[i].label)
+        for i in active
+    }
     r_ref = max(distances.values())
     bulk = max(0, int(math.floor(min(distances.values()) / c * fs)) - LEAD_SAMPLES)
     tail_offset = int(round((r_ref / c + room.mixing_time) * fs)) - bulk
@@ -286,10 +291,12 @@ def build_room_filters(
     def wall_filter(gains: np.ndarray) -> np.ndarray | float:
         key = tuple(np.round(gains, _GAIN_DECIMALS))
         if key not in filter_cache:
-            if np.ptp(gains) <= 10.0 ** -_GAIN_DECIMALS:
+            if np.ptp(gains) <= 10.0**-_GAIN_DECIMALS:
                 filter_cache[key] = float(gains[0])
             else:
-                filter_cache[key] = minimum_phase_spectrum(gains @ weights, nfft, floor=_MIN_MAGNITUDE)
+                filter_cache[key] = minimum_phase_spectrum(
+                    gains @ weights, nfft, floor=_MIN_MAGNITUDE
+                )
         return filter_cache[key]
 
     early = np.zeros((len(speakers), 2, early_len))
@@ -300,12 +307,15 @@ def build_room_filters(
     max_path = (window_end + bulk) / fs * c
     uncovered_total = 0
     for i in active:
-        images = image_sources(room, positions[i], order=int(n_order), reference_distance=r_ref,
-                               max_distance=max_path)
+        images = image_sources(
+            room, positions[i], order=int(n_order), reference_distance=r_ref, max_distance=max_path
+        )
         groups: dict[tuple, list[int]] = {}
         for k in range(images.count):
-            if k > 0 and (images.delays[k] * fs - bulk >= window_end
-                          or images.band_gains[k].max() < 10.0 ** -_GAIN_DECIMALS):
+            if k > 0 and (
+                images.delays[k] * fs - bulk >= window_end
+                or images.band_gains[k].max() < 10.0**-_GAIN_DECIMALS
+            ):
                 continue  # arrives after the crossfade, or a wall with absorption 1 took it
             key = tuple(np.round(images.band_gains[k], _GAIN_DECIMALS))
             groups.setdefault(key if k > 0 else ("direct",) + key, []).append(k)
@@ -329,18 +339,21 @@ def build_room_filters(
         direct = np.fft.irfft(direct_spec, n=nfft, axis=-1)[:, :early_len]
         reflected = np.fft.irfft(reflected_spec, n=nfft, axis=-1)[:, :early_len] * fade_window
         early[i] = direct + reflected
-        direct_energy[i] = float(np.sum(direct ** 2))
-        reflected_energy[i] = float(np.sum(reflected ** 2))
+        direct_energy[i] = float(np.sum(direct**2))
+        reflected_energy[i] = float(np.sum(reflected**2))
         used = sum(len(m) for key, m in groups.items() if key[0] != "direct")
-        per_speaker.append({
-            "label": speakers[i].label,
-            "distance_m": round(distances[i], 4),
-            "position_m": [round(float(v), 4) for v in positions[i]],
-            "direct_arrival_samples": round(arrival_direct[i], 3),
-            "reflections": used,
-            "image_sources_complete_until_ms": round(
-                (images.complete_distance - distances[i]) / c * 1e3, 3),
-        })
+        per_speaker.append(
+            {
+                "label": speakers[i].label,
+                "distance_m": round(distances[i], 4),
+                "position_m": [round(float(v), 4) for v in positions[i]],
+                "direct_arrival_samples": round(arrival_direct[i], 3),
+                "reflections": used,
+                "image_sources_complete_until_ms": round(
+                    (images.complete_distance - distances[i]) / c * 1e3, 3
+                ),
+            }
+        )
 
     if uncovered_total:
         warnings.append(
@@ -351,17 +364,24 @@ def build_room_filters(
     seq = np.random.SeedSequence([int(seed), int(room.seed)])
     rng = np.random.Generator(np.random.PCG64(seq))
     diffuse = diffuse_field(hset, np.fft.rfftfreq(4096, 1.0 / fs))
-    tail = late_tail(room, fs, (tail_offset + bulk) / fs, reference_distance=r_ref,
-                     diffuse=diffuse, rng=rng, crossfade_s=crossfade_s,
-                     max_seconds=max_tail_seconds)
+    tail = late_tail(
+        room,
+        fs,
+        (tail_offset + bulk) / fs,
+        reference_distance=r_ref,
+        diffuse=diffuse,
+        rng=rng,
+        crossfade_s=crossfade_s,
+        max_seconds=max_tail_seconds,
+    )
     tail_weights = np.array([0.0 if s.lfe else 1.0 for s in speakers])
-    tail_energy = float(np.sum(tail ** 2))
+    tail_energy = float(np.sum(tail**2))
     t_built = time.perf_counter()
 
     first = active[0]
     full = np.zeros((2, max(early_len, tail_offset + tail.shape[-1])))
     full[:, :early_len] = early[first]
-    full[:, tail_offset:tail_offset + tail.shape[-1]] += tail
+    full[:, tail_offset : tail_offset + tail.shape[-1]] += tail
     measured = measure_rt60(full, fs)
     for entry, i in zip(per_speaker, active):
         rev = reflected_energy[i] + tail_energy
@@ -384,21 +404,28 @@ def build_room_filters(
         "rt60_requested_s": [round(float(t), 4) for t in room.rt60],
         "rt60_measured": {
             "what": f"whole response of {speakers[first].label!r}, both ears; Schroeder "
-                    "integration, ISO 3382-1 fits",
+            "integration, ISO 3382-1 fits",
             "bands_hz": measured["bands_hz"],
-            **{key: [None if v is None else round(v, 4) for v in measured[key]]
-               for key in ("edt_s", "t20_s", "t30_s")},
+            **{
+                key: [None if v is None else round(v, 4) for v in measured[key]]
+                for key in ("edt_s", "t20_s", "t30_s")
+            },
         },
         "diffuse_field": diffuse.method,
-        "coherence_at_bands": [round(float(np.interp(b, diffuse.freqs, diffuse.coherence)), 3)
-                               for b in BANDS_HZ],
+        "coherence_at_bands": [
+            round(float(np.interp(b, diffuse.freqs, diffuse.coherence)), 3) for b in BANDS_HZ
+        ],
         "wall_filters": len(filter_cache),
         "speakers": per_speaker,
         "lfe": "rows left at zero, tail weight 0: the render adds its LFE path",
         "build_seconds": round(t_built - t_start, 3),
         "warnings": warnings,
     }
-    return RoomFilters(early=early, tail=tail, tail_offset=tail_offset, tail_weights=tail_weights,
-                       report=report, samplerate=fs)
-
-
+    return RoomFilters(
+        early=early,
+        tail=tail,
+        tail_offset=tail_offset,
+        tail_weights=tail_weights,
+        report=report,
+        samplerate=fs,
+    )

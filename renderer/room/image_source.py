@@ -27,9 +27,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .model import SURFACES, Room, air_attenuation_db_per_km
 from ..defaults import SPEED_OF_SOUND
 from ..errors import RoomError
+from .model import SURFACES, Room, air_attenuation_db_per_km
 
 __all__ = ["ImageSources", "image_sources"]
 
@@ -83,8 +83,17 @@ class ImageSources:
     complete_distance: float
 
     def __post_init__(self) -> None:
-        for name in ("positions", "orders", "hits", "distances", "delays", "spreading",
-                     "reflection", "air", "directions"):
+        for name in (
+            "positions",
+            "orders",
+            "hits",
+            "distances",
+            "delays",
+            "spreading",
+            "reflection",
+            "air",
+            "directions",
+        ):
             getattr(self, name).setflags(write=False)
 
     @property

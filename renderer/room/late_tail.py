@@ -52,9 +52,9 @@ import scipy.fft
 from scipy.spatial import QhullError, SphericalVoronoi
 
 from ..defaults import SPEED_OF_SOUND
+from ..errors import RoomError
 from ..hrtf import HrirSet
 from .model import BANDS_HZ, Room
-from ..errors import RoomError
 
 __all__ = [
     "BAND_TRANSITION_OCTAVES",
@@ -166,8 +166,9 @@ class DiffuseField:
     method: str
 
 
-def sphere_coherence(freqs: np.ndarray, distance: float = EAR_DISTANCE,
-                     speed_of_sound: float = SPEED_OF_SOUND) -> np.ndarray:
+def sphere_coherence(
+    freqs: np.ndarray, distance: float = EAR_DISTANCE, speed_of_sound: float = SPEED_OF_SOUND
+) -> np.ndarray:
     """Coherence ``sin(kd) / (kd)`` of two points ``d`` apart in a 3-D diffuse field.
 
     Cook, Waterhouse, Berendt, Edelman and Thompson (1955), JASA 27, 1072 (from memory).
@@ -219,8 +220,8 @@ def diffuse_field(hset: HrirSet, freqs: np.ndarray) -> DiffuseField:
     power = np.zeros((2, len(grid)))
     cross = np.zeros(len(grid))
     for start in range(0, hset.measurements, _SPECTRA_CHUNK):
-        spectra = np.fft.rfft(hset.ir[start:start + _SPECTRA_CHUNK], n=nfft, axis=-1)
-        wk = w[start:start + _SPECTRA_CHUNK]
+        spectra = np.fft.rfft(hset.ir[start : start + _SPECTRA_CHUNK], n=nfft, axis=-1)
+        wk = w[start : start + _SPECTRA_CHUNK]
         power += np.einsum("m,mef->ef", wk, np.abs(spectra) ** 2)
         cross += np.einsum("m,mf->f", wk, (spectra[:, 0] * np.conj(spectra[:, 1])).real)
     power_f = np.stack([np.interp(f, grid, power[e]) for e in range(2)])
@@ -263,9 +264,9 @@ def _flatten_envelope(band: np.ndarray, centre: float, fs: float) -> np.ndarray:
     hann = np.hanning(taps + 2)[1:-1]
     window[:taps] = hann / hann.sum()
     window = np.roll(window, -(taps // 2))  # centred: a zero-phase smoother
-    power = np.fft.irfft(np.fft.rfft(band ** 2, axis=-1) * np.fft.rfft(window), n=nfft, axis=-1)
+    power = np.fft.irfft(np.fft.rfft(band**2, axis=-1) * np.fft.rfft(window), n=nfft, axis=-1)
     power = np.maximum(power, 1e-30)
-    mean = np.mean(band ** 2, axis=-1, keepdims=True)
+    mean = np.mean(band**2, axis=-1, keepdims=True)
     return band * np.sqrt(mean / power)
 
 
@@ -330,18 +331,20 @@ def late_tail(
         gain = np.ones((2, freqs.size))
         coherence = np.ones(freqs.size)
     else:
-        gain = np.sqrt(np.stack([np.interp(freqs, diffuse.freqs, diffuse.power[e])
-                                 for e in range(2)]))
+        gain = np.sqrt(
+            np.stack([np.interp(freqs, diffuse.freqs, diffuse.power[e]) for e in range(2)])
+        )
         coherence = np.interp(freqs, diffuse.freqs, diffuse.coherence)
     a = np.sqrt(0.5 * (1.0 + coherence))
     b = np.sqrt(np.maximum(0.5 * (1.0 - coherence), 0.0))
-    ears = np.stack([gain[0] * (a * spectra[0] + b * spectra[1]),
-                     gain[1] * (a * spectra[0] - b * spectra[1])])
+    ears = np.stack(
+        [gain[0] * (a * spectra[0] + b * spectra[1]), gain[1] * (a * spectra[0] - b * spectra[1])]
+    )
 
     weights = band_weights(freqs)
     t = start_s + np.arange(n) / fs
     tau = room.rt60 / (6.0 * math.log(10.0))  # energy decay constant, s
-    level = np.sqrt(16.0 * math.pi * reference_distance ** 2 / (room.room_constant * fs * tau))
+    level = np.sqrt(16.0 * math.pi * reference_distance**2 / (room.room_constant * fs * tau))
     out = np.zeros((2, n))
     for k, centre in enumerate(BANDS_HZ):
         if not np.any(weights[k]):
@@ -354,5 +357,5 @@ def late_tail(
         out[:, :fade_in] *= np.sin(0.5 * np.pi * (np.arange(fade_in) + 0.5) / fade_in)
     fade_out = min(int(round(TAIL_FADE_OUT_S * fs)), n - fade_in)
     if fade_out > 0:
-        out[:, n - fade_out:] *= np.cos(0.5 * np.pi * (np.arange(fade_out) + 0.5) / fade_out)
+        out[:, n - fade_out :] *= np.cos(0.5 * np.pi * (np.arange(fade_out) + 0.5) / fade_out)
     return out

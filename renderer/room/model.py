@@ -72,8 +72,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..defaults import SPEED_OF_SOUND
-from ..errors import RendererError, RoomError
+from ..errors import RoomError
 from ..files import read_json_file
 
 __all__ = [
@@ -94,8 +93,6 @@ __all__ = [
     "room_from_dict",
     "sabine_rt60",
 ]
-
-
 
 
 BANDS_HZ: tuple[float, ...] = (125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0, 8000.0)
@@ -146,8 +143,19 @@ MAX_MIXING_TIME_MS = 500.0
 MAX_ROOM_FILE_BYTES = 1 << 16
 """Largest room JSON file read (64 KiB; a room needs about one)."""
 
-_ROOM_KEYS = ("name", "description", "dimensions", "listener", "speaker_radius",
-              "absorption", "rt60", "air_absorption", "order", "mixing_time_ms", "seed")
+_ROOM_KEYS = (
+    "name",
+    "description",
+    "dimensions",
+    "listener",
+    "speaker_radius",
+    "absorption",
+    "rt60",
+    "air_absorption",
+    "order",
+    "mixing_time_ms",
+    "seed",
+)
 _LISTENER_KEYS = ("to_front_wall", "to_left_wall", "ear_height")
 
 
@@ -173,14 +181,19 @@ def air_attenuation_db_per_km(
     t0, t01 = 293.15, 273.16
     pa = pressure_kpa / 101.325
     c_sat = -6.8346 * (t01 / t) ** 1.261 + 4.6151
-    h = humidity_percent * 10.0 ** c_sat / pa
+    h = humidity_percent * 10.0**c_sat / pa
     fr_o = pa * (24.0 + 4.04e4 * h * (0.02 + h) / (0.391 + h))
     fr_n = pa * (t / t0) ** -0.5 * (9.0 + 280.0 * h * np.exp(-4.170 * ((t / t0) ** (-1 / 3) - 1)))
-    alpha = 8.686 * f ** 2 * (
-        1.84e-11 / pa * (t / t0) ** 0.5
-        + (t / t0) ** -2.5 * (
-            0.01275 * np.exp(-2239.1 / t) / (fr_o + f ** 2 / fr_o)
-            + 0.1068 * np.exp(-3352.0 / t) / (fr_n + f ** 2 / fr_n)
+    alpha = (
+        8.686
+        * f**2
+        * (
+            1.84e-11 / pa * (t / t0) ** 0.5
+            + (t / t0) ** -2.5
+            * (
+                0.01275 * np.exp(-2239.1 / t) / (fr_o + f**2 / fr_o)
+                + 0.1068 * np.exp(-3352.0 / t) / (fr_n + f**2 / fr_n)
+            )
         )
     )
     return alpha * 1000.0
@@ -193,15 +206,23 @@ AIR_M_PER_METRE: tuple[float, ...] = tuple(
 )
 
 
-def sabine_rt60(volume: float, surface: float, mean_absorption: np.ndarray | float,
-                air_m: np.ndarray | float = 0.0) -> np.ndarray:
+def sabine_rt60(
+    volume: float,
+    surface: float,
+    mean_absorption: np.ndarray | float,
+    air_m: np.ndarray | float = 0.0,
+) -> np.ndarray:
     """Sabine's reverberation time ``0.161 V / (S alpha + 4 m V)`` in seconds."""
     a = np.asarray(mean_absorption, dtype=float)
     return SABINE_CONSTANT * volume / (surface * a + 4.0 * np.asarray(air_m) * volume)
 
 
-def eyring_rt60(volume: float, surface: float, mean_absorption: np.ndarray | float,
-                air_m: np.ndarray | float = 0.0) -> np.ndarray:
+def eyring_rt60(
+    volume: float,
+    surface: float,
+    mean_absorption: np.ndarray | float,
+    air_m: np.ndarray | float = 0.0,
+) -> np.ndarray:
     """Eyring's reverberation time ``0.161 V / (-S ln(1 - alpha) + 4 m V)`` in seconds."""
     a = np.asarray(mean_absorption, dtype=float)
     with np.errstate(divide="ignore"):
@@ -216,13 +237,22 @@ def polack_mixing_time(volume: float) -> float:
 
 def _box(dimensions: Sequence[float]) -> tuple[float, float, np.ndarray]:
     length, width, height = dimensions
-    areas = np.array([width * height, width * height, length * height, length * height,
-                      length * width, length * width])
+    areas = np.array(
+        [
+            width * height,
+            width * height,
+            length * height,
+            length * height,
+            length * width,
+            length * width,
+        ]
+    )
     return length * width * height, float(areas.sum()), areas
 
 
-def absorption_for_rt60(dimensions: Sequence[float], rt60: Sequence[float] | np.ndarray, *,
-                        air_absorption: bool = False) -> np.ndarray:
+def absorption_for_rt60(
+    dimensions: Sequence[float], rt60: Sequence[float] | np.ndarray, *, air_absorption: bool = False
+) -> np.ndarray:
     """Uniform absorption per band that gives ``rt60`` by Eyring's formula.
 
     ``alpha = 1 - exp(-(0.161 V / T - 4 m V) / S)``, the inverse of :func:`eyring_rt60`.
@@ -334,8 +364,11 @@ class Room:
                 f"{where}absorption {float(alpha[s, b])!r} of the {SURFACES[s]} at "
                 f"{BANDS_HZ[b]:g} Hz is outside 0..1"
             )
-        if not (isinstance(self.order, (int, np.integer)) and not isinstance(self.order, bool)
-                and 0 <= self.order <= MAX_ORDER):
+        if not (
+            isinstance(self.order, (int, np.integer))
+            and not isinstance(self.order, bool)
+            and 0 <= self.order <= MAX_ORDER
+        ):
             raise RoomError(f"{where}order {self.order!r} must be an integer from 0 to {MAX_ORDER}")
         if not (_is_number(self.speaker_radius) and 0 < self.speaker_radius <= max(dims)):
             raise RoomError(
@@ -343,14 +376,18 @@ class Room:
                 f"metres, no longer than the room ({max(dims):g} m)"
             )
         if self.mixing_time_ms is not None and not (
-                _is_number(self.mixing_time_ms)
-                and MIN_MIXING_TIME_MS <= self.mixing_time_ms <= MAX_MIXING_TIME_MS):
+            _is_number(self.mixing_time_ms)
+            and MIN_MIXING_TIME_MS <= self.mixing_time_ms <= MAX_MIXING_TIME_MS
+        ):
             raise RoomError(
                 f"{where}mixing_time_ms {self.mixing_time_ms!r} must be {MIN_MIXING_TIME_MS:g} "
                 f"to {MAX_MIXING_TIME_MS:g} ms, or left out for sqrt(V) ms"
             )
-        if not (isinstance(self.seed, (int, np.integer)) and not isinstance(self.seed, bool)
-                and self.seed >= 0):
+        if not (
+            isinstance(self.seed, (int, np.integer))
+            and not isinstance(self.seed, bool)
+            and self.seed >= 0
+        ):
             raise RoomError(f"{where}seed {self.seed!r} must be a non-negative integer")
         object.__setattr__(self, "dimensions", dims)
         object.__setattr__(self, "listener", pos)
@@ -397,8 +434,9 @@ class Room:
         """Area (m2) of each surface, in :data:`SURFACES` order."""
         return _box(self.dimensions)[2]
 
-    def speaker_position(self, direction: np.ndarray, distance: float | None = None, *,
-                         label: str = "loudspeaker") -> np.ndarray:
+    def speaker_position(
+        self, direction: np.ndarray, distance: float | None = None, *, label: str = "loudspeaker"
+    ) -> np.ndarray:
         """Room coordinates of a loudspeaker at ``direction`` (listener frame).
 
         Parameters
@@ -497,8 +535,11 @@ class Room:
             "dimensions_m": {"length": length, "width": width, "height": height},
             "volume_m3": round(self.volume, 3),
             "surface_m2": round(self.surface_area, 3),
-            "listener": {"to_front_wall": round(length - x, 4), "to_left_wall": round(width - y, 4),
-                         "ear_height": round(z, 4)},
+            "listener": {
+                "to_front_wall": round(length - x, 4),
+                "to_left_wall": round(width - y, 4),
+                "ear_height": round(z, 4),
+            },
             "speaker_radius_m": self.speaker_radius,
             "bands_hz": list(BANDS_HZ),
             "absorption": {s: list(row) for s, row in zip(SURFACES, self.absorption)},
@@ -509,7 +550,8 @@ class Room:
             "rt60_used": "eyring",
             "air_absorption": self.air_absorption,
             "air_attenuation_db_per_km": r(air_attenuation_db_per_km(), 3)
-            if self.air_absorption else None,
+            if self.air_absorption
+            else None,
             "order": self.order,
             "mixing_time_ms": round(self.mixing_time * 1e3, 3),
             "mixing_time_from": "given" if self.mixing_time_ms is not None else "Polack sqrt(V) ms",
@@ -519,13 +561,19 @@ class Room:
 
 
 def _is_number(value: object) -> bool:
-    return (isinstance(value, (int, float, np.integer, np.floating))
-            and not isinstance(value, bool) and math.isfinite(value))
+    return (
+        isinstance(value, (int, float, np.integer, np.floating))
+        and not isinstance(value, bool)
+        and math.isfinite(value)
+    )
 
 
 def _inside(pos: np.ndarray, dims: Sequence[float], clearance: float) -> bool:
-    return bool(np.all(np.isfinite(pos)) and np.all(pos >= clearance)
-                and np.all(pos <= np.asarray(dims) - clearance))
+    return bool(
+        np.all(np.isfinite(pos))
+        and np.all(pos >= clearance)
+        and np.all(pos <= np.asarray(dims) - clearance)
+    )
 
 
 def _fmt(values: Sequence[float]) -> str:
@@ -611,16 +659,18 @@ def room_from_dict(data: Mapping, *, name: str = "custom", origin: str | None = 
         raise RoomError(
             f"{_where(origin)}'dimensions' must be [length, width, height] in metres, got {dims!r}"
         )
-    length, width, height = (_number(v, f"dimension {k}", origin)
-                             for v, k in zip(dims, ("length", "width", "height")))
+    length, width, height = (
+        _number(v, f"dimension {k}", origin) for v, k in zip(dims, ("length", "width", "height"))
+    )
     for value, what in ((length, "length"), (width, "width"), (height, "height")):
         if not MIN_DIMENSION <= value <= MAX_DIMENSION:
             raise RoomError(
                 f"{_where(origin)}room {what} {value!r} m is out of range; give "
                 f"{MIN_DIMENSION:g} to {MAX_DIMENSION:g} m"
             )
-    listener = data.get("listener", {"to_front_wall": length / 2, "to_left_wall": width / 2,
-                                     "ear_height": 1.2})
+    listener = data.get(
+        "listener", {"to_front_wall": length / 2, "to_left_wall": width / 2, "ear_height": 1.2}
+    )
     if not isinstance(listener, Mapping):
         raise RoomError(
             f"{_where(origin)}'listener' must be an object with {', '.join(_LISTENER_KEYS)}, "
@@ -666,8 +716,9 @@ def room_from_dict(data: Mapping, *, name: str = "custom", origin: str | None = 
                 f"{_where(origin)}absorption is missing {', '.join(missing)}; every surface "
                 f"({', '.join(SURFACES)}) needs a value"
             )
-        absorption = tuple(tuple(_per_band(raw[s], f"absorption of the {s}", origin))
-                           for s in SURFACES)
+        absorption = tuple(
+            tuple(_per_band(raw[s], f"absorption of the {s}", origin)) for s in SURFACES
+        )
 
     options: dict = {}
     if "speaker_radius" in data:
@@ -681,9 +732,16 @@ def room_from_dict(data: Mapping, *, name: str = "custom", origin: str | None = 
                 raise RoomError(f"{_where(origin)}{key} must be an integer, got {value!r}")
             options[key] = value
     try:
-        return Room(name=texts["name"], dimensions=(length, width, height), listener=position,
-                    absorption=absorption, air_absorption=air, description=texts["description"],
-                    rt60_target=rt60_target, **options)
+        return Room(
+            name=texts["name"],
+            dimensions=(length, width, height),
+            listener=position,
+            absorption=absorption,
+            air_absorption=air,
+            description=texts["description"],
+            rt60_target=rt60_target,
+            **options,
+        )
     except RoomError as exc:
         raise RoomError(f"{_where(origin)}{exc}") from None
 
@@ -706,13 +764,24 @@ def load_room_file(path: str | os.PathLike) -> Room:
 # -- presets -----------------------------------------------------------------------------
 
 
-def _preset(name: str, description: str, dims: tuple[float, float, float], to_front: float,
-            radius: float, *, absorption: Mapping[str, Sequence[float]] | None = None,
-            rt60: Sequence[float] | None = None, air: bool = False) -> Room:
+def _preset(
+    name: str,
+    description: str,
+    dims: tuple[float, float, float],
+    to_front: float,
+    radius: float,
+    *,
+    absorption: Mapping[str, Sequence[float]] | None = None,
+    rt60: Sequence[float] | None = None,
+    air: bool = False,
+) -> Room:
     data: dict = {
-        "name": name, "description": description, "dimensions": list(dims),
+        "name": name,
+        "description": description,
+        "dimensions": list(dims),
         "listener": {"to_front_wall": to_front, "to_left_wall": dims[1] / 2, "ear_height": 1.2},
-        "speaker_radius": radius, "air_absorption": air,
+        "speaker_radius": radius,
+        "air_absorption": air,
     }
     if absorption is not None:
         data["absorption"] = {k: list(v) for k, v in absorption.items()}
@@ -724,34 +793,49 @@ def _preset(name: str, description: str, dims: tuple[float, float, float], to_fr
 # Absorption of the treated surfaces: typical values for the kind of treatment named
 # (panel absorbers, bass traps, carpet on concrete, plasterboard), common practice, tuned
 # so that Eyring's formula gives the room the time in the docstring.
-ROOMS: Mapping[str, Room] = types.MappingProxyType({
-    "small": _preset(
-        "small", "compact control room, treated front and rear walls, absorbing ceiling cloud",
-        (4.6, 3.9, 2.9), 1.9, 1.4,
-        absorption={
-            "front": (0.40, 0.45, 0.40, 0.35, 0.30, 0.30, 0.28),
-            "back": (0.45, 0.50, 0.50, 0.45, 0.40, 0.38, 0.35),
-            "left": (0.12, 0.12, 0.15, 0.17, 0.18, 0.18, 0.18),
-            "right": (0.12, 0.12, 0.15, 0.17, 0.18, 0.18, 0.18),
-            "floor": (0.04, 0.07, 0.18, 0.32, 0.45, 0.50, 0.50),
-            "ceiling": (0.40, 0.45, 0.48, 0.48, 0.48, 0.48, 0.48),
-        }),
-    "medium": _preset(
-        "medium", "mixing room, partly treated plasterboard walls and carpet",
-        (7.4, 5.8, 3.4), 2.8, 2.0,
-        absorption={
-            "front": (0.30, 0.38, 0.42, 0.40, 0.36, 0.34, 0.30),
-            "back": (0.32, 0.40, 0.45, 0.42, 0.38, 0.35, 0.30),
-            "left": (0.14, 0.13, 0.13, 0.15, 0.16, 0.16, 0.15),
-            "right": (0.14, 0.13, 0.13, 0.15, 0.16, 0.16, 0.15),
-            "floor": (0.05, 0.06, 0.10, 0.20, 0.30, 0.35, 0.35),
-            "ceiling": (0.25, 0.30, 0.32, 0.32, 0.32, 0.30, 0.28),
-        }),
-    "large": _preset(
-        "large", "hall with a long, warm decay; air absorption on",
-        (32.0, 22.0, 13.0), 12.0, 2.2,
-        rt60=(2.3, 2.1, 1.95, 1.9, 1.75, 1.5, 1.1), air=True),
-})
+ROOMS: Mapping[str, Room] = types.MappingProxyType(
+    {
+        "small": _preset(
+            "small",
+            "compact control room, treated front and rear walls, absorbing ceiling cloud",
+            (4.6, 3.9, 2.9),
+            1.9,
+            1.4,
+            absorption={
+                "front": (0.40, 0.45, 0.40, 0.35, 0.30, 0.30, 0.28),
+                "back": (0.45, 0.50, 0.50, 0.45, 0.40, 0.38, 0.35),
+                "left": (0.12, 0.12, 0.15, 0.17, 0.18, 0.18, 0.18),
+                "right": (0.12, 0.12, 0.15, 0.17, 0.18, 0.18, 0.18),
+                "floor": (0.04, 0.07, 0.18, 0.32, 0.45, 0.50, 0.50),
+                "ceiling": (0.40, 0.45, 0.48, 0.48, 0.48, 0.48, 0.48),
+            },
+        ),
+        "medium": _preset(
+            "medium",
+            "mixing room, partly treated plasterboard walls and carpet",
+            (7.4, 5.8, 3.4),
+            2.8,
+            2.0,
+            absorption={
+                "front": (0.30, 0.38, 0.42, 0.40, 0.36, 0.34, 0.30),
+                "back": (0.32, 0.40, 0.45, 0.42, 0.38, 0.35, 0.30),
+                "left": (0.14, 0.13, 0.13, 0.15, 0.16, 0.16, 0.15),
+                "right": (0.14, 0.13, 0.13, 0.15, 0.16, 0.16, 0.15),
+                "floor": (0.05, 0.06, 0.10, 0.20, 0.30, 0.35, 0.35),
+                "ceiling": (0.25, 0.30, 0.32, 0.32, 0.32, 0.30, 0.28),
+            },
+        ),
+        "large": _preset(
+            "large",
+            "hall with a long, warm decay; air absorption on",
+            (32.0, 22.0, 13.0),
+            12.0,
+            2.2,
+            rt60=(2.3, 2.1, 1.95, 1.9, 1.75, 1.5, 1.1),
+            air=True,
+        ),
+    }
+)
 """The preset rooms by CLI name (see the module docstring for their figures)."""
 
 

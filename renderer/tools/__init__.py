@@ -1,5 +1,4 @@
-"""Commands built on the renderer: the benchmark, the demo, SOFA inspection.
-"""
+"""Commands built on the renderer: the benchmark, the demo, SOFA inspection."""
 
 from __future__ import annotations
 

@@ -71,8 +71,13 @@ def _rss_bytes() -> int:
         return _maxrss_bytes()
 
 
-def make_noise_stem(path: str | os.PathLike, channels: int, seconds: float,
-                    samplerate: int = BENCH_SAMPLERATE, seed: int = 1) -> None:
+def make_noise_stem(
+    path: str | os.PathLike,
+    channels: int,
+    seconds: float,
+    samplerate: int = BENCH_SAMPLERATE,
+    seed: int = 1,
+) -> None:
     """Write a white-noise stem at -20 dBFS RMS per channel, in blocks."""
     from ..io import OutputWriter
 
@@ -101,8 +106,9 @@ def _case_ours(stem: str, layout: str, out: str, room: str) -> dict:
     return {"seconds": report["timings_s"]["render"], "block_size": report["engine"]["block_size"]}
 
 
-def _case_delivered(stem: str, layout: str, out: str, room: str,
-                    loudness: float | None = None) -> dict:
+def _case_delivered(
+    stem: str, layout: str, out: str, room: str, loudness: float | None = None
+) -> dict:
     import dataclasses
 
     from ..render import render
@@ -112,8 +118,10 @@ def _case_delivered(stem: str, layout: str, out: str, room: str,
         settings = dataclasses.replace(settings, loudness=loudness)
     report = render([stem], out, settings)
     t = report["timings_s"]
-    return {"seconds": t["render"] + t["delivery"],
-            "samples_limited": report["delivery"]["limiter"]["samples_limited"]}
+    return {
+        "seconds": t["render"] + t["delivery"],
+        "samples_limited": report["delivery"]["limiter"]["samples_limited"],
+    }
 
 
 def _case_ours_exact(stem: str, layout: str, out: str, room: str) -> dict:
@@ -124,8 +132,8 @@ def _case_ours_exact(stem: str, layout: str, out: str, room: str) -> dict:
 
 
 def _case_baseline(stem: str, layout: str, out: str, room: str) -> dict:
-    from ..io import read_audio, write_audio
     from ..engine import convolve_reference
+    from ..io import read_audio, write_audio
     from ..render import plan_render
 
     # With a room the baseline convolves the full room response of every loudspeaker.
@@ -138,17 +146,20 @@ def _case_baseline(stem: str, layout: str, out: str, room: str) -> dict:
 
 
 def _case_io_floor(stem: str, layout: str, out: str, room: str) -> dict:
-    from ..io import OutputWriter, StemReader
     from ..engine import DEFAULT_BLOCK_SIZE
+    from ..io import OutputWriter, StemReader
     from ..render import plan_render
 
     plan = plan_render([stem], _settings(layout, room))
     info = plan.stem
     tail = plan.length - 1
     t0 = time.perf_counter()
-    with StemReader(info) as reader, OutputWriter(
-        out, info.samplerate, 2, subtype="PCM_24", frames_hint=info.frames + tail
-    ) as writer:
+    with (
+        StemReader(info) as reader,
+        OutputWriter(
+            out, info.samplerate, 2, subtype="PCM_24", frames_hint=info.frames + tail
+        ) as writer,
+    ):
         for block in reader.blocks(DEFAULT_BLOCK_SIZE):
             # Two of the input's channels stand in for the ears: same size, same entropy.
             writer.write(block[:, :2] if block.shape[1] >= 2 else np.repeat(block, 2, axis=1))
@@ -190,7 +201,7 @@ def interleaved(variants: dict[str, Callable[[], dict]], rounds: int) -> dict[st
     names = list(variants)
     runs: dict[str, list[dict]] = {name: [] for name in names}
     for i in range(rounds):
-        for name in (names if i % 2 == 0 else names[::-1]):
+        for name in names if i % 2 == 0 else names[::-1]:
             runs[name].append(variants[name]())
     return runs
 
@@ -201,8 +212,10 @@ def round_ratios(runs: list[dict], reference: list[dict]) -> list[float]:
 
 
 def _summary(runs: list[dict], reference: list[dict] | None = None) -> dict:
-    out = {"seconds": min(r["seconds"] for r in runs),
-           "all_seconds": [round(r["seconds"], 4) for r in runs]}
+    out = {
+        "seconds": min(r["seconds"] for r in runs),
+        "all_seconds": [round(r["seconds"], 4) for r in runs],
+    }
     if "plan_seconds" in runs[0]:
         out["plan_seconds"] = min(r["plan_seconds"] for r in runs)
     if reference is not None:
@@ -214,17 +227,23 @@ def _summary(runs: list[dict], reference: list[dict] | None = None) -> dict:
 
 def _case_eq_pair(stem: str, layout: str, out: str, room: str) -> dict:
     # The one-off preparation: planning from a cold cache, once each, with the render.
-    cold = {eq: _case_eq(stem, layout, out, room, eq, cold=True)
-            for eq in ("none", "diffuse-field")}
+    cold = {
+        eq: _case_eq(stem, layout, out, room, eq, cold=True) for eq in ("none", "diffuse-field")
+    }
     # Then the render passes with both sets prepared, as a process holds them (cached per
     # set and rate): the equalisation is precomputed, and what is left to compare is its
     # effect on the render itself.
-    runs = interleaved({
-        "off": lambda: _case_eq(stem, layout, out, room, "none"),
-        "on": lambda: _case_eq(stem, layout, out, room, "diffuse-field"),
-    }, EQ_ROUNDS)
-    on = {**_summary(runs["on"], runs["off"]),
-          "plan_seconds": cold["diffuse-field"]["plan_seconds"]}
+    runs = interleaved(
+        {
+            "off": lambda: _case_eq(stem, layout, out, room, "none"),
+            "on": lambda: _case_eq(stem, layout, out, room, "diffuse-field"),
+        },
+        EQ_ROUNDS,
+    )
+    on = {
+        **_summary(runs["on"], runs["off"]),
+        "plan_seconds": cold["diffuse-field"]["plan_seconds"],
+    }
     off = {**_summary(runs["off"]), "plan_seconds": cold["none"]["plan_seconds"]}
     return {**on, "off": off, "engine": _eq_engine_work(stem, layout, room)}
 
@@ -247,12 +266,14 @@ def _eq_engine_work(stem: str, layout: str, room: str) -> dict:
     import dataclasses
 
     from ..io import StemReader
-    from ..render._render import _Engine
     from ..render import plan_render
+    from ..render._render import _Engine
 
     settings = _settings(layout, room)
-    plans = {eq: plan_render([stem], dataclasses.replace(settings, eq=eq))
-             for eq in ("none", "diffuse-field")}
+    plans = {
+        eq: plan_render([stem], dataclasses.replace(settings, eq=eq))
+        for eq in ("none", "diffuse-field")
+    }
     limit = int(EQ_ENGINE_SECONDS * BENCH_SAMPLERATE)
     blocks = []
     with StemReader(plans["none"].stem) as reader:
@@ -273,38 +294,56 @@ def _eq_engine_work(stem: str, layout: str, room: str) -> dict:
             engine.close()
         return {"seconds": sum(times), "blocks": times}
 
-    runs = interleaved({"off": lambda: run("none"), "on": lambda: run("diffuse-field")},
-                       EQ_ENGINE_ROUNDS)
+    runs = interleaved(
+        {"off": lambda: run("none"), "on": lambda: run("diffuse-field")}, EQ_ENGINE_ROUNDS
+    )
     best = {k: float(np.min([r["blocks"] for r in v], axis=0).sum()) for k, v in runs.items()}
-    return {"blocks": len(blocks), "rounds": EQ_ENGINE_ROUNDS,
-            "off_seconds": round(best["off"], 5), "on_seconds": round(best["on"], 5),
-            "ratio": best["on"] / best["off"]}
+    return {
+        "blocks": len(blocks),
+        "rounds": EQ_ENGINE_ROUNDS,
+        "off_seconds": round(best["off"], 5),
+        "on_seconds": round(best["on"], 5),
+        "ratio": best["on"] / best["off"],
+    }
 
 
 def _case_delivery(stem: str, layout: str, out: str, room: str) -> dict:
-    runs = interleaved({
-        "raw": lambda: _case_ours(stem, layout, out, room),
-        "default": lambda: _case_delivered(stem, layout, out, room),
-        "loud": lambda: _case_delivered(stem, layout, out, room, LOUD_TARGET_LUFS),
-    }, DELIVERY_ROUNDS)
-    return {**_summary(runs["default"], runs["raw"]),
-            "raw": _summary(runs["raw"]),
-            "loud": {**_summary(runs["loud"], runs["raw"]),
-                     "target_lufs": LOUD_TARGET_LUFS,
-                     "samples_limited": runs["loud"][0]["samples_limited"]}}
+    runs = interleaved(
+        {
+            "raw": lambda: _case_ours(stem, layout, out, room),
+            "default": lambda: _case_delivered(stem, layout, out, room),
+            "loud": lambda: _case_delivered(stem, layout, out, room, LOUD_TARGET_LUFS),
+        },
+        DELIVERY_ROUNDS,
+    )
+    return {
+        **_summary(runs["default"], runs["raw"]),
+        "raw": _summary(runs["raw"]),
+        "loud": {
+            **_summary(runs["loud"], runs["raw"]),
+            "target_lufs": LOUD_TARGET_LUFS,
+            "samples_limited": runs["loud"][0]["samples_limited"],
+        },
+    }
 
 
-_CASES = {"earfold": _case_ours, "delivery": _case_delivery,
-          "earfold_exact": _case_ours_exact, "baseline": _case_baseline, "io_floor": _case_io_floor,
-          "eq_pair": _case_eq_pair}
+_CASES = {
+    "earfold": _case_ours,
+    "delivery": _case_delivery,
+    "earfold_exact": _case_ours_exact,
+    "baseline": _case_baseline,
+    "io_floor": _case_io_floor,
+    "eq_pair": _case_eq_pair,
+}
 #: Cases that repeat themselves (their own interleaved rounds) instead of REPEATS times.
 _SELF_REPEATING = {"eq_pair", "delivery"}
 #: Cases run only by the memory check.
 _MEMORY_CASES = {"earfold_delivered": _case_delivered}
 
 
-def _child(conn, case: str, stem: str, layout: str, out: str, room: str,
-           repeats: int = REPEATS) -> None:
+def _child(
+    conn, case: str, stem: str, layout: str, out: str, room: str, repeats: int = REPEATS
+) -> None:
     try:
         import earfold.renderer.render._render  # noqa: F401  (imports outside the measured memory)
 
@@ -326,8 +365,9 @@ def _child(conn, case: str, stem: str, layout: str, out: str, room: str,
         conn.close()
 
 
-def _run_case(case: str, stem: str, layout: str, out: str, room: str = "none",
-              repeats: int = REPEATS) -> dict:
+def _run_case(
+    case: str, stem: str, layout: str, out: str, room: str = "none", repeats: int = REPEATS
+) -> dict:
     ctx = mp.get_context("spawn")
     parent, child = ctx.Pipe(duplex=False)
     proc = ctx.Process(target=_child, args=(child, case, stem, layout, out, room, repeats))
@@ -386,16 +426,22 @@ def run_bench(
                 r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"), room)
 
                 def figures(r: dict) -> dict:
-                    f = {"seconds": round(r["seconds"], 4), "runs_s": r["all_seconds"],
-                         "x_real_time": round(seconds / r["seconds"], 1)}
+                    f = {
+                        "seconds": round(r["seconds"], 4),
+                        "runs_s": r["all_seconds"],
+                        "x_real_time": round(seconds / r["seconds"], 1),
+                    }
                     if "plan_seconds" in r:
                         f["plan_seconds"] = round(r["plan_seconds"], 4)
                     return f
 
                 peak = round(r["peak_memory_bytes"] / 1e6, 1)
                 if case == "eq_pair":
-                    row["eq_on"] = {**figures(r), "peak_memory_mb": peak,
-                                    "round_ratios": r["round_ratios"]}
+                    row["eq_on"] = {
+                        **figures(r),
+                        "peak_memory_mb": peak,
+                        "round_ratios": r["round_ratios"],
+                    }
                     row["eq_off"] = {**figures(r["off"]), "peak_memory_mb": peak}
                     # What diffuse-field equalisation adds to a raw render's pass, and its
                     # one-off preparation (once per set and rate in a process).
@@ -405,12 +451,17 @@ def run_bench(
                     row["eq_prepare_s"] = round(r["plan_seconds"] - r["off"]["plan_seconds"], 3)
                 elif case == "delivery":
                     # What the delivery stage (measure, gain, limiter, final write) adds.
-                    row["earfold_delivered"] = {**figures(r), "peak_memory_mb": peak,
-                                                "round_ratios": r["round_ratios"]}
+                    row["earfold_delivered"] = {
+                        **figures(r),
+                        "peak_memory_mb": peak,
+                        "round_ratios": r["round_ratios"],
+                    }
                     row["earfold_delivered_loud"] = {
-                        **figures(r["loud"]), "round_ratios": r["loud"]["round_ratios"],
+                        **figures(r["loud"]),
+                        "round_ratios": r["loud"]["round_ratios"],
                         "target_lufs": r["loud"]["target_lufs"],
-                        "samples_limited": r["loud"]["samples_limited"]}
+                        "samples_limited": r["loud"]["samples_limited"],
+                    }
                     row["delivery_raw"] = figures(r["raw"])
                     row["delivery_added"] = round(r["median_ratio"] - 1, 3)
                     row["delivery_loud_added"] = round(r["loud"]["median_ratio"] - 1, 3)
@@ -419,11 +470,16 @@ def run_bench(
                 if "block_size" in r:
                     row["block_size"] = r["block_size"]
 
-            row["speedup_vs_baseline"] = round(row["baseline"]["seconds"] / row["earfold"]["seconds"], 2)
-            row["ratio_to_io_floor"] = round(row["earfold"]["seconds"] / row["io_floor"]["seconds"], 2)
+            row["speedup_vs_baseline"] = round(
+                row["baseline"]["seconds"] / row["earfold"]["seconds"], 2
+            )
+            row["ratio_to_io_floor"] = round(
+                row["earfold"]["seconds"] / row["io_floor"]["seconds"], 2
+            )
             if "earfold_exact" in row:
                 row["exact_vs_shared"] = round(
-                    row["earfold_exact"]["seconds"] / row["earfold"]["seconds"], 2)
+                    row["earfold_exact"]["seconds"] / row["earfold"]["seconds"], 2
+                )
             results["layouts"][layout.name] = row
             os.remove(stem)
         if memory_check:
@@ -437,15 +493,27 @@ def run_bench(
                 r = _run_case("earfold", stem, layout.name, str(Path(tmp) / "mem-out.wav"), room)
                 # The delivered render too: its two passes stream, so it must stay flat.
                 say(f"bench: memory check, {length:g} s {layout.name} stem, delivered")
-                d = _run_case("earfold_delivered", stem, layout.name,
-                              str(Path(tmp) / "mem-out.wav"), room, repeats=1)
-                mem[label] = {"seconds_of_audio": length,
-                              "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
-                              "delivered_peak_memory_mb": round(d["peak_memory_bytes"] / 1e6, 1)}
+                d = _run_case(
+                    "earfold_delivered",
+                    stem,
+                    layout.name,
+                    str(Path(tmp) / "mem-out.wav"),
+                    room,
+                    repeats=1,
+                )
+                mem[label] = {
+                    "seconds_of_audio": length,
+                    "peak_memory_mb": round(r["peak_memory_bytes"] / 1e6, 1),
+                    "delivered_peak_memory_mb": round(d["peak_memory_bytes"] / 1e6, 1),
+                }
                 os.remove(stem)
-            mem["growth_mb"] = round(mem["long"]["peak_memory_mb"] - mem["short"]["peak_memory_mb"], 1)
-            mem["delivered_growth_mb"] = round(mem["long"]["delivered_peak_memory_mb"]
-                                               - mem["short"]["delivered_peak_memory_mb"], 1)
+            mem["growth_mb"] = round(
+                mem["long"]["peak_memory_mb"] - mem["short"]["peak_memory_mb"], 1
+            )
+            mem["delivered_growth_mb"] = round(
+                mem["long"]["delivered_peak_memory_mb"] - mem["short"]["delivered_peak_memory_mb"],
+                1,
+            )
             results["memory"] = mem
     return results
 
@@ -467,12 +535,16 @@ def format_bench(result: dict) -> str:
             f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
             f"{row['earfold']['peak_memory_mb']:>8.1f}"
             + f"   delivery {row['delivery_added'] * 100:+.0f} % "
-              f"(limiting, {row['earfold_delivered_loud']['target_lufs']:g} LUFS: "
-              f"{row['delivery_loud_added'] * 100:+.0f} %)"
+            f"(limiting, {row['earfold_delivered_loud']['target_lufs']:g} LUFS: "
+            f"{row['delivery_loud_added'] * 100:+.0f} %)"
             + f"   EQ on {row['eq_added'] * 100:+.1f} %, engine per block "
-              f"{row['eq_engine_added'] * 100:+.1f} % (preparation {row['eq_prepare_s']:+.2f} s once)"
-            + (f"   exact mode {row['earfold_exact']['x_real_time']:.1f} xRT "
-               f"({row['exact_vs_shared']:.2f}x the shared time)" if "earfold_exact" in row else "")
+            f"{row['eq_engine_added'] * 100:+.1f} % (preparation {row['eq_prepare_s']:+.2f} s once)"
+            + (
+                f"   exact mode {row['earfold_exact']['x_real_time']:.1f} xRT "
+                f"({row['exact_vs_shared']:.2f}x the shared time)"
+                if "earfold_exact" in row
+                else ""
+            )
         )
     mem = result.get("memory")
     if mem:
@@ -488,13 +560,17 @@ def format_bench(result: dict) -> str:
                 f"{mem['short']['delivered_peak_memory_mb']:.1f} MB, "
                 f"{mem['long']['seconds_of_audio']:g} s -> "
                 f"{mem['long']['delivered_peak_memory_mb']:.1f} MB "
-                f"(growth {mem['delivered_growth_mb']:+.1f} MB)")
-    lines += ["", "xRT = seconds of audio per second of wall time (higher is faster); "
-              "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
-              "delivery = loudness + limiter + final write, as a share of the raw render "
-              "(default -23 LUFS, and a loud target at which the limiter works); "
-              "EQ on = a raw render pass with diffuse-field equalisation against one without, "
-              "and the engine alone, each block's fastest of several interleaved tries; "
-              "preparation = its one-off cost per HRTF set and rate. Delivery and EQ are "
-              "medians of per-round ratios of renders interleaved in one process."]
+                f"(growth {mem['delivered_growth_mb']:+.1f} MB)"
+            )
+    lines += [
+        "",
+        "xRT = seconds of audio per second of wall time (higher is faster); "
+        "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
+        "delivery = loudness + limiter + final write, as a share of the raw render "
+        "(default -23 LUFS, and a loud target at which the limiter works); "
+        "EQ on = a raw render pass with diffuse-field equalisation against one without, "
+        "and the engine alone, each block's fastest of several interleaved tries; "
+        "preparation = its one-off cost per HRTF set and rate. Delivery and EQ are "
+        "medians of per-round ratios of renders interleaved in one process.",
+    ]
     return "\n".join(lines)

@@ -47,7 +47,9 @@ def _drum(seconds: float, rate: int) -> np.ndarray:
     return np.sin(phase) * np.exp(-t * 6) * np.minimum(t / 0.004, 1.0)
 
 
-def make_demo_stem(rate: int = DEMO_SAMPLERATE, seed: int = DEMO_SEED) -> tuple[np.ndarray, list[str]]:
+def make_demo_stem(
+    rate: int = DEMO_SAMPLERATE, seed: int = DEMO_SEED
+) -> tuple[np.ndarray, list[str]]:
     """The demo stem (frames x 12, float32) and its channel labels in file order."""
     layout = get_layout(DEMO_LAYOUT)
     rng = np.random.default_rng(seed)
@@ -88,8 +90,11 @@ def make_demo_stem(rate: int = DEMO_SAMPLERATE, seed: int = DEMO_SEED) -> tuple[
     return stem.astype(np.float32), labels
 
 
-def run_demo(directory: str | os.PathLike = "earfold-demo", *,
-             progress: Callable[[float], None] | None = None) -> dict:
+def run_demo(
+    directory: str | os.PathLike = "earfold-demo",
+    *,
+    progress: Callable[[float], None] | None = None,
+) -> dict:
     """Write the demo stem into ``directory``, render it with the defaults, return the paths."""
     from ..render import RenderSettings, render
 

@@ -9,8 +9,7 @@ import numpy as np
 
 from ..eq import describe as diffuse_field_summary
 from ..geometry import vector_to_direction
-from ..hrtf import HrirSet, file_sha256
-from ..hrtf import read_sofa
+from ..hrtf import HrirSet, file_sha256, read_sofa
 
 
 def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict:
@@ -59,7 +58,9 @@ def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict
         "azimuth_range_deg": [round(float(az.min()), 2), round(float(az.max()), 2)],
         "grid_spacing_deg": round(grid.spacing_deg, 2),
         "distance_m": (
-            None if np.all(np.isnan(data.distances)) else round(float(np.nanmedian(data.distances)), 3)
+            None
+            if np.all(np.isnan(data.distances))
+            else round(float(np.nanmedian(data.distances)), 3)
         ),
         "itd_range_ms": [round(itd_min * 1000, 3), round(itd_max * 1000, 3)],
         "title": attrs.get("Title", ""),

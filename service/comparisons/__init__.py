@@ -14,5 +14,14 @@ from .assignment import MODES, Trial, draw_trials, new_token
 from .session import STATES, SessionError
 from .stats import binomial_p_at_least, binomial_p_two_sided, preference_counts
 
-__all__ = ["MODES", "STATES", "SessionError", "Trial", "binomial_p_at_least",
-           "binomial_p_two_sided", "draw_trials", "new_token", "preference_counts"]
+__all__ = [
+    "MODES",
+    "STATES",
+    "SessionError",
+    "Trial",
+    "binomial_p_at_least",
+    "binomial_p_two_sided",
+    "draw_trials",
+    "new_token",
+    "preference_counts",
+]

@@ -48,8 +48,9 @@ class Trial:
         return {"labels": dict(self.labels), "tokens": dict(self.tokens)}
 
 
-def draw_trials(n_variants: int, mode: str, trials: int,
-                rng: secrets.SystemRandom | None = None) -> list[Trial]:
+def draw_trials(
+    n_variants: int, mode: str, trials: int, rng: secrets.SystemRandom | None = None
+) -> list[Trial]:
     """Draw the assignment of a session.
 
     Parameters

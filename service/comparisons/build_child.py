@@ -37,14 +37,19 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
             names[str(path)] = hrtf["name"]
         variants.append(options)
     target = storage.path("comparisons", session_id)
-    return {"inputs": inputs, "variants": variants, "excerpt": payload["excerpt"],
-            "folder": str(target), "output": str(target / PREPARED), "names": names}
+    return {
+        "inputs": inputs,
+        "variants": variants,
+        "excerpt": payload["excerpt"],
+        "folder": str(target),
+        "output": str(target / PREPARED),
+        "names": names,
+    }
 
 
 def run(spec: dict) -> int:
     """Build the comparison of ``spec``; returns the exit status."""
-    from earfold.renderer.errors import RendererError
-    from earfold.renderer.errors import RenderCancelled
+    from earfold.renderer.errors import RenderCancelled, RendererError
 
     from ..jobs import render_child as rc
     from .builder import BUILD_PROCESSES, BuildError, build
@@ -60,9 +65,15 @@ def run(spec: dict) -> int:
 
     folder = Path(spec["folder"])
     try:
-        prepared = build(spec["inputs"], spec["variants"], spec["excerpt"], folder,
-                         progress=progress, cancelled=rc._cancelled,
-                         processes=spec.get("processes", BUILD_PROCESSES))
+        prepared = build(
+            spec["inputs"],
+            spec["variants"],
+            spec["excerpt"],
+            folder,
+            progress=progress,
+            cancelled=rc._cancelled,
+            processes=spec.get("processes", BUILD_PROCESSES),
+        )
     except RenderCancelled:
         rc._emit({"cancelled": True})
         return rc.EXIT_CANCELLED
@@ -70,8 +81,15 @@ def run(spec: dict) -> int:
         rc._emit({"error": rc._clean(str(exc), names)})
         return rc.EXIT_BAD_INPUT
     write_json_atomic(Path(spec["output"]), prepared)
-    rc._emit({"done": {"common_lufs": prepared["common_lufs"], "frames": prepared["frames"],
-                       "samplerate": prepared["samplerate"]}})
+    rc._emit(
+        {
+            "done": {
+                "common_lufs": prepared["common_lufs"],
+                "frames": prepared["frames"],
+                "samplerate": prepared["samplerate"],
+            }
+        }
+    )
     return 0
 
 

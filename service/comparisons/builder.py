@@ -32,8 +32,15 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["CEILING_DBTP", "FADE_S", "PREROLL_S", "BuildError", "build", "common_level",
-           "loudest_window"]
+__all__ = [
+    "CEILING_DBTP",
+    "FADE_S",
+    "PREROLL_S",
+    "BuildError",
+    "build",
+    "common_level",
+    "loudest_window",
+]
 
 #: Seconds rendered before the excerpt and thrown away. Long enough for the HRIR and the
 #: early part of a room to fill in and most of a medium room's tail to build up; a longer
@@ -67,8 +74,13 @@ class BuildError(ValueError):
     """A comparison cannot be built (a silent variant, an excerpt outside the stem)."""
 
 
-def loudest_window(short_term: Sequence[float], interval_s: float, block_s: float,
-                   length_s: float, duration_s: float) -> float:
+def loudest_window(
+    short_term: Sequence[float],
+    interval_s: float,
+    block_s: float,
+    length_s: float,
+    duration_s: float,
+) -> float:
     """Start (s) of the loudest window of ``length_s`` by the given loudness readings.
 
     Parameters
@@ -102,8 +114,11 @@ def loudest_window(short_term: Sequence[float], interval_s: float, block_s: floa
     return float(starts[int(np.argmax(mean))])
 
 
-def common_level(measured_lufs: Sequence[float], true_peaks_dbtp: Sequence[float],
-                 ceiling_dbtp: float = CEILING_DBTP) -> float:
+def common_level(
+    measured_lufs: Sequence[float],
+    true_peaks_dbtp: Sequence[float],
+    ceiling_dbtp: float = CEILING_DBTP,
+) -> float:
     """The level (LUFS) all variants are matched to.
 
     The loudest variant's loudness, lowered as far as needed that every variant's true
@@ -120,7 +135,7 @@ def _fade(x: np.ndarray, frames: int) -> None:
         return
     ramp = (0.5 - 0.5 * np.cos(np.pi * (np.arange(frames) + 0.5) / frames)).astype(np.float32)
     x[:frames] *= ramp[:, None]
-    x[len(x) - frames:] *= ramp[::-1, None]
+    x[len(x) - frames :] *= ramp[::-1, None]
 
 
 def _measure(x: np.ndarray, samplerate: int) -> tuple[float | None, float | None]:
@@ -153,18 +168,21 @@ def choose_window(inputs: Sequence[str], settings, length_s: float) -> float:
     return loudest_window(series, interval, block, length_s, stem.duration)
 
 
-def _render_forked(jobs: list, processes: int, samplerate: int,
-                   progress: Callable[[float], None],
-                   cancelled: Callable[[], bool] | None) -> None:
+def _render_forked(
+    jobs: list,
+    processes: int,
+    samplerate: int,
+    progress: Callable[[float], None],
+    cancelled: Callable[[], bool] | None,
+) -> None:
     """Render ``jobs`` (inputs, output, settings) in ``processes`` forked processes.
 
     The HRIR sets are loaded first, so the forks share them; each fork renders every
     ``processes``-th job, reports progress through shared memory and stops when the
     parent asks (or dies). Errors come back as JSON text, not pickles.
     """
-    from earfold.renderer.errors import RendererError
+    from earfold.renderer.errors import RenderCancelled, RendererError
     from earfold.renderer.hrtf import load_hrir_set
-    from earfold.renderer.errors import RenderCancelled
     from earfold.renderer.render import render, resolve_hrtf
 
     for hrtf in {s.hrtf for _, _, s in jobs}:
@@ -184,8 +202,13 @@ def _render_forked(jobs: list, processes: int, samplerate: int,
         for i in indices:
             ins, out, settings = jobs[i]
             try:
-                render(ins, out, settings, cancelled=stopped,
-                       progress=lambda f, i=i: done.__setitem__(i, f))
+                render(
+                    ins,
+                    out,
+                    settings,
+                    cancelled=stopped,
+                    progress=lambda f, i=i: done.__setitem__(i, f),
+                )
             except RenderCancelled:
                 os._exit(3)
             except RendererError as exc:
@@ -193,8 +216,10 @@ def _render_forked(jobs: list, processes: int, samplerate: int,
                 os._exit(2)
         os._exit(0)
 
-    procs = [ctx.Process(target=work, args=(list(range(k, len(jobs), processes)),))
-             for k in range(processes)]
+    procs = [
+        ctx.Process(target=work, args=(list(range(k, len(jobs), processes)),))
+        for k in range(processes)
+    ]
     for p in procs:
         p.start()
     try:
@@ -213,13 +238,22 @@ def _render_forked(jobs: list, processes: int, samplerate: int,
         raise RendererError(json.loads(errors.get())["error"])
     codes = [p.exitcode for p in procs]
     if any(code != 0 for code in codes):
-        raise BuildError(f"a render process of the comparison died (exit status {codes}); "
-                         "the stem may be too large for this server")
+        raise BuildError(
+            f"a render process of the comparison died (exit status {codes}); "
+            "the stem may be too large for this server"
+        )
 
 
-def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder: Path, *,
-          progress: Callable[[float], None] | None = None,
-          cancelled: Callable[[], bool] | None = None, processes: int = 1) -> dict:
+def build(
+    inputs: Sequence[str],
+    variants: Sequence[dict],
+    excerpt: dict,
+    folder: Path,
+    *,
+    progress: Callable[[float], None] | None = None,
+    cancelled: Callable[[], bool] | None = None,
+    processes: int = 1,
+) -> dict:
     """Build the trial files of a comparison in ``folder`` and return what was done.
 
     Parameters
@@ -261,8 +295,12 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
         raise BuildError(f"the excerpt length must be positive, not {length_s!r}")
     length_s = min(length_s, stem.duration)
     automatic = excerpt.get("start") is None
-    settings = [dataclasses.replace(build_settings(v), loudness=None, true_peak=None,
-                                    subtype="FLOAT", format="wav") for v in variants]
+    settings = [
+        dataclasses.replace(
+            build_settings(v), loudness=None, true_peak=None, subtype="FLOAT", format="wav"
+        )
+        for v in variants
+    ]
     if automatic:
         start_s = choose_window(inputs, settings[0], length_s)
     else:
@@ -271,28 +309,36 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
     start_f = int(round(start_s * sr))
     frames = int(round(length_s * sr))
     if start_f >= stem.frames:
-        raise BuildError(f"the excerpt starts at {start_s:g} s but the stem is only "
-                         f"{stem.duration:.3f} s long")
+        raise BuildError(
+            f"the excerpt starts at {start_s:g} s but the stem is only {stem.duration:.3f} s long"
+        )
     frames = min(frames, stem.frames - start_f)
     pre_f = min(start_f, int(round(PREROLL_S * sr)))
     window = ((start_f - pre_f) / sr, (pre_f + frames) / sr)
 
     cut: list[np.ndarray] = []
     with tempfile.TemporaryDirectory(dir=folder, prefix=".build-") as tmp:
-        jobs = [(list(inputs), Path(tmp) / f"{i}.wav", dataclasses.replace(s, excerpt=window))
-                for i, s in enumerate(settings)]
+        jobs = [
+            (list(inputs), Path(tmp) / f"{i}.wav", dataclasses.replace(s, excerpt=window))
+            for i, s in enumerate(settings)
+        ]
         render_progress = lambda f: report(0.05 + 0.85 * f)  # noqa: E731
         if processes > 1 and len(jobs) > 1:
             _render_forked(jobs, min(processes, len(jobs)), sr, render_progress, cancelled)
         else:
             for i, (ins, out, s) in enumerate(jobs):
-                render(ins, out, s, cancelled=cancelled,
-                       progress=lambda f, i=i: render_progress((i + f) / len(jobs)))
+                render(
+                    ins,
+                    out,
+                    s,
+                    cancelled=cancelled,
+                    progress=lambda f, i=i: render_progress((i + f) / len(jobs)),
+                )
         for i, (_, out, _) in enumerate(jobs):
             audio, _ = read_audio(out)
             os.unlink(out)
             x = np.zeros((frames, 2), dtype=np.float32)
-            part = audio[pre_f:pre_f + frames]
+            part = audio[pre_f : pre_f + frames]
             x[: len(part)] = part
             _fade(x, int(round(FADE_S * sr)))
             cut.append(x)
@@ -300,9 +346,11 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
     measured = [_measure(x, sr) for x in cut]
     for i, (lufs, tp) in enumerate(measured):
         if lufs is None or tp is None:
-            raise BuildError(f"variant {i + 1} is silent in the excerpt from {start_s:g} s "
-                             f"({length_s:g} s long), so it cannot be level-matched; choose "
-                             "another excerpt")
+            raise BuildError(
+                f"variant {i + 1} is silent in the excerpt from {start_s:g} s "
+                f"({length_s:g} s long), so it cannot be level-matched; choose "
+                "another excerpt"
+            )
     lufs_values = [m[0] for m in measured]
     peaks = [m[1] for m in measured]
     common = common_level(lufs_values, peaks)
@@ -316,19 +364,24 @@ def build(inputs: Sequence[str], variants: Sequence[dict], excerpt: dict, folder
         write_audio(path, y, sr, subtype=TRIAL_SUBTYPE)
         back, _ = read_audio(path)
         after_lufs, after_tp = _measure(back, sr)
-        out_variants.append({
-            "index": i,
-            "measured_lufs": round(lufs_values[i], 3),
-            "true_peak_dbtp": round(peaks[i], 3),
-            "gain_db": round(gain_db, 3),
-            "matched_lufs": None if after_lufs is None else round(after_lufs, 3),
-            "matched_true_peak_dbtp": None if after_tp is None else round(after_tp, 3),
-            "file": f"audio/{i}.wav",
-        })
+        out_variants.append(
+            {
+                "index": i,
+                "measured_lufs": round(lufs_values[i], 3),
+                "true_peak_dbtp": round(peaks[i], 3),
+                "gain_db": round(gain_db, 3),
+                "matched_lufs": None if after_lufs is None else round(after_lufs, 3),
+                "matched_true_peak_dbtp": None if after_tp is None else round(after_tp, 3),
+                "file": f"audio/{i}.wav",
+            }
+        )
         report(0.9 + 0.1 * (i + 1) / len(cut))
     return {
-        "excerpt": {"start": round(start_f / sr, 6), "length": round(frames / sr, 6),
-                    "automatic": automatic},
+        "excerpt": {
+            "start": round(start_f / sr, 6),
+            "length": round(frames / sr, 6),
+            "automatic": automatic,
+        },
         "samplerate": sr,
         "frames": frames,
         "common_lufs": round(common, 3),

@@ -29,8 +29,18 @@ from ..jobs import Job, JobState
 from ..storage import META, Storage, write_json_atomic
 from .stats import binomial_p_at_least, binomial_p_two_sided, preference_counts
 
-__all__ = ["STATES", "SessionError", "answer", "finish", "locked", "prepared", "public_view",
-           "reveal", "reveal_csv", "state_of"]
+__all__ = [
+    "STATES",
+    "SessionError",
+    "answer",
+    "finish",
+    "locked",
+    "prepared",
+    "public_view",
+    "reveal",
+    "reveal_csv",
+    "state_of",
+]
 
 STATES = ("preparing", "ready", "finished", "failed")
 
@@ -62,8 +72,7 @@ def locked(storage: Storage, session_id: str) -> Iterator[Path]:
             fcntl.flock(fh, fcntl.LOCK_UN)
 
 
-def update(storage: Storage, session_id: str, owner: str,
-           change: Callable[[dict], None]) -> dict:
+def update(storage: Storage, session_id: str, owner: str, change: Callable[[dict], None]) -> dict:
     """Read the session under its lock, apply ``change``, write it back; the new record."""
     with locked(storage, session_id) as folder:
         meta = storage.read_meta("comparisons", session_id, owner)
@@ -85,8 +94,11 @@ def state_of(meta: dict, built: dict | None, job: Job | None) -> tuple[str, floa
     if built is not None:
         return ("finished" if meta.get("finished") else "ready"), 1.0, None
     if job is None:
-        return "failed", 0.0, "the build job is gone (the server's data was cleaned up); " \
-            "create the comparison again"
+        return (
+            "failed",
+            0.0,
+            "the build job is gone (the server's data was cleaned up); create the comparison again",
+        )
     if job.state in (JobState.FAILED, JobState.CANCELLED):
         return "failed", job.progress, job.message or f"the build was {job.state.value}"
     if job.state is JobState.DONE:  # done, but no prepared.json: removed meanwhile
@@ -100,8 +112,14 @@ def _trial_view(session_id: str, index: int, trial: dict, ready: bool) -> dict:
     return {
         "index": index,
         "labels": labels,
-        "audio": ({label: f"/v1/comparisons/{session_id}/audio/{trial['tokens'][label]}"
-                   for label in labels} if ready else None),
+        "audio": (
+            {
+                label: f"/v1/comparisons/{session_id}/audio/{trial['tokens'][label]}"
+                for label in labels
+            }
+            if ready
+            else None
+        ),
         "answer": (trial.get("answer") or {}).get("choice"),
     }
 
@@ -152,8 +170,9 @@ def answer(meta: dict, index: int, choice: str, built: dict | None) -> None:
     different choice for an answered trial, or any answer once finished, is refused.
     """
     if built is None:
-        raise SessionError("the comparison is still being prepared; wait until its state "
-                           "is 'ready'")
+        raise SessionError(
+            "the comparison is still being prepared; wait until its state is 'ready'"
+        )
     if meta.get("finished"):
         raise SessionError("the comparison is finished; its answers can no longer change")
     trials = meta["trials"]
@@ -167,8 +186,10 @@ def answer(meta: dict, index: int, choice: str, built: dict | None) -> None:
     if old is not None:
         if old["choice"] == choice:
             return
-        raise SessionError(f"trial {index + 1} was already answered {old['choice']!r}; an "
-                           "answer cannot be changed (that would unblind the test)")
+        raise SessionError(
+            f"trial {index + 1} was already answered {old['choice']!r}; an "
+            "answer cannot be changed (that would unblind the test)"
+        )
     trial["answer"] = {"choice": choice, "at": time.time()}
     if all(t.get("answer") for t in trials):
         meta["finished"] = True
@@ -198,9 +219,12 @@ def reveal(meta: dict, built: dict) -> dict:
     rows = []
     for i, t in enumerate(trials):
         chosen = _chosen_variant(t, mode)
-        row = {"index": i, "variants": dict(t["labels"]),
-               "answer": (t.get("answer") or {}).get("choice"),
-               "answered_at": iso((t.get("answer") or {}).get("at"))}
+        row = {
+            "index": i,
+            "variants": dict(t["labels"]),
+            "answer": (t.get("answer") or {}).get("choice"),
+            "answered_at": iso((t.get("answer") or {}).get("at")),
+        }
         if mode == "abx":
             row["correct"] = None if chosen is None else chosen == t["labels"]["X"]
         else:
@@ -209,9 +233,23 @@ def reveal(meta: dict, built: dict) -> dict:
     answered = [r for r in rows if r["answer"] is not None]
     variants = []
     for v, b in zip(meta["variants"], built["variants"]):
-        variants.append({"index": b["index"], "name": v["name"], "request": v["request"],
-                         **{k: b[k] for k in ("measured_lufs", "true_peak_dbtp", "gain_db",
-                                              "matched_lufs", "matched_true_peak_dbtp")}})
+        variants.append(
+            {
+                "index": b["index"],
+                "name": v["name"],
+                "request": v["request"],
+                **{
+                    k: b[k]
+                    for k in (
+                        "measured_lufs",
+                        "true_peak_dbtp",
+                        "gain_db",
+                        "matched_lufs",
+                        "matched_true_peak_dbtp",
+                    )
+                },
+            }
+        )
     out: dict = {
         "id": meta["id"],
         "mode": mode,
@@ -225,20 +263,24 @@ def reveal(meta: dict, built: dict) -> dict:
     }
     if mode == "abx":
         correct = sum(1 for r in answered if r["correct"])
-        out["abx"] = {"correct": correct, "answered": len(answered),
-                      "p_value": binomial_p_at_least(correct, len(answered)),
-                      "test": "one-sided binomial, p = 0.5 per trial (guessing)"}
+        out["abx"] = {
+            "correct": correct,
+            "answered": len(answered),
+            "p_value": binomial_p_at_least(correct, len(answered)),
+            "test": "one-sided binomial, p = 0.5 per trial (guessing)",
+        }
     else:
-        counts = preference_counts(len(meta["variants"]),
-                                   [list(t["labels"].values()) for t in trials],
-                                   [_chosen_variant(t, mode) for t in trials])
+        counts = preference_counts(
+            len(meta["variants"]),
+            [list(t["labels"].values()) for t in trials],
+            [_chosen_variant(t, mode) for t in trials],
+        )
         for v, c in zip(variants, counts):
             v["answered_trials"] = c["answered_trials"]
             v["preferred"] = c["preferred"]
             v["preferred_share"] = c["preferred_share"]
         if len(variants) == 2 and answered:
-            out["preference_p_value"] = binomial_p_two_sided(counts[0]["preferred"],
-                                                             len(answered))
+            out["preference_p_value"] = binomial_p_two_sided(counts[0]["preferred"], len(answered))
     return out
 
 
@@ -254,10 +296,17 @@ def reveal_csv(meta: dict, built: dict) -> str:
     w.writerow(CSV_COLUMNS)
     for r in result["trials"]:
         labels = r["variants"]
-        chosen = (None if r["answer"] is None else labels[r["answer"]])
-        w.writerow([r["index"] + 1, names[labels["A"]], names[labels["B"]],
-                    names[labels["X"]] if "X" in labels else "", r["answer"] or "",
-                    "" if chosen is None else chosen + 1,
-                    "" if chosen is None else names[chosen],
-                    "" if r.get("correct") is None else str(r["correct"]).lower()])
+        chosen = None if r["answer"] is None else labels[r["answer"]]
+        w.writerow(
+            [
+                r["index"] + 1,
+                names[labels["A"]],
+                names[labels["B"]],
+                names[labels["X"]] if "X" in labels else "",
+                r["answer"] or "",
+                "" if chosen is None else chosen + 1,
+                "" if chosen is None else names[chosen],
+                "" if r.get("correct") is None else str(r["correct"]).lower(),
+            ]
+        )
     return buf.getvalue()

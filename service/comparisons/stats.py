@@ -16,8 +16,7 @@ from fractions import Fraction
 __all__ = ["binomial_p_at_least", "binomial_p_two_sided", "preference_counts"]
 
 
-def binomial_p_at_least(successes: int, trials: int, p: float | Fraction = Fraction(1, 2)
-                        ) -> float:
+def binomial_p_at_least(successes: int, trials: int, p: float | Fraction = Fraction(1, 2)) -> float:
     """P(K >= ``successes``) for K ~ binomial(``trials``, ``p``): the one-sided p-value.
 
     Parameters
@@ -36,8 +35,9 @@ def binomial_p_at_least(successes: int, trials: int, p: float | Fraction = Fract
     q = Fraction(p)
     if not 0 <= q <= 1:
         raise ValueError(f"p must be from 0 to 1, not {p!r}")
-    total = sum(math.comb(trials, i) * q**i * (1 - q) ** (trials - i)
-                for i in range(successes, trials + 1))
+    total = sum(
+        math.comb(trials, i) * q**i * (1 - q) ** (trials - i) for i in range(successes, trials + 1)
+    )
     return float(total)
 
 
@@ -52,8 +52,9 @@ def binomial_p_two_sided(successes: int, trials: int) -> float:
     return min(1.0, 2.0 * binomial_p_at_least(k, trials))
 
 
-def preference_counts(n_variants: int, presented: Sequence[Sequence[int]],
-                      chosen: Sequence[int | None]) -> list[dict]:
+def preference_counts(
+    n_variants: int, presented: Sequence[Sequence[int]], chosen: Sequence[int | None]
+) -> list[dict]:
     """Per variant: trials it was heard in, and trials it was preferred in.
 
     Parameters
@@ -72,13 +73,23 @@ def preference_counts(n_variants: int, presented: Sequence[Sequence[int]],
         for v in set(variants):
             heard[v] += 1
         won[choice] += 1
-    return [{"variant": i, "answered_trials": heard[i], "preferred": won[i],
-             "preferred_share": round(won[i] / heard[i], 4) if heard[i] else None}
-            for i in range(n_variants)]
+    return [
+        {
+            "variant": i,
+            "answered_trials": heard[i],
+            "preferred": won[i],
+            "preferred_share": round(won[i] / heard[i], 4) if heard[i] else None,
+        }
+        for i in range(n_variants)
+    ]
 
 
 def _check(successes: int, trials: int) -> None:
-    if not (isinstance(successes, int) and isinstance(trials, int)) or trials < 0 \
-            or not 0 <= successes <= trials:
-        raise ValueError(f"need 0 <= successes <= trials (integers), not {successes!r} of "
-                         f"{trials!r}")
+    if (
+        not (isinstance(successes, int) and isinstance(trials, int))
+        or trials < 0
+        or not 0 <= successes <= trials
+    ):
+        raise ValueError(
+            f"need 0 <= successes <= trials (integers), not {successes!r} of {trials!r}"
+        )

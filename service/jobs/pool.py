@@ -36,8 +36,7 @@ class WorkerPool:
     again once its lease expires, by the new worker or another.
     """
 
-    def __init__(self, settings: ServiceSettings, count: int, *,
-                 module: str | None = None) -> None:
+    def __init__(self, settings: ServiceSettings, count: int, *, module: str | None = None) -> None:
         self.settings = settings
         self.count = count
         #: The worker's module: the embedded claim loop, or the Redis consumer.
@@ -57,8 +56,7 @@ class WorkerPool:
         with self._lock:
             self.procs = [self._spawn() for _ in range(self.count)]
         if self.count:
-            self._watcher = threading.Thread(target=self._watch, name="worker-pool",
-                                             daemon=True)
+            self._watcher = threading.Thread(target=self._watch, name="worker-pool", daemon=True)
             self._watcher.start()
 
     def pids(self) -> list[int]:

@@ -95,8 +95,9 @@ class JobQueue(Protocol):
     def get(self, job_id: str) -> Job:
         """The job; :class:`JobNotFound` if absent."""
 
-    def list(self, owner: str | None = None, *, active: bool | None = None,
-             limit: int = 1000) -> list[Job]:
+    def list(
+        self, owner: str | None = None, *, active: bool | None = None, limit: int = 1000
+    ) -> list[Job]:
         """Jobs newest first, optionally one owner's, optionally only (un)finished ones."""
 
     def delete(self, job_id: str) -> None:
@@ -132,10 +133,12 @@ def open_queue(url: str, data_dir: str, **options: float) -> JobQueue:
     if url.startswith("sqlite:"):
         from .sqlite_store import SqliteJobQueue
 
-        return SqliteJobQueue(Path(url[len("sqlite:"):]))
+        return SqliteJobQueue(Path(url[len("sqlite:") :]))
     if url.startswith(("redis://", "rediss://")):
         from .redis_store import RedisJobQueue
 
         return RedisJobQueue(url, **options)
-    raise ValueError(f"no queue backend for {url!r}; available: 'sqlite:' (embedded, the "
-                     "default) and 'redis://HOST:PORT/DB' (scale-out)")
+    raise ValueError(
+        f"no queue backend for {url!r}; available: 'sqlite:' (embedded, the "
+        "default) and 'redis://HOST:PORT/DB' (scale-out)"
+    )

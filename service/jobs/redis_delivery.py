@@ -43,8 +43,13 @@ IDLE_POLL_MS = 50
 DEAD_MESSAGE_TTL_MS = 86_400_000
 
 
-def make_broker(client, namespace: str, *, heartbeat_timeout_s: float = HEARTBEAT_TIMEOUT_S,
-                maintenance_chance: float = MAINTENANCE_CHANCE) -> RedisBroker:
+def make_broker(
+    client,
+    namespace: str,
+    *,
+    heartbeat_timeout_s: float = HEARTBEAT_TIMEOUT_S,
+    maintenance_chance: float = MAINTENANCE_CHANCE,
+) -> RedisBroker:
     """A Redis broker on ``client`` (a redis-py client of the job store, which owns the
     connection settings) whose keys start with ``namespace``.
 
@@ -52,9 +57,14 @@ def make_broker(client, namespace: str, *, heartbeat_timeout_s: float = HEARTBEA
     and its retries are replaced by the attempts count in the job record.
     """
     chance = int(round(min(max(maintenance_chance, 0.0), 1.0) * 1_000_000))
-    broker = RedisBroker(client=client, namespace=namespace, middleware=[],
-                         heartbeat_timeout=int(heartbeat_timeout_s * 1000),
-                         maintenance_chance=chance, dead_message_ttl=DEAD_MESSAGE_TTL_MS)
+    broker = RedisBroker(
+        client=client,
+        namespace=namespace,
+        middleware=[],
+        heartbeat_timeout=int(heartbeat_timeout_s * 1000),
+        maintenance_chance=chance,
+        dead_message_ttl=DEAD_MESSAGE_TTL_MS,
+    )
     broker.declare_queue(QUEUE_NAME)
     return broker
 
@@ -67,8 +77,11 @@ class Delivery:
 
     def send(self, job_id: str) -> None:
         """Enqueue a message for ``job_id``; redis errors propagate."""
-        self.broker.enqueue(dramatiq.Message(queue_name=QUEUE_NAME, actor_name=ACTOR_NAME,
-                                             args=(job_id,), kwargs={}, options={}))
+        self.broker.enqueue(
+            dramatiq.Message(
+                queue_name=QUEUE_NAME, actor_name=ACTOR_NAME, args=(job_id,), kwargs={}, options={}
+            )
+        )
 
     def consume(self, handle: Callable[[str], None]) -> dramatiq.Worker:
         """Start a consumer calling ``handle(job_id)`` for one message at a time.
@@ -78,10 +91,17 @@ class Delivery:
         Dramatiq worker; call ``stop()`` on it.
         """
         if ACTOR_NAME not in self.broker.actors:
-            dramatiq.Actor(handle, broker=self.broker, actor_name=ACTOR_NAME,
-                           queue_name=QUEUE_NAME, priority=0, options={})
-        worker = dramatiq.Worker(self.broker, queues={QUEUE_NAME}, worker_threads=1,
-                                 worker_timeout=IDLE_POLL_MS)
+            dramatiq.Actor(
+                handle,
+                broker=self.broker,
+                actor_name=ACTOR_NAME,
+                queue_name=QUEUE_NAME,
+                priority=0,
+                options={},
+            )
+        worker = dramatiq.Worker(
+            self.broker, queues={QUEUE_NAME}, worker_threads=1, worker_timeout=IDLE_POLL_MS
+        )
         worker.queue_prefetch = 1
         worker.start()
         return worker

@@ -61,7 +61,9 @@ end
 """
 
 # ARGV: prefix, now, id, owner, payload, max_queued
-_SUBMIT = _LIB + """
+_SUBMIT = (
+    _LIB
+    + """
 if redis.call('EXISTS', jk(ARGV[3])) == 1 then return {-2, 0} end
 local waiting = redis.call('ZCARD', P .. 'state:queued')
 if waiting >= tonumber(ARGV[6]) then return {-1, waiting} end
@@ -76,9 +78,12 @@ redis.call('ZADD', P .. 'all', seq, ARGV[3])
 redis.call('ZADD', P .. 'owner:' .. ARGV[4], seq, ARGV[3])
 return {seq, 0}
 """
+)
 
 # ARGV: prefix, now, worker, lease_s, [id]: the named job if queued, else the oldest.
-_CLAIM = _LIB + """
+_CLAIM = (
+    _LIB
+    + """
 local id = ARGV[5]
 if id == nil or id == '' then
   local first = redis.call('ZRANGE', P .. 'state:queued', 0, 0)
@@ -95,9 +100,12 @@ redis.call('ZREM', P .. 'unsent', id)
 move(id, 'queued', 'running')
 return id
 """
+)
 
 # ARGV: prefix, now, id, worker, op, value. Changes a job only while running under worker.
-_OWNED = _LIB + """
+_OWNED = (
+    _LIB
+    + """
 local id, op, value = ARGV[3], ARGV[5], ARGV[6]
 local k = jk(id)
 if redis.call('HGET', k, 'state') ~= 'running' or redis.call('HGET', k, 'worker') ~= ARGV[4]
@@ -124,9 +132,12 @@ elseif op == 'release' then
 end
 return 1
 """
+)
 
 # ARGV: prefix, now, id. Returns the old state, or false if absent.
-_CANCEL = _LIB + """
+_CANCEL = (
+    _LIB
+    + """
 local k = jk(ARGV[3])
 local state = redis.call('HGET', k, 'state')
 if not state then return false end
@@ -137,9 +148,12 @@ redis.call('ZREM', P .. 'unsent', ARGV[3])
 move(ARGV[3], state, 'cancelled')
 return 'ok'
 """
+)
 
 # ARGV: prefix, now, id.
-_DELETE = _LIB + """
+_DELETE = (
+    _LIB
+    + """
 local k = jk(ARGV[3])
 local state = redis.call('HGET', k, 'state')
 if not state then return false end
@@ -151,10 +165,13 @@ redis.call('ZREM', P .. 'owner:' .. owner, ARGV[3])
 redis.call('DEL', k)
 return 'ok'
 """
+)
 
 # ARGV: prefix, now, max_attempts, message head, message tail. Expired leases: requeue,
 # or fail once out of attempts. Returns {requeued ids..., '|', failed ids...}.
-_RECOVER = _LIB + """
+_RECOVER = (
+    _LIB
+    + """
 local now = tonumber(ARGV[2])
 local expired = redis.call('ZRANGEBYSCORE', P .. 'leases', '-inf', '(' .. now)
 local out, failed = {}, {}
@@ -176,6 +193,7 @@ table.insert(out, '|')
 for _, id in ipairs(failed) do table.insert(out, id) end
 return out
 """
+)
 
 
 def parse_url(url: str) -> tuple[str, str]:
@@ -192,8 +210,9 @@ def parse_url(url: str) -> tuple[str, str]:
     query = parse_qs(parts.query, keep_blank_values=True)
     prefix = query.pop("prefix", [DEFAULT_PREFIX])[-1]
     if not prefix or not prefix.replace("-", "").replace("_", "").replace(".", "").isalnum():
-        raise ValueError(f"the Redis key prefix must be letters, digits, '-', '_' or '.'; "
-                         f"got {prefix!r}")
+        raise ValueError(
+            f"the Redis key prefix must be letters, digits, '-', '_' or '.'; got {prefix!r}"
+        )
     rest = urlencode({k: v[-1] for k, v in query.items()})
     return urlunsplit((parts.scheme, parts.netloc, parts.path, rest, "")), prefix
 
@@ -224,18 +243,35 @@ class RedisJobQueue:
         (:func:`earfold.service.jobs.redis_delivery.make_broker`).
     """
 
-    def __init__(self, url: str, *, clock: Callable[[], float] = time.time,
-                 deliver: bool = True, **broker_options: float) -> None:
+    def __init__(
+        self,
+        url: str,
+        *,
+        clock: Callable[[], float] = time.time,
+        deliver: bool = True,
+        **broker_options: float,
+    ) -> None:
         self.redis_url, name = parse_url(url)
         self.prefix = name + ":"
         self.where = display_url(self.redis_url)
         self.clock = clock
-        self.client = redis.Redis.from_url(self.redis_url, socket_connect_timeout=CONNECT_TIMEOUT_S,
-                                           socket_timeout=COMMAND_TIMEOUT_S,
-                                           health_check_interval=10)
-        self._scripts = {name: self.client.register_script(src) for name, src in (
-            ("submit", _SUBMIT), ("claim", _CLAIM), ("owned", _OWNED), ("cancel", _CANCEL),
-            ("delete", _DELETE), ("recover", _RECOVER))}
+        self.client = redis.Redis.from_url(
+            self.redis_url,
+            socket_connect_timeout=CONNECT_TIMEOUT_S,
+            socket_timeout=COMMAND_TIMEOUT_S,
+            health_check_interval=10,
+        )
+        self._scripts = {
+            name: self.client.register_script(src)
+            for name, src in (
+                ("submit", _SUBMIT),
+                ("claim", _CLAIM),
+                ("owned", _OWNED),
+                ("cancel", _CANCEL),
+                ("delete", _DELETE),
+                ("recover", _RECOVER),
+            )
+        }
         self._broker_options = broker_options
         self._deliver = deliver
         self._delivery = None
@@ -248,8 +284,7 @@ class RedisJobQueue:
         if self._delivery is None:
             from .redis_delivery import Delivery
 
-            self._delivery = Delivery(self.client, self.prefix + "dramatiq",
-                                      **self._broker_options)
+            self._delivery = Delivery(self.client, self.prefix + "dramatiq", **self._broker_options)
         return self._delivery
 
     def _run(self, script: str, *args: object):
@@ -261,8 +296,9 @@ class RedisJobQueue:
             raise self._unavailable(exc) from None
 
     def _unavailable(self, exc: Exception) -> QueueUnavailable:
-        return QueueUnavailable(f"the job store at {self.where} does not answer "
-                                f"({type(exc).__name__}: {exc})")
+        return QueueUnavailable(
+            f"the job store at {self.where} does not answer ({type(exc).__name__}: {exc})"
+        )
 
     def _send(self, ids: list[str]) -> None:
         """Send messages for queued ``ids``; on failure they stay unsent for recover()."""
@@ -286,12 +322,19 @@ class RedisJobQueue:
             return float(d[name]) if d.get(name) else None
 
         return Job(
-            id=d["id"], owner=d["owner"], state=JobState(d["state"]),
-            payload=json.loads(d["payload"]), progress=float(d["progress"]),
-            attempts=int(d["attempts"]), message=d["message"],
+            id=d["id"],
+            owner=d["owner"],
+            state=JobState(d["state"]),
+            payload=json.loads(d["payload"]),
+            progress=float(d["progress"]),
+            attempts=int(d["attempts"]),
+            message=d["message"],
             result=json.loads(d["result"]) if d["result"] else None,
-            worker=d["worker"] or None, lease_expires=num("lease_expires"),
-            created=float(d["created"]), started=num("started"), finished=num("finished"),
+            worker=d["worker"] or None,
+            lease_expires=num("lease_expires"),
+            created=float(d["created"]),
+            started=num("started"),
+            finished=num("finished"),
             updated=float(d["updated"]),
         )
 
@@ -308,8 +351,9 @@ class RedisJobQueue:
     # -- the interface -----------------------------------------------------------------
 
     def submit(self, job_id: str, owner: str, payload: Mapping, *, max_queued: int) -> Job:
-        seq, waiting = self._run("submit", job_id, owner, json.dumps(dict(payload)),
-                                 int(max_queued))
+        seq, waiting = self._run(
+            "submit", job_id, owner, json.dumps(dict(payload)), int(max_queued)
+        )
         if seq == -1:
             raise QueueFull(f"{waiting} renders are waiting, the most this server queues")
         if seq == -2:
@@ -364,8 +408,9 @@ class RedisJobQueue:
             raise JobNotFound(job_id)
         return self._job(h)
 
-    def list(self, owner: str | None = None, *, active: bool | None = None,
-             limit: int = 1000) -> list[Job]:
+    def list(
+        self, owner: str | None = None, *, active: bool | None = None, limit: int = 1000
+    ) -> list[Job]:
         index = self.prefix + ("all" if owner is None else f"owner:{owner}")
         out: list[Job] = []
         start, page = 0, max(min(int(limit), 500), 50)
@@ -395,7 +440,7 @@ class RedisJobQueue:
         head, tail = _poison_message(10**9).split(str(10**9))
         out = [x.decode() for x in self._run("recover", int(max_attempts), head, tail)]
         bar = out.index("|")
-        requeued, failed = out[:bar], out[bar + 1:]
+        requeued, failed = out[:bar], out[bar + 1 :]
         self._send(requeued)
         self.resend()
         return requeued + failed
@@ -405,8 +450,9 @@ class RedisJobQueue:
         if not self._deliver:
             return []
         try:
-            stale = self.client.zrangebyscore(self.prefix + "unsent", "-inf",
-                                              self.clock() - RESEND_AFTER_S)
+            stale = self.client.zrangebyscore(
+                self.prefix + "unsent", "-inf", self.clock() - RESEND_AFTER_S
+            )
         except redis.exceptions.RedisError as exc:
             raise self._unavailable(exc) from None
         ids = [i.decode() for i in stale]
@@ -442,4 +488,3 @@ class RedisJobQueue:
             self._delivery.close()
             self._delivery = None
         self.client.close()
-

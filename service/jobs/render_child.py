@@ -78,8 +78,7 @@ def build_settings(options: dict):
 
 def run(spec: dict) -> int:
     """Render ``spec`` (inputs, output, report, options, names); returns the exit status."""
-    from earfold.renderer.errors import RendererError
-    from earfold.renderer.errors import RenderCancelled
+    from earfold.renderer.errors import RenderCancelled, RendererError
     from earfold.renderer.render import render
 
     names = spec.get("names", {})
@@ -93,8 +92,9 @@ def run(spec: dict) -> int:
 
     try:
         settings = build_settings(spec["options"])
-        report = render(spec["inputs"], spec["output"], settings, progress=progress,
-                        cancelled=_cancelled)
+        report = render(
+            spec["inputs"], spec["output"], settings, progress=progress, cancelled=_cancelled
+        )
     except RenderCancelled:
         _emit({"cancelled": True})
         return EXIT_CANCELLED
@@ -108,13 +108,20 @@ def run(spec: dict) -> int:
     tmp.write_text(json.dumps(report, indent=2) + "\n")
     os.replace(tmp, report_path)
     out = report["output"]
-    _emit({"done": {
-        "frames": out["frames"], "samplerate": out["samplerate"], "format": out["format"],
-        "subtype": out["subtype"], "peak_dbfs": out["peak_dbfs"],
-        "clipped_samples": out["clipped_samples"],
-        "x_real_time": report["timings_s"]["x_real_time"],
-        "warnings": [_clean(w, names) for w in report["warnings"]],
-    }})
+    _emit(
+        {
+            "done": {
+                "frames": out["frames"],
+                "samplerate": out["samplerate"],
+                "format": out["format"],
+                "subtype": out["subtype"],
+                "peak_dbfs": out["peak_dbfs"],
+                "clipped_samples": out["clipped_samples"],
+                "x_real_time": report["timings_s"]["x_real_time"],
+                "warnings": [_clean(w, names) for w in report["warnings"]],
+            }
+        }
+    )
     return 0
 
 

@@ -62,8 +62,9 @@ class SqliteJobQueue:
         self.path = Path(path)
         self.clock = clock
         self._lock = threading.RLock()
-        self._db = sqlite3.connect(self.path, timeout=BUSY_TIMEOUT_S, isolation_level=None,
-                                   check_same_thread=False)
+        self._db = sqlite3.connect(
+            self.path, timeout=BUSY_TIMEOUT_S, isolation_level=None, check_same_thread=False
+        )
         self._db.row_factory = sqlite3.Row
         self._db.execute("PRAGMA journal_mode=WAL")
         # NORMAL is durable across application crashes in WAL mode; only a power cut can
@@ -100,8 +101,9 @@ class SqliteJobQueue:
             if self._closed:
                 raise sqlite3.ProgrammingError("the job store is closed")
             uri = self.path.resolve().as_uri() + "?mode=ro"
-            db = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT_S, isolation_level=None,
-                                 check_same_thread=False)
+            db = sqlite3.connect(
+                uri, uri=True, timeout=BUSY_TIMEOUT_S, isolation_level=None, check_same_thread=False
+            )
             db.row_factory = sqlite3.Row
             self._local.db = db
             with self._lock:
@@ -118,12 +120,20 @@ class SqliteJobQueue:
     @staticmethod
     def _job(row: sqlite3.Row) -> Job:
         return Job(
-            id=row["id"], owner=row["owner"], state=JobState(row["state"]),
-            payload=json.loads(row["payload"]), progress=row["progress"],
-            attempts=row["attempts"], message=row["message"],
+            id=row["id"],
+            owner=row["owner"],
+            state=JobState(row["state"]),
+            payload=json.loads(row["payload"]),
+            progress=row["progress"],
+            attempts=row["attempts"],
+            message=row["message"],
             result=None if row["result"] is None else json.loads(row["result"]),
-            worker=row["worker"], lease_expires=row["lease_expires"], created=row["created"],
-            started=row["started"], finished=row["finished"], updated=row["updated"],
+            worker=row["worker"],
+            lease_expires=row["lease_expires"],
+            created=row["created"],
+            started=row["started"],
+            finished=row["finished"],
+            updated=row["updated"],
         )
 
     def _owned_update(self, job_id: str, worker: str, sets: str, params: tuple) -> bool:
@@ -154,7 +164,8 @@ class SqliteJobQueue:
         now = self.clock()
         with self._write() as db:
             row = db.execute(
-                "SELECT id FROM jobs WHERE state = 'queued' ORDER BY seq LIMIT 1").fetchone()
+                "SELECT id FROM jobs WHERE state = 'queued' ORDER BY seq LIMIT 1"
+            ).fetchone()
             if row is None:
                 return None
             db.execute(
@@ -173,21 +184,29 @@ class SqliteJobQueue:
 
     def complete(self, job_id: str, worker: str, result: Mapping) -> bool:
         return self._owned_update(
-            job_id, worker,
+            job_id,
+            worker,
             "state = 'done', progress = 1, result = ?, finished = ?, lease_expires = NULL",
-            (json.dumps(dict(result)), self.clock()))
+            (json.dumps(dict(result)), self.clock()),
+        )
 
     def fail(self, job_id: str, worker: str, message: str) -> bool:
         return self._owned_update(
-            job_id, worker, "state = 'failed', message = ?, finished = ?, lease_expires = NULL",
-            (message, self.clock()))
+            job_id,
+            worker,
+            "state = 'failed', message = ?, finished = ?, lease_expires = NULL",
+            (message, self.clock()),
+        )
 
     def release(self, job_id: str, worker: str, *, count_attempt: bool = False) -> bool:
         keep = "attempts" if count_attempt else "MAX(attempts - 1, 0)"
         return self._owned_update(
-            job_id, worker,
+            job_id,
+            worker,
             "state = 'queued', worker = NULL, lease_expires = NULL, progress = 0, "
-            f"attempts = {keep}", ())
+            f"attempts = {keep}",
+            (),
+        )
 
     def cancel(self, job_id: str) -> Job:
         now = self.clock()
@@ -198,14 +217,16 @@ class SqliteJobQueue:
             db.execute(
                 "UPDATE jobs SET state = 'cancelled', finished = ?, updated = ?, "
                 "lease_expires = NULL, message = 'cancelled on request' WHERE id = ?",
-                (now, now, job_id))
+                (now, now, job_id),
+            )
             return self._job(self._row(job_id))
 
     def get(self, job_id: str) -> Job:
         return self._job(self._row(job_id, self._reader()))
 
-    def list(self, owner: str | None = None, *, active: bool | None = None,
-             limit: int = 1000) -> list[Job]:
+    def list(
+        self, owner: str | None = None, *, active: bool | None = None, limit: int = 1000
+    ) -> list[Job]:
         where, params = [], []
         if owner is not None:
             where.append("owner = ?")
@@ -230,17 +251,21 @@ class SqliteJobQueue:
         with self._write() as db:
             rows = db.execute(
                 "SELECT id, attempts FROM jobs WHERE state = 'running' AND lease_expires < ?",
-                (now,)).fetchall()
+                (now,),
+            ).fetchall()
             for row in rows:
                 if row["attempts"] >= max_attempts:
                     db.execute(
                         "UPDATE jobs SET state = 'failed', finished = ?, updated = ?, "
                         "lease_expires = NULL, message = ? WHERE id = ?",
-                        (now, now, _poison_message(row["attempts"]), row["id"]))
+                        (now, now, _poison_message(row["attempts"]), row["id"]),
+                    )
                 else:
                     db.execute(
                         "UPDATE jobs SET state = 'queued', worker = NULL, lease_expires = NULL, "
-                        "progress = 0, updated = ? WHERE id = ?", (now, row["id"]))
+                        "progress = 0, updated = ? WHERE id = ?",
+                        (now, row["id"]),
+                    )
             return [r["id"] for r in rows]
 
     def counts(self) -> dict[str, int]:
@@ -258,6 +283,8 @@ class SqliteJobQueue:
 
 
 def _poison_message(attempts: int) -> str:
-    return (f"the render stopped its worker {attempts} times (a crash or running out of "
-            "memory) and was given up; the stem may be damaged or too large for this server; "
-            "check it with 'earfold render' on the command line")
+    return (
+        f"the render stopped its worker {attempts} times (a crash or running out of "
+        "memory) and was given up; the stem may be damaged or too large for this server; "
+        "check it with 'earfold render' on the command line"
+    )

@@ -25,8 +25,9 @@ FINISHED = frozenset({JobState.DONE, JobState.FAILED, JobState.CANCELLED})
 #: handing a job back on shutdown.
 TRANSITIONS: dict[JobState, frozenset[JobState]] = {
     JobState.QUEUED: frozenset({JobState.RUNNING, JobState.CANCELLED, JobState.FAILED}),
-    JobState.RUNNING: frozenset({JobState.DONE, JobState.FAILED, JobState.CANCELLED,
-                                 JobState.QUEUED}),
+    JobState.RUNNING: frozenset(
+        {JobState.DONE, JobState.FAILED, JobState.CANCELLED, JobState.QUEUED}
+    ),
     JobState.DONE: frozenset(),
     JobState.FAILED: frozenset(),
     JobState.CANCELLED: frozenset(),

@@ -41,9 +41,16 @@ RECOVER_INTERVAL_S = 1.0
 #: Thread counts of the numeric libraries in a render child. Parallelism comes from the
 #: worker processes (one render each); a render that also spread over every core would
 #: compete with the others and with the API for the same cores.
-SINGLE_THREADED = {name: "1" for name in (
-    "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMEXPR_NUM_THREADS",
-    "VECLIB_MAXIMUM_THREADS")}
+SINGLE_THREADED = {
+    name: "1"
+    for name in (
+        "OMP_NUM_THREADS",
+        "OPENBLAS_NUM_THREADS",
+        "MKL_NUM_THREADS",
+        "NUMEXPR_NUM_THREADS",
+        "VECLIB_MAXIMUM_THREADS",
+    )
+}
 
 
 def child_environment(base: dict[str, str] | None = None) -> dict[str, str]:
@@ -78,21 +85,28 @@ def child_spec(storage: Storage, job: Job) -> dict:
         names[str(path)] = hrtf["name"]
     output, report = output_paths(storage, job)
     output.parent.mkdir(parents=True, exist_ok=True)
-    return {"inputs": inputs, "output": str(output), "report": str(report),
-            "options": options, "names": names,
-            "input_names": [f["name"] for f in stem["files"]],
-            "output_name": payload.get("download_name")}
+    return {
+        "inputs": inputs,
+        "output": str(output),
+        "report": str(report),
+        "options": options,
+        "names": names,
+        "input_names": [f["name"] for f in stem["files"]],
+        "output_name": payload.get("download_name"),
+    }
 
 
 class Worker:
     """Claims and runs jobs until :meth:`stop` is called (or its parent process dies)."""
 
-    def __init__(self, settings: ServiceSettings, queue: JobQueue | None = None,
-                 *, name: str | None = None) -> None:
+    def __init__(
+        self, settings: ServiceSettings, queue: JobQueue | None = None, *, name: str | None = None
+    ) -> None:
         self.settings = settings
         self.storage = Storage(settings.data_dir)
-        self.queue = queue or open_queue(settings.queue_url, str(settings.data_dir),
-                                         **settings.broker_options())
+        self.queue = queue or open_queue(
+            settings.queue_url, str(settings.data_dir), **settings.broker_options()
+        )
         self.name = name or f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
         self._stop = threading.Event()
         self._parent = os.getppid()
@@ -153,8 +167,11 @@ class Worker:
         else:
             proc = subprocess.Popen(
                 self.comparison_command if comparison else self.child_command,
-                stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True,
-                cwd=os.getcwd(), env=child_environment(),
+                stdin=subprocess.PIPE,
+                stdout=subprocess.PIPE,
+                text=True,
+                cwd=os.getcwd(),
+                env=child_environment(),
             )
         messages: list[dict] = []
         latest = {"progress": 0.0}
@@ -219,8 +236,15 @@ class Worker:
             # rendered again (delivery is at least once; outputs are replaced atomically).
             pass
 
-    def _record(self, job: Job, spec: dict, proc: subprocess.Popen, final: dict,
-                lost: bool, handed_back: bool) -> None:
+    def _record(
+        self,
+        job: Job,
+        spec: dict,
+        proc: subprocess.Popen,
+        final: dict,
+        lost: bool,
+        handed_back: bool,
+    ) -> None:
         """Record how a render ended, retrying while a network store is briefly down."""
         deadline = time.monotonic() + self.settings.lease_s
         while True:
@@ -231,8 +255,15 @@ class Worker:
                     raise
                 time.sleep(min(1.0, self.settings.lease_s / 4))
 
-    def _record_once(self, job: Job, spec: dict, proc: subprocess.Popen, final: dict,
-                     lost: bool, handed_back: bool) -> None:
+    def _record_once(
+        self,
+        job: Job,
+        spec: dict,
+        proc: subprocess.Popen,
+        final: dict,
+        lost: bool,
+        handed_back: bool,
+    ) -> None:
         q, s = self.queue, self.settings
         if lost or handed_back:
             self._remove_partial(spec)
@@ -251,10 +282,13 @@ class Worker:
             self._remove_partial(spec)
             current = q.get(job.id)
             if current.attempts >= s.max_attempts:
-                q.fail(job.id, self.name,
-                       f"the render process died {current.attempts} times (exit status "
-                       f"{proc.returncode}; a crash or running out of memory) and was given up; "
-                       "the stem may be damaged or too large for this server")
+                q.fail(
+                    job.id,
+                    self.name,
+                    f"the render process died {current.attempts} times (exit status "
+                    f"{proc.returncode}; a crash or running out of memory) and was given up; "
+                    "the stem may be damaged or too large for this server",
+                )
             else:
                 q.release(job.id, self.name, count_attempt=True)
 

@@ -26,13 +26,23 @@ from ..comparisons import session as sessions
 from ..comparisons.assignment import draw_trials
 from ..jobs import JobNotFound, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND
-from ..problems import (BAD_REQUEST, CONFLICT, NOT_FOUND, QUEUE_FULL, UNAUTHORIZED, UNAVAILABLE,
-                        UNPROCESSABLE, Problem, problem_responses)
+from ..problems import (
+    BAD_REQUEST,
+    CONFLICT,
+    NOT_FOUND,
+    QUEUE_FULL,
+    UNAUTHORIZED,
+    UNAVAILABLE,
+    UNPROCESSABLE,
+    Problem,
+    problem_responses,
+)
 from ..storage import META, Storage, new_id, valid_id, write_json_atomic
 from .renders import RenderRequest, render_options
 
-router = APIRouter(prefix="/v1/comparisons", tags=["comparisons"],
-                   responses=problem_responses(UNAUTHORIZED))
+router = APIRouter(
+    prefix="/v1/comparisons", tags=["comparisons"], responses=problem_responses(UNAUTHORIZED)
+)
 
 #: Longest excerpt (s). Every variant's excerpt is decoded in the listener's browser at
 #: once (4 variants x 60 s of 48 kHz stereo float is about 90 MB of buffers).
@@ -57,7 +67,8 @@ class VariantRequest(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     name: Annotated[str, Field(min_length=1, max_length=64)] | None = Field(
-        None, description="shown in the results only; default 'variant N'")
+        None, description="shown in the results only; default 'variant N'"
+    )
     layout: Annotated[str, Field(max_length=64)] | dict | None = None
     channel_order: list[Label] | None = Field(None, max_length=64)
     hrtf: Annotated[str, Field(max_length=64)] | None = None
@@ -83,8 +94,9 @@ class ComparisonRequest(BaseModel):
 
     stem_id: str = Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")
     variants: list[VariantRequest] = Field(min_length=2, max_length=8)
-    mode: Literal["ab", "abx"] = Field("ab", description="ab: which do you prefer; abx: is X "
-                                       "A or B (exactly 2 variants)")
+    mode: Literal["ab", "abx"] = Field(
+        "ab", description="ab: which do you prefer; abx: is X A or B (exactly 2 variants)"
+    )
     trials: int = Field(10, ge=1, le=100)
     excerpt: ExcerptRequest = Field(default_factory=ExcerptRequest)
 
@@ -135,8 +147,10 @@ class ComparisonView(BaseModel):
 
 
 def _variant_error(index: int, exc: ValidationError) -> Problem:
-    errors = [{"field": ".".join(["variants", str(index), *map(str, e["loc"])]),
-               "message": e["msg"]} for e in exc.errors()]
+    errors = [
+        {"field": ".".join(["variants", str(index), *map(str, e["loc"])]), "message": e["msg"]}
+        for e in exc.errors()
+    ]
     detail = "; ".join(f"{e['field']}: {e['message']}" for e in errors)
     return Problem(UNPROCESSABLE, detail, title="Invalid request", errors=errors)
 
@@ -162,94 +176,146 @@ def _view(request: Request, meta: dict) -> dict:
 
 
 def _json(data: object, status: int = 200, headers: dict | None = None) -> Response:
-    return Response(json.dumps(data, separators=(",", ":")), status_code=status,
-                    media_type="application/json", headers=headers)
+    return Response(
+        json.dumps(data, separators=(",", ":")),
+        status_code=status,
+        media_type="application/json",
+        headers=headers,
+    )
 
 
-@router.post("", status_code=202, summary="Start a blind comparison", response_model=None,
-             responses={202: {"model": ComparisonView},
-                        **problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE)})
-def create_comparison(req: ComparisonRequest, request: Request,
-                      owner: str = Depends(current_owner)) -> Response:
+@router.post(
+    "",
+    status_code=202,
+    summary="Start a blind comparison",
+    response_model=None,
+    responses={
+        202: {"model": ComparisonView},
+        **problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE),
+    },
+)
+def create_comparison(
+    req: ComparisonRequest, request: Request, owner: str = Depends(current_owner)
+) -> Response:
     settings = request.app.state.settings
     storage: Storage = request.app.state.storage
     stem = storage.read_meta("stems", req.stem_id, owner)
     if req.mode == "abx" and len(req.variants) != 2:
-        raise Problem(UNPROCESSABLE, f"abx compares exactly 2 variants; {len(req.variants)} "
-                      "were given (use mode 'ab' for more)")
+        raise Problem(
+            UNPROCESSABLE,
+            f"abx compares exactly 2 variants; {len(req.variants)} "
+            "were given (use mode 'ab' for more)",
+        )
     duration = float(stem.get("duration_s") or stem["frames"] / stem["samplerate"])
     ex = req.excerpt
     if ex.start is not None:
         if ex.start >= duration:
-            raise Problem(UNPROCESSABLE, f"excerpt.start is {ex.start:g} s but the stem is only "
-                          f"{duration:.3f} s long")
+            raise Problem(
+                UNPROCESSABLE,
+                f"excerpt.start is {ex.start:g} s but the stem is only {duration:.3f} s long",
+            )
         if ex.start + ex.length > duration + 1e-6:
-            raise Problem(UNPROCESSABLE, f"the excerpt ({ex.start:g} s + {ex.length:g} s) runs "
-                          f"past the end of the stem ({duration:.3f} s); shorten it or start "
-                          "earlier")
+            raise Problem(
+                UNPROCESSABLE,
+                f"the excerpt ({ex.start:g} s + {ex.length:g} s) runs "
+                f"past the end of the stem ({duration:.3f} s); shorten it or start "
+                "earlier",
+            )
     variants = []
     for i, v in enumerate(req.variants):
         fields = v.model_dump(exclude={"name"})
         try:
-            render_req = RenderRequest(stem_id=req.stem_id, loudness="none", true_peak="off",
-                                       subtype="FLOAT", format="wav", **fields)
+            render_req = RenderRequest(
+                stem_id=req.stem_id,
+                loudness="none",
+                true_peak="off",
+                subtype="FLOAT",
+                format="wav",
+                **fields,
+            )
         except ValidationError as exc:
             raise _variant_error(i, exc) from None
         try:
             options, hrtf_id = render_options(render_req, stem, storage, owner)
         except Problem as exc:
             raise Problem(exc.status, f"variant {i + 1}: {exc.detail}") from None
-        variants.append({"name": v.name or f"variant {i + 1}", "request": fields,
-                         "options": options, "hrtf_id": hrtf_id})
+        variants.append(
+            {
+                "name": v.name or f"variant {i + 1}",
+                "request": fields,
+                "options": options,
+                "hrtf_id": hrtf_id,
+            }
+        )
     trials = draw_trials(len(variants), req.mode, req.trials)
     session_id = new_id()
     now = time.time()
-    excerpt = {"start": ex.start, "length": min(ex.length, duration),
-               "automatic": ex.start is None}
+    excerpt = {"start": ex.start, "length": min(ex.length, duration), "automatic": ex.start is None}
     meta = {
-        "id": session_id, "owner": owner, "created_ts": now, "stem_id": req.stem_id,
-        "mode": req.mode, "excerpt": excerpt, "variants": variants,
-        "trials": [t.to_dict() for t in trials], "finished": False, "finished_ts": None,
+        "id": session_id,
+        "owner": owner,
+        "created_ts": now,
+        "stem_id": req.stem_id,
+        "mode": req.mode,
+        "excerpt": excerpt,
+        "variants": variants,
+        "trials": [t.to_dict() for t in trials],
+        "finished": False,
+        "finished_ts": None,
     }
     tmp = storage.new_tmp()
     write_json_atomic(tmp / META, meta)
     storage.commit(tmp, "comparisons", session_id)
-    payload = {"kind": COMPARISON_KIND, "comparison_id": session_id, "stem_id": req.stem_id,
-               "excerpt": {"start": ex.start, "length": excerpt["length"]},
-               "variants": [{"options": v["options"], "hrtf_id": v["hrtf_id"]}
-                            for v in variants]}
+    payload = {
+        "kind": COMPARISON_KIND,
+        "comparison_id": session_id,
+        "stem_id": req.stem_id,
+        "excerpt": {"start": ex.start, "length": excerpt["length"]},
+        "variants": [{"options": v["options"], "hrtf_id": v["hrtf_id"]} for v in variants],
+    }
     try:
-        job = request.app.state.queue.submit(session_id, owner, payload,
-                                             max_queued=settings.max_queued)
+        job = request.app.state.queue.submit(
+            session_id, owner, payload, max_queued=settings.max_queued
+        )
     except QueueFull as exc:
         storage.delete("comparisons", session_id)
-        raise Problem(QUEUE_FULL, f"the queue is full ({exc}); try again in a minute",
-                      headers={"Retry-After": "30"}) from None
+        raise Problem(
+            QUEUE_FULL,
+            f"the queue is full ({exc}); try again in a minute",
+            headers={"Retry-After": "30"},
+        ) from None
     view = sessions.public_view(meta, None, job)
     return _json(view, 202, {"Location": f"/v1/comparisons/{session_id}"})
 
 
-@router.get("", summary="List your comparisons, newest first",
-            response_model=list[ComparisonView])
+@router.get("", summary="List your comparisons, newest first", response_model=list[ComparisonView])
 def list_comparisons(request: Request, owner: str = Depends(current_owner)) -> list[dict]:
     storage: Storage = request.app.state.storage
     metas = sorted(storage.list_meta("comparisons", owner), key=lambda m: -m["created_ts"])
     return [_view(request, m) for m in metas]
 
 
-@router.get("/{comparison_id}", summary="State, progress and trials of a comparison",
-            response_model=None,
-            responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND)})
-def get_comparison(comparison_id: str, request: Request,
-                   owner: str = Depends(current_owner)) -> Response:
+@router.get(
+    "/{comparison_id}",
+    summary="State, progress and trials of a comparison",
+    response_model=None,
+    responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND)},
+)
+def get_comparison(
+    comparison_id: str, request: Request, owner: str = Depends(current_owner)
+) -> Response:
     return _json(_view(request, _session(request, comparison_id, owner)))
 
 
-@router.delete("/{comparison_id}", status_code=204, summary="Delete a comparison (its build "
-               "is cancelled if still running)",
-               responses=problem_responses(NOT_FOUND))
-def delete_comparison(comparison_id: str, request: Request,
-                      owner: str = Depends(current_owner)) -> Response:
+@router.delete(
+    "/{comparison_id}",
+    status_code=204,
+    summary="Delete a comparison (its build is cancelled if still running)",
+    responses=problem_responses(NOT_FOUND),
+)
+def delete_comparison(
+    comparison_id: str, request: Request, owner: str = Depends(current_owner)
+) -> Response:
     _session(request, comparison_id, owner)
     queue = request.app.state.queue
     try:
@@ -264,19 +330,25 @@ def delete_comparison(comparison_id: str, request: Request,
     return Response(status_code=204)
 
 
-@router.get("/{comparison_id}/audio/{token}", summary="The audio of one label of one trial",
-            response_class=Response,
-            responses={200: {"content": {"audio/wav": {}}},
-                       **problem_responses(NOT_FOUND, CONFLICT)})
-def get_trial_audio(comparison_id: str, request: Request,
-                    token: str = Path(pattern=r"^[0-9a-f]{32}$"),
-                    owner: str = Depends(current_owner)) -> Response:
+@router.get(
+    "/{comparison_id}/audio/{token}",
+    summary="The audio of one label of one trial",
+    response_class=Response,
+    responses={200: {"content": {"audio/wav": {}}}, **problem_responses(NOT_FOUND, CONFLICT)},
+)
+def get_trial_audio(
+    comparison_id: str,
+    request: Request,
+    token: str = Path(pattern=r"^[0-9a-f]{32}$"),
+    owner: str = Depends(current_owner),
+) -> Response:
     meta = _session(request, comparison_id, owner)
     storage: Storage = request.app.state.storage
     built = sessions.prepared(storage, comparison_id)
     if built is None:
-        raise Problem(CONFLICT, "the comparison is still being prepared; poll it until its "
-                      "state is 'ready'")
+        raise Problem(
+            CONFLICT, "the comparison is still being prepared; poll it until its state is 'ready'"
+        )
     variant = None
     for trial in meta["trials"]:
         for label, t in trial["tokens"].items():
@@ -292,28 +364,43 @@ def get_trial_audio(comparison_id: str, request: Request,
     return Response(data, media_type="audio/wav", headers=AUDIO_HEADERS)
 
 
-@router.post("/{comparison_id}/trials/{index}/answer", summary="Answer one trial",
-             response_model=None,
-             responses={200: {"model": ComparisonView},
-                        **problem_responses(BAD_REQUEST, NOT_FOUND, CONFLICT)})
-def answer_trial(comparison_id: str, body: AnswerRequest, request: Request,
-                 index: int = Path(ge=0, le=99),
-                 owner: str = Depends(current_owner)) -> Response:
+@router.post(
+    "/{comparison_id}/trials/{index}/answer",
+    summary="Answer one trial",
+    response_model=None,
+    responses={
+        200: {"model": ComparisonView},
+        **problem_responses(BAD_REQUEST, NOT_FOUND, CONFLICT),
+    },
+)
+def answer_trial(
+    comparison_id: str,
+    body: AnswerRequest,
+    request: Request,
+    index: int = Path(ge=0, le=99),
+    owner: str = Depends(current_owner),
+) -> Response:
     def step(meta: dict, built: dict) -> None:
         try:
             sessions.answer(meta, index, body.choice, built)
         except IndexError:
-            raise Problem(NOT_FOUND, f"no trial {index}; this comparison has trials 0 to "
-                          f"{len(meta['trials']) - 1}") from None
+            raise Problem(
+                NOT_FOUND,
+                f"no trial {index}; this comparison has trials 0 to {len(meta['trials']) - 1}",
+            ) from None
 
     return _change(request, comparison_id, owner, step)
 
 
-@router.post("/{comparison_id}/finish", summary="Finish now and open the reveal",
-             response_model=None,
-             responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND, CONFLICT)})
-def finish_comparison(comparison_id: str, request: Request,
-                      owner: str = Depends(current_owner)) -> Response:
+@router.post(
+    "/{comparison_id}/finish",
+    summary="Finish now and open the reveal",
+    response_model=None,
+    responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND, CONFLICT)},
+)
+def finish_comparison(
+    comparison_id: str, request: Request, owner: str = Depends(current_owner)
+) -> Response:
     return _change(request, comparison_id, owner, sessions.finish)
 
 
@@ -333,20 +420,35 @@ def _change(request: Request, comparison_id: str, owner: str, step) -> Response:
     return _json(_view(request, meta))
 
 
-@router.get("/{comparison_id}/results", summary="The reveal: mapping, counts, statistics "
-            "(JSON or CSV)", response_model=None,
-            responses={200: {"content": {"application/json": {}, "text/csv": {}}},
-                       **problem_responses(NOT_FOUND, CONFLICT)})
-def get_results(comparison_id: str, request: Request,
-                format: Literal["json", "csv"] = Query("json"),
-                owner: str = Depends(current_owner)) -> Response:
+@router.get(
+    "/{comparison_id}/results",
+    summary="The reveal: mapping, counts, statistics (JSON or CSV)",
+    response_model=None,
+    responses={
+        200: {"content": {"application/json": {}, "text/csv": {}}},
+        **problem_responses(NOT_FOUND, CONFLICT),
+    },
+)
+def get_results(
+    comparison_id: str,
+    request: Request,
+    format: Literal["json", "csv"] = Query("json"),
+    owner: str = Depends(current_owner),
+) -> Response:
     meta = _session(request, comparison_id, owner)
     built = sessions.prepared(request.app.state.storage, comparison_id)
     if built is None or not meta.get("finished"):
-        raise Problem(CONFLICT, "the results open once every trial is answered or the "
-                      "comparison is finished (POST .../finish)")
+        raise Problem(
+            CONFLICT,
+            "the results open once every trial is answered or the "
+            "comparison is finished (POST .../finish)",
+        )
     if format == "csv":
-        return Response(sessions.reveal_csv(meta, built), media_type="text/csv",
-                        headers={"Content-Disposition":
-                                 f'attachment; filename="comparison-{comparison_id}.csv"'})
+        return Response(
+            sessions.reveal_csv(meta, built),
+            media_type="text/csv",
+            headers={
+                "Content-Disposition": f'attachment; filename="comparison-{comparison_id}.csv"'
+            },
+        )
     return _json(sessions.reveal(meta, built))

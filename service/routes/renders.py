@@ -25,15 +25,25 @@ from earfold.renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_
 from ..auth import current_owner
 from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND, output_paths
-from ..problems import (BAD_REQUEST, CONFLICT, NOT_FOUND, QUEUE_FULL, RANGE_NOT_SATISFIABLE,
-                        UNAUTHORIZED, UNAVAILABLE, UNPROCESSABLE, Problem,
-                        problem_responses)
+from ..problems import (
+    BAD_REQUEST,
+    CONFLICT,
+    NOT_FOUND,
+    QUEUE_FULL,
+    RANGE_NOT_SATISFIABLE,
+    UNAUTHORIZED,
+    UNAVAILABLE,
+    UNPROCESSABLE,
+    Problem,
+    problem_responses,
+)
 from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
 
-router = APIRouter(prefix="/v1/renders", tags=["renders"],
-                   responses=problem_responses(UNAUTHORIZED))
+router = APIRouter(
+    prefix="/v1/renders", tags=["renders"], responses=problem_responses(UNAUTHORIZED)
+)
 
 Label = Annotated[str, Field(min_length=1, max_length=16)]
 Lufs = Annotated[float, Field(gt=-70, lt=0, allow_inf_nan=False)]
@@ -50,8 +60,13 @@ class EqBand(BaseModel):
 
     type: Literal["peaking", "low_shelf", "high_shelf", "low_pass", "high_pass"]
     frequency: float = Field(gt=0, le=96000, allow_inf_nan=False, description="Hz")
-    gain_db: float = Field(0.0, ge=-24, le=24, allow_inf_nan=False,
-                           description="dB (peaking and shelves; ignored by the pass filters)")
+    gain_db: float = Field(
+        0.0,
+        ge=-24,
+        le=24,
+        allow_inf_nan=False,
+        description="dB (peaking and shelves; ignored by the pass filters)",
+    )
     q: float = Field(0.7071067811865476, ge=0.05, le=50, allow_inf_nan=False)
 
 
@@ -62,27 +77,38 @@ class RenderRequest(BaseModel):
 
     stem_id: str = Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")
     layout: Annotated[str, Field(max_length=64)] | dict | None = Field(
-        None, description="layout name (GET /v1/layouts) or a layout object; default: the "
-        "stem's suggested layout")
-    channel_order: list[Label] | None = Field(None, max_length=64,
-                                              description="labels of the file channels in order")
+        None,
+        description="layout name (GET /v1/layouts) or a layout object; default: the "
+        "stem's suggested layout",
+    )
+    channel_order: list[Label] | None = Field(
+        None, max_length=64, description="labels of the file channels in order"
+    )
     hrtf: Annotated[str, Field(max_length=64)] | None = Field(
-        None, description="shipped set name or uploaded set id (GET /v1/hrtf-sets)")
+        None, description="shipped set name or uploaded set id (GET /v1/hrtf-sets)"
+    )
     room: Annotated[str, Field(max_length=64)] = Field("none", description="GET /v1/rooms")
     loudness: Lufs | Literal["match", "none"] | None = Field(
-        None, description="integrated loudness target in LUFS, 'match' or 'none'")
+        None, description="integrated loudness target in LUFS, 'match' or 'none'"
+    )
     true_peak: Dbtp | Literal["off"] | None = Field(None, description="ceiling in dBTP or 'off'")
     eq: Literal["none", "diffuse-field"] | None = Field(
-        None, description="HRTF set equalisation; default diffuse-field for free-field sets, "
-        "none for sets that hold a room")
+        None,
+        description="HRTF set equalisation; default diffuse-field for free-field sets, "
+        "none for sets that hold a room",
+    )
     headphone_eq: list[EqBand] | None = Field(
-        None, min_length=1, max_length=64,
-        description="headphone compensation applied to the output: parametric bands")
+        None,
+        min_length=1,
+        max_length=64,
+        description="headphone compensation applied to the output: parametric bands",
+    )
     format: Literal["wav", "flac"] = "wav"
     subtype: Literal["PCM_16", "PCM_24", "FLOAT"] = "PCM_24"
     seed: int = Field(0, ge=0, le=2**32 - 1)
-    block_size: int | None = Field(None, ge=64, le=65536,
-                                   description="engine block size in frames (advanced)")
+    block_size: int | None = Field(
+        None, ge=64, le=65536, description="engine block size in frames (advanced)"
+    )
 
 
 def _iso(ts: float | None) -> str | None:
@@ -96,9 +122,12 @@ def render_view(job: Job) -> dict:
     """The public JSON of a render job."""
     base = f"/v1/renders/{job.id}"
     done = job.state is JobState.DONE
-    links = {"self": base, "stem": f"/v1/stems/{job.payload.get('stem_id')}",
-             "audio": f"{base}/audio" if done else None,
-             "report": f"{base}/report" if done else None}
+    links = {
+        "self": base,
+        "stem": f"/v1/stems/{job.payload.get('stem_id')}",
+        "audio": f"{base}/audio" if done else None,
+        "report": f"{base}/report" if done else None,
+    }
     return {
         "id": job.id,
         "state": job.state.value,
@@ -118,9 +147,12 @@ def _layout(value: str | dict | None, stem: dict) -> Layout:
     if value is None:
         value = stem.get("suggested_layout")
         if value is None:
-            raise Problem(UNPROCESSABLE, f"the stem has {stem['channels']} channels and no layout "
-                          f"is suggested for it; give 'layout' (one of {', '.join(LAYOUTS)}) "
-                          "or a layout object")
+            raise Problem(
+                UNPROCESSABLE,
+                f"the stem has {stem['channels']} channels and no layout "
+                f"is suggested for it; give 'layout' (one of {', '.join(LAYOUTS)}) "
+                "or a layout object",
+            )
     if isinstance(value, dict):
         try:
             return layout_from_dict(value, name="custom", origin="layout")
@@ -130,8 +162,10 @@ def _layout(value: str | dict | None, stem: dict) -> Layout:
     for name, layout in LAYOUTS.items():
         if name.lower() == value.strip().lower():
             return layout
-    raise Problem(UNPROCESSABLE, f"unknown layout {value!r}; choose one of {', '.join(LAYOUTS)} "
-                  "or send a layout object")
+    raise Problem(
+        UNPROCESSABLE,
+        f"unknown layout {value!r}; choose one of {', '.join(LAYOUTS)} or send a layout object",
+    )
 
 
 def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, str | None]:
@@ -150,8 +184,11 @@ def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, 
         except Problem:
             pass
     names = ", ".join(repr(s.name) for s in SHIPPED)
-    raise Problem(UNPROCESSABLE, f"unknown HRTF set {value!r}; shipped sets: {names}, or the id "
-                  "of a set you uploaded (GET /v1/hrtf-sets)")
+    raise Problem(
+        UNPROCESSABLE,
+        f"unknown HRTF set {value!r}; shipped sets: {names}, or the id "
+        "of a set you uploaded (GET /v1/hrtf-sets)",
+    )
 
 
 def _delivery_options(req: RenderRequest) -> dict:
@@ -162,18 +199,23 @@ def _delivery_options(req: RenderRequest) -> dict:
     out: dict = {}
     rooms = room_names()
     if req.room not in rooms:
-        raise Problem(UNPROCESSABLE, f"unknown room {req.room!r}; choose one of "
-                      f"{', '.join(rooms)}")
-    checks = (("room", req.room, "none"), ("loudness", req.loudness, "none"),
-              ("true_peak", req.true_peak, "off"))
+        raise Problem(UNPROCESSABLE, f"unknown room {req.room!r}; choose one of {', '.join(rooms)}")
+    checks = (
+        ("room", req.room, "none"),
+        ("loudness", req.loudness, "none"),
+        ("true_peak", req.true_peak, "off"),
+    )
     for name, value, neutral in checks:
         if value is None:
             continue
         if name in available:
             out[name] = value
         elif value != neutral:
-            raise Problem(UNPROCESSABLE, f"option {name!r} is not available in this version of "
-                          f"the renderer yet; leave it out or set it to {neutral!r}")
+            raise Problem(
+                UNPROCESSABLE,
+                f"option {name!r} is not available in this version of "
+                f"the renderer yet; leave it out or set it to {neutral!r}",
+            )
     return out
 
 
@@ -197,16 +239,20 @@ def _job(request: Request, render_id: str, owner: str) -> Job:
     return job
 
 
-def render_options(req: RenderRequest, stem: dict, storage: Storage,
-                   owner: str) -> tuple[dict, str | None]:
+def render_options(
+    req: RenderRequest, stem: dict, storage: Storage, owner: str
+) -> tuple[dict, str | None]:
     """A render job's options and uploaded HRTF id for ``req`` on ``stem``, every option
     checked against the stem's probe (422 problems otherwise). Also used by comparisons,
     whose variants are renders of one stem."""
     layout = _layout(req.layout, stem)
     if layout.channels != stem["channels"]:
-        raise Problem(UNPROCESSABLE, f"the stem has {stem['channels']} channel(s) but layout "
-                      f"{layout.name!r} has {layout.channels} ({', '.join(layout.labels)}); "
-                      "choose the layout the stem was mixed for")
+        raise Problem(
+            UNPROCESSABLE,
+            f"the stem has {stem['channels']} channel(s) but layout "
+            f"{layout.name!r} has {layout.channels} ({', '.join(layout.labels)}); "
+            "choose the layout the stem was mixed for",
+        )
     try:
         if req.channel_order:
             resolve_channel_order(layout, req.channel_order)
@@ -215,17 +261,23 @@ def render_options(req: RenderRequest, stem: dict, storage: Storage,
     except LayoutError as exc:
         raise Problem(UNPROCESSABLE, str(exc)) from None
     if req.block_size is not None and req.block_size & (req.block_size - 1):
-        raise Problem(UNPROCESSABLE, f"block_size must be a power of two (64 to 65536), got "
-                      f"{req.block_size}")
+        raise Problem(
+            UNPROCESSABLE, f"block_size must be a power of two (64 to 65536), got {req.block_size}"
+        )
     if req.format == "flac" and req.subtype == "FLOAT":
-        raise Problem(UNPROCESSABLE, "FLAC holds integer samples only; choose subtype PCM_16 or "
-                      "PCM_24, or format 'wav'")
+        raise Problem(
+            UNPROCESSABLE,
+            "FLAC holds integer samples only; choose subtype PCM_16 or PCM_24, or format 'wav'",
+        )
     shipped, hrtf_id = _hrtf(req.hrtf, storage, owner)
     for i, band in enumerate(req.headphone_eq or []):
         if band.frequency >= stem["samplerate"] / 2:
-            raise Problem(UNPROCESSABLE, f"headphone_eq band {i + 1}: frequency "
-                          f"{band.frequency:g} Hz is not below the stem's Nyquist frequency, "
-                          f"{stem['samplerate'] / 2:g} Hz")
+            raise Problem(
+                UNPROCESSABLE,
+                f"headphone_eq band {i + 1}: frequency "
+                f"{band.frequency:g} Hz is not below the stem's Nyquist frequency, "
+                f"{stem['samplerate'] / 2:g} Hz",
+            )
     options = {
         "layout": layout.to_dict() if isinstance(req.layout, dict) else layout.name,
         "channel_order": req.channel_order,
@@ -235,47 +287,66 @@ def render_options(req: RenderRequest, stem: dict, storage: Storage,
         "seed": req.seed,
         "block_size": req.block_size,
         "eq": req.eq,
-        "headphone_eq": (None if req.headphone_eq is None
-                         else [b.model_dump() for b in req.headphone_eq]),
+        "headphone_eq": (
+            None if req.headphone_eq is None else [b.model_dump() for b in req.headphone_eq]
+        ),
         **_delivery_options(req),
     }
     return options, hrtf_id
 
 
-@router.post("", status_code=202, summary="Queue a render", response_model=RenderView,
-             responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE))
-def create_render(req: RenderRequest, request: Request, response: Response,
-                  owner: str = Depends(current_owner)) -> dict:
+@router.post(
+    "",
+    status_code=202,
+    summary="Queue a render",
+    response_model=RenderView,
+    responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE),
+)
+def create_render(
+    req: RenderRequest, request: Request, response: Response, owner: str = Depends(current_owner)
+) -> dict:
     settings = request.app.state.settings
     storage: Storage = request.app.state.storage
     stem = storage.read_meta("stems", req.stem_id, owner)
     options, hrtf_id = render_options(req, stem, storage, owner)
-    payload = {"stem_id": req.stem_id, "hrtf_id": hrtf_id, "options": options,
-               "download_name": _download_name(stem, req.format),
-               "request": req.model_dump()}
+    payload = {
+        "stem_id": req.stem_id,
+        "hrtf_id": hrtf_id,
+        "options": options,
+        "download_name": _download_name(stem, req.format),
+        "request": req.model_dump(),
+    }
     job_id = new_id()
     try:
-        job = request.app.state.queue.submit(job_id, owner, payload,
-                                             max_queued=settings.max_queued)
+        job = request.app.state.queue.submit(job_id, owner, payload, max_queued=settings.max_queued)
     except QueueFull as exc:
-        raise Problem(QUEUE_FULL, f"the queue is full ({exc}); try again in a minute",
-                      headers={"Retry-After": "30"}) from None
+        raise Problem(
+            QUEUE_FULL,
+            f"the queue is full ({exc}); try again in a minute",
+            headers={"Retry-After": "30"},
+        ) from None
     response.headers["Location"] = f"/v1/renders/{job_id}"
     return render_view(job)
 
 
 @router.get("", summary="List your renders, newest first", response_model=list[RenderView])
-def list_renders(request: Request, owner: str = Depends(current_owner),
-                 limit: int = Query(100, ge=1, le=1000)) -> list[dict]:
+def list_renders(
+    request: Request, owner: str = Depends(current_owner), limit: int = Query(100, ge=1, le=1000)
+) -> list[dict]:
     # Comparison builds share the queue but are not renders (see /v1/comparisons).
     jobs = request.app.state.queue.list(owner=owner, limit=limit)
     return [render_view(j) for j in jobs if j.payload.get("kind") != COMPARISON_KIND]
 
 
-@router.get("/{render_id}", summary="State and progress of a render", response_model=None,
-            responses={200: {"model": RenderView}, **problem_responses(NOT_FOUND)})
-async def get_render(render_id: str, request: Request,
-                     owner: str = Depends(current_owner)) -> Response:
+@router.get(
+    "/{render_id}",
+    summary="State and progress of a render",
+    response_model=None,
+    responses={200: {"model": RenderView}, **problem_responses(NOT_FOUND)},
+)
+async def get_render(
+    render_id: str, request: Request, owner: str = Depends(current_owner)
+) -> Response:
     # The one route clients poll: async (no thread-pool hop), one indexed read on the
     # store's read-only connection, and JSON built directly, without validating our own
     # answer against RenderView (the fuzz test checks that it matches).
@@ -283,12 +354,19 @@ async def get_render(render_id: str, request: Request,
     return Response(json.dumps(view, separators=(",", ":")), media_type="application/json")
 
 
-@router.delete("/{render_id}", summary="Cancel a queued or running render, or delete a "
-               "finished one", response_model=None,
-               responses={200: {"model": RenderView, "description": "cancelled"},
-                          204: {"description": "deleted"}, **problem_responses(NOT_FOUND)})
-def delete_render(render_id: str, request: Request,
-                  owner: str = Depends(current_owner)) -> Response:
+@router.delete(
+    "/{render_id}",
+    summary="Cancel a queued or running render, or delete a finished one",
+    response_model=None,
+    responses={
+        200: {"model": RenderView, "description": "cancelled"},
+        204: {"description": "deleted"},
+        **problem_responses(NOT_FOUND),
+    },
+)
+def delete_render(
+    render_id: str, request: Request, owner: str = Depends(current_owner)
+) -> Response:
     job = _job(request, render_id, owner)
     queue = request.app.state.queue
     storage: Storage = request.app.state.storage
@@ -298,8 +376,9 @@ def delete_render(render_id: str, request: Request,
         except WrongState:
             job = queue.get(render_id)  # finished meanwhile: fall through to delete
         else:
-            return Response(json.dumps(render_view(job)), status_code=200,
-                            media_type="application/json")
+            return Response(
+                json.dumps(render_view(job)), status_code=200, media_type="application/json"
+            )
     try:
         queue.delete(render_id)
     except (WrongState, JobNotFound):
@@ -312,29 +391,40 @@ def _done(request: Request, render_id: str, owner: str) -> Job:
     job = _job(request, render_id, owner)
     if job.state is not JobState.DONE:
         hint = {"queued": "poll until it is done", "running": "poll until it is done"}.get(
-            job.state.value, "its output was not kept")
+            job.state.value, "its output was not kept"
+        )
         raise Problem(CONFLICT, f"render {render_id!r} is {job.state.value}; {hint}")
     return job
 
 
-@router.get("/{render_id}/audio", summary="Download the binaural file (HTTP Range supported)",
-            response_class=FileResponse,
-            responses={200: {"content": {"audio/wav": {}, "audio/flac": {}}},
-                       206: {"description": "partial content",
-                             "content": {"audio/wav": {}, "audio/flac": {}}},
-                       **problem_responses(NOT_FOUND, CONFLICT, RANGE_NOT_SATISFIABLE)})
+@router.get(
+    "/{render_id}/audio",
+    summary="Download the binaural file (HTTP Range supported)",
+    response_class=FileResponse,
+    responses={
+        200: {"content": {"audio/wav": {}, "audio/flac": {}}},
+        206: {"description": "partial content", "content": {"audio/wav": {}, "audio/flac": {}}},
+        **problem_responses(NOT_FOUND, CONFLICT, RANGE_NOT_SATISFIABLE),
+    },
+)
 def get_audio(render_id: str, request: Request, owner: str = Depends(current_owner)):
     job = _done(request, render_id, owner)
     output, _ = output_paths(request.app.state.storage, job)
     if not output.is_file():
         raise Problem(NOT_FOUND, f"the audio of render {render_id!r} is gone (expired or deleted)")
     fmt = job.payload["options"].get("format", "wav")
-    return FileResponse(output, media_type=_MEDIA.get(fmt, "application/octet-stream"),
-                        filename=job.payload.get("download_name") or f"render.{fmt}")
+    return FileResponse(
+        output,
+        media_type=_MEDIA.get(fmt, "application/octet-stream"),
+        filename=job.payload.get("download_name") or f"render.{fmt}",
+    )
 
 
-@router.get("/{render_id}/report", summary="The render report (JSON)",
-            responses=problem_responses(NOT_FOUND, CONFLICT))
+@router.get(
+    "/{render_id}/report",
+    summary="The render report (JSON)",
+    responses=problem_responses(NOT_FOUND, CONFLICT),
+)
 def get_report(render_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
     job = _done(request, render_id, owner)
     _, report = output_paths(request.app.state.storage, job)

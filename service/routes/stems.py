@@ -9,14 +9,23 @@ from pathlib import Path
 from anyio import to_thread
 from fastapi import APIRouter, Depends, Request, Response
 
-from earfold.renderer.io import probe_stem
-from earfold.renderer.layouts import labels_from_mask
 from earfold.renderer.errors import AudioError
-from earfold.renderer.layouts import labels_from_filenames, suggest_layout
+from earfold.renderer.io import probe_stem
+from earfold.renderer.layouts import labels_from_filenames, labels_from_mask, suggest_layout
 
 from ..auth import current_owner
-from ..problems import (BAD_REQUEST, CONFLICT, NO_SPACE, NOT_FOUND, TOO_LARGE, UNAUTHORIZED,
-                        UNPROCESSABLE, UNSUPPORTED, Problem, problem_responses)
+from ..problems import (
+    BAD_REQUEST,
+    CONFLICT,
+    NO_SPACE,
+    NOT_FOUND,
+    TOO_LARGE,
+    UNAUTHORIZED,
+    UNPROCESSABLE,
+    UNSUPPORTED,
+    Problem,
+    problem_responses,
+)
 from ..storage import META, Storage, new_id, write_json_atomic
 from ..uploads import UploadedFile, staged_upload
 
@@ -34,8 +43,11 @@ _UPLOAD_BODY = {
                     "type": "object",
                     "required": ["file"],
                     "properties": {
-                        "file": {"type": "array", "items": {"type": "string", "format": "binary"},
-                                 "description": "one multichannel file, or several mono files"},
+                        "file": {
+                            "type": "array",
+                            "items": {"type": "string", "format": "binary"},
+                            "description": "one multichannel file, or several mono files",
+                        },
                     },
                 }
             }
@@ -69,8 +81,9 @@ def _user_message(exc: Exception, names: dict[str, str]) -> str:
     return text
 
 
-def _probe(folder: Path, uploads: list[UploadedFile], max_channels: int,
-           max_duration_s: float) -> dict:
+def _probe(
+    folder: Path, uploads: list[UploadedFile], max_channels: int, max_duration_s: float
+) -> dict:
     """Name the parts, probe them and describe the stem; raises Problem (415/422)."""
     several = len(uploads) > 1
     labels = labels_from_filenames([u.filename for u in uploads]) if several else None
@@ -95,11 +108,16 @@ def _probe(folder: Path, uploads: list[UploadedFile], max_channels: int,
     except AudioError as exc:
         raise Problem(UNPROCESSABLE, _user_message(exc, names)) from None
     if stem.channels > max_channels:
-        raise Problem(UNPROCESSABLE, f"the stem has {stem.channels} channels; this server "
-                      f"accepts at most {max_channels}")
+        raise Problem(
+            UNPROCESSABLE,
+            f"the stem has {stem.channels} channels; this server accepts at most {max_channels}",
+        )
     if stem.duration > max_duration_s:
-        raise Problem(UNPROCESSABLE, f"the stem lasts {stem.duration:.1f} s; this server "
-                      f"accepts at most {max_duration_s:.0f} s")
+        raise Problem(
+            UNPROCESSABLE,
+            f"the stem lasts {stem.duration:.1f} s; this server "
+            f"accepts at most {max_duration_s:.0f} s",
+        )
     source = "file names" if labels else None
     if not several and stem.channel_mask:
         labels = labels_from_mask(stem.channel_mask, stem.channels)
@@ -109,8 +127,14 @@ def _probe(folder: Path, uploads: list[UploadedFile], max_channels: int,
         layout = suggest_layout(stem.channels)
     return {
         "files": [
-            {"name": up.filename, "stored": path.name, "size": up.size, "sha256": up.sha256,
-             "channels": info.channels, "frames": info.frames}
+            {
+                "name": up.filename,
+                "stored": path.name,
+                "size": up.size,
+                "sha256": up.sha256,
+                "channels": info.channels,
+                "frames": info.frames,
+            }
             for up, path, info in zip(uploads, stored, infos)
         ],
         "format": stem.format,
@@ -127,21 +151,32 @@ def _probe(folder: Path, uploads: list[UploadedFile], max_channels: int,
     }
 
 
-@router.post("", status_code=201, openapi_extra=_UPLOAD_BODY,
-             responses=problem_responses(BAD_REQUEST, TOO_LARGE, UNSUPPORTED, NO_SPACE),
-             summary="Upload a stem: one multichannel file or several mono files")
-async def upload_stem(request: Request, response: Response,
-                      owner: str = Depends(current_owner)) -> dict:
+@router.post(
+    "",
+    status_code=201,
+    openapi_extra=_UPLOAD_BODY,
+    responses=problem_responses(BAD_REQUEST, TOO_LARGE, UNSUPPORTED, NO_SPACE),
+    summary="Upload a stem: one multichannel file or several mono files",
+)
+async def upload_stem(
+    request: Request, response: Response, owner: str = Depends(current_owner)
+) -> dict:
     settings = request.app.state.settings
     storage: Storage = request.app.state.storage
-    async with staged_upload(request, storage, limit=settings.max_upload_bytes,
-                             min_free_bytes=settings.min_free_bytes) as (folder, uploads):
+    async with staged_upload(
+        request, storage, limit=settings.max_upload_bytes, min_free_bytes=settings.min_free_bytes
+    ) as (folder, uploads):
         described = await to_thread.run_sync(
-            _probe, folder, uploads, settings.max_channels, settings.max_duration_s)
+            _probe, folder, uploads, settings.max_channels, settings.max_duration_s
+        )
         stem_id = new_id()
-        meta = {"id": stem_id, "owner": owner,
-                "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-                "created_ts": time.time(), **described}
+        meta = {
+            "id": stem_id,
+            "owner": owner,
+            "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+            "created_ts": time.time(),
+            **described,
+        }
         write_json_atomic(folder / META, meta)
         storage.commit(folder, "stems", stem_id)
     response.headers["Location"] = f"/v1/stems/{stem_id}"
@@ -158,15 +193,25 @@ def get_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)
     return stem_summary(request.app.state.storage.read_meta("stems", stem_id, owner))
 
 
-@router.delete("/{stem_id}", status_code=204, summary="Delete a stem",
-               responses=problem_responses(NOT_FOUND, CONFLICT))
+@router.delete(
+    "/{stem_id}",
+    status_code=204,
+    summary="Delete a stem",
+    responses=problem_responses(NOT_FOUND, CONFLICT),
+)
 def delete_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> Response:
     storage: Storage = request.app.state.storage
     storage.read_meta("stems", stem_id, owner)
-    busy = [j.id for j in request.app.state.queue.list(owner=owner, active=True)
-            if j.payload.get("stem_id") == stem_id]
+    busy = [
+        j.id
+        for j in request.app.state.queue.list(owner=owner, active=True)
+        if j.payload.get("stem_id") == stem_id
+    ]
     if busy:
-        raise Problem(CONFLICT, f"stem {stem_id!r} is used by render(s) {', '.join(busy)} that "
-                      "are queued or running; cancel them first")
+        raise Problem(
+            CONFLICT,
+            f"stem {stem_id!r} is used by render(s) {', '.join(busy)} that "
+            "are queued or running; cancel them first",
+        )
     storage.delete("stems", stem_id)
     return Response(status_code=204)

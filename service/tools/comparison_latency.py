@@ -43,8 +43,13 @@ VARIANTS = [
 
 def one_run(http: httpx.Client, stem_id: str, length: float, start: float | None) -> dict:
     excerpt = {"length": length} if start is None else {"start": start, "length": length}
-    body = {"stem_id": stem_id, "variants": VARIANTS, "mode": "ab", "trials": 10,
-            "excerpt": excerpt}
+    body = {
+        "stem_id": stem_id,
+        "variants": VARIANTS,
+        "mode": "ab",
+        "trials": 10,
+        "excerpt": excerpt,
+    }
     t0 = time.perf_counter()
     resp = http.post("/v1/comparisons", json=body)
     t_post = time.perf_counter()
@@ -60,13 +65,19 @@ def one_run(http: httpx.Client, stem_id: str, length: float, start: float | None
     sizes = [len(http.get(url).content) for url in trial["audio"].values()]
     t_play = time.perf_counter()
     http.delete(f"/v1/comparisons/{view['id']}")
-    return {"post_s": round(t_post - t0, 3), "ready_s": round(t_ready - t0, 3),
-            "playable_s": round(t_play - t0, 3), "audio_bytes": sizes,
-            "excerpt": view["excerpt"], "level_lufs": view["level_lufs"]}
+    return {
+        "post_s": round(t_post - t0, 3),
+        "ready_s": round(t_ready - t0, 3),
+        "playable_s": round(t_play - t0, 3),
+        "audio_bytes": sizes,
+        "excerpt": view["excerpt"],
+        "level_lufs": view["level_lufs"],
+    }
 
 
-def measure(url: str, token: str | None, runs: int, stem_seconds: float, length: float,
-            start: float | None) -> dict:
+def measure(
+    url: str, token: str | None, runs: int, stem_seconds: float, length: float, start: float | None
+) -> dict:
     headers = {"Authorization": f"Bearer {token}"} if token else {}
     with httpx.Client(base_url=url, headers=headers, timeout=120) as http:
         data = wav_bytes(stem_seconds, 12, seed=1)
@@ -76,11 +87,17 @@ def measure(url: str, token: str | None, runs: int, stem_seconds: float, length:
         results = [one_run(http, stem_id, length, start) for _ in range(runs)]
         http.delete(f"/v1/stems/{stem_id}")
     return {
-        "variants": len(VARIANTS), "layout": "7.1.4", "excerpt_s": length,
-        "automatic_excerpt": start is None, "stem_s": stem_seconds, "poll_s": POLL_S,
+        "variants": len(VARIANTS),
+        "layout": "7.1.4",
+        "excerpt_s": length,
+        "automatic_excerpt": start is None,
+        "stem_s": stem_seconds,
+        "poll_s": POLL_S,
         "runs": results,
-        "median": {k: round(statistics.median(r[k] for r in results), 3)
-                   for k in ("post_s", "ready_s", "playable_s")},
+        "median": {
+            k: round(statistics.median(r[k] for r in results), 3)
+            for k in ("post_s", "ready_s", "playable_s")
+        },
     }
 
 
@@ -98,8 +115,9 @@ def main(argv: list[str] | None = None) -> int:
     args = p.parse_args(argv)
     start = None if args.auto else args.start
     if args.url:
-        out = measure(require_loopback(args.url), args.token, args.runs, args.stem_seconds,
-                      args.length, start)
+        out = measure(
+            require_loopback(args.url), args.token, args.runs, args.stem_seconds, args.length, start
+        )
     else:
         with LocalServer(workers=args.workers) as server:
             out = measure(server.url, None, args.runs, args.stem_seconds, args.length, start)
@@ -107,12 +125,16 @@ def main(argv: list[str] | None = None) -> int:
         print(json.dumps(out, indent=2))
     else:
         for i, r in enumerate(out["runs"], 1):
-            print(f"run {i}: POST {r['post_s']:.3f} s, ready {r['ready_s']:.3f} s, "
-                  f"first trial playable {r['playable_s']:.3f} s (excerpt {r['excerpt']})")
+            print(
+                f"run {i}: POST {r['post_s']:.3f} s, ready {r['ready_s']:.3f} s, "
+                f"first trial playable {r['playable_s']:.3f} s (excerpt {r['excerpt']})"
+            )
         m = out["median"]
-        print(f"median of {len(out['runs'])}: POST {m['post_s']:.3f} s, ready "
-              f"{m['ready_s']:.3f} s, playable {m['playable_s']:.3f} s "
-              f"(4 variants, 7.1.4, {out['excerpt_s']:g} s excerpt; resolution {POLL_S} s)")
+        print(
+            f"median of {len(out['runs'])}: POST {m['post_s']:.3f} s, ready "
+            f"{m['ready_s']:.3f} s, playable {m['playable_s']:.3f} s "
+            f"(4 variants, 7.1.4, {out['excerpt_s']:g} s excerpt; resolution {POLL_S} s)"
+        )
     return 0
 
 

@@ -66,10 +66,13 @@ def wav_bytes(seconds: float, channels: int, rate: int = 48000, seed: int = 0) -
 
 def percentiles(values: list[float]) -> dict[str, float]:
     a = np.asarray(values)
-    return {"p50": round(float(np.percentile(a, 50)), 2),
-            "p90": round(float(np.percentile(a, 90)), 2),
-            "p99": round(float(np.percentile(a, 99)), 2),
-            "max": round(float(a.max()), 2), "mean": round(float(a.mean()), 2)}
+    return {
+        "p50": round(float(np.percentile(a, 50)), 2),
+        "p90": round(float(np.percentile(a, 90)), 2),
+        "p99": round(float(np.percentile(a, 99)), 2),
+        "max": round(float(a.max()), 2),
+        "mean": round(float(a.mean()), 2),
+    }
 
 
 def _stamp(iso: str) -> float:
@@ -87,8 +90,9 @@ class RawPoller:
         parts = urlsplit(url)
         self.host, self.port = parts.hostname, parts.port or 80
         auth = f"Authorization: Bearer {token}\r\n" if token else ""
-        self.request = (f"GET {path} HTTP/1.1\r\nHost: {parts.netloc}\r\n{auth}"
-                        "Accept: application/json\r\n\r\n").encode()
+        self.request = (
+            f"GET {path} HTTP/1.1\r\nHost: {parts.netloc}\r\n{auth}Accept: application/json\r\n\r\n"
+        ).encode()
         self.reader: asyncio.StreamReader | None = None
         self.writer: asyncio.StreamWriter | None = None
 
@@ -113,18 +117,31 @@ class RawPoller:
             await self.writer.wait_closed()
 
 
-async def run(url: str, *, pollers: int, seconds: float, interval: float, trials: int,
-              token: str | None, in_step: bool, server_pid: int | None) -> dict:
+async def run(
+    url: str,
+    *,
+    pollers: int,
+    seconds: float,
+    interval: float,
+    trials: int,
+    token: str | None,
+    in_step: bool,
+    server_pid: int | None,
+) -> dict:
     headers = {"Authorization": f"Bearer {token}"} if token else {}
     async with httpx.AsyncClient(base_url=url, headers=headers, timeout=120) as http:
-        short = (await http.post("/v1/stems", files=[("file", ("short.wav", wav_bytes(5, 2),
-                                                               "audio/wav"))])).json()
+        short = (
+            await http.post(
+                "/v1/stems", files=[("file", ("short.wav", wav_bytes(5, 2), "audio/wav"))]
+            )
+        ).json()
         # 1. Submit-to-running with idle workers.
         client_ms, server_ms = [], []
         for _ in range(trials):
             t0 = time.perf_counter()
-            job = (await http.post("/v1/renders", json={"stem_id": short["id"],
-                                                        "layout": "2.0"})).json()
+            job = (
+                await http.post("/v1/renders", json={"stem_id": short["id"], "layout": "2.0"})
+            ).json()
             while True:
                 view = (await http.get(f"/v1/renders/{job['id']}")).json()
                 if view["state"] != "queued":
@@ -140,19 +157,29 @@ async def run(url: str, *, pollers: int, seconds: float, interval: float, trials
             await asyncio.sleep(0.3)
 
         # 2. Polls while two renders run.
-        long = (await http.post("/v1/stems", files=[("file", (
-            "long.wav", wav_bytes(LONG_STEM_S, 12), "audio/wav"))])).json()
-        jobs = [(await http.post("/v1/renders", json={"stem_id": long["id"], "layout": "7.1.4",
-                                                      "block_size": 64})).json()["id"]
-                for _ in range(2)]
+        long = (
+            await http.post(
+                "/v1/stems", files=[("file", ("long.wav", wav_bytes(LONG_STEM_S, 12), "audio/wav"))]
+            )
+        ).json()
+        jobs = [
+            (
+                await http.post(
+                    "/v1/renders", json={"stem_id": long["id"], "layout": "7.1.4", "block_size": 64}
+                )
+            ).json()["id"]
+            for _ in range(2)
+        ]
         deadline = time.monotonic() + 30
         while True:
             states = [(await http.get(f"/v1/renders/{j}")).json()["state"] for j in jobs]
             if states == ["running", "running"]:
                 break
             if time.monotonic() > deadline:
-                raise RuntimeError("the two long renders did not both start within 30 s; "
-                                   "does the server have 2 workers?")
+                raise RuntimeError(
+                    "the two long renders did not both start within 30 s; "
+                    "does the server have 2 workers?"
+                )
             await asyncio.sleep(0.05)
 
         latencies: list[float] = []
@@ -197,9 +224,11 @@ async def run(url: str, *, pollers: int, seconds: float, interval: float, trials
             "server_stamps_resolution_ms": 1.0,
         },
         "polls": {
-            "pollers": pollers, "interval_s": interval,
+            "pollers": pollers,
+            "interval_s": interval,
             "phases": "in step" if in_step else "random",
-            "window_s": round(wall, 2), "requests": len(latencies),
+            "window_s": round(wall, 2),
+            "requests": len(latencies),
             "rate_per_s": round(len(latencies) / wall, 1),
             "non_200": len(errors),
             "get_ms": percentiles(latencies),
@@ -212,23 +241,34 @@ async def run(url: str, *, pollers: int, seconds: float, interval: float, trials
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m earfold.service.tools.load_poll",
-                                description=__doc__.split("\n\n")[0])
+    p = argparse.ArgumentParser(
+        prog="python -m earfold.service.tools.load_poll", description=__doc__.split("\n\n")[0]
+    )
     p.add_argument("--url", help="a running server (loopback only); default: spawn one")
     p.add_argument("--workers", type=int, default=2, help="workers of a spawned server")
     p.add_argument("--pollers", type=int, default=50)
     p.add_argument("--seconds", type=float, default=10.0)
-    p.add_argument("--interval", type=float, default=0.25,
-                   help="pause of each poller between requests (s)")
+    p.add_argument(
+        "--interval", type=float, default=0.25, help="pause of each poller between requests (s)"
+    )
     p.add_argument("--trials", type=int, default=10, help="submit-to-running trials")
     p.add_argument("--in-step", action="store_true", help="start all pollers together")
     p.add_argument("--token")
     args = p.parse_args(argv)
 
     def go(url: str, pid: int | None) -> dict:
-        return asyncio.run(run(url, pollers=args.pollers, seconds=args.seconds,
-                               interval=args.interval, trials=args.trials, token=args.token,
-                               in_step=args.in_step, server_pid=pid))
+        return asyncio.run(
+            run(
+                url,
+                pollers=args.pollers,
+                seconds=args.seconds,
+                interval=args.interval,
+                trials=args.trials,
+                token=args.token,
+                in_step=args.in_step,
+                server_pid=pid,
+            )
+        )
 
     if args.url:
         result = go(require_loopback(args.url), None)

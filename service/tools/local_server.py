@@ -29,8 +29,10 @@ def require_loopback(url: str) -> str:
 
     host = urlsplit(url).hostname or ""
     if not is_loopback(host):
-        raise ValueError(f"the measurement scripts only talk to loopback addresses; got "
-                         f"{url!r} (use http://127.0.0.1:PORT)")
+        raise ValueError(
+            f"the measurement scripts only talk to loopback addresses; got "
+            f"{url!r} (use http://127.0.0.1:PORT)"
+        )
     return url.rstrip("/")
 
 
@@ -47,16 +49,23 @@ class LocalServer:
     back and stop) and the data directory is removed.
     """
 
-    def __init__(self, workers: int, extra_args: list[str] | None = None,
-                 data_dir: str | os.PathLike[str] | None = None) -> None:
+    def __init__(
+        self,
+        workers: int,
+        extra_args: list[str] | None = None,
+        data_dir: str | os.PathLike[str] | None = None,
+    ) -> None:
         self.workers = workers
         self.extra_args = list(extra_args or [])
         self.port = free_port()
         self.url = f"http://127.0.0.1:{self.port}"
         # A given data directory is the caller's (a restart test reuses it) and is kept.
         self._own_dir = data_dir is None
-        self.data_dir = Path(tempfile.mkdtemp(prefix="earfold-measure-")) / "data" \
-            if data_dir is None else Path(data_dir)
+        self.data_dir = (
+            Path(tempfile.mkdtemp(prefix="earfold-measure-")) / "data"
+            if data_dir is None
+            else Path(data_dir)
+        )
         self.proc: subprocess.Popen | None = None
 
     @property
@@ -66,10 +75,21 @@ class LocalServer:
 
     def __enter__(self) -> LocalServer:
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "earfold.service.serve_cli", "--port", str(self.port),
-             "--data-dir", str(self.data_dir), "--workers", str(self.workers),
-             *self.extra_args],
-            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+            [
+                sys.executable,
+                "-m",
+                "earfold.service.serve_cli",
+                "--port",
+                str(self.port),
+                "--data-dir",
+                str(self.data_dir),
+                "--workers",
+                str(self.workers),
+                *self.extra_args,
+            ],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.PIPE,
+            text=True,
         )
         deadline = time.monotonic() + START_TIMEOUT_S
         with httpx.Client(base_url=self.url, timeout=5) as http:

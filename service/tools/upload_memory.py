@@ -42,18 +42,25 @@ CHANNELS, RATE, BYTES_PER_SAMPLE = 12, 48000, 3
 def wav_header(data_bytes: int) -> bytes:
     """A canonical 44-byte PCM WAV header for ``data_bytes`` of samples."""
     block = CHANNELS * BYTES_PER_SAMPLE
-    return (b"RIFF" + struct.pack("<I", 36 + data_bytes) + b"WAVE"
-            + b"fmt " + struct.pack("<IHHIIHH", 16, 1, CHANNELS, RATE, RATE * block, block,
-                                    8 * BYTES_PER_SAMPLE)
-            + b"data" + struct.pack("<I", data_bytes))
+    return (
+        b"RIFF"
+        + struct.pack("<I", 36 + data_bytes)
+        + b"WAVE"
+        + b"fmt "
+        + struct.pack("<IHHIIHH", 16, 1, CHANNELS, RATE, RATE * block, block, 8 * BYTES_PER_SAMPLE)
+        + b"data"
+        + struct.pack("<I", data_bytes)
+    )
 
 
 def multipart_body(total_file_bytes: int, boundary: str) -> tuple[int, Iterator[bytes]]:
     """(Content-Length, chunks) of a multipart body holding one generated WAV."""
     frame = CHANNELS * BYTES_PER_SAMPLE
     data_bytes = (total_file_bytes - 44) // frame * frame
-    head = (f"--{boundary}\r\nContent-Disposition: form-data; name=\"file\"; "
-            f"filename=\"large.7.1.4.wav\"\r\nContent-Type: audio/wav\r\n\r\n").encode()
+    head = (
+        f'--{boundary}\r\nContent-Disposition: form-data; name="file"; '
+        f'filename="large.7.1.4.wav"\r\nContent-Type: audio/wav\r\n\r\n'
+    ).encode()
     tail = f"\r\n--{boundary}--\r\n".encode()
     header = wav_header(data_bytes)
     # Quiet, non-zero samples: a repeating ramp, so no layer can compress it away.
@@ -102,9 +109,14 @@ def measure(gb: float) -> dict:
             boundary = "earfold-measure-boundary-7f3a"
             length, body = multipart_body(int(gb * 1e9), boundary)
             t0 = time.perf_counter()
-            resp = http.post("/v1/stems", content=body, headers={
-                "Content-Type": f"multipart/form-data; boundary={boundary}",
-                "Content-Length": str(length)})
+            resp = http.post(
+                "/v1/stems",
+                content=body,
+                headers={
+                    "Content-Type": f"multipart/form-data; boundary={boundary}",
+                    "Content-Length": str(length),
+                },
+            )
             seconds = time.perf_counter() - t0
             time.sleep(0.5)
             stop.set()
@@ -117,10 +129,13 @@ def measure(gb: float) -> dict:
                 deleted = http.delete(f"/v1/stems/{stem['id']}").status_code
     mib = 1024.0
     return {
-        "upload_bytes": length, "status": resp.status_code,
-        "stem": {k: stem.get(k) for k in ("channels", "samplerate", "duration_s", "detail")
-                 if k in stem},
-        "seconds": round(seconds, 1), "throughput_MB_s": round(length / seconds / 1e6, 1),
+        "upload_bytes": length,
+        "status": resp.status_code,
+        "stem": {
+            k: stem.get(k) for k in ("channels", "samplerate", "duration_s", "detail") if k in stem
+        },
+        "seconds": round(seconds, 1),
+        "throughput_MB_s": round(length / seconds / 1e6, 1),
         "rss_before_MiB": round(before / mib, 1),
         "rss_after_MiB": round(after / mib, 1),
         "rss_peak_sampled_MiB": round(max(samples) / mib, 1),
@@ -128,14 +143,16 @@ def measure(gb: float) -> dict:
         "vmhwm_MiB": round(peak_hwm / mib, 1),
         "vmhwm_was_reset": reset,
         "peak_growth_vmhwm_MiB": round((peak_hwm - before) / mib, 1) if reset else None,
-        "samples": len(samples), "sample_period_s": SAMPLE_S,
+        "samples": len(samples),
+        "sample_period_s": SAMPLE_S,
         "stem_deleted_status": deleted,
     }
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m earfold.service.tools.upload_memory",
-                                description=__doc__.split("\n\n")[0])
+    p = argparse.ArgumentParser(
+        prog="python -m earfold.service.tools.upload_memory", description=__doc__.split("\n\n")[0]
+    )
     p.add_argument("--gb", type=float, default=2.0, help="upload size in GB (10^9 bytes)")
     args = p.parse_args(argv)
     json.dump(measure(args.gb), sys.stdout, indent=2)

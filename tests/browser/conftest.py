@@ -48,8 +48,11 @@ def browser() -> Iterator[object]:
         _missing("playwright is not installed (pip install -e '.[test]')")
     executable = chromium_path()
     with sync_playwright() as pw:
-        b = pw.chromium.launch(executable_path=executable, headless=True,
-                               args=["--no-sandbox", "--autoplay-policy=no-user-gesture-required"])
+        b = pw.chromium.launch(
+            executable_path=executable,
+            headless=True,
+            args=["--no-sandbox", "--autoplay-policy=no-user-gesture-required"],
+        )
         try:
             yield b
         finally:

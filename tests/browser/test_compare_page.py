@@ -27,13 +27,22 @@ def comparison(live_server, tmp_path_factory) -> dict:
     path = folder / "harbour-night.wav"
     write_audio(path, noise(FS * 5, 6, seed=3, level=0.05), FS)
     with httpx.Client(base_url=live_server.url, timeout=30) as http:
-        stem = http.post("/v1/stems", files=[("file", (path.name, path.read_bytes(),
-                                                       "audio/wav"))]).json()
-        resp = http.post("/v1/comparisons", json={
-            "stem_id": stem["id"], "mode": "ab", "trials": TRIALS,
-            "excerpt": {"start": 0.5, "length": 3.0},
-            "variants": [{"layout": "5.1", "name": "dry"},
-                         {"layout": "5.1", "room": "small", "name": "small room"}]})
+        stem = http.post(
+            "/v1/stems", files=[("file", (path.name, path.read_bytes(), "audio/wav"))]
+        ).json()
+        resp = http.post(
+            "/v1/comparisons",
+            json={
+                "stem_id": stem["id"],
+                "mode": "ab",
+                "trials": TRIALS,
+                "excerpt": {"start": 0.5, "length": 3.0},
+                "variants": [
+                    {"layout": "5.1", "name": "dry"},
+                    {"layout": "5.1", "room": "small", "name": "small room"},
+                ],
+            },
+        )
         assert resp.status_code == 202, resp.text
         view = resp.json()
         deadline = time.monotonic() + 60
@@ -114,13 +123,23 @@ def test_abx_with_an_api_token(page, tmp_path, artefacts):
     path = tmp_path / "foghorn.wav"
     write_audio(path, noise(FS * 3, 6, seed=5), FS)
     auth = {"Authorization": f"Bearer {token}"}
-    with LocalServer(workers=1, extra_args=["--tokens-file", str(tokens)]) as server, \
-            httpx.Client(base_url=server.url, timeout=30, headers=auth) as http:
-        stem = http.post("/v1/stems", files=[("file", (path.name, path.read_bytes(),
-                                                       "audio/wav"))]).json()
-        view = http.post("/v1/comparisons", json={
-            "stem_id": stem["id"], "mode": "abx", "trials": 2, "excerpt": {"length": 2.0},
-            "variants": [{"layout": "5.1"}, {"layout": "5.1", "hrtf": "rigid-sphere"}]}).json()
+    with (
+        LocalServer(workers=1, extra_args=["--tokens-file", str(tokens)]) as server,
+        httpx.Client(base_url=server.url, timeout=30, headers=auth) as http,
+    ):
+        stem = http.post(
+            "/v1/stems", files=[("file", (path.name, path.read_bytes(), "audio/wav"))]
+        ).json()
+        view = http.post(
+            "/v1/comparisons",
+            json={
+                "stem_id": stem["id"],
+                "mode": "abx",
+                "trials": 2,
+                "excerpt": {"length": 2.0},
+                "variants": [{"layout": "5.1"}, {"layout": "5.1", "hrtf": "rigid-sphere"}],
+            },
+        ).json()
         page.goto(f"{server.url}/compare/{view['id']}")
         page.wait_for_selector("#token-box:not([hidden])")
         page.fill("#token", token)

@@ -46,8 +46,9 @@ def row_of_newest(page):
     return page.locator("#renders tbody tr").first
 
 
-def test_upload_render_follow_download_and_read_report(page, live_server, stems, artefacts,
-                                                       tmp_path):
+def test_upload_render_follow_download_and_read_report(
+    page, live_server, stems, artefacts, tmp_path
+):
     open_page(page, live_server)
     upload_stem(page, stems / "harbour-night.wav")
     facts = page.locator("#stem-facts").inner_text()
@@ -121,13 +122,15 @@ def test_upload_render_follow_download_and_read_report(page, live_server, stems,
     assert audio.evaluate("a => a.volume") == pytest.approx(0.25)
 
 
-def test_several_mono_files_dropped_get_labels_from_their_names(page, live_server, stems,
-                                                               artefacts):
+def test_several_mono_files_dropped_get_labels_from_their_names(
+    page, live_server, stems, artefacts
+):
     open_page(page, live_server)
     files = sorted(stems.glob("quay.*.wav"))
     payload = [{"name": p.name, "data": base64.b64encode(p.read_bytes()).decode()} for p in files]
     # A real drop event on the drop zone, with the files in its DataTransfer.
-    page.evaluate("""(files) => {
+    page.evaluate(
+        """(files) => {
         const dt = new DataTransfer();
         for (const f of files) {
             const bytes = Uint8Array.from(atob(f.data), c => c.charCodeAt(0));
@@ -136,7 +139,9 @@ def test_several_mono_files_dropped_get_labels_from_their_names(page, live_serve
         const zone = document.querySelector('#dropzone');
         zone.dispatchEvent(new DragEvent('dragover', {dataTransfer: dt, bubbles: true, cancelable: true}));
         zone.dispatchEvent(new DragEvent('drop', {dataTransfer: dt, bubbles: true, cancelable: true}));
-    }""", payload)
+    }""",
+        payload,
+    )
     page.wait_for_selector("#stem-facts:not([hidden])")
     facts = page.locator("#stem-facts").inner_text()
     assert "from the file names" in facts
@@ -178,8 +183,9 @@ def test_refused_render_request_shows_the_servers_reason(page, live_server, stem
     # ... and what only the server knows comes back in its words: the stem was deleted.
     stem_id = page.evaluate("document.querySelector('#stem-facts').dataset.stemId")
     assert httpx.delete(f"{live_server.url}/v1/stems/{stem_id}").status_code == 204
-    detail = httpx.post(f"{live_server.url}/v1/renders",
-                        json={"stem_id": stem_id, "layout": "5.1"}).json()["detail"]
+    detail = httpx.post(
+        f"{live_server.url}/v1/renders", json={"stem_id": stem_id, "layout": "5.1"}
+    ).json()["detail"]
     page.click("#render-button")
     message = page.locator("#render-message")
     message.filter(has_text="not queued").wait_for()
@@ -187,12 +193,16 @@ def test_refused_render_request_shows_the_servers_reason(page, live_server, stem
 
 
 @pytest.mark.shared
-def test_malformed_sofa_upload_is_refused_with_its_message(page, live_server, stems,
-                                                          shared_sofa_dir, artefacts):
+def test_malformed_sofa_upload_is_refused_with_its_message(
+    page, live_server, stems, shared_sofa_dir, artefacts
+):
     bad = shared_sofa_dir / "malformed" / "random-bytes.sofa"
     # What the API says about this file, asked directly.
-    answer = httpx.post(f"{live_server.url}/v1/hrtf-sets", timeout=60,
-                        files={"file": (bad.name, bad.read_bytes(), "application/octet-stream")})
+    answer = httpx.post(
+        f"{live_server.url}/v1/hrtf-sets",
+        timeout=60,
+        files={"file": (bad.name, bad.read_bytes(), "application/octet-stream")},
+    )
     assert answer.status_code == 422
     detail = answer.json()["detail"]
     open_page(page, live_server)
@@ -219,15 +229,20 @@ def test_valid_sofa_upload_becomes_selectable(page, live_server, stems, shared_s
     assert "uploaded: Pulse.sofa" in page.locator("#hrtf option:checked").inner_text()
 
 
-def test_token_server_asks_for_a_token_and_keeps_it_in_the_session(page, tmp_path, stems,
-                                                                   artefacts):
+def test_token_server_asks_for_a_token_and_keeps_it_in_the_session(
+    page, tmp_path, stems, artefacts
+):
     token = secrets.token_urlsafe(24)
     tokens = tmp_path / "tokens.txt"
     tokens.write_text(token + "\n")
     with LocalServer(workers=1, extra_args=["--tokens-file", str(tokens)]) as server:
         sent: list[str | None] = []
-        page.on("request", lambda r: sent.append(r.headers.get("authorization"))
-                if "/v1/layouts" in r.url else None)
+        page.on(
+            "request",
+            lambda r: (
+                sent.append(r.headers.get("authorization")) if "/v1/layouts" in r.url else None
+            ),
+        )
         open_page(page, server)
         panel = page.locator("#token-panel")
         panel.wait_for()
@@ -265,30 +280,41 @@ def test_token_server_asks_for_a_token_and_keeps_it_in_the_session(page, tmp_pat
 
 def _two_renders(server: LocalServer, stem_path: Path) -> tuple[str, list[str]]:
     with httpx.Client(base_url=server.url, timeout=60) as http:
-        stem = http.post("/v1/stems", files={"file": (stem_path.name, stem_path.read_bytes(),
-                                                      "audio/wav")}).json()
+        stem = http.post(
+            "/v1/stems", files={"file": (stem_path.name, stem_path.read_bytes(), "audio/wav")}
+        ).json()
         ids = []
         for room in ("none", "medium"):
-            r = http.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1",
-                                               "room": room, "seed": 3})
+            r = http.post(
+                "/v1/renders",
+                json={"stem_id": stem["id"], "layout": "5.1", "room": room, "seed": 3},
+            )
             assert r.status_code == 202, r.text
             ids.append(r.json()["id"])
     return stem["id"], ids
 
 
-def test_blind_comparison_posts_the_selected_renders_settings(page, live_server, stems,
-                                                              artefacts):
+def test_blind_comparison_posts_the_selected_renders_settings(page, live_server, stems, artefacts):
     stem_id, ids = _two_renders(live_server, stems / "harbour-night.wav")
     posted: list[dict] = []
     fake_id = "c" * 32
 
     def answer(route):
         posted.append(json.loads(route.request.post_data))
-        route.fulfill(status=202, content_type="application/json",
-                      headers={"Location": f"/v1/comparisons/{fake_id}"},
-                      body=json.dumps({"id": fake_id, "state": "preparing", "progress": 0,
-                                       "message": None,
-                                       "links": {"page": f"/compare/{fake_id}"}}))
+        route.fulfill(
+            status=202,
+            content_type="application/json",
+            headers={"Location": f"/v1/comparisons/{fake_id}"},
+            body=json.dumps(
+                {
+                    "id": fake_id,
+                    "state": "preparing",
+                    "progress": 0,
+                    "message": None,
+                    "links": {"page": f"/compare/{fake_id}"},
+                }
+            ),
+        )
 
     page.route("**/v1/comparisons", answer)
     open_page(page, live_server)
@@ -311,8 +337,7 @@ def test_blind_comparison_posts_the_selected_renders_settings(page, live_server,
     for v in body["variants"]:
         # Only the options that shape the sound (the comparison contract's variant
         # fields), and a name for the reveal.
-        assert set(v) <= {"name", "layout", "channel_order", "hrtf", "room", "seed",
-                          "block_size"}
+        assert set(v) <= {"name", "layout", "channel_order", "hrtf", "room", "seed", "block_size"}
         assert v["layout"] == "5.1" and v["seed"] == 3
         assert None not in v.values()
         assert 0 < len(v["name"]) <= 64
@@ -344,10 +369,21 @@ def test_blind_comparison_with_the_real_comparison_api(page, live_server, stems)
 
 def test_comparison_unavailable_says_so(page, live_server, stems):
     _, ids = _two_renders(live_server, stems / "harbour-night.wav")
-    page.route("**/v1/comparisons", lambda route: route.fulfill(
-        status=404, content_type="application/problem+json",
-        body=json.dumps({"type": "about:blank", "title": "Not Found", "status": 404,
-                         "detail": "no such resource"})))
+    page.route(
+        "**/v1/comparisons",
+        lambda route: route.fulfill(
+            status=404,
+            content_type="application/problem+json",
+            body=json.dumps(
+                {
+                    "type": "about:blank",
+                    "title": "Not Found",
+                    "status": 404,
+                    "detail": "no such resource",
+                }
+            ),
+        ),
+    )
     open_page(page, live_server)
     for render_id in ids:
         page.locator(f"#sel-{render_id}").check()
@@ -452,4 +488,6 @@ def test_cancel_and_delete_from_the_list(page, stems, artefacts):
         row.wait_for(state="detached")
         assert httpx.get(f"{server.url}/v1/renders/{ids[0]}").status_code == 404
         # The other render is untouched and still followed.
-        assert page.locator(f"#renders tr[data-id='{ids[1]}']").get_attribute("data-state") == "queued"
+        assert (
+            page.locator(f"#renders tr[data-id='{ids[1]}']").get_attribute("data-state") == "queued"
+        )

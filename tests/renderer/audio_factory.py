@@ -39,15 +39,23 @@ def encode_samples(codes_or_float: np.ndarray, bits: int, *, floating: bool = Fa
     raise ValueError(f"bits must be 16 or 24, not {bits!r}")
 
 
-def wav_bytes(data: bytes, *, channels: int, samplerate: int, bits: int,
-              format_tag: int = WAVE_FORMAT_PCM, declared_data_bytes: int | None = None) -> bytes:
+def wav_bytes(
+    data: bytes,
+    *,
+    channels: int,
+    samplerate: int,
+    bits: int,
+    format_tag: int = WAVE_FORMAT_PCM,
+    declared_data_bytes: int | None = None,
+) -> bytes:
     """A canonical RIFF/WAVE file: ``fmt `` chunk (16 bytes) and ``data`` chunk.
 
     ``declared_data_bytes`` lets the header claim a different data size than follows.
     """
     block_align = channels * bits // 8
-    fmt = struct.pack("<HHIIHH", format_tag, channels, samplerate, samplerate * block_align,
-                      block_align, bits)
+    fmt = struct.pack(
+        "<HHIIHH", format_tag, channels, samplerate, samplerate * block_align, block_align, bits
+    )
     declared = len(data) if declared_data_bytes is None else declared_data_bytes
     body = b"WAVE" + b"fmt " + struct.pack("<I", len(fmt)) + fmt
     body += b"data" + struct.pack("<I", declared) + data
@@ -55,9 +63,16 @@ def wav_bytes(data: bytes, *, channels: int, samplerate: int, bits: int,
     return b"RIFF" + struct.pack("<I", riff_size) + body
 
 
-def write_wav(path: Path, samples: np.ndarray, samplerate: int, bits: int = 16, *,
-              floating: bool = False, channels: int | None = None,
-              declared_frames: int | None = None) -> Path:
+def write_wav(
+    path: Path,
+    samples: np.ndarray,
+    samplerate: int,
+    bits: int = 16,
+    *,
+    floating: bool = False,
+    channels: int | None = None,
+    declared_frames: int | None = None,
+) -> Path:
     """Write frames x channels ``samples`` (float in [-1, 1)) as a WAV file.
 
     ``channels`` overrides the channel count in the header (e.g. 0 for a broken file);
@@ -77,21 +92,35 @@ def write_wav(path: Path, samples: np.ndarray, samplerate: int, bits: int = 16, 
     declared = None
     if declared_frames is not None:
         declared = declared_frames * max(nch, 1) * bits // 8
-    path.write_bytes(wav_bytes(data, channels=nch, samplerate=samplerate, bits=bits,
-                               format_tag=tag, declared_data_bytes=declared))
+    path.write_bytes(
+        wav_bytes(
+            data,
+            channels=nch,
+            samplerate=samplerate,
+            bits=bits,
+            format_tag=tag,
+            declared_data_bytes=declared,
+        )
+    )
     return path
 
 
-def write_pattern_wav(path: Path, frames: int, channels: int, samplerate: int = 48000,
-                      chunk_frames: int = 1 << 16) -> Path:
+def write_pattern_wav(
+    path: Path, frames: int, channels: int, samplerate: int = 48000, chunk_frames: int = 1 << 16
+) -> Path:
     """A long 16-bit WAV written in chunks (constant memory): channel c holds code c+1.
 
     Used where only the size of a file matters (memory tests).
     """
     block_align = channels * 2
     chunk = np.tile(np.arange(1, channels + 1, dtype="<i2"), chunk_frames).tobytes()
-    header = wav_bytes(b"", channels=channels, samplerate=samplerate, bits=16,
-                       declared_data_bytes=frames * block_align)
+    header = wav_bytes(
+        b"",
+        channels=channels,
+        samplerate=samplerate,
+        bits=16,
+        declared_data_bytes=frames * block_align,
+    )
     with open(path, "wb") as fh:
         fh.write(header)
         left = frames
@@ -113,8 +142,9 @@ def write_au(path: Path, samples: np.ndarray, samplerate: int) -> Path:
     return path
 
 
-def sine(frequency: float, amplitude: float, frames: int, samplerate: int,
-         phase: float = 0.0) -> np.ndarray:
+def sine(
+    frequency: float, amplitude: float, frames: int, samplerate: int, phase: float = 0.0
+) -> np.ndarray:
     """A float64 sine, one column."""
     t = np.arange(frames) / samplerate
     return (amplitude * np.sin(2 * np.pi * frequency * t + phase))[:, None]

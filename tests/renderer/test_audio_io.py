@@ -8,10 +8,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from audio_factory import pcm_codes, sine, write_au, write_pattern_wav, write_wav
 from numpy.testing import assert_allclose, assert_array_equal
 
 import earfold.renderer.io.audio as aio
-from audio_factory import pcm_codes, sine, write_au, write_pattern_wav, write_wav
+from earfold.renderer.errors import AudioError
 from earfold.renderer.io import (
     OutputWriter,
     StemInfo,
@@ -22,7 +23,6 @@ from earfold.renderer.io import (
     subtype_for,
     write_audio,
 )
-from earfold.renderer.errors import AudioError
 
 FS = 48000
 LSB16 = 2.0**-15
@@ -63,7 +63,12 @@ def test_round_trip_every_listed_format_and_subtype(tmp_path, ext, fmt, subtype)
     assert path.read_bytes()[:4] == MAGIC[fmt]
     info = probe_stem([path])
     assert (info.format, info.subtype, info.samplerate, info.channels, info.frames) == (
-        fmt, subtype, FS, 2, 3000)
+        fmt,
+        subtype,
+        FS,
+        2,
+        3000,
+    )
     y, rate = read_audio(path)
     assert rate == FS and y.dtype == np.float32 and y.shape == x.shape
     if subtype == "FLOAT":
@@ -76,7 +81,7 @@ def test_round_trip_every_listed_format_and_subtype(tmp_path, ext, fmt, subtype)
 
 
 def test_values_on_the_pcm_grid_come_back_exactly(tmp_path):
-    codes = np.array([[-2**23], [-1], [0], [1], [2**23 - 1], [12345]], dtype=np.float64)
+    codes = np.array([[-(2**23)], [-1], [0], [1], [2**23 - 1], [12345]], dtype=np.float64)
     x = (codes / 2**23).astype(np.float32)  # exact in float32 (24-bit mantissa)
     write_audio(tmp_path / "g.wav", x, FS, subtype="PCM_24")
     y, _ = read_audio(tmp_path / "g.wav")
@@ -90,9 +95,12 @@ def test_pcm24_writer_matches_an_independent_reading_of_the_data_chunk(tmp_path)
     write_audio(path, x, FS, subtype="PCM_24")
     raw = path.read_bytes()
     start = raw.index(b"data") + 8
-    b = np.frombuffer(raw[start:start + 500 * 2 * 3], dtype=np.uint8).reshape(-1, 3)
-    codes = (b[:, 0].astype(np.int32) | (b[:, 1].astype(np.int32) << 8)
-             | (b[:, 2].astype(np.int32) << 16))
+    b = np.frombuffer(raw[start : start + 500 * 2 * 3], dtype=np.uint8).reshape(-1, 3)
+    codes = (
+        b[:, 0].astype(np.int32)
+        | (b[:, 1].astype(np.int32) << 8)
+        | (b[:, 2].astype(np.int32) << 16)
+    )
     codes = np.where(codes >= 2**23, codes - 2**24, codes).reshape(500, 2)
     assert_array_equal(codes, pcm_codes(x, 24))
 
@@ -113,8 +121,9 @@ def test_reads_independently_encoded_wav(tmp_path, bits, floating):
 # ---------------------------------------------------------------- dither
 
 
-def _quantisation_error(tmp_path: Path, x: np.ndarray, seed: int = 0,
-                        subtype: str = "PCM_16", blocks: int = 1) -> np.ndarray:
+def _quantisation_error(
+    tmp_path: Path, x: np.ndarray, seed: int = 0, subtype: str = "PCM_16", blocks: int = 1
+) -> np.ndarray:
     path = tmp_path / f"e{seed}_{subtype}_{blocks}.wav"
     with OutputWriter(path, FS, x.shape[1], subtype=subtype, seed=seed) as w:
         for part in np.array_split(x, blocks):
@@ -384,22 +393,28 @@ def _au(d: Path) -> list[Path]:
     return [write_au(d / "old.au", np.zeros((10, 1)), FS)]
 
 
-@pytest.mark.parametrize(("build", "match"), [
-    (_missing, r"audio file '.*absent\.wav' does not exist"),
-    (_directory, r"'.*stems\.wav' is a directory"),
-    (_text_as_wav, r"'.*notes\.wav' is not a readable audio file: Format not recognised"),
-    (_zero_channels, r"'.*nochan\.wav' is not a readable audio file: Channel count is zero"),
-    (_zero_frames, r"'.*empty\.wav' has no audio frames"),
-    (_too_many_channels, r"'.*wide\.wav' hold 129 channels; at most 128"),
-    (_mono_too_many, r"the 129 files together hold 129 channels; at most 128"),
-    (_low_rate, r"'.*phone\.wav' has an unsupported sample rate of 4000 Hz; supported: "
-                r"8000 to 384000"),
-    (_high_rate, r"'.*fast\.wav' has an unsupported sample rate of 400000 Hz"),
-    (_multichannel_among_mono, r"'.*pair\.wav' has 2 channels; .* each must be mono"),
-    (_differing_rates, r"differ in sample rate \('L\.wav': 48000 Hz, 'R\.wav': 44100 Hz\)"),
-    (_twice, r"'.*L\.wav' is given twice"),
-    (_au, r"'.*old\.au' is AU .*not accepted as a stem; accepted formats: WAV, WAVEX"),
-])
+@pytest.mark.parametrize(
+    ("build", "match"),
+    [
+        (_missing, r"audio file '.*absent\.wav' does not exist"),
+        (_directory, r"'.*stems\.wav' is a directory"),
+        (_text_as_wav, r"'.*notes\.wav' is not a readable audio file: Format not recognised"),
+        (_zero_channels, r"'.*nochan\.wav' is not a readable audio file: Channel count is zero"),
+        (_zero_frames, r"'.*empty\.wav' has no audio frames"),
+        (_too_many_channels, r"'.*wide\.wav' hold 129 channels; at most 128"),
+        (_mono_too_many, r"the 129 files together hold 129 channels; at most 128"),
+        (
+            _low_rate,
+            r"'.*phone\.wav' has an unsupported sample rate of 4000 Hz; supported: "
+            r"8000 to 384000",
+        ),
+        (_high_rate, r"'.*fast\.wav' has an unsupported sample rate of 400000 Hz"),
+        (_multichannel_among_mono, r"'.*pair\.wav' has 2 channels; .* each must be mono"),
+        (_differing_rates, r"differ in sample rate \('L\.wav': 48000 Hz, 'R\.wav': 44100 Hz\)"),
+        (_twice, r"'.*L\.wav' is given twice"),
+        (_au, r"'.*old\.au' is AU .*not accepted as a stem; accepted formats: WAV, WAVEX"),
+    ],
+)
 def test_probe_errors_name_the_file(tmp_path, build, match):
     with pytest.raises(AudioError, match=match):
         probe_stem(build(tmp_path))
@@ -431,8 +446,9 @@ def test_truncated_wav_reads_the_frames_present_and_warns(tmp_path):
     path = write_wav(tmp_path / "cut.wav", x, FS, 16, declared_frames=2000)
     info = probe_stem([path])
     assert info.frames == 600 and info.frames_per_file == (600,)
-    assert any("'cut.wav' is cut short" in w and "8000 bytes" in w and "2400" in w
-               for w in info.warnings)
+    assert any(
+        "'cut.wav' is cut short" in w and "8000 bytes" in w and "2400" in w for w in info.warnings
+    )
     y, _ = read_audio(path)
     assert_array_equal(y, (pcm_codes(x, 16) / 2**15).astype(np.float32))
 
@@ -455,20 +471,31 @@ def test_reader_rejects_bad_blocksize(tmp_path):
 # ---------------------------------------------------------------- writer errors
 
 
-@pytest.mark.parametrize(("kwargs", "match"), [
-    ({"path": "out.mp3"}, r"cannot tell the output format from '.*out\.mp3'; use one of the "
-                          r"extensions \.wav, \.flac, \.w64, \.rf64"),
-    ({"format": "ogg"}, r"unsupported output format 'ogg'; choose one of wav, flac, w64, rf64"),
-    ({"subtype": "PCM_32"}, r"unsupported output subtype 'PCM_32'; choose one of PCM_16, "
-                            r"PCM_24, FLOAT"),
-    ({"path": "out.flac", "subtype": "FLOAT"},
-     r"FLAC cannot hold subtype 'FLOAT'; valid combinations: wav: PCM_16, PCM_24, FLOAT; "
-     r"flac: PCM_16, PCM_24; w64"),
-    ({"path": "out.flac", "channels": 9}, r"FLAC holds at most 8 channels, not 9"),
-    ({"channels": 0}, r"channels must be an integer from 1 to 128, not 0"),
-    ({"samplerate": 1000}, r"unsupported output sample rate 1000; supported: 8000 to 384000"),
-    ({"path": "nowhere/out.wav"}, r"the folder of output '.*out\.wav' does not exist"),
-])
+@pytest.mark.parametrize(
+    ("kwargs", "match"),
+    [
+        (
+            {"path": "out.mp3"},
+            r"cannot tell the output format from '.*out\.mp3'; use one of the "
+            r"extensions \.wav, \.flac, \.w64, \.rf64",
+        ),
+        ({"format": "ogg"}, r"unsupported output format 'ogg'; choose one of wav, flac, w64, rf64"),
+        (
+            {"subtype": "PCM_32"},
+            r"unsupported output subtype 'PCM_32'; choose one of PCM_16, "
+            r"PCM_24, FLOAT",
+        ),
+        (
+            {"path": "out.flac", "subtype": "FLOAT"},
+            r"FLAC cannot hold subtype 'FLOAT'; valid combinations: wav: PCM_16, PCM_24, FLOAT; "
+            r"flac: PCM_16, PCM_24; w64",
+        ),
+        ({"path": "out.flac", "channels": 9}, r"FLAC holds at most 8 channels, not 9"),
+        ({"channels": 0}, r"channels must be an integer from 1 to 128, not 0"),
+        ({"samplerate": 1000}, r"unsupported output sample rate 1000; supported: 8000 to 384000"),
+        ({"path": "nowhere/out.wav"}, r"the folder of output '.*out\.wav' does not exist"),
+    ],
+)
 def test_writer_argument_errors(tmp_path, kwargs, match):
     args = {"path": "out.wav", "samplerate": FS, "channels": 2, **kwargs}
     args["path"] = tmp_path / args["path"]
@@ -504,10 +531,12 @@ def test_format_argument_overrides_the_extension(tmp_path):
 
 
 def test_subtype_for_is_case_insensitive_and_lists_choices():
-    assert [subtype_for(s) for s in ("pcm_16", "PCM_24", "Float")] == ["PCM_16", "PCM_24",
-                                                                        "FLOAT"]
-    with pytest.raises(AudioError, match=r"unsupported output subtype 'DOUBLE'; choose one of "
-                                         r"PCM_16, PCM_24, FLOAT"):
+    assert [subtype_for(s) for s in ("pcm_16", "PCM_24", "Float")] == ["PCM_16", "PCM_24", "FLOAT"]
+    with pytest.raises(
+        AudioError,
+        match=r"unsupported output subtype 'DOUBLE'; choose one of "
+        r"PCM_16, PCM_24, FLOAT",
+    ):
         subtype_for("DOUBLE")
     with pytest.raises(AudioError, match=r"unsupported output subtype 24"):
         subtype_for(24)  # type: ignore[arg-type]
@@ -533,6 +562,9 @@ def test_reader_refuses_a_file_changed_since_it_was_probed(tmp_path):
     path = write_wav(tmp_path / "s.wav", _noise(10, 1), FS)
     info = probe_stem([path])
     write_wav(path, _noise(10, 2), FS)
-    with pytest.raises(AudioError, match=r"'.*s\.wav' changed since it was probed: now 2 "
-                                         r"channel\(s\) at 48000 Hz, expected 1"):
+    with pytest.raises(
+        AudioError,
+        match=r"'.*s\.wav' changed since it was probed: now 2 "
+        r"channel\(s\) at 48000 Hz, expected 1",
+    ):
         StemReader(info)

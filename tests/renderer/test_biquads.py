@@ -10,7 +10,6 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from earfold.renderer.io import write_audio
 from earfold.renderer.eq import (
     BAND_TYPES,
     Band,
@@ -20,6 +19,7 @@ from earfold.renderer.eq import (
     parse_bands,
 )
 from earfold.renderer.errors import HeadphoneEqError
+from earfold.renderer.io import write_audio
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -66,8 +66,9 @@ def test_peaking_band_matches_the_cookbook_coefficients_by_hand():
     b = np.array([1 + 0.5 * a, 0.0, 1 - 0.5 * a])
     den = np.array([1 + 0.5 / a, 0.0, 1 - 0.5 / a])
     expected = np.concatenate([b, den]) / den[0]
-    assert_allclose(cookbook_biquad(Band("peaking", 12000.0, 6.0, 1.0), 48000.0), expected,
-                    atol=1e-12)
+    assert_allclose(
+        cookbook_biquad(Band("peaking", 12000.0, 6.0, 1.0), 48000.0), expected, atol=1e-12
+    )
 
 
 def test_band_list_errors_name_the_problem():
@@ -111,8 +112,9 @@ def test_impulse_response_file_is_resampled_keeping_its_response(tmp_path):
     impulse[0] = 1.0
     left = signal.sosfilt(cookbook_biquad(Band("peaking", 1000.0, 6.0, 1.0), fs)[None], impulse)
     path = tmp_path / "cans.wav"
-    write_audio(path, np.stack([left, impulse], axis=1).astype(np.float32) * 0.5, fs,
-                subtype="FLOAT")
+    write_audio(
+        path, np.stack([left, impulse], axis=1).astype(np.float32) * 0.5, fs, subtype="FLOAT"
+    )
     eq = load_headphone_eq(path, 48000.0)
     assert eq.kind == "impulse response" and eq.report["source_samplerate"] == fs
     n = 1 << 15
@@ -139,7 +141,9 @@ def test_unreadable_headphone_files_give_clear_errors(tmp_path):
 def test_example_ir_is_reproduced_by_its_generator_and_matches_the_bands(tmp_path):
     import importlib.util
 
-    spec = importlib.util.spec_from_file_location("make_ir", REPO / "examples" / "headphone_eq" / "make_ir.py")
+    spec = importlib.util.spec_from_file_location(
+        "make_ir", REPO / "examples" / "headphone_eq" / "make_ir.py"
+    )
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
     fresh = module.make(tmp_path / "dark-ir.wav")

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.eq import pink_band
+from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.layouts import get_layout
 from earfold.renderer.loudness import LoudnessMeter
 from earfold.renderer.render import RenderSettings, render
@@ -47,8 +47,11 @@ def test_level_is_the_same_across_layouts_and_sets(tmp_path, hrtf, record_proper
         stem = tmp_path / f"pink-{name}.wav"
         _pink_stem(stem, name, seed=10 + i)
         out = tmp_path / f"out-{name}.wav"
-        report = render([stem], out, RenderSettings(layout=name, hrtf=hrtf, loudness=None,
-                                                    true_peak=None, subtype="FLOAT"))
+        report = render(
+            [stem],
+            out,
+            RenderSettings(layout=name, hrtf=hrtf, loudness=None, true_peak=None, subtype="FLOAT"),
+        )
         assert report["calibration"]["gain_db"] is not None
         y, _ = read_audio(out)
         meter = LoudnessMeter(FS, 2)
@@ -67,8 +70,11 @@ def test_calibration_holds_with_eq_off_and_changes_the_gain(tmp_path):
     gains = []
     for eq in ("none", "diffuse-field"):
         out = tmp_path / f"out-{eq}.wav"
-        report = render([stem], out, RenderSettings(layout="5.1", loudness=None, true_peak=None,
-                                                    subtype="FLOAT", eq=eq))
+        report = render(
+            [stem],
+            out,
+            RenderSettings(layout="5.1", loudness=None, true_peak=None, subtype="FLOAT", eq=eq),
+        )
         y, _ = read_audio(out)
         meter = LoudnessMeter(FS, 2)
         meter.process(y)

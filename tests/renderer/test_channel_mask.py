@@ -8,16 +8,17 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from earfold.renderer.io import write_audio
+from earfold.renderer.errors import AudioError, LayoutError
+from earfold.renderer.io import read_channel_mask, write_audio
 from earfold.renderer.layouts import (
+    LAYOUTS,
     SPEAKER_BITS,
     labels_from_mask,
+    layout_from_dict,
     mask_for_labels,
     mask_to_speakers,
+    resolve_channel_order,
 )
-from earfold.renderer.io import read_channel_mask
-from earfold.renderer.errors import AudioError, LayoutError
-from earfold.renderer.layouts import LAYOUTS, layout_from_dict, resolve_channel_order
 
 # KSDATAFORMAT_SUBTYPE_PCM {00000001-0000-0010-8000-00aa00389b71}, as stored (Microsoft
 # WAVEFORMATEXTENSIBLE documentation).
@@ -43,12 +44,16 @@ def riff_chunk(ck_id: bytes, body: bytes, endian: str = "<", size: int | None = 
     return struct.pack(endian + "4sI", ck_id, len(body) if size is None else size) + body + pad
 
 
-def wav_bytes(channels: int, mask: int | None, *, riff_id: bytes = b"RIFF",
-              before_fmt: bytes = b"") -> bytes:
+def wav_bytes(
+    channels: int, mask: int | None, *, riff_id: bytes = b"RIFF", before_fmt: bytes = b""
+) -> bytes:
     endian = ">" if riff_id == b"RIFX" else "<"
     data = bytes(2 * channels * FRAMES)
-    chunks = (before_fmt + riff_chunk(b"fmt ", fmt_body(channels, mask, endian), endian)
-              + riff_chunk(b"data", data, endian))
+    chunks = (
+        before_fmt
+        + riff_chunk(b"fmt ", fmt_body(channels, mask, endian), endian)
+        + riff_chunk(b"data", data, endian)
+    )
     return struct.pack(endian + "4sI", riff_id, 4 + len(chunks)) + b"WAVE" + chunks
 
 
@@ -59,10 +64,12 @@ def rf64_bytes(channels: int, mask: int, riff_id: bytes = b"RF64") -> bytes:
     junk = bytes(7)
     table = struct.pack("<4sQ", b"JUNK", len(junk))
     ds64 = struct.pack("<QQQI", 0, len(data), FRAMES, 1) + table
-    body = (riff_chunk(b"ds64", ds64)
-            + riff_chunk(b"JUNK", junk, size=0xFFFFFFFF)
-            + riff_chunk(b"fmt ", fmt_body(channels, mask))
-            + riff_chunk(b"data", data, size=0xFFFFFFFF))
+    body = (
+        riff_chunk(b"ds64", ds64)
+        + riff_chunk(b"JUNK", junk, size=0xFFFFFFFF)
+        + riff_chunk(b"fmt ", fmt_body(channels, mask))
+        + riff_chunk(b"data", data, size=0xFFFFFFFF)
+    )
     return riff_id + struct.pack("<I", 0xFFFFFFFF) + b"WAVE" + body
 
 
@@ -74,8 +81,11 @@ def w64_chunk(name: bytes, body: bytes) -> bytes:
 def w64_bytes(channels: int, mask: int | None) -> bytes:
     """Sony Wave64: GUID chunk ids, 64-bit sizes that include the 24-byte header,
     chunks aligned to 8 bytes. A 3-byte 'junk' chunk forces padding before fmt."""
-    chunks = (w64_chunk(b"junk", b"abc") + w64_chunk(b"fmt ", fmt_body(channels, mask))
-              + w64_chunk(b"data", bytes(2 * channels * FRAMES)))
+    chunks = (
+        w64_chunk(b"junk", b"abc")
+        + w64_chunk(b"fmt ", fmt_body(channels, mask))
+        + w64_chunk(b"data", bytes(2 * channels * FRAMES))
+    )
     return W64_RIFF + struct.pack("<Q", 40 + len(chunks)) + b"wave" + W64_TAIL + chunks
 
 
@@ -100,11 +110,12 @@ def test_reads_the_mask_of_a_riff_wave(tmp_path, mask, channels):
 
 @pytest.mark.parametrize("mask,channels", MASKS)
 def test_reads_the_mask_of_rifx_rf64_bw64_and_wave64(tmp_path, mask, channels):
-    assert read_channel_mask(_file(tmp_path, wav_bytes(channels, mask, riff_id=b"RIFX"),
-                                   "a.wav")) == mask
+    assert (
+        read_channel_mask(_file(tmp_path, wav_bytes(channels, mask, riff_id=b"RIFX"), "a.wav"))
+        == mask
+    )
     assert read_channel_mask(_file(tmp_path, rf64_bytes(channels, mask), "b.wav")) == mask
-    assert read_channel_mask(_file(tmp_path, rf64_bytes(channels, mask, b"BW64"),
-                                   "c.wav")) == mask
+    assert read_channel_mask(_file(tmp_path, rf64_bytes(channels, mask, b"BW64"), "c.wav")) == mask
     assert read_channel_mask(_file(tmp_path, w64_bytes(channels, mask), "d.w64")) == mask
 
 
@@ -137,8 +148,11 @@ def test_files_written_by_libsndfile(tmp_path):
 def test_truncated_header_raises(tmp_path):
     whole = wav_bytes(6, 0x3F)
     path = _file(tmp_path, whole[:30])  # cut inside the 40-byte fmt chunk
-    with pytest.raises(AudioError, match=r"stem\.wav'.*cut short: the fmt chunk needs 40 "
-                                         r"bytes at offset 20, the file holds 10"):
+    with pytest.raises(
+        AudioError,
+        match=r"stem\.wav'.*cut short: the fmt chunk needs 40 "
+        r"bytes at offset 20, the file holds 10",
+    ):
         read_channel_mask(path)
     with pytest.raises(AudioError, match=r"WAV header is cut short \(6 bytes\)"):
         read_channel_mask(_file(tmp_path, whole[:6], "six.wav"))
@@ -154,8 +168,9 @@ def test_broken_headers_raise(tmp_path):
     no_fmt = b"RIFF" + struct.pack("<I", 16) + b"WAVE" + riff_chunk(b"data", bytes(4))
     with pytest.raises(AudioError, match=r"'.*nofmt\.wav': the WAV file has no fmt chunk"):
         read_channel_mask(_file(tmp_path, no_fmt, "nofmt.wav"))
-    not_ds64 = b"RF64" + struct.pack("<I", 0xFFFFFFFF) + b"WAVE" + riff_chunk(
-        b"fmt ", fmt_body(6, 0x3F))
+    not_ds64 = (
+        b"RF64" + struct.pack("<I", 0xFFFFFFFF) + b"WAVE" + riff_chunk(b"fmt ", fmt_body(6, 0x3F))
+    )
     with pytest.raises(AudioError, match=r"must start with a ds64 chunk"):
         read_channel_mask(_file(tmp_path, not_ds64, "rf.wav"))
     w64 = bytearray(w64_bytes(6, 0x3F))
@@ -175,8 +190,26 @@ def test_unreadable_file_raises(tmp_path):
 def test_speaker_bits_match_the_microsoft_table():
     # Microsoft dwChannelMask documentation (REFERENCES.md): FL 0x1 ... TBR 0x20000,
     # one bit each, in this order.
-    names = ["FL", "FR", "FC", "LFE", "BL", "BR", "FLC", "FRC", "BC", "SL", "SR", "TC",
-             "TFL", "TFC", "TFR", "TBL", "TBC", "TBR"]
+    names = [
+        "FL",
+        "FR",
+        "FC",
+        "LFE",
+        "BL",
+        "BR",
+        "FLC",
+        "FRC",
+        "BC",
+        "SL",
+        "SR",
+        "TC",
+        "TFL",
+        "TFC",
+        "TFR",
+        "TBL",
+        "TBC",
+        "TBR",
+    ]
     assert list(SPEAKER_BITS) == names
     assert [SPEAKER_BITS[n] for n in names] == [1 << k for k in range(18)]
 
@@ -216,9 +249,9 @@ def test_back_pair_is_the_surround_only_without_sides():
 
 
 def test_mask_that_does_not_describe_the_channels_gives_none():
-    assert labels_from_mask(0x3F, 8) is None      # fewer bits than channels
-    assert labels_from_mask(0x63F, 6) is None     # more bits than channels
-    assert labels_from_mask(0x4000F, 5) is None   # bit 18 has no defined position
+    assert labels_from_mask(0x3F, 8) is None  # fewer bits than channels
+    assert labels_from_mask(0x63F, 6) is None  # more bits than channels
+    assert labels_from_mask(0x4000F, 5) is None  # bit 18 has no defined position
 
 
 def test_other_positions_and_layout_labels():
@@ -226,9 +259,14 @@ def test_other_positions_and_layout_labels():
     mask = b["FL"] | b["FR"] | b["FLC"] | b["FRC"] | b["BC"] | b["TC"] | b["TFC"] | b["TBC"]
     assert labels_from_mask(mask, 8) == ["L", "R", "Lc", "Rc", "Bc", "Tc", "Tfc", "Trc"]
     # With a layout, its own labels replace ours where it has the channel.
-    custom = layout_from_dict({"speakers": [
-        {"label": n, "azimuth": a, "elevation": 0}
-        for n, a in [("FL", 30), ("FR", -30), ("FC", 0), ("SL", 90), ("SR", -90)]]})
+    custom = layout_from_dict(
+        {
+            "speakers": [
+                {"label": n, "azimuth": a, "elevation": 0}
+                for n, a in [("FL", 30), ("FR", -30), ("FC", 0), ("SL", 90), ("SR", -90)]
+            ]
+        }
+    )
     assert labels_from_mask(0x607, 5, custom) == ["FL", "FR", "FC", "SL", "SR"]
     assert labels_from_mask(0x607, 5) == ["L", "R", "C", "Ls", "Rs"]
 
@@ -242,8 +280,8 @@ def test_mask_for_labels_edge_cases():
     # 5.1 with side bits reads as the same labels; the inverse writes the common 0x3F.
     assert mask_for_labels(labels_from_mask(0x60F, 6)) == 0x3F
     assert mask_for_labels(["FL", "FR", "TFL", "TFR"]) == 0x5003
-    assert mask_for_labels(["R", "L"]) is None                 # not ascending bit order
-    assert mask_for_labels(["L", "R", "Lw", "Rw"]) is None     # wides have no bit
-    assert mask_for_labels(["L", "L"]) is None                 # one bit twice
-    assert mask_for_labels(["Stage", "Gallery"]) is None       # free text
+    assert mask_for_labels(["R", "L"]) is None  # not ascending bit order
+    assert mask_for_labels(["L", "R", "Lw", "Rw"]) is None  # wides have no bit
+    assert mask_for_labels(["L", "L"]) is None  # one bit twice
+    assert mask_for_labels(["Stage", "Gallery"]) is None  # free text
     assert mask_for_labels([]) is None

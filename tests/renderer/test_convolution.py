@@ -26,8 +26,9 @@ def direct_binaural(signal: np.ndarray, filters: np.ndarray) -> np.ndarray:
     out = np.zeros((frames + filters.shape[2] - 1, 2))
     for c in range(channels):
         for ear in range(2):
-            out[:, ear] += np.convolve(signal[:, c].astype(np.float64),
-                                       filters[c, ear].astype(np.float64))
+            out[:, ear] += np.convolve(
+                signal[:, c].astype(np.float64), filters[c, ear].astype(np.float64)
+            )
     return out
 
 
@@ -44,7 +45,7 @@ def stream(engine: BinauralConvolver, signal: np.ndarray, sizes) -> np.ndarray:
     pos, i = 0, 0
     while pos < len(signal):
         n = sizes[i % len(sizes)]
-        block = signal[pos:pos + n]
+        block = signal[pos : pos + n]
         y = engine.process(block)
         assert y.shape == (len(block), 2)  # the rule: as many frames out as went in
         outs.append(y)
@@ -71,8 +72,12 @@ BLOCK = 64  # the smallest allowed block keeps the tests fast and gives many par
 LENGTHS = {"one": 1, "short": 37, "equal": BLOCK, "longer": BLOCK + 1, "several": 4 * BLOCK + 19}
 # Caller block sizes: whole engine blocks, single frames, odd sizes, and a mix including
 # empty calls and calls longer than the engine block.
-CHUNKINGS = {"whole": [BLOCK], "single": [1], "odd": [7, 63, 1, 129, 3],
-             "mixed": [0, 200, 64, 5, 64, 1000, 31]}
+CHUNKINGS = {
+    "whole": [BLOCK],
+    "single": [1],
+    "odd": [7, 63, 1, 129, 3],
+    "mixed": [0, 200, 64, 5, 64, 1000, 31],
+}
 
 
 @pytest.mark.parametrize("length", LENGTHS.values(), ids=LENGTHS.keys())
@@ -108,8 +113,9 @@ def test_matches_scipy_fftconvolve_longer_case():
     ref = np.zeros((48000 + 3000 - 1, 2))
     for c in range(12):
         for ear in range(2):
-            ref[:, ear] += scipy.signal.fftconvolve(signal[:, c].astype(np.float64),
-                                                    filters[c, ear].astype(np.float64))
+            ref[:, ear] += scipy.signal.fftconvolve(
+                signal[:, c].astype(np.float64), filters[c, ear].astype(np.float64)
+            )
     assert_close_to_full_scale(out, ref)
 
 
@@ -142,8 +148,10 @@ def test_float64_engine_is_closer():
     assert_allclose(out, ref, rtol=0, atol=1e-12 * np.max(np.abs(ref)))
 
 
-@pytest.mark.parametrize(("frames", "taps", "block"), [(1, 1, 64), (100, 1, 64), (10, 500, 64),
-                                                       (1000, 64, 64), (129, 4097, 128)])
+@pytest.mark.parametrize(
+    ("frames", "taps", "block"),
+    [(1, 1, 64), (100, 1, 64), (10, 500, 64), (1000, 64, 64), (129, 4097, 128)],
+)
 def test_output_length_is_input_plus_filter_minus_one(frames, taps, block):
     # Linear convolution of N and M samples has N + M - 1 (numpy.convolve docs, mode 'full').
     filters = np.ones((2, 2, taps), dtype=np.float32)
@@ -176,7 +184,7 @@ def test_delayed_impulse_gives_delayed_filters():
         impulse[delay, 1] = 1.0
         out = stream(BinauralConvolver(filters, BLOCK), impulse, [50])
         expected = np.zeros((300 + 150 - 1, 2))
-        expected[delay:delay + 150] = filters[1].T
+        expected[delay : delay + 150] = filters[1].T
         assert_close_to_full_scale(out, expected)
 
 
@@ -200,8 +208,8 @@ def test_output_depends_only_on_past_input():
     changed = x.copy()
     changed[500:] = rng.uniform(-1, 1, changed[500:].shape)
     e1, e2 = BinauralConvolver(filters, BLOCK), BinauralConvolver(filters, BLOCK)
-    y1 = np.concatenate([e1.process(x[i:i + 37]) for i in range(0, 1000, 37)])
-    y2 = np.concatenate([e2.process(changed[i:i + 37]) for i in range(0, 1000, 37)])
+    y1 = np.concatenate([e1.process(x[i : i + 37]) for i in range(0, 1000, 37)])
+    y2 = np.concatenate([e2.process(changed[i : i + 37]) for i in range(0, 1000, 37)])
     # Equal up to rounding: frames before 500 that share a transform with later ones see
     # different rounding, never different values.
     assert_close_to_full_scale(y1[:500], y2[:500].astype(np.float64))
@@ -260,6 +268,7 @@ def test_convolve_reference_matches_numpy_convolve():
 
 # -- errors ----------------------------------------------------------------------------
 
+
 def test_wrong_channel_count_names_expected_and_got():
     engine = BinauralConvolver(np.zeros((6, 2, 10)), BLOCK)
     expected_and_got = r"shape \(frames, 6\) for 6 channels, got shape \(10, 5\)"
@@ -285,8 +294,9 @@ def test_non_finite_filters_are_refused(bad):
         convolve_reference(np.zeros((5, 3)), filters)
 
 
-@pytest.mark.parametrize("shape", [(2, 20), (3, 1, 20), (3, 3, 20), (0, 2, 20), (3, 2, 0),
-                                   (1, 3, 2, 20)])
+@pytest.mark.parametrize(
+    "shape", [(2, 20), (3, 1, 20), (3, 3, 20), (0, 2, 20), (3, 2, 0), (1, 3, 2, 20)]
+)
 def test_filters_of_wrong_shape_are_refused(shape):
     with pytest.raises(HrirError, match=r"shape \(channels, 2, taps\).*got shape"):
         BinauralConvolver(np.zeros(shape))
@@ -299,8 +309,11 @@ def test_complex_filters_are_refused():
 
 @pytest.mark.parametrize("block_size", [0, 32, 63, 100, 3000, 1 << 21, 64.0, True, "64"])
 def test_bad_block_size_is_refused(block_size):
-    with pytest.raises(AudioError, match=r"block_size must be a power of two from 64 to 1048576 "
-                                         r"frames, got"):
+    with pytest.raises(
+        AudioError,
+        match=r"block_size must be a power of two from 64 to 1048576 "
+        r"frames, got",
+    ):
         BinauralConvolver(np.zeros((1, 2, 4)), block_size)
 
 

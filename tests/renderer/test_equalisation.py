@@ -21,15 +21,17 @@ from earfold.renderer.eq import (
     voronoi_areas,
 )
 from earfold.renderer.errors import EqualisationError
-from earfold.renderer.hrtf import HrirSet, load_hrir_set
-from earfold.renderer.hrtf import read_sofa
+from earfold.renderer.hrtf import HrirSet, load_hrir_set, read_sofa
 
 REPO = Path(__file__).resolve().parents[2]
-SHIPPED = [REPO / "hrtf_sets" / "MIT_KEMAR_normal_pinna.sofa", REPO / "hrtf_sets" / "rigid_sphere.sofa"]
+SHIPPED = [
+    REPO / "hrtf_sets" / "MIT_KEMAR_normal_pinna.sofa",
+    REPO / "hrtf_sets" / "rigid_sphere.sofa",
+]
 
 
 def _icosahedron() -> np.ndarray:
-    phi = (1 + 5 ** 0.5) / 2
+    phi = (1 + 5**0.5) / 2
     pts = []
     for a, b in itertools.product((-1, 1), (-phi, phi)):
         pts += [(0, a, b), (a, b, 0), (b, 0, a)]
@@ -78,8 +80,10 @@ def test_kemar_weighting_changes_the_average(record_property):
     change = np.abs(w.level_db[band] - u.level_db[band])
     record_property("kemar_weighting_change_max_db", round(float(change.max()), 2))
     record_property("kemar_weighting_change_mean_db", round(float(change.mean()), 2))
-    print(f"KEMAR: weighting changes the diffuse field by up to {change.max():.2f} dB "
-          f"(mean {change.mean():.2f} dB) from 200 Hz to 12 kHz")
+    print(
+        f"KEMAR: weighting changes the diffuse field by up to {change.max():.2f} dB "
+        f"(mean {change.mean():.2f} dB) from 200 Hz to 12 kHz"
+    )
     assert change.max() > 0.1  # the weights matter on this grid
     # The set stops at -40 degrees: the ring at its edge has capped cells.
     assert w.capped > 0
@@ -164,7 +168,7 @@ def test_inverse_respects_boost_limit_and_band():
     ref = summary["reference_level_db"]
     assert np.max(g[f > hi * 1.2] + ref) <= 1.0
     # Minimum phase: the energy comes first (most of it in the first few milliseconds).
-    energy = np.cumsum(fir ** 2) / np.sum(fir ** 2)
+    energy = np.cumsum(fir**2) / np.sum(fir**2)
     assert energy[int(0.005 * 48000)] > 0.95
 
 

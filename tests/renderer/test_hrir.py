@@ -122,9 +122,11 @@ def test_resampling_keeps_the_response_and_is_cached():
     # Polyphase resampling (scipy.signal.resample_poly) keeps the in-band magnitude:
     # compare the front HRIR's spectra on a common frequency grid up to 16 kHz.
     f = np.linspace(200, 16000, 200)
+
     def mag(ir, fs):
         spec = np.fft.rfft(ir, n=8192)
         return np.interp(f, np.fft.rfftfreq(8192, 1 / fs), np.abs(spec))
+
     i = int(np.argmax(native.directions @ np.array([1.0, 0, 0])))
     db = 20 * np.log10(mag(a.ir[i, 0], 48000) / mag(native.ir[i, 0], 44100))
     assert np.max(np.abs(db)) < 0.5
@@ -158,10 +160,14 @@ def test_leave_one_out_interpolation_beats_nearest_neighbour_on_kemar(record_pro
         est = reduced.pair(d)
         assert est.method == "interpolated"
         sd_interp.append(_spectral_distortion(est.ir, kemar.ir[i], kemar.samplerate))
-        sd_nearest.append(_spectral_distortion(reduced.nearest_pair(d).ir, kemar.ir[i], kemar.samplerate))
+        sd_nearest.append(
+            _spectral_distortion(reduced.nearest_pair(d).ir, kemar.ir[i], kemar.samplerate)
+        )
     mean_i, mean_n = float(np.mean(sd_interp)), float(np.mean(sd_nearest))
     record_property("sd_interpolated_db", round(mean_i, 3))
     record_property("sd_nearest_db", round(mean_n, 3))
-    print(f"\nKEMAR leave-one-out, 40 directions: spectral distortion 0.2-16 kHz "
-          f"interpolated {mean_i:.2f} dB, nearest neighbour {mean_n:.2f} dB")
+    print(
+        f"\nKEMAR leave-one-out, 40 directions: spectral distortion 0.2-16 kHz "
+        f"interpolated {mean_i:.2f} dB, nearest neighbour {mean_n:.2f} dB"
+    )
     assert mean_i < mean_n

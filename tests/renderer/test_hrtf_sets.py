@@ -15,8 +15,7 @@ import earfold.hrtf_sets
 from earfold.hrtf_sets import DEFAULT_SET, SHIPPED, ShippedSet, get_shipped, list_shipped
 from earfold.renderer.errors import HrirError
 from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.hrtf import cross_correlation_itd, interaural_time_difference
-from earfold.renderer.hrtf import read_sofa
+from earfold.renderer.hrtf import cross_correlation_itd, interaural_time_difference, read_sofa
 from earfold.renderer.hrtf import main as sphere_main
 
 REPO_ROOT = Path(__file__).resolve().parents[2]

@@ -7,10 +7,9 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.room import image_sources
-from earfold.renderer.room import SURFACES, room_from_dict
-from earfold.renderer.room.model import SPEED_OF_SOUND
 from earfold.renderer.errors import RoomError
+from earfold.renderer.room import SURFACES, image_sources, room_from_dict
+from earfold.renderer.room.model import SPEED_OF_SOUND
 
 FS = 48000
 DIMS = (6.0, 4.5, 3.2)
@@ -21,8 +20,9 @@ SOURCE = np.array([4.7, 3.1, 1.6])
 def _room(absorption: dict | float = 0.2, order: int = 3):
     if not isinstance(absorption, dict):
         absorption = {s: absorption for s in SURFACES}
-    return room_from_dict({"dimensions": list(DIMS), "listener": LISTENER,
-                           "absorption": absorption, "order": order})
+    return room_from_dict(
+        {"dimensions": list(DIMS), "listener": LISTENER, "absorption": absorption, "order": order}
+    )
 
 
 def test_first_order_images_are_the_six_analytic_mirrors():
@@ -32,9 +32,12 @@ def test_first_order_images_are_the_six_analytic_mirrors():
     length, width, height = DIMS
     sx, sy, sz = SOURCE
     expected = {
-        "back": (-sx, sy, sz), "front": (2 * length - sx, sy, sz),
-        "right": (sx, -sy, sz), "left": (sx, 2 * width - sy, sz),
-        "floor": (sx, sy, -sz), "ceiling": (sx, sy, 2 * height - sz),
+        "back": (-sx, sy, sz),
+        "front": (2 * length - sx, sy, sz),
+        "right": (sx, -sy, sz),
+        "left": (sx, 2 * width - sy, sz),
+        "floor": (sx, sy, -sz),
+        "ceiling": (sx, sy, 2 * height - sz),
     }
     assert im.count == 7 and im.orders[0] == 0
     assert_allclose(im.positions[0], SOURCE)
@@ -54,7 +57,7 @@ def test_image_count_follows_the_shoebox_formula(order):
     # with |i| + |j| + |k| <= N counted with parities: (2N + 1)(2N^2 + 2N + 3) / 3
     # (computed from the image lattice; 63 for N = 3, as pyroomacoustics gives below).
     im = image_sources(_room(order=order), SOURCE)
-    assert im.count == (2 * order + 1) * (2 * order ** 2 + 2 * order + 3) // 3
+    assert im.count == (2 * order + 1) * (2 * order**2 + 2 * order + 3) // 3
     assert im.orders.max() == order
 
 
@@ -62,11 +65,24 @@ def _pyroomacoustics_images(absorption: dict[str, float], order: int):
     # pyroomacoustics' ShoeBox names its walls by axis: west/east at small/large x,
     # south/north at small/large y (its room.py docstring). Our x runs back -> front and
     # y right -> left, so back = west, front = east, right = south, left = north.
-    names = {"back": "west", "front": "east", "right": "south", "left": "north",
-             "floor": "floor", "ceiling": "ceiling"}
+    names = {
+        "back": "west",
+        "front": "east",
+        "right": "south",
+        "left": "north",
+        "floor": "floor",
+        "ceiling": "ceiling",
+    }
     materials = {names[s]: pra.Material(a) for s, a in absorption.items()}
-    room = pra.ShoeBox(list(DIMS), fs=FS, max_order=order, materials=materials,
-                       air_absorption=False, ray_tracing=False, use_rand_ism=False)
+    room = pra.ShoeBox(
+        list(DIMS),
+        fs=FS,
+        max_order=order,
+        materials=materials,
+        air_absorption=False,
+        ray_tracing=False,
+        use_rand_ism=False,
+    )
     room.add_source(SOURCE.tolist())
     ours = _room(absorption, order)
     room.add_microphone(list(ours.listener))
@@ -79,8 +95,14 @@ def test_images_match_pyroomacoustics_shoebox():
     # Reference library: pyroomacoustics' ShoeBox image sources for the same room, source,
     # listener and order 3; its positions are float32, so arrival times are compared
     # within one sample at 48 kHz and positions within a millimetre.
-    absorption = {"front": 0.1, "back": 0.5, "left": 0.3, "right": 0.7, "floor": 0.05,
-                  "ceiling": 0.9}
+    absorption = {
+        "front": 0.1,
+        "back": 0.5,
+        "left": 0.3,
+        "right": 0.7,
+        "floor": 0.05,
+        "ceiling": 0.9,
+    }
     room, positions, damping = _pyroomacoustics_images(absorption, 3)
     im = image_sources(room, SOURCE, order=3)
     assert positions.shape[0] == im.count == 63
@@ -104,8 +126,10 @@ def test_reflection_gain_is_the_product_of_the_walls_beta_per_band():
     im = image_sources(room, SOURCE, order=2)
     floor = SURFACES.index("floor")
     for k in range(im.count):
-        expected = np.sqrt(0.8) ** (im.orders[k] - im.hits[k, floor]) * \
-            np.sqrt(1.0 - np.array(low_high)) ** im.hits[k, floor]
+        expected = (
+            np.sqrt(0.8) ** (im.orders[k] - im.hits[k, floor])
+            * np.sqrt(1.0 - np.array(low_high)) ** im.hits[k, floor]
+        )
         assert_allclose(im.reflection[k], expected)
     assert_allclose(im.air, 1.0)  # no air absorption in this room
 

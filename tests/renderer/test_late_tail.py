@@ -10,21 +10,24 @@ from numpy.testing import assert_allclose
 from scipy import signal
 
 from earfold.hrtf_sets import get_shipped
+from earfold.renderer.errors import RoomError
 from earfold.renderer.geometry import direction_to_vector
 from earfold.renderer.hrtf import HrirSet, load_hrir_set
 from earfold.renderer.room import (
+    BANDS_HZ,
     EAR_DISTANCE,
+    ROOMS,
+    SURFACES,
     TAIL_RANGE_DB,
     band_weights,
     diffuse_coherence,
     diffuse_field,
     late_tail,
+    measure_rt60,
+    room_from_dict,
     sphere_coherence,
     tail_length,
 )
-from earfold.renderer.room import BANDS_HZ, ROOMS, SURFACES, room_from_dict
-from earfold.renderer.errors import RoomError
-from earfold.renderer.room import measure_rt60
 
 FS = 16000
 
@@ -70,26 +73,30 @@ def test_tail_energy_is_the_statistical_reverberant_energy():
     r, t0 = 2.0, 0.03
     tail = late_tail(room, FS, t0, reference_distance=r, crossfade_s=0.0)
     tau = float(room.rt60[0]) / (6 * math.log(10))
-    expected = 16 * math.pi * r ** 2 / float(room.room_constant[0]) * math.exp(-t0 / tau)
+    expected = 16 * math.pi * r**2 / float(room.room_constant[0]) * math.exp(-t0 / tau)
     assert np.sum(tail[0] ** 2) == pytest.approx(expected, rel=0.05)
 
 
 def _band_coherence(x: np.ndarray, band: float, fs: float) -> float:
-    sos = signal.butter(3, [band / math.sqrt(2), band * math.sqrt(2)], btype="bandpass", fs=fs,
-                        output="sos")
+    sos = signal.butter(
+        3, [band / math.sqrt(2), band * math.sqrt(2)], btype="bandpass", fs=fs, output="sos"
+    )
     left, right = signal.sosfilt(sos, x, axis=-1)
-    return float(np.sum(left * right) / math.sqrt(np.sum(left ** 2) * np.sum(right ** 2)))
+    return float(np.sum(left * right) / math.sqrt(np.sum(left**2) * np.sum(right**2)))
 
 
 def _target_coherence(diffuse, band: float, fs: float) -> float:
     # The target curve averaged over the same octave filter, weighted by the ears' power.
-    sos = signal.butter(3, [band / math.sqrt(2), band * math.sqrt(2)], btype="bandpass", fs=fs,
-                        output="sos")
+    sos = signal.butter(
+        3, [band / math.sqrt(2), band * math.sqrt(2)], btype="bandpass", fs=fs, output="sos"
+    )
     f, h = signal.sosfreqz(sos, worN=diffuse.freqs, fs=fs)
     w = np.abs(h) ** 2
     pl, pr = diffuse.power
-    return float(np.sum(w * np.sqrt(pl * pr) * diffuse.coherence)
-                 / math.sqrt(np.sum(w * pl) * np.sum(w * pr)))
+    return float(
+        np.sum(w * np.sqrt(pl * pr) * diffuse.coherence)
+        / math.sqrt(np.sum(w * pl) * np.sum(w * pr))
+    )
 
 
 def test_tail_has_the_diffuse_field_coherence_of_the_hrir_set():
@@ -141,8 +148,11 @@ def test_tail_length_reaches_the_range_of_the_slowest_band_and_respects_the_cap(
     assert n == math.ceil(float(np.max(room.rt60)) * TAIL_RANGE_DB / 60.0 * FS)
     assert tail_length(room, FS, max_seconds=0.5) == int(0.5 * FS)
     assert late_tail(room, FS, 0.1, reference_distance=2.0, max_seconds=0.25).shape == (2, 4000)
-    with pytest.raises(RoomError, match=r"max_seconds must be a positive number of seconds, "
-                                        r"got -1"):
+    with pytest.raises(
+        RoomError,
+        match=r"max_seconds must be a positive number of seconds, "
+        r"got -1",
+    ):
         tail_length(room, FS, max_seconds=-1)
 
 

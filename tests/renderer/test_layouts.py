@@ -11,7 +11,6 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.layouts import labels_from_mask
 from earfold.renderer.errors import LayoutError
 from earfold.renderer.layouts import (
     LAYOUTS,
@@ -21,6 +20,7 @@ from earfold.renderer.layouts import (
     canonical_label,
     get_layout,
     labels_from_filenames,
+    labels_from_mask,
     layout_from_dict,
     load_layout_file,
     resolve_channel_order,
@@ -34,27 +34,50 @@ EXAMPLES = Path(__file__).resolve().parents[2] / "examples" / "layouts"
 # ITU-R BS.2051 loudspeaker positions (azimuth positive left / elevation, degrees), as
 # tabulated in ../shared/REFERENCES.md, system by system.
 _BS2051_B = [("L", 30, 0), ("R", -30, 0), ("C", 0, 0), ("Ls", 110, 0), ("Rs", -110, 0)]
-_BS2051_I = [("L", 30, 0), ("R", -30, 0), ("C", 0, 0), ("Ls", 90, 0), ("Rs", -90, 0),
-             ("Lrs", 135, 0), ("Rrs", -135, 0)]
+_BS2051_I = [
+    ("L", 30, 0),
+    ("R", -30, 0),
+    ("C", 0, 0),
+    ("Ls", 90, 0),
+    ("Rs", -90, 0),
+    ("Lrs", 135, 0),
+    ("Rrs", -135, 0),
+]
 BS2051_POSITIONS = {
-    "5.1": _BS2051_B,                                                       # system B
-    "5.1.2": _BS2051_B + [("Ltf", 30, 30), ("Rtf", -30, 30)],               # system C
-    "5.1.4": _BS2051_B + [("Ltf", 30, 30), ("Rtf", -30, 30),                # system D
-                          ("Ltr", 110, 30), ("Rtr", -110, 30)],
-    "7.1": _BS2051_I,                                                       # system I
-    "7.1.4": _BS2051_I + [("Ltf", 45, 30), ("Rtf", -45, 30),                # system J
-                          ("Ltr", 135, 30), ("Rtr", -135, 30)],
-    "22.2": (                                                               # system H
-        [(f"M{a:+04d}" if a else "M+000", a, 0) for a in (60, -60, 30, -30, 0, 90, -90,
-                                                          135, -135)]
+    "5.1": _BS2051_B,  # system B
+    "5.1.2": _BS2051_B + [("Ltf", 30, 30), ("Rtf", -30, 30)],  # system C
+    "5.1.4": _BS2051_B
+    + [
+        ("Ltf", 30, 30),
+        ("Rtf", -30, 30),  # system D
+        ("Ltr", 110, 30),
+        ("Rtr", -110, 30),
+    ],
+    "7.1": _BS2051_I,  # system I
+    "7.1.4": _BS2051_I
+    + [
+        ("Ltf", 45, 30),
+        ("Rtf", -45, 30),  # system J
+        ("Ltr", 135, 30),
+        ("Rtr", -135, 30),
+    ],
+    "22.2": (  # system H
+        [(f"M{a:+04d}" if a else "M+000", a, 0) for a in (60, -60, 30, -30, 0, 90, -90, 135, -135)]
         + [("M+180", 180, 0)]
         + [(f"U{a:+04d}" if a else "U+000", a, 30) for a in (0, 45, -45, 90, -90, 135, -135)]
         + [("U+180", 180, 30), ("T+000", 0, 90)]
         + [(f"B{a:+04d}" if a else "B+000", a, -30) for a in (0, 45, -45)]
     ),
 }
-BS2051_SYSTEM = {"2.0": "A", "5.1": "B", "5.1.2": "C", "5.1.4": "D", "7.1": "I",
-                 "7.1.4": "J", "22.2": "H"}
+BS2051_SYSTEM = {
+    "2.0": "A",
+    "5.1": "B",
+    "5.1.2": "C",
+    "5.1.4": "D",
+    "7.1": "I",
+    "7.1.4": "J",
+    "22.2": "H",
+}
 
 
 @pytest.mark.parametrize(
@@ -122,7 +145,8 @@ def test_every_builtin_layout_is_left_right_symmetric(name):
         m = layout.speakers[layout.index(_mirror_label(s.label))]
         # The mirror image has the opposite azimuth (mod 360) and the same elevation.
         assert math.isclose((m.azimuth + s.azimuth) % 360.0, 0.0, abs_tol=1e-9) or math.isclose(
-            (m.azimuth + s.azimuth) % 360.0, 360.0, abs_tol=1e-9), (s, m)
+            (m.azimuth + s.azimuth) % 360.0, 360.0, abs_tol=1e-9
+        ), (s, m)
         assert m.elevation == s.elevation and m.lfe == s.lfe
         # Positive azimuth is the left: labels starting with L sit left (geometry.py).
         if s.label[0] == "L" and not s.lfe:
@@ -148,12 +172,12 @@ def test_channel_counts_of_the_large_layouts():
 @pytest.mark.parametrize(
     "name,mask",
     [
-        ("5.1", 0x3F),      # Microsoft channel-mask documentation: 5.1 = 0x3F
-        ("7.1", 0x63F),     # same: 7.1 = FL FR FC LFE BL BR SL SR
+        ("5.1", 0x3F),  # Microsoft channel-mask documentation: 5.1 = 0x3F
+        ("7.1", 0x63F),  # same: 7.1 = FL FR FC LFE BL BR SL SR
         ("7.1.4", 0x2D63F),  # computed: 7.1 + TFL TFR TBL TBR (REFERENCES.md)
-        ("5.1.2", 0x3F | 0x1000 | 0x4000),                    # computed: 5.1 + TFL TFR
+        ("5.1.2", 0x3F | 0x1000 | 0x4000),  # computed: 5.1 + TFL TFR
         ("5.1.4", 0x3F | 0x1000 | 0x4000 | 0x8000 | 0x20000),  # computed: + TBL TBR
-        ("7.1.2", 0x63F | 0x1000 | 0x4000),                   # computed: 7.1 + TFL TFR
+        ("7.1.2", 0x63F | 0x1000 | 0x4000),  # computed: 7.1 + TFL TFR
     ],
 )
 def test_default_order_is_the_wav_mask_order(name, mask):
@@ -175,12 +199,35 @@ def test_speaker_vector_points_left_for_positive_azimuth():
 @pytest.mark.parametrize(
     "given,expected",
     [
-        ("FL", "L"), ("fl", "L"), ("R", "R"), ("fc", "C"), ("Centre", "C"), ("lfe", "LFE"),
-        ("SL", "Ls"), ("Lss", "Ls"), ("sr", "Rs"), ("Lsr", "Lrs"), ("BL", "Lrs"),
-        ("Lb", "Lrs"), ("BR", "Rrs"), ("TFL", "Ltf"), ("Ltf", "Ltf"), ("tfr", "Rtf"),
-        ("TBL", "Ltr"), ("TBR", "Rtr"), ("TSL", "Ltm"), ("FLW", "Lw"), ("FLC", "Lc"),
-        ("TC", "Tc"), ("LFE1", "LFE1"), ("lfe2", "LFE2"), ("m+30", "M+030"),
-        ("U-135", "U-135"), ("T-000", "T+000"), ("M-180", "M+180"), (" Ls ", "Ls"),
+        ("FL", "L"),
+        ("fl", "L"),
+        ("R", "R"),
+        ("fc", "C"),
+        ("Centre", "C"),
+        ("lfe", "LFE"),
+        ("SL", "Ls"),
+        ("Lss", "Ls"),
+        ("sr", "Rs"),
+        ("Lsr", "Lrs"),
+        ("BL", "Lrs"),
+        ("Lb", "Lrs"),
+        ("BR", "Rrs"),
+        ("TFL", "Ltf"),
+        ("Ltf", "Ltf"),
+        ("tfr", "Rtf"),
+        ("TBL", "Ltr"),
+        ("TBR", "Rtr"),
+        ("TSL", "Ltm"),
+        ("FLW", "Lw"),
+        ("FLC", "Lc"),
+        ("TC", "Tc"),
+        ("LFE1", "LFE1"),
+        ("lfe2", "LFE2"),
+        ("m+30", "M+030"),
+        ("U-135", "U-135"),
+        ("T-000", "T+000"),
+        ("M-180", "M+180"),
+        (" Ls ", "Ls"),
     ],
 )
 def test_canonical_label_aliases(given, expected):
@@ -199,9 +246,9 @@ def test_index_accepts_aliases_and_layout_fallbacks():
     assert five.index("Ls") == 4
     assert five.index("ls") == 4
     assert five.index("SL") == 4
-    assert five.index("BL") == 4      # 5.1's surrounds are the rear pair of the WAV mask
+    assert five.index("BL") == 4  # 5.1's surrounds are the rear pair of the WAV mask
     assert five.index("Lrs") == 4
-    assert five.index("M+110") == 4   # BS.2051 name of system B's left surround
+    assert five.index("M+110") == 4  # BS.2051 name of system B's left surround
     assert five.index("LFE1") == 3
     seven = LAYOUTS["7.1"]
     assert seven.index("BL") == seven.labels.index("Lrs")
@@ -219,8 +266,11 @@ def test_t000_is_not_found_in_a_layout_without_a_zenith_speaker():
 
 
 def test_index_error_lists_the_layout_labels():
-    with pytest.raises(LayoutError, match=r"'Ltf' is not a channel of layout '5\.1'; "
-                                          r"its channels are L, R, C, LFE, Ls, Rs"):
+    with pytest.raises(
+        LayoutError,
+        match=r"'Ltf' is not a channel of layout '5\.1'; "
+        r"its channels are L, R, C, LFE, Ls, Rs",
+    ):
         LAYOUTS["5.1"].index("Ltf")
 
 
@@ -252,8 +302,11 @@ def test_resolve_channel_order_accepts_wav_names():
 
 
 def test_resolve_channel_order_reports_wrong_count():
-    with pytest.raises(LayoutError, match=r"names 5 channel\(s\) \(L, R, C, LFE, Ls\) but "
-                                          r"layout '5\.1' has 6: L, R, C, LFE, Ls, Rs"):
+    with pytest.raises(
+        LayoutError,
+        match=r"names 5 channel\(s\) \(L, R, C, LFE, Ls\) but "
+        r"layout '5\.1' has 6: L, R, C, LFE, Ls, Rs",
+    ):
         resolve_channel_order(LAYOUTS["5.1"], ["L", "R", "C", "LFE", "Ls"])
 
 
@@ -275,8 +328,10 @@ def test_resolve_channel_order_reports_rear_and_surround_both_given_in_5_1():
 @pytest.mark.parametrize(
     "paths,expected",
     [
-        (["mix.L.wav", "mix_Ls.wav", "scene-LFE.flac", "Mix.Rtf.wav", "take3 C.wav"],
-         ["L", "Ls", "LFE", "Rtf", "C"]),
+        (
+            ["mix.L.wav", "mix_Ls.wav", "scene-LFE.flac", "Mix.Rtf.wav", "take3 C.wav"],
+            ["L", "Ls", "LFE", "Rtf", "C"],
+        ),
         (["stems/ep1/mix.fl.wav", "stems/ep1/mix.FR.wav"], ["L", "R"]),
         (["hall_M-030.wav", "hall_u+045.wav", "hall-T+000.wav"], ["M-030", "U+045", "T+000"]),
         (["Lss.wav", "x_TBR.aiff"], ["Ls", "Rtr"]),
@@ -288,8 +343,12 @@ def test_labels_from_filenames(paths, expected):
 
 @pytest.mark.parametrize(
     "paths",
-    [["mix.L.wav", "mix.wav"], ["drums_01.wav"], ["L.wav", "take-Left Front.wav"],
-     ["mix_L_final.wav"]],
+    [
+        ["mix.L.wav", "mix.wav"],
+        ["drums_01.wav"],
+        ["L.wav", "take-Left Front.wav"],
+        ["mix_L_final.wav"],
+    ],
 )
 def test_labels_from_filenames_needs_a_label_in_every_name(paths):
     assert labels_from_filenames(paths) is None
@@ -312,8 +371,10 @@ def test_suggest_layout_by_count_and_by_labels():
     heights = ["L", "R", "C", "LFE", "Ls", "Rs", "Ltf", "Rtf"]
     assert suggest_layout(8, heights).name == "5.1.2"
     assert suggest_layout(8, ["FL", "FR", "FC", "LFE", "BL", "BR", "SL", "SR"]).name == "7.1"
-    assert suggest_layout(10, ["L", "R", "C", "LFE", "Lrs", "Rrs", "Ls", "Rs", "TFL",
-                               "TFR"]).name == "7.1.2"
+    assert (
+        suggest_layout(10, ["L", "R", "C", "LFE", "Lrs", "Rrs", "Ls", "Rs", "TFL", "TFR"]).name
+        == "7.1.2"
+    )
     assert suggest_layout(2, ["L", "Q"]) is None
     assert suggest_layout(3, ["L", "R"]) is None
 
@@ -355,16 +416,23 @@ def _spk(label="L", az=30, el=0, **kw):
 
 
 def test_custom_layout_defaults_and_azimuth_wrap(tmp_path):
-    path = _write(tmp_path, {"speakers": [_spk("front", 0), _spk("back right", 270, 10,
-                                                                  distance=2.5),
-                                          _spk("sub", -400 + 360, -10, lfe=True)]})
+    path = _write(
+        tmp_path,
+        {
+            "speakers": [
+                _spk("front", 0),
+                _spk("back right", 270, 10, distance=2.5),
+                _spk("sub", -400 + 360, -10, lfe=True),
+            ]
+        },
+    )
     layout = load_layout_file(path)
     assert layout.name == "room"  # from the file name
     assert layout.labels == ("front", "back right", "sub")
     assert layout.speakers[1].azimuth == -90.0 and layout.speakers[1].distance == 2.5
     assert layout.lfe_indices == (2,)
     assert layout.index("BACK RIGHT") == 1
-    assert layout.index("LFE") == 2       # "sub" is a known alias of LFE
+    assert layout.index("LFE") == 2  # "sub" is a known alias of LFE
 
 
 @pytest.mark.parametrize(
@@ -374,12 +442,17 @@ def test_custom_layout_defaults_and_azimuth_wrap(tmp_path):
         ({"name": "x"}, r"missing 'speakers'"),
         ({"speakers": {"L": 30}}, r"'speakers' must be a list"),
         ([1, 2], r"must be a JSON object"),
-        ({"speakers": [_spk()], "speaker": []}, r"unknown field\(s\) 'speaker'; valid fields: "
-                                                r"name, description, source, speakers"),
+        (
+            {"speakers": [_spk()], "speaker": []},
+            r"unknown field\(s\) 'speaker'; valid fields: "
+            r"name, description, source, speakers",
+        ),
         ({"speakers": [{"label": "L", "azimuth": 30}]}, r"speaker 1 is missing elevation"),
         ({"speakers": [{"azimuth": 30, "elevation": 0}]}, r"speaker 1 is missing label"),
-        ({"speakers": [_spk(), _spk("R", "-30")]},
-         r"speaker 2 \('R'\) azimuth must be a number, got '-30'"),
+        (
+            {"speakers": [_spk(), _spk("R", "-30")]},
+            r"speaker 2 \('R'\) azimuth must be a number, got '-30'",
+        ),
         ({"speakers": [_spk(el=True)]}, r"elevation must be a number, got True"),
         ({"speakers": [_spk(az=361)]}, r"azimuth 361 is outside -360\.\.360"),
         ({"speakers": [_spk(az=-400)]}, r"azimuth -400 is outside -360\.\.360"),
@@ -388,11 +461,17 @@ def test_custom_layout_defaults_and_azimuth_wrap(tmp_path):
         ({"speakers": [_spk(distance=0)]}, r"distance 0 must be positive"),
         ({"speakers": [_spk(distance="2 m")]}, r"distance must be a number, got '2 m'"),
         ({"speakers": [_spk(lfe="yes")]}, r"lfe must be true or false, got 'yes'"),
-        ({"speakers": [_spk(elev=0)]}, r"unknown field\(s\) 'elev'; valid fields: label, "
-                                       r"azimuth, elevation, distance, lfe"),
+        (
+            {"speakers": [_spk(elev=0)]},
+            r"unknown field\(s\) 'elev'; valid fields: label, "
+            r"azimuth, elevation, distance, lfe",
+        ),
         ({"speakers": [_spk("L"), _spk("L", -30)]}, r"duplicate label 'L'"),
-        ({"speakers": [_spk("L"), _spk("fl", -30)]}, r"duplicate label 'fl' \(same channel "
-                                                     r"as 'L'\)"),
+        (
+            {"speakers": [_spk("L"), _spk("fl", -30)]},
+            r"duplicate label 'fl' \(same channel "
+            r"as 'L'\)",
+        ),
         ({"speakers": [_spk("Top, Left")]}, r"label 'Top, Left' must be 1 to 16 printable"),
         ({"speakers": [_spk("x" * 17)]}, r"must be 1 to 16 printable"),
         ({"speakers": [_spk("")]}, r"must be 1 to 16 printable"),
@@ -400,8 +479,10 @@ def test_custom_layout_defaults_and_azimuth_wrap(tmp_path):
         ({"speakers": [_spk(7)]}, r"label must be a string, got 7"),
         ({"speakers": ["L"]}, r"speaker 1 must be an object"),
         ({"name": 5, "speakers": [_spk()]}, r"layout name must be a string, got 5"),
-        ({"speakers": [_spk(f"s{i}", i) for i in range(MAX_SPEAKERS + 1)]},
-         rf"has {MAX_SPEAKERS + 1} speakers; at most {MAX_SPEAKERS}"),
+        (
+            {"speakers": [_spk(f"s{i}", i) for i in range(MAX_SPEAKERS + 1)]},
+            rf"has {MAX_SPEAKERS + 1} speakers; at most {MAX_SPEAKERS}",
+        ),
     ],
 )
 def test_layout_file_errors_name_the_file_and_the_problem(tmp_path, data, pattern):
@@ -420,8 +501,11 @@ def test_layout_file_with_nan_is_rejected(tmp_path):
 def test_bad_json_reports_line_and_column(tmp_path):
     text = '{\n  "speakers": [\n    {"label": "L", "azimuth": 30 "elevation": 0}\n  ]\n}\n'
     path = _write(tmp_path, text)
-    with pytest.raises(LayoutError, match=r"is not valid JSON: Expecting ',' delimiter at "
-                                          r"line 3, column 34"):
+    with pytest.raises(
+        LayoutError,
+        match=r"is not valid JSON: Expecting ',' delimiter at "
+        r"line 3, column 34",
+    ):
         load_layout_file(path)
 
 
@@ -438,8 +522,11 @@ def test_max_speakers_is_accepted(tmp_path):
 def test_get_layout_by_name():
     assert get_layout("7.1.4") is LAYOUTS["7.1.4"]
     assert get_layout(" 22.2 ") is LAYOUTS["22.2"]
-    with pytest.raises(LayoutError, match=r"unknown layout '7\.2'; choose one of 2\.0, 5\.1, "
-                                          r".*22\.2 or give a \.json layout file"):
+    with pytest.raises(
+        LayoutError,
+        match=r"unknown layout '7\.2'; choose one of 2\.0, 5\.1, "
+        r".*22\.2 or give a \.json layout file",
+    ):
         get_layout("7.2")
 
 

@@ -15,8 +15,7 @@ import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
 from earfold.renderer.errors import AudioError
-from earfold.renderer.loudness import TARGET_MARGIN_DB, TruePeakLimiter
-from earfold.renderer.loudness import true_peak
+from earfold.renderer.loudness import TARGET_MARGIN_DB, TruePeakLimiter, true_peak
 
 FS = 48000
 
@@ -31,7 +30,7 @@ def limit(x: np.ndarray, rate: int = FS, sizes=None, seed: int = 0, **options):
         parts, i = [], 0
         while i < len(x):
             n = int(rng.integers(1, sizes))
-            parts.append(lim.process(x[i:i + n]))
+            parts.append(lim.process(x[i : i + n]))
             i += n
     parts.append(lim.flush())
     y = np.concatenate(parts)
@@ -50,13 +49,15 @@ def hard_signals(rate: int = FS) -> dict[str, np.ndarray]:
     impulses[20000] = [1.0, -1.0]
     impulses[n - 1, 1] = -1.0  # last frame: its interpolation lies past the end
     burst = np.zeros((n, 2))
-    burst[n // 2:] = np.clip(rng.standard_normal((n - n // 2, 2)) * 2.0, -4.0, 4.0)
+    burst[n // 2 :] = np.clip(rng.standard_normal((n - n // 2, 2)) * 2.0, -4.0, 4.0)
     return {
         "square 1 kHz full scale": np.sign(np.sin(2 * np.pi * 1000 * t / rate + 0.1))[:, None]
         * stereo,
-        "square 997 Hz at +12 dB": 4.0 * np.sign(np.sin(2 * np.pi * 997 * t / rate + 0.1))[:, None]
+        "square 997 Hz at +12 dB": 4.0
+        * np.sign(np.sin(2 * np.pi * 997 * t / rate + 0.1))[:, None]
         * stereo,
-        "fs/4 sine at 45 degrees, +3 dBTP": 1.41 * np.sin(np.pi / 2 * t + np.pi / 4)[:, None]
+        "fs/4 sine at 45 degrees, +3 dBTP": 1.41
+        * np.sin(np.pi / 2 * t + np.pi / 4)[:, None]
         * stereo,
         "clipped noise": np.clip(rng.standard_normal((n, 2)) * 0.8, -1.0, 1.0),
         "single impulses": impulses,
@@ -92,8 +93,10 @@ def test_streaming_in_random_blocks_is_bit_identical_to_one_block():
         whole, a = limit(x)
         parts, b = limit(x, sizes=3000, seed=4)
         assert_array_equal(parts, whole, err_msg=name)
-        assert (a.samples_limited, a.max_gain_reduction_db) == \
-            (b.samples_limited, b.max_gain_reduction_db)
+        assert (a.samples_limited, a.max_gain_reduction_db) == (
+            b.samples_limited,
+            b.max_gain_reduction_db,
+        )
 
 
 def test_signals_below_the_ceiling_pass_bit_identically():
@@ -207,12 +210,15 @@ def test_mono_and_many_channels():
         assert true_peak(y, FS) <= -1.0
 
 
-@pytest.mark.parametrize("options, message", [
-    ({"ceiling_dbtp": 3.0}, r"ceiling_dbtp must be a number from -30 to 0 dBTP, not 3\.0"),
-    ({"ceiling_dbtp": float("nan")}, r"ceiling_dbtp must be a number .*, not nan"),
-    ({"lookahead_ms": 0.0}, r"lookahead_ms must be a number from 0\.5 to 50 ms"),
-    ({"release_ms": "fast"}, r"release_ms must be a number from 1 to 5000 ms, not 'fast'"),
-])
+@pytest.mark.parametrize(
+    "options, message",
+    [
+        ({"ceiling_dbtp": 3.0}, r"ceiling_dbtp must be a number from -30 to 0 dBTP, not 3\.0"),
+        ({"ceiling_dbtp": float("nan")}, r"ceiling_dbtp must be a number .*, not nan"),
+        ({"lookahead_ms": 0.0}, r"lookahead_ms must be a number from 0\.5 to 50 ms"),
+        ({"release_ms": "fast"}, r"release_ms must be a number from 1 to 5000 ms, not 'fast'"),
+    ],
+)
 def test_bad_settings_are_refused(options, message):
     with pytest.raises(AudioError, match=message):
         TruePeakLimiter(FS, 2, **options)

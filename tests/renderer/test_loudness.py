@@ -24,8 +24,8 @@ import scipy.signal
 from numpy.testing import assert_allclose
 
 import earfold.renderer.loudness.meter as loudness
-from earfold.renderer.io import write_audio
 from earfold.renderer.errors import AudioError
+from earfold.renderer.io import write_audio
 from earfold.renderer.layouts import get_layout
 from earfold.renderer.loudness import (
     K_WEIGHTING_48K,
@@ -43,8 +43,9 @@ from earfold.renderer.loudness import (
 FS = 48000
 
 
-def sine(level_dbfs: float, seconds: float, freq: float = 1000.0, channels: int = 2,
-         rate: int = FS) -> np.ndarray:
+def sine(
+    level_dbfs: float, seconds: float, freq: float = 1000.0, channels: int = 2, rate: int = FS
+) -> np.ndarray:
     """A sine whose per-channel peak is ``level_dbfs``, copied to every channel."""
     t = np.arange(int(round(seconds * rate))) / rate
     x = 10 ** (level_dbfs / 20) * np.sin(2 * np.pi * freq * t)
@@ -54,7 +55,7 @@ def sine(level_dbfs: float, seconds: float, freq: float = 1000.0, channels: int 
 def meter(x: np.ndarray, weights=None, rate: int = FS, block: int = 65536):
     m = LoudnessMeter(rate, x.shape[1], weights)
     for i in range(0, len(x), block):
-        m.process(x[i:i + block])
+        m.process(x[i : i + block])
     return m.result()
 
 
@@ -98,7 +99,8 @@ def test_other_rates_follow_the_analogue_prototype(rate):
     s1 = 1j * freqs / p["shelf"]["f0"]
     s2 = 1j * freqs / p["highpass"]["f0"]
     shelf = (p["shelf"]["vh"] * s1**2 + p["shelf"]["vb"] * s1 / p["shelf"]["q"] + 1) / (
-        s1**2 + s1 / p["shelf"]["q"] + 1)
+        s1**2 + s1 / p["shelf"]["q"] + 1
+    )
     high = p["highpass"]["gain"] * s2**2 / (s2**2 + s2 / p["highpass"]["q"] + 1)
     _, h = scipy.signal.sosfreqz(k_weighting_sos(rate), worN=freqs, fs=rate)
     assert_allclose(20 * np.log10(np.abs(h)), 20 * np.log10(np.abs(shelf * high)), atol=0.01)
@@ -147,8 +149,9 @@ def test_ebu_3341_cases_1_and_2_momentary_and_short_term(level):
 def test_ebu_3341_case_6_five_channels_with_surround_weights():
     # EBU Tech 3341 case 6: L, R -28; C -24; Ls, Rs -30 dBFS for 20 s; I = -23.0 +-0.1,
     # with the BS.1770-4 weights 1.0 (L, R, C) and 1.41 (Ls, Rs).
-    x = np.concatenate([sine(level, 20.0, channels=1) for level in (-28, -28, -24, -30, -30)],
-                       axis=1)
+    x = np.concatenate(
+        [sine(level, 20.0, channels=1) for level in (-28, -28, -24, -30, -30)], axis=1
+    )
     assert_allclose(meter(x, weights=[1, 1, 1, 1.41, 1.41]).integrated_lufs, -23.0, atol=0.1)
 
 
@@ -180,24 +183,30 @@ def tone(freq: float, phase_deg: float, amplitude: float, seconds: float = 1.0) 
     return np.stack([x, x], axis=1).astype(np.float32)
 
 
-@pytest.mark.parametrize("freq, phase, amplitude, expected", [
-    (FS / 4, 0.0, 0.5, -6.0),  # EBU Tech 3341 case 15
-    (FS / 4, 45.0, 0.5, -6.0),  # case 16 (sample peak about -9.0, computed)
-    (FS / 6, 60.0, 0.5, -6.0),  # case 17
-    (FS / 8, 67.5, 0.5, -6.0),  # case 18
-    (FS / 4, 45.0, 1.41, 3.0),  # case 19
-])
+@pytest.mark.parametrize(
+    "freq, phase, amplitude, expected",
+    [
+        (FS / 4, 0.0, 0.5, -6.0),  # EBU Tech 3341 case 15
+        (FS / 4, 45.0, 0.5, -6.0),  # case 16 (sample peak about -9.0, computed)
+        (FS / 6, 60.0, 0.5, -6.0),  # case 17
+        (FS / 8, 67.5, 0.5, -6.0),  # case 18
+        (FS / 4, 45.0, 1.41, 3.0),  # case 19
+    ],
+)
 def test_ebu_3341_true_peak_cases(freq, phase, amplitude, expected):
     reading = true_peak(tone(freq, phase, amplitude), FS)
     assert expected - 0.4 <= reading <= expected + 0.2  # EBU Tech 3341: +0.2 / -0.4 dB
 
 
-@pytest.mark.parametrize("levels, expected", [
-    ((-20, -30), 10.0),  # EBU Tech 3342 case 1
-    ((-20, -15), 5.0),  # case 2
-    ((-40, -20), 20.0),  # case 3
-    ((-50, -35, -20, -35, -50), 15.0),  # case 4
-])
+@pytest.mark.parametrize(
+    "levels, expected",
+    [
+        ((-20, -30), 10.0),  # EBU Tech 3342 case 1
+        ((-20, -15), 5.0),  # case 2
+        ((-40, -20), 20.0),  # case 3
+        ((-50, -35, -20, -35, -50), 15.0),  # case 4
+    ],
+)
 def test_ebu_3342_loudness_range(levels, expected):
     x = sequence(*[(level, 20) for level in levels])
     assert_allclose(meter(x).loudness_range_lu, expected, atol=1.0)  # Tech 3342, +-1 LU
@@ -215,11 +224,14 @@ def programme(rng: np.random.Generator, seconds: float, channels: int, rate: int
     return (0.2 * rng.standard_normal((n, channels)) * env).astype(np.float32)
 
 
-@pytest.mark.parametrize("channels, weights, rate", [
-    (2, None, 48000),
-    (2, None, 44100),
-    (5, [1.0, 1.0, 1.0, 1.41, 1.41], 48000),
-])
+@pytest.mark.parametrize(
+    "channels, weights, rate",
+    [
+        (2, None, 48000),
+        (2, None, 44100),
+        (5, [1.0, 1.0, 1.0, 1.41, 1.41], 48000),
+    ],
+)
 def test_integrated_loudness_agrees_with_pyloudnorm(channels, weights, rate):
     pyln = pytest.importorskip("pyloudnorm")
     x = programme(np.random.default_rng(channels + rate), 12.0, channels, rate)
@@ -233,8 +245,7 @@ def test_integrated_loudness_agrees_with_pyloudnorm(channels, weights, rate):
 def test_ebu_case_1_at_other_rates(rate):
     # EBU Tech 3341 case 1 (-23 dBFS 1 kHz, I = -23.0 +-0.1) played at other rates: checks
     # the K-weighting derived for them.
-    assert_allclose(meter(sine(-23.0, 10.0, rate=rate), rate=rate).integrated_lufs, -23.0,
-                    atol=0.1)
+    assert_allclose(meter(sine(-23.0, 10.0, rate=rate), rate=rate).integrated_lufs, -23.0, atol=0.1)
 
 
 # ----------------------------------------------------------- streaming and edge cases
@@ -248,11 +259,16 @@ def test_block_sizes_do_not_change_the_result():
     i = 0
     while i < len(x):
         n = int(rng.integers(1, 9000))
-        m.process(x[i:i + n])
+        m.process(x[i : i + n])
         i += n
     parts = m.result()
-    for name in ("integrated_lufs", "momentary_max_lufs", "short_term_max_lufs",
-                 "loudness_range_lu", "sample_peak_dbfs"):
+    for name in (
+        "integrated_lufs",
+        "momentary_max_lufs",
+        "short_term_max_lufs",
+        "loudness_range_lu",
+        "sample_peak_dbfs",
+    ):
         assert_allclose(getattr(parts, name), getattr(whole, name), rtol=0, atol=1e-9)
     # True peak: the same points, possibly summed in float32 in another order.
     assert_allclose(parts.true_peak_dbtp, whole.true_peak_dbtp, rtol=0, atol=1e-5)
@@ -286,8 +302,9 @@ def test_series_stay_capped_and_keep_the_maximum(monkeypatch):
     rng = np.random.default_rng(3)
     result = meter(programme(rng, 40.0, 2))
     assert len(result.momentary_series) <= 64
-    assert result.momentary_interval_s == pytest.approx(0.1 * 2 ** math.ceil(
-        math.log2(397 / 64)))  # 397 readings halved until they fit
+    assert result.momentary_interval_s == pytest.approx(
+        0.1 * 2 ** math.ceil(math.log2(397 / 64))
+    )  # 397 readings halved until they fit
     assert_allclose(max(result.momentary_series), result.momentary_max_lufs, atol=1e-12)
 
 
@@ -297,8 +314,9 @@ def test_measure_file_matches_the_in_memory_meter_and_takes_mono_files(tmp_path)
     write_audio(tmp_path / "mix.L.wav", x[:, :1], FS, subtype="FLOAT")
     write_audio(tmp_path / "mix.R.wav", x[:, 1:], FS, subtype="FLOAT")
     expected = meter(x).integrated_lufs
-    assert_allclose(measure_file(tmp_path / "mix.wav", blocksize=1000).integrated_lufs,
-                    expected, atol=1e-9)
+    assert_allclose(
+        measure_file(tmp_path / "mix.wav", blocksize=1000).integrated_lufs, expected, atol=1e-9
+    )
     both = measure_file([tmp_path / "mix.L.wav", tmp_path / "mix.R.wav"])
     assert_allclose(both.integrated_lufs, expected, atol=1e-9)
 
@@ -326,8 +344,10 @@ def test_bad_input_is_refused_with_clear_messages():
         LoudnessMeter(100, 2)
 
 
-@pytest.mark.parametrize("offset_db, gain_db", [
-    (0.0, -25.0), (0.0, -8.0), (0.0, 0.0), (0.0, 6.0), (0.0, 27.0), (-50.0, 65.0)])
+@pytest.mark.parametrize(
+    "offset_db, gain_db",
+    [(0.0, -25.0), (0.0, -8.0), (0.0, 0.0), (0.0, 6.0), (0.0, 27.0), (-50.0, 65.0)],
+)
 def test_a_result_with_gain_reads_what_metering_the_scaled_audio_reads(offset_db, gain_db):
     # The same meter on the audio scaled by the gain is the reference. The programme
     # holds passages near and below the absolute gate (-70 LUFS), and digital silence,
@@ -353,13 +373,14 @@ def test_a_result_with_gain_reads_what_metering_the_scaled_audio_reads(offset_db
         assert (a is None) == (b is None), name
         if a is not None:
             assert_allclose(a, b, atol=0.02, err_msg=name)  # two bins at most
-    for name in ("momentary_max_lufs", "short_term_max_lufs", "true_peak_dbtp",
-                 "sample_peak_dbfs"):
+    for name in ("momentary_max_lufs", "short_term_max_lufs", "true_peak_dbtp", "sample_peak_dbfs"):
         assert_allclose(getattr(derived, name), getattr(direct, name), atol=1e-6, err_msg=name)
     # Readings over 100 dB under the loudest passage are the filters' decaying state and
     # float rounding; they are compared only as being that low.
-    for a, b in ((derived.momentary_series, direct.momentary_series),
-                 (derived.short_term_series, direct.short_term_series)):
+    for a, b in (
+        (derived.momentary_series, direct.momentary_series),
+        (derived.short_term_series, direct.short_term_series),
+    ):
         a, b = np.array(a), np.array(b)
         audible = b > b.max() - 100.0
         assert_allclose(a[audible], b[audible], atol=1e-6)
@@ -391,14 +412,14 @@ def test_point_peaks_against_zero_stuffing_and_convolution(threshold, dtype):
     f, e = interp.factor, interp.history
     taps = interpolation_taps(f)
     for n, c in ((1, 1), (7, 2), (1001, 2), (4099, 3)):
-        x = (rng.standard_normal((n + e, c)) * rng.uniform(0.02, 0.4, size=(n + e, 1)))
+        x = rng.standard_normal((n + e, c)) * rng.uniform(0.02, 0.4, size=(n + e, 1))
         x = x.astype(dtype)
         context, block = x[:e], x[e:]
         expected = np.zeros(n)
         for ch in range(c):
             u = np.zeros((n + e) * f)
             u[::f] = x[:, ch]
-            y = np.convolve(u, taps)[e * f:(n + e) * f].reshape(n, f)
+            y = np.convolve(u, taps)[e * f : (n + e) * f].reshape(n, f)
             expected = np.maximum(expected, np.abs(y).max(axis=1))
         expected = np.maximum(expected, np.abs(block).max(axis=1))
         got = interp.point_peaks(block, threshold=threshold, context=context)
@@ -415,7 +436,7 @@ def test_skipping_never_changes_a_value_above_the_threshold():
     # with skipping equal the full computation wherever the latter exceeds the threshold.
     rng = np.random.default_rng(5)
     interp = PeakInterpolator(FS)
-    x = (rng.standard_normal((20000, 3)) * rng.uniform(0.01, 0.3, size=(20000, 1)))
+    x = rng.standard_normal((20000, 3)) * rng.uniform(0.01, 0.3, size=(20000, 1))
     x = x.astype(np.float32)
     full = interp.point_peaks(x, threshold=0.0)
     for threshold in (0.2, 0.5, 0.8):
@@ -455,7 +476,7 @@ def test_true_peak_meter_streams_and_includes_the_end():
     i = 0
     while i < len(x):
         n = int(rng.integers(1, 700))
-        m.process(x[i:i + n])
+        m.process(x[i : i + n])
         i += n
     # The same points, summed in float32 in another order: equal to about 1e-6 dB.
     assert_allclose(m.true_peak_dbtp, whole, atol=1e-5)

@@ -13,13 +13,14 @@ from scipy import signal
 from earfold.renderer.io import write_audio
 from earfold.renderer.render import (
     LOUDNESS_POINTS,
+    RenderSettings,
     SpectrumMeter,
     energy_decay,
+    render,
     schroeder_db,
     thin_series,
     third_octave_bands,
 )
-from earfold.renderer.render import RenderSettings, render
 
 FS = 48000
 
@@ -31,7 +32,7 @@ def test_third_octave_centres_are_the_iec_base_ten_series():
     centres, lower, upper = third_octave_bands(FS)
     for exact in (31.62, 63.10, 125.89, 251.19, 1000.0, 1995.26, 7943.28):
         assert np.min(np.abs(centres - exact)) < 0.01
-    assert_allclose(upper / lower, 10 ** 0.1)  # a third of an octave, base 10
+    assert_allclose(upper / lower, 10**0.1)  # a third of an octave, base 10
     assert_allclose(np.sqrt(lower * upper), centres)  # geometric mid-band
     assert centres[0] == pytest.approx(19.95, abs=0.01)
     assert upper[-1] < FS / 2
@@ -45,7 +46,7 @@ def test_sine_lands_in_its_band_at_its_mean_square():
     x = 0.5 * np.sin(2 * np.pi * 1000.0 * t)
     meter = SpectrumMeter(FS, 2)
     for start in range(0, len(x), 7919):  # odd block size: results must not depend on it
-        block = x[start:start + 7919]
+        block = x[start : start + 7919]
         meter.process(np.stack([block, 0.5 * block], axis=1))
     bands = meter.band_levels()
     i = int(np.argmin(np.abs(np.array(bands["centres_hz"]) - 1000.0)))
@@ -72,19 +73,18 @@ def test_white_noise_bands_match_scipy_welch():
     x = 0.1 * rng.standard_normal((10 * FS, 2))
     meter = SpectrumMeter(FS, 2)
     for start in range(0, len(x), 65536):
-        meter.process(x[start:start + 65536])
+        meter.process(x[start : start + 65536])
     freqs, ms = meter.mean_square()
-    f_ref, psd = signal.welch(x, fs=FS, window="hann", nperseg=meter.nfft, axis=0,
-                              detrend=False)
+    f_ref, psd = signal.welch(x, fs=FS, window="hann", nperseg=meter.nfft, axis=0, detrend=False)
     df = f_ref[1] - f_ref[0]
     assert_allclose(ms, psd * df, rtol=1e-6, atol=1e-15)
     # Parseval: the bins add up to the mean square (about 0.01) within the estimate's spread.
-    assert_allclose(ms.sum(axis=0), np.mean(x ** 2, axis=0), rtol=0.02)
+    assert_allclose(ms.sum(axis=0), np.mean(x**2, axis=0), rtol=0.02)
     bands = meter.band_levels()
     # White noise: band power proportional to bandwidth, about +1 dB per third octave.
     levels = np.array(bands["levels_db"])
     centres = np.array(bands["centres_hz"])
-    expected = 10 * np.log10(0.01 * (centres * (10 ** 0.05 - 10 ** -0.05)) / (FS / 2))
+    expected = 10 * np.log10(0.01 * (centres * (10**0.05 - 10**-0.05)) / (FS / 2))
     upper_bands = centres >= 200  # enough bins and segments for a 0.5 dB estimate
     assert_allclose(levels[:, upper_bands], np.tile(expected[upper_bands], (2, 1)), atol=0.5)
 
@@ -99,24 +99,33 @@ def test_strided_meter_analyses_a_bounded_even_sample_of_segments():
     bounded = SpectrumMeter.for_length(FS, 2, len(x), max_segments=16)
     assert bounded.stride > 1
     for start in range(0, len(x), 30011):  # odd blocks
-        bounded.process(x[start:start + 30011])
+        bounded.process(x[start : start + 30011])
     assert 0 < bounded._segments <= 16
     # The same segments, chosen by hand: every stride-th of the full set.
     hop, nfft = full.nfft // 2, full.nfft
     window = signal.get_window("hann", nfft)
     picked = range(0, (len(x) - nfft) // hop + 1, bounded.stride)
-    power = sum(np.abs(np.fft.rfft(x[k * hop:k * hop + nfft].astype(np.float64)
-                                   * window[:, None], axis=0)) ** 2 for k in picked)
+    power = sum(
+        np.abs(
+            np.fft.rfft(x[k * hop : k * hop + nfft].astype(np.float64) * window[:, None], axis=0)
+        )
+        ** 2
+        for k in picked
+    )
     _, ms = bounded.mean_square()
     scale = np.full(nfft // 2 + 1, 2.0)
     scale[[0, -1]] = 1.0
-    assert_allclose(ms, power / len(picked) * scale[:, None] / (nfft * np.sum(window ** 2)),
-                    rtol=1e-4, atol=1e-14)
+    assert_allclose(
+        ms, power / len(picked) * scale[:, None] / (nfft * np.sum(window**2)), rtol=1e-4, atol=1e-14
+    )
     # And the estimate stays near the full one for stationary noise (bands >= 200 Hz).
     centres = np.array(full.band_levels()["centres_hz"])
     upper = centres >= 200
-    assert_allclose(np.array(bounded.band_levels()["levels_db"])[:, upper],
-                    np.array(full.band_levels()["levels_db"])[:, upper], atol=1.0)
+    assert_allclose(
+        np.array(bounded.band_levels()["levels_db"])[:, upper],
+        np.array(full.band_levels()["levels_db"])[:, upper],
+        atol=1.0,
+    )
 
 
 def test_short_signal_is_one_segment_of_its_own_length():
@@ -135,7 +144,7 @@ def test_schroeder_integral_of_an_exponential_matches_the_closed_form():
     fs, tau, n = 8000, 0.05, 4000
     t = np.arange(n) / fs
     h = np.exp(-t / tau)
-    edc = schroeder_db(h ** 2)
+    edc = schroeder_db(h**2)
     closed = np.exp(-2 * t / tau) - np.exp(-2 * n / fs / tau)
     closed_db = 10 * np.log10(closed / closed[0])
     assert_allclose(edc[: n // 2], closed_db[: n // 2], atol=0.05)
@@ -184,8 +193,9 @@ def stem_51(tmp_path_factory):
 
 
 def test_render_report_has_bounded_plot_section_with_room(stem_51):
-    report = render([stem_51 / "bells.wav"], stem_51 / "out.wav",
-                    RenderSettings(layout="5.1", room="small"))
+    report = render(
+        [stem_51 / "bells.wav"], stem_51 / "out.wav", RenderSettings(layout="5.1", room="small")
+    )
     plots = report["plots"]
     loud = plots["loudness"]
     assert loud["target_lufs"] == -23.0
@@ -215,8 +225,11 @@ def test_render_report_has_bounded_plot_section_with_room(stem_51):
 
 
 def test_render_without_delivery_meters_the_file_itself(stem_51):
-    report = render([stem_51 / "bells.wav"], stem_51 / "raw.wav",
-                    RenderSettings(layout="5.1", loudness=None, true_peak=None))
+    report = render(
+        [stem_51 / "bells.wav"],
+        stem_51 / "raw.wav",
+        RenderSettings(layout="5.1", loudness=None, true_peak=None),
+    )
     plots = report["plots"]
     assert report["delivery"] is None
     assert plots["room_decay"] is None

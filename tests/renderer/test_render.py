@@ -8,12 +8,11 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.engine import convolve_reference
-from earfold.renderer.errors import LayoutError, RendererError
-from earfold.renderer.layouts import get_layout
+from earfold.renderer.errors import LayoutError, RenderCancelled, RendererError
 from earfold.renderer.hrtf import interaural_time_difference
-from earfold.renderer.errors import RenderCancelled
+from earfold.renderer.io import read_audio, write_audio
+from earfold.renderer.layouts import get_layout
 from earfold.renderer.render import RenderSettings, plan_render, render
 
 FS = 48000
@@ -111,8 +110,9 @@ def test_mono_files_named_by_label_match_the_interleaved_render(tmp_path):
         write_audio(p, data[:, [lay.index(label)]], FS, subtype="FLOAT")
         monos.append(p)
     out = tmp_path / "mono-out.wav"
-    report = render(monos, out, RenderSettings(layout="5.1", subtype="FLOAT", loudness=None,
-                                               true_peak=None))
+    report = render(
+        monos, out, RenderSettings(layout="5.1", subtype="FLOAT", loudness=None, true_peak=None)
+    )
     y_mono, _ = read_audio(out)
     assert report["channel_order"]["source"] == "file names"
     assert_allclose(y_mono, y_inter, atol=1e-7)
@@ -222,16 +222,18 @@ def test_room_and_headphone_eq_equal_the_cascade_of_references(tmp_path, monkeyp
     import earfold.renderer.render._render as render_module
 
     monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", 3000)
-    bands = [{"type": "peaking", "frequency": 3000.0, "gain_db": -4.0, "q": 1.2},
-             {"type": "high_shelf", "frequency": 8000.0, "gain_db": 3.0, "q": 0.7}]
+    bands = [
+        {"type": "peaking", "frequency": 3000.0, "gain_db": -4.0, "q": 1.2},
+        {"type": "high_shelf", "frequency": 8000.0, "gain_db": 3.0, "q": 0.7},
+    ]
     lay = get_layout("5.1")
     frames = FS // 5 + 11
     feeds = {label: _noise(frames, k) for k, label in enumerate(lay.labels)}
     stem, data = _stem(tmp_path, "5.1", feeds, frames=frames)
-    y, report = _render(tmp_path, stem, "5.1", room="small", block_size=1024,
-                        headphone_eq=bands)
-    exact = plan_render([stem], RenderSettings(layout="5.1", room="small", room_mode="exact",
-                                               headphone_eq=bands))
+    y, report = _render(tmp_path, stem, "5.1", room="small", block_size=1024, headphone_eq=bands)
+    exact = plan_render(
+        [stem], RenderSettings(layout="5.1", room="small", room_mode="exact", headphone_eq=bands)
+    )
     ref = convolve_reference(convolve_reference(data, exact.filters), exact.headphone.filters())
     assert y.shape == ref.shape
     assert_allclose(y, ref, atol=2e-6)
@@ -243,8 +245,18 @@ def test_room_is_deterministic_for_a_seed(tmp_path):
     outs = []
     for name, seed in (("a", 3), ("b", 3), ("c", 4)):
         out = tmp_path / f"{name}.wav"
-        render([stem], out, RenderSettings(layout="2.0", room="small", seed=seed, subtype="FLOAT",
-                                           loudness=None, true_peak=None))
+        render(
+            [stem],
+            out,
+            RenderSettings(
+                layout="2.0",
+                room="small",
+                seed=seed,
+                subtype="FLOAT",
+                loudness=None,
+                true_peak=None,
+            ),
+        )
         outs.append(read_audio(out)[0])
     assert np.array_equal(outs[0], outs[1])
     assert not np.array_equal(outs[0], outs[2])
@@ -255,7 +267,7 @@ def test_room_lengthens_the_output_and_adds_reverberant_energy(tmp_path):
     dry, _ = _render(tmp_path, stem, "5.1")
     wet, report = _render(tmp_path, stem, "5.1", room="medium")
     assert len(wet) > len(dry) + FS // 4  # a tail of several hundred ms
-    late = wet[len(dry):]
+    late = wet[len(dry) :]
     assert _energy(late) > 1e-4 * _energy(wet)
     assert report["room"]["rt60_requested_s"]
 
@@ -276,7 +288,11 @@ def test_measured_room_set_is_rendered_as_it_is(tmp_path):
 def test_unknown_room_mode_is_an_error(tmp_path):
     stem, _ = _stem(tmp_path, "2.0", {"L": _noise(100)})
     with pytest.raises(RendererError, match="room mode 'approx'"):
-        render([stem], tmp_path / "x.wav", RenderSettings(layout="2.0", room="small", room_mode="approx"))
+        render(
+            [stem],
+            tmp_path / "x.wav",
+            RenderSettings(layout="2.0", room="small", room_mode="approx"),
+        )
 
 
 # -- delivery ---------------------------------------------------------------------------

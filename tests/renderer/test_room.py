@@ -11,7 +11,7 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
-from earfold.renderer.errors import RendererError
+from earfold.renderer.errors import RendererError, RoomError
 from earfold.renderer.layouts import LAYOUTS
 from earfold.renderer.room import (
     BANDS_HZ,
@@ -27,7 +27,6 @@ from earfold.renderer.room import (
     room_from_dict,
     sabine_rt60,
 )
-from earfold.renderer.errors import RoomError
 
 EXAMPLES = Path(__file__).resolve().parents[2] / "examples" / "rooms"
 
@@ -56,16 +55,19 @@ def test_sabine_and_eyring_match_pyroomacoustics_for_uniform_absorption(alpha):
     # uses 24 ln(10) / c = 0.16113 where Sabine's constant is usually rounded to 0.161.
     v, s = 60.0, 94.0
     scale = 0.161 / (24 * math.log(10) / 343.0)
-    assert_allclose(sabine_rt60(v, s, alpha), pra.rt60_sabine(s, v, alpha, 0.0, 343.0) * scale,
-                    rtol=1e-12)
-    assert_allclose(eyring_rt60(v, s, alpha), pra.rt60_eyring(s, v, alpha, 0.0, 343.0) * scale,
-                    rtol=1e-12)
+    assert_allclose(
+        sabine_rt60(v, s, alpha), pra.rt60_sabine(s, v, alpha, 0.0, 343.0) * scale, rtol=1e-12
+    )
+    assert_allclose(
+        eyring_rt60(v, s, alpha), pra.rt60_eyring(s, v, alpha, 0.0, 343.0) * scale, rtol=1e-12
+    )
     # With air absorption only Sabine's: pyroomacoustics 0.10.1's rt60_eyring adds 4 m V
     # with the wrong sign (its denominator is S ln(1 - a) + 4 m V), so air would lengthen
     # the time; ours subtracts it as Kuttruff writes it.
     m = 0.01
-    assert_allclose(sabine_rt60(v, s, alpha, m), pra.rt60_sabine(s, v, alpha, m, 343.0) * scale,
-                    rtol=1e-12)
+    assert_allclose(
+        sabine_rt60(v, s, alpha, m), pra.rt60_sabine(s, v, alpha, m, 343.0) * scale, rtol=1e-12
+    )
     assert eyring_rt60(v, s, alpha, m) < eyring_rt60(v, s, alpha)
 
 
@@ -74,8 +76,9 @@ def test_absorption_for_rt60_inverts_eyring():
     target = np.array([1.4, 1.3, 1.2, 1.1, 1.0, 0.9, 0.8])
     for air in (False, True):
         alpha = absorption_for_rt60(dims, target, air_absorption=air)
-        room = room_from_dict({"dimensions": list(dims), "rt60": list(target),
-                               "air_absorption": air})
+        room = room_from_dict(
+            {"dimensions": list(dims), "rt60": list(target), "air_absorption": air}
+        )
         assert_allclose(room.mean_absorption, alpha, rtol=1e-12)
         assert_allclose(room.rt60_eyring, target, rtol=1e-9)
         assert room.rt60_target == tuple(target)
@@ -91,8 +94,13 @@ def test_air_attenuation_follows_iso_9613_1_table():
 
 def test_air_shortens_the_hall_at_high_frequencies_only():
     dry = room_from_dict({"dimensions": [32, 22, 13], "absorption": {s: 0.2 for s in SURFACES}})
-    wet = room_from_dict({"dimensions": [32, 22, 13], "absorption": {s: 0.2 for s in SURFACES},
-                          "air_absorption": True})
+    wet = room_from_dict(
+        {
+            "dimensions": [32, 22, 13],
+            "absorption": {s: 0.2 for s in SURFACES},
+            "air_absorption": True,
+        }
+    )
     ratio = wet.rt60 / dry.rt60
     assert ratio[0] > 0.99  # 125 Hz: air absorbs almost nothing
     assert ratio[-1] < 0.6  # 8 kHz: air dominates in a hall
@@ -146,15 +154,25 @@ def test_listener_frame_maps_onto_room_axes():
     assert_allclose(front - room.listener, [1.0, 0.0, 0.0])  # towards the front wall (+x)
     assert_allclose(left - room.listener, [0.0, 1.0, 0.0])  # towards the left wall (+y)
     d = room.to_dict()["listener"]
-    assert_allclose([d["to_front_wall"], d["to_left_wall"]],
-                    [length - room.listener[0], width - room.listener[1]])
+    assert_allclose(
+        [d["to_front_wall"], d["to_left_wall"]],
+        [length - room.listener[0], width - room.listener[1]],
+    )
 
 
 def test_to_dict_is_json_ready_and_complete():
     for room in ROOMS.values():
         d = json.loads(json.dumps(room.to_dict()))
-        for key in ("dimensions_m", "volume_m3", "surface_m2", "absorption", "rt60_sabine_s",
-                    "rt60_eyring_s", "mixing_time_ms", "critical_distance_m"):
+        for key in (
+            "dimensions_m",
+            "volume_m3",
+            "surface_m2",
+            "absorption",
+            "rt60_sabine_s",
+            "rt60_eyring_s",
+            "mixing_time_ms",
+            "critical_distance_m",
+        ):
             assert key in d
         assert_allclose(d["rt60_eyring_s"], room.rt60_eyring, atol=1e-4)
         assert len(d["absorption"]) == 6 and all(len(v) == 7 for v in d["absorption"].values())
@@ -190,32 +208,49 @@ def test_direct_construction_is_validated_too():
 @pytest.mark.parametrize(
     ("change", "pattern"),
     [
-        ({"colour": "blue"}, r"unknown key\(s\) 'colour'; valid keys: name, description, "
-                             r"dimensions"),
+        (
+            {"colour": "blue"},
+            r"unknown key\(s\) 'colour'; valid keys: name, description, "
+            r"dimensions",
+        ),
         ({"dimensions": [5, 4]}, r"'dimensions' must be \[length, width, height\]"),
         ({"dimensions": [5, 4, -3]}, r"room height -3\.0 m is out of range"),
         ({"dimensions": [5, "4", 3]}, r"dimension width must be a number, got '4'"),
         ({"dimensions": [5, 4, True]}, r"dimension height must be a number, got True"),
-        ({"listener": {"to_front_wall": 6, "to_left_wall": 2, "ear_height": 1.2}},
-         r"the listener at \(-1, 2, 1\.2\).*is not inside"),
+        (
+            {"listener": {"to_front_wall": 6, "to_left_wall": 2, "ear_height": 1.2}},
+            r"the listener at \(-1, 2, 1\.2\).*is not inside",
+        ),
         ({"listener": {"to_front_wall": 2, "to_left_wall": 2}}, r"listener is missing ear_height"),
-        ({"listener": {"to_front_wall": 2, "to_left_wall": 2, "ear_height": 1, "x": 1}},
-         r"listener has unknown key\(s\) 'x'; valid keys: to_front_wall"),
-        ({"absorption": {s: 1.5 for s in SURFACES}},
-         r"absorption 1\.5 of the front at 125 Hz is outside 0\.\.1"),
+        (
+            {"listener": {"to_front_wall": 2, "to_left_wall": 2, "ear_height": 1, "x": 1}},
+            r"listener has unknown key\(s\) 'x'; valid keys: to_front_wall",
+        ),
+        (
+            {"absorption": {s: 1.5 for s in SURFACES}},
+            r"absorption 1\.5 of the front at 125 Hz is outside 0\.\.1",
+        ),
         ({"absorption": {s: -0.1 for s in SURFACES}}, r"absorption -0\.1 of the front"),
         ({"absorption": {s: 0.0 for s in SURFACES}}, r"nothing absorbs at 125 Hz"),
         ({"absorption": {s: 1.0 for s in SURFACES}}, r"leaves almost no reverberation"),
         ({"absorption": {s: 0.2 for s in SURFACES[:5]}}, r"absorption is missing ceiling"),
-        ({"absorption": {**{s: 0.2 for s in SURFACES}, "door": 0.3}},
-         r"absorption has unknown key\(s\) 'door'; valid keys: front, back, left, right, floor, "
-         r"ceiling"),
-        ({"absorption": {**{s: 0.2 for s in SURFACES}, "floor": [0.1, 0.2]}},
-         r"absorption of the floor must be a number or a list of 7 numbers"),
-        ({"absorption": {**{s: 0.2 for s in SURFACES}, "floor": "carpet"}},
-         r"absorption of the floor must be a number or a list"),
-        ({"absorption": {s: 0.01 for s in SURFACES}, "dimensions": [60, 50, 40]},
-         r"gives an RT60 of .* s at 125 Hz \(Eyring\); rooms from 0\.05 to 10 s"),
+        (
+            {"absorption": {**{s: 0.2 for s in SURFACES}, "door": 0.3}},
+            r"absorption has unknown key\(s\) 'door'; valid keys: front, back, left, right, floor, "
+            r"ceiling",
+        ),
+        (
+            {"absorption": {**{s: 0.2 for s in SURFACES}, "floor": [0.1, 0.2]}},
+            r"absorption of the floor must be a number or a list of 7 numbers",
+        ),
+        (
+            {"absorption": {**{s: 0.2 for s in SURFACES}, "floor": "carpet"}},
+            r"absorption of the floor must be a number or a list",
+        ),
+        (
+            {"absorption": {s: 0.01 for s in SURFACES}, "dimensions": [60, 50, 40]},
+            r"gives an RT60 of .* s at 125 Hz \(Eyring\); rooms from 0\.05 to 10 s",
+        ),
         ({"order": 7}, r"order 7 must be an integer from 0 to 6"),
         ({"order": 2.5}, r"order must be an integer, got 2\.5"),
         ({"seed": -1}, r"seed -1 must be a non-negative integer"),
@@ -261,8 +296,11 @@ def test_room_must_be_an_object():
 
 def test_loudspeaker_outside_the_room_names_it():
     room = ROOMS["small"]
-    with pytest.raises(RoomError, match=r"loudspeaker 'Ls' at 5 m from the listener would stand "
-                                        r"at .* outside room 'small'"):
+    with pytest.raises(
+        RoomError,
+        match=r"loudspeaker 'Ls' at 5 m from the listener would stand "
+        r"at .* outside room 'small'",
+    ):
         room.speaker_position(np.array([0.0, 1.0, 0.0]), 5.0, label="Ls")
 
 
@@ -277,8 +315,11 @@ def test_room_files_errors(tmp_path):
     named.write_text(json.dumps({**_uniform(0.3), "order": 9}))
     with pytest.raises(RoomError, match=r"attic\.json': room 'attic': order 9"):
         get_room(str(named))
-    with pytest.raises(RoomError, match=r"unknown room 'cathedral'; choose one of none, small, "
-                                        r"medium, large or give a \.json room file"):
+    with pytest.raises(
+        RoomError,
+        match=r"unknown room 'cathedral'; choose one of none, small, "
+        r"medium, large or give a \.json room file",
+    ):
         get_room("cathedral")
 
 

@@ -11,15 +11,21 @@ import pytest
 from numpy.testing import assert_allclose
 
 from earfold.renderer.engine import convolve_reference
-from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.hrtf import HrirSet
-from earfold.renderer.layouts import Layout, Speaker, get_layout
-from earfold.renderer.room import BANDS_HZ, ROOMS, SURFACES, room_from_dict
-from earfold.renderer.room.model import SPEED_OF_SOUND
 from earfold.renderer.errors import RoomError
+from earfold.renderer.geometry import direction_to_vector
+from earfold.renderer.hrtf import HrirSet, sphere_grid
+from earfold.renderer.layouts import Layout, Speaker, get_layout
+from earfold.renderer.room import (
+    BANDS_HZ,
+    ROOMS,
+    SURFACES,
+    build_room_filters,
+    exact_brirs,
+    measure_rt60,
+    room_from_dict,
+)
 from earfold.renderer.room.filters import _minimum_phase_spectrum
-from earfold.renderer.room import build_room_filters, exact_brirs, measure_rt60
-from earfold.renderer.hrtf import sphere_grid
+from earfold.renderer.room.model import SPEED_OF_SOUND
 
 FS = 16000
 
@@ -33,8 +39,9 @@ def _omni_set(fs: float = FS) -> HrirSet:
 
 
 def _uniform_room(alpha: float = 0.15, **extra: object):
-    return room_from_dict({"dimensions": [8.0, 6.0, 3.5],
-                           "absorption": {s: alpha for s in SURFACES}, **extra})
+    return room_from_dict(
+        {"dimensions": [8.0, 6.0, 3.5], "absorption": {s: alpha for s in SURFACES}, **extra}
+    )
 
 
 def _one(distance: float | None = None) -> Layout:
@@ -104,7 +111,7 @@ def test_drr_at_the_critical_distance_is_about_zero():
     h = exact_brirs(f)[0, 0]
     k = int(round(f.report["speakers"][0]["direct_arrival_samples"]))
     direct = np.sum(h[k - 16 : k + 17] ** 2)
-    reverberant = np.sum(h ** 2) - direct
+    reverberant = np.sum(h**2) - direct
     drr = 10 * math.log10(direct / reverberant)
     assert abs(drr) <= 3.0
     assert f.report["speakers"][0]["drr_db"] == pytest.approx(drr, abs=0.5)
@@ -184,7 +191,7 @@ def test_wall_filters_are_minimum_phase_with_the_requested_magnitude():
     spectrum = _minimum_phase_spectrum(magnitude, nfft)
     assert_allclose(np.abs(spectrum), magnitude, rtol=1e-9)
     h = np.fft.irfft(spectrum, n=nfft)
-    assert np.sum(h[: int(0.01 * FS)] ** 2) > 0.999 * np.sum(h ** 2)
+    assert np.sum(h[: int(0.01 * FS)] ** 2) > 0.999 * np.sum(h**2)
 
 
 def test_reflections_carry_their_walls_band_gains():
@@ -194,10 +201,14 @@ def test_reflections_carry_their_walls_band_gains():
     # gain at the centre, as the band weights are 1 there.
     beta = np.array([1.0, 1.0, 0.9, 0.8, 0.7, 0.6, 0.5])
     absorption = {s: 1.0 for s in SURFACES}
-    absorption["floor"] = (1.0 - beta ** 2).tolist()
+    absorption["floor"] = (1.0 - beta**2).tolist()
     data = {"dimensions": [20.0, 20.0, 3.0], "absorption": absorption, "mixing_time_ms": 40}
-    built = [build_room_filters(_omni_set(), _one(1.5), room_from_dict({**data, "order": n}),
-                                FS, max_tail_seconds=0.05) for n in (0, 1)]
+    built = [
+        build_room_filters(
+            _omni_set(), _one(1.5), room_from_dict({**data, "order": n}), FS, max_tail_seconds=0.05
+        )
+        for n in (0, 1)
+    ]
     reflection = built[1].early[0, 0] - built[0].early[0, 0]
     path = math.hypot(1.5, 2 * 1.2)  # to the floor and back up to the ears
     nfft = 1 << 16
@@ -210,11 +221,19 @@ def test_reflections_carry_their_walls_band_gains():
 
 
 def test_report_is_json_ready():
-    f = build_room_filters(_omni_set(), get_layout("2.0"), ROOMS["small"], FS,
-                           max_tail_seconds=0.2)
+    f = build_room_filters(_omni_set(), get_layout("2.0"), ROOMS["small"], FS, max_tail_seconds=0.2)
     d = json.loads(json.dumps(f.report))
-    for key in ("room", "tail_offset_samples", "early_length", "tail_length", "rt60_requested_s",
-                "rt60_measured", "mixing_time_ms", "speakers", "bulk_delay_samples"):
+    for key in (
+        "room",
+        "tail_offset_samples",
+        "early_length",
+        "tail_length",
+        "rt60_requested_s",
+        "rt60_measured",
+        "mixing_time_ms",
+        "speakers",
+        "bulk_delay_samples",
+    ):
         assert key in d
     assert d["early_length"] == f.early.shape[-1] and d["tail_length"] == f.tail.shape[-1]
 
@@ -238,8 +257,11 @@ def test_bad_arguments_are_rejected(kwargs, pattern):
 
 
 def test_loudspeaker_outside_the_room_is_rejected():
-    with pytest.raises(RoomError, match=r"loudspeaker 'C' at 9 m from the listener would stand "
-                                        r"at .* outside room 'small'"):
+    with pytest.raises(
+        RoomError,
+        match=r"loudspeaker 'C' at 9 m from the listener would stand "
+        r"at .* outside room 'small'",
+    ):
         build_room_filters(_omni_set(), _one(9.0), ROOMS["small"], FS)
     with pytest.raises(RoomError, match=r"sampling rate 100 Hz is outside 8000\.\.384000 Hz"):
         build_room_filters(_omni_set(), _one(), ROOMS["small"], 100)

@@ -18,10 +18,10 @@ from pathlib import Path
 import netCDF4
 import numpy as np
 import pytest
+import sofa_factory as fac
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
-import sofa_factory as fac
 from earfold.renderer.errors import SofaError
 from earfold.renderer.geometry import direction_to_vector
 from earfold.renderer.hrtf import MAX_TAPS, SofaData, read_sofa, write_sofa
@@ -203,7 +203,10 @@ def test_malformed_files_neither_crash_nor_hang(shared_sofa_dir):
     files = [str(p) for p in sorted((shared_sofa_dir / "malformed").iterdir())]
     start = time.monotonic()
     done = subprocess.run(
-        [sys.executable, "-c", script, *files], capture_output=True, text=True, timeout=60,
+        [sys.executable, "-c", script, *files],
+        capture_output=True,
+        text=True,
+        timeout=60,
         cwd=REPO_ROOT,
     )
     assert done.returncode == 0, done.stderr[-2000:]
@@ -255,7 +258,9 @@ def test_spherical_degrees_baseline(tmp_path):
     assert_array_equal(data.ir, spec.variables["Data.IR"].data)
     assert_array_equal(data.delay, np.zeros((len(fac.GRID), 2)))
     assert (data.convention, data.convention_version, data.sofa_version) == (
-        "SimpleFreeFieldHRIR", "1.0", "2.1",
+        "SimpleFreeFieldHRIR",
+        "1.0",
+        "2.1",
     )
     assert data.emitter is None
     assert data.attributes["ListenerShortName"] == "sphere-7"
@@ -283,8 +288,13 @@ def test_radians_give_the_same_directions(tmp_path):
 
 @pytest.mark.parametrize(
     "units",
-    ["degree, degree, meter", "degree, degree, metres", "Degrees Degrees Meters",
-     "DEGREE,DEGREE,METRE", "degree"],
+    [
+        "degree, degree, meter",
+        "degree, degree, metres",
+        "Degrees Degrees Meters",
+        "DEGREE,DEGREE,METRE",
+        "degree",
+    ],
 )
 def test_unit_spellings(tmp_path, units):
     spec = fac.simple_free_field()
@@ -422,7 +432,8 @@ def test_spherical_receiver_positions_decide_the_left_ear(tmp_path):
     left_first = np.asarray(spec.variables["Data.IR"].data)
     spec.variables["Data.IR"].data = left_first[:, ::-1, :]
     spec.variables["ReceiverPosition"] = fac.Var(
-        ("R", "C", "I"), [[[-90.0], [0.0], [0.0875]], [[90.0], [0.0], [0.0875]]],
+        ("R", "C", "I"),
+        [[[-90.0], [0.0], [0.0875]], [[90.0], [0.0], [0.0875]]],
         {"Type": "spherical", "Units": "degree, degree, metre"},
     )
     data = read_sofa(write_spec(tmp_path, spec))
@@ -586,8 +597,11 @@ def _break(spec: fac.Spec, what: str) -> fac.Spec:
 @pytest.mark.parametrize(
     "what, match",
     [
-        ("nan", r"Data\.IR has 1 value\(s\) that are NaN, infinite or netCDF fill values"
-                r".*\(3, 1, 5\)"),
+        (
+            "nan",
+            r"Data\.IR has 1 value\(s\) that are NaN, infinite or netCDF fill values"
+            r".*\(3, 1, 5\)",
+        ),
         ("zero-rate", r"Data\.SamplingRate is 0\.0 Hz; it must be a positive number"),
         ("low-rate", r"4000\.0 Hz is outside the supported range 8000 to 384000 Hz"),
         ("mixed-rates", r"Data\.SamplingRate varies between measurements \(44100 to 48000 Hz\)"),
@@ -596,13 +610,22 @@ def _break(spec: fac.Spec, what: str) -> fac.Spec:
         ("mismatched-m", r"SourcePosition has shape \(5, 3\), which does not fit Data\.IR.*M=8"),
         ("no-conventions", r"no global attribute 'Conventions'"),
         ("not-sofa", r"Conventions is 'CF-1\.8', not 'SOFA'"),
-        ("no-sofaconventions", r"no global attribute 'SOFAConventions'; supported conventions: "
-                               r"'SimpleFreeFieldHRIR', 'GeneralFIR', 'GeneralFIR-E'"),
-        ("unsupported", r"SOFAConventions 'SimpleFreeFieldHRTF' is not supported; supported "
-                        r"conventions: 'SimpleFreeFieldHRIR', 'GeneralFIR', 'GeneralFIR-E'"),
+        (
+            "no-sofaconventions",
+            r"no global attribute 'SOFAConventions'; supported conventions: "
+            r"'SimpleFreeFieldHRIR', 'GeneralFIR', 'GeneralFIR-E'",
+        ),
+        (
+            "unsupported",
+            r"SOFAConventions 'SimpleFreeFieldHRTF' is not supported; supported "
+            r"conventions: 'SimpleFreeFieldHRIR', 'GeneralFIR', 'GeneralFIR-E'",
+        ),
         ("data-type", r"DataType is 'TF'; only impulse responses .*: 'FIR' or 'FIR-E'"),
-        ("data-type-mismatch", r"DataType 'FIR-E' does not fit SOFAConventions "
-                               r"'SimpleFreeFieldHRIR'"),
+        (
+            "data-type-mismatch",
+            r"DataType 'FIR-E' does not fit SOFAConventions "
+            r"'SimpleFreeFieldHRIR'",
+        ),
         ("zero-ir", r"every impulse response in Data\.IR is zero"),
         ("bad-type", r"SourcePosition has Type 'polar'; supported: 'cartesian', 'spherical'"),
         ("cartesian-degrees", r"ListenerPosition is cartesian but its Units are 'degree'"),
@@ -669,8 +692,13 @@ def _write_example(path: Path, **overrides) -> dict:
         elevation=np.linspace(-40.0, 70.0, m),
         distance=np.linspace(1.0, 2.1, m),
         delay=rng.uniform(0.0, 4.0, (m, 2)),
-        attributes={"Title": "Round trip", "DatabaseName": "bench", "ListenerShortName": "h-3",
-                    "Comment": "grüße", "CustomNote": "kept"},
+        attributes={
+            "Title": "Round trip",
+            "DatabaseName": "bench",
+            "ListenerShortName": "h-3",
+            "Comment": "grüße",
+            "CustomNote": "kept",
+        },
     )
     args.update(overrides)
     write_sofa(path, **args)
@@ -691,7 +719,10 @@ def test_write_read_round_trip_is_exact(tmp_path):
     for key, value in args["attributes"].items():
         assert data.attributes[key] == value
     assert (data.convention, data.convention_version, data.sofa_version, data.data_type) == (
-        "SimpleFreeFieldHRIR", "1.0", "2.0", "FIR",
+        "SimpleFreeFieldHRIR",
+        "1.0",
+        "2.0",
+        "FIR",
     )
     assert data.room_type == "free field"
     assert data.attributes["APIName"] == "earfold"
@@ -720,8 +751,15 @@ REQUIRED_ATTRIBUTES = {
     "APIName": "earfold",
 }
 REQUIRED_PRESENT = [
-    "APIVersion", "AuthorContact", "Organization", "License", "DateCreated", "DateModified",
-    "Title", "DatabaseName", "ListenerShortName",
+    "APIVersion",
+    "AuthorContact",
+    "Organization",
+    "License",
+    "DateCreated",
+    "DateModified",
+    "Title",
+    "DatabaseName",
+    "ListenerShortName",
 ]
 REQUIRED_VARIABLES = {
     "ListenerPosition": (("I", "C"), "cartesian", "metre"),
@@ -748,7 +786,12 @@ def test_written_file_has_the_structure_the_convention_requires(tmp_path):
             assert isinstance(attrs[key], str), key
         assert re.fullmatch(r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d", attrs["DateCreated"])
         assert {k: len(v) for k, v in ds.dimensions.items() if k != "S"} == {
-            "I": 1, "C": 3, "R": 2, "E": 1, "N": 48, "M": 12,
+            "I": 1,
+            "C": 3,
+            "R": 2,
+            "E": 1,
+            "N": 48,
+            "M": 12,
         }
         for name, (dims, vtype, units) in REQUIRED_VARIABLES.items():
             var = ds[name]

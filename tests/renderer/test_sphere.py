@@ -10,12 +10,10 @@ from scipy import special
 from earfold.renderer.errors import HrirError
 from earfold.renderer.geometry import direction_to_vector
 from earfold.renderer.hrtf import (
+    LEAD_SAMPLES,
     cross_correlation_itd,
     interaural_time_difference,
     onset_times,
-)
-from earfold.renderer.hrtf import (
-    LEAD_SAMPLES,
     series_terms,
     sphere_grid,
     sphere_hrirs,

@@ -18,21 +18,28 @@ def noise(frames: int, channels: int, seed: int = 0, level: float = 0.05) -> np.
     return (level * rng.standard_normal((frames, channels))).astype(np.float32)
 
 
-def write_stem(path: Path, frames: int, channels: int, seed: int = 0,
-               subtype: str = "PCM_24", samplerate: int = FS) -> Path:
+def write_stem(
+    path: Path,
+    frames: int,
+    channels: int,
+    seed: int = 0,
+    subtype: str = "PCM_24",
+    samplerate: int = FS,
+) -> Path:
     write_audio(path, noise(frames, channels, seed), samplerate, subtype=subtype)
     return path
 
 
-def write_mono_set(folder: Path, layout: str, frames: int, seed: int = 0,
-                   prefix: str = "mix") -> list[Path]:
+def write_mono_set(
+    folder: Path, layout: str, frames: int, seed: int = 0, prefix: str = "mix"
+) -> list[Path]:
     """One mono file per channel of ``layout``, named ``prefix.LABEL.wav``, in layout order."""
     labels = get_layout(layout).labels
     data = noise(frames, len(labels), seed)
     paths = []
     for i, label in enumerate(labels):
         p = folder / f"{prefix}.{label}.wav"
-        write_audio(p, data[:, i:i + 1], FS)
+        write_audio(p, data[:, i : i + 1], FS)
         paths.append(p)
     return paths
 

@@ -18,7 +18,10 @@ FS = 48000
 def _run(*args: str) -> subprocess.CompletedProcess:
     """Run the CLI in a fresh interpreter, as a user would (no TTY: no progress)."""
     return subprocess.run(
-        [sys.executable, "-m", "earfold.service.cli", *args], capture_output=True, text=True, timeout=120
+        [sys.executable, "-m", "earfold.service.cli", *args],
+        capture_output=True,
+        text=True,
+        timeout=120,
     )
 
 
@@ -54,8 +57,18 @@ def test_render_writes_output_and_report(tmp_path, stem51):
 def test_render_with_eq_options_reports_them(tmp_path, stem51, repo_root):
     out = tmp_path / "take.bin.wav"
     bright = repo_root / "examples" / "headphone_eq" / "bright.json"
-    proc = _run("render", str(stem51), "-o", str(out), "--layout", "5.1", "--eq", "none",
-                "--headphone-eq", str(bright))
+    proc = _run(
+        "render",
+        str(stem51),
+        "-o",
+        str(out),
+        "--layout",
+        "5.1",
+        "--eq",
+        "none",
+        "--headphone-eq",
+        str(bright),
+    )
     assert proc.returncode == 0, proc.stderr
     report = json.loads((tmp_path / "take.bin.report.json").read_text())
     assert report["eq"]["type"] == "none" and report["eq"]["chosen"] == "requested"
@@ -71,8 +84,16 @@ def test_render_with_eq_options_reports_them(tmp_path, stem51, repo_root):
 def test_render_bad_headphone_eq_is_one_line_exit_2(tmp_path, stem51):
     bad = tmp_path / "cans.json"
     bad.write_text('[{"type": "notch", "frequency": 100}]')
-    proc = _run("render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "5.1",
-                "--headphone-eq", str(bad))
+    proc = _run(
+        "render",
+        str(stem51),
+        "-o",
+        str(tmp_path / "o.wav"),
+        "--layout",
+        "5.1",
+        "--headphone-eq",
+        str(bad),
+    )
     _assert_one_line_error(proc, "unknown type 'notch'")
     assert not (tmp_path / "o.wav").exists()
 
@@ -89,14 +110,18 @@ def test_render_unknown_layout_lists_choices(tmp_path, stem51):
 
 
 def test_render_missing_input(tmp_path):
-    proc = _run("render", str(tmp_path / "nope.wav"), "-o", str(tmp_path / "o.wav"), "--layout", "5.1")
+    proc = _run(
+        "render", str(tmp_path / "nope.wav"), "-o", str(tmp_path / "o.wav"), "--layout", "5.1"
+    )
     _assert_one_line_error(proc, "nope.wav")
 
 
 def test_render_malformed_sofa(tmp_path, stem51):
     bad = tmp_path / "bad.sofa"
     bad.write_bytes(b"\x89HDF\r\n\x1a\n" + b"\0" * 100)
-    proc = _run("render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "5.1", "--hrtf", str(bad))
+    proc = _run(
+        "render", str(stem51), "-o", str(tmp_path / "o.wav"), "--layout", "5.1", "--hrtf", str(bad)
+    )
     _assert_one_line_error(proc, "bad.sofa")
 
 
@@ -128,7 +153,17 @@ def test_hrtf_list(capsys):
 
 
 def test_hrtf_inspect_shipped_file(capsys, repo_root):
-    assert main(["hrtf", "inspect", str(repo_root / "hrtf_sets" / "MIT_KEMAR_normal_pinna.sofa"), "--json"]) == 0
+    assert (
+        main(
+            [
+                "hrtf",
+                "inspect",
+                str(repo_root / "hrtf_sets" / "MIT_KEMAR_normal_pinna.sofa"),
+                "--json",
+            ]
+        )
+        == 0
+    )
     summary = json.loads(capsys.readouterr().out)
     assert summary["measurements"] == 710 and summary["samplerate"] == 44100
     # ITD range of KEMAR: about +/-0.7 ms at the ears' axis (common practice).
@@ -169,8 +204,17 @@ def test_bench_smoke(capsys, tmp_path):
 
     result = run_bench(seconds=1.0, layouts=["2.0"], memory_check=False, workdir=tmp_path)
     row = result["layouts"]["2.0"]
-    assert set(row) >= {"earfold", "baseline", "io_floor", "speedup_vs_baseline", "ratio_to_io_floor",
-                        "delivery_added", "delivery_loud_added", "eq_added", "eq_prepare_s"}
+    assert set(row) >= {
+        "earfold",
+        "baseline",
+        "io_floor",
+        "speedup_vs_baseline",
+        "ratio_to_io_floor",
+        "delivery_added",
+        "delivery_loud_added",
+        "eq_added",
+        "eq_prepare_s",
+    }
     from earfold.renderer.tools import DELIVERY_ROUNDS, EQ_ROUNDS
 
     assert len(row["earfold_delivered"]["round_ratios"]) == DELIVERY_ROUNDS
@@ -192,6 +236,7 @@ def test_bench_rounds_alternate_and_compare_within_a_round():
         def run():
             calls.append(name)
             return {"seconds": next(times)}
+
         return run
 
     runs = interleaved({"A": variant("A"), "B": variant("B")}, 3)

@@ -29,8 +29,11 @@ FAST = {"tick_s": 0.05, "poll_s": 0.02, "lease_s": 5.0}
 
 def _stem(client, tmp_path, seconds=4.0, channels=6, headers=None, silent=False) -> dict:
     path = tmp_path / "rehearsal.wav"
-    x = np.zeros((int(FS * seconds), channels), np.float32) if silent else \
-        noise(int(FS * seconds), channels, seed=7)
+    x = (
+        np.zeros((int(FS * seconds), channels), np.float32)
+        if silent
+        else noise(int(FS * seconds), channels, seed=7)
+    )
     write_audio(path, x, FS)
     resp = client.post("/v1/stems", files=files_field([path]), headers=headers or {})
     assert resp.status_code == 201, resp.text
@@ -46,39 +49,58 @@ def _problem(resp, status: int, pattern: str) -> dict:
 
 def _build(client) -> None:
     Worker(client.app.state.settings, queue=client.app.state.queue, name="test-worker").run(
-        once=True)
+        once=True
+    )
 
 
 def _body(stem: str, **extra) -> dict:
-    body = {"stem_id": stem, "variants": [{"layout": "5.1", "name": "near"},
-                                             {"layout": "5.1", "room": "small",
-                                              "name": "small room"}],
-            "trials": 4, "excerpt": {"start": 0.5, "length": 2.0}}
+    body = {
+        "stem_id": stem,
+        "variants": [
+            {"layout": "5.1", "name": "near"},
+            {"layout": "5.1", "room": "small", "name": "small room"},
+        ],
+        "trials": 4,
+        "excerpt": {"start": 0.5, "length": 2.0},
+    }
     body.update(extra)
     return body
 
 
-@pytest.mark.parametrize(("change", "status", "pattern"), [
-    ({"mode": "abx", "variants": [{"layout": "5.1"}] * 3}, 422, "abx compares exactly 2"),
-    ({"variants": [{"layout": "5.1"}]}, 422, "variants"),
-    ({"variants": [{"layout": "5.1"}] * 9}, 422, "variants"),
-    ({"trials": 0}, 422, "trials"),
-    ({"trials": 101}, 422, "trials"),
-    ({"mode": "mushra"}, 422, "mode"),
-    ({"excerpt": {"start": 9.0, "length": 2.0}}, 422, "the stem is only 4.000 s long"),
-    ({"excerpt": {"start": 3.0, "length": 2.0}}, 422, "runs past the end of the stem"),
-    ({"excerpt": {"length": 0.2}}, 422, "excerpt.length"),
-    ({"excerpt": {"length": 600}}, 422, "excerpt.length"),
-    ({"variants": [{"layout": "5.1"}, {"layout": "7.1.4"}]}, 422,
-     "variant 2: the stem has 6 channel(s) but layout '7.1.4' has 12"),
-    ({"variants": [{"layout": "5.1"}, {"layout": "5.1", "room": "cathedral"}]}, 422,
-     "variant 2: unknown room 'cathedral'"),
-    ({"variants": [{"layout": "5.1"}, {"layout": "5.1", "loudness": -14}]}, 422,
-     "variants.1.loudness"),
-    ({"stem_id": "0" * 32}, 404, "no stem"),
-])
-def test_bad_requests_are_refused_before_anything_is_queued(client, tmp_path, change, status,
-                                                            pattern):
+@pytest.mark.parametrize(
+    ("change", "status", "pattern"),
+    [
+        ({"mode": "abx", "variants": [{"layout": "5.1"}] * 3}, 422, "abx compares exactly 2"),
+        ({"variants": [{"layout": "5.1"}]}, 422, "variants"),
+        ({"variants": [{"layout": "5.1"}] * 9}, 422, "variants"),
+        ({"trials": 0}, 422, "trials"),
+        ({"trials": 101}, 422, "trials"),
+        ({"mode": "mushra"}, 422, "mode"),
+        ({"excerpt": {"start": 9.0, "length": 2.0}}, 422, "the stem is only 4.000 s long"),
+        ({"excerpt": {"start": 3.0, "length": 2.0}}, 422, "runs past the end of the stem"),
+        ({"excerpt": {"length": 0.2}}, 422, "excerpt.length"),
+        ({"excerpt": {"length": 600}}, 422, "excerpt.length"),
+        (
+            {"variants": [{"layout": "5.1"}, {"layout": "7.1.4"}]},
+            422,
+            "variant 2: the stem has 6 channel(s) but layout '7.1.4' has 12",
+        ),
+        (
+            {"variants": [{"layout": "5.1"}, {"layout": "5.1", "room": "cathedral"}]},
+            422,
+            "variant 2: unknown room 'cathedral'",
+        ),
+        (
+            {"variants": [{"layout": "5.1"}, {"layout": "5.1", "loudness": -14}]},
+            422,
+            "variants.1.loudness",
+        ),
+        ({"stem_id": "0" * 32}, 404, "no stem"),
+    ],
+)
+def test_bad_requests_are_refused_before_anything_is_queued(
+    client, tmp_path, change, status, pattern
+):
     stem = _stem(client, tmp_path)
     _problem(client.post("/v1/comparisons", json=_body(stem["id"], **change)), status, pattern)
     assert client.app.state.queue.counts().get("queued", 0) == 0
@@ -96,8 +118,11 @@ def test_an_ab_session_from_start_to_reveal(make_client, tmp_path):
     assert view["state"] == "preparing" and view["progress"] == 0.0
     assert view["links"]["page"] == f"/compare/{cid}"
     assert view["trials"][0]["audio"] is None  # nothing to hear yet
-    _problem(client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "A"}), 409,
-             "still being prepared")
+    _problem(
+        client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "A"}),
+        409,
+        "still being prepared",
+    )
     _problem(client.get(f"/v1/comparisons/{cid}/results"), 409, "results open once")
     # The build job is no render: it does not show among them.
     assert client.get("/v1/renders").json() == []
@@ -112,18 +137,32 @@ def test_an_ab_session_from_start_to_reveal(make_client, tmp_path):
     assert client.get("/compare/" + cid).status_code == 200
 
     # Answers: trial 0 A, trial 1 B; the same answer again is harmless, a change is not.
-    assert client.post(f"/v1/comparisons/{cid}/trials/0/answer",
-                       json={"choice": "A"}).json()["next_trial"] == 1
-    assert client.post(f"/v1/comparisons/{cid}/trials/0/answer",
-                       json={"choice": "A"}).status_code == 200
-    _problem(client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "B"}), 409,
-             "already answered")
+    assert (
+        client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "A"}).json()[
+            "next_trial"
+        ]
+        == 1
+    )
+    assert (
+        client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "A"}).status_code
+        == 200
+    )
+    _problem(
+        client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "B"}),
+        409,
+        "already answered",
+    )
     answered = client.post(f"/v1/comparisons/{cid}/trials/1/answer", json={"choice": "B"}).json()
     assert "correct" not in json.dumps(answered)  # nothing judged before the reveal
-    _problem(client.post(f"/v1/comparisons/{cid}/trials/9/answer", json={"choice": "A"}), 404,
-             "no trial 9")
-    assert client.post(f"/v1/comparisons/{cid}/trials/2/answer",
-                       json={"choice": "X"}).status_code == 422
+    _problem(
+        client.post(f"/v1/comparisons/{cid}/trials/9/answer", json={"choice": "A"}),
+        404,
+        "no trial 9",
+    )
+    assert (
+        client.post(f"/v1/comparisons/{cid}/trials/2/answer", json={"choice": "X"}).status_code
+        == 422
+    )
 
     # Resuming: a fresh look at the session carries on where the listener stopped.
     resumed = client.get(f"/v1/comparisons/{cid}").json()
@@ -132,8 +171,9 @@ def test_an_ab_session_from_start_to_reveal(make_client, tmp_path):
 
     finished = client.post(f"/v1/comparisons/{cid}/finish").json()
     assert finished["state"] == "finished" and finished["links"]["results"]
-    _problem(client.post(f"/v1/comparisons/{cid}/trials/2/answer", json={"choice": "A"}), 409,
-             "finished")
+    _problem(
+        client.post(f"/v1/comparisons/{cid}/trials/2/answer", json={"choice": "A"}), 409, "finished"
+    )
 
     result = client.get(f"/v1/comparisons/{cid}/results").json()
     meta = client.app.state.storage.read_meta("comparisons", cid)
@@ -148,8 +188,7 @@ def test_an_ab_session_from_start_to_reveal(make_client, tmp_path):
         assert v["gain_db"] == pytest.approx(result["level_lufs"] - v["measured_lufs"], abs=0.01)
     assert [v["name"] for v in result["variants"]] == ["near", "small room"]
     k = result["variants"][0]["preferred"]
-    assert result["preference_p_value"] == pytest.approx(
-        stats.binomtest(k, 2, 0.5).pvalue)
+    assert result["preference_p_value"] == pytest.approx(stats.binomtest(k, 2, 0.5).pvalue)
 
     resp = client.get(f"/v1/comparisons/{cid}/results?format=csv")
     assert resp.headers["content-type"].startswith("text/csv")
@@ -178,7 +217,7 @@ def test_trial_audio_tells_nothing_but_the_sound(make_client, tmp_path):
 
     # Before the reveal the session's JSON holds no mapping and no per-variant figure.
     text = json.dumps(view)
-    for secret in ("gain_db", "measured_lufs", "true_peak", '"X": 0', '"X": 1', "labels\": {"):
+    for secret in ("gain_db", "measured_lufs", "true_peak", '"X": 0', '"X": 1', 'labels": {'):
         assert secret not in text
     urls, by_variant = [], {0: [], 1: []}
     for trial, stored in zip(view["trials"], meta["trials"]):
@@ -212,13 +251,15 @@ def test_trial_audio_tells_nothing_but_the_sound(make_client, tmp_path):
     # Answer every trial with the right label: 6 of 6, p = 1/64 (binomial, p = 0.5).
     for i, stored in enumerate(meta["trials"]):
         right = "A" if stored["labels"]["X"] == stored["labels"]["A"] else "B"
-        state = client.post(f"/v1/comparisons/{cid}/trials/{i}/answer",
-                            json={"choice": right}).json()["state"]
+        state = client.post(
+            f"/v1/comparisons/{cid}/trials/{i}/answer", json={"choice": right}
+        ).json()["state"]
     assert state == "finished"  # the last answer finishes the session
     result = client.get(f"/v1/comparisons/{cid}/results").json()
     assert result["abx"]["correct"] == 6 and result["abx"]["answered"] == 6
     assert result["abx"]["p_value"] == pytest.approx(
-        stats.binomtest(6, 6, 0.5, alternative="greater").pvalue)
+        stats.binomtest(6, 6, 0.5, alternative="greater").pvalue
+    )
     assert all(r["correct"] for r in result["trials"])
 
 
@@ -244,11 +285,13 @@ def test_sessions_belong_to_their_token(make_client, tmp_path):
     cid = view["id"]
     _problem(client.get(f"/v1/comparisons/{cid}"), 401, "API token")
     token = client.app.state.storage.read_meta("comparisons", cid)["trials"][0]["tokens"]["A"]
-    for method, url in [("GET", f"/v1/comparisons/{cid}"),
-                        ("GET", f"/v1/comparisons/{cid}/audio/{token}"),
-                        ("POST", f"/v1/comparisons/{cid}/finish"),
-                        ("GET", f"/v1/comparisons/{cid}/results"),
-                        ("DELETE", f"/v1/comparisons/{cid}")]:
+    for method, url in [
+        ("GET", f"/v1/comparisons/{cid}"),
+        ("GET", f"/v1/comparisons/{cid}/audio/{token}"),
+        ("POST", f"/v1/comparisons/{cid}/finish"),
+        ("GET", f"/v1/comparisons/{cid}/results"),
+        ("DELETE", f"/v1/comparisons/{cid}"),
+    ]:
         assert client.request(method, url, headers=hb).status_code == 404, (method, url)
     assert client.get("/v1/comparisons", headers=hb).json() == []
     _problem(client.post("/v1/comparisons", json=_body(stem["id"]), headers=hb), 404, "no stem")
@@ -287,8 +330,9 @@ def test_a_real_server_builds_in_a_forked_warm_worker(tmp_path):
     path = write_stem(tmp_path / "tide.wav", FS * 3, 6)
     with LocalServer(workers=1) as server, httpx.Client(base_url=server.url, timeout=30) as http:
         stem = http.post("/v1/stems", files=files_field([path])).json()
-        view = http.post("/v1/comparisons", json=_body(stem["id"], mode="abx", trials=2,
-                                                        excerpt={"length": 2.0})).json()
+        view = http.post(
+            "/v1/comparisons", json=_body(stem["id"], mode="abx", trials=2, excerpt={"length": 2.0})
+        ).json()
         deadline = time.monotonic() + 60
         seen = {view["state"]}
         while view["state"] == "preparing" and time.monotonic() < deadline:
@@ -312,13 +356,19 @@ def test_the_build_spec_points_an_uploaded_hrtf_set_at_its_stored_file(client, t
     storage = client.app.state.storage
     stem = _stem(client, tmp_path)
     tmp = storage.new_tmp()
-    write_json_atomic(tmp / "meta.json", {"id": "c" * 32, "owner": "", "name": "mine.sofa",
-                                          "stored": "set.sofa"})
+    write_json_atomic(
+        tmp / "meta.json", {"id": "c" * 32, "owner": "", "name": "mine.sofa", "stored": "set.sofa"}
+    )
     storage.commit(tmp, "hrtf", "c" * 32)
-    payload = {"comparison_id": "d" * 32, "stem_id": stem["id"],
-               "excerpt": {"start": None, "length": 2.0},
-               "variants": [{"options": {"layout": "5.1"}, "hrtf_id": None},
-                            {"options": {"layout": "5.1", "hrtf": None}, "hrtf_id": "c" * 32}]}
+    payload = {
+        "comparison_id": "d" * 32,
+        "stem_id": stem["id"],
+        "excerpt": {"start": None, "length": 2.0},
+        "variants": [
+            {"options": {"layout": "5.1"}, "hrtf_id": None},
+            {"options": {"layout": "5.1", "hrtf": None}, "hrtf_id": "c" * 32},
+        ],
+    }
     spec = child_spec(storage, payload, "d" * 32)
     assert "hrtf" not in spec["variants"][0]
     assert spec["variants"][1]["hrtf"] == str(storage.path("hrtf", "c" * 32) / "set.sofa")

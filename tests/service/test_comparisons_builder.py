@@ -17,12 +17,17 @@ import struct
 import numpy as np
 import pytest
 
-from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.errors import RendererError
+from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.loudness import LoudnessMeter
 from earfold.renderer.render import RenderSettings, render
-from earfold.service.comparisons.builder import (CEILING_DBTP, BuildError, build, common_level,
-                                         loudest_window)
+from earfold.service.comparisons.builder import (
+    CEILING_DBTP,
+    BuildError,
+    build,
+    common_level,
+    loudest_window,
+)
 from earfold.service.jobs.render_child import build_settings
 from tests.service.stem_factory import FS, noise, write_mono_set
 
@@ -38,7 +43,7 @@ def _data_offset(raw: bytes) -> int:
     """Byte offset of the WAV 'data' payload (RIFF chunk walk)."""
     pos = 12
     while pos + 8 <= len(raw):
-        cid, size = raw[pos:pos + 4], struct.unpack("<I", raw[pos + 4:pos + 8])[0]
+        cid, size = raw[pos : pos + 4], struct.unpack("<I", raw[pos + 4 : pos + 8])[0]
         if cid == b"data":
             return pos + 8
         pos += 8 + size + (size & 1)
@@ -52,12 +57,15 @@ def test_an_excerpt_render_equals_the_render_of_the_cut_stem(tmp_path):
     x = noise(FS * 3, 6, seed=1)
     write_audio(tmp_path / "full.wav", x, FS, subtype="FLOAT")
     start, length = 12000, 48000
-    write_audio(tmp_path / "cut.wav", x[start:start + length], FS, subtype="FLOAT")
+    write_audio(tmp_path / "cut.wav", x[start : start + length], FS, subtype="FLOAT")
     base = RenderSettings(layout="5.1", loudness=None, true_peak=None, subtype="FLOAT")
     from dataclasses import replace
 
-    r1 = render([tmp_path / "full.wav"], tmp_path / "a.wav",
-                replace(base, excerpt=(start / FS, length / FS)))
+    r1 = render(
+        [tmp_path / "full.wav"],
+        tmp_path / "a.wav",
+        replace(base, excerpt=(start / FS, length / FS)),
+    )
     render([tmp_path / "cut.wav"], tmp_path / "b.wav", base)
     a, _ = read_audio(tmp_path / "a.wav")
     b, _ = read_audio(tmp_path / "b.wav")
@@ -69,23 +77,28 @@ def test_an_excerpt_render_equals_the_render_of_the_cut_stem(tmp_path):
 
 def test_an_excerpt_of_mono_files_reads_each_from_the_start(tmp_path):
     paths = write_mono_set(tmp_path, "5.1", FS, seed=2)
-    s = RenderSettings(layout="5.1", loudness=None, true_peak=None, subtype="FLOAT",
-                       excerpt=(0.5, 10.0))  # cut to the stem's end
+    s = RenderSettings(
+        layout="5.1", loudness=None, true_peak=None, subtype="FLOAT", excerpt=(0.5, 10.0)
+    )  # cut to the stem's end
     report = render(paths, tmp_path / "o.wav", s)
     assert report["input"]["frames"] == FS // 2
 
 
-@pytest.mark.parametrize(("excerpt", "pattern"), [
-    ((5.0, 1.0), "starts at 5 s but the stem is only 1.000 s long"),
-    ((-1.0, 1.0), "start >= 0"),
-    ((0.0, 0.0), "length > 0"),
-    (("soon", 1.0), "excerpt must be"),
-])
+@pytest.mark.parametrize(
+    ("excerpt", "pattern"),
+    [
+        ((5.0, 1.0), "starts at 5 s but the stem is only 1.000 s long"),
+        ((-1.0, 1.0), "start >= 0"),
+        ((0.0, 0.0), "length > 0"),
+        (("soon", 1.0), "excerpt must be"),
+    ],
+)
 def test_bad_excerpts_are_refused_with_the_reason(tmp_path, excerpt, pattern):
     write_audio(tmp_path / "s.wav", noise(FS, 6), FS)
     with pytest.raises(RendererError, match=pattern):
-        render([tmp_path / "s.wav"], tmp_path / "o.wav",
-               RenderSettings(layout="5.1", excerpt=excerpt))
+        render(
+            [tmp_path / "s.wav"], tmp_path / "o.wav", RenderSettings(layout="5.1", excerpt=excerpt)
+        )
 
 
 def test_render_child_passes_the_excerpt_on():
@@ -110,11 +123,14 @@ def test_loudest_window_of_a_short_stem_is_its_start():
 
 def test_automatic_excerpt_lands_on_the_loud_part(tmp_path):
     x = noise(FS * 12, 6, seed=4, level=0.005)
-    x[FS * 7:FS * 10] *= 20  # loud from 7 s to 10 s
+    x[FS * 7 : FS * 10] *= 20  # loud from 7 s to 10 s
     write_audio(tmp_path / "s.wav", x, FS)
-    out = build([str(tmp_path / "s.wav")], [{"layout": "5.1"}, {"layout": "5.1",
-                                                                 "room": "small"}],
-                {"start": None, "length": 3.0}, tmp_path)
+    out = build(
+        [str(tmp_path / "s.wav")],
+        [{"layout": "5.1"}, {"layout": "5.1", "room": "small"}],
+        {"start": None, "length": 3.0},
+        tmp_path,
+    )
     assert out["excerpt"]["automatic"] is True
     assert out["excerpt"]["start"] == pytest.approx(7.0, abs=0.11)
 
@@ -142,10 +158,15 @@ def built(tmp_path_factory):
     x[:, 2] += 0.1 * np.sin(2 * np.pi * 220 * np.arange(len(x)) / FS).astype(np.float32)
     x[rng.integers(0, len(x), 40), 0] = 0.9  # sharp clicks on L: a high crest factor
     write_audio(folder / "s.wav", x, FS)
-    variants = [{"layout": "5.1"},
-                {"layout": "5.1", "room": "small"},
-                {"layout": "5.1", "channel_order": ["L", "R", "LFE", "C", "Ls", "Rs"],
-                 "hrtf": "rigid-sphere"}]
+    variants = [
+        {"layout": "5.1"},
+        {"layout": "5.1", "room": "small"},
+        {
+            "layout": "5.1",
+            "channel_order": ["L", "R", "LFE", "C", "Ls", "Rs"],
+            "hrtf": "rigid-sphere",
+        },
+    ]
     out = build([str(folder / "s.wav")], variants, {"start": 2.0, "length": 4.0}, folder)
     return folder, out
 
@@ -179,8 +200,9 @@ def test_levels_match_by_our_meter_and_by_pyloudnorm(built):
         # The recorded figures add up: gain = common - measured; scaling moves by the gain.
         assert v["gain_db"] == pytest.approx(common - v["measured_lufs"], abs=2e-3)
         assert v["matched_lufs"] == pytest.approx(common, abs=0.02)
-        assert v["matched_true_peak_dbtp"] == pytest.approx(v["true_peak_dbtp"] + v["gain_db"],
-                                                            abs=0.05)
+        assert v["matched_true_peak_dbtp"] == pytest.approx(
+            v["true_peak_dbtp"] + v["gain_db"], abs=0.05
+        )
     assert common <= max(measured) + 1e-9
 
 
@@ -188,14 +210,18 @@ def test_the_ends_fade_in_and_out(built):
     folder, out = built
     x, _ = read_audio(folder / out["variants"][0]["file"])
     assert np.max(np.abs(x[:3])) < 0.01 and np.max(np.abs(x[-3:])) < 0.01
-    assert np.max(np.abs(x[FS:2 * FS])) > 0.05
+    assert np.max(np.abs(x[FS : 2 * FS])) > 0.05
 
 
 def test_a_silent_variant_cannot_be_matched(tmp_path):
     write_audio(tmp_path / "s.wav", np.zeros((FS * 2, 6), np.float32), FS)
     with pytest.raises(BuildError, match="silent"):
-        build([str(tmp_path / "s.wav")], [{"layout": "5.1"}, {"layout": "5.1"}],
-              {"start": 0.0, "length": 1.0}, tmp_path)
+        build(
+            [str(tmp_path / "s.wav")],
+            [{"layout": "5.1"}, {"layout": "5.1"}],
+            {"start": 0.0, "length": 1.0},
+            tmp_path,
+        )
 
 
 def test_the_result_is_json(built):

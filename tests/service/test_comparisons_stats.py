@@ -18,8 +18,12 @@ import re
 import pytest
 from scipy import stats
 
-from earfold.service.comparisons import (binomial_p_at_least, binomial_p_two_sided, draw_trials,
-                                 preference_counts)
+from earfold.service.comparisons import (
+    binomial_p_at_least,
+    binomial_p_two_sided,
+    draw_trials,
+    preference_counts,
+)
 
 # ----------------------------------------------------------------------------- p-values
 
@@ -30,8 +34,22 @@ def test_worked_example_12_of_16():
     assert round(binomial_p_at_least(12, 16), 3) == 0.038
 
 
-@pytest.mark.parametrize(("k", "n"), [(0, 1), (1, 1), (5, 10), (8, 10), (10, 10), (0, 16),
-                                      (9, 16), (13, 16), (30, 50), (41, 60), (70, 100)])
+@pytest.mark.parametrize(
+    ("k", "n"),
+    [
+        (0, 1),
+        (1, 1),
+        (5, 10),
+        (8, 10),
+        (10, 10),
+        (0, 16),
+        (9, 16),
+        (13, 16),
+        (30, 50),
+        (41, 60),
+        (70, 100),
+    ],
+)
 def test_one_sided_p_matches_scipy_binomtest(k, n):
     expected = stats.binomtest(k, n, 0.5, alternative="greater").pvalue
     assert binomial_p_at_least(k, n) == pytest.approx(expected, rel=1e-9, abs=1e-15)
@@ -46,7 +64,8 @@ def test_two_sided_p_matches_scipy_binomtest(k, n):
 @pytest.mark.parametrize("p", [0.1, 0.25, 0.9])
 def test_one_sided_p_with_other_chance_levels(p):
     assert binomial_p_at_least(4, 9, p) == pytest.approx(
-        stats.binomtest(4, 9, p, alternative="greater").pvalue, rel=1e-9)
+        stats.binomtest(4, 9, p, alternative="greater").pvalue, rel=1e-9
+    )
 
 
 @pytest.mark.parametrize(("k", "n"), [(-1, 4), (5, 4), (1.5, 4), (1, -1)])
@@ -88,8 +107,10 @@ def test_abx_assignment_is_balanced_over_200_trials():
     for count in (x_is_a, x_is_first):
         assert stats.chisquare([count, 200 - count]).pvalue > 0.001, count
     # The four (A, X) arrangements together, too.
-    cells = [sum(1 for t in trials if (t.labels["A"], t.labels["X"]) == c)
-             for c in itertools.product((0, 1), repeat=2)]
+    cells = [
+        sum(1 for t in trials if (t.labels["A"], t.labels["X"]) == c)
+        for c in itertools.product((0, 1), repeat=2)
+    ]
     assert stats.chisquare(cells).pvalue > 0.001, cells
 
 
@@ -111,10 +132,16 @@ def test_a_seeded_source_repeats_the_draw():
     assert [t.labels for t in one] == [t.labels for t in two]
 
 
-@pytest.mark.parametrize(("n", "mode", "trials", "pattern"), [
-    (3, "abx", 5, "exactly 2"), (1, "ab", 5, "2 to 8"), (9, "ab", 5, "2 to 8"),
-    (2, "ab", 0, "at least 1"), (2, "mushra", 5, "unknown mode"),
-])
+@pytest.mark.parametrize(
+    ("n", "mode", "trials", "pattern"),
+    [
+        (3, "abx", 5, "exactly 2"),
+        (1, "ab", 5, "2 to 8"),
+        (9, "ab", 5, "2 to 8"),
+        (2, "ab", 0, "at least 1"),
+        (2, "mushra", 5, "unknown mode"),
+    ],
+)
 def test_bad_assignment_requests(n, mode, trials, pattern):
     with pytest.raises(ValueError, match=pattern):
         draw_trials(n, mode, trials)

@@ -135,19 +135,20 @@ def test_the_image_commands_run_and_render(tmp_path, redis_queue_url, procs):
     assert json.loads(instruction("CMD")[0]) == services["api"]["command"]
     worker_cmd = _local(entry + services["worker"]["command"], data, port, redis_queue_url)
     procs.append(subprocess.Popen(api_cmd, cwd=tmp_path, env=env, stderr=subprocess.DEVNULL))
-    procs.append(subprocess.Popen(worker_cmd, cwd=tmp_path, env=env,
-                                  stderr=subprocess.DEVNULL))
+    procs.append(subprocess.Popen(worker_cmd, cwd=tmp_path, env=env, stderr=subprocess.DEVNULL))
 
     health = instruction("HEALTHCHECK")[0]
-    health_cmd = _local(json.loads(health[health.index("CMD") + 3:].strip()), data, port,
-                        redis_queue_url)
+    health_cmd = _local(
+        json.loads(health[health.index("CMD") + 3 :].strip()), data, port, redis_queue_url
+    )
     deadline = time.monotonic() + 60
     while subprocess.run(health_cmd, capture_output=True, timeout=30).returncode != 0:
         assert procs[0].poll() is None, "the API command exited"
         assert time.monotonic() < deadline, "the image's health check never passed"
         time.sleep(0.2)
-    worker_check = _local(services["worker"]["healthcheck"]["test"][1:], data, port,
-                          redis_queue_url)
+    worker_check = _local(
+        services["worker"]["healthcheck"]["test"][1:], data, port, redis_queue_url
+    )
     checked = subprocess.run(worker_check, capture_output=True, text=True, timeout=60, env=env)
     assert checked.returncode == 0, checked.stderr
 
@@ -157,8 +158,10 @@ def test_the_image_commands_run_and_render(tmp_path, redis_queue_url, procs):
         stem = http.post("/v1/stems", files=files_field([path])).json()
         job = http.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1"}).json()
         deadline = time.monotonic() + 60
-        while (job := http.get(f"/v1/renders/{job['id']}").json())["state"] in ("queued",
-                                                                                 "running"):
+        while (job := http.get(f"/v1/renders/{job['id']}").json())["state"] in (
+            "queued",
+            "running",
+        ):
             assert time.monotonic() < deadline, job
             time.sleep(0.1)
         assert job["state"] == "done", job

@@ -29,8 +29,11 @@ class Server(LocalServer):
     """A started ``earfold serve`` on ``data_dir`` with short lease and tick times."""
 
     def __init__(self, data_dir: Path, workers: int) -> None:
-        super().__init__(workers, ["--lease-seconds", "2", "--tick-seconds", "0.05",
-                                   "--min-free-mb", "0"], data_dir=data_dir)
+        super().__init__(
+            workers,
+            ["--lease-seconds", "2", "--tick-seconds", "0.05", "--min-free-mb", "0"],
+            data_dir=data_dir,
+        )
         self.__enter__()
         self.http = httpx.Client(base_url=self.url, timeout=30)
 
@@ -97,8 +100,9 @@ def test_sigkill_of_the_worker_mid_render_still_completes_identically(servers, t
     # Long enough, in small blocks, to be caught mid-render (a few seconds).
     path = write_stem(tmp_path / "long.wav", FS * 30, 2, seed=8)
     stem = server.http.post("/v1/stems", files=files_field([path])).json()
-    job_id = server.http.post("/v1/renders", json={"stem_id": stem["id"], "layout": "2.0",
-                                                   "block_size": 64}).json()["id"]
+    job_id = server.http.post(
+        "/v1/renders", json={"stem_id": stem["id"], "layout": "2.0", "block_size": 64}
+    ).json()["id"]
     store = SqliteJobQueue(tmp_path / "data" / "jobs.sqlite3")
     deadline = time.monotonic() + 30
     while True:
@@ -125,8 +129,12 @@ def test_restart_with_jobs_queued_loses_none(servers, tmp_path):
     first = servers(0)  # API only: the jobs wait in the queue
     path = write_stem(tmp_path / "a.wav", FS // 10, 2)
     stem = first.http.post("/v1/stems", files=files_field([path])).json()
-    ids = [first.http.post("/v1/renders", json={"stem_id": stem["id"], "layout": "2.0",
-                                                "seed": i}).json()["id"] for i in range(3)]
+    ids = [
+        first.http.post(
+            "/v1/renders", json={"stem_id": stem["id"], "layout": "2.0", "seed": i}
+        ).json()["id"]
+        for i in range(3)
+    ]
     first.stop()
     second = servers(1)
     for job_id in ids:

@@ -9,8 +9,9 @@ from earfold.service.hrtf_check import HrtfCheckFailed, check_sofa
 
 
 def _upload(client, name: str, content: bytes):
-    return client.post("/v1/hrtf-sets", files=[("file", (name, content,
-                                                         "application/octet-stream"))])
+    return client.post(
+        "/v1/hrtf-sets", files=[("file", (name, content, "application/octet-stream"))]
+    )
 
 
 @pytest.mark.shared
@@ -39,8 +40,9 @@ def test_a_valid_set_is_stored_listed_and_usable(client, tmp_path):
     from stem_factory import files_field, write_stem
 
     stem = client.post("/v1/stems", files=files_field([write_stem(tmp_path / "a.wav", 480, 2)]))
-    resp = client.post("/v1/renders", json={"stem_id": stem.json()["id"], "layout": "2.0",
-                                            "hrtf": hset["id"]})
+    resp = client.post(
+        "/v1/renders", json={"stem_id": stem.json()["id"], "layout": "2.0", "hrtf": hset["id"]}
+    )
     assert resp.status_code == 202, resp.text
     assert client.delete(f"/v1/hrtf-sets/{hset['id']}").status_code == 204
 

@@ -12,7 +12,6 @@ from __future__ import annotations
 import tempfile
 
 import pytest
-
 import schemathesis  # noqa: E402  (a declared test dependency: fail loudly when missing)
 from hypothesis import HealthCheck, settings  # noqa: E402 - schemathesis brings hypothesis
 
@@ -25,8 +24,7 @@ MAX_EXAMPLES = 12
 # The schema is read when the module is collected, so the app exists from then on; its
 # data directory goes away with the module (see the fixture below).
 _DATA = tempfile.TemporaryDirectory(prefix="earfold-fuzz-")
-APP = create_app(ServiceSettings(data_dir=_DATA.name, min_free_bytes=0,
-                                 hrtf_check_timeout_s=10.0))
+APP = create_app(ServiceSettings(data_dir=_DATA.name, min_free_bytes=0, hrtf_check_timeout_s=10.0))
 schema = schemathesis.openapi.from_asgi("/openapi.json", APP)
 
 #: Operations whose body is a file: a schema cannot say "decodable audio" or "a SOFA
@@ -43,8 +41,9 @@ def _cleanup():
 
 
 @schema.parametrize()
-@settings(max_examples=MAX_EXAMPLES, deadline=None, database=None,
-          suppress_health_check=list(HealthCheck))
+@settings(
+    max_examples=MAX_EXAMPLES, deadline=None, database=None, suppress_health_check=list(HealthCheck)
+)
 def test_answers_match_the_schema(case):
     excluded = []
     if (case.method.upper(), case.path) in _FILE_UPLOADS:

@@ -43,9 +43,24 @@ class OwnRedis:
 
     def start(self) -> None:
         self.proc = subprocess.Popen(
-            [self.exe, "--port", str(self.port), "--bind", "127.0.0.1", "--dir", str(self.folder),
-             "--appendonly", "yes", "--appendfsync", "always", "--save", ""],
-            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+            [
+                self.exe,
+                "--port",
+                str(self.port),
+                "--bind",
+                "127.0.0.1",
+                "--dir",
+                str(self.folder),
+                "--appendonly",
+                "yes",
+                "--appendfsync",
+                "always",
+                "--save",
+                "",
+            ],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.DEVNULL,
+        )
         client = RedisJobQueue(self.url, deliver=False)
         deadline = time.monotonic() + 10
         while True:
@@ -128,7 +143,9 @@ def test_queue_url_parsing():
     assert parse_url("redis://h:6380/2") == ("redis://h:6380/2", "earfold")
     assert parse_url("redis://h:6380/2?prefix=site-b") == ("redis://h:6380/2", "site-b")
     assert parse_url("redis://h/0?prefix=x&ssl_cert_reqs=none") == (
-        "redis://h/0?ssl_cert_reqs=none", "x")
+        "redis://h/0?ssl_cert_reqs=none",
+        "x",
+    )
     with pytest.raises(ValueError, match="prefix"):
         parse_url("redis://h/0?prefix=a:b")
     with pytest.raises(ValueError, match="not a Redis URL"):
@@ -160,24 +177,36 @@ def test_unsent_messages_are_sent_again(redis_queue_url):
 
 
 def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "earfold.service.cli", *args], cwd=REPO,
-                          capture_output=True, text=True, timeout=60)
+    return subprocess.run(
+        [sys.executable, "-m", "earfold.service.cli", *args],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
 
 
 def test_worker_cli_refuses_bad_input_in_one_line(tmp_path):
     bad = _cli("worker", "--queue", "amqp://h/", "--data-dir", str(tmp_path))
     assert bad.returncode == 2 and bad.stderr.count("\n") == 1
     assert "redis://HOST:PORT/DB" in bad.stderr
-    missing = _cli("worker", "--queue", "redis://127.0.0.1:1/0", "--data-dir",
-                   str(tmp_path / "nope"))
+    missing = _cli(
+        "worker", "--queue", "redis://127.0.0.1:1/0", "--data-dir", str(tmp_path / "nope")
+    )
     assert missing.returncode == 2 and "does not exist" in missing.stderr
 
 
 def test_worker_check(tmp_path, redis_queue_url):
     ok = _cli("worker", "--queue", redis_queue_url, "--data-dir", str(tmp_path), "--check")
     assert ok.returncode == 0, ok.stderr
-    down = _cli("worker", "--queue", f"redis://127.0.0.1:{free_port()}/0", "--data-dir",
-                str(tmp_path), "--check")
+    down = _cli(
+        "worker",
+        "--queue",
+        f"redis://127.0.0.1:{free_port()}/0",
+        "--data-dir",
+        str(tmp_path),
+        "--check",
+    )
     assert down.returncode == 1 and "does not answer" in down.stderr
 
 
@@ -189,21 +218,25 @@ def test_poison_job_fails_after_its_attempts(redis_queue_url, tmp_path):
 
     data = tmp_path / "data"
     storage = Storage(data)
-    settings = ServiceSettings(data_dir=data, queue_url=redis_queue_url, lease_s=2,
-                               tick_s=0.05, max_attempts=3)
+    settings = ServiceSettings(
+        data_dir=data, queue_url=redis_queue_url, lease_s=2, tick_s=0.05, max_attempts=3
+    )
     stem_id = new_id()
     folder = storage.path("stems", stem_id)
     folder.mkdir(parents=True)
     write_stem(folder / "a.wav", FS // 10, 2)
-    write_json_atomic(folder / "meta.json", {"id": stem_id, "files": [
-        {"stored": "a.wav", "name": "a.wav"}]})
+    write_json_atomic(
+        folder / "meta.json", {"id": stem_id, "files": [{"stored": "a.wav", "name": "a.wav"}]}
+    )
     worker = RedisWorker(settings)
-    worker.worker.child_command = [sys.executable, "-c",
-                                   "import os, signal; os.kill(os.getpid(), signal.SIGKILL)"]
+    worker.worker.child_command = [
+        sys.executable,
+        "-c",
+        "import os, signal; os.kill(os.getpid(), signal.SIGKILL)",
+    ]
     api_side = RedisJobQueue(redis_queue_url)
     job_id = new_id()
-    api_side.submit(job_id, "", {"stem_id": stem_id, "options": {"layout": "2.0"}},
-                    max_queued=10)
+    api_side.submit(job_id, "", {"stem_id": stem_id, "options": {"layout": "2.0"}}, max_queued=10)
     runner = threading.Thread(target=worker.run)
     runner.start()
     try:
@@ -224,8 +257,13 @@ def test_in_process_app_on_redis_reports_counts(redis_queue_url, make_client):
     client = make_client(queue_url=redis_queue_url)
     health = client.get("/v1/health")
     assert health.status_code == 200, health.text
-    assert health.json()["queue"] == {"queued": 0, "running": 0, "done": 0, "failed": 0,
-                                      "cancelled": 0}
+    assert health.json()["queue"] == {
+        "queued": 0,
+        "running": 0,
+        "done": 0,
+        "failed": 0,
+        "cancelled": 0,
+    }
 
 
 def test_retention_sweep_survives_an_outage(tmp_path):
@@ -249,8 +287,9 @@ def test_retention_sweep_survives_an_outage(tmp_path):
     app.state.queue.close()
 
 
-def test_a_second_api_on_a_shared_queue_keeps_uploads_in_progress(tmp_path, redis_queue_url,
-                                                                   make_client):
+def test_a_second_api_on_a_shared_queue_keeps_uploads_in_progress(
+    tmp_path, redis_queue_url, make_client
+):
     # Several API processes share the data directory with Redis: one starting up must not
     # remove another's upload in progress from tmp/ (the embedded backend still does).
     first = make_client(queue_url=redis_queue_url)

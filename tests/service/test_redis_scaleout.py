@@ -37,10 +37,26 @@ class Api:
         self.port = free_port()
         self.url = f"http://127.0.0.1:{self.port}"
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "earfold.service.serve_cli", "--port", str(self.port),
-             "--data-dir", str(data_dir), "--workers", str(workers), "--queue", queue_url,
-             "--min-free-mb", "0", *FAST],
-            cwd=REPO, stderr=subprocess.PIPE, text=True)
+            [
+                sys.executable,
+                "-m",
+                "earfold.service.serve_cli",
+                "--port",
+                str(self.port),
+                "--data-dir",
+                str(data_dir),
+                "--workers",
+                str(workers),
+                "--queue",
+                queue_url,
+                "--min-free-mb",
+                "0",
+                *FAST,
+            ],
+            cwd=REPO,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
         self.http = httpx.Client(base_url=self.url, timeout=30)
         deadline = time.monotonic() + 30
         while True:
@@ -53,8 +69,9 @@ class Api:
                 raise RuntimeError(f"server did not start: {self.proc.stderr.read()}")
             time.sleep(0.1)
 
-    def wait(self, job_id: str, states=("done", "failed", "cancelled"),
-             timeout: float = 90) -> dict:
+    def wait(
+        self, job_id: str, states=("done", "failed", "cancelled"), timeout: float = 90
+    ) -> dict:
         deadline = time.monotonic() + timeout
         while True:
             job = self.http.get(f"/v1/renders/{job_id}").json()
@@ -73,10 +90,25 @@ class Workers:
 
     def __init__(self, data_dir: Path, queue_url: str, processes: int = 1) -> None:
         self.proc = subprocess.Popen(
-            [sys.executable, "-m", "earfold.service.cli", "worker", "--queue", queue_url,
-             "--data-dir", str(data_dir), "--processes", str(processes), *FAST,
-             "--broker-heartbeat-seconds", "4"],
-            cwd=REPO, stderr=subprocess.PIPE, text=True)
+            [
+                sys.executable,
+                "-m",
+                "earfold.service.cli",
+                "worker",
+                "--queue",
+                queue_url,
+                "--data-dir",
+                str(data_dir),
+                "--processes",
+                str(processes),
+                *FAST,
+                "--broker-heartbeat-seconds",
+                "4",
+            ],
+            cwd=REPO,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
 
     def stop(self) -> None:
         _stop(self.proc)
@@ -261,9 +293,27 @@ def test_queue_limit_answers_429(cluster, tmp_path):
         api.stop()
     # A second API with a small queue limit, same Redis prefix.
     proc = subprocess.Popen(
-        [sys.executable, "-m", "earfold.service.serve_cli", "--port", str(port := free_port()),
-         "--data-dir", str(data), "--workers", "0", "--queue", cluster.url,
-         "--min-free-mb", "0", "--max-queued", "2"], cwd=REPO, stderr=subprocess.PIPE, text=True)
+        [
+            sys.executable,
+            "-m",
+            "earfold.service.serve_cli",
+            "--port",
+            str(port := free_port()),
+            "--data-dir",
+            str(data),
+            "--workers",
+            "0",
+            "--queue",
+            cluster.url,
+            "--min-free-mb",
+            "0",
+            "--max-queued",
+            "2",
+        ],
+        cwd=REPO,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     try:
         with httpx.Client(base_url=f"http://127.0.0.1:{port}", timeout=30) as http:
             deadline = time.monotonic() + 30
@@ -274,8 +324,10 @@ def test_queue_limit_answers_429(cluster, tmp_path):
                 except httpx.TransportError:
                     time.sleep(0.1)
                 assert time.monotonic() < deadline
-            codes = [http.post("/v1/renders", json={"stem_id": stem["id"], "layout": "2.0"})
-                     .status_code for _ in range(3)]
+            codes = [
+                http.post("/v1/renders", json={"stem_id": stem["id"], "layout": "2.0"}).status_code
+                for _ in range(3)
+            ]
             assert codes == [202, 202, 429]
     finally:
         _stop(proc)

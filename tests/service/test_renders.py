@@ -52,8 +52,10 @@ def _worker(client) -> Worker:
         ({"layout": "5.1", "colour": "red"}, "colour"),
         ({"layout": "5.1", "eq": "flat"}, "eq"),
         ({"layout": "5.1", "headphone_eq": [{"type": "notch", "frequency": 100}]}, "type"),
-        ({"layout": "5.1", "headphone_eq": [{"type": "peaking", "frequency": 30000}]},
-         "not below the stem's Nyquist frequency"),
+        (
+            {"layout": "5.1", "headphone_eq": [{"type": "peaking", "frequency": 30000}]},
+            "not below the stem's Nyquist frequency",
+        ),
     ],
 )
 def test_bad_requests_are_422_before_queueing(client, tmp_path, body, pattern):
@@ -63,13 +65,15 @@ def test_bad_requests_are_422_before_queueing(client, tmp_path, body, pattern):
 
 
 def test_validation_errors_are_problem_details(client):
-    resp = client.post("/v1/renders", content=b"{not json", headers={"content-type":
-                                                                    "application/json"})
+    resp = client.post(
+        "/v1/renders", content=b"{not json", headers={"content-type": "application/json"}
+    )
     assert resp.status_code == 422
     body = resp.json()
     assert body["type"] == "about:blank" and body["errors"]  # RFC 9457 plus an extension
-    _problem(client.post("/v1/renders", json={"stem_id": "0" * 32, "layout": "5.1"}), 404,
-             "no stem")
+    _problem(
+        client.post("/v1/renders", json={"stem_id": "0" * 32, "layout": "5.1"}), 404, "no stem"
+    )
 
 
 def test_room_and_delivery_options_reach_the_renderer(make_client, tmp_path):
@@ -90,13 +94,17 @@ def test_room_and_delivery_options_reach_the_renderer(make_client, tmp_path):
     out = tmp_path / "got.wav"
     out.write_bytes(client.get(done["links"]["audio"]).content)
     ref = tmp_path / "ref.wav"
-    render(paths, ref, RenderSettings(layout="5.1", room="small", loudness=-20.0, true_peak=-2.0,
-                                      seed=3))
+    render(
+        paths,
+        ref,
+        RenderSettings(layout="5.1", room="small", loudness=-20.0, true_peak=-2.0, seed=3),
+    )
     assert_array_equal(read_audio(out)[0], read_audio(ref)[0])
 
     # The words: no gain and no limiter.
-    job = client.post("/v1/renders", json={"stem_id": stem["id"], "loudness": "none",
-                                           "true_peak": "off"}).json()
+    job = client.post(
+        "/v1/renders", json={"stem_id": stem["id"], "loudness": "none", "true_peak": "off"}
+    ).json()
     _worker(client).run(once=True)
     done = client.get(f"/v1/renders/{job['id']}").json()
     assert done["state"] == "done", done
@@ -166,8 +174,9 @@ def test_cancel_a_running_render_stops_it_within_two_seconds(make_client, tmp_pa
     client = make_client(**FAST)
     # A long stem in small blocks, so the render is still running when cancelled.
     stem = _stem(client, tmp_path, channels=2, frames=FS * 60)
-    job = client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "2.0",
-                                           "block_size": 64}).json()
+    job = client.post(
+        "/v1/renders", json={"stem_id": stem["id"], "layout": "2.0", "block_size": 64}
+    ).json()
     worker = _worker(client)
     thread = threading.Thread(target=worker.run, kwargs={"once": True})
     thread.start()
@@ -190,8 +199,11 @@ def test_a_render_that_keeps_crashing_fails_after_max_attempts(make_client, tmp_
     job = client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1"}).json()
     worker = _worker(client)
     # Stand-in for a poison input: a child that dies by SIGKILL, as under the OOM killer.
-    worker.child_command = [sys.executable, "-c",
-                            "import os, signal; os.kill(os.getpid(), signal.SIGKILL)"]
+    worker.child_command = [
+        sys.executable,
+        "-c",
+        "import os, signal; os.kill(os.getpid(), signal.SIGKILL)",
+    ]
     worker.run(once=True)
     assert client.get(f"/v1/renders/{job['id']}").json()["state"] == "queued"
     worker.run(once=True)
@@ -219,19 +231,23 @@ def test_isolation_between_tokens(make_client, tmp_path):
     client = make_client(tokens=(a, b))
     ha, hb = {"Authorization": f"Bearer {a}"}, {"Authorization": f"Bearer {b}"}
     _problem(client.get("/v1/stems"), 401, "API token")
-    _problem(client.get("/v1/stems", headers={"Authorization": "Bearer " + "c" * 20}), 401,
-             "not valid")
+    _problem(
+        client.get("/v1/stems", headers={"Authorization": "Bearer " + "c" * 20}), 401, "not valid"
+    )
     path = write_stem(tmp_path / "x.wav", 480, 6)
     stem = client.post("/v1/stems", files=files_field([path]), headers=ha).json()
     job = client.post("/v1/renders", json={"stem_id": stem["id"]}, headers=ha).json()
     assert client.get(f"/v1/renders/{job['id']}", headers=ha).status_code == 200
     assert client.get("/v1/stems", headers=hb).json() == []
     assert client.get("/v1/renders", headers=hb).json() == []
-    for method, url in [("GET", f"/v1/stems/{stem['id']}"), ("DELETE", f"/v1/stems/{stem['id']}"),
-                        ("GET", f"/v1/renders/{job['id']}"),
-                        ("GET", f"/v1/renders/{job['id']}/audio"),
-                        ("GET", f"/v1/renders/{job['id']}/report"),
-                        ("DELETE", f"/v1/renders/{job['id']}")]:
+    for method, url in [
+        ("GET", f"/v1/stems/{stem['id']}"),
+        ("DELETE", f"/v1/stems/{stem['id']}"),
+        ("GET", f"/v1/renders/{job['id']}"),
+        ("GET", f"/v1/renders/{job['id']}/audio"),
+        ("GET", f"/v1/renders/{job['id']}/report"),
+        ("DELETE", f"/v1/renders/{job['id']}"),
+    ]:
         assert client.request(method, url, headers=hb).status_code == 404, (method, url)
     # b cannot render a's stem either.
     _problem(client.post("/v1/renders", json={"stem_id": stem["id"]}, headers=hb), 404, "no stem")
@@ -269,8 +285,9 @@ def test_progress_rises_while_rendering_then_reads_done(make_client, tmp_path):
     # 40 s of stereo in 64-frame blocks: a couple of seconds of rendering, long enough
     # for several progress reports (the child reports every 0.1 s, the worker every tick).
     stem = _stem(client, tmp_path, channels=2, frames=FS * 40)
-    job = client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "2.0",
-                                           "block_size": 64}).json()
+    job = client.post(
+        "/v1/renders", json={"stem_id": stem["id"], "layout": "2.0", "block_size": 64}
+    ).json()
     thread = threading.Thread(target=_worker(client).run, kwargs={"once": True})
     thread.start()
     seen: list[tuple[str, float]] = []
@@ -312,6 +329,9 @@ def test_eq_and_inline_headphone_eq_reach_the_renderer(make_client, tmp_path):
     out = tmp_path / "got.wav"
     out.write_bytes(client.get(done["links"]["audio"]).content)
     ref = tmp_path / "ref.wav"
-    render(paths, ref, RenderSettings(layout="5.1", eq="none", seed=2,
-                                      headphone_eq=[dict(b) for b in bands]))
+    render(
+        paths,
+        ref,
+        RenderSettings(layout="5.1", eq="none", seed=2, headphone_eq=[dict(b) for b in bands]),
+    )
     assert_array_equal(read_audio(out)[0], read_audio(ref)[0])

@@ -75,15 +75,18 @@ def test_413_from_content_length_before_reading(make_client, tmp_path):
 def test_413_while_streaming_without_content_length(make_client, tmp_path):
     client = make_client(max_upload_bytes=10_000)
     path = write_stem(tmp_path / "big.wav", 10_000, 2)
-    body = (b"--xyz\r\nContent-Disposition: form-data; name=\"file\"; filename=\"big.wav\"\r\n"
-            b"Content-Type: audio/wav\r\n\r\n" + path.read_bytes() + b"\r\n--xyz--\r\n")
+    body = (
+        b'--xyz\r\nContent-Disposition: form-data; name="file"; filename="big.wav"\r\n'
+        b"Content-Type: audio/wav\r\n\r\n" + path.read_bytes() + b"\r\n--xyz--\r\n"
+    )
 
     def chunks():  # a generator body is sent chunked, with no Content-Length
         for i in range(0, len(body), 4096):
-            yield body[i:i + 4096]
+            yield body[i : i + 4096]
 
-    resp = client.post("/v1/stems", content=chunks(),
-                       headers={"content-type": "multipart/form-data; boundary=xyz"})
+    resp = client.post(
+        "/v1/stems", content=chunks(), headers={"content-type": "multipart/form-data; boundary=xyz"}
+    )
     _problem(resp, 413, "exceeded 10000 bytes")
     assert _tmp_is_empty(client)
 
@@ -127,12 +130,23 @@ def test_no_disk_space_is_507(make_client, tmp_path):
 
 
 def test_body_that_is_not_multipart(client):
-    _problem(client.post("/v1/stems", content=b"RIFF", headers={"content-type": "audio/wav"}),
-             415, "multipart/form-data")
-    _problem(client.post("/v1/stems", data={"other": "x"},
-                         files=[("notfile", ("a.wav", b"x", "audio/wav"))]), 400, "no file")
-    resp = client.post("/v1/stems", content=b"--b\r\ngarbage",
-                       headers={"content-type": "multipart/form-data; boundary=b"})
+    _problem(
+        client.post("/v1/stems", content=b"RIFF", headers={"content-type": "audio/wav"}),
+        415,
+        "multipart/form-data",
+    )
+    _problem(
+        client.post(
+            "/v1/stems", data={"other": "x"}, files=[("notfile", ("a.wav", b"x", "audio/wav"))]
+        ),
+        400,
+        "no file",
+    )
+    resp = client.post(
+        "/v1/stems",
+        content=b"--b\r\ngarbage",
+        headers={"content-type": "multipart/form-data; boundary=b"},
+    )
     assert resp.status_code == 400, resp.text
     assert _tmp_is_empty(client)
 
