@@ -5,7 +5,8 @@ Two ITD estimates are offered:
 * :func:`interaural_time_difference` -- the difference of the two ears' *onsets*, each
   the first crossing of a threshold (default -20 dB) below that IR's peak. It follows the
   arrival of the direct sound's leading edge, which is what the Woodworth formula models,
-  and is what ``earfold hrtf inspect`` reports (through :meth:`earfold.renderer.hrtf.hrir.HrirSet.itd`).
+  and is what ``earfold hrtf inspect`` reports (through
+  :meth:`earfold.renderer.hrtf.HrirSet.itd`).
 * :func:`cross_correlation_itd` -- the lag of the maximum of the interaural
   cross-correlation of the pair low-passed below 1.5 kHz. It needs no threshold and
   measures the low-frequency delay that governs ITD perception; on a sphere it reads

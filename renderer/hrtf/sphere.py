@@ -351,8 +351,8 @@ def build_sphere_set(
     """Compute the far-field rigid-sphere set on a full-sphere grid and write it as SOFA.
 
     The file is a SimpleFreeFieldHRIR 1.0 file (written by
-    :func:`earfold.renderer.hrtf.sofa.write_sofa`) whose global attributes name the model, its source,
-    the radius and the speed of sound. The computation is deterministic: the same
+    :func:`earfold.renderer.hrtf.write_sofa`) whose global attributes name the model, its
+    source, the radius and the speed of sound. The computation is deterministic: the same
     arguments give the same IRs.
 
     Parameters
@@ -409,7 +409,10 @@ def build_sphere_set(
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Regenerate the shipped rigid-sphere set: ``python -m earfold.renderer.hrtf.sphere OUTPUT``."""
+    """Regenerate the shipped rigid-sphere set.
+
+    Usage: ``python -m earfold.renderer.hrtf.sphere OUTPUT``.
+    """
     parser = argparse.ArgumentParser(
         prog="python -m earfold.renderer.hrtf.sphere",
         description="Write the far-field rigid-sphere HRIR set as a SOFA file.",
