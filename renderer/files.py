@@ -150,7 +150,7 @@ class AtomicPath:
         dest = Path(os.fspath(path))
         self.path = str(dest)
         self.durable = bool(durable)
-        self._done = False
+        self._state = "open"  # then "committed" or "discarded"
         for _ in range(_NAME_TRIES):
             tmp = dest.parent / f".{dest.name}.{secrets.token_hex(4)}{suffix}"
             try:
@@ -168,7 +168,7 @@ class AtomicPath:
         On failure the temporary file is removed and the error raised; ``path`` is left
         as it was. Committing twice, or after :meth:`discard`, does nothing.
         """
-        if self._done:
+        if self._state != "open":
             return
         try:
             if self.durable:
@@ -177,13 +177,18 @@ class AtomicPath:
         except BaseException:
             self.discard()
             raise
-        self._done = True
+        self._state = "committed"
         if self.durable:
             fsync_folder(os.path.dirname(self.path) or ".")
 
     def discard(self) -> None:
-        """Remove the temporary file; leave :attr:`path` as it was."""
-        self._done = True
+        """Remove the temporary file; leave :attr:`path` as it was.
+
+        Does nothing once committed (the temporary name is then free for others).
+        """
+        if self._state == "committed":
+            return
+        self._state = "discarded"
         try:
             os.unlink(self.tmp)
         except FileNotFoundError:
