@@ -19,6 +19,7 @@ Both are positive when the LEFT ear leads (the source is on the left).
 from __future__ import annotations
 
 import numpy as np
+import numpy.typing as npt
 from scipy import fft as sp_fft
 from scipy import signal
 
@@ -142,7 +143,13 @@ def _oversample(block: np.ndarray, factor: int) -> np.ndarray:
     return fine[..., : n * factor]
 
 
-def interaural_time_difference(ir_pair: np.ndarray, samplerate: float, **kw: float) -> float:
+def interaural_time_difference(
+    ir_pair: npt.ArrayLike,
+    samplerate: float,
+    *,
+    threshold_db: float = DEFAULT_THRESHOLD_DB,
+    oversample: int = DEFAULT_OVERSAMPLE,
+) -> float:
     """Onset-based interaural time difference of an HRIR pair, in seconds.
 
     ``(onset_right - onset_left) / samplerate`` with :func:`onset_times`; positive when
@@ -154,15 +161,15 @@ def interaural_time_difference(ir_pair: np.ndarray, samplerate: float, **kw: flo
         Left ear first.
     samplerate : float
         Sampling rate in Hz.
-    **kw
-        ``threshold_db`` and ``oversample`` for :func:`onset_times`.
+    threshold_db, oversample
+        As for :func:`onset_times`.
 
     Returns
     -------
     float
     """
     pair = _check_pair(ir_pair, samplerate)
-    onset = onset_times(pair, **kw)
+    onset = onset_times(pair, threshold_db=threshold_db, oversample=oversample)
     return float(onset[1] - onset[0]) / float(samplerate)
 
 
@@ -275,7 +282,7 @@ def fractional_delay(
     return np.fft.irfft(spectrum, n=nfft, axis=-1)[..., :out_len]
 
 
-def _check_pair(ir_pair: np.ndarray, samplerate: float) -> np.ndarray:
+def _check_pair(ir_pair: npt.ArrayLike, samplerate: float) -> npt.NDArray[np.float64]:
     pair = np.asarray(ir_pair, dtype=float)
     if pair.ndim != 2 or pair.shape[0] != 2:
         raise HrirError(f"an HRIR pair must have shape (2, N), left ear first; got {pair.shape!r}")

@@ -170,7 +170,8 @@ def _static_limit(cos_theta: np.ndarray, rho: float) -> np.ndarray:
     orders = np.arange(terms)
     legendre = special.eval_legendre(orders[:, None], cos_theta.ravel()[None, :])
     weights = (2 * orders + 1) / (orders + 1) * rho ** (-orders.astype(float))
-    return (weights @ legendre).reshape(cos_theta.shape).astype(complex)
+    limit: np.ndarray = (weights @ legendre).reshape(cos_theta.shape).astype(complex)
+    return limit
 
 
 def sphere_transfer_function(

@@ -300,7 +300,8 @@ class OutputWriter:
         q = y.astype(np.int32)
         # libsndfile writes the top 24 bits of int32 samples to PCM_24.
         q <<= 8
-        return q
+        quantised: npt.NDArray[np.signedinteger[Any]] = q
+        return quantised
 
     def close(self) -> None:
         """Finish the file: flush, fsync and move it onto :attr:`path`."""

@@ -41,7 +41,7 @@ _SIZE_IN_DS64 = 0xFFFFFFFF  # a 32-bit size of -1 means "see the ds64 chunk"
 # -- reading ---------------------------------------------------------------------------
 
 
-def read_channel_mask(path: str | os.PathLike) -> int | None:
+def read_channel_mask(path: str | os.PathLike[str]) -> int | None:
     """``dwChannelMask`` of a WAV, RF64/BW64 or Wave64 file, from its header.
 
     Returns
