@@ -186,6 +186,19 @@ def probe_stem(paths: Sequence[str | os.PathLike[str]] | str | os.PathLike[str])
     -----
     Several mono files may differ in length: the stem takes the longest, the others are
     padded with silence when read, and ``warnings`` says so.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> import numpy as np
+    >>> from earfold.renderer.io import write_audio
+    >>> folder = tempfile.TemporaryDirectory()
+    >>> path = os.path.join(folder.name, "quiet.wav")
+    >>> write_audio(path, np.zeros((4800, 6)), 48000)
+    >>> info = probe_stem(path)
+    >>> info.format, info.subtype, info.channels, info.frames, info.duration
+    ('WAV', 'PCM_24', 6, 4800, 0.1)
+    >>> folder.cleanup()
     """
     if isinstance(paths, (str, os.PathLike)):
         paths = [paths]
