@@ -231,7 +231,7 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
         raise SofaError(
             f"{label}: Data.IR is stored as {dtype_name(ir_var.dtype)}; numbers are needed"
         )
-    # Masking is off: masked arrays must not leave this module, and fill values (data
+    # Masking is off: masked arrays must not leave the reader, and fill values (data
     # never written) are caught by the magnitude check below instead.
     ir_var.set_auto_mask(False)
     # Read only the picked emitter's slice, then put the axes in (M, R, N) order.
