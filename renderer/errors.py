@@ -11,6 +11,7 @@ A cancelled render is not bad input: :class:`RenderCancelled` is its own kind, o
 from __future__ import annotations
 
 __all__ = [
+    "describe_value",
     "AudioError",
     "DeliveryError",
     "EqualisationError",
@@ -70,3 +71,35 @@ class RenderCancelled(Exception):
 
     Not a :class:`RendererError`: nothing was wrong with the input.
     """
+
+
+def describe_value(value: object) -> str:
+    """A value as an error message shows it: plain words, never an array's or bytes' repr.
+
+    Strings, numbers and other small values appear as their ``repr``; numpy scalars as the
+    Python number they hold; bytes decoded (as Latin-1, which never fails); arrays and
+    other sized containers by their size, since their contents would bury the message.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> describe_value(np.zeros(3))
+    'an array of 3 values'
+    >>> describe_value(np.zeros((2, 3)))
+    'an array of shape (2, 3)'
+    >>> describe_value(b"RIFF"), describe_value(np.float64(0.5)), describe_value("x")
+    ("'RIFF'", '0.5', "'x'")
+    """
+    shape = getattr(value, "shape", None)
+    if isinstance(value, (bytes, bytearray)):
+        return repr(bytes(value).decode("latin-1"))
+    if isinstance(shape, tuple) and hasattr(value, "dtype"):
+        if shape == ():  # a numpy scalar or a 0-d array: the number it holds
+            item = getattr(value, "item", None)
+            return repr(item()) if callable(item) else repr(value)
+        if len(shape) == 1:
+            return f"an array of {shape[0]} value{'' if shape[0] == 1 else 's'}"
+        return f"an array of shape {tuple(int(n) for n in shape)!r}"
+    if isinstance(value, (list, tuple, set, frozenset, dict)) and len(value) > 8:
+        return f"a {type(value).__name__} of {len(value)} items"
+    return repr(value)

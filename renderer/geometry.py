@@ -12,9 +12,20 @@ y to the left, z up.
 from __future__ import annotations
 
 import numpy as np
+import numpy.typing as npt
+
+__all__ = [
+    "angle_between",
+    "direction_to_vector",
+    "lateral_angle",
+    "normalize",
+    "vector_to_direction",
+]
+
+Floats = npt.NDArray[np.float64]
 
 
-def direction_to_vector(azimuth: np.ndarray | float, elevation: np.ndarray | float) -> np.ndarray:
+def direction_to_vector(azimuth: npt.ArrayLike, elevation: npt.ArrayLike) -> Floats:
     """Unit vector(s) for azimuth and elevation in degrees.
 
     Returns an array of shape ``(..., 3)``.
@@ -24,7 +35,7 @@ def direction_to_vector(azimuth: np.ndarray | float, elevation: np.ndarray | flo
     return np.stack([np.cos(el) * np.cos(az), np.cos(el) * np.sin(az), np.sin(el)], axis=-1)
 
 
-def vector_to_direction(vectors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def vector_to_direction(vectors: npt.ArrayLike) -> tuple[Floats, Floats]:
     """Azimuth and elevation in degrees of vectors of shape ``(..., 3)``.
 
     The vectors need not be unit length. Azimuth is wrapped to (-180, 180].
@@ -37,22 +48,25 @@ def vector_to_direction(vectors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return az, el
 
 
-def normalize(vectors: np.ndarray) -> np.ndarray:
+def normalize(vectors: npt.ArrayLike) -> Floats:
     """Vectors scaled to unit length (zero vectors are left as they are)."""
     v = np.asarray(vectors, dtype=float)
     n = np.linalg.norm(v, axis=-1, keepdims=True)
-    return np.divide(v, n, out=np.zeros_like(v), where=n > 0)
+    unit: Floats = np.divide(v, n, out=np.zeros_like(v), where=n > 0)
+    return unit
 
 
-def angle_between(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+def angle_between(a: npt.ArrayLike, b: npt.ArrayLike) -> Floats:
     """Great-circle angle in degrees between direction vectors ``a`` and ``b``."""
-    a = normalize(a)
-    b = normalize(b)
-    dot = np.clip(np.sum(a * b, axis=-1), -1.0, 1.0)
-    return np.degrees(np.arccos(dot))
+    ua = normalize(a)
+    ub = normalize(b)
+    dot = np.clip(np.sum(ua * ub, axis=-1), -1.0, 1.0)
+    angle: Floats = np.degrees(np.arccos(dot))
+    return angle
 
 
-def lateral_angle(vectors: np.ndarray) -> np.ndarray:
+def lateral_angle(vectors: npt.ArrayLike) -> Floats:
     """Lateral angle in degrees (0 in the median plane, +90 on the left ear axis)."""
     v = normalize(vectors)
-    return np.degrees(np.arcsin(np.clip(v[..., 1], -1.0, 1.0)))
+    angle: Floats = np.degrees(np.arcsin(np.clip(v[..., 1], -1.0, 1.0)))
+    return angle

@@ -12,6 +12,7 @@ from __future__ import annotations
 import queue
 import threading
 from collections.abc import Callable, Iterable, Iterator
+from types import TracebackType
 from typing import Any
 
 #: Blocks held between a thread and the main loop. Two is enough to keep both sides busy;
@@ -32,7 +33,7 @@ def prefetch(items: Iterable[Any], depth: int = QUEUE_DEPTH) -> Iterator[Any]:
     An exception raised by ``items`` is raised again in the consumer. When the consumer
     stops early (an exception, a cancel) the thread is stopped too.
     """
-    q: queue.Queue = queue.Queue(maxsize=depth)
+    q: queue.Queue[Any] = queue.Queue(maxsize=depth)
     stop = threading.Event()
 
     def put(item: Any) -> bool:
@@ -77,7 +78,7 @@ class BackgroundWriter:
 
     def __init__(self, write: Callable[[Any], None], depth: int = QUEUE_DEPTH) -> None:
         self._write = write
-        self._queue: queue.Queue = queue.Queue(maxsize=depth)
+        self._queue: queue.Queue[Any] = queue.Queue(maxsize=depth)
         self._error: BaseException | None = None
         self._thread = threading.Thread(target=self._run, name="earfold-writer", daemon=True)
         self._thread.start()
@@ -94,11 +95,13 @@ class BackgroundWriter:
                     self._error = exc
 
     def submit(self, block: Any) -> None:
+        """Hand ``block`` to the writer thread (waits while the queue is full)."""
         if self._error is not None:
             raise self._error
         self._queue.put(block)
 
     def close(self) -> None:
+        """Wait for every block to be written; raise the writer's error, if any."""
         self._queue.put(_DONE)
         self._thread.join()
         if self._error is not None:
@@ -107,7 +110,12 @@ class BackgroundWriter:
     def __enter__(self) -> BackgroundWriter:
         return self
 
-    def __exit__(self, exc_type, exc, tb) -> None:
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
         if exc_type is None:
             self.close()
         else:  # already failing: stop the thread, keep the first error

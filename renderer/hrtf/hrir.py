@@ -26,12 +26,13 @@ import os
 from dataclasses import dataclass, field
 from fractions import Fraction
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from scipy import signal
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
-from ..errors import HrirError
+from ..errors import HrirError, describe_value
 from ..geometry import angle_between, normalize, vector_to_direction
 from .onsets import (
     cross_correlation_itd,
@@ -129,7 +130,7 @@ class HrirSet:
     convention: str = ""
     room_type: str = "free field"
     dropped: int = 0
-    _cache: dict = field(default_factory=dict, repr=False, compare=False)
+    _cache: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         ir = np.asarray(self.ir, dtype=np.float64)
@@ -181,11 +182,13 @@ class HrirSet:
 
     @property
     def measurements(self) -> int:
-        return self.ir.shape[0]
+        """Number of measured directions M."""
+        return int(self.ir.shape[0])
 
     @property
     def taps(self) -> int:
-        return self.ir.shape[2]
+        """Length N of each impulse response."""
+        return int(self.ir.shape[2])
 
     def resampled(self, samplerate: float) -> HrirSet:
         """The same set at another rate (polyphase resampling, scipy.signal.resample_poly)."""
@@ -195,7 +198,7 @@ class HrirSet:
         if ratio <= 0 or abs(float(ratio) * self.samplerate - samplerate) > 1e-6 * samplerate:
             raise HrirError(
                 f"cannot resample HRIR set {self.name!r} from {self.samplerate:g} Hz "
-                f"to {samplerate!r} Hz"
+                f"to {describe_value(samplerate)} Hz"
             )
         # resample_poly keeps the waveform's amplitude; an impulse response must instead keep
         # its frequency response, and at a higher rate it has proportionally more samples
@@ -287,7 +290,8 @@ class HrirSet:
     def _onsets(self) -> np.ndarray:
         if "onsets" not in self._cache:
             self._cache["onsets"] = onset_times(self.ir, threshold_db=ONSET_THRESHOLD_DB)
-        return self._cache["onsets"]
+        onsets: np.ndarray = self._cache["onsets"]
+        return onsets
 
     def _aligned(self) -> tuple[np.ndarray, float]:
         """IRs shifted so every onset sits at one reference position, and that position."""
@@ -298,7 +302,8 @@ class HrirSet:
             length = self.taps + int(np.ceil(on.max() - ref)) + 1
             aligned = fractional_delay(self.ir, ref - on, length=length)
             self._cache["aligned"] = (aligned, ref)
-        return self._cache["aligned"]
+        cached: tuple[np.ndarray, float] = self._cache["aligned"]
+        return cached
 
     def _interpolate(self, indices: np.ndarray, weights: np.ndarray) -> np.ndarray:
         aligned, ref = self._aligned()
@@ -311,10 +316,13 @@ class HrirSet:
     def _grid(self) -> _Grid:
         if "grid" not in self._cache:
             self._cache["grid"] = _build_grid(self.directions, self.name)
-        return self._cache["grid"]
+        grid: _Grid = self._cache["grid"]
+        return grid
 
     def _enclosing(self, d: np.ndarray, grid: _Grid) -> tuple[np.ndarray, np.ndarray] | None:
         if grid.hull is not None:
+            # A grid with a hull always has its facets' checks and inverses.
+            assert grid.facet_ok is not None and grid.inverse is not None
             eq = grid.hull.equations  # outward normals n and offsets b: n.x + b = 0, b < 0
             # The ray from the centre along d leaves the hull through the facet with the
             # largest n.d / -b (the first plane it crosses).
@@ -386,6 +394,8 @@ def _build_grid(directions: np.ndarray, name: str) -> _Grid:
 def _ring_weights(
     d: np.ndarray, directions: np.ndarray, grid: _Grid
 ) -> tuple[np.ndarray, np.ndarray] | None:
+    # Only called for a ring grid, which has both.
+    assert grid.ring_normal is not None and grid.ring_order is not None
     basis_u, basis_v, normal = grid.ring_normal
     if abs(float(d @ normal)) > np.sin(np.radians(1.0)):
         return None  # off the ring: the caller falls back to the nearest direction
@@ -403,7 +413,7 @@ def _ring_weights(
     return np.array([i0, i1]), np.array([1.0 - t, t])
 
 
-def file_sha256(path: str | os.PathLike) -> str:
+def file_sha256(path: str | os.PathLike[str]) -> str:
     """Hex SHA-256 of a file, read in chunks."""
     digest = hashlib.sha256()
     with open(path, "rb") as fh:
@@ -422,7 +432,7 @@ def _load_cached(
 
 
 def load_hrir_set(
-    path: str | os.PathLike, samplerate: float | None = None, *, name: str | None = None
+    path: str | os.PathLike[str], samplerate: float | None = None, *, name: str | None = None
 ) -> HrirSet:
     """Read a SOFA file into an :class:`HrirSet`, resampled to ``samplerate`` if given.
 

@@ -5,7 +5,8 @@ Two ITD estimates are offered:
 * :func:`interaural_time_difference` -- the difference of the two ears' *onsets*, each
   the first crossing of a threshold (default -20 dB) below that IR's peak. It follows the
   arrival of the direct sound's leading edge, which is what the Woodworth formula models,
-  and is what ``earfold hrtf inspect`` reports (through :meth:`earfold.renderer.hrtf.hrir.HrirSet.itd`).
+  and is what ``earfold hrtf inspect`` reports (through
+  :meth:`earfold.renderer.hrtf.HrirSet.itd`).
 * :func:`cross_correlation_itd` -- the lag of the maximum of the interaural
   cross-correlation of the pair low-passed below 1.5 kHz. It needs no threshold and
   measures the low-frequency delay that governs ITD perception; on a sphere it reads
@@ -18,10 +19,11 @@ Both are positive when the LEFT ear leads (the source is on the left).
 from __future__ import annotations
 
 import numpy as np
+import numpy.typing as npt
 from scipy import fft as sp_fft
 from scipy import signal
 
-from ..errors import HrirError
+from ..errors import HrirError, describe_value
 
 #: Default onset threshold in dB relative to each IR's absolute peak (common practice for
 #: onset-based ITD estimation on measured HRIRs).
@@ -87,9 +89,11 @@ def onset_times(
     if x.ndim < 1 or x.shape[-1] < 1:
         raise HrirError(f"impulse responses need at least one sample, got shape {x.shape!r}")
     if not (np.isfinite(threshold_db) and threshold_db < 0):
-        raise HrirError(f"onset threshold must be a negative number of dB, got {threshold_db!r}")
+        raise HrirError(
+            f"onset threshold must be a negative number of dB, got {describe_value(threshold_db)}"
+        )
     if int(oversample) != oversample or oversample < 1:
-        raise HrirError(f"oversample must be a positive integer, got {oversample!r}")
+        raise HrirError(f"oversample must be a positive integer, got {describe_value(oversample)}")
     oversample = int(oversample)
     lead = x.shape[:-1]
     flat = x.reshape(-1, x.shape[-1])
@@ -141,7 +145,13 @@ def _oversample(block: np.ndarray, factor: int) -> np.ndarray:
     return fine[..., : n * factor]
 
 
-def interaural_time_difference(ir_pair: np.ndarray, samplerate: float, **kw: float) -> float:
+def interaural_time_difference(
+    ir_pair: npt.ArrayLike,
+    samplerate: float,
+    *,
+    threshold_db: float = DEFAULT_THRESHOLD_DB,
+    oversample: int = DEFAULT_OVERSAMPLE,
+) -> float:
     """Onset-based interaural time difference of an HRIR pair, in seconds.
 
     ``(onset_right - onset_left) / samplerate`` with :func:`onset_times`; positive when
@@ -153,15 +163,15 @@ def interaural_time_difference(ir_pair: np.ndarray, samplerate: float, **kw: flo
         Left ear first.
     samplerate : float
         Sampling rate in Hz.
-    **kw
-        ``threshold_db`` and ``oversample`` for :func:`onset_times`.
+    threshold_db, oversample
+        As for :func:`onset_times`.
 
     Returns
     -------
     float
     """
     pair = _check_pair(ir_pair, samplerate)
-    onset = onset_times(pair, **kw)
+    onset = onset_times(pair, threshold_db=threshold_db, oversample=oversample)
     return float(onset[1] - onset[0]) / float(samplerate)
 
 
@@ -197,7 +207,8 @@ def cross_correlation_itd(
     pair = _check_pair(ir_pair, samplerate)
     if not (0 < cutoff < samplerate / 2):
         raise HrirError(
-            f"cut-off must lie between 0 and Nyquist ({samplerate / 2!r} Hz), got {cutoff!r}"
+            f"cut-off must lie between 0 and Nyquist ({samplerate / 2!r} Hz), "
+            f"got {describe_value(cutoff)}"
         )
     sos = signal.butter(4, cutoff, fs=samplerate, output="sos")
     # Zero-padding lets the filters ring out so both ears keep their whole response.
@@ -250,11 +261,13 @@ def fractional_delay(
     n = x.shape[-1]
     out_len = n if length is None else length
     if int(out_len) != out_len or out_len < 0:
-        raise HrirError(f"output length must be a non-negative integer, got {length!r}")
+        raise HrirError(
+            f"output length must be a non-negative integer, got {describe_value(length)}"
+        )
     out_len = int(out_len)
     d = np.asarray(delay, dtype=float)
     if not np.all(np.isfinite(d)):
-        raise HrirError(f"delays must be finite numbers of samples, got {delay!r}")
+        raise HrirError(f"delays must be finite numbers of samples, got {describe_value(delay)}")
     try:
         d = np.broadcast_to(d, x.shape[:-1])
     except ValueError:
@@ -274,10 +287,12 @@ def fractional_delay(
     return np.fft.irfft(spectrum, n=nfft, axis=-1)[..., :out_len]
 
 
-def _check_pair(ir_pair: np.ndarray, samplerate: float) -> np.ndarray:
+def _check_pair(ir_pair: npt.ArrayLike, samplerate: float) -> npt.NDArray[np.float64]:
     pair = np.asarray(ir_pair, dtype=float)
     if pair.ndim != 2 or pair.shape[0] != 2:
         raise HrirError(f"an HRIR pair must have shape (2, N), left ear first; got {pair.shape!r}")
     if not (np.isfinite(samplerate) and samplerate > 0):
-        raise HrirError(f"sampling rate must be a positive number of Hz, got {samplerate!r}")
+        raise HrirError(
+            f"sampling rate must be a positive number of Hz, got {describe_value(samplerate)}"
+        )
     return pair

@@ -42,7 +42,7 @@ import numpy as np
 from scipy import special
 
 from ..defaults import SPEED_OF_SOUND
-from ..errors import HrirError, RendererError
+from ..errors import HrirError, RendererError, describe_value
 from ..geometry import direction_to_vector, normalize
 
 #: Head radius in metres: the 8.75 cm of the Woodworth formula's usual statement
@@ -113,13 +113,15 @@ def series_terms(mu_max: float, rho: float = np.inf) -> int:
 
 def _check_geometry(radius: float, distance: float, c: float) -> float:
     if not (np.isfinite(radius) and radius > 0):
-        raise HrirError(f"sphere radius must be a positive number of metres, got {radius!r}")
+        raise HrirError(
+            f"sphere radius must be a positive number of metres, got {describe_value(radius)}"
+        )
     if not (np.isfinite(c) and c > 0):
-        raise HrirError(f"speed of sound must be a positive number of m/s, got {c!r}")
+        raise HrirError(f"speed of sound must be a positive number of m/s, got {describe_value(c)}")
     if np.isnan(distance) or distance <= radius:
         raise HrirError(
-            f"source distance must be greater than the sphere radius {radius!r} m "
-            f"(or inf for the far field), got {distance!r}"
+            f"source distance must be greater than the sphere radius {describe_value(radius)} m "
+            f"(or inf for the far field), got {describe_value(distance)}"
         )
     return float(distance) / float(radius)
 
@@ -170,7 +172,8 @@ def _static_limit(cos_theta: np.ndarray, rho: float) -> np.ndarray:
     orders = np.arange(terms)
     legendre = special.eval_legendre(orders[:, None], cos_theta.ravel()[None, :])
     weights = (2 * orders + 1) / (orders + 1) * rho ** (-orders.astype(float))
-    return (weights @ legendre).reshape(cos_theta.shape).astype(complex)
+    limit: np.ndarray = (weights @ legendre).reshape(cos_theta.shape).astype(complex)
+    return limit
 
 
 def sphere_transfer_function(
@@ -223,7 +226,7 @@ def sphere_transfer_function(
         mu_pos = mu[~zero]
         n = series_terms(float(mu_pos.max()), rho) if terms is None else int(terms)
         if n < 1:
-            raise HrirError(f"the series needs at least 1 term, got terms={terms!r}")
+            raise HrirError(f"the series needs at least 1 term, got terms={describe_value(terms)}")
         coeff = _order_coefficients(mu_pos, rho, n)
         legendre = special.eval_legendre(np.arange(n)[:, None], cos_theta[None, :])
         out[:, ~zero] = legendre.T @ coeff
@@ -280,10 +283,12 @@ def sphere_hrirs(
     if dirs.ndim != 2 or dirs.shape[1] != 3:
         raise HrirError(f"directions must have shape (M, 3), got {dirs.shape!r}")
     if not (np.isfinite(samplerate) and samplerate > 0):
-        raise HrirError(f"sampling rate must be a positive number of Hz, got {samplerate!r}")
+        raise HrirError(
+            f"sampling rate must be a positive number of Hz, got {describe_value(samplerate)}"
+        )
     min_taps = 2 * TAIL_FADE_SAMPLES + LEAD_SAMPLES
     if int(taps) != taps or taps < min_taps:
-        raise HrirError(f"taps must be an integer >= {min_taps}, got {taps!r}")
+        raise HrirError(f"taps must be an integer >= {min_taps}, got {describe_value(taps)}")
     taps = int(taps)
     unit = normalize(dirs)
     if np.any(np.linalg.norm(unit, axis=1) == 0):
@@ -326,7 +331,8 @@ def sphere_grid(grid_deg: float = 10.0) -> tuple[np.ndarray, np.ndarray]:
     """
     if not (np.isfinite(grid_deg) and 0 < grid_deg <= 90 and (90.0 / grid_deg).is_integer()):
         raise HrirError(
-            f"grid spacing must divide 90 degrees (e.g. 5, 10, 15, 30), got {grid_deg!r}"
+            f"grid spacing must divide 90 degrees (e.g. 5, 10, 15, 30), "
+            f"got {describe_value(grid_deg)}"
         )
     rings = int(round(180.0 / grid_deg)) + 1
     az_list: list[np.ndarray] = []
@@ -351,8 +357,8 @@ def build_sphere_set(
     """Compute the far-field rigid-sphere set on a full-sphere grid and write it as SOFA.
 
     The file is a SimpleFreeFieldHRIR 1.0 file (written by
-    :func:`earfold.renderer.hrtf.sofa.write_sofa`) whose global attributes name the model, its source,
-    the radius and the speed of sound. The computation is deterministic: the same
+    :func:`earfold.renderer.hrtf.write_sofa`) whose global attributes name the model, its
+    source, the radius and the speed of sound. The computation is deterministic: the same
     arguments give the same IRs.
 
     Parameters
@@ -409,7 +415,10 @@ def build_sphere_set(
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Regenerate the shipped rigid-sphere set: ``python -m earfold.renderer.hrtf.sphere OUTPUT``."""
+    """Regenerate the shipped rigid-sphere set.
+
+    Usage: ``python -m earfold.renderer.hrtf.sphere OUTPUT``.
+    """
     parser = argparse.ArgumentParser(
         prog="python -m earfold.renderer.hrtf.sphere",
         description="Write the far-field rigid-sphere HRIR set as a SOFA file.",

@@ -1,6 +1,6 @@
 """Audio in and out: probing stems, streaming reads, the output writer, WAV headers.
 
-soundfile is imported here and nowhere else in the renderer.
+soundfile is imported in :mod:`._codec` and nowhere else in the renderer.
 """
 
 from __future__ import annotations

@@ -38,10 +38,15 @@ _RIFF_IDS = (b"RIFF", b"RIFX", b"RF64", b"BW64")
 _SIZE_IN_DS64 = 0xFFFFFFFF  # a 32-bit size of -1 means "see the ds64 chunk"
 
 
+def _chunk_name(ck_id: bytes) -> str:
+    """A chunk identifier for a message, as text (Latin-1 maps every byte to a character)."""
+    return repr(ck_id.decode("latin-1"))
+
+
 # -- reading ---------------------------------------------------------------------------
 
 
-def read_channel_mask(path: str | os.PathLike) -> int | None:
+def read_channel_mask(path: str | os.PathLike[str]) -> int | None:
     """``dwChannelMask`` of a WAV, RF64/BW64 or Wave64 file, from its header.
 
     Returns
@@ -99,7 +104,7 @@ def _riff_mask(f: BinaryIO, name: str, size: int, riff_id: bytes) -> int | None:
         if ck_id != b"ds64" or ck_size < 28:
             raise AudioError(
                 f"{name!r}: an {riff_id.decode()} file must start with a ds64 chunk of at "
-                f"least 28 bytes, found {ck_id!r} of {ck_size}"
+                f"least 28 bytes, found {_chunk_name(ck_id)} of {ck_size}"
             )
         body = _read_exact(f, pos + 8, ck_size, name, "ds64 chunk")
         _riff_size, data_size, _frames, table_len = struct.unpack_from("<QQQI", body)
@@ -113,7 +118,8 @@ def _riff_mask(f: BinaryIO, name: str, size: int, riff_id: bytes) -> int | None:
         if ck_size == _SIZE_IN_DS64 and sizes64:
             if ck_id not in sizes64:
                 raise AudioError(
-                    f"{name!r}: chunk {ck_id!r} defers its size to ds64, which does not list it"
+                    f"{name!r}: chunk {_chunk_name(ck_id)} defers its size to ds64, "
+                    "which does not list it"
                 )
             ck_size = sizes64[ck_id]
         if ck_id == b"fmt ":

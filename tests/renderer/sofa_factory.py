@@ -1,7 +1,7 @@
 """Generator of small synthetic SOFA files for the reader's tests.
 
-Files are written directly with netCDF4, not with :func:`earfold.renderer.hrtf.sofa.write_sofa`, so that
-the tests can build the variants the writer never makes: other conventions, cartesian or
+Files are written directly with netCDF4, not with :func:`earfold.renderer.hrtf.write_sofa`,
+so that the tests can build the variants the writer never makes: other conventions, cartesian or
 radian positions, other spellings of units, rotated listeners, swapped receivers, several
 emitters, and broken files.
 

@@ -8,9 +8,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import soundfile
 from audio_factory import pcm_codes, sine, write_au, write_pattern_wav, write_wav
 from numpy.testing import assert_allclose, assert_array_equal
 
+import earfold.renderer.io._probe as probe_module
+import earfold.renderer.io._writer as writer_module
 import earfold.renderer.io.audio as aio
 from earfold.renderer.errors import AudioError
 from earfold.renderer.io import (
@@ -260,7 +263,7 @@ def test_blocks_memory_does_not_grow_with_file_length(tmp_path):
 
 
 def test_channel_mask_is_read_from_the_header_of_one_interleaved_file(tmp_path, monkeypatch):
-    monkeypatch.setattr(aio, "read_channel_mask", lambda path: 0x3F)
+    monkeypatch.setattr(probe_module, "read_channel_mask", lambda path: 0x3F)
     path = write_wav(tmp_path / "six.wav", _noise(100, 6), FS, 16)
     assert probe_stem([path]).channel_mask == 0x3F
     a = _mono(tmp_path, "a.wav", 0.1, 10)
@@ -273,7 +276,7 @@ def test_channel_mask_is_read_from_the_header_of_one_interleaved_file(tmp_path, 
 
 def test_wav_switches_to_rf64_when_frames_hint_exceeds_the_riff_limit(tmp_path, monkeypatch):
     # Lower the limit so that 1000 stereo 24-bit frames (6000 bytes) "exceed" it.
-    monkeypatch.setattr(aio, "RIFF_LIMIT_BYTES", aio._HEADER_ALLOWANCE + 5000)
+    monkeypatch.setattr(writer_module, "RIFF_LIMIT_BYTES", writer_module._HEADER_ALLOWANCE + 5000)
     x = _noise(1000, 2)
     big = tmp_path / "big.wav"
     with OutputWriter(big, FS, 2, frames_hint=1000) as w:
@@ -428,14 +431,14 @@ def test_probe_rejects_an_empty_list():
 def test_zero_channel_count_is_refused_even_if_the_decoder_allowed_it(tmp_path, monkeypatch):
     # libsndfile refuses such headers itself; our own check stays for other decoders.
     path = write_wav(tmp_path / "x.wav", np.zeros((10, 1)), FS)
-    real = aio.sf.info
+    real = soundfile.info
 
     def zero_channels(p):
         i = real(p)
         i.channels = 0
         return i
 
-    monkeypatch.setattr(aio.sf, "info", zero_channels)
+    monkeypatch.setattr(soundfile, "info", zero_channels)
     with pytest.raises(AudioError, match=r"'.*x\.wav' has no channels"):
         probe_stem([path])
 

@@ -1,5 +1,5 @@
-"""Tests of earfold.renderer.hrtf.sofa: reading the SOFA variants met in practice, rejecting broken files,
-and writing SimpleFreeFieldHRIR 1.0 files.
+"""Tests of earfold.renderer.hrtf.sofa: reading the SOFA variants met in practice, rejecting
+broken files, and writing SimpleFreeFieldHRIR 1.0 files.
 
 Synthetic files come from the committed generator ``sofa_factory`` (netCDF4 directly); the
 measured and malformed corpus is read from ``../shared/sofa`` (fixture ``shared_sofa_dir``).
@@ -230,6 +230,23 @@ def test_non_sofa_bytes_raise(tmp_path, content, match):
     path.write_bytes(content)
     with pytest.raises(SofaError, match=r"^'junk\.sofa': .*" + match):
         read_sofa(path)
+
+
+@pytest.mark.parametrize(
+    "content, shown",
+    [
+        (bytes(range(256)) * 8, "it starts with the bytes 00 01 02 03 04 05 06 07"),
+        (b"%PDF-1.7 not an HRIR set", "it starts with the text '%PDF-1.7'"),
+    ],
+    ids=["binary", "text"],
+)
+def test_a_foreign_file_is_described_in_words(tmp_path, content, shown):
+    path = tmp_path / "junk.sofa"
+    path.write_bytes(content)
+    with pytest.raises(SofaError) as info:
+        read_sofa(path)
+    assert shown in str(info.value)
+    assert "b'" not in str(info.value)
 
 
 def test_missing_file_raises(tmp_path):
@@ -843,6 +860,22 @@ def test_writer_rejects_bad_arguments(tmp_path, overrides, match):
     with pytest.raises(SofaError, match=r"^'w\.sofa': " + match):
         _write_example(tmp_path / "w.sofa", **overrides)
     assert not any(tmp_path.iterdir())
+
+
+@pytest.mark.parametrize(
+    "overrides, shown",
+    [
+        ({"distance": np.r_[np.ones(11), -2.0]}, "got -2.0"),
+        ({"attributes": {"Title": b"bytes"}}, "got 'bytes'"),
+        ({"receiver_offset": np.float64(-0.1)}, "got -0.1"),
+    ],
+)
+def test_writer_messages_show_no_array_or_bytes_repr(tmp_path, overrides, shown):
+    with pytest.raises(SofaError) as info:
+        _write_example(tmp_path / "w.sofa", **overrides)
+    message = str(info.value)
+    assert shown in message
+    assert "array(" not in message and "b'" not in message and "np.float64" not in message
 
 
 def test_written_file_is_relative_path_friendly(tmp_path, monkeypatch):

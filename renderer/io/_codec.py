@@ -1,0 +1,99 @@
+"""libsndfile, through soundfile: the renderer's one door to it.
+
+Everything the renderer asks of the audio library goes through these few functions, so
+that the rest of :mod:`earfold.renderer.io` is typed against the small protocols below
+and a change of library touches this module only.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Protocol
+
+import numpy as np
+import numpy.typing as npt
+import soundfile as sf
+
+__all__ = [
+    "CodecError",
+    "FileFacts",
+    "SoundFileHandle",
+    "failure_reason",
+    "file_info",
+    "known_formats",
+    "open_for_reading",
+    "open_for_writing",
+]
+
+#: What libsndfile raises when it cannot decode or encode a file.
+CodecError: type[Exception] = sf.SoundFileError
+
+
+class FileFacts(Protocol):
+    """What the library reports about a file without decoding it."""
+
+    format: str
+    format_info: str
+    subtype: str
+    samplerate: int
+    channels: int
+    frames: int
+    extra_info: str
+
+
+class SoundFileHandle(Protocol):
+    """An open audio file, for reading or for writing."""
+
+    @property
+    def channels(self) -> int: ...
+
+    @property
+    def samplerate(self) -> int: ...
+
+    @property
+    def frames(self) -> int: ...
+
+    def seek(self, frames: int) -> int: ...
+
+    def read(
+        self, frames: int, dtype: str, always_2d: bool, out: npt.NDArray[np.float32]
+    ) -> npt.NDArray[np.float32]: ...
+
+    def write(self, data: npt.NDArray[Any]) -> None: ...
+
+    def close(self) -> None: ...
+
+
+def failure_reason(exc: BaseException) -> str:
+    """The library's own words for a failure (its exception's text repeats the path)."""
+    return str(getattr(exc, "error_string", None) or exc)
+
+
+def file_info(path: str) -> FileFacts:
+    """Format, subtype, rate, channels and frames of ``path``, from its header.
+
+    Raises the library's :data:`CodecError`, or :class:`OSError`.
+    """
+    facts: FileFacts = sf.info(path)
+    return facts
+
+
+def open_for_reading(path: str) -> SoundFileHandle:
+    """Open ``path`` for reading (raises :data:`CodecError` or :class:`OSError`)."""
+    handle: SoundFileHandle = sf.SoundFile(path)
+    return handle
+
+
+def open_for_writing(
+    path: str, *, samplerate: int, channels: int, format: str, subtype: str
+) -> SoundFileHandle:
+    """Open ``path`` for writing, truncating it (raises :data:`CodecError` or :class:`OSError`)."""
+    handle: SoundFileHandle = sf.SoundFile(
+        path, mode="w", samplerate=samplerate, channels=channels, format=format, subtype=subtype
+    )
+    return handle
+
+
+def known_formats() -> dict[str, str]:
+    """Every major format the library knows, name -> description."""
+    formats: dict[str, str] = sf.available_formats()
+    return formats

@@ -1,0 +1,386 @@
+"""Writing renders: output formats and subtypes, and the atomic, dithering writer."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+from types import TracebackType
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from ..blocks import check_block
+from ..errors import AudioError, describe_value
+from ..files import AtomicPath
+from ._codec import CodecError, SoundFileHandle, failure_reason, known_formats, open_for_writing
+from ._probe import INPUT_FORMATS, MAX_CHANNELS, MAX_SAMPLERATE, MIN_SAMPLERATE
+
+__all__ = [
+    "OUTPUT_FORMATS",
+    "OUTPUT_SUBTYPES",
+    "RIFF_LIMIT_BYTES",
+    "OutputWriter",
+    "audio_formats",
+    "subtype_for",
+    "write_audio",
+]
+
+OUTPUT_FORMATS = {"wav": "WAV", "flac": "FLAC", "w64": "W64", "rf64": "RF64"}
+"""Output file extension (or ``format=`` name) -> soundfile major format."""
+
+OUTPUT_SUBTYPES = ("PCM_16", "PCM_24", "FLOAT")
+"""Sample formats a render can be written in."""
+
+RIFF_LIMIT_BYTES = 2**32 - 1
+"""Largest size a RIFF chunk can declare (a 32-bit field): a WAV file must stay below
+this, larger data needs RF64 (EBU Tech 3306; from memory) or W64."""
+
+_HEADER_ALLOWANCE = 1 << 16
+"""Bytes set aside for WAV header chunks when deciding whether data fits the RIFF limit.
+Generous on purpose: over-estimating only means a file just under 4 GiB is written as
+RF64, under-estimating would write a WAV whose sizes overflow."""
+
+_FLAC_SUBTYPES = ("PCM_16", "PCM_24")
+_FLAC_MAX_CHANNELS = 8  # the FLAC format's own limit (RFC 9639; common practice)
+_BYTES_PER_SAMPLE = {"PCM_16": 2, "PCM_24": 3, "FLOAT": 4}
+_PCM_BITS = {"PCM_16": 16, "PCM_24": 24}
+
+
+def subtype_for(name: str) -> str:
+    """The canonical output subtype for ``name`` (case-insensitive).
+
+    Raises
+    ------
+    AudioError
+        If ``name`` is not one of :data:`OUTPUT_SUBTYPES`.
+    """
+    key = name.strip().upper() if isinstance(name, str) else None
+    if key not in OUTPUT_SUBTYPES:
+        raise AudioError(
+            f"unsupported output subtype {describe_value(name)}; choose one of "
+            f"{', '.join(OUTPUT_SUBTYPES)}"
+        )
+    return key
+
+
+def _output_format(path: Path, format: str | None) -> str:
+    if format is None:
+        ext = path.suffix.lower().lstrip(".")
+        if ext not in OUTPUT_FORMATS:
+            raise AudioError(
+                f"cannot tell the output format from {str(path)!r}; use one of the extensions "
+                f"{', '.join('.' + e for e in OUTPUT_FORMATS)} or pass format="
+            )
+        return OUTPUT_FORMATS[ext]
+    key = format.strip().lower() if isinstance(format, str) else None
+    if key not in OUTPUT_FORMATS:
+        raise AudioError(
+            f"unsupported output format {describe_value(format)}; choose one of "
+            f"{', '.join(OUTPUT_FORMATS)}"
+        )
+    return OUTPUT_FORMATS[key]
+
+
+def _exceeds_riff(frames: int, channels: int, subtype: str) -> bool:
+    data = frames * channels * _BYTES_PER_SAMPLE[subtype]
+    # The module constant is read at call time, so tests may lower it.
+    return data + _HEADER_ALLOWANCE > RIFF_LIMIT_BYTES
+
+
+class OutputWriter:
+    """Write a render block by block, atomically, as a context manager.
+
+    Parameters
+    ----------
+    path : path-like
+        Destination file. Its folder must exist.
+    samplerate : int
+        Sample rate in Hz.
+    channels : int, optional
+        Channels per frame (2 for a binaural render).
+    format : str, optional
+        ``"wav"``, ``"flac"``, ``"w64"`` or ``"rf64"`` (case-insensitive). By default
+        taken from the extension of ``path``. WAV switches to RF64 when ``frames_hint``
+        shows the data would exceed the 4 GiB RIFF limit (:attr:`format` tells which
+        was written).
+    subtype : str, optional
+        ``"PCM_16"``, ``"PCM_24"`` (default) or ``"FLOAT"``. FLAC takes PCM only.
+    frames_hint : int, optional
+        Expected number of frames, used only to choose between WAV and RF64.
+    seed : int, optional
+        Seed of the dither noise (PCG64), so that a render is reproducible.
+    durable : bool, optional
+        Flush the file to disk (fsync) before renaming it, and the folder after (the
+        default). False for scratch files that are read back and removed at once, such
+        as the float render the delivery stage reads: an fsync there only costs time.
+
+    Attributes
+    ----------
+    frames_written : int
+        Frames written so far.
+    clipped_samples : int
+        Samples outside [-1, 1) that were clipped (PCM subtypes only).
+    peak : float
+        Largest absolute sample value written, before clipping and quantisation.
+
+    Notes
+    -----
+    Data goes to a temporary file in the destination folder (``.NAME.XXXXXXXX.part``).
+    Leaving the ``with`` block normally closes it, fsyncs it and ``os.replace``s it onto
+    ``path``; leaving with an exception removes it and leaves any file at ``path`` as it
+    was. Without ``with``, call :meth:`close` to commit or :meth:`abort` to discard.
+
+    PCM_16 is dithered with TPDF noise, the sum of two independent uniform sources of
+    +/-0.5 LSB each (triangular, +/-1 LSB peak), added before rounding (common
+    practice: it makes the error independent of the signal, with variance LSB^2/4).
+    PCM_24 and FLOAT are not dithered. FLOAT is never clipped.
+    """
+
+    def __init__(
+        self,
+        path: str | os.PathLike[str],
+        samplerate: int,
+        channels: int = 2,
+        *,
+        format: str | None = None,
+        subtype: str = "PCM_24",
+        frames_hint: int | None = None,
+        seed: int = 0,
+        durable: bool = True,
+    ) -> None:
+        dest = Path(os.fspath(path))
+        fmt = _output_format(dest, format)
+        subtype = subtype_for(subtype)
+        if (
+            isinstance(channels, bool)
+            or not isinstance(channels, (int, np.integer))
+            or not 1 <= channels <= MAX_CHANNELS
+        ):
+            raise AudioError(
+                f"channels must be an integer from 1 to {MAX_CHANNELS}, "
+                f"not {describe_value(channels)}"
+            )
+        if (
+            isinstance(samplerate, bool)
+            or not isinstance(samplerate, (int, np.integer))
+            or not MIN_SAMPLERATE <= samplerate <= MAX_SAMPLERATE
+        ):
+            raise AudioError(
+                f"unsupported output sample rate {describe_value(samplerate)}; supported: "
+                f"{MIN_SAMPLERATE} to {MAX_SAMPLERATE} Hz"
+            )
+        if fmt == "FLAC":
+            if subtype not in _FLAC_SUBTYPES:
+                raise AudioError(
+                    f"FLAC cannot hold subtype {subtype!r}; valid combinations: "
+                    + "; ".join(
+                        f"{e}: {', '.join(_valid_subtypes(f))}" for e, f in OUTPUT_FORMATS.items()
+                    )
+                )
+            if channels > _FLAC_MAX_CHANNELS:
+                raise AudioError(
+                    f"FLAC holds at most {_FLAC_MAX_CHANNELS} channels, not "
+                    f"{channels}; write .wav, .w64 or .rf64"
+                )
+        if (
+            fmt == "WAV"
+            and frames_hint is not None
+            and _exceeds_riff(int(frames_hint), int(channels), subtype)
+        ):
+            fmt = "RF64"
+        if dest.is_dir():
+            raise AudioError(f"output path {str(dest)!r} is a directory")
+        if not dest.parent.is_dir():
+            raise AudioError(f"the folder of output {str(dest)!r} does not exist")
+
+        self.path = str(dest)
+        self.format = fmt
+        self.subtype = subtype
+        self.samplerate = int(samplerate)
+        self.channels = int(channels)
+        self.frames_written = 0
+        self.clipped_samples = 0
+        self.peak = 0.0
+        self.durable = bool(durable)
+        self._rng = np.random.Generator(np.random.PCG64(seed))
+        try:
+            self._spot = AtomicPath(dest, suffix=".part", durable=self.durable)
+        except FileExistsError:
+            raise AudioError(f"cannot find a free temporary name beside {str(dest)!r}") from None
+        except OSError as exc:
+            raise AudioError(
+                f"cannot create a file beside {str(dest)!r}: {exc.strerror or exc}"
+            ) from exc
+        self._tmp = self._spot.tmp
+        try:
+            self._sf: SoundFileHandle | None = open_for_writing(
+                self._tmp,
+                samplerate=self.samplerate,
+                channels=self.channels,
+                format=fmt,
+                subtype=subtype,
+            )
+        except BaseException as exc:
+            self._spot.discard()
+            if isinstance(exc, (CodecError, OSError)):
+                raise AudioError(f"cannot write {str(dest)!r}: {failure_reason(exc)}") from exc
+            raise
+
+    def __enter__(self) -> OutputWriter:
+        return self
+
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self.abort()
+
+    def write(self, block: npt.NDArray[np.floating[Any]]) -> None:
+        """Append a ``(n, channels)`` block of float samples (nominal range [-1, 1)).
+
+        Raises
+        ------
+        AudioError
+            If the block has the wrong shape, holds NaN or infinity, the writer is
+            closed, or a WAV without ``frames_hint`` would grow past the RIFF limit.
+        """
+        if self._sf is None:
+            raise AudioError(f"the writer of {self.path!r} is closed")
+        x = check_block(block, self.channels)
+        n = x.shape[0]
+        if n == 0:
+            return
+        # Two reductions stand for the finiteness check, the peak and the clip test: min
+        # and max propagate NaN and show infinities, and most blocks need nothing more.
+        lo, hi = float(np.min(x)), float(np.max(x))
+        if not (np.isfinite(lo) and np.isfinite(hi)):
+            bad = int(np.argmax(~np.all(np.isfinite(x), axis=1)))
+            raise AudioError(
+                f"block holds NaN or infinity at frame {self.frames_written + bad} of {self.path!r}"
+            )
+        if self.format == "WAV" and _exceeds_riff(
+            self.frames_written + n, self.channels, self.subtype
+        ):
+            raise AudioError(
+                f"{self.path!r} would exceed the 4 GiB WAV limit; pass frames_hint so it is "
+                "written as RF64, or write .rf64 or .w64"
+            )
+        self.peak = max(self.peak, -lo, hi)
+        if self.subtype == "FLOAT":
+            self._sf.write(x.astype(np.float32, copy=False))
+        else:
+            if hi >= 1.0 or lo < -1.0:
+                self.clipped_samples += int(np.count_nonzero((x >= 1.0) | (x < -1.0)))
+            self._sf.write(self._quantise(x))
+        self.frames_written += n
+
+    def _quantise(self, x: npt.NDArray[np.floating[Any]]) -> npt.NDArray[np.signedinteger[Any]]:
+        bits = _PCM_BITS[self.subtype]
+        scale = float(2 ** (bits - 1))
+        if bits == 16:
+            y = x.astype(np.float64) * scale
+            # Both sources of a sample drawn together, frame by frame: the noise sequence
+            # is then the same whatever the block sizes.
+            u = self._rng.random((x.shape[0], x.shape[1], 2))
+            y += u[..., 0] + u[..., 1] - 1.0
+            np.rint(y, out=y)
+            np.clip(y, -scale, scale - 1.0, out=y)
+            return y.astype(np.int16)
+        # 24 bits fit float32's 24-bit significand: scaling by a power of two, rounding
+        # and clipping are exact in float32, so for float32 input this equals the float64
+        # computation at a quarter of the memory traffic (the final write counts against
+        # the delivery stage's time budget).
+        work = np.float32 if x.dtype == np.float32 else np.float64
+        y = np.multiply(x, work(scale), dtype=work)
+        np.rint(y, out=y)
+        np.clip(y, work(-scale), work(scale - 1.0), out=y)
+        q = y.astype(np.int32)
+        # libsndfile writes the top 24 bits of int32 samples to PCM_24.
+        q <<= 8
+        quantised: npt.NDArray[np.signedinteger[Any]] = q
+        return quantised
+
+    def close(self) -> None:
+        """Finish the file: flush, fsync and move it onto :attr:`path`."""
+        if self._sf is None:
+            return
+        try:
+            self._sf.close()
+            self._sf = None
+        except BaseException:
+            self.abort()
+            raise
+        # Removes the temporary file itself if the fsync or the rename fails.
+        self._spot.commit()
+
+    def abort(self) -> None:
+        """Discard the temporary file; leave :attr:`path` as it was."""
+        if self._sf is not None:
+            try:
+                self._sf.close()
+            except Exception:  # already failing; the file is removed next anyway
+                pass
+            self._sf = None
+        self._spot.discard()
+
+
+def _valid_subtypes(fmt: str) -> tuple[str, ...]:
+    return _FLAC_SUBTYPES if fmt == "FLAC" else OUTPUT_SUBTYPES
+
+
+def write_audio(
+    path: str | os.PathLike[str], data: npt.ArrayLike, samplerate: int, subtype: str = "PCM_24"
+) -> None:
+    """Write a whole (small) array atomically, format from the extension.
+
+    ``data`` is frames x channels; a 1-D array is written as one channel. PCM_16 is
+    dithered with seed 0.
+    """
+    x = np.asarray(data)
+    if x.ndim == 1:
+        x = x[:, None]
+    if x.ndim != 2:
+        raise AudioError(f"expected audio of shape (frames, channels), got {x.shape!r}")
+    with OutputWriter(
+        path, samplerate, x.shape[1], subtype=subtype, frames_hint=x.shape[0]
+    ) as writer:
+        writer.write(x)
+
+
+def audio_formats() -> dict[str, Any]:
+    """What can be read and written, for listings (CLI, HTTP).
+
+    Returns
+    -------
+    dict
+        ``{"input": {"formats": {NAME: description}, "channels": {...},
+        "samplerate_hz": {...}}, "output": {EXT: {"format": NAME, "subtypes": [...]}}}``;
+        JSON-serialisable.
+    """
+    known = known_formats()
+    return {
+        "input": {
+            "formats": {name: known.get(name, name) for name in INPUT_FORMATS},
+            "channels": {"min": 1, "max": MAX_CHANNELS},
+            "samplerate_hz": {"min": MIN_SAMPLERATE, "max": MAX_SAMPLERATE},
+            "several_files": "mono files of one sample rate; shorter ones padded with silence",
+        },
+        "output": {
+            ext: {
+                "format": fmt,
+                "subtypes": list(_valid_subtypes(fmt)),
+                **(
+                    {"note": "written as RF64 when the data would exceed 4 GiB"}
+                    if fmt == "WAV"
+                    else {}
+                ),
+            }
+            for ext, fmt in OUTPUT_FORMATS.items()
+        },
+    }
