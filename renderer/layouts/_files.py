@@ -67,7 +67,7 @@ def _check_label(value: object, what: str, origin: str | None) -> str:
         or "," in value
     ):
         raise LayoutError(
-            f"{_where(origin)}{what} label {value!r} must be 1 to {MAX_LABEL_LENGTH} "
+            f"{_where(origin)}{what} label {shown(value)} must be 1 to {MAX_LABEL_LENGTH} "
             "printable characters without commas or surrounding spaces"
         )
     return value
@@ -96,7 +96,7 @@ def _speaker_from_dict(entry: object, n: int, origin: str | None) -> Speaker:
     if missing:
         raise LayoutError(f"{_where(origin)}{what} is missing {', '.join(missing)}")
     label = _check_label(entry["label"], what, origin)
-    what = f"speaker {n} ({label!r})"
+    what = f"speaker {n} ({shown(label)})"
     azimuth = _number(entry["azimuth"], f"{what} azimuth", origin)
     elevation = _number(entry["elevation"], f"{what} elevation", origin)
     if abs(azimuth) > 360.0:
@@ -185,8 +185,8 @@ def layout_from_dict(
         key = label_key(s.label)
         if key in seen:
             raise LayoutError(
-                f"{_where(origin)}duplicate label {s.label!r} (same channel as "
-                f"{seen[key]!r}); every speaker needs its own label"
+                f"{_where(origin)}duplicate label {shown(s.label)} (same channel as "
+                f"{shown(seen[key])}); every speaker needs its own label"
             )
         seen[key] = s.label
     return Layout(texts["name"], tuple(speakers), texts["description"], texts["source"])
@@ -222,7 +222,7 @@ def get_layout(name_or_path: str | os.PathLike[str]) -> Layout:
                 return layout
         if not (key.endswith(".json") or os.path.isfile(name_or_path)):
             raise LayoutError(
-                f"unknown layout {name_or_path!r}; choose one of {', '.join(LAYOUTS)} or "
+                f"unknown layout {shown(name_or_path)}; choose one of {', '.join(LAYOUTS)} or "
                 "give a .json layout file"
             )
     elif not isinstance(name_or_path, os.PathLike):

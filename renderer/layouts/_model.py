@@ -77,11 +77,11 @@ class Layout:
 
     def __post_init__(self) -> None:
         if not self.speakers:
-            raise LayoutError(f"layout {self.name!r} has no speakers")
+            raise LayoutError(f"layout {shown(self.name)} has no speakers")
         keys = [label_key(s.label) for s in self.speakers]
         if len(set(keys)) != len(keys):
             dupes = sorted({s.label for s, k in zip(self.speakers, keys) if keys.count(k) > 1})
-            raise LayoutError(f"layout {self.name!r} has duplicate labels: {', '.join(dupes)}")
+            raise LayoutError(f"layout {shown(self.name)} has duplicate labels: {', '.join(dupes)}")
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -116,7 +116,7 @@ class Layout:
         found = self._find(label)
         if found is None:
             raise LayoutError(
-                f"{shown(label)} is not a channel of layout {self.name!r}; its channels are "
+                f"{shown(label)} is not a channel of layout {shown(self.name)}; its channels are "
                 f"{', '.join(self.labels)}"
             )
         return found

@@ -40,7 +40,7 @@ def resolve_channel_order(layout: Layout, labels: Sequence[str]) -> tuple[int, .
         names all of them and lists the layout's labels.
     """
     labels = list(labels)
-    listing = f"layout {layout.name!r} has {layout.channels}: {', '.join(layout.labels)}"
+    listing = f"layout {shown(layout.name)} has {layout.channels}: {', '.join(layout.labels)}"
     if len(labels) != layout.channels:
         raise LayoutError(
             f"the channel order names {len(labels)} channel(s) "

@@ -222,7 +222,9 @@ def build_room_filters(
     speakers = layout.speakers
     active = [i for i, s in enumerate(speakers) if not s.lfe]
     if not active:
-        raise RoomError(f"layout {layout.name!r} has only LFE channels; nothing to place in a room")
+        raise RoomError(
+            f"layout {shown(layout.name)} has only LFE channels; nothing to place in a room"
+        )
     distances = {i: (speakers[i].distance or room.speaker_radius) for i in active}
     positions = {
         i: room.speaker_position(speakers[i].vector, distances[i], label=speakers[i].label)

@@ -175,7 +175,7 @@ def image_sources(
     if not (np.all(src > 0) and np.all(src < dims)):
         raise RoomError(
             f"source at {tuple(round(float(v), 3) for v in src)!r} is not inside room "
-            f"{room.name!r} ({', '.join(f'{d:g}' for d in dims)} m)"
+            f"{shown(room.name)} ({', '.join(f'{d:g}' for d in dims)} m)"
         )
     listener = np.asarray(room.listener)
     if np.linalg.norm(src - listener) < 1e-3:

@@ -144,7 +144,7 @@ class Room:
     rt60_target: tuple[float, ...] | None = None
 
     def __post_init__(self) -> None:
-        where = f"room {self.name!r}: "
+        where = f"room {shown(self.name)}: "
         dims = tuple(float(d) for d in self.dimensions)
         if len(dims) != 3 or not all(MIN_DIMENSION <= d <= MAX_DIMENSION for d in dims):
             raise RoomError(
@@ -272,10 +272,10 @@ class Room:
         pos: FloatArray = np.asarray(self.listener) + r * v / np.linalg.norm(v)
         if not _inside(pos, self.dimensions, SPEAKER_CLEARANCE):
             raise RoomError(
-                f"loudspeaker {label!r} at {r:g} m from the listener would stand at "
-                f"{_fmt(pos.tolist())}, outside room {self.name!r} ({_fmt(self.dimensions)} m, "
-                f"listener at {_fmt(self.listener)}); give the layout shorter distances or use a "
-                "room with a smaller speaker_radius"
+                f"loudspeaker {shown(label)} at {r:g} m from the listener would stand at "
+                f"{_fmt(pos.tolist())}, outside room {shown(self.name)} "
+                f"({_fmt(self.dimensions)} m, listener at {_fmt(self.listener)}); give the layout "
+                "shorter distances or use a room with a smaller speaker_radius"
             )
         return pos
 

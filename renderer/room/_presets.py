@@ -132,8 +132,8 @@ def get_room(name_or_path: str | os.PathLike[str] | Room | None) -> Room | None:
             return ROOMS[key]
         if not (key.endswith(".json") or os.path.isfile(name_or_path)):
             raise RoomError(
-                f"unknown room {name_or_path!r}; choose one of none, {', '.join(ROOMS)} or give "
-                "a .json room file"
+                f"unknown room {shown(name_or_path)}; choose one of none, {', '.join(ROOMS)} or "
+                "give a .json room file"
             )
     elif not isinstance(name_or_path, os.PathLike):
         raise RoomError(f"a room is a name or a file path, got {shown(name_or_path)}")
