@@ -8,9 +8,9 @@ level in each octave band decays exponentially, -60 dB in that band's RT60:
    ``L = a n1 + b n2``, ``R = a n1 - b n2`` with ``a = sqrt((1 + g) / 2)``,
    ``b = sqrt((1 - g) / 2)``, which gives the ears the coherence ``a^2 - b^2 = g``: the
    usual construction for a prescribed interaural coherence (common practice). ``g(f)`` is
-   the diffuse-field coherence of the HRIR set (:func:`diffuse_coherence`), and each ear is
-   coloured by the set's diffuse-field power response, so that the tail sounds through the
-   same ears as the early part. The mixing is done per bin rather than per octave band
+   the diffuse-field coherence of the HRIR set (:func:`~._diffuse.diffuse_coherence`), and
+   each ear is coloured by the set's diffuse-field power response, so that the tail sounds
+   through the same ears as the early part. The mixing is done per bin rather than per octave band
    because a head's coherence falls from 1 to about 0 within the 250 Hz and 500 Hz bands.
 2. **Bands.** The noise is split into the octave bands of :data:`earfold.renderer.room.BANDS_HZ`
    by zero-phase weights in the frequency domain (:func:`band_weights`): raised-cosine

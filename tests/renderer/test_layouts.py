@@ -1,4 +1,4 @@
-"""Loudspeaker layouts, labels, channel orders and layout files (renderer/layouts.py)."""
+"""Loudspeaker layouts, labels, channel orders and layout files (the layouts wing)."""
 
 from __future__ import annotations
 
