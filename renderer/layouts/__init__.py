@@ -1,25 +1,32 @@
-"""Loudspeaker layouts (ITU-R BS.2051 positions), channel labels and orders, WAV channel masks."""
+"""Loudspeaker layouts (ITU-R BS.2051 positions), channel labels and orders, WAV channel masks.
+
+Modules, each one concept: ``_labels`` (canonical labels, aliases, BS.2051 names, labels
+from file names), ``_model`` (:class:`Speaker`, :class:`Layout`), ``_order`` (channel
+orders), ``_catalogue`` (the built-in :data:`LAYOUTS`, :func:`suggest_layout`), ``_files``
+(custom layouts as JSON, :func:`get_layout`) and ``_channel_mask`` (WAV channel masks).
+"""
 
 from __future__ import annotations
 
-from .catalogue import (
-    LAYOUTS,
+from ._catalogue import LAYOUTS, suggest_layout
+from ._channel_mask import SPEAKER_BITS, labels_from_mask, mask_for_labels, mask_to_speakers
+from ._files import (
+    MAX_LABEL_LENGTH,
+    MAX_LAYOUT_FILE_BYTES,
     MAX_SPEAKERS,
-    Layout,
-    Speaker,
-    canonical_label,
     get_layout,
-    labels_from_filenames,
     layout_from_dict,
     load_layout_file,
-    resolve_channel_order,
-    suggest_layout,
 )
-from .channel_mask import SPEAKER_BITS, labels_from_mask, mask_for_labels, mask_to_speakers
+from ._labels import canonical_label, labels_from_filenames
+from ._model import Layout, Speaker
+from ._order import resolve_channel_order
 
 __all__ = [
     "LAYOUTS",
     "Layout",
+    "MAX_LABEL_LENGTH",
+    "MAX_LAYOUT_FILE_BYTES",
     "MAX_SPEAKERS",
     "SPEAKER_BITS",
     "Speaker",

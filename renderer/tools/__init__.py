@@ -1,17 +1,22 @@
-"""Commands built on the renderer: the benchmark, the demo, SOFA inspection."""
+"""Commands built on the renderer: the benchmark, the demo, SOFA inspection.
+
+Modules: ``_bench`` (``earfold bench``: processes, figures, the table), ``_bench_cases``
+(what each case times, interleaved rounds), ``_demo`` (the demo stem and its render) and
+``_inspect`` (a SOFA file's summary).
+"""
 
 from __future__ import annotations
 
-from .bench import (
+from ._bench import format_bench, run_bench
+from ._bench_cases import (
     DELIVERY_ROUNDS,
     EQ_ROUNDS,
-    format_bench,
     interleaved,
+    make_noise_stem,
     round_ratios,
-    run_bench,
 )
-from .demo import run_demo
-from .inspect import inspect_sofa
+from ._demo import make_demo_stem, run_demo
+from ._inspect import inspect_sofa
 
 __all__ = [
     "DELIVERY_ROUNDS",
@@ -19,6 +24,8 @@ __all__ = [
     "format_bench",
     "inspect_sofa",
     "interleaved",
+    "make_demo_stem",
+    "make_noise_stem",
     "round_ratios",
     "run_bench",
     "run_demo",

@@ -1,4 +1,5 @@
-"""WAV channel masks (renderer/channel_mask.py), on headers written byte by byte here."""
+"""WAV channel masks (io/wav_header.py reads them, layouts/_channel_mask.py names them), on
+headers written byte by byte here."""
 
 from __future__ import annotations
 

@@ -7,9 +7,9 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
+from earfold.renderer.defaults import SPEED_OF_SOUND
 from earfold.renderer.errors import RoomError
 from earfold.renderer.room import SURFACES, image_sources, room_from_dict
-from earfold.renderer.room.model import SPEED_OF_SOUND
 
 FS = 48000
 DIMS = (6.0, 4.5, 3.2)

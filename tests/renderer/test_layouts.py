@@ -1,4 +1,4 @@
-"""Loudspeaker layouts, labels, channel orders and layout files (renderer/layouts.py)."""
+"""Loudspeaker layouts, labels, channel orders and layout files (the layouts wing)."""
 
 from __future__ import annotations
 
@@ -535,3 +535,27 @@ def test_layout_rejects_duplicate_labels_when_built_in_code():
         Layout("x", (Speaker("L", 30, 0), Speaker("l", -30, 0)))
     with pytest.raises(LayoutError, match=r"layout 'x' has no speakers"):
         Layout("x", ())
+
+
+@pytest.mark.parametrize(
+    ("call", "shown"),
+    [
+        (lambda: layout_from_dict({"speakers": np.zeros((3, 2))}), r"got a 3 x 2 array"),
+        (
+            lambda: layout_from_dict({"speakers": [{"label": b"L", "azimuth": 0, "elevation": 0}]}),
+            r"label must be a string, got binary data \(1 byte\)",
+        ),
+        (lambda: canonical_label(b"FL"), r"unknown channel label binary data \(2 bytes\)"),
+        (lambda: LAYOUTS["5.1"].index(b"L"), r"binary data \(1 byte\) is not a channel"),
+        (lambda: get_layout(np.array([5.1])), r"got \[5\.1\]"),
+        (
+            lambda: resolve_channel_order(LAYOUTS["2.0"], [b"L", np.float64(2.0)]),
+            r"unknown label\(s\) binary data \(1 byte\), 2\.0",
+        ),
+    ],
+)
+def test_error_messages_show_values_not_array_or_bytes_reprs(call, shown):
+    with pytest.raises(LayoutError, match=shown) as info:
+        call()
+    message = str(info.value)
+    assert "array(" not in message and "b'" not in message and "np." not in message

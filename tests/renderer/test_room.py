@@ -325,3 +325,32 @@ def test_room_files_errors(tmp_path):
 
 def test_room_error_is_a_renderer_error_and_a_value_error():
     assert issubclass(RoomError, RendererError) and issubclass(RoomError, ValueError)
+
+
+@pytest.mark.parametrize(
+    ("call", "shown"),
+    [
+        (
+            lambda: room_from_dict({"dimensions": np.zeros(12)}),
+            r"got an array of 12 float64 values",
+        ),
+        (
+            lambda: room_from_dict({"dimensions": [5, 4, 3], "rt60": np.full(6, 0.3)}),
+            r"got \[0\.3, 0\.3",
+        ),
+        (lambda: room_from_dict({**_uniform(), "order": np.ones((2, 2))}), r"got a 2 x 2 array"),
+        (lambda: room_from_dict({**_uniform(), "seed": b"\x00\x01"}), r"binary data \(2 bytes\)"),
+        (
+            lambda: Room(
+                "r", (4, 3, 3), (2, 1.5, 1.2), ROOMS["small"].absorption, seed=np.int64(-1)
+            ),
+            r"seed -1 must be",
+        ),
+        (lambda: get_room(b"small"), r"got binary data \(5 bytes\)"),
+    ],
+)
+def test_error_messages_show_values_not_array_or_bytes_reprs(call, shown):
+    with pytest.raises(RoomError, match=shown) as info:
+        call()
+    message = str(info.value)
+    assert "array(" not in message and "b'" not in message and "np." not in message

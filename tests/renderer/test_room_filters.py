@@ -10,6 +10,7 @@ import pyroomacoustics as pra
 import pytest
 from numpy.testing import assert_allclose
 
+from earfold.renderer.defaults import SPEED_OF_SOUND
 from earfold.renderer.engine import convolve_reference
 from earfold.renderer.errors import RoomError
 from earfold.renderer.geometry import direction_to_vector
@@ -24,8 +25,7 @@ from earfold.renderer.room import (
     measure_rt60,
     room_from_dict,
 )
-from earfold.renderer.room.filters import _minimum_phase_spectrum
-from earfold.renderer.room.model import SPEED_OF_SOUND
+from earfold.renderer.signals import minimum_phase_spectrum
 
 FS = 16000
 
@@ -188,7 +188,7 @@ def test_wall_filters_are_minimum_phase_with_the_requested_magnitude():
     nfft = 8192
     freqs = np.fft.rfftfreq(nfft, 1 / FS)
     magnitude = 0.3 + 0.6 / (1 + (freqs / 1000.0) ** 2)
-    spectrum = _minimum_phase_spectrum(magnitude, nfft)
+    spectrum = minimum_phase_spectrum(magnitude, nfft)
     assert_allclose(np.abs(spectrum), magnitude, rtol=1e-9)
     h = np.fft.irfft(spectrum, n=nfft)
     assert np.sum(h[: int(0.01 * FS)] ** 2) > 0.999 * np.sum(h**2)

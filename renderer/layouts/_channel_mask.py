@@ -14,7 +14,9 @@ import types
 from collections.abc import Mapping, Sequence
 
 from ..errors import LayoutError
-from .catalogue import Layout, canonical_label
+from ._labels import canonical_label
+from ._model import Layout
+from ._text import shown
 
 __all__ = [
     "SPEAKER_BITS",
@@ -84,7 +86,10 @@ def mask_to_speakers(mask: int) -> list[str]:
         If ``mask`` is not an integer in 0 .. 2**32 - 1.
     """
     if isinstance(mask, bool) or not isinstance(mask, int) or not 0 <= mask < 1 << 32:
-        raise LayoutError(f"a WAV channel mask is a 32-bit unsigned integer, got {mask!r}")
+        raise LayoutError(
+            f"a WAV channel mask is a 32-bit unsigned integer, got {shown(mask)}; "
+            f"give 0 to {(1 << 32) - 1}"
+        )
     return [_BIT_NAMES.get(1 << n, f"bit{n}") for n in range(32) if mask >> n & 1]
 
 
@@ -112,14 +117,14 @@ def labels_from_mask(mask: int, channels: int, layout: Layout | None = None) -> 
     if len(names) != channels or any(n not in SPEAKER_BITS for n in names):
         return None
     sides = "SL" in names or "SR" in names
-    labels = []
+    labels: list[str] = []
     for n in names:
         if n in ("BL", "BR"):
             labels.append(("Lrs" if sides else "Ls") if n == "BL" else ("Rrs" if sides else "Rs"))
         else:
             labels.append(_MASK_TO_LABEL[n])
     if layout is not None:
-        adapted = []
+        adapted: list[str] = []
         for label in labels:
             try:
                 adapted.append(layout.labels[layout.index(label)])
@@ -138,7 +143,7 @@ def mask_for_labels(labels: Sequence[str]) -> int | None:
     two labels take one bit, or when the order is not ascending bit order (a mask cannot
     describe such a file).
     """
-    canon = []
+    canon: list[str] = []
     for label in labels:
         try:
             canon.append(canonical_label(label))
@@ -153,9 +158,10 @@ def mask_for_labels(labels: Sequence[str]) -> int | None:
         elif label in ("Lrs", "Rrs"):
             name = {"Lrs": "BL", "Rrs": "BR"}[label]
         else:
-            name = _LABEL_TO_MASK.get(label)
-        if name is None:
-            return None
+            found = _LABEL_TO_MASK.get(label)
+            if found is None:
+                return None
+            name = found
         bit = SPEAKER_BITS[name]
         if bit <= last:
             return None

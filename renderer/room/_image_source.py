@@ -15,8 +15,8 @@ pressure reflection gain per band, the product over the walls hit of
 ``beta = sqrt(1 - alpha)`` (recalled; the energy absorbed at each hit is ``alpha``), the
 air attenuation per band when the room has it, and the arrival direction at the listener.
 
-Axes (see :mod:`earfold.renderer.room.model`): room ``x`` runs from the back wall to the front wall,
-``y`` from the right wall to the left wall, ``z`` up; the listener faces the front wall,
+Axes (see :class:`earfold.renderer.room.Room`): room ``x`` runs from the back wall to the
+front wall, ``y`` from the right wall to the left wall, ``z`` up; the listener faces the front wall,
 so the listener frame (x front, y left, z up) is the room frame moved to the listener, and
 an image at ``q`` arrives from the unit vector ``(q - listener) / |q - listener|``.
 """
@@ -26,12 +26,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import numpy.typing as npt
 
 from ..defaults import SPEED_OF_SOUND
 from ..errors import RoomError
-from .model import SURFACES, Room, air_attenuation_db_per_km
+from ._acoustics import air_attenuation_db_per_km
+from ._model import MAX_ORDER, SURFACES, Room
+from ._text import shown
 
 __all__ = ["ImageSources", "image_sources"]
+
+FloatArray = npt.NDArray[np.float64]
+IntArray = npt.NDArray[np.int64]
 
 # Index in SURFACES of the wall at 0 and the wall at L along each room axis.
 _WALLS_AT_ZERO = (SURFACES.index("back"), SURFACES.index("right"), SURFACES.index("floor"))
@@ -49,7 +55,7 @@ class ImageSources:
     orders : ndarray of int, shape (K,)
         Number of reflections.
     hits : ndarray of int, shape (K, 6)
-        Reflections off each surface, in :data:`earfold.renderer.room.model.SURFACES` order.
+        Reflections off each surface, in :data:`earfold.renderer.room.SURFACES` order.
     distances : ndarray, shape (K,)
         Path length to the listener (m).
     delays : ndarray, shape (K,)
@@ -70,15 +76,15 @@ class ImageSources:
         path of order ``N + 1``, the first one left out.
     """
 
-    positions: np.ndarray
-    orders: np.ndarray
-    hits: np.ndarray
-    distances: np.ndarray
-    delays: np.ndarray
-    spreading: np.ndarray
-    reflection: np.ndarray
-    air: np.ndarray
-    directions: np.ndarray
+    positions: FloatArray
+    orders: IntArray
+    hits: IntArray
+    distances: FloatArray
+    delays: FloatArray
+    spreading: FloatArray
+    reflection: FloatArray
+    air: FloatArray
+    directions: FloatArray
     reference_distance: float
     complete_distance: float
 
@@ -102,12 +108,13 @@ class ImageSources:
         return int(self.distances.size)
 
     @property
-    def band_gains(self) -> np.ndarray:
+    def band_gains(self) -> FloatArray:
         """Reflection times air gain per band, shape (K, 7) (spreading not included)."""
-        return self.reflection * self.air
+        gains: FloatArray = self.reflection * self.air
+        return gains
 
 
-def _axis_images(s: float, length: float, order: int) -> tuple[np.ndarray, ...]:
+def _axis_images(s: float, length: float, order: int) -> tuple[FloatArray, IntArray, IntArray]:
     n = np.arange(-order, order + 1)
     n, p = np.repeat(n, 2), np.tile([0, 1], n.size)
     coord = (1 - 2 * p) * s + 2 * n * length
@@ -118,7 +125,7 @@ def _axis_images(s: float, length: float, order: int) -> tuple[np.ndarray, ...]:
 
 def image_sources(
     room: Room,
-    source: np.ndarray,
+    source: npt.ArrayLike,
     *,
     order: int | None = None,
     reference_distance: float | None = None,
@@ -150,18 +157,25 @@ def image_sources(
     Raises
     ------
     RoomError
-        If the order is not an integer from 0 to 6, or the source is not inside the room.
+        If the order is not an integer from 0 to :data:`~earfold.renderer.room.MAX_ORDER`,
+        or the source is not inside the room.
     """
     n_max = room.order if order is None else order
-    if isinstance(n_max, bool) or not isinstance(n_max, (int, np.integer)) or not 0 <= n_max <= 6:
-        raise RoomError(f"image-source order {order!r} must be an integer from 0 to 6")
+    if (
+        isinstance(n_max, bool)
+        or not isinstance(n_max, (int, np.integer))
+        or not 0 <= n_max <= MAX_ORDER
+    ):
+        raise RoomError(
+            f"image-source order {shown(order)} must be an integer from 0 to {MAX_ORDER}"
+        )
     n_max = int(n_max)
     src = np.asarray(source, dtype=float).reshape(3)
     dims = np.asarray(room.dimensions)
     if not (np.all(src > 0) and np.all(src < dims)):
         raise RoomError(
             f"source at {tuple(round(float(v), 3) for v in src)!r} is not inside room "
-            f"{room.name!r} ({', '.join(f'{d:g}' for d in dims)} m)"
+            f"{shown(room.name)} ({', '.join(f'{d:g}' for d in dims)} m)"
         )
     listener = np.asarray(room.listener)
     if np.linalg.norm(src - listener) < 1e-3:

@@ -8,11 +8,11 @@ level in each octave band decays exponentially, -60 dB in that band's RT60:
    ``L = a n1 + b n2``, ``R = a n1 - b n2`` with ``a = sqrt((1 + g) / 2)``,
    ``b = sqrt((1 - g) / 2)``, which gives the ears the coherence ``a^2 - b^2 = g``: the
    usual construction for a prescribed interaural coherence (common practice). ``g(f)`` is
-   the diffuse-field coherence of the HRIR set (:func:`diffuse_coherence`), and each ear is
-   coloured by the set's diffuse-field power response, so that the tail sounds through the
-   same ears as the early part. The mixing is done per bin rather than per octave band
+   the diffuse-field coherence of the HRIR set (:func:`~._diffuse.diffuse_coherence`), and
+   each ear is coloured by the set's diffuse-field power response, so that the tail sounds
+   through the same ears as the early part. The mixing is done per bin rather than per octave band
    because a head's coherence falls from 1 to about 0 within the 250 Hz and 500 Hz bands.
-2. **Bands.** The noise is split into the octave bands of :data:`earfold.renderer.room.model.BANDS_HZ`
+2. **Bands.** The noise is split into the octave bands of :data:`earfold.renderer.room.BANDS_HZ`
    by zero-phase weights in the frequency domain (:func:`band_weights`): raised-cosine
    crossfades on a log-frequency axis, half an octave either side of each crossover (the
    geometric mean of two centres), so adjacent bands overlap and the weights **sum to
@@ -45,30 +45,29 @@ level in each octave band decays exponentially, -60 dB in that band's RT60:
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
+import numpy.typing as npt
 import scipy.fft
-from scipy.spatial import QhullError, SphericalVoronoi
 
-from ..defaults import SPEED_OF_SOUND
 from ..errors import RoomError
-from ..hrtf import HrirSet
-from .model import BANDS_HZ, Room
+from ._acoustics import BANDS_HZ
+from ._diffuse import DiffuseField
+from ._model import Room
+from ._text import shown
 
 __all__ = [
     "BAND_TRANSITION_OCTAVES",
     "DEFAULT_CROSSFADE_S",
-    "EAR_DISTANCE",
+    "MAX_TAIL_SECONDS",
+    "TAIL_FADE_OUT_S",
     "TAIL_RANGE_DB",
-    "DiffuseField",
     "band_weights",
-    "diffuse_coherence",
-    "diffuse_field",
     "late_tail",
-    "sphere_coherence",
     "tail_length",
 ]
+
+FloatArray = npt.NDArray[np.float64]
 
 BAND_TRANSITION_OCTAVES = 0.5
 """Half-width (octaves) of the crossfade between adjacent bands around their crossover.
@@ -91,24 +90,12 @@ TAIL_FADE_OUT_S = 0.01
 MAX_TAIL_SECONDS = 30.0
 """Longest tail generated (s) when no ``max_seconds`` is given."""
 
-EAR_DISTANCE = 0.175
-"""Distance (m) between the ears of the sphere-model fallback (two points 2 x 8.75 cm
-apart; the Woodworth head radius, common practice)."""
-
 #: Length of the envelope smoother in periods of the band's bandwidth (see
 #: :func:`_flatten_envelope`): four correlation times of the band noise.
 ENVELOPE_CYCLES = 4.0
 
-#: Directions below this count cannot sample a diffuse field; the sphere model is used.
-MIN_DIFFUSE_DIRECTIONS = 12
 
-#: Largest solid-angle weight as a multiple of the median cell: a measured direction next
-#: to an unmeasured region (the hole under a set measured down to -40 degrees) would
-#: otherwise stand in for the whole region.
-MAX_CELL_RATIO = 3.0
-
-
-def band_weights(freqs: np.ndarray, bands: tuple[float, ...] = BANDS_HZ) -> np.ndarray:
+def band_weights(freqs: npt.ArrayLike, bands: tuple[float, ...] = BANDS_HZ) -> FloatArray:
     """Zero-phase weights of the octave bands at ``freqs``; they sum to 1 everywhere.
 
     Parameters
@@ -144,107 +131,7 @@ def band_weights(freqs: np.ndarray, bands: tuple[float, ...] = BANDS_HZ) -> np.n
     return weights
 
 
-@dataclass(frozen=True, eq=False)
-class DiffuseField:
-    """An HRIR set's response to a diffuse field, at given frequencies.
-
-    Attributes
-    ----------
-    freqs : ndarray, shape (F,)
-        Hz.
-    power : ndarray, shape (2, F)
-        Direction-averaged power response of the left and right ear.
-    coherence : ndarray, shape (F,)
-        Real interaural coherence in [-1, 1].
-    method : str
-        How it was obtained (weights used, or the sphere model).
-    """
-
-    freqs: np.ndarray
-    power: np.ndarray
-    coherence: np.ndarray
-    method: str
-
-
-def sphere_coherence(
-    freqs: np.ndarray, distance: float = EAR_DISTANCE, speed_of_sound: float = SPEED_OF_SOUND
-) -> np.ndarray:
-    """Coherence ``sin(kd) / (kd)`` of two points ``d`` apart in a 3-D diffuse field.
-
-    Cook, Waterhouse, Berendt, Edelman and Thompson (1955), JASA 27, 1072 (from memory).
-    The fallback when an HRIR set has too few directions to average over.
-    """
-    f = np.asarray(freqs, dtype=float)
-    return np.sinc(2.0 * f * distance / speed_of_sound)  # np.sinc(x) = sin(pi x) / (pi x)
-
-
-def _direction_weights(directions: np.ndarray) -> tuple[np.ndarray, str]:
-    m = len(directions)
-    centred = directions - directions.mean(axis=0)
-    if np.linalg.matrix_rank(centred, tol=1e-6) == 3:
-        try:
-            areas = SphericalVoronoi(directions, radius=1.0, threshold=1e-6).calculate_areas()
-        except (ValueError, QhullError):
-            areas = None
-        if areas is not None and np.all(np.isfinite(areas)) and np.all(areas > 0):
-            areas = np.minimum(areas, MAX_CELL_RATIO * np.median(areas))
-            return areas / areas.sum(), "measured directions, solid-angle (Voronoi) weights"
-    return np.full(m, 1.0 / m), "measured directions, uniform weights"
-
-
-_SPECTRA_CHUNK = 64  # directions transformed at once by diffuse_field
-
-
-def diffuse_field(hset: HrirSet, freqs: np.ndarray) -> DiffuseField:
-    """Diffuse-field power and coherence of an HRIR set, interpolated to ``freqs``.
-
-    ``P_e = sum_i w_i |H_e,i|^2`` and ``g = Re(sum_i w_i H_L,i conj(H_R,i)) / sqrt(P_L P_R)``
-    over the measured directions ``i`` with solid-angle weights ``w_i`` (the areas of the
-    directions' cells on the unit sphere, :class:`scipy.spatial.SphericalVoronoi`, capped
-    at :data:`MAX_CELL_RATIO` times the median), or uniform weights for directions on one
-    circle. The imaginary part of the cross-spectrum (zero for a left-right symmetric
-    head and grid) is dropped, since the noise mixing can only make real coherence. With
-    fewer than :data:`MIN_DIFFUSE_DIRECTIONS` directions, :func:`sphere_coherence` and the
-    plain mean power are used.
-    """
-    f = np.asarray(freqs, dtype=float)
-    nfft = max(512, 1 << int(math.ceil(math.log2(2 * hset.taps))))
-    grid = np.fft.rfftfreq(nfft, 1.0 / hset.samplerate)
-    if hset.measurements < MIN_DIFFUSE_DIRECTIONS:
-        w = np.full(hset.measurements, 1.0 / hset.measurements)
-        method = f"sphere model sin(kd)/kd, d = {EAR_DISTANCE:g} m (too few directions)"
-    else:
-        w, method = _direction_weights(hset.directions)
-    # In chunks of directions: a whole equalised set's spectra at once (710 directions,
-    # 8192-point transforms) took some 170 MB at the peak of a room's planning.
-    power = np.zeros((2, len(grid)))
-    cross = np.zeros(len(grid))
-    for start in range(0, hset.measurements, _SPECTRA_CHUNK):
-        spectra = np.fft.rfft(hset.ir[start : start + _SPECTRA_CHUNK], n=nfft, axis=-1)
-        wk = w[start : start + _SPECTRA_CHUNK]
-        power += np.einsum("m,mef->ef", wk, np.abs(spectra) ** 2)
-        cross += np.einsum("m,mf->f", wk, (spectra[:, 0] * np.conj(spectra[:, 1])).real)
-    power_f = np.stack([np.interp(f, grid, power[e]) for e in range(2)])
-    if hset.measurements < MIN_DIFFUSE_DIRECTIONS:
-        coherence = sphere_coherence(f)
-    else:
-        cross_f = np.interp(f, grid, cross)
-        denom = np.sqrt(power_f[0] * power_f[1])
-        floor = 1e-12 * max(float(denom.max()), 1e-300)
-        coherence = np.divide(cross_f, denom, out=np.zeros_like(cross_f), where=denom > floor)
-        coherence = np.clip(coherence, -1.0, 1.0)
-    return DiffuseField(f, power_f, coherence, method)
-
-
-def diffuse_coherence(hset: HrirSet, freqs: np.ndarray) -> np.ndarray:
-    """Interaural coherence of a diffuse field heard through ``hset`` at ``freqs``.
-
-    See :func:`diffuse_field`. Returns an array of shape ``freqs.shape`` in [-1, 1].
-    """
-    return diffuse_field(hset, freqs).coherence
-
-
-def _flatten_envelope(band: np.ndarray, centre: float, fs: float) -> np.ndarray:
+def _flatten_envelope(band: FloatArray, centre: float, fs: float) -> FloatArray:
     """Band noise divided by its own smoothed RMS, keeping its mean power.
 
     Gaussian noise in a narrow band wanders in level over tens of milliseconds (about
@@ -267,7 +154,8 @@ def _flatten_envelope(band: np.ndarray, centre: float, fs: float) -> np.ndarray:
     power = np.fft.irfft(np.fft.rfft(band**2, axis=-1) * np.fft.rfft(window), n=nfft, axis=-1)
     power = np.maximum(power, 1e-30)
     mean = np.mean(band**2, axis=-1, keepdims=True)
-    return band * np.sqrt(mean / power)
+    flat: FloatArray = band * np.sqrt(mean / power)
+    return flat
 
 
 def tail_length(room: Room, samplerate: float, max_seconds: float | None = None) -> int:
@@ -275,7 +163,9 @@ def tail_length(room: Room, samplerate: float, max_seconds: float | None = None)
     seconds = float(np.max(room.rt60)) * TAIL_RANGE_DB / 60.0
     cap = MAX_TAIL_SECONDS if max_seconds is None else float(max_seconds)
     if not (np.isfinite(cap) and cap > 0):
-        raise RoomError(f"max_seconds must be a positive number of seconds, got {max_seconds!r}")
+        raise RoomError(
+            f"max_seconds must be a positive number of seconds, got {shown(max_seconds)}"
+        )
     return max(int(math.ceil(min(seconds, cap) * samplerate)), 1)
 
 
@@ -290,7 +180,7 @@ def late_tail(
     seed: int = 0,
     crossfade_s: float = DEFAULT_CROSSFADE_S,
     max_seconds: float | None = None,
-) -> np.ndarray:
+) -> FloatArray:
     """The room's late tail for both ears, from ``start_s`` after emission.
 
     Parameters

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -12,7 +13,7 @@ from ..geometry import vector_to_direction
 from ..hrtf import HrirSet, file_sha256, read_sofa
 
 
-def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict:
+def inspect_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> dict[str, Any]:
     """Summarise a SOFA file; raises :class:`~earfold.renderer.errors.SofaError` if it is unusable.
 
     Returns a JSON-ready dict with the figures and, under ``"text"``, the same figures
@@ -36,13 +37,13 @@ def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict
         )
     if grid.hull is None and grid.ring_order is None:
         warnings.append("the directions cannot be triangulated; every lookup uses the nearest one")
-    elif grid.hull is not None and not grid.facet_ok.all():
+    elif grid.hull is not None and grid.facet_ok is not None and not grid.facet_ok.all():
         warnings.append(
             "the grid has gaps (e.g. no low elevations); directions there use the nearest "
             "measurement"
         )
     attrs = data.attributes
-    summary = {
+    summary: dict[str, Any] = {
         "file": Path(path).name,
         "sha256": hset.sha256,
         "convention": data.convention,
@@ -83,7 +84,8 @@ def inspect_sofa(path: str | os.PathLike, *, emitter: int | None = None) -> dict
         "convention": f"{data.convention} {data.convention_version} (SOFA {data.sofa_version})",
         "room type": data.room_type or "(not given)",
         "directions": f"{data.measurements}, elevation {summary['elevation_range_deg'][0]:g} to "
-        f"{summary['elevation_range_deg'][1]:g} deg, median spacing {summary['grid_spacing_deg']:g} deg",
+        f"{summary['elevation_range_deg'][1]:g} deg, median spacing "
+        f"{summary['grid_spacing_deg']:g} deg",
         "taps": f"{data.taps} ({summary['duration_ms']:g} ms)",
         "sample rate": f"{data.samplerate:g} Hz",
         "ITD range": f"{summary['itd_range_ms'][0]:+.3f} to {summary['itd_range_ms'][1]:+.3f} ms "

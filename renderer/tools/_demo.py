@@ -13,8 +13,10 @@ import json
 import os
 from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 from scipy.signal import lfilter
 
 from ..io import write_audio
@@ -29,7 +31,7 @@ TUTTI_SECONDS = 3.0
 DEMO_SEED = 2051
 
 
-def _bell(freq: float, seconds: float, rate: int) -> np.ndarray:
+def _bell(freq: float, seconds: float, rate: int) -> npt.NDArray[np.float64]:
     """A struck bell: a few inharmonic partials with their own decays."""
     t = np.arange(int(seconds * rate)) / rate
     partials = [(1.0, 1.0, 3.0), (2.76, 0.5, 5.0), (5.40, 0.25, 8.0), (8.93, 0.12, 12.0)]
@@ -37,19 +39,21 @@ def _bell(freq: float, seconds: float, rate: int) -> np.ndarray:
     for ratio, amp, decay in partials:
         out += amp * np.sin(2 * np.pi * freq * ratio * t) * np.exp(-decay * t)
     attack = np.minimum(t / 0.002, 1.0)
-    return out * attack / 1.9
+    bell: npt.NDArray[np.float64] = out * attack / 1.9
+    return bell
 
 
-def _drum(seconds: float, rate: int) -> np.ndarray:
+def _drum(seconds: float, rate: int) -> npt.NDArray[np.float64]:
     t = np.arange(int(seconds * rate)) / rate
     f = 45.0 + 30.0 * np.exp(-t * 25)  # a short downward pitch sweep
     phase = 2 * np.pi * np.cumsum(f) / rate
-    return np.sin(phase) * np.exp(-t * 6) * np.minimum(t / 0.004, 1.0)
+    drum: npt.NDArray[np.float64] = np.sin(phase) * np.exp(-t * 6) * np.minimum(t / 0.004, 1.0)
+    return drum
 
 
 def make_demo_stem(
     rate: int = DEMO_SAMPLERATE, seed: int = DEMO_SEED
-) -> tuple[np.ndarray, list[str]]:
+) -> tuple[npt.NDArray[np.float32], list[str]]:
     """The demo stem (frames x 12, float32) and its channel labels in file order."""
     layout = get_layout(DEMO_LAYOUT)
     rng = np.random.default_rng(seed)
@@ -91,10 +95,10 @@ def make_demo_stem(
 
 
 def run_demo(
-    directory: str | os.PathLike = "earfold-demo",
+    directory: str | os.PathLike[str] = "earfold-demo",
     *,
     progress: Callable[[float], None] | None = None,
-) -> dict:
+) -> dict[str, Any]:
     """Write the demo stem into ``directory``, render it with the defaults, return the paths."""
     from ..render import RenderSettings, render
 

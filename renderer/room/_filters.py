@@ -1,11 +1,12 @@
 """Turn a room, an HRIR set and a layout into the filters the convolution engine runs.
 
 The response of loudspeaker ``c`` at the ears is split in two (the hybrid of image
-sources and a statistical tail, :mod:`earfold.renderer.room.image_source`, :mod:`earfold.renderer.room.late_tail`):
+sources and a statistical tail, :func:`earfold.renderer.room.image_sources`,
+:func:`earfold.renderer.room.late_tail`):
 
 * ``early[c]`` -- the direct sound and every image-source reflection that arrives before
   the tail has faded in, each through the HRIR pair of its own arrival direction
-  (:meth:`earfold.renderer.hrtf.hrir.HrirSet.pair`), at its own fractional delay, scaled by ``1/r``
+  (:meth:`earfold.renderer.hrtf.HrirSet.pair`), at its own fractional delay, scaled by ``1/r``
   and filtered by its walls (and the air). The reflections, not the direct sound, fade
   out with a cosine over the crossfade that starts at ``tail_offset``;
 * ``tail`` -- one diffuse tail shared by all loudspeakers, starting at ``tail_offset``
@@ -32,13 +33,13 @@ tail starts ``mixing_time`` after the direct sound of the farthest loudspeaker.
 Level. Paths are scaled ``r_ref / distance`` with ``r_ref`` the farthest loudspeaker's
 distance, so that loudspeaker's direct sound keeps the HRIR's own level, nearer ones are
 louder, and the tail, whose level is set for a direct sound of unit amplitude at
-``r_ref`` (:func:`earfold.renderer.room.late_tail.late_tail`), is the same for every loudspeaker:
+``r_ref`` (:func:`earfold.renderer.room.late_tail`), is the same for every loudspeaker:
 ``tail_weights`` is 1, or 0 for an LFE channel, whose rows are left at zero for the render
 to fill.
 
 Wall filters. An image's seven band gains (the product of its walls' ``sqrt(1 - alpha)``
 and the air's attenuation) become a magnitude response through the zero-phase band
-weights of :func:`earfold.renderer.room.late_tail.band_weights` (which sum to 1, so equal gains give a
+weights of :func:`earfold.renderer.room.band_weights` (which sum to 1, so equal gains give a
 flat response) and then a minimum-phase filter by the real-cepstrum (homomorphic) method
 (Oppenheim and Schafer, *Discrete-Time Signal Processing*, ch. 13): causal, no pre-echo,
 its energy at the reflection's arrival. Images with the same gains (the same walls, and
@@ -51,21 +52,37 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 import scipy.fft
-from scipy import signal
 
 from ..defaults import SPEED_OF_SOUND
 from ..errors import RoomError
 from ..hrtf import HrirSet
 from ..layouts import Layout
 from ..signals import minimum_phase_spectrum
-from .image_source import image_sources
-from .late_tail import DEFAULT_CROSSFADE_S, band_weights, diffuse_field, late_tail
-from .model import BANDS_HZ, Room
+from ._acoustics import BANDS_HZ
+from ._diffuse import diffuse_field
+from ._image_source import image_sources
+from ._late_tail import DEFAULT_CROSSFADE_S, band_weights, late_tail
+from ._measure import measure_rt60
+from ._model import MAX_ORDER, Room
+from ._text import shown
 
-__all__ = ["LEAD_SAMPLES", "RoomFilters", "build_room_filters", "exact_brirs", "measure_rt60"]
+__all__ = [
+    "LEAD_SAMPLES",
+    "MAX_CROSSFADE_S",
+    "MAX_SAMPLERATE",
+    "MIN_SAMPLERATE",
+    "RoomFilters",
+    "build_room_filters",
+    "exact_brirs",
+]
+
+FloatArray = npt.NDArray[np.float64]
+ComplexArray = npt.NDArray[np.complex128]
 
 LEAD_SAMPLES = 16
 """Samples kept before the earliest direct sound, for the band-limited lead-in of its
@@ -77,6 +94,15 @@ _MIN_MAGNITUDE = 1e-6
 
 #: Band gains closer than this count as the same filter.
 _GAIN_DECIMALS = 9
+
+MIN_SAMPLERATE = 8000
+"""Lowest sampling rate (Hz) a room is built at."""
+
+MAX_SAMPLERATE = 384000
+"""Highest sampling rate (Hz) a room is built at."""
+
+MAX_CROSSFADE_S = 0.1
+"""Longest early-to-tail crossfade (s)."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -101,15 +127,15 @@ class RoomFilters:
         Hz.
     """
 
-    early: np.ndarray
-    tail: np.ndarray
+    early: FloatArray
+    tail: FloatArray
     tail_offset: int
-    tail_weights: np.ndarray
-    report: dict = field(default_factory=dict)
+    tail_weights: FloatArray
+    report: dict[str, Any] = field(default_factory=dict)
     samplerate: float = 0.0
 
 
-def exact_brirs(filters: RoomFilters) -> np.ndarray:
+def exact_brirs(filters: RoomFilters) -> FloatArray:
     """The whole binaural room response of each loudspeaker: early plus weighted tail.
 
     Returns
@@ -119,90 +145,21 @@ def exact_brirs(filters: RoomFilters) -> np.ndarray:
     """
     early, tail, off = filters.early, filters.tail, filters.tail_offset
     length = max(early.shape[-1], off + tail.shape[-1])
-    out = np.zeros(early.shape[:2] + (length,))
+    out: FloatArray = np.zeros(early.shape[:2] + (length,))
     out[..., : early.shape[-1]] = early
     out[..., off : off + tail.shape[-1]] += filters.tail_weights[:, None, None] * tail[None]
     return out
-
-
-# -- measurement -----------------------------------------------------------------------
-
-
-def _fit_decay(t: np.ndarray, edc_db: np.ndarray, top: float, bottom: float) -> float | None:
-    """Seconds for 60 dB from a least-squares line through the EDC between two levels."""
-    below_top = np.flatnonzero(edc_db <= top)
-    below_bottom = np.flatnonzero(edc_db <= bottom)
-    if below_top.size == 0 or below_bottom.size == 0:
-        return None  # the decay does not reach the range: not measurable
-    i0, i1 = int(below_top[0]), int(below_bottom[0])
-    if i1 - i0 < 3:
-        return None
-    slope = np.polyfit(t[i0 : i1 + 1], edc_db[i0 : i1 + 1], 1)[0]
-    return float(-60.0 / slope) if slope < 0 else None
-
-
-def measure_rt60(ir: np.ndarray, samplerate: float, bands: tuple[float, ...] = BANDS_HZ) -> dict:
-    """Reverberation times of an impulse response per octave band (ISO 3382-1).
-
-    Each band is filtered with a 6th-order Butterworth band-pass from ``fc / sqrt(2)`` to
-    ``fc sqrt(2)`` (:func:`scipy.signal.butter`, run forwards as a measuring filter runs),
-    the energy decay curve is Schroeder's backward integral of ``h^2`` (summed over ears
-    when ``ir`` has several rows), and a least-squares line is fitted between two levels:
-    EDT 0 to -10 dB (x 6), T20 -5 to -25 dB (x 3), T30 -5 to -35 dB (x 2). Synthetic
-    responses have no noise floor, so no noise compensation is applied.
-
-    Parameters
-    ----------
-    ir : ndarray, shape (N,) or (..., N)
-        Impulse response(s) along the last axis.
-    samplerate : float
-        Hz.
-    bands : tuple of float
-        Band centres (Hz); a band whose upper edge is above 0.95 x Nyquist is not measured.
-
-    Returns
-    -------
-    dict
-        ``{"bands_hz": [...], "edt_s": [...], "t20_s": [...], "t30_s": [...]}``, None where
-        a band cannot be measured (too short a decay, or above Nyquist).
-    """
-    x = np.asarray(ir, dtype=float)
-    if x.ndim < 1 or x.shape[-1] < 8:
-        raise RoomError(f"an impulse response needs at least 8 samples, got shape {x.shape!r}")
-    x = x.reshape(-1, x.shape[-1])
-    fs = float(samplerate)
-    t = np.arange(x.shape[-1]) / fs
-    result: dict = {"bands_hz": [float(b) for b in bands], "edt_s": [], "t20_s": [], "t30_s": []}
-    for fc in bands:
-        lo, hi = fc / math.sqrt(2.0), fc * math.sqrt(2.0)
-        if hi >= 0.95 * fs / 2:
-            for key in ("edt_s", "t20_s", "t30_s"):
-                result[key].append(None)
-            continue
-        sos = signal.butter(3, [lo, hi], btype="bandpass", fs=fs, output="sos")
-        energy = np.sum(signal.sosfilt(sos, x, axis=-1) ** 2, axis=0)
-        edc = np.cumsum(energy[::-1])[::-1]
-        if edc[0] <= 0:
-            for key in ("edt_s", "t20_s", "t30_s"):
-                result[key].append(None)
-            continue
-        edc_db = 10.0 * np.log10(np.maximum(edc / edc[0], 1e-300))
-        result["edt_s"].append(_fit_decay(t, edc_db, 0.0, -10.0))
-        result["t20_s"].append(_fit_decay(t, edc_db, -5.0, -25.0))
-        result["t30_s"].append(_fit_decay(t, edc_db, -5.0, -35.0))
-    return result
-
-
-# -- building --------------------------------------------------------------------------
 
 
 def _check_rate(samplerate: float) -> float:
     if isinstance(samplerate, bool) or not isinstance(
         samplerate, (int, float, np.integer, np.floating)
     ):
-        raise RoomError(f"sampling rate must be a number of Hz, got {samplerate!r}")
-    if not (math.isfinite(samplerate) and 8000 <= samplerate <= 384000):
-        raise RoomError(f"sampling rate {samplerate!r} Hz is outside 8000..384000 Hz")
+        raise RoomError(f"sampling rate must be a number of Hz, got {shown(samplerate)}")
+    if not (math.isfinite(samplerate) and MIN_SAMPLERATE <= samplerate <= MAX_SAMPLERATE):
+        raise RoomError(
+            f"sampling rate {shown(samplerate)} Hz is outside {MIN_SAMPLERATE}..{MAX_SAMPLERATE} Hz"
+        )
     return float(samplerate)
 
 
@@ -233,7 +190,7 @@ def build_room_filters(
     seed : int
         The render's seed; the tail's noise is seeded with ``(seed, room.seed)``.
     order : int, optional
-        Image-source order instead of ``room.order`` (0 to 6).
+        Image-source order instead of ``room.order`` (0 to :data:`MAX_ORDER`).
     crossfade_s : float
         Early-to-tail crossfade (s).
     max_tail_seconds : float, optional
@@ -247,23 +204,27 @@ def build_room_filters(
     t_start = time.perf_counter()
     fs = _check_rate(samplerate)
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise RoomError(f"seed {seed!r} must be a non-negative integer")
+        raise RoomError(f"seed {shown(seed)} must be a non-negative integer")
     n_order = room.order if order is None else order
     if (
         isinstance(n_order, bool)
         or not isinstance(n_order, (int, np.integer))
-        or not 0 <= n_order <= 6
+        or not 0 <= n_order <= MAX_ORDER
     ):
-        raise RoomError(f"image-source order {order!r} must be an integer from 0 to 6")
-    if not (math.isfinite(crossfade_s) and 0 <= crossfade_s <= 0.1):
-        raise RoomError(f"crossfade {crossfade_s!r} s must be 0 to 0.1 s")
+        raise RoomError(
+            f"image-source order {shown(order)} must be an integer from 0 to {MAX_ORDER}"
+        )
+    if not (math.isfinite(crossfade_s) and 0 <= crossfade_s <= MAX_CROSSFADE_S):
+        raise RoomError(f"crossfade {shown(crossfade_s)} s must be 0 to {MAX_CROSSFADE_S:g} s")
     if hset.samplerate != fs:
         hset = hset.resampled(fs)
     c = SPEED_OF_SOUND
     speakers = layout.speakers
     active = [i for i, s in enumerate(speakers) if not s.lfe]
     if not active:
-        raise RoomError(f"layout {layout.name!r} has only LFE channels; nothing to place in a room")
+        raise RoomError(
+            f"layout {shown(layout.name)} has only LFE channels; nothing to place in a room"
+        )
     distances = {i: (speakers[i].distance or room.speaker_radius) for i in active}
     positions = {
         i: room.speaker_position(speakers[i].vector, distances[i], label=speakers[i].label)
@@ -286,9 +247,9 @@ def build_room_filters(
     fade_window[tail_offset:window_end] = np.cos(0.5 * np.pi * ramp)
     fade_window[window_end:] = 0.0
 
-    filter_cache: dict[tuple, np.ndarray | float] = {}
+    filter_cache: dict[tuple[float, ...], ComplexArray | float] = {}
 
-    def wall_filter(gains: np.ndarray) -> np.ndarray | float:
+    def wall_filter(gains: FloatArray) -> ComplexArray | float:
         key = tuple(np.round(gains, _GAIN_DECIMALS))
         if key not in filter_cache:
             if np.ptp(gains) <= 10.0**-_GAIN_DECIMALS:
@@ -302,7 +263,7 @@ def build_room_filters(
     early = np.zeros((len(speakers), 2, early_len))
     direct_energy = np.zeros(len(speakers))
     reflected_energy = np.zeros(len(speakers))
-    per_speaker: list[dict] = []
+    per_speaker: list[dict[str, Any]] = []
     warnings: list[str] = []
     max_path = (window_end + bulk) / fs * c
     uncovered_total = 0
@@ -310,7 +271,7 @@ def build_room_filters(
         images = image_sources(
             room, positions[i], order=int(n_order), reference_distance=r_ref, max_distance=max_path
         )
-        groups: dict[tuple, list[int]] = {}
+        groups: dict[tuple[Any, ...], list[int]] = {}
         for k in range(images.count):
             if k > 0 and (
                 images.delays[k] * fs - bulk >= window_end
@@ -387,7 +348,7 @@ def build_room_filters(
         rev = reflected_energy[i] + tail_energy
         entry["drr_db"] = round(10.0 * math.log10(direct_energy[i] / rev), 2) if rev > 0 else None
 
-    report = {
+    report: dict[str, Any] = {
         "room": room.to_dict(),
         "samplerate": fs,
         "seed": int(seed),
