@@ -18,7 +18,7 @@ Three kinds of curve, each bounded in size whatever the length of the render:
   one whose RT60 the room section reports). Only when a room was used.
 
 :func:`plot_section` builds the whole section with one extra read of the output file;
-:func:`earfold.renderer.render._render.render` calls it last.
+:func:`earfold.renderer.render.render` calls it last.
 """
 
 from __future__ import annotations
@@ -36,7 +36,7 @@ from ..loudness import LoudnessMeter
 from ..room import BANDS_HZ
 
 if TYPE_CHECKING:
-    from ._render import RenderPlan
+    from .plan import RenderPlan
 
 __all__ = [
     "DECAY_FLOOR_DB",

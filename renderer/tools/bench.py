@@ -267,7 +267,7 @@ def _eq_engine_work(stem: str, layout: str, room: str) -> dict:
 
     from ..io import StemReader
     from ..render import plan_render
-    from ..render._render import _Engine
+    from ..engine import FoldEngine
 
     settings = _settings(layout, room)
     plans = {
@@ -283,7 +283,15 @@ def _eq_engine_work(stem: str, layout: str, room: str) -> dict:
                 break
 
     def run(eq: str) -> dict:
-        engine = _Engine(plans[eq], settings.block_size)
+        plan = plans[eq]
+        engine = FoldEngine(
+            plan.filters,
+            settings.block_size,
+            tail=plan.tail,
+            tail_weights=plan.tail_weights,
+            tail_offset=plan.tail_offset,
+            headphone=None if plan.headphone is None else plan.headphone.filters(),
+        )
         times = []
         try:
             for block in blocks:
@@ -345,7 +353,7 @@ def _child(
     conn, case: str, stem: str, layout: str, out: str, room: str, repeats: int = REPEATS
 ) -> None:
     try:
-        import earfold.renderer.render._render  # noqa: F401  (imports outside the measured memory)
+        import earfold.renderer.render  # noqa: F401  (imports outside the measured memory)
 
         before = _rss_bytes()
         # Best of REPEATS: the machine's other work only ever adds time, so the minimum is
