@@ -72,7 +72,7 @@ KINDS = ("text", "choice", "number", "integer", "level", "labels", "excerpt", "h
 
 def _fmt(value: float) -> str:
     """A bound in words: ``-70``, ``0.5``, ``1048576``."""
-    return f"{value:g}" if abs(value) < 1e7 else str(int(value))
+    return str(int(value)) if float(value).is_integer() else f"{value:g}"
 
 
 def _shown(value: object) -> str:
@@ -167,7 +167,7 @@ class OptionSpec:
         return OptionError(f"{self.name} must be {expected}, not {_shown(value)}")
 
     def _number(self, value: object, *, integer: bool = False) -> float | int:
-        words = f" or {' or '.join(repr(c) for c in self.choices)}" if self.choices else ""
+        words = f", or {' or '.join(repr(c) for c in self.choices)}" if self.choices else ""
         if integer:
             ok = isinstance(value, int) and not isinstance(value, bool)
             if not ok and isinstance(value, float) and value.is_integer():
@@ -292,8 +292,7 @@ RENDER_OPTIONS: tuple[OptionSpec, ...] = (
     OptionSpec(
         "channel_order",
         "labels",
-        "labels of the file's channels in file order (overrides channel masks and file "
-        "names)",
+        "labels of the file's channels in file order (overrides channel masks and file names)",
         metavar="L,R,C,...",
     ),
     OptionSpec(

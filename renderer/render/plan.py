@@ -262,9 +262,7 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
             None if room_filters is None or exact else np.asarray(room_filters.tail_weights)
         ),
         room_arrival_samples=(
-            0.0
-            if room_filters is None
-            else float(room_filters.report["reference_arrival_samples"])
+            0.0 if room_filters is None else float(room_filters.report["reference_arrival_samples"])
         ),
         warnings=warnings,
     )

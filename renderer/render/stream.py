@@ -67,8 +67,8 @@ def stream(
         input_meter = LoudnessMeter(stem.samplerate, stem.channels, weights)
     # The delivery stage takes the render's loudness and true peak from here: with the
     # true peak known, its limiter need not interpolate a render that cannot reach the
-    # ceiling (earfold.renderer.loudness.limiter, known_true_peak). The meter runs on the writer thread,
-    # beside the engine.
+    # ceiling (earfold.renderer.loudness.limiter, known_true_peak). The meter runs on the
+    # writer thread, beside the engine.
     output_meter = LoudnessMeter(stem.samplerate, 2) if meter_output else None
     state: dict[str, Any] = {"done": 0, "peak": 0.0}
 

@@ -265,9 +265,9 @@ def _eq_engine_work(stem: str, layout: str, room: str) -> dict:
     """
     import dataclasses
 
+    from ..engine import FoldEngine
     from ..io import StemReader
     from ..render import plan_render
-    from ..engine import FoldEngine
 
     settings = _settings(layout, room)
     plans = {

@@ -45,7 +45,7 @@ def _worker(client) -> Worker:
         ({"layout": "5.1", "room": "cathedral"}, "unknown room 'cathedral'"),
         ({"layout": "5.1", "loudness": -80}, "loudness"),
         ({"layout": "5.1", "loudness": 3}, "loudness"),
-        ({"layout": "5.1", "true_peak": -30}, "true_peak"),
+        ({"layout": "5.1", "true_peak": -31}, "true_peak"),
         ({"layout": "5.1", "format": "mp3"}, "format"),
         ({"layout": "5.1", "format": "flac", "subtype": "FLOAT"}, "FLAC holds integer"),
         ({"layout": "5.1", "block_size": 1000}, "power of two"),
