@@ -535,7 +535,7 @@ def settings_from_options(values: Mapping[str, Any]) -> RenderSettings:
             f"{', '.join(repr(str(k)) for k in unknown)}; the options are {', '.join(_BY_NAME)}"
         )
     kwargs: dict[str, Any] = {}
-    lfe: dict[str, float] = {}
+    lfe: dict[str, Any] = {}
     for name, raw in values.items():
         spec = _BY_NAME[name]
         if raw is None:

@@ -26,10 +26,11 @@ from __future__ import annotations
 import math
 import os
 import time
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import scipy.fft
+from numpy.typing import NDArray
 from scipy import signal
 
 from ..loudness import LoudnessMeter
@@ -192,7 +193,7 @@ class SpectrumMeter:
         ms = power * scale[:, None] / (n * np.sum(window**2))
         return np.fft.rfftfreq(self.nfft, 1 / self.samplerate), ms
 
-    def band_levels(self) -> dict:
+    def band_levels(self) -> dict[str, Any]:
         """One-third-octave band levels (dB of mean square) per channel, JSON-ready."""
         freqs, ms = self.mean_square()
         centres, lower, upper = third_octave_bands(self.samplerate)
@@ -218,7 +219,8 @@ def schroeder_db(energy: np.ndarray) -> np.ndarray:
     if edc.size == 0 or edc[0] <= 0:
         return np.full(e.shape, -np.inf)
     with np.errstate(divide="ignore"):
-        return 10.0 * np.log10(edc / edc[0])
+        levels: NDArray[np.float64] = 10.0 * np.log10(edc / edc[0])
+    return levels
 
 
 def energy_decay(
@@ -227,7 +229,7 @@ def energy_decay(
     bands: tuple[float, ...] = BANDS_HZ,
     points: int = DECAY_POINTS,
     floor_db: float = DECAY_FLOOR_DB,
-) -> dict:
+) -> dict[str, Any]:
     """Energy decay curves of an impulse response per octave band.
 
     Each band is filtered as for ISO 3382-1 measurements (a 6th-order Butterworth
@@ -293,7 +295,9 @@ def thin_series(
     return out, round(interval_s * k, 6)
 
 
-def _loudness(series: dict, delivery: dict | None, integrated: float | None) -> dict:
+def _loudness(
+    series: dict[str, Any], delivery: dict[str, Any] | None, integrated: float | None
+) -> dict[str, Any]:
     m, m_dt = thin_series(series["momentary_lufs"], series["momentary_interval_s"])
     s, s_dt = thin_series(series["short_term_lufs"], series["short_term_interval_s"])
     return {
@@ -334,7 +338,9 @@ def _room_response(plan: RenderPlan) -> tuple[np.ndarray, str] | None:
     return ir, plan.layout.speakers[speaker].label
 
 
-def plot_section(plan: RenderPlan, output: str | os.PathLike[str], delivery: dict | None) -> dict:
+def plot_section(
+    plan: RenderPlan, output: str | os.PathLike[str], delivery: dict[str, Any] | None
+) -> dict[str, Any]:
     """The report's ``plots`` section for a finished render.
 
     Parameters
@@ -375,6 +381,7 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str], delivery: dic
             None if measured.integrated_lufs is None else round(measured.integrated_lufs, 2)
         )
     else:
+        assert delivery is not None  # the series came from it
         integrated = delivery["output"].get("integrated_lufs")
     bands = spectrum.band_levels()
     room = _room_response(plan)
@@ -387,6 +394,7 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str], delivery: dic
             "speaker": label,
             **energy_decay(ir, info.samplerate),
         }
+    assert series is not None
     return {
         "loudness": _loudness(series, delivery, integrated),
         "spectra": {

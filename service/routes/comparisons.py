@@ -93,7 +93,7 @@ class ComparisonRequest(BaseModel):
         "ab", description="ab: which do you prefer; abx: is X A or B (exactly 2 variants)"
     )
     trials: int = Field(10, ge=1, le=100)
-    excerpt: ExcerptRequest = Field(default_factory=ExcerptRequest)
+    excerpt: ExcerptRequest = Field(default_factory=lambda: ExcerptRequest.model_validate({}))
 
 
 class AnswerRequest(BaseModel):
@@ -217,7 +217,8 @@ def create_comparison(
                 "earlier",
             )
     variants = []
-    for i, v in enumerate(req.variants):
+    requested: list[Any] = list(req.variants)
+    for i, v in enumerate(requested):
         fields = v.model_dump(exclude={"name"})
         try:
             render_req = RenderRequest(
