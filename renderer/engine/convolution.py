@@ -69,13 +69,19 @@ MIN_BLOCK_SIZE = 64
 #: Largest allowed block size (2**20 frames, about 22 s at 48 kHz); larger only costs memory.
 MAX_BLOCK_SIZE = 1 << 20
 
+#: Real arrays the engine takes (audio blocks, filters): any float or integer dtype.
+RealArray = NDArray[np.floating[Any] | np.integer[Any]]
+
+#: What the engine gives back: its working precision, float32 (default) or float64.
+FloatArray = NDArray[np.floating[Any]]
+
 _DTYPES: dict[np.dtype[Any], np.dtype[Any]] = {
     np.dtype(np.float32): np.dtype(np.complex64),
     np.dtype(np.float64): np.dtype(np.complex128),
 }
 
 
-def _check_filters(filters: np.ndarray) -> np.ndarray:
+def _check_filters(filters: RealArray) -> RealArray:
     arr = np.asarray(filters)
     if arr.dtype.kind not in "fiu":
         raise HrirError(
@@ -151,7 +157,7 @@ class BinauralConvolver:
 
     def __init__(
         self,
-        filters: np.ndarray,
+        filters: RealArray,
         block_size: int = DEFAULT_BLOCK_SIZE,
         *,
         dtype: np.dtype | type = np.float32,
@@ -228,7 +234,7 @@ class BinauralConvolver:
         self._fill = 0  # frames of the current block received so far
         self._earlier_valid = False
 
-    def process(self, block: np.ndarray) -> np.ndarray:
+    def process(self, block: RealArray) -> FloatArray:
         """Convolve the next frames of the stream.
 
         Parameters
@@ -267,7 +273,7 @@ class BinauralConvolver:
                 self._advance()
         return out
 
-    def flush(self) -> Iterator[np.ndarray]:
+    def flush(self) -> Iterator[FloatArray]:
         """Yield the tail after the last input: ``L - 1`` frames in blocks of ``<= B``.
 
         The first block is short if needed to end the current part-filled block; the rest
@@ -288,7 +294,7 @@ class BinauralConvolver:
         self._fdl[self._slot] = spec
         self._fdl[self._slot + self.partitions] = spec
 
-    def _accumulate(self, first: int, last: int) -> np.ndarray:
+    def _accumulate(self, first: int, last: int) -> FloatArray:
         """Time-domain output (2, B) of partitions ``first .. last - 1``."""
         c = self.channels
         w = self._slot
@@ -297,14 +303,14 @@ class BinauralConvolver:
         for ear in range(2):
             np.multiply(x, self._spectra[ear, first * c : last * c], out=prod)
             self._ears[ear] = _pairwise_sum(prod)
-        out: NDArray[Any] = scipy.fft.irfft(self._ears, n=2 * self.block_size, axis=-1)
+        out: FloatArray = scipy.fft.irfft(self._ears, n=2 * self.block_size, axis=-1)
         return out[:, self.block_size :]
 
-    def _whole_block(self) -> np.ndarray:
+    def _whole_block(self) -> FloatArray:
         self._transform_window()
         return self._accumulate(0, self.partitions)
 
-    def _part_block(self) -> np.ndarray:
+    def _part_block(self) -> FloatArray:
         if not self._earlier_valid:
             if self.partitions > 1:
                 self._earlier[...] = self._accumulate(1, self.partitions)
@@ -324,7 +330,9 @@ class BinauralConvolver:
         self._earlier_valid = False
 
 
-def _pairwise_sum(rows: np.ndarray) -> np.ndarray:
+def _pairwise_sum(
+    rows: NDArray[np.complexfloating[Any, Any]],
+) -> NDArray[np.complexfloating[Any, Any]]:
     """Sum over the first axis by pairwise (tree) addition, in place; returns ``rows[0]``.
 
     Summing row after row, as ``rows.sum(axis=0)`` does across rows, lets the rounding
@@ -339,11 +347,11 @@ def _pairwise_sum(rows: np.ndarray) -> np.ndarray:
         keep = k - half
         np.add(rows[:half], rows[keep:k], out=rows[:half])
         k = keep
-    first: NDArray[Any] = rows[0]
+    first: NDArray[np.complexfloating[Any, Any]] = rows[0]
     return first
 
 
-def convolve_reference(signal: np.ndarray, filters: np.ndarray) -> np.ndarray:
+def convolve_reference(signal: RealArray, filters: RealArray) -> NDArray[np.float64]:
     """Whole-signal binaural convolution: the engine's oracle and the benchmark's baseline.
 
     ``scipy.signal.oaconvolve`` once per (channel, ear) over the whole signal, in float64,

@@ -15,6 +15,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 from scipy import signal
 
 from ..errors import RendererError
@@ -68,7 +69,7 @@ def lfe_filter(
     *,
     reference_gain: float = 1.0,
     delay: int = 0,
-) -> np.ndarray:
+) -> NDArray[np.float64]:
     """FIR pair (2, L) that carries the LFE channel to both ears.
 
     Parameters

@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .convolution import DEFAULT_BLOCK_SIZE, BinauralConvolver
+from .convolution import DEFAULT_BLOCK_SIZE, BinauralConvolver, FloatArray, RealArray
 
 __all__ = ["TAIL_BLOCK_FRAMES", "FoldEngine"]
 
@@ -63,13 +63,13 @@ class FoldEngine:
 
     def __init__(
         self,
-        filters: NDArray[Any],
+        filters: RealArray,
         block_size: int = DEFAULT_BLOCK_SIZE,
         *,
-        tail: NDArray[Any] | None = None,
-        tail_weights: NDArray[Any] | None = None,
+        tail: RealArray | None = None,
+        tail_weights: RealArray | None = None,
         tail_offset: int = 0,
-        headphone: NDArray[Any] | None = None,
+        headphone: RealArray | None = None,
     ) -> None:
         self.direct = BinauralConvolver(filters, block_size=block_size)
         self.block_size = self.direct.block_size
@@ -90,18 +90,18 @@ class FoldEngine:
             self.fifo = np.zeros(tail_offset, dtype=np.float32)
             self._mix: list[_Audio] = []  # tail input not yet handed to the thread
             self._mix_frames = 0
-            self._direct: list[_Audio] = []  # direct output waiting for its tail
+            self._direct: list[FloatArray] = []  # direct output waiting for its tail
             self._direct_frames = 0
-            self._tail_ready: _Audio = np.zeros((0, 2), dtype=np.float32)
-            self._pending: Future[NDArray[Any]] | None = None  # the tail chunk being convolved
+            self._tail_ready: FloatArray = np.zeros((0, 2), dtype=np.float32)
+            self._pending: Future[FloatArray] | None = None  # the tail chunk being convolved
             self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="earfold-tail")
 
-    def process(self, block: NDArray[Any]) -> NDArray[Any]:
+    def process(self, block: RealArray) -> FloatArray:
         """The output frames that are complete after ``block`` (``(n, 2)``, possibly fewer)."""
         out = self._binaural(block)
         return out if self.headphone is None else self.headphone.process(out)
 
-    def _binaural(self, block: NDArray[Any]) -> NDArray[Any]:
+    def _binaural(self, block: RealArray) -> FloatArray:
         if self.tail is None:
             return self.direct.process(block)
         n = len(block)
@@ -136,7 +136,7 @@ class FoldEngine:
             self._tail_ready = np.concatenate([self._tail_ready, self._pending.result()])
             self._pending = None
 
-    def _take(self, frames: int) -> NDArray[Any]:
+    def _take(self, frames: int) -> FloatArray:
         """Sum and return the first ``frames`` of the waiting direct output and tail."""
         if frames == 0:
             return np.zeros((0, 2), dtype=np.float32)
@@ -152,7 +152,7 @@ class FoldEngine:
         if self.tail is not None:
             self._pool.shutdown(wait=True)
 
-    def tail_blocks(self, frames: int) -> Iterator[NDArray[Any]]:
+    def tail_blocks(self, frames: int) -> Iterator[FloatArray]:
         """The remaining ``frames`` of output after the last input (zeros pushed through)."""
         zeros = np.zeros((self.block_size, self.channels), dtype=np.float32)
         pushed = frames

@@ -51,7 +51,7 @@ class ChannelFeed:
     """
 
     label: str
-    filters: NDArray[Any]
+    filters: NDArray[np.floating[Any]]
     lfe: bool = False
     tail_weight: float = 0.0
     report: dict[str, Any] = field(default_factory=dict)
@@ -77,8 +77,8 @@ def speaker_feeds(
     samplerate: float,
     *,
     lfe: LfeOptions,
-    room_responses: NDArray[Any] | None = None,
-    room_tail_weights: NDArray[Any] | None = None,
+    room_responses: NDArray[np.float64] | None = None,
+    room_tail_weights: NDArray[np.float64] | None = None,
     room_arrival_samples: float = 0.0,
     warnings: list[str] | None = None,
 ) -> tuple[ChannelFeed, ...]:

@@ -292,7 +292,7 @@ def plan_from_feeds(
     layout: Layout,
     order: tuple[int, ...],
     order_source: str,
-    tail: NDArray[Any] | None = None,
+    tail: NDArray[np.float64] | None = None,
     tail_offset: int = 0,
     room: dict[str, Any] | None = None,
     eq: dict[str, Any] | None = None,
@@ -380,7 +380,7 @@ def _equalise(
 def _calibrate(
     filters: NDArray[np.float64],
     feeds: Sequence[ChannelFeed],
-    tail: NDArray[Any] | None,
+    tail: NDArray[np.float64] | None,
     tail_weights: NDArray[np.float64] | None,
     tail_offset: int,
     samplerate: float,
@@ -388,9 +388,9 @@ def _calibrate(
     """The calibration gain (:mod:`earfold.renderer.eq.calibration`) of a filter bank."""
     mains = [i for i, f in enumerate(feeds) if not f.lfe]
 
-    def responses() -> Iterator[NDArray[Any]]:
+    def responses() -> Iterator[NDArray[np.float64]]:
         for i in mains:
-            r: NDArray[Any] = filters[i]
+            r: NDArray[np.float64] = filters[i]
             if tail is not None and tail_weights is not None:
                 n = max(r.shape[-1], tail_offset + tail.shape[-1])
                 full = np.zeros((2, n))

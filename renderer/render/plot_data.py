@@ -74,7 +74,9 @@ _LOWEST_BAND_HZ = 20.0
 _READ_FRAMES = 1 << 16
 
 
-def third_octave_bands(samplerate: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def third_octave_bands(
+    samplerate: float,
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
     """One-third-octave bands from 20 Hz to the highest whose upper edge is below Nyquist.
 
     Returns
@@ -136,7 +138,7 @@ class SpectrumMeter:
         self.stride = max(1, int(stride))
         self.frames = 0
 
-    def process(self, block: np.ndarray) -> None:
+    def process(self, block: NDArray[np.floating[Any]]) -> None:
         """Add a ``(n, channels)`` block."""
         x = np.asarray(block, dtype=np.float32).reshape(-1, self.channels)
         self.frames += len(x)
@@ -163,7 +165,7 @@ class SpectrumMeter:
             buf = buf[n_seg * self._hop :]
         self._buffer = buf.copy()
 
-    def mean_square(self) -> tuple[np.ndarray, np.ndarray]:
+    def mean_square(self) -> tuple[NDArray[np.floating[Any]], NDArray[np.floating[Any]]]:
         """Frequencies (Hz) and the mean-square level per rfft bin, one column per channel.
 
         The bins of a column sum to the signal's mean square (Parseval, one-sided: every
@@ -209,7 +211,7 @@ class SpectrumMeter:
         }
 
 
-def schroeder_db(energy: np.ndarray) -> np.ndarray:
+def schroeder_db(energy: NDArray[np.floating[Any]]) -> NDArray[np.float64]:
     """Schroeder's backward integral of ``energy`` (squared samples), in dB re its start.
 
     ``EDC(n) = sum_{m >= n} e(m)``, normalised so that ``EDC(0)`` is 0 dB (Schroeder 1965).
@@ -224,7 +226,7 @@ def schroeder_db(energy: np.ndarray) -> np.ndarray:
 
 
 def energy_decay(
-    ir: np.ndarray,
+    ir: NDArray[np.floating[Any]],
     samplerate: float,
     bands: tuple[float, ...] = BANDS_HZ,
     points: int = DECAY_POINTS,
@@ -314,7 +316,7 @@ def _loudness(
     }
 
 
-def _room_response(plan: RenderPlan) -> tuple[np.ndarray, str] | None:
+def _room_response(plan: RenderPlan) -> tuple[NDArray[np.float64], str] | None:
     """The binaural room response of the first non-LFE loudspeaker, in layout order."""
     if plan.room is None:
         return None

@@ -72,7 +72,7 @@ def stream(
     output_meter = LoudnessMeter(stem.samplerate, 2) if meter_output else None
     state: dict[str, Any] = {"done": 0, "peak": 0.0}
 
-    def metered(blocks: Iterable[NDArray[Any]]) -> Iterator[NDArray[Any]]:
+    def metered(blocks: Iterable[NDArray[np.float32]]) -> Iterator[NDArray[np.float32]]:
         for block in blocks:
             if input_meter is not None:
                 input_meter.process(block)
@@ -81,21 +81,21 @@ def stream(
     # The output meter takes the engine's blocks in batches of about _METER_BATCH frames:
     # its cost per call is large next to an engine block, and the engine hands over new
     # arrays every time, so holding some is safe.
-    batch: list[NDArray[Any]] = []
+    batch: list[NDArray[np.floating[Any]]] = []
 
     def meter_batch() -> None:
         if batch and output_meter is not None:
             output_meter.process(batch[0] if len(batch) == 1 else np.concatenate(batch))
             batch.clear()
 
-    def write(block: NDArray[Any]) -> None:
+    def write(block: NDArray[np.floating[Any]]) -> None:
         if output_meter is not None:
             batch.append(block)
             if sum(len(b) for b in batch) >= _METER_BATCH:
                 meter_batch()
         writer.write(block)
 
-    def emit(block: NDArray[Any]) -> None:
+    def emit(block: NDArray[np.floating[Any]]) -> None:
         background.submit(block)
         if block.size:
             state["peak"] = max(state["peak"], float(np.max(np.abs(block))))
