@@ -34,6 +34,7 @@ from ..engine import (
 )
 from ..errors import OptionError
 from ..layouts import Layout
+from ..room import Room
 from ._spec import KINDS, OptionSpec
 
 __all__ = [
@@ -290,7 +291,7 @@ class RenderSettings:
     format: str | None = None
     seed: int = 0
     block_size: int = DEFAULT_BLOCK_SIZE
-    room: Any = "none"
+    room: str | Room | None = "none"
     room_mode: str = "shared"
     loudness: float | str | None = DEFAULT_LOUDNESS_LUFS
     true_peak: float | None = DEFAULT_TRUE_PEAK_DBTP
