@@ -81,7 +81,7 @@ def _warm_up() -> None:
     a second (measured: 900 ms submit-to-running on a cold server, 20-50 ms warm).
     """
     import earfold.hrtf_sets  # noqa: F401
-    import earfold.renderer.render._render  # noqa: F401
+    import earfold.renderer.render  # noqa: F401
 
     from .routes.catalog import room_names
 

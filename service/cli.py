@@ -12,8 +12,9 @@ import json
 import os
 import sys
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -55,15 +56,6 @@ class _Progress:
             sys.stderr.flush()
 
 
-def _labels(value: str) -> list[str]:
-    labels = [v.strip() for v in value.split(",") if v.strip()]
-    if not labels:
-        raise argparse.ArgumentTypeError(
-            "expected comma-separated channel labels, e.g. L,R,C,LFE,Ls,Rs"
-        )
-    return labels
-
-
 def _print_json(data: object) -> None:
     json.dump(data, sys.stdout, indent=2)
     sys.stdout.write("\n")
@@ -83,27 +75,58 @@ def _write_json(path: str, data: object) -> None:
     os.replace(tmp, path)
 
 
-def cmd_render(args: argparse.Namespace) -> int:
-    from earfold.renderer.engine import LfeOptions
-    from earfold.renderer.loudness import parse_loudness, parse_true_peak
-    from earfold.renderer.render import RenderSettings, render
+def _option_type(spec: Any) -> Callable[[str], Any]:
+    """argparse ``type`` of a declared render option: its own parser and messages."""
 
-    settings = RenderSettings(
-        layout=args.layout,
-        channel_order=args.channel_order,
-        hrtf=args.hrtf or "",
-        lfe=LfeOptions(cutoff_hz=args.lfe_cutoff, gain_db=args.lfe_gain),
-        subtype=args.subtype,
-        format=args.format,
-        seed=args.seed,
-        room=args.room,
-        room_mode=args.room_mode,
-        loudness=parse_loudness(args.loudness),
-        true_peak=parse_true_peak(args.true_peak),
-        eq=args.eq,
-        headphone_eq=args.headphone_eq,
-        **({"block_size": args.block_size} if args.block_size else {}),
-    )
+    def convert(text: str) -> Any:
+        try:
+            value = spec.parse(text)
+        except RendererError as exc:
+            raise argparse.ArgumentTypeError(str(exc)) from None
+        if value is None and spec.kind == "level":
+            # "none"/"off": kept as the word, since a value of None means "the default".
+            return next(c for c in spec.choices if c in ("none", "off"))
+        return value
+
+    convert.__name__ = spec.name  # argparse names the type in some messages
+    return convert
+
+
+def add_render_options(parser: argparse.ArgumentParser) -> None:
+    """Add every render option of the declaration offered on the command line.
+
+    Flags, metavars, choices, defaults and help all come from
+    :data:`earfold.renderer.render.RENDER_OPTIONS`.
+    """
+    from earfold.renderer.render import RENDER_OPTIONS
+
+    for spec in RENDER_OPTIONS:
+        if not spec.cli:
+            continue
+        kwargs: dict[str, Any] = {
+            "dest": spec.name,
+            "default": spec.default,
+            "help": spec.help,
+            "type": _option_type(spec),
+        }
+        if spec.kind == "choice":
+            kwargs["choices"] = spec.choices
+        else:
+            kwargs["metavar"] = spec.metavar or spec.name.upper()
+        parser.add_argument(spec.flag, **kwargs)
+
+
+def render_settings_from_args(args: argparse.Namespace) -> Any:
+    """RenderSettings from the parsed ``render`` arguments (the declaration's options)."""
+    from earfold.renderer.render import RENDER_OPTIONS, settings_from_options
+
+    return settings_from_options({s.name: getattr(args, s.name) for s in RENDER_OPTIONS if s.cli})
+
+
+def cmd_render(args: argparse.Namespace) -> int:
+    from earfold.renderer.render import render
+
+    settings = render_settings_from_args(args)
     progress = _Progress("rendering", enabled=False if args.quiet else None)
     try:
         report = render(args.inputs, args.output, settings, progress=progress)
@@ -311,94 +334,13 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="stem file(s)")
     p.add_argument("-o", "--output", required=True, help="output file (.wav or .flac)")
-    p.add_argument(
-        "--layout", required=True, help="layout name (see 'earfold layouts') or a JSON file"
-    )
-    p.add_argument(
-        "--channel-order",
-        type=_labels,
-        metavar="L,R,C,...",
-        help="labels of the file's channels in file order",
-    )
-    p.add_argument(
-        "--hrtf",
-        metavar="NAME|FILE.sofa",
-        help="shipped set name (see 'earfold hrtf list') or a SOFA file; default mit-kemar",
-    )
-    p.add_argument(
-        "--room",
-        default="none",
-        metavar="none|small|medium|large|FILE.json",
-        help="synthetic room around the loudspeakers (default none; 'earfold rooms' "
-        "lists the presets)",
-    )
-    p.add_argument(
-        "--room-mode",
-        default="shared",
-        choices=["shared", "exact"],
-        help="shared: the diffuse tail rendered once for all loudspeakers (default); "
-        "exact: a full room response per loudspeaker",
-    )
-    p.add_argument(
-        "--loudness",
-        default="-23",
-        metavar="LUFS|match|none",
-        help="integrated loudness of the output (ITU-R BS.1770): a LUFS target such as "
-        "-23 (EBU R128, the default), -16 or -14; 'match' keeps the stem's own "
-        "programme loudness; 'none' applies no gain",
-    )
-    p.add_argument(
-        "--true-peak",
-        default="-1",
-        metavar="DBTP|off",
-        help="true-peak limiter ceiling (default -1 dBTP); 'off' turns the limiter "
-        "off (the report says so)",
-    )
-    p.add_argument(
-        "--eq",
-        choices=["none", "diffuse-field"],
-        help="equalisation of the HRTF set: diffuse-field (the default for free-field "
-        "sets; removes the colour all directions share) or none (the default for sets "
-        "that hold a room)",
-    )
-    p.add_argument(
-        "--headphone-eq",
-        metavar="FILE",
-        help="headphone compensation applied to the output: a JSON list of parametric "
-        "bands or an impulse response (WAV/FLAC, any rate); see examples/headphone_eq/",
-    )
-    p.add_argument(
-        "--format", choices=["wav", "flac"], help="output format (default: from the extension)"
-    )
-    p.add_argument(
-        "--subtype",
-        default="PCM_24",
-        type=str.upper,
-        choices=["PCM_16", "PCM_24", "FLOAT"],
-        help="sample format (default PCM_24)",
-    )
-    p.add_argument("--seed", type=int, default=0, help="seed for dither (default 0)")
+    add_render_options(p)
     p.add_argument(
         "--report",
         metavar="FILE.json",
         help="where to write the JSON report (default: OUTPUT's name + .report.json; "
         "'none' to skip)",
     )
-    p.add_argument(
-        "--lfe-cutoff",
-        type=float,
-        default=120.0,
-        metavar="HZ",
-        help="LFE low-pass corner (default 120; 0 = no low-pass)",
-    )
-    p.add_argument(
-        "--lfe-gain",
-        type=float,
-        default=10.0,
-        metavar="DB",
-        help="LFE in-band gain (default +10 dB)",
-    )
-    p.add_argument("--block-size", type=int, metavar="FRAMES", help="engine block size (advanced)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress or summary")
     p.set_defaults(func=cmd_render)
 

@@ -1,14 +1,34 @@
-"""The streaming convolution engine and the LFE path."""
+"""The streaming convolution engine, the LFE path and the render's engine with its shared tail."""
 
 from __future__ import annotations
 
-from .convolution import DEFAULT_BLOCK_SIZE, BinauralConvolver, convolve_reference
-from .lfe import LfeOptions, lfe_filter
+from .convolution import (
+    DEFAULT_BLOCK_SIZE,
+    MAX_BLOCK_SIZE,
+    MIN_BLOCK_SIZE,
+    BinauralConvolver,
+    convolve_reference,
+)
+from .lfe import (
+    DEFAULT_LFE_CUTOFF_HZ,
+    DEFAULT_LFE_GAIN_DB,
+    LFE_GAIN_RANGE_DB,
+    LfeOptions,
+    lfe_filter,
+)
+from .scheduler import TAIL_BLOCK_FRAMES, FoldEngine
 
 __all__ = [
     "BinauralConvolver",
     "DEFAULT_BLOCK_SIZE",
+    "DEFAULT_LFE_CUTOFF_HZ",
+    "DEFAULT_LFE_GAIN_DB",
+    "LFE_GAIN_RANGE_DB",
+    "MAX_BLOCK_SIZE",
+    "MIN_BLOCK_SIZE",
+    "FoldEngine",
     "LfeOptions",
+    "TAIL_BLOCK_FRAMES",
     "convolve_reference",
     "lfe_filter",
 ]

@@ -15,6 +15,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import NDArray
 from scipy import signal
 
 from ..errors import RendererError
@@ -23,6 +24,8 @@ from ..errors import RendererError
 DEFAULT_LFE_CUTOFF_HZ = 120.0
 #: LFE in-band gain in dB (ITU-R BS.775 Annex 7; common practice).
 DEFAULT_LFE_GAIN_DB = 10.0
+#: Accepted LFE in-band gains in dB (closed interval).
+LFE_GAIN_RANGE_DB = (-40.0, 40.0)
 #: Butterworth order of the LFE low-pass: 4 (24 dB/octave) is the usual bass-management slope.
 DEFAULT_LFE_ORDER = 4
 #: The FIR is cut where the low-pass's impulse response has decayed by this much (dB below
@@ -50,9 +53,12 @@ class LfeOptions:
 
     def __post_init__(self) -> None:
         if not np.isfinite(self.cutoff_hz) or self.cutoff_hz < 0:
-            raise RendererError(f"LFE cutoff must be >= 0 Hz, got {self.cutoff_hz!r}")
-        if not np.isfinite(self.gain_db) or abs(self.gain_db) > 40:
-            raise RendererError(f"LFE gain must be within +/-40 dB, got {self.gain_db!r}")
+            raise RendererError(f"LFE cutoff must be 0 Hz or more, got {self.cutoff_hz:g}")
+        lo, hi = LFE_GAIN_RANGE_DB
+        if not np.isfinite(self.gain_db) or not lo <= self.gain_db <= hi:
+            raise RendererError(
+                f"LFE gain must be between {lo:g} and {hi:g} dB, got {self.gain_db:g}"
+            )
         if not 1 <= int(self.order) <= 12:
             raise RendererError(f"LFE filter order must be 1 to 12, got {self.order!r}")
 
@@ -63,7 +69,7 @@ def lfe_filter(
     *,
     reference_gain: float = 1.0,
     delay: int = 0,
-) -> np.ndarray:
+) -> NDArray[np.float64]:
     """FIR pair (2, L) that carries the LFE channel to both ears.
 
     Parameters

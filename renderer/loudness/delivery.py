@@ -1,7 +1,7 @@
 """The delivery stage: loudness-normalise a finished render, limit its true peak, write it.
 
 :func:`deliver` reads the float32 render twice. Pass 1 measures it (BS.1770-4 /
-EBU R 128, :mod:`earfold.renderer.loudness.meter`); a render made by :func:`earfold.renderer.render._render.render`
+EBU R 128, :mod:`earfold.renderer.loudness.meter`); a render made by :func:`earfold.renderer.render.render`
 was measured while it was written, and then pass 1 is skipped. The gain is then
 ``target - measured`` (or the input stem's loudness minus the measured one for
 ``"match"``, or 0 for ``None``). Pass 2 applies the gain, the true-peak limiter

@@ -1,8 +1,25 @@
-"""One render: options, plan, streaming through the engine, delivery and the report."""
+"""One render: options, what feeds the ears, plan, streaming, delivery and the report.
+
+Modules: :mod:`.options` (every render option declared once, and RenderSettings),
+:mod:`.feeds` (what feeds the ears, per input channel), :mod:`.plan` (the plan, decided
+before any audio is read), :mod:`.stream` (the streaming pass), :mod:`.report` (the
+report) and :mod:`.plot_data` (its plots); :func:`render` runs them in turn.
+"""
 
 from __future__ import annotations
 
-from ._render import RenderPlan, RenderSettings, plan_render, render, resolve_hrtf
+from .feeds import ChannelFeed, speaker_feeds
+from .options import (
+    DELIVERY_OPTIONS,
+    RENDER_OPTIONS,
+    ROOM_MODES,
+    SOUND_OPTIONS,
+    OptionSpec,
+    RenderSettings,
+    option,
+    settings_from_options,
+)
+from .plan import RenderPlan, plan_from_feeds, plan_render, resolve_hrtf
 from .plot_data import (
     LOUDNESS_POINTS,
     SpectrumMeter,
@@ -11,17 +28,30 @@ from .plot_data import (
     thin_series,
     third_octave_bands,
 )
+from .runner import render
+from .stream import engine_for
 
 __all__ = [
+    "DELIVERY_OPTIONS",
     "LOUDNESS_POINTS",
+    "RENDER_OPTIONS",
+    "ROOM_MODES",
+    "SOUND_OPTIONS",
+    "ChannelFeed",
+    "OptionSpec",
     "RenderPlan",
     "RenderSettings",
     "SpectrumMeter",
     "energy_decay",
+    "engine_for",
+    "option",
+    "plan_from_feeds",
     "plan_render",
     "render",
     "resolve_hrtf",
     "schroeder_db",
+    "settings_from_options",
+    "speaker_feeds",
     "thin_series",
     "third_octave_bands",
 ]

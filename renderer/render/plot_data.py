@@ -18,7 +18,7 @@ Three kinds of curve, each bounded in size whatever the length of the render:
   one whose RT60 the room section reports). Only when a room was used.
 
 :func:`plot_section` builds the whole section with one extra read of the output file;
-:func:`earfold.renderer.render._render.render` calls it last.
+:func:`earfold.renderer.render.render` calls it last.
 """
 
 from __future__ import annotations
@@ -26,17 +26,18 @@ from __future__ import annotations
 import math
 import os
 import time
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import scipy.fft
+from numpy.typing import NDArray
 from scipy import signal
 
 from ..loudness import LoudnessMeter
 from ..room import BANDS_HZ
 
 if TYPE_CHECKING:
-    from ._render import RenderPlan
+    from .plan import RenderPlan
 
 __all__ = [
     "DECAY_FLOOR_DB",
@@ -73,7 +74,9 @@ _LOWEST_BAND_HZ = 20.0
 _READ_FRAMES = 1 << 16
 
 
-def third_octave_bands(samplerate: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def third_octave_bands(
+    samplerate: float,
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
     """One-third-octave bands from 20 Hz to the highest whose upper edge is below Nyquist.
 
     Returns
@@ -135,7 +138,7 @@ class SpectrumMeter:
         self.stride = max(1, int(stride))
         self.frames = 0
 
-    def process(self, block: np.ndarray) -> None:
+    def process(self, block: NDArray[np.floating[Any]]) -> None:
         """Add a ``(n, channels)`` block."""
         x = np.asarray(block, dtype=np.float32).reshape(-1, self.channels)
         self.frames += len(x)
@@ -162,7 +165,7 @@ class SpectrumMeter:
             buf = buf[n_seg * self._hop :]
         self._buffer = buf.copy()
 
-    def mean_square(self) -> tuple[np.ndarray, np.ndarray]:
+    def mean_square(self) -> tuple[NDArray[np.floating[Any]], NDArray[np.floating[Any]]]:
         """Frequencies (Hz) and the mean-square level per rfft bin, one column per channel.
 
         The bins of a column sum to the signal's mean square (Parseval, one-sided: every
@@ -192,7 +195,7 @@ class SpectrumMeter:
         ms = power * scale[:, None] / (n * np.sum(window**2))
         return np.fft.rfftfreq(self.nfft, 1 / self.samplerate), ms
 
-    def band_levels(self) -> dict:
+    def band_levels(self) -> dict[str, Any]:
         """One-third-octave band levels (dB of mean square) per channel, JSON-ready."""
         freqs, ms = self.mean_square()
         centres, lower, upper = third_octave_bands(self.samplerate)
@@ -208,7 +211,7 @@ class SpectrumMeter:
         }
 
 
-def schroeder_db(energy: np.ndarray) -> np.ndarray:
+def schroeder_db(energy: NDArray[np.floating[Any]]) -> NDArray[np.float64]:
     """Schroeder's backward integral of ``energy`` (squared samples), in dB re its start.
 
     ``EDC(n) = sum_{m >= n} e(m)``, normalised so that ``EDC(0)`` is 0 dB (Schroeder 1965).
@@ -218,16 +221,17 @@ def schroeder_db(energy: np.ndarray) -> np.ndarray:
     if edc.size == 0 or edc[0] <= 0:
         return np.full(e.shape, -np.inf)
     with np.errstate(divide="ignore"):
-        return 10.0 * np.log10(edc / edc[0])
+        levels: NDArray[np.float64] = 10.0 * np.log10(edc / edc[0])
+    return levels
 
 
 def energy_decay(
-    ir: np.ndarray,
+    ir: NDArray[np.floating[Any]],
     samplerate: float,
     bands: tuple[float, ...] = BANDS_HZ,
     points: int = DECAY_POINTS,
     floor_db: float = DECAY_FLOOR_DB,
-) -> dict:
+) -> dict[str, Any]:
     """Energy decay curves of an impulse response per octave band.
 
     Each band is filtered as for ISO 3382-1 measurements (a 6th-order Butterworth
@@ -293,7 +297,9 @@ def thin_series(
     return out, round(interval_s * k, 6)
 
 
-def _loudness(series: dict, delivery: dict | None, integrated: float | None) -> dict:
+def _loudness(
+    series: dict[str, Any], delivery: dict[str, Any] | None, integrated: float | None
+) -> dict[str, Any]:
     m, m_dt = thin_series(series["momentary_lufs"], series["momentary_interval_s"])
     s, s_dt = thin_series(series["short_term_lufs"], series["short_term_interval_s"])
     return {
@@ -310,7 +316,7 @@ def _loudness(series: dict, delivery: dict | None, integrated: float | None) -> 
     }
 
 
-def _room_response(plan: RenderPlan) -> tuple[np.ndarray, str] | None:
+def _room_response(plan: RenderPlan) -> tuple[NDArray[np.float64], str] | None:
     """The binaural room response of the first non-LFE loudspeaker, in layout order."""
     if plan.room is None:
         return None
@@ -334,7 +340,9 @@ def _room_response(plan: RenderPlan) -> tuple[np.ndarray, str] | None:
     return ir, plan.layout.speakers[speaker].label
 
 
-def plot_section(plan: RenderPlan, output: str | os.PathLike[str], delivery: dict | None) -> dict:
+def plot_section(
+    plan: RenderPlan, output: str | os.PathLike[str], delivery: dict[str, Any] | None
+) -> dict[str, Any]:
     """The report's ``plots`` section for a finished render.
 
     Parameters
@@ -375,6 +383,7 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str], delivery: dic
             None if measured.integrated_lufs is None else round(measured.integrated_lufs, 2)
         )
     else:
+        assert delivery is not None  # the series came from it
         integrated = delivery["output"].get("integrated_lufs")
     bands = spectrum.band_levels()
     room = _room_response(plan)
@@ -387,6 +396,7 @@ def plot_section(plan: RenderPlan, output: str | os.PathLike[str], delivery: dic
             "speaker": label,
             **energy_decay(ir, info.samplerate),
         }
+    assert series is not None
     return {
         "loudness": _loudness(series, delivery, integrated),
         "spectra": {

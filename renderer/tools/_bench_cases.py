@@ -241,8 +241,7 @@ def _eq_engine_work(stem: str, layout: str, room: str) -> Figures:
     import dataclasses
 
     from ..io import StemReader
-    from ..render import plan_render
-    from ..render._render import _Engine
+    from ..render import engine_for, plan_render
 
     settings = _settings(layout, room)
     plans = {
@@ -258,7 +257,7 @@ def _eq_engine_work(stem: str, layout: str, room: str) -> Figures:
                 break
 
     def run(eq: str) -> Figures:
-        engine = _Engine(plans[eq], settings.block_size)
+        engine = engine_for(plans[eq], settings.block_size)
         times: list[float] = []
         try:
             for block in blocks:

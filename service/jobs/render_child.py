@@ -10,7 +10,6 @@ changes) stops too, so an orphan never keeps rendering.
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import os
 import signal
@@ -18,6 +17,7 @@ import sys
 import time
 import uuid
 from pathlib import Path
+from typing import Any
 
 EXIT_BAD_INPUT = 2
 EXIT_CANCELLED = 3
@@ -50,30 +50,13 @@ def _clean(text: str, names: dict[str, str]) -> str:
     return text
 
 
-def build_settings(options: dict):
-    """RenderSettings from a job's JSON options; unknown keys are ignored."""
-    from earfold.renderer.layouts import layout_from_dict
-    from earfold.renderer.render import RenderSettings
+def build_settings(options: dict) -> Any:
+    """RenderSettings from a job's JSON options, each checked against the renderer's
+    declaration (:data:`earfold.renderer.render.RENDER_OPTIONS`); an unknown key, or a
+    value outside its declared type, range or choices, raises OptionError."""
+    from earfold.renderer.render import settings_from_options
 
-    known = {f.name for f in dataclasses.fields(RenderSettings)}
-    kwargs = {k: v for k, v in options.items() if k in known and v is not None}
-    if isinstance(kwargs.get("layout"), dict):
-        kwargs["layout"] = layout_from_dict(kwargs["layout"], name="custom")
-    if "channel_order" in kwargs:
-        kwargs["channel_order"] = tuple(kwargs["channel_order"])
-    if "excerpt" in kwargs:  # [start, length] in seconds; only that window is read
-        kwargs["excerpt"] = tuple(float(v) for v in kwargs["excerpt"])
-    # The HTTP API spells "no gain" and "limiter off" as words; the renderer as None.
-    # Left out (None): the renderer's defaults.
-    if options.get("loudness") is not None:
-        from earfold.renderer.loudness import parse_loudness
-
-        kwargs["loudness"] = parse_loudness(str(options["loudness"]))
-    if options.get("true_peak") is not None:
-        from earfold.renderer.loudness import parse_true_peak
-
-        kwargs["true_peak"] = parse_true_peak(str(options["true_peak"]))
-    return RenderSettings(**kwargs)
+    return settings_from_options(options)
 
 
 def run(spec: dict) -> int:

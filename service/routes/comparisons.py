@@ -38,6 +38,7 @@ from ..problems import (
     problem_responses,
 )
 from ..storage import META, Storage, new_id, valid_id, write_json_atomic
+from .option_models import http_options, options_model
 from .renders import RenderRequest, render_options
 
 router = APIRouter(
@@ -57,24 +58,18 @@ Label = Annotated[str, Field(min_length=1, max_length=16)]
 AUDIO_HEADERS = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
 
 
-class VariantRequest(BaseModel):
-    """One variant: the render options of ``POST /v1/renders`` that shape the sound.
-
-    Loudness and the limiter are not options here: the comparison renders every variant
-    without either and level-matches them itself; the output format is fixed too.
-    """
-
-    model_config = ConfigDict(extra="forbid")
-
-    name: Annotated[str, Field(min_length=1, max_length=64)] | None = Field(
-        None, description="shown in the results only; default 'variant N'"
-    )
-    layout: Annotated[str, Field(max_length=64)] | dict | None = None
-    channel_order: list[Label] | None = Field(None, max_length=64)
-    hrtf: Annotated[str, Field(max_length=64)] | None = None
-    room: Annotated[str, Field(max_length=64)] = "none"
-    seed: int = Field(0, ge=0, le=2**32 - 1)
-    block_size: int | None = Field(None, ge=64, le=65536)
+VariantRequest = options_model(
+    "VariantRequest",
+    "One variant: every render option that shapes the sound (the options of "
+    "``POST /v1/renders`` but loudness, the limiter and the output format: the comparison "
+    "renders every variant without a loudness gain or limiter and level-matches them "
+    "itself, and its excerpt and trial files are its own).",
+    http_options(sound_only=True),
+    name=(
+        Annotated[str, Field(min_length=1, max_length=64)] | None,
+        Field(None, description="shown in the results only; default 'variant N'"),
+    ),
+)
 
 
 class ExcerptRequest(BaseModel):
@@ -93,12 +88,12 @@ class ComparisonRequest(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     stem_id: str = Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")
-    variants: list[VariantRequest] = Field(min_length=2, max_length=8)
+    variants: list[VariantRequest] = Field(min_length=2, max_length=8)  # type: ignore[valid-type]
     mode: Literal["ab", "abx"] = Field(
         "ab", description="ab: which do you prefer; abx: is X A or B (exactly 2 variants)"
     )
     trials: int = Field(10, ge=1, le=100)
-    excerpt: ExcerptRequest = Field(default_factory=ExcerptRequest)
+    excerpt: ExcerptRequest = Field(default_factory=lambda: ExcerptRequest.model_validate({}))
 
 
 class AnswerRequest(BaseModel):
@@ -222,7 +217,8 @@ def create_comparison(
                 "earlier",
             )
     variants = []
-    for i, v in enumerate(req.variants):
+    requested: list[Any] = list(req.variants)
+    for i, v in enumerate(requested):
         fields = v.model_dump(exclude={"name"})
         try:
             render_req = RenderRequest(

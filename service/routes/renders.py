@@ -8,19 +8,19 @@ a worker (:mod:`earfold.service.jobs.worker`); a route never calls DSP.
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import re
 import time
 from pathlib import Path
-from typing import Annotated, Literal
+from typing import Any
 
 from fastapi import APIRouter, Depends, Query, Request, Response
 from fastapi.responses import FileResponse
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import Field
 
-from earfold.renderer.errors import LayoutError
+from earfold.renderer.errors import LayoutError, OptionError
 from earfold.renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_channel_order
+from earfold.renderer.render import option
 
 from ..auth import current_owner
 from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
@@ -40,75 +40,23 @@ from ..problems import (
 from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
+from .option_models import http_options, options_model
 
 router = APIRouter(
     prefix="/v1/renders", tags=["renders"], responses=problem_responses(UNAUTHORIZED)
 )
 
-Label = Annotated[str, Field(min_length=1, max_length=16)]
-Lufs = Annotated[float, Field(gt=-70, lt=0, allow_inf_nan=False)]
-Dbtp = Annotated[float, Field(ge=-20, le=0, allow_inf_nan=False)]
-
 _MEDIA = {"wav": "audio/wav", "flac": "audio/flac"}
 _UNSAFE = re.compile(r"[^A-Za-z0-9._ -]+")
 
 
-class EqBand(BaseModel):
-    """One parametric band of an inline headphone EQ (Audio EQ Cookbook biquads)."""
-
-    model_config = ConfigDict(extra="forbid")
-
-    type: Literal["peaking", "low_shelf", "high_shelf", "low_pass", "high_pass"]
-    frequency: float = Field(gt=0, le=96000, allow_inf_nan=False, description="Hz")
-    gain_db: float = Field(
-        0.0,
-        ge=-24,
-        le=24,
-        allow_inf_nan=False,
-        description="dB (peaking and shelves; ignored by the pass filters)",
-    )
-    q: float = Field(0.7071067811865476, ge=0.05, le=50, allow_inf_nan=False)
-
-
-class RenderRequest(BaseModel):
-    """What to render (the JSON body of ``POST /v1/renders``)."""
-
-    model_config = ConfigDict(extra="forbid")
-
-    stem_id: str = Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")
-    layout: Annotated[str, Field(max_length=64)] | dict | None = Field(
-        None,
-        description="layout name (GET /v1/layouts) or a layout object; default: the "
-        "stem's suggested layout",
-    )
-    channel_order: list[Label] | None = Field(
-        None, max_length=64, description="labels of the file channels in order"
-    )
-    hrtf: Annotated[str, Field(max_length=64)] | None = Field(
-        None, description="shipped set name or uploaded set id (GET /v1/hrtf-sets)"
-    )
-    room: Annotated[str, Field(max_length=64)] = Field("none", description="GET /v1/rooms")
-    loudness: Lufs | Literal["match", "none"] | None = Field(
-        None, description="integrated loudness target in LUFS, 'match' or 'none'"
-    )
-    true_peak: Dbtp | Literal["off"] | None = Field(None, description="ceiling in dBTP or 'off'")
-    eq: Literal["none", "diffuse-field"] | None = Field(
-        None,
-        description="HRTF set equalisation; default diffuse-field for free-field sets, "
-        "none for sets that hold a room",
-    )
-    headphone_eq: list[EqBand] | None = Field(
-        None,
-        min_length=1,
-        max_length=64,
-        description="headphone compensation applied to the output: parametric bands",
-    )
-    format: Literal["wav", "flac"] = "wav"
-    subtype: Literal["PCM_16", "PCM_24", "FLOAT"] = "PCM_24"
-    seed: int = Field(0, ge=0, le=2**32 - 1)
-    block_size: int | None = Field(
-        None, ge=64, le=65536, description="engine block size in frames (advanced)"
-    )
+RenderRequest = options_model(
+    "RenderRequest",
+    "What to render (the JSON body of ``POST /v1/renders``): every render option of the "
+    "renderer's declaration offered over HTTP.",
+    http_options(),
+    stem_id=(str, Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")),
+)
 
 
 def _iso(ts: float | None) -> str | None:
@@ -191,34 +139,6 @@ def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, 
     )
 
 
-def _delivery_options(req: RenderRequest) -> dict:
-    """Room, loudness and true-peak options, passed on only where the renderer has them."""
-    from earfold.renderer.render import RenderSettings
-
-    available = {f.name for f in dataclasses.fields(RenderSettings)}
-    out: dict = {}
-    rooms = room_names()
-    if req.room not in rooms:
-        raise Problem(UNPROCESSABLE, f"unknown room {req.room!r}; choose one of {', '.join(rooms)}")
-    checks = (
-        ("room", req.room, "none"),
-        ("loudness", req.loudness, "none"),
-        ("true_peak", req.true_peak, "off"),
-    )
-    for name, value, neutral in checks:
-        if value is None:
-            continue
-        if name in available:
-            out[name] = value
-        elif value != neutral:
-            raise Problem(
-                UNPROCESSABLE,
-                f"option {name!r} is not available in this version of "
-                f"the renderer yet; leave it out or set it to {neutral!r}",
-            )
-    return out
-
-
 def _download_name(stem: dict, fmt: str) -> str:
     first = Path(stem["files"][0]["name"]).stem if stem["files"] else "render"
     if len(stem["files"]) > 1 and stem.get("labels_source") == "file names":
@@ -239,9 +159,7 @@ def _job(request: Request, render_id: str, owner: str) -> Job:
     return job
 
 
-def render_options(
-    req: RenderRequest, stem: dict, storage: Storage, owner: str
-) -> tuple[dict, str | None]:
+def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[dict, str | None]:
     """A render job's options and uploaded HRTF id for ``req`` on ``stem``, every option
     checked against the stem's probe (422 problems otherwise). Also used by comparisons,
     whose variants are renders of one stem."""
@@ -260,11 +178,15 @@ def render_options(
             resolve_channel_order(layout, stem["channel_labels"])
     except LayoutError as exc:
         raise Problem(UNPROCESSABLE, str(exc)) from None
-    if req.block_size is not None and req.block_size & (req.block_size - 1):
-        raise Problem(
-            UNPROCESSABLE, f"block_size must be a power of two (64 to 65536), got {req.block_size}"
-        )
-    if req.format == "flac" and req.subtype == "FLOAT":
+    try:
+        option("block_size").check(req.block_size)
+    except OptionError as exc:
+        raise Problem(UNPROCESSABLE, str(exc)) from None
+    rooms = room_names()
+    if req.room not in rooms:
+        raise Problem(UNPROCESSABLE, f"unknown room {req.room!r}; choose one of {', '.join(rooms)}")
+    fmt = req.format or "wav"  # the output is named .wav or .flac by the service
+    if fmt == "flac" and req.subtype == "FLOAT":
         raise Problem(
             UNPROCESSABLE,
             "FLAC holds integer samples only; choose subtype PCM_16 or PCM_24, or format 'wav'",
@@ -278,20 +200,14 @@ def render_options(
                 f"{band.frequency:g} Hz is not below the stem's Nyquist frequency, "
                 f"{stem['samplerate'] / 2:g} Hz",
             )
-    options = {
-        "layout": layout.to_dict() if isinstance(req.layout, dict) else layout.name,
-        "channel_order": req.channel_order,
-        "hrtf": shipped,
-        "subtype": req.subtype,
-        "format": req.format,
-        "seed": req.seed,
-        "block_size": req.block_size,
-        "eq": req.eq,
-        "headphone_eq": (
-            None if req.headphone_eq is None else [b.model_dump() for b in req.headphone_eq]
-        ),
-        **_delivery_options(req),
-    }
+    # Every declared option, as JSON; the worker checks them again against the declaration
+    # (earfold.service.jobs.render_child.build_settings).
+    options = req.model_dump(mode="json", include={s.name for s in http_options()})
+    options.update(
+        layout=layout.to_dict() if isinstance(req.layout, dict) else layout.name,
+        hrtf=shipped,
+        format=fmt,
+    )
     return options, hrtf_id
 
 
@@ -303,18 +219,22 @@ def render_options(
     responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE),
 )
 def create_render(
-    req: RenderRequest, request: Request, response: Response, owner: str = Depends(current_owner)
+    req: RenderRequest,  # type: ignore[valid-type]  # a model built from the declaration
+    request: Request,
+    response: Response,
+    owner: str = Depends(current_owner),
 ) -> dict:
+    body: Any = req  # a model built at import time: typed by the declaration, not mypy
     settings = request.app.state.settings
     storage: Storage = request.app.state.storage
-    stem = storage.read_meta("stems", req.stem_id, owner)
-    options, hrtf_id = render_options(req, stem, storage, owner)
+    stem = storage.read_meta("stems", body.stem_id, owner)
+    options, hrtf_id = render_options(body, stem, storage, owner)
     payload = {
-        "stem_id": req.stem_id,
+        "stem_id": body.stem_id,
         "hrtf_id": hrtf_id,
         "options": options,
-        "download_name": _download_name(stem, req.format),
-        "request": req.model_dump(),
+        "download_name": _download_name(stem, options["format"]),
+        "request": body.model_dump(),
     }
     job_id = new_id()
     try:

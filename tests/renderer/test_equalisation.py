@@ -210,7 +210,7 @@ def test_lookups_filter_after_interpolating_like_interpolating_filtered_response
 
 
 def test_sets_holding_a_room_are_not_equalised_by_default():
-    from earfold.renderer.render._render import _equalise
+    from earfold.renderer.render.plan import _equalise
 
     grid = _icosahedron()
     rng = np.random.default_rng(1)
@@ -239,8 +239,7 @@ def test_equalisation_leaves_the_engines_work_per_block_unchanged(tmp_path, path
     import dataclasses
 
     from earfold.renderer.io import write_audio
-    from earfold.renderer.render import RenderSettings, plan_render
-    from earfold.renderer.render._render import _Engine
+    from earfold.renderer.render import RenderSettings, engine_for, plan_render
 
     stem = tmp_path / "stem.wav"
     write_audio(stem, np.zeros((rate // 10, 12), dtype=np.float32), rate)
@@ -249,7 +248,7 @@ def test_equalisation_leaves_the_engines_work_per_block_unchanged(tmp_path, path
     for eq in ("none", "diffuse-field"):
         plan = plan_render([stem], dataclasses.replace(settings, eq=eq))
         taps[eq] = plan.hrir_set.taps
-        engine = _Engine(plan, settings.block_size)
+        engine = engine_for(plan, settings.block_size)
         engines[eq] = engine.describe()
         engine.close()
     off, on = engines["none"], engines["diffuse-field"]

@@ -199,7 +199,7 @@ def test_shared_tail_in_chunks_equals_exact_brirs(tmp_path, monkeypatch, chunk, 
     direct output held until its tail is ready: still the whole convolution, frame for
     frame (oracle: scipy.signal.oaconvolve of the full room responses), whatever the
     chunk, block and stem lengths."""
-    import earfold.renderer.render._render as render_module
+    import earfold.renderer.engine.scheduler as render_module
 
     monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", chunk)
     lay = get_layout("5.1")
@@ -219,7 +219,7 @@ def test_room_and_headphone_eq_equal_the_cascade_of_references(tmp_path, monkeyp
     """Shared tail in chunks, then headphone EQ on the two ears: the render equals the
     exact room responses convolved (scipy.signal.oaconvolve) and then the headphone
     filter bank convolved again, over the whole length."""
-    import earfold.renderer.render._render as render_module
+    import earfold.renderer.engine.scheduler as render_module
 
     monkeypatch.setattr(render_module, "TAIL_BLOCK_FRAMES", 3000)
     bands = [

@@ -264,3 +264,21 @@ def test_hrtf_without_action_shows_its_own_help():
     proc = _run("hrtf")
     assert proc.returncode == 2
     assert "inspect" in proc.stderr and "demo" not in proc.stderr
+
+
+def test_render_options_come_from_the_declaration(tmp_path, stem51):
+    """No --layout: the stem's suggested layout (6 channels: 5.1); --excerpt renders a
+    window; an LFE gain outside the declared range is refused with the bounds in words."""
+    out = tmp_path / "take.bin.wav"
+    proc = _run("render", str(stem51), "-o", str(out), "--excerpt", "0.05,0.1", "--lfe-gain", "3")
+    assert proc.returncode == 0, proc.stderr
+    report = json.loads((tmp_path / "take.bin.report.json").read_text())
+    assert report["layout"]["name"] == "5.1"
+    assert report["input"]["frames"] == round(0.1 * FS)
+    assert report["lfe"]["gain_db"] == 3.0
+    proc = _run("render", str(stem51), "-o", str(out), "--lfe-gain", "41")
+    assert proc.returncode == 2
+    assert "lfe_gain must be from -40 to 40 dB, not 41" in proc.stderr
+    proc = _run("render", str(stem51), "-o", str(out), "--loudness", "-70")
+    assert proc.returncode == 2
+    assert "between -70 and 0 LUFS (exclusive)" in proc.stderr

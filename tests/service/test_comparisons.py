@@ -374,3 +374,26 @@ def test_the_build_spec_points_an_uploaded_hrtf_set_at_its_stored_file(client, t
     assert spec["variants"][1]["hrtf"] == str(storage.path("hrtf", "c" * 32) / "set.sofa")
     assert spec["names"][spec["variants"][1]["hrtf"]] == "mine.sofa"  # for error messages
     assert spec["output"].endswith("prepared.json")
+
+
+def test_variants_take_every_option_that_shapes_the_sound(client, tmp_path):
+    """A variant may set room mode, LFE and equalisation; each reaches its render job's
+    options (and the worker's check of them)."""
+    from earfold.service.jobs.render_child import build_settings
+
+    stem = _stem(client, tmp_path)
+    variants = [
+        {"layout": "5.1", "room": "small", "room_mode": "exact", "lfe_gain": 4, "eq": "none"},
+        {
+            "layout": "5.1",
+            "lfe_cutoff": 60,
+            "headphone_eq": [{"type": "high_shelf", "frequency": 8000.0}],
+        },
+    ]
+    resp = client.post("/v1/comparisons", json=_body(stem["id"], variants=variants))
+    assert resp.status_code == 202, resp.text
+    job = client.app.state.queue.get(resp.json()["id"])
+    first, second = (build_settings(v["options"]) for v in job.payload["variants"])
+    assert first.room_mode == "exact" and first.lfe.gain_db == 4.0 and first.eq == "none"
+    assert first.loudness is None and first.true_peak is None
+    assert second.lfe.cutoff_hz == 60.0 and second.headphone_eq[0]["type"] == "high_shelf"

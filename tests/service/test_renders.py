@@ -45,7 +45,7 @@ def _worker(client) -> Worker:
         ({"layout": "5.1", "room": "cathedral"}, "unknown room 'cathedral'"),
         ({"layout": "5.1", "loudness": -80}, "loudness"),
         ({"layout": "5.1", "loudness": 3}, "loudness"),
-        ({"layout": "5.1", "true_peak": -30}, "true_peak"),
+        ({"layout": "5.1", "true_peak": -31}, "true_peak"),
         ({"layout": "5.1", "format": "mp3"}, "format"),
         ({"layout": "5.1", "format": "flac", "subtype": "FLOAT"}, "FLAC holds integer"),
         ({"layout": "5.1", "block_size": 1000}, "power of two"),
@@ -335,3 +335,50 @@ def test_eq_and_inline_headphone_eq_reach_the_renderer(make_client, tmp_path):
         RenderSettings(layout="5.1", eq="none", seed=2, headphone_eq=[dict(b) for b in bands]),
     )
     assert_array_equal(read_audio(out)[0], read_audio(ref)[0])
+
+
+def test_every_sound_option_of_the_cli_reaches_the_renderer_over_http(client, tmp_path):
+    """HTTP takes the declaration's options the command line has (room mode, LFE, EQ):
+    the queued job's options, checked by the worker's build_settings, give exactly the
+    RenderSettings of the same values."""
+    from earfold.renderer.engine import LfeOptions
+    from earfold.service.jobs.render_child import build_settings
+
+    stem = _stem(client, tmp_path)
+    bands = [{"type": "peaking", "frequency": 1000.0, "gain_db": -3.0, "q": 1.0}]
+    body = {
+        "stem_id": stem["id"],
+        "layout": "5.1",
+        "room": "small",
+        "room_mode": "exact",
+        "lfe_cutoff": 80,
+        "lfe_gain": 6,
+        "eq": "none",
+        "headphone_eq": bands,
+        "seed": 7,
+    }
+    job = client.post("/v1/renders", json=body)
+    assert job.status_code == 202, job.text
+    options = client.app.state.queue.get(job.json()["id"]).payload["options"]
+    settings = build_settings(options)
+    assert settings.room_mode == "exact" and settings.room == "small"
+    assert settings.lfe == LfeOptions(cutoff_hz=80.0, gain_db=6.0)
+    assert settings.eq == "none" and settings.seed == 7
+    assert settings.headphone_eq == bands
+    assert settings.loudness == -23.0 and settings.true_peak == -1.0
+
+
+@pytest.mark.parametrize(
+    ("body", "pattern"),
+    [
+        ({"lfe_gain": 41}, "lfe_gain"),
+        ({"lfe_cutoff": -1}, "lfe_cutoff"),
+        ({"room_mode": "mirror"}, "room_mode"),
+        ({"block_size": 2**21}, "block_size"),
+        ({"excerpt": [0, 1]}, "excerpt"),
+    ],
+)
+def test_new_options_are_checked_by_the_declaration(client, tmp_path, body, pattern):
+    stem = _stem(client, tmp_path)
+    resp = client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1", **body})
+    assert resp.status_code == 422 and pattern in resp.text, resp.text

@@ -1,0 +1,411 @@
+"""The render's plan: everything decided before any audio is read.
+
+:func:`plan_render` probes the stem, chooses the layout and the channel order, loads and
+equalises the HRTF set, builds the room, turns every input channel into a
+:class:`~earfold.renderer.render.feeds.ChannelFeed` and assembles the filter bank
+(:func:`plan_from_feeds`: the feeds stacked and calibrated, plus the shared tail).
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..eq import REFERENCE as CALIBRATION_REFERENCE
+from ..eq import HeadphoneEq, calibration_gain, check_eq, equalised, load_headphone_eq
+from ..errors import LayoutError, RendererError
+from ..hrtf import HrirSet, load_hrir_set
+from ..io import StemInfo, probe_stem
+from ..layouts import (
+    Layout,
+    get_layout,
+    labels_from_filenames,
+    labels_from_mask,
+    resolve_channel_order,
+    suggest_layout,
+)
+from ..room import build_room_filters, exact_brirs, get_room
+from .feeds import ChannelFeed, speaker_feeds
+from .options import ROOM_MODES, RenderSettings
+
+__all__ = ["RenderPlan", "plan_from_feeds", "plan_render", "resolve_hrtf"]
+
+
+@dataclass(frozen=True)
+class RenderPlan:
+    """What a render will do, decided before any audio is read.
+
+    Attributes
+    ----------
+    stem : StemInfo
+        The input (or the excerpt of it that is rendered).
+    feeds : tuple of ChannelFeed
+        What feeds the ears, one per input channel in file order.
+    hrir_set : HrirSet
+        The (equalised) set the feeds were built from.
+    filters : numpy.ndarray, shape (C, 2, L)
+        The calibrated filter bank, in file channel order.
+    warnings : tuple of str
+    layout : Layout
+        The loudspeaker layout the input channels belong to.
+    order : tuple of int
+        File channel ``i`` feeds layout loudspeaker ``order[i]``.
+    order_source : str
+        Where the channel order came from.
+    tail, tail_weights, tail_offset
+        The calibrated shared room tail ``(2, Lt)``, each channel's share of it ``(C,)``
+        and its delay in samples; None and 0 without a shared tail.
+    room, eq, calibration : dict or None
+        The report's sections.
+    headphone : HeadphoneEq or None
+        Applied to the two-channel output.
+    """
+
+    stem: StemInfo
+    feeds: tuple[ChannelFeed, ...]
+    hrir_set: HrirSet
+    filters: NDArray[np.float64]
+    warnings: tuple[str, ...]
+    layout: Layout
+    order: tuple[int, ...]
+    order_source: str
+    tail: NDArray[np.float64] | None = None
+    tail_weights: NDArray[np.float64] | None = None
+    tail_offset: int = 0
+    room: dict[str, Any] | None = None
+    eq: dict[str, Any] | None = None
+    calibration: dict[str, Any] | None = None
+    headphone: HeadphoneEq | None = None
+
+    @property
+    def speakers(self) -> tuple[dict[str, Any], ...]:
+        """The report entries of the input channels, in file order."""
+        return tuple(f.report for f in self.feeds)
+
+    @property
+    def length(self) -> int:
+        """Length of the whole response: output frames = input frames + length - 1."""
+        n = int(self.filters.shape[-1])
+        if self.tail is not None:
+            n = max(n, self.tail_offset + int(self.tail.shape[-1]))
+        if self.headphone is not None:
+            n += int(self.headphone.ir.shape[-1]) - 1
+        return n
+
+
+def resolve_hrtf(name_or_path: str | os.PathLike[str] | None) -> tuple[str, str]:
+    """Path and display name of an HRTF set given by shipped name or file path."""
+    from earfold.hrtf_sets import DEFAULT_SET, get_shipped
+
+    value = os.fspath(name_or_path) if name_or_path else DEFAULT_SET
+    if value.lower().endswith(".sofa") or os.sep in value or "/" in value:
+        return value, Path(value).name
+    shipped = get_shipped(value)
+    return str(shipped.path), str(shipped.name)
+
+
+def _stem_labels(stem: StemInfo) -> list[str] | None:
+    """Channel labels the stem itself carries (mono files' names, a WAV channel mask)."""
+    if len(stem.paths) > 1:
+        return labels_from_filenames(list(stem.paths))
+    if stem.channel_mask:
+        return labels_from_mask(stem.channel_mask, stem.channels)
+    return None
+
+
+def _layout(stem: StemInfo, value: str | os.PathLike[str] | Layout | None) -> Layout:
+    """The layout asked for or, for None, the one the stem suggests."""
+    if isinstance(value, Layout):
+        return value
+    if value is not None:
+        return get_layout(value)
+    labels = _stem_labels(stem)
+    layout = suggest_layout(stem.channels, labels)
+    if layout is None and labels is not None:
+        layout = suggest_layout(stem.channels)
+    if layout is None:
+        raise LayoutError(
+            f"no layout was given and none is suggested for a stem of {stem.channels} "
+            "channel(s); choose the layout the stem was mixed for ('earfold layouts')"
+        )
+    return layout
+
+
+def _choose_order(
+    stem: StemInfo, layout: Layout, channel_order: Sequence[str] | None
+) -> tuple[tuple[int, ...], str, list[str]]:
+    warnings: list[str] = []
+    if stem.channels != layout.channels:
+        raise LayoutError(
+            f"the stem has {stem.channels} channel(s) but layout {layout.name!r} has "
+            f"{layout.channels} ({', '.join(layout.labels)}); choose the layout the stem was "
+            f"mixed for"
+        )
+    if channel_order:
+        return resolve_channel_order(layout, list(channel_order)), "--channel-order", warnings
+    if len(stem.paths) > 1:
+        labels = labels_from_filenames(list(stem.paths))
+        if labels is not None:
+            try:
+                return resolve_channel_order(layout, labels), "file names", warnings
+            except LayoutError as exc:
+                raise LayoutError(
+                    f"the file names give the labels {', '.join(labels)}, which do not fit: "
+                    f"{exc}; rename the files or give --channel-order"
+                ) from None
+        warnings.append(
+            "the mono files' names carry no channel labels; they were taken in the order "
+            f"given as {', '.join(layout.labels)}"
+        )
+        return tuple(range(layout.channels)), "file order", warnings
+    if stem.channel_mask:
+        labels = labels_from_mask(stem.channel_mask, stem.channels, layout)
+        if labels is not None:
+            try:
+                return resolve_channel_order(layout, labels), "WAV channel mask", warnings
+            except LayoutError as exc:
+                warnings.append(
+                    f"the WAV channel mask does not fit the layout ({exc}); used the layout's "
+                    "default order"
+                )
+        else:
+            warnings.append(
+                f"the WAV channel mask 0x{stem.channel_mask:X} does not describe "
+                f"{stem.channels} channels; used the layout's default order"
+            )
+    return tuple(range(layout.channels)), "layout default", warnings
+
+
+def _excerpt(stem: StemInfo, excerpt: tuple[float, float]) -> StemInfo:
+    """The window ``(start, length)`` seconds of ``stem``; RendererError if it misses."""
+    try:
+        start_s, length_s = (float(v) for v in excerpt)
+    except (TypeError, ValueError):
+        raise RendererError(
+            f"excerpt must be (start, length) in seconds, not {excerpt!r}"
+        ) from None
+    if not (np.isfinite(start_s) and np.isfinite(length_s)) or start_s < 0 or length_s <= 0:
+        raise RendererError(
+            f"excerpt must have a start >= 0 and a length > 0 seconds, not "
+            f"({start_s:g}, {length_s:g})"
+        )
+    if start_s >= stem.duration:
+        raise RendererError(
+            f"the excerpt starts at {start_s:g} s but the stem is only {stem.duration:.3f} s long"
+        )
+    return stem.window(round(start_s * stem.samplerate), max(1, round(length_s * stem.samplerate)))
+
+
+def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettings) -> RenderPlan:
+    """Probe the stem and build the filter bank, validating everything up front."""
+    stem = probe_stem(inputs)
+    if settings.excerpt is not None:
+        stem = _excerpt(stem, settings.excerpt)
+    layout = _layout(stem, settings.layout)
+    order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
+    path, name = resolve_hrtf(settings.hrtf)
+    hset = load_hrir_set(path, stem.samplerate, name=name)
+    hset, eq_report = _equalise(hset, settings.eq, warnings)
+    headphone = None
+    if settings.headphone_eq is not None:
+        headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
+        eq_report["headphone"] = headphone.report
+
+    room_filters, room_report = None, None
+    if settings.room_mode not in ROOM_MODES:
+        raise RendererError(
+            f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
+        )
+    requested_room = get_room(settings.room)
+    if requested_room is not None and _is_measured_room(hset):
+        warnings.append(
+            f"HRTF set {hset.name!r} already holds room responses (RoomType "
+            f"{hset.room_type!r}); rendered as measured, the synthetic room "
+            f"{requested_room.name!r} was not added"
+        )
+        room_report = {
+            "synthetic": False,
+            "measured_room": True,
+            "room_type": hset.room_type,
+            "requested": requested_room.name,
+        }
+    elif requested_room is not None:
+        room_filters = build_room_filters(
+            hset, layout, requested_room, stem.samplerate, seed=settings.seed
+        )
+        room_report = {"synthetic": True, "mode": settings.room_mode, **room_filters.report}
+        warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
+    elif _is_measured_room(hset):
+        room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
+
+    exact = room_filters is not None and settings.room_mode == "exact"
+    feeds = speaker_feeds(
+        layout,
+        order,
+        hset,
+        stem.samplerate,
+        lfe=settings.lfe,
+        room_responses=(
+            None
+            if room_filters is None
+            else exact_brirs(room_filters)
+            if exact
+            else room_filters.early
+        ),
+        room_tail_weights=(
+            None if room_filters is None or exact else np.asarray(room_filters.tail_weights)
+        ),
+        room_arrival_samples=(
+            0.0 if room_filters is None else float(room_filters.report["reference_arrival_samples"])
+        ),
+        warnings=warnings,
+    )
+    shared = room_filters is not None and not exact
+    return plan_from_feeds(
+        stem,
+        feeds,
+        hset,
+        warnings,
+        layout=layout,
+        order=order,
+        order_source=order_source,
+        tail=room_filters.tail if shared and room_filters is not None else None,
+        tail_offset=int(room_filters.tail_offset) if shared and room_filters is not None else 0,
+        room=room_report,
+        eq=eq_report,
+        headphone=headphone,
+    )
+
+
+def plan_from_feeds(
+    stem: StemInfo,
+    feeds: Sequence[ChannelFeed],
+    hset: HrirSet,
+    warnings: Sequence[str],
+    *,
+    layout: Layout,
+    order: tuple[int, ...],
+    order_source: str,
+    tail: NDArray[np.float64] | None = None,
+    tail_offset: int = 0,
+    room: dict[str, Any] | None = None,
+    eq: dict[str, Any] | None = None,
+    headphone: HeadphoneEq | None = None,
+) -> RenderPlan:
+    """Stack the feeds' filters into one bank, calibrate it with the tail, and plan.
+
+    The calibration gain (:mod:`earfold.renderer.eq.calibration`) is computed over the
+    non-LFE feeds, each with its share of the tail, and applied to every filter and to the
+    tail.
+    """
+    pairs = [f.filters for f in feeds]
+    length = max(p.shape[-1] for p in pairs)
+    filters = np.zeros((len(pairs), 2, length), dtype=np.float64)
+    for i, p in enumerate(pairs):
+        filters[i, :, : p.shape[-1]] = p
+    tail_weights = None
+    if tail is not None:
+        tail_weights = np.asarray([f.tail_weight for f in feeds], dtype=np.float64)
+    gain = _calibrate(filters, feeds, tail, tail_weights, tail_offset, stem.samplerate)
+    filters *= gain
+    if tail is not None:
+        tail = tail * gain
+    calibration = {
+        "gain_db": round(float(20 * np.log10(gain)), 3),
+        "reference": CALIBRATION_REFERENCE,
+        "applied": "to every filter, before the delivery stage",
+    }
+    return RenderPlan(
+        stem=stem,
+        feeds=tuple(feeds),
+        hrir_set=hset,
+        filters=filters,
+        warnings=tuple(warnings),
+        layout=layout,
+        order=order,
+        order_source=order_source,
+        tail=tail,
+        tail_weights=tail_weights,
+        tail_offset=tail_offset,
+        room=room,
+        eq=eq,
+        calibration=calibration,
+        headphone=headphone,
+    )
+
+
+def _equalise(
+    hset: HrirSet, choice: str | None, warnings: list[str]
+) -> tuple[HrirSet, dict[str, Any]]:
+    """Apply the equalisation asked for (or the set's default); the report section."""
+    choice = check_eq(choice)
+    measured_room = _is_measured_room(hset)
+    if choice is None:
+        choice = "none" if measured_room else "diffuse-field"
+        reason = (
+            "default: the set holds room responses"
+            if measured_room
+            else "default for a free-field set"
+        )
+    else:
+        reason = "requested"
+        if choice == "diffuse-field" and measured_room:
+            warnings.append(
+                f"diffuse-field equalisation of {hset.name!r}, whose responses include a room "
+                f"(RoomType {hset.room_type!r}): the room's colour is averaged in and removed too"
+            )
+    report: dict[str, Any] = {
+        "type": choice,
+        "chosen": reason,
+        "diffuse_field": None,
+        "headphone": None,
+    }
+    if choice == "diffuse-field":
+        hset, summary = equalised(hset)
+        report["diffuse_field"] = summary
+        if summary.get("boost_limited"):
+            warnings.append(
+                f"HRTF set {hset.name!r}: the diffuse-field inverse reached its boost limit "
+                f"({summary['max_boost_db']:g} dB); the deepest dips are only partly filled"
+            )
+    return hset, report
+
+
+def _calibrate(
+    filters: NDArray[np.float64],
+    feeds: Sequence[ChannelFeed],
+    tail: NDArray[np.float64] | None,
+    tail_weights: NDArray[np.float64] | None,
+    tail_offset: int,
+    samplerate: float,
+) -> float:
+    """The calibration gain (:mod:`earfold.renderer.eq.calibration`) of a filter bank."""
+    mains = [i for i, f in enumerate(feeds) if not f.lfe]
+
+    def responses() -> Iterator[NDArray[np.float64]]:
+        for i in mains:
+            r: NDArray[np.float64] = filters[i]
+            if tail is not None and tail_weights is not None:
+                n = max(r.shape[-1], tail_offset + tail.shape[-1])
+                full = np.zeros((2, n))
+                full[:, : r.shape[-1]] = r
+                full[:, tail_offset : tail_offset + tail.shape[-1]] += tail_weights[i] * tail
+                r = full
+            yield r
+
+    return float(calibration_gain(responses(), len(mains), samplerate))
+
+
+def _is_measured_room(hset: HrirSet) -> bool:
+    """Does the set already hold room responses (a reverberant RoomType or a BRIR convention)?"""
+    room_type = (hset.room_type or "").lower().replace("-", " ")
+    return (
+        room_type not in ("", "free field", "freefield", "anechoic")
+        or "brir" in hset.convention.lower()
+    )

@@ -1,0 +1,143 @@
+"""The render's streaming pass: the stem through the engine into a file, metered on the way."""
+
+from __future__ import annotations
+
+import contextlib
+from collections.abc import Callable, Iterable, Iterator
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..engine import FoldEngine
+from ..errors import RenderCancelled
+from ..io import OutputWriter, StemReader
+from ..loudness import LoudnessMeter, channel_weights
+from ..pipeline import BackgroundWriter, prefetch
+from .plan import RenderPlan
+
+__all__ = ["engine_for", "stream"]
+
+
+def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine:
+    """The engine of ``plan``: its filter bank, shared tail and headphone EQ."""
+    return FoldEngine(
+        plan.filters,
+        block_size,
+        tail=plan.tail,
+        tail_weights=plan.tail_weights,
+        tail_offset=plan.tail_offset,
+        headphone=None if plan.headphone is None else plan.headphone.filters(),
+    )
+
+
+_METER_BATCH = 262144
+# Frames the output meter takes at once in the writer thread (5.5 s at 48 kHz, 2 MB of
+# stereo float32). Measured on a 60 s 7.1.4 render on two cores: metering the engine's
+# 8192-frame blocks one by one added about 0.25 s, batches of 65536 about 0.1 s, of
+# 262144 about 0.04 s.
+
+
+def stream(
+    plan: RenderPlan,
+    path: Path,
+    *,
+    block_size: int,
+    seed: int,
+    subtype: str,
+    fmt: str | None,
+    progress: Callable[[float], None] | None,
+    cancelled: Callable[[], bool] | None,
+    meter_input: bool,
+    meter_output: bool,
+    scratch: bool = False,
+) -> dict[str, Any]:
+    """Stream the stem through the engine into ``path``; meter input and output on the way.
+
+    The input meter runs in the reader thread and the output meter in the writer thread,
+    so on two cores they add little to the render's time.
+    """
+    stem = plan.stem
+    engine = engine_for(plan, block_size)
+    total = stem.frames + plan.length - 1
+    input_meter: LoudnessMeter | None = None
+    if meter_input:
+        weights = channel_weights(plan.layout)[list(plan.order)]
+        input_meter = LoudnessMeter(stem.samplerate, stem.channels, weights)
+    # The delivery stage takes the render's loudness and true peak from here: with the
+    # true peak known, its limiter need not interpolate a render that cannot reach the
+    # ceiling (earfold.renderer.loudness.limiter, known_true_peak). The meter runs on the
+    # writer thread, beside the engine.
+    output_meter = LoudnessMeter(stem.samplerate, 2) if meter_output else None
+    state: dict[str, Any] = {"done": 0, "peak": 0.0}
+
+    def metered(blocks: Iterable[NDArray[np.float32]]) -> Iterator[NDArray[np.float32]]:
+        for block in blocks:
+            if input_meter is not None:
+                input_meter.process(block)
+            yield block
+
+    # The output meter takes the engine's blocks in batches of about _METER_BATCH frames:
+    # its cost per call is large next to an engine block, and the engine hands over new
+    # arrays every time, so holding some is safe.
+    batch: list[NDArray[np.floating[Any]]] = []
+
+    def meter_batch() -> None:
+        if batch and output_meter is not None:
+            output_meter.process(batch[0] if len(batch) == 1 else np.concatenate(batch))
+            batch.clear()
+
+    def write(block: NDArray[np.floating[Any]]) -> None:
+        if output_meter is not None:
+            batch.append(block)
+            if sum(len(b) for b in batch) >= _METER_BATCH:
+                meter_batch()
+        writer.write(block)
+
+    def emit(block: NDArray[np.floating[Any]]) -> None:
+        background.submit(block)
+        if block.size:
+            state["peak"] = max(state["peak"], float(np.max(np.abs(block))))
+        state["done"] += len(block)
+        if progress is not None:
+            progress(min(state["done"] / total, 1.0))
+
+    with (
+        contextlib.closing(engine),
+        StemReader(stem) as reader,
+        OutputWriter(
+            path,
+            stem.samplerate,
+            2,
+            format=fmt,
+            subtype=subtype,
+            frames_hint=total,
+            seed=seed,
+            durable=not scratch,
+        ) as writer,
+    ):
+        # Reading, convolving and writing overlap (earfold.renderer.pipeline); the writer thread
+        # is drained before the output file is closed and renamed.
+        with BackgroundWriter(write) as background:
+            for block in prefetch(metered(reader.blocks(engine.block_size))):
+                if cancelled is not None and cancelled():
+                    raise RenderCancelled("render cancelled")
+                emit(engine.process(block))
+            for block in engine.tail_blocks(plan.length - 1):
+                if cancelled is not None and cancelled():
+                    raise RenderCancelled("render cancelled")
+                emit(block)
+        if output_meter is not None:
+            meter_batch()
+        clipped = writer.clipped_samples
+        out_format = writer.format
+    return {
+        "frames": state["done"],
+        "peak": state["peak"],
+        "clipped": clipped,
+        "format": out_format,
+        "engine": engine.describe(),
+        "input_loudness": None if input_meter is None else input_meter.result().integrated_lufs,
+        "render_meter": output_meter,
+    }

@@ -1,0 +1,103 @@
+"""The HTTP request models of render options, built from the renderer's declaration.
+
+Every field of ``POST /v1/renders`` and of a comparison's variants is made here from
+:data:`earfold.renderer.render.RENDER_OPTIONS`: its type, range or choices, default and
+description. Only what HTTP spells differently is added: a layout may be a layout object,
+an HRTF set an uploaded set's id, and the headphone EQ is the list of bands itself.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, create_model
+
+from earfold.renderer.render import RENDER_OPTIONS, OptionSpec
+
+__all__ = ["EqBand", "http_options", "option_fields", "options_model"]
+
+Label = Annotated[str, Field(min_length=1, max_length=16)]
+Name = Annotated[str, Field(max_length=64)]
+
+
+class EqBand(BaseModel):
+    """One parametric band of an inline headphone EQ (Audio EQ Cookbook biquads)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    type: Literal["peaking", "low_shelf", "high_shelf", "low_pass", "high_pass"]
+    frequency: float = Field(gt=0, le=96000, allow_inf_nan=False, description="Hz")
+    gain_db: float = Field(
+        0.0,
+        ge=-24,
+        le=24,
+        allow_inf_nan=False,
+        description="dB (peaking and shelves; ignored by the pass filters)",
+    )
+    q: float = Field(0.7071067811865476, ge=0.05, le=50, allow_inf_nan=False)
+
+
+def http_options(*, sound_only: bool = False) -> tuple[OptionSpec, ...]:
+    """The declared options offered over HTTP (only those that shape the sound)."""
+    return tuple(s for s in RENDER_OPTIONS if s.http and (s.shapes_sound or not sound_only))
+
+
+def _bounds(spec: OptionSpec) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    if spec.minimum is not None:
+        out["gt" if spec.exclusive else "ge"] = spec.minimum
+    if spec.maximum is not None:
+        out["lt" if spec.exclusive else "le"] = spec.maximum
+    return out
+
+
+def _field(spec: OptionSpec) -> tuple[Any, Any]:
+    """(annotation, FieldInfo) of one declared option."""
+    nullable = spec.default is None
+    extra: dict[str, Any] = {}
+    annotation: Any
+    if spec.name == "layout":
+        annotation = Name | dict[str, Any]
+    elif spec.name in ("hrtf", "room"):
+        annotation = Name
+    elif spec.kind == "labels":
+        annotation = list[Label]
+        extra = {"min_length": 1, "max_length": 64}
+    elif spec.kind == "headphone_eq":
+        annotation = list[EqBand]
+        extra = {"min_length": 1, "max_length": 64}
+    elif spec.kind == "choice":
+        annotation = Literal[spec.choices]  # type: ignore[valid-type]
+    elif spec.kind == "number":
+        annotation = float
+        extra = {**_bounds(spec), "allow_inf_nan": False}
+    elif spec.kind == "integer":
+        annotation = int
+        extra = _bounds(spec)
+    elif spec.kind == "level":
+        number = Annotated[float, Field(allow_inf_nan=False, **_bounds(spec))]
+        annotation = number | Literal[spec.choices]  # type: ignore[valid-type]
+    else:
+        raise ValueError(f"option {spec.name!r} of kind {spec.kind!r} has no HTTP form")
+    if nullable:
+        annotation = annotation | None
+    return annotation, Field(spec.default, description=spec.help, **extra)
+
+
+def option_fields(specs: tuple[OptionSpec, ...]) -> dict[str, Any]:
+    """``create_model`` field definitions of ``specs``."""
+    return {spec.name: _field(spec) for spec in specs}
+
+
+def options_model(
+    model_name: str, doc: str, specs: tuple[OptionSpec, ...], /, **fields: Any
+) -> Any:
+    """A pydantic model (extra keys forbidden) with ``fields`` first, then ``specs``."""
+    model = create_model(  # type: ignore[call-overload]
+        model_name,
+        __config__=ConfigDict(extra="forbid"),
+        __doc__=doc,
+        **fields,
+        **option_fields(specs),
+    )
+    return model
