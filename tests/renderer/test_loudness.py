@@ -23,12 +23,13 @@ import pytest
 import scipy.signal
 from numpy.testing import assert_allclose
 
-import earfold.renderer.loudness.meter as loudness
+import earfold.renderer.loudness._gating as gating
 from earfold.renderer.errors import AudioError
 from earfold.renderer.io import write_audio
 from earfold.renderer.layouts import get_layout
 from earfold.renderer.loudness import (
     K_WEIGHTING_48K,
+    SERIES_FLOOR_LUFS,
     LoudnessMeter,
     PeakInterpolator,
     TruePeakMeter,
@@ -280,7 +281,7 @@ def test_silence_and_short_input_report_none_and_serialise_to_json():
     assert silent.integrated_lufs is None
     assert silent.loudness_range_lu is None
     assert silent.true_peak_dbtp is None
-    assert silent.momentary_series[0] == loudness.SERIES_FLOOR_LUFS
+    assert silent.momentary_series[0] == SERIES_FLOOR_LUFS
     short = meter(sine(-20.0, 0.3))
     assert short.integrated_lufs is None and short.momentary_max_lufs is None
     assert short.true_peak_dbtp is not None
@@ -298,7 +299,7 @@ def test_to_dict_rounds_and_labels_the_series():
 
 
 def test_series_stay_capped_and_keep_the_maximum(monkeypatch):
-    monkeypatch.setattr(loudness, "SERIES_MAX_POINTS", 64)
+    monkeypatch.setattr(gating, "SERIES_MAX_POINTS", 64)
     rng = np.random.default_rng(3)
     result = meter(programme(rng, 40.0, 2))
     assert len(result.momentary_series) <= 64
