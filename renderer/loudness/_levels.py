@@ -13,6 +13,7 @@ from ..errors import AudioError
 __all__ = [
     "amplitude_db",
     "check_channels",
+    "check_range",
     "finite_or_none",
     "power_lufs",
     "round_or_none",
@@ -51,6 +52,19 @@ def check_channels(channels: object) -> int:
     if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) or channels < 1:
         raise AudioError(f"channels must be a positive integer, not {shown(channels)}")
     return int(channels)
+
+
+def check_range(name: str, value: object, lo: float, hi: float, unit: str) -> None:
+    """:class:`AudioError` unless ``value`` is a finite number from ``lo`` to ``hi``."""
+    if (
+        isinstance(value, bool)
+        or not isinstance(value, (int, float, np.number))
+        or not math.isfinite(float(value))
+        or not lo <= float(value) <= hi
+    ):
+        raise AudioError(
+            f"{name} must be a number from {lo:g} to {hi:g} {unit}, not {shown(value)}"
+        )
 
 
 def shown(value: object) -> str:

@@ -41,7 +41,7 @@ from ..blocks import check_block
 from ..defaults import TRUE_PEAK_RANGE_DBTP
 from ..errors import AudioError
 from ._gain_curve import gain_curve, quantise
-from ._levels import check_channels, shown
+from ._levels import check_channels, check_range, shown
 from ._true_peak import PeakInterpolator
 
 __all__ = [
@@ -167,9 +167,9 @@ class TruePeakLimiter:
                 f"sample rate must be an integer from 8000 to 768000 Hz, not {shown(samplerate)}"
             )
         check_channels(channels)
-        _check_range("ceiling_dbtp", ceiling_dbtp, *TRUE_PEAK_RANGE_DBTP, "dBTP")
-        _check_range("lookahead_ms", lookahead_ms, 0.5, 50.0, "ms")
-        _check_range("release_ms", release_ms, 1.0, 5000.0, "ms")
+        check_range("ceiling_dbtp", ceiling_dbtp, *TRUE_PEAK_RANGE_DBTP, "dBTP")
+        check_range("lookahead_ms", lookahead_ms, 0.5, 50.0, "ms")
+        check_range("release_ms", release_ms, 1.0, 5000.0, "ms")
         self.samplerate = int(samplerate)
         self.channels = int(channels)
         self.ceiling_dbtp = float(ceiling_dbtp)
@@ -477,15 +477,3 @@ def _join(parts: list[NDArray[np.float32]], channels: int) -> NDArray[np.float32
     if not parts:
         return np.zeros((0, channels), dtype=np.float32)
     return parts[0] if len(parts) == 1 else np.concatenate(parts)
-
-
-def _check_range(name: str, value: object, lo: float, hi: float, unit: str) -> None:
-    if (
-        isinstance(value, bool)
-        or not isinstance(value, (int, float, np.number))
-        or not math.isfinite(float(value))
-        or not lo <= float(value) <= hi
-    ):
-        raise AudioError(
-            f"{name} must be a number from {lo:g} to {hi:g} {unit}, not {shown(value)}"
-        )
