@@ -73,15 +73,16 @@ def shown(value: object) -> str:
     Numbers and text as written; arrays, bytes and long sequences by their kind and size,
     never their contents (a message must stay one readable line).
     """
-    if isinstance(value, (bool, int, float, str)) or value is None:
-        return repr(value)
+    # numpy scalars first: np.float64 is a float, but its repr names numpy.
     if isinstance(value, np.generic):
         item: Any = value.item()
-        return repr(item) if isinstance(item, (bool, int, float)) else type(value).__name__
+        return repr(item) if isinstance(item, (bool, int, float, str)) else type(value).__name__
+    if isinstance(value, (bool, int, float, str)) or value is None:
+        return repr(value)
     if isinstance(value, np.ndarray):
         return f"an array of shape {value.shape} ({value.dtype})"
     if isinstance(value, (bytes, bytearray, memoryview)):
         return f"{len(value)} bytes"
     if isinstance(value, (list, tuple)):
         return f"a {type(value).__name__} of {len(value)} items"
-    return f"a {type(value).__name__}"
+    return f"a value of type {type(value).__name__}"
