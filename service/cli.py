@@ -161,21 +161,18 @@ def cmd_render(args: argparse.Namespace) -> int:
 
 def cmd_loudness(args: argparse.Namespace) -> int:
     from earfold.renderer.layouts import get_layout
-    from earfold.renderer.loudness import channel_weights, format_measurement, measure_file
+    from earfold.renderer.loudness import format_measurement, measure_for_layout
 
-    results = []
-    for path in args.files:
-        weights = None
-        if args.layout:
-            weights = channel_weights(get_layout(args.layout))
-        result = measure_file(path, weights)
-        results.append((path, result))
+    # The layout's weights go only to files with its channel count (the stem); any other
+    # file, such as the stem's binaural render, is measured with plain weights.
+    layout = get_layout(args.layout) if args.layout else None
+    results = [(path, measure_for_layout(path, layout)) for path in args.files]
     if args.json:
-        _print_json([{"file": Path(p).name, **r.to_dict(series=args.series)} for p, r in results])
+        _print_json([{"file": Path(p).name, **m.to_dict(series=args.series)} for p, m in results])
         return 0
-    for path, result in results:
+    for path, measured in results:
         print(f"{path}:")
-        print(format_measurement(result))
+        print(format_measurement(measured.result, weights=measured.weights_text))
     return 0
 
 

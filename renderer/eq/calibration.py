@@ -21,7 +21,11 @@ per block; it is applied before the delivery stage and reported.
 
 from __future__ import annotations
 
+from collections.abc import Iterable
+from typing import cast
+
 import numpy as np
+from numpy.typing import NDArray
 from scipy import signal
 
 from ..loudness import k_weighting_sos
@@ -41,17 +45,19 @@ def pink_band(samplerate: float) -> tuple[float, float]:
     return PINK_BAND_HZ[0], min(PINK_BAND_HZ[1], 0.95 * samplerate / 2)
 
 
-def reference_weighting(freqs: np.ndarray, samplerate: float) -> np.ndarray:
+def reference_weighting(freqs: NDArray[np.float64], samplerate: float) -> NDArray[np.float64]:
     """``K(f)^2 S(f)``: the K-weighted pink reference spectrum on ``freqs`` (per bin)."""
     lo, hi = pink_band(samplerate)
     pink = np.zeros_like(freqs, dtype=float)
     band = (freqs >= lo) & (freqs <= hi)
     pink[band] = 1.0 / freqs[band]
     _, k = signal.sosfreqz(k_weighting_sos(samplerate), worN=freqs, fs=samplerate)
-    return pink * np.abs(k) ** 2
+    return cast(NDArray[np.float64], pink * np.abs(k) ** 2)
 
 
-def calibration_gain(responses, speakers: int, samplerate: float) -> float:
+def calibration_gain(
+    responses: Iterable[NDArray[np.float64]], speakers: int, samplerate: float
+) -> float:
     """Linear gain that brings the diffuse reference to the stem's loudness.
 
     Parameters
@@ -63,15 +69,15 @@ def calibration_gain(responses, speakers: int, samplerate: float) -> float:
         How many loudspeaker channels ``responses`` yields.
     samplerate : float
     """
-    responses = list(responses)
-    if not responses or speakers <= 0:
+    filters = list(responses)
+    if not filters or speakers <= 0:
         return 1.0
-    length = max(r.shape[-1] for r in responses)
+    length = max(r.shape[-1] for r in filters)
     n = max(8192, 1 << int(np.ceil(np.log2(length))))
-    freqs = np.fft.rfftfreq(n, 1.0 / samplerate)
+    freqs = cast(NDArray[np.float64], np.fft.rfftfreq(n, 1.0 / samplerate))
     weight = reference_weighting(freqs, samplerate)
     out = 0.0
-    for r in responses:
+    for r in filters:
         spec = np.fft.rfft(r, n=n, axis=-1)
         out += float(np.sum(weight * np.abs(spec) ** 2))
     out /= speakers

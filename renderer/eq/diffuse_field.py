@@ -31,15 +31,18 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from typing import Any, cast
 
 import numpy as np
 import scipy.fft
+from numpy.typing import NDArray
 from scipy.spatial import SphericalVoronoi
 
 from ..engine import DEFAULT_BLOCK_SIZE
 from ..errors import EqualisationError
 from ..hrtf import HrirPair, HrirSet
 from ..signals import minimum_phase_spectrum
+from ._values import shown
 
 #: The equalisation choices of ``--eq``.
 EQ_CHOICES = ("none", "diffuse-field")
@@ -107,20 +110,21 @@ class DiffuseField:
     samplerate : float
     """
 
-    freqs: np.ndarray
-    power: np.ndarray
-    weights: np.ndarray
+    freqs: NDArray[np.float64]
+    power: NDArray[np.float64]
+    weights: NDArray[np.float64]
     weighting: str
     capped: int
     samplerate: float
 
     @property
-    def level_db(self) -> np.ndarray:
+    def level_db(self) -> NDArray[np.float64]:
         """Mean of the two ears' power, in dB (the curve the inverse flattens)."""
-        return 10 * np.log10(np.maximum(self.power.mean(axis=0), 1e-30))
+        level = 10 * np.log10(np.maximum(self.power.mean(axis=0), 1e-30))
+        return cast(NDArray[np.float64], level)
 
 
-def voronoi_areas(directions: np.ndarray) -> np.ndarray:
+def voronoi_areas(directions: NDArray[np.float64]) -> NDArray[np.float64]:
     """Solid angle of each direction's spherical Voronoi cell (sum 4 pi).
 
     Repeated directions share their cell equally. Raises :class:`EqualisationError` when
@@ -142,10 +146,12 @@ def voronoi_areas(directions: np.ndarray) -> np.ndarray:
     except ValueError as exc:
         raise EqualisationError(f"spherical Voronoi diagram failed: {exc}") from None
     areas = sv.calculate_areas()
-    return areas[inverse] / counts[inverse]
+    return cast(NDArray[np.float64], areas[inverse] / counts[inverse])
 
 
-def solid_angle_weights(directions: np.ndarray) -> tuple[np.ndarray, str, int]:
+def solid_angle_weights(
+    directions: NDArray[np.float64],
+) -> tuple[NDArray[np.float64], str, int]:
     """Weights of the measured directions for the diffuse-field average.
 
     Returns
@@ -178,7 +184,7 @@ def inverse_taps(samplerate: float, set_taps: int | None = None) -> int:
     """Taps of the inverse filter at a rate (:data:`INVERSE_SECONDS`, even).
 
     With ``set_taps``, shortened so that the equalised responses, ``set_taps + taps - 1``
-    long, need no more engine partitions (:data:`earfold.renderer.engine.convolution.DEFAULT_BLOCK_SIZE`
+    long, need no more engine partitions (:data:`earfold.renderer.engine.DEFAULT_BLOCK_SIZE`
     frames) than the set's own, where :data:`MIN_INVERSE_SECONDS` is enough for that.
     """
     taps = 2 * int(round(INVERSE_SECONDS * samplerate / 2))
@@ -207,11 +213,13 @@ def diffuse_field(
     for start in range(0, hset.measurements, 32):
         spec = scipy.fft.rfft(hset.ir[start : start + 32], n=n, axis=-1)
         power += np.einsum("m,mef->ef", w[start : start + 32], np.abs(spec) ** 2)
-    freqs = np.fft.rfftfreq(n, 1.0 / hset.samplerate)
+    freqs = cast(NDArray[np.float64], np.fft.rfftfreq(n, 1.0 / hset.samplerate))
     return DiffuseField(freqs, power, weights, weighting, capped, hset.samplerate)
 
 
-def smooth_fractional_octave(freqs: np.ndarray, power: np.ndarray, octaves: float) -> np.ndarray:
+def smooth_fractional_octave(
+    freqs: NDArray[np.float64], power: NDArray[np.float64], octaves: float
+) -> NDArray[np.float64]:
     """Mean of ``power`` over ``[f 2^(-o/2), f 2^(o/2)]`` at every bin (power domain).
 
     DC keeps its own value; windows are at least one bin wide either side.
@@ -226,7 +234,7 @@ def smooth_fractional_octave(freqs: np.ndarray, power: np.ndarray, octaves: floa
     hi = np.maximum(hi, np.arange(len(p)) + 1).clip(max=len(p) - 1)
     out = (csum[hi + 1] - csum[lo]) / (hi - lo + 1)
     out[0] = p[0]
-    return out
+    return cast(NDArray[np.float64], out)
 
 
 def usable_band(df: DiffuseField) -> tuple[float, float]:
@@ -252,12 +260,14 @@ def usable_band(df: DiffuseField) -> tuple[float, float]:
     return float(df.freqs[lo]), float(df.freqs[hi])
 
 
-def _reference_db(freqs: np.ndarray, level_db: np.ndarray) -> float:
+def _reference_db(freqs: NDArray[np.float64], level_db: NDArray[np.float64]) -> float:
     band = (freqs >= REFERENCE_BAND_HZ[0]) & (freqs <= REFERENCE_BAND_HZ[1])
     return float(10 * np.log10(np.mean(10 ** (level_db[band] / 10))))
 
 
-def inverse_filter(df: DiffuseField, taps: int | None = None) -> tuple[np.ndarray, dict]:
+def inverse_filter(
+    df: DiffuseField, taps: int | None = None
+) -> tuple[NDArray[np.float64], dict[str, Any]]:
     """Regularised minimum-phase inverse of a diffuse-field response.
 
     Returns the filter (1-D, ``taps`` long) and a summary for reports.
@@ -293,7 +303,7 @@ def inverse_filter(df: DiffuseField, taps: int | None = None) -> tuple[np.ndarra
     return fir, summary
 
 
-def _minimum_phase(magnitude: np.ndarray, n: int, taps: int) -> np.ndarray:
+def _minimum_phase(magnitude: NDArray[np.float64], n: int, taps: int) -> NDArray[np.float64]:
     """Minimum-phase FIR of a magnitude on ``n // 2 + 1`` bins (real cepstrum method)."""
     h = np.fft.irfft(minimum_phase_spectrum(magnitude, n), n=n)[:taps]
     # A short half-Hann fade over the last eighth keeps the truncation from ringing.
@@ -316,7 +326,7 @@ def octave_summary(df: DiffuseField) -> dict[str, float | None]:
     return out
 
 
-def describe(hset: HrirSet) -> dict:
+def describe(hset: HrirSet) -> dict[str, Any]:
     """Diffuse-field figures of a set (for ``earfold hrtf inspect`` and reports)."""
     return equalised(hset)[1]
 
@@ -333,22 +343,32 @@ class EqualisedHrirSet(HrirSet):
     """
 
     raw: HrirSet | None = None
-    fir: np.ndarray | None = None
+    fir: NDArray[np.float64] | None = None
 
-    def pair(self, direction: np.ndarray) -> HrirPair:
-        return self._filtered(self.raw.pair(direction))
+    def pair(self, direction: NDArray[np.float64]) -> HrirPair:
+        return self._filtered(self._lookup().pair(direction))
 
-    def nearest_pair(self, direction: np.ndarray, *, exclude: int | None = None) -> HrirPair:
-        return self._filtered(self.raw.nearest_pair(direction, exclude=exclude))
+    def nearest_pair(
+        self, direction: NDArray[np.float64], *, exclude: int | None = None
+    ) -> HrirPair:
+        return self._filtered(self._lookup().nearest_pair(direction, exclude=exclude))
 
-    def _grid(self):
-        return self.raw._grid()
+    def _grid(self) -> Any:
+        # The original set's grid (of the hrtf wing's own private type, not named here).
+        return self._lookup()._grid()
+
+    def _lookup(self) -> HrirSet:
+        if self.raw is None:  # only built by equalised(), which always sets it
+            raise EqualisationError(f"equalised set {self.name!r} has no original set")
+        return self.raw
 
     def _filtered(self, pair: HrirPair) -> HrirPair:
+        if self.fir is None:  # only built by equalised(), which always sets it
+            raise EqualisationError(f"equalised set {self.name!r} has no filter")
         return dataclasses.replace(pair, ir=_convolve_all(pair.ir, self.fir))
 
 
-def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
+def equalised(hset: HrirSet) -> tuple[HrirSet, dict[str, Any]]:
     """The set with its diffuse-field inverse applied to every HRIR, and the EQ summary.
 
     Cached in the set's own cache, so a set loaded once (``load_hrir_set`` caches per
@@ -356,7 +376,7 @@ def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
     """
     cached = hset._cache.get("diffuse-field")
     if cached is not None:
-        return cached
+        return cast(tuple[HrirSet, dict[str, Any]], cached)
     df = diffuse_field(hset)
     fir, summary = inverse_filter(df, inverse_taps(hset.samplerate, hset.taps))
     ir = _convolve_all(hset.ir, fir)
@@ -398,7 +418,7 @@ def equalised(hset: HrirSet) -> tuple[HrirSet, dict]:
     return eq_set, summary
 
 
-def _convolve_all(ir: np.ndarray, fir: np.ndarray) -> np.ndarray:
+def _convolve_all(ir: NDArray[np.float64], fir: NDArray[np.float64]) -> NDArray[np.float64]:
     """Every response convolved with one filter (full length).
 
     In chunks of 128 responses into one output array, so a large set's transforms never
@@ -420,5 +440,5 @@ def check_eq(value: str | None) -> str | None:
     if value is None or value in EQ_CHOICES:
         return value
     raise EqualisationError(
-        f"unknown equalisation {value!r}; choose one of {', '.join(EQ_CHOICES)}"
+        f"unknown equalisation {shown(value)}; choose one of {', '.join(EQ_CHOICES)}"
     )

@@ -23,12 +23,14 @@ import os
 from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
+from numpy.typing import NDArray
 from scipy import signal
 
 from ..errors import HeadphoneEqError
+from ._values import shown
 
 #: Band types of a JSON headphone EQ (Audio EQ Cookbook names, in snake case).
 BAND_TYPES = ("peaking", "low_shelf", "high_shelf", "low_pass", "high_pass")
@@ -64,7 +66,8 @@ class Band:
     gain_db: float = 0.0
     q: float = DEFAULT_Q
 
-    def to_dict(self) -> dict:
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready: type, frequency, gain and Q (to six decimals)."""
         return {
             "type": self.type,
             "frequency": self.frequency,
@@ -73,7 +76,7 @@ class Band:
         }
 
 
-def cookbook_biquad(band: Band, samplerate: float) -> np.ndarray:
+def cookbook_biquad(band: Band, samplerate: float) -> NDArray[np.float64]:
     """One band as a second-order section ``[b0, b1, b2, 1, a1, a2]``.
 
     Formulas from R. Bristow-Johnson, *Cookbook formulae for audio EQ biquad filter
@@ -86,7 +89,7 @@ def cookbook_biquad(band: Band, samplerate: float) -> np.ndarray:
     f0 = float(band.frequency)
     if not 0 < f0 < fs / 2:
         raise HeadphoneEqError(
-            f"band frequency {band.frequency!r} Hz must lie between 0 and the Nyquist "
+            f"band frequency {shown(band.frequency)} Hz must lie between 0 and the Nyquist "
             f"frequency, {fs / 2:g} Hz, at {fs:g} Hz"
         )
     a = 10 ** (band.gain_db / 40)
@@ -124,12 +127,12 @@ def cookbook_biquad(band: Band, samplerate: float) -> np.ndarray:
         den = [1 + alpha, -2 * cw, 1 - alpha]
     else:
         raise HeadphoneEqError(
-            f"unknown band type {band.type!r}; choose one of {', '.join(BAND_TYPES)}"
+            f"unknown band type {shown(band.type)}; choose one of {', '.join(BAND_TYPES)}"
         )
     return np.array([b[0], b[1], b[2], den[0], den[1], den[2]]) / den[0]
 
 
-def bands_sos(bands: list[Band], samplerate: float) -> np.ndarray:
+def bands_sos(bands: list[Band], samplerate: float) -> NDArray[np.float64]:
     """The cascade of bands as second-order sections, shape ``(len(bands), 6)``."""
     return np.array([cookbook_biquad(b, samplerate) for b in bands]).reshape(-1, 6)
 
@@ -146,7 +149,9 @@ def parse_bands(value: Any, *, source: str = "headphone EQ") -> tuple[list[Band]
             )
         gain = _number(value.get("gain_db", 0.0), f"{source}: gain_db")
         if abs(gain) > MAX_GAIN_DB:
-            raise HeadphoneEqError(f"{source}: gain_db {gain!r} is outside +/-{MAX_GAIN_DB:g} dB")
+            raise HeadphoneEqError(
+                f"{source}: gain_db {shown(gain)} is outside +/-{MAX_GAIN_DB:g} dB"
+            )
         value = value.get("bands")
     if not isinstance(value, list) or not value:
         raise HeadphoneEqError(
@@ -158,7 +163,7 @@ def parse_bands(value: Any, *, source: str = "headphone EQ") -> tuple[list[Band]
     for i, item in enumerate(value):
         where = f"{source}: band {i + 1}"
         if not isinstance(item, dict):
-            raise HeadphoneEqError(f"{where}: expected an object, got {item!r}")
+            raise HeadphoneEqError(f"{where}: expected an object, got {shown(item)}")
         unknown = set(item) - {"type", "frequency", "gain_db", "q"}
         if unknown:
             raise HeadphoneEqError(
@@ -168,26 +173,26 @@ def parse_bands(value: Any, *, source: str = "headphone EQ") -> tuple[list[Band]
         kind = item.get("type")
         if kind not in BAND_TYPES:
             raise HeadphoneEqError(
-                f"{where}: unknown type {kind!r}; choose one of {', '.join(BAND_TYPES)}"
+                f"{where}: unknown type {shown(kind)}; choose one of {', '.join(BAND_TYPES)}"
             )
         freq = _number(item.get("frequency"), f"{where}: frequency")
         band_gain = _number(item.get("gain_db", 0.0), f"{where}: gain_db")
         q = _number(item.get("q", DEFAULT_Q), f"{where}: q")
         if freq <= 0:
-            raise HeadphoneEqError(f"{where}: frequency must be positive, got {freq!r}")
+            raise HeadphoneEqError(f"{where}: frequency must be positive, got {shown(freq)}")
         if abs(band_gain) > MAX_GAIN_DB:
             raise HeadphoneEqError(
-                f"{where}: gain_db {band_gain!r} is outside +/-{MAX_GAIN_DB:g} dB"
+                f"{where}: gain_db {shown(band_gain)} is outside +/-{MAX_GAIN_DB:g} dB"
             )
         if not 0.05 <= q <= 50:
-            raise HeadphoneEqError(f"{where}: q must be between 0.05 and 50, got {q!r}")
+            raise HeadphoneEqError(f"{where}: q must be between 0.05 and 50, got {shown(q)}")
         bands.append(Band(kind, freq, band_gain, q))
     return bands, gain
 
 
 def _number(value: Any, what: str) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise HeadphoneEqError(f"{what} must be a number, got {value!r}")
+        raise HeadphoneEqError(f"{what} must be a number, got {shown(value)}")
     return float(value)
 
 
@@ -206,12 +211,12 @@ class HeadphoneEq:
         What the render report says about it (file name, hash, bands, taps).
     """
 
-    ir: np.ndarray
+    ir: NDArray[np.float64]
     samplerate: float
     kind: str
-    report: dict
+    report: dict[str, Any]
 
-    def filters(self) -> np.ndarray:
+    def filters(self) -> NDArray[np.float64]:
         """The EQ as a ``(2, 2, N)`` filter bank (each ear to itself) for the engine."""
         out = np.zeros((2, 2, self.ir.shape[-1]))
         out[0, 0] = self.ir[0]
@@ -219,7 +224,9 @@ class HeadphoneEq:
         return out
 
 
-def bands_impulse_response(bands: list[Band], gain_db: float, samplerate: float) -> np.ndarray:
+def bands_impulse_response(
+    bands: list[Band], gain_db: float, samplerate: float
+) -> NDArray[np.float64]:
     """Impulse response of the cascade, cut once it has decayed by :data:`IIR_DECAY_DB`."""
     sos = bands_sos(bands, samplerate)
     n_max = int(MAX_IR_SECONDS * samplerate)
@@ -228,10 +235,12 @@ def bands_impulse_response(bands: list[Band], gain_db: float, samplerate: float)
     h = signal.sosfilt(sos, impulse)
     energy = np.cumsum((h**2)[::-1])[::-1]  # energy from each sample to the end
     keep = int(np.searchsorted(-energy, -energy[0] * 10 ** (IIR_DECAY_DB / 10)))
-    return h[: max(keep, 64)]
+    return cast(NDArray[np.float64], h[: max(keep, 64)])
 
 
-def load_headphone_eq(value: str | os.PathLike | list | dict, samplerate: float) -> HeadphoneEq:
+def load_headphone_eq(
+    value: str | os.PathLike[str] | list[Any] | dict[str, Any], samplerate: float
+) -> HeadphoneEq:
     """A headphone EQ from a JSON or audio file, or from an already parsed band list."""
     if isinstance(value, (list, dict)):
         bands, gain = parse_bands(value, source="headphone_eq")
@@ -258,7 +267,9 @@ def load_headphone_eq(value: str | os.PathLike | list | dict, samplerate: float)
     return _from_audio(path, samplerate, meta)
 
 
-def _from_bands(bands: list[Band], gain: float, samplerate: float, meta: dict) -> HeadphoneEq:
+def _from_bands(
+    bands: list[Band], gain: float, samplerate: float, meta: dict[str, Any]
+) -> HeadphoneEq:
     h = bands_impulse_response(bands, gain, samplerate)
     return HeadphoneEq(
         np.stack([h, h]),
@@ -274,7 +285,7 @@ def _from_bands(bands: list[Band], gain: float, samplerate: float, meta: dict) -
     )
 
 
-def _from_audio(path: Path, samplerate: float, meta: dict) -> HeadphoneEq:
+def _from_audio(path: Path, samplerate: float, meta: dict[str, Any]) -> HeadphoneEq:
     from ..errors import AudioError
     from ..io import read_audio  # soundfile stays behind audio_io
 

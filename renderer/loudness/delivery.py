@@ -1,18 +1,18 @@
 """The delivery stage: loudness-normalise a finished render, limit its true peak, write it.
 
 :func:`deliver` reads the float32 render twice. Pass 1 measures it (BS.1770-4 /
-EBU R 128, :mod:`earfold.renderer.loudness.meter`); a render made by :func:`earfold.renderer.render.render`
-was measured while it was written, and then pass 1 is skipped. The gain is then
-``target - measured`` (or the input stem's loudness minus the measured one for
-``"match"``, or 0 for ``None``). Pass 2 applies the gain, the true-peak limiter
-(:mod:`earfold.renderer.loudness.limiter`) unless it is off, meters the result and writes it with
-:class:`earfold.renderer.io.audio.OutputWriter` (TPDF dither at 16 bits, atomic rename). The
-render's true peak plus the gain tells the limiter beforehand whether anything can reach
-the ceiling; if not, it passes the render through without interpolating it (the same
-samples it would emit otherwise), and the output, the render times the gain, is not
-metered again: its figures are the render's meter read with the gain
-(:meth:`earfold.renderer.loudness.meter.LoudnessMeter.result`). The report section it returns says what
-was done and what came out.
+EBU R 128, :class:`~earfold.renderer.loudness.LoudnessMeter`); a render made by
+:func:`earfold.renderer.render.render` was measured while it was written, and then pass 1
+is skipped. The gain is then ``target - measured`` (or the input stem's loudness minus the
+measured one for ``"match"``, or 0 for ``None``). Pass 2 applies the gain, the true-peak
+limiter (:mod:`earfold.renderer.loudness.limiter`) unless it is off, meters the result and
+writes it with :class:`earfold.renderer.io.OutputWriter` (TPDF dither at 16 bits, atomic
+rename). The render's true peak plus the gain tells the limiter beforehand whether
+anything can reach the ceiling; if not, it passes the render through without
+interpolating it (the same samples it would emit otherwise), and the output, the render
+times the gain, is not metered again: its figures are the render's meter read with the
+gain (:meth:`earfold.renderer.loudness.LoudnessMeter.result`). The report section it
+returns says what was done and what came out.
 """
 
 from __future__ import annotations
@@ -20,27 +20,24 @@ from __future__ import annotations
 import contextlib
 import math
 import os
-import re
 from collections.abc import Callable
-from dataclasses import dataclass, replace
+from dataclasses import replace
+from typing import Any
 
 import numpy as np
+from numpy.typing import NDArray
 
-from ..defaults import LOUDNESS_RANGE_LUFS, TRUE_PEAK_RANGE_DBTP
-from ..errors import DeliveryError
+from ..errors import DeliveryError, RenderCancelled
 from ..pipeline import BackgroundWriter, prefetch
+from ._levels import round_or_none
+from ._meter import LoudnessMeter
+from ._targets import MATCH, DeliveryOptions
 from .limiter import TruePeakLimiter
-from .meter import LoudnessMeter, LoudnessResult
 
 __all__ = [
     "DELIVERY_BLOCK_FRAMES",
     "HEAVY_LIMITING_DB",
-    "DeliveryError",
-    "DeliveryOptions",
     "deliver",
-    "format_measurement",
-    "parse_loudness",
-    "parse_true_peak",
 ]
 
 DELIVERY_BLOCK_FRAMES = 65536
@@ -56,115 +53,6 @@ _NO_CLIP_DBFS = -0.01
 # any output subtype (PCM_16 dither adds at most 1 LSB, -90 dB), so its output is the
 # render times the gain.
 _PASS1_SHARE = 0.3  # share of the progress bar for the measuring pass (no writing)
-_MATCH = "match"
-_OFF_WORDS = ("none", "off")
-_NUMBER = re.compile(r"^\s*([+-]?(?:\d+(?:\.\d*)?|\.\d+))\s*([a-z]*)\s*$", re.IGNORECASE)
-
-
-@dataclass(frozen=True)
-class DeliveryOptions:
-    """How a render is delivered.
-
-    Attributes
-    ----------
-    loudness : float, "match" or None
-        Integrated loudness target in LUFS (``-70 < x < 0``); ``"match"`` keeps the input
-        stem's programme loudness; ``None`` applies no gain.
-    true_peak : float or None
-        Limiter ceiling in dBTP (``-30 <= x <= 0``); ``None`` turns the limiter off (the
-        report then says so, and warns if the output exceeds 0 dBTP).
-    """
-
-    loudness: float | str | None = _MATCH
-    true_peak: float | None = -1.0
-
-    def __post_init__(self) -> None:
-        loud = self.loudness
-        if isinstance(loud, str):
-            if loud != _MATCH:
-                raise DeliveryError(
-                    f"loudness must be a LUFS number, {_MATCH!r} or None, "
-                    f"not {loud!r}; use parse_loudness() for text"
-                )
-        elif loud is not None:
-            object.__setattr__(
-                self,
-                "loudness",
-                _check_number(
-                    "loudness target", loud, LOUDNESS_RANGE_LUFS, "LUFS", open_interval=True
-                ),
-            )
-        if self.true_peak is not None:
-            object.__setattr__(
-                self,
-                "true_peak",
-                _check_number("true-peak ceiling", self.true_peak, TRUE_PEAK_RANGE_DBTP, "dBTP"),
-            )
-
-
-def parse_loudness(value: str) -> float | str | None:
-    """Read a loudness target from CLI or HTTP text.
-
-    Parameters
-    ----------
-    value : str
-        ``"-23"`` (optionally with ``LUFS`` or ``LKFS``), ``"match"``, or ``"none"`` /
-        ``"off"``; case and surrounding spaces do not matter.
-
-    Returns
-    -------
-    float, "match" or None
-
-    Raises
-    ------
-    DeliveryError
-        Naming the value and the choices.
-    """
-    text = value.strip().lower() if isinstance(value, str) else None
-    if text == _MATCH:
-        return _MATCH
-    if text in _OFF_WORDS:
-        return None
-    number = _parse_number(value, ("", "lufs", "lkfs"))
-    if number is None:
-        raise DeliveryError(
-            f"invalid loudness target {value!r}; give a level in LUFS between "
-            f"{LOUDNESS_RANGE_LUFS[0]:g} and {LOUDNESS_RANGE_LUFS[1]:g} (e.g. -23), 'match' to keep "
-            f"the input's loudness, or 'none' for no gain"
-        )
-    return _check_number(
-        "loudness target", number, LOUDNESS_RANGE_LUFS, "LUFS", open_interval=True, shown=value
-    )
-
-
-def parse_true_peak(value: str) -> float | None:
-    """Read a true-peak ceiling from CLI or HTTP text.
-
-    Parameters
-    ----------
-    value : str
-        ``"-1"`` (optionally with ``dBTP``), or ``"off"`` / ``"none"`` for no limiter.
-
-    Returns
-    -------
-    float or None
-
-    Raises
-    ------
-    DeliveryError
-        Naming the value and the choices.
-    """
-    text = value.strip().lower() if isinstance(value, str) else None
-    if text in _OFF_WORDS:
-        return None
-    number = _parse_number(value, ("", "dbtp"))
-    if number is None:
-        raise DeliveryError(
-            f"invalid true-peak ceiling {value!r}; give a level in dBTP from "
-            f"{TRUE_PEAK_RANGE_DBTP[0]:g} to {TRUE_PEAK_RANGE_DBTP[1]:g} (e.g. -1), or 'off' for no "
-            f"limiter"
-        )
-    return _check_number("true-peak ceiling", number, TRUE_PEAK_RANGE_DBTP, "dBTP", shown=value)
 
 
 def deliver(
@@ -179,7 +67,7 @@ def deliver(
     progress: Callable[[float], None] | None = None,
     cancelled: Callable[[], bool] | None = None,
     render_meter: LoudnessMeter | None = None,
-) -> dict:
+) -> dict[str, Any]:
     """Normalise, limit and write a render; return the report's delivery section.
 
     Parameters
@@ -197,11 +85,12 @@ def deliver(
     options : DeliveryOptions
         Loudness target and true-peak ceiling.
     input_loudness : float or None
-        Integrated loudness of the input stem in LUFS (:func:`earfold.renderer.loudness.meter.
-        measure_file` with :func:`earfold.renderer.loudness.meter.channel_weights`); used by
+        Integrated loudness of the input stem in LUFS
+        (:func:`~earfold.renderer.loudness.measure_file` with
+        :func:`~earfold.renderer.loudness.channel_weights`); used by
         ``"match"``. None when it could not be measured (silent stem).
     subtype, format, seed
-        Passed to :class:`earfold.renderer.io.audio.OutputWriter` (``seed`` seeds the PCM_16
+        Passed to :class:`earfold.renderer.io.OutputWriter` (``seed`` seeds the PCM_16
         dither).
     progress : callable, optional
         Called with the fraction done, 0 to 1 over both passes.
@@ -225,6 +114,30 @@ def deliver(
         ``true_peak_after_dbtp``, ``ceiling_dbtp``, ``limiter`` (``enabled``,
         ``max_gain_reduction_db``, ``samples_limited``, and look-ahead and release),
         ``clipped_samples`` and ``warnings``.
+
+    Examples
+    --------
+    Two seconds of stereo noise, delivered to -23 LUFS with the default -1 dBTP ceiling;
+    the delivered file, measured again, reads the target:
+
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> import numpy as np
+    >>> from earfold.renderer.io import write_audio
+    >>> from earfold.renderer.loudness import measure_file
+    >>> noise = np.random.default_rng(0).normal(0.0, 0.1, (2 * 48000, 2))
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     render = Path(folder) / "render.wav"
+    ...     delivered = Path(folder) / "delivered.wav"
+    ...     write_audio(render, noise.astype(np.float32), 48000, subtype="FLOAT")
+    ...     section = deliver(
+    ...         render, delivered, DeliveryOptions(loudness=-23.0), input_loudness=None
+    ...     )
+    ...     measured = measure_file(delivered)
+    >>> round(section["output"]["integrated_lufs"], 1)
+    -23.0
+    >>> round(measured.integrated_lufs, 1)
+    -23.0
     """
     from ..io import OutputWriter, StemReader, probe_stem
 
@@ -236,8 +149,6 @@ def deliver(
 
     def poll() -> None:
         if cancelled is not None and cancelled():
-            from ..errors import RenderCancelled  # lazily: render imports this module
-
             raise RenderCancelled("render cancelled during delivery")
 
     def report(fraction: float) -> None:
@@ -260,7 +171,7 @@ def deliver(
     target = options.loudness
     target_lufs: float | None = None
     gain_db = 0.0
-    if target == _MATCH:
+    if target == MATCH:
         target_lufs = None if input_loudness is None else float(input_loudness)
         if target_lufs is None:
             warnings.append(
@@ -328,7 +239,7 @@ def deliver(
                 None if after is None else threads.enter_context(BackgroundWriter(after.process))
             )
 
-            def emit(block: np.ndarray) -> None:
+            def emit(block: NDArray[np.float32]) -> None:
                 if block.shape[0]:
                     if metering is not None:
                         metering.submit(block)
@@ -388,14 +299,14 @@ def deliver(
 
     return {
         "target": target,
-        "target_lufs": _round(target_lufs),
-        "input_integrated_lufs": _round(input_loudness),
-        "render_integrated_lufs": _round(rendered),
+        "target_lufs": round_or_none(target_lufs),
+        "input_integrated_lufs": round_or_none(input_loudness),
+        "render_integrated_lufs": round_or_none(rendered),
         "gain_db": round(gain_db, 2),
         "output": {**result.to_dict(), "format": out_format, "subtype": subtype},
         "output_from_render": after is None,
-        "true_peak_before_dbtp": _round(tp_before),
-        "true_peak_after_dbtp": _round(tp_after),
+        "true_peak_before_dbtp": round_or_none(tp_before),
+        "true_peak_after_dbtp": round_or_none(tp_after),
         "ceiling_dbtp": options.true_peak,
         "limiter": {
             "enabled": limiter is not None,
@@ -411,67 +322,5 @@ def deliver(
     }
 
 
-def format_measurement(result: LoudnessResult) -> str:
-    """A few aligned lines summarising a measurement, for the command line."""
-
-    def level(value: float | None, unit: str, missing: str) -> str:
-        return f"{value:7.1f} {unit}" if value is not None else f"    n/a ({missing})"
-
-    short = "under 3 s of audio" if result.duration_s < 3.0 else "all gated"
-    lines = [
-        ("integrated", level(result.integrated_lufs, "LUFS", "silent or under 0.4 s")),
-        ("loudness range", level(result.loudness_range_lu, "LU", short)),
-        ("momentary max", level(result.momentary_max_lufs, "LUFS", "under 0.4 s of audio")),
-        ("short-term max", level(result.short_term_max_lufs, "LUFS", "under 3 s of audio")),
-        ("true peak", level(result.true_peak_dbtp, "dBTP", "digital silence")),
-        ("sample peak", level(result.sample_peak_dbfs, "dBFS", "digital silence")),
-        (
-            "duration",
-            f"{result.duration_s:7.1f} s ({result.samplerate:g} Hz, "
-            f"{result.channels} channel{'s' if result.channels != 1 else ''})",
-        ),
-    ]
-    width = max(len(name) for name, _ in lines)
-    return "\n".join(f"{name:<{width}}  {text}" for name, text in lines)
-
-
-def _parse_number(value: object, units: tuple[str, ...]) -> float | None:
-    if not isinstance(value, str):
-        return None
-    match = _NUMBER.match(value)
-    if match is None or match.group(2).lower() not in units:
-        return None
-    return float(match.group(1))
-
-
-def _check_number(
-    what: str,
-    value: object,
-    bounds: tuple[float, float],
-    unit: str,
-    *,
-    open_interval: bool = False,
-    shown: object = None,
-) -> float:
-    lo, hi = bounds
-    shown = value if shown is None else shown
-    if (
-        isinstance(value, bool)
-        or not isinstance(value, (int, float, np.number))
-        or not math.isfinite(float(value))
-    ):
-        raise DeliveryError(f"invalid {what} {shown!r}; expected a number of {unit}")
-    v = float(value)
-    inside = lo < v < hi if open_interval else lo <= v <= hi
-    if not inside:
-        interval = f"between {lo:g} and {hi:g}" if open_interval else f"from {lo:g} to {hi:g}"
-        raise DeliveryError(f"{what} {shown!r} is out of range; choose {interval} {unit}")
-    return v
-
-
 def _dbtp(peak: float) -> float | None:
     return 20.0 * math.log10(peak) if peak > 0 else None
-
-
-def _round(value: float | None, digits: int = 2) -> float | None:
-    return None if value is None else round(float(value), digits)

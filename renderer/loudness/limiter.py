@@ -1,7 +1,7 @@
 """A look-ahead true-peak limiter that keeps a render under its ceiling.
 
 The gain is computed from the same interpolated peaks the true-peak meter reads
-(:class:`earfold.renderer.loudness.meter.PeakInterpolator`), applied identically to every channel (so
+(:class:`earfold.renderer.loudness.PeakInterpolator`), applied identically to every channel (so
 a binaural image does not move), and checked: the limited signal is interpolated again
 before it leaves, and wherever a point still reads above the ceiling the gain there is
 lowered and recomputed. The output is time-aligned with the input and exactly as long.
@@ -32,14 +32,17 @@ bit-identical to the same signal limited in one block.
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
-from scipy.ndimage import maximum_filter1d
+from numpy.typing import NDArray
 
 from ..blocks import check_block
 from ..defaults import TRUE_PEAK_RANGE_DBTP
 from ..errors import AudioError
-from .meter import PeakInterpolator
+from ._gain_curve import gain_curve, quantise
+from ._levels import check_channels, check_range, shown
+from ._true_peak import PeakInterpolator
 
 __all__ = [
     "DEFAULT_CEILING_DBTP",
@@ -77,10 +80,6 @@ _CORRECTION_AIM = 10.0 ** (-0.01 / 20.0)
 # A correction aims at the target, or 0.01 dB under the check level should that be lower,
 # so that a corrected point is never left at the check level itself.
 
-_RELEASE_FLOOR_DB = 1e-4
-# A release that has decayed below 0.0001 dB (1e-5 in amplitude) ends: the gain returns
-# to exactly 1, so quiet passages after a limited one are bit-transparent again.
-
 _STEP = 8192
 # Frames per processing step. Each step recomputes the gain over the frames not yet
 # emitted (the look-ahead plus the lag below) and one step's new frames, so larger steps
@@ -93,10 +92,6 @@ _BYPASS_MARGIN = 1e-5
 
 _NORMAL_PASSES = 8
 _MAX_PASSES = 64
-_U_SCALE = float(2**36)
-# Gain reductions are averaged as integers in units of 2**-36: an exact running sum, so
-# the result does not depend on where a step starts, and a window without reduction
-# averages to exactly 0 (gain exactly 1).
 
 
 class TruePeakLimiter:
@@ -109,16 +104,17 @@ class TruePeakLimiter:
     channels : int
         Channels per frame; all share one gain.
     ceiling_dbtp : float
-        Ceiling in dBTP, within :data:`~earfold.renderer.defaults.TRUE_PEAK_RANGE_DBTP`. The output's true peak (4x oversampled,
-        :class:`earfold.renderer.loudness.meter.TruePeakMeter`) does not exceed it; the gain aims
-        :data:`TARGET_MARGIN_DB` below.
+        Ceiling in dBTP, within :data:`~earfold.renderer.defaults.TRUE_PEAK_RANGE_DBTP`.
+        The output's true peak (4x oversampled,
+        :class:`~earfold.renderer.loudness.TruePeakMeter`) does not exceed it; the gain
+        aims :data:`TARGET_MARGIN_DB` below.
     lookahead_ms : float
         Look-ahead and attack ramp, 0.5 to 50 ms (:data:`DEFAULT_LOOKAHEAD_MS`).
     release_ms : float
         Release time constant, 1 to 5000 ms (:data:`DEFAULT_RELEASE_MS`).
     known_true_peak : float, optional
         The input's true peak (linear), measured in advance with the same interpolation
-        (:class:`earfold.renderer.loudness.meter.TruePeakMeter`), e.g. while the input was being made,
+        (:class:`earfold.renderer.loudness.TruePeakMeter`), e.g. while the input was being made,
         times any gain applied since. When it is clearly under the target (by
         :data:`_BYPASS_MARGIN`, far more than float32 rounding of the gain) no point can
         need a gain, so the limiter would pass every frame unchanged: it then does so at
@@ -138,7 +134,7 @@ class TruePeakLimiter:
         True when ``known_true_peak`` showed there is nothing to limit.
     input_true_peak, output_true_peak : float
         True peaks (linear) of the input received and of the output emitted so far, as
-        :class:`earfold.renderer.loudness.meter.TruePeakMeter` reads them; after :meth:`flush` they
+        :class:`earfold.renderer.loudness.TruePeakMeter` reads them; after :meth:`flush` they
         include the interpolation past the end. Both come from the interpolation the
         limiter does anyway, so a caller need not meter either again.
     latency : int
@@ -168,17 +164,12 @@ class TruePeakLimiter:
             or not 8000 <= samplerate <= 768000
         ):
             raise AudioError(
-                f"sample rate must be an integer from 8000 to 768000 Hz, not {samplerate!r}"
+                f"sample rate must be an integer from 8000 to 768000 Hz, not {shown(samplerate)}"
             )
-        if (
-            isinstance(channels, bool)
-            or not isinstance(channels, (int, np.integer))
-            or channels < 1
-        ):
-            raise AudioError(f"channels must be a positive integer, not {channels!r}")
-        _check_range("ceiling_dbtp", ceiling_dbtp, *TRUE_PEAK_RANGE_DBTP, "dBTP")
-        _check_range("lookahead_ms", lookahead_ms, 0.5, 50.0, "ms")
-        _check_range("release_ms", release_ms, 1.0, 5000.0, "ms")
+        check_channels(channels)
+        check_range("ceiling_dbtp", ceiling_dbtp, *TRUE_PEAK_RANGE_DBTP, "dBTP")
+        check_range("lookahead_ms", lookahead_ms, 0.5, 50.0, "ms")
+        check_range("release_ms", release_ms, 1.0, 5000.0, "ms")
         self.samplerate = int(samplerate)
         self.channels = int(channels)
         self.ceiling_dbtp = float(ceiling_dbtp)
@@ -228,7 +219,7 @@ class TruePeakLimiter:
             known = float(known_true_peak)
             if not math.isfinite(known) or known < 0.0:
                 raise AudioError(
-                    f"known_true_peak must be a finite level >= 0, not {known_true_peak!r}"
+                    f"known_true_peak must be a finite level >= 0, not {shown(known_true_peak)}"
                 )
             if known <= self._target * (1.0 - _BYPASS_MARGIN):
                 self.bypassed = True
@@ -237,7 +228,7 @@ class TruePeakLimiter:
 
     # ------------------------------------------------------------------------ public
 
-    def process(self, block: np.ndarray) -> np.ndarray:
+    def process(self, block: NDArray[np.floating[Any]]) -> NDArray[np.float32]:
         """Feed a ``(n, channels)`` float block; return the frames now final (float32)."""
         if self._flushed:
             raise AudioError("the limiter was flushed; create a new one for another stream")
@@ -255,7 +246,7 @@ class TruePeakLimiter:
             self._steps += 1
         return _join(out, self.channels)
 
-    def flush(self) -> np.ndarray:
+    def flush(self) -> NDArray[np.float32]:
         """Return the remaining frames (float32); the limiter is finished afterwards."""
         if self._flushed:
             return np.zeros((0, self.channels), dtype=np.float32)
@@ -292,7 +283,7 @@ class TruePeakLimiter:
 
     # ---------------------------------------------------------------------- internals
 
-    def _append(self, block: np.ndarray) -> None:
+    def _append(self, block: NDArray[np.floating[Any]]) -> None:
         if block.shape[0] == 0:
             return
         x = block.astype(np.float64)
@@ -317,13 +308,13 @@ class TruePeakLimiter:
         self._f = np.concatenate([self._f, np.ones(x.shape[0])])
         self._received += x.shape[0]
 
-    def _note_overs(self, peaks: np.ndarray, first: int) -> None:
+    def _note_overs(self, peaks: NDArray[np.float64], first: int) -> None:
         """Record the frames (``first`` + index) of points above the target."""
         over = np.flatnonzero(peaks > self._target)
         if over.size:
             self._overs = np.concatenate([self._overs, over + first])
 
-    def _step(self, checked: int, final: bool, end: int | None = None) -> np.ndarray:
+    def _step(self, checked: int, final: bool, end: int | None = None) -> NDArray[np.float32]:
         """Settle the gain of frames [emitted, checked) and emit what can no longer change."""
         start = self._emitted
         m = checked - start
@@ -389,14 +380,19 @@ class TruePeakLimiter:
         self._r_prev = float(r[count - 1])
         if lookahead > 1:
             if start == 0:
-                self._u_hist = np.full(lookahead - 1, _quantise(held0)[0])
+                self._u_hist = np.full(lookahead - 1, quantise(held0)[0])
             self._u_hist = np.concatenate([self._u_hist, u])[count : count + lookahead - 1]
         self._advance(z, count, stop)
         return out
 
     def _pass_idle(
-        self, x: np.ndarray, p: np.ndarray, start: int, stop: int, final: bool
-    ) -> np.ndarray:
+        self,
+        x: NDArray[np.float64],
+        p: NDArray[np.float64],
+        start: int,
+        stop: int,
+        final: bool,
+    ) -> NDArray[np.float32]:
         """Emit an idle step's frames as they are (gain 1; the state stays at rest)."""
         count = stop - start
         k = x.shape[0] if final else max(count, 0)
@@ -409,7 +405,7 @@ class TruePeakLimiter:
         self._advance(z, count, stop)
         return z[:count]
 
-    def _advance(self, z: np.ndarray, count: int, stop: int) -> None:
+    def _advance(self, z: NDArray[np.float32], count: int, stop: int) -> None:
         """Drop the ``count`` frames emitted (output ``z`` starts with them)."""
         e = self._E
         if e:
@@ -425,7 +421,11 @@ class TruePeakLimiter:
         self._emitted = stop
 
     def _track_output(
-        self, z: np.ndarray, checked: np.ndarray | None, p: np.ndarray, t: np.ndarray
+        self,
+        z: NDArray[np.float32],
+        checked: NDArray[np.float64] | None,
+        p: NDArray[np.float64],
+        t: NDArray[np.float64],
     ) -> None:
         """Raise the output's running true peak with the final points of ``z``.
 
@@ -455,69 +455,25 @@ class TruePeakLimiter:
         """True peak of the output so far (linear); see the class attributes."""
         return self._out_peak
 
-    def _gain(self, p: np.ndarray, f: np.ndarray, m: int) -> tuple[np.ndarray, ...]:
+    def _gain(
+        self, p: NDArray[np.float64], f: NDArray[np.float64], m: int
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.int64], NDArray[np.float64]]:
         """Gain of the frames [emitted, emitted + m) from point peaks and extra limits."""
-        e, lookahead = self._E, self._L
-        # Need of each sample, in dB of reduction: the strictest point it belongs to.
-        worst = _forward_max(p, e + 1)[: f.size]
-        with np.errstate(divide="ignore"):
-            need = np.maximum(20.0 * np.log10(np.maximum(worst, 1e-300) / self._target), 0.0)
-            need = np.maximum(need, -20.0 * np.log10(np.maximum(f, 1e-15)))
-        held = _forward_max(need, lookahead + e)[:m]
-        r = self._release(held)
-        u = _quantise(r)
-        if lookahead > 1:
-            hist = self._u_hist
-            if self._emitted == 0:
-                # Before the stream there is only silence, whose gain does not matter: let
-                # it carry the first frame's held reduction, so the ramp down for a peak
-                # at the very start happens "before" it instead of being cut short.
-                hist = np.full(lookahead - 1, _quantise(held[:1])[0])
-            csum = np.concatenate([[0], np.cumsum(np.concatenate([hist, u]))])
-            window = csum[lookahead:] - csum[:-lookahead]
-        else:
-            window = u
-        g = 1.0 - window / (lookahead * _U_SCALE)
-        return g, r, u, held[:1]
-
-    def _release(self, held: np.ndarray) -> np.ndarray:
-        """r[i] = max(held[i], r[i-1] * exp(-lambda)), vectorised in the log domain."""
-        lam = self._lambda
-        i = np.arange(held.size)
-        with np.errstate(divide="ignore"):
-            v = np.log(held) + i * lam
-            start = math.log(self._r_prev) - lam if self._r_prev > 0 else -math.inf
-        acc = np.maximum.accumulate(np.maximum(v, start))
-        r = np.exp(acc - i * lam)
-        r = np.maximum(r, held)  # exact where the need itself sets the reduction
-        r[r < _RELEASE_FLOOR_DB] = 0.0
-        return r
+        return gain_curve(
+            p,
+            f,
+            m,
+            history=self._E,
+            lookahead=self._L,
+            target=self._target,
+            release_per_frame=self._lambda,
+            previous_release=self._r_prev,
+            ramp_history=None if self._emitted == 0 else self._u_hist,
+        )
 
 
-def _quantise(reduction_db: np.ndarray) -> np.ndarray:
-    """Gain reduction 1 - gain in units of 2**-36, rounded up (never less reduction)."""
-    return np.ceil((1.0 - 10.0 ** (-reduction_db / 20.0)) * _U_SCALE).astype(np.int64)
-
-
-def _forward_max(a: np.ndarray, size: int) -> np.ndarray:
-    """m[i] = max(a[i : i + size]), with a taken as 0 beyond its end."""
-    if size <= 1 or a.size == 0:
-        return a.copy()
-    return maximum_filter1d(a, size, origin=-(size // 2), mode="constant", cval=0.0)
-
-
-def _join(parts: list[np.ndarray], channels: int) -> np.ndarray:
+def _join(parts: list[NDArray[np.float32]], channels: int) -> NDArray[np.float32]:
     parts = [p for p in parts if p.shape[0]]
     if not parts:
         return np.zeros((0, channels), dtype=np.float32)
     return parts[0] if len(parts) == 1 else np.concatenate(parts)
-
-
-def _check_range(name: str, value: object, lo: float, hi: float, unit: str) -> None:
-    if (
-        isinstance(value, bool)
-        or not isinstance(value, (int, float, np.number))
-        or not math.isfinite(float(value))
-        or not lo <= float(value) <= hi
-    ):
-        raise AudioError(f"{name} must be a number from {lo:g} to {hi:g} {unit}, not {value!r}")

@@ -84,6 +84,18 @@ def test_band_list_errors_name_the_problem():
         bands_sos([Band("peaking", 30000.0, 3.0)], 48000.0)
 
 
+def test_band_list_errors_describe_values_without_printing_their_contents():
+    # An array, bytes or a long list where a band or a number belongs is named by its
+    # kind and size; a message never carries the value's whole repr.
+    with pytest.raises(HeadphoneEqError, match=r"band 1: expected an object, got a list of 500"):
+        parse_bands([list(range(500))])
+    with pytest.raises(HeadphoneEqError, match=r"frequency must be a number, got 3 bytes"):
+        parse_bands([{"type": "peaking", "frequency": b"1e3"}])
+    with pytest.raises(HeadphoneEqError) as info:
+        parse_bands([{"type": "peaking", "frequency": np.arange(100.0)}])
+    assert "an array of shape (100,)" in str(info.value) and "99." not in str(info.value)
+
+
 def test_example_files_load_and_shape_the_response():
     bright = load_headphone_eq(REPO / "examples" / "headphone_eq" / "bright.json", 48000.0)
     dark = load_headphone_eq(REPO / "examples" / "headphone_eq" / "dark.json", 48000.0)

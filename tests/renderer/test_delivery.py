@@ -3,7 +3,7 @@
 Delivered loudness is read back from the written file by pyloudnorm (PyPI,
 ``Meter(rate, filter_class="DeMan")``, an independent BS.1770-4 implementation) where it
 is installed, and by our own meter otherwise; the true peak by
-:func:`earfold.renderer.loudness.meter.true_peak` (checked against EBU Tech 3341 in
+:func:`earfold.renderer.loudness.true_peak` (checked against EBU Tech 3341 in
 test_loudness.py). Test renders are made here: noise bursts as programme material.
 """
 

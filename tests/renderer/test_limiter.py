@@ -1,7 +1,7 @@
 """Tests of the look-ahead true-peak limiter.
 
 The ceiling is checked with an independent reading of the output: a fresh
-:class:`earfold.renderer.loudness.meter.TruePeakMeter` (BS.1770-4 Annex 2 method, 4x oversampling,
+:class:`earfold.renderer.loudness.TruePeakMeter` (BS.1770-4 Annex 2 method, 4x oversampling,
 checked against EBU Tech 3341 in test_loudness.py) run on the float32 output. Hard
 signals follow the issue's list: full-scale square waves, fs/4 sines at 45 degrees,
 clipped noise, single impulses (also on the first and last frame), bursts after silence,

@@ -23,12 +23,13 @@ import pytest
 import scipy.signal
 from numpy.testing import assert_allclose
 
-import earfold.renderer.loudness.meter as loudness
+import earfold.renderer.loudness._gating as gating
 from earfold.renderer.errors import AudioError
 from earfold.renderer.io import write_audio
 from earfold.renderer.layouts import get_layout
 from earfold.renderer.loudness import (
     K_WEIGHTING_48K,
+    SERIES_FLOOR_LUFS,
     LoudnessMeter,
     PeakInterpolator,
     TruePeakMeter,
@@ -37,6 +38,7 @@ from earfold.renderer.loudness import (
     k_weighting_parameters,
     k_weighting_sos,
     measure_file,
+    measure_for_layout,
     true_peak,
 )
 
@@ -280,7 +282,7 @@ def test_silence_and_short_input_report_none_and_serialise_to_json():
     assert silent.integrated_lufs is None
     assert silent.loudness_range_lu is None
     assert silent.true_peak_dbtp is None
-    assert silent.momentary_series[0] == loudness.SERIES_FLOOR_LUFS
+    assert silent.momentary_series[0] == SERIES_FLOOR_LUFS
     short = meter(sine(-20.0, 0.3))
     assert short.integrated_lufs is None and short.momentary_max_lufs is None
     assert short.true_peak_dbtp is not None
@@ -298,7 +300,7 @@ def test_to_dict_rounds_and_labels_the_series():
 
 
 def test_series_stay_capped_and_keep_the_maximum(monkeypatch):
-    monkeypatch.setattr(loudness, "SERIES_MAX_POINTS", 64)
+    monkeypatch.setattr(gating, "SERIES_MAX_POINTS", 64)
     rng = np.random.default_rng(3)
     result = meter(programme(rng, 40.0, 2))
     assert len(result.momentary_series) <= 64
@@ -342,6 +344,42 @@ def test_bad_input_is_refused_with_clear_messages():
         LoudnessMeter(FS, 2, weights=[1.0])
     with pytest.raises(AudioError, match="sample rate must be from 8000 to 768000 Hz, not 100"):
         LoudnessMeter(100, 2)
+
+
+def test_messages_name_counts_not_array_contents():
+    # A mismatched weight array is described by its size, never printed.
+    with pytest.raises(AudioError) as info:
+        LoudnessMeter(FS, 2, weights=channel_weights("5.1"))
+    message = str(info.value)
+    assert "got 6 values" in message and "array" not in message and "[" not in message
+    with pytest.raises(AudioError, match="got negative or non-finite values"):
+        LoudnessMeter(FS, 2, weights=[1.0, -1.0])
+    with pytest.raises(AudioError, match=r"not an array of shape \(2,\)"):
+        LoudnessMeter(np.array([48000, 44100]), 2)
+
+
+def test_layout_weights_apply_only_to_files_with_the_layouts_channel_count(tmp_path):
+    rng = np.random.default_rng(5)
+    stem = programme(rng, 4.0, 6)
+    binaural = programme(rng, 4.0, 2)
+    write_audio(tmp_path / "stem.wav", stem, FS, subtype="FLOAT")
+    write_audio(tmp_path / "binaural.wav", binaural, FS, subtype="FLOAT")
+
+    weighted = measure_for_layout(tmp_path / "stem.wav", "5.1")
+    assert weighted.weighted and weighted.layout == "5.1"
+    assert weighted.result == measure_file(tmp_path / "stem.wav", channel_weights("5.1"))
+    assert weighted.to_dict()["channel_weights"] == "layout"
+    assert "layout 5.1" in weighted.weights_text
+
+    plain = measure_for_layout(tmp_path / "binaural.wav", get_layout("5.1"))
+    assert not plain.weighted
+    assert plain.result == measure_file(tmp_path / "binaural.wav")
+    assert plain.to_dict()["channel_weights"] == "plain"
+    assert plain.to_dict()["weights_layout"] is None
+    assert "plain" in plain.weights_text and "not the 6 of layout 5.1" in plain.weights_text
+
+    none = measure_for_layout(tmp_path / "binaural.wav", None)
+    assert not none.weighted and none.weights_text == "plain, 1.0 per channel"
 
 
 @pytest.mark.parametrize(

@@ -282,3 +282,28 @@ def test_render_options_come_from_the_declaration(tmp_path, stem51):
     proc = _run("render", str(stem51), "-o", str(out), "--loudness", "-70")
     assert proc.returncode == 2
     assert "between -70 and 0 LUFS (exclusive)" in proc.stderr
+
+
+def test_loudness_with_a_layout_weights_only_the_matching_file(tmp_path, capsys):
+    # A 5.1 stem and its two-channel render in one call: the layout's weights go to the
+    # stem; the render is measured with plain weights, and the output says which is which.
+    rng = np.random.default_rng(8)
+    stem = tmp_path / "stem.wav"
+    render = tmp_path / "render.wav"
+    write_audio(stem, (0.1 * rng.standard_normal((FS, 6))).astype(np.float32), FS)
+    write_audio(render, (0.1 * rng.standard_normal((FS, 2))).astype(np.float32), FS)
+
+    assert main(["loudness", str(stem), str(render), "--layout", "5.1"]) == 0
+    text = capsys.readouterr().out
+    stem_part, render_part = text.split(f"{render}:")
+    assert "channel weights  layout 5.1" in stem_part
+    assert "channel weights  plain, 1.0 per channel" in render_part
+    assert "not the 6 of layout 5.1" in render_part
+
+    assert main(["loudness", str(stem), str(render), "--layout", "5.1", "--json"]) == 0
+    entries = json.loads(capsys.readouterr().out)
+    assert [(e["file"], e["channel_weights"], e["weights_layout"]) for e in entries] == [
+        ("stem.wav", "layout", "5.1"),
+        ("render.wav", "plain", None),
+    ]
+    assert all(e["integrated_lufs"] is not None for e in entries)
