@@ -11,7 +11,7 @@ A cancelled render is not bad input: :class:`RenderCancelled` is its own kind, o
 from __future__ import annotations
 
 __all__ = [
-    "describe_value",
+    "shown",
     "AudioError",
     "DeliveryError",
     "EqualisationError",
@@ -73,33 +73,64 @@ class RenderCancelled(Exception):
     """
 
 
-def describe_value(value: object) -> str:
-    """A value as an error message shows it: plain words, never an array's or bytes' repr.
+def shown(value: object) -> str:
+    """``value`` as an error message shows it: words, never the repr of an array or bytes.
 
-    Strings, numbers and other small values appear as their ``repr``; numpy scalars as the
-    Python number they hold; bytes decoded (as Latin-1, which never fails); arrays and
-    other sized containers by their size, since their contents would bury the message.
+    Numbers, strings, short lists and mappings appear as Python writes them (``3``,
+    ``'x'``, ``[4, 3]``); numpy scalars and short arrays of numbers as plain numbers; other
+    arrays by their size and dtype, long lists and bytes by their length. Cut at
+    :data:`MAX_SHOWN` characters.
 
     Examples
     --------
     >>> import numpy as np
-    >>> describe_value(np.zeros(3))
-    'an array of 3 values'
-    >>> describe_value(np.zeros((2, 3)))
-    'an array of shape (2, 3)'
-    >>> describe_value(b"RIFF"), describe_value(np.float64(0.5)), describe_value("x")
-    ("'RIFF'", '0.5', "'x'")
+    >>> shown(np.float64(0.5)), shown("x"), shown([4, 3])
+    ('0.5', "'x'", '[4, 3]')
+    >>> shown(np.array([1.0, 2.5]))
+    '[1.0, 2.5]'
+    >>> shown(np.zeros(12))
+    'an array of 12 float64 values'
+    >>> shown(np.zeros((2, 3)))
+    'a 2 x 3 array of float64 values'
+    >>> shown(b"RIFF")
+    'binary data (4 bytes)'
     """
+    text = _described(value)
+    return text if len(text) <= MAX_SHOWN else text[: MAX_SHOWN - 3] + "..."
+
+
+#: Longest rendering of a value in a message; longer ones are cut with "...".
+MAX_SHOWN = 120
+
+#: Longest one-dimensional array of numbers shown value by value.
+MAX_LISTED = 8
+
+
+def _described(value: object) -> str:
+    if isinstance(value, (bytes, bytearray, memoryview)):
+        return f"binary data ({len(value)} byte{'' if len(value) == 1 else 's'})"
     shape = getattr(value, "shape", None)
-    if isinstance(value, (bytes, bytearray)):
-        return repr(bytes(value).decode("latin-1"))
-    if isinstance(shape, tuple) and hasattr(value, "dtype"):
-        if shape == ():  # a numpy scalar or a 0-d array: the number it holds
-            item = getattr(value, "item", None)
-            return repr(item()) if callable(item) else repr(value)
+    dtype = getattr(value, "dtype", None)
+    if isinstance(shape, tuple) and dtype is not None:  # a numpy array or scalar
+        item = getattr(value, "item", None)
+        if shape == () and callable(item):
+            number = item()
+            return repr(number) if type(number) is type(value) else _described(number)
+        tolist = getattr(value, "tolist", None)
+        listed = len(shape) == 1 and shape[0] <= MAX_LISTED
+        if listed and getattr(dtype, "kind", "") in "biuf" and callable(tolist):
+            # A few numbers read best as the numbers themselves.
+            return "[" + ", ".join(_described(v) for v in tolist()) + "]"
         if len(shape) == 1:
-            return f"an array of {shape[0]} value{'' if shape[0] == 1 else 's'}"
-        return f"an array of shape {tuple(int(n) for n in shape)!r}"
-    if isinstance(value, (list, tuple, set, frozenset, dict)) and len(value) > 8:
+            return f"an array of {shape[0]} {dtype} values"
+        return f"a {' x '.join(str(n) for n in shape)} array of {dtype} values"
+    if isinstance(value, (list, tuple)) and len(value) > MAX_LISTED:
         return f"a {type(value).__name__} of {len(value)} items"
+    if isinstance(value, list):
+        return "[" + ", ".join(_described(v) for v in value) + "]"
+    if isinstance(value, tuple):
+        inner = ", ".join(_described(v) for v in value)
+        return f"({inner},)" if len(value) == 1 else f"({inner})"
+    if isinstance(value, dict):
+        return "{" + ", ".join(f"{_described(k)}: {_described(v)}" for k, v in value.items()) + "}"
     return repr(value)

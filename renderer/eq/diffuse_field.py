@@ -39,10 +39,9 @@ from numpy.typing import NDArray
 from scipy.spatial import SphericalVoronoi
 
 from ..engine import DEFAULT_BLOCK_SIZE
-from ..errors import EqualisationError
+from ..errors import EqualisationError, shown
 from ..hrtf import HrirPair, HrirSet
 from ..signals import minimum_phase_spectrum
-from ._values import shown
 
 #: The equalisation choices of ``--eq``.
 EQ_CHOICES = ("none", "diffuse-field")

@@ -29,8 +29,7 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import signal
 
-from ..errors import HeadphoneEqError
-from ._values import shown
+from ..errors import HeadphoneEqError, shown
 
 #: Band types of a JSON headphone EQ (Audio EQ Cookbook names, in snake case).
 BAND_TYPES = ("peaking", "low_shelf", "high_shelf", "low_pass", "high_pass")

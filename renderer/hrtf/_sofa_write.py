@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from ..errors import SofaError, describe_value
+from ..errors import SofaError, shown
 from ._sofa_data import MAX_SAMPLERATE, MIN_SAMPLERATE, NcDataset
 
 __all__ = ["SofaContents", "fill_dataset", "prepare_contents"]
@@ -79,9 +79,7 @@ def prepare_contents(
     try:
         rate = float(samplerate)
     except (TypeError, ValueError):
-        raise SofaError(
-            f"{label}: samplerate must be a number, got {describe_value(samplerate)}"
-        ) from None
+        raise SofaError(f"{label}: samplerate must be a number, got {shown(samplerate)}") from None
     if not MIN_SAMPLERATE <= rate <= MAX_SAMPLERATE:
         raise SofaError(
             f"{label}: samplerate {rate!r} Hz is outside {MIN_SAMPLERATE:g} to "
@@ -124,7 +122,7 @@ def prepare_contents(
     offset = float(receiver_offset)
     if not (np.isfinite(offset) and offset > 0):
         raise SofaError(
-            f"{label}: receiver_offset must be > 0 metres, got {describe_value(receiver_offset)}"
+            f"{label}: receiver_offset must be > 0 metres, got {shown(receiver_offset)}"
         )
 
     now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S")
@@ -155,18 +153,14 @@ def prepare_contents(
     }
     for key, value in (attributes or {}).items():
         if not isinstance(key, str) or not _ATTRIBUTE_NAME.fullmatch(key):
-            raise SofaError(
-                f"{label}: attribute name {describe_value(key)} is not a valid netCDF name"
-            )
+            raise SofaError(f"{label}: attribute name {shown(key)} is not a valid netCDF name")
         if key in _FIXED_ATTRIBUTES:
             raise SofaError(
                 f"{label}: attribute {key!r} is fixed by the convention; fixed attributes: "
                 f"{', '.join(_FIXED_ATTRIBUTES)}"
             )
         if not isinstance(value, str):
-            raise SofaError(
-                f"{label}: attribute {key!r} must be a string, got {describe_value(value)}"
-            )
+            raise SofaError(f"{label}: attribute {key!r} must be a string, got {shown(value)}")
         globals_[key] = value
     return SofaContents(globals_, data, rate, az, el, dist, dly, offset)
 

@@ -32,7 +32,7 @@ import numpy as np
 from scipy import signal
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
-from ..errors import HrirError, describe_value
+from ..errors import HrirError, shown
 from ..geometry import angle_between, normalize, vector_to_direction
 from .onsets import (
     cross_correlation_itd,
@@ -198,7 +198,7 @@ class HrirSet:
         if ratio <= 0 or abs(float(ratio) * self.samplerate - samplerate) > 1e-6 * samplerate:
             raise HrirError(
                 f"cannot resample HRIR set {self.name!r} from {self.samplerate:g} Hz "
-                f"to {describe_value(samplerate)} Hz"
+                f"to {shown(samplerate)} Hz"
             )
         # resample_poly keeps the waveform's amplitude; an impulse response must instead keep
         # its frequency response, and at a higher rate it has proportionally more samples

@@ -23,7 +23,7 @@ import numpy.typing as npt
 from scipy import fft as sp_fft
 from scipy import signal
 
-from ..errors import HrirError, describe_value
+from ..errors import HrirError, shown
 
 #: Default onset threshold in dB relative to each IR's absolute peak (common practice for
 #: onset-based ITD estimation on measured HRIRs).
@@ -90,10 +90,10 @@ def onset_times(
         raise HrirError(f"impulse responses need at least one sample, got shape {x.shape!r}")
     if not (np.isfinite(threshold_db) and threshold_db < 0):
         raise HrirError(
-            f"onset threshold must be a negative number of dB, got {describe_value(threshold_db)}"
+            f"onset threshold must be a negative number of dB, got {shown(threshold_db)}"
         )
     if int(oversample) != oversample or oversample < 1:
-        raise HrirError(f"oversample must be a positive integer, got {describe_value(oversample)}")
+        raise HrirError(f"oversample must be a positive integer, got {shown(oversample)}")
     oversample = int(oversample)
     lead = x.shape[:-1]
     flat = x.reshape(-1, x.shape[-1])
@@ -207,8 +207,7 @@ def cross_correlation_itd(
     pair = _check_pair(ir_pair, samplerate)
     if not (0 < cutoff < samplerate / 2):
         raise HrirError(
-            f"cut-off must lie between 0 and Nyquist ({samplerate / 2!r} Hz), "
-            f"got {describe_value(cutoff)}"
+            f"cut-off must lie between 0 and Nyquist ({samplerate / 2!r} Hz), got {shown(cutoff)}"
         )
     sos = signal.butter(4, cutoff, fs=samplerate, output="sos")
     # Zero-padding lets the filters ring out so both ears keep their whole response.
@@ -261,13 +260,11 @@ def fractional_delay(
     n = x.shape[-1]
     out_len = n if length is None else length
     if int(out_len) != out_len or out_len < 0:
-        raise HrirError(
-            f"output length must be a non-negative integer, got {describe_value(length)}"
-        )
+        raise HrirError(f"output length must be a non-negative integer, got {shown(length)}")
     out_len = int(out_len)
     d = np.asarray(delay, dtype=float)
     if not np.all(np.isfinite(d)):
-        raise HrirError(f"delays must be finite numbers of samples, got {describe_value(delay)}")
+        raise HrirError(f"delays must be finite numbers of samples, got {shown(delay)}")
     try:
         d = np.broadcast_to(d, x.shape[:-1])
     except ValueError:
@@ -292,7 +289,5 @@ def _check_pair(ir_pair: npt.ArrayLike, samplerate: float) -> npt.NDArray[np.flo
     if pair.ndim != 2 or pair.shape[0] != 2:
         raise HrirError(f"an HRIR pair must have shape (2, N), left ear first; got {pair.shape!r}")
     if not (np.isfinite(samplerate) and samplerate > 0):
-        raise HrirError(
-            f"sampling rate must be a positive number of Hz, got {describe_value(samplerate)}"
-        )
+        raise HrirError(f"sampling rate must be a positive number of Hz, got {shown(samplerate)}")
     return pair

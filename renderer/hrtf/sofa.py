@@ -32,7 +32,7 @@ import netCDF4
 import numpy as np
 import numpy.typing as npt
 
-from ..errors import SofaError, describe_value
+from ..errors import SofaError, shown
 from ..files import AtomicPath
 from ._sofa_data import (
     MAX_SAMPLERATE,
@@ -125,9 +125,7 @@ def read_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> So
     if emitter is not None and (
         isinstance(emitter, bool) or not isinstance(emitter, (int, np.integer))
     ):
-        raise SofaError(
-            f"{label}: emitter must be an integer index or None, got {describe_value(emitter)}"
-        )
+        raise SofaError(f"{label}: emitter must be an integer index or None, got {shown(emitter)}")
     check_file(p, label)
     try:
         # netCDF4's own types are richer than the helpers need: they see the protocol.

@@ -42,7 +42,7 @@ import numpy as np
 from scipy import special
 
 from ..defaults import SPEED_OF_SOUND
-from ..errors import HrirError, RendererError, describe_value
+from ..errors import HrirError, RendererError, shown
 from ..geometry import direction_to_vector, normalize
 
 #: Head radius in metres: the 8.75 cm of the Woodworth formula's usual statement
@@ -113,15 +113,13 @@ def series_terms(mu_max: float, rho: float = np.inf) -> int:
 
 def _check_geometry(radius: float, distance: float, c: float) -> float:
     if not (np.isfinite(radius) and radius > 0):
-        raise HrirError(
-            f"sphere radius must be a positive number of metres, got {describe_value(radius)}"
-        )
+        raise HrirError(f"sphere radius must be a positive number of metres, got {shown(radius)}")
     if not (np.isfinite(c) and c > 0):
-        raise HrirError(f"speed of sound must be a positive number of m/s, got {describe_value(c)}")
+        raise HrirError(f"speed of sound must be a positive number of m/s, got {shown(c)}")
     if np.isnan(distance) or distance <= radius:
         raise HrirError(
-            f"source distance must be greater than the sphere radius {describe_value(radius)} m "
-            f"(or inf for the far field), got {describe_value(distance)}"
+            f"source distance must be greater than the sphere radius {shown(radius)} m "
+            f"(or inf for the far field), got {shown(distance)}"
         )
     return float(distance) / float(radius)
 
@@ -226,7 +224,7 @@ def sphere_transfer_function(
         mu_pos = mu[~zero]
         n = series_terms(float(mu_pos.max()), rho) if terms is None else int(terms)
         if n < 1:
-            raise HrirError(f"the series needs at least 1 term, got terms={describe_value(terms)}")
+            raise HrirError(f"the series needs at least 1 term, got terms={shown(terms)}")
         coeff = _order_coefficients(mu_pos, rho, n)
         legendre = special.eval_legendre(np.arange(n)[:, None], cos_theta[None, :])
         out[:, ~zero] = legendre.T @ coeff
@@ -283,12 +281,10 @@ def sphere_hrirs(
     if dirs.ndim != 2 or dirs.shape[1] != 3:
         raise HrirError(f"directions must have shape (M, 3), got {dirs.shape!r}")
     if not (np.isfinite(samplerate) and samplerate > 0):
-        raise HrirError(
-            f"sampling rate must be a positive number of Hz, got {describe_value(samplerate)}"
-        )
+        raise HrirError(f"sampling rate must be a positive number of Hz, got {shown(samplerate)}")
     min_taps = 2 * TAIL_FADE_SAMPLES + LEAD_SAMPLES
     if int(taps) != taps or taps < min_taps:
-        raise HrirError(f"taps must be an integer >= {min_taps}, got {describe_value(taps)}")
+        raise HrirError(f"taps must be an integer >= {min_taps}, got {shown(taps)}")
     taps = int(taps)
     unit = normalize(dirs)
     if np.any(np.linalg.norm(unit, axis=1) == 0):
@@ -331,8 +327,7 @@ def sphere_grid(grid_deg: float = 10.0) -> tuple[np.ndarray, np.ndarray]:
     """
     if not (np.isfinite(grid_deg) and 0 < grid_deg <= 90 and (90.0 / grid_deg).is_integer()):
         raise HrirError(
-            f"grid spacing must divide 90 degrees (e.g. 5, 10, 15, 30), "
-            f"got {describe_value(grid_deg)}"
+            f"grid spacing must divide 90 degrees (e.g. 5, 10, 15, 30), got {shown(grid_deg)}"
         )
     rings = int(round(180.0 / grid_deg)) + 1
     az_list: list[np.ndarray] = []

@@ -9,7 +9,7 @@ from types import TracebackType
 import numpy as np
 import numpy.typing as npt
 
-from ..errors import AudioError, describe_value
+from ..errors import AudioError, shown
 from ._codec import CodecError, SoundFileHandle, failure_reason, open_for_reading
 from ._probe import StemInfo, probe_stem
 
@@ -92,9 +92,7 @@ class StemReader:
             or not isinstance(blocksize, (int, np.integer))
             or blocksize < 1
         ):
-            raise AudioError(
-                f"blocksize must be a positive integer, not {describe_value(blocksize)}"
-            )
+            raise AudioError(f"blocksize must be a positive integer, not {shown(blocksize)}")
         if not self._files:
             raise AudioError(f"the reader of {self.info.paths[0]!r} is closed")
         blocksize = int(blocksize)

@@ -11,7 +11,7 @@ import numpy as np
 import numpy.typing as npt
 
 from ..blocks import check_block
-from ..errors import AudioError, describe_value
+from ..errors import AudioError, shown
 from ..files import AtomicPath
 from ._codec import CodecError, SoundFileHandle, failure_reason, known_formats, open_for_writing
 from ._probe import INPUT_FORMATS, MAX_CHANNELS, MAX_SAMPLERATE, MIN_SAMPLERATE
@@ -58,8 +58,7 @@ def subtype_for(name: str) -> str:
     key = name.strip().upper() if isinstance(name, str) else None
     if key not in OUTPUT_SUBTYPES:
         raise AudioError(
-            f"unsupported output subtype {describe_value(name)}; choose one of "
-            f"{', '.join(OUTPUT_SUBTYPES)}"
+            f"unsupported output subtype {shown(name)}; choose one of {', '.join(OUTPUT_SUBTYPES)}"
         )
     return key
 
@@ -76,8 +75,7 @@ def _output_format(path: Path, format: str | None) -> str:
     key = format.strip().lower() if isinstance(format, str) else None
     if key not in OUTPUT_FORMATS:
         raise AudioError(
-            f"unsupported output format {describe_value(format)}; choose one of "
-            f"{', '.join(OUTPUT_FORMATS)}"
+            f"unsupported output format {shown(format)}; choose one of {', '.join(OUTPUT_FORMATS)}"
         )
     return OUTPUT_FORMATS[key]
 
@@ -158,8 +156,7 @@ class OutputWriter:
             or not 1 <= channels <= MAX_CHANNELS
         ):
             raise AudioError(
-                f"channels must be an integer from 1 to {MAX_CHANNELS}, "
-                f"not {describe_value(channels)}"
+                f"channels must be an integer from 1 to {MAX_CHANNELS}, not {shown(channels)}"
             )
         if (
             isinstance(samplerate, bool)
@@ -167,7 +164,7 @@ class OutputWriter:
             or not MIN_SAMPLERATE <= samplerate <= MAX_SAMPLERATE
         ):
             raise AudioError(
-                f"unsupported output sample rate {describe_value(samplerate)}; supported: "
+                f"unsupported output sample rate {shown(samplerate)}; supported: "
                 f"{MIN_SAMPLERATE} to {MAX_SAMPLERATE} Hz"
             )
         if fmt == "FLAC":

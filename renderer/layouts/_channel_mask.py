@@ -13,10 +13,9 @@ from __future__ import annotations
 import types
 from collections.abc import Mapping, Sequence
 
-from ..errors import LayoutError
+from ..errors import LayoutError, shown
 from ._labels import canonical_label
 from ._model import Layout
-from ._text import shown
 
 __all__ = [
     "SPEAKER_BITS",

@@ -13,12 +13,11 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from ..errors import LayoutError
+from ..errors import LayoutError, shown
 from ..files import read_json_file
 from ._catalogue import LAYOUTS
 from ._labels import label_key, wrap_azimuth
 from ._model import Layout, Speaker
-from ._text import shown
 
 __all__ = [
     "MAX_LABEL_LENGTH",

@@ -19,8 +19,7 @@ import re
 from collections.abc import Sequence
 from pathlib import Path
 
-from ..errors import LayoutError
-from ._text import shown
+from ..errors import LayoutError, shown
 
 __all__ = [
     "ALIASES",

@@ -15,10 +15,9 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from ..errors import LayoutError
+from ..errors import LayoutError, shown
 from ..geometry import direction_to_vector
 from ._labels import BS2051_NAME, FALLBACKS, label_key, layer_of, wrap_azimuth
-from ._text import shown
 
 __all__ = ["Layout", "Speaker"]
 

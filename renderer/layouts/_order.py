@@ -4,15 +4,14 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from ..errors import LayoutError
+from ..errors import LayoutError, shown
 from ._model import Layout
-from ._text import shown
 
 __all__ = ["resolve_channel_order"]
 
 
 def _plain(label: object) -> str:
-    """A label as a list in a message shows it: text as it is, anything else :func:`shown`."""
+    """A label as a list in a message shows it: text as it is, anything else as `shown`."""
     return label if isinstance(label, str) else shown(label)
 
 

@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 import math
-from typing import Any, overload
+from typing import overload
 
 import numpy as np
 from numpy.typing import NDArray
 
-from ..errors import AudioError
+from ..errors import AudioError, shown
 
 __all__ = [
     "amplitude_db",
@@ -17,7 +17,6 @@ __all__ = [
     "finite_or_none",
     "power_lufs",
     "round_or_none",
-    "shown",
 ]
 
 
@@ -65,24 +64,3 @@ def check_range(name: str, value: object, lo: float, hi: float, unit: str) -> No
         raise AudioError(
             f"{name} must be a number from {lo:g} to {hi:g} {unit}, not {shown(value)}"
         )
-
-
-def shown(value: object) -> str:
-    """A value as an error message shows it.
-
-    Numbers and text as written; arrays, bytes and long sequences by their kind and size,
-    never their contents (a message must stay one readable line).
-    """
-    # numpy scalars first: np.float64 is a float, but its repr names numpy.
-    if isinstance(value, np.generic):
-        item: Any = value.item()
-        return repr(item) if isinstance(item, (bool, int, float, str)) else type(value).__name__
-    if isinstance(value, (bool, int, float, str)) or value is None:
-        return repr(value)
-    if isinstance(value, np.ndarray):
-        return f"an array of shape {value.shape} ({value.dtype})"
-    if isinstance(value, (bytes, bytearray, memoryview)):
-        return f"{len(value)} bytes"
-    if isinstance(value, (list, tuple)):
-        return f"a {type(value).__name__} of {len(value)} items"
-    return f"a value of type {type(value).__name__}"

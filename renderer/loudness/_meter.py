@@ -31,7 +31,7 @@ from numpy.typing import NDArray
 from scipy import signal
 
 from ..blocks import check_block
-from ..errors import AudioError
+from ..errors import AudioError, shown
 from ._gating import (
     MAX_RESULT_GAIN_DB,
     RELATIVE_GATE_LU,
@@ -45,7 +45,6 @@ from ._levels import (
     finite_or_none,
     power_lufs,
     round_or_none,
-    shown,
 )
 from ._true_peak import TruePeakMeter
 

@@ -9,8 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..defaults import LOUDNESS_RANGE_LUFS, TRUE_PEAK_RANGE_DBTP
-from ..errors import DeliveryError
-from ._levels import shown
+from ..errors import DeliveryError, shown
 
 __all__ = ["MATCH", "DeliveryOptions", "parse_loudness", "parse_true_peak"]
 

@@ -39,9 +39,9 @@ from numpy.typing import NDArray
 
 from ..blocks import check_block
 from ..defaults import TRUE_PEAK_RANGE_DBTP
-from ..errors import AudioError
+from ..errors import AudioError, shown
 from ._gain_curve import gain_curve, quantise
-from ._levels import check_channels, check_range, shown
+from ._levels import check_channels, check_range
 from ._true_peak import PeakInterpolator
 
 __all__ = [

@@ -59,7 +59,7 @@ import numpy.typing as npt
 import scipy.fft
 
 from ..defaults import SPEED_OF_SOUND
-from ..errors import RoomError
+from ..errors import RoomError, shown
 from ..hrtf import HrirSet
 from ..layouts import Layout
 from ..signals import minimum_phase_spectrum
@@ -69,7 +69,6 @@ from ._image_source import image_sources
 from ._late_tail import DEFAULT_CROSSFADE_S, band_weights, late_tail
 from ._measure import measure_rt60
 from ._model import MAX_ORDER, Room
-from ._text import shown
 
 __all__ = [
     "LEAD_SAMPLES",

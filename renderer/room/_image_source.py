@@ -29,10 +29,9 @@ import numpy as np
 import numpy.typing as npt
 
 from ..defaults import SPEED_OF_SOUND
-from ..errors import RoomError
+from ..errors import RoomError, shown
 from ._acoustics import air_attenuation_db_per_km
 from ._model import MAX_ORDER, SURFACES, Room
-from ._text import shown
 
 __all__ = ["ImageSources", "image_sources"]
 

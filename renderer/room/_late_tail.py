@@ -50,11 +50,10 @@ import numpy as np
 import numpy.typing as npt
 import scipy.fft
 
-from ..errors import RoomError
+from ..errors import RoomError, shown
 from ._acoustics import BANDS_HZ
 from ._diffuse import DiffuseField
 from ._model import Room
-from ._text import shown
 
 __all__ = [
     "BAND_TRANSITION_OCTAVES",

@@ -13,9 +13,8 @@ import numpy as np
 import numpy.typing as npt
 from scipy import signal
 
-from ..errors import RoomError
+from ..errors import RoomError, shown
 from ._acoustics import BANDS_HZ
-from ._text import shown
 
 __all__ = ["measure_rt60"]
 

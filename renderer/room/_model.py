@@ -32,7 +32,7 @@ from typing import Any, TypeGuard
 import numpy as np
 import numpy.typing as npt
 
-from ..errors import RoomError
+from ..errors import RoomError, shown
 from ._acoustics import (
     AIR_M_PER_METRE,
     BANDS_HZ,
@@ -45,7 +45,6 @@ from ._acoustics import (
     polack_mixing_time,
     sabine_rt60,
 )
-from ._text import shown
 
 __all__ = [
     "DEFAULT_ORDER",

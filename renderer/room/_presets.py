@@ -31,10 +31,9 @@ import types
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from ..errors import RoomError
+from ..errors import RoomError, shown
 from ._model import Room
 from ._schema import load_room_file, room_from_dict
-from ._text import shown
 
 __all__ = ["ROOMS", "get_room"]
 

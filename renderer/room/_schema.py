@@ -7,11 +7,10 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from ..errors import RoomError
+from ..errors import RoomError, shown
 from ..files import read_json_file
 from ._acoustics import BANDS_HZ, absorption_for_rt60
 from ._model import MAX_DIMENSION, MIN_DIMENSION, SURFACES, Room, band_list, is_number
-from ._text import shown
 
 __all__ = ["MAX_ROOM_FILE_BYTES", "load_room_file", "room_from_dict"]
 

@@ -866,7 +866,7 @@ def test_writer_rejects_bad_arguments(tmp_path, overrides, match):
     "overrides, shown",
     [
         ({"distance": np.r_[np.ones(11), -2.0]}, "got -2.0"),
-        ({"attributes": {"Title": b"bytes"}}, "got 'bytes'"),
+        ({"attributes": {"Title": b"bytes"}}, "got binary data (5 bytes)"),
         ({"receiver_offset": np.float64(-0.1)}, "got -0.1"),
     ],
 )
