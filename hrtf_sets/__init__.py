@@ -84,8 +84,7 @@ SHIPPED: tuple[ShippedSet, ...] = (
         description=(
             "plane-wave response of a rigid sphere with point ears at +/-90 degrees "
             "azimuth: full-sphere grid at about 10 degrees spacing, 256 taps at 48 kHz; "
-            "no pinna, so no elevation cues; regenerate with "
-            "'python -m earfold.renderer.hrtf.sphere'"
+            "no pinna, so no elevation cues (hrtf_sets/rigid_sphere.md says how it is made)"
         ),
     ),
 )
