@@ -6,6 +6,7 @@ soundfile is imported in :mod:`._codec` and nowhere else in the renderer.
 from __future__ import annotations
 
 from .audio import (
+    INPUT_FORMATS,
     OutputWriter,
     StemInfo,
     StemReader,
@@ -18,6 +19,7 @@ from .audio import (
 from .wav_header import WAVE_FORMAT_EXTENSIBLE, read_channel_mask
 
 __all__ = [
+    "INPUT_FORMATS",
     "WAVE_FORMAT_EXTENSIBLE",
     "OutputWriter",
     "StemInfo",

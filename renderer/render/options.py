@@ -15,6 +15,7 @@ from __future__ import annotations
 import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 from ..defaults import (
@@ -46,6 +47,7 @@ __all__ = [
     "OptionSpec",
     "RenderSettings",
     "option",
+    "output_format",
     "settings_from_options",
 ]
 
@@ -298,6 +300,30 @@ class RenderSettings:
     excerpt: tuple[float, float] | None = None
     eq: str | None = None
     headphone_eq: str | os.PathLike[str] | list[Any] | dict[str, Any] | None = None
+
+
+def output_format(path: str | os.PathLike[str], format: str | None = None) -> str:
+    """The output format of a render written to ``path``: ``format``, or the extension's.
+
+    Raises
+    ------
+    OptionError
+        If neither names a format a render writes (:data:`FORMATS`). Reading takes more
+        formats than writing; the message says which.
+    """
+    from ..io import INPUT_FORMATS
+
+    if format is not None:
+        return option("format").check(format)  # type: ignore[no-any-return]
+    ext = Path(path).suffix.lower().lstrip(".")
+    if ext in FORMATS:
+        return ext
+    readable = ", ".join(f for f in INPUT_FORMATS if f != "WAVEX")
+    raise OptionError(
+        f"cannot tell the output format from the name {os.fspath(path)!r}: earfold writes "
+        f"{' and '.join('.' + f for f in FORMATS)} files (it reads {readable}); give the "
+        "output one of those extensions, or choose the format with --format"
+    )
 
 
 def settings_from_options(values: Mapping[str, Any]) -> RenderSettings:

@@ -209,6 +209,13 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         stem = _excerpt(stem, settings.excerpt)
     layout = _layout(stem, settings.layout)
     order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
+    if settings.layout is None:
+        # Said every time: a layout guessed from a channel count can be the wrong one.
+        warnings.insert(
+            0,
+            f"no layout was given: rendered as {layout.name}, the layout suggested for "
+            f"{stem.channels} channel(s); name the layout if the stem was mixed for another",
+        )
     path, name = resolve_hrtf(settings.hrtf)
     hset = load_hrir_set(path, stem.samplerate, name=name)
     hset, eq_report = _equalise(hset, settings.eq, warnings)

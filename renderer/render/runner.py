@@ -11,7 +11,7 @@ from typing import Any
 
 from ..io import subtype_for
 from ..loudness import DeliveryOptions, deliver
-from .options import RenderSettings
+from .options import RenderSettings, output_format
 from .plan import plan_render
 from .report import render_report
 from .stream import stream
@@ -76,6 +76,7 @@ def render(
     """
     t0 = time.perf_counter()
     subtype = subtype_for(settings.subtype)
+    output_format(output, settings.format)  # refused before any work, not after the render
     options = DeliveryOptions(loudness=settings.loudness, true_peak=settings.true_peak)
     plan = plan_render(inputs, settings)
     t_plan = time.perf_counter()

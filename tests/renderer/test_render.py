@@ -9,7 +9,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from earfold.renderer.engine import convolve_reference
-from earfold.renderer.errors import LayoutError, RenderCancelled, RendererError
+from earfold.renderer.errors import LayoutError, OptionError, RenderCancelled, RendererError
 from earfold.renderer.hrtf import interaural_time_difference
 from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.layouts import get_layout
@@ -131,6 +131,25 @@ def test_channel_count_mismatch_is_a_clear_error(tmp_path):
     with pytest.raises(LayoutError, match=r"6 channel\(s\) but layout '7.1' has 8"):
         render([stem], tmp_path / "x.wav", RenderSettings(layout="7.1"))
     assert not (tmp_path / "x.wav").exists()
+
+
+def test_an_output_name_of_a_format_we_only_read_is_refused_before_any_work(tmp_path):
+    # AIFF is read but not written: the message says which formats are written and read.
+    stem, _ = _stem(tmp_path, "2.0", {"L": _noise(100)})
+    with pytest.raises(OptionError, match=r"writes \.wav and \.flac files \(it reads .*AIFF"):
+        render([stem], tmp_path / "x.aiff", RenderSettings(layout="2.0"))
+    assert list(tmp_path.iterdir()) == [stem]
+    with pytest.raises(OptionError, match=r"format must be one of wav, flac"):
+        render([stem], tmp_path / "x.wav", RenderSettings(layout="2.0", format="aiff"))
+
+
+def test_a_render_without_a_layout_says_which_it_took(tmp_path):
+    stem, _ = _stem(tmp_path, "5.1", {"C": _noise(1000)})
+    _, report = _render(tmp_path, stem, None)
+    assert report["layout"]["name"] == "5.1"
+    assert any("no layout was given: rendered as 5.1" in w for w in report["warnings"])
+    _, named = _render(tmp_path, stem, "5.1")
+    assert not any("no layout was given" in w for w in named["warnings"])
 
 
 def test_cancel_leaves_no_output(tmp_path):
