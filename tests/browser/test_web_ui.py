@@ -137,8 +137,9 @@ def test_several_mono_files_dropped_get_labels_from_their_names(
             dt.items.add(new File([bytes], f.name, {type: 'audio/wav'}));
         }
         const zone = document.querySelector('#dropzone');
-        zone.dispatchEvent(new DragEvent('dragover', {dataTransfer: dt, bubbles: true, cancelable: true}));
-        zone.dispatchEvent(new DragEvent('drop', {dataTransfer: dt, bubbles: true, cancelable: true}));
+        const init = {dataTransfer: dt, bubbles: true, cancelable: true};
+        zone.dispatchEvent(new DragEvent('dragover', init));
+        zone.dispatchEvent(new DragEvent('drop', init));
     }""",
         payload,
     )

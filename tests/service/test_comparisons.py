@@ -320,7 +320,7 @@ def test_retention_removes_old_sessions_but_not_one_being_built(make_client, tmp
 
 
 def test_a_real_server_builds_in_a_forked_warm_worker(tmp_path):
-    """``earfold serve`` forks builds from its warmed-up worker (earfold.service.comparisons.forked)."""
+    """``earfold serve`` forks builds from its warmed-up worker (comparisons.forked)."""
     import time
 
     import httpx
