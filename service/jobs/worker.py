@@ -24,7 +24,8 @@ from pathlib import Path
 
 from ..settings import ServiceSettings
 from ..storage import Storage
-from .queue import Job, JobQueue, QueueUnavailable, open_queue
+from .factory import open_queue
+from .queue import Job, JobQueue, QueueUnavailable
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
 
