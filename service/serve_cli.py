@@ -243,6 +243,13 @@ def cmd_serve(args: argparse.Namespace) -> int:
         return _error(f"--workers must be >= 0, got {args.workers}")
     if not 0 <= args.port <= 65535:
         return _error(f"--port must be 0 to 65535, got {args.port}")
+    from .jobs.factory import is_redis_url, require_redis
+
+    if is_redis_url(settings.queue_url):
+        try:
+            require_redis("--queue redis://...")
+        except ValueError as exc:
+            return _error(str(exc))
     # Bound first: a port in use fails here, before the app, the job store or any worker.
     try:
         sock = bind_socket(args.host, args.port)
@@ -261,16 +268,29 @@ def _serve(args: argparse.Namespace, settings: ServiceSettings, sock: socket.soc
     from .jobs.pool import WorkerPool
 
     class AnnouncingServer(uvicorn.Server):
-        """uvicorn's server that calls ``announce`` once it listens and the app started."""
+        """uvicorn's server that calls ``announce`` once it listens and the app started,
+        and ``stopped`` once it has shut down."""
 
-        def __init__(self, config: uvicorn.Config, announce: Callable[[], None]) -> None:
+        def __init__(
+            self,
+            config: uvicorn.Config,
+            announce: Callable[[], None],
+            stopped: Callable[[], None],
+        ) -> None:
             super().__init__(config)
             self.announce = announce
+            self.stopped = stopped
 
         async def startup(self, sockets: list[socket.socket] | None = None) -> None:
             await super().startup(sockets=sockets)
             if self.started and not self.should_exit:
                 self.announce()
+
+        async def shutdown(self, sockets: list[socket.socket] | None = None) -> None:
+            await super().shutdown(sockets=sockets)
+            # here, not after run(): uvicorn re-raises SIGTERM once run() ends, and the
+            # workers must hand their jobs back first
+            self.stopped()
 
     try:
         app = create_app(settings)
@@ -280,8 +300,8 @@ def _serve(args: argparse.Namespace, settings: ServiceSettings, sock: socket.soc
     config = uvicorn.Config(
         app, log_level=args.log_level, access_log=args.log_level in ("info", "debug")
     )
-    server = AnnouncingServer(config, lambda: print(line, file=sys.stderr, flush=True))
     pool = WorkerPool(settings, args.workers)
+    server = AnnouncingServer(config, lambda: print(line, file=sys.stderr, flush=True), pool.stop)
     pool.start()
     try:
         server.run(sockets=[sock])

@@ -17,8 +17,6 @@ import threading
 from pathlib import Path
 
 from .cli_output import EXIT_BAD_INPUT, positive
-from .jobs.factory import is_redis_url, require_redis
-from .jobs.redis_keys import display_url, parse_url
 from .serve_cli import DEFAULT_DATA_DIR
 
 #: Exit status of a failed ``--check``.
@@ -72,6 +70,8 @@ def add_worker_parser(subparsers: argparse._SubParsersAction) -> None:
 
 def worker_settings(args: argparse.Namespace):
     """ServiceSettings of ``earfold worker``; ValueError for a queue it cannot use."""
+    from .jobs.factory import is_redis_url, require_redis
+    from .jobs.redis_keys import parse_url
     from .settings import ServiceSettings
 
     if not args.queue.startswith(("redis://", "rediss://", "sqlite:")):
@@ -136,6 +136,7 @@ def cmd_worker(args: argparse.Namespace) -> int:
         )
         return EXIT_BAD_INPUT
     from .jobs.pool import WorkerPool
+    from .jobs.redis_keys import display_url
 
     stop = threading.Event()
     signal.signal(signal.SIGTERM, lambda *_: stop.set())
