@@ -268,9 +268,11 @@ def _check_file(p: str, label: str) -> None:
                 offset *= 2
     except OSError as exc:
         raise SofaError(f"{label}: cannot read the file ({exc.strerror or exc})") from None
+    # the first bytes as hex and as printable text (never a bytes repr in a message)
+    text = "".join(chr(b) if 32 <= b < 127 else "." for b in head)
     raise SofaError(
         f"{label}: not a SOFA file: SOFA files are netCDF-4/HDF5, and this file has no "
-        f"HDF5 or netCDF signature (it starts with {head!r})"
+        f'HDF5 or netCDF signature (its first bytes are {head.hex(" ")}, as text "{text}")'
     )
 
 
