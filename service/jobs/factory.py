@@ -8,6 +8,7 @@ is imported only for a ``redis://`` URL, and only where the ``[redis]`` extra is
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 from .queue import BackendMissing, JobQueue
 
@@ -65,7 +66,8 @@ def open_queue(url: str, data_dir: str, **options: float) -> JobQueue:
         require_redis()
         from .redis_store import RedisJobQueue
 
-        return RedisJobQueue(url, **options)
+        broker: dict[str, Any] = dict(options)
+        return RedisJobQueue(url, **broker)
     raise ValueError(
         f"no queue backend for {url!r}; available: 'sqlite:' (embedded, the "
         "default) and 'redis://HOST:PORT/DB' (scale-out)"

@@ -12,6 +12,7 @@ backend for a URL.
 
 from __future__ import annotations
 
+import builtins
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Protocol, runtime_checkable
@@ -122,7 +123,7 @@ class JobQueue(Protocol):
     def delete(self, job_id: str) -> None:
         """Forget a finished job; :class:`WrongState` if queued or running."""
 
-    def recover(self, max_attempts: int) -> list[str]:
+    def recover(self, max_attempts: int) -> builtins.list[str]:
         """Requeue running jobs whose lease expired, or fail those out of attempts;
         returns their ids."""
 

@@ -22,9 +22,11 @@ a restart of Redis itself.
 
 from __future__ import annotations
 
+import builtins
 import json
 import time
 from collections.abc import Callable, Mapping
+from typing import Any
 
 import redis
 
@@ -102,7 +104,7 @@ class RedisJobQueue:
         """The caller's clock as the scripts receive it (ARGV[1])."""
         return repr(float(self.clock()))
 
-    def _run(self, script: str, keys: list[str], *args: object, now: str | None = None):
+    def _run(self, script: str, keys: list[str], *args: Any, now: str | None = None) -> Any:
         """Run ``script`` on the common keys plus ``keys``, with ARGV ``now, *args``."""
         try:
             return self._scripts[script](
@@ -114,7 +116,7 @@ class RedisJobQueue:
         except redis.exceptions.RedisError as exc:
             raise self._unavailable(exc) from None
 
-    def _call(self, method: Callable[..., object], *args: object) -> object:
+    def _call(self, method: Callable[..., Any], *args: Any) -> Any:
         """One plain Redis command; a Redis error becomes QueueUnavailable."""
         try:
             return method(*args)
@@ -236,10 +238,7 @@ class RedisJobQueue:
         return self.get(job_id)
 
     def get(self, job_id: str) -> Job:
-        try:
-            h = self.client.hgetall(self._key(job_id))
-        except redis.exceptions.RedisError as exc:
-            raise self._unavailable(exc) from None
+        h = self._call(self.client.hgetall, self._key(job_id))
         if not h:
             raise JobNotFound(job_id)
         return self._job(h)
@@ -251,10 +250,7 @@ class RedisJobQueue:
         out: list[Job] = []
         start, page = 0, max(min(int(limit), 500), 50)
         while len(out) < limit:
-            try:
-                ids = self.client.zrevrange(index, start, start + page - 1)
-            except redis.exceptions.RedisError as exc:
-                raise self._unavailable(exc) from None
+            ids = self._call(self.client.zrevrange, index, start, start + page - 1)
             if not ids:
                 break
             for job in self._get_many(ids):
@@ -279,15 +275,15 @@ class RedisJobQueue:
         if old != b"ok":
             raise WrongState(f"the render is {old.decode()}; cancel it first")
 
-    def recover(self, max_attempts: int) -> list[str]:
+    def recover(self, max_attempts: int) -> builtins.list[str]:
         head, _, tail = POISON_MESSAGE.partition("{attempts}")
         now = self._now()
         expired = [
             i.decode()
             for i in self._call(self.client.zrangebyscore, self.keys.leases, "-inf", f"({now}")
         ]
-        requeued: list[str] = []
-        failed: list[str] = []
+        requeued: builtins.list[str] = []
+        failed: builtins.list[str] = []
         for start in range(0, len(expired), RECOVER_BATCH):
             ids = expired[start : start + RECOVER_BATCH]
             keys = [self._key(i) for i in ids]
@@ -300,16 +296,13 @@ class RedisJobQueue:
         self.resend()
         return requeued + failed
 
-    def resend(self) -> list[str]:
+    def resend(self) -> builtins.list[str]:
         """Send again the messages of queued jobs that are not confirmed sent."""
         if not self._deliver:
             return []
-        try:
-            stale = self.client.zrangebyscore(
-                self.keys.unsent, "-inf", self.clock() - RESEND_AFTER_S
-            )
-        except redis.exceptions.RedisError as exc:
-            raise self._unavailable(exc) from None
+        stale = self._call(
+            self.client.zrangebyscore, self.keys.unsent, "-inf", self.clock() - RESEND_AFTER_S
+        )
         ids = [i.decode() for i in stale]
         self._send(ids)
         return ids

@@ -8,6 +8,7 @@ database lock rather than on a server. A claim is an ``UPDATE ... WHERE state =
 
 from __future__ import annotations
 
+import builtins
 import json
 import sqlite3
 import threading
@@ -246,7 +247,7 @@ class SqliteJobQueue:
                 raise WrongState(f"the render is {job.state.value}; cancel it first")
             db.execute("DELETE FROM jobs WHERE id = ?", (job_id,))
 
-    def recover(self, max_attempts: int) -> list[str]:
+    def recover(self, max_attempts: int) -> builtins.list[str]:
         now = self.clock()
         with self._write() as db:
             rows = db.execute(
