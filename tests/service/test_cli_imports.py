@@ -107,3 +107,9 @@ def test_the_check_itself_sees_the_web_stack(tmp_path):
     subprocess.run([sys.executable, "-c", code, str(out)], check=True, timeout=120)
     heavy = _heavy(json.loads(out.read_text())["modules"])
     assert "fastapi" in heavy and "earfold.service.app" in heavy
+
+
+def test_hrtf_inspect_and_demo_load_no_web_or_queue_module(tmp_path, repo_root):
+    sofa = repo_root / "hrtf_sets" / "rigid_sphere.sofa"
+    assert _heavy(_modules_after(tmp_path, "hrtf", "inspect", str(sofa), "--json")) == []
+    assert _heavy(_modules_after(tmp_path, "demo", str(tmp_path / "demo"))) == []
