@@ -19,6 +19,7 @@ from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
 from .retention import TMP_MAX_AGE_S, sweep
 from .routes import catalog, comparisons, renders, stems
+from .routes.docs import install_api_docs
 from .routes.pages import install_pages
 from .settings import ServiceSettings
 from .storage import Storage
@@ -50,6 +51,9 @@ def create_app(settings: ServiceSettings) -> FastAPI:
         "queue a render, poll it, download the two-channel file. Errors are RFC 9457 "
         "problem details.",
         lifespan=lifespan,
+        # /docs with assets from a package instead of a CDN (routes/docs.py); no /redoc
+        docs_url=None,
+        redoc_url=None,
     )
     app.state.settings = settings
     app.state.storage = storage
@@ -60,6 +64,7 @@ def create_app(settings: ServiceSettings) -> FastAPI:
     app.include_router(renders.router)
     app.include_router(comparisons.router)
     install_pages(app)
+    install_api_docs(app)
     return app
 
 

@@ -8,57 +8,24 @@ progress goes to stderr only when it is a terminal.
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
-import time
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 import earfold.renderer
 from earfold.renderer import RendererError
 
-EXIT_BAD_INPUT = 2
-EXIT_INTERRUPTED = 130
+from .cli_commands import add_demo_parser, add_listing_parsers
+from .cli_output import EXIT_BAD_INPUT, EXIT_INTERRUPTED
+from .cli_output import Progress as _Progress
+from .cli_output import print_json as _print_json
+from .files import write_json_atomic
+
+__all__ = ["EXIT_BAD_INPUT", "EXIT_INTERRUPTED", "build_parser", "main"]
 
 
-class _Progress:
-    """A one-line progress display on stderr, silent when stderr is not a terminal."""
-
-    def __init__(self, label: str, enabled: bool | None = None) -> None:
-        self.label = label
-        self.enabled = sys.stderr.isatty() if enabled is None else enabled
-        self.start = time.monotonic()
-        self.last = -1.0
-
-    def __call__(self, fraction: float) -> None:
-        if not self.enabled:
-            return
-        now = time.monotonic()
-        if fraction < 1.0 and now - self.last < 0.1:
-            return
-        self.last = now
-        elapsed = now - self.start
-        eta = elapsed * (1 - fraction) / fraction if fraction > 0 else 0.0
-        bar = "#" * int(fraction * 30)
-        sys.stderr.write(
-            f"\r{self.label} [{bar:<30}] {fraction * 100:5.1f}%  {elapsed:5.1f}s"
-            f"  ~{eta:4.0f}s left "
-        )
-        sys.stderr.flush()
-
-    def done(self) -> None:
-        if self.enabled:
-            sys.stderr.write("\n")
-            sys.stderr.flush()
-
-
-def _print_json(data: object) -> None:
-    json.dump(data, sys.stdout, indent=2)
-    sys.stdout.write("\n")
 
 
 # -- render ----------------------------------------------------------------------------
@@ -70,9 +37,7 @@ def _default_report_path(output: str) -> str:
 
 
 def _write_json(path: str, data: object) -> None:
-    tmp = Path(path).with_name("." + Path(path).name + ".part")
-    tmp.write_text(json.dumps(data, indent=2) + "\n")
-    os.replace(tmp, path)
+    write_json_atomic(path, data)
 
 
 def _option_type(spec: Any) -> Callable[[str], Any]:
@@ -176,139 +141,6 @@ def cmd_loudness(args: argparse.Namespace) -> int:
     return 0
 
 
-# -- layouts ---------------------------------------------------------------------------
-
-
-def cmd_layouts(args: argparse.Namespace) -> int:
-    from earfold.renderer.layouts import LAYOUTS
-
-    if args.json:
-        _print_json([layout.to_dict() for layout in LAYOUTS.values()])
-        return 0
-    for layout in LAYOUTS.values():
-        print(f"{layout.name:<7} {layout.channels:>2} channels  {layout.description}")
-        cells = []
-        for s in layout.speakers:
-            cells.append(
-                f"{s.label}(LFE)" if s.lfe else f"{s.label} {s.azimuth:+g}/{s.elevation:+g}"
-            )
-        print("        " + ", ".join(cells))
-    print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
-    print("Channel order shown is the default file order; override with --channel-order.")
-    return 0
-
-
-def cmd_rooms(args: argparse.Namespace) -> int:
-    from earfold.renderer.room import ROOMS
-
-    if args.json:
-        _print_json([room.to_dict() for room in ROOMS.values()])
-        return 0
-    for room in ROOMS.values():
-        d = room.to_dict()
-        x, y, z = room.dimensions
-        rt = ", ".join(f"{t:.2f}" for t in room.rt60)
-        print(
-            f"{room.name:<7} {x:g} x {y:g} x {z:g} m, {d.get('volume_m3', x * y * z):.0f} m3  "
-            f"{room.description}"
-        )
-        print(
-            f"        RT60 (Eyring) 125 Hz-8 kHz: {rt} s; mixing time "
-            f"{float(room.mixing_time) * 1e3:.0f} ms; critical distance "
-            f"{np.mean(room.critical_distance):.2f} m"
-        )
-    print("\nA custom room is a JSON file: see examples/rooms/.")
-    return 0
-
-
-# -- hrtf ------------------------------------------------------------------------------
-
-
-def cmd_hrtf_list(args: argparse.Namespace) -> int:
-    from earfold.hrtf_sets import DEFAULT_SET, list_shipped
-
-    sets = list_shipped()
-    if args.json:
-        _print_json(
-            [
-                {
-                    "name": s.name,
-                    "file": s.filename,
-                    "title": s.title,
-                    "citation": s.citation,
-                    "licence": s.licence,
-                    "default": s.name == DEFAULT_SET,
-                }
-                for s in sets
-            ]
-        )
-        return 0
-    for s in sets:
-        mark = " (default)" if s.name == DEFAULT_SET else ""
-        print(f"{s.name}{mark}: {s.title}")
-        print(f"    file {s.filename}; {s.licence}")
-        print(f"    cite: {s.citation}")
-    return 0
-
-
-def cmd_hrtf_inspect(args: argparse.Namespace) -> int:
-    from earfold.renderer.tools import inspect_sofa
-
-    summary = inspect_sofa(args.file, emitter=args.emitter)
-    if args.json:
-        _print_json(summary)
-        return 0
-    print(f"{summary['file']}: usable")
-    width = max(len(k) for k in summary["text"])
-    for key, value in summary["text"].items():
-        print(f"  {key:<{width}}  {value}")
-    df = summary.get("diffuse_field")
-    if df:
-        bands = "  ".join(
-            f"{fc}: {'-' if v is None else f'{v:+.1f}'}" for fc, v in df["octave_bands_db"].items()
-        )
-        print("  diffuse-field response (dB re 500 Hz-2 kHz, by octave band centre in Hz):")
-        print(f"    {bands}")
-    for w in summary["warnings"]:
-        print(f"  warning: {w}")
-    return 0
-
-
-# -- bench and demo --------------------------------------------------------------------
-
-
-def cmd_bench(args: argparse.Namespace) -> int:
-    from earfold.renderer.tools import format_bench, run_bench
-
-    result = run_bench(
-        seconds=args.seconds,
-        layouts=[args.layout] if args.layout else None,
-        memory_check=not args.no_memory,
-        room=args.room,
-        progress=None if args.json else lambda msg: print(msg, file=sys.stderr),
-    )
-    if args.json:
-        _print_json(result)
-    else:
-        print(format_bench(result))
-    return 0
-
-
-def cmd_demo(args: argparse.Namespace) -> int:
-    from earfold.renderer.tools import run_demo
-
-    progress = _Progress("rendering demo")
-    try:
-        result = run_demo(args.dir, progress=progress)
-    finally:
-        progress.done()
-    print(f"demo stem:   {result['stem']}  (7.1.4, {result['duration_s']:.1f} s)")
-    print(f"binaural:    {result['output']}")
-    print(f"report:      {result['report']}")
-    print("Listen on headphones at a low volume first.")
-    return 0
-
-
 # -- parser ----------------------------------------------------------------------------
 
 
@@ -316,11 +148,12 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="earfold",
         description="Render multichannel loudspeaker stems to binaural headphone mixes.",
+        epilog="'earfold COMMAND -h' describes each command and its options.",
     )
     parser.add_argument(
         "--version", action="version", version=f"earfold {earfold.renderer.__version__}"
     )
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", help="what to do")
 
     p = sub.add_parser(
         "render",
@@ -348,72 +181,22 @@ def build_parser() -> argparse.ArgumentParser:
         "loudness, EBU Tech 3342 loudness range, and 4x-oversampled true peak of each file. "
         "Give --layout to weight a multichannel stem's surrounds (+1.5 dB) and leave out its LFE.",
     )
-    p.add_argument("files", nargs="+", metavar="FILE")
+    p.add_argument("files", nargs="+", metavar="FILE", help="audio file(s) to measure")
     p.add_argument("--layout", help="the stem's layout, for BS.1770 channel weights")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.add_argument("--series", action="store_true", help="with --json: include the 10 Hz series")
     p.set_defaults(func=cmd_loudness)
 
-    p = sub.add_parser("layouts", help="list loudspeaker layouts with labels and angles")
-    p.add_argument("--json", action="store_true", help="machine-readable output")
-    p.set_defaults(func=cmd_layouts)
+    add_listing_parsers(sub)
 
-    p = sub.add_parser("rooms", help="list the room presets with their figures")
-    p.add_argument("--json", action="store_true", help="machine-readable output")
-    p.set_defaults(func=cmd_rooms)
-
-    p = sub.add_parser("hrtf", help="list shipped HRTF sets or inspect a SOFA file")
-    hsub = p.add_subparsers(dest="hrtf_command", metavar="ACTION")
-    q = hsub.add_parser("list", help="the shipped HRTF sets")
-    q.add_argument("--json", action="store_true")
-    q.set_defaults(func=cmd_hrtf_list)
-    q = hsub.add_parser("inspect", help="summarise a SOFA file or say why it cannot be used")
-    q.add_argument("file", metavar="FILE.sofa")
-    q.add_argument("--emitter", type=int, help="emitter to use in a GeneralFIR-E file")
-    q.add_argument("--json", action="store_true")
-    q.set_defaults(func=cmd_hrtf_inspect)
-    p.set_defaults(func=lambda a, parser=p: _missing_action(parser))
-
-    p = sub.add_parser(
-        "bench",
-        help="measure render speed against a baseline and the I/O floor",
-        description="Render generated noise stems and compare, in one run, our engine with a "
-        "per-filter scipy.signal.oaconvolve baseline and with the cost of reading and writing "
-        "alone. Peak memory is measured in a separate process per case.",
-    )
-    p.add_argument("--json", action="store_true")
-    p.add_argument("--seconds", type=float, default=60.0, help="stem length (default 60)")
-    p.add_argument("--layout", help="only this layout (default: 2.0, 5.1, 7.1.4)")
-    p.add_argument(
-        "--room",
-        default="none",
-        help="render in this room (e.g. large); the baseline "
-        "then convolves full room responses, and the exact mode is timed too",
-    )
-    p.add_argument(
-        "--no-memory", action="store_true", help="skip the memory-growth check (a 10x longer stem)"
-    )
-    p.set_defaults(func=cmd_bench)
-
-    from earfold.service.serve_cli import add_serve_parser
+    # serve and worker import the web and queue stack only when they run
+    from .serve_cli import add_serve_parser
+    from .worker_cli import add_worker_parser
 
     add_serve_parser(sub)
-
-    from earfold.service.worker_cli import add_worker_parser
-
     add_worker_parser(sub)
-
-    p = sub.add_parser("demo", help="synthesise a demo 7.1.4 stem and render it")
-    p.add_argument(
-        "dir", nargs="?", default="earfold-demo", help="folder for the files (default earfold-demo)"
-    )
-    p.set_defaults(func=cmd_demo)
+    add_demo_parser(sub)
     return parser
-
-
-def _missing_action(parser: argparse.ArgumentParser) -> int:
-    parser.print_help(sys.stderr)
-    return EXIT_BAD_INPUT
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -427,12 +210,21 @@ def main(argv: Sequence[str] | None = None) -> int:
     except RendererError as exc:
         print(f"earfold: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
-    except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
-        print(f"earfold: error: {exc.strerror}: {exc.filename!r}", file=sys.stderr)
+    except OSError as exc:
+        # a file or folder the user named (missing, a folder, not writable, a full disk)
+        print(f"earfold: error: {_os_error(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("earfold: interrupted; no partial output was kept", file=sys.stderr)
         return EXIT_INTERRUPTED
+
+
+def _os_error(exc: OSError) -> str:
+    """One line for an OSError: its reason and the path it names, as text."""
+    reason = exc.strerror or str(exc) or type(exc).__name__
+    if exc.filename is None:
+        return reason
+    return f"{reason}: {os.fsdecode(exc.filename)!r}"
 
 
 if __name__ == "__main__":  # pragma: no cover

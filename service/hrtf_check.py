@@ -5,7 +5,8 @@ spin, or allocate without bound. So the API never opens an upload itself: it run
 ``python -m earfold.service.hrtf_check FILE`` under a time limit (killed when it runs over) and
 an address-space limit (``RLIMIT_AS``, set by the child on itself before it imports
 netCDF4), and reads one JSON line back. The child checks exactly what a render would
-use: :func:`earfold.renderer.hrtf.sofa.read_sofa` then :meth:`earfold.renderer.hrtf.hrir.HrirSet.from_sofa`.
+use: :func:`earfold.renderer.hrtf.sofa.read_sofa` then
+:meth:`earfold.renderer.hrtf.hrir.HrirSet.from_sofa`.
 """
 
 from __future__ import annotations

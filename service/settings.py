@@ -11,8 +11,10 @@ from __future__ import annotations
 import dataclasses
 import json
 import os
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 #: Largest request body accepted by ``POST /v1/stems`` (bytes). 8 GiB holds about 2 hours
 #: of 7.1.4 at 48 kHz / 24 bit; beyond that a studio would render on the command line.
@@ -123,7 +125,7 @@ class ServiceSettings:
             "maintenance_chance": self.broker_maintenance_chance,
         }
 
-    def replace(self, **changes: object) -> ServiceSettings:
+    def replace(self, **changes: Any) -> ServiceSettings:
         return dataclasses.replace(self, **changes)
 
     def to_json(self, *, include_tokens: bool = False) -> str:
@@ -141,7 +143,9 @@ class ServiceSettings:
         return cls(**{k: v for k, v in data.items() if k in known})
 
 
-def read_tokens(path: str | os.PathLike | None = None, env: dict | None = None) -> tuple[str, ...]:
+def read_tokens(
+    path: str | os.PathLike[str] | None = None, env: Mapping[str, str] | None = None
+) -> tuple[str, ...]:
     """API tokens from a file (one per line, ``#`` comments) and/or ``EARFOLD_TOKENS``.
 
     Raises
@@ -150,7 +154,7 @@ def read_tokens(path: str | os.PathLike | None = None, env: dict | None = None) 
         If the file cannot be read or a token is shorter than 16 characters (a short
         token can be guessed).
     """
-    env = os.environ if env is None else env
+    environ: Mapping[str, str] = os.environ if env is None else env
     tokens: list[str] = []
     if path:
         try:
@@ -163,7 +167,7 @@ def read_tokens(path: str | os.PathLike | None = None, env: dict | None = None) 
             line = line.split("#", 1)[0].strip()
             if line:
                 tokens.append(line)
-    tokens += [t.strip() for t in env.get(TOKENS_ENV, "").split(",") if t.strip()]
+    tokens += [t.strip() for t in environ.get(TOKENS_ENV, "").split(",") if t.strip()]
     short = [t[:4] + "..." for t in tokens if len(t) < 16]
     if short:
         raise ValueError(

@@ -16,7 +16,10 @@ import uuid
 from collections.abc import Iterator
 from pathlib import Path
 
+from .files import write_json_atomic
 from .problems import NO_SPACE, NOT_FOUND, Problem
+
+__all__ = ["KINDS", "META", "Storage", "new_id", "valid_id", "write_json_atomic"]
 
 #: Kinds of stored object, one folder each (DESIGN.md, "Storage").
 KINDS = ("stems", "renders", "hrtf", "comparisons")
@@ -35,13 +38,6 @@ def new_id() -> str:
 def valid_id(value: str) -> bool:
     """True if ``value`` is an id this service could have made."""
     return isinstance(value, str) and _ID.fullmatch(value) is not None
-
-
-def write_json_atomic(path: Path, data: object) -> None:
-    """Write JSON under a temporary name, then rename it over ``path``."""
-    tmp = path.with_name(f".{path.name}.{uuid.uuid4().hex[:8]}.part")
-    tmp.write_text(json.dumps(data, indent=2) + "\n")
-    os.replace(tmp, path)
 
 
 class Storage:

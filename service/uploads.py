@@ -117,7 +117,7 @@ async def receive_files(
         filename = opts.get(b"filename")
         current.clear()
         current.update(field=name, is_file=filename is not None and name == field)
-        if current["is_file"]:
+        if current["is_file"] and filename is not None:
             if len(files) >= MAX_PARTS:
                 raise Problem(BAD_REQUEST, f"at most {MAX_PARTS} files per upload")
             path = folder / f"part-{len(files)}"

@@ -16,7 +16,8 @@ import sys
 import threading
 from pathlib import Path
 
-from .serve_cli import DEFAULT_DATA_DIR, EXIT_BAD_INPUT, _positive
+from .cli_output import EXIT_BAD_INPUT, positive
+from .serve_cli import DEFAULT_DATA_DIR
 
 #: Exit status of a failed ``--check``.
 EXIT_UNHEALTHY = 1
@@ -50,7 +51,7 @@ def add_worker_parser(subparsers: argparse._SubParsersAction) -> None:
     )
     p.add_argument(
         "--processes",
-        type=_positive(int),
+        type=positive(int),
         default=default_processes(),
         help=f"render worker processes (default: one per core = {default_processes()})",
     )
@@ -60,23 +61,24 @@ def add_worker_parser(subparsers: argparse._SubParsersAction) -> None:
         help="only check that the queue answers and the data directory is "
         "writable; exit 0 if so, 1 if not",
     )
-    p.add_argument("--lease-seconds", type=_positive(float), help=argparse.SUPPRESS)
-    p.add_argument("--tick-seconds", type=_positive(float), help=argparse.SUPPRESS)
-    p.add_argument("--max-attempts", type=_positive(int), help=argparse.SUPPRESS)
-    p.add_argument("--broker-heartbeat-seconds", type=_positive(float), help=argparse.SUPPRESS)
+    p.add_argument("--lease-seconds", type=positive(float), help=argparse.SUPPRESS)
+    p.add_argument("--tick-seconds", type=positive(float), help=argparse.SUPPRESS)
+    p.add_argument("--max-attempts", type=positive(int), help=argparse.SUPPRESS)
+    p.add_argument("--broker-heartbeat-seconds", type=positive(float), help=argparse.SUPPRESS)
     p.set_defaults(func=cmd_worker)
 
 
 def worker_settings(args: argparse.Namespace):
     """ServiceSettings of ``earfold worker``; ValueError for a queue it cannot use."""
+    from .jobs.factory import is_redis_url, require_redis
+    from .jobs.redis_keys import parse_url
     from .settings import ServiceSettings
 
     if not args.queue.startswith(("redis://", "rediss://", "sqlite:")):
         raise ValueError(f"--queue must be redis://HOST:PORT/DB, got {args.queue!r}")
-    if args.queue.startswith(("redis://", "rediss://")):
-        from .jobs.redis_store import parse_url
-
+    if is_redis_url(args.queue):
         parse_url(args.queue)
+        require_redis("earfold worker")
     overrides = {
         "lease_s": args.lease_seconds,
         "tick_s": args.tick_seconds,
@@ -134,7 +136,7 @@ def cmd_worker(args: argparse.Namespace) -> int:
         )
         return EXIT_BAD_INPUT
     from .jobs.pool import WorkerPool
-    from .jobs.redis_store import display_url
+    from .jobs.redis_keys import display_url
 
     stop = threading.Event()
     signal.signal(signal.SIGTERM, lambda *_: stop.set())

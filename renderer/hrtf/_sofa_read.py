@@ -31,14 +31,31 @@ from ._sofa_vars import arrange, check_values, dtype_name, numeric, text_value
 __all__ = ["check_file", "first_bytes", "global_attributes", "read_dataset"]
 
 
+#: Signatures of files people give by mistake where a SOFA file belongs.
+_KNOWN_KINDS = (
+    ((b"RIFF", b"RIFX", b"RF64", b"BW64"), "a WAV file"),
+    ((b"fLaC",), "a FLAC file"),
+    ((b"FORM",), "an AIFF file"),
+    ((b"caff",), "a CAF file"),
+    ((b"OggS",), "an Ogg file"),
+    ((b"ID3",), "an MP3 file"),
+    ((b"PK\x03\x04",), "a ZIP archive"),
+    ((b"%PDF",), "a PDF document"),
+)
+
+
 def first_bytes(head: bytes) -> str:
     """The first bytes of a file in words: as text when they are printable ASCII, else
-    in hexadecimal (a message never shows a bytes repr)."""
+    in hexadecimal (a message never shows a bytes repr), and what they begin where we
+    know it."""
     if not head:
         return "nothing"
     if all(32 <= b < 127 for b in head):
-        return f"the text {head.decode('ascii')!r}"
-    return "the bytes " + " ".join(f"{b:02x}" for b in head)
+        words = f"the text {head.decode('ascii')!r}"
+    else:
+        words = "the bytes " + " ".join(f"{b:02x}" for b in head)
+    kind = next((k for sigs, k in _KNOWN_KINDS if head.startswith(sigs)), None)
+    return f"{words}, which begin {kind}" if kind else words
 
 
 def check_file(p: str, label: str) -> None:

@@ -1,4 +1,5 @@
-"""The process that builds one comparison for a worker: ``python -m earfold.service.comparisons.build_child``.
+"""The process that builds one comparison for a worker:
+``python -m earfold.service.comparisons.build_child``.
 
 It speaks the protocol of :mod:`earfold.service.jobs.render_child` (a JSON spec on stdin; JSON
 lines ``{"progress": f}``, then ``{"done": ...}``, ``{"error": message}`` or

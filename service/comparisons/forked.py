@@ -71,7 +71,7 @@ class ForkedBuild:
         deadline = None if timeout is None else time.monotonic() + timeout
         while self.poll() is None:
             if deadline is not None and time.monotonic() > deadline:
-                raise subprocess.TimeoutExpired("comparison build", timeout)
+                raise subprocess.TimeoutExpired("comparison build", timeout or 0.0)
             time.sleep(0.01)
         assert self.returncode is not None
         return self.returncode

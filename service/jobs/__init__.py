@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+from .factory import open_queue, require_redis
 from .queue import (
+    POISON_MESSAGE,
+    BackendMissing,
     Job,
     JobNotFound,
     JobQueue,
@@ -10,12 +13,14 @@ from .queue import (
     QueueFull,
     QueueUnavailable,
     WrongState,
-    open_queue,
+    poison_message,
 )
 from .states import FINISHED, JobState, can_move
 
 __all__ = [
     "FINISHED",
+    "POISON_MESSAGE",
+    "BackendMissing",
     "Job",
     "JobNotFound",
     "JobQueue",
@@ -26,4 +31,6 @@ __all__ = [
     "WrongState",
     "can_move",
     "open_queue",
+    "poison_message",
+    "require_redis",
 ]

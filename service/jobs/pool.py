@@ -17,11 +17,6 @@ WATCH_INTERVAL_S = 0.5
 STOP_GRACE_S = 5.0
 
 
-def default_workers() -> int:
-    """Cores minus one (one is left for the API), at least one."""
-    return max((os.cpu_count() or 2) - 1, 1)
-
-
 def worker_module(queue_url: str) -> str:
     """The module a worker process of ``queue_url``'s backend runs."""
     if queue_url.startswith(("redis://", "rediss://")):

@@ -6,16 +6,31 @@ expires and :meth:`JobQueue.recover` puts the job back, counting the attempt, or
 it once it has killed its worker ``max_attempts`` times. Delivery is at least once, so
 a job's effects must be idempotent: outputs are written under a temporary name and
 renamed when complete. ``tests/service/test_jobs_contract.py`` is the contract that
-every backend must pass.
+every backend must pass. :func:`earfold.service.jobs.factory.open_queue` picks the
+backend for a URL.
 """
 
 from __future__ import annotations
 
+import builtins
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Protocol, runtime_checkable
 
 from .states import JobState
+
+#: What a job says when it has stopped its worker ``max_attempts`` times (a crash, the
+#: kernel's out-of-memory killer) and is given up; every backend words it this way.
+POISON_MESSAGE = (
+    "the render stopped its worker {attempts} times (a crash or running out of "
+    "memory) and was given up; the stem may be damaged or too large for this server; "
+    "check it with 'earfold render' on the command line"
+)
+
+
+def poison_message(attempts: int) -> str:
+    """The message of a job given up after ``attempts`` attempts that killed its worker."""
+    return POISON_MESSAGE.format(attempts=attempts)
 
 
 class QueueError(Exception):
@@ -29,6 +44,11 @@ class QueueFull(QueueError):
 class QueueUnavailable(QueueError):
     """The job store does not answer (a network store is down or unreachable); the API
     answers 503 and retries on the next request."""
+
+
+class BackendMissing(QueueError, ValueError):
+    """The queue URL names a backend whose libraries are not installed (the scale-out
+    queue needs the ``[redis]`` extra); the message says what to install."""
 
 
 class JobNotFound(QueueError, KeyError):
@@ -103,7 +123,7 @@ class JobQueue(Protocol):
     def delete(self, job_id: str) -> None:
         """Forget a finished job; :class:`WrongState` if queued or running."""
 
-    def recover(self, max_attempts: int) -> list[str]:
+    def recover(self, max_attempts: int) -> builtins.list[str]:
         """Requeue running jobs whose lease expired, or fail those out of attempts;
         returns their ids."""
 
@@ -112,33 +132,3 @@ class JobQueue(Protocol):
 
     def close(self) -> None:
         """Release the store's resources."""
-
-
-def open_queue(url: str, data_dir: str, **options: float) -> JobQueue:
-    """The backend for ``url``: ``sqlite:`` (embedded, in ``data_dir``), ``sqlite:PATH``,
-    or ``redis://HOST:PORT/DB[?prefix=NAME]`` (scale-out; ``options`` go to its broker,
-    see :class:`~earfold.service.jobs.redis_store.RedisJobQueue`).
-
-    Raises
-    ------
-    ValueError
-        For a scheme no backend implements yet; the message lists those that exist.
-    """
-    from pathlib import Path
-
-    if url == "sqlite:" or url == "sqlite" or not url:
-        from .sqlite_store import SqliteJobQueue
-
-        return SqliteJobQueue(Path(data_dir) / "jobs.sqlite3")
-    if url.startswith("sqlite:"):
-        from .sqlite_store import SqliteJobQueue
-
-        return SqliteJobQueue(Path(url[len("sqlite:") :]))
-    if url.startswith(("redis://", "rediss://")):
-        from .redis_store import RedisJobQueue
-
-        return RedisJobQueue(url, **options)
-    raise ValueError(
-        f"no queue backend for {url!r}; available: 'sqlite:' (embedded, the "
-        "default) and 'redis://HOST:PORT/DB' (scale-out)"
-    )

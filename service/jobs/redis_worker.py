@@ -18,10 +18,14 @@ import signal
 import sys
 import threading
 import time
+from typing import TYPE_CHECKING, cast
 
 from ..settings import ServiceSettings
 from .queue import QueueUnavailable
 from .worker import RECOVER_INTERVAL_S, SETTINGS_ENV, Worker
+
+if TYPE_CHECKING:
+    from .redis_store import RedisJobQueue
 
 log = logging.getLogger("earfold.worker")
 
@@ -35,7 +39,8 @@ class RedisWorker:
     def __init__(self, settings: ServiceSettings) -> None:
         self.settings = settings
         self.worker = Worker(settings)
-        self.queue = self.worker.queue
+        # this worker's store is the Redis one: it has claim_id() and the delivery
+        self.queue = cast("RedisJobQueue", self.worker.queue)
         self.name = self.worker.name
         self._stop = threading.Event()
 

@@ -8,6 +8,7 @@ database lock rather than on a server. A claim is an ``UPDATE ... WHERE state =
 
 from __future__ import annotations
 
+import builtins
 import json
 import sqlite3
 import threading
@@ -16,7 +17,7 @@ from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from pathlib import Path
 
-from .queue import Job, JobNotFound, QueueFull, WrongState
+from .queue import Job, JobNotFound, QueueFull, WrongState, poison_message
 from .states import FINISHED, JobState
 
 _SCHEMA = """
@@ -246,7 +247,7 @@ class SqliteJobQueue:
                 raise WrongState(f"the render is {job.state.value}; cancel it first")
             db.execute("DELETE FROM jobs WHERE id = ?", (job_id,))
 
-    def recover(self, max_attempts: int) -> list[str]:
+    def recover(self, max_attempts: int) -> builtins.list[str]:
         now = self.clock()
         with self._write() as db:
             rows = db.execute(
@@ -258,7 +259,7 @@ class SqliteJobQueue:
                     db.execute(
                         "UPDATE jobs SET state = 'failed', finished = ?, updated = ?, "
                         "lease_expires = NULL, message = ? WHERE id = ?",
-                        (now, now, _poison_message(row["attempts"]), row["id"]),
+                        (now, now, poison_message(row["attempts"]), row["id"]),
                     )
                 else:
                     db.execute(
@@ -280,11 +281,3 @@ class SqliteJobQueue:
                 db.close()
             self._readers.clear()
             self._db.close()
-
-
-def _poison_message(attempts: int) -> str:
-    return (
-        f"the render stopped its worker {attempts} times (a crash or running out of "
-        "memory) and was given up; the stem may be damaged or too large for this server; "
-        "check it with 'earfold render' on the command line"
-    )

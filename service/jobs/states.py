@@ -5,7 +5,7 @@ from __future__ import annotations
 from enum import Enum
 
 
-class JobState(str, Enum):
+class JobState(str, Enum):  # noqa: UP042 (StrEnum would change str() of a state)
     """Where a job is in its life."""
 
     QUEUED = "queued"

@@ -21,12 +21,40 @@ import threading
 import time
 import uuid
 from pathlib import Path
+from typing import IO, Protocol
 
 from ..settings import ServiceSettings
 from ..storage import Storage
-from .queue import Job, JobQueue, QueueUnavailable, open_queue
+from .factory import open_queue
+from .queue import Job, JobQueue, QueueUnavailable
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
+
+
+class ChildProcess(Protocol):
+    """What the worker needs of a job's process: a ``Popen`` child, or a forked
+    comparison build (:class:`earfold.service.comparisons.forked.ForkedBuild`)."""
+
+    @property
+    def pid(self) -> int: ...
+
+    @property
+    def returncode(self) -> int | None: ...
+
+    @property
+    def stdin(self) -> IO[str] | None: ...
+
+    @property
+    def stdout(self) -> IO[str] | None: ...
+
+    def poll(self) -> int | None: ...
+
+    def wait(self, timeout: float | None = None) -> int: ...
+
+    def terminate(self) -> None: ...
+
+    def kill(self) -> None: ...
+
 
 #: ``payload["kind"]`` of a job that builds a blind comparison (earfold.service.comparisons)
 #: instead of rendering; jobs without a kind are renders.
@@ -159,6 +187,7 @@ class Worker:
             what = "the comparison" if comparison else "the render"
             q.fail(job.id, self.name, f"cannot start {what}: {detail}")
             return
+        proc: ChildProcess
         if comparison and self.fork_builds:
             from ..comparisons.forked import ForkedBuild
             from .render_child import RENDER_NICENESS
@@ -240,7 +269,7 @@ class Worker:
         self,
         job: Job,
         spec: dict,
-        proc: subprocess.Popen,
+        proc: ChildProcess,
         final: dict,
         lost: bool,
         handed_back: bool,
@@ -259,7 +288,7 @@ class Worker:
         self,
         job: Job,
         spec: dict,
-        proc: subprocess.Popen,
+        proc: ChildProcess,
         final: dict,
         lost: bool,
         handed_back: bool,
@@ -293,7 +322,7 @@ class Worker:
                 q.release(job.id, self.name, count_attempt=True)
 
     @staticmethod
-    def _terminate(proc: subprocess.Popen) -> None:
+    def _terminate(proc: ChildProcess) -> None:
         if proc.poll() is not None:
             return
         proc.terminate()

@@ -102,7 +102,7 @@ def rooms(owner: str = Depends(current_owner)) -> list[dict]:
     out = []
     for name in room_names():
         entry = ROOMS.get(name) if hasattr(ROOMS, "get") else None
-        described = entry.to_dict() if hasattr(entry, "to_dict") else {}
+        described = entry.to_dict() if entry is not None else {}
         out.append({**described, "name": name})
     return out
 

@@ -73,7 +73,7 @@ def _stored_name(index: int, upload: UploadedFile, label: str | None) -> str:
     return f"{index:02d}{tag}{ext}"
 
 
-def _user_message(exc: Exception, names: dict[str, str]) -> str:
+def _user_message(exc: Exception | str, names: dict[str, str]) -> str:
     """A renderer message with our stored paths replaced by the client's file names."""
     text = str(exc)
     for stored, user in sorted(names.items(), key=lambda kv: -len(kv[0])):

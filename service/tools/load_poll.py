@@ -205,7 +205,11 @@ async def run(
         await asyncio.gather(*(poll(c) for c in clients))
         wall = time.perf_counter() - wall0
         cpu1 = resource.getrusage(resource.RUSAGE_SELF)
-        server_cpu = cpu_seconds(server_pid) - server_cpu0 if server_pid else None
+        server_cpu = (
+            cpu_seconds(server_pid) - server_cpu0
+            if server_pid and server_cpu0 is not None
+            else None
+        )
         for c in clients:
             await c.close()
         states = [(await http.get(f"/v1/renders/{j}")).json()["state"] for j in jobs]

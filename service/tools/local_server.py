@@ -100,7 +100,8 @@ class LocalServer:
                 except httpx.TransportError:
                     pass
                 if self.proc.poll() is not None or time.monotonic() > deadline:
-                    err = self.proc.stderr.read() if self.proc.poll() is not None else ""
+                    ended = self.proc.poll() is not None and self.proc.stderr is not None
+                    err = self.proc.stderr.read() if ended and self.proc.stderr else ""
                     self.__exit__(None, None, None)
                     raise RuntimeError(f"the server did not start: {err.strip()}")
                 time.sleep(0.1)

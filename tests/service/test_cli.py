@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import argparse
 import json
 import subprocess
 import sys
@@ -307,3 +308,63 @@ def test_loudness_with_a_layout_weights_only_the_matching_file(tmp_path, capsys)
         ("render.wav", "plain", None),
     ]
     assert all(e["integrated_lufs"] is not None for e in entries)
+
+
+def _subparsers(parser: argparse.ArgumentParser, path: tuple[str, ...] = ("earfold",)):
+    yield path, parser
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for name, sub in action.choices.items():
+                yield from _subparsers(sub, (*path, name))
+
+
+def test_every_option_and_subcommand_has_help():
+    from earfold.service.cli import build_parser
+
+    missing = []
+    for path, parser in _subparsers(build_parser()):
+        for action in parser._actions:
+            if isinstance(action, argparse._HelpAction) or action.help == argparse.SUPPRESS:
+                continue
+            if isinstance(action, argparse._SubParsersAction):
+                helped = {a.dest for a in action._choices_actions if a.help}
+                missing += [f"{' '.join(path)} {n}" for n in action.choices if n not in helped]
+            if not action.help:
+                missing.append(f"{' '.join(path)} {action.option_strings or action.dest}")
+    assert missing == []
+
+
+@pytest.mark.parametrize(
+    "command",
+    [["layouts"], ["rooms"], ["hrtf"], ["hrtf", "list"], ["hrtf", "inspect"], ["bench"], ["demo"]],
+)
+def test_help_of_each_command(command, capsys):
+    with pytest.raises(SystemExit) as done:
+        main([*command, "-h"])
+    assert done.value.code == 0
+    out = capsys.readouterr().out
+    assert out.startswith(f"usage: earfold {' '.join(command)}")
+    for line in out.splitlines():
+        if line.strip().startswith("--json"):
+            assert "JSON" in line, line
+
+
+def test_bench_checks_its_options_before_running(tmp_path):
+    proc = _run("bench", "--seconds", "0", "--no-memory")
+    assert proc.returncode == 2 and "must be > 0" in proc.stderr
+    _assert_one_line_error(_run("bench", "--room", "huge", "--seconds", "0.1"), "unknown room")
+    _assert_one_line_error(_run("bench", "--layout", "9.9", "--seconds", "0.1"), "9.9")
+
+
+def test_demo_into_a_file_is_one_line(tmp_path):
+    blocker = tmp_path / "a-file"
+    blocker.write_text("")
+    _assert_one_line_error(_run("demo", str(blocker / "demo")), "a-file")
+
+
+def test_errors_show_no_python_repr(tmp_path, stem51):
+    # a WAV given as a SOFA file: the message shows the first bytes, not b'RIFF...'
+    proc = _run("hrtf", "inspect", str(stem51))
+    _assert_one_line_error(proc, "not a SOFA file")
+    assert "b'" not in proc.stderr and 'b"' not in proc.stderr and "array(" not in proc.stderr
+    assert "52 49 46 46" in proc.stderr and "which begin a WAV file" in proc.stderr

@@ -63,6 +63,8 @@ def test_dockerfile_slim_base_non_root_healthcheck_and_sets():
     # A regular install, so the shipped SOFA sets come as package data.
     run = " ".join(instruction("RUN"))
     assert "pip install '.[redis]'" in run and "-e " not in run
+    # the image checks that /docs has its assets (they come from a package, not a CDN)
+    assert "assets_dir()" in run
     ignore = (DOCKER / "Dockerfile.dockerignore").read_text().split()
     assert "!hrtf_sets/" in ignore
 

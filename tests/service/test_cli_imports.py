@@ -1,0 +1,115 @@
+"""The command line stays lean: only ``serve`` and ``worker`` load the web and queue stack.
+
+Each command runs in a fresh interpreter through the CLI's ``main``; at exit the test
+reads which modules were loaded. (``scipy.stats`` is left out on purpose: any import
+from ``scipy.signal`` loads it, and the renderer uses ``scipy.signal``.)
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from earfold.renderer.io import write_audio
+
+#: Packages of the web and queue stack, and the service's own web and queue modules.
+WEB_AND_QUEUE = (
+    "fastapi",
+    "starlette",
+    "uvicorn",
+    "pydantic",
+    "pydantic_core",
+    "dramatiq",
+    "redis",
+    "httpx",
+    "anyio",
+    "python_multipart",
+    "multipart",
+    "swagger_ui_bundle",
+)
+OUR_WEB_AND_QUEUE = (
+    "earfold.service.app",
+    "earfold.service.routes",
+    "earfold.service.jobs",
+    "earfold.service.problems",
+    "earfold.service.storage",
+)
+
+_RUN = """
+import json, sys
+from earfold.service.cli import main
+rc = main(sys.argv[2:])
+with open(sys.argv[1], "w") as fh:
+    json.dump({"rc": rc, "modules": sorted(sys.modules)}, fh)
+"""
+
+
+def _modules_after(tmp_path, *args: str) -> list[str]:
+    out = tmp_path / "modules.json"
+    proc = subprocess.run(
+        [sys.executable, "-c", _RUN, str(out), *args],
+        capture_output=True,
+        text=True,
+        timeout=180,
+        cwd=tmp_path,
+    )
+    assert proc.returncode == 0, proc.stderr
+    result = json.loads(out.read_text())
+    assert result["rc"] == 0, proc.stderr
+    return result["modules"]
+
+
+def _heavy(modules: list[str]) -> list[str]:
+    return [
+        m
+        for m in modules
+        if m.split(".")[0] in WEB_AND_QUEUE
+        or any(m == ours or m.startswith(ours + ".") for ours in OUR_WEB_AND_QUEUE)
+    ]
+
+
+@pytest.fixture
+def stem(tmp_path):
+    rate = 48000
+    t = np.arange(int(0.2 * rate)) / rate
+    data = np.stack([0.1 * np.sin(2 * np.pi * 440 * t), 0.1 * np.sin(2 * np.pi * 660 * t)], 1)
+    path = tmp_path / "tiny.wav"
+    write_audio(path, data.astype(np.float32), rate)
+    return path
+
+
+@pytest.mark.parametrize("args", [["layouts"], ["rooms"], ["hrtf", "list"]])
+def test_listings_load_no_web_or_queue_module(tmp_path, args):
+    assert _heavy(_modules_after(tmp_path, *args)) == []
+
+
+def test_render_loads_no_web_or_queue_module(tmp_path, stem):
+    out = tmp_path / "tiny.bin.wav"
+    modules = _modules_after(tmp_path, "render", str(stem), "-o", str(out), "--layout", "2.0")
+    assert out.is_file()
+    assert "earfold.renderer.render" in modules  # the render did run in that interpreter
+    assert _heavy(modules) == []
+
+
+def test_loudness_loads_no_web_or_queue_module(tmp_path, stem):
+    assert _heavy(_modules_after(tmp_path, "loudness", str(stem), "--json")) == []
+
+
+def test_the_check_itself_sees_the_web_stack(tmp_path):
+    """The same probe after importing the app finds the stack: an empty list above means
+    something."""
+    code = _RUN.replace("rc = main(sys.argv[2:])", "import earfold.service.app\nrc = 0")
+    out = tmp_path / "modules.json"
+    subprocess.run([sys.executable, "-c", code, str(out)], check=True, timeout=120)
+    heavy = _heavy(json.loads(out.read_text())["modules"])
+    assert "fastapi" in heavy and "earfold.service.app" in heavy
+
+
+def test_hrtf_inspect_and_demo_load_no_web_or_queue_module(tmp_path, repo_root):
+    sofa = repo_root / "hrtf_sets" / "rigid_sphere.sofa"
+    assert _heavy(_modules_after(tmp_path, "hrtf", "inspect", str(sofa), "--json")) == []
+    assert _heavy(_modules_after(tmp_path, "demo", str(tmp_path / "demo"))) == []
