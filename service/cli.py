@@ -26,8 +26,6 @@ from .files import write_json_atomic
 __all__ = ["EXIT_BAD_INPUT", "EXIT_INTERRUPTED", "build_parser", "main"]
 
 
-
-
 # -- render ----------------------------------------------------------------------------
 
 

@@ -21,6 +21,7 @@ route handler. Steps:
 
 from __future__ import annotations
 
+import functools
 import json
 import math
 import multiprocessing
@@ -162,10 +163,15 @@ def choose_window(inputs: Sequence[str], settings, length_s: float) -> float:
             meter.process(block)
     result = meter.result()
     if length_s >= 3.0:
-        series, interval, block = result.short_term_series, result.short_term_interval_s, 3.0
+        series, interval, block_s = result.short_term_series, result.short_term_interval_s, 3.0
     else:  # shorter than a short-term block: momentary (400 ms) readings
-        series, interval, block = result.momentary_series, result.momentary_interval_s, 0.4
-    return loudest_window(series, interval, block, length_s, stem.duration)
+        series, interval, block_s = result.momentary_series, result.momentary_interval_s, 0.4
+    return loudest_window(series, interval, block_s, length_s, stem.duration)
+
+
+def _job_progress(report: Callable[[float], None], index: int, jobs: int, f: float) -> None:
+    """Progress of job ``index`` of ``jobs`` as a share of all of them."""
+    report((index + f) / jobs)
 
 
 def _render_forked(
@@ -207,7 +213,7 @@ def _render_forked(
                     out,
                     settings,
                     cancelled=stopped,
-                    progress=lambda f, i=i: done.__setitem__(i, f),
+                    progress=functools.partial(done.__setitem__, i),
                 )
             except RenderCancelled:
                 os._exit(3)
@@ -332,9 +338,9 @@ def build(
                     out,
                     s,
                     cancelled=cancelled,
-                    progress=lambda f, i=i: render_progress((i + f) / len(jobs)),
+                    progress=functools.partial(_job_progress, render_progress, i, len(jobs)),
                 )
-        for i, (_, out, _) in enumerate(jobs):
+        for _, out, _ in jobs:
             audio, _ = read_audio(out)
             os.unlink(out)
             x = np.zeros((frames, 2), dtype=np.float32)
@@ -343,16 +349,18 @@ def build(
             _fade(x, int(round(FADE_S * sr)))
             cut.append(x)
 
-    measured = [_measure(x, sr) for x in cut]
-    for i, (lufs, tp) in enumerate(measured):
+    lufs_values: list[float] = []
+    peaks: list[float] = []
+    for i, x in enumerate(cut):
+        lufs, tp = _measure(x, sr)
         if lufs is None or tp is None:
             raise BuildError(
                 f"variant {i + 1} is silent in the excerpt from {start_s:g} s "
                 f"({length_s:g} s long), so it cannot be level-matched; choose "
                 "another excerpt"
             )
-    lufs_values = [m[0] for m in measured]
-    peaks = [m[1] for m in measured]
+        lufs_values.append(lufs)
+        peaks.append(tp)
     common = common_level(lufs_values, peaks)
     audio_dir = folder / "audio"
     audio_dir.mkdir(exist_ok=True)
