@@ -112,7 +112,7 @@ class AtomicPath:
     path : path-like
         The destination. Its folder must exist.
     suffix : str, optional
-        End of the temporary name (``".tmp"``; ``".part"`` for renders).
+        End of the temporary name (``".part"``: what the service's sweeps clear).
     durable : bool, optional
         On commit, flush the file to disk (fsync) before the rename and the folder after
         it (the default). False for scratch files that are read back and removed at once,
@@ -145,7 +145,7 @@ class AtomicPath:
     """
 
     def __init__(
-        self, path: str | os.PathLike[str], *, suffix: str = ".tmp", durable: bool = True
+        self, path: str | os.PathLike[str], *, suffix: str = ".part", durable: bool = True
     ) -> None:
         dest = Path(os.fspath(path))
         self.path = str(dest)

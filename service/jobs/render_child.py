@@ -15,9 +15,10 @@ import os
 import signal
 import sys
 import time
-import uuid
 from pathlib import Path
 from typing import Any
+
+from ..files import write_json_atomic
 
 EXIT_BAD_INPUT = 2
 EXIT_CANCELLED = 3
@@ -87,9 +88,7 @@ def run(spec: dict) -> int:
     report["input"]["files"] = spec.get("input_names") or report["input"]["files"]
     report["output"]["file"] = spec.get("output_name") or report["output"]["file"]
     report_path = Path(spec["report"])
-    tmp = report_path.with_name(f".{report_path.name}.{uuid.uuid4().hex[:8]}.part")
-    tmp.write_text(json.dumps(report, indent=2) + "\n")
-    os.replace(tmp, report_path)
+    write_json_atomic(report_path, report)
     out = report["output"]
     _emit(
         {
