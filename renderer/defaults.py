@@ -15,8 +15,8 @@ __all__ = [
 ]
 
 SPEED_OF_SOUND = 343.0
-"""Speed of sound in m/s: dry air at 20 degrees C (common practice; ISO 9613-1 gives
-343.2 m/s at 20 degrees C)."""
+"""Speed of sound in m/s: dry air at about 20 degrees C (common practice; the ideal-gas
+estimate 331.3 * sqrt(1 + T / 273.15) gives 343.2 m/s at 20 degrees C)."""
 
 DEFAULT_LOUDNESS_LUFS = -23.0
 """Default integrated loudness target of a delivery: -23 LUFS, the EBU R 128 programme
