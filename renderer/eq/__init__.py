@@ -16,6 +16,9 @@ from .diffuse_field import (
 )
 from .headphone import (
     BAND_TYPES,
+    DEFAULT_Q,
+    MAX_GAIN_DB,
+    Q_RANGE,
     Band,
     HeadphoneEq,
     bands_sos,
@@ -26,6 +29,9 @@ from .headphone import (
 
 __all__ = [
     "BAND_TYPES",
+    "DEFAULT_Q",
+    "MAX_GAIN_DB",
+    "Q_RANGE",
     "Band",
     "HeadphoneEq",
     "MAX_BOOST_DB",

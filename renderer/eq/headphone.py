@@ -48,6 +48,9 @@ MAX_IR_SECONDS = 1.0
 #: Largest gain (dB, either sign) a band or the overall gain may ask for.
 MAX_GAIN_DB = 24.0
 
+#: Range of a band's Q.
+Q_RANGE = (0.05, 50.0)
+
 #: Zeros put before an impulse response that is resampled (input samples; about 0.7 ms at
 #: 44.1 kHz): room for the resampling filter's pre-ringing.
 RESAMPLE_LEAD = 32
@@ -183,8 +186,10 @@ def parse_bands(value: Any, *, source: str = "headphone EQ") -> tuple[list[Band]
             raise HeadphoneEqError(
                 f"{where}: gain_db {shown(band_gain)} is outside +/-{MAX_GAIN_DB:g} dB"
             )
-        if not 0.05 <= q <= 50:
-            raise HeadphoneEqError(f"{where}: q must be between 0.05 and 50, got {shown(q)}")
+        if not Q_RANGE[0] <= q <= Q_RANGE[1]:
+            raise HeadphoneEqError(
+                f"{where}: q must be from {Q_RANGE[0]:g} to {Q_RANGE[1]:g}, got {shown(q)}"
+            )
         bands.append(Band(kind, freq, band_gain, q))
     return bands, gain
 

@@ -12,6 +12,7 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
+from earfold.renderer.eq import BAND_TYPES, DEFAULT_Q, MAX_GAIN_DB, Q_RANGE
 from earfold.renderer.render import RENDER_OPTIONS, OptionSpec
 
 __all__ = ["EqBand", "http_options", "option_fields", "options_model"]
@@ -21,20 +22,23 @@ Name = Annotated[str, Field(max_length=64)]
 
 
 class EqBand(BaseModel):
-    """One parametric band of an inline headphone EQ (Audio EQ Cookbook biquads)."""
+    """One parametric band of an inline headphone EQ (Audio EQ Cookbook biquads); the
+    bounds are the renderer's (:mod:`earfold.renderer.eq`)."""
 
     model_config = ConfigDict(extra="forbid")
 
-    type: Literal["peaking", "low_shelf", "high_shelf", "low_pass", "high_pass"]
-    frequency: float = Field(gt=0, le=96000, allow_inf_nan=False, description="Hz")
+    type: Literal[BAND_TYPES]  # type: ignore[valid-type]
+    frequency: float = Field(
+        gt=0, le=96000, allow_inf_nan=False, description="Hz, under half the stem's rate"
+    )
     gain_db: float = Field(
         0.0,
-        ge=-24,
-        le=24,
+        ge=-MAX_GAIN_DB,
+        le=MAX_GAIN_DB,
         allow_inf_nan=False,
         description="dB (peaking and shelves; ignored by the pass filters)",
     )
-    q: float = Field(0.7071067811865476, ge=0.05, le=50, allow_inf_nan=False)
+    q: float = Field(DEFAULT_Q, ge=Q_RANGE[0], le=Q_RANGE[1], allow_inf_nan=False)
 
 
 def http_options(*, sound_only: bool = False) -> tuple[OptionSpec, ...]:
