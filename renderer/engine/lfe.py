@@ -16,7 +16,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import signal
 
 from ..errors import RendererError
 
@@ -84,6 +83,8 @@ def lfe_filter(
     delay : int
         Samples of delay, to arrive with the front-centre direct sound.
     """
+    from scipy import signal
+
     gain = reference_gain * 10 ** (options.gain_db / 20)
     if options.cutoff_hz == 0 or options.cutoff_hz >= samplerate / 2:
         h = np.zeros(1)

@@ -26,7 +26,6 @@ from typing import cast
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import signal
 
 from ..loudness import k_weighting_sos
 
@@ -47,6 +46,8 @@ def pink_band(samplerate: float) -> tuple[float, float]:
 
 def reference_weighting(freqs: NDArray[np.float64], samplerate: float) -> NDArray[np.float64]:
     """``K(f)^2 S(f)``: the K-weighted pink reference spectrum on ``freqs`` (per bin)."""
+    from scipy import signal
+
     lo, hi = pink_band(samplerate)
     pink = np.zeros_like(freqs, dtype=float)
     band = (freqs >= lo) & (freqs <= hi)

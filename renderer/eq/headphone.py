@@ -27,7 +27,6 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import signal
 
 from ..errors import HeadphoneEqError, shown
 
@@ -232,6 +231,8 @@ def bands_impulse_response(
     bands: list[Band], gain_db: float, samplerate: float
 ) -> NDArray[np.float64]:
     """Impulse response of the cascade, cut once it has decayed by :data:`IIR_DECAY_DB`."""
+    from scipy import signal
+
     sos = bands_sos(bands, samplerate)
     n_max = int(MAX_IR_SECONDS * samplerate)
     impulse = np.zeros(n_max)
@@ -290,6 +291,8 @@ def _from_bands(
 
 
 def _from_audio(path: Path, samplerate: float, meta: dict[str, Any]) -> HeadphoneEq:
+    from scipy import signal
+
     from ..errors import AudioError
     from ..io import read_audio  # soundfile stays behind audio_io
 

@@ -29,7 +29,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from scipy import signal
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from ..errors import HrirError, shown
@@ -192,6 +191,8 @@ class HrirSet:
 
     def resampled(self, samplerate: float) -> HrirSet:
         """The same set at another rate (polyphase resampling, scipy.signal.resample_poly)."""
+        from scipy import signal
+
         if samplerate == self.samplerate:
             return self
         ratio = Fraction(samplerate / self.samplerate).limit_denominator(10000)

@@ -21,7 +21,6 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 from scipy import fft as sp_fft
-from scipy import signal
 
 from ..errors import HrirError, shown
 
@@ -204,6 +203,8 @@ def cross_correlation_itd(
     -------
     float
     """
+    from scipy import signal
+
     pair = _check_pair(ir_pair, samplerate)
     if not (0 < cutoff < samplerate / 2):
         raise HrirError(

@@ -28,7 +28,6 @@ from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import signal
 
 from ..blocks import check_block
 from ..errors import AudioError, shown
@@ -219,6 +218,8 @@ class LoudnessMeter:
 
     def process(self, block: NDArray[np.floating[Any]]) -> None:
         """Meter a ``(n, channels)`` block of float samples."""
+        from scipy import signal
+
         x = check_block(block, self.channels)
         n = x.shape[0]
         if n == 0:

@@ -11,7 +11,6 @@ from typing import Any, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import signal
 from scipy.ndimage import correlate1d
 
 from ..blocks import check_block
@@ -69,6 +68,8 @@ def interpolation_taps(factor: int) -> NDArray[np.float64]:
     Annex's. The phases sit between the input samples (the filter length is even), so
     the meter takes the input samples themselves into account as well.
     """
+    from scipy import signal
+
     if factor == 1:
         return np.ones(1)
     taps = (

@@ -31,7 +31,6 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import scipy.fft
 from numpy.typing import NDArray
-from scipy import signal
 
 from ..loudness import LoudnessMeter
 from ..room import BANDS_HZ
@@ -125,6 +124,8 @@ class SpectrumMeter:
     def __init__(
         self, samplerate: float, channels: int, nfft: int | None = None, stride: int = 1
     ) -> None:
+        from scipy import signal
+
         self.samplerate = float(samplerate)
         self.channels = int(channels)
         self.nfft = int(nfft or 1 << int(math.ceil(math.log2(0.68 * samplerate))))
@@ -171,6 +172,8 @@ class SpectrumMeter:
         The bins of a column sum to the signal's mean square (Parseval, one-sided: every
         bin but DC and Nyquist counted twice).
         """
+        from scipy import signal
+
         if self._segments:
             power, window, n = self._power / self._segments, self._window, self.nfft
         elif len(self._buffer):
@@ -257,6 +260,8 @@ def energy_decay(
     dict
         ``{"bands_hz": [...], "time_s": [...], "levels_db": [[...] per band]}``.
     """
+    from scipy import signal
+
     x = np.asarray(ir, dtype=np.float64)
     x = x.reshape(-1, x.shape[-1])
     fs = float(samplerate)

@@ -11,7 +11,6 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
-from scipy import signal
 
 from ..errors import RoomError, shown
 from ._acoustics import BANDS_HZ
@@ -61,6 +60,8 @@ def measure_rt60(
         ``{"bands_hz": [...], "edt_s": [...], "t20_s": [...], "t30_s": [...]}``, None where
         a band cannot be measured (too short a decay, or above Nyquist).
     """
+    from scipy import signal
+
     x = np.asarray(ir, dtype=float)
     if x.ndim < 1 or x.shape[-1] < 8:
         raise RoomError(f"an impulse response needs at least 8 samples, got shape {shown(x.shape)}")

@@ -17,7 +17,6 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
-from scipy.signal import lfilter
 
 from ..io import write_audio
 from ..layouts import get_layout
@@ -55,6 +54,8 @@ def make_demo_stem(
     rate: int = DEMO_SAMPLERATE, seed: int = DEMO_SEED
 ) -> tuple[npt.NDArray[np.float32], list[str]]:
     """The demo stem (frames x 12, float32) and its channel labels in file order."""
+    from scipy.signal import lfilter
+
     layout = get_layout(DEMO_LAYOUT)
     rng = np.random.default_rng(seed)
     labels = list(layout.labels)
