@@ -21,8 +21,12 @@ FOLDERS = {
 }
 
 
+#: Folders of data only (no Python), installed as packages for their files.
+DATA_PACKAGES = {"earfold.service.static"}
+
+
 def _folder_packages() -> set[str]:
-    found = set()
+    found = set(DATA_PACKAGES)
     for folder, name in FOLDERS.items():
         for init in (REPO / folder).rglob("__init__.py"):
             rel = init.parent.relative_to(REPO / folder)
