@@ -18,7 +18,7 @@ from ._files import (
     layout_from_dict,
     load_layout_file,
 )
-from ._labels import canonical_label, labels_from_filenames
+from ._labels import canonical_label, filename_label, labels_from_filenames
 from ._model import Layout, Speaker
 from ._order import resolve_channel_order
 
@@ -31,6 +31,7 @@ __all__ = [
     "SPEAKER_BITS",
     "Speaker",
     "canonical_label",
+    "filename_label",
     "get_layout",
     "labels_from_filenames",
     "labels_from_mask",

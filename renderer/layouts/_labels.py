@@ -28,6 +28,7 @@ __all__ = [
     "canonical_label",
     "known_label",
     "label_key",
+    "filename_label",
     "labels_from_filenames",
     "layer_of",
     "wrap_azimuth",
@@ -144,27 +145,45 @@ _TOKEN_SEPARATORS = re.compile(r"[._\- ]")
 _BS2051_TAIL = re.compile(r"(?:^|[._\- ])([MUTB][+-]\d{3})$", re.IGNORECASE)
 
 
+def filename_label(path: str | os.PathLike[str]) -> tuple[str, str | None]:
+    """The label token of a mono stem's file name, and our spelling of it if known.
+
+    The token is the last one of the name before its extension, tokens being split on
+    ``.``, ``_``, ``-`` and spaces; a BS.2051 name at the end (``hall_M-030.wav``) is
+    taken whole.
+
+    Returns
+    -------
+    (str, str or None)
+        The token as written (empty if the name ends in a separator) and its canonical
+        label (:func:`canonical_label`), or None if it is no label we know.
+    """
+    stem = Path(os.fspath(path)).stem
+    tail = _BS2051_TAIL.search(stem)
+    token = tail.group(1) if tail else _TOKEN_SEPARATORS.split(stem)[-1]
+    return token, (known_label(token) if token else None)
+
+
 def labels_from_filenames(paths: Sequence[str | os.PathLike[str]]) -> list[str] | None:
     """Channel labels read from mono stems' file names.
 
     The label is the last token of the name before its extension, tokens being split
     on ``.``, ``_``, ``-`` and spaces: ``mix.L.wav``, ``mix_Ls.wav``, ``scene-LFE.flac``,
     ``Mix.Rtf.wav`` and ``take3 C.wav`` give ``L``, ``Ls``, ``LFE``, ``Rtf`` and ``C``.
-    A BS.2051 name at the end (``hall_M-030.wav``) is taken whole.
+    A BS.2051 name at the end (``hall_M-030.wav``) is taken whole (see
+    :func:`filename_label`).
 
     Returns
     -------
     list of str or None
         Canonical labels (:func:`canonical_label`) in the order of ``paths``, or None if
-        any name ends in no known label. Repeats are left for
+        any name ends in no known label (use :func:`filename_label` to tell a set where
+        no name carries a label from one where only some do). Repeats are left for
         :func:`resolve_channel_order` to report.
     """
     labels: list[str] = []
     for path in paths:
-        stem = Path(os.fspath(path)).stem
-        tail = _BS2051_TAIL.search(stem)
-        token = tail.group(1) if tail else _TOKEN_SEPARATORS.split(stem)[-1]
-        known = known_label(token) if token else None
+        known = filename_label(path)[1]
         if known is None:
             return None
         labels.append(known)

@@ -24,6 +24,7 @@ from ..hrtf import HrirSet, load_hrir_set
 from ..io import StemInfo, probe_stem
 from ..layouts import (
     Layout,
+    filename_label,
     get_layout,
     labels_from_filenames,
     labels_from_mask,
@@ -137,6 +138,39 @@ def _layout(stem: StemInfo, value: str | os.PathLike[str] | Layout | None) -> La
     return layout
 
 
+def _partly_labelled(
+    paths: Sequence[str], found: Sequence[tuple[str, str | None]], layout: Layout
+) -> LayoutError:
+    """The error for mono files of which some names carry a channel label and some not.
+
+    Taking such files in name order would send channels to the wrong loudspeakers, and
+    guessing the one missing label would hide a misnamed file: neither is done.
+    """
+    bad = [
+        f"{Path(path).name!r} (its name ends in {token!r}, which is no channel label)"
+        if token
+        else f"{Path(path).name!r} (its name ends in no label)"
+        for path, (token, known) in zip(paths, found, strict=True)
+        if known is None
+    ]
+    labelled = [known for _, known in found if known is not None]
+    claimed = set()
+    for label in labelled:
+        try:
+            claimed.add(layout.index(label))
+        except LayoutError:
+            pass
+    free = [layout.labels[i] for i in range(layout.channels) if i not in claimed]
+    left = f" (the labelled files leave {', '.join(free)} without a file)" if free else ""
+    return LayoutError(
+        f"{len(labelled)} of the {len(found)} mono files carry a channel label in their "
+        f"names but {len(bad)} do not: {', '.join(bad)}; the channel order cannot be read "
+        f"from the names{left}. Rename the file(s) so that every name ends in a label of "
+        f"layout {layout.name!r} ({', '.join(layout.labels)}), or give --channel-order "
+        f"with one label per file, in the order the files are given"
+    )
+
+
 def _choose_order(
     stem: StemInfo, layout: Layout, channel_order: Sequence[str] | None
 ) -> tuple[tuple[int, ...], str, list[str]]:
@@ -150,8 +184,11 @@ def _choose_order(
     if channel_order:
         return resolve_channel_order(layout, list(channel_order)), "--channel-order", warnings
     if len(stem.paths) > 1:
-        labels = labels_from_filenames(list(stem.paths))
-        if labels is not None:
+        found = [filename_label(p) for p in stem.paths]
+        if any(known is not None for _, known in found) and any(k is None for _, k in found):
+            raise _partly_labelled(stem.paths, found, layout)
+        labels = [known for _, known in found if known is not None]
+        if len(labels) == len(found):
             try:
                 return resolve_channel_order(layout, labels), "file names", warnings
             except LayoutError as exc:
