@@ -1,8 +1,9 @@
 """Block loudness kept in bounded memory: the gating histograms and the plot series.
 
-Memory is bounded whatever the length of the programme: two fixed histograms (0.01 LU
-bins from -140 LUFS, the absolute gate less :data:`MAX_RESULT_GAIN_DB`, to +40 LUFS,
-each bin holding a count and the sum of block powers) serve the gated average and the
+Memory is bounded whatever the length of the programme: two histograms (0.01 LU bins
+from -140 LUFS, the absolute gate less :data:`MAX_RESULT_GAIN_DB`, to +40 LUFS, grown
+upwards in steps when a block is louder, up to the loudest power a float64 holds, about
++3080 LUFS; each bin holding a count and the sum of block powers) serve the gated average and the
 loudness-range percentiles, and the plot series are capped at :data:`SERIES_MAX_POINTS`
 points each. The gated mean is exact except for the blocks that fall in the one bin
 that holds the relative gate (they are in or out together), an error far below
@@ -17,6 +18,7 @@ from typing import cast
 import numpy as np
 from numpy.typing import NDArray
 
+from ..errors import AudioError
 from ._levels import power_lufs
 
 __all__ = [
@@ -62,10 +64,17 @@ _HIST_LO = ABSOLUTE_GATE_LUFS - MAX_RESULT_GAIN_DB
 _HIST_HI = 40.0
 _HIST_STEP = 0.01
 _HIST_BINS = int(round((_HIST_HI - _HIST_LO) / _HIST_STEP))
+_HIST_GROW = 1000
+# Bins added at a time (10 LU) when a block is louder than the top bin. Float stems may
+# sit far above full scale (a float32 sample reaches 3.4e38, +770 dBFS): the histogram
+# follows them instead of piling them into its top bin, where the gates would drop them.
 
 
 class BlockHistogram:
     """Block loudness as counts and power sums in 0.01 LU bins, from -140 LUFS up.
+
+    The bins reach +40 LUFS and grow upwards as louder blocks arrive, so any finite
+    block power is counted in its own bin.
 
     The gates are applied when the histogram is read, to the blocks' loudness plus a
     ``shift`` in LU: the same audio scaled by that gain (block powers scale exactly;
@@ -79,10 +88,20 @@ class BlockHistogram:
     def add(self, power: NDArray[np.float64]) -> None:
         """Count blocks of these powers (K-weighted, channel-weighted mean squares)."""
         loud = power_lufs(power)
+        if not np.all(np.isfinite(power)):
+            raise AudioError(
+                "a block's power is not finite (the audio holds NaN or infinity, or a level "
+                "whose square overflows a float64, above about 1e154); it cannot be measured"
+            )
         keep = loud > _HIST_LO
         if not np.any(keep):
             return
-        idx = np.clip(((loud[keep] - _HIST_LO) / _HIST_STEP).astype(np.int64), 0, _HIST_BINS - 1)
+        idx = ((loud[keep] - _HIST_LO) / _HIST_STEP).astype(np.int64)
+        top = int(idx.max())
+        if top >= self.counts.size:
+            grow = (top - self.counts.size) // _HIST_GROW * _HIST_GROW + _HIST_GROW
+            self.counts = np.concatenate([self.counts, np.zeros(grow, dtype=np.int64)])
+            self.power = np.concatenate([self.power, np.zeros(grow)])
         # Only the span of bins hit is counted and added to: the same sums as over all
         # bins (adding 0.0 changes nothing), without touching 18 000 bins per block.
         lo = int(idx.min())
@@ -91,9 +110,8 @@ class BlockHistogram:
         self.counts[lo : lo + span] += np.bincount(idx, minlength=span)
         self.power[lo : lo + span] += np.bincount(idx, weights=power[keep], minlength=span)
 
-    @staticmethod
-    def _centres(shift: float) -> NDArray[np.float64]:
-        centres = _HIST_LO + (np.arange(_HIST_BINS) + 0.5) * _HIST_STEP + shift
+    def _centres(self, shift: float) -> NDArray[np.float64]:
+        centres = _HIST_LO + (np.arange(self.counts.size) + 0.5) * _HIST_STEP + shift
         return cast(NDArray[np.float64], centres)
 
     def relative_mask(self, gate_lu: float, shift: float = 0.0) -> NDArray[np.bool_] | None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import math
 from collections.abc import Callable, Iterable, Iterator
 from pathlib import Path
 from typing import Any
@@ -11,7 +12,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..engine import FoldEngine
-from ..errors import RenderCancelled
+from ..errors import AudioError, RenderCancelled
 from ..io import OutputWriter, StemReader
 from ..loudness import LoudnessMeter, channel_weights
 from ..pipeline import BackgroundWriter, prefetch
@@ -37,6 +38,13 @@ _METER_BATCH = 262144
 # stereo float32). Measured on a 60 s 7.1.4 render on two cores: metering the engine's
 # 8192-frame blocks one by one added about 0.25 s, batches of 65536 about 0.1 s, of
 # 262144 about 0.04 s.
+
+
+_OVERFLOW = (
+    "the render overflowed: the input's level is too high for the engine's float32 "
+    "arithmetic (float stems work up to sample levels of about 1e33, +660 dBFS); scale "
+    "the stem down and render again"
+)
 
 
 def stream(
@@ -96,9 +104,12 @@ def stream(
         writer.write(block)
 
     def emit(block: NDArray[np.floating[Any]]) -> None:
-        background.submit(block)
         if block.size:
-            state["peak"] = max(state["peak"], float(np.max(np.abs(block))))
+            peak = float(np.max(np.abs(block)))
+            if not math.isfinite(peak):
+                raise AudioError(_OVERFLOW)
+            state["peak"] = max(state["peak"], peak)
+        background.submit(block)
         state["done"] += len(block)
         if progress is not None:
             progress(min(state["done"] / total, 1.0))
