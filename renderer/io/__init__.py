@@ -7,12 +7,14 @@ from __future__ import annotations
 
 from .audio import (
     INPUT_FORMATS,
+    NonFiniteSample,
     OutputWriter,
     StemInfo,
     StemReader,
     audio_formats,
     probe_stem,
     read_audio,
+    scan_stem,
     subtype_for,
     write_audio,
 )
@@ -21,6 +23,7 @@ from .wav_header import WAVE_FORMAT_EXTENSIBLE, read_channel_mask
 __all__ = [
     "INPUT_FORMATS",
     "WAVE_FORMAT_EXTENSIBLE",
+    "NonFiniteSample",
     "OutputWriter",
     "StemInfo",
     "StemReader",
@@ -28,6 +31,7 @@ __all__ = [
     "probe_stem",
     "read_audio",
     "read_channel_mask",
+    "scan_stem",
     "subtype_for",
     "write_audio",
 ]

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import os
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+from pathlib import Path
 from types import TracebackType
 
 import numpy as np
@@ -13,7 +15,41 @@ from ..errors import AudioError, shown
 from ._codec import CodecError, SoundFileHandle, failure_reason, open_for_reading
 from ._probe import StemInfo, probe_stem
 
-__all__ = ["StemReader", "read_audio"]
+__all__ = ["SCAN_BLOCK_FRAMES", "NonFiniteSample", "StemReader", "read_audio", "scan_stem"]
+
+SCAN_BLOCK_FRAMES = 65536
+"""Frames per block when :func:`scan_stem` reads a stem (a few MB whatever its length)."""
+
+
+@dataclass(frozen=True)
+class NonFiniteSample:
+    """The first sample of a stem that is NaN or infinite, as :func:`scan_stem` finds it.
+
+    Attributes
+    ----------
+    path : str
+        The file that holds it (for several mono files, that channel's file).
+    channel : int
+        Channel of the stem, counted from 1.
+    label : str or None
+        The channel's label, where the caller knew it.
+    frame : int
+        Frame in the file, counted from 0.
+    seconds : float
+        The frame's time in the file.
+    kind : str
+        ``"NaN"`` or ``"infinity"``.
+    message : str
+        What is wrong and what to do, in words; the file is shown by name only.
+    """
+
+    path: str
+    channel: int
+    label: str | None
+    frame: int
+    seconds: float
+    kind: str
+    message: str
 
 
 class StemReader:
@@ -23,6 +59,12 @@ class StemReader:
     ----------
     info : StemInfo
         From :func:`probe_stem`. Files are opened here and checked still to match it.
+    labels : sequence of str, optional
+        The label of each channel in file order, used to name a channel in messages.
+    check_finite : bool
+        Refuse a block that holds NaN or infinity (:class:`AudioError` naming the file,
+        the channel and the frame; see :func:`scan_stem`). On by default: such a sample
+        would spread through every filter it meets and ruin the whole render.
 
     Attributes
     ----------
@@ -30,9 +72,17 @@ class StemReader:
         Frames yielded so far by the current :meth:`blocks` iteration.
     """
 
-    def __init__(self, info: StemInfo) -> None:
+    def __init__(
+        self,
+        info: StemInfo,
+        *,
+        labels: Sequence[str] | None = None,
+        check_finite: bool = True,
+    ) -> None:
         self.info = info
         self.frames_read = 0
+        self._labels = None if labels is None else [str(x) for x in labels]
+        self._check_finite = check_finite
         self._files: list[SoundFileHandle] = []
         try:
             for path in info.paths:
@@ -132,8 +182,45 @@ class StemReader:
                     return
                 # Within the stem's length a file that ended early is padded: yield n.
                 got = n
+            if self._check_finite and not np.all(np.isfinite(out)):
+                raise AudioError(self._non_finite(out, self.frames_read).message)
             self.frames_read += got
             yield out
+
+    def _non_finite(self, block: npt.NDArray[np.float32], first: int) -> NonFiniteSample:
+        """Where the first NaN or infinity of ``block`` (stem frames from ``first``) is."""
+        bad = ~np.isfinite(block)
+        row = int(np.argmax(bad.any(axis=1)))
+        col = int(np.argmax(bad[row]))
+        value = float(block[row, col])
+        info = self.info
+        path = info.paths[col] if len(info.paths) > 1 else info.paths[0]
+        frame = info.start + first + row
+        seconds = frame / info.samplerate
+        label = None
+        if self._labels is not None and col < len(self._labels):
+            label = self._labels[col]
+        channel = f"channel {col + 1}" + (f" ({label})" if label else "")
+        if np.isnan(value):
+            kind, what = "NaN", "NaN (not a number)"
+        else:
+            kind, what = "infinity", "an infinite value"
+            if info.subtype == "DOUBLE":
+                what = (
+                    "an infinite value, or one beyond the float32 range (about 3.4e38) "
+                    "the renderer works in"
+                )
+        where = (
+            f"{Path(path).name!r} ({channel})"
+            if len(info.paths) > 1
+            else f"{Path(path).name!r}, {channel},"
+        )
+        message = (
+            f"{where} holds {what} at frame {frame} ({seconds:.3f} s); every filter it "
+            "reached would be ruined, so the stem cannot be rendered. Repair or re-export "
+            "the file (or replace those samples with silence) and try again"
+        )
+        return NonFiniteSample(path, col + 1, label, frame, seconds, kind, message)
 
 
 def read_audio(path: str | os.PathLike[str]) -> tuple[npt.NDArray[np.float32], int]:
@@ -150,3 +237,44 @@ def read_audio(path: str | os.PathLike[str]) -> tuple[npt.NDArray[np.float32], i
             data[done : done + len(block)] = block
             done += len(block)
     return data[:done], info.samplerate
+
+
+def scan_stem(
+    info: StemInfo,
+    *,
+    labels: Sequence[str] | None = None,
+    blocksize: int = SCAN_BLOCK_FRAMES,
+) -> NonFiniteSample | None:
+    """Read a probed stem once, in blocks, and find its first NaN or infinite sample.
+
+    Meant for a caller that wants to refuse such a stem before any render (when it is
+    uploaded, say); a render refuses it anyway as it reads it (:class:`StemReader`).
+    Memory depends on ``blocksize``, not on the length of the stem.
+
+    Parameters
+    ----------
+    info : StemInfo
+        From :func:`probe_stem`.
+    labels : sequence of str, optional
+        Channel labels in file order, to name the channel in the message.
+    blocksize : int
+        Frames per read.
+
+    Returns
+    -------
+    NonFiniteSample or None
+        The first bad sample (earliest frame, then lowest channel), or None if every
+        sample is finite.
+
+    Raises
+    ------
+    AudioError
+        If a file cannot be opened or has changed since it was probed.
+    """
+    with StemReader(info, labels=labels, check_finite=False) as reader:
+        done = 0
+        for block in reader.blocks(blocksize, reuse=True):
+            if not np.all(np.isfinite(block)):
+                return reader._non_finite(block, done)
+            done += len(block)
+    return None

@@ -40,7 +40,7 @@ from ._probe import (
     StemInfo,
     probe_stem,
 )
-from ._reader import StemReader, read_audio
+from ._reader import NonFiniteSample, StemReader, read_audio, scan_stem
 from ._writer import (
     OUTPUT_FORMATS,
     OUTPUT_SUBTYPES,
@@ -57,6 +57,7 @@ __all__ = [
     "MAX_SAMPLERATE",
     "MIN_SAMPLERATE",
     "OUTPUT_FORMATS",
+    "NonFiniteSample",
     "OUTPUT_SUBTYPES",
     "RIFF_LIMIT_BYTES",
     "OutputWriter",
@@ -65,6 +66,7 @@ __all__ = [
     "audio_formats",
     "probe_stem",
     "read_audio",
+    "scan_stem",
     "subtype_for",
     "write_audio",
 ]

@@ -116,7 +116,7 @@ def stream(
 
     with (
         contextlib.closing(engine),
-        StemReader(stem) as reader,
+        StemReader(stem, labels=[plan.layout.labels[i] for i in plan.order]) as reader,
         OutputWriter(
             path,
             stem.samplerate,
