@@ -9,13 +9,15 @@ from __future__ import annotations
 
 import argparse
 import os
+import signal
 import sys
+import threading
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
 import earfold.renderer
-from earfold.renderer import RendererError
+from earfold.renderer import RenderCancelled, RendererError
 
 from .cli_commands import add_demo_parser, add_listing_parsers
 from .cli_output import EXIT_BAD_INPUT, EXIT_INTERRUPTED
@@ -23,7 +25,54 @@ from .cli_output import Progress as _Progress
 from .cli_output import print_json as _print_json
 from .files import write_json_atomic
 
-__all__ = ["EXIT_BAD_INPUT", "EXIT_INTERRUPTED", "build_parser", "main"]
+__all__ = ["EXIT_BAD_INPUT", "EXIT_INTERRUPTED", "EXIT_TERMINATED", "build_parser", "main"]
+
+#: Exit status after SIGTERM (128 + SIGTERM), which ends a command as Ctrl-C does.
+EXIT_TERMINATED = 128 + int(signal.SIGTERM)
+
+
+class _Terminated(KeyboardInterrupt):
+    """SIGTERM, ending a command as Ctrl-C does (exit :data:`EXIT_TERMINATED`)."""
+
+
+class _StopOnSigterm:
+    """SIGTERM during a render: a clean cancel, so no output or hidden file is left.
+
+    While the render is being planned (no thread, no file yet) the signal raises
+    :class:`_Terminated` at once. Later it only sets :attr:`stopped`, which the render
+    polls once per block (``cancelled``) and which ends it with
+    :class:`~earfold.renderer.errors.RenderCancelled`: an exception raised at an
+    arbitrary point while the reader and writer threads hand blocks over could leave
+    one of them waiting for ever, and the hidden files with it.
+    """
+
+    def __init__(self) -> None:
+        self.stopped = False
+        self._previous: Any = None
+        self._installed = False
+
+    def __call__(self) -> bool:
+        return self.stopped
+
+    def _handle(self, signum: int, frame: Any) -> None:
+        self.stopped = True
+        from earfold.renderer.render import plan_render
+
+        while frame is not None:
+            if frame.f_code is plan_render.__code__:
+                raise _Terminated
+            frame = frame.f_back
+
+    def __enter__(self) -> _StopOnSigterm:
+        if threading.current_thread() is threading.main_thread():
+            self._previous = signal.signal(signal.SIGTERM, self._handle)
+            self._installed = True
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._installed:
+            signal.signal(signal.SIGTERM, self._previous)
+            self._installed = False
 
 
 # -- render ----------------------------------------------------------------------------
@@ -38,6 +87,14 @@ def _write_json(path: str, data: object) -> None:
     write_json_atomic(path, data)
 
 
+class _OptionValueError(Exception):
+    """A declared render option's value refused on the command line.
+
+    Deliberately not a ValueError: argparse would turn that into its usage text plus an
+    error line; :func:`main` prints it as the one line every other error gets.
+    """
+
+
 def _option_type(spec: Any) -> Callable[[str], Any]:
     """argparse ``type`` of a declared render option: its own parser and messages."""
 
@@ -45,7 +102,7 @@ def _option_type(spec: Any) -> Callable[[str], Any]:
         try:
             value = spec.parse(text)
         except RendererError as exc:
-            raise argparse.ArgumentTypeError(str(exc)) from None
+            raise _OptionValueError(f"argument {spec.flag}: {exc}") from None
         if value is None and spec.kind == "level":
             # "none"/"off": kept as the word, since a value of None means "the default".
             return next(c for c in spec.choices if c in ("none", "off"))
@@ -91,15 +148,21 @@ def cmd_render(args: argparse.Namespace) -> int:
 
     settings = render_settings_from_args(args)
     progress = _Progress("rendering", enabled=False if args.quiet else None)
-    try:
-        report = render(args.inputs, args.output, settings, progress=progress)
-    finally:
-        progress.done()
     report_path = (
         None if args.report == "none" else (args.report or _default_report_path(args.output))
     )
-    if report_path:
-        _write_json(report_path, report)
+    with _StopOnSigterm() as stop:
+        try:
+            report = render(args.inputs, args.output, settings, progress=progress, cancelled=stop)
+        except RenderCancelled:
+            raise _Terminated from None
+        finally:
+            progress.done()
+        if stop.stopped:  # after the last poll: the output is whole, but not wanted
+            Path(args.output).unlink(missing_ok=True)
+            raise _Terminated
+        if report_path:
+            _write_json(report_path, report)
     if not args.quiet:
         out = report["output"]
         level = ""
@@ -199,7 +262,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except _OptionValueError as exc:
+        # One line, and SystemExit(2) as argparse's own errors end.
+        parser.exit(EXIT_BAD_INPUT, f"earfold: error: {exc}\n")
     if not getattr(args, "func", None):
         parser.print_help(sys.stderr)
         return EXIT_BAD_INPUT
@@ -212,6 +279,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         # a file or folder the user named (missing, a folder, not writable, a full disk)
         print(f"earfold: error: {_os_error(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except _Terminated:
+        print("earfold: terminated; no partial output was kept", file=sys.stderr)
+        return EXIT_TERMINATED
     except KeyboardInterrupt:
         print("earfold: interrupted; no partial output was kept", file=sys.stderr)
         return EXIT_INTERRUPTED

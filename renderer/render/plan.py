@@ -187,13 +187,13 @@ def _choose_order(
         found = [filename_label(p) for p in stem.paths]
         if any(known is not None for _, known in found) and any(k is None for _, k in found):
             raise _partly_labelled(stem.paths, found, layout)
-        labels = [known for _, known in found if known is not None]
-        if len(labels) == len(found):
+        named = [known for _, known in found if known is not None]
+        if len(named) == len(found):
             try:
-                return resolve_channel_order(layout, labels), "file names", warnings
+                return resolve_channel_order(layout, named), "file names", warnings
             except LayoutError as exc:
                 raise LayoutError(
-                    f"the file names give the labels {', '.join(labels)}, which do not fit: "
+                    f"the file names give the labels {', '.join(named)}, which do not fit: "
                     f"{exc}; rename the files or give --channel-order"
                 ) from None
         warnings.append(
