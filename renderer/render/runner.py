@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 import time
 import uuid
@@ -9,12 +10,14 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from ..io import subtype_for
 from ..loudness import DeliveryOptions, deliver
 from .options import RenderSettings, output_format
-from .plan import plan_render
+from .plan import RenderPlan, plan_render
 from .report import render_report
-from .stream import stream
+from .stream import HOT_INPUT_SCALE, EngineOverflow, stream
 
 __all__ = ["RENDER_PROGRESS_SHARE", "render"]
 
@@ -90,20 +93,29 @@ def render(
         else out_path.with_name(f".{out_path.name}.{uuid.uuid4().hex[:8]}.render.wav")
     )
     share = 1.0 if direct else RENDER_PROGRESS_SHARE
+    scale = 1.0
     try:
-        streamed = stream(
-            plan,
-            temp,
-            block_size=settings.block_size,
-            seed=settings.seed,
-            subtype=subtype if direct else "FLOAT",
-            fmt=settings.format if direct else "wav",
-            progress=None if progress is None else (lambda f: progress(share * f)),
-            cancelled=cancelled,
-            meter_input=options.loudness == "match",
-            meter_output=not direct,
-            scratch=not direct,
-        )
+        for scale in (1.0, HOT_INPUT_SCALE):
+            try:
+                streamed = _stream_quietly(
+                    plan,
+                    temp,
+                    block_size=settings.block_size,
+                    seed=settings.seed,
+                    subtype=subtype if direct else "FLOAT",
+                    fmt=settings.format if direct else "wav",
+                    progress=None if progress is None else (lambda f: progress(share * f)),
+                    cancelled=cancelled,
+                    meter_input=options.loudness == "match",
+                    meter_output=not direct,
+                    scratch=not direct,
+                    input_scale=scale,
+                )
+                break
+            except EngineOverflow:
+                # Without a delivery stage the output would keep the scale: refused.
+                if direct or scale != 1.0:
+                    raise
         t_render = time.perf_counter()
         delivery: dict[str, Any] | None = None
         if not direct:
@@ -124,6 +136,8 @@ def render(
     finally:
         if not direct:
             temp.unlink(missing_ok=True)
+    if scale != 1.0 and delivery is not None:
+        _unscale(delivery, 20.0 * math.log10(scale))
     t_end = time.perf_counter()
     return render_report(
         plan,
@@ -133,4 +147,28 @@ def render(
         delivery,
         subtype=subtype,
         timings=(t0, t_plan, t_render, t_end),
+    )
+
+
+def _stream_quietly(plan: RenderPlan, path: Path, **kwargs: Any) -> dict[str, Any]:
+    """:func:`stream`, without numpy's warnings of an overflow: the stream finds it
+    (:class:`EngineOverflow`) and :func:`render` handles it."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        return stream(plan, path, **kwargs)
+
+
+def _unscale(delivery: dict[str, Any], scale_db: float) -> None:
+    """Report a render retried at an input scale of ``scale_db`` in the stem's own terms.
+
+    The delivered file is what it would have been (the loudness gain undid the scale);
+    the figures measured before the gain are moved back by the scale.
+    """
+    for key in ("render_integrated_lufs", "input_integrated_lufs"):
+        if delivery.get(key) is not None:
+            delivery[key] = round(delivery[key] - scale_db, 2)
+    delivery["gain_db"] = round(delivery["gain_db"] + scale_db, 2)
+    delivery["warnings"].append(
+        f"the stem is too hot for the engine's float32 arithmetic (above about 1e33, "
+        f"+660 dBFS): it was rendered {-scale_db:.1f} dB down (an exact power of two), "
+        "which the loudness gain undid"
     )

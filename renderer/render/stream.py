@@ -18,7 +18,7 @@ from ..loudness import LoudnessMeter, channel_weights
 from ..pipeline import BackgroundWriter, prefetch
 from .plan import RenderPlan
 
-__all__ = ["engine_for", "stream"]
+__all__ = ["HOT_INPUT_SCALE", "EngineOverflow", "engine_for", "stream"]
 
 
 def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine:
@@ -40,10 +40,24 @@ _METER_BATCH = 262144
 # 262144 about 0.04 s.
 
 
+HOT_INPUT_SCALE = 2.0**-64
+"""Exact input scale (-385.3 dB) of a render retried after the engine overflowed.
+
+The float32 engine overflows for stems peaking above about 1e33 (its FFT sums thousands
+of products). Scaled by 2**-64, the largest float32 (3.4e38) becomes 1.8e19, far inside
+its range, while a sample 385 dB under the peak stays a normal float32: the render is
+the same audio, exactly scaled (a power of two changes no mantissa), and the delivery
+stage's loudness gain undoes the scale."""
+
+
+class EngineOverflow(AudioError):
+    """The engine's float32 arithmetic overflowed: the stem is too hot to render as is."""
+
+
 _OVERFLOW = (
     "the render overflowed: the input's level is too high for the engine's float32 "
-    "arithmetic (float stems work up to sample levels of about 1e33, +660 dBFS); scale "
-    "the stem down and render again"
+    "arithmetic (sample levels above about 1e33, +660 dBFS); scale the stem down, or "
+    "render with a loudness target so that it is scaled for you"
 )
 
 
@@ -60,11 +74,14 @@ def stream(
     meter_input: bool,
     meter_output: bool,
     scratch: bool = False,
+    input_scale: float = 1.0,
 ) -> dict[str, Any]:
     """Stream the stem through the engine into ``path``; meter input and output on the way.
 
     The input meter runs in the reader thread and the output meter in the writer thread,
-    so on two cores they add little to the render's time.
+    so on two cores they add little to the render's time. ``input_scale`` (a power of
+    two, :data:`HOT_INPUT_SCALE`) scales every input block before it is metered and
+    rendered; :class:`EngineOverflow` says the engine overflowed.
     """
     stem = plan.stem
     engine = engine_for(plan, block_size)
@@ -82,6 +99,8 @@ def stream(
 
     def metered(blocks: Iterable[NDArray[np.float32]]) -> Iterator[NDArray[np.float32]]:
         for block in blocks:
+            if input_scale != 1.0:
+                block = block * np.float32(input_scale)
             if input_meter is not None:
                 input_meter.process(block)
             yield block
@@ -107,7 +126,7 @@ def stream(
         if block.size:
             peak = float(np.max(np.abs(block)))
             if not math.isfinite(peak):
-                raise AudioError(_OVERFLOW)
+                raise EngineOverflow(_OVERFLOW)
             state["peak"] = max(state["peak"], peak)
         background.submit(block)
         state["done"] += len(block)

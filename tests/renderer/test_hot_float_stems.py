@@ -52,15 +52,28 @@ def test_the_meter_is_unchanged_for_normal_levels():
     assert rb.loudness_range_lu == pytest.approx(ra.loudness_range_lu, abs=0.011)
 
 
-def test_a_stem_too_hot_for_the_engine_is_refused_without_naming_the_scratch_file(tmp_path):
-    # Near the float32 maximum (3.4e38) the engine's float32 FFT overflows: a clear
-    # error, not a render, and no message about the hidden scratch render.
+@pytest.mark.parametrize("sigma", [1e34, 3e37])
+def test_a_stem_near_the_float32_maximum_is_rendered_scaled_and_delivered(tmp_path, sigma):
+    # Above about 1e33 the engine's float32 FFT overflows; the render used to fail on
+    # the hidden scratch file. It is rendered again 2**-64 down and delivered.
     out = tmp_path / "out.wav"
-    with (
-        np.errstate(over="ignore", invalid="ignore"),
-        pytest.raises(AudioError, match="too high for the engine") as caught,
-    ):
-        render([_hot_stem(tmp_path, 1e37, 1.0)], out, RenderSettings(layout="5.1"))
-    assert ".render.wav" not in str(caught.value)
-    assert not out.exists()
+    report = render([_hot_stem(tmp_path, sigma, 1.0)], out, RenderSettings(layout="5.1"))
+    measured = measure_file(out)
+    assert measured.integrated_lufs == pytest.approx(-23.0, abs=0.1)
+    assert measured.true_peak_dbtp <= -1.0
+    delivery = report["delivery"]
+    assert delivery["render_integrated_lufs"] > 660.0  # in the stem's own terms
+    assert delivery["gain_db"] == pytest.approx(-23.0 - delivery["render_integrated_lufs"], 0.02)
+    assert any("rendered 385.3 dB down" in w for w in report["warnings"])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["hot.wav", "out.wav"]
+
+
+def test_a_stem_too_hot_for_the_engine_without_delivery_is_refused_cleanly(tmp_path):
+    # Without a delivery stage the output would keep any scale: a clear error, not a
+    # message naming a scratch file, and nothing left behind.
+    out = tmp_path / "out.wav"
+    settings = RenderSettings(layout="5.1", loudness=None, true_peak=None, subtype="FLOAT")
+    with pytest.raises(AudioError, match="too high for the engine") as caught:
+        render([_hot_stem(tmp_path, 1e37, 1.0)], out, settings)
+    assert ".render.wav" not in str(caught.value) and ".part" not in str(caught.value)
     assert [p.name for p in tmp_path.iterdir()] == ["hot.wav"]
