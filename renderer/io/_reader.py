@@ -216,9 +216,10 @@ class StemReader:
             else f"{Path(path).name!r}, {channel},"
         )
         message = (
-            f"{where} holds {what} at frame {frame} ({seconds:.3f} s); every filter it "
-            "reached would be ruined, so the stem cannot be rendered. Repair or re-export "
-            "the file (or replace those samples with silence) and try again"
+            f"{where} holds {what} at frame {frame} ({seconds:.3f} s); it would spread "
+            "through every filter and measurement it reached, so the file cannot be used. "
+            "Repair or re-export the file (or replace those samples with silence) and try "
+            "again"
         )
         return NonFiniteSample(path, col + 1, label, frame, seconds, kind, message)
 

@@ -226,6 +226,12 @@ class PeakInterpolator:
         return buf[:size].reshape(shape)
 
 
+_FLOAT32_SAFE = 2.0**100
+# Blocks of smaller float32 samples are interpolated in float32: the interpolation's sums
+# (at most bound_gain, about 1.2, times the peak) stay far below the float32 maximum,
+# 2**128. Hotter float stems (far above full scale) are interpolated in float64.
+
+
 class TruePeakMeter:
     """Streaming true-peak meter (BS.1770-4 Annex 2 method, our interpolator).
 
@@ -263,6 +269,8 @@ class TruePeakMeter:
         sample_peak = max(float(x.max()), -float(x.min()))
         self._sample_peak = max(self._sample_peak, sample_peak)
         self._peak = max(self._peak, sample_peak)
+        if sample_peak > _FLOAT32_SAFE and x.dtype != np.float64:
+            x = x.astype(np.float64)  # interpolated in float32 it could overflow
         peaks = self.interpolator.point_peaks(x, threshold=self._peak, context=self._history)
         self._peak = max(self._peak, float(peaks.max()))
         e = self.interpolator.history

@@ -77,3 +77,17 @@ def test_a_stem_too_hot_for_the_engine_without_delivery_is_refused_cleanly(tmp_p
         render([_hot_stem(tmp_path, 1e37, 1.0)], out, settings)
     assert ".render.wav" not in str(caught.value) and ".part" not in str(caught.value)
     assert [p.name for p in tmp_path.iterdir()] == ["hot.wav"]
+
+
+def test_the_true_peak_of_a_stem_near_the_float32_maximum_is_read_not_lost():
+    # Interpolated in float32, a sine at 3e38 overflowed: the true peak read as
+    # digital silence. It must read the same as at full scale, plus the level.
+    from earfold.renderer.loudness import true_peak
+
+    t = np.arange(FS) / FS
+    x = np.sin(2 * np.pi * (FS / 4) * t + np.pi / 4)[:, None]  # inter-sample peaks
+    quiet = true_peak(x.astype(np.float32), FS)
+    with np.errstate(over="raise", invalid="raise"):
+        hot = true_peak((3e38 * x).astype(np.float32), FS)
+    assert hot - 20 * np.log10(3e38) == pytest.approx(quiet, abs=1e-4)
+    assert quiet > 20 * np.log10(np.sqrt(0.5)) + 2.5  # between the samples, above them
