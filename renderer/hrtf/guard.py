@@ -137,9 +137,7 @@ def read_sofa_guarded(
             f"{label}: reading the file needed more than {memory_bytes / 2**20:.0f} MiB of "
             "memory and was stopped; the file is probably damaged"
         )
-    how = (
-        f"signal {-proc.returncode}" if proc.returncode < 0 else f"exit status {proc.returncode}"
-    )
+    how = f"signal {-proc.returncode}" if proc.returncode < 0 else f"exit status {proc.returncode}"
     raise SofaError(
         f"{label}: the SOFA reader crashed on this file ({how}); the file is probably damaged"
     )
@@ -177,7 +175,9 @@ def _data(path: str, fields: dict[str, Any], npz: str, label: str) -> SofaData:
         directions=loaded["directions"],
         distances=loaded["distances"],
         emitter=None if fields["emitter"] is None else int(fields["emitter"]),
-        attributes=types.MappingProxyType({str(k): str(v) for k, v in fields["attributes"].items()}),
+        attributes=types.MappingProxyType(
+            {str(k): str(v) for k, v in fields["attributes"].items()}
+        ),
         warnings=tuple(str(w) for w in fields["warnings"]),
     )
 
@@ -211,9 +211,7 @@ def _child(path: str, out: str, memory_bytes: int, emitter: int | None) -> int:
     except Exception as exc:  # any other failure of the C library is the file's fault too
         text = " ".join(str(exc).split())[:200]
         print(
-            json.dumps(
-                {"error": f"{label}: cannot be read as SOFA ({type(exc).__name__}: {text})"}
-            )
+            json.dumps({"error": f"{label}: cannot be read as SOFA ({type(exc).__name__}: {text})"})
         )
         return 2
     fields: dict[str, Any] = {k: getattr(data, k) for k in _FIELDS}

@@ -33,14 +33,14 @@ from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from ..errors import HrirError, shown
 from ..geometry import angle_between, normalize, vector_to_direction
+from ._sofa_data import MAX_VALUES
+from .guard import is_shipped, read_sofa_guarded
 from .onsets import (
     cross_correlation_itd,
     fractional_delay,
     interaural_time_difference,
     onset_times,
 )
-from ._sofa_data import MAX_VALUES
-from .guard import is_shipped, read_sofa_guarded
 from .sofa import SofaData, read_sofa
 
 #: A requested direction this close (degrees) to a measured one uses that measurement as it is.
