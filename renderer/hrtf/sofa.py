@@ -139,6 +139,11 @@ def read_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> So
         return read_dataset(ds, p, label, None if emitter is None else int(emitter))
     except SofaError:
         raise
+    except MemoryError as exc:
+        raise SofaError(
+            f"{label}: reading the file ran out of memory ({cause(exc)}); the file is "
+            "probably damaged, or too large for the memory available"
+        ) from exc
     except NC_ERRORS as exc:
         raise SofaError(f"{label}: the file is damaged and cannot be read ({cause(exc)})") from exc
     finally:
