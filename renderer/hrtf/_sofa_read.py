@@ -270,7 +270,9 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
     index = tuple(picked if a == e_axis else slice(None) for a in range(len(shape)))
     kept = [a for a in range(len(shape)) if a != e_axis]
     raw = np.asarray(ir_var[index], dtype=np.float64)
-    ir = np.array(np.transpose(raw, [kept.index(order[i]) for i in range(3)]), dtype=np.float64)
+    # A copy only where the axes need reordering: the largest array is not held twice.
+    ir = np.ascontiguousarray(np.transpose(raw, [kept.index(order[i]) for i in range(3)]))
+    del raw
     check_values(ir, label, "Data.IR")
     if convention == "SimpleFreeFieldHRIR" and not np.any(ir):
         # An HRIR set of zeros renders silence. The General conventions are containers for
@@ -279,14 +281,14 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
 
     sizes3 = {"M": M, "R": R, "E": E, "C": 3}
     notes: list[str] = []  # what was changed or looks odd, for SofaData.warnings
-    peak = float(np.abs(ir).max())
+    peak = float(max(ir.max(), -ir.min()))  # no temporary the size of Data.IR
     if peak < SILENT_FLOOR and (convention == "SimpleFreeFieldHRIR" or peak > 0):
         raise SofaError(
             f"{label}: every impulse response in Data.IR is practically silent (the loudest "
             f"sample is {peak:.3g}, below {SILENT_FLOOR:g}, i.e. -200 dB); there is nothing "
             "to render with"
         )
-    ear_peaks = np.abs(ir).max(axis=-1)  # (M, 2)
+    ear_peaks = np.maximum(ir.max(axis=-1), -ir.min(axis=-1))  # (M, 2)
     faint = int(np.sum(np.any((ear_peaks > 0) & (ear_peaks < peak * 1e-6), axis=-1)))
     if faint:
         notes.append(

@@ -53,7 +53,10 @@ def var_attributes(var: NcVariable, label: str, name: str) -> dict[str, str]:
 
 
 def check_values(arr: np.ndarray, label: str, name: str) -> None:
-    bad = ~np.isfinite(arr) | (np.abs(arr) > _FILL_LIMIT)
+    # Boolean temporaries only (an np.abs copy of a large Data.IR would double its memory).
+    bad = ~np.isfinite(arr)
+    bad |= arr > _FILL_LIMIT
+    bad |= arr < -_FILL_LIMIT
     if np.any(bad):
         where = tuple(int(i) for i in np.argwhere(bad)[0])
         raise SofaError(

@@ -157,7 +157,7 @@ def _answer(stdout: str) -> dict[str, Any] | None:
 def _data(path: str, fields: dict[str, Any], npz: str, label: str) -> SofaData:
     try:
         with np.load(npz, allow_pickle=False) as arrays:
-            loaded = {k: np.array(arrays[k], dtype=np.float64) for k in _ARRAYS}
+            loaded = {k: np.asarray(arrays[k], dtype=np.float64) for k in _ARRAYS}
     except (OSError, KeyError, ValueError) as exc:
         raise SofaError(f"{label}: the reading process returned no usable data ({exc})") from None
     for arr in loaded.values():
