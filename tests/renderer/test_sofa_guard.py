@@ -203,3 +203,33 @@ def test_one_nearly_silent_measurement_is_warned_about(base, tmp_path):
     mut._set(path, "Data.IR", lambda a: np.concatenate([a[:1] * 1e-9, a[1:]]))
     data = read_sofa(path)
     assert any("1 of 24 measurements have an ear" in w for w in data.warnings)
+
+
+def test_render_with_a_user_set_of_relative_delays_reports_the_shift(base, tmp_path):
+    from earfold.renderer.io import write_audio
+    from earfold.renderer.render import RenderSettings, plan_render
+
+    odd = mut.make_mutant(base, "delay_negative", 3, tmp_path / "relative.sofa")
+    stem = tmp_path / "stem.wav"
+    write_audio(stem, np.random.default_rng(1).standard_normal((4800, 2)) * 0.1, 48000)
+    plan = plan_render([stem], RenderSettings(layout="2.0", hrtf=str(odd)))
+    assert any("negative (relative) delays" in w for w in plan.warnings), plan.warnings
+
+
+def test_hrtf_inspect_of_a_user_file_reads_it_guarded_and_shows_the_warnings(
+    base, tmp_path, monkeypatch
+):
+    import earfold.renderer.tools._inspect as inspect_module
+
+    calls = []
+    real = inspect_module.read_sofa_guarded
+
+    def spy(path, **kwargs):
+        calls.append(path)
+        return real(path, **kwargs)
+
+    monkeypatch.setattr(inspect_module, "read_sofa_guarded", spy)
+    odd = mut.make_mutant(base, "positions_beyond_pole", 3, tmp_path / "pole.sofa")
+    summary = inspect_module.inspect_sofa(odd)
+    assert calls == [odd]
+    assert any("folded over the pole" in w for w in summary["warnings"])

@@ -106,3 +106,61 @@ def test_bounded_read_refuses_a_folder_and_reads_a_small_file(tmp_path):
     assert read_bytes_bounded(small, kind="x", max_bytes=6, error=LayoutError) == b"[1, 2]"
     with pytest.raises(LayoutError, match="at most 5 bytes"):
         read_bytes_bounded(small, kind="x", max_bytes=5, error=LayoutError)
+
+
+def _cli(*args: str):
+    import subprocess
+    import sys
+
+    return subprocess.run(
+        [sys.executable, "-m", "earfold.service.cli", *args],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+
+
+def test_cli_refuses_dev_zero_as_headphone_eq_and_as_sofa_in_one_line(tmp_path):
+    import numpy as np
+
+    from earfold.renderer.io import write_audio
+
+    stem = tmp_path / "stem.wav"
+    write_audio(stem, np.random.default_rng(1).standard_normal((4800, 2)) * 0.1, 48000)
+    runs = [
+        (
+            _cli(
+                "render",
+                str(stem),
+                "-o",
+                str(tmp_path / "out.wav"),
+                "--layout",
+                "2.0",
+                "--headphone-eq",
+                str(_zero(tmp_path, "eq.json")),
+                "-q",
+            ),
+            "eq.json",
+        ),
+        (_cli("hrtf", "inspect", str(_zero(tmp_path, "set.sofa"))), "set.sofa"),
+        (
+            _cli(
+                "render",
+                str(stem),
+                "-o",
+                str(tmp_path / "out2.wav"),
+                "--layout",
+                "2.0",
+                "--hrtf",
+                str(tmp_path / "set.sofa"),
+                "-q",
+            ),
+            "set.sofa",
+        ),
+    ]
+    for proc, name in runs:
+        assert proc.returncode == 2, proc.stderr
+        assert "Traceback" not in proc.stderr
+        lines = proc.stderr.strip().splitlines()
+        assert len(lines) == 1 and name in lines[0] and "not a regular file" in lines[0], lines
+        assert not (tmp_path / "out.wav").exists()
