@@ -186,6 +186,10 @@ def _child(path: str, out: str, memory_bytes: int, emitter: int | None) -> int:
     """Read ``path`` under the limit; write the arrays to ``out``, one JSON line to stdout."""
     import resource
 
+    # A limit can only be lowered: under a parent that is itself limited, keep the lower.
+    _soft, hard = resource.getrlimit(resource.RLIMIT_AS)
+    if hard != resource.RLIM_INFINITY:
+        memory_bytes = min(memory_bytes, hard)
     resource.setrlimit(resource.RLIMIT_AS, (memory_bytes, memory_bytes))
     label = _label(path)
     try:

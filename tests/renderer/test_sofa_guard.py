@@ -233,3 +233,22 @@ def test_hrtf_inspect_of_a_user_file_reads_it_guarded_and_shows_the_warnings(
     summary = inspect_module.inspect_sofa(odd)
     assert calls == [odd]
     assert any("folded over the pole" in w for w in summary["warnings"])
+
+
+def test_guard_works_under_a_parent_whose_memory_is_already_limited(base, tmp_path):
+    # The child cannot raise a hard limit it inherits; it must keep the lower one, not fail.
+    import subprocess
+    import sys
+
+    script = (
+        "import resource, sys\n"
+        "resource.setrlimit(resource.RLIMIT_AS, (3 * 2**30, 3 * 2**30))\n"
+        "from earfold.renderer.hrtf import read_sofa_guarded\n"
+        "data = read_sofa_guarded(sys.argv[1], memory_bytes=8 * 2**30)\n"
+        "print(data.measurements)\n"
+    )
+    proc = subprocess.run(
+        [sys.executable, "-c", script, str(base)], capture_output=True, text=True, timeout=60
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == "24"
