@@ -14,6 +14,7 @@ from __future__ import annotations
 import json
 import os
 import secrets
+import stat
 from collections.abc import Iterator
 from contextlib import AbstractContextManager, contextmanager
 from pathlib import Path
@@ -24,6 +25,7 @@ __all__ = [
     "AtomicPath",
     "atomic_write",
     "fsync_folder",
+    "read_bytes_bounded",
     "read_json_file",
     "write_bytes_atomic",
     "write_json_atomic",
@@ -35,6 +37,68 @@ __all__ = [
 _NAME_TRIES = 16
 
 
+def read_bytes_bounded(
+    path: str | os.PathLike[str], *, kind: str, max_bytes: int, error: type[Exception]
+) -> bytes:
+    """The whole of a small file a user names, checked before it is read.
+
+    The file must be a regular file (not a device such as ``/dev/zero``, a pipe or a
+    folder, which could be read forever or block) of at most ``max_bytes`` bytes. It is
+    opened without blocking (a pipe would otherwise wait for a writer), checked on the
+    open descriptor, and read only up to ``max_bytes + 1`` bytes, so a file that grows
+    meanwhile is refused too.
+
+    Parameters
+    ----------
+    path : path-like
+        The file.
+    kind : str
+        What the file is ("layout file", "headphone EQ"), for the messages.
+    max_bytes : int
+        Largest size accepted.
+    error : exception type
+        The error to raise (a RendererError subclass).
+
+    Raises
+    ------
+    error
+        The file is missing, unreadable, not a regular file or too big; the message names
+        the file and the limit.
+    """
+    origin = os.fsdecode(os.fspath(path))
+    try:
+        fd = os.open(origin, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+    except OSError as exc:
+        raise error(f"cannot read {kind} {origin!r}: {exc.strerror or exc}") from None
+    try:
+        st = os.fstat(fd)
+        if not stat.S_ISREG(st.st_mode):
+            raise error(
+                f"{kind} {origin!r} is not a regular file (a device, pipe or folder); give a file"
+            )
+        if st.st_size > max_bytes:
+            raise error(
+                f"{kind} {origin!r} is {st.st_size} bytes; a {kind} may be at most "
+                f"{max_bytes} bytes"
+            )
+        chunks = []
+        left = max_bytes + 1
+        while left > 0:
+            chunk = os.read(fd, min(left, 1 << 20))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            left -= len(chunk)
+    except OSError as exc:
+        raise error(f"cannot read {kind} {origin!r}: {exc.strerror or exc}") from None
+    finally:
+        os.close(fd)
+    data = b"".join(chunks)
+    if len(data) > max_bytes:
+        raise error(f"{kind} {origin!r} grew beyond {max_bytes} bytes while it was read")
+    return data
+
+
 def read_json_file(
     path: str | os.PathLike[str], *, kind: str, max_bytes: int, error: type[Exception]
 ) -> Any:
@@ -43,7 +107,8 @@ def read_json_file(
     Parameters
     ----------
     path : path-like
-        The file.
+        The file: a regular file of at most ``max_bytes`` bytes (see
+        :func:`read_bytes_bounded`).
     kind : str
         What the file describes ("layout", "room"), for the messages.
     max_bytes : int
@@ -51,19 +116,17 @@ def read_json_file(
     error : exception type
         The error to raise (a RendererError subclass).
     """
-    p = Path(path)
     origin = str(path)
+    if not os.path.exists(path):
+        raise error(f"{kind} file {origin!r} does not exist")
+    raw = read_bytes_bounded(path, kind=f"{kind} file", max_bytes=max_bytes, error=error)
     try:
-        size = p.stat().st_size
-        if size > max_bytes:
-            raise error(
-                f"{origin!r} is {size} bytes; a {kind} file may be at most {max_bytes} bytes"
-            )
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise error(f"{kind} file {origin!r} does not exist") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise error(f"cannot read {kind} file {origin!r}: {exc}") from exc
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise error(
+            f"cannot read {kind} file {origin!r}: it is not UTF-8 text ({exc.reason} at "
+            f"byte {exc.start})"
+        ) from None
     try:
         return json.loads(text)
     except json.JSONDecodeError as exc:

@@ -29,6 +29,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import HeadphoneEqError, shown
+from ..files import read_bytes_bounded
 
 #: Band types of a JSON headphone EQ (Audio EQ Cookbook names, in snake case).
 BAND_TYPES = ("peaking", "low_shelf", "high_shelf", "low_pass", "high_pass")
@@ -56,6 +57,13 @@ RESAMPLE_LEAD = 32
 
 #: Most bands in one file.
 MAX_BANDS = 64
+
+#: Largest JSON headphone-EQ file accepted (bytes): 64 bands take a few kilobytes.
+MAX_EQ_JSON_BYTES = 2**20
+
+#: Largest impulse-response headphone-EQ file accepted (bytes): one second of two channels
+#: of 64-bit samples at 384 kHz is 6 MB; 16 MiB leaves room for headers and metadata.
+MAX_EQ_IR_BYTES = 16 * 2**20
 
 
 @dataclass(frozen=True)
@@ -254,12 +262,9 @@ def load_headphone_eq(
             bands, gain, samplerate, {"file": None, "sha256": hashlib.sha256(text).hexdigest()}
         )
     path = Path(os.fspath(value))
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise HeadphoneEqError(
-            f"cannot read headphone EQ {str(path)!r}: {exc.strerror or exc}"
-        ) from None
+    # Checked before it is read: a regular file (not /dev/zero or a pipe) of bounded size.
+    limit = MAX_EQ_JSON_BYTES if path.suffix.lower() == ".json" else MAX_EQ_IR_BYTES
+    raw = read_bytes_bounded(path, kind="headphone EQ", max_bytes=limit, error=HeadphoneEqError)
     digest = hashlib.sha256(raw).hexdigest()
     meta = {"file": path.name, "sha256": digest}
     if path.suffix.lower() == ".json":

@@ -6,6 +6,7 @@ netCDF4 is imported here (in :mod:`.sofa`) and nowhere else in the renderer.
 
 from __future__ import annotations
 
+from .guard import is_shipped, read_sofa_guarded
 from .hrir import HrirPair, HrirSet, file_sha256, load_hrir_set
 from .onsets import (
     cross_correlation_itd,
@@ -33,10 +34,12 @@ __all__ = [
     "file_sha256",
     "fractional_delay",
     "interaural_time_difference",
+    "is_shipped",
     "load_hrir_set",
     "main",
     "onset_times",
     "read_sofa",
+    "read_sofa_guarded",
     "series_terms",
     "sphere_grid",
     "sphere_hrirs",

@@ -17,9 +17,14 @@ import numpy as np
 import numpy.typing as npt
 
 __all__ = [
+    "MAX_AUX_VALUES",
+    "MAX_DELAY_SECONDS",
+    "MAX_FILE_BYTES",
+    "MAX_MEASUREMENTS",
     "MAX_SAMPLERATE",
     "MAX_TAPS",
     "MAX_VALUES",
+    "SILENT_FLOOR",
     "MIN_SAMPLERATE",
     "NC_ERRORS",
     "SUPPORTED_CONVENTIONS",
@@ -44,9 +49,35 @@ MAX_SAMPLERATE = 384000.0
 #: beyond any HRIR or binaural room response; longer means a damaged header.
 MAX_TAPS = 2**20
 
-#: Most values of ``Data.IR`` read from one file (2**28 float64 values = 2 GiB). The declared
-#: sizes are checked before anything is read, so a forged header cannot exhaust memory.
-MAX_VALUES = 2**28
+#: Most values of ``Data.IR`` read from one file, and most values of the responses once
+#: delayed or resampled (2**25 float64 values = 256 MiB; e.g. 2000 directions of 8192 taps,
+#: or 360 binaural room responses of 0.9 s at 48 kHz). The declared sizes are checked before
+#: anything is read, so a forged header cannot exhaust memory. Later processing holds a few
+#: arrays of this size at once (the read and its float64 copy, the delayed set, the
+#: resampled set, the aligned copy for interpolation); the fractional delay works in blocks
+#: (:func:`~earfold.renderer.hrtf.fractional_delay`), so its FFT buffers stay small.
+MAX_VALUES = 2**25
+
+#: Most measurements (directions) in one file: far beyond any measured or computed grid
+#: (the densest in use have some 10 000).
+MAX_MEASUREMENTS = 2**18
+
+#: Most values of any variable other than ``Data.IR`` (positions, delays, orientations;
+#: 2**22 float64 values = 32 MiB).
+MAX_AUX_VALUES = 2**22
+
+#: Largest file accepted as a SOFA file (1 GiB); ``Data.IR`` of :data:`MAX_VALUES` values
+#: takes at most 256 MiB even as float64 uncompressed.
+MAX_FILE_BYTES = 2**30
+
+#: Longest ``Data.Delay`` accepted, in seconds (of the file's sample rate). HRIR delays are
+#: milliseconds, a room response's distance delay a fraction of a second; a longer delay is
+#: a damaged or forged value.
+MAX_DELAY_SECONDS = 2.0
+
+#: Peak magnitude below which an impulse response is practically silent (-200 dB re full
+#: scale: far below the noise floor of any measurement or of 32-bit float audio).
+SILENT_FLOOR = 1e-10
 
 #: Everything the netCDF4/HDF5 layer was seen to raise on damaged or fuzzed files.
 NC_ERRORS = (
@@ -141,6 +172,9 @@ class SofaData:
         The emitter picked from a ``GeneralFIR-E`` file, else None.
     attributes : Mapping[str, str]
         All global attributes as strings (read-only).
+    warnings : tuple of str
+        What the reader changed or found odd in a file it could still read (delays
+        shifted, elevations folded, few distinct directions, practically silent responses).
     """
 
     path: str
@@ -156,6 +190,7 @@ class SofaData:
     distances: npt.NDArray[np.float64] = field(repr=False)
     emitter: int | None = None
     attributes: Mapping[str, str] = field(default_factory=dict, repr=False)
+    warnings: tuple[str, ...] = ()
 
     @property
     def measurements(self) -> int:

@@ -84,12 +84,19 @@ def _units(units: str, ptype: str, label: str, name: str) -> tuple[float, float,
 
 
 def to_cartesian(
-    values: np.ndarray, var_attrs: Mapping[str, str], default_type: str, label: str, name: str
+    values: np.ndarray,
+    var_attrs: Mapping[str, str],
+    default_type: str,
+    label: str,
+    name: str,
+    notes: list[str] | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Cartesian metres for coordinates ``(..., 3)``, and where the radius is known.
 
     A spherical position of radius <= 0 carries only a direction: it is returned as a unit
-    vector with ``known`` False.
+    vector with ``known`` False. Spherical elevations beyond +/-90 degrees are folded over
+    the pole by the trigonometry (elevation 100 at azimuth 0 is elevation 80 at azimuth
+    180); when ``notes`` is given, a sentence saying so is appended to it.
     """
     ptype = var_attrs.get("type", "").strip().lower()
     units = var_attrs.get("units", "")
@@ -106,6 +113,14 @@ def to_cartesian(
         return values.astype(np.float64), np.ones(values.shape[:-1], dtype=bool)
     az = values[..., 0] * scale[0]
     el = values[..., 1] * scale[1]
+    folded = np.abs(el) > np.pi / 2 + 1e-9
+    if notes is not None and np.any(folded):
+        worst = float(np.degrees(el.reshape(-1)[np.argmax(np.abs(el).reshape(-1))]))
+        notes.append(
+            f"{name} has {int(folded.sum())} elevation(s) beyond +/-90 degrees (up to "
+            f"{worst:g}); they were folded over the pole (elevation 100 at azimuth 0 taken "
+            "as elevation 80 at azimuth 180); check that the file's angles are what it means"
+        )
     r = values[..., 2]
     known = r > 0
     radius = np.where(known, r, 1.0)
@@ -122,13 +137,15 @@ def positions(
     label: str,
     sizes: Mapping[str, int],
     default_type: str,
+    notes: list[str] | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """A position variable of dimensions (I, C) or (M, C): shape (1 or M, 3) and ``known``."""
+    """A position variable of dimensions (I, C) or (M, C): shape (1 or M, 3) and ``known``
+    (``notes`` as for :func:`to_cartesian`)."""
     var = variables[name]
     arr = arrange(numeric(var, label, name), var.dimensions, ("M", "C"), sizes, label, name)
     if arr.shape[1] != 3:
         raise SofaError(f"{label}: {name} has {arr.shape[1]} coordinates; 3 are needed")
-    return to_cartesian(arr, var_attributes(var, label, name), default_type, label, name)
+    return to_cartesian(arr, var_attributes(var, label, name), default_type, label, name, notes)
 
 
 def _vector(

@@ -15,11 +15,15 @@ import numpy as np
 
 from ..errors import SofaError
 from ._sofa_data import (
+    MAX_DELAY_SECONDS,
+    MAX_FILE_BYTES,
+    MAX_MEASUREMENTS,
     MAX_SAMPLERATE,
     MAX_TAPS,
     MAX_VALUES,
     MIN_SAMPLERATE,
     NC_ERRORS,
+    SILENT_FLOOR,
     SUPPORTED_CONVENTIONS,
     NcDataset,
     SofaData,
@@ -68,6 +72,11 @@ def check_file(p: str, label: str) -> None:
         raise SofaError(f"{label}: is not a regular file")
     if st.st_size == 0:
         raise SofaError(f"{label}: the file is empty (0 bytes), not a SOFA file")
+    if st.st_size > MAX_FILE_BYTES:
+        raise SofaError(
+            f"{label}: the file is {st.st_size} bytes; a SOFA file may be at most "
+            f"{MAX_FILE_BYTES} bytes (1 GiB) here"
+        )
     try:
         with open(p, "rb") as fh:
             head = fh.read(8)
@@ -185,6 +194,11 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
     M, R, N, E = sizes["M"], sizes["R"], sizes["N"], sizes.get("E", 1)
     if M == 0 or N == 0:
         raise SofaError(f"{label}: Data.IR is empty ({M} measurements of {N} taps)")
+    if M > MAX_MEASUREMENTS:
+        raise SofaError(
+            f"{label}: Data.IR declares {M} measurements; more than {MAX_MEASUREMENTS} "
+            "(2**18) is not a set this renderer can use; the header is probably damaged"
+        )
     if R != 2:
         raise SofaError(f"{label}: Data.IR has {R} receivers; a binaural HRIR set needs 2")
     if N > MAX_TAPS:
@@ -195,7 +209,7 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
     if M * R * N > MAX_VALUES:
         raise SofaError(
             f"{label}: Data.IR declares {M} x {R} x {N} = {M * R * N} values; refusing to "
-            f"read more than {MAX_VALUES} (2**28)"
+            f"read more than {MAX_VALUES} (2**25)"
         )
     if data_type == "FIR-E":
         if E == 0:
@@ -256,7 +270,9 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
     index = tuple(picked if a == e_axis else slice(None) for a in range(len(shape)))
     kept = [a for a in range(len(shape)) if a != e_axis]
     raw = np.asarray(ir_var[index], dtype=np.float64)
-    ir = np.array(np.transpose(raw, [kept.index(order[i]) for i in range(3)]), dtype=np.float64)
+    # A copy only where the axes need reordering: the largest array is not held twice.
+    ir = np.ascontiguousarray(np.transpose(raw, [kept.index(order[i]) for i in range(3)]))
+    del raw
     check_values(ir, label, "Data.IR")
     if convention == "SimpleFreeFieldHRIR" and not np.any(ir):
         # An HRIR set of zeros renders silence. The General conventions are containers for
@@ -264,6 +280,22 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
         raise SofaError(f"{label}: every impulse response in Data.IR is zero")
 
     sizes3 = {"M": M, "R": R, "E": E, "C": 3}
+    notes: list[str] = []  # what was changed or looks odd, for SofaData.warnings
+    peak = float(max(ir.max(), -ir.min()))  # no temporary the size of Data.IR
+    if peak < SILENT_FLOOR and (convention == "SimpleFreeFieldHRIR" or peak > 0):
+        raise SofaError(
+            f"{label}: every impulse response in Data.IR is practically silent (the loudest "
+            f"sample is {peak:.3g}, below {SILENT_FLOOR:g}, i.e. -200 dB); there is nothing "
+            "to render with"
+        )
+    ear_peaks = np.maximum(ir.max(axis=-1), -ir.min(axis=-1))  # (M, 2)
+    faint = int(np.sum(np.any((ear_peaks > 0) & (ear_peaks < peak * 1e-6), axis=-1)))
+    if faint:
+        notes.append(
+            f"{faint} of {M} measurements have an ear whose response is practically silent "
+            "(more than 120 dB below the loudest response in the set); the file may be "
+            "damaged or wrongly scaled"
+        )
 
     # -- delay -----------------------------------------------------------------------------
     if "Data.Delay" in variables:
@@ -277,17 +309,40 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
             "Data.Delay",
         )
         d = d[:, :, picked if d.shape[2] > 1 else 0]
-        if np.any(d < 0):
+        longest = MAX_DELAY_SECONDS * samplerate
+        if np.abs(d).max() > longest:
             raise SofaError(
-                f"{label}: Data.Delay has negative values (down to {d.min():g} samples); "
-                "delays must be >= 0"
+                f"{label}: Data.Delay reaches {float(np.abs(d).max()):g} samples "
+                f"({float(np.abs(d).max()) / samplerate:g} s); delays longer than "
+                f"{MAX_DELAY_SECONDS:g} s ({longest:g} samples at {samplerate:g} Hz) are refused "
+                "as damaged values"
+            )
+        if np.any(d < 0):
+            # AES69 allows relative delays; what matters for rendering is their differences
+            # (between ears and between directions). All are moved by the same amount so the
+            # smallest is 0: every response is then delayed by a whole or fractional number
+            # of samples, never advanced (which would cut off its start).
+            lowest = float(d.min())
+            d = d - lowest
+            notes.append(
+                f"Data.Delay holds negative (relative) delays down to {lowest:g} samples; all "
+                f"delays were moved by {-lowest:g} samples so that the smallest is 0 (the "
+                "differences between ears and directions are kept)"
             )
         delay = np.array(np.broadcast_to(d, (M, 2)), dtype=np.float64)
+        # The delays lengthen every response (HrirSet.from_sofa): bound what that makes.
+        delayed = M * 2 * (N + int(np.ceil(delay.max())) + 1)
+        if delay.max() > 0 and delayed > MAX_VALUES:
+            raise SofaError(
+                f"{label}: Data.Delay of up to {float(delay.max()):g} samples would make "
+                f"{M} x 2 x {N + int(np.ceil(delay.max())) + 1} = {delayed} values once "
+                f"applied; refusing more than {MAX_VALUES} (2**25)"
+            )
     else:
         delay = np.zeros((M, 2))
 
     # -- geometry --------------------------------------------------------------------------
-    src, known = positions(variables, "SourcePosition", label, sizes3, "spherical")
+    src, known = positions(variables, "SourcePosition", label, sizes3, "spherical", notes)
     src = np.broadcast_to(src, (M, 3)).copy()
     known = np.broadcast_to(known, (M,)).copy()
     if data_type == "FIR-E":
@@ -310,6 +365,13 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
         )
     directions = local / norms[:, None]
     distances = np.where(known, norms, np.nan)
+    distinct = len(np.unique(np.round(directions, 4), axis=0))
+    if distinct < 4:
+        where = "a single direction" if distinct == 1 else f"only {distinct} distinct directions"
+        notes.append(
+            f"the {M} measurement(s) cover {where}; sources elsewhere are rendered from the "
+            "nearest of them, so this set cannot place sounds around the listener"
+        )
 
     # -- which receiver is the left ear ----------------------------------------------------
     swap = receiver_swap(variables, attrs, label, sizes3)
@@ -333,4 +395,5 @@ def read_dataset(ds: NcDataset, path: str, label: str, emitter: int | None) -> S
         distances=distances,
         emitter=picked if data_type == "FIR-E" else None,
         attributes=types.MappingProxyType(dict(attrs)),
+        warnings=tuple(f"{label}: {n}" for n in notes),
     )

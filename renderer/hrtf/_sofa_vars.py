@@ -9,7 +9,7 @@ from collections.abc import Mapping
 import numpy as np
 
 from ..errors import SofaError
-from ._sofa_data import MAX_VALUES, NC_ERRORS, NcVariable, cause
+from ._sofa_data import MAX_AUX_VALUES, NC_ERRORS, NcVariable, cause
 
 __all__ = ["arrange", "check_values", "dtype_name", "numeric", "text_value", "var_attributes"]
 
@@ -53,7 +53,10 @@ def var_attributes(var: NcVariable, label: str, name: str) -> dict[str, str]:
 
 
 def check_values(arr: np.ndarray, label: str, name: str) -> None:
-    bad = ~np.isfinite(arr) | (np.abs(arr) > _FILL_LIMIT)
+    # Boolean temporaries only (an np.abs copy of a large Data.IR would double its memory).
+    bad = ~np.isfinite(arr)
+    bad |= arr > _FILL_LIMIT
+    bad |= arr < -_FILL_LIMIT
     if np.any(bad):
         where = tuple(int(i) for i in np.argwhere(bad)[0])
         raise SofaError(
@@ -67,8 +70,14 @@ def numeric(var: NcVariable, label: str, name: str) -> np.ndarray:
     kind = np.dtype(var.dtype).kind if isinstance(var.dtype, np.dtype) else "?"
     if kind not in "fiu":
         raise SofaError(f"{label}: {name} is stored as {dtype_name(var.dtype)}; numbers are needed")
-    if int(np.prod(var.shape, dtype=np.int64)) > MAX_VALUES:
-        raise SofaError(f"{label}: {name} declares {var.shape!r} values; refusing to read it")
+    declared = 1
+    for size in var.shape:  # Python integers: a forged shape cannot overflow the product
+        declared *= int(size)
+    if declared > MAX_AUX_VALUES:
+        raise SofaError(
+            f"{label}: {name} declares {' x '.join(str(int(s)) for s in var.shape)} = "
+            f"{declared} values; refusing to read more than {MAX_AUX_VALUES} (2**22) for it"
+        )
     var.set_auto_mask(False)
     arr = np.array(var[...], dtype=np.float64)
     check_values(arr, label, name)

@@ -33,6 +33,8 @@ from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from ..errors import HrirError, shown
 from ..geometry import angle_between, normalize, vector_to_direction
+from ._sofa_data import MAX_VALUES
+from .guard import is_shipped, read_sofa_guarded
 from .onsets import (
     cross_correlation_itd,
     fractional_delay,
@@ -118,6 +120,9 @@ class HrirSet:
         SOFA ``RoomType`` ("free field" for anechoic sets).
     dropped : int
         Measurements of the file left out because an ear's response was all zeros.
+    warnings : tuple of str
+        What the SOFA reader changed or found odd in the file (see
+        :attr:`~earfold.renderer.hrtf.SofaData.warnings`), for the render report.
     """
 
     name: str
@@ -129,6 +134,7 @@ class HrirSet:
     convention: str = ""
     room_type: str = "free field"
     dropped: int = 0
+    warnings: tuple[str, ...] = ()
     _cache: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -177,6 +183,7 @@ class HrirSet:
             convention=data.convention,
             room_type=data.room_type,
             dropped=dropped,
+            warnings=tuple(data.warnings),
         )
 
     @property
@@ -201,6 +208,14 @@ class HrirSet:
                 f"cannot resample HRIR set {self.name!r} from {self.samplerate:g} Hz "
                 f"to {shown(samplerate)} Hz"
             )
+        taps = -(-self.taps * ratio.numerator // ratio.denominator)
+        if self.measurements * 2 * taps > MAX_VALUES:
+            raise HrirError(
+                f"HRIR set {self.name!r} resampled from {self.samplerate:g} Hz to "
+                f"{samplerate:g} Hz would hold {self.measurements} x 2 x {taps} = "
+                f"{self.measurements * 2 * taps} values; at most {MAX_VALUES} (2**25) are "
+                "accepted"
+            )
         # resample_poly keeps the waveform's amplitude; an impulse response must instead keep
         # its frequency response, and at a higher rate it has proportionally more samples
         # per unit time, so scale by old rate / new rate.
@@ -215,6 +230,7 @@ class HrirSet:
             sha256=self.sha256,
             convention=self.convention,
             room_type=self.room_type,
+            warnings=self.warnings,
         )
 
     # -- lookup -------------------------------------------------------------------------
@@ -269,6 +285,7 @@ class HrirSet:
             sha256=self.sha256,
             convention=self.convention,
             room_type=self.room_type,
+            warnings=self.warnings,
         )
 
     def itd(self, index: int) -> float:
@@ -427,7 +444,8 @@ def file_sha256(path: str | os.PathLike[str]) -> str:
 def _load_cached(
     path: str, mtime_ns: int, size: int, samplerate: float | None, name: str
 ) -> HrirSet:
-    data = read_sofa(path)
+    # A user's file is read in a limited child process; the shipped sets are trusted.
+    data = read_sofa(path) if is_shipped(path) else read_sofa_guarded(path)
     hset = HrirSet.from_sofa(data, name=name, sha256=file_sha256(path))
     return hset if samplerate is None else hset.resampled(samplerate)
 
@@ -438,7 +456,9 @@ def load_hrir_set(
     """Read a SOFA file into an :class:`HrirSet`, resampled to ``samplerate`` if given.
 
     Results are cached per (file, modification time, size, rate), so repeated renders
-    at one rate read and resample a set once.
+    at one rate read and resample a set once. Files other than the shipped sets are read
+    by :func:`~earfold.renderer.hrtf.guard.read_sofa_guarded` (a child process with a time
+    and memory limit), since a damaged SOFA file can hang or exhaust the HDF5 library.
     """
     p = os.fspath(path)
     try:

@@ -230,6 +230,11 @@ def cross_correlation_itd(
     return float(lags[idx] + shift) / float(samplerate)
 
 
+#: Padded samples transformed at once by :func:`fractional_delay` (2**22: some 130 MB of
+#: FFT buffers at most, however many responses are delayed).
+_BLOCK_SAMPLES = 2**22
+
+
 def fractional_delay(
     ir: np.ndarray, delay: float | np.ndarray, length: int | None = None
 ) -> np.ndarray:
@@ -277,12 +282,22 @@ def fractional_delay(
         return np.zeros(x.shape[:-1] + (out_len,))
     reach = int(np.ceil(np.max(np.abs(d)))) if d.size else 0
     nfft = sp_fft.next_fast_len(4 * (max(n, out_len) + reach), real=True)
-    spectrum = np.fft.rfft(x, n=nfft, axis=-1)
-    k = np.arange(spectrum.shape[-1])
-    spectrum *= np.exp(-2j * np.pi * d[..., None] * k / nfft)
-    # An advance moves the samples before time 0 to the end of the circular buffer, past
-    # ``out_len``, so taking the first ``out_len`` samples drops them.
-    return np.fft.irfft(spectrum, n=nfft, axis=-1)[..., :out_len]
+    k = np.arange(nfft // 2 + 1)
+    # In blocks of responses, so that the FFT buffers (some 32 bytes per padded sample)
+    # stay near _BLOCK_SAMPLES whatever the set's size; each response is transformed on its
+    # own either way, so the result does not depend on the block size.
+    rows = x.reshape(-1, n)
+    shifts = d.reshape(-1)
+    out = np.empty((rows.shape[0], out_len))
+    step = max(1, _BLOCK_SAMPLES // nfft)
+    for start in range(0, rows.shape[0], step):
+        block = slice(start, start + step)
+        spectrum = np.fft.rfft(rows[block], n=nfft, axis=-1)
+        spectrum *= np.exp(-2j * np.pi * shifts[block, None] * k / nfft)
+        # An advance moves the samples before time 0 to the end of the circular buffer,
+        # past ``out_len``, so taking the first ``out_len`` samples drops them.
+        out[block] = np.fft.irfft(spectrum, n=nfft, axis=-1)[:, :out_len]
+    return out.reshape(x.shape[:-1] + (out_len,))
 
 
 def _check_pair(ir_pair: npt.ArrayLike, samplerate: float) -> npt.NDArray[np.float64]:

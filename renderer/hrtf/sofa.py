@@ -35,11 +35,16 @@ import numpy.typing as npt
 from ..errors import SofaError, shown
 from ..files import AtomicPath
 from ._sofa_data import (
+    MAX_AUX_VALUES,
+    MAX_DELAY_SECONDS,
+    MAX_FILE_BYTES,
+    MAX_MEASUREMENTS,
     MAX_SAMPLERATE,
     MAX_TAPS,
     MAX_VALUES,
     MIN_SAMPLERATE,
     NC_ERRORS,
+    SILENT_FLOOR,
     SUPPORTED_CONVENTIONS,
     NcDataset,
     SofaData,
@@ -49,10 +54,15 @@ from ._sofa_read import check_file, read_dataset
 from ._sofa_write import fill_dataset, prepare_contents
 
 __all__ = [
+    "MAX_AUX_VALUES",
+    "MAX_DELAY_SECONDS",
+    "MAX_FILE_BYTES",
+    "MAX_MEASUREMENTS",
     "MAX_TAPS",
     "MAX_VALUES",
     "MAX_SAMPLERATE",
     "MIN_SAMPLERATE",
+    "SILENT_FLOOR",
     "SUPPORTED_CONVENTIONS",
     "SofaData",
     "read_sofa",
@@ -87,7 +97,8 @@ def read_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> So
         The file is missing, not netCDF-4/HDF5, damaged, not SOFA, of an unsupported
         convention or data type, or its data cannot be rendered (wrong number of
         receivers, mismatched dimensions, NaN or fill values, sample rate outside
-        8-384 kHz, absurd sizes, negative delays). The message starts with the file name.
+        8-384 kHz, absurd sizes, delays longer than :data:`MAX_DELAY_SECONDS`, responses
+        that are all practically silent). The message starts with the file name.
 
     Notes
     -----
@@ -101,6 +112,13 @@ def read_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> So
     spherical harmonics has no position and adds none. A spherical ``SourcePosition`` of
     radius 0 gives a direction from its angles alone (relative to the listener's
     orientation) and a distance of nan.
+
+    Negative ``Data.Delay`` values (relative delays, valid AES69) are all moved by one
+    amount so that the smallest is 0. That, elevations beyond +/-90 degrees (folded over
+    the pole), very few distinct directions and nearly silent responses are reported in
+    :attr:`SofaData.warnings`. A file the user names should be read with
+    :func:`~earfold.renderer.hrtf.read_sofa_guarded` (a child process with limits): a
+    damaged file can make the HDF5 library loop or allocate without bound.
 
     Examples
     --------
@@ -139,6 +157,11 @@ def read_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> So
         return read_dataset(ds, p, label, None if emitter is None else int(emitter))
     except SofaError:
         raise
+    except MemoryError as exc:
+        raise SofaError(
+            f"{label}: reading the file ran out of memory ({cause(exc)}); the file is "
+            "probably damaged, or too large for the memory available"
+        ) from exc
     except NC_ERRORS as exc:
         raise SofaError(f"{label}: the file is damaged and cannot be read ({cause(exc)})") from exc
     finally:

@@ -255,6 +255,7 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         )
     path, name = resolve_hrtf(settings.hrtf)
     hset = load_hrir_set(path, stem.samplerate, name=name)
+    warnings.extend(hset.warnings)  # what the SOFA reader changed or found odd
     hset, eq_report = _equalise(hset, settings.eq, warnings)
     headphone = None
     if settings.headphone_eq is not None:

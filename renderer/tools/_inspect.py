@@ -10,7 +10,7 @@ import numpy as np
 
 from ..eq import describe as diffuse_field_summary
 from ..geometry import vector_to_direction
-from ..hrtf import HrirSet, file_sha256, read_sofa
+from ..hrtf import HrirSet, file_sha256, is_shipped, read_sofa, read_sofa_guarded
 
 
 def inspect_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> dict[str, Any]:
@@ -19,13 +19,16 @@ def inspect_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) ->
     Returns a JSON-ready dict with the figures and, under ``"text"``, the same figures
     as display strings in a fixed order.
     """
-    data = read_sofa(path, emitter=emitter)
+    # A user's file is read in a child process with time and memory limits (a damaged file
+    # can hang the HDF5 library); the shipped sets are trusted.
+    reader = read_sofa if is_shipped(path) else read_sofa_guarded
+    data = reader(path, emitter=emitter)
     # Raises HrirError when every response is zero: such a file reads but cannot render.
     hset = HrirSet.from_sofa(data, sha256=file_sha256(path))
     az, el = vector_to_direction(hset.directions)
     itd_min, itd_max = hset.itd_range()
     grid = hset._grid()
-    warnings: list[str] = []
+    warnings: list[str] = list(data.warnings)
     if hset.dropped:
         warnings.append(
             f"{hset.dropped} of {data.measurements} measurements have a silent ear and are left out"

@@ -425,10 +425,20 @@ def test_per_measurement_delay_is_kept(tmp_path):
     assert_array_equal(data.delay, delay)
 
 
-def test_negative_delay_raises(tmp_path):
+def test_negative_relative_delays_load_shifted_so_the_smallest_is_zero(tmp_path):
+    # AES69 allows relative (negative) delays: they load, all moved by one amount, and a
+    # warning says so (they were refused before).
     spec = fac.simple_free_field()
     spec.variables["Data.Delay"] = fac.Var(("I", "R"), [[0.0, -2.0]])
-    with pytest.raises(SofaError, match=r"^'x\.sofa': Data\.Delay has negative values"):
+    data = read_sofa(write_spec(tmp_path, spec))
+    assert_array_equal(data.delay, np.tile([[2.0, 0.0]], (data.measurements, 1)))
+    assert any("negative (relative) delays down to -2 samples" in w for w in data.warnings)
+
+
+def test_huge_delay_is_refused_before_anything_is_allocated(tmp_path):
+    spec = fac.simple_free_field()
+    spec.variables["Data.Delay"] = fac.Var(("I", "R"), [[0.0, 1e9]])
+    with pytest.raises(SofaError, match=r"^'x\.sofa': Data\.Delay reaches 1e\+09 samples.*2 s"):
         read_sofa(write_spec(tmp_path, spec))
 
 
