@@ -80,6 +80,7 @@ class BackgroundWriter:
         self._write = write
         self._queue: queue.Queue[Any] = queue.Queue(maxsize=depth)
         self._error: BaseException | None = None
+        self._abandoned = threading.Event()
         self._thread = threading.Thread(target=self._run, name="earfold-writer", daemon=True)
         self._thread.start()
 
@@ -88,7 +89,7 @@ class BackgroundWriter:
             item = self._queue.get()
             if item is _DONE:
                 return
-            if self._error is None:
+            if self._error is None and not self._abandoned.is_set():
                 try:
                     self._write(item)
                 except BaseException as exc:
@@ -118,6 +119,12 @@ class BackgroundWriter:
     ) -> None:
         if exc_type is None:
             self.close()
-        else:  # already failing: stop the thread, keep the first error
-            self._queue.put(_DONE)
+        else:  # already failing: the thread writes nothing more and stops; the first error stays
+            self._abandoned.set()
+            while self._thread.is_alive():
+                try:
+                    self._queue.put(_DONE, timeout=0.1)
+                    break
+                except queue.Full:  # the thread is finishing the block it holds
+                    continue
             self._thread.join()

@@ -35,44 +35,51 @@ class _Terminated(KeyboardInterrupt):
     """SIGTERM, ending a command as Ctrl-C does (exit :data:`EXIT_TERMINATED`)."""
 
 
-class _StopOnSigterm:
-    """SIGTERM during a render: a clean cancel, so no output or hidden file is left.
+class _StopOnSignal:
+    """SIGTERM or Ctrl-C (SIGINT) during a render: a clean cancel, nothing left behind.
 
-    While the render is being planned (no thread, no file yet) the signal raises
-    :class:`_Terminated` at once. Later it only sets :attr:`stopped`, which the render
-    polls once per block (``cancelled``) and which ends it with
-    :class:`~earfold.renderer.errors.RenderCancelled`: an exception raised at an
-    arbitrary point while the reader and writer threads hand blocks over could leave
-    one of them waiting for ever, and the hidden files with it.
+    While the render is being planned (no thread, no file yet) the signal ends it at once
+    (:class:`_Terminated`, or KeyboardInterrupt for Ctrl-C). Later it only sets
+    :attr:`stopped`, which the render polls once per block (``cancelled``) and which ends it
+    with :class:`~earfold.renderer.errors.RenderCancelled`: an exception raised at an
+    arbitrary point while the reader and writer threads hand blocks over could leave one of
+    them waiting for ever, and the hidden files with it.
     """
+
+    _SIGNALS = (signal.SIGTERM, signal.SIGINT)
 
     def __init__(self) -> None:
         self.stopped = False
-        self._previous: Any = None
-        self._installed = False
+        self.signum: int | None = None
+        self._previous: dict[int, Any] = {}
 
     def __call__(self) -> bool:
         return self.stopped
 
+    def interruption(self) -> KeyboardInterrupt:
+        """The exception that ends the command for the signal received."""
+        return KeyboardInterrupt() if self.signum == signal.SIGINT else _Terminated()
+
     def _handle(self, signum: int, frame: Any) -> None:
         self.stopped = True
+        self.signum = signum
         from earfold.renderer.render import plan_render
 
         while frame is not None:
             if frame.f_code is plan_render.__code__:
-                raise _Terminated
+                raise self.interruption()
             frame = frame.f_back
 
-    def __enter__(self) -> _StopOnSigterm:
+    def __enter__(self) -> _StopOnSignal:
         if threading.current_thread() is threading.main_thread():
-            self._previous = signal.signal(signal.SIGTERM, self._handle)
-            self._installed = True
+            for signum in self._SIGNALS:
+                self._previous[signum] = signal.signal(signum, self._handle)
         return self
 
     def __exit__(self, *exc: object) -> None:
-        if self._installed:
-            signal.signal(signal.SIGTERM, self._previous)
-            self._installed = False
+        for signum, previous in self._previous.items():
+            signal.signal(signum, previous)
+        self._previous.clear()
 
 
 # -- render ----------------------------------------------------------------------------
@@ -151,16 +158,16 @@ def cmd_render(args: argparse.Namespace) -> int:
     report_path = (
         None if args.report == "none" else (args.report or _default_report_path(args.output))
     )
-    with _StopOnSigterm() as stop:
+    with _StopOnSignal() as stop:
         try:
             report = render(args.inputs, args.output, settings, progress=progress, cancelled=stop)
         except RenderCancelled:
-            raise _Terminated from None
+            raise stop.interruption() from None
         finally:
             progress.done()
         if stop.stopped:  # after the last poll: the output is whole, but not wanted
             Path(args.output).unlink(missing_ok=True)
-            raise _Terminated
+            raise stop.interruption()
         if report_path:
             _write_json(report_path, report)
     if not args.quiet:
