@@ -26,6 +26,7 @@ from ..problems import (
     Problem,
     problem_responses,
 )
+from ..request_gate import streams_body
 from ..storage import META, Storage, new_id, write_json_atomic
 from ..uploads import UploadedFile, staged_upload
 
@@ -158,6 +159,7 @@ def _probe(
     responses=problem_responses(BAD_REQUEST, TOO_LARGE, UNSUPPORTED, NO_SPACE),
     summary="Upload a stem: one multichannel file or several mono files",
 )
+@streams_body
 async def upload_stem(
     request: Request, response: Response, owner: str = Depends(current_owner)
 ) -> dict:
