@@ -84,10 +84,18 @@ class ExcerptRequest(BaseModel):
     length: float = Field(DEFAULT_EXCERPT_S, ge=1.0, le=MAX_EXCERPT_S, allow_inf_nan=False)
 
 
-class ComparisonRequest(BaseModel):
-    """The JSON body of ``POST /v1/comparisons``."""
+#: What the route enforces of mode ``abx`` (exactly two variants), said in the schema:
+#: JSON Schema 2020-12 ``if``/``then`` (OpenAPI 3.1 schemas are JSON Schema 2020-12).
+_ABX_TWO_VARIANTS = {
+    "if": {"properties": {"mode": {"const": "abx"}}, "required": ["mode"]},
+    "then": {"properties": {"variants": {"minItems": 2, "maxItems": 2}}},
+}
 
-    model_config = ConfigDict(extra="forbid")
+
+class ComparisonRequest(BaseModel):
+    """The JSON body of ``POST /v1/comparisons``. Mode ``abx`` takes exactly 2 variants."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"allOf": [_ABX_TWO_VARIANTS]})
 
     stem_id: str = Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")
     variants: list[VariantRequest] = Field(min_length=2, max_length=8)  # type: ignore[valid-type]

@@ -28,7 +28,7 @@ from ..problems import (
 )
 from ..request_gate import streams_body
 from ..storage import META, Storage, new_id, write_json_atomic
-from ..uploads import UploadedFile, staged_upload
+from ..uploads import MAX_PARTS, UploadedFile, staged_upload
 
 router = APIRouter(prefix="/v1/stems", tags=["stems"], responses=problem_responses(UNAUTHORIZED))
 
@@ -47,7 +47,10 @@ _UPLOAD_BODY = {
                         "file": {
                             "type": "array",
                             "items": {"type": "string", "format": "binary"},
-                            "description": "one multichannel file, or several mono files",
+                            "minItems": 1,
+                            "maxItems": MAX_PARTS,
+                            "description": "one multichannel file, or several mono files "
+                            f"(at most {MAX_PARTS}); parts of other fields carry no files",
                         },
                     },
                 }
