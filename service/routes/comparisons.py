@@ -86,7 +86,7 @@ class ExcerptRequest(BaseModel):
 
 #: What the route enforces of mode ``abx`` (exactly two variants), said in the schema:
 #: JSON Schema 2020-12 ``if``/``then`` (OpenAPI 3.1 schemas are JSON Schema 2020-12).
-_ABX_TWO_VARIANTS = {
+_ABX_TWO_VARIANTS: dict[str, Any] = {
     "if": {"properties": {"mode": {"const": "abx"}}, "required": ["mode"]},
     "then": {"properties": {"variants": {"minItems": 2, "maxItems": 2}}},
 }
