@@ -17,6 +17,7 @@ from starlette.testclient import TestClient
 
 from earfold.service import uploads
 from earfold.service.jobs import QueueUnavailable
+from earfold.service.jobs.worker import Worker
 from earfold.service.problems import out_of_space
 from earfold.service.routes import comparisons
 from tests.service.stem_factory import FS, files_field, write_stem
@@ -185,3 +186,46 @@ def test_out_of_space_recognises_a_full_disk_and_nothing_else(exc, full):
             raise RuntimeError("wrapped") from inner
     except RuntimeError as outer:
         assert out_of_space(outer) is full
+
+
+def test_hrtf_upload_on_a_full_disk_is_507_and_leaves_nothing(client, monkeypatch):
+    real_open = open
+    monkeypatch.setattr(
+        uploads, "open", lambda p, mode: _FillingFile(real_open(p, mode), 1000), raising=False
+    )
+    body = (
+        b'--xyz\r\nContent-Disposition: form-data; name="file"; filename="set.sofa"\r\n\r\n'
+        + b"\x89HDF" * 10_000
+        + b"\r\n--xyz--\r\n"
+    )
+    resp = client.post(
+        "/v1/hrtf-sets",
+        content=iter([body[:20_000], body[20_000:]]),
+        headers={"content-type": "multipart/form-data; boundary=xyz"},
+    )
+    _disk_full(resp)
+    assert _leftovers(client, "hrtf") == []
+
+
+def test_saving_an_answer_on_a_full_disk_is_507_and_keeps_the_session(
+    client, tmp_path, monkeypatch
+):
+    from earfold.service.comparisons import session as sessions
+
+    stem = _stem(client, tmp_path)
+    body = {"stem_id": stem["id"], "variants": [{"layout": "5.1"}, {"layout": "5.1"}]}
+    created = client.post("/v1/comparisons", json=body)
+    assert created.status_code == 202, created.text
+    cid = created.json()["id"]
+    Worker(client.app.state.settings, queue=client.app.state.queue, name="test").run(once=True)
+    assert client.get(f"/v1/comparisons/{cid}").json()["state"] == "ready"
+    before = client.get(f"/v1/comparisons/{cid}").json()
+
+    def full_write(path, data, **kw):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(sessions, "write_json_atomic", full_write)
+    _disk_full(client.post(f"/v1/comparisons/{cid}/finish"))
+    _disk_full(client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "A"}))
+    monkeypatch.undo()
+    assert client.get(f"/v1/comparisons/{cid}").json() == before
