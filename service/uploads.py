@@ -22,6 +22,8 @@ from python_multipart.exceptions import MultipartParseError
 from python_multipart.multipart import MultipartParser, parse_options_header
 from starlette.requests import ClientDisconnect, Request
 
+from earfold.renderer.errors import shown
+
 from .problems import BAD_REQUEST, TOO_LARGE, UNSUPPORTED, Problem
 
 if TYPE_CHECKING:
@@ -60,12 +62,10 @@ def clean_filename(raw: str) -> str:
 
 
 def _shown_name(raw: bytes) -> str:
-    """A client's field or file name for a message: quoted, printable, at most 64
-    characters (the empty name said in words)."""
+    """A client's field or file name for a message: printable, quoted and cut as
+    :func:`~earfold.renderer.errors.shown` cuts a value (the empty name in words)."""
     name = _CONTROL.sub("", raw.decode("utf-8", "replace"))
-    if not name:
-        return "with an empty name"
-    return repr(name if len(name) <= 64 else name[:61] + "...")
+    return shown(name) if name else "with an empty name"
 
 
 def declared_length(request: Request, limit: int) -> int | None:
