@@ -239,8 +239,10 @@ def install_problem_handlers(app: FastAPI) -> None:
             NO_SPACE, DISK_FULL_DETAIL, title="Disk full", instance=request.url.path
         )
 
-    app.add_exception_handler(OSError, _maybe_disk_full)
-    app.add_exception_handler(sqlite3.Error, _maybe_disk_full)
+    # OSError and SQLite's errors directly; RuntimeError for a job store's error raised
+    # from a full disk (the Redis store's scripts)
+    for kind in (OSError, sqlite3.Error, RuntimeError):
+        app.add_exception_handler(kind, _maybe_disk_full)
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> JSONResponse:

@@ -229,3 +229,27 @@ def test_saving_an_answer_on_a_full_disk_is_507_and_keeps_the_session(
     _disk_full(client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "A"}))
     monkeypatch.undo()
     assert client.get(f"/v1/comparisons/{cid}").json() == before
+
+
+def test_redis_with_a_full_disk_is_507_and_leaves_nothing(
+    make_client, redis_queue_url, tmp_path, monkeypatch
+):
+    """Redis refuses every write once its disk is full ("MISCONF Errors writing to the
+    AOF file: No space left on device"); simulated at the script call."""
+    import redis
+
+    client = make_client(queue_url=redis_queue_url)
+    stem = _stem(client, tmp_path)
+
+    def refused(*args, **kwargs):
+        raise redis.exceptions.ResponseError(
+            "MISCONF Errors writing to the AOF file: No space left on device"
+        )
+
+    monkeypatch.setitem(client.app.state.queue._scripts, "submit", refused)
+    _disk_full(client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1"}))
+    body = {"stem_id": stem["id"], "variants": [{"layout": "5.1"}, {"layout": "5.1"}]}
+    _disk_full(client.post("/v1/comparisons", json=body))
+    assert _leftovers(client, "comparisons") == []
+    monkeypatch.undo()
+    assert client.app.state.queue.list() == []
