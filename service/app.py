@@ -17,6 +17,7 @@ from earfold.renderer import __version__
 
 from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
+from .request_gate import RequestGate, streamed_paths
 from .retention import TMP_MAX_AGE_S, sweep
 from .routes import catalog, comparisons, renders, stems
 from .routes.docs import install_api_docs
@@ -65,6 +66,13 @@ def create_app(settings: ServiceSettings) -> FastAPI:
     app.include_router(comparisons.router)
     install_pages(app)
     install_api_docs(app)
+    # Runs before any route reads a body: the token first, then a capped JSON body.
+    app.add_middleware(
+        RequestGate,
+        tokens=settings.tokens,
+        max_json_bytes=settings.max_json_bytes,
+        streamed=streamed_paths([*catalog.router.routes, *stems.router.routes]),
+    )
     return app
 
 

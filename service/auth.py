@@ -28,13 +28,18 @@ async def current_owner(request: Request) -> str:
     """FastAPI dependency: the caller's owner id, or 401 when tokens are on and none fits.
 
     ``async`` although it awaits nothing: FastAPI runs a plain function dependency in its
-    thread pool, a hop per request that a poll does not need.
+    thread pool, a hop per request that a poll does not need. Requests with a body were
+    already checked before it was read (:mod:`earfold.service.request_gate`).
     """
-    tokens: tuple[str, ...] = request.app.state.settings.tokens
+    return owner_for(request.app.state.settings.tokens, request.headers.get("authorization"))
+
+
+def owner_for(tokens: tuple[str, ...], header: str | None) -> str:
+    """The owner id of an ``Authorization`` header value; a 401 :class:`Problem` when
+    tokens are on and the header carries none of them."""
     if not tokens:
         return ANONYMOUS
-    header = request.headers.get("authorization", "")
-    scheme, _, given = header.partition(" ")
+    scheme, _, given = (header or "").partition(" ")
     if scheme.lower() != "bearer" or not given.strip():
         raise Problem(
             UNAUTHORIZED,

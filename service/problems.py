@@ -8,6 +8,8 @@ let them propagate.
 
 from __future__ import annotations
 
+import errno
+import sqlite3
 from http import HTTPStatus
 
 from fastapi import FastAPI, Request
@@ -71,7 +73,7 @@ _WHY = {
     422: "the request is well-formed but cannot be used (validation errors)",
     429: "the render queue is full; retry after Retry-After seconds",
     503: "the job store (Redis) does not answer; retry after Retry-After seconds",
-    507: "not enough disk space for the upload",
+    507: "the server's disk is full (or would be after the upload); nothing was stored",
 }
 
 
@@ -130,6 +132,34 @@ def problem_response(
         body["instance"] = instance
     body.update(extra)
     return JSONResponse(body, status_code=status, headers=headers, media_type=PROBLEM_TYPE)
+
+
+#: ``errno`` values of a full disk: no space left, or the user's disk quota used up.
+_NO_SPACE_ERRNOS = frozenset({errno.ENOSPC, errno.EDQUOT})
+
+#: What a client is told when a write failed for want of space.
+DISK_FULL_DETAIL = (
+    "the server's disk is full: nothing was stored; delete stems, renders or comparisons "
+    "you no longer need, or try again later"
+)
+
+
+def out_of_space(exc: BaseException) -> bool:
+    """True if ``exc``, or an error it was raised from, is a full disk: an OSError with
+    ``ENOSPC`` or ``EDQUOT``, or SQLite's "database or disk is full" (``SQLITE_FULL``)."""
+    seen: set[int] = set()
+    current: BaseException | None = exc
+    while current is not None and id(current) not in seen:
+        seen.add(id(current))
+        if isinstance(current, OSError) and current.errno in _NO_SPACE_ERRNOS:
+            return True
+        if isinstance(current, sqlite3.Error) and (
+            getattr(current, "sqlite_errorcode", None) == sqlite3.SQLITE_FULL
+            or "database or disk is full" in str(current)
+        ):
+            return True
+        current = current.__cause__ or current.__context__
+    return False
 
 
 def renderer_status(exc: RendererError) -> int:
@@ -199,6 +229,20 @@ def install_problem_handlers(app: FastAPI) -> None:
             instance=request.url.path,
             headers={"Retry-After": str(UNAVAILABLE_RETRY_S)},
         )
+
+    async def _maybe_disk_full(request: Request, exc: Exception) -> JSONResponse:
+        # A full disk is the one outside failure a write in any route can meet: 507.
+        # Anything else is a bug, raised on to the 500 handler (which logs it).
+        if not out_of_space(exc):
+            raise exc
+        return problem_response(
+            NO_SPACE, DISK_FULL_DETAIL, title="Disk full", instance=request.url.path
+        )
+
+    # OSError and SQLite's errors directly; RuntimeError for a job store's error raised
+    # from a full disk (the Redis store's scripts)
+    for kind in (OSError, sqlite3.Error, RuntimeError):
+        app.add_exception_handler(kind, _maybe_disk_full)
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> JSONResponse:

@@ -22,6 +22,8 @@ from python_multipart.exceptions import MultipartParseError
 from python_multipart.multipart import MultipartParser, parse_options_header
 from starlette.requests import ClientDisconnect, Request
 
+from earfold.renderer.errors import shown
+
 from .problems import BAD_REQUEST, TOO_LARGE, UNSUPPORTED, Problem
 
 if TYPE_CHECKING:
@@ -57,6 +59,13 @@ def clean_filename(raw: str) -> str:
     if name in ("", ".", ".."):
         name = "upload"
     return name[:MAX_NAME_CHARS]
+
+
+def _shown_name(raw: bytes) -> str:
+    """A client's field or file name for a message: printable, quoted and cut as
+    :func:`~earfold.renderer.errors.shown` cuts a value (the empty name in words)."""
+    name = _CONTROL.sub("", raw.decode("utf-8", "replace"))
+    return shown(name) if name else "with an empty name"
 
 
 def declared_length(request: Request, limit: int) -> int | None:
@@ -116,13 +125,22 @@ async def receive_files(
         name = opts.get(b"name", b"").decode("utf-8", "replace")
         filename = opts.get(b"filename")
         current.clear()
-        current.update(field=name, is_file=filename is not None and name == field)
-        if current["is_file"] and filename is not None:
+        # Every part of ``field`` is a file, with a file name or without one (a client
+        # leaves it out for an empty name); a file under another name is a mistake.
+        current.update(field=name, is_file=name == field)
+        if not current["is_file"] and filename is not None:
+            raise Problem(
+                BAD_REQUEST,
+                f"no file in field {field!r}: the upload has a file "
+                f"({_shown_name(filename)}) in form field {_shown_name(name.encode())}; "
+                f"send it as field {field!r} (repeat the field for several files)",
+            )
+        if current["is_file"]:
             if len(files) >= MAX_PARTS:
                 raise Problem(BAD_REQUEST, f"at most {MAX_PARTS} files per upload")
             path = folder / f"part-{len(files)}"
             current.update(
-                filename=clean_filename(filename.decode("utf-8", "replace")),
+                filename=clean_filename((filename or b"").decode("utf-8", "replace")),
                 path=path,
                 size=0,
                 digest=hashlib.sha256(),
@@ -139,7 +157,12 @@ async def receive_files(
             fh.write(chunk)
             current["digest"].update(chunk)
         elif current["size"] > MAX_FIELD_BYTES:
-            raise Problem(BAD_REQUEST, f"form field {current['field']!r} is too long")
+            raise Problem(
+                BAD_REQUEST,
+                f"form field {_shown_name(current['field'].encode())} is longer than "
+                f"{MAX_FIELD_BYTES} bytes; only field {field!r} may carry files (send "
+                "each as a part with a file name), other fields are short text",
+            )
 
     def on_part_end() -> None:
         if current.get("is_file"):

@@ -23,6 +23,7 @@ a restart of Redis itself.
 from __future__ import annotations
 
 import builtins
+import errno
 import json
 import time
 from collections.abc import Callable, Mapping
@@ -112,7 +113,9 @@ class RedisJobQueue:
                 args=[self._now() if now is None else now, *args],
             )
         except redis.exceptions.ResponseError as exc:
-            raise RuntimeError(f"job store script {script!r} failed: {exc}") from exc
+            raise RuntimeError(f"job store script {script!r} failed: {exc}") from (
+                _disk_full(exc) or exc
+            )
         except redis.exceptions.RedisError as exc:
             raise self._unavailable(exc) from None
 
@@ -336,3 +339,19 @@ class RedisJobQueue:
             self._delivery.close()
             self._delivery = None
         self.client.close()
+
+
+#: How Redis words a write it refused because its own disk is full (it then answers
+#: every write "MISCONF Errors writing to the AOF file: No space left on device").
+_DISK_FULL_WORDS = {"No space left on device": errno.ENOSPC, "Disk quota exceeded": errno.EDQUOT}
+
+
+def _disk_full(exc: Exception) -> OSError | None:
+    """An OSError (ENOSPC, EDQUOT) for a Redis error that says its disk is full, raised
+    from ``exc``, so that the API answers 507; None for any other error."""
+    for words, code in _DISK_FULL_WORDS.items():
+        if words in str(exc):
+            full = OSError(code, f"the job store's disk is full ({exc})")
+            full.__cause__ = exc
+            return full
+    return None

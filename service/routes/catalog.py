@@ -23,6 +23,7 @@ from ..problems import (
     Problem,
     problem_responses,
 )
+from ..request_gate import streams_body
 from ..storage import META, Storage, new_id, write_json_atomic
 from ..uploads import staged_upload
 from .models import Health
@@ -172,6 +173,7 @@ def delete_hrtf_set(set_id: str, request: Request, owner: str = Depends(current_
     responses=problem_responses(UNAUTHORIZED, BAD_REQUEST, TOO_LARGE, UNSUPPORTED, NO_SPACE),
     summary="Upload a SOFA file as an HRTF set",
 )
+@streams_body
 async def upload_hrtf_set(
     request: Request, response: Response, owner: str = Depends(current_owner)
 ) -> dict:

@@ -15,6 +15,7 @@ the same length.
 from __future__ import annotations
 
 import json
+import shutil
 import time
 from typing import Annotated, Any, Literal
 
@@ -29,6 +30,7 @@ from ..jobs.worker import COMPARISON_KIND
 from ..problems import (
     BAD_REQUEST,
     CONFLICT,
+    NO_SPACE,
     NOT_FOUND,
     QUEUE_FULL,
     UNAUTHORIZED,
@@ -82,10 +84,18 @@ class ExcerptRequest(BaseModel):
     length: float = Field(DEFAULT_EXCERPT_S, ge=1.0, le=MAX_EXCERPT_S, allow_inf_nan=False)
 
 
-class ComparisonRequest(BaseModel):
-    """The JSON body of ``POST /v1/comparisons``."""
+#: What the route enforces of mode ``abx`` (exactly two variants), said in the schema:
+#: JSON Schema 2020-12 ``if``/``then`` (OpenAPI 3.1 schemas are JSON Schema 2020-12).
+_ABX_TWO_VARIANTS: dict[str, Any] = {
+    "if": {"properties": {"mode": {"const": "abx"}}, "required": ["mode"]},
+    "then": {"properties": {"variants": {"minItems": 2, "maxItems": 2}}},
+}
 
-    model_config = ConfigDict(extra="forbid")
+
+class ComparisonRequest(BaseModel):
+    """The JSON body of ``POST /v1/comparisons``. Mode ``abx`` takes exactly 2 variants."""
+
+    model_config = ConfigDict(extra="forbid", json_schema_extra={"allOf": [_ABX_TWO_VARIANTS]})
 
     stem_id: str = Field(pattern=r"^[0-9a-f]{32}$", description="id from POST /v1/stems")
     variants: list[VariantRequest] = Field(min_length=2, max_length=8)  # type: ignore[valid-type]
@@ -186,13 +196,12 @@ def _json(data: object, status: int = 200, headers: dict | None = None) -> Respo
     response_model=None,
     responses={
         202: {"model": ComparisonView},
-        **problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE),
+        **problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE, NO_SPACE),
     },
 )
 def create_comparison(
     req: ComparisonRequest, request: Request, owner: str = Depends(current_owner)
 ) -> Response:
-    settings = request.app.state.settings
     storage: Storage = request.app.state.storage
     stem = storage.read_meta("stems", req.stem_id, owner)
     if req.mode == "abx" and len(req.variants) != 2:
@@ -259,9 +268,6 @@ def create_comparison(
         "finished": False,
         "finished_ts": None,
     }
-    tmp = storage.new_tmp()
-    write_json_atomic(tmp / META, meta)
-    storage.commit(tmp, "comparisons", session_id)
     payload = {
         "kind": COMPARISON_KIND,
         "comparison_id": session_id,
@@ -269,9 +275,30 @@ def create_comparison(
         "excerpt": {"start": ex.start, "length": excerpt["length"]},
         "variants": [{"options": v["options"], "hrtf_id": v["hrtf_id"]} for v in variants],
     }
+    job = _store_and_queue(request, meta, payload)
+    view = sessions.public_view(meta, None, job)
+    return _json(view, 202, {"Location": f"/v1/comparisons/{session_id}"})
+
+
+def _store_and_queue(request: Request, meta: dict, payload: dict) -> Any:
+    """Store a new session and queue its build; all or nothing.
+
+    The record is written first (a worker that takes the job at once finds it) and
+    removed again if the job cannot be queued: queue full (429), job store down (503),
+    disk full (507). A failure writing the record leaves nothing either.
+    """
+    storage: Storage = request.app.state.storage
+    session_id = meta["id"]
+    tmp = storage.new_tmp()
     try:
-        job = request.app.state.queue.submit(
-            session_id, owner, payload, max_queued=settings.max_queued
+        write_json_atomic(tmp / META, meta)
+        storage.commit(tmp, "comparisons", session_id)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    try:
+        return request.app.state.queue.submit(
+            session_id, meta["owner"], payload, max_queued=request.app.state.settings.max_queued
         )
     except QueueFull as exc:
         storage.delete("comparisons", session_id)
@@ -280,8 +307,9 @@ def create_comparison(
             f"the queue is full ({exc}); try again in a minute",
             headers={"Retry-After": "30"},
         ) from None
-    view = sessions.public_view(meta, None, job)
-    return _json(view, 202, {"Location": f"/v1/comparisons/{session_id}"})
+    except BaseException:
+        storage.delete("comparisons", session_id)
+        raise
 
 
 @router.get("", summary="List your comparisons, newest first", response_model=list[ComparisonView])
@@ -366,7 +394,7 @@ def get_trial_audio(
     response_model=None,
     responses={
         200: {"model": ComparisonView},
-        **problem_responses(BAD_REQUEST, NOT_FOUND, CONFLICT),
+        **problem_responses(BAD_REQUEST, NOT_FOUND, CONFLICT, NO_SPACE),
     },
 )
 def answer_trial(
@@ -392,7 +420,7 @@ def answer_trial(
     "/{comparison_id}/finish",
     summary="Finish now and open the reveal",
     response_model=None,
-    responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND, CONFLICT)},
+    responses={200: {"model": ComparisonView}, **problem_responses(NOT_FOUND, CONFLICT, NO_SPACE)},
 )
 def finish_comparison(
     comparison_id: str, request: Request, owner: str = Depends(current_owner)

@@ -55,6 +55,13 @@ def _bounds(spec: OptionSpec) -> dict[str, Any]:
     return out
 
 
+def _powers_of_two(spec: OptionSpec) -> list[int]:
+    """The powers of two within a declared option's bounds (what its check accepts)."""
+    low = int(spec.minimum if spec.minimum is not None else 1)
+    high = int(spec.maximum if spec.maximum is not None else 1 << 30)
+    return [1 << n for n in range(high.bit_length()) if low <= 1 << n <= high]
+
+
 def _field(spec: OptionSpec) -> tuple[Any, Any]:
     """(annotation, FieldInfo) of one declared option."""
     nullable = spec.default is None
@@ -78,6 +85,10 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
     elif spec.kind == "integer":
         annotation = int
         extra = _bounds(spec)
+        if spec.power_of_two:
+            # JSON Schema has no "power of two"; multipleOf would admit 3 x 64. The
+            # allowed values are few (2^6 to 2^20 for the block size): list them.
+            extra["json_schema_extra"] = {"enum": _powers_of_two(spec)}
     elif spec.kind == "level":
         number = Annotated[float, Field(allow_inf_nan=False, **_bounds(spec))]
         annotation = number | Literal[spec.choices]  # type: ignore[valid-type]

@@ -28,6 +28,7 @@ from ..jobs.worker import COMPARISON_KIND, output_paths
 from ..problems import (
     BAD_REQUEST,
     CONFLICT,
+    NO_SPACE,
     NOT_FOUND,
     QUEUE_FULL,
     RANGE_NOT_SATISFIABLE,
@@ -216,7 +217,7 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
     status_code=202,
     summary="Queue a render",
     response_model=RenderView,
-    responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE),
+    responses=problem_responses(BAD_REQUEST, NOT_FOUND, QUEUE_FULL, UNAVAILABLE, NO_SPACE),
 )
 def create_render(
     req: RenderRequest,  # type: ignore[valid-type]  # a model built from the declaration

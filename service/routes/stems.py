@@ -26,8 +26,9 @@ from ..problems import (
     Problem,
     problem_responses,
 )
+from ..request_gate import streams_body
 from ..storage import META, Storage, new_id, write_json_atomic
-from ..uploads import UploadedFile, staged_upload
+from ..uploads import MAX_PARTS, UploadedFile, staged_upload
 
 router = APIRouter(prefix="/v1/stems", tags=["stems"], responses=problem_responses(UNAUTHORIZED))
 
@@ -46,7 +47,10 @@ _UPLOAD_BODY = {
                         "file": {
                             "type": "array",
                             "items": {"type": "string", "format": "binary"},
-                            "description": "one multichannel file, or several mono files",
+                            "minItems": 1,
+                            "maxItems": MAX_PARTS,
+                            "description": "one multichannel file, or several mono files "
+                            f"(at most {MAX_PARTS}); parts of other fields carry no files",
                         },
                     },
                 }
@@ -158,6 +162,7 @@ def _probe(
     responses=problem_responses(BAD_REQUEST, TOO_LARGE, UNSUPPORTED, NO_SPACE),
     summary="Upload a stem: one multichannel file or several mono files",
 )
+@streams_body
 async def upload_stem(
     request: Request, response: Response, owner: str = Depends(current_owner)
 ) -> dict:

@@ -155,3 +155,47 @@ def test_ids_are_checked_before_touching_a_path(client):
     for bad in ("..", "x" * 32, "0" * 31, "../../etc"):
         resp = client.get(f"/v1/stems/{bad}")
         assert resp.status_code == 404, (bad, resp.text)
+
+
+def test_file_without_a_file_name_is_taken_not_called_a_too_long_field(client, tmp_path):
+    """A client leaves out ``filename`` when the name is empty; the part is still the
+    file (it used to be refused as "form field 'file' is too long")."""
+    path = write_stem(tmp_path / "a.wav", FS, 2)
+    resp = client.post("/v1/stems", files=[("file", ("", path.read_bytes(), "audio/wav"))])
+    assert resp.status_code == 201, resp.text
+    assert resp.json()["files"][0]["name"] == "upload"
+    # filename="" said explicitly: the same
+    body = (
+        b'--b\r\nContent-Disposition: form-data; name="file"; filename=""\r\n\r\n'
+        + path.read_bytes()
+        + b"\r\n--b--\r\n"
+    )
+    resp = client.post(
+        "/v1/stems", content=body, headers={"content-type": "multipart/form-data; boundary=b"}
+    )
+    assert resp.status_code == 201, resp.text
+
+
+def test_file_in_the_wrong_form_field_says_which_field_to_use(client, tmp_path):
+    path = write_stem(tmp_path / "a.wav", FS, 2)
+    problem = _problem(
+        client.post("/v1/stems", files=[("audio", ("a.wav", path.read_bytes(), "audio/wav"))]),
+        400,
+        "form field 'audio'",
+    )
+    assert "send it as field 'file'" in problem["detail"]
+    assert "too long" not in problem["detail"]
+    assert _tmp_is_empty(client)
+
+
+def test_long_text_field_says_files_go_in_field_file(client):
+    problem = _problem(
+        client.post(
+            "/v1/stems",
+            data={"notes": "x" * 100_000},
+            files=[("file", ("a.wav", b"RIFF", "audio/wav"))],
+        ),
+        400,
+        "form field 'notes' is longer than 65536 bytes",
+    )
+    assert "only field 'file' may carry files" in problem["detail"]
