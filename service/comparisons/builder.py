@@ -26,6 +26,7 @@ import json
 import math
 import multiprocessing
 import os
+import signal
 import tempfile
 import time
 from collections.abc import Callable, Sequence
@@ -199,8 +200,12 @@ def _render_forked(
     stop = ctx.Value("b", 0, lock=False)
     errors = ctx.SimpleQueue()
 
+    parent = os.getpid()  # taken before the fork: the forks stop when it is gone
+
     def work(indices: list[int]) -> None:
-        parent = os.getppid()
+        from ..jobs.parent_watch import die_with_parent
+
+        die_with_parent(signal.SIGTERM)
 
         def stopped() -> bool:
             return bool(stop.value) or os.getppid() != parent

@@ -21,6 +21,7 @@ import time
 from typing import TYPE_CHECKING, cast
 
 from ..settings import ServiceSettings
+from .parent_watch import die_with_parent, expected_parent, parent_gone
 from .queue import QueueUnavailable
 from .worker import RECOVER_INTERVAL_S, SETTINGS_ENV, Worker
 
@@ -93,6 +94,9 @@ class RedisWorker:
 
 
 def main() -> int:
+    die_with_parent(signal.SIGTERM)  # started by a server: never outlive it
+    if parent_gone(expected_parent()):
+        return 0
     logging.basicConfig(level=logging.WARNING, format="%(asctime)s %(name)s: %(message)s")
     logging.getLogger("dramatiq").setLevel(logging.ERROR)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])

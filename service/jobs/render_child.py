@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Any
 
 from ..files import write_json_atomic
+from .parent_watch import die_with_parent, expected_parent, parent_gone
 
 EXIT_BAD_INPUT = 2
 EXIT_CANCELLED = 3
@@ -27,7 +28,8 @@ EXIT_CANCELLED = 3
 PROGRESS_INTERVAL_S = 0.1
 
 _stop = False
-_parent = os.getppid()
+#: The worker this child renders for (see :mod:`.parent_watch`).
+_parent = expected_parent()
 
 
 def _on_term(signum: int, frame: object) -> None:
@@ -36,7 +38,7 @@ def _on_term(signum: int, frame: object) -> None:
 
 
 def _cancelled() -> bool:
-    return _stop or os.getppid() != _parent
+    return _stop or parent_gone(_parent)
 
 
 def _emit(obj: dict) -> None:
@@ -113,6 +115,9 @@ RENDER_NICENESS = 10
 
 
 def main() -> int:
+    die_with_parent(signal.SIGTERM)  # a worker that dies takes its render with it
+    if parent_gone(_parent):
+        return EXIT_CANCELLED
     try:
         os.nice(RENDER_NICENESS)
     except OSError:

@@ -26,9 +26,12 @@ from typing import IO, Protocol
 from ..settings import ServiceSettings
 from ..storage import Storage
 from .factory import open_queue
+from .parent_watch import PARENT_ENV, die_with_parent, expected_parent, parent_gone
 from .queue import Job, JobQueue, QueueUnavailable
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
+
+__all__ = ["PARENT_ENV", "SETTINGS_ENV", "Worker", "child_environment", "main"]
 
 
 class ChildProcess(Protocol):
@@ -83,8 +86,13 @@ SINGLE_THREADED = {
 
 def child_environment(base: dict[str, str] | None = None) -> dict[str, str]:
     """The environment of a render child: ``base`` (default: ours) with single-threaded
-    numeric libraries (the child also lowers its own priority, see render_child)."""
-    return {**(os.environ if base is None else base), **SINGLE_THREADED}
+    numeric libraries (the child also lowers its own priority, see render_child), and
+    this process as the parent it must not outlive (:mod:`.parent_watch`)."""
+    return {
+        **(os.environ if base is None else base),
+        **SINGLE_THREADED,
+        PARENT_ENV: str(os.getpid()),
+    }
 
 
 def output_paths(storage: Storage, job: Job) -> tuple[Path, Path]:
@@ -137,7 +145,8 @@ class Worker:
         )
         self.name = name or f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
         self._stop = threading.Event()
-        self._parent = os.getppid()
+        #: The process this worker belongs to (its server); gone, the worker stops.
+        self._parent = expected_parent()
         #: The render child's command line (tests substitute one that crashes).
         self.child_command = [sys.executable, "-m", "earfold.service.jobs.render_child"]
         #: The command line of a comparison build (a job whose payload kind is
@@ -151,7 +160,7 @@ class Worker:
         self._stop.set()
 
     def _orphaned(self) -> bool:
-        return os.getppid() != self._parent
+        return parent_gone(self._parent)
 
     def run(self, *, once: bool = False) -> None:
         """The claim loop; with ``once``, return after one job (or none waiting)."""
@@ -340,6 +349,11 @@ class Worker:
 
 
 def main() -> int:
+    # First: a server that dies from now on takes this worker with it (SIGTERM: the
+    # job in hand is given back), and one that is already gone is not waited for.
+    die_with_parent(signal.SIGTERM)
+    if parent_gone(expected_parent()):
+        return 0
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
     # Comparison builds fork from this process, so it loads what they need once, with
