@@ -28,6 +28,7 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
     folder = storage.path("stems", payload["stem_id"])
     inputs = [str(folder / f["stored"]) for f in stem["files"]]
     names = {str(folder / f["stored"]): f["name"] for f in stem["files"]}
+    names.update({f["stored"]: f["name"] for f in stem["files"]})
     variants = []
     for v in payload["variants"]:
         options = dict(v["options"])
@@ -36,6 +37,7 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
             path = storage.path("hrtf", v["hrtf_id"]) / hrtf["stored"]
             options["hrtf"] = str(path)
             names[str(path)] = hrtf["name"]
+            names[hrtf["stored"]] = hrtf["name"]
         variants.append(options)
     target = storage.path("comparisons", session_id)
     return {

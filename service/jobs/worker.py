@@ -28,6 +28,7 @@ from ..storage import Storage
 from .factory import open_queue
 from .parent_watch import PARENT_ENV, die_with_parent, expected_parent, parent_gone
 from .queue import Job, JobQueue, QueueUnavailable
+from .render_child import DISK_FULL_MESSAGE, EXIT_DISK_FULL, discard_outputs
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
 
@@ -119,6 +120,7 @@ def child_spec(storage: Storage, job: Job) -> dict:
         path = storage.path("hrtf", hrtf_id) / hrtf["stored"]
         options["hrtf"] = str(path)
         names[str(path)] = hrtf["name"]
+        names[hrtf["stored"]] = hrtf["name"]
     output, report = output_paths(storage, job)
     output.parent.mkdir(parents=True, exist_ok=True)
     return {
@@ -310,6 +312,11 @@ class Worker:
             return
         if "done" in final and proc.returncode == 0:
             q.complete(job.id, self.name, final["done"])
+        elif final.get("disk_full") or proc.returncode == EXIT_DISK_FULL:
+            # Out of disk space is not a crash: retrying cannot help until space is
+            # freed, so the job fails at once, and nothing of it is kept.
+            discard_outputs(spec)
+            q.fail(job.id, self.name, final.get("error") or DISK_FULL_MESSAGE)
         elif "error" in final:
             q.fail(job.id, self.name, final["error"])
             self._remove_partial(spec)
