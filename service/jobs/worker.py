@@ -355,12 +355,28 @@ class Worker:
             leftover.unlink(missing_ok=True)
 
 
+#: Niceness a worker process adds to itself: its own work (the claim loop, the warm-up
+#: of comparison builds: imports and the HRIR set) is batch work too, and a worker
+#: starting or restarting must not delay the API's answers. Its render children add
+#: :data:`~earfold.service.jobs.render_child.RENDER_NICENESS` on top (to at most 19).
+WORKER_NICENESS = 5
+
+
+def lower_priority(increment: int) -> None:
+    """Add ``increment`` to this process's niceness (where the system allows it)."""
+    try:
+        os.nice(increment)
+    except (OSError, AttributeError):
+        pass
+
+
 def main() -> int:
     # First: a server that dies from now on takes this worker with it (SIGTERM: the
     # job in hand is given back), and one that is already gone is not waited for.
     die_with_parent(signal.SIGTERM)
     if parent_gone(expected_parent()):
         return 0
+    lower_priority(WORKER_NICENESS)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
     # Comparison builds fork from this process, so it loads what they need once, with
