@@ -108,21 +108,26 @@ def test_sigterm_to_the_server_group_during_startup_or_shutdown_leaves_no_worker
 
 
 def test_a_worker_whose_server_was_killed_exits_by_itself(tmp_path):
-    data_dir = tmp_path / "data"
-    proc = _serve(data_dir, workers=1)
-    pgid = proc.pid
-    try:
-        deadline = time.monotonic() + 30
-        workers: list[int] = []
-        while time.monotonic() < deadline and not workers:
-            time.sleep(0.2)
-            workers = [p for p in _left(pgid, data_dir) if p != proc.pid]
-        assert workers, "the worker did not start"
-        time.sleep(1.0)  # at rest (or still warming up): either way it must follow
-        os.kill(proc.pid, signal.SIGKILL)  # the server only: no signal reaches the worker
-        proc.wait(10)
-    finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait()
-    _assert_all_gone(pgid, data_dir, "server killed")
+    # The server is killed outright (no signal reaches its workers) at random moments
+    # from the instant its workers exist: still starting (importing, before their first
+    # look at their parent), warming up, or idle. Each worker must notice and exit.
+    rng = random.Random(4)
+    for attempt, delay in enumerate([0.0, *(rng.uniform(0.0, 1.5) for _ in range(3))]):
+        data_dir = tmp_path / f"data{attempt}"
+        proc = _serve(data_dir, workers=2)
+        pgid = proc.pid
+        try:
+            deadline = time.monotonic() + 30
+            workers: list[int] = []
+            while time.monotonic() < deadline and not workers:
+                time.sleep(0.005)
+                workers = [p for p in _left(pgid, data_dir) if p != proc.pid]
+            assert workers, "the workers did not start"
+            time.sleep(delay)
+            os.kill(proc.pid, signal.SIGKILL)  # the server only
+            proc.wait(10)
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+                proc.wait()
+        _assert_all_gone(pgid, data_dir, f"server killed {delay:.2f} s after its workers started")
