@@ -131,3 +131,26 @@ def test_a_worker_whose_server_was_killed_exits_by_itself(tmp_path):
                 proc.kill()
                 proc.wait()
         _assert_all_gone(pgid, data_dir, f"server killed {delay:.2f} s after its workers started")
+
+
+def test_a_rendering_worker_and_its_render_exit_when_the_server_is_killed():
+    import asyncio
+
+    import httpx
+
+    from earfold.service.tools.load_poll import _start_long_render
+    from earfold.service.tools.local_server import LocalServer
+
+    async def start(url: str) -> None:
+        async with httpx.AsyncClient(base_url=url, timeout=120) as http:
+            await _start_long_render(http, 1)
+
+    with LocalServer(1) as server:
+        asyncio.run(start(server.url))  # returns once the render runs
+        data_dir = server.data_dir
+        rendering = [p for p in _left(-1, data_dir) if p != server.pid]
+        assert len(rendering) >= 2, rendering  # the worker and its render child
+        os.kill(server.pid, signal.SIGKILL)
+        assert server.proc is not None
+        server.proc.wait(10)
+        _assert_all_gone(-1, data_dir, "server killed mid-render")
