@@ -38,9 +38,9 @@ DISK_FULL_MARGIN_BYTES = 1 << 20
 
 #: The job's message when its render ran out of disk space.
 DISK_FULL_MESSAGE = (
-    "the server's disk ran out of space while writing the render (disk full); nothing "
-    "was kept. Free some space (delete finished renders or stems you no longer need) "
-    "and submit the render again"
+    "the server's disk ran out of space while writing the result (disk full); nothing "
+    "was kept. Free some space (delete finished renders, comparisons or stems you no "
+    "longer need) and submit it again"
 )
 
 #: Least time between two progress lines (s); the worker reports a few times a second.

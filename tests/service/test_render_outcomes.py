@@ -148,3 +148,48 @@ def test_an_uploaded_hrtf_set_is_named_as_uploaded_in_messages(make_client, tmp_
     assert cleaned["warnings"] == ["HRTF set 'my-ears.sofa' already holds room responses"]
     assert cleaned["hrtf"]["file"] == "my-ears.sofa"
     assert output_paths(storage, job)[0].name == "output.wav"
+
+
+def test_a_full_disk_fails_a_comparison_build_at_once_and_keeps_no_trial_audio(
+    make_client, tmp_path
+):
+    client = make_client(**FAST, max_attempts=3)
+    path = write_stem(tmp_path / "take.wav", FS * 3, 2)
+    stem = client.post("/v1/stems", files=files_field([path])).json()
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"layout": "2.0"}, {"layout": "2.0", "room": "small"}],
+        "trials": 2,
+        "excerpt": {"start": 0.5, "length": 1.0},
+    }
+    cid = client.post("/v1/comparisons", json=body).json()["id"]
+    worker = _worker(client)
+    # the second trial file does not fit on the disk any more
+    worker.comparison_command = [
+        sys.executable,
+        "-c",
+        textwrap.dedent(
+            """
+            import errno, os, sys
+            import earfold.renderer.io as io
+            original, calls = io.write_audio, []
+            def write_audio(*args, **kwargs):
+                calls.append(1)
+                if len(calls) > 1:
+                    raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+                return original(*args, **kwargs)
+            io.write_audio = write_audio
+            from earfold.service.comparisons import build_child
+            sys.exit(build_child.main())
+            """
+        ),
+    ]
+    worker.run(once=True)
+    view = client.get(f"/v1/comparisons/{cid}").json()
+    assert view["state"] == "failed", view
+    assert "disk" in view["message"] and "full" in view["message"], view["message"]
+    job = client.app.state.queue.get(cid)  # a build job has its comparison's id
+    assert job.attempts == 1 and job.state.value == "failed", job
+    folder = client.app.state.storage.path("comparisons", cid)
+    assert not (folder / "audio").exists()
+    assert not (folder / "prepared.json").exists()
