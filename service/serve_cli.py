@@ -20,6 +20,7 @@ import os
 import signal
 import socket
 import sys
+import threading
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from types import FrameType
@@ -327,7 +328,8 @@ def _serve(args: argparse.Namespace, settings: ServiceSettings, sock: socket.soc
         pool.begin_shutdown()
         server.should_exit = True
 
-    previous = {sig: signal.signal(sig, early_exit) for sig in _STOP_SIGNALS}
+    main_thread = threading.current_thread() is threading.main_thread()
+    previous = {sig: signal.signal(sig, early_exit) for sig in _STOP_SIGNALS if main_thread}
     try:
         pool.start()
         server.run(sockets=[sock])
