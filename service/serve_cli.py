@@ -17,10 +17,13 @@ import argparse
 import errno
 import ipaddress
 import os
+import signal
 import socket
 import sys
+import threading
 from collections.abc import Callable, Sequence
 from pathlib import Path
+from types import FrameType
 
 from .cli_output import EXIT_BAD_INPUT, positive
 from .settings import ServiceSettings, read_tokens
@@ -269,17 +272,24 @@ def _serve(args: argparse.Namespace, settings: ServiceSettings, sock: socket.soc
 
     class AnnouncingServer(uvicorn.Server):
         """uvicorn's server that calls ``announce`` once it listens and the app started,
-        and ``stopped`` once it has shut down."""
+        ``stopping`` as soon as a signal asks it to stop, and ``stopped`` once it has
+        shut down."""
 
         def __init__(
             self,
             config: uvicorn.Config,
             announce: Callable[[], None],
             stopped: Callable[[], None],
+            stopping: Callable[[], None],
         ) -> None:
             super().__init__(config)
             self.announce = announce
             self.stopped = stopped
+            self.stopping = stopping
+
+        def handle_exit(self, sig: int, frame: FrameType | None) -> None:
+            self.stopping()  # first: no worker is restarted from here on
+            super().handle_exit(sig, frame)
 
         async def startup(self, sockets: list[socket.socket] | None = None) -> None:
             await super().startup(sockets=sockets)
@@ -301,13 +311,39 @@ def _serve(args: argparse.Namespace, settings: ServiceSettings, sock: socket.soc
         app, log_level=args.log_level, access_log=args.log_level in ("info", "debug")
     )
     pool = WorkerPool(settings, args.workers)
-    server = AnnouncingServer(config, lambda: print(line, file=sys.stderr, flush=True), pool.stop)
-    pool.start()
+    server = AnnouncingServer(
+        config,
+        lambda: print(line, file=sys.stderr, flush=True),
+        pool.stop,
+        pool.begin_shutdown,
+    )
+    # A stop signal before uvicorn listens for signals (or after it has put back the
+    # handlers it found, when it raises the signal again) must neither kill this process
+    # before its workers are stopped nor let the pool restart workers: until the pool is
+    # stopped, a signal only begins the shutdown; it is raised again once the pool is down.
+    caught: list[int] = []
+
+    def early_exit(sig: int, frame: FrameType | None) -> None:
+        caught.append(sig)
+        pool.begin_shutdown()
+        server.should_exit = True
+
+    main_thread = threading.current_thread() is threading.main_thread()
+    previous = {sig: signal.signal(sig, early_exit) for sig in _STOP_SIGNALS if main_thread}
     try:
+        pool.start()
         server.run(sockets=[sock])
     finally:
         pool.stop()
+        for stop_signal, handler in previous.items():
+            signal.signal(stop_signal, handler)
+    for number in dict.fromkeys(reversed(caught)):
+        signal.raise_signal(number)  # as uvicorn does: end as the signal asked
     return 0
+
+
+#: Signals that stop ``earfold serve`` (those uvicorn handles).
+_STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
 
 def main(argv: Sequence[str] | None = None) -> int:

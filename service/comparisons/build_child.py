@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import signal
 import sys
 import time
@@ -28,6 +29,7 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
     folder = storage.path("stems", payload["stem_id"])
     inputs = [str(folder / f["stored"]) for f in stem["files"]]
     names = {str(folder / f["stored"]): f["name"] for f in stem["files"]}
+    names.update({f["stored"]: f["name"] for f in stem["files"]})
     variants = []
     for v in payload["variants"]:
         options = dict(v["options"])
@@ -36,6 +38,7 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
             path = storage.path("hrtf", v["hrtf_id"]) / hrtf["stored"]
             options["hrtf"] = str(path)
             names[str(path)] = hrtf["name"]
+            names[hrtf["stored"]] = hrtf["name"]
         variants.append(options)
     target = storage.path("comparisons", session_id)
     return {
@@ -79,9 +82,20 @@ def run(spec: dict) -> int:
         rc._emit({"cancelled": True})
         return rc.EXIT_CANCELLED
     except (RendererError, BuildError) as exc:
+        if rc.disk_full(exc):
+            return _disk_full(spec)
         rc._emit({"error": rc._clean(str(exc), names)})
         return rc.EXIT_BAD_INPUT
-    write_json_atomic(Path(spec["output"]), prepared)
+    except Exception as exc:
+        if rc.disk_full(exc, folder):
+            return _disk_full(spec)
+        raise
+    try:
+        write_json_atomic(Path(spec["output"]), prepared)
+    except OSError as exc:
+        if rc.disk_full(exc):
+            return _disk_full(spec)
+        raise
     rc._emit(
         {
             "done": {
@@ -92,6 +106,16 @@ def run(spec: dict) -> int:
         }
     )
     return 0
+
+
+def _disk_full(spec: dict) -> int:
+    """Out of disk space: remove the trial files and the build's record, say so."""
+    from ..jobs import render_child as rc
+
+    shutil.rmtree(Path(spec["folder"]) / "audio", ignore_errors=True)
+    rc.discard_outputs(spec)
+    rc._emit({"error": rc.DISK_FULL_MESSAGE, "disk_full": True})
+    return rc.EXIT_DISK_FULL
 
 
 def main() -> int:

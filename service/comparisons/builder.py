@@ -21,11 +21,13 @@ route handler. Steps:
 
 from __future__ import annotations
 
+import errno
 import functools
 import json
 import math
 import multiprocessing
 import os
+import signal
 import tempfile
 import time
 from collections.abc import Callable, Sequence
@@ -199,8 +201,12 @@ def _render_forked(
     stop = ctx.Value("b", 0, lock=False)
     errors = ctx.SimpleQueue()
 
+    parent = os.getpid()  # taken before the fork: the forks stop when it is gone
+
     def work(indices: list[int]) -> None:
-        parent = os.getppid()
+        from ..jobs.parent_watch import die_with_parent
+
+        die_with_parent(signal.SIGTERM)
 
         def stopped() -> bool:
             return bool(stop.value) or os.getppid() != parent
@@ -217,9 +223,14 @@ def _render_forked(
                 )
             except RenderCancelled:
                 os._exit(3)
-            except RendererError as exc:
-                errors.put(json.dumps({"index": i, "error": str(exc)}))
-                os._exit(2)
+            except Exception as exc:
+                from ..jobs.render_child import EXIT_DISK_FULL, disk_full
+
+                full = disk_full(exc, None if isinstance(exc, RendererError) else out.parent)
+                if full or isinstance(exc, RendererError):
+                    errors.put(json.dumps({"index": i, "error": str(exc), "disk_full": full}))
+                    os._exit(EXIT_DISK_FULL if full else 2)
+                raise
         os._exit(0)
 
     procs = [
@@ -241,7 +252,10 @@ def _render_forked(
     if cancelled is not None and cancelled():
         raise RenderCancelled("render cancelled")
     if not errors.empty():
-        raise RendererError(json.loads(errors.get())["error"])
+        error = json.loads(errors.get())
+        if error.get("disk_full"):
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        raise RendererError(error["error"])
     codes = [p.exitcode for p in procs]
     if any(code != 0 for code in codes):
         raise BuildError(

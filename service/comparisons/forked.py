@@ -44,6 +44,7 @@ class ForkedBuild:
 
     def __init__(self, spec: dict, niceness: int) -> None:
         read, write = os.pipe()
+        worker = os.getpid()
         pid = os.fork()
         if pid == 0:  # the build: never returns
             code = 70
@@ -51,7 +52,7 @@ class ForkedBuild:
                 os.close(read)
                 os.dup2(write, 1)
                 os.close(write)
-                code = _child(spec, niceness)
+                code = _child(spec, niceness, worker)
             finally:
                 os._exit(code)
         os.close(write)
@@ -90,11 +91,13 @@ class ForkedBuild:
                 pass
 
 
-def _child(spec: dict, niceness: int) -> int:
+def _child(spec: dict, niceness: int, worker: int) -> int:
     from ..jobs import render_child as rc
+    from ..jobs.parent_watch import die_with_parent
     from .build_child import run
 
-    rc._parent = os.getppid()  # the worker: if it dies, the build stops
+    rc._parent = worker  # if the worker dies, the build stops
+    die_with_parent(signal.SIGTERM)
     rc._stop = False
     signal.signal(signal.SIGTERM, rc._on_term)
     signal.signal(signal.SIGINT, signal.SIG_IGN)

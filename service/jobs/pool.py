@@ -8,7 +8,7 @@ import sys
 import threading
 
 from ..settings import ServiceSettings
-from .worker import SETTINGS_ENV
+from .worker import PARENT_ENV, SETTINGS_ENV
 
 #: How often the pool checks that its workers are alive (s).
 WATCH_INTERVAL_S = 0.5
@@ -28,7 +28,11 @@ class WorkerPool:
     """``count`` worker processes that are restarted when they die.
 
     A worker killed mid-render (SIGKILL, OOM) is replaced at once; its job is taken
-    again once its lease expires, by the new worker or another.
+    again once its lease expires, by the new worker or another. Once shutdown has begun
+    (:meth:`begin_shutdown`, called from the server's signal handler, or :meth:`stop`)
+    nothing is started or restarted any more: a worker that died of the same SIGTERM as
+    its server must not come back without a parent. Each worker is told its server's
+    pid and exits by itself when that process is gone (:mod:`.parent_watch`).
     """
 
     def __init__(self, settings: ServiceSettings, count: int, *, module: str | None = None) -> None:
@@ -45,10 +49,22 @@ class WorkerPool:
     def _spawn(self) -> subprocess.Popen:
         env = dict(os.environ)
         env[SETTINGS_ENV] = self.settings.to_json()
+        env[PARENT_ENV] = str(os.getpid())
         return subprocess.Popen([sys.executable, "-m", self.module], env=env)
+
+    @property
+    def stopping(self) -> bool:
+        """True once shutdown has begun: no worker is started or restarted any more."""
+        return self._stop.is_set()
+
+    def begin_shutdown(self) -> None:
+        """Stop (re)starting workers; safe to call from a signal handler (no lock)."""
+        self._stop.set()
 
     def start(self) -> None:
         with self._lock:
+            if self._stop.is_set():
+                return
             self.procs = [self._spawn() for _ in range(self.count)]
         if self.count:
             self._watcher = threading.Thread(target=self._watch, name="worker-pool", daemon=True)
@@ -68,7 +84,7 @@ class WorkerPool:
 
     def stop(self) -> None:
         """SIGTERM every worker (they hand running jobs back), then kill stragglers."""
-        self._stop.set()
+        self.begin_shutdown()
         if self._watcher is not None:
             self._watcher.join(timeout=5)
         with self._lock:

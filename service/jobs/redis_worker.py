@@ -21,8 +21,9 @@ import time
 from typing import TYPE_CHECKING, cast
 
 from ..settings import ServiceSettings
+from .parent_watch import die_with_parent, expected_parent, parent_gone
 from .queue import QueueUnavailable
-from .worker import RECOVER_INTERVAL_S, SETTINGS_ENV, Worker
+from .worker import RECOVER_INTERVAL_S, SETTINGS_ENV, WORKER_NICENESS, Worker, lower_priority
 
 if TYPE_CHECKING:
     from .redis_store import RedisJobQueue
@@ -93,6 +94,10 @@ class RedisWorker:
 
 
 def main() -> int:
+    die_with_parent(signal.SIGTERM)  # started by a server: never outlive it
+    if parent_gone(expected_parent()):
+        return 0
+    lower_priority(WORKER_NICENESS)
     logging.basicConfig(level=logging.WARNING, format="%(asctime)s %(name)s: %(message)s")
     logging.getLogger("dramatiq").setLevel(logging.ERROR)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])

@@ -26,9 +26,13 @@ from typing import IO, Protocol
 from ..settings import ServiceSettings
 from ..storage import Storage
 from .factory import open_queue
+from .parent_watch import PARENT_ENV, die_with_parent, expected_parent, parent_gone
 from .queue import Job, JobQueue, QueueUnavailable
+from .render_child import DISK_FULL_MESSAGE, EXIT_DISK_FULL, discard_outputs
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
+
+__all__ = ["PARENT_ENV", "SETTINGS_ENV", "Worker", "child_environment", "main"]
 
 
 class ChildProcess(Protocol):
@@ -83,8 +87,13 @@ SINGLE_THREADED = {
 
 def child_environment(base: dict[str, str] | None = None) -> dict[str, str]:
     """The environment of a render child: ``base`` (default: ours) with single-threaded
-    numeric libraries (the child also lowers its own priority, see render_child)."""
-    return {**(os.environ if base is None else base), **SINGLE_THREADED}
+    numeric libraries (the child also lowers its own priority, see render_child), and
+    this process as the parent it must not outlive (:mod:`.parent_watch`)."""
+    return {
+        **(os.environ if base is None else base),
+        **SINGLE_THREADED,
+        PARENT_ENV: str(os.getpid()),
+    }
 
 
 def output_paths(storage: Storage, job: Job) -> tuple[Path, Path]:
@@ -111,6 +120,7 @@ def child_spec(storage: Storage, job: Job) -> dict:
         path = storage.path("hrtf", hrtf_id) / hrtf["stored"]
         options["hrtf"] = str(path)
         names[str(path)] = hrtf["name"]
+        names[hrtf["stored"]] = hrtf["name"]
     output, report = output_paths(storage, job)
     output.parent.mkdir(parents=True, exist_ok=True)
     return {
@@ -137,7 +147,8 @@ class Worker:
         )
         self.name = name or f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
         self._stop = threading.Event()
-        self._parent = os.getppid()
+        #: The process this worker belongs to (its server); gone, the worker stops.
+        self._parent = expected_parent()
         #: The render child's command line (tests substitute one that crashes).
         self.child_command = [sys.executable, "-m", "earfold.service.jobs.render_child"]
         #: The command line of a comparison build (a job whose payload kind is
@@ -151,7 +162,7 @@ class Worker:
         self._stop.set()
 
     def _orphaned(self) -> bool:
-        return os.getppid() != self._parent
+        return parent_gone(self._parent)
 
     def run(self, *, once: bool = False) -> None:
         """The claim loop; with ``once``, return after one job (or none waiting)."""
@@ -301,6 +312,11 @@ class Worker:
             return
         if "done" in final and proc.returncode == 0:
             q.complete(job.id, self.name, final["done"])
+        elif final.get("disk_full") or proc.returncode == EXIT_DISK_FULL:
+            # Out of disk space is not a crash: retrying cannot help until space is
+            # freed, so the job fails at once, and nothing of it is kept.
+            discard_outputs(spec)
+            q.fail(job.id, self.name, final.get("error") or DISK_FULL_MESSAGE)
         elif "error" in final:
             q.fail(job.id, self.name, final["error"])
             self._remove_partial(spec)
@@ -339,7 +355,28 @@ class Worker:
             leftover.unlink(missing_ok=True)
 
 
+#: Niceness a worker process adds to itself: its own work (the claim loop, the warm-up
+#: of comparison builds: imports and the HRIR set) is batch work too, and a worker
+#: starting or restarting must not delay the API's answers. Its render children add
+#: :data:`~earfold.service.jobs.render_child.RENDER_NICENESS` on top (to at most 19).
+WORKER_NICENESS = 5
+
+
+def lower_priority(increment: int) -> None:
+    """Add ``increment`` to this process's niceness (where the system allows it)."""
+    try:
+        os.nice(increment)
+    except (OSError, AttributeError):
+        pass
+
+
 def main() -> int:
+    # First: a server that dies from now on takes this worker with it (SIGTERM: the
+    # job in hand is given back), and one that is already gone is not waited for.
+    die_with_parent(signal.SIGTERM)
+    if parent_gone(expected_parent()):
+        return 0
+    lower_priority(WORKER_NICENESS)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
     # Comparison builds fork from this process, so it loads what they need once, with

@@ -25,6 +25,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from ..auth import current_owner
 from ..comparisons import session as sessions
 from ..comparisons.assignment import draw_trials
+from ..comparisons.trial_audio import trial_bytes
 from ..jobs import JobNotFound, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND
 from ..problems import (
@@ -382,7 +383,8 @@ def get_trial_audio(
         raise Problem(NOT_FOUND, "no such trial audio in this comparison")
     path = storage.path("comparisons", comparison_id) / built["variants"][variant]["file"]
     try:
-        data = path.read_bytes()
+        # dithered per token: no two trials' files are the same bytes (comparisons.trial_audio)
+        data = trial_bytes(path, token)
     except OSError:
         raise Problem(NOT_FOUND, "the comparison's audio is gone (expired or deleted)") from None
     return Response(data, media_type="audio/wav", headers=AUDIO_HEADERS)

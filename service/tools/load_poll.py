@@ -19,6 +19,12 @@ temporary data directory (removed afterwards), so it can also read the server's 
    in milliseconds with the clock's resolution, with the CPU used by the poller process
    and the API process, and whether both renders were still running at the end.
 
+3. ``--burst N`` instead: one long render is started; once it runs, ``--concurrency``
+   clients (default 200), each on its own new connection, started together, send
+   ``N`` status reads in all (``GET /v1/renders/{id}``, back to back), as a crowd of
+   pages opened at once does. Each latency counts from the request's start, connecting
+   included for a client's first request. Percentiles in milliseconds as above.
+
 The pollers speak HTTP/1.1 over raw asyncio streams: an HTTP client library costs
 about as much CPU per request as the server does, and on a 2-core machine that CPU is
 taken from the server being measured. It stops by itself and cancels what it queued.
@@ -244,6 +250,87 @@ async def run(
     }
 
 
+async def _start_long_render(http: httpx.AsyncClient, count: int) -> tuple[dict, list[str]]:
+    """Upload the long stem and start ``count`` renders of it; wait until all run."""
+    long = (
+        await http.post(
+            "/v1/stems", files=[("file", ("long.wav", wav_bytes(LONG_STEM_S, 12), "audio/wav"))]
+        )
+    ).json()
+    jobs = [
+        (
+            await http.post(
+                "/v1/renders", json={"stem_id": long["id"], "layout": "7.1.4", "block_size": 64}
+            )
+        ).json()["id"]
+        for _ in range(count)
+    ]
+    deadline = time.monotonic() + 30
+    while True:
+        states = [(await http.get(f"/v1/renders/{j}")).json()["state"] for j in jobs]
+        if states == ["running"] * count:
+            return long, jobs
+        if time.monotonic() > deadline:
+            raise RuntimeError(f"{count} long render(s) did not start within 30 s")
+        await asyncio.sleep(0.05)
+
+
+async def run_burst(
+    url: str,
+    *,
+    requests: int,
+    concurrency: int,
+    token: str | None,
+    server_pid: int | None,
+) -> dict:
+    """A burst of ``requests`` status reads from ``concurrency`` clients, one render running."""
+    headers = {"Authorization": f"Bearer {token}"} if token else {}
+    async with httpx.AsyncClient(base_url=url, headers=headers, timeout=120) as http:
+        long, jobs = await _start_long_render(http, 1)
+        path = f"/v1/renders/{jobs[0]}"
+        clients = [RawPoller(url, path, token) for _ in range(concurrency)]
+        latencies: list[float] = []
+        errors: list[int] = []
+        left = [requests]
+
+        async def client_loop(client: RawPoller) -> None:
+            while left[0] > 0:
+                left[0] -= 1
+                t = time.perf_counter()
+                status = await client.get()
+                latencies.append((time.perf_counter() - t) * 1000)
+                if status != 200:
+                    errors.append(status)
+
+        server_cpu0 = cpu_seconds(server_pid) if server_pid else None
+        wall0 = time.perf_counter()
+        await asyncio.gather(*(client_loop(c) for c in clients))
+        wall = time.perf_counter() - wall0
+        server_cpu = (
+            cpu_seconds(server_pid) - server_cpu0
+            if server_pid and server_cpu0 is not None
+            else None
+        )
+        for c in clients:
+            await c.close()
+        state = (await http.get(path)).json()["state"]
+        await http.delete(path)
+        await http.delete(f"/v1/stems/{long['id']}")
+    return {
+        "burst": {
+            "requests": len(latencies),
+            "clients": concurrency,
+            "window_s": round(wall, 3),
+            "rate_per_s": round(len(latencies) / wall, 1),
+            "non_200": len(errors),
+            "get_ms": percentiles(latencies),
+            "render_running_at_end": state == "running",
+            "api_process_cpu_share": None if server_cpu is None else round(server_cpu / wall, 3),
+        },
+        "clock_resolution_ms": time.get_clock_info("perf_counter").resolution * 1000,
+    }
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(
         prog="python -m earfold.service.tools.load_poll", description=__doc__.split("\n\n")[0]
@@ -258,9 +345,28 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--trials", type=int, default=10, help="submit-to-running trials")
     p.add_argument("--in-step", action="store_true", help="start all pollers together")
     p.add_argument("--token")
+    p.add_argument(
+        "--burst",
+        type=int,
+        metavar="N",
+        help="instead: N status reads at once from --concurrency clients, one render running",
+    )
+    p.add_argument("--concurrency", type=int, default=200, help="clients of --burst")
     args = p.parse_args(argv)
+    if args.burst is not None and not (0 < args.burst <= 100_000 and 0 < args.concurrency <= 1000):
+        p.error("--burst must be 1 to 100000 and --concurrency 1 to 1000")
 
     def go(url: str, pid: int | None) -> dict:
+        if args.burst is not None:
+            return asyncio.run(
+                run_burst(
+                    url,
+                    requests=args.burst,
+                    concurrency=args.concurrency,
+                    token=args.token,
+                    server_pid=pid,
+                )
+            )
         return asyncio.run(
             run(
                 url,
