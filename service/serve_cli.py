@@ -179,6 +179,11 @@ def add_serve_parser(subparsers: argparse._SubParsersAction) -> None:
         "--max-hrtf-mb", type=positive(float), help="largest SOFA upload, else 413 (default 256)"
     )
     p.add_argument(
+        "--max-json-mb",
+        type=positive(float),
+        help="largest JSON request body, else 413 (default 2)",
+    )
+    p.add_argument(
         "--retention-hours",
         type=positive(float),
         help="delete stems and renders after this long (default 168)",
@@ -210,6 +215,7 @@ def settings_from_args(args: argparse.Namespace) -> ServiceSettings:
         "max_channels": args.max_channels,
         "max_duration_s": args.max_duration_hours and args.max_duration_hours * 3600,
         "max_hrtf_bytes": args.max_hrtf_mb and int(args.max_hrtf_mb * 2**20),
+        "max_json_bytes": args.max_json_mb and int(args.max_json_mb * 2**20),
         "retention_s": args.retention_hours and args.retention_hours * 3600,
         "lease_s": args.lease_seconds,
         "tick_s": args.tick_seconds,

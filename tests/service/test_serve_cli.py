@@ -47,11 +47,14 @@ def test_limit_options_reach_the_settings(tmp_path, monkeypatch):
             "10",
             "--retention-hours",
             "2",
+            "--max-json-mb",
+            "0.5",
         )
     )
     assert (s.max_upload_bytes, s.max_channels, s.max_duration_s) == (2 * 10**9, 24, 1800.0)
     assert (s.max_hrtf_bytes, s.max_queued, s.min_free_bytes) == (64 * 2**20, 7, 10 * 2**20)
     assert s.retention_s == 7200.0
+    assert s.max_json_bytes == 2**19
 
 
 def test_limits_must_be_positive(capsys):
