@@ -10,7 +10,7 @@ from anyio import to_thread
 from fastapi import APIRouter, Depends, Request, Response
 
 from earfold.renderer.errors import AudioError
-from earfold.renderer.io import probe_stem
+from earfold.renderer.io import probe_stem, scan_stem
 from earfold.renderer.layouts import labels_from_filenames, labels_from_mask, suggest_layout
 
 from ..auth import current_owner
@@ -126,6 +126,12 @@ def _probe(
     if not several and stem.channel_mask:
         labels = labels_from_mask(stem.channel_mask, stem.channels)
         source = "WAV channel mask" if labels else None
+    if stem.subtype in ("FLOAT", "DOUBLE"):
+        # Integer PCM cannot hold NaN or infinity; a float stem is read once, in blocks, so
+        # that a bad sample is refused now, named, rather than when a render meets it.
+        bad = scan_stem(stem, labels=labels)
+        if bad is not None:
+            raise Problem(UNPROCESSABLE, _user_message(bad.message, names))
     layout = suggest_layout(stem.channels, labels)
     if layout is None and labels is not None:
         layout = suggest_layout(stem.channels)

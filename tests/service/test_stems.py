@@ -115,6 +115,24 @@ def test_mismatched_mono_files_are_422(client, tmp_path):
     assert _tmp_is_empty(client)
 
 
+def test_nan_in_a_float_upload_is_refused_naming_file_channel_and_frame(client, tmp_path):
+    # A NaN used to be found only when a render met it, in the scratch render, and the
+    # message named the server's scratch file.
+    import numpy as np
+    import soundfile  # our own writer refuses NaN, so the test writes the file directly
+
+    data = np.zeros((4800, 6), dtype=np.float32)
+    data[2400, 4] = np.nan
+    path = tmp_path / "take 3.wav"
+    soundfile.write(path, data, FS, subtype="FLOAT")
+    body = _problem(client.post("/v1/stems", files=files_field([path])), 422, "take 3.wav")
+    assert "channel 5" in body["detail"] and "frame 2400" in body["detail"]
+    assert "NaN" in body["detail"]
+    assert str(client.app.state.storage.root) not in body["detail"]
+    assert client.get("/v1/stems").json() == []
+    assert _tmp_is_empty(client)
+
+
 def test_channel_and_duration_limits_are_422(make_client, tmp_path):
     client = make_client(max_channels=8, max_duration_s=0.5)
     wide = write_stem(tmp_path / "wide.wav", 480, 12)
