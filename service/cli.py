@@ -290,7 +290,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         print("earfold: terminated; no partial output was kept", file=sys.stderr)
         return EXIT_TERMINATED
     except KeyboardInterrupt:
-        print("earfold: interrupted; no partial output was kept", file=sys.stderr)
+        if args.command in ("serve", "worker"):  # a server stopped by Ctrl-C: its usual end
+            print("earfold: stopped", file=sys.stderr)
+        else:
+            print("earfold: interrupted; no partial output was kept", file=sys.stderr)
         return EXIT_INTERRUPTED
 
 

@@ -143,3 +143,23 @@ def test_bind_socket_names_the_problem():
             bind_socket("127.0.0.1", port)
     with pytest.raises(PortUnavailable, match="cannot listen on 192.0.2.1"):
         bind_socket("192.0.2.1", 0)  # TEST-NET-1 (RFC 5737): never this machine's address
+
+
+def test_ctrl_c_stops_the_server_with_a_line_of_its_own(tmp_path):
+    # Ctrl-C ended `serve` with the render's "no partial output was kept".
+    proc = _serve("--port", "0", data_dir=tmp_path / "data")
+    try:
+        assert proc.stderr is not None
+        assert "earfold serving" in proc.stderr.readline()
+        proc.send_signal(signal.SIGINT)
+        rest = proc.stderr.read()
+        proc.wait(20)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+        if proc.stderr is not None:
+            proc.stderr.close()
+    assert "Traceback" not in rest
+    assert "no partial output" not in rest
+    assert [line for line in rest.splitlines() if line.strip()] in ([], ["earfold: stopped"])
