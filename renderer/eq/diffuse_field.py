@@ -382,30 +382,8 @@ def equalised(hset: HrirSet) -> tuple[HrirSet, dict[str, Any]]:
     # The lookups run on a twin of the original set (same arrays, own caches), not on the
     # set itself: the set caches the equalised set, and a reference back would make a
     # cycle that keeps both alive until the cyclic garbage collector runs.
-    lookup = HrirSet(
-        name=hset.name,
-        samplerate=hset.samplerate,
-        ir=hset.ir,
-        directions=hset.directions,
-        source=hset.source,
-        sha256=hset.sha256,
-        convention=hset.convention,
-        room_type=hset.room_type,
-        dropped=hset.dropped,
-    )
-    eq_set = EqualisedHrirSet(
-        raw=lookup,
-        fir=fir,
-        name=hset.name,
-        samplerate=hset.samplerate,
-        ir=ir,
-        directions=hset.directions,
-        source=hset.source,
-        sha256=hset.sha256,
-        convention=hset.convention,
-        room_type=hset.room_type,
-        dropped=hset.dropped,
-    )
+    lookup = hset.derived()
+    eq_set = EqualisedHrirSet(raw=lookup, fir=fir, **{**hset.field_values(), "ir": ir})
     summary = {
         "weighting": df.weighting,
         "capped_cells": df.capped,

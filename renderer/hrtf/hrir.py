@@ -23,7 +23,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from fractions import Fraction
 from pathlib import Path
 from typing import Any
@@ -221,17 +221,7 @@ class HrirSet:
         # per unit time, so scale by old rate / new rate.
         ir = signal.resample_poly(self.ir, ratio.numerator, ratio.denominator, axis=-1)
         ir *= self.samplerate / samplerate
-        return HrirSet(
-            name=self.name,
-            samplerate=float(samplerate),
-            ir=ir,
-            directions=self.directions,
-            source=self.source,
-            sha256=self.sha256,
-            convention=self.convention,
-            room_type=self.room_type,
-            warnings=self.warnings,
-        )
+        return self.derived(samplerate=float(samplerate), ir=ir)
 
     # -- lookup -------------------------------------------------------------------------
 
@@ -273,20 +263,18 @@ class HrirSet:
         error = float(angle_between(d, self.directions[nearest]))
         return HrirPair(self.ir[nearest].copy(), "nearest", (nearest,), (1.0,), error)
 
+    def field_values(self) -> dict[str, Any]:
+        """The set's fields (name, rate, responses, directions, metadata), caches left out."""
+        return {f.name: getattr(self, f.name) for f in fields(HrirSet) if f.name != "_cache"}
+
+    def derived(self, **changes: Any) -> HrirSet:
+        """A plain set like this one with ``changes``, and caches of its own."""
+        return HrirSet(**{**self.field_values(), **changes})
+
     def without(self, index: int) -> HrirSet:
         """A copy with one measurement removed (for leave-one-out tests)."""
         keep = np.arange(self.measurements) != index
-        return HrirSet(
-            name=self.name,
-            samplerate=self.samplerate,
-            ir=self.ir[keep],
-            directions=self.directions[keep],
-            source=self.source,
-            sha256=self.sha256,
-            convention=self.convention,
-            room_type=self.room_type,
-            warnings=self.warnings,
-        )
+        return self.derived(ir=self.ir[keep], directions=self.directions[keep])
 
     def itd(self, index: int) -> float:
         """Interaural time difference of measurement ``index`` in seconds (left leads > 0)."""

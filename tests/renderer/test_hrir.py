@@ -171,3 +171,19 @@ def test_leave_one_out_interpolation_beats_nearest_neighbour_on_kemar(record_pro
         f"interpolated {mean_i:.2f} dB, nearest neighbour {mean_n:.2f} dB"
     )
     assert mean_i < mean_n
+
+
+def test_derived_sets_keep_every_field_and_get_caches_of_their_own():
+    # The resampled copy used to drop ``dropped``, the equalised copy the reader's
+    # warnings: each copy listed the fields by hand.
+    from earfold.renderer.eq import equalised
+
+    base = load_hrir_set(get_shipped("rigid-sphere").path, 48000.0)
+    odd = base.derived(dropped=3, warnings=("an odd set",))
+    resampled = odd.resampled(44100.0)
+    eq_set, _ = equalised(odd)
+    for copy in (resampled, eq_set, odd.without(0)):
+        assert copy.dropped == 3 and copy.warnings == ("an odd set",)
+        assert (copy.name, copy.sha256, copy.room_type) == (base.name, base.sha256, base.room_type)
+        assert copy._cache is not odd._cache
+    assert resampled.samplerate == 44100.0 and odd.samplerate == 48000.0
