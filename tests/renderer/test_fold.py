@@ -11,8 +11,13 @@ from earfold.renderer.errors import OptionError
 from earfold.renderer.io import read_audio, write_audio
 from earfold.renderer.layouts import LAYOUTS
 from earfold.renderer.loudness import measure_file
-from earfold.renderer.render import RenderSettings, render, settings_from_options
-from earfold.renderer.render.fold import BS775_DOWNMIX, fold_coefficients
+from earfold.renderer.render import (
+    BS775_DOWNMIX,
+    RenderSettings,
+    fold_coefficients,
+    render,
+    settings_from_options,
+)
 
 FS = 48000
 K = 0.7071  # -3 dB as ITU-R BS.775 writes it
