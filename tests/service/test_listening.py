@@ -232,3 +232,102 @@ def test_a_client_that_goes_away_ends_its_stream(live, tmp_path):
         started = time.monotonic()
         assert http.get(f"/v1/renders/{job['id']}").status_code == 200
         assert time.monotonic() - started < 1.0
+
+
+# -- signed listen links -------------------------------------------------------------------
+
+
+def _done_render(client, tmp_path, headers=None, frames=FS // 5, fmt="wav", name="take.wav"):
+    from earfold.service.jobs.worker import Worker
+
+    path = write_stem(tmp_path / name, frames, 2)
+    stem = client.post("/v1/stems", files=files_field([path]), headers=headers).json()
+    body = {"stem_id": stem["id"], "layout": "2.0", "format": fmt}
+    if fmt == "flac":
+        body["subtype"] = "PCM_24"
+    job = client.post("/v1/renders", json=body, headers=headers).json()
+    Worker(client.app.state.settings, queue=client.app.state.queue, name="w").run(once=True)
+    done = client.get(f"/v1/renders/{job['id']}", headers=headers).json()
+    assert done["state"] == "done", done
+    return done
+
+
+ALICE = {"Authorization": "Bearer alice-token"}
+BOB = {"Authorization": "Bearer bob-token"}
+
+
+def test_listen_link_opens_the_audio_without_the_header(make_client, tmp_path):
+    client = make_client(tokens=("alice-token", "bob-token"), **FAST)
+    render = _done_render(client, tmp_path, ALICE)
+    before = time.time()
+    resp = client.post(f"/v1/renders/{render['id']}/listen", headers=ALICE)
+    assert resp.status_code == 200, resp.text
+    link = resp.json()
+    assert link["url"].startswith(f"/v1/renders/{render['id']}/audio?key=")
+    expires = time.mktime(time.strptime(link["expires"], "%Y-%m-%dT%H:%M:%SZ")) - time.timezone
+    assert before + 6 * 3600 - 2 <= expires <= time.time() + 6 * 3600 + 1  # valid 6 h
+
+    whole = client.get(render["links"]["audio"], headers=ALICE)
+    by_key = client.get(link["url"])  # no Authorization header
+    assert by_key.status_code == 200 and by_key.content == whole.content
+    # Range requests work through the key as well (the player streams and seeks).
+    part = client.get(link["url"], headers={"Range": "bytes=100-199"})
+    assert part.status_code == 206 and part.content == whole.content[100:200]
+    # The same key follows the render's events (a finished render: one event, then the end).
+    events = client.get(f"/v1/renders/{render['id']}/events?key={link['url'].split('=')[1]}")
+    assert events.status_code == 200
+    assert [v["state"] for _, v in _events(events.text.splitlines())] == ["done"]
+
+    _problem(client.get(render["links"]["audio"]), 401, "API token")  # no key, no header
+    # Bob cannot have a link made for Alice's render.
+    _problem(client.post(f"/v1/renders/{render['id']}/listen", headers=BOB), 404, render["id"])
+    secret = client.app.state.storage.root / "secret"
+    assert secret.stat().st_mode & 0o777 == 0o600
+
+
+def test_listen_link_refused_when_expired_altered_or_for_another_render(make_client, tmp_path):
+    from earfold.service.signed_links import LinkSigner
+
+    client = make_client(tokens=("alice-token",), **FAST)
+    now = [time.time()]
+    client.app.state.signer = LinkSigner(client.app.state.storage.root, clock=lambda: now[0])
+    first = _done_render(client, tmp_path, ALICE, name="a.wav")
+    second = _done_render(client, tmp_path, ALICE, name="b.wav")
+    url = client.post(f"/v1/renders/{first['id']}/listen", headers=ALICE).json()["url"]
+    key = url.split("key=")[1]
+    expiry, mac = key.split(".")
+    assert client.get(url).status_code == 200
+
+    # Another render: the key names the render it was made for.
+    _problem(client.get(f"/v1/renders/{second['id']}/audio?key={key}"), 401, "does not open")
+    # Altered: one digit of the MAC, or a later expiry with the old MAC.
+    flipped = mac[:-1] + ("0" if mac[-1] != "0" else "1")
+    _problem(
+        client.get(f"/v1/renders/{first['id']}/audio?key={expiry}.{flipped}"), 401, "does not open"
+    )
+    later = int(expiry) + 3600
+    _problem(client.get(f"/v1/renders/{first['id']}/audio?key={later}.{mac}"), 401, "does not open")
+    _problem(client.get(f"/v1/renders/{first['id']}/audio?key=garbage"), 401, "malformed")
+    # Expired: six hours and a second later.
+    now[0] += 6 * 3600 + 1
+    _problem(client.get(url), 401, "expired")
+
+
+def test_listen_link_secret_is_shared_by_apps_of_one_data_dir(make_client, tmp_path):
+    one = make_client(**FAST)
+    render = _done_render(one, tmp_path)
+    url = one.post(f"/v1/renders/{render['id']}/listen").json()["url"]
+    other = make_client()  # a second API process on the same data directory
+    assert other.get(url).status_code == 200
+    _problem(one.post(f"/v1/renders/{'0' * 32}/listen"), 404, "0" * 32)
+
+
+def test_all_renders_key_opens_each_of_the_owners_renders(make_client, tmp_path):
+    client = make_client(tokens=("alice-token", "bob-token"), **FAST)
+    render = _done_render(client, tmp_path, ALICE)
+    link = client.post("/v1/renders/events/link", headers=ALICE).json()
+    assert link["url"].startswith("/v1/renders/events?key=")
+    key = link["url"].split("key=")[1]
+    assert client.get(f"/v1/renders/{render['id']}/audio?key={key}").status_code == 200
+    bobs = client.post("/v1/renders/events/link", headers=BOB).json()["url"].split("key=")[1]
+    _problem(client.get(f"/v1/renders/{render['id']}/audio?key={bobs}"), 401, "does not open")
