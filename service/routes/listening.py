@@ -34,7 +34,7 @@ from ..auth import ANONYMOUS, owner_for, owner_of
 from ..jobs import Job, JobNotFound, JobState, QueueUnavailable
 from ..jobs.worker import COMPARISON_KIND, output_paths
 from ..problems import CONFLICT, NOT_FOUND, UNAUTHORIZED, UNPROCESSABLE, Problem, problem_responses
-from ..signed_links import ALL_RENDERS, LinkSigner
+from ..signed_links import ALL_RENDERS, render_owner, signer
 from .renders import _done, _job, queue_position, render_view
 
 router = APIRouter(prefix="/v1/renders", tags=["listening"])
@@ -65,32 +65,6 @@ _NO_BUFFERING = {"Cache-Control": "no-cache", "X-Accel-Buffering": "no"}
 
 
 # -- who is asking --------------------------------------------------------------------
-
-
-def signer(request: Request) -> LinkSigner:
-    """The app's link signer (one per app, on the data directory's secret)."""
-    found = getattr(request.app.state, "signer", None)
-    if found is None:
-        found = request.app.state.signer = LinkSigner(request.app.state.storage.root)
-    return found
-
-
-def render_owner(request: Request, render_id: str, key: str | None) -> str:
-    """The caller's owner id for ``render_id``: from a signed ``key`` made for that
-    render, or else from the ``Authorization`` header (401 problems otherwise)."""
-    if key is None:
-        return owner_for(request.app.state.settings.tokens, request.headers.get("authorization"))
-    try:
-        job = request.app.state.queue.get(render_id) if len(render_id) == 32 else None
-    except JobNotFound:
-        job = None
-    if job is None or job.payload.get("kind") == COMPARISON_KIND:
-        raise Problem(NOT_FOUND, f"no render with id {render_id!r}")
-    try:
-        return signer(request).check(key, render_id, [job.owner])
-    except Problem:
-        # A key for all of the owner's renders (POST /v1/renders/events/link) opens each.
-        return signer(request).check(key, ALL_RENDERS, [job.owner])
 
 
 def _token_owners(request: Request) -> list[str]:

@@ -375,3 +375,40 @@ def test_window_out_of_range_is_422(make_client, tmp_path):
     assert client.get(f"{base}?start=0&seconds=0").status_code == 422
     assert client.get(f"{base}?start=-1&seconds=1").status_code == 422
     _problem(client.get(f"/v1/renders/{'0' * 32}/window?seconds=1"), 404, "0" * 32)
+
+
+# -- stem levels ---------------------------------------------------------------------------
+
+
+def test_stem_levels_measured_at_upload_and_for_old_stems_on_request(client, tmp_path):
+    import math
+
+    import numpy as np
+
+    from earfold.renderer.io import write_audio
+
+    t = np.arange(FS) / FS
+    data = np.stack([0.5 * np.sin(2 * np.pi * 1200 * t), np.zeros_like(t)], axis=1)
+    path = tmp_path / "tone.wav"
+    write_audio(path, data.astype(np.float32), FS, subtype="FLOAT")
+    stem = client.post("/v1/stems", files=files_field([path])).json()
+    folder = client.app.state.storage.path("stems", stem["id"])
+    assert (folder / "levels.json").is_file()  # measured at upload, beside the stem
+
+    resp = client.get(f"/v1/stems/{stem['id']}/levels")
+    assert resp.status_code == 200, resp.text
+    levels = resp.json()
+    assert (levels["frames"], levels["sample_rate"], levels["points"]) == (FS, FS, 240)
+    left, right = levels["channels"]
+    assert (left["index"], left["label"], right["label"]) == (0, "L", "R")
+    # a sine of amplitude 0.5: peak 20 log10 0.5, RMS 20 log10 (0.5 / sqrt 2) (textbook)
+    assert left["peak_dbfs"] == pytest.approx(20 * math.log10(0.5), abs=0.01)
+    assert left["rms_dbfs"] == pytest.approx(20 * math.log10(0.5 / math.sqrt(2)), abs=0.01)
+    assert left["low_share"] == pytest.approx(0.0, abs=0.001) and len(left["overview"]) == 240
+    assert right["peak_dbfs"] is None and right["low_share"] is None  # silent: null
+
+    # A stem stored before levels existed: measured on the first request, then kept.
+    (folder / "levels.json").unlink()
+    again = client.get(f"/v1/stems/{stem['id']}/levels").json()
+    assert again == levels and (folder / "levels.json").is_file()
+    _problem(client.get(f"/v1/stems/{'0' * 32}/levels"), 404, "0" * 32)
