@@ -412,3 +412,20 @@ def test_stem_levels_measured_at_upload_and_for_old_stems_on_request(client, tmp
     again = client.get(f"/v1/stems/{stem['id']}/levels").json()
     assert again == levels and (folder / "levels.json").is_file()
     _problem(client.get(f"/v1/stems/{'0' * 32}/levels"), 404, "0" * 32)
+
+
+# -- the report page -----------------------------------------------------------------------
+
+
+def test_report_page_is_served_when_installed_and_404_otherwise(client, tmp_path, monkeypatch):
+    from earfold.service.routes import pages
+
+    monkeypatch.setattr(pages, "STATIC_DIR", tmp_path)
+    rid = "ab" * 16
+    _problem(client.get(f"/report/{rid}"), 404, "'report.html' is not installed")
+    (tmp_path / "report.html").write_text("<!doctype html><title>report</title>")
+    resp = client.get(f"/report/{rid}")
+    assert resp.status_code == 200 and resp.headers["content-type"].startswith("text/html")
+    assert resp.text == "<!doctype html><title>report</title>"
+    assert resp.headers["cache-control"] == "no-cache"
+    _problem(client.get("/report/not-an-id"), 404, "no render 'not-an-id'")
