@@ -26,6 +26,7 @@ from typing import Any
 
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import StreamingResponse
+from pydantic import BaseModel, Field
 
 from earfold.renderer.errors import AudioError
 from earfold.renderer.io import StemReader, probe_stem
@@ -57,6 +58,14 @@ WINDOW_MAX_S = 120.0
 #: Frames per read when a window is streamed out: 512 KiB per block of float32 stereo,
 #: so memory depends on this, not on the window's length.
 WINDOW_BLOCK = 1 << 16
+
+
+class ListenLink(BaseModel):
+    """A signed address that works without the ``Authorization`` header."""
+
+    url: str = Field(description="the address with its ?key=, relative to the server")
+    expires: str = Field(description="when the key stops working (ISO 8601 UTC)")
+
 
 _STREAM: dict[int | str, dict[str, Any]] = {
     200: {"content": {"text/event-stream": {}}, "description": "an event stream"}
@@ -246,6 +255,7 @@ async def all_render_events(request: Request, key: str | None = _KEY) -> Streami
 @router.post(
     "/events/link",
     summary="A signed address of the all-renders event stream (for EventSource)",
+    response_model=ListenLink,
     responses=problem_responses(UNAUTHORIZED),
 )
 async def all_render_events_link(request: Request) -> dict:
@@ -278,6 +288,7 @@ async def render_events(
 @router.post(
     "/{render_id}/listen",
     summary="A signed audio address for <audio src> (valid 6 hours)",
+    response_model=ListenLink,
     responses=problem_responses(UNAUTHORIZED, NOT_FOUND, CONFLICT),
 )
 async def listen_link(render_id: str, request: Request) -> dict:
