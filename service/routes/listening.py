@@ -48,8 +48,9 @@ POLL_S = 0.25
 #: idle connection after 30-60 s (common practice); 15 s stays well inside that.
 KEEP_ALIVE_S = 15.0
 
-#: Finished renders an all-renders stream looks at on each poll, newest first, so that a
-#: render that was queued and finished between two polls still shows its final state.
+#: Renders an all-renders stream reads on each poll, newest first: new renders show up
+#: among them (one that was queued and finished between two polls included), so the
+#: owner's whole list is read only on the first poll or after a larger burst.
 RECENT = 20
 
 #: Longest window of audio one request returns (s).
@@ -163,7 +164,10 @@ async def _one_render(request: Request, job: Job) -> AsyncIterator[bytes | None]
             return None  # deleted meanwhile: the stream ends
         return render_view(found, queue_position(queue, found))
 
-    view: dict | None = await asyncio.to_thread(read, job.id)
+    try:
+        view: dict | None = await asyncio.to_thread(read, job.id)
+    except QueueUnavailable:
+        view = render_view(job)  # as the route read it a moment ago
     last = None
     while view is not None:
         if _mark(view) != last:
