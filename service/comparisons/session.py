@@ -30,6 +30,7 @@ from ..storage import META, Storage, write_json_atomic
 from .stats import binomial_p_at_least, binomial_p_two_sided, preference_counts
 
 __all__ = [
+    "ANSWER_CHOICES",
     "STATES",
     "SessionError",
     "answer",
@@ -43,6 +44,9 @@ __all__ = [
 ]
 
 STATES = ("preparing", "ready", "finished", "failed")
+
+#: The answers each design takes.
+ANSWER_CHOICES: dict[str, tuple[str, ...]] = {"ab": ("A", "B"), "abx": ("A", "B")}
 
 _LOCK = ".lock"
 
