@@ -31,7 +31,7 @@ from ..problems import (
     Problem,
     problem_responses,
 )
-from .renders import RenderRequest
+from .renders import RenderRequest, room_object
 
 __all__ = ["PresetRequest", "PresetView", "router", "settings_body"]
 
@@ -110,6 +110,8 @@ def settings_body(body: dict[str, Any]) -> dict[str, Any]:
         raise _body_errors(exc) from None
     if isinstance(model.layout, dict):
         _layout_object(model.layout, "body.layout")
+    if isinstance(model.room, dict):
+        room_object(model.room, "body.room")
     checked: dict[str, Any] = model.model_dump(mode="json", exclude_unset=True)
     checked.pop("stem_id", None)
     # What the model cannot say (a power of two), as the worker will check it.
