@@ -175,3 +175,42 @@ def test_an_unknown_choice_is_still_refused(client, tmp_path):
     cid = _create(client, stem["id"], DIFFERENT).json()["id"]
     r = client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "neither"})
     assert r.status_code == 422
+
+
+def test_list_items_carry_the_stem_and_the_variants_in_words(client, tmp_path):
+    stem = _stem(client, tmp_path)
+    variants = [
+        {"layout": "5.1", "name": "plain"},
+        {"layout": "5.1", "lfe_gain": 4, "room": "small", "name": "hot"},
+    ]
+    cid = _create(client, stem["id"], variants).json()["id"]
+    other = _stem(client, tmp_path, name="second-take.wav")
+    _create(client, other["id"], DIFFERENT)
+    listed = client.get("/v1/comparisons").json()
+    assert len(listed) == 2
+    item = next(c for c in listed if c["id"] == cid)
+    assert item["stem_id"] == stem["id"] and item["stem_name"] == "harbour-walk.wav"
+    assert [v["name"] for v in item["variants"]] == ["plain", "hot"]
+    assert [v["summary"] for v in item["variants"]] == ["5.1", "5.1, room small, lfe_gain 4 dB"]
+    assert item["variants"][1]["settings"] == {"layout": "5.1", "room": "small", "lfe_gain": 4.0}
+    assert {c["stem_id"] for c in listed} == {stem["id"], other["id"]}
+    # the single view says the same
+    assert client.get(f"/v1/comparisons/{cid}").json()["variants"] == item["variants"]
+
+
+def test_variant_summaries_of_objects_and_uploads():
+    from earfold.service.comparisons.summary import variant_summary
+
+    room = {"name": "boat-shed", "dimensions": [8.2, 4.6, 3.6], "rt60": 0.4}
+    layout = {"name": "trio", "speakers": [{"label": x} for x in "LRC"]}
+    text = variant_summary(
+        {"layout": layout, "room": room, "headphone_eq": "a" * 32, "hrtf": "b" * 32}
+    )
+    assert text == (
+        "custom layout 'trio' (3 speakers), HRTF set (uploaded), "
+        "room 'boat-shed' 8.2 x 4.6 x 3.6 m, headphone EQ (uploaded)"
+    )
+    bands = [{"type": "peaking", "frequency": 1000.0}]
+    assert (
+        variant_summary({"headphone_eq": bands, "eq": "none"}) == "eq none, headphone EQ (1 band)"
+    )
