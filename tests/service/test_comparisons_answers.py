@@ -129,6 +129,18 @@ def test_abx_stays_a_forced_choice(make_client, tmp_path):
         ([{"layout": "5.1"}, {"layout": "5.1", "block_size": 4096}], 1, 2),
         # the room mode does nothing without a room; the default HRTF set by its name
         ([{"layout": "5.1"}, {"layout": "5.1", "room_mode": "exact", "hrtf": "MIT-KEMAR"}], 1, 2),
+        # without a room the seed draws nothing (comparison renders are float, undithered)
+        ([{"layout": "5.1"}, {"layout": "5.1", "seed": 7}], 1, 2),
+        # the stereo fold-down uses no HRTF set, room or LFE
+        (
+            [
+                {"layout": "5.1", "fold": "stereo"},
+                {"layout": "5.1", "fold": "stereo", "room": "small", "hrtf": "rigid-sphere"},
+                {"layout": "5.1", "fold": "stereo", "lfe_gain": 0, "eq": "none"},
+            ],
+            1,
+            2,
+        ),
         # the suggested layout left out is the layout named
         ([{"room": "small"}, {"layout": "5.1"}, {"layout": "5.1", "room": "small"}], 1, 3),
     ],
@@ -148,6 +160,17 @@ def test_variants_that_render_identically_are_refused_naming_both(
     assert fields == [f"variants.{first - 1}", f"variants.{second - 1}"]
     assert client.app.state.queue.counts().get("queued", 0) == 0
     assert client.get("/v1/comparisons").json() == []
+
+
+def test_what_does_change_the_sound_is_let_through(client, tmp_path):
+    stem = _stem(client, tmp_path)
+    for variants in (
+        [{"layout": "5.1", "room": "small"}, {"layout": "5.1", "room": "small", "seed": 7}],
+        [{"layout": "5.1"}, {"layout": "5.1", "fold": "stereo"}],
+        [{"layout": "5.1", "fold": "stereo"}, {"layout": "5.1", "fold": "stereo", "solo": "C"}],
+    ):
+        resp = _create(client, stem["id"], variants)
+        assert resp.status_code == 202, (variants, resp.text)
 
 
 def test_lfe_options_count_only_where_the_layout_has_an_lfe(client, tmp_path):
