@@ -247,3 +247,16 @@ def test_a_comparison_of_a_room_object_and_an_uploaded_eq_builds(make_client, tm
         "2.0, room 'garden-shed-booth' 3.4 x 2.6 x 2.3 m",
         "2.0, headphone EQ cans-ir.wav",
     ]
+
+
+def test_an_owner_keeps_at_most_max_files(client, monkeypatch):
+    from earfold.service.routes import headphone_eq
+
+    monkeypatch.setattr(headphone_eq, "MAX_FILES", 2)
+    data = json.dumps(BANDS).encode()
+    assert _upload(client, "a.json", data).status_code == 201
+    assert _upload(client, "b.json", data).status_code == 201
+    r = _upload(client, "c.json", data)
+    assert r.status_code == 409 and "2 headphone EQ files" in r.json()["detail"]
+    assert len(client.get("/v1/headphone-eq").json()) == 2
+    assert list((client.app.state.storage.root / "tmp").iterdir()) == []
