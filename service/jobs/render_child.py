@@ -180,6 +180,7 @@ def _run(spec: dict, names: dict[str, str], progress: Any) -> int:
                 "clipped_samples": out["clipped_samples"],
                 "x_real_time": report["timings_s"]["x_real_time"],
                 "warnings": list(report["warnings"]),
+                "notes": list(report.get("notes", [])),
             }
         }
     )

@@ -216,6 +216,8 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
             resolve_channel_order(layout, req.channel_order)
         elif stem.get("labels_source") == "file names" and stem.get("channel_labels"):
             resolve_channel_order(layout, stem["channel_labels"])
+        if getattr(req, "solo", None):
+            layout.index(req.solo)  # an unknown label: 422 now, not a failed job later
     except LayoutError as exc:
         raise Problem(UNPROCESSABLE, str(exc)) from None
     try:

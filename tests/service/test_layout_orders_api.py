@@ -92,3 +92,9 @@ def test_http_render_with_fold_stereo_and_solo(client, tmp_path):
     assert len(report["notes"]) == 1 and report["notes"][0].startswith("solo 'Ls': the loudness")
     bad = client.post("/v1/renders", json={**body, "fold": "mono"})
     assert bad.status_code == 422
+    # The render view's result carries the notes, so the desk can show them plainly.
+    assert done["result"]["notes"] == report["notes"]
+    # A solo label the layout does not have is refused before queueing, naming the labels.
+    unknown = client.post("/v1/renders", json={**body, "solo": "Ltf"})
+    assert unknown.status_code == 422, unknown.text
+    assert "Ls" in unknown.json()["detail"] and "Ltf" in unknown.json()["detail"]
