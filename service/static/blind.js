@@ -44,20 +44,32 @@ function stemName(stem) {
   return files.length ? files[0].name + (files.length > 1 ? ` + ${files.length - 1}` : "") : stem.id.slice(0, 8);
 }
 
-/** A short, readable summary of a render request: the options that shape the sound. */
-export function describeRequest(req, soundOptions) {
-  const keys = soundOptions && soundOptions.length ? soundOptions : Object.keys(req);
-  const parts = [];
-  for (const key of keys) {
-    const v = req[key];
-    if (v === null || v === undefined || key === "stem_id" || key === "name") continue;
-    if (key === "layout") parts.unshift(typeof v === "object" ? `layout ${v.name || "custom"}` : v);
-    else if (key === "room") parts.push(typeof v === "object" ? `room ${v.name || "custom"}` : `room ${v}`);
-    else if (key === "hrtf") parts.push(`HRTF ${String(v).length === 32 ? v.slice(0, 8) : v}`);
-    else if (typeof v === "object") parts.push(`${key.replaceAll("_", " ")}: ${Array.isArray(v) ? `${v.length} items` : "custom"}`);
-    else parts.push(`${key.replaceAll("_", " ")} ${v}`);
-  }
-  return parts.join(" · ");
+function describeValue(key, v) {
+  if (key === "layout") return typeof v === "object" ? `layout ${v.name || "custom"}` : String(v);
+  if (key === "room") return typeof v === "object" ? `room ${v.name || "custom"}` : v === "none" ? "no room" : `room ${v}`;
+  if (key === "hrtf") return `HRTF ${String(v).length === 32 ? `upload ${v.slice(0, 8)}` : v}`;
+  if (typeof v === "object") return `${key.replaceAll("_", " ")} ${Array.isArray(v) ? `(${v.length})` : "custom"}`;
+  return `${key.replaceAll("_", " ")} ${v}`;
+}
+
+/**
+ * Short summaries of renders that tell them apart: the layout, then each sound-shaping
+ * option whose value differs between the renders (the rest is common to all of them).
+ */
+export function describeRenders(renders, soundOptions) {
+  const keys = (soundOptions && soundOptions.length ? soundOptions
+    : [...new Set(renders.flatMap((r) => Object.keys(r.request)))]).filter((k) => k !== "stem_id" && k !== "name");
+  const differs = keys.filter((k) => new Set(renders.map((r) => JSON.stringify(r.request[k] ?? null))).size > 1);
+  return renders.map((r) => {
+    const parts = [];
+    if (r.request.layout !== undefined && r.request.layout !== null) parts.push(describeValue("layout", r.request.layout));
+    for (const k of differs) {
+      const v = r.request[k];
+      if (k === "layout" || v === null || v === undefined) continue;
+      parts.push(describeValue(k, v));
+    }
+    return parts.join(" · ") || "defaults";
+  });
 }
 
 /** Link blind.css once (the desk's page does not know this tab's styles). */
@@ -82,7 +94,7 @@ export function mountBlindTests(root) {
       el("span", { class: "spacer" }),
       el("button", { type: "button", class: "btn btn-quiet btn-small", id: "blind-refresh", onclick: () => refreshList() }, "refresh")),
     listBody);
-  root.replaceChildren(formBox, listBox);
+  root.replaceChildren(listBox, formBox);
   root.classList.add("blind-tests");
 
   function options() {
@@ -206,11 +218,16 @@ export function mountBlindTests(root) {
       return;
     }
     const soundOptions = limits.variant_options || [];
+    const summaries = describeRenders(state.renders, soundOptions);
+    // Renders whose sound-shaping options are all alike: the API refuses them as a pair.
+    const soundKey = (r) => JSON.stringify(soundOptions.map((k) => r.request[k] ?? null));
+    const keyCount = new Map();
+    for (const r of state.renders) keyCount.set(soundKey(r), (keyCount.get(soundKey(r)) || 0) + 1);
     const form = el("form", { id: "blind-form", novalidate: true });
     // Variants: one checkbox per finished render, with a name for the results.
     const list = el("div", { class: "blind-variants", role: "group", "aria-labelledby": "blind-variants-label" });
     state.renders.forEach((r, i) => {
-      const summary = describeRequest(r.request, soundOptions) || "defaults";
+      const summary = summaries[i];
       const id = `blind-pick-${r.id}`;
       const box = el("input", { type: "checkbox", id, value: r.id, "data-render": r.id });
       box.checked = state.picked.has(r.id);
@@ -218,9 +235,11 @@ export function mountBlindTests(root) {
       const name = el("input", { type: "text", class: "variant-name", maxlength: 64, value: summary.slice(0, 64),
         "aria-label": `Name of variant ${summary} in the results`, "data-render": r.id });
       list.append(el("div", { class: "blind-variant" },
-        el("label", { for: id }, box, " ", el("span", {}, summary), el("span", { class: "hint" }, ` · ${when(r.finished || r.created)}`)),
+        el("label", { for: id }, box, " ", el("span", {}, summary), el("span", { class: "hint" }, ` · ${when(r.finished || r.created)}`),
+          keyCount.get(soundKey(r)) > 1 ? el("span", { class: "chip note same-sound", title:
+            "Another finished render has the same sound-shaping settings (they differ only in level or file format): comparing the two measures nothing." },
+          "same sound as another") : null),
         name));
-      if (i === 0 && !state.picked.size) { /* nothing preselected: the user picks */ }
     });
     const designs = limits.designs || [];
     const designBox = el("div", { class: "blind-designs", role: "radiogroup", "aria-labelledby": "blind-design-label" });
@@ -347,7 +366,7 @@ export function mountBlindTests(root) {
   bus.on("compare-renders", ({ renderIds }) => {
     state.preselect = [...(renderIds || [])];
     bus.emit("tab-select", { name: "blind" });
-    refreshRenders();
+    refreshRenders().then(() => formBox.scrollIntoView({ block: "start" }));
   });
 
   renderForm();

@@ -115,6 +115,8 @@ def test_identical_variants_are_refused_with_the_apis_message(page, live_server,
     r = setup["renders"]
     open_blind_tab(page, live_server, setup["pier-dawn.wav"])
     page.wait_for_selector("#blind-form")
+    # The form already marks the two renders whose sound-shaping settings are alike.
+    assert page.locator("#blind-form .same-sound").count() == 2
     page.locator(f"#blind-form input[type=checkbox][data-render='{r['dry']['id']}']").check()
     page.locator(f"#blind-form input[type=checkbox][data-render='{r['dry-louder']['id']}']").check()
     page.fill(f"input.variant-name[data-render='{r['dry']['id']}']", "plain")
