@@ -497,7 +497,8 @@ function onKey(event) {
   const key = event.key;
   let handled = true;
   if (key === " ") {
-    if (event.target.closest && event.target.closest("button, a")) return;
+    // Space is play/pause everywhere but in text fields (Enter still presses a button).
+    spaceDown = true;
     togglePlay();
   } else if (/^[1-9]$/.test(key)) pick(Number(key) - 1);
   else if (key === "s" || key === "S") pick((ab.active + 1) % Math.max(1, ab.sources.length));
@@ -510,6 +511,15 @@ function onKey(event) {
     seekTo(position() + step);
   } else handled = false;
   if (handled) event.preventDefault();
+}
+
+let spaceDown = false;
+function onKeyUp(event) {
+  // A button with focus would otherwise be pressed by the Space that started playback.
+  if (event.key === " " && spaceDown) {
+    spaceDown = false;
+    event.preventDefault();
+  }
 }
 
 // ---------- mount ----------
@@ -567,6 +577,7 @@ export async function mountListen(root) {
   ui.audio.addEventListener("pause", drawState);
   ui.audio.addEventListener("loadedmetadata", drawState);
   document.addEventListener("keydown", onKey);
+  document.addEventListener("keyup", onKeyUp, true);
 
   bus.on("play", ({ renderId }) => playStream(renderId));
   bus.on("ab-toggle", ({ renderId }) => toggleAb(renderId));
