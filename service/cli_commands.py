@@ -7,6 +7,7 @@ that a command loads only what it uses (and never the web or queue stack).
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 
 from .cli_output import EXIT_BAD_INPUT, Progress, positive, print_json
@@ -28,9 +29,14 @@ def cmd_layouts(args: argparse.Namespace) -> int:
         print(f"{layout.name:<7} {layout.channels:>2} channels  {layout.description}")
         cells = []
         for s in layout.speakers:
-            cells.append(
-                f"{s.label}(LFE)" if s.lfe else f"{s.label} {s.azimuth:+g}/{s.elevation:+g}"
-            )
+            if s.lfe:
+                cells.append(f"{s.label}(LFE)")
+            elif s.spread:
+                where = " & ".join(f"{a:+g}/{e:+g}" for a, e in s.spread)
+                gain = 20 * math.log10(s.spread_gain)
+                cells.append(f"{s.label} {where} ({gain:.0f} dB each)")
+            else:
+                cells.append(f"{s.label} {s.azimuth:+g}/{s.elevation:+g}")
         print("        " + ", ".join(cells))
     print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
     print("Channel order shown is the default file order; override with --channel-order.")
