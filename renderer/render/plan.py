@@ -30,6 +30,7 @@ from ..layouts import (
     get_layout,
     labels_from_filenames,
     labels_from_mask,
+    order_name,
     resolve_channel_order,
     suggest_layout,
 )
@@ -174,7 +175,7 @@ def _partly_labelled(
 
 
 def _choose_order(
-    stem: StemInfo, layout: Layout, channel_order: Sequence[str] | None
+    stem: StemInfo, layout: Layout, channel_order: Sequence[str] | str | None
 ) -> tuple[tuple[int, ...], str, list[str]]:
     warnings: list[str] = []
     if stem.channels != layout.channels:
@@ -184,7 +185,10 @@ def _choose_order(
             f"mixed for"
         )
     if channel_order:
-        return resolve_channel_order(layout, list(channel_order)), "--channel-order", warnings
+        given = channel_order if isinstance(channel_order, str) else list(channel_order)
+        name = order_name(layout, given)
+        source = "--channel-order" if name is None else f"channel order {name!r}"
+        return resolve_channel_order(layout, given), source, warnings
     if len(stem.paths) > 1:
         found = [filename_label(p) for p in stem.paths]
         if any(known is not None for _, known in found) and any(k is None for _, k in found):
