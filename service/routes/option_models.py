@@ -3,7 +3,8 @@
 Every field of ``POST /v1/renders`` and of a comparison's variants is made here from
 :data:`earfold.renderer.render.RENDER_OPTIONS`: its type, range or choices, default and
 description. Only what HTTP spells differently is added: a layout may be a layout object,
-an HRTF set an uploaded set's id, and the headphone EQ is the list of bands itself.
+a room a room object, an HRTF set an uploaded set's id, and the headphone EQ is the list of
+bands itself.
 """
 
 from __future__ import annotations
@@ -41,6 +42,18 @@ class EqBand(BaseModel):
     q: float = Field(DEFAULT_Q, ge=Q_RANGE[0], le=Q_RANGE[1], allow_inf_nan=False)
 
 
+#: The OpenAPI description of a room object (the renderer checks it: room_from_dict).
+_ROOM_OBJECT: dict[str, Any] = {
+    "title": "RoomObject",
+    "description": "a room as in a --room FILE.json: dimensions [length, width, height] in "
+    "metres, listener {to_front_wall, to_left_wall, ear_height}, and either rt60 (seconds, "
+    "one number or one per octave band 125 Hz to 8 kHz) or absorption per surface (front, "
+    "back, left, right, floor, ceiling); optional name, description, speaker_radius, "
+    "air_absorption, order, mixing_time_ms, seed",
+    "required": ["dimensions"],
+}
+
+
 def http_options(*, sound_only: bool = False) -> tuple[OptionSpec, ...]:
     """The declared options offered over HTTP (only those that shape the sound)."""
     return tuple(s for s in RENDER_OPTIONS if s.http and (s.shapes_sound or not sound_only))
@@ -69,7 +82,10 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
     annotation: Any
     if spec.name == "layout":
         annotation = Name | dict[str, Any]
-    elif spec.name in ("hrtf", "room"):
+    elif spec.name == "room":
+        # a room object is checked by the renderer's room schema (render_options)
+        annotation = Name | Annotated[dict[str, Any], Field(json_schema_extra=_ROOM_OBJECT)]
+    elif spec.name == "hrtf":
         annotation = Name
     elif spec.kind == "labels":
         # A list of labels, or the name of one of the layout's orders ("film").

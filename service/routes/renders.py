@@ -125,6 +125,20 @@ def _layout(value: str | dict | None, stem: dict) -> Layout:
     )
 
 
+def room_object(value: dict, field: str) -> None:
+    """422 naming ``field`` unless ``value`` is a room the renderer accepts (the schema of
+    a ``--room FILE.json``, :func:`earfold.renderer.room.room_from_dict`)."""
+    from earfold.renderer.errors import RoomError
+    from earfold.renderer.room import room_from_dict
+
+    try:
+        room_from_dict(value)
+    except RoomError as exc:
+        raise Problem(
+            UNPROCESSABLE, f"{field}: {exc}", errors=[{"field": field, "message": str(exc)}]
+        ) from None
+
+
 def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, str | None]:
     """(shipped name, uploaded id) for the request's HRTF set; 422 if unknown."""
     from earfold.hrtf_sets import DEFAULT_SET, SHIPPED
@@ -191,8 +205,9 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
         option("block_size").check(req.block_size)
     except OptionError as exc:
         raise Problem(UNPROCESSABLE, str(exc)) from None
-    rooms = room_names()
-    if req.room not in rooms:
+    if isinstance(req.room, dict):
+        room_object(req.room, "room")
+    elif req.room not in (rooms := room_names()):
         raise Problem(UNPROCESSABLE, f"unknown room {req.room!r}; choose one of {', '.join(rooms)}")
     fmt = req.format or "wav"  # the output is named .wav or .flac by the service
     if fmt == "flac" and req.subtype == "FLOAT":
