@@ -30,6 +30,8 @@ from ..storage import META, Storage, write_json_atomic
 from .stats import binomial_p_at_least, binomial_p_two_sided, preference_counts
 
 __all__ = [
+    "ANSWER_CHOICES",
+    "NO_PREFERENCE",
     "STATES",
     "SessionError",
     "answer",
@@ -43,6 +45,14 @@ __all__ = [
 ]
 
 STATES = ("preparing", "ready", "finished", "failed")
+
+#: The answer of an A/B trial in which the listener prefers neither.
+NO_PREFERENCE = "none"
+
+#: The answers each design takes.
+#: The answers each design takes: A/B preference also takes ``"none"`` (no preference);
+#: ABX is a forced choice.
+ANSWER_CHOICES: dict[str, tuple[str, ...]] = {"ab": ("A", "B", NO_PREFERENCE), "abx": ("A", "B")}
 
 _LOCK = ".lock"
 
@@ -179,7 +189,7 @@ def answer(meta: dict, index: int, choice: str, built: dict | None) -> None:
     if not 0 <= index < len(trials):
         raise IndexError(index)
     trial = trials[index]
-    valid = ("A", "B")
+    valid = ANSWER_CHOICES[meta["mode"]]
     if choice not in valid:
         raise ValueError(f"choice must be one of {', '.join(valid)}, not {choice!r}")
     old = trial.get("answer")
@@ -206,10 +216,20 @@ def finish(meta: dict, built: dict | None) -> None:
 
 
 def _chosen_variant(trial: dict, mode: str) -> int | None:
+    """The variant the answer chose; None if unanswered or answered "no preference"."""
     ans = trial.get("answer")
-    if ans is None:
+    if ans is None or ans["choice"] == NO_PREFERENCE:
         return None
     return trial["labels"][ans["choice"]]
+
+
+#: How the results treat a "no preference" answer (said in the results JSON).
+TIES_TREATMENT = (
+    "a 'none' answer (no preference) counts as answered and is reported per variant and in "
+    "total as no_preference; it is left out of preferred_share and of the sign test "
+    "(preference_p_value), which tests only the trials with a preference (the sign test "
+    "drops ties: common practice)"
+)
 
 
 def reveal(meta: dict, built: dict) -> dict:
@@ -229,6 +249,7 @@ def reveal(meta: dict, built: dict) -> dict:
             row["correct"] = None if chosen is None else chosen == t["labels"]["X"]
         else:
             row["preferred_variant"] = chosen
+            row["no_preference"] = row["answer"] == NO_PREFERENCE
         rows.append(row)
     answered = [r for r in rows if r["answer"] is not None]
     variants = []
@@ -274,13 +295,19 @@ def reveal(meta: dict, built: dict) -> dict:
             len(meta["variants"]),
             [list(t["labels"].values()) for t in trials],
             [_chosen_variant(t, mode) for t in trials],
+            [bool(r["no_preference"]) for r in rows],
         )
         for v, c in zip(variants, counts):
             v["answered_trials"] = c["answered_trials"]
             v["preferred"] = c["preferred"]
+            v["no_preference"] = c["no_preference"]
             v["preferred_share"] = c["preferred_share"]
-        if len(variants) == 2 and answered:
-            out["preference_p_value"] = binomial_p_two_sided(counts[0]["preferred"], len(answered))
+        ties = sum(1 for r in rows if r["no_preference"])
+        decided = len(answered) - ties
+        out["no_preference"] = ties
+        out["ties"] = TIES_TREATMENT
+        if len(variants) == 2 and decided:
+            out["preference_p_value"] = binomial_p_two_sided(counts[0]["preferred"], decided)
     return out
 
 
@@ -296,7 +323,7 @@ def reveal_csv(meta: dict, built: dict) -> str:
     w.writerow(CSV_COLUMNS)
     for r in result["trials"]:
         labels = r["variants"]
-        chosen = None if r["answer"] is None else labels[r["answer"]]
+        chosen = None if r["answer"] in (None, NO_PREFERENCE) else labels[r["answer"]]
         w.writerow(
             [
                 r["index"] + 1,

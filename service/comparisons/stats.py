@@ -53,9 +53,17 @@ def binomial_p_two_sided(successes: int, trials: int) -> float:
 
 
 def preference_counts(
-    n_variants: int, presented: Sequence[Sequence[int]], chosen: Sequence[int | None]
+    n_variants: int,
+    presented: Sequence[Sequence[int]],
+    chosen: Sequence[int | None],
+    no_preference: Sequence[bool] | None = None,
 ) -> list[dict]:
-    """Per variant: trials it was heard in, and trials it was preferred in.
+    """Per variant: trials it was heard in with a preference given, trials it was
+    preferred in, and trials it was heard in answered "no preference".
+
+    A "no preference" answer (a tie) is counted apart and left out of
+    ``answered_trials`` and ``preferred_share``: the share is of the trials in which the
+    listener chose (as the sign test drops ties; common practice).
 
     Parameters
     ----------
@@ -63,11 +71,25 @@ def preference_counts(
     presented : sequence of sequences of int
         The variants heard in each trial.
     chosen : sequence of int or None
-        The variant preferred in each trial (None: not answered).
+        The variant preferred in each trial (None: not answered, or no preference).
+    no_preference : sequence of bool, optional
+        Per trial: answered "no preference" (its ``chosen`` is None).
+
+    Examples
+    --------
+    >>> c = preference_counts(2, [[0, 1], [1, 0], [0, 1]], [1, None, 1], [False, True, False])
+    >>> [(x["answered_trials"], x["preferred"], x["no_preference"]) for x in c]
+    [(2, 0, 1), (2, 2, 1)]
     """
+    ties = list(no_preference) if no_preference is not None else [False] * len(chosen)
     heard = [0] * n_variants
     won = [0] * n_variants
-    for variants, choice in zip(presented, chosen):
+    tied = [0] * n_variants
+    for variants, choice, tie in zip(presented, chosen, ties):
+        if tie:
+            for v in set(variants):
+                tied[v] += 1
+            continue
         if choice is None:
             continue
         for v in set(variants):
@@ -78,6 +100,7 @@ def preference_counts(
             "variant": i,
             "answered_trials": heard[i],
             "preferred": won[i],
+            "no_preference": tied[i],
             "preferred_share": round(won[i] / heard[i], 4) if heard[i] else None,
         }
         for i in range(n_variants)

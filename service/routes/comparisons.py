@@ -22,9 +22,12 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Depends, Path, Query, Request, Response
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
+from earfold.renderer.layouts import LAYOUTS, layout_from_dict
+
 from ..auth import current_owner
 from ..comparisons import session as sessions
 from ..comparisons.assignment import draw_trials
+from ..comparisons.sameness import identical_pair, sound_key
 from ..comparisons.trial_audio import trial_bytes
 from ..jobs import JobNotFound, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND
@@ -108,18 +111,24 @@ class ComparisonRequest(BaseModel):
 
 
 class AnswerRequest(BaseModel):
-    """An answer to one trial: the label preferred (ab) or the one X matches (abx)."""
+    """An answer to one trial: the label preferred (ab) or the one X matches (abx).
+
+    ``"none"`` (no preference) is an answer of the A/B preference design only; ABX is a
+    forced choice (a listener who hears no difference guesses, which the binomial test
+    expects)."""
 
     model_config = ConfigDict(extra="forbid")
 
-    choice: Literal["A", "B"]
+    choice: Literal["A", "B", "none"] = Field(
+        description="A or B; in mode 'ab' also 'none' (no preference)"
+    )
 
 
 class TrialView(BaseModel):
     index: int = Field(ge=0, description="0-based trial number")
     labels: list[Literal["A", "B", "X"]]
     audio: dict[str, str] | None = Field(description="label -> opaque audio URL, once ready")
-    answer: Literal["A", "B"] | None
+    answer: Literal["A", "B", "none"] | None
 
 
 class ComparisonLinks(BaseModel):
@@ -253,6 +262,7 @@ def create_comparison(
                 "hrtf_id": hrtf_id,
             }
         )
+    _refuse_identical(variants)
     trials = draw_trials(len(variants), req.mode, req.trials)
     session_id = new_id()
     now = time.time()
@@ -279,6 +289,35 @@ def create_comparison(
     job = _store_and_queue(request, meta, payload)
     view = sessions.public_view(meta, None, job)
     return _json(view, 202, {"Location": f"/v1/comparisons/{session_id}"})
+
+
+def _has_lfe(layout: str | dict) -> bool:
+    """True if the render job's layout (a catalogue name or a layout object) has an LFE."""
+    if isinstance(layout, dict):
+        return bool(layout_from_dict(layout, name="custom").lfe_indices)
+    return bool(LAYOUTS[layout].lfe_indices) if layout in LAYOUTS else True
+
+
+def _refuse_identical(variants: list[dict]) -> None:
+    """422 naming the first two variants whose sound-shaping options resolve alike."""
+    keys = [
+        sound_key(v["options"], v["hrtf_id"], _has_lfe(v["options"]["layout"])) for v in variants
+    ]
+    pair = identical_pair(keys)
+    if pair is None:
+        return
+    i, j = pair
+    raise Problem(
+        UNPROCESSABLE,
+        f"variant {i + 1} ({variants[i]['name']!r}) and variant {j + 1} "
+        f"({variants[j]['name']!r}) would render identically: every option that shapes the "
+        "sound resolves to the same value (block_size does not change the sound); change one "
+        "of them, a blind test of the same sound measures nothing",
+        errors=[
+            {"field": f"variants.{i}", "message": "renders identically to " + f"variants.{j}"},
+            {"field": f"variants.{j}", "message": "renders identically to " + f"variants.{i}"},
+        ],
+    )
 
 
 def _store_and_queue(request: Request, meta: dict, payload: dict) -> Any:
@@ -406,6 +445,17 @@ def answer_trial(
     index: int = Path(ge=0, le=99),
     owner: str = Depends(current_owner),
 ) -> Response:
+    mode = _session(request, comparison_id, owner)["mode"]
+    allowed = sessions.ANSWER_CHOICES[mode]
+    if body.choice not in allowed:
+        raise Problem(
+            UNPROCESSABLE,
+            f"choice {body.choice!r} is not an answer of mode {mode!r}: give one of "
+            f"{', '.join(allowed)}"
+            + (" (ABX is a forced choice: if unsure, guess)" if mode == "abx" else ""),
+            errors=[{"field": "choice", "message": f"one of {', '.join(allowed)}"}],
+        )
+
     def step(meta: dict, built: dict) -> None:
         try:
             sessions.answer(meta, index, body.choice, built)

@@ -112,7 +112,10 @@ def test_render_submit_when_sqlite_is_full_is_507_and_no_job_is_recorded(client,
 def test_comparison_when_sqlite_is_full_is_507_and_no_session_is_left(client, tmp_path):
     stem = _stem(client, tmp_path)
     _fill_job_store(client)
-    body = {"stem_id": stem["id"], "variants": [{"layout": "5.1"}, {"layout": "5.1"}]}
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"layout": "5.1"}, {"layout": "5.1", "lfe_gain": 4}],
+    }
     _disk_full(client.post("/v1/comparisons", json=body))
     assert _leftovers(client, "comparisons") == []
     assert client.get("/v1/comparisons").json() == []
@@ -129,7 +132,10 @@ def test_comparison_record_write_on_a_full_disk_is_507_and_leaves_no_part_file(
         raise OSError(errno.ENOSPC, "No space left on device")
 
     monkeypatch.setattr(comparisons, "write_json_atomic", full_write)
-    body = {"stem_id": stem["id"], "variants": [{"layout": "5.1"}, {"layout": "5.1"}]}
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"layout": "5.1"}, {"layout": "5.1", "lfe_gain": 4}],
+    }
     _disk_full(client.post("/v1/comparisons", json=body))
     assert _leftovers(client, "comparisons") == []
     assert client.app.state.queue.list() == []
@@ -142,7 +148,10 @@ def test_comparison_while_the_job_store_is_down_creates_nothing(client, tmp_path
         raise QueueUnavailable("the job store at redis://127.0.0.1:1/0 does not answer")
 
     monkeypatch.setattr(client.app.state.queue, "submit", down)
-    body = {"stem_id": stem["id"], "variants": [{"layout": "5.1"}, {"layout": "5.1"}]}
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"layout": "5.1"}, {"layout": "5.1", "lfe_gain": 4}],
+    }
     resp = client.post("/v1/comparisons", json=body)
     assert resp.status_code == 503, resp.text
     assert "nothing was changed" in resp.json()["detail"]
@@ -213,7 +222,10 @@ def test_saving_an_answer_on_a_full_disk_is_507_and_keeps_the_session(
     from earfold.service.comparisons import session as sessions
 
     stem = _stem(client, tmp_path)
-    body = {"stem_id": stem["id"], "variants": [{"layout": "5.1"}, {"layout": "5.1"}]}
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"layout": "5.1"}, {"layout": "5.1", "lfe_gain": 4}],
+    }
     created = client.post("/v1/comparisons", json=body)
     assert created.status_code == 202, created.text
     cid = created.json()["id"]
@@ -248,7 +260,10 @@ def test_redis_with_a_full_disk_is_507_and_leaves_nothing(
 
     monkeypatch.setitem(client.app.state.queue._scripts, "submit", refused)
     _disk_full(client.post("/v1/renders", json={"stem_id": stem["id"], "layout": "5.1"}))
-    body = {"stem_id": stem["id"], "variants": [{"layout": "5.1"}, {"layout": "5.1"}]}
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"layout": "5.1"}, {"layout": "5.1", "lfe_gain": 4}],
+    }
     _disk_full(client.post("/v1/comparisons", json=body))
     assert _leftovers(client, "comparisons") == []
     monkeypatch.undo()

@@ -1,0 +1,55 @@
+"""Variants that would render identically: a blind comparison of them measures nothing.
+
+Two variants are the same when their resolved sound-shaping options are: the options a
+render job gets after the route has checked them (names resolved, defaults filled in,
+an uploaded HRTF set by its id), keeping only the options that shape the sound
+(:data:`earfold.renderer.render.SOUND_OPTIONS`) and, of those, only the ones that can
+make a difference to this render:
+
+* ``block_size`` changes speed and memory, not the sound (its declaration says so);
+* ``room_mode`` only matters with a room;
+* ``lfe_cutoff`` and ``lfe_gain`` only matter for a layout with an LFE channel.
+
+What is not resolved here: ``eq`` left out (the set's own default) is not taken for the
+equalisation it resolves to, since that needs the HRTF set read; such a pair is let through.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Sequence
+from typing import Any
+
+from earfold.renderer.render import SOUND_OPTIONS
+
+__all__ = ["identical_pair", "sound_key"]
+
+#: Sound options that cannot change the rendered samples (see the module docstring).
+_NEVER_AUDIBLE = frozenset({"block_size"})
+
+
+def sound_key(options: dict[str, Any], hrtf_id: str | None, lfe_in_layout: bool) -> str:
+    """A canonical text of what shapes the sound of a render job's ``options``."""
+    key = {
+        name: options.get(name)
+        for name in SOUND_OPTIONS
+        if name not in _NEVER_AUDIBLE and name in options
+    }
+    if str(key.get("room", "none")).lower() == "none":
+        key.pop("room_mode", None)
+    if not lfe_in_layout:
+        key.pop("lfe_cutoff", None)
+        key.pop("lfe_gain", None)
+    if hrtf_id:
+        key["hrtf"] = {"uploaded": hrtf_id}
+    return json.dumps(key, sort_keys=True, separators=(",", ":"))
+
+
+def identical_pair(keys: Sequence[str]) -> tuple[int, int] | None:
+    """The first pair (i, j), i < j, of equal keys, or None if all differ."""
+    first: dict[str, int] = {}
+    for j, key in enumerate(keys):
+        if key in first:
+            return first[key], j
+        first[key] = j
+    return None
