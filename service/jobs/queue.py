@@ -130,5 +130,12 @@ class JobQueue(Protocol):
     def counts(self) -> dict[str, int]:
         """Number of jobs per state."""
 
+    def queue_position(self, job_id: str) -> int | None:
+        """Place of a queued job in the line: 1 = the next to be claimed, n = n - 1 jobs
+        ahead of it (every owner's); None if the job is not queued or absent."""
+
+    def queue_positions(self) -> dict[str, int]:
+        """:meth:`queue_position` of every queued job, in one read (for lists)."""
+
     def close(self) -> None:
         """Release the store's resources."""

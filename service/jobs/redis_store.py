@@ -320,6 +320,16 @@ class RedisJobQueue:
             raise self._unavailable(exc) from None
         return dict(zip(STATES, (int(n) for n in found)))
 
+    def queue_position(self, job_id: str) -> int | None:
+        # The queued index is scored by submission seq and claim() takes its lowest entry
+        # first, so the rank in it is the number of jobs ahead.
+        rank = self._call(self.client.zrank, self.keys.state("queued"), job_id)
+        return None if rank is None else int(rank) + 1
+
+    def queue_positions(self) -> dict[str, int]:
+        ids = self._call(self.client.zrange, self.keys.state("queued"), 0, -1)
+        return {i.decode(): n for n, i in enumerate(ids, start=1)}
+
     def ping(self) -> None:
         """QueueUnavailable unless Redis answers."""
         try:

@@ -274,6 +274,24 @@ class SqliteJobQueue:
         found = {r["state"]: r["n"] for r in rows}
         return {s.value: found.get(s.value, 0) for s in JobState}
 
+    def queue_position(self, job_id: str) -> int | None:
+        # Claims take the lowest seq first, so the jobs ahead are the queued ones with a
+        # lower seq; one read on the (state, seq) index.
+        row = (
+            self._reader()
+            .execute(
+                "SELECT (SELECT COUNT(*) FROM jobs AS o WHERE o.state = 'queued' AND o.seq <= j.seq) "
+                "AS n FROM jobs AS j WHERE j.id = ? AND j.state = 'queued'",
+                (job_id,),
+            )
+            .fetchone()
+        )
+        return None if row is None else int(row["n"])
+
+    def queue_positions(self) -> dict[str, int]:
+        rows = self._reader().execute("SELECT id FROM jobs WHERE state = 'queued' ORDER BY seq")
+        return {r["id"]: i for i, r in enumerate(rows, start=1)}
+
     def close(self) -> None:
         with self._lock:
             self._closed = True

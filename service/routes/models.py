@@ -32,6 +32,9 @@ class RenderView(BaseModel):
     id: str = Field(pattern=r"^[0-9a-f]{32}$")
     state: State
     progress: float = Field(ge=0, le=1, description="0 to 1; updated while rendering")
+    queue_position: int | None = Field(
+        None, ge=1, description="while queued: 1 = next to start, n = n - 1 renders ahead"
+    )
     message: str | None = Field(description="why it failed or was cancelled, for a person")
     attempts: int = Field(ge=0, description="times a worker took it (a crash counts)")
     created: str | None = Field(description="ISO 8601 UTC")

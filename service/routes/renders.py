@@ -67,8 +67,9 @@ def _iso(ts: float | None) -> str | None:
     return time.strftime("%Y-%m-%dT%H:%M:%S", time.gmtime(ts)) + f".{int(ts % 1 * 1000):03d}Z"
 
 
-def render_view(job: Job) -> dict:
-    """The public JSON of a render job."""
+def render_view(job: Job, queue_position: int | None = None) -> dict:
+    """The public JSON of a render job; ``queue_position`` as :func:`queue_position`
+    gives it (only queued jobs have one)."""
     base = f"/v1/renders/{job.id}"
     done = job.state is JobState.DONE
     links = {
@@ -81,6 +82,7 @@ def render_view(job: Job) -> dict:
         "id": job.id,
         "state": job.state.value,
         "progress": round(job.progress, 4),
+        "queue_position": queue_position if job.state is JobState.QUEUED else None,
         "message": job.message or None,
         "attempts": job.attempts,
         "created": _iso(job.created),
@@ -90,6 +92,12 @@ def render_view(job: Job) -> dict:
         "result": job.result,
         "links": links,
     }
+
+
+def queue_position(queue: Any, job: Job) -> int | None:
+    """1 for the next job to start, n with n - 1 jobs ahead; None unless ``job`` is queued
+    (the store is asked only then)."""
+    return queue.queue_position(job.id) if job.state is JobState.QUEUED else None
 
 
 def _layout(value: str | dict | None, stem: dict) -> Layout:
@@ -247,7 +255,7 @@ def create_render(
             headers={"Retry-After": "30"},
         ) from None
     response.headers["Location"] = f"/v1/renders/{job_id}"
-    return render_view(job)
+    return render_view(job, queue_position(request.app.state.queue, job))
 
 
 @router.get("", summary="List your renders, newest first", response_model=list[RenderView])
@@ -255,8 +263,11 @@ def list_renders(
     request: Request, owner: str = Depends(current_owner), limit: int = Query(100, ge=1, le=1000)
 ) -> list[dict]:
     # Comparison builds share the queue but are not renders (see /v1/comparisons).
-    jobs = request.app.state.queue.list(owner=owner, limit=limit)
-    return [render_view(j) for j in jobs if j.payload.get("kind") != COMPARISON_KIND]
+    queue = request.app.state.queue
+    jobs = queue.list(owner=owner, limit=limit)
+    places = queue.queue_positions() if any(j.state is JobState.QUEUED for j in jobs) else {}
+    renders = [j for j in jobs if j.payload.get("kind") != COMPARISON_KIND]
+    return [render_view(j, places.get(j.id)) for j in renders]
 
 
 @router.get(
@@ -271,7 +282,8 @@ async def get_render(
     # The one route clients poll: async (no thread-pool hop), one indexed read on the
     # store's read-only connection, and JSON built directly, without validating our own
     # answer against RenderView (the fuzz test checks that it matches).
-    view = render_view(_job(request, render_id, owner))
+    job = _job(request, render_id, owner)
+    view = render_view(job, queue_position(request.app.state.queue, job))
     return Response(json.dumps(view, separators=(",", ":")), media_type="application/json")
 
 

@@ -186,6 +186,26 @@ def test_get_list_delete_counts(q):
         q.get("c")
 
 
+def test_queue_position_counts_the_jobs_ahead(q):
+    q.submit("a", "alice", {}, max_queued=10)
+    q.submit("b", "bob", {}, max_queued=10)
+    assert (q.queue_position("a"), q.queue_position("b")) == (1, 2)
+    assert q.queue_positions() == {"a": 1, "b": 2}
+    q.submit("c", "alice", {}, max_queued=10)
+    q.claim("w1", 10)  # takes a: running jobs have no place in the line
+    assert q.queue_position("a") is None
+    assert q.queue_positions() == {"b": 1, "c": 2}
+    # Handed back, a job goes to the head again (claims take the oldest submission first).
+    assert q.release("a", "w1")
+    assert q.queue_positions() == {"a": 1, "b": 2, "c": 3}
+    q.cancel("b")
+    assert (q.queue_position("a"), q.queue_position("b"), q.queue_position("c")) == (1, None, 2)
+    assert q.queue_position("nonexistent") is None
+    assert q.claim("w2", 10).id == "a"  # the order shown is the order of claims
+    assert q.claim("w2", 10).id == "c"
+    assert q.queue_positions() == {}
+
+
 def test_state_survives_reopening(make_queue, clock):
     first = make_queue(clock)
     first.submit("a", "", {"x": [1, 2]}, max_queued=10)
