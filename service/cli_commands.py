@@ -7,6 +7,7 @@ that a command loads only what it uses (and never the web or queue stack).
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 
 from .cli_output import EXIT_BAD_INPUT, Progress, positive, print_json
@@ -22,18 +23,29 @@ def cmd_layouts(args: argparse.Namespace) -> int:
     from earfold.renderer.layouts import LAYOUTS
 
     if args.json:
-        print_json([layout.to_dict() for layout in LAYOUTS.values()])
+        print_json([layout.listing() for layout in LAYOUTS.values()])
         return 0
     for layout in LAYOUTS.values():
         print(f"{layout.name:<7} {layout.channels:>2} channels  {layout.description}")
         cells = []
         for s in layout.speakers:
-            cells.append(
-                f"{s.label}(LFE)" if s.lfe else f"{s.label} {s.azimuth:+g}/{s.elevation:+g}"
-            )
+            if s.lfe:
+                cells.append(f"{s.label}(LFE)")
+            elif s.spread:
+                where = " & ".join(f"{a:+g}/{e:+g}" for a, e in s.spread)
+                gain = 20 * math.log10(s.spread_gain)
+                cells.append(f"{s.label} {where} ({gain:.0f} dB each)")
+            else:
+                cells.append(f"{s.label} {s.azimuth:+g}/{s.elevation:+g}")
         print("        " + ", ".join(cells))
+        for name, labels in layout.orders.items():
+            if name != "wav" and labels != layout.labels:
+                print(f"        order {name}: {','.join(labels)}")
     print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
-    print("Channel order shown is the default file order; override with --channel-order.")
+    print(
+        "Channel order shown is the default file order ('wav'); choose another with "
+        "--channel-order NAME (an order listed above) or --channel-order L,R,C,..."
+    )
     return 0
 
 

@@ -38,7 +38,10 @@ MAX_LABEL_LENGTH = 16
 MAX_LAYOUT_FILE_BYTES = 1 << 20
 """Largest layout JSON file read (1 MiB; 64 speakers need a few kilobytes)."""
 
-_SPEAKER_KEYS = ("label", "azimuth", "elevation", "distance", "lfe")
+_SPEAKER_KEYS = ("label", "azimuth", "elevation", "distance", "lfe", "spread")
+
+MAX_SPREAD = 8
+"""Most directions one channel may be spread over (``spread`` of a speaker)."""
 _LAYOUT_KEYS = ("name", "description", "source", "speakers")
 
 
@@ -118,7 +121,44 @@ def _speaker_from_dict(entry: object, n: int, origin: str | None) -> Speaker:
     lfe = entry.get("lfe", False)
     if not isinstance(lfe, bool):
         raise LayoutError(f"{_where(origin)}{what} lfe must be true or false, got {shown(lfe)}")
-    return Speaker(label, wrap_azimuth(azimuth), elevation, distance, lfe)
+    spread = _spread(entry.get("spread"), what, origin)
+    if spread and lfe:
+        raise LayoutError(
+            f"{_where(origin)}{what} is an LFE channel; an LFE channel has no spread "
+            "(it is not rendered from directions)"
+        )
+    return Speaker(label, wrap_azimuth(azimuth), elevation, distance, lfe, spread)
+
+
+def _spread(raw: object, what: str, origin: str | None) -> tuple[tuple[float, float], ...]:
+    """The ``spread`` directions of a speaker entry (absent or null: none)."""
+    if raw is None:
+        return ()
+    if not isinstance(raw, (list, tuple)) or not 2 <= len(raw) <= MAX_SPREAD:
+        raise LayoutError(
+            f"{_where(origin)}{what} spread must be a list of 2 to {MAX_SPREAD} directions "
+            f"({{'azimuth': ..., 'elevation': ...}}), got {shown(raw)}"
+        )
+    out: list[tuple[float, float]] = []
+    for k, item in enumerate(raw, 1):
+        where = f"{what} spread direction {k}"
+        if not isinstance(item, Mapping):
+            raise LayoutError(
+                f"{_where(origin)}{where} must be an object with azimuth and elevation, "
+                f"got {shown(item)}"
+            )
+        _check_keys(item, ("azimuth", "elevation"), where, origin)
+        if "azimuth" not in item or "elevation" not in item:
+            raise LayoutError(f"{_where(origin)}{where} needs azimuth and elevation")
+        azimuth = _number(item["azimuth"], f"{where} azimuth", origin)
+        elevation = _number(item["elevation"], f"{where} elevation", origin)
+        if abs(azimuth) > 360.0 or abs(elevation) > 90.0:
+            raise LayoutError(
+                f"{_where(origin)}{where} ({azimuth:g}/{elevation:g}) is outside azimuth "
+                "-360..360 or elevation -90..90 degrees"
+            )
+        out.append((wrap_azimuth(azimuth), elevation))
+    return tuple(out)
 
 
 def layout_from_dict(
@@ -131,6 +171,10 @@ def layout_from_dict(
         {"name": "...", "description": "...", "source": "...",
          "speakers": [{"label": "L", "azimuth": 30, "elevation": 0,
                        "distance": 2.0, "lfe": false}, ...]}
+
+    A speaker may carry ``"spread": [{"azimuth": 110, "elevation": 0}, ...]`` (2 to
+    :data:`MAX_SPREAD` directions): its one channel is then reproduced from all of
+    them, each at ``1 / sqrt(n)`` (see :class:`Speaker`); an LFE channel cannot.
 
     ``name``, ``description``, ``source``, ``distance`` and ``lfe`` are optional. Labels
     are 1 to 16 printable characters (no commas); labels that name the same channel

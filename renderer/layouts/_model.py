@@ -38,6 +38,12 @@ class Speaker:
         Distance from the listener in metres, when known.
     lfe : bool
         True for a low-frequency effects channel (not rendered through HRIRs).
+    spread : tuple of (float, float)
+        Directions (azimuth, elevation in degrees) of the loudspeakers that reproduce
+        this one channel together, each fed at ``1 / sqrt(n)`` of it (-3 dB for two, so
+        the channel's power is kept); empty (the usual case): the channel has a
+        loudspeaker of its own at ``azimuth``/``elevation``. The mono surround ``S`` of
+        ITU-R BS.775's 3/1 system is such a channel (see the layout catalogue).
     """
 
     label: str
@@ -45,6 +51,17 @@ class Speaker:
     elevation: float
     distance: float | None = None
     lfe: bool = False
+    spread: tuple[tuple[float, float], ...] = ()
+
+    @property
+    def directions(self) -> tuple[tuple[float, float], ...]:
+        """Where the channel is reproduced: ``spread``, or the speaker's own direction."""
+        return self.spread or ((self.azimuth, self.elevation),)
+
+    @property
+    def spread_gain(self) -> float:
+        """The gain of each of the channel's directions: ``1 / sqrt(len(directions))``."""
+        return float(1.0 / np.sqrt(len(self.directions)))
 
     @property
     def vector(self) -> npt.NDArray[np.float64]:
@@ -91,6 +108,41 @@ class Layout:
     def channels(self) -> int:
         """Number of channels (loudspeakers, LFE included)."""
         return len(self.speakers)
+
+    @property
+    def orders(self) -> dict[str, tuple[str, ...]]:
+        """The layout's named channel orders: name -> labels in file order.
+
+        ``wav`` is always there: the layout's own (default) order, which for the built-in
+        layouts is the WAV channel-mask order (SMPTE practice). ``film`` is there when the
+        layout has ``L`` and ``R``: ``L C R``, then the other ear-level loudspeakers from
+        front to back (left before right), then the LFE channel(s), then the remaining
+        (height and bottom) loudspeakers in the default order, the order film and post
+        production sessions use (common practice): 5.1 as ``L C R Ls Rs LFE``, 7.1.4 as
+        ``L C R Ls Rs Lrs Rrs LFE Ltf Rtf Ltr Rtr``.
+        """
+        orders = {"wav": self.labels}
+        film = self._film_order()
+        if film is not None:
+            orders["film"] = film
+        return orders
+
+    def _film_order(self) -> tuple[str, ...] | None:
+        left, right, centre = self._find("L"), self._find("R"), self._find("C")
+        if left is None or right is None:
+            return None
+        front = [i for i in (left, centre, right) if i is not None]
+        rest = [i for i in range(self.channels) if i not in front]
+        lfe = [i for i in rest if self.speakers[i].lfe]
+        ear = [
+            i
+            for i in rest
+            if not self.speakers[i].lfe and layer_of(self.speakers[i].elevation) == "M"
+        ]
+        # Front to back; at one distance from the front the left one (positive azimuth) first.
+        ear.sort(key=lambda i: (abs(self.speakers[i].azimuth), -self.speakers[i].azimuth, i))
+        others = [i for i in rest if i not in lfe and i not in ear]
+        return tuple(self.labels[i] for i in (*front, *ear, *lfe, *others))
 
     @property
     def lfe_indices(self) -> tuple[int, ...]:
@@ -150,6 +202,10 @@ class Layout:
                 return i
         return None
 
+    def listing(self) -> dict[str, Any]:
+        """The layout as catalogues list it: :meth:`to_dict` plus ``orders`` (name -> labels)."""
+        return {**self.to_dict(), "orders": {k: list(v) for k, v in self.orders.items()}}
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form, in the schema :func:`layout_from_dict` reads."""
         speakers = []
@@ -162,6 +218,8 @@ class Layout:
             if s.distance is not None:
                 entry["distance"] = s.distance
             entry["lfe"] = s.lfe
+            if s.spread:
+                entry["spread"] = [{"azimuth": a, "elevation": e} for a, e in s.spread]
             speakers.append(entry)
         return {
             "name": self.name,

@@ -23,7 +23,7 @@ from ..defaults import SPEED_OF_SOUND
 from ..engine import LfeOptions, lfe_filter
 from ..geometry import direction_to_vector, vector_to_direction
 from ..hrtf import HrirSet, onset_times
-from ..layouts import Layout
+from ..layouts import Layout, Speaker
 
 __all__ = ["LFE_REFERENCE_BAND_HZ", "ChannelFeed", "speaker_feeds"]
 
@@ -68,6 +68,53 @@ def _lfe_reference(hset: HrirSet) -> tuple[float, int]:
     gain = float(np.mean(spec[:, band])) if band.any() else float(np.mean(spec[:, 0]))
     onset = int(round(float(np.mean(onset_times(front)))))
     return gain, onset
+
+
+def _directions_filter(
+    spk: Speaker, hset: HrirSet, warns: list[str]
+) -> tuple[NDArray[np.float64], dict[str, Any], float]:
+    """The filter pair of a loudspeaker channel, its report fields and worst angular error.
+
+    A channel spread over several directions (:attr:`Speaker.spread`) is the sum of their
+    pairs, each at :attr:`Speaker.spread_gain`.
+    """
+    pairs = []
+    for azimuth, elevation in spk.directions:
+        pair = hset.pair(direction_to_vector(azimuth, elevation))
+        if pair.warning:
+            warns.append(f"{spk.label}: {pair.warning}")
+        pairs.append(pair)
+
+    def measured(pair: Any) -> list[dict[str, float]]:
+        used_az, used_el = vector_to_direction(hset.directions[list(pair.neighbours)])
+        return [
+            {"azimuth": round(float(a), 3), "elevation": round(float(e), 3), "weight": round(w, 6)}
+            for a, e, w in zip(np.atleast_1d(used_az), np.atleast_1d(used_el), pair.weights)
+        ]
+
+    worst = round(max(p.angular_error for p in pairs), 3)
+    if not spk.spread:
+        return pairs[0].ir, {"method": pairs[0].method, "measured": measured(pairs[0])}, worst
+    gain = spk.spread_gain
+    length = max(p.ir.shape[-1] for p in pairs)
+    ir = np.zeros((2, length))
+    for p in pairs:
+        ir[:, : p.ir.shape[-1]] += gain * p.ir
+    fields: dict[str, Any] = {
+        "method": pairs[0].method,
+        "measured": [m for p in pairs for m in measured(p)],
+        "spread": [
+            {
+                "azimuth": a,
+                "elevation": e,
+                "gain_db": round(20 * np.log10(gain), 3),
+                "method": p.method,
+                "measured": measured(p),
+            }
+            for (a, e), p in zip(spk.directions, pairs)
+        ],
+    }
+    return ir, fields, worst
 
 
 def speaker_feeds(
@@ -132,25 +179,9 @@ def speaker_feeds(
                 gain_db=lfe.gain_db,
             )
         else:
-            pair = hset.pair(spk.vector)
-            ir = pair.ir
-            used_az, used_el = vector_to_direction(hset.directions[list(pair.neighbours)])
-            entry.update(
-                azimuth=spk.azimuth,
-                elevation=spk.elevation,
-                method=pair.method,
-                measured=[
-                    {
-                        "azimuth": round(float(a), 3),
-                        "elevation": round(float(e), 3),
-                        "weight": round(w, 6),
-                    }
-                    for a, e, w in zip(np.atleast_1d(used_az), np.atleast_1d(used_el), pair.weights)
-                ],
-                angular_error_deg=round(pair.angular_error, 3),
-            )
-            if pair.warning:
-                warns.append(f"{spk.label}: {pair.warning}")
+            ir, used, worst = _directions_filter(spk, hset, warns)
+            entry.update(azimuth=spk.azimuth, elevation=spk.elevation, **used)
+            entry["angular_error_deg"] = worst
             if room_responses is not None:
                 ir = room_responses[speaker_index]
                 entry["room"] = True

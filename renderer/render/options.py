@@ -82,8 +82,11 @@ RENDER_OPTIONS: tuple[OptionSpec, ...] = (
     OptionSpec(
         "channel_order",
         "labels",
-        "labels of the file's channels in file order (overrides channel masks and file names)",
-        metavar="L,R,C,...",
+        "labels of the file's channels in file order, or the name of one of the layout's "
+        "orders: wav (the WAV channel-mask order, the layout's default) or film (L C R, "
+        "surrounds, LFE, heights; 'earfold layouts' or GET /v1/layouts list them); "
+        "overrides channel masks and file names",
+        metavar="L,R,C,...|NAME",
     ),
     OptionSpec(
         "hrtf",
@@ -245,8 +248,9 @@ class RenderSettings:
     layout : str, Layout or None
         Layout name, a JSON layout file or a :class:`Layout`; None: the one the stem
         suggests.
-    channel_order : sequence of str, optional
-        Labels of the file channels in file order; overrides masks and file names.
+    channel_order : sequence of str or str, optional
+        Labels of the file channels in file order, or the name of one of the layout's
+        orders (``wav``, ``film``: :attr:`Layout.orders`); overrides masks and file names.
     hrtf : str, optional
         A shipped set's name or a SOFA file; None (or empty): the default set.
     lfe : LfeOptions
@@ -286,7 +290,7 @@ class RenderSettings:
     """
 
     layout: str | os.PathLike[str] | Layout | None = None
-    channel_order: Sequence[str] | None = None
+    channel_order: Sequence[str] | str | None = None
     hrtf: str | None = None
     lfe: LfeOptions = field(default_factory=LfeOptions)
     subtype: str = "PCM_24"

@@ -8,6 +8,7 @@ equalises the HRTF set, builds the room, turns every input channel into a
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
@@ -24,14 +25,16 @@ from ..hrtf import HrirSet, load_hrir_set
 from ..io import StemInfo, probe_stem
 from ..layouts import (
     Layout,
+    Speaker,
     filename_label,
     get_layout,
     labels_from_filenames,
     labels_from_mask,
+    order_name,
     resolve_channel_order,
     suggest_layout,
 )
-from ..room import build_room_filters, exact_brirs, get_room
+from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
 from .feeds import ChannelFeed, speaker_feeds
 from .options import ROOM_MODES, RenderSettings
 
@@ -172,7 +175,7 @@ def _partly_labelled(
 
 
 def _choose_order(
-    stem: StemInfo, layout: Layout, channel_order: Sequence[str] | None
+    stem: StemInfo, layout: Layout, channel_order: Sequence[str] | str | None
 ) -> tuple[tuple[int, ...], str, list[str]]:
     warnings: list[str] = []
     if stem.channels != layout.channels:
@@ -182,7 +185,10 @@ def _choose_order(
             f"mixed for"
         )
     if channel_order:
-        return resolve_channel_order(layout, list(channel_order)), "--channel-order", warnings
+        given = channel_order if isinstance(channel_order, str) else list(channel_order)
+        name = order_name(layout, given)
+        source = "--channel-order" if name is None else f"channel order {name!r}"
+        return resolve_channel_order(layout, given), source, warnings
     if len(stem.paths) > 1:
         found = [filename_label(p) for p in stem.paths]
         if any(known is not None for _, known in found) and any(k is None for _, k in found):
@@ -281,9 +287,7 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
             "requested": requested_room.name,
         }
     elif requested_room is not None:
-        room_filters = build_room_filters(
-            hset, layout, requested_room, stem.samplerate, seed=settings.seed
-        )
+        room_filters = _room_filters(hset, layout, requested_room, stem.samplerate, settings.seed)
         room_report = {"synthetic": True, "mode": settings.room_mode, **room_filters.report}
         warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
     elif _is_measured_room(hset):
@@ -326,6 +330,41 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         eq=eq_report,
         headphone=headphone,
     )
+
+
+def _room_filters(
+    hset: HrirSet, layout: Layout, room: Room, samplerate: float, seed: int
+) -> RoomFilters:
+    """The room's filters per loudspeaker channel of ``layout``, in the layout's order.
+
+    A channel spread over several directions (:attr:`Speaker.spread`, as LCRS's ``S``)
+    is modelled as one loudspeaker per direction, and their early responses are summed at
+    the channel's spread gain. Its share of the shared diffuse tail adds by power (the
+    loudspeakers' tails are uncorrelated in a real room), so the spread channel excites
+    the tail as much as one loudspeaker would.
+    """
+    if not any(s.spread for s in layout.speakers):
+        return build_room_filters(hset, layout, room, samplerate, seed=seed)
+    expanded: list[Speaker] = []
+    mix: list[list[tuple[int, float]]] = []
+    for s in layout.speakers:
+        if not s.spread:
+            mix.append([(len(expanded), 1.0)])
+            expanded.append(s)
+            continue
+        mix.append([(len(expanded) + k, s.spread_gain) for k in range(len(s.spread))])
+        expanded.extend(
+            Speaker(f"{s.label}~{k + 1}", a, e, s.distance) for k, (a, e) in enumerate(s.spread)
+        )
+    virtual = Layout(layout.name, tuple(expanded), layout.description, layout.source)
+    filters = build_room_filters(hset, virtual, room, samplerate, seed=seed)
+    early = np.zeros((layout.channels, *filters.early.shape[1:]))
+    weights = np.zeros(layout.channels)
+    for i, parts in enumerate(mix):
+        for v, gain in parts:
+            early[i] += gain * filters.early[v]
+            weights[i] += (gain * float(filters.tail_weights[v])) ** 2
+    return dataclasses.replace(filters, early=early, tail_weights=np.sqrt(weights))
 
 
 def plan_from_feeds(

@@ -153,9 +153,10 @@ def test_every_builtin_layout_is_left_right_symmetric(name):
             assert s.azimuth > 0 and s.vector[1] > 0
 
 
-@pytest.mark.parametrize("name", list(LAYOUTS))
+@pytest.mark.parametrize("name", [n for n in LAYOUTS if n != "LCRS"])
 def test_channel_count_follows_the_layout_name(name):
     # "x.y" or "x.y.z": x main, y LFE, z height channels (common practice); 22.2 = 24.
+    # LCRS is named for its channels (test_layouts_more.py).
     layout = LAYOUTS[name]
     parts = [int(p) for p in name.split(".")]
     assert layout.channels == sum(parts) == len(layout.labels)
@@ -367,7 +368,7 @@ def test_suggest_layout_by_count_and_by_labels():
     assert suggest_layout(12).name == "7.1.4"
     assert suggest_layout(16).name == "9.1.6"
     assert suggest_layout(24).name == "22.2"
-    assert suggest_layout(7) is None
+    assert suggest_layout(13) is None  # no layout of 13 channels (7 is 7.0 now)
     heights = ["L", "R", "C", "LFE", "Ls", "Rs", "Ltf", "Rtf"]
     assert suggest_layout(8, heights).name == "5.1.2"
     assert suggest_layout(8, ["FL", "FR", "FC", "LFE", "BL", "BR", "SL", "SR"]).name == "7.1"
@@ -524,7 +525,7 @@ def test_get_layout_by_name():
     assert get_layout(" 22.2 ") is LAYOUTS["22.2"]
     with pytest.raises(
         LayoutError,
-        match=r"unknown layout '7\.2'; choose one of 2\.0, 5\.1, "
+        match=r"unknown layout '7\.2'; choose one of 2\.0, 3\.0, "
         r".*22\.2 or give a \.json layout file",
     ):
         get_layout("7.2")
