@@ -13,6 +13,11 @@ import { bus } from "./bus.js";
 import { mountChrome, notify } from "./chrome.js";
 import { readHash, writeHash } from "./hash.js";
 
+function stemNameOf(stem) {
+  const files = (stem.files || []).map((f) => f.name);
+  return files.length === 1 ? files[0] : files.length ? `${files[0]} + ${files.length - 1}` : "";
+}
+
 const TABS = ["settings", "speakers", "blind"];
 const TAB_NAMES = { settings: "Settings", speakers: "Speakers", blind: "Blind tests" };
 
@@ -101,7 +106,7 @@ async function mount(mountId, module, fn, label) {
 }
 
 async function start() {
-  mountChrome({ title: "Desk", current: "desk" });
+  const chrome = mountChrome({ title: "", current: "desk" });
   wireTabs();
   wireKeys();
   const place = readHash();
@@ -109,6 +114,7 @@ async function start() {
   bus.on("stem-selected", ({ stem }) => {
     bus.state.stem = stem || null;
     writeHash({ stem: stem ? stem.id : "" });
+    chrome.setTitle(stem ? stemNameOf(stem) : "");
   });
   const catalog = loadCatalog();
   await Promise.all([
