@@ -20,7 +20,7 @@ const TOP = { size: 270, radius: 108 };
 /** Zenith angle (90 - elevation) drawn at the top view's outer ring: -30 degrees of
     elevation, the lowest layer the common layouts use (BS.2051's bottom layer). */
 const TOP_ZENITH_MAX = 120;
-const SIDE = { width: 500, height: 210, left: 34, right: 12, top: 14, bottom: 24 };
+const SIDE = { width: 500, height: 240, left: 34, right: 12, top: 14, bottom: 24 };
 const LABEL_FONT_PX = 11;
 
 const E = {
@@ -78,7 +78,7 @@ function svgPoint(picture, event) {
 // ------------------------------------------------------------------ label placement
 
 function labelBox(label, x, y) {
-  const w = label.length * LABEL_FONT_PX * 0.62 + 4;
+  const w = label.length * LABEL_FONT_PX * 0.7 + 4;
   const h = LABEL_FONT_PX + 3;
   return { x: x - w / 2, y: y - h / 2, w, h };
 }
@@ -86,11 +86,15 @@ function labelBox(label, x, y) {
 /**
  * Place labels near their loudspeakers without overlapping each other or the marks:
  * start at the preferred offset, then push overlapping boxes apart a few dozen times.
+ * `obstacles` are boxes ({x, y, w, h}) that labels must keep clear of (the view's words).
  * `items` = [{ label, ax, ay, px, py }] (anchor = the mark, p = preferred centre).
  */
-export function placeLabels(items, bounds, markRadius = 7) {
+export function placeLabels(items, bounds, markRadius = 7, obstacles = []) {
   const boxes = items.map((it) => ({ ...labelBox(it.label, it.px, it.py), it }));
-  const marks = items.map((it) => ({ x: it.ax - markRadius, y: it.ay - markRadius, w: 2 * markRadius, h: 2 * markRadius }));
+  const marks = [
+    ...items.map((it) => ({ x: it.ax - markRadius, y: it.ay - markRadius, w: 2 * markRadius, h: 2 * markRadius })),
+    ...obstacles,
+  ];
   const overlap = (a, b) => {
     const dx = Math.min(a.x + a.w, b.x + b.w) - Math.max(a.x, b.x);
     const dy = Math.min(a.y + a.h, b.y + b.h) - Math.max(a.y, b.y);
@@ -107,7 +111,7 @@ export function placeLabels(items, bounds, markRadius = 7) {
       a.y += dir * o.dy * share + dir * 0.5;
     }
   };
-  for (let round = 0; round < 120; round += 1) {
+  for (let round = 0; round < 300; round += 1) {
     let moved = false;
     for (let i = 0; i < boxes.length; i += 1) {
       for (let j = i + 1; j < boxes.length; j += 1) {
@@ -129,22 +133,35 @@ export function placeLabels(items, bounds, markRadius = 7) {
 
 // ------------------------------------------------------------------ drawing
 
+/** A word of a view's furniture, and the box labels keep clear of. */
+function word(cls, x, y, text, anchor, obstacles) {
+  const w = text.length * 10 * 0.68 + 2;
+  const left = anchor === "middle" ? x - w / 2 : anchor === "end" ? x - w : x;
+  obstacles.push({ x: left, y: y - 10, w, h: 12 });
+  return svg("text", { class: cls, x, y, "text-anchor": anchor || "start" }, text);
+}
+
 function drawTop() {
   const picture = E.nodes.top;
   const c = TOP.size / 2;
   picture.replaceChildren();
   picture.append(svg("title", {}, "Top view: front up, left to the left; rings by elevation"));
+  const obstacles = [];
   for (const elevation of [-30, 0, 30, 60]) {
     const r = topRadius(elevation);
     picture.append(svg("circle", { class: elevation === 0 ? "ring ring-ear" : "ring", cx: c, cy: c, r }));
-    picture.append(svg("text", { class: "ring-label", x: c + r * 0.72 + 2, y: c + r * 0.72 + 2 }, `${elevation}°`));
   }
+  // Ring names in a column at the lower right, outside the rings where no label goes.
+  picture.append(word("ring-label", TOP.size - 4, TOP.size - 40, "rings, out to in:", "end", obstacles));
+  ["elevation -30°", "0° (solid)", "30°", "60°"].forEach((text, k) => {
+    picture.append(word("ring-label", TOP.size - 4, TOP.size - 30 + 9 * k, text, "end", obstacles));
+  });
   picture.append(
     svg("line", { class: "axis", x1: c, y1: c - TOP.radius - 4, x2: c, y2: c + TOP.radius + 4 }),
     svg("line", { class: "axis", x1: c - TOP.radius - 4, y1: c, x2: c + TOP.radius + 4, y2: c }),
-    svg("text", { class: "view-word", x: c, y: 10, "text-anchor": "middle" }, "front"),
-    svg("text", { class: "view-word", x: 4, y: c - 4 }, "left"),
-    svg("text", { class: "view-word", x: TOP.size - 4, y: c - 4, "text-anchor": "end" }, "right"),
+    word("view-word", c + 6, 10, "front", "start", obstacles),
+    word("view-word", 4, c - 6, "left", "start", obstacles),
+    word("view-word", TOP.size - 4, c - 6, "right", "end", obstacles),
     svg("circle", { class: "head", cx: c, cy: c, r: 9 }),
     svg("path", { class: "head", d: `M ${c - 4} ${c - 8} L ${c} ${c - 14} L ${c + 4} ${c - 8}` }),
   );
@@ -156,7 +173,8 @@ function drawTop() {
     const off = 15;
     return { label: s.label, ax: p.x, ay: p.y, px: p.x + (dx / d) * off * (d > 2 ? 1 : 0), py: p.y + (d > 2 ? (dy / d) * off : off) };
   });
-  const placed = placeLabels(items, { x: 0, y: 0, w: TOP.size, h: TOP.size });
+  obstacles.push({ x: c - 10, y: c - 15, w: 20, h: 25 });
+  const placed = placeLabels(items, { x: 0, y: 0, w: TOP.size, h: TOP.size }, 7, obstacles);
   mains.forEach(({ s, i }, k) => picture.append(speakerMark(s, i, items[k], placed[k], "top")));
   const lfe = E.speakers.map((s, i) => ({ s, i })).filter(({ s }) => s.lfe);
   if (lfe.length) {
@@ -190,17 +208,28 @@ function drawSide() {
     picture.append(svg("line", { class: elv === 0 ? "axis" : "grid", x1: SIDE.left, y1: y, x2: SIDE.left + w, y2: y }),
       svg("text", { class: "ring-label", x: SIDE.left - 4, y: y + 4, "text-anchor": "end" }, `${elv}°`));
   }
+  const obstacles = [];
   picture.append(
-    svg("text", { class: "view-word", x: SIDE.left + w / 2 + 3, y: SIDE.top + 10 }, "front"),
-    svg("text", { class: "view-word", x: SIDE.left + w * 0.25, y: SIDE.top + 10, "text-anchor": "middle" }, "left"),
-    svg("text", { class: "view-word", x: SIDE.left + w * 0.75, y: SIDE.top + 10, "text-anchor": "middle" }, "right"),
+    word("view-word", SIDE.left + w / 2 + 4, SIDE.top + h - 4, "front", "start", obstacles),
+    word("view-word", SIDE.left + w * 0.25, SIDE.top + h - 4, "left", "middle", obstacles),
+    word("view-word", SIDE.left + w * 0.75, SIDE.top + h - 4, "right", "middle", obstacles),
   );
   const mains = E.speakers.map((s, i) => ({ s, i })).filter(({ s }) => !s.lfe);
-  const items = mains.map(({ s }) => {
+  // Neighbours on one row take turns above and below their marks.
+  const rank = new Map();
+  const rows = new Map();
+  for (const { s, i } of mains) {
+    const key = Math.round(s.elevation);
+    if (!rows.has(key)) rows.set(key, []);
+    rows.get(key).push({ i, x: sidePoint(s).x });
+  }
+  for (const row of rows.values()) row.sort((a, b) => a.x - b.x).forEach((m, k) => rank.set(m.i, k));
+  const items = mains.map(({ s, i }) => {
     const p = sidePoint(s);
-    return { label: s.label, ax: p.x, ay: p.y, px: p.x, py: p.y + 14 };
+    const below = rank.get(i) % 2 === 0;
+    return { label: s.label, ax: p.x, ay: p.y, px: p.x, py: p.y + (below ? 14 : -14) };
   });
-  const placed = placeLabels(items, { x: SIDE.left, y: 0, w, h: SIDE.height - 16 });
+  const placed = placeLabels(items, { x: SIDE.left, y: 0, w, h: SIDE.height - 14 }, 7, obstacles);
   mains.forEach(({ s, i }, k) => picture.append(speakerMark(s, i, items[k], placed[k], "side")));
 }
 

@@ -196,8 +196,8 @@ export function createRoomEditor({ rooms, onChange = () => {} }) {
       el("div", { class: "room-side" }, drawing, drawingNote)),
     el("fieldset", { class: "tight" }, el("legend", {}, "Surfaces"),
       el("div", { class: "field inline" },
-        byAbsorption, el("label", { for: byAbsorption.id }, "absorption per surface and band"),
-        byRt60, el("label", { for: byRt60.id }, "RT60 per band (uniform absorption solved for it)")),
+        el("span", { class: "radio" }, byAbsorption, el("label", { for: byAbsorption.id }, "absorption per surface and band")),
+        el("span", { class: "radio" }, byRt60, el("label", { for: byRt60.id }, "RT60 per band (uniform absorption solved for it)"))),
       el("div", { class: "band-scroll" }, absorptionTable, rt60Table),
       el("p", { class: "hint" }, "Absorption coefficients run from 0 (reflects all) to 1 (absorbs all); RT60 in seconds.")),
     problem);
