@@ -67,12 +67,20 @@ def setup(live_server, tmp_path_factory) -> dict:
     return out
 
 
+def pick_stem(page, stem: dict) -> None:
+    """Select `stem` in the desk's stems panel."""
+    page.locator(f".stem-row[data-stem='{stem['id']}'] .stem-pick").click()
+    page.wait_for_function(
+        "id => window.earfoldDesk.state.stem && window.earfoldDesk.state.stem.id === id",
+        arg=stem["id"],
+    )
+
+
 def open_blind_tab(page, server, stem: dict) -> None:
-    """The desk with `stem` selected (through the desk's bus, as the stems panel does) and
-    the Blind tests tab open."""
+    """The desk with `stem` selected and the Blind tests tab open."""
     page.goto(server.url + "/")
     page.wait_for_selector("body[data-ready='1']")
-    page.evaluate("s => window.earfoldDesk.bus.emit('stem-selected', { stem: s })", stem)
+    pick_stem(page, stem)
     page.locator("#tab-blind").click()
     page.wait_for_selector("#view-blind:not([hidden])")
 
@@ -84,9 +92,7 @@ def test_the_form_shows_only_with_two_finished_renders(page, live_server, setup,
     assert "has 1 finished render" in note.inner_text()
     assert page.locator("#blind-form").count() == 0
     page.screenshot(path=str(artefacts / "blind-no-form.png"))
-    page.evaluate(
-        "s => window.earfoldDesk.bus.emit('stem-selected', { stem: s })", setup["pier-dawn.wav"]
-    )
+    pick_stem(page, setup["pier-dawn.wav"])
     page.wait_for_selector("#blind-form")
     # One choice per finished render of this stem, none of the other stem's.
     assert page.locator("#blind-form input[type=checkbox]").count() == 3
@@ -348,3 +354,17 @@ def test_charts_differ_in_colour_and_dash_and_read_out_on_hover(
     page.screenshot(path=str(artefacts / f"report-chart-readout-{theme}.png"), full_page=True)
     page.mouse.move(0, 0)
     assert readout.get_attribute("visibility") == "hidden"
+    # The keyboard reads out too: focus the chart, step along with the arrow keys.
+    spectra = page.locator("#chart-spectra")
+    spectra.focus()
+    page.keyboard.press("Home")
+    page.keyboard.press("ArrowRight")
+    first = json.loads(spectra.get_attribute("data-readout"))
+    page.keyboard.press("ArrowRight")
+    second = json.loads(spectra.get_attribute("data-readout"))
+    with httpx.Client(base_url=live_server.url) as http:
+        centres = http.get(f"/v1/renders/{view['id']}/report").json()["plots"]["spectra"]
+    assert first["x"] == centres["centres_hz"][1] and second["x"] == centres["centres_hz"][2]
+    assert second["values"] == [ear[2] for ear in centres["levels_db"]]
+    page.keyboard.press("Escape")
+    assert spectra.locator("g.readout").get_attribute("visibility") == "hidden"
