@@ -245,7 +245,7 @@ function headphoneSection(report) {
     ], "Headphone EQ"));
     if (hp.bands && hp.bands.length) {
       const t = el("table", { class: "table" }, el("thead", {}, el("tr", {},
-        ...["type", "frequency", "gain", "Q"].map((h) => el("th", { scope: "col" }, h)))));
+        ...["type", "frequency", "gain", "Q"].map((h, i) => el("th", { scope: "col", class: i ? "num" : null }, h)))));
       t.append(el("tbody", {}, ...hp.bands.map((b) => el("tr", {}, el("td", {}, b.type),
         el("td", { class: "num" }, num(b.frequency, 0, "Hz")), el("td", { class: "num" }, signed(b.gain_db, 1)),
         el("td", { class: "num" }, num(b.q, 2))))));
@@ -301,7 +301,7 @@ function roomSection(report) {
   const spk = r.speakers || [];
   if (spk.length) {
     const t = el("table", { class: "table", id: "room-speakers" }, el("thead", {}, el("tr", {},
-      ...["loudspeaker", "distance", "reflections", "direct-to-reverberant"].map((h) => el("th", { scope: "col" }, h)))));
+      ...["loudspeaker", "distance", "reflections", "direct-to-reverberant"].map((h, i) => el("th", { scope: "col", class: i ? "num" : null }, h)))));
     t.append(el("tbody", {}, ...spk.map((s) => el("tr", {}, el("th", { scope: "row" }, s.label),
       el("td", { class: "num" }, num(s.distance_m, 2, "m")), el("td", { class: "num" }, String(s.reflections ?? "–")),
       el("td", { class: "num" }, num(s.drr_db, 1, "dB"))))));
