@@ -368,3 +368,50 @@ def test_charts_differ_in_colour_and_dash_and_read_out_on_hover(
     assert second["values"] == [ear[2] for ear in centres["levels_db"]]
     page.keyboard.press("Escape")
     assert spectra.locator("g.readout").get_attribute("visibility") == "hidden"
+
+
+def test_screenshots_of_the_blind_test_and_report_pages(browser, live_server, setup, artefacts):
+    """Each page at 1,280 x 800 and 1,920 x 1,080 in both themes, with the header and the
+    hearing caution in view (the page's own palette tokens resolve in either theme)."""
+    r = setup["renders"]
+    with httpx.Client(base_url=live_server.url, timeout=30) as http:
+        resp = http.post(
+            "/v1/comparisons",
+            json={
+                "stem_id": setup["pier-dawn.wav"]["id"],
+                "mode": "abx",
+                "trials": 1,
+                "excerpt": {"length": 1.0},
+                "variants": [
+                    {"layout": "5.1", "name": "no room"},
+                    {"layout": "5.1", "room": "small", "name": "small room"},
+                ],
+            },
+        )
+        assert resp.status_code == 202, resp.text
+        comparison = resp.json()
+    pages = {
+        "compare": (f"/compare/{comparison['id']}", "body[data-state=listening]"),
+        "report": (f"/report/{r['small']['id']}", "body[data-state=ready]"),
+    }
+    backgrounds = {}
+    for theme in ("light", "dim"):
+        for width, height in ((1280, 800), (1920, 1080)):
+            context = browser.new_context(viewport={"width": width, "height": height})
+            context.add_init_script(f"localStorage.setItem('earfold.theme', '{theme}')")
+            pg = context.new_page()
+            try:
+                for name, (path, ready) in pages.items():
+                    pg.goto(live_server.url + path)
+                    pg.wait_for_selector(ready, timeout=90_000)
+                    assert pg.locator("header.chrome").is_visible()
+                    assert pg.locator("#hearing-caution").is_visible()
+                    backgrounds[(name, theme)] = pg.evaluate(
+                        "getComputedStyle(document.body).backgroundColor"
+                    )
+                    pg.screenshot(path=str(artefacts / f"{name}-{theme}-{width}x{height}.png"))
+            finally:
+                context.close()
+    # The dim theme is not the light one.
+    for name in pages:
+        assert backgrounds[(name, "light")] != backgrounds[(name, "dim")]
