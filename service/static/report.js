@@ -145,7 +145,14 @@ function summarySection(report, view) {
   }
   rows.push(["sample peak", num(out.peak_dbfs, 2, "dBFS")], ["clipped samples", String(out.clipped_samples ?? "–")]);
   if (report.lfe) rows.push(["LFE", `low-pass ${num(report.lfe.cutoff_hz, 0, "Hz")} (order ${report.lfe.order}), gain ${signed(report.lfe.gain_db, 1)}`]);
-  return facts(rows, "Summary");
+  const box = el("div", {}, facts(rows, "Summary"));
+  const asked = Object.entries(req).filter(([k, v]) => k !== "stem_id" && v !== null && v !== undefined);
+  if (asked.length) {
+    box.append(el("details", { class: "asked" }, el("summary", {}, "Settings asked for"),
+      facts(asked.map(([k, v]) => [k.replaceAll("_", " "),
+        typeof v === "object" ? el("code", {}, JSON.stringify(v)) : String(v)]), "Settings asked for")));
+  }
+  return box;
 }
 
 function messagesSection(report) {
