@@ -23,7 +23,7 @@ def cmd_layouts(args: argparse.Namespace) -> int:
     from earfold.renderer.layouts import LAYOUTS
 
     if args.json:
-        print_json([layout.to_dict() for layout in LAYOUTS.values()])
+        print_json([layout.listing() for layout in LAYOUTS.values()])
         return 0
     for layout in LAYOUTS.values():
         print(f"{layout.name:<7} {layout.channels:>2} channels  {layout.description}")
@@ -38,8 +38,14 @@ def cmd_layouts(args: argparse.Namespace) -> int:
             else:
                 cells.append(f"{s.label} {s.azimuth:+g}/{s.elevation:+g}")
         print("        " + ", ".join(cells))
+        for name, labels in layout.orders.items():
+            if name != "wav" and labels != layout.labels:
+                print(f"        order {name}: {','.join(labels)}")
     print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
-    print("Channel order shown is the default file order; override with --channel-order.")
+    print(
+        "Channel order shown is the default file order ('wav'); choose another with "
+        "--channel-order NAME (an order listed above) or --channel-order L,R,C,..."
+    )
     return 0
 
 

@@ -20,7 +20,7 @@ from ._files import (
 )
 from ._labels import canonical_label, filename_label, labels_from_filenames
 from ._model import Layout, Speaker
-from ._order import resolve_channel_order
+from ._order import ORDER_NAMES, order_labels, order_name, resolve_channel_order
 
 __all__ = [
     "LAYOUTS",
@@ -28,6 +28,7 @@ __all__ = [
     "MAX_LABEL_LENGTH",
     "MAX_LAYOUT_FILE_BYTES",
     "MAX_SPEAKERS",
+    "ORDER_NAMES",
     "SPEAKER_BITS",
     "Speaker",
     "canonical_label",
@@ -39,6 +40,8 @@ __all__ = [
     "load_layout_file",
     "mask_for_labels",
     "mask_to_speakers",
+    "order_labels",
+    "order_name",
     "resolve_channel_order",
     "suggest_layout",
 ]

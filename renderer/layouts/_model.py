@@ -202,6 +202,10 @@ class Layout:
                 return i
         return None
 
+    def listing(self) -> dict[str, Any]:
+        """The layout as catalogues list it: :meth:`to_dict` plus ``orders`` (name -> labels)."""
+        return {**self.to_dict(), "orders": {k: list(v) for k, v in self.orders.items()}}
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form, in the schema :func:`layout_from_dict` reads."""
         speakers = []

@@ -7,17 +7,18 @@ from collections.abc import Sequence
 from ..errors import LayoutError, shown
 from ._model import Layout
 
-__all__ = ["ORDER_NAMES", "order_labels", "resolve_channel_order"]
+__all__ = ["ORDER_NAMES", "order_labels", "order_name", "resolve_channel_order"]
 
 #: Names of the channel orders a layout may offer (:attr:`Layout.orders`).
 ORDER_NAMES = ("wav", "film")
 
 
-def _order_name(layout: Layout, labels: str | Sequence[str]) -> str | None:
+def order_name(layout: Layout, labels: str | Sequence[str]) -> str | None:
     """The order name ``labels`` stands for, or None if it is a list of labels.
 
     One word (a text without commas, or a list of one text) that is no label of the
-    layout is taken as the name of an order.
+    layout is taken as the name of an order (lower-cased; :func:`order_labels` checks
+    that the layout has it).
     """
     if isinstance(labels, str):
         text = labels if "," not in labels else None
@@ -85,7 +86,7 @@ def resolve_channel_order(layout: Layout, labels: str | Sequence[str]) -> tuple[
         names all of them and lists the layout's labels. An unknown order name lists
         the layout's orders.
     """
-    name = _order_name(layout, labels)
+    name = order_name(layout, labels)
     if name is not None:
         labels = order_labels(layout, name)
     elif isinstance(labels, str):

@@ -37,6 +37,7 @@ from ..errors import OptionError
 from ..layouts import Layout
 from ..room import Room
 from ._spec import KINDS, OptionSpec
+from .fold import FOLD_CHOICES
 
 __all__ = [
     "DELIVERY_OPTIONS",
@@ -82,8 +83,28 @@ RENDER_OPTIONS: tuple[OptionSpec, ...] = (
     OptionSpec(
         "channel_order",
         "labels",
-        "labels of the file's channels in file order (overrides channel masks and file names)",
-        metavar="L,R,C,...",
+        "labels of the file's channels in file order, or the name of one of the layout's "
+        "orders: wav (the WAV channel-mask order, the layout's default) or film (L C R, "
+        "surrounds, LFE, heights; 'earfold layouts' or GET /v1/layouts list them); "
+        "overrides channel masks and file names",
+        metavar="L,R,C,...|NAME",
+    ),
+    OptionSpec(
+        "fold",
+        "choice",
+        "binaural: the binaural render (default); stereo: the plain two-channel fold-down "
+        "of ITU-R BS.775 (Lo = L + 0.7071 C + 0.7071 Ls, LFE left out; other layouts by "
+        "side and height), with no HRTF and no room, loudness-managed like any render: "
+        "the reference to compare a binaural render with",
+        default="binaural",
+        choices=FOLD_CHOICES,
+    ),
+    OptionSpec(
+        "solo",
+        "text",
+        "render one loudspeaker alone: a channel label of the layout (after the channel "
+        "order), all other channels silent; default: all channels",
+        metavar="LABEL",
     ),
     OptionSpec(
         "hrtf",
@@ -245,8 +266,9 @@ class RenderSettings:
     layout : str, Layout or None
         Layout name, a JSON layout file or a :class:`Layout`; None: the one the stem
         suggests.
-    channel_order : sequence of str, optional
-        Labels of the file channels in file order; overrides masks and file names.
+    channel_order : sequence of str or str, optional
+        Labels of the file channels in file order, or the name of one of the layout's
+        orders (``wav``, ``film``: :attr:`Layout.orders`); overrides masks and file names.
     hrtf : str, optional
         A shipped set's name or a SOFA file; None (or empty): the default set.
     lfe : LfeOptions
@@ -283,10 +305,16 @@ class RenderSettings:
         Headphone compensation applied once to the two-channel output: a JSON band list
         file, an impulse response (WAV/FLAC), or the parsed band list itself
         (:mod:`earfold.renderer.eq.headphone`).
+    fold : str
+        ``"binaural"`` (default) or ``"stereo"``: the ITU-R BS.775 fold-down to two
+        channels (:mod:`earfold.renderer.render.fold`), without HRTF or room.
+    solo : str, optional
+        A channel label of the layout: render that loudspeaker alone (the others
+        silent), everything else as asked; None renders every channel.
     """
 
     layout: str | os.PathLike[str] | Layout | None = None
-    channel_order: Sequence[str] | None = None
+    channel_order: Sequence[str] | str | None = None
     hrtf: str | None = None
     lfe: LfeOptions = field(default_factory=LfeOptions)
     subtype: str = "PCM_24"
@@ -300,6 +328,8 @@ class RenderSettings:
     excerpt: tuple[float, float] | None = None
     eq: str | None = None
     headphone_eq: str | os.PathLike[str] | list[Any] | dict[str, Any] | None = None
+    fold: str = "binaural"
+    solo: str | None = None
 
 
 def output_format(path: str | os.PathLike[str], format: str | None = None) -> str:

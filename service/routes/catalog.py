@@ -77,9 +77,13 @@ def health(request: Request) -> dict:
     responses=problem_responses(UNAUTHORIZED),
 )
 def layouts(owner: str = Depends(current_owner)) -> list[dict]:
+    """Every built-in layout: name, description, source, speakers (label, azimuth,
+    elevation, lfe, and ``spread`` for a channel on several loudspeakers) and ``orders``,
+    the named channel orders (``wav``, ``film``) as label lists, which ``channel_order``
+    accepts by name."""
     from earfold.renderer.layouts import LAYOUTS
 
-    return [layout.to_dict() for layout in LAYOUTS.values()]
+    return [layout.listing() for layout in LAYOUTS.values()]
 
 
 def room_names() -> list[str]:

@@ -71,9 +71,11 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
         annotation = Name | dict[str, Any]
     elif spec.name in ("hrtf", "room"):
         annotation = Name
+    elif spec.name == "solo":
+        annotation = Label
     elif spec.kind == "labels":
-        annotation = list[Label]
-        extra = {"min_length": 1, "max_length": 64}
+        # A list of labels, or the name of one of the layout's orders ("film").
+        annotation = Annotated[list[Label], Field(min_length=1, max_length=64)] | Label
     elif spec.kind == "headphone_eq":
         annotation = list[EqBand]
         extra = {"min_length": 1, "max_length": 64}
