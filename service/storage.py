@@ -1,4 +1,5 @@
-"""Where the service keeps files: ``DATA_DIR/{stems,renders,hrtf,comparisons,tmp}/ID/...``.
+"""Where the service keeps files: ``DATA_DIR/{stems,renders,hrtf,comparisons,presets,
+headphone-eq,tmp}/ID/...``.
 
 Ids are uuid4 hex, made here and checked with a full-match pattern before they touch a
 path; a user's file name is metadata only. Objects are assembled in ``tmp/`` and renamed
@@ -22,7 +23,7 @@ from .problems import NO_SPACE, NOT_FOUND, Problem
 __all__ = ["KINDS", "META", "Storage", "new_id", "valid_id", "write_json_atomic"]
 
 #: Kinds of stored object, one folder each (DESIGN.md, "Storage").
-KINDS = ("stems", "renders", "hrtf", "comparisons")
+KINDS = ("stems", "renders", "hrtf", "comparisons", "presets", "headphone-eq")
 
 _ID = re.compile(r"[0-9a-f]{32}")
 
@@ -153,4 +154,6 @@ def _noun(kind: str) -> str:
         "renders": "render",
         "hrtf": "HRTF set",
         "comparisons": "comparison",
+        "presets": "preset",
+        "headphone-eq": "headphone EQ",
     }.get(kind, kind)
