@@ -3,8 +3,8 @@
 Every field of ``POST /v1/renders`` and of a comparison's variants is made here from
 :data:`earfold.renderer.render.RENDER_OPTIONS`: its type, range or choices, default and
 description. Only what HTTP spells differently is added: a layout may be a layout object,
-a room a room object, an HRTF set an uploaded set's id, and the headphone EQ is the list of
-bands itself.
+a room a room object, an HRTF set an uploaded set's id, and the headphone EQ the list of
+bands itself or an uploaded file's id.
 """
 
 from __future__ import annotations
@@ -20,6 +20,11 @@ __all__ = ["EqBand", "http_options", "option_fields", "options_model"]
 
 Label = Annotated[str, Field(min_length=1, max_length=16)]
 Name = Annotated[str, Field(max_length=64)]
+
+#: The id of an uploaded file (POST /v1/headphone-eq).
+UploadId = Annotated[
+    str, Field(pattern=r"^[0-9a-f]{32}$", description="id of an uploaded headphone EQ file")
+]
 
 
 class EqBand(BaseModel):
@@ -87,12 +92,13 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
         annotation = Name | Annotated[dict[str, Any], Field(json_schema_extra=_ROOM_OBJECT)]
     elif spec.name == "hrtf":
         annotation = Name
+    elif spec.name == "solo":
+        annotation = Label
     elif spec.kind == "labels":
         # A list of labels, or the name of one of the layout's orders ("film").
         annotation = Annotated[list[Label], Field(min_length=1, max_length=64)] | Label
     elif spec.kind == "headphone_eq":
-        annotation = list[EqBand]
-        extra = {"min_length": 1, "max_length": 64}
+        annotation = Annotated[list[EqBand], Field(min_length=1, max_length=64)] | UploadId
     elif spec.kind == "choice":
         annotation = Literal[spec.choices]  # type: ignore[valid-type]
     elif spec.kind == "number":

@@ -41,7 +41,7 @@ from ..problems import (
 from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
-from .option_models import http_options, options_model
+from .option_models import EqBand, http_options, options_model
 
 router = APIRouter(
     prefix="/v1/renders", tags=["renders"], responses=problem_responses(UNAUTHORIZED)
@@ -139,6 +139,21 @@ def room_object(value: dict, field: str) -> None:
         ) from None
 
 
+def uploaded_bands(eq_id: str, storage: Storage, owner: str) -> list[Any]:
+    """The bands of the owner's uploaded headphone EQ ``eq_id`` (none for an impulse
+    response), for the stem's checks; 422 if there is no such upload."""
+    try:
+        meta = storage.read_meta("headphone-eq", eq_id, owner)
+    except Problem:
+        raise Problem(
+            UNPROCESSABLE,
+            f"headphone_eq: no uploaded headphone EQ with id {eq_id!r}; upload one with "
+            "POST /v1/headphone-eq (GET /v1/headphone-eq lists yours) or give a list of bands",
+            errors=[{"field": "headphone_eq", "message": "unknown id"}],
+        ) from None
+    return [EqBand.model_validate(b) for b in meta["summary"].get("band_list", [])]
+
+
 def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, str | None]:
     """(shipped name, uploaded id) for the request's HRTF set; 422 if unknown."""
     from earfold.hrtf_sets import DEFAULT_SET, SHIPPED
@@ -216,7 +231,10 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
             "FLAC holds integer samples only; choose subtype PCM_16 or PCM_24, or format 'wav'",
         )
     shipped, hrtf_id = _hrtf(req.hrtf, storage, owner)
-    for i, band in enumerate(req.headphone_eq or []):
+    bands = req.headphone_eq if isinstance(req.headphone_eq, list) else []
+    if isinstance(req.headphone_eq, str):
+        bands = uploaded_bands(req.headphone_eq, storage, owner)
+    for i, band in enumerate(bands):
         if band.frequency >= stem["samplerate"] / 2:
             raise Problem(
                 UNPROCESSABLE,

@@ -46,3 +46,26 @@ def test_render_request_takes_an_order_name(client, tmp_path):
         "unknown channel order 'smpte' for layout '5.1'; its orders are wav, film"
         in (bad.json()["detail"])
     )
+
+
+def test_cli_render_takes_an_order_name_fold_and_solo(tmp_path):
+    import numpy as np
+
+    from earfold.renderer.io import read_audio, write_audio
+
+    rng = np.random.default_rng(4)
+    film = (0.05 * rng.standard_normal((4800, 6))).astype(np.float32)  # L C R Ls Rs LFE
+    write_audio(tmp_path / "film.wav", film, 48000, subtype="FLOAT")
+    out, report = tmp_path / "o.wav", tmp_path / "o.json"
+    args = ["render", str(tmp_path / "film.wav"), "-o", str(out), "--layout", "5.1"]
+    args += ["--channel-order", "film", "--fold", "stereo", "--solo", "C"]
+    args += ["--loudness", "none", "--true-peak", "off", "--subtype", "FLOAT"]
+    args += ["--report", str(report)]
+    assert main(args) == 0
+    data = json.loads(report.read_text())
+    assert data["solo"] == {"label": "C", "channel": 1, "lfe": False}
+    assert data["channel_order"]["source"] == "channel order 'film'"
+    y, _ = read_audio(out)
+    # The centre alone, folded: 0.7071 to both sides (ITU-R BS.775).
+    np.testing.assert_allclose(y[:, 0], 0.7071 * film[:, 1], atol=1e-6)
+    np.testing.assert_allclose(y[:, 1], 0.7071 * film[:, 1], atol=1e-6)
