@@ -395,8 +395,8 @@ def _plan_fold(
     ignored = []
     if room is not None:
         ignored.append(f"the room {room.name!r}")
-    if settings.hrtf:
-        ignored.append(f"the HRTF set {settings.hrtf!r}")
+    # The HRTF set is not named: the service always names one (its default), and the
+    # report's hrtf section (null) and fold section already say that none is used.
     if settings.eq not in (None, "none"):
         ignored.append(f"the HRTF equalisation {settings.eq!r}")
     if ignored:
