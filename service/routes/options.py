@@ -26,12 +26,14 @@ __all__ = ["comparison_limits", "option_entry", "router"]
 router = APIRouter(prefix="/v1", tags=["catalog"], responses=problem_responses(UNAUTHORIZED))
 
 #: Where the values of an option that names something are listed (an option not here
-#: takes a number, a word of ``choices`` or a list).
+#: takes a number, a word of ``choices`` or a list); a layout's order names and labels
+#: are in its entry of ``/v1/layouts``.
 CATALOGS = {
     "layout": "/v1/layouts",
     "hrtf": "/v1/hrtf-sets",
     "room": "/v1/rooms",
     "headphone_eq": "/v1/headphone-eq",
+    "channel_order": "/v1/layouts",
 }
 
 #: What else than its declared kind an option takes over HTTP (see option_models).
@@ -40,7 +42,8 @@ HTTP_FORMS = {
     "hrtf": ["name", "uploaded id"],
     "room": ["name", "room object"],
     "headphone_eq": ["list of bands", "uploaded id"],
-    "channel_order": ["list of labels"],
+    "channel_order": ["list of labels", "order name"],
+    "solo": ["channel label"],
 }
 
 
