@@ -353,3 +353,46 @@ def test_text_contrast_in_both_themes(page, live_server, two_renders, theme):
     assert low_contrast(page) == []
     page.click("#player-keys")
     assert low_contrast(page) == []
+
+
+def test_loop_region_keeps_every_source_inside_it_and_aligned(page, live_server, two_renders):
+    stem, (a, b) = two_renders["stem"], two_renders["renders"]
+    open_desk(page, live_server, f"#stem={stem['id']}")
+    row(page, a).locator(".act-ab").click()
+    row(page, b).locator(".act-ab").click()
+    page.wait_for_selector("#ab-switcher .ab-source:not([disabled]) >> nth=1")
+    page.keyboard.press("Space")
+    page.wait_for_function("earfoldDesk.player.state().position > 0.3")
+    page.keyboard.press("i")
+    page.wait_for_function("(s => s.position > s.loop.in + 0.5)(earfoldDesk.player.state())")
+    page.keyboard.press("o")
+    page.keyboard.press("l")
+    loop = page.evaluate("earfoldDesk.player.state().loop")
+    assert loop["on"] and loop["out"] - loop["in"] >= 0.5
+    rate = 48_000
+    for _ in range(8):  # about 1.6 s: the 0.5 s loop wraps at least twice
+        page.wait_for_timeout(200)
+        positions = list(page.evaluate("earfoldDesk.player.positions()").values())
+        assert max(positions) - min(positions) <= RENDER_QUANTUM, positions
+        low, high = loop["in"] * rate - RENDER_QUANTUM, loop["out"] * rate + RENDER_QUANTUM
+        for frames in positions:
+            assert low <= frames <= high, (positions, loop)
+    assert page.locator("#loop-toggle").get_attribute("aria-pressed") == "true"
+
+
+def test_play_from_the_row_streams_a_signed_link(page, live_server, two_renders):
+    stem, (a, _) = two_renders["stem"], two_renders["renders"]
+    audio_requests: list[dict] = []
+    page.on(
+        "request",
+        lambda r: audio_requests.append(r.headers) if f"/v1/renders/{a}/audio" in r.url else None,
+    )
+    open_desk(page, live_server, f"#stem={stem['id']}")
+    row(page, a).locator(".act-play").click()
+    page.wait_for_function("document.querySelector('#stream-audio').currentTime > 0.2")
+    src = page.get_attribute("#stream-audio", "src")
+    assert src.startswith(f"/v1/renders/{a}/audio?key="), src
+    assert page.evaluate("document.querySelector('#stream-audio').volume") == pytest.approx(0.1)
+    assert audio_requests  # the element fetched it itself (Range requests), not a blob
+    page.keyboard.press("Space")
+    page.wait_for_function("document.querySelector('#stream-audio').paused")
