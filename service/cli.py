@@ -187,6 +187,8 @@ def cmd_render(args: argparse.Namespace) -> int:
             + (f"; report {report_path}" if report_path else ""),
             file=sys.stderr,
         )
+        for note in report.get("notes", []):
+            print(note, file=sys.stderr)
         for w in report["warnings"]:
             print(f"warning: {w}", file=sys.stderr)
     return 0

@@ -1,7 +1,8 @@
 """One render: options, what feeds the ears, plan, streaming, delivery and the report.
 
 Modules: :mod:`.options` (every render option declared once, and RenderSettings),
-:mod:`.feeds` (what feeds the ears, per input channel), :mod:`.plan` (the plan, decided
+:mod:`.feeds` (what feeds the ears, per input channel), :mod:`.fold` (the ITU-R BS.775
+stereo fold-down, the reference a binaural render is compared with), :mod:`.plan` (the plan, decided
 before any audio is read), :mod:`.stream` (the streaming pass), :mod:`.report` (the
 report) and :mod:`.plot_data` (its plots); :func:`render` runs them in turn.
 """
@@ -9,6 +10,7 @@ report) and :mod:`.plot_data` (its plots); :func:`render` runs them in turn.
 from __future__ import annotations
 
 from .feeds import ChannelFeed, speaker_feeds
+from .fold import BS775_DOWNMIX, FOLD_CHOICES, fold_coefficients, fold_feeds
 from .options import (
     DELIVERY_OPTIONS,
     RENDER_OPTIONS,
@@ -32,6 +34,8 @@ from .runner import render
 from .stream import engine_for
 
 __all__ = [
+    "BS775_DOWNMIX",
+    "FOLD_CHOICES",
     "DELIVERY_OPTIONS",
     "LOUDNESS_POINTS",
     "RENDER_OPTIONS",
@@ -44,6 +48,8 @@ __all__ = [
     "SpectrumMeter",
     "energy_decay",
     "engine_for",
+    "fold_coefficients",
+    "fold_feeds",
     "option",
     "plan_from_feeds",
     "plan_render",

@@ -37,6 +37,7 @@ from ..errors import OptionError
 from ..layouts import Layout
 from ..room import Room
 from ._spec import KINDS, OptionSpec
+from .fold import FOLD_CHOICES
 
 __all__ = [
     "DELIVERY_OPTIONS",
@@ -87,6 +88,23 @@ RENDER_OPTIONS: tuple[OptionSpec, ...] = (
         "surrounds, LFE, heights; 'earfold layouts' or GET /v1/layouts list them); "
         "overrides channel masks and file names",
         metavar="L,R,C,...|NAME",
+    ),
+    OptionSpec(
+        "fold",
+        "choice",
+        "binaural: the binaural render (default); stereo: the plain two-channel fold-down "
+        "of ITU-R BS.775 (Lo = L + 0.7071 C + 0.7071 Ls, LFE left out; other layouts by "
+        "side and height), with no HRTF and no room, loudness-managed like any render: "
+        "the reference to compare a binaural render with",
+        default="binaural",
+        choices=FOLD_CHOICES,
+    ),
+    OptionSpec(
+        "solo",
+        "text",
+        "render one loudspeaker alone: a channel label of the layout (after the channel "
+        "order), all other channels silent; default: all channels",
+        metavar="LABEL",
     ),
     OptionSpec(
         "hrtf",
@@ -287,6 +305,12 @@ class RenderSettings:
         Headphone compensation applied once to the two-channel output: a JSON band list
         file, an impulse response (WAV/FLAC), or the parsed band list itself
         (:mod:`earfold.renderer.eq.headphone`).
+    fold : str
+        ``"binaural"`` (default) or ``"stereo"``: the ITU-R BS.775 fold-down to two
+        channels (:mod:`earfold.renderer.render.fold`), without HRTF or room.
+    solo : str, optional
+        A channel label of the layout: render that loudspeaker alone (the others
+        silent), everything else as asked; None renders every channel.
     """
 
     layout: str | os.PathLike[str] | Layout | None = None
@@ -304,6 +328,8 @@ class RenderSettings:
     excerpt: tuple[float, float] | None = None
     eq: str | None = None
     headphone_eq: str | os.PathLike[str] | list[Any] | dict[str, Any] | None = None
+    fold: str = "binaural"
+    solo: str | None = None
 
 
 def output_format(path: str | os.PathLike[str], format: str | None = None) -> str:

@@ -36,6 +36,7 @@ from ..layouts import (
 )
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
 from .feeds import ChannelFeed, speaker_feeds
+from .fold import FOLD_CHOICES, fold_feeds, fold_section
 from .options import ROOM_MODES, RenderSettings
 
 __all__ = ["RenderPlan", "plan_from_feeds", "plan_render", "resolve_hrtf"]
@@ -51,8 +52,8 @@ class RenderPlan:
         The input (or the excerpt of it that is rendered).
     feeds : tuple of ChannelFeed
         What feeds the ears, one per input channel in file order.
-    hrir_set : HrirSet
-        The (equalised) set the feeds were built from.
+    hrir_set : HrirSet or None
+        The (equalised) set the feeds were built from; None for the stereo fold-down.
     filters : numpy.ndarray, shape (C, 2, L)
         The calibrated filter bank, in file channel order.
     warnings : tuple of str
@@ -69,11 +70,19 @@ class RenderPlan:
         The report's sections.
     headphone : HeadphoneEq or None
         Applied to the two-channel output.
+    notes : tuple of str
+        Information the report gives without alarm (what every default render would
+        show); ``warnings`` are kept for real problems.
+    fold : dict
+        The report's ``fold`` section: ``{"mode": "binaural"}``, or the stereo
+        fold-down's coefficients and source.
+    solo : dict or None
+        The loudspeaker rendered alone (label, layout index, file channel), or None.
     """
 
     stem: StemInfo
     feeds: tuple[ChannelFeed, ...]
-    hrir_set: HrirSet
+    hrir_set: HrirSet | None
     filters: NDArray[np.float64]
     warnings: tuple[str, ...]
     layout: Layout
@@ -86,6 +95,9 @@ class RenderPlan:
     eq: dict[str, Any] | None = None
     calibration: dict[str, Any] | None = None
     headphone: HeadphoneEq | None = None
+    notes: tuple[str, ...] = ()
+    fold: dict[str, Any] = dataclasses.field(default_factory=lambda: {"mode": "binaural"})
+    solo: dict[str, Any] | None = None
 
     @property
     def speakers(self) -> tuple[dict[str, Any], ...]:
@@ -250,19 +262,32 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
     stem = probe_stem(inputs)
     if settings.excerpt is not None:
         stem = _excerpt(stem, settings.excerpt)
+    if settings.fold not in FOLD_CHOICES:
+        raise RendererError(
+            f"unknown fold {settings.fold!r}; choose one of {', '.join(FOLD_CHOICES)}"
+        )
     layout = _layout(stem, settings.layout)
     order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
+    solo = _solo(layout, order, settings.solo)
+    notes: list[str] = []
+    if solo is not None and settings.loudness is not None:
+        notes.append(
+            f"solo {solo['label']!r}: the loudness target applies to this loudspeaker alone, "
+            "so it plays at the target, not at its level within the mix (loudness none "
+            "keeps the render's own level)"
+        )
     if settings.layout is None:
         # Said every time: a layout guessed from a channel count can be the wrong one.
-        warnings.insert(
-            0,
+        notes.append(
             f"no layout was given: rendered as {layout.name}, the layout suggested for "
             f"{stem.channels} channel(s); name the layout if the stem was mixed for another",
         )
+    if settings.fold == "stereo":
+        return _plan_fold(stem, layout, order, order_source, warnings, notes, settings, solo)
     path, name = resolve_hrtf(settings.hrtf)
     hset = load_hrir_set(path, stem.samplerate, name=name)
     warnings.extend(hset.warnings)  # what the SOFA reader changed or found odd
-    hset, eq_report = _equalise(hset, settings.eq, warnings)
+    hset, eq_report = _equalise(hset, settings.eq, warnings, notes)
     headphone = None
     if settings.headphone_eq is not None:
         headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
@@ -329,6 +354,92 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         room=room_report,
         eq=eq_report,
         headphone=headphone,
+        notes=notes,
+        solo=solo,
+    )
+
+
+def _solo(layout: Layout, order: Sequence[int], label: str | None) -> dict[str, Any] | None:
+    """The loudspeaker ``label`` names (layout index, file channel), or None.
+
+    Raises
+    ------
+    LayoutError
+        If the label is no channel of the layout; the message lists its labels.
+    """
+    if label is None:
+        return None
+    if not isinstance(label, str) or not label.strip():
+        raise LayoutError(
+            f"solo must be a channel label of layout {layout.name!r} "
+            f"({', '.join(layout.labels)}), not {label!r}"
+        )
+    try:
+        index = layout.index(label.strip())
+    except LayoutError as exc:
+        raise LayoutError(f"solo: {exc}") from None
+    speaker = layout.speakers[index]
+    return {
+        "label": speaker.label,
+        "channel": list(order).index(index),
+        "lfe": speaker.lfe,
+    }
+
+
+def _plan_fold(
+    stem: StemInfo,
+    layout: Layout,
+    order: tuple[int, ...],
+    order_source: str,
+    warnings: list[str],
+    notes: list[str],
+    settings: RenderSettings,
+    solo: dict[str, Any] | None,
+) -> RenderPlan:
+    """The plan of the stereo fold-down (:mod:`.fold`): one-tap feeds, no HRTF, no room."""
+    room = get_room(settings.room)
+    ignored = []
+    if room is not None:
+        ignored.append(f"the room {room.name!r}")
+    # The HRTF set is not named: the service always names one (its default), and the
+    # report's hrtf section (null) and fold section already say that none is used.
+    if settings.eq not in (None, "none"):
+        ignored.append(f"the HRTF equalisation {settings.eq!r}")
+    if ignored:
+        verb = "does not apply and was" if len(ignored) == 1 else "do not apply and were"
+        notes.append(
+            "fold stereo is the plain ITU-R BS.775 fold-down to two loudspeaker channels: "
+            f"{' and '.join(ignored)} asked for {verb} left out"
+        )
+    if solo is not None and solo["lfe"]:
+        warnings.append(
+            f"solo {solo['label']!r} with fold stereo: the fold-down leaves the LFE out "
+            "(ITU-R BS.775), so the output is silent"
+        )
+    eq_report: dict[str, Any] = {
+        "type": "none",
+        "chosen": "fold stereo: no HRTF",
+        "diffuse_field": None,
+        "headphone": None,
+    }
+    headphone = None
+    if settings.headphone_eq is not None:
+        headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
+        eq_report["headphone"] = headphone.report
+    return plan_from_feeds(
+        stem,
+        fold_feeds(layout, order),
+        None,
+        warnings,
+        layout=layout,
+        order=order,
+        order_source=order_source,
+        eq=eq_report,
+        headphone=headphone,
+        notes=notes,
+        fold=fold_section(layout),
+        solo=solo,
+        calibrate=False,
     )
 
 
@@ -370,7 +481,7 @@ def _room_filters(
 def plan_from_feeds(
     stem: StemInfo,
     feeds: Sequence[ChannelFeed],
-    hset: HrirSet,
+    hset: HrirSet | None,
     warnings: Sequence[str],
     *,
     layout: Layout,
@@ -381,12 +492,19 @@ def plan_from_feeds(
     room: dict[str, Any] | None = None,
     eq: dict[str, Any] | None = None,
     headphone: HeadphoneEq | None = None,
+    notes: Sequence[str] = (),
+    fold: dict[str, Any] | None = None,
+    solo: dict[str, Any] | None = None,
+    calibrate: bool = True,
 ) -> RenderPlan:
     """Stack the feeds' filters into one bank, calibrate it with the tail, and plan.
 
     The calibration gain (:mod:`earfold.renderer.eq.calibration`) is computed over the
     non-LFE feeds, each with its share of the tail, and applied to every filter and to the
-    tail.
+    tail; ``calibrate=False`` leaves the filters as they are (the stereo fold-down, whose
+    coefficients are the standard's). With ``solo`` (``{"channel": i, ...}``) every other
+    channel's filters and tail share are then zeroed, so the soloed loudspeaker sounds
+    exactly as in the full render.
     """
     pairs = [f.filters for f in feeds]
     length = max(p.shape[-1] for p in pairs)
@@ -396,15 +514,28 @@ def plan_from_feeds(
     tail_weights = None
     if tail is not None:
         tail_weights = np.asarray([f.tail_weight for f in feeds], dtype=np.float64)
-    gain = _calibrate(filters, feeds, tail, tail_weights, tail_offset, stem.samplerate)
+    if calibrate:
+        gain = _calibrate(filters, feeds, tail, tail_weights, tail_offset, stem.samplerate)
+        calibration = {
+            "gain_db": round(float(20 * np.log10(gain)), 3),
+            "reference": CALIBRATION_REFERENCE,
+            "applied": "to every filter, before the delivery stage",
+        }
+    else:
+        gain = 1.0
+        calibration = {
+            "gain_db": 0.0,
+            "reference": "none: the feeds' gains are used as they are",
+            "applied": "not applied",
+        }
     filters *= gain
     if tail is not None:
         tail = tail * gain
-    calibration = {
-        "gain_db": round(float(20 * np.log10(gain)), 3),
-        "reference": CALIBRATION_REFERENCE,
-        "applied": "to every filter, before the delivery stage",
-    }
+    if solo is not None:
+        others = [i for i in range(len(feeds)) if i != solo["channel"]]
+        filters[others] = 0.0
+        if tail_weights is not None:
+            tail_weights[others] = 0.0
     return RenderPlan(
         stem=stem,
         feeds=tuple(feeds),
@@ -421,11 +552,14 @@ def plan_from_feeds(
         eq=eq,
         calibration=calibration,
         headphone=headphone,
+        notes=tuple(notes),
+        fold=fold if fold is not None else {"mode": "binaural"},
+        solo=solo,
     )
 
 
 def _equalise(
-    hset: HrirSet, choice: str | None, warnings: list[str]
+    hset: HrirSet, choice: str | None, warnings: list[str], notes: list[str]
 ) -> tuple[HrirSet, dict[str, Any]]:
     """Apply the equalisation asked for (or the set's default); the report section."""
     choice = check_eq(choice)
@@ -454,7 +588,8 @@ def _equalise(
         hset, summary = equalised(hset)
         report["diffuse_field"] = summary
         if summary.get("boost_limited"):
-            warnings.append(
+            # A property of the set, shown by every render with it: information, no alarm.
+            notes.append(
                 f"HRTF set {hset.name!r}: the diffuse-field inverse reached its boost limit "
                 f"({summary['max_boost_db']:g} dB); the deepest dips are only partly filled"
             )

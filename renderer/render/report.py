@@ -29,6 +29,11 @@ def render_report(
 ) -> dict[str, Any]:
     """The report of a finished render.
 
+    ``warnings`` hold real problems (clipping, a limiter that had to work hard, a channel
+    order that did not fit ...); ``notes`` hold information every render of the kind
+    shows (the layout guessed when none was named, the shipped set's diffuse-field
+    boost limit, options a fold-down leaves out): neutral, not alarms.
+
     Parameters
     ----------
     plan : RenderPlan
@@ -48,6 +53,7 @@ def render_report(
     stem = plan.stem
     t0, t_plan, t_render, t_end = timings
     warnings = list(stem.warnings) + list(plan.warnings)
+    notes = list(plan.notes)
     if delivery is not None:
         warnings.extend(delivery["warnings"])
         clipped = delivery["clipped_samples"]
@@ -89,7 +95,9 @@ def render_report(
             "labels": [plan.layout.speakers[i].label for i in plan.order],
             "source": plan.order_source,
         },
-        "hrtf": {
+        "hrtf": None
+        if hset is None
+        else {
             "name": hset.name,
             "file": Path(hset.source).name,
             "sha256": hset.sha256,
@@ -98,6 +106,8 @@ def render_report(
             "samplerate": hset.samplerate,
             "taps": hset.taps,
         },
+        "fold": plan.fold,
+        "solo": plan.solo,
         "speakers": list(plan.speakers),
         "lfe": {
             "cutoff_hz": settings.lfe.cutoff_hz,
@@ -132,5 +142,6 @@ def render_report(
         "platform": {"python": platform.python_version(), "machine": platform.machine()},
         "plots": plot_section(plan, out_path, delivery),
         "warnings": warnings,
+        "notes": notes,
     }
     return report

@@ -71,6 +71,8 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
         annotation = Name | dict[str, Any]
     elif spec.name in ("hrtf", "room"):
         annotation = Name
+    elif spec.name == "solo":
+        annotation = Label
     elif spec.kind == "labels":
         # A list of labels, or the name of one of the layout's orders ("film").
         annotation = Annotated[list[Label], Field(min_length=1, max_length=64)] | Label

@@ -147,9 +147,10 @@ def test_a_render_without_a_layout_says_which_it_took(tmp_path):
     stem, _ = _stem(tmp_path, "5.1", {"C": _noise(1000)})
     _, report = _render(tmp_path, stem, None)
     assert report["layout"]["name"] == "5.1"
-    assert any("no layout was given: rendered as 5.1" in w for w in report["warnings"])
+    assert any("no layout was given: rendered as 5.1" in n for n in report["notes"])
+    assert not any("no layout was given" in w for w in report["warnings"])
     _, named = _render(tmp_path, stem, "5.1")
-    assert not any("no layout was given" in w for w in named["warnings"])
+    assert not any("no layout was given" in n for n in named["notes"])
 
 
 def test_cancel_leaves_no_output(tmp_path):
