@@ -19,7 +19,7 @@ from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
 from .request_gate import RequestGate, streamed_paths
 from .retention import TMP_MAX_AGE_S, sweep
-from .routes import catalog, comparisons, options, presets, renders, stems
+from .routes import catalog, comparisons, headphone_eq, options, presets, renders, stems
 from .routes.docs import install_api_docs
 from .routes.pages import install_pages
 from .settings import ServiceSettings
@@ -63,6 +63,7 @@ def create_app(settings: ServiceSettings) -> FastAPI:
     app.include_router(catalog.router)
     app.include_router(options.router)
     app.include_router(presets.router)
+    app.include_router(headphone_eq.router)
     app.include_router(stems.router)
     app.include_router(renders.router)
     app.include_router(comparisons.router)
@@ -73,7 +74,9 @@ def create_app(settings: ServiceSettings) -> FastAPI:
         RequestGate,
         tokens=settings.tokens,
         max_json_bytes=settings.max_json_bytes,
-        streamed=streamed_paths([*catalog.router.routes, *stems.router.routes]),
+        streamed=streamed_paths(
+            [*catalog.router.routes, *stems.router.routes, *headphone_eq.router.routes]
+        ),
     )
     return app
 

@@ -18,6 +18,7 @@ import sys
 import time
 from pathlib import Path
 
+from ..job_inputs import resolve_job_inputs
 from ..storage import Storage, write_json_atomic
 from .session import PREPARED
 
@@ -31,8 +32,9 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
     names = {str(folder / f["stored"]): f["name"] for f in stem["files"]}
     names.update({f["stored"]: f["name"] for f in stem["files"]})
     variants = []
-    for v in payload["variants"]:
-        options = dict(v["options"])
+    target = storage.path("comparisons", session_id)
+    for i, v in enumerate(payload["variants"]):
+        options = resolve_job_inputs(storage, dict(v["options"]), target, names, i)
         if v.get("hrtf_id"):
             hrtf = storage.read_meta("hrtf", v["hrtf_id"])
             path = storage.path("hrtf", v["hrtf_id"]) / hrtf["stored"]
@@ -40,7 +42,6 @@ def child_spec(storage: Storage, payload: dict, job_id: str) -> dict:
             names[str(path)] = hrtf["name"]
             names[hrtf["stored"]] = hrtf["name"]
         variants.append(options)
-    target = storage.path("comparisons", session_id)
     return {
         "inputs": inputs,
         "variants": variants,

@@ -23,6 +23,7 @@ import uuid
 from pathlib import Path
 from typing import IO, Protocol
 
+from ..job_inputs import resolve_job_inputs
 from ..settings import ServiceSettings
 from ..storage import Storage
 from .factory import open_queue
@@ -123,6 +124,7 @@ def child_spec(storage: Storage, job: Job) -> dict:
         names[hrtf["stored"]] = hrtf["name"]
     output, report = output_paths(storage, job)
     output.parent.mkdir(parents=True, exist_ok=True)
+    options = resolve_job_inputs(storage, options, output.parent, names)
     return {
         "inputs": inputs,
         "output": str(output),

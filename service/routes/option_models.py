@@ -3,7 +3,8 @@
 Every field of ``POST /v1/renders`` and of a comparison's variants is made here from
 :data:`earfold.renderer.render.RENDER_OPTIONS`: its type, range or choices, default and
 description. Only what HTTP spells differently is added: a layout may be a layout object,
-an HRTF set an uploaded set's id, and the headphone EQ is the list of bands itself.
+a room a room object, an HRTF set an uploaded set's id, and the headphone EQ the list of
+bands itself or an uploaded file's id.
 """
 
 from __future__ import annotations
@@ -19,6 +20,11 @@ __all__ = ["EqBand", "http_options", "option_fields", "options_model"]
 
 Label = Annotated[str, Field(min_length=1, max_length=16)]
 Name = Annotated[str, Field(max_length=64)]
+
+#: The id of an uploaded file (POST /v1/headphone-eq).
+UploadId = Annotated[
+    str, Field(pattern=r"^[0-9a-f]{32}$", description="id of an uploaded headphone EQ file")
+]
 
 
 class EqBand(BaseModel):
@@ -39,6 +45,18 @@ class EqBand(BaseModel):
         description="dB (peaking and shelves; ignored by the pass filters)",
     )
     q: float = Field(DEFAULT_Q, ge=Q_RANGE[0], le=Q_RANGE[1], allow_inf_nan=False)
+
+
+#: The OpenAPI description of a room object (the renderer checks it: room_from_dict).
+_ROOM_OBJECT: dict[str, Any] = {
+    "title": "RoomObject",
+    "description": "a room as in a --room FILE.json: dimensions [length, width, height] in "
+    "metres, listener {to_front_wall, to_left_wall, ear_height}, and either rt60 (seconds, "
+    "one number or one per octave band 125 Hz to 8 kHz) or absorption per surface (front, "
+    "back, left, right, floor, ceiling); optional name, description, speaker_radius, "
+    "air_absorption, order, mixing_time_ms, seed",
+    "required": ["dimensions"],
+}
 
 
 def http_options(*, sound_only: bool = False) -> tuple[OptionSpec, ...]:
@@ -69,7 +87,10 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
     annotation: Any
     if spec.name == "layout":
         annotation = Name | dict[str, Any]
-    elif spec.name in ("hrtf", "room"):
+    elif spec.name == "room":
+        # a room object is checked by the renderer's room schema (render_options)
+        annotation = Name | Annotated[dict[str, Any], Field(json_schema_extra=_ROOM_OBJECT)]
+    elif spec.name == "hrtf":
         annotation = Name
     elif spec.name == "solo":
         annotation = Label
@@ -77,8 +98,7 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
         # A list of labels, or the name of one of the layout's orders ("film").
         annotation = Annotated[list[Label], Field(min_length=1, max_length=64)] | Label
     elif spec.kind == "headphone_eq":
-        annotation = list[EqBand]
-        extra = {"min_length": 1, "max_length": 64}
+        annotation = Annotated[list[EqBand], Field(min_length=1, max_length=64)] | UploadId
     elif spec.kind == "choice":
         annotation = Literal[spec.choices]  # type: ignore[valid-type]
     elif spec.kind == "number":

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Depends, Request, Response
+from fastapi import APIRouter, Depends, Query, Request, Response
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from earfold.renderer.errors import LayoutError, OptionError
@@ -31,7 +31,8 @@ from ..problems import (
     Problem,
     problem_responses,
 )
-from .renders import RenderRequest
+from ..storage import Storage
+from .renders import RenderRequest, room_object, uploaded_bands
 
 __all__ = ["PresetRequest", "PresetView", "router", "settings_body"]
 
@@ -94,9 +95,12 @@ def _body_errors(exc: ValidationError) -> Problem:
     return Problem(UNPROCESSABLE, detail, title="Invalid request", errors=errors)
 
 
-def settings_body(body: dict[str, Any]) -> dict[str, Any]:
+def settings_body(
+    body: dict[str, Any], storage: Storage | None = None, owner: str = ""
+) -> dict[str, Any]:
     """A settings preset's body checked by the render request model: the options given,
-    in their checked JSON form; 422 naming the field otherwise."""
+    in their checked JSON form; 422 naming the field otherwise. With ``storage``, an
+    uploaded headphone EQ's id must be one of ``owner``'s."""
     if "stem_id" in body:
         raise Problem(
             UNPROCESSABLE,
@@ -110,6 +114,17 @@ def settings_body(body: dict[str, Any]) -> dict[str, Any]:
         raise _body_errors(exc) from None
     if isinstance(model.layout, dict):
         _layout_object(model.layout, "body.layout")
+    if isinstance(model.room, dict):
+        room_object(model.room, "body.room")
+    if isinstance(model.headphone_eq, str) and storage is not None:
+        try:
+            uploaded_bands(model.headphone_eq, storage, owner)
+        except Problem as exc:
+            raise Problem(
+                exc.status,
+                f"body.{exc.detail}",
+                errors=[{"field": "body.headphone_eq", "message": "unknown id"}],
+            ) from None
     checked: dict[str, Any] = model.model_dump(mode="json", exclude_unset=True)
     checked.pop("stem_id", None)
     # What the model cannot say (a power of two), as the worker will check it.
@@ -138,9 +153,9 @@ def _layout_object(body: dict[str, Any], field: str) -> None:
         ) from None
 
 
-def _checked(req: PresetRequest) -> dict[str, Any]:
+def _checked(req: PresetRequest, request: Request, owner: str) -> dict[str, Any]:
     if req.kind == "settings":
-        return settings_body(req.body)
+        return settings_body(req.body, request.app.state.storage, owner)
     _layout_object(req.body, "body")
     return req.body
 
@@ -150,8 +165,13 @@ def _store(request: Request) -> PresetStore:
 
 
 @router.get("", summary="List your presets, by name", response_model=list[PresetView])
-def list_presets(request: Request, owner: str = Depends(current_owner)) -> list[dict]:
-    return [preset_view(m) for m in _store(request).list(owner)]
+def list_presets(
+    request: Request,
+    owner: str = Depends(current_owner),
+    kind: Literal["settings", "layout"] | None = Query(None, description="only this kind"),
+) -> list[dict]:
+    metas = _store(request).list(owner)
+    return [preset_view(m) for m in metas if kind is None or m["kind"] == kind]
 
 
 @router.post(
@@ -165,7 +185,7 @@ def list_presets(request: Request, owner: str = Depends(current_owner)) -> list[
 def create_preset(
     req: PresetRequest, request: Request, response: Response, owner: str = Depends(current_owner)
 ) -> dict:
-    meta = _store(request).create(owner, req.name, req.kind, _checked(req))
+    meta = _store(request).create(owner, req.name, req.kind, _checked(req, request, owner))
     response.headers["Location"] = f"/v1/presets/{meta['id']}"
     return preset_view(meta)
 
@@ -191,7 +211,9 @@ def replace_preset(
 ) -> dict:
     store = _store(request)
     store.get(preset_id, owner)  # 404 before the body is judged
-    return preset_view(store.replace(preset_id, owner, req.name, req.kind, _checked(req)))
+    return preset_view(
+        store.replace(preset_id, owner, req.name, req.kind, _checked(req, request, owner))
+    )
 
 
 @router.delete(

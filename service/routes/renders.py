@@ -41,7 +41,7 @@ from ..problems import (
 from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
-from .option_models import http_options, options_model
+from .option_models import EqBand, http_options, options_model
 
 router = APIRouter(
     prefix="/v1/renders", tags=["renders"], responses=problem_responses(UNAUTHORIZED)
@@ -125,6 +125,35 @@ def _layout(value: str | dict | None, stem: dict) -> Layout:
     )
 
 
+def room_object(value: dict, field: str) -> None:
+    """422 naming ``field`` unless ``value`` is a room the renderer accepts (the schema of
+    a ``--room FILE.json``, :func:`earfold.renderer.room.room_from_dict`)."""
+    from earfold.renderer.errors import RoomError
+    from earfold.renderer.room import room_from_dict
+
+    try:
+        room_from_dict(value)
+    except RoomError as exc:
+        raise Problem(
+            UNPROCESSABLE, f"{field}: {exc}", errors=[{"field": field, "message": str(exc)}]
+        ) from None
+
+
+def uploaded_bands(eq_id: str, storage: Storage, owner: str) -> list[Any]:
+    """The bands of the owner's uploaded headphone EQ ``eq_id`` (none for an impulse
+    response), for the stem's checks; 422 if there is no such upload."""
+    try:
+        meta = storage.read_meta("headphone-eq", eq_id, owner)
+    except Problem:
+        raise Problem(
+            UNPROCESSABLE,
+            f"headphone_eq: no uploaded headphone EQ with id {eq_id!r}; upload one with "
+            "POST /v1/headphone-eq (GET /v1/headphone-eq lists yours) or give a list of bands",
+            errors=[{"field": "headphone_eq", "message": "unknown id"}],
+        ) from None
+    return [EqBand.model_validate(b) for b in meta["summary"].get("band_list", [])]
+
+
 def _hrtf(value: str | None, storage: Storage, owner: str) -> tuple[str | None, str | None]:
     """(shipped name, uploaded id) for the request's HRTF set; 422 if unknown."""
     from earfold.hrtf_sets import DEFAULT_SET, SHIPPED
@@ -191,8 +220,9 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
         option("block_size").check(req.block_size)
     except OptionError as exc:
         raise Problem(UNPROCESSABLE, str(exc)) from None
-    rooms = room_names()
-    if req.room not in rooms:
+    if isinstance(req.room, dict):
+        room_object(req.room, "room")
+    elif req.room not in (rooms := room_names()):
         raise Problem(UNPROCESSABLE, f"unknown room {req.room!r}; choose one of {', '.join(rooms)}")
     fmt = req.format or "wav"  # the output is named .wav or .flac by the service
     if fmt == "flac" and req.subtype == "FLOAT":
@@ -201,7 +231,10 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
             "FLAC holds integer samples only; choose subtype PCM_16 or PCM_24, or format 'wav'",
         )
     shipped, hrtf_id = _hrtf(req.hrtf, storage, owner)
-    for i, band in enumerate(req.headphone_eq or []):
+    bands = req.headphone_eq if isinstance(req.headphone_eq, list) else []
+    if isinstance(req.headphone_eq, str):
+        bands = uploaded_bands(req.headphone_eq, storage, owner)
+    for i, band in enumerate(bands):
         if band.frequency >= stem["samplerate"] / 2:
             raise Problem(
                 UNPROCESSABLE,

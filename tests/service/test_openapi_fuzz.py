@@ -31,7 +31,7 @@ schema = schemathesis.openapi.from_asgi("/openapi.json", APP)
 #: Operations whose body is a file: a schema cannot say "decodable audio" or "a SOFA
 #: file", so schema-valid random bytes are rightly refused (415/422) and
 #: schemathesis's "valid data is accepted" check does not apply to them.
-_FILE_UPLOADS = {("POST", "/v1/stems"), ("POST", "/v1/hrtf-sets")}
+_FILE_UPLOADS = {("POST", "/v1/stems"), ("POST", "/v1/hrtf-sets"), ("POST", "/v1/headphone-eq")}
 
 #: Operations whose body is checked by the renderer beyond what a schema can say: a
 #: preset's layout object (labels that name the same channel, 'L' and 'fl', count as
