@@ -2,9 +2,11 @@
 // token prompt and the toasts.
 //
 // Exports:
-//   mountChrome({ title, current })  builds the header at the top of <body> (once):
+//   mountChrome({ title, current, caution })  builds the header at the top of <body> (once):
 //       title    the page's own title, shown beside the name (and in document.title)
 //       current  "desk" | "docs" | "" : the nav link marked aria-current
+//       caution  true (default): the hearing caution in the header; a page whose player
+//                shows CAUTION_TEXT beside its own volume control may pass false
 //     returns { header, setTitle(text), setStatus(text) }.
 //   setTitle(text)                   changes the page title in the header and the tab.
 //   notify(message, kind)            a toast ("info" | "ok" | "warn" | "error"); errors
@@ -133,7 +135,7 @@ hooks.unauthorized = (detail) => {
   askToken(getToken() ? `The server refused the token: ${detail}` : "");
 };
 
-export function mountChrome({ title = "", current = "" } = {}) {
+export function mountChrome({ title = "", current = "", caution = true } = {}) {
   if (chrome) {
     setTitle(title);
     return chrome.api;
@@ -159,7 +161,7 @@ export function mountChrome({ title = "", current = "" } = {}) {
     el("span", { class: "page-title" }),
     el("nav", { "aria-label": "Pages" }, link("/", "Desk", "desk"), link("/docs", "API docs", "docs")),
     el("span", { class: "spacer" }),
-    el("p", { class: "caution", role: "note", id: "hearing-caution", style: "margin:0" }, CAUTION_TEXT),
+    caution ? el("p", { class: "caution", role: "note", id: "hearing-caution", style: "margin:0" }, CAUTION_TEXT) : null,
     status, forget, themeSelect);
   const skip = el("a", { class: "skip", href: "#main" }, "Skip to the page");
   document.body.prepend(skip, chrome);

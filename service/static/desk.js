@@ -106,7 +106,7 @@ async function mount(mountId, module, fn, label) {
 }
 
 async function start() {
-  const chrome = mountChrome({ title: "", current: "desk" });
+  const chrome = mountChrome({ title: "", current: "desk", caution: false });
   wireTabs();
   wireKeys();
   const place = readHash();
