@@ -634,7 +634,7 @@ function roomControl(spec) {
   ctrl.refresh = () => {
     const keep = select.value;
     const list = rooms();
-    select.replaceChildren(list.map((r) => el("option", { value: r.name }, r.name === "none" ? "none (anechoic)" : r.name)));
+    select.replaceChildren(...list.map((r) => el("option", { value: r.name }, r.name === "none" ? "none (anechoic)" : r.name)));
     if (!list.length) select.append(el("option", { value: spec.default || "none" }, spec.default || "none"));
     select.append(el("option", { value: "__custom" }, "custom room…"));
     select.value = [...select.options].some((o) => o.value === keep) ? keep : (spec.default || "none");
@@ -866,7 +866,7 @@ function buildPresetBar() {
     const keep = select.value;
     const list = presetsOf("settings");
     select.replaceChildren(el("option", { value: "" }, list.length ? "choose saved settings" : "none saved yet"),
-      list.map((p) => el("option", { value: p.id }, p.name)));
+      ...list.map((p) => el("option", { value: p.id }, p.name)));
     select.value = list.some((p) => p.id === keep) ? keep : "";
     const off = Boolean(presetsState.unavailable);
     for (const b of [apply, overwrite, remove]) b.disabled = off || !select.value;
@@ -1069,10 +1069,10 @@ function buildBatch() {
       }
     }
     bus.emit("renders-changed", { renderIds: made });
+    counted();
     count.textContent = `${made.length} of ${bodies.length} render${bodies.length > 1 ? "s" : ""} queued.` +
       (failed.length ? ` Refused: ${[...new Set(failed)].join(" ")}` : "");
     bus.emit("notify", { message: `Batch: ${made.length} render${made.length === 1 ? "" : "s"} queued.`, kind: failed.length ? "warn" : "ok" });
-    counted();
   });
   S.refreshBatch = refresh;
   refresh();

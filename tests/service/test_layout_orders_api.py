@@ -88,8 +88,7 @@ def test_http_render_with_fold_stereo_and_solo(client, tmp_path):
     assert report["fold"]["mode"] == "stereo"
     assert report["solo"] == {"label": "Ls", "channel": 4, "lfe": False}
     assert report["hrtf"] is None
-    # Nothing a fold-down of a named layout would note; the service's default HRTF set
-    # is not reported as left out.
-    assert report["notes"] == []
+    # The service's default HRTF set is not reported as left out; the solo's level is.
+    assert len(report["notes"]) == 1 and report["notes"][0].startswith("solo 'Ls': the loudness")
     bad = client.post("/v1/renders", json={**body, "fold": "mono"})
     assert bad.status_code == 422

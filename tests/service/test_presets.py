@@ -240,3 +240,12 @@ def test_files_are_written_whole_and_leave_nothing_behind(client, monkeypatch):
     assert [m["name"] for m in client.get("/v1/presets").json()] == ["a"]
     tmp = client.app.state.storage.root / "tmp"
     assert list(tmp.iterdir()) == []
+
+
+def test_the_list_filters_by_kind(client):
+    client.post("/v1/presets", json={"name": "s", "kind": "settings", "body": {}})
+    client.post("/v1/presets", json={"name": "l", "kind": "layout", "body": LAYOUT})
+    assert [p["name"] for p in client.get("/v1/presets").json()] == ["l", "s"]
+    assert [p["name"] for p in client.get("/v1/presets?kind=layout").json()] == ["l"]
+    assert [p["name"] for p in client.get("/v1/presets?kind=settings").json()] == ["s"]
+    assert client.get("/v1/presets?kind=macro").status_code == 422
