@@ -270,6 +270,12 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
     order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
     solo = _solo(layout, order, settings.solo)
     notes: list[str] = []
+    if solo is not None and settings.loudness is not None:
+        notes.append(
+            f"solo {solo['label']!r}: the loudness target applies to this loudspeaker alone, "
+            "so it plays at the target, not at its level within the mix (loudness none "
+            "keeps the render's own level)"
+        )
     if settings.layout is None:
         # Said every time: a layout guessed from a channel count can be the wrong one.
         notes.append(
@@ -395,8 +401,8 @@ def _plan_fold(
     ignored = []
     if room is not None:
         ignored.append(f"the room {room.name!r}")
-    if settings.hrtf:
-        ignored.append(f"the HRTF set {settings.hrtf!r}")
+    # The HRTF set is not named: the service always names one (its default), and the
+    # report's hrtf section (null) and fold section already say that none is used.
     if settings.eq not in (None, "none"):
         ignored.append(f"the HRTF equalisation {settings.eq!r}")
     if ignored:

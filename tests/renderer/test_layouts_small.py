@@ -15,8 +15,10 @@ from earfold.renderer.geometry import direction_to_vector
 from earfold.renderer.io import write_audio
 from earfold.renderer.layouts import (
     LAYOUTS,
+    labels_from_filenames,
     labels_from_mask,
     layout_from_dict,
+    resolve_channel_order,
     suggest_layout,
 )
 from earfold.renderer.render import RenderSettings, plan_render
@@ -101,6 +103,14 @@ def test_channel_masks_without_the_lfe_bit_name_the_lfe_less_layouts(mask, name)
 )
 def test_suggest_layout_by_count_of_the_small_and_lfe_less_counts(count, name):
     assert suggest_layout(count).name == name
+
+
+def test_lcrs_from_labelled_mono_files():
+    # "S" (BS.775's name for the 3/1 surround) and the WAV mask's back centre are one
+    # channel: labelled file names find LCRS as its mask does.
+    labels = labels_from_filenames(["pad_L.wav", "pad_R.wav", "pad_C.wav", "pad_S.wav"])
+    assert suggest_layout(4, labels) is LAYOUTS["LCRS"]
+    assert resolve_channel_order(LAYOUTS["LCRS"], ["BC", "L", "R", "C"]) == (3, 0, 1, 2)
 
 
 def test_lcrs_name_and_count():

@@ -13,9 +13,9 @@ from earfold.renderer.render import RenderSettings, render, settings_from_option
 FS = 48000
 
 
-def _stems(tmp_path, keep: int):
+def _stems(tmp_path, keep: int, frames: int = FS // 5):
     rng = np.random.default_rng(7)
-    full = (0.05 * rng.standard_normal((FS // 5, 6))).astype(np.float32)
+    full = (0.05 * rng.standard_normal((frames, 6))).astype(np.float32)
     only = np.zeros_like(full)
     only[:, keep] = full[:, keep]
     write_audio(tmp_path / "full.wav", full, FS, subtype="FLOAT")
@@ -74,3 +74,10 @@ def test_unknown_solo_label_names_the_layout_labels(tmp_path):
 def test_solo_option_is_declared():
     assert settings_from_options({"solo": "Ls"}).solo == "Ls"
     assert settings_from_options({}).solo is None
+
+
+def test_a_loudness_managed_solo_says_the_target_applies_to_the_loudspeaker_alone(tmp_path):
+    full, _ = _stems(tmp_path, 0, frames=FS)  # long enough for the BS.1770 gate
+    report = render([full], tmp_path / "o.wav", RenderSettings(layout="5.1", solo="R"))
+    assert any("solo 'R': the loudness target applies" in n for n in report["notes"])
+    assert report["warnings"] == []

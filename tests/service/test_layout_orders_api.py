@@ -69,3 +69,26 @@ def test_cli_render_takes_an_order_name_fold_and_solo(tmp_path):
     # The centre alone, folded: 0.7071 to both sides (ITU-R BS.775).
     np.testing.assert_allclose(y[:, 0], 0.7071 * film[:, 1], atol=1e-6)
     np.testing.assert_allclose(y[:, 1], 0.7071 * film[:, 1], atol=1e-6)
+
+
+def test_http_render_with_fold_stereo_and_solo(client, tmp_path):
+    from stem_factory import FS, files_field, write_stem
+
+    from earfold.service.jobs.worker import Worker
+
+    path = write_stem(tmp_path / "take.wav", FS // 2, 6)
+    stem = client.post("/v1/stems", files=files_field([path])).json()
+    body = {"stem_id": stem["id"], "layout": "5.1", "fold": "stereo", "solo": "Ls"}
+    job = client.post("/v1/renders", json=body)
+    assert job.status_code == 202, job.text
+    Worker(client.app.state.settings, queue=client.app.state.queue, name="w").run(once=True)
+    done = client.get(f"/v1/renders/{job.json()['id']}").json()
+    assert done["state"] == "done", done
+    report = client.get(done["links"]["report"]).json()
+    assert report["fold"]["mode"] == "stereo"
+    assert report["solo"] == {"label": "Ls", "channel": 4, "lfe": False}
+    assert report["hrtf"] is None
+    # The service's default HRTF set is not reported as left out; the solo's level is.
+    assert len(report["notes"]) == 1 and report["notes"][0].startswith("solo 'Ls': the loudness")
+    bad = client.post("/v1/renders", json={**body, "fold": "mono"})
+    assert bad.status_code == 422
