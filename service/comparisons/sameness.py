@@ -7,8 +7,11 @@ an uploaded HRTF set by its id), keeping only the options that shape the sound
 make a difference to this render:
 
 * ``block_size`` changes speed and memory, not the sound (its declaration says so);
-* ``room_mode`` only matters with a room;
-* ``lfe_cutoff`` and ``lfe_gain`` only matter for a layout with an LFE channel.
+* ``room_mode`` only matters with a room, and so does ``seed``: a comparison renders
+  32-bit float files, which are not dithered, so the seed only draws the room's tail;
+* ``lfe_cutoff`` and ``lfe_gain`` only matter for a layout with an LFE channel;
+* ``fold`` ``stereo`` (the ITU-R BS.775 fold-down) uses no HRTF set, equalisation or
+  room and leaves the LFE out, so those options do not matter to it.
 
 What is not resolved here: ``eq`` left out (the set's own default) is not taken for the
 equalisation it resolves to, since that needs the HRTF set read; such a pair is let through.
@@ -35,13 +38,18 @@ def sound_key(options: dict[str, Any], hrtf_id: str | None, lfe_in_layout: bool)
         for name in SOUND_OPTIONS
         if name not in _NEVER_AUDIBLE and name in options
     }
+    if hrtf_id:
+        key["hrtf"] = {"uploaded": hrtf_id}
+    if key.get("fold") == "stereo":
+        for name in ("hrtf", "eq", "room", "lfe_cutoff", "lfe_gain"):
+            key.pop(name, None)
     if str(key.get("room", "none")).lower() == "none":
+        key.pop("room", None)
         key.pop("room_mode", None)
+        key.pop("seed", None)
     if not lfe_in_layout:
         key.pop("lfe_cutoff", None)
         key.pop("lfe_gain", None)
-    if hrtf_id:
-        key["hrtf"] = {"uploaded": hrtf_id}
     return json.dumps(key, sort_keys=True, separators=(",", ":"))
 
 

@@ -28,6 +28,7 @@ from pathlib import Path
 from ..jobs import Job, JobState
 from ..storage import META, Storage, write_json_atomic
 from .stats import binomial_p_at_least, binomial_p_two_sided, preference_counts
+from .summary import variant_settings, variant_summary
 
 __all__ = [
     "ANSWER_CHOICES",
@@ -153,7 +154,16 @@ def public_view(meta: dict, built: dict | None, job: Job | None) -> dict:
         "mode": meta["mode"],
         "question": _QUESTION[meta["mode"]],
         "stem_id": meta["stem_id"],
-        "variants": [{"name": v["name"], "request": v["request"]} for v in meta["variants"]],
+        "stem_name": meta.get("stem_name"),
+        "variants": [
+            {
+                "name": v["name"],
+                "request": v["request"],
+                "summary": variant_summary(v["request"], v.get("uploads")),
+                "settings": variant_settings(v["request"]),
+            }
+            for v in meta["variants"]
+        ],
         "excerpt": excerpt,
         "level_lufs": None if built is None else built["common_lufs"],
         "trial_count": len(trials),
@@ -259,6 +269,7 @@ def reveal(meta: dict, built: dict) -> dict:
                 "index": b["index"],
                 "name": v["name"],
                 "request": v["request"],
+                "summary": variant_summary(v["request"], v.get("uploads")),
                 **{
                     k: b[k]
                     for k in (

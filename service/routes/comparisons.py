@@ -149,7 +149,11 @@ class ComparisonView(BaseModel):
     mode: Literal["ab", "abx"]
     question: str
     stem_id: str
-    variants: list[dict[str, Any]] = Field(description="the variants as requested, in order")
+    stem_name: str | None = Field(description="the stem's uploaded file name(s), for lists")
+    variants: list[dict[str, Any]] = Field(
+        description="the variants as requested, in order: name, request, summary (its "
+        "non-default options in words) and settings (those options)"
+    )
     excerpt: dict[str, Any]
     level_lufs: float | None = Field(description="the common level of every trial file")
     trial_count: int
@@ -260,6 +264,7 @@ def create_comparison(
                 "request": fields,
                 "options": options,
                 "hrtf_id": hrtf_id,
+                "uploads": _upload_names(storage, options, hrtf_id),
             }
         )
     _refuse_identical(variants)
@@ -272,6 +277,7 @@ def create_comparison(
         "owner": owner,
         "created_ts": now,
         "stem_id": req.stem_id,
+        "stem_name": _stem_name(stem),
         "mode": req.mode,
         "excerpt": excerpt,
         "variants": variants,
@@ -289,6 +295,26 @@ def create_comparison(
     job = _store_and_queue(request, meta, payload)
     view = sessions.public_view(meta, None, job)
     return _json(view, 202, {"Location": f"/v1/comparisons/{session_id}"})
+
+
+def _upload_names(storage: Storage, options: dict, hrtf_id: str | None) -> dict[str, str]:
+    """The user's file names of the uploads a variant uses, by option (for its summary)."""
+    out = {}
+    if hrtf_id:
+        out["hrtf"] = storage.read_meta("hrtf", hrtf_id)["name"]
+    eq = options.get("headphone_eq")
+    if isinstance(eq, str):
+        out["headphone_eq"] = storage.read_meta("headphone-eq", eq)["name"]
+    return out
+
+
+def _stem_name(stem: dict) -> str | None:
+    """The stem as its owner knows it: its (first) uploaded file's name."""
+    files = stem.get("files") or []
+    if not files:
+        return None
+    more = f" (+{len(files) - 1} files)" if len(files) > 1 else ""
+    return f"{files[0]['name']}{more}"
 
 
 def _has_lfe(layout: str | dict) -> bool:

@@ -26,12 +26,14 @@ __all__ = ["comparison_limits", "option_entry", "router"]
 router = APIRouter(prefix="/v1", tags=["catalog"], responses=problem_responses(UNAUTHORIZED))
 
 #: Where the values of an option that names something are listed (an option not here
-#: takes a number, a word of ``choices`` or a list).
+#: takes a number, a word of ``choices`` or a list); a layout's order names and labels
+#: are in its entry of ``/v1/layouts``.
 CATALOGS = {
     "layout": "/v1/layouts",
     "hrtf": "/v1/hrtf-sets",
     "room": "/v1/rooms",
     "headphone_eq": "/v1/headphone-eq",
+    "channel_order": "/v1/layouts",
 }
 
 #: What else than its declared kind an option takes over HTTP (see option_models).
@@ -40,7 +42,8 @@ HTTP_FORMS = {
     "hrtf": ["name", "uploaded id"],
     "room": ["name", "room object"],
     "headphone_eq": ["list of bands", "uploaded id"],
-    "channel_order": ["list of labels"],
+    "channel_order": ["list of labels", "order name"],
+    "solo": ["channel label"],
 }
 
 
@@ -98,4 +101,40 @@ def get_options(owner: str = Depends(current_owner)) -> dict[str, Any]:
     return {
         "render": [option_entry(s) for s in http_options()],
         "comparison": comparison_limits(),
+        "presets": preset_limits(),
+        "headphone_eq": headphone_eq_limits(),
+    }
+
+
+def preset_limits() -> dict[str, Any]:
+    """The limits of ``/v1/presets``."""
+    from ..presets import MAX_PRESETS, PRESET_KINDS
+    from .presets import MAX_NAME_CHARS
+
+    return {"kinds": list(PRESET_KINDS), "max_per_owner": MAX_PRESETS, "name_max": MAX_NAME_CHARS}
+
+
+def headphone_eq_limits() -> dict[str, Any]:
+    """The limits of ``/v1/headphone-eq`` (the renderer's loader's, and the store's)."""
+    from earfold.renderer.eq.headphone import (
+        BAND_TYPES,
+        MAX_BANDS,
+        MAX_EQ_IR_BYTES,
+        MAX_EQ_JSON_BYTES,
+        MAX_GAIN_DB,
+        MAX_IR_SECONDS,
+        Q_RANGE,
+    )
+
+    from .headphone_eq import MAX_FILES
+
+    return {
+        "max_per_owner": MAX_FILES,
+        "band_types": list(BAND_TYPES),
+        "max_bands": MAX_BANDS,
+        "max_gain_db": MAX_GAIN_DB,
+        "q_range": list(Q_RANGE),
+        "max_json_bytes": MAX_EQ_JSON_BYTES,
+        "max_ir_bytes": MAX_EQ_IR_BYTES,
+        "max_ir_seconds": MAX_IR_SECONDS,
     }

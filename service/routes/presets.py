@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Depends, Request, Response
+from fastapi import APIRouter, Depends, Query, Request, Response
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from earfold.renderer.errors import LayoutError, OptionError
@@ -165,8 +165,13 @@ def _store(request: Request) -> PresetStore:
 
 
 @router.get("", summary="List your presets, by name", response_model=list[PresetView])
-def list_presets(request: Request, owner: str = Depends(current_owner)) -> list[dict]:
-    return [preset_view(m) for m in _store(request).list(owner)]
+def list_presets(
+    request: Request,
+    owner: str = Depends(current_owner),
+    kind: Literal["settings", "layout"] | None = Query(None, description="only this kind"),
+) -> list[dict]:
+    metas = _store(request).list(owner)
+    return [preset_view(m) for m in metas if kind is None or m["kind"] == kind]
 
 
 @router.post(

@@ -23,6 +23,7 @@ from earfold.renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_
 from earfold.renderer.render import option
 
 from ..auth import current_owner
+from ..job_inputs import HEADPHONE_EQ_KIND
 from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND, output_paths
 from ..problems import (
@@ -143,7 +144,7 @@ def uploaded_bands(eq_id: str, storage: Storage, owner: str) -> list[Any]:
     """The bands of the owner's uploaded headphone EQ ``eq_id`` (none for an impulse
     response), for the stem's checks; 422 if there is no such upload."""
     try:
-        meta = storage.read_meta("headphone-eq", eq_id, owner)
+        meta = storage.read_meta(HEADPHONE_EQ_KIND, eq_id, owner)
     except Problem:
         raise Problem(
             UNPROCESSABLE,
@@ -373,8 +374,16 @@ def _done(request: Request, render_id: str, owner: str) -> Job:
         **problem_responses(NOT_FOUND, CONFLICT, RANGE_NOT_SATISFIABLE),
     },
 )
-def get_audio(render_id: str, request: Request, owner: str = Depends(current_owner)):
-    job = _done(request, render_id, owner)
+def get_audio(
+    render_id: str,
+    request: Request,
+    key: str | None = Query(
+        None, max_length=80, description="a signed key from POST /v1/renders/{id}/listen"
+    ),
+):
+    from .listening import render_owner  # the signed-link check (listening imports us)
+
+    job = _done(request, render_id, render_owner(request, render_id, key))
     output, _ = output_paths(request.app.state.storage, job)
     if not output.is_file():
         raise Problem(NOT_FOUND, f"the audio of render {render_id!r} is gone (expired or deleted)")

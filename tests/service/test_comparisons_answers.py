@@ -78,6 +78,7 @@ def test_no_preference_is_counted_apart_and_left_out_of_the_sign_test(make_clien
 
     result = client.get(f"/v1/comparisons/{cid}/results").json()
     assert result["answered"] == 6 and result["no_preference"] == 3
+    assert [v["summary"] for v in result["variants"]] == ["5.1", "5.1, lfe_gain 4 dB"]
     assert "sign test" in result["ties"]
     rows = result["trials"]
     assert [r["no_preference"] for r in rows] == [a == "none" for a in answers]
@@ -129,6 +130,18 @@ def test_abx_stays_a_forced_choice(make_client, tmp_path):
         ([{"layout": "5.1"}, {"layout": "5.1", "block_size": 4096}], 1, 2),
         # the room mode does nothing without a room; the default HRTF set by its name
         ([{"layout": "5.1"}, {"layout": "5.1", "room_mode": "exact", "hrtf": "MIT-KEMAR"}], 1, 2),
+        # without a room the seed draws nothing (comparison renders are float, undithered)
+        ([{"layout": "5.1"}, {"layout": "5.1", "seed": 7}], 1, 2),
+        # the stereo fold-down uses no HRTF set, room or LFE
+        (
+            [
+                {"layout": "5.1", "fold": "stereo"},
+                {"layout": "5.1", "fold": "stereo", "room": "small", "hrtf": "rigid-sphere"},
+                {"layout": "5.1", "fold": "stereo", "lfe_gain": 0, "eq": "none"},
+            ],
+            1,
+            2,
+        ),
         # the suggested layout left out is the layout named
         ([{"room": "small"}, {"layout": "5.1"}, {"layout": "5.1", "room": "small"}], 1, 3),
     ],
@@ -148,6 +161,17 @@ def test_variants_that_render_identically_are_refused_naming_both(
     assert fields == [f"variants.{first - 1}", f"variants.{second - 1}"]
     assert client.app.state.queue.counts().get("queued", 0) == 0
     assert client.get("/v1/comparisons").json() == []
+
+
+def test_what_does_change_the_sound_is_let_through(client, tmp_path):
+    stem = _stem(client, tmp_path)
+    for variants in (
+        [{"layout": "5.1", "room": "small"}, {"layout": "5.1", "room": "small", "seed": 7}],
+        [{"layout": "5.1"}, {"layout": "5.1", "fold": "stereo"}],
+        [{"layout": "5.1", "fold": "stereo"}, {"layout": "5.1", "fold": "stereo", "solo": "C"}],
+    ):
+        resp = _create(client, stem["id"], variants)
+        assert resp.status_code == 202, (variants, resp.text)
 
 
 def test_lfe_options_count_only_where_the_layout_has_an_lfe(client, tmp_path):
@@ -175,3 +199,42 @@ def test_an_unknown_choice_is_still_refused(client, tmp_path):
     cid = _create(client, stem["id"], DIFFERENT).json()["id"]
     r = client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "neither"})
     assert r.status_code == 422
+
+
+def test_list_items_carry_the_stem_and_the_variants_in_words(client, tmp_path):
+    stem = _stem(client, tmp_path)
+    variants = [
+        {"layout": "5.1", "name": "plain"},
+        {"layout": "5.1", "lfe_gain": 4, "room": "small", "name": "hot"},
+    ]
+    cid = _create(client, stem["id"], variants).json()["id"]
+    other = _stem(client, tmp_path, name="second-take.wav")
+    _create(client, other["id"], DIFFERENT)
+    listed = client.get("/v1/comparisons").json()
+    assert len(listed) == 2
+    item = next(c for c in listed if c["id"] == cid)
+    assert item["stem_id"] == stem["id"] and item["stem_name"] == "harbour-walk.wav"
+    assert [v["name"] for v in item["variants"]] == ["plain", "hot"]
+    assert [v["summary"] for v in item["variants"]] == ["5.1", "5.1, room small, lfe_gain 4 dB"]
+    assert item["variants"][1]["settings"] == {"layout": "5.1", "room": "small", "lfe_gain": 4.0}
+    assert {c["stem_id"] for c in listed} == {stem["id"], other["id"]}
+    # the single view says the same
+    assert client.get(f"/v1/comparisons/{cid}").json()["variants"] == item["variants"]
+
+
+def test_variant_summaries_of_objects_and_uploads():
+    from earfold.service.comparisons.summary import variant_summary
+
+    room = {"name": "boat-shed", "dimensions": [8.2, 4.6, 3.6], "rt60": 0.4}
+    layout = {"name": "trio", "speakers": [{"label": x} for x in "LRC"]}
+    text = variant_summary(
+        {"layout": layout, "room": room, "headphone_eq": "a" * 32, "hrtf": "b" * 32}
+    )
+    assert text == (
+        "custom layout 'trio' (3 speakers), HRTF set (uploaded), "
+        "room 'boat-shed' 8.2 x 4.6 x 3.6 m, headphone EQ (uploaded)"
+    )
+    bands = [{"type": "peaking", "frequency": 1000.0}]
+    assert (
+        variant_summary({"headphone_eq": bands, "eq": "none"}) == "eq none, headphone EQ (1 band)"
+    )

@@ -112,3 +112,25 @@ def test_options_need_the_token_when_tokens_are_on(make_client):
     assert c.get("/v1/options").status_code == 401
     ok = c.get("/v1/options", headers={"Authorization": "Bearer tok-a"})
     assert ok.status_code == 200 and ok.json()["render"]
+
+
+def test_preset_and_headphone_eq_limits_are_the_stores(client):
+    from earfold.renderer.eq.headphone import BAND_TYPES, MAX_BANDS, MAX_EQ_IR_BYTES
+    from earfold.service.presets import MAX_PRESETS
+    from earfold.service.routes.headphone_eq import MAX_FILES
+
+    body = client.get("/v1/options").json()
+    assert body["presets"] == {
+        "kinds": ["settings", "layout"],
+        "max_per_owner": MAX_PRESETS,
+        "name_max": 80,
+    }
+    eq = body["headphone_eq"]
+    assert eq["max_per_owner"] == MAX_FILES and eq["max_bands"] == MAX_BANDS
+    assert eq["band_types"] == list(BAND_TYPES) and eq["max_ir_bytes"] == MAX_EQ_IR_BYTES
+    # the advertised name limit is the one enforced
+    name = "n" * body["presets"]["name_max"]
+    ok = client.post("/v1/presets", json={"name": name, "kind": "settings", "body": {}})
+    assert ok.status_code == 201
+    long = client.post("/v1/presets", json={"name": name + "n", "kind": "settings", "body": {}})
+    assert long.status_code == 422
