@@ -331,3 +331,47 @@ def test_all_renders_key_opens_each_of_the_owners_renders(make_client, tmp_path)
     assert client.get(f"/v1/renders/{render['id']}/audio?key={key}").status_code == 200
     bobs = client.post("/v1/renders/events/link", headers=BOB).json()["url"].split("key=")[1]
     _problem(client.get(f"/v1/renders/{render['id']}/audio?key={bobs}"), 401, "does not open")
+
+
+# -- windows -------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("fmt", ["wav", "flac"])
+def test_window_equals_the_same_frames_read_with_soundfile(make_client, tmp_path, fmt):
+    import io
+
+    import numpy as np
+    import soundfile
+    from numpy.testing import assert_array_equal
+
+    client = make_client(**FAST)
+    render = _done_render(client, tmp_path, frames=FS // 2, fmt=fmt)
+    output = client.app.state.storage.path("renders", render["id"]) / f"output.{fmt}"
+    whole, rate = soundfile.read(output, dtype="float32", always_2d=True)
+    assert rate == FS
+
+    resp = client.get(f"/v1/renders/{render['id']}/window?start=0.1&seconds=0.25")
+    assert resp.status_code == 200, resp.text
+    assert resp.headers["content-type"] == "audio/wav"
+    got, got_rate = soundfile.read(io.BytesIO(resp.content), dtype="float32", always_2d=True)
+    assert soundfile.info(io.BytesIO(resp.content)).subtype == "FLOAT"
+    assert got_rate == FS and int(resp.headers["x-earfold-frames"]) == len(got) == FS // 4
+    assert_array_equal(got, whole[FS // 10 : FS // 10 + FS // 4])  # sample for sample
+    assert np.abs(got).max() > 0  # a render of noise, not silence
+
+    # Clipped at the end: from 0.4 s, 1 s asked, 0.1 s there.
+    tail = client.get(f"/v1/renders/{render['id']}/window?start=0.4&seconds=1")
+    got, _ = soundfile.read(io.BytesIO(tail.content), dtype="float32", always_2d=True)
+    assert int(tail.headers["x-earfold-frames"]) == len(got) == len(whole) - int(0.4 * FS)
+    assert_array_equal(got, whole[int(0.4 * FS) :])
+
+
+def test_window_out_of_range_is_422(make_client, tmp_path):
+    client = make_client(**FAST)
+    render = _done_render(client, tmp_path)  # 0.2 s and the filters' tail
+    base = f"/v1/renders/{render['id']}/window"
+    _problem(client.get(f"{base}?start=10&seconds=1"), 422, "not before the end")
+    assert client.get(f"{base}?start=0&seconds=121").status_code == 422  # at most 120 s
+    assert client.get(f"{base}?start=0&seconds=0").status_code == 422
+    assert client.get(f"{base}?start=-1&seconds=1").status_code == 422
+    _problem(client.get(f"/v1/renders/{'0' * 32}/window?seconds=1"), 404, "0" * 32)
