@@ -414,3 +414,38 @@ def test_custom_room_renders_with_its_dimensions(page, live_server, stems, artef
     report = report_of(live_server, render_id)
     dims = report["room"]["room"]["dimensions_m"]
     assert (dims["length"], dims["width"], dims["height"]) == (6.2, 4.4, 3.1)
+
+
+# --------------------------------------------------------------------------- headphone EQ
+
+
+def test_headphone_eq_uploaded_on_the_page_is_used(page, live_server, stems, tmp_path):
+    """A band list (invented: a gentle dip and a lift) sent from the page is listed with
+    its summary, chosen, and applied by the render (its report names the bands)."""
+    bands = {
+        "name": "reading-room cans",
+        "bands": [
+            {"type": "low_shelf", "frequency": 150, "gain_db": -1.5, "q": 0.7071},
+            {"type": "peaking", "frequency": 2500, "gain_db": 2.0, "q": 1.1},
+            {"type": "high_shelf", "frequency": 8000, "gain_db": -2.0, "q": 0.7071},
+        ],
+    }
+    path = tmp_path / "reading-room.json"
+    path.write_text(json.dumps(bands))
+    stem = stems[6]
+    open_desk(page, live_server, stem)
+    box = field(page, "headphone_eq")
+    box.locator("input[data-upload='headphone-eq']").set_input_files(str(path))
+    box.locator(".upload-status:has-text('3 bands')").wait_for()
+    chosen = box.locator("select").input_value()
+    assert len(chosen) == 32
+    assert "reading-room.json" in box.locator("select option:checked").inner_text()
+    before = {r["id"] for r in renders_of(live_server, stem["id"])}
+    page.click("#view-settings [data-action='render']")
+    page.locator("[data-part='render-status']:has-text('queued')").wait_for()
+    (render_id,) = new_renders(live_server, stem["id"], before, 1)
+    (view,) = wait_done(live_server, [render_id])
+    assert view["request"]["headphone_eq"] == chosen
+    headphone = report_of(live_server, render_id)["eq"]["headphone"]
+    assert headphone is not None
+    assert [b["frequency"] for b in headphone["bands"]] == [150, 2500, 8000]
