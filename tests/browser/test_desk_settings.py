@@ -361,11 +361,12 @@ def test_render_again_fills_the_form(page, live_server, stems):
     }
     made = httpx.post(f"{live_server.url}/v1/renders", json=request, timeout=30)
     assert made.status_code == 202, made.text
-    view = httpx.get(f"{live_server.url}/v1/renders/{made.json()['id']}", timeout=30).json()
+    (view,) = wait_done(live_server, [made.json()["id"]])
     open_desk(page, live_server, stem)
-    page.evaluate(
-        "r => window.earfoldDesk.bus.emit('settings-load', {request: r})", view["request"]
-    )
+    page.click("#tab-speakers")  # "Again" brings the settings tab back
+    # The row's "Again" button in the renders panel sends its request to the settings.
+    page.locator(f".render-row[data-render='{view['id']}'] .act-again").click()
+    assert page.locator("#view-settings").is_visible()
     order = field(page, "channel_order").locator("select[name=channel_order]")
     assert order.input_value() == "film"
     assert field(page, "room").locator("select").input_value() == "small"
@@ -374,7 +375,6 @@ def test_render_again_fills_the_form(page, live_server, stems):
     assert field(page, "subtype").locator("select").input_value() == "FLOAT"
     assert field(page, "seed").locator("input").input_value() == "7"
     assert "loaded" in page.locator("[data-part='render-status']").inner_text()
-    wait_done(live_server, [view["id"]])
 
 
 # --------------------------------------------------------------------------- custom room
