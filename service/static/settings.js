@@ -596,6 +596,15 @@ function headphoneEqControl(spec) {
     const chosen = file.files[0];
     file.value = "";
     if (!chosen) return;
+    // The server's limits (GET /v1/options "headphone_eq"): a band list is a small JSON
+    // file, an impulse response a short WAV; a bigger file is refused before sending.
+    const limits = (bus.state.catalog.options && bus.state.catalog.options.headphone_eq) || {};
+    const isJson = /\.json$/i.test(chosen.name) || chosen.type === "application/json";
+    const cap = isJson ? limits.max_json_bytes : limits.max_ir_bytes;
+    if (cap && chosen.size > cap) {
+      showProblem(ctrl, `${chosen.name} is ${num(chosen.size / 1024, 0)} kB; this server takes ${isJson ? "band lists" : "impulse responses"} up to ${num(cap / 1024, 0)} kB.`);
+      return;
+    }
     const form = new FormData();
     form.append("file", chosen, chosen.name);
     showProblem(ctrl, "");

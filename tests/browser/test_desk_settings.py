@@ -449,3 +449,19 @@ def test_headphone_eq_uploaded_on_the_page_is_used(page, live_server, stems, tmp
     headphone = report_of(live_server, render_id)["eq"]["headphone"]
     assert headphone is not None
     assert [b["frequency"] for b in headphone["bands"]] == [150, 2500, 8000]
+
+
+def test_a_room_the_renderer_refuses_is_explained_beside_the_room(page, live_server, stems):
+    """The client lets any positive size through; the renderer's room check refuses a
+    0.5 m room and its words appear under the room, not as raw validation text."""
+    open_desk(page, live_server, stems[6])
+    room = field(page, "room")
+    room.locator("select").select_option("__custom")
+    room.locator("[data-room='length']").fill("0.5")
+    room.locator("[data-room='toFront']").fill("0.2")
+    page.click("#view-settings [data-action='render']")
+    problem = room.locator("[data-problem='room']")
+    problem.wait_for()
+    text = problem.inner_text()
+    assert text.startswith("Room length 0.5 m is out of range"), text
+    assert text.endswith(".")
