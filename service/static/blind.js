@@ -124,14 +124,15 @@ export function mountBlindTests(root) {
     for (const c of items) {
       const names = (c.variants || []).map((v) => v.name || "variant").join(" vs ");
       const mine = stem && c.stem_id === stem.id;
-      const stemText = state.stems.get(c.stem_id) || (mine ? stemName(stem) : "");
+      const stemText = c.stem_name || state.stems.get(c.stem_id) || (mine ? stemName(stem) : "");
+      const said = (c.variants || []).map((v) => `${v.name}: ${v.summary || "render defaults"}`).join("\n");
       const stateText = c.state === "preparing" ? `preparing ${Math.round((c.progress || 0) * 100)} %` : STATE_NAMES[c.state] || c.state;
       const open = el("a", { class: "btn btn-small open-test", href: c.links && c.links.page ? c.links.page : `/compare/${c.id}` },
         c.state === "finished" ? "Results" : "Open");
       const del = el("button", { type: "button", class: "btn btn-quiet btn-small delete-test", "aria-label": `Delete blind test ${names}` }, "delete");
       del.addEventListener("click", () => remove(c, names));
       body.append(el("tr", { "data-id": c.id, class: mine ? "this-stem" : null },
-        el("td", {}, el("div", { class: "blind-names" }, names),
+        el("td", {}, el("div", { class: "blind-names", title: said || null }, names),
           el("div", { class: "hint" }, [stemText, when(c.created)].filter(Boolean).join(" · "))),
         el("td", {}, DESIGN_NAMES[c.mode] || c.mode),
         el("td", {}, el("span", { class: `chip ${c.state === "failed" ? "error" : c.state === "finished" ? "ok" : c.state === "ready" ? "note" : ""}`,
@@ -151,7 +152,9 @@ export function mountBlindTests(root) {
     } catch (err) {
       state.listError = err.status === 404 ? "this server has no blind tests (GET /v1/comparisons answered 404)" : err.message;
     }
-    const unknown = [...new Set(state.comparisons.map((c) => c.stem_id))].filter((id) => id && !state.stems.has(id));
+    // Older servers do not name the stem in the list: look the names up once.
+    const unknown = [...new Set(state.comparisons.filter((c) => !c.stem_name).map((c) => c.stem_id))]
+      .filter((id) => id && !state.stems.has(id));
     if (unknown.length) {
       try {
         for (const s of await api("/v1/stems")) state.stems.set(s.id, stemName(s));

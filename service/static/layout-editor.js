@@ -20,7 +20,7 @@ const TOP = { size: 270, radius: 108 };
 /** Zenith angle (90 - elevation) drawn at the top view's outer ring: -30 degrees of
     elevation, the lowest layer the common layouts use (BS.2051's bottom layer). */
 const TOP_ZENITH_MAX = 120;
-const SIDE = { width: 500, height: 240, left: 34, right: 12, top: 14, bottom: 24 };
+const SIDE = { width: 500, height: 300, left: 34, right: 12, top: 14, bottom: 24 };
 const LABEL_FONT_PX = 11;
 
 const E = {
@@ -79,7 +79,7 @@ function svgPoint(picture, event) {
 
 function labelBox(label, x, y) {
   const w = label.length * LABEL_FONT_PX * 0.7 + 4;
-  const h = LABEL_FONT_PX + 3;
+  const h = LABEL_FONT_PX + 4;
   return { x: x - w / 2, y: y - h / 2, w, h };
 }
 
@@ -215,19 +215,25 @@ function drawSide() {
     word("view-word", SIDE.left + w * 0.75, SIDE.top + h - 4, "right", "middle", obstacles),
   );
   const mains = E.speakers.map((s, i) => ({ s, i })).filter(({ s }) => !s.lfe);
-  // Neighbours on one row take turns above and below their marks.
-  const rank = new Map();
+  // Labels sit below their marks; where a row is too crowded for that, neighbours take
+  // turns above and below.
+  const above = new Set();
   const rows = new Map();
   for (const { s, i } of mains) {
     const key = Math.round(s.elevation);
     if (!rows.has(key)) rows.set(key, []);
-    rows.get(key).push({ i, x: sidePoint(s).x });
+    rows.get(key).push({ i, x: sidePoint(s).x, w: labelBox(s.label, 0, 0).w });
   }
-  for (const row of rows.values()) row.sort((a, b) => a.x - b.x).forEach((m, k) => rank.set(m.i, k));
+  for (const row of rows.values()) {
+    row.sort((a, b) => a.x - b.x);
+    row.forEach((m, k) => {
+      const prev = row[k - 1];
+      if (prev && !above.has(prev.i) && m.x - prev.x < (m.w + prev.w) / 2 + 2) above.add(m.i);
+    });
+  }
   const items = mains.map(({ s, i }) => {
     const p = sidePoint(s);
-    const below = rank.get(i) % 2 === 0;
-    return { label: s.label, ax: p.x, ay: p.y, px: p.x, py: p.y + (below ? 14 : -14) };
+    return { label: s.label, ax: p.x, ay: p.y, px: p.x, py: p.y + (above.has(i) ? -15 : 15) };
   });
   const placed = placeLabels(items, { x: SIDE.left, y: 0, w, h: SIDE.height - 14 }, 7, obstacles);
   mains.forEach(({ s, i }, k) => picture.append(speakerMark(s, i, items[k], placed[k], "side")));
@@ -496,7 +502,13 @@ function startFrom(value) {
   checkAll();
 }
 
+function presetNameMax() {
+  const options = bus.state.catalog.options;
+  return options && options.presets ? options.presets.name_max : null;
+}
+
 function fillStartList() {
+  if (presetNameMax()) E.nodes.name.maxLength = presetNameMax();
   const select = E.nodes.start;
   const keep = select.value;
   select.replaceChildren(el("option", { value: "" }, "nothing (empty)"));
@@ -566,7 +578,7 @@ export async function mountLayoutEditor(root) {
   root.classList.add("layout-editor");
   const start = el("select", { id: uniqueId("lay-start"), "aria-label": "start from", "data-part": "start" });
   const startBtn = el("button", { type: "button", class: "btn btn-small", "data-action": "start" }, "Start");
-  const name = el("input", { id: uniqueId("lay-name"), type: "text", maxlength: "80", "data-part": "name", placeholder: "e.g. studio B ring" });
+  const name = el("input", { id: uniqueId("lay-name"), type: "text", "data-part": "name", placeholder: "e.g. studio B ring" });
   const description = el("input", { id: uniqueId("lay-desc"), type: "text", maxlength: "200", "data-part": "description", placeholder: "optional" });
   const top = svg("svg", { class: "view view-top", viewBox: `0 0 ${TOP.size} ${TOP.size}`, width: TOP.size, height: TOP.size, "data-view": "top", role: "group", "aria-label": "top view" });
   const side = svg("svg", { class: "view view-side", viewBox: `0 0 ${SIDE.width} ${SIDE.height}`, "data-view": "side", role: "group", "aria-label": "elevation view" });

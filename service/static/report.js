@@ -145,7 +145,14 @@ function summarySection(report, view) {
   }
   rows.push(["sample peak", num(out.peak_dbfs, 2, "dBFS")], ["clipped samples", String(out.clipped_samples ?? "–")]);
   if (report.lfe) rows.push(["LFE", `low-pass ${num(report.lfe.cutoff_hz, 0, "Hz")} (order ${report.lfe.order}), gain ${signed(report.lfe.gain_db, 1)}`]);
-  return facts(rows, "Summary");
+  const box = el("div", {}, facts(rows, "Summary"));
+  const asked = Object.entries(req).filter(([k, v]) => k !== "stem_id" && v !== null && v !== undefined);
+  if (asked.length) {
+    box.append(el("details", { class: "asked" }, el("summary", {}, "Settings asked for"),
+      facts(asked.map(([k, v]) => [k.replaceAll("_", " "),
+        typeof v === "object" ? el("code", {}, JSON.stringify(v)) : String(v)]), "Settings asked for")));
+  }
+  return box;
 }
 
 function messagesSection(report) {
@@ -245,7 +252,7 @@ function headphoneSection(report) {
     ], "Headphone EQ"));
     if (hp.bands && hp.bands.length) {
       const t = el("table", { class: "table" }, el("thead", {}, el("tr", {},
-        ...["type", "frequency", "gain", "Q"].map((h) => el("th", { scope: "col" }, h)))));
+        ...["type", "frequency", "gain", "Q"].map((h, i) => el("th", { scope: "col", class: i ? "num" : null }, h)))));
       t.append(el("tbody", {}, ...hp.bands.map((b) => el("tr", {}, el("td", {}, b.type),
         el("td", { class: "num" }, num(b.frequency, 0, "Hz")), el("td", { class: "num" }, signed(b.gain_db, 1)),
         el("td", { class: "num" }, num(b.q, 2))))));
@@ -301,7 +308,7 @@ function roomSection(report) {
   const spk = r.speakers || [];
   if (spk.length) {
     const t = el("table", { class: "table", id: "room-speakers" }, el("thead", {}, el("tr", {},
-      ...["loudspeaker", "distance", "reflections", "direct-to-reverberant"].map((h) => el("th", { scope: "col" }, h)))));
+      ...["loudspeaker", "distance", "reflections", "direct-to-reverberant"].map((h, i) => el("th", { scope: "col", class: i ? "num" : null }, h)))));
     t.append(el("tbody", {}, ...spk.map((s) => el("tr", {}, el("th", { scope: "row" }, s.label),
       el("td", { class: "num" }, num(s.distance_m, 2, "m")), el("td", { class: "num" }, String(s.reflections ?? "–")),
       el("td", { class: "num" }, num(s.drr_db, 1, "dB"))))));

@@ -67,12 +67,20 @@ def setup(live_server, tmp_path_factory) -> dict:
     return out
 
 
+def pick_stem(page, stem: dict) -> None:
+    """Select `stem` in the desk's stems panel."""
+    page.locator(f".stem-row[data-stem='{stem['id']}'] .stem-pick").click()
+    page.wait_for_function(
+        "id => window.earfoldDesk.state.stem && window.earfoldDesk.state.stem.id === id",
+        arg=stem["id"],
+    )
+
+
 def open_blind_tab(page, server, stem: dict) -> None:
-    """The desk with `stem` selected (through the desk's bus, as the stems panel does) and
-    the Blind tests tab open."""
+    """The desk with `stem` selected and the Blind tests tab open."""
     page.goto(server.url + "/")
     page.wait_for_selector("body[data-ready='1']")
-    page.evaluate("s => window.earfoldDesk.bus.emit('stem-selected', { stem: s })", stem)
+    pick_stem(page, stem)
     page.locator("#tab-blind").click()
     page.wait_for_selector("#view-blind:not([hidden])")
 
@@ -84,9 +92,7 @@ def test_the_form_shows_only_with_two_finished_renders(page, live_server, setup,
     assert "has 1 finished render" in note.inner_text()
     assert page.locator("#blind-form").count() == 0
     page.screenshot(path=str(artefacts / "blind-no-form.png"))
-    page.evaluate(
-        "s => window.earfoldDesk.bus.emit('stem-selected', { stem: s })", setup["pier-dawn.wav"]
-    )
+    pick_stem(page, setup["pier-dawn.wav"])
     page.wait_for_selector("#blind-form")
     # One choice per finished render of this stem, none of the other stem's.
     assert page.locator("#blind-form input[type=checkbox]").count() == 3
@@ -348,3 +354,64 @@ def test_charts_differ_in_colour_and_dash_and_read_out_on_hover(
     page.screenshot(path=str(artefacts / f"report-chart-readout-{theme}.png"), full_page=True)
     page.mouse.move(0, 0)
     assert readout.get_attribute("visibility") == "hidden"
+    # The keyboard reads out too: focus the chart, step along with the arrow keys.
+    spectra = page.locator("#chart-spectra")
+    spectra.focus()
+    page.keyboard.press("Home")
+    page.keyboard.press("ArrowRight")
+    first = json.loads(spectra.get_attribute("data-readout"))
+    page.keyboard.press("ArrowRight")
+    second = json.loads(spectra.get_attribute("data-readout"))
+    with httpx.Client(base_url=live_server.url) as http:
+        centres = http.get(f"/v1/renders/{view['id']}/report").json()["plots"]["spectra"]
+    assert first["x"] == centres["centres_hz"][1] and second["x"] == centres["centres_hz"][2]
+    assert second["values"] == [ear[2] for ear in centres["levels_db"]]
+    page.keyboard.press("Escape")
+    assert spectra.locator("g.readout").get_attribute("visibility") == "hidden"
+
+
+def test_screenshots_of_the_blind_test_and_report_pages(browser, live_server, setup, artefacts):
+    """Each page at 1,280 x 800 and 1,920 x 1,080 in both themes, with the header and the
+    hearing caution in view (the page's own palette tokens resolve in either theme)."""
+    r = setup["renders"]
+    with httpx.Client(base_url=live_server.url, timeout=30) as http:
+        resp = http.post(
+            "/v1/comparisons",
+            json={
+                "stem_id": setup["pier-dawn.wav"]["id"],
+                "mode": "abx",
+                "trials": 1,
+                "excerpt": {"length": 1.0},
+                "variants": [
+                    {"layout": "5.1", "name": "no room"},
+                    {"layout": "5.1", "room": "small", "name": "small room"},
+                ],
+            },
+        )
+        assert resp.status_code == 202, resp.text
+        comparison = resp.json()
+    pages = {
+        "compare": (f"/compare/{comparison['id']}", "body[data-state=listening]"),
+        "report": (f"/report/{r['small']['id']}", "body[data-state=ready]"),
+    }
+    backgrounds = {}
+    for theme in ("light", "dim"):
+        for width, height in ((1280, 800), (1920, 1080)):
+            context = browser.new_context(viewport={"width": width, "height": height})
+            context.add_init_script(f"localStorage.setItem('earfold.theme', '{theme}')")
+            pg = context.new_page()
+            try:
+                for name, (path, ready) in pages.items():
+                    pg.goto(live_server.url + path)
+                    pg.wait_for_selector(ready, timeout=90_000)
+                    assert pg.locator("header.chrome").is_visible()
+                    assert pg.locator("#hearing-caution").is_visible()
+                    backgrounds[(name, theme)] = pg.evaluate(
+                        "getComputedStyle(document.body).backgroundColor"
+                    )
+                    pg.screenshot(path=str(artefacts / f"{name}-{theme}-{width}x{height}.png"))
+            finally:
+                context.close()
+    # The dim theme is not the light one.
+    for name in pages:
+        assert backgrounds[(name, "light")] != backgrounds[(name, "dim")]
