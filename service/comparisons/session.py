@@ -269,6 +269,7 @@ def reveal(meta: dict, built: dict) -> dict:
                 "index": b["index"],
                 "name": v["name"],
                 "request": v["request"],
+                "summary": variant_summary(v["request"], v.get("uploads")),
                 **{
                     k: b[k]
                     for k in (

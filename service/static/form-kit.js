@@ -137,12 +137,25 @@ const PYDANTIC_WORDS = [
 
 /** A validation message of the API's "errors" list, in plain words (no type names). */
 export function plainMessage(message) {
+  return plainWords(message).text;
+}
+
+// { text, predicate }: predicate = the words go after the field's name ("must be ...");
+// otherwise they are a sentence of their own (a renderer's message).
+function plainWords(message) {
   const text = String(message || "").trim();
   for (const [re, fn] of PYDANTIC_WORDS) {
     const m = re.exec(text);
-    if (m) return fn(m);
+    if (m) return { text: fn(m), predicate: !/^(Value|Assertion) /i.test(m[0]) };
   }
-  return text;
+  return { text, predicate: false };
+}
+
+function withLabel(label, where, message) {
+  const { text, predicate } = plainWords(message);
+  if (predicate) return sentence(`${label}${where} ${text}`);
+  const first = label.split(" ")[0].toLowerCase();
+  return text.toLowerCase().startsWith(first) ? sentence(text) : sentence(`${label}${where}: ${text}`);
 }
 
 // Words in a renderer's message that tell which field it is about (a room error names the
@@ -173,7 +186,7 @@ export function problemsByField(err, labelOf, known) {
       const rest = path.slice(path.indexOf(name) + 1).filter((p) => !/^(float|int|str|literal|list|dict|function|union)\b|\[/.test(p));
       const where = rest.length ? ` (${rest.map((p) => (/^\d+$/.test(p) ? `#${Number(p) + 1}` : p.replace(/_/g, " "))).join(" ")})` : "";
       // A union (a level: number or word) answers once per branch; keep the first.
-      if (!fields.has(name)) fields.set(name, sentence(`${labelOf(name)}${where} ${words}`));
+      if (!fields.has(name)) fields.set(name, withLabel(labelOf(name), where, item.message));
     } else if (!fields.has("")) {
       fields.set("", sentence(`${path.join(" ") || "the request"}: ${words}`));
     }

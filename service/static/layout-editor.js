@@ -502,7 +502,13 @@ function startFrom(value) {
   checkAll();
 }
 
+function presetNameMax() {
+  const options = bus.state.catalog.options;
+  return options && options.presets ? options.presets.name_max : null;
+}
+
 function fillStartList() {
+  if (presetNameMax()) E.nodes.name.maxLength = presetNameMax();
   const select = E.nodes.start;
   const keep = select.value;
   select.replaceChildren(el("option", { value: "" }, "nothing (empty)"));
@@ -572,7 +578,7 @@ export async function mountLayoutEditor(root) {
   root.classList.add("layout-editor");
   const start = el("select", { id: uniqueId("lay-start"), "aria-label": "start from", "data-part": "start" });
   const startBtn = el("button", { type: "button", class: "btn btn-small", "data-action": "start" }, "Start");
-  const name = el("input", { id: uniqueId("lay-name"), type: "text", maxlength: "80", "data-part": "name", placeholder: "e.g. studio B ring" });
+  const name = el("input", { id: uniqueId("lay-name"), type: "text", "data-part": "name", placeholder: "e.g. studio B ring" });
   const description = el("input", { id: uniqueId("lay-desc"), type: "text", maxlength: "200", "data-part": "description", placeholder: "optional" });
   const top = svg("svg", { class: "view view-top", viewBox: `0 0 ${TOP.size} ${TOP.size}`, width: TOP.size, height: TOP.size, "data-view": "top", role: "group", "aria-label": "top view" });
   const side = svg("svg", { class: "view view-side", viewBox: `0 0 ${SIDE.width} ${SIDE.height}`, "data-view": "side", role: "group", "aria-label": "elevation view" });

@@ -29,7 +29,7 @@ const LABELS = {
   headphone_eq: "Headphone EQ", room: "Room", room_mode: "Room mode", lfe_cutoff: "LFE cutoff",
   lfe_gain: "LFE gain", loudness: "Loudness", true_peak: "True peak", format: "File format",
   subtype: "Sample format", seed: "Seed", block_size: "Block size", excerpt: "Excerpt",
-  fold: "Fold", solo: "Solo loudspeaker",
+  fold: "Fold to", solo: "Solo loudspeaker",
 };
 
 /** Words shown for declared choices that read better with a gloss. */
@@ -40,7 +40,7 @@ const CHOICE_WORDS = {
 /** The panel's sections; options the server declares beyond these land in "More". */
 const GROUPS = [
   ["speakers", "Loudspeakers", ["layout", "channel_order", "solo"]],
-  ["ears", "Ears", ["hrtf", "eq", "headphone_eq"]],
+  ["ears", "Ears", ["fold", "hrtf", "eq", "headphone_eq"]],
   ["room", "Room", ["room", "room_mode"]],
   ["lfe", "LFE", ["lfe_cutoff", "lfe_gain"]],
   ["delivery", "Delivery", ["loudness", "true_peak", "format", "subtype"]],
@@ -529,6 +529,21 @@ async function loadEqFiles() {
   }
 }
 
+/** An uploaded headphone EQ file in words, from the server's summary. */
+function eqSummary(file) {
+  const s = file.summary;
+  if (typeof s === "string") return s;
+  if (file.kind === "bands") {
+    const types = Array.isArray(s.types) ? ` (${s.types.join(", ")})` : "";
+    return `${s.bands} band${s.bands === 1 ? "" : "s"}${types}, ${num(s.frequency_min_hz, 0)} to ${num(s.frequency_max_hz, 0)} Hz` +
+      (typeof s.gain_db === "number" && s.gain_db ? `, overall gain ${num(s.gain_db, 1)} dB` : "");
+  }
+  if (file.kind === "impulse_response") {
+    return `impulse response: ${s.channels} channel${s.channels === 1 ? "" : "s"}, ${num(s.seconds * 1000, 1)} ms, recorded at ${num(s.samplerate, 0)} Hz`;
+  }
+  return "";
+}
+
 function headphoneEqControl(spec) {
   const select = el("select", { id: uniqueId("set-headphone-eq"), name: "headphone_eq" });
   const file = el("input", { type: "file", accept: ".json,.wav,.flac,application/json,audio/wav", hidden: true, "data-upload": "headphone-eq" });
@@ -560,7 +575,7 @@ function headphoneEqControl(spec) {
   function describe() {
     const f = (S.eqFiles || []).find((x) => x.id === select.value);
     remove.hidden = !f;
-    if (f && f.summary) status.textContent = typeof f.summary === "string" ? f.summary : JSON.stringify(f.summary);
+    if (f && f.summary) status.textContent = eqSummary(f);
     else if (select.value === "inline") status.textContent = inline.map((b) => `${b.type} ${num(b.frequency, 0)} Hz ${num(b.gain_db ?? 0, 1)} dB`).join("; ");
     else status.textContent = "";
   }
@@ -581,6 +596,15 @@ function headphoneEqControl(spec) {
     const chosen = file.files[0];
     file.value = "";
     if (!chosen) return;
+    // The server's limits (GET /v1/options "headphone_eq"): a band list is a small JSON
+    // file, an impulse response a short WAV; a bigger file is refused before sending.
+    const limits = (bus.state.catalog.options && bus.state.catalog.options.headphone_eq) || {};
+    const isJson = /\.json$/i.test(chosen.name) || chosen.type === "application/json";
+    const cap = isJson ? limits.max_json_bytes : limits.max_ir_bytes;
+    if (cap && chosen.size > cap) {
+      showProblem(ctrl, `${chosen.name} is ${num(chosen.size / 1024, 0)} kB; this server takes ${isJson ? "band lists" : "impulse responses"} up to ${num(cap / 1024, 0)} kB.`);
+      return;
+    }
     const form = new FormData();
     form.append("file", chosen, chosen.name);
     showProblem(ctrl, "");
@@ -855,7 +879,8 @@ function buildPresetBar() {
   const apply = el("button", { type: "button", class: "btn btn-small", "data-action": "preset-apply" }, "Apply");
   const overwrite = el("button", { type: "button", class: "btn btn-small", "data-action": "preset-update" }, "Update");
   const remove = el("button", { type: "button", class: "btn btn-small btn-quiet", "data-action": "preset-delete" }, "Delete");
-  const name = el("input", { type: "text", maxlength: "80", placeholder: "name for these settings", "aria-label": "preset name", "data-part": "preset-name" });
+  const limits = (bus.state.catalog.options && bus.state.catalog.options.presets) || {};
+  const name = el("input", { type: "text", maxlength: limits.name_max || null, placeholder: "name for these settings", "aria-label": "preset name", "data-part": "preset-name" });
   const save = el("button", { type: "button", class: "btn btn-small", "data-action": "preset-save" }, "Save as new");
   const message = el("p", { class: "hint", role: "status", "data-part": "preset-message" });
   const box = el("div", { class: "preset-bar" },

@@ -380,7 +380,10 @@ def test_loop_region_keeps_every_source_inside_it_and_aligned(page, live_server,
     for _ in range(8):  # about 1.6 s: the 0.5 s loop wraps at least twice
         page.wait_for_timeout(200)
         positions = list(page.evaluate("earfoldDesk.player.positions()").values())
-        assert max(positions) - min(positions) <= RENDER_QUANTUM, positions
+        assert max(positions) - min(positions) <= RENDER_QUANTUM, (
+            positions,
+            page.evaluate("earfoldDesk.player.sources()"),
+        )
         low, high = loop["in"] * rate - RENDER_QUANTUM, loop["out"] * rate + RENDER_QUANTUM
         for frames in positions:
             assert low <= frames <= high, (positions, loop)

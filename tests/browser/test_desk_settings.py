@@ -361,11 +361,12 @@ def test_render_again_fills_the_form(page, live_server, stems):
     }
     made = httpx.post(f"{live_server.url}/v1/renders", json=request, timeout=30)
     assert made.status_code == 202, made.text
-    view = httpx.get(f"{live_server.url}/v1/renders/{made.json()['id']}", timeout=30).json()
+    (view,) = wait_done(live_server, [made.json()["id"]])
     open_desk(page, live_server, stem)
-    page.evaluate(
-        "r => window.earfoldDesk.bus.emit('settings-load', {request: r})", view["request"]
-    )
+    page.click("#tab-speakers")  # "Again" brings the settings tab back
+    # The row's "Again" button in the renders panel sends its request to the settings.
+    page.locator(f".render-row[data-render='{view['id']}'] .act-again").click()
+    assert page.locator("#view-settings").is_visible()
     order = field(page, "channel_order").locator("select[name=channel_order]")
     assert order.input_value() == "film"
     assert field(page, "room").locator("select").input_value() == "small"
@@ -374,7 +375,6 @@ def test_render_again_fills_the_form(page, live_server, stems):
     assert field(page, "subtype").locator("select").input_value() == "FLOAT"
     assert field(page, "seed").locator("input").input_value() == "7"
     assert "loaded" in page.locator("[data-part='render-status']").inner_text()
-    wait_done(live_server, [view["id"]])
 
 
 # --------------------------------------------------------------------------- custom room
@@ -414,3 +414,54 @@ def test_custom_room_renders_with_its_dimensions(page, live_server, stems, artef
     report = report_of(live_server, render_id)
     dims = report["room"]["room"]["dimensions_m"]
     assert (dims["length"], dims["width"], dims["height"]) == (6.2, 4.4, 3.1)
+
+
+# --------------------------------------------------------------------------- headphone EQ
+
+
+def test_headphone_eq_uploaded_on_the_page_is_used(page, live_server, stems, tmp_path):
+    """A band list (invented: a gentle dip and a lift) sent from the page is listed with
+    its summary, chosen, and applied by the render (its report names the bands)."""
+    bands = {
+        "name": "reading-room cans",
+        "bands": [
+            {"type": "low_shelf", "frequency": 150, "gain_db": -1.5, "q": 0.7071},
+            {"type": "peaking", "frequency": 2500, "gain_db": 2.0, "q": 1.1},
+            {"type": "high_shelf", "frequency": 8000, "gain_db": -2.0, "q": 0.7071},
+        ],
+    }
+    path = tmp_path / "reading-room.json"
+    path.write_text(json.dumps(bands))
+    stem = stems[6]
+    open_desk(page, live_server, stem)
+    box = field(page, "headphone_eq")
+    box.locator("input[data-upload='headphone-eq']").set_input_files(str(path))
+    box.locator(".upload-status:has-text('3 bands')").wait_for()
+    chosen = box.locator("select").input_value()
+    assert len(chosen) == 32
+    assert "reading-room.json" in box.locator("select option:checked").inner_text()
+    before = {r["id"] for r in renders_of(live_server, stem["id"])}
+    page.click("#view-settings [data-action='render']")
+    page.locator("[data-part='render-status']:has-text('queued')").wait_for()
+    (render_id,) = new_renders(live_server, stem["id"], before, 1)
+    (view,) = wait_done(live_server, [render_id])
+    assert view["request"]["headphone_eq"] == chosen
+    headphone = report_of(live_server, render_id)["eq"]["headphone"]
+    assert headphone is not None
+    assert [b["frequency"] for b in headphone["bands"]] == [150, 2500, 8000]
+
+
+def test_a_room_the_renderer_refuses_is_explained_beside_the_room(page, live_server, stems):
+    """The client lets any positive size through; the renderer's room check refuses a
+    0.5 m room and its words appear under the room, not as raw validation text."""
+    open_desk(page, live_server, stems[6])
+    room = field(page, "room")
+    room.locator("select").select_option("__custom")
+    room.locator("[data-room='length']").fill("0.5")
+    room.locator("[data-room='toFront']").fill("0.2")
+    page.click("#view-settings [data-action='render']")
+    problem = room.locator("[data-problem='room']")
+    problem.wait_for()
+    text = problem.inner_text()
+    assert text.startswith("Room length 0.5 m is out of range"), text
+    assert text.endswith(".")
