@@ -22,9 +22,15 @@ import time
 from collections.abc import Iterable
 from pathlib import Path
 
-from .problems import UNAUTHORIZED, Problem
+from fastapi import Request
 
-__all__ = ["ALL_RENDERS", "LINK_LIFETIME_S", "LinkSigner"]
+from .auth import owner_for
+from .jobs import JobNotFound
+from .jobs.worker import COMPARISON_KIND
+from .problems import NOT_FOUND, UNAUTHORIZED, Problem
+from .storage import valid_id
+
+__all__ = ["ALL_RENDERS", "LINK_LIFETIME_S", "LinkSigner", "render_owner", "signer"]
 
 #: How long a signed link stays valid (s): six hours, a long listening session.
 LINK_LIFETIME_S = 6 * 3600
@@ -98,6 +104,32 @@ class LinkSigner:
                 UNAUTHORIZED, "the link's key does not open this address; ask for a new link"
             )
         return found[0]
+
+
+def signer(request: Request) -> LinkSigner:
+    """The app's link signer (one per app, on the data directory's secret)."""
+    found = getattr(request.app.state, "signer", None)
+    if found is None:
+        found = request.app.state.signer = LinkSigner(request.app.state.storage.root)
+    return found
+
+
+def render_owner(request: Request, render_id: str, key: str | None) -> str:
+    """The caller's owner id for ``render_id``: from a signed ``key`` made for that
+    render, or else from the ``Authorization`` header (401 problems otherwise)."""
+    if key is None:
+        return owner_for(request.app.state.settings.tokens, request.headers.get("authorization"))
+    try:
+        job = request.app.state.queue.get(render_id) if valid_id(render_id) else None
+    except JobNotFound:
+        job = None
+    if job is None or job.payload.get("kind") == COMPARISON_KIND:
+        raise Problem(NOT_FOUND, f"no render with id {render_id!r}")
+    try:
+        return signer(request).check(key, render_id, [job.owner])
+    except Problem:
+        # A key for all of the owner's renders (POST /v1/renders/events/link) opens each.
+        return signer(request).check(key, ALL_RENDERS, [job.owner])
 
 
 def _load_or_make(path: Path) -> bytes:

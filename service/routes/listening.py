@@ -34,7 +34,7 @@ from ..auth import ANONYMOUS, owner_for, owner_of
 from ..jobs import Job, JobNotFound, JobState, QueueUnavailable
 from ..jobs.worker import COMPARISON_KIND, output_paths
 from ..problems import CONFLICT, NOT_FOUND, UNAUTHORIZED, UNPROCESSABLE, Problem, problem_responses
-from ..signed_links import ALL_RENDERS, LinkSigner
+from ..signed_links import ALL_RENDERS, render_owner, signer
 from .renders import _done, _job, queue_position, render_view
 
 router = APIRouter(prefix="/v1/renders", tags=["listening"])
@@ -65,32 +65,6 @@ _NO_BUFFERING = {"Cache-Control": "no-cache", "X-Accel-Buffering": "no"}
 
 
 # -- who is asking --------------------------------------------------------------------
-
-
-def signer(request: Request) -> LinkSigner:
-    """The app's link signer (one per app, on the data directory's secret)."""
-    found = getattr(request.app.state, "signer", None)
-    if found is None:
-        found = request.app.state.signer = LinkSigner(request.app.state.storage.root)
-    return found
-
-
-def render_owner(request: Request, render_id: str, key: str | None) -> str:
-    """The caller's owner id for ``render_id``: from a signed ``key`` made for that
-    render, or else from the ``Authorization`` header (401 problems otherwise)."""
-    if key is None:
-        return owner_for(request.app.state.settings.tokens, request.headers.get("authorization"))
-    try:
-        job = request.app.state.queue.get(render_id) if len(render_id) == 32 else None
-    except JobNotFound:
-        job = None
-    if job is None or job.payload.get("kind") == COMPARISON_KIND:
-        raise Problem(NOT_FOUND, f"no render with id {render_id!r}")
-    try:
-        return signer(request).check(key, render_id, [job.owner])
-    except Problem:
-        # A key for all of the owner's renders (POST /v1/renders/events/link) opens each.
-        return signer(request).check(key, ALL_RENDERS, [job.owner])
 
 
 def _token_owners(request: Request) -> list[str]:
@@ -200,36 +174,42 @@ async def _one_render(request: Request, job: Job) -> AsyncIterator[bytes | None]
 async def _all_renders(request: Request, owner: str) -> AsyncIterator[bytes | None]:
     queue = request.app.state.queue
 
-    def read(watched: set[str]) -> list[dict]:
-        """Views of the owner's unfinished renders, the newest few, and the renders
-        watched unfinished on the last poll (to catch their final state)."""
-        jobs = {j.id: j for j in queue.list(owner=owner, active=True)}
-        for j in queue.list(owner=owner, limit=RECENT):
+    def read(known: set[str], watched: set[str], full: bool) -> tuple[list[dict], bool]:
+        """Views of the owner's newest renders, of the renders watched unfinished on the
+        last poll (to catch their final state) and, on a full read, of every unfinished
+        one; and whether the read was full."""
+        recent = queue.list(owner=owner, limit=RECENT)
+        # The newest RECENT hold every render newer than one already known; only when
+        # none of them is known (the first poll, a burst of submissions) can unfinished
+        # renders lie beyond them, and only then is the owner's whole list read.
+        full = full or not any(j.id in known for j in recent) and len(recent) == RECENT
+        jobs = {j.id: j for j in queue.list(owner=owner, active=True)} if full else {}
+        for j in recent:
             jobs.setdefault(j.id, j)
         for job_id in watched - jobs.keys():
             try:
                 jobs[job_id] = queue.get(job_id)
             except JobNotFound:
                 pass  # deleted
-        places = (
-            queue.queue_positions()
-            if any(j.state is JobState.QUEUED for j in jobs.values())
-            else {}
-        )
-        return [
+        queued = any(j.state is JobState.QUEUED for j in jobs.values())
+        places = queue.queue_positions() if queued else {}
+        views = [
             render_view(j, places.get(j.id))
             for j in sorted(jobs.values(), key=lambda j: j.created)
             if j.payload.get("kind") != COMPARISON_KIND
         ]
+        return views, full
 
     seen: dict[str, tuple] = {}
     first = True
     while True:
         watched = {i for i, mark in seen.items() if mark[0] in ("queued", "running")}
         try:
-            views = await asyncio.to_thread(read, watched)
+            views, _ = await asyncio.to_thread(read, set(seen), watched, first)
         except QueueUnavailable:
-            views = []
+            yield None  # a network store's outage: keep the stream, try again
+            await asyncio.sleep(POLL_S)
+            continue
         out = []
         for view in views:
             mark = _mark(view)

@@ -39,6 +39,7 @@ from ..problems import (
     Problem,
     problem_responses,
 )
+from ..signed_links import render_owner
 from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
@@ -381,8 +382,6 @@ def get_audio(
         None, max_length=80, description="a signed key from POST /v1/renders/{id}/listen"
     ),
 ):
-    from .listening import render_owner  # the signed-link check (listening imports us)
-
     job = _done(request, render_id, render_owner(request, render_id, key))
     output, _ = output_paths(request.app.state.storage, job)
     if not output.is_file():

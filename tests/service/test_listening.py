@@ -153,7 +153,9 @@ def test_render_events_follow_a_render_to_done_then_end(live, tmp_path):
             assert resp.status_code == 200
             assert resp.headers["content-type"].startswith("text/event-stream")
             thread = None
+            deadline = time.monotonic() + 60  # the server sends a comment every 15 s
             for name, view in _events(resp.iter_lines()):
+                assert time.monotonic() < deadline, seen
                 if name == "comment":
                     continue
                 assert name == "render"
@@ -175,6 +177,7 @@ def test_all_render_events_show_each_render_and_keep_alive(live, tmp_path, monke
     from earfold.service.routes import listening
 
     monkeypatch.setattr(listening, "KEEP_ALIVE_S", 0.5)
+    deadline = time.monotonic() + 60
     server = live()
     with httpx.Client(base_url=server.url, timeout=30) as http:
         path = write_stem(tmp_path / "take.wav", FS // 5, 2)
@@ -188,6 +191,7 @@ def test_all_render_events_show_each_render_and_keep_alive(live, tmp_path, monke
             after = None
             thread = None
             for name, view in _events(resp.iter_lines()):
+                assert time.monotonic() < deadline, views
                 if name == "comment":
                     comments += 1
                     assert view == "keep-alive"
@@ -206,6 +210,35 @@ def test_all_render_events_show_each_render_and_keep_alive(live, tmp_path, monke
     assert views[after["id"]][0] == ("queued", 2)  # a new render shows up, behind the first
     assert views[before["id"]][-1] == ("done", None) and views[after["id"]][-1] == ("done", None)
     assert comments >= 1
+
+
+def test_all_render_events_miss_nothing_in_a_burst(live, tmp_path, monkeypatch):
+    from earfold.service.routes import listening
+
+    monkeypatch.setattr(listening, "RECENT", 2)  # a burst is larger than the newest read
+    monkeypatch.setattr(listening, "KEEP_ALIVE_S", 0.5)  # so the loop below wakes up
+    deadline = time.monotonic() + 30
+    server = live()
+    with httpx.Client(base_url=server.url, timeout=30) as http:
+        path = write_stem(tmp_path / "take.wav", FS // 10, 2)
+        stem = http.post("/v1/stems", files=files_field([path])).json()
+        body = {"stem_id": stem["id"], "layout": "2.0"}
+        old = [http.post("/v1/renders", json=body).json()["id"] for _ in range(3)]
+        last: dict[str, tuple] = {}
+        with http.stream("GET", "/v1/renders/events") as resp:
+            new: list[str] = []
+            for name, view in _events(resp.iter_lines()):
+                assert time.monotonic() < deadline, last
+                if name == "comment":
+                    continue
+                last[view["id"]] = (view["state"], view["queue_position"])
+                if len(last) == 3 and not new:  # the snapshot is complete: a burst of 3
+                    new = [http.post("/v1/renders", json=body).json()["id"] for _ in range(3)]
+                    http.delete(f"/v1/renders/{old[0]}")  # the oldest leaves the line
+                expected = {old[0]: ("cancelled", None)}
+                expected.update({i: ("queued", n) for n, i in enumerate(old[1:] + new, 1)})
+                if last == expected:
+                    break  # every render shown, each in its final place
 
 
 def test_a_client_that_goes_away_ends_its_stream(live, tmp_path):
@@ -375,3 +408,57 @@ def test_window_out_of_range_is_422(make_client, tmp_path):
     assert client.get(f"{base}?start=0&seconds=0").status_code == 422
     assert client.get(f"{base}?start=-1&seconds=1").status_code == 422
     _problem(client.get(f"/v1/renders/{'0' * 32}/window?seconds=1"), 404, "0" * 32)
+
+
+# -- stem levels ---------------------------------------------------------------------------
+
+
+def test_stem_levels_measured_at_upload_and_for_old_stems_on_request(client, tmp_path):
+    import math
+
+    import numpy as np
+
+    from earfold.renderer.io import write_audio
+
+    t = np.arange(FS) / FS
+    data = np.stack([0.5 * np.sin(2 * np.pi * 1200 * t), np.zeros_like(t)], axis=1)
+    path = tmp_path / "tone.wav"
+    write_audio(path, data.astype(np.float32), FS, subtype="FLOAT")
+    stem = client.post("/v1/stems", files=files_field([path])).json()
+    folder = client.app.state.storage.path("stems", stem["id"])
+    assert (folder / "levels.json").is_file()  # measured at upload, beside the stem
+
+    resp = client.get(f"/v1/stems/{stem['id']}/levels")
+    assert resp.status_code == 200, resp.text
+    levels = resp.json()
+    assert (levels["frames"], levels["sample_rate"], levels["points"]) == (FS, FS, 240)
+    left, right = levels["channels"]
+    assert (left["index"], left["label"], right["label"]) == (0, "L", "R")
+    # a sine of amplitude 0.5: peak 20 log10 0.5, RMS 20 log10 (0.5 / sqrt 2) (textbook)
+    assert left["peak_dbfs"] == pytest.approx(20 * math.log10(0.5), abs=0.01)
+    assert left["rms_dbfs"] == pytest.approx(20 * math.log10(0.5 / math.sqrt(2)), abs=0.01)
+    assert left["low_share"] == pytest.approx(0.0, abs=0.001) and len(left["overview"]) == 240
+    assert right["peak_dbfs"] is None and right["low_share"] is None  # silent: null
+
+    # A stem stored before levels existed: measured on the first request, then kept.
+    (folder / "levels.json").unlink()
+    again = client.get(f"/v1/stems/{stem['id']}/levels").json()
+    assert again == levels and (folder / "levels.json").is_file()
+    _problem(client.get(f"/v1/stems/{'0' * 32}/levels"), 404, "0" * 32)
+
+
+# -- the report page -----------------------------------------------------------------------
+
+
+def test_report_page_is_served_when_installed_and_404_otherwise(client, tmp_path, monkeypatch):
+    from earfold.service.routes import pages
+
+    monkeypatch.setattr(pages, "STATIC_DIR", tmp_path)
+    rid = "ab" * 16
+    _problem(client.get(f"/report/{rid}"), 404, "'report.html' is not installed")
+    (tmp_path / "report.html").write_text("<!doctype html><title>report</title>")
+    resp = client.get(f"/report/{rid}")
+    assert resp.status_code == 200 and resp.headers["content-type"].startswith("text/html")
+    assert resp.text == "<!doctype html><title>report</title>"
+    assert resp.headers["cache-control"] == "no-cache"
+    _problem(client.get("/report/not-an-id"), 404, "no render 'not-an-id'")
