@@ -174,36 +174,42 @@ async def _one_render(request: Request, job: Job) -> AsyncIterator[bytes | None]
 async def _all_renders(request: Request, owner: str) -> AsyncIterator[bytes | None]:
     queue = request.app.state.queue
 
-    def read(watched: set[str]) -> list[dict]:
-        """Views of the owner's unfinished renders, the newest few, and the renders
-        watched unfinished on the last poll (to catch their final state)."""
-        jobs = {j.id: j for j in queue.list(owner=owner, active=True)}
-        for j in queue.list(owner=owner, limit=RECENT):
+    def read(known: set[str], watched: set[str], full: bool) -> tuple[list[dict], bool]:
+        """Views of the owner's newest renders, of the renders watched unfinished on the
+        last poll (to catch their final state) and, on a full read, of every unfinished
+        one; and whether the read was full."""
+        recent = queue.list(owner=owner, limit=RECENT)
+        # The newest RECENT hold every render newer than one already known; only when
+        # none of them is known (the first poll, a burst of submissions) can unfinished
+        # renders lie beyond them, and only then is the owner's whole list read.
+        full = full or not any(j.id in known for j in recent) and len(recent) == RECENT
+        jobs = {j.id: j for j in queue.list(owner=owner, active=True)} if full else {}
+        for j in recent:
             jobs.setdefault(j.id, j)
         for job_id in watched - jobs.keys():
             try:
                 jobs[job_id] = queue.get(job_id)
             except JobNotFound:
                 pass  # deleted
-        places = (
-            queue.queue_positions()
-            if any(j.state is JobState.QUEUED for j in jobs.values())
-            else {}
-        )
-        return [
+        queued = any(j.state is JobState.QUEUED for j in jobs.values())
+        places = queue.queue_positions() if queued else {}
+        views = [
             render_view(j, places.get(j.id))
             for j in sorted(jobs.values(), key=lambda j: j.created)
             if j.payload.get("kind") != COMPARISON_KIND
         ]
+        return views, full
 
     seen: dict[str, tuple] = {}
     first = True
     while True:
         watched = {i for i, mark in seen.items() if mark[0] in ("queued", "running")}
         try:
-            views = await asyncio.to_thread(read, watched)
+            views, _ = await asyncio.to_thread(read, set(seen), watched, first)
         except QueueUnavailable:
-            views = []
+            yield None  # a network store's outage: keep the stream, try again
+            await asyncio.sleep(POLL_S)
+            continue
         out = []
         for view in views:
             mark = _mark(view)

@@ -266,12 +266,18 @@ function redrawRow(r) {
   if (old && old.isConnected) old.replaceWith(row);
 }
 
+/** What a row shows of a render: an event that changes none of it redraws nothing. */
+function signature(r) {
+  return JSON.stringify([r.state, r.progress, r.queue_position, r.message, r.result ? 1 : 0]);
+}
+
 function update(view) {
   const before = renders.get(view.id);
   renders.set(view.id, view);
   if (!seen.has(view.id)) seen.set(view.id, []);
   seen.get(view.id).push(view.progress);
   const row = rows.get(view.id);
+  if (before && signature(before) === signature(view) && row && row.isConnected) return;
   const stem = bus.state.stem;
   const mine = stem && view.request && view.request.stem_id === stem.id;
   if (!row || !row.isConnected) {

@@ -153,7 +153,9 @@ def test_render_events_follow_a_render_to_done_then_end(live, tmp_path):
             assert resp.status_code == 200
             assert resp.headers["content-type"].startswith("text/event-stream")
             thread = None
+            deadline = time.monotonic() + 60  # the server sends a comment every 15 s
             for name, view in _events(resp.iter_lines()):
+                assert time.monotonic() < deadline, seen
                 if name == "comment":
                     continue
                 assert name == "render"
@@ -175,6 +177,7 @@ def test_all_render_events_show_each_render_and_keep_alive(live, tmp_path, monke
     from earfold.service.routes import listening
 
     monkeypatch.setattr(listening, "KEEP_ALIVE_S", 0.5)
+    deadline = time.monotonic() + 60
     server = live()
     with httpx.Client(base_url=server.url, timeout=30) as http:
         path = write_stem(tmp_path / "take.wav", FS // 5, 2)
@@ -188,6 +191,7 @@ def test_all_render_events_show_each_render_and_keep_alive(live, tmp_path, monke
             after = None
             thread = None
             for name, view in _events(resp.iter_lines()):
+                assert time.monotonic() < deadline, views
                 if name == "comment":
                     comments += 1
                     assert view == "keep-alive"
@@ -206,6 +210,35 @@ def test_all_render_events_show_each_render_and_keep_alive(live, tmp_path, monke
     assert views[after["id"]][0] == ("queued", 2)  # a new render shows up, behind the first
     assert views[before["id"]][-1] == ("done", None) and views[after["id"]][-1] == ("done", None)
     assert comments >= 1
+
+
+def test_all_render_events_miss_nothing_in_a_burst(live, tmp_path, monkeypatch):
+    from earfold.service.routes import listening
+
+    monkeypatch.setattr(listening, "RECENT", 2)  # a burst is larger than the newest read
+    monkeypatch.setattr(listening, "KEEP_ALIVE_S", 0.5)  # so the loop below wakes up
+    deadline = time.monotonic() + 30
+    server = live()
+    with httpx.Client(base_url=server.url, timeout=30) as http:
+        path = write_stem(tmp_path / "take.wav", FS // 10, 2)
+        stem = http.post("/v1/stems", files=files_field([path])).json()
+        body = {"stem_id": stem["id"], "layout": "2.0"}
+        old = [http.post("/v1/renders", json=body).json()["id"] for _ in range(3)]
+        last: dict[str, tuple] = {}
+        with http.stream("GET", "/v1/renders/events") as resp:
+            new: list[str] = []
+            for name, view in _events(resp.iter_lines()):
+                assert time.monotonic() < deadline, last
+                if name == "comment":
+                    continue
+                last[view["id"]] = (view["state"], view["queue_position"])
+                if len(last) == 3 and not new:  # the snapshot is complete: a burst of 3
+                    new = [http.post("/v1/renders", json=body).json()["id"] for _ in range(3)]
+                    http.delete(f"/v1/renders/{old[0]}")  # the oldest leaves the line
+                expected = {old[0]: ("cancelled", None)}
+                expected.update({i: ("queued", n) for n, i in enumerate(old[1:] + new, 1)})
+                if last == expected:
+                    break  # every render shown, each in its final place
 
 
 def test_a_client_that_goes_away_ends_its_stream(live, tmp_path):
