@@ -19,7 +19,16 @@ from .jobs import QueueUnavailable, open_queue
 from .problems import install_problem_handlers
 from .request_gate import RequestGate, streamed_paths
 from .retention import TMP_MAX_AGE_S, sweep
-from .routes import catalog, comparisons, headphone_eq, options, presets, renders, stems
+from .routes import (
+    catalog,
+    comparisons,
+    headphone_eq,
+    listening,
+    options,
+    presets,
+    renders,
+    stems,
+)
 from .routes.docs import install_api_docs
 from .routes.pages import install_pages
 from .settings import ServiceSettings
@@ -65,6 +74,8 @@ def create_app(settings: ServiceSettings) -> FastAPI:
     app.include_router(presets.router)
     app.include_router(headphone_eq.router)
     app.include_router(stems.router)
+    # Before the renders router: its /v1/renders/{render_id} would take /v1/renders/events.
+    app.include_router(listening.router)
     app.include_router(renders.router)
     app.include_router(comparisons.router)
     install_pages(app)

@@ -5,6 +5,13 @@ soundfile is imported in :mod:`._codec` and nowhere else in the renderer.
 
 from __future__ import annotations
 
+from ._levels import (
+    LOW_SHARE_HZ,
+    OVERVIEW_POINTS,
+    ChannelLevels,
+    StemLevels,
+    measure_levels,
+)
 from .audio import (
     INPUT_FORMATS,
     NonFiniteSample,
@@ -22,12 +29,17 @@ from .wav_header import WAVE_FORMAT_EXTENSIBLE, read_channel_mask
 
 __all__ = [
     "INPUT_FORMATS",
+    "LOW_SHARE_HZ",
+    "OVERVIEW_POINTS",
     "WAVE_FORMAT_EXTENSIBLE",
+    "ChannelLevels",
     "NonFiniteSample",
     "OutputWriter",
     "StemInfo",
+    "StemLevels",
     "StemReader",
     "audio_formats",
+    "measure_levels",
     "probe_stem",
     "read_audio",
     "read_channel_mask",

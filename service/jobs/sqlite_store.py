@@ -280,8 +280,8 @@ class SqliteJobQueue:
         row = (
             self._reader()
             .execute(
-                "SELECT (SELECT COUNT(*) FROM jobs AS o WHERE o.state = 'queued' AND o.seq <= j.seq) "
-                "AS n FROM jobs AS j WHERE j.id = ? AND j.state = 'queued'",
+                "SELECT (SELECT COUNT(*) FROM jobs AS o WHERE o.state = 'queued' "
+                "AND o.seq <= j.seq) AS n FROM jobs AS j WHERE j.id = ? AND j.state = 'queued'",
                 (job_id,),
             )
             .fetchone()

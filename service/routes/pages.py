@@ -1,9 +1,11 @@
-"""The web pages: ``/`` (renders) and ``/compare/{id}`` (blind listening), and ``/static``.
+"""The web pages: ``/`` (the desk), ``/compare/{id}`` (blind listening), ``/report/{id}``
+(a render's report), and ``/static``.
 
 The pages are static HTML, JS and CSS from ``service/static`` with no build step; they
 use only the public HTTP API, so they need no token of their own and no server-side
-templating. ``/compare/{id}`` answers the same page for every id (the script reads the id
-from the address), so the page itself tells nothing about a session.
+templating. ``/compare/{id}`` and ``/report/{id}`` answer the same page for every id (the
+script reads the id from the address), so the page itself tells nothing about a session
+or a render.
 """
 
 from __future__ import annotations
@@ -43,6 +45,13 @@ def compare(comparison_id: str) -> FileResponse:
     if not _ID.fullmatch(comparison_id):
         raise Problem(NOT_FOUND, f"no comparison {comparison_id!r}")
     return _page("compare.html")
+
+
+@router.get("/report/{render_id}")
+def report(render_id: str) -> FileResponse:
+    if not _ID.fullmatch(render_id):
+        raise Problem(NOT_FOUND, f"no render {render_id!r}")
+    return _page("report.html")
 
 
 def install_pages(app: FastAPI) -> None:

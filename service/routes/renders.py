@@ -38,6 +38,7 @@ from ..problems import (
     Problem,
     problem_responses,
 )
+from ..signed_links import render_owner
 from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
@@ -373,8 +374,14 @@ def _done(request: Request, render_id: str, owner: str) -> Job:
         **problem_responses(NOT_FOUND, CONFLICT, RANGE_NOT_SATISFIABLE),
     },
 )
-def get_audio(render_id: str, request: Request, owner: str = Depends(current_owner)):
-    job = _done(request, render_id, owner)
+def get_audio(
+    render_id: str,
+    request: Request,
+    key: str | None = Query(
+        None, max_length=80, description="a signed key from POST /v1/renders/{id}/listen"
+    ),
+):
+    job = _done(request, render_id, render_owner(request, render_id, key))
     output, _ = output_paths(request.app.state.storage, job)
     if not output.is_file():
         raise Problem(NOT_FOUND, f"the audio of render {render_id!r} is gone (expired or deleted)")

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import re
 import time
 from pathlib import Path
@@ -10,8 +11,13 @@ from anyio import to_thread
 from fastapi import APIRouter, Depends, Request, Response
 
 from earfold.renderer.errors import AudioError
-from earfold.renderer.io import probe_stem, scan_stem
-from earfold.renderer.layouts import labels_from_filenames, labels_from_mask, suggest_layout
+from earfold.renderer.io import measure_levels, probe_stem
+from earfold.renderer.layouts import (
+    LAYOUTS,
+    labels_from_filenames,
+    labels_from_mask,
+    suggest_layout,
+)
 
 from ..auth import current_owner
 from ..problems import (
@@ -31,6 +37,9 @@ from ..storage import META, Storage, new_id, write_json_atomic
 from ..uploads import MAX_PARTS, UploadedFile, staged_upload
 
 router = APIRouter(prefix="/v1/stems", tags=["stems"], responses=problem_responses(UNAUTHORIZED))
+
+#: File of a stem's levels in its folder (GET /v1/stems/{id}/levels).
+LEVELS = "levels.json"
 
 _SAFE_EXT = re.compile(r"\.[a-z0-9]{1,5}")
 _SAFE_LABEL = re.compile(r"[A-Za-z0-9+\-]{1,16}")
@@ -126,15 +135,21 @@ def _probe(
     if not several and stem.channel_mask:
         labels = labels_from_mask(stem.channel_mask, stem.channels)
         source = "WAV channel mask" if labels else None
-    if stem.subtype in ("FLOAT", "DOUBLE"):
-        # Integer PCM cannot hold NaN or infinity; a float stem is read once, in blocks, so
-        # that a bad sample is refused now, named, rather than when a render meets it.
-        bad = scan_stem(stem, labels=labels)
-        if bad is not None:
-            raise Problem(UNPROCESSABLE, _user_message(bad.message, names))
     layout = suggest_layout(stem.channels, labels)
     if layout is None and labels is not None:
         layout = suggest_layout(stem.channels)
+    # One read of the whole stem, in blocks, measures its levels (kept beside it for the
+    # desk) and, for a float stem, refuses a NaN or infinite sample now, named, rather
+    # than when a render meets it (integer PCM cannot hold one).
+    try:
+        levels = measure_levels(
+            stem,
+            labels=labels or (layout.labels if layout else None),
+            check_finite=stem.subtype in ("FLOAT", "DOUBLE"),
+        )
+    except AudioError as exc:
+        raise Problem(UNPROCESSABLE, _user_message(exc, names)) from None
+    write_json_atomic(folder / LEVELS, levels.to_dict(), indent=None)
     return {
         "files": [
             {
@@ -202,6 +217,38 @@ def list_stems(request: Request, owner: str = Depends(current_owner)) -> list[di
 @router.get("/{stem_id}", summary="Describe a stem", responses=problem_responses(NOT_FOUND))
 def get_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
     return stem_summary(request.app.state.storage.read_meta("stems", stem_id, owner))
+
+
+@router.get(
+    "/{stem_id}/levels",
+    summary="Levels of each channel: peak, RMS, low-frequency share, an overview in time",
+    responses=problem_responses(NOT_FOUND, UNPROCESSABLE),
+)
+def get_stem_levels(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:
+    """``{"frames", "sample_rate", "points", "channels": [{"index", "label", "peak_dbfs",
+    "rms_dbfs", "low_share", "overview": [[peak_db, rms_db] x points]}]}``; dB relative to
+    full scale, null where silent; ``low_share`` is the share of the channel's energy
+    below 120 Hz. Measured at upload; a stem uploaded before levels existed is measured
+    on its first request (one pass in blocks) and the result kept."""
+    storage: Storage = request.app.state.storage
+    meta = storage.read_meta("stems", stem_id, owner)
+    folder = storage.path("stems", stem_id)
+    try:
+        return json.loads((folder / LEVELS).read_text())
+    except (OSError, ValueError):
+        pass  # not measured yet (or the file is damaged): measure now
+    layout = LAYOUTS.get(meta.get("suggested_layout") or "")
+    labels = meta.get("channel_labels") or (layout.labels if layout else None)
+    try:
+        info = probe_stem([folder / f["stored"] for f in meta["files"]])
+        levels = measure_levels(info, labels=labels).to_dict()
+    except AudioError as exc:
+        why = str(exc).replace(f"{folder}/", "")  # no server paths in the answer
+        raise Problem(
+            UNPROCESSABLE, f"the stem's files can no longer be read ({why}); upload it again"
+        ) from None
+    write_json_atomic(folder / LEVELS, levels, indent=None)
+    return levels
 
 
 @router.delete(

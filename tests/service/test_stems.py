@@ -61,7 +61,7 @@ def test_file_names_are_metadata_only(client, tmp_path):
     assert stem["files"][0]["name"] == "outside.wav"
     root = client.app.state.storage.root
     stored = list((root / "stems" / stem["id"]).iterdir())
-    assert sorted(p.name for p in stored) == ["00.wav", "meta.json"]
+    assert sorted(p.name for p in stored) == ["00.wav", "levels.json", "meta.json"]
     assert not (root.parent / "outside.wav").exists()
 
 
