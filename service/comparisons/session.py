@@ -159,7 +159,7 @@ def public_view(meta: dict, built: dict | None, job: Job | None) -> dict:
             {
                 "name": v["name"],
                 "request": v["request"],
-                "summary": variant_summary(v["request"]),
+                "summary": variant_summary(v["request"], v.get("uploads")),
                 "settings": variant_settings(v["request"]),
             }
             for v in meta["variants"]
@@ -269,6 +269,7 @@ def reveal(meta: dict, built: dict) -> dict:
                 "index": b["index"],
                 "name": v["name"],
                 "request": v["request"],
+                "summary": variant_summary(v["request"], v.get("uploads")),
                 **{
                     k: b[k]
                     for k in (

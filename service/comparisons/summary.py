@@ -36,7 +36,7 @@ def _number(value: float) -> str:
     return f"{value:g}"
 
 
-def _word(name: str, value: Any) -> str:
+def _word(name: str, value: Any, uploads: dict[str, str]) -> str:
     spec = _SPECS[name]
     if name == "layout" and isinstance(value, dict):
         speakers = value.get("speakers") or []
@@ -47,10 +47,14 @@ def _word(name: str, value: Any) -> str:
         return f"room '{value.get('name') or 'custom'}' {size} m".rstrip()
     if name == "headphone_eq":
         if isinstance(value, str):
-            return "headphone EQ (uploaded)"
+            return (
+                f"headphone EQ {uploads['headphone_eq']}"
+                if "headphone_eq" in uploads
+                else ("headphone EQ (uploaded)")
+            )
         return f"headphone EQ ({len(value)} band{'s' if len(value) != 1 else ''})"
     if name == "hrtf" and isinstance(value, str) and len(value) == 32:
-        return "HRTF set (uploaded)"
+        return f"HRTF set {uploads['hrtf']}" if "hrtf" in uploads else "HRTF set (uploaded)"
     if name == "channel_order" and isinstance(value, list):
         return "channel order " + ",".join(map(str, value))
     if isinstance(value, (int, float)) and not isinstance(value, bool):
@@ -61,8 +65,11 @@ def _word(name: str, value: Any) -> str:
     return f"{name} {value}"
 
 
-def variant_summary(request: dict[str, Any]) -> str:
+def variant_summary(request: dict[str, Any], uploads: dict[str, str] | None = None) -> str:
     """A variant in words: its non-default options in declaration order, or "defaults".
+
+    ``uploads`` names uploaded files by option (``hrtf``, ``headphone_eq``): the user's
+    file names, recorded when the comparison was made.
 
     Examples
     --------
@@ -72,5 +79,7 @@ def variant_summary(request: dict[str, Any]) -> str:
     'defaults'
     """
     settings = variant_settings(request)
-    words = [_word(s.name, settings[s.name]) for s in RENDER_OPTIONS if s.name in settings]
+    words = [
+        _word(s.name, settings[s.name], uploads or {}) for s in RENDER_OPTIONS if s.name in settings
+    ]
     return ", ".join(words) or "defaults"

@@ -264,6 +264,7 @@ def create_comparison(
                 "request": fields,
                 "options": options,
                 "hrtf_id": hrtf_id,
+                "uploads": _upload_names(storage, options, hrtf_id),
             }
         )
     _refuse_identical(variants)
@@ -294,6 +295,17 @@ def create_comparison(
     job = _store_and_queue(request, meta, payload)
     view = sessions.public_view(meta, None, job)
     return _json(view, 202, {"Location": f"/v1/comparisons/{session_id}"})
+
+
+def _upload_names(storage: Storage, options: dict, hrtf_id: str | None) -> dict[str, str]:
+    """The user's file names of the uploads a variant uses, by option (for its summary)."""
+    out = {}
+    if hrtf_id:
+        out["hrtf"] = storage.read_meta("hrtf", hrtf_id)["name"]
+    eq = options.get("headphone_eq")
+    if isinstance(eq, str):
+        out["headphone_eq"] = storage.read_meta("headphone-eq", eq)["name"]
+    return out
 
 
 def _stem_name(stem: dict) -> str | None:

@@ -13,6 +13,7 @@ keeps at most :data:`MAX_FILES`.
 
 from __future__ import annotations
 
+import fcntl
 import time
 from pathlib import Path
 from typing import Any, Literal
@@ -164,6 +165,28 @@ def _check_and_store(folder: Path, part: Path, file_name: str, size: int) -> dic
     return {"id": eq_id, "stored": stored.name, "kind": kind, "summary": summary}
 
 
+def _check_room(storage: Storage, owner: str) -> None:
+    held = sum(1 for _ in storage.list_meta(HEADPHONE_EQ_KIND, owner))
+    if held >= MAX_FILES:
+        raise Problem(
+            CONFLICT,
+            f"you keep {held} headphone EQ files, the most this server keeps per owner is "
+            f"{MAX_FILES}; delete some (DELETE /v1/headphone-eq/ID) first",
+        )
+
+
+def _keep(storage: Storage, folder: Path, owner: str, eq_id: str) -> None:
+    """Move a checked upload into place, under the folder's lock so that two uploads at
+    once cannot both take the owner's last place."""
+    with open(storage.root / HEADPHONE_EQ_KIND / ".lock", "a+") as fh:
+        fcntl.flock(fh, fcntl.LOCK_EX)
+        try:
+            _check_room(storage, owner)
+            storage.commit(folder, HEADPHONE_EQ_KIND, eq_id)
+        finally:
+            fcntl.flock(fh, fcntl.LOCK_UN)
+
+
 @router.post(
     "",
     status_code=201,
@@ -178,13 +201,7 @@ async def upload_headphone_eq(
 ) -> dict:
     settings = request.app.state.settings
     storage: Storage = request.app.state.storage
-    held = sum(1 for _ in storage.list_meta(HEADPHONE_EQ_KIND, owner))
-    if held >= MAX_FILES:
-        raise Problem(
-            CONFLICT,
-            f"you keep {held} headphone EQ files, the most this server keeps per owner is "
-            f"{MAX_FILES}; delete some (DELETE /v1/headphone-eq/ID) first",
-        )
+    _check_room(storage, owner)  # before the upload is read; again when it is kept
     async with staged_upload(
         request, storage, limit=MAX_EQ_IR_BYTES, min_free_bytes=settings.min_free_bytes
     ) as (folder, files):
@@ -203,7 +220,7 @@ async def upload_headphone_eq(
             "created_ts": now,
         }
         write_json_atomic(folder / META, meta)
-        storage.commit(folder, HEADPHONE_EQ_KIND, meta["id"])
+        await to_thread.run_sync(_keep, storage, folder, owner, meta["id"])
     response.headers["Location"] = f"/v1/headphone-eq/{meta['id']}"
     return eq_view(meta)
 

@@ -23,6 +23,7 @@ from earfold.renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_
 from earfold.renderer.render import option
 
 from ..auth import current_owner
+from ..job_inputs import HEADPHONE_EQ_KIND
 from ..jobs import Job, JobNotFound, JobState, QueueFull, WrongState
 from ..jobs.worker import COMPARISON_KIND, output_paths
 from ..problems import (
@@ -144,7 +145,7 @@ def uploaded_bands(eq_id: str, storage: Storage, owner: str) -> list[Any]:
     """The bands of the owner's uploaded headphone EQ ``eq_id`` (none for an impulse
     response), for the stem's checks; 422 if there is no such upload."""
     try:
-        meta = storage.read_meta("headphone-eq", eq_id, owner)
+        meta = storage.read_meta(HEADPHONE_EQ_KIND, eq_id, owner)
     except Problem:
         raise Problem(
             UNPROCESSABLE,

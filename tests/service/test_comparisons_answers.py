@@ -78,6 +78,7 @@ def test_no_preference_is_counted_apart_and_left_out_of_the_sign_test(make_clien
 
     result = client.get(f"/v1/comparisons/{cid}/results").json()
     assert result["answered"] == 6 and result["no_preference"] == 3
+    assert [v["summary"] for v in result["variants"]] == ["5.1", "5.1, lfe_gain 4 dB"]
     assert "sign test" in result["ties"]
     rows = result["trials"]
     assert [r["no_preference"] for r in rows] == [a == "none" for a in answers]

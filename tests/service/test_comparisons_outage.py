@@ -26,7 +26,7 @@ def test_comparison_during_a_redis_outage_creates_no_record(own_redis, make_clie
     client = make_client(queue_url=own_redis.url)
     path = write_stem(tmp_path / "a.wav", FS // 2, 2, seed=3)
     stem = client.post("/v1/stems", files=files_field([path])).json()
-    body = {"stem_id": stem["id"], "variants": [{"layout": "2.0"}, {"layout": "2.0"}]}
+    body = {"stem_id": stem["id"], "variants": [{"layout": "2.0"}, {"layout": "2.0", "eq": "none"}]}
 
     own_redis.stop()
     resp = client.post("/v1/comparisons", json=body)

@@ -218,3 +218,45 @@ def test_a_comparison_variant_takes_an_uploaded_id(client, tmp_path):
     spec = build_spec(client.app.state.storage, dict(job.payload), job.id)
     assert spec["variants"][0]["headphone_eq"] is None
     assert spec["names"][spec["variants"][1]["headphone_eq"]] == "tamer.json"
+
+
+def test_a_comparison_of_a_room_object_and_an_uploaded_eq_builds(make_client, tmp_path):
+    """End to end through the build child: both inputs reach the variant renders."""
+    from tests.service.test_room_object import SHED
+
+    client = make_client(**FAST)
+    eq = _upload(client, "cans-ir.wav", _ir_bytes(tmp_path)).json()
+    path = write_stem(tmp_path / "quay.wav", 2 * FS, 2, seed=2)
+    stem = client.post("/v1/stems", files=files_field([path])).json()
+    body = {
+        "stem_id": stem["id"],
+        "variants": [
+            {"layout": "2.0", "room": SHED, "name": "shed"},
+            {"layout": "2.0", "headphone_eq": eq["id"], "name": "cans"},
+        ],
+        "trials": 2,
+        "excerpt": {"start": 0.0, "length": 1.0},
+    }
+    r = client.post("/v1/comparisons", json=body)
+    assert r.status_code == 202, r.text
+    cid = r.json()["id"]
+    Worker(client.app.state.settings, queue=client.app.state.queue, name="t").run(once=True)
+    view = client.get(f"/v1/comparisons/{cid}").json()
+    assert view["state"] == "ready", view
+    assert [v["summary"] for v in view["variants"]] == [
+        "2.0, room 'garden-shed-booth' 3.4 x 2.6 x 2.3 m",
+        "2.0, headphone EQ cans-ir.wav",
+    ]
+
+
+def test_an_owner_keeps_at_most_max_files(client, monkeypatch):
+    from earfold.service.routes import headphone_eq
+
+    monkeypatch.setattr(headphone_eq, "MAX_FILES", 2)
+    data = json.dumps(BANDS).encode()
+    assert _upload(client, "a.json", data).status_code == 201
+    assert _upload(client, "b.json", data).status_code == 201
+    r = _upload(client, "c.json", data)
+    assert r.status_code == 409 and "2 headphone EQ files" in r.json()["detail"]
+    assert len(client.get("/v1/headphone-eq").json()) == 2
+    assert list((client.app.state.storage.root / "tmp").iterdir()) == []

@@ -216,8 +216,17 @@ def test_the_limit_per_owner(make_client, monkeypatch):
     )
 
 
-def test_the_real_limit_is_200():
+def test_the_201st_preset_is_refused(client):
     assert MAX_PRESETS == 200
+    for i in range(MAX_PRESETS):
+        r = client.post("/v1/presets", json={"name": f"p{i}", "kind": "settings", "body": {}})
+        assert r.status_code == 201, (i, r.text)
+    _problem(
+        client.post("/v1/presets", json={"name": "one more", "kind": "settings", "body": {}}),
+        409,
+        "200 presets",
+    )
+    assert len(client.get("/v1/presets").json()) == MAX_PRESETS
 
 
 def test_files_are_written_whole_and_leave_nothing_behind(client, monkeypatch):
