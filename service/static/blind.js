@@ -256,8 +256,10 @@ export function mountBlindTests(root) {
     const trials = el("input", { type: "number", id: "blind-trials", min: limits.trials_min, max: limits.trials_max,
       step: 1, value: limits.trials_default, required: true });
     const duration = Number(stem.duration_s) || (stem.frames && stem.samplerate ? stem.frames / stem.samplerate : Infinity);
-    const maxLen = Math.min(limits.excerpt_max_seconds, Math.floor(duration * 10) / 10);
     const minLen = limits.excerpt_min_seconds ?? 0;
+    // No longer than the API allows nor than the stem (a stem shorter than the shortest
+    // excerpt plays whole: the API clips the length to the stem).
+    const maxLen = Math.max(minLen, Math.min(limits.excerpt_max_seconds, Math.floor(duration * 10) / 10));
     const length = el("input", { type: "number", id: "blind-length", min: minLen, max: maxLen, step: 0.5,
       value: Math.min(limits.excerpt_default_seconds, maxLen), required: true });
     const start = el("input", { type: "number", id: "blind-start", min: 0, step: 0.5, placeholder: "loudest part" });

@@ -101,8 +101,11 @@ function roomName(report) {
 
 /** The render's name: stem, layout, room, HRTF set, date. */
 export function reportName(report, stem) {
-  const parts = [stemName(stem, report), report.layout ? report.layout.name : null, roomName(report),
-    report.hrtf ? `HRTF ${report.hrtf.name}` : null, shortDate(report.created)];
+  const fold = report.fold && report.fold.mode === "stereo";
+  const parts = [stemName(stem, report), report.layout ? report.layout.name : null,
+    report.solo ? `solo ${report.solo.label}` : null,
+    fold ? "stereo fold-down" : roomName(report),
+    !fold && report.hrtf ? `HRTF ${report.hrtf.name}` : null, shortDate(report.created)];
   return parts.filter(Boolean).join(" · ");
 }
 
@@ -119,8 +122,11 @@ function summarySection(report, view) {
       `${report.layout.source ? ` · ${report.layout.source}` : ""}` : null],
     ["channel order", report.channel_order ? `${report.channel_order.labels.join(" ")} (${report.channel_order.source})` : null],
   ];
-  if (has(req.fold) && req.fold !== "binaural") rows.push(["fold", String(req.fold)]);
-  if (has(req.solo)) rows.push(["solo", `loudspeaker ${req.solo} alone`]);
+  if (report.fold) rows.push(["fold", `${report.fold.mode === "stereo" ? "stereo fold-down" : report.fold.mode}` +
+    `${report.fold.source ? ` (${report.fold.source})` : ""}: no HRTF, no room`]);
+  else if (has(req.fold) && req.fold !== "binaural") rows.push(["fold", String(req.fold)]);
+  if (report.solo) rows.push(["solo", `loudspeaker ${report.solo.label} alone (file channel ${report.solo.channel}), the others silent`]);
+  else if (has(req.solo)) rows.push(["solo", `loudspeaker ${req.solo} alone`]);
   rows.push(["output", `${out.file || ""} · ${out.format || ""} ${out.subtype || ""} · ${out.channels} channels · ` +
     `${duration(out.frames && out.samplerate ? out.frames / out.samplerate : null)}`]);
   if (d) {
@@ -144,7 +150,8 @@ function summarySection(report, view) {
     rows.push(["loudness", "no loudness stage: the output keeps the render's level (no gain, no limiter)"]);
   }
   rows.push(["sample peak", num(out.peak_dbfs, 2, "dBFS")], ["clipped samples", String(out.clipped_samples ?? "–")]);
-  if (report.lfe) rows.push(["LFE", `low-pass ${num(report.lfe.cutoff_hz, 0, "Hz")} (order ${report.lfe.order}), gain ${signed(report.lfe.gain_db, 1)}`]);
+  if (report.fold && report.fold.mode === "stereo") rows.push(["LFE", "left out (as ITU-R BS.775 folds down)"]);
+  else if (report.lfe) rows.push(["LFE", `low-pass ${num(report.lfe.cutoff_hz, 0, "Hz")} (order ${report.lfe.order}), gain ${signed(report.lfe.gain_db, 1)}`]);
   const box = el("div", {}, facts(rows, "Summary"));
   const asked = Object.entries(req).filter(([k, v]) => k !== "stem_id" && v !== null && v !== undefined);
   if (asked.length) {
@@ -179,8 +186,15 @@ function speakerRows(report) {
     let asked, how, used, error;
     if (s.lfe || s.method === "lfe") {
       asked = "no direction (LFE)";
-      how = "LFE";
-      used = el("span", {}, `low-pass ${num(s.cutoff_hz, 0, "Hz")}, gain ${signed(s.gain_db, 1)}, to both ears`);
+      how = s.method === "lfe" || !s.method ? "LFE" : s.method;
+      used = has(s.cutoff_hz)
+        ? el("span", {}, `low-pass ${num(s.cutoff_hz, 0, "Hz")}, gain ${signed(s.gain_db, 1)}, to both ears`)
+        : el("span", { class: "muted" }, "not used");
+      error = "–";
+    } else if (s.method === "fold") {
+      asked = direction(s.azimuth, s.elevation);
+      how = "stereo fold-down";
+      used = el("span", {}, `to left × ${num(s.left, 4)}, to right × ${num(s.right, 4)}`);
       error = "–";
     } else {
       asked = direction(s.azimuth, s.elevation);
@@ -200,7 +214,28 @@ function speakerRows(report) {
   });
 }
 
+function foldSection(fold) {
+  const box = el("div");
+  box.append(el("p", {}, "A plain stereo fold-down: each loudspeaker feeds the left and right outputs with fixed gains; no HRTF and no room."),
+    facts([["source", fold.source], ["rule", fold.rule]], "Fold-down"));
+  const coeffs = fold.coefficients || [];
+  if (coeffs.length) {
+    const t = el("table", { class: "table", id: "fold-table" }, el("thead", {}, el("tr", {},
+      ...["loudspeaker", "to left", "to right", "to left (dB)", "to right (dB)"].map((h, i) => el("th", { scope: "col", class: i ? "num" : null }, h)))));
+    t.append(el("tbody", {}, ...coeffs.map((c) => el("tr", {}, el("th", { scope: "row" }, c.label),
+      el("td", { class: "num" }, num(c.left, 4)), el("td", { class: "num" }, num(c.right, 4)),
+      el("td", { class: "num" }, has(c.left_db) ? num(c.left_db, 2) : "off"),
+      el("td", { class: "num" }, has(c.right_db) ? num(c.right_db, 2) : "off")))));
+    box.append(t);
+  }
+  return box;
+}
+
 function hrtfSection(report) {
+  if (report.fold && !report.hrtf) {
+    $("h-hrtf").textContent = "Stereo fold-down (no HRTF)";
+    return foldSection(report.fold);
+  }
   const h = report.hrtf || {};
   const box = el("div");
   box.append(facts([

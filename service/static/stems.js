@@ -163,12 +163,23 @@ function channelMarks(ch, isLfe) {
   return marks;
 }
 
+/** Loudspeakers of the stem's suggested layout in file order (the layout's default order). */
+function layoutSpeakers(stem) {
+  const layouts = bus.state.catalog.layouts;
+  const list = Array.isArray(layouts) ? layouts : (layouts && layouts.layouts) || [];
+  const layout = list.find((l) => l.name === stem.suggested_layout);
+  return layout && layout.speakers.length === stem.channels ? layout.speakers : [];
+}
+
 function drawLevels() {
   if (!lastLevels) return;
-  const { levels } = lastLevels;
+  const { levels, stem } = lastLevels;
+  const speakers = layoutSpeakers(stem);
   const rows = (levels.channels || []).map((ch) => {
-    const label = ch.label || `ch ${ch.index + 1}`;
-    const isLfe = /^LFE/i.test(label);
+    const fromLayout = speakers[ch.index];
+    const label = ch.label || (stem.channel_labels && stem.channel_labels[ch.index]) ||
+      (fromLayout && fromLayout.label) || `ch ${ch.index + 1}`;
+    const isLfe = /^LFE/i.test(label) || Boolean(fromLayout && fromLayout.lfe && !ch.label);
     const canvas = el("canvas", { class: "level-overview", width: 240, height: 22,
       role: "img", "aria-label": `overview of ${label}: peak and RMS over the stem` });
     paintOverview(canvas, ch.overview || []);
@@ -276,6 +287,7 @@ export async function mountStems(root) {
     sendFiles([...(e.dataTransfer ? e.dataTransfer.files : [])]);
   });
   onThemeChange(drawLevels);
+  bus.on("catalog-changed", drawLevels);
   bus.on("stems-refresh", () => refresh());
 
   await refresh();

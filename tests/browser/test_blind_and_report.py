@@ -415,3 +415,29 @@ def test_screenshots_of_the_blind_test_and_report_pages(browser, live_server, se
     # The dim theme is not the light one.
     for name in pages:
         assert backgrounds[(name, "light")] != backgrounds[(name, "dim")]
+
+
+def test_report_of_a_stereo_fold_down_shows_its_coefficients(page, live_server, setup):
+    """The reference render (fold "stereo"): named as a fold-down, no HRTF, the gains of
+    each loudspeaker to the left and right outputs (ITU-R BS.775 2/0 fold-down: C and the
+    surrounds at 0.7071, LFE left out) in the table."""
+    with httpx.Client(base_url=live_server.url, timeout=30) as http:
+        resp = http.post(
+            "/v1/renders",
+            json={"stem_id": setup["quarry-echo.wav"]["id"], "layout": "5.1", "fold": "stereo"},
+        )
+        assert resp.status_code == 202, resp.text
+        view = _wait_done(http, resp.json()["id"])
+        report = http.get(f"/v1/renders/{view['id']}/report").json()
+    _open_report(page, live_server, view["id"])
+    assert "stereo fold-down" in page.title()
+    assert "HRTF" not in page.title()
+    assert page.locator("#h-hrtf").inner_text() == "Stereo fold-down (no HRTF)"
+    rows = page.locator("#fold-table tbody tr")
+    assert rows.count() == len(report["fold"]["coefficients"]) == 6
+    labels = page.locator("#fold-table tbody th").all_inner_texts()
+    assert labels == [c["label"] for c in report["fold"]["coefficients"]]
+    centre = rows.nth(labels.index("C")).inner_text()
+    assert "0.7071" in centre and "−3.01" in centre
+    lfe = page.locator("#speaker-table tbody tr[data-label=LFE]").inner_text()
+    assert "left out" in lfe

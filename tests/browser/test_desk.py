@@ -116,7 +116,8 @@ def test_mono_files_become_one_stem_named_after_their_common_part(page, live_ser
 
 
 def test_channel_levels_of_the_selected_stem(page, live_server, stems, tmp_path):
-    # A 5.1 stem with a silent Rs and a low tone in the LFE: the strips show both.
+    # A 5.1 stem (file order L R C LFE Ls Rs, the WAV order) with a 50 Hz tone alone in L,
+    # broadband noise in the LFE channel and a silent Rs: each strip shows its marker.
     import numpy as np
 
     from earfold.renderer.io import write_audio
@@ -124,7 +125,7 @@ def test_channel_levels_of_the_selected_stem(page, live_server, stems, tmp_path)
     t = np.arange(2 * FS) / FS
     rng = np.random.default_rng(2)
     data = 0.05 * rng.standard_normal((2 * FS, 6))
-    data[:, 3] = 0.3 * np.sin(2 * np.pi * 40 * t)  # LFE: 40 Hz
+    data[:, 0] = 0.3 * np.sin(2 * np.pi * 50 * t)  # L: bass only
     data[:, 5] = 0.0  # Rs silent
     path = tmp_path / "night-market.wav"
     write_audio(path, data, FS)
@@ -132,14 +133,20 @@ def test_channel_levels_of_the_selected_stem(page, live_server, stems, tmp_path)
         stem = post_stem(http, path)
     open_desk(page, live_server, f"#stem={stem['id']}")
     page.wait_for_selector(".level-row")
-    rows = page.locator(".level-row")
-    assert rows.count() == 6
-    silent = page.locator(".level-row[data-channel='5'] .level-mark[data-mark='silent']")
-    assert silent.count() == 1
-    assert page.locator(".level-row[data-channel='3'] .level-mark").count() == 0
-    assert page.locator(".level-row[data-channel='0'] .level-mark").count() == 0
-    # Peak of the LFE tone: 0.3 = -10.5 dBFS.
-    assert "−10.5" in page.locator(".level-row[data-channel='3'] .level-figures").inner_text()
+    assert page.locator(".level-row").count() == 6
+    assert page.locator(".level-overview").count() == 6
+
+    def marks(channel: int) -> list[str]:
+        found = page.locator(f".level-row[data-channel='{channel}'] .level-mark")
+        return [found.nth(i).get_attribute("data-mark") for i in range(found.count())]
+
+    assert marks(0) == ["LFE-like"]
+    assert marks(3) == ["full range"]
+    assert marks(5) == ["silent"]
+    assert marks(1) == marks(2) == marks(4) == []
+    # Peak of the L tone: 0.3 = -10.46 dBFS (20 log10 0.3).
+    assert "−10.5" in page.locator(".level-row[data-channel='0'] .level-figures").inner_text()
+    assert page.locator(".level-row[data-channel='3'] .level-label").inner_text() == "LFE"
 
 
 def test_progress_arrives_by_the_event_stream_and_reaches_one(page, live_server, stems):
@@ -373,7 +380,10 @@ def test_loop_region_keeps_every_source_inside_it_and_aligned(page, live_server,
     for _ in range(8):  # about 1.6 s: the 0.5 s loop wraps at least twice
         page.wait_for_timeout(200)
         positions = list(page.evaluate("earfoldDesk.player.positions()").values())
-        assert max(positions) - min(positions) <= RENDER_QUANTUM, positions
+        assert max(positions) - min(positions) <= RENDER_QUANTUM, (
+            positions,
+            page.evaluate("earfoldDesk.player.sources()"),
+        )
         low, high = loop["in"] * rate - RENDER_QUANTUM, loop["out"] * rate + RENDER_QUANTUM
         for frames in positions:
             assert low <= frames <= high, (positions, loop)
