@@ -68,18 +68,33 @@ export async function api(path, { method = "GET", json, body, headers = {} } = {
 
 /**
  * POST multipart form data with upload progress (fetch cannot report upload progress,
- * XMLHttpRequest can). `onProgress(loaded, total)`; resolves to the JSON answer.
+ * XMLHttpRequest can). `onProgress(loaded, total)`; resolves to the JSON answer. An
+ * optional AbortSignal stops the upload (xhr.abort()); it then rejects with `aborted`
+ * set on the ApiError.
  */
-export function upload(path, form, onProgress) {
+export function upload(path, form, onProgress, signal) {
   return new Promise((resolve, reject) => {
     const xhr = new XMLHttpRequest();
+    if (signal) {
+      if (signal.aborted) {
+        const err = new ApiError(0, "the upload was stopped", null);
+        err.aborted = true;
+        reject(err);
+        return;
+      }
+      signal.addEventListener("abort", () => xhr.abort(), { once: true });
+    }
     xhr.open("POST", path);
     const token = getToken();
     if (token) xhr.setRequestHeader("Authorization", `Bearer ${token}`);
     xhr.responseType = "json";
     xhr.upload.onprogress = (e) => onProgress && onProgress(e.loaded, e.lengthComputable ? e.total : 0);
     xhr.onerror = () => reject(new ApiError(0, "the upload failed: the server cannot be reached", null));
-    xhr.onabort = () => reject(new ApiError(0, "the upload was stopped", null));
+    xhr.onabort = () => {
+      const err = new ApiError(0, "the upload was stopped", null);
+      err.aborted = true;
+      reject(err);
+    };
     xhr.onload = () => {
       const body = xhr.response;
       if (xhr.status >= 200 && xhr.status < 300) return resolve(body);
@@ -116,4 +131,9 @@ export async function download(path, fallbackName) {
 export async function blobUrl(path) {
   const response = await api(path);
   return URL.createObjectURL(await response.blob());
+}
+
+/** The API token's Authorization header ({} without a token), for fetch() streams. */
+export function tokenHeaders(extra = {}) {
+  return authHeaders(extra);
 }

@@ -1,18 +1,25 @@
-// The blind listening page: /compare/{id}. Plain script, no build step.
+// The blind test page: /compare/{id}. An ES module, no build step; the shared header,
+// palette and token prompt come from chrome.js and base.css, like every page.
 //
 // Every label of a trial (A, B and maybe X) is decoded into one AudioBuffer; all of them
 // play at once from one AudioContext start time, each through its own gain, and
 // "switching" only moves those gains (a few-ms ramp), so the position never jumps and
 // nothing clicks. Playback starts 20 dB down. The page learns nothing about which
 // variant is behind a label: the server sends labels and opaque audio URLs only.
-"use strict";
+//
+// The A/B preference design shows A and B only (no X) and takes a "no preference" answer
+// (choice "none"); ABX shows A, B and X and is forced choice.
+import { api, ApiError } from "./api.js";
+import { askToken, mountChrome, setTitle } from "./chrome.js";
 
-(() => {
+/** The answer that says "no preference" (A/B design only; ABX is forced choice). */
+const NO_PREFERENCE = "none";
+
+{
   const SWITCH_TAU_S = 0.003;     // gain ramp time constant when switching (3 ms)
   const TRANSPORT_RAMP_S = 0.008; // fade in/out on play and stop (8 ms)
   const START_DELAY_S = 0.05;     // schedule ahead so every source starts on the same frame
   const POLL_MS = 400;
-  const TOKEN_KEY = "earfold.token";
 
   const $ = (id) => document.getElementById(id);
   const id = location.pathname.split("/").filter(Boolean).pop();
@@ -22,24 +29,17 @@
     duration: 0, busy: false,
   };
 
-  // ---------------------------------------------------------------- HTTP with a token
-
-  function token() { return sessionStorage.getItem(TOKEN_KEY) || ""; }
-
-  async function api(path, options = {}) {
-    const headers = Object.assign({}, options.headers || {});
-    if (token()) headers.Authorization = "Bearer " + token();
-    const resp = await fetch(path, Object.assign({}, options, { headers, cache: "no-store" }));
-    if (resp.status === 401) {
-      $("token-box").hidden = false;
-      throw new Error("this server needs an API token: enter it above");
+  /** GET/POST through api.js (token, problem details); a 401 waits for a token, then retries. */
+  async function call(path, options = {}) {
+    try {
+      return await api(path, options);
+    } catch (err) {
+      if (err instanceof ApiError && err.status === 401) {
+        await askToken();
+        return call(path, options);
+      }
+      throw err;
     }
-    if (!resp.ok) {
-      let detail = resp.statusText;
-      try { detail = (await resp.json()).detail || detail; } catch (e) { /* not JSON */ }
-      throw new Error(detail);
-    }
-    return resp;
   }
 
   function showError(err) {
@@ -175,7 +175,7 @@
     const ctx = ensureContext();
     const decoded = {};
     await Promise.all(trial.labels.map(async (label) => {
-      const resp = await api(trial.audio[label]);
+      const resp = await call(trial.audio[label]);
       decoded[label] = await ctx.decodeAudioData(await resp.arrayBuffer());
     }));
     for (const g of Object.values(state.gains)) g.disconnect();
@@ -203,32 +203,53 @@
     renderTransport();
   }
 
+  function isAb() { return state.session && state.session.mode === "ab"; }
+
+  /** The answer buttons: A/B preference has "no preference" too; ABX is forced choice. */
+  function answerChoices() {
+    if (!isAb()) return [["A", "X is A", "1"], ["B", "X is B", "2"]];
+    return [["A", "I prefer A", "1"], ["B", "I prefer B", "2"], [NO_PREFERENCE, "No preference", "N"]];
+  }
+
+  function kbd(text) {
+    const k = document.createElement("kbd");
+    k.textContent = text;
+    return k;
+  }
+
   function buildTrialControls(trial) {
     const s = state.session;
     $("trial-label").textContent = `Trial ${trial.index + 1} of ${s.trial_count}`;
     $("trial-bar").max = s.trial_count;
     $("trial-bar").value = s.answered;
-    const box = $("sources");
-    box.replaceChildren(...trial.labels.map((label) => {
+    // Only the labels the trial has: A and B in the A/B design, A, B and X in ABX.
+    $("sources").replaceChildren(...trial.labels.map((label) => {
       const b = document.createElement("button");
       b.type = "button";
+      b.className = "btn";
       b.dataset.label = label;
       b.textContent = label;
       b.title = `Listen to ${label} (key ${label})`;
+      b.setAttribute("aria-keyshortcuts", label);
       b.addEventListener("click", () => select(label));
       return b;
     }));
-    const answers = $("answers");
-    const text = s.mode === "abx"
-      ? { A: "X is A", B: "X is B" } : { A: "I prefer A", B: "I prefer B" };
-    answers.replaceChildren(...["A", "B"].map((choice, i) => {
+    $("answers").replaceChildren(...answerChoices().map(([choice, text, key]) => {
       const b = document.createElement("button");
       b.type = "button";
+      b.className = choice === NO_PREFERENCE ? "btn btn-none" : "btn btn-primary";
       b.dataset.choice = choice;
-      b.innerHTML = `${text[choice]} <kbd>${i + 1}</kbd>`;
+      b.setAttribute("aria-keyshortcuts", key);
+      b.append(`${text} `, kbd(key));
       b.addEventListener("click", () => answer(choice));
       return b;
     }));
+    const keys = $("keys");
+    keys.replaceChildren("Keys: ", ...trial.labels.flatMap((l) => [kbd(l), " "]), "listen · ",
+      kbd("Space"), " play or stop · ", kbd("L"), " loop · ", kbd("["), " ", kbd("]"), " loop from / to here · ",
+      kbd("1"), " ", kbd("2"), isAb() ? " prefer A or B · " : " X is A or B · ",
+      ...(isAb() ? [kbd("N"), " no preference · "] : []),
+      kbd("←"), " ", kbd("→"), " move 2 s");
   }
 
   function setAnswersEnabled(on) {
@@ -237,28 +258,31 @@
 
   async function answer(choice) {
     if (!state.trial || state.busy) return;
+    if (choice === NO_PREFERENCE && !isAb()) return;
     state.busy = true;
     setAnswersEnabled(false);
     try {
-      const resp = await api(`/v1/comparisons/${id}/trials/${state.trial.index}/answer`, {
-        method: "POST", headers: { "Content-Type": "application/json" },
-        body: JSON.stringify({ choice }),
+      const view = await call(`/v1/comparisons/${id}/trials/${state.trial.index}/answer`, {
+        method: "POST", json: { choice },
       });
       clearError();
       state.busy = false;
-      await show(await resp.json());
+      await show(view);
     } catch (err) {
       state.busy = false;
       setAnswersEnabled(true);
-      showError(err);
+      if (choice === NO_PREFERENCE && err.status === 422) {
+        showError("This server does not take a “no preference” answer yet: choose A or B.");
+      } else {
+        showError(err);
+      }
     }
   }
 
   async function finishEarly() {
     if (!confirm("Stop now? The unanswered trials stay unanswered and the results open.")) return;
     try {
-      const resp = await api(`/v1/comparisons/${id}/finish`, { method: "POST" });
-      await show(await resp.json());
+      await show(await call(`/v1/comparisons/${id}/finish`, { method: "POST" }));
     } catch (err) { showError(err); }
   }
 
@@ -266,7 +290,12 @@
 
   async function show(session) {
     state.session = session;
-    document.getElementById("question").textContent = session.question;
+    document.body.dataset.mode = session.mode;
+    $("question").textContent = session.question;
+    const design = session.mode === "abx" ? "ABX" : "A/B preference";
+    $("heading").textContent = `Blind test · ${design}`;
+    setTitle(`Blind test (${design})`);
+    if (session.stem_id) $("back").href = `/#stem=${session.stem_id}&tab=blind`;
     $("preparing").hidden = session.state !== "preparing";
     $("listening").hidden = session.state !== "ready";
     $("results").hidden = session.state !== "finished";
@@ -280,8 +309,7 @@
       document.body.dataset.state = "failed";
       showError("The comparison could not be prepared: " + (session.message || "unknown reason"));
     } else if (session.state === "ready") {
-      const trial = session.trials[session.next_trial];
-      await loadTrial(trial);
+      await loadTrial(session.trials[session.next_trial]);
     } else if (session.state === "finished") {
       if (state.playing) stop(false);
       await showResults();
@@ -290,10 +318,13 @@
 
   async function refresh() {
     try {
-      const resp = await api(`/v1/comparisons/${id}`);
+      const view = await call(`/v1/comparisons/${id}`);
       clearError();
-      await show(await resp.json());
-    } catch (err) { showError(err); }
+      await show(view);
+    } catch (err) {
+      showError(err.status === 404 ? "There is no such blind test (it may have been deleted)." : err);
+      document.body.dataset.state = "failed";
+    }
   }
 
   function cell(row, text, cls) {
@@ -303,49 +334,71 @@
     row.appendChild(td);
   }
 
-  function fmt(v, unit) { return v === null || v === undefined ? "–" : `${v.toFixed(1)} ${unit}`; }
+  function fmt(v, unit) {
+    return v === null || v === undefined ? "–" : `${v.toFixed(1).replace(/^-/, "−")} ${unit}`;
+  }
 
   function describe(request) {
     return Object.entries(request).filter(([, v]) => v !== null && v !== "none" && v !== 0)
-      .map(([k, v]) => `${k.replace("_", " ")}: ${typeof v === "object" ? JSON.stringify(v) : v}`)
+      .map(([k, v]) => `${k.replaceAll("_", " ")}: ${typeof v === "object" ? JSON.stringify(v) : v}`)
       .join(", ") || "defaults";
   }
 
+  /** How the results count "no preference" answers (the server says it in `ties`). */
+  function noneRule(r, ties) {
+    const plain = `${ties} “no preference” answer${ties === 1 ? "" : "s"}. How they count: as answered ` +
+      "trials, but left out of each variant's “chosen” count and of the sign test (the p value), " +
+      "which uses only the trials with a preference; dropping ties is common practice for a sign test.";
+    return typeof r.ties === "string" && r.ties ? `${plain} The results file says: ${r.ties}.` : plain;
+  }
+
   async function showResults() {
-    const r = await (await api(`/v1/comparisons/${id}/results`)).json();
+    const r = await call(`/v1/comparisons/${id}/results`);
     state.results = r;
     const names = r.variants.map((v) => v.name);
+    const ties = Number.isInteger(r.no_preference) ? r.no_preference
+      : r.trials.filter((t) => t.answer === NO_PREFERENCE).length;
     if (r.mode === "abx") {
       const p = r.abx.p_value;
       $("summary").textContent = `${r.abx.correct} correct of ${r.abx.answered} answered ` +
         `(${r.trial_count} trials). Chance of doing this well by guessing: p = ${p.toFixed(3)}` +
-        (p < 0.05 ? " — you heard a difference." : " — not enough to tell a difference apart from guessing.");
+        (p < 0.05 ? ": you heard a difference." : ": not enough to tell a difference apart from guessing.");
+      $("none-rule").hidden = true;
     } else {
       const best = r.variants.slice().sort((a, b) => b.preferred - a.preferred)[0];
-      $("summary").textContent = `${r.answered} of ${r.trial_count} trials answered. ` +
-        `Most often chosen: ${best.name} (${best.preferred} of ${best.answered_trials} times heard).` +
-        (r.preference_p_value !== undefined ? ` Two-sided p = ${r.preference_p_value.toFixed(3)}.` : "");
+      $("summary").textContent = `${r.answered} of ${r.trial_count} trials answered` +
+        (ties ? `, ${ties} of them with no preference` : "") + ". " +
+        (best && best.preferred ? `Most often chosen: ${best.name} (${best.preferred} of ${best.answered_trials} times heard).`
+          : "No variant was preferred.") +
+        (r.preference_p_value !== undefined && r.preference_p_value !== null
+          ? ` Two-sided p = ${r.preference_p_value.toFixed(3)}.` : "");
+      const rule = $("none-rule");
+      rule.textContent = noneRule(r, ties);
+      rule.hidden = false;
     }
-    $("summary").insertAdjacentText("beforeend", ` All excerpts matched to ${r.level_lufs.toFixed(1)} LUFS.`);
-    const vbody = $("variant-table").querySelector("tbody");
-    vbody.replaceChildren(...r.variants.map((v) => {
+    $("summary").insertAdjacentText("beforeend", ` All excerpts matched to ${fmt(r.level_lufs, "LUFS")}.`);
+    $("variant-table").querySelector("tbody").replaceChildren(...r.variants.map((v) => {
       const tr = document.createElement("tr");
       cell(tr, v.name); cell(tr, describe(v.request));
       cell(tr, fmt(v.measured_lufs, "LUFS"), "num");
-      cell(tr, `${v.gain_db >= 0 ? "+" : ""}${v.gain_db.toFixed(1)} dB`, "num");
+      cell(tr, `${v.gain_db >= 0 ? "+" : ""}${fmt(v.gain_db, "dB")}`, "num");
       cell(tr, `${fmt(v.matched_lufs, "LUFS")}, ${fmt(v.matched_true_peak_dbtp, "dBTP")}`, "num");
-      cell(tr, r.mode === "abx" ? "–" : `${v.preferred} of ${v.answered_trials}`, "num");
+      cell(tr, r.mode === "abx" ? "–" : `${v.preferred} of ${v.answered_trials}` +
+        (v.no_preference ? ` (${v.no_preference} no preference)` : ""), "num");
       return tr;
     }));
-    const tbody = $("trial-table").querySelector("tbody");
-    tbody.replaceChildren(...r.trials.map((t) => {
+    $("trial-table").querySelector("tbody").replaceChildren(...r.trials.map((t) => {
       const tr = document.createElement("tr");
       cell(tr, String(t.index + 1));
       cell(tr, names[t.variants.A]); cell(tr, names[t.variants.B]);
-      cell(tr, t.variants.X === undefined ? "" : names[t.variants.X]);
-      cell(tr, t.answer || "not answered");
-      cell(tr, t.answer === null ? "" : r.mode === "abx" ? (t.correct ? "right" : "wrong")
-        : `chose ${names[t.preferred_variant]}`);
+      cell(tr, t.variants.X === undefined ? "" : names[t.variants.X], "col-x");
+      const answered = t.answer !== null && t.answer !== undefined;
+      cell(tr, !answered ? "not answered" : t.answer === NO_PREFERENCE ? "no preference" : t.answer);
+      let outcome = "";
+      if (answered && r.mode === "abx") outcome = t.correct ? "right" : "wrong";
+      else if (t.answer === NO_PREFERENCE) outcome = "counted apart (a tie)";
+      else if (answered && names[t.preferred_variant] !== undefined) outcome = `chose ${names[t.preferred_variant]}`;
+      cell(tr, outcome);
       return tr;
     }));
     document.body.dataset.state = "results";
@@ -353,8 +406,10 @@
 
   async function save(format) {
     try {
-      const resp = await api(`/v1/comparisons/${id}/results?format=${format}`);
-      const url = URL.createObjectURL(await resp.blob());
+      const resp = await call(`/v1/comparisons/${id}/results?format=${format}`);
+      const blob = format === "json" ? new Blob([JSON.stringify(resp, null, 2)], { type: "application/json" })
+        : await resp.blob();
+      const url = URL.createObjectURL(blob);
       const a = document.createElement("a");
       a.href = url;
       a.download = `comparison-${id}.${format}`;
@@ -387,6 +442,7 @@
 
   // ---------------------------------------------------------------------- wiring
 
+  mountChrome({ title: "Blind test", current: "" });
   $("play").addEventListener("click", () => (state.playing ? stop(false) : play()));
   $("seek").addEventListener("change", () => seek(Number($("seek").value)));
   $("loop-on").addEventListener("change", restartIfPlaying);
@@ -396,29 +452,24 @@
   $("loop-here-end").addEventListener("click", () => { $("loop-end").value = position().toFixed(1); restartIfPlaying(); });
   $("volume").addEventListener("input", () => {
     const db = Number($("volume").value);
-    $("volume-out").textContent = `${db} dB`;
+    $("volume-out").textContent = `${db.toString().replace("-", "−")} dB`;
     if (state.master) state.master.gain.setTargetAtTime(dbToGain(db), state.ctx.currentTime, 0.01);
   });
   $("finish").addEventListener("click", finishEarly);
   $("export-json").addEventListener("click", () => save("json"));
   $("export-csv").addEventListener("click", () => save("csv"));
-  $("token-form").addEventListener("submit", (ev) => {
-    ev.preventDefault();
-    sessionStorage.setItem(TOKEN_KEY, $("token").value.trim());
-    $("token-box").hidden = true;
-    refresh();
-  });
 
   document.addEventListener("keydown", (ev) => {
-    if (ev.target.closest("input, textarea, select") || ev.ctrlKey || ev.metaKey || ev.altKey) return;
+    if (ev.target.closest("input, textarea, select, dialog") || ev.ctrlKey || ev.metaKey || ev.altKey) return;
     if (!state.trial || $("listening").hidden) return;
     const key = ev.key;
     const upper = key.length === 1 ? key.toUpperCase() : key;
-    if (["A", "B", "X"].includes(upper)) { select(upper); ev.preventDefault(); }
+    if (labels().includes(upper)) { select(upper); ev.preventDefault(); }
     else if (key === " ") { state.playing ? stop(false) : play(); ev.preventDefault(); }
     else if (upper === "L") { $("loop-on").checked = !$("loop-on").checked; restartIfPlaying(); }
     else if (key === "1") answer("A");
     else if (key === "2") answer("B");
+    else if (upper === "N" && isAb()) answer(NO_PREFERENCE);
     else if (key === "ArrowLeft") seek(position() - 2);
     else if (key === "ArrowRight") seek(position() + 2);
     else if (key === "[") $("loop-here-start").click();
@@ -434,4 +485,4 @@
 
   requestAnimationFrame(tick);
   refresh();
-})();
+}

@@ -1,4 +1,4 @@
-// SVG drawings of the render page: loudspeaker layouts, rooms, and line charts.
+// SVG drawings: loudspeaker layouts, rooms, and line charts with a value readout.
 //
 // Everything is drawn in the browser from the API's JSON. Directions follow the renderer's
 // convention (renderer/geometry.py): azimuth in degrees counter-clockwise from the front,
@@ -151,6 +151,30 @@ export function roomPicture(room) {
   return svg;
 }
 
+// ------------------------------------------------------------------------ line charts
+//
+// Every series gets a colour (the --series-1..6 tokens of base.css, so both themes work)
+// AND a dash pattern, so that two series stay apart in grey print, for readers who do not
+// tell the colours apart, and where two colours are close. Reference lines (a loudness
+// target, a decay floor) are drawn in colours of their own, never a series colour.
+
+/** Dash patterns in turn: solid, dashed, dotted, dash-dot. */
+export const DASHES = ["", "7 4", "1.5 3", "8 3 1.5 3"];
+
+/** Colour and dash of series number `i` (0-based): no two of the first 24 share both. */
+export function seriesStyle(i) {
+  const colour = i % 6;
+  const dash = (i + Math.floor(i / 6)) % DASHES.length;
+  return { colour: `var(--series-${colour + 1})`, dash: DASHES[dash], index: i };
+}
+
+/** Reference lines: each kind its own colour and pattern (none is a series colour). */
+const REFERENCE_STYLE = {
+  target: { colour: "var(--text)", dash: "10 4 2 4" },
+  floor: { colour: "var(--text-muted)", dash: "4 3" },
+  limit: { colour: "var(--error)", dash: "10 4 2 4" },
+};
+
 function niceTicks(lo, hi, count = 6) {
   const span = hi - lo || 1;
   const raw = span / count;
@@ -161,111 +185,253 @@ function niceTicks(lo, hi, count = 6) {
   return out;
 }
 
-function fmtFreq(f) {
-  return f >= 1000 ? `${+(f / 1000).toFixed(1)}k` : `${Math.round(f)}`;
+/** "31.5", "500", "1k", "16k". */
+export function fmtFreq(f) {
+  return f >= 1000 ? `${+(f / 1000).toFixed(1)}k` : `${+f.toFixed(1)}`;
+}
+
+function fmtValue(v, digits) {
+  if (v === null || v === undefined || !Number.isFinite(v)) return "–";
+  return v.toFixed(digits).replace("-", "−");
+}
+
+/** Index of the point of sorted `xs` nearest to `x` (in the transformed space `t`). */
+function nearest(xs, x, t) {
+  let lo = 0, hi = xs.length - 1;
+  if (hi < 0) return -1;
+  const tx = t(x);
+  while (hi - lo > 1) {
+    const mid = (lo + hi) >> 1;
+    if (t(xs[mid]) < tx) lo = mid; else hi = mid;
+  }
+  return Math.abs(t(xs[lo]) - tx) <= Math.abs(t(xs[hi]) - tx) ? lo : hi;
 }
 
 /**
- * A line chart. `series`: [{name, x: [...], y: [...], cls}], `hlines`: [{y, name, cls}].
- * Options: title, xLabel, yLabel, logX, yMin, yMax, xTicks (values for a log axis).
+ * A line chart (SVG) with a legend and a readout: moving the pointer over the plot (or
+ * the arrow keys when the chart has focus) shows a crosshair and the value of every
+ * series at that x.
+ *
+ * `series`: [{name, x: [...], y: [...]}] (x ascending; null or NaN y leaves a gap);
+ * `hlines`: [{y, name, kind: "target" | "floor" | "limit"}];
+ * options: title, xLabel, yLabel, xUnit, yUnit, xDigits, yDigits, logX, yMin, yMax,
+ * xTicks (values for a log axis), xFormat (tick label), description.
  */
-export function lineChart({ title, series, hlines = [], xLabel, yLabel, logX = false,
-                            yMin, yMax, xTicks, description }) {
-  const W = 640, H = 300, L = 56, Rm = 16, T = 44, B = 44;
-  const pw = W - L - Rm, ph = H - T - B;
-  const xs = series.flatMap((s) => s.x);
-  const ys = series.flatMap((s) => s.y).filter((v) => Number.isFinite(v));
+export function lineChart({ title, series, hlines = [], xLabel, yLabel, xUnit = "", yUnit = "",
+                            xDigits = 2, yDigits = 1, logX = false, yMin, yMax, xTicks, xFormat,
+                            description }) {
+  const W = 640, L = 58, Rm = 18, T = 30, B = 46;
+  const legendItems = [...series.map((s, i) => ({ name: s.name, style: seriesStyle(i) })),
+    ...hlines.map((h) => ({ name: h.name, style: REFERENCE_STYLE[h.kind] || REFERENCE_STYLE.target }))];
+  // Legend items flow left to right and wrap (width estimated from the text length).
+  const pw = W - L - Rm;
+  const place = [];
+  let cx = 0, row = 0;
+  for (const item of legendItems) {
+    const w = 34 + 6.9 * item.name.length + 18;
+    if (cx > 0 && cx + w > pw) { cx = 0; row += 1; }
+    place.push({ x: L + cx, row });
+    cx += w;
+  }
+  const legendH = (row + 1) * 18 + 6;
+  const ph = 220;
+  const top = T + legendH;
+  const H = top + ph + B;
   const tx = logX ? (v) => Math.log10(v) : (v) => v;
+  const xs = series.flatMap((s) => s.x).filter((v) => Number.isFinite(v) && (!logX || v > 0));
+  const ys = series.flatMap((s) => s.y).filter((v) => v !== null && Number.isFinite(v));
   let x0 = Math.min(...xs.map(tx)), x1 = Math.max(...xs.map(tx));
+  if (!Number.isFinite(x0)) { x0 = 0; x1 = 1; }
   if (!(x1 > x0)) x1 = x0 + 1;
   let y0 = yMin ?? Math.min(...ys, ...hlines.map((h) => h.y));
   let y1 = yMax ?? Math.max(...ys, ...hlines.map((h) => h.y));
+  if (!Number.isFinite(y0) || !Number.isFinite(y1)) { y0 = -1; y1 = 1; }
   if (!(y1 > y0)) { y0 -= 1; y1 += 1; }
   const px = (v) => L + ((tx(v) - x0) / (x1 - x0)) * pw;
-  const py = (v) => T + (1 - (Math.min(Math.max(v, y0), y1) - y0) / (y1 - y0)) * ph;
-  const svg = svgEl("svg", { viewBox: `0 0 ${W} ${H}`, class: "chart", role: "img",
-                             "aria-label": description || title });
+  const py = (v) => top + (1 - (Math.min(Math.max(v, y0), y1) - y0) / (y1 - y0)) * ph;
+  const fx = xFormat || ((v) => (logX ? fmtFreq(v) : String(v)));
+
+  const svg = svgEl("svg", { viewBox: `0 0 ${W} ${H}`, class: "chart", role: "img", tabindex: 0,
+                             "aria-label": `${description || title}. Move the pointer over the plot, or use the arrow keys, to read the values.` });
   svg.append(text(L, 18, title, { class: "chart-title" }));
+
+  // Legend: a line sample drawn exactly as its series (colour, dash, width), then the name.
+  const legend = svgEl("g", { class: "chart-legend" });
+  legendItems.forEach((item, i) => {
+    const lx = place[i].x;
+    const ly = T + place[i].row * 18 + 8;
+    legend.append(svgEl("line", { x1: lx, x2: lx + 26, y1: ly, y2: ly, class: "swatch",
+      style: `stroke:${item.style.colour}`, "stroke-dasharray": item.style.dash || null }));
+    legend.append(text(lx + 32, ly + 4, item.name, { class: "legend" }));
+  });
+  svg.append(legend);
+
   const grid = svgEl("g", { class: "grid" });
   for (const v of niceTicks(y0, y1)) {
     grid.append(svgEl("line", { x1: L, x2: L + pw, y1: py(v), y2: py(v) }));
-    svg.append(text(L - 6, py(v) + 4, String(v), { class: "tick", "text-anchor": "end" }));
+    svg.append(text(L - 6, py(v) + 4, String(v).replace("-", "−"), { class: "tick", "text-anchor": "end" }));
   }
-  const xt = xTicks || niceTicks(x0, x1);
-  for (const v of xt) {
-    const x = logX ? px(v) : px(v);
+  for (const v of xTicks || niceTicks(x0, x1)) {
+    const x = px(v);
     if (x < L - 0.5 || x > L + pw + 0.5) continue;
-    grid.append(svgEl("line", { x1: x, x2: x, y1: T, y2: T + ph }));
-    svg.append(text(x, T + ph + 16, logX ? fmtFreq(v) : String(v), { class: "tick", "text-anchor": "middle" }));
+    grid.append(svgEl("line", { x1: x, x2: x, y1: top, y2: top + ph }));
+    svg.append(text(x, top + ph + 16, fx(v), { class: "tick", "text-anchor": "middle" }));
   }
-  svg.append(grid);
-  svg.append(svgEl("rect", { x: L, y: T, width: pw, height: ph, class: "frame" }));
-  svg.append(text(L + pw / 2, H - 6, xLabel, { class: "axis-label", "text-anchor": "middle" }));
-  svg.append(text(14, T + ph / 2, yLabel, { class: "axis-label", "text-anchor": "middle", transform: `rotate(-90 14 ${T + ph / 2})` }));
+  svg.prepend(grid);
+  svg.append(svgEl("rect", { x: L, y: top, width: pw, height: ph, class: "frame" }));
+  svg.append(text(L + pw / 2, H - 8, xLabel, { class: "axis-label", "text-anchor": "middle" }));
+  svg.append(text(16, top + ph / 2, yLabel, { class: "axis-label", "text-anchor": "middle",
+    transform: `rotate(-90 16 ${top + ph / 2})` }));
+
   for (const h of hlines) {
-    const line = svgEl("line", { x1: L, x2: L + pw, y1: py(h.y), y2: py(h.y), class: `hline ${h.cls || ""}` });
-    svg.append(titled(line, `${h.name}: ${h.y}`));
+    const st = REFERENCE_STYLE[h.kind] || REFERENCE_STYLE.target;
+    const line = svgEl("line", { x1: L, x2: L + pw, y1: py(h.y), y2: py(h.y), class: `hline ref-${h.kind || "target"}`,
+      style: `stroke:${st.colour}`, "stroke-dasharray": st.dash, "data-name": h.name });
+    svg.append(titled(line, `${h.name}: ${h.y}${yUnit ? " " + yUnit : ""}`));
   }
-  const legend = svgEl("g", { class: "chart-legend" });
-  let lx = L + pw;
-  [...series, ...hlines].reverse().forEach((s) => {
-    const label = text(lx, 36, s.name, { "text-anchor": "end", class: `legend ${s.cls || ""}` });
-    legend.append(label);
-    const width = 6.5 * s.name.length + 20;
-    legend.append(svgEl("line", { x1: lx - width + 2, x2: lx - width + 14, y1: 32, y2: 32, class: `swatch ${s.cls || ""}` }));
-    lx -= width + 8;
+  series.forEach((s, i) => {
+    const st = seriesStyle(i);
+    // Gaps (null) split the line into runs.
+    const runs = [];
+    let run = [];
+    s.x.forEach((x, k) => {
+      const y = s.y[k];
+      if (y === null || !Number.isFinite(y) || (logX && !(x > 0))) { if (run.length) runs.push(run); run = []; return; }
+      run.push(`${px(x).toFixed(1)},${py(y).toFixed(1)}`);
+    });
+    if (run.length) runs.push(run);
+    const g = svgEl("g", { class: "series", "data-name": s.name, "data-series": i });
+    for (const r of runs) {
+      g.append(svgEl("polyline", { points: r.join(" "), style: `stroke:${st.colour}`,
+        "stroke-dasharray": st.dash || null }));
+    }
+    svg.append(titled(g, s.name));
   });
-  svg.append(legend);
-  for (const s of series) {
-    const pts = [];
-    s.x.forEach((x, i) => { if (Number.isFinite(s.y[i])) pts.push(`${px(x).toFixed(1)},${py(s.y[i]).toFixed(1)}`); });
-    const line = svgEl("polyline", { points: pts.join(" "), class: `series ${s.cls || ""}`, "data-name": s.name });
-    svg.append(titled(line, s.name));
+
+  // The readout: crosshair, a dot on every series, and a box with the values.
+  const readout = svgEl("g", { class: "readout", visibility: "hidden", "aria-hidden": "true" });
+  const cross = svgEl("line", { y1: top, y2: top + ph, class: "crosshair" });
+  readout.append(cross);
+  const dots = series.map((s, i) => {
+    const d = svgEl("circle", { r: 3.5, class: "readout-dot", style: `fill:${seriesStyle(i).colour}` });
+    readout.append(d);
+    return d;
+  });
+  const box = svgEl("rect", { class: "readout-box", rx: 4, height: 18 * (series.length + 1) + 6 });
+  readout.append(box);
+  const lines = [svgEl("text", { class: "readout-text readout-x" }),
+    ...series.map(() => svgEl("text", { class: "readout-text" }))];
+  for (const t of lines) readout.append(t);
+  svg.append(readout);
+  const hit = svgEl("rect", { x: L, y: top, width: pw, height: ph, class: "hit" });
+  svg.append(hit);
+
+  const base = series.find((s) => s.x.length) || { x: [] };
+  let cursor = -1; // index into base.x for keyboard stepping
+  function showAt(xv) {
+    readout.setAttribute("visibility", "visible");
+    const cx = px(xv);
+    cross.setAttribute("x1", cx); cross.setAttribute("x2", cx);
+    lines[0].textContent = `${xLabel ? xLabel.replace(/ \(.*\)$/, "") : "x"}: ${logX ? fmtFreq(xv) : fmtValue(xv, xDigits)}${xUnit ? " " + xUnit : ""}`;
+    const values = series.map((s, i) => {
+      const k = nearest(s.x, xv, tx);
+      const y = k < 0 ? null : s.y[k];
+      const ok = y !== null && y !== undefined && Number.isFinite(y);
+      dots[i].setAttribute("visibility", ok ? "visible" : "hidden");
+      if (ok) { dots[i].setAttribute("cx", px(s.x[k])); dots[i].setAttribute("cy", py(y)); }
+      lines[i + 1].textContent = `${s.name}: ${ok ? fmtValue(y, yDigits) : "–"}${ok && yUnit ? " " + yUnit : ""}`;
+      return ok ? y : null;
+    });
+    const width = 12 + 6.6 * Math.max(...lines.map((t) => t.textContent.length));
+    const bx = cx + 12 + width > L + pw ? cx - 12 - width : cx + 12;
+    box.setAttribute("x", bx); box.setAttribute("y", top + 6); box.setAttribute("width", width);
+    lines.forEach((t, i) => { t.setAttribute("x", bx + 7); t.setAttribute("y", top + 22 + 18 * i); });
+    svg.dataset.readout = JSON.stringify({ x: xv, values });
   }
+  function hide() { readout.setAttribute("visibility", "hidden"); delete svg.dataset.readout; }
+  function fromPointer(ev) {
+    const ctm = svg.getScreenCTM();
+    if (!ctm) return null;
+    const pt = new DOMPoint(ev.clientX, ev.clientY).matrixTransform(ctm.inverse());
+    const t = x0 + ((Math.min(Math.max(pt.x, L), L + pw) - L) / pw) * (x1 - x0);
+    return logX ? 10 ** t : t;
+  }
+  hit.addEventListener("pointermove", (ev) => {
+    const xv = fromPointer(ev);
+    if (xv === null) return;
+    cursor = nearest(base.x, xv, tx);
+    showAt(xv);
+  });
+  hit.addEventListener("pointerleave", hide);
+  svg.addEventListener("blur", hide);
+  svg.addEventListener("keydown", (ev) => {
+    if (!base.x.length || !["ArrowLeft", "ArrowRight", "Home", "End", "Escape"].includes(ev.key)) return;
+    ev.preventDefault();
+    if (ev.key === "Escape") { hide(); return; }
+    const n = base.x.length;
+    const step = ev.shiftKey ? Math.max(1, Math.round(n / 10)) : 1;
+    if (ev.key === "Home") cursor = 0;
+    else if (ev.key === "End") cursor = n - 1;
+    else cursor = Math.min(n - 1, Math.max(0, (cursor < 0 ? 0 : cursor) + (ev.key === "ArrowLeft" ? -step : step)));
+    showAt(base.x[cursor]);
+  });
   return svg;
 }
 
-/** Loudness over time from the report's plots.loudness section. */
+/** Times of `n` points from `start` every `dt` seconds. */
+function times(n, start, dt) {
+  return Array.from({ length: n }, (_, i) => +(start + i * dt).toFixed(3));
+}
+
+/** Loudness over time from the report's plots.loudness section (null without data). */
 export function loudnessChart(loud) {
-  const times = (n, start, dt) => Array.from({ length: n }, (_, i) => +(start + i * dt).toFixed(3));
+  if (!loud) return null;
   const m = loud.momentary_lufs || [];
   const s = loud.short_term_lufs || [];
   const series = [
-    { name: "momentary", cls: "c1", x: times(m.length, loud.momentary_start_s, loud.momentary_interval_s), y: m },
-    { name: "short-term", cls: "c2", x: times(s.length, loud.short_term_start_s, loud.short_term_interval_s), y: s },
+    { name: "momentary (400 ms)", x: times(m.length, loud.momentary_start_s, loud.momentary_interval_s), y: m },
+    { name: "short-term (3 s)", x: times(s.length, loud.short_term_start_s, loud.short_term_interval_s), y: s },
   ].filter((x) => x.y.length);
   if (!series.length) return null;
   const hlines = [];
-  if (loud.target_lufs !== null && loud.target_lufs !== undefined) hlines.push({ y: loud.target_lufs, name: "target", cls: "target" });
-  const top = Math.max(...series.flatMap((x) => x.y), ...hlines.map((h) => h.y));
+  if (loud.target_lufs !== null && loud.target_lufs !== undefined) {
+    hlines.push({ y: loud.target_lufs, name: `target ${String(loud.target_lufs).replace("-", "−")} LUFS`, kind: "target" });
+  }
+  const finite = series.flatMap((x) => x.y).filter((v) => v !== null && Number.isFinite(v));
+  const top = Math.max(...finite, ...hlines.map((h) => h.y));
   return lineChart({
-    title: "Loudness over time", series, hlines, xLabel: "time (s)", yLabel: "LUFS",
+    title: "Loudness over time", series, hlines, xLabel: "time (s)", yLabel: "loudness (LUFS)",
+    xUnit: "s", yUnit: "LUFS", xDigits: 1,
     yMin: Math.max(Math.floor(top / 5) * 5 - 40, -120), yMax: Math.ceil(top / 5) * 5 + 5,
-    description: `Momentary and short-term loudness of the render${hlines.length ? `, target ${loud.target_lufs} LUFS` : ""}`,
+    description: `Momentary and short-term loudness of the render${hlines.length ? `, with the target of ${loud.target_lufs} LUFS` : ""}`,
   });
 }
 
-/** The two ears' third-octave spectra from plots.spectra. */
+/** The two ears' third-octave spectra from plots.spectra (null without data). */
 export function spectraChart(spec) {
+  if (!spec) return null;
   const names = spec.ears || ["left", "right"];
-  const series = (spec.levels_db || []).map((y, i) => ({ name: `${names[i]} ear`, cls: `c${i + 1}`, x: spec.centres_hz, y }));
+  const series = (spec.levels_db || []).map((y, i) => ({ name: `${names[i]} ear`, x: spec.centres_hz, y }));
   if (!series.length) return null;
-  const top = Math.max(...series.flatMap((s) => s.y));
+  const finite = series.flatMap((s) => s.y).filter((v) => v !== null && Number.isFinite(v));
+  const top = Math.max(...finite);
   return lineChart({
     title: "Ear spectra (1/3 octave)", series, logX: true,
     xTicks: [31.5, 63, 125, 250, 500, 1000, 2000, 4000, 8000, 16000],
-    xLabel: "frequency (Hz)", yLabel: "level (dB FS)", yMin: Math.floor(top / 10) * 10 - 60,
-    yMax: Math.ceil(top / 10) * 10, description: "Long-term third-octave spectra of the left and right ear signals",
+    xLabel: "frequency (Hz)", yLabel: "level (dB FS)", xUnit: "Hz", yUnit: "dB",
+    yMin: Math.floor(top / 10) * 10 - 60, yMax: Math.ceil(top / 10) * 10,
+    description: "Long-term third-octave spectra of the left and right ear signals",
   });
 }
 
-/** The room's energy decay per octave band from plots.room_decay. */
+/** The room's energy decay per octave band from plots.room_decay (null without data). */
 export function decayChart(decay) {
   if (!decay || !decay.levels_db || !decay.levels_db.length) return null;
-  const series = decay.levels_db.map((y, i) => ({ name: fmtFreq(decay.bands_hz[i]), cls: `b${i}`, x: decay.time_s, y }));
+  const series = decay.levels_db.map((y, i) => ({ name: `${fmtFreq(decay.bands_hz[i])} Hz`, x: decay.time_s, y }));
   return lineChart({
-    title: `Room energy decay per octave band (${decay.speaker})`, series, hlines: [{ y: -60, name: "-60 dB", cls: "target" }],
-    xLabel: "time (s)", yLabel: "dB", yMin: -90, yMax: 0,
+    title: `Room energy decay per octave band (${decay.speaker})`, series,
+    hlines: [{ y: -60, name: "−60 dB (RT60)", kind: "floor" }],
+    xLabel: "time (s)", yLabel: "level (dB)", xUnit: "s", yUnit: "dB", xDigits: 3, yMin: -90, yMax: 0,
     description: "Schroeder energy decay curves of the room response, one per octave band",
   });
 }

@@ -3,7 +3,9 @@
 The test uploads a generated 5.1 stem, starts an A/B comparison of two variants, opens
 ``/compare/{id}``, plays, switches between A and B (checking that the sources keep
 playing in step and only the gains move), answers every trial by clicks and by keys,
-and reads the results. A screenshot of each stage goes to ``test-artifacts/``.
+and reads the results. The page wears the desk's header and palette and links back to
+the desk; the A/B design shows no X. A screenshot of each stage goes to
+``test-artifacts/``.
 """
 
 from __future__ import annotations
@@ -60,6 +62,20 @@ def _gains(page) -> dict:
 def test_listen_switch_answer_and_see_the_results(page, live_server, comparison, artefacts):
     page.goto(f"{live_server.url}{comparison['links']['page']}")
     page.wait_for_selector("body[data-state=listening]")
+    # The desk's header and palette (base.css tokens), and a way back to the desk.
+    assert page.locator("header.chrome a.brand").inner_text() == "earfold"
+    bg = page.evaluate(
+        "() => { const p = document.createElement('p'); p.style.background = 'var(--bg)';"
+        " document.body.append(p); const c = getComputedStyle(p).backgroundColor; p.remove();"
+        " return [c, getComputedStyle(document.body).backgroundColor]; }"
+    )
+    assert bg[0] == bg[1] and bg[0] not in ("", "rgba(0, 0, 0, 0)")
+    back = page.locator("#back")
+    assert back.get_attribute("href") == f"/#stem={comparison['stem_id']}&tab=blind"
+    assert "A/B preference" in page.title()
+    # A/B: no X to listen to, and "no preference" is an answer.
+    assert page.locator("#sources button").all_inner_texts() == ["A", "B"]
+    assert "No preference" in page.locator("#answers").inner_text()
     assert page.locator("#caution").is_visible()
     assert "Protect your hearing" in page.locator("#caution").inner_text()
     # Playback starts 20 dB down (common practice for previews; the issue asks for it).
@@ -141,12 +157,18 @@ def test_abx_with_an_api_token(page, tmp_path, artefacts):
             },
         ).json()
         page.goto(f"{server.url}/compare/{view['id']}")
-        page.wait_for_selector("#token-box:not([hidden])")
-        page.fill("#token", token)
-        page.click("#token-form button")
+        # The shared token prompt of every page (chrome.js).
+        page.wait_for_selector("dialog.token-dialog[open]")
+        page.fill("#token-input", token)
+        page.click("dialog.token-dialog button[type=submit]")
         page.wait_for_selector("body[data-state=listening]")
         assert page.locator("#sources button").all_inner_texts() == ["A", "B", "X"]
         assert "X is A" in page.locator("#answers").inner_text()
+        # ABX is a forced choice: no "no preference" answer, and its key does nothing.
+        assert page.locator("#answers button[data-choice=none]").count() == 0
+        page.keyboard.press("n")
+        page.wait_for_timeout(100)
+        assert page.locator("body").get_attribute("data-trial") == "0"
         page.keyboard.press("Space")
         page.wait_for_function("window.earfoldListening.playing()")
         assert page.evaluate("window.earfoldListening.sourceCount()") == 3
