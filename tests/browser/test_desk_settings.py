@@ -261,7 +261,7 @@ def test_custom_layout_made_on_the_page_renders(page, live_server, stems, artefa
     page.mouse.up()
     dragged_el = float(row.locator("[data-col='elevation']").input_value())
     assert 18 <= dragged_el <= 22
-    row.locator("[data-col='label']").fill("Back")
+    row.locator("[data-col='label']").fill("Rear")
     view.screenshot(path=str(artefacts / "desk-speakers-custom.png"))
 
     view.locator("[data-action='save']").click()
@@ -283,16 +283,18 @@ def test_custom_layout_made_on_the_page_renders(page, live_server, stems, artefa
         "Lw": (50, 0),
         "Rw": (-50, 0),
         "Up": (0, 55),
-        "Back": (dragged_az, dragged_el),
+        "Rear": (dragged_az, dragged_el),
     }
-    # The report page (when this build has it) shows the positions too.
-    answer = httpx.get(f"{live_server.url}/report/{render_id}", timeout=30)
-    if answer.status_code == 200 and "report" in answer.text:
-        page.goto(f"{live_server.url}/report/{render_id}")
-        page.wait_for_selector("text=Back", timeout=30_000)
-        text = page.locator("body").inner_text()
-        for label in got:
-            assert label in text
+    # The report page lists every loudspeaker with the direction asked.
+    page.goto(f"{live_server.url}/report/{render_id}")
+    # (Numbers as the page writes them: one decimal, a true minus sign.)
+    shown = [f"{az:.1f}° az, {el:.1f}° el".replace("-", "\u2212") for az, el in got.values()]
+    page.wait_for_function(
+        "texts => texts.every(t => document.body.innerText.includes(t))",
+        arg=[*got, *shown],
+        timeout=30_000,
+    )
+    page.screenshot(path=str(artefacts / "desk-custom-layout-report.png"), full_page=True)
 
 
 # --------------------------------------------------------------------------- batch, presets
@@ -414,6 +416,9 @@ def test_custom_room_renders_with_its_dimensions(page, live_server, stems, artef
     report = report_of(live_server, render_id)
     dims = report["room"]["room"]["dimensions_m"]
     assert (dims["length"], dims["width"], dims["height"]) == (6.2, 4.4, 3.1)
+    # The report page shows them too.
+    page.goto(f"{live_server.url}/report/{render_id}")
+    page.wait_for_selector("text=6.2 × 4.4 × 3.1 m", timeout=30_000)
 
 
 # --------------------------------------------------------------------------- headphone EQ
