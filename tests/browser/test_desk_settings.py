@@ -132,6 +132,21 @@ def test_every_field_follows_the_declaration(page, live_server, stems, artefacts
             selected = box.locator("select").input_value()
             assert selected == (spec["default"] or ""), spec["name"]
     page.screenshot(path=str(artefacts / "desk-settings-1280.png"))
+    # Selects never cut their text: the chosen option's text (measured in the select's
+    # own font) fits inside the box, arrow included.
+    cut = page.locator("#view-settings select").evaluate_all(
+        """selects => {
+          const ctx = document.createElement("canvas").getContext("2d");
+          return selects.filter(s => s.offsetParent && s.selectedIndex >= 0).map(s => {
+            const style = getComputedStyle(s);
+            ctx.font = `${style.fontWeight} ${style.fontSize} ${style.fontFamily}`;
+            const text = s.options[s.selectedIndex].text;
+            return [s.name || s.getAttribute("aria-label"), text,
+                    ctx.measureText(text).width, s.clientWidth - 28];
+          }).filter(([, , need, room]) => need > room);
+        }"""
+    )
+    assert cut == []
 
 
 def test_a_declared_bound_is_what_the_page_enforces(page, live_server, stems):
@@ -340,13 +355,28 @@ def test_a_settings_preset_survives_a_reload(page, live_server, stems):
     assert field(page, "lfe_gain").locator("input").input_value() == "4.5"
     assert field(page, "room").locator("select").input_value() == "medium"
     assert field(page, "true_peak").locator("select").input_value() == "off"
-    saved = [
-        p
-        for p in httpx.get(f"{live_server.url}/v1/presets", timeout=30).json()
-        if p["name"] == "late-night check"
-    ]
-    assert saved and saved[0]["kind"] == "settings"
-    assert saved[0]["body"]["lfe_gain"] == 4.5 and saved[0]["body"]["true_peak"] == "off"
+
+    def stored() -> list[dict]:
+        answer = httpx.get(f"{live_server.url}/v1/presets", timeout=30).json()
+        return [p for p in answer if p["name"] == "late-night check"]
+
+    (saved,) = stored()
+    assert saved["kind"] == "settings"
+    assert saved["body"]["lfe_gain"] == 4.5 and saved["body"]["true_peak"] == "off"
+
+    # Overwrite it with the form as it is now, then delete it (a second click confirms).
+    field(page, "lfe_gain").locator("input").fill("3")
+    page.click("[data-action='preset-update']")
+    page.locator("[data-part='preset-message']:has-text('now holds')").wait_for()
+    (updated,) = stored()
+    assert updated["id"] == saved["id"] and updated["body"]["lfe_gain"] == 3
+    page.click("[data-action='preset-delete']")
+    page.locator("[data-part='preset-message']:has-text('again')").wait_for()
+    assert stored()  # not yet
+    page.click("[data-action='preset-delete']")
+    page.locator("[data-part='preset-message']:has-text('Deleted')").wait_for()
+    assert stored() == []
+    assert "late-night check" not in chooser.inner_text()
 
 
 def test_render_again_fills_the_form(page, live_server, stems):
@@ -377,6 +407,23 @@ def test_render_again_fills_the_form(page, live_server, stems):
     assert field(page, "subtype").locator("select").input_value() == "FLOAT"
     assert field(page, "seed").locator("input").input_value() == "7"
     assert "loaded" in page.locator("[data-part='render-status']").inner_text()
+
+    # A channel-by-channel order fills the mapping, which fits its panel.
+    swapped = ["R", "L", "C", "LFE", "Rs", "Ls"]
+    page.evaluate(
+        "r => window.earfoldDesk.bus.emit('settings-load', {request: r})",
+        {**view["request"], "channel_order": swapped},
+    )
+    assert order.input_value() == "custom"
+    grid = field(page, "channel_order").locator(".mapping")
+    picks = grid.locator("select").evaluate_all("ss => ss.map(s => s.value)")
+    assert picks == swapped
+    assert grid.evaluate("g => g.scrollWidth <= g.clientWidth")
+    # Choosing a loudspeaker twice is caught before sending.
+    grid.locator("select[data-channel='1']").select_option("R")
+    page.click("#view-settings [data-action='render']")
+    problem = field(page, "channel_order").locator("[data-problem='channel_order']")
+    assert "R is chosen more than once" in problem.inner_text()
 
 
 # --------------------------------------------------------------------------- custom room
@@ -470,3 +517,37 @@ def test_a_room_the_renderer_refuses_is_explained_beside_the_room(page, live_ser
     text = problem.inner_text()
     assert text.startswith("Room length 0.5 m is out of range"), text
     assert text.endswith(".")
+
+
+def test_a_saved_layout_is_updated_and_deleted(page, live_server, stems):
+    open_desk(page, live_server)
+    view = editor(page)
+    view.locator("[data-part='start']").select_option("b:4.0")
+    view.locator("[data-action='start']").click()
+    view.locator("[data-part='name']").fill("quarry square")
+    view.locator("[data-action='save']").click()
+    view.locator("[data-part='message']:has-text('Saved')").wait_for()
+    assert view.locator("[data-part='state']").inner_text() == "Saved."
+
+    def stored() -> list[dict]:
+        answer = httpx.get(f"{live_server.url}/v1/presets?kind=layout", timeout=30).json()
+        return [p for p in answer if p["name"] == "quarry square"]
+
+    (first,) = stored()
+    row = view.locator("tr[data-index='0']")
+    row.locator("[data-col='azimuth']").fill("35")
+    assert view.locator("[data-part='state']").inner_text() == "Changed since it was saved."
+    assert view.locator("[data-action='use']").is_disabled()
+    view.locator("[data-action='update']").click()
+    view.locator("[data-part='state']:text-is('Saved.')").wait_for()
+    (second,) = stored()
+    assert second["id"] == first["id"]
+    assert second["body"]["speakers"][0]["azimuth"] == 35
+    # A label the renderer refuses (a comma) is caught on the page, with the row named.
+    row.locator("[data-col='label']").fill("L,2")
+    assert "comma" in view.locator("tr[data-problem-for='0']").inner_text()
+    row.locator("[data-col='label']").fill(first["body"]["speakers"][0]["label"])
+    view.locator("[data-action='delete']").click()
+    view.locator("[data-action='delete']").click()
+    view.locator("[data-part='message']:has-text('Deleted')").wait_for()
+    assert stored() == []
