@@ -14,10 +14,12 @@ from __future__ import annotations
 import json
 import math
 import time
+from pathlib import Path
 
 import httpx
 import pytest
 
+import earfold.hrtf_sets
 from tests.service.stem_factory import FS, write_stem
 
 pytestmark = pytest.mark.browser
@@ -551,3 +553,27 @@ def test_a_saved_layout_is_updated_and_deleted(page, live_server, stems):
     view.locator("[data-action='delete']").click()
     view.locator("[data-part='message']:has-text('Deleted')").wait_for()
     assert stored() == []
+
+
+def test_a_sofa_file_sent_from_the_settings_is_chosen_and_offered_to_the_batch(
+    page, live_server, stems
+):
+    """The shipped rigid-sphere set, sent again as an upload: it is checked by the
+    server, listed under "Uploaded", chosen, and offered among the batch's HRTF sets."""
+    sofa = Path(earfold.hrtf_sets.__file__).parent / "rigid_sphere.sofa"
+    open_desk(page, live_server, stems[6])
+    box = field(page, "hrtf")
+    box.locator("input[data-upload='sofa']").set_input_files(str(sofa))
+    box.locator(".upload-status:has-text('added')").wait_for(timeout=60_000)
+    chosen = box.locator("select").input_value()
+    assert len(chosen) == 32
+    group = box.locator("select optgroup[label='Uploaded']")
+    assert group.locator(f"option[value='{chosen}']").count() == 1
+    page.locator("#view-settings [data-part='batch'] summary").click()
+    assert page.locator(f"[data-batch='hrtf'] input[value='{chosen}']").count() == 1
+    # A file that is no SOFA is refused in words beside the field.
+    bogus = sofa.parent / "__init__.py"
+    box.locator("input[data-upload='sofa']").set_input_files(str(bogus))
+    problem = box.locator("[data-problem='hrtf']")
+    problem.wait_for(timeout=60_000)
+    assert problem.inner_text().startswith("__init__.py was not taken:")
