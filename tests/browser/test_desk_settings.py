@@ -577,3 +577,30 @@ def test_a_sofa_file_sent_from_the_settings_is_chosen_and_offered_to_the_batch(
     problem = box.locator("[data-problem='hrtf']")
     problem.wait_for(timeout=60_000)
     assert problem.inner_text().startswith("__init__.py was not taken:")
+
+
+@pytest.mark.parametrize("theme", ["light", "dim"])
+def test_contrast_and_hidden_in_both_themes(browser, live_server, stems, artefacts, theme):
+    """WCAG AA text contrast (measured as tests/browser/desk_helpers does) in the room
+    editor and the loudspeaker editor, and no element marked hidden is displayed."""
+    from tests.browser.desk_helpers import SHOWN_HIDDEN_JS, low_contrast
+
+    scheme = "dark" if theme == "dim" else "light"
+    context = browser.new_context(viewport={"width": 1280, "height": 800}, color_scheme=scheme)
+    page = context.new_page()
+    try:
+        open_desk(page, live_server, stems[6])
+        assert page.evaluate("document.documentElement.dataset.theme") == theme
+        field(page, "room").locator("select").select_option("__custom")
+        page.locator("#view-settings [data-part='batch'] summary").click()
+        assert low_contrast(page) == []
+        assert page.evaluate(SHOWN_HIDDEN_JS) == []
+        page.screenshot(path=str(artefacts / f"desk-settings-room-{theme}.png"))
+        view = editor(page)
+        view.locator("[data-part='start']").select_option("b:7.1.4")
+        view.locator("[data-action='start']").click()
+        assert low_contrast(page) == []
+        assert page.evaluate(SHOWN_HIDDEN_JS) == []
+        page.screenshot(path=str(artefacts / f"desk-speakers-{theme}.png"))
+    finally:
+        context.close()
