@@ -106,7 +106,7 @@ function numberControl(spec) {
 
 function choiceControl(spec) {
   const select = el("select", { id: uniqueId(`set-${spec.name}`), name: spec.name });
-  if (spec.default === null || spec.default === undefined) select.append(el("option", { value: "" }, "automatic (see the note)"));
+  if (spec.default === null || spec.default === undefined) select.append(el("option", { value: "" }, "the default (see below)"));
   for (const c of spec.choices || []) select.append(el("option", { value: c }, String(c)));
   const { node, error } = fieldShell(spec, select);
   return control(spec, {

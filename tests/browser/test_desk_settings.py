@@ -549,6 +549,15 @@ def test_a_saved_layout_is_updated_and_deleted(page, live_server, stems):
     row.locator("[data-col='label']").fill("L,2")
     assert "comma" in view.locator("tr[data-problem-for='0']").inner_text()
     row.locator("[data-col='label']").fill(first["body"]["speakers"][0]["label"])
+    # A double-click on the elevation view adds a loudspeaker where it is pointed:
+    # a quarter of the width from the left is azimuth +90 (left), the middle height 0.
+    side = view.locator("svg[data-view='side']").bounding_box()
+    k = side["width"] / 500
+    plot_w, plot_h = (500 - 34 - 12) * k, (300 - 14 - 24) * k
+    page.mouse.dblclick(side["x"] + 34 * k + plot_w * 0.25, side["y"] + 14 * k + plot_h / 2)
+    added = view.locator("tr[data-index='4']")
+    assert abs(float(added.locator("[data-col='azimuth']").input_value()) - 90) <= 1
+    assert abs(float(added.locator("[data-col='elevation']").input_value())) <= 1
     view.locator("[data-action='delete']").click()
     view.locator("[data-action='delete']").click()
     view.locator("[data-part='message']:has-text('Deleted')").wait_for()
