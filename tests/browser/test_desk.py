@@ -11,6 +11,7 @@ render.
 
 from __future__ import annotations
 
+import base64
 import secrets
 import time
 from pathlib import Path
@@ -452,3 +453,26 @@ def test_seek_outside_the_window_loads_a_new_one_and_gains_match_loudness(
     assert max(positions) - min(positions) <= RENDER_QUANTUM, positions
     assert 60 * FS <= min(positions) <= 62 * FS, positions
     assert any("start=50.000" in url for url in windows), windows
+
+
+def test_a_file_dropped_on_the_stems_panel_becomes_a_stem(page, live_server, tmp_path):
+    path = tmp_path / "tram-stop.wav"
+    write_stem(path, FS // 2, 2, seed=8)
+    payload = base64.b64encode(path.read_bytes()).decode()
+    open_desk(page, live_server)
+    page.evaluate(
+        """(data) => {
+            const bytes = Uint8Array.from(atob(data), c => c.charCodeAt(0));
+            const transfer = new DataTransfer();
+            transfer.items.add(new File([bytes], 'tram-stop.wav', { type: 'audio/wav' }));
+            const panel = document.querySelector('#stems-panel');
+            const init = { dataTransfer: transfer, bubbles: true, cancelable: true };
+            panel.dispatchEvent(new DragEvent('dragover', init));
+            panel.dispatchEvent(new DragEvent('drop', init));
+        }""",
+        payload,
+    )
+    selected = page.locator(".stem-row.selected")
+    selected.wait_for()
+    assert selected.locator(".stem-name").inner_text() == "tram-stop.wav"
+    assert "2 ch" in selected.locator(".stem-facts").inner_text()
