@@ -476,3 +476,16 @@ def test_a_file_dropped_on_the_stems_panel_becomes_a_stem(page, live_server, tmp
     selected.wait_for()
     assert selected.locator(".stem-name").inner_text() == "tram-stop.wav"
     assert "2 ch" in selected.locator(".stem-facts").inner_text()
+
+
+def test_the_switchers_renders_start_a_blind_test(page, live_server, two_renders):
+    stem, (a, b) = two_renders["stem"], two_renders["renders"]
+    open_desk(page, live_server, f"#stem={stem['id']}")
+    assert page.locator("#ab-blind").is_disabled()
+    row(page, a).locator(".act-ab").click()
+    row(page, b).locator(".act-ab").click()
+    page.wait_for_selector("#ab-blind:not([disabled])")
+    page.click("#ab-blind")
+    page.wait_for_selector("#tab-blind[aria-selected=true]")
+    assert page.locator("#view-blind").is_visible()
+    assert "tab=blind" in page.evaluate("location.hash")
