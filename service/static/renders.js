@@ -51,10 +51,29 @@ export function rendersOf(stemId) {
     .sort((a, b) => String(b.created).localeCompare(String(a.created)));
 }
 
+// Reports are fetched at most REPORTS_AT_ONCE at a time (a long list must not flood the server).
+const REPORTS_AT_ONCE = 3;
+let reportsRunning = 0;
+const reportsWaiting = [];
+
+function limited(task) {
+  return new Promise((resolve, reject) => {
+    const run = () => {
+      reportsRunning += 1;
+      task().then(resolve, reject).finally(() => {
+        reportsRunning -= 1;
+        if (reportsWaiting.length) reportsWaiting.shift()();
+      });
+    };
+    if (reportsRunning < REPORTS_AT_ONCE) run();
+    else reportsWaiting.push(run);
+  });
+}
+
 /** { lufs, truePeak } of a finished render, from its report (fetched once). */
 export function renderLoudness(id) {
   if (!loudness.has(id)) {
-    const got = api(`/v1/renders/${id}/report`).then((report) => {
+    const got = limited(() => api(`/v1/renders/${id}/report`)).then((report) => {
       const out = (report.delivery && report.delivery.output) || {};
       return {
         lufs: Number.isFinite(out.integrated_lufs) ? out.integrated_lufs : null,
@@ -266,12 +285,18 @@ function redrawRow(r) {
   if (old && old.isConnected) old.replaceWith(row);
 }
 
+/** What a row shows of a render: an event that changes none of it redraws nothing. */
+function signature(r) {
+  return JSON.stringify([r.state, r.progress, r.queue_position, r.message, r.result ? 1 : 0]);
+}
+
 function update(view) {
   const before = renders.get(view.id);
   renders.set(view.id, view);
   if (!seen.has(view.id)) seen.set(view.id, []);
   seen.get(view.id).push(view.progress);
   const row = rows.get(view.id);
+  if (before && signature(before) === signature(view) && row && row.isConnected) return;
   const stem = bus.state.stem;
   const mine = stem && view.request && view.request.stem_id === stem.id;
   if (!row || !row.isConnected) {
