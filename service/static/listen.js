@@ -442,6 +442,7 @@ function drawSwitcher() {
   ui.switcher.replaceChildren(...buttons);
   ui.switcherEmpty.hidden = list.length > 0;
   ui.refButton.disabled = ab.ids.length === 0;
+  ui.blindButton.disabled = ab.ids.length < 2;
   ui.refButton.setAttribute("aria-pressed", ab.referenceId ? "true" : "false");
 }
 
@@ -539,6 +540,9 @@ export async function mountListen(root) {
   ui.refButton = el("button", { type: "button", class: "btn btn-small", id: "ab-reference", disabled: true,
     title: "Add the stem's plain stereo fold-down (ITU-R BS.775), level-matched", onclick: addReference }, "+ reference");
   ui.abStatus = el("span", { class: "hint", id: "ab-status", "aria-live": "polite" });
+  ui.blindButton = el("button", { type: "button", class: "btn btn-small btn-quiet", id: "ab-blind", disabled: true,
+    title: "Start a blind test of the renders in the switcher (Blind tests tab)",
+    onclick: () => bus.emit("compare-renders", { renderIds: [...ab.ids] }) }, "Blind test…");
   ui.loopText = el("span", { class: "mono hint", id: "loop-text" });
   ui.loopButton = el("button", { type: "button", class: "btn btn-small", id: "loop-toggle", "aria-pressed": "false", onclick: toggleLoop }, "Loop");
   const loopIn = el("button", { type: "button", class: "btn btn-small btn-quiet", onclick: () => setLoopPoint("in") }, "In");
@@ -560,7 +564,7 @@ export async function mountListen(root) {
       help.hidden = !help.hidden;
       helpButton.setAttribute("aria-expanded", help.hidden ? "false" : "true");
     } }, "Keys");
-  ui.abBox = el("span", { class: "ab-box" }, ui.switcher, ui.switcherEmpty, ui.refButton, ui.abStatus);
+  ui.abBox = el("span", { class: "ab-box" }, ui.switcher, ui.switcherEmpty, ui.refButton, ui.blindButton, ui.abStatus);
   root.replaceChildren(
     el("div", { class: "player-row" }, ui.play, ui.streamBox, ui.abBox, el("span", { class: "spacer" }),
       el("span", { class: "loop-box" }, loopIn, loopOut, ui.loopButton, ui.loopText),

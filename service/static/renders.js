@@ -51,10 +51,29 @@ export function rendersOf(stemId) {
     .sort((a, b) => String(b.created).localeCompare(String(a.created)));
 }
 
+// Reports are fetched at most REPORTS_AT_ONCE at a time (a long list must not flood the server).
+const REPORTS_AT_ONCE = 3;
+let reportsRunning = 0;
+const reportsWaiting = [];
+
+function limited(task) {
+  return new Promise((resolve, reject) => {
+    const run = () => {
+      reportsRunning += 1;
+      task().then(resolve, reject).finally(() => {
+        reportsRunning -= 1;
+        if (reportsWaiting.length) reportsWaiting.shift()();
+      });
+    };
+    if (reportsRunning < REPORTS_AT_ONCE) run();
+    else reportsWaiting.push(run);
+  });
+}
+
 /** { lufs, truePeak } of a finished render, from its report (fetched once). */
 export function renderLoudness(id) {
   if (!loudness.has(id)) {
-    const got = api(`/v1/renders/${id}/report`).then((report) => {
+    const got = limited(() => api(`/v1/renders/${id}/report`)).then((report) => {
       const out = (report.delivery && report.delivery.output) || {};
       return {
         lufs: Number.isFinite(out.integrated_lufs) ? out.integrated_lufs : null,

@@ -106,7 +106,7 @@ function numberControl(spec) {
 
 function choiceControl(spec) {
   const select = el("select", { id: uniqueId(`set-${spec.name}`), name: spec.name });
-  if (spec.default === null || spec.default === undefined) select.append(el("option", { value: "" }, "automatic (see the note)"));
+  if (spec.default === null || spec.default === undefined) select.append(el("option", { value: "" }, "the default (see below)"));
   for (const c of spec.choices || []) select.append(el("option", { value: c }, String(c)));
   const { node, error } = fieldShell(spec, select);
   return control(spec, {
@@ -910,6 +910,8 @@ function buildPresetBar() {
   save.addEventListener("click", async () => {
     const n = name.value.trim();
     if (!n) { say("Give the settings a name first.", "error"); name.focus(); return; }
+    const twin = presetsOf("settings").find((p) => p.name.toLowerCase() === n.toLowerCase());
+    if (twin) { say(`“${twin.name}” exists already: choose it above and Update it, or give another name.`, "error"); return; }
     let body;
     try { body = collect(); } catch (err) { if (err instanceof FieldProblem) { say(err.message, "error"); return; } throw err; }
     try {

@@ -11,6 +11,7 @@ render.
 
 from __future__ import annotations
 
+import base64
 import secrets
 import time
 from pathlib import Path
@@ -406,3 +407,85 @@ def test_play_from_the_row_streams_a_signed_link(page, live_server, two_renders)
     assert audio_requests  # the element fetched it itself (Range requests), not a blob
     page.keyboard.press("Space")
     page.wait_for_function("document.querySelector('#stream-audio').paused")
+
+
+def test_seek_outside_the_window_loads_a_new_one_and_gains_match_loudness(
+    page, live_server, tmp_path
+):
+    # A 70 s stereo stem rendered at two loudness targets: the switcher's gains bring the
+    # louder one down to the quieter (from the reports' integrated loudness), and a seek
+    # past the first 45 s window fetches the window around the new place.
+    path = tmp_path / "ferry-crossing.wav"
+    write_stem(path, 70 * FS, 2, seed=21)
+    with client(live_server) as http:
+        stem = post_stem(http, path)
+        ids = [
+            post_render(http, stem["id"], layout="2.0", loudness=target)["id"]
+            for target in (-23, -20)
+        ]
+        assert all(wait_final(http, i)["state"] == "done" for i in ids)
+        lufs = [
+            http.get(f"/v1/renders/{i}/report").json()["delivery"]["output"]["integrated_lufs"]
+            for i in ids
+        ]
+    windows: list[str] = []
+    page.on("request", lambda r: windows.append(r.url) if "/window?" in r.url else None)
+    open_desk(page, live_server, f"#stem={stem['id']}")
+    for render_id in ids:
+        row(page, render_id).locator(".act-ab").click()
+    page.wait_for_selector("#ab-switcher .ab-source:not([disabled]) >> nth=1")
+    sources = {s["key"]: s for s in page.evaluate("earfoldDesk.player.sources()")}
+    quiet = min(lufs)
+    for render_id, level in zip(ids, lufs, strict=True):
+        assert sources[render_id]["match"] == pytest.approx(10 ** ((quiet - level) / 20), rel=1e-6)
+    assert sources[ids[1]]["match"] == pytest.approx(10 ** (-3 / 20), rel=0.02)  # 3 dB louder
+    page.keyboard.press("Space")
+    page.wait_for_function("earfoldDesk.player.state().playing")
+    page.evaluate(
+        "(() => { const s = document.querySelector('#player-seek');"
+        " s.value = '60'; s.dispatchEvent(new Event('change')); })()"
+    )
+    page.wait_for_function(
+        "(s => s.windowStart > 45 && s.playing)(earfoldDesk.player.state())", timeout=60_000
+    )
+    page.wait_for_timeout(300)
+    positions = list(page.evaluate("earfoldDesk.player.positions()").values())
+    assert max(positions) - min(positions) <= RENDER_QUANTUM, positions
+    assert 60 * FS <= min(positions) <= 62 * FS, positions
+    assert any("start=50.000" in url for url in windows), windows
+
+
+def test_a_file_dropped_on_the_stems_panel_becomes_a_stem(page, live_server, tmp_path):
+    path = tmp_path / "tram-stop.wav"
+    write_stem(path, FS // 2, 2, seed=8)
+    payload = base64.b64encode(path.read_bytes()).decode()
+    open_desk(page, live_server)
+    page.evaluate(
+        """(data) => {
+            const bytes = Uint8Array.from(atob(data), c => c.charCodeAt(0));
+            const transfer = new DataTransfer();
+            transfer.items.add(new File([bytes], 'tram-stop.wav', { type: 'audio/wav' }));
+            const panel = document.querySelector('#stems-panel');
+            const init = { dataTransfer: transfer, bubbles: true, cancelable: true };
+            panel.dispatchEvent(new DragEvent('dragover', init));
+            panel.dispatchEvent(new DragEvent('drop', init));
+        }""",
+        payload,
+    )
+    selected = page.locator(".stem-row.selected")
+    selected.wait_for()
+    assert selected.locator(".stem-name").inner_text() == "tram-stop.wav"
+    assert "2 ch" in selected.locator(".stem-facts").inner_text()
+
+
+def test_the_switchers_renders_start_a_blind_test(page, live_server, two_renders):
+    stem, (a, b) = two_renders["stem"], two_renders["renders"]
+    open_desk(page, live_server, f"#stem={stem['id']}")
+    assert page.locator("#ab-blind").is_disabled()
+    row(page, a).locator(".act-ab").click()
+    row(page, b).locator(".act-ab").click()
+    page.wait_for_selector("#ab-blind:not([disabled])")
+    page.click("#ab-blind")
+    page.wait_for_selector("#tab-blind[aria-selected=true]")
+    assert page.locator("#view-blind").is_visible()
+    assert "tab=blind" in page.evaluate("location.hash")

@@ -1,7 +1,8 @@
 """Screenshots of every view of the desk (stems with settings, speakers, blind tests), a
 report page and a comparison page, at 1,280 x 800 and 1,920 x 1,080, in the light and the
 dim theme, into ``test-artifacts/``. On every page no element marked hidden is displayed;
-at 1,280 x 800 the desk itself does not scroll (its panels scroll inside).
+at 1,280 x 800 the desk itself does not scroll (its panels scroll inside). The report and
+comparison pages also pass the WCAG AA text contrast check in both themes.
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ import pytest
 from tests.browser.desk_helpers import (
     SHOWN_HIDDEN_JS,
     client,
+    low_contrast,
     open_desk,
     post_render,
     post_stem,
@@ -104,5 +106,20 @@ def test_every_view(browser, live_server, scene, artefacts, size, theme):
         assert resp is not None and resp.status == 200
         page.wait_for_load_state("networkidle")
         shoot(page, artefacts, f"compare-{tag}")
+    finally:
+        context.close()
+
+
+@pytest.mark.parametrize("theme", THEMES)
+def test_report_and_compare_pages_text_contrast(browser, live_server, scene, theme):
+    context = browser.new_context(viewport={"width": 1280, "height": 800})
+    context.add_init_script(f"localStorage.setItem('earfold.theme', '{theme}')")
+    page = context.new_page()
+    try:
+        for path in (f"/report/{scene['renders'][1]}", f"/compare/{scene['comparison']}"):
+            page.goto(live_server.url + path)
+            page.wait_for_load_state("networkidle")
+            assert page.evaluate("document.documentElement.dataset.theme") == theme
+            assert low_contrast(page) == [], path
     finally:
         context.close()
