@@ -11,7 +11,9 @@
 //   setTitle(text)                   changes the page title in the header and the tab.
 //   notify(message, kind)            a toast ("info" | "ok" | "warn" | "error"); errors
 //                                    stay until closed, others fade after 6 s.
-//   askToken(reason)                 opens the token prompt; resolves when a token is set.
+//   askToken(reason)                 opens the token prompt; resolves when a token is set
+//                                    (window then gets an "earfold-token" event, so pages
+//                                    can load again what the server refused before).
 //   applyTheme(choice)               "system" | "light" | "dim": stores it and sets
 //                                    <html data-theme>; themeChoice() reads the stored one.
 //   CAUTION_TEXT                     the hearing caution, for pages that repeat it beside
@@ -120,6 +122,7 @@ export function askToken(reason = "") {
         }
       }
       tokenDialog.close();
+      window.dispatchEvent(new CustomEvent("earfold-token", { detail: {} }));
       const waiters = tokenWaiters;
       tokenWaiters = [];
       waiters.forEach((fn) => fn(value));

@@ -317,6 +317,11 @@ def test_token_prompt_keeps_the_token_in_the_tab(page, tmp_path, stems):
         page.keyboard.press("Enter")
         page.wait_for_selector("dialog.token-dialog", state="hidden")
         assert page.evaluate("sessionStorage.getItem('earfold.token')") == token
+        # The desk loads again what the server refused before the token: the stems list,
+        # the renders (live) and the catalogue.
+        page.wait_for_selector("#renders-live:has-text('live')")
+        page.wait_for_function("earfoldDesk.state.catalog.layouts !== null")
+        assert page.locator("#stems-empty").is_visible()
         page.reload()
         page.wait_for_selector("body[data-ready]")
         assert page.locator("dialog.token-dialog[open]").count() == 0
