@@ -26,6 +26,7 @@ from typing import Any
 
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import StreamingResponse
+from pydantic import BaseModel, Field
 
 from earfold.renderer.errors import AudioError
 from earfold.renderer.io import StemReader, probe_stem
@@ -47,8 +48,9 @@ POLL_S = 0.25
 #: idle connection after 30-60 s (common practice); 15 s stays well inside that.
 KEEP_ALIVE_S = 15.0
 
-#: Finished renders an all-renders stream looks at on each poll, newest first, so that a
-#: render that was queued and finished between two polls still shows its final state.
+#: Renders an all-renders stream reads on each poll, newest first: new renders show up
+#: among them (one that was queued and finished between two polls included), so the
+#: owner's whole list is read only on the first poll or after a larger burst.
 RECENT = 20
 
 #: Longest window of audio one request returns (s).
@@ -57,6 +59,14 @@ WINDOW_MAX_S = 120.0
 #: Frames per read when a window is streamed out: 512 KiB per block of float32 stereo,
 #: so memory depends on this, not on the window's length.
 WINDOW_BLOCK = 1 << 16
+
+
+class ListenLink(BaseModel):
+    """A signed address that works without the ``Authorization`` header."""
+
+    url: str = Field(description="the address with its ?key=, relative to the server")
+    expires: str = Field(description="when the key stops working (ISO 8601 UTC)")
+
 
 _STREAM: dict[int | str, dict[str, Any]] = {
     200: {"content": {"text/event-stream": {}}, "description": "an event stream"}
@@ -154,7 +164,10 @@ async def _one_render(request: Request, job: Job) -> AsyncIterator[bytes | None]
             return None  # deleted meanwhile: the stream ends
         return render_view(found, queue_position(queue, found))
 
-    view: dict | None = await asyncio.to_thread(read, job.id)
+    try:
+        view: dict | None = await asyncio.to_thread(read, job.id)
+    except QueueUnavailable:
+        view = render_view(job)  # as the route read it a moment ago
     last = None
     while view is not None:
         if _mark(view) != last:
@@ -246,6 +259,7 @@ async def all_render_events(request: Request, key: str | None = _KEY) -> Streami
 @router.post(
     "/events/link",
     summary="A signed address of the all-renders event stream (for EventSource)",
+    response_model=ListenLink,
     responses=problem_responses(UNAUTHORIZED),
 )
 async def all_render_events_link(request: Request) -> dict:
@@ -278,6 +292,7 @@ async def render_events(
 @router.post(
     "/{render_id}/listen",
     summary="A signed audio address for <audio src> (valid 6 hours)",
+    response_model=ListenLink,
     responses=problem_responses(UNAUTHORIZED, NOT_FOUND, CONFLICT),
 )
 async def listen_link(render_id: str, request: Request) -> dict:

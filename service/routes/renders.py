@@ -315,8 +315,9 @@ async def get_render(
     render_id: str, request: Request, owner: str = Depends(current_owner)
 ) -> Response:
     # The one route clients poll: async (no thread-pool hop), one indexed read on the
-    # store's read-only connection, and JSON built directly, without validating our own
-    # answer against RenderView (the fuzz test checks that it matches).
+    # store's read-only connection (two while queued: the place in line), and JSON built
+    # directly, without validating our own answer against RenderView (the fuzz test
+    # checks that it matches).
     job = _job(request, render_id, owner)
     view = render_view(job, queue_position(request.app.state.queue, job))
     return Response(json.dumps(view, separators=(",", ":")), media_type="application/json")

@@ -9,6 +9,7 @@ from pathlib import Path
 
 from anyio import to_thread
 from fastapi import APIRouter, Depends, Request, Response
+from pydantic import BaseModel, Field
 
 from earfold.renderer.errors import AudioError
 from earfold.renderer.io import measure_levels, probe_stem
@@ -40,6 +41,31 @@ router = APIRouter(prefix="/v1/stems", tags=["stems"], responses=problem_respons
 
 #: File of a stem's levels in its folder (GET /v1/stems/{id}/levels).
 LEVELS = "levels.json"
+
+
+class ChannelLevelsView(BaseModel):
+    """Levels of one channel; dB relative to full scale, null where silent."""
+
+    index: int = Field(ge=0, description="channel in file order, from 0")
+    label: str | None = Field(description="the channel's label, where known")
+    peak_dbfs: float | None = Field(description="sample peak, 20 log10 max|x|")
+    rms_dbfs: float | None = Field(description="RMS, 10 log10 mean(x^2)")
+    low_share: float | None = Field(
+        ge=0, le=1, description="share of the channel's energy below 120 Hz"
+    )
+    overview: list[tuple[float | None, float | None]] = Field(
+        description="[peak dB, RMS dB] of each of 'points' consecutive windows"
+    )
+
+
+class StemLevelsView(BaseModel):
+    """Levels of every channel of a stem."""
+
+    frames: int = Field(ge=0)
+    sample_rate: int = Field(gt=0)
+    points: int = Field(gt=0, description="windows of each overview")
+    channels: list[ChannelLevelsView]
+
 
 _SAFE_EXT = re.compile(r"\.[a-z0-9]{1,5}")
 _SAFE_LABEL = re.compile(r"[A-Za-z0-9+\-]{1,16}")
@@ -222,6 +248,7 @@ def get_stem(stem_id: str, request: Request, owner: str = Depends(current_owner)
 @router.get(
     "/{stem_id}/levels",
     summary="Levels of each channel: peak, RMS, low-frequency share, an overview in time",
+    response_model=StemLevelsView,
     responses=problem_responses(NOT_FOUND, UNPROCESSABLE),
 )
 def get_stem_levels(stem_id: str, request: Request, owner: str = Depends(current_owner)) -> dict:

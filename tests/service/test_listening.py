@@ -139,8 +139,10 @@ def _worker_thread(app, jobs: int = 1) -> threading.Thread:
     return thread
 
 
-def test_render_events_follow_a_render_to_done_then_end(live, tmp_path):
-    server = live(tokens=("alice-token",))
+@pytest.mark.parametrize("backend", ["sqlite", "redis"])
+def test_render_events_follow_a_render_to_done_then_end(live, tmp_path, request, backend):
+    queue = {"queue_url": request.getfixturevalue("redis_queue_url")} if backend == "redis" else {}
+    server = live(tokens=("alice-token",), **queue)
     auth = {"Authorization": "Bearer alice-token"}
     with httpx.Client(base_url=server.url, headers=auth, timeout=30) as http:
         path = write_stem(tmp_path / "long.wav", FS * 20, 2)
