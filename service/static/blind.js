@@ -10,6 +10,7 @@
 
 import { api } from "./api.js";
 import { bus } from "./bus.js";
+import { askToken } from "./chrome.js";
 
 const POLL_MS = 1500;
 const DESIGN_NAMES = { ab: "A/B preference", abx: "ABX" };
@@ -150,6 +151,13 @@ export function mountBlindTests(root) {
       state.comparisons = await api("/v1/comparisons");
       state.listError = null;
     } catch (err) {
+      if (err.status === 401) {
+        // The token prompt is open (chrome.js); list again once a token is given.
+        state.listError = "this server needs an API token";
+        renderList();
+        askToken().then(() => { refreshList(); refreshRenders(); });
+        return;
+      }
       state.listError = err.status === 404 ? "this server has no blind tests (GET /v1/comparisons answered 404)" : err.message;
     }
     // Older servers do not name the stem in the list: look the names up once.

@@ -106,7 +106,7 @@ function numberControl(spec) {
 
 function choiceControl(spec) {
   const select = el("select", { id: uniqueId(`set-${spec.name}`), name: spec.name });
-  if (spec.default === null || spec.default === undefined) select.append(el("option", { value: "" }, "automatic (see the note)"));
+  if (spec.default === null || spec.default === undefined) select.append(el("option", { value: "" }, "the default (see below)"));
   for (const c of spec.choices || []) select.append(el("option", { value: c }, String(c)));
   const { node, error } = fieldShell(spec, select);
   return control(spec, {
@@ -740,7 +740,7 @@ function build() {
   const list = optionsList();
   if (!list) {
     root.append(el("p", { class: "warn", "data-state": "no-options" },
-      bus.state.catalog.options === null
+      S.catalogSeen
         ? "The render settings cannot be shown: the server does not declare its options (GET /v1/options did not answer). Renders can still be started from the API."
         : "Loading the render settings…"));
     return;
@@ -1106,6 +1106,13 @@ function buildBatch() {
 
 // ------------------------------------------------------------------ mount
 
+/** Refresh the lists that come from catalogues (layouts, HRTF sets, rooms, EQ files),
+    keeping what is chosen. */
+function refreshLists() {
+  for (const name of ["layout", "channel_order", "solo", "hrtf", "headphone_eq"]) S.controls.get(name)?.refresh();
+  S.refreshBatch && S.refreshBatch();
+}
+
 /** The forms' style sheet, added once (the desk's page links only the shell's). */
 export function ensureStyles() {
   if (document.querySelector("link[data-style='desk-forms']")) return;
@@ -1132,15 +1139,20 @@ export async function mountSettings(el0) {
   const firstBuild = () => {
     const had = S.controls.size ? snapshot() : null;
     build();
+    S.optionsRef = bus.state.catalog.options;
     if (had && S.controls.size) fill(had);
   };
-  bus.on("catalog-changed", (detail) => {
-    if (detail && detail.source === "hrtf" && S.controls.size) {
-      S.controls.get("hrtf")?.refresh();
-      S.refreshBatch && S.refreshBatch();
+  bus.on("catalog-changed", async () => {
+    S.catalogSeen = true;
+    if (S.controls.size && bus.state.catalog.options === S.optionsRef) {
+      // Same declaration: only the lists changed (an uploaded set, a saved layout).
+      refreshLists();
       return;
     }
     firstBuild();
+    // A catalogue read again (e.g. after a token was given) may now let these through.
+    await Promise.all([loadPresets({ fresh: true }), loadEqFiles()]);
+    if (S.controls.size) { refreshLists(); S.fillPresetList && S.fillPresetList(); }
   });
   bus.on("stem-selected", ({ stem }) => {
     S.stem = stem || null;
@@ -1171,5 +1183,8 @@ export async function mountSettings(el0) {
   });
   build();
   await Promise.all([loadPresets(), loadEqFiles()]);
-  if (optionsList()) firstBuild();
+  // The desk may have read its catalogue before this panel listened for it.
+  const c = bus.state.catalog;
+  if (c.options || c.layouts || c.rooms || c.hrtfSets) S.catalogSeen = true;
+  firstBuild();
 }

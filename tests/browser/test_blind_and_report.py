@@ -441,3 +441,40 @@ def test_report_of_a_stereo_fold_down_shows_its_coefficients(page, live_server, 
     assert "0.7071" in centre and "−3.01" in centre
     lfe = page.locator("#speaker-table tbody tr[data-label=LFE]").inner_text()
     assert "left out" in lfe
+
+
+def test_blind_tests_listed_once_a_token_is_given(page, tmp_path):
+    """With tokens on, the tab lists the caller's tests after the token prompt (no reload)."""
+    from earfold.service.tools.local_server import LocalServer
+
+    token = "quiet-room-token-4821"
+    tokens = tmp_path / "tokens.txt"
+    tokens.write_text(token + "\n")
+    path = tmp_path / "lantern.wav"
+    write_audio(path, noise(FS * SECONDS, 6, seed=21, level=0.05), FS)
+    auth = {"Authorization": f"Bearer {token}"}
+    with (
+        LocalServer(workers=1, extra_args=["--tokens-file", str(tokens)]) as server,
+        httpx.Client(base_url=server.url, timeout=30, headers=auth) as http,
+    ):
+        stem = http.post(
+            "/v1/stems", files=[("file", (path.name, path.read_bytes(), "audio/wav"))]
+        ).json()
+        made = http.post(
+            "/v1/comparisons",
+            json={
+                "stem_id": stem["id"],
+                "mode": "abx",
+                "trials": 1,
+                "excerpt": {"length": 1.0},
+                "variants": [{"layout": "5.1"}, {"layout": "5.1", "room": "small"}],
+            },
+        )
+        assert made.status_code == 202, made.text
+        page.goto(f"{server.url}/#tab=blind")
+        page.wait_for_selector("dialog.token-dialog[open]")
+        page.fill("#token-input", token)
+        page.click("dialog.token-dialog button[type=submit]")
+        row = page.locator(f"#blind-table tr[data-id='{made.json()['id']}']")
+        row.wait_for()
+        assert "lantern.wav" in row.inner_text() and "ABX" in row.inner_text()

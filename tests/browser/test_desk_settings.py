@@ -14,10 +14,12 @@ from __future__ import annotations
 import json
 import math
 import time
+from pathlib import Path
 
 import httpx
 import pytest
 
+import earfold.hrtf_sets
 from tests.service.stem_factory import FS, write_stem
 
 pytestmark = pytest.mark.browser
@@ -132,6 +134,21 @@ def test_every_field_follows_the_declaration(page, live_server, stems, artefacts
             selected = box.locator("select").input_value()
             assert selected == (spec["default"] or ""), spec["name"]
     page.screenshot(path=str(artefacts / "desk-settings-1280.png"))
+    # Selects never cut their text: the chosen option's text (measured in the select's
+    # own font) fits inside the box, arrow included.
+    cut = page.locator("#view-settings select").evaluate_all(
+        """selects => {
+          const ctx = document.createElement("canvas").getContext("2d");
+          return selects.filter(s => s.offsetParent && s.selectedIndex >= 0).map(s => {
+            const style = getComputedStyle(s);
+            ctx.font = `${style.fontWeight} ${style.fontSize} ${style.fontFamily}`;
+            const text = s.options[s.selectedIndex].text;
+            return [s.name || s.getAttribute("aria-label"), text,
+                    ctx.measureText(text).width, s.clientWidth - 28];
+          }).filter(([, , need, room]) => need > room);
+        }"""
+    )
+    assert cut == []
 
 
 def test_a_declared_bound_is_what_the_page_enforces(page, live_server, stems):
@@ -261,7 +278,7 @@ def test_custom_layout_made_on_the_page_renders(page, live_server, stems, artefa
     page.mouse.up()
     dragged_el = float(row.locator("[data-col='elevation']").input_value())
     assert 18 <= dragged_el <= 22
-    row.locator("[data-col='label']").fill("Back")
+    row.locator("[data-col='label']").fill("Rear")
     view.screenshot(path=str(artefacts / "desk-speakers-custom.png"))
 
     view.locator("[data-action='save']").click()
@@ -283,16 +300,18 @@ def test_custom_layout_made_on_the_page_renders(page, live_server, stems, artefa
         "Lw": (50, 0),
         "Rw": (-50, 0),
         "Up": (0, 55),
-        "Back": (dragged_az, dragged_el),
+        "Rear": (dragged_az, dragged_el),
     }
-    # The report page (when this build has it) shows the positions too.
-    answer = httpx.get(f"{live_server.url}/report/{render_id}", timeout=30)
-    if answer.status_code == 200 and "report" in answer.text:
-        page.goto(f"{live_server.url}/report/{render_id}")
-        page.wait_for_selector("text=Back", timeout=30_000)
-        text = page.locator("body").inner_text()
-        for label in got:
-            assert label in text
+    # The report page lists every loudspeaker with the direction asked.
+    page.goto(f"{live_server.url}/report/{render_id}")
+    # (Numbers as the page writes them: one decimal, a true minus sign.)
+    shown = [f"{az:.1f}° az, {el:.1f}° el".replace("-", "\u2212") for az, el in got.values()]
+    page.wait_for_function(
+        "texts => texts.every(t => document.body.innerText.includes(t))",
+        arg=[*got, *shown],
+        timeout=30_000,
+    )
+    page.screenshot(path=str(artefacts / "desk-custom-layout-report.png"), full_page=True)
 
 
 # --------------------------------------------------------------------------- batch, presets
@@ -338,13 +357,28 @@ def test_a_settings_preset_survives_a_reload(page, live_server, stems):
     assert field(page, "lfe_gain").locator("input").input_value() == "4.5"
     assert field(page, "room").locator("select").input_value() == "medium"
     assert field(page, "true_peak").locator("select").input_value() == "off"
-    saved = [
-        p
-        for p in httpx.get(f"{live_server.url}/v1/presets", timeout=30).json()
-        if p["name"] == "late-night check"
-    ]
-    assert saved and saved[0]["kind"] == "settings"
-    assert saved[0]["body"]["lfe_gain"] == 4.5 and saved[0]["body"]["true_peak"] == "off"
+
+    def stored() -> list[dict]:
+        answer = httpx.get(f"{live_server.url}/v1/presets", timeout=30).json()
+        return [p for p in answer if p["name"] == "late-night check"]
+
+    (saved,) = stored()
+    assert saved["kind"] == "settings"
+    assert saved["body"]["lfe_gain"] == 4.5 and saved["body"]["true_peak"] == "off"
+
+    # Overwrite it with the form as it is now, then delete it (a second click confirms).
+    field(page, "lfe_gain").locator("input").fill("3")
+    page.click("[data-action='preset-update']")
+    page.locator("[data-part='preset-message']:has-text('now holds')").wait_for()
+    (updated,) = stored()
+    assert updated["id"] == saved["id"] and updated["body"]["lfe_gain"] == 3
+    page.click("[data-action='preset-delete']")
+    page.locator("[data-part='preset-message']:has-text('again')").wait_for()
+    assert stored()  # not yet
+    page.click("[data-action='preset-delete']")
+    page.locator("[data-part='preset-message']:has-text('Deleted')").wait_for()
+    assert stored() == []
+    assert "late-night check" not in chooser.inner_text()
 
 
 def test_render_again_fills_the_form(page, live_server, stems):
@@ -375,6 +409,23 @@ def test_render_again_fills_the_form(page, live_server, stems):
     assert field(page, "subtype").locator("select").input_value() == "FLOAT"
     assert field(page, "seed").locator("input").input_value() == "7"
     assert "loaded" in page.locator("[data-part='render-status']").inner_text()
+
+    # A channel-by-channel order fills the mapping, which fits its panel.
+    swapped = ["R", "L", "C", "LFE", "Rs", "Ls"]
+    page.evaluate(
+        "r => window.earfoldDesk.bus.emit('settings-load', {request: r})",
+        {**view["request"], "channel_order": swapped},
+    )
+    assert order.input_value() == "custom"
+    grid = field(page, "channel_order").locator(".mapping")
+    picks = grid.locator("select").evaluate_all("ss => ss.map(s => s.value)")
+    assert picks == swapped
+    assert grid.evaluate("g => g.scrollWidth <= g.clientWidth")
+    # Choosing a loudspeaker twice is caught before sending.
+    grid.locator("select[data-channel='1']").select_option("R")
+    page.click("#view-settings [data-action='render']")
+    problem = field(page, "channel_order").locator("[data-problem='channel_order']")
+    assert "R is chosen more than once" in problem.inner_text()
 
 
 # --------------------------------------------------------------------------- custom room
@@ -414,6 +465,9 @@ def test_custom_room_renders_with_its_dimensions(page, live_server, stems, artef
     report = report_of(live_server, render_id)
     dims = report["room"]["room"]["dimensions_m"]
     assert (dims["length"], dims["width"], dims["height"]) == (6.2, 4.4, 3.1)
+    # The report page shows them too.
+    page.goto(f"{live_server.url}/report/{render_id}")
+    page.wait_for_selector("text=6.2 × 4.4 × 3.1 m", timeout=30_000)
 
 
 # --------------------------------------------------------------------------- headphone EQ
@@ -465,3 +519,97 @@ def test_a_room_the_renderer_refuses_is_explained_beside_the_room(page, live_ser
     text = problem.inner_text()
     assert text.startswith("Room length 0.5 m is out of range"), text
     assert text.endswith(".")
+
+
+def test_a_saved_layout_is_updated_and_deleted(page, live_server, stems):
+    open_desk(page, live_server)
+    view = editor(page)
+    view.locator("[data-part='start']").select_option("b:4.0")
+    view.locator("[data-action='start']").click()
+    view.locator("[data-part='name']").fill("quarry square")
+    view.locator("[data-action='save']").click()
+    view.locator("[data-part='message']:has-text('Saved')").wait_for()
+    assert view.locator("[data-part='state']").inner_text() == "Saved."
+
+    def stored() -> list[dict]:
+        answer = httpx.get(f"{live_server.url}/v1/presets?kind=layout", timeout=30).json()
+        return [p for p in answer if p["name"] == "quarry square"]
+
+    (first,) = stored()
+    row = view.locator("tr[data-index='0']")
+    row.locator("[data-col='azimuth']").fill("35")
+    assert view.locator("[data-part='state']").inner_text() == "Changed since it was saved."
+    assert view.locator("[data-action='use']").is_disabled()
+    view.locator("[data-action='update']").click()
+    view.locator("[data-part='state']:text-is('Saved.')").wait_for()
+    (second,) = stored()
+    assert second["id"] == first["id"]
+    assert second["body"]["speakers"][0]["azimuth"] == 35
+    # A label the renderer refuses (a comma) is caught on the page, with the row named.
+    row.locator("[data-col='label']").fill("L,2")
+    assert "comma" in view.locator("tr[data-problem-for='0']").inner_text()
+    row.locator("[data-col='label']").fill(first["body"]["speakers"][0]["label"])
+    # A double-click on the elevation view adds a loudspeaker where it is pointed:
+    # a quarter of the width from the left is azimuth +90 (left), the middle height 0.
+    side = view.locator("svg[data-view='side']").bounding_box()
+    k = side["width"] / 500
+    plot_w, plot_h = (500 - 34 - 12) * k, (300 - 14 - 24) * k
+    page.mouse.dblclick(side["x"] + 34 * k + plot_w * 0.25, side["y"] + 14 * k + plot_h / 2)
+    added = view.locator("tr[data-index='4']")
+    assert abs(float(added.locator("[data-col='azimuth']").input_value()) - 90) <= 1
+    assert abs(float(added.locator("[data-col='elevation']").input_value())) <= 1
+    view.locator("[data-action='delete']").click()
+    view.locator("[data-action='delete']").click()
+    view.locator("[data-part='message']:has-text('Deleted')").wait_for()
+    assert stored() == []
+
+
+def test_a_sofa_file_sent_from_the_settings_is_chosen_and_offered_to_the_batch(
+    page, live_server, stems
+):
+    """The shipped rigid-sphere set, sent again as an upload: it is checked by the
+    server, listed under "Uploaded", chosen, and offered among the batch's HRTF sets."""
+    sofa = Path(earfold.hrtf_sets.__file__).parent / "rigid_sphere.sofa"
+    open_desk(page, live_server, stems[6])
+    box = field(page, "hrtf")
+    box.locator("input[data-upload='sofa']").set_input_files(str(sofa))
+    box.locator(".upload-status:has-text('added')").wait_for(timeout=60_000)
+    chosen = box.locator("select").input_value()
+    assert len(chosen) == 32
+    group = box.locator("select optgroup[label='Uploaded']")
+    assert group.locator(f"option[value='{chosen}']").count() == 1
+    page.locator("#view-settings [data-part='batch'] summary").click()
+    assert page.locator(f"[data-batch='hrtf'] input[value='{chosen}']").count() == 1
+    # A file that is no SOFA is refused in words beside the field.
+    bogus = sofa.parent / "__init__.py"
+    box.locator("input[data-upload='sofa']").set_input_files(str(bogus))
+    problem = box.locator("[data-problem='hrtf']")
+    problem.wait_for(timeout=60_000)
+    assert problem.inner_text().startswith("__init__.py was not taken:")
+
+
+@pytest.mark.parametrize("theme", ["light", "dim"])
+def test_contrast_and_hidden_in_both_themes(browser, live_server, stems, artefacts, theme):
+    """WCAG AA text contrast (measured as tests/browser/desk_helpers does) in the room
+    editor and the loudspeaker editor, and no element marked hidden is displayed."""
+    from tests.browser.desk_helpers import SHOWN_HIDDEN_JS, low_contrast
+
+    scheme = "dark" if theme == "dim" else "light"
+    context = browser.new_context(viewport={"width": 1280, "height": 800}, color_scheme=scheme)
+    page = context.new_page()
+    try:
+        open_desk(page, live_server, stems[6])
+        assert page.evaluate("document.documentElement.dataset.theme") == theme
+        field(page, "room").locator("select").select_option("__custom")
+        page.locator("#view-settings [data-part='batch'] summary").click()
+        assert low_contrast(page) == []
+        assert page.evaluate(SHOWN_HIDDEN_JS) == []
+        page.screenshot(path=str(artefacts / f"desk-settings-room-{theme}.png"))
+        view = editor(page)
+        view.locator("[data-part='start']").select_option("b:7.1.4")
+        view.locator("[data-action='start']").click()
+        assert low_contrast(page) == []
+        assert page.evaluate(SHOWN_HIDDEN_JS) == []
+        page.screenshot(path=str(artefacts / f"desk-speakers-{theme}.png"))
+    finally:
+        context.close()
