@@ -328,6 +328,12 @@ function position() {
 
 function pick(index) {
   if (index < 0 || index >= ab.sources.length) return;
+  if (mode === "stream") {
+    // Back from the row player to the switcher.
+    stopStream();
+    mode = "ab";
+    drawState();
+  }
   ab.active = index;
   if (ab.ctx) {
     const t = ab.ctx.currentTime;
@@ -579,6 +585,7 @@ export async function mountListen(root) {
   drawState();
   ui.audio.addEventListener("play", () => { tick(); drawState(); });
   ui.audio.addEventListener("pause", drawState);
+  ui.audio.addEventListener("ended", drawState);
   ui.audio.addEventListener("loadedmetadata", drawState);
   document.addEventListener("keydown", onKey);
   document.addEventListener("keyup", onKeyUp, true);
