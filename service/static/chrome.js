@@ -111,16 +111,18 @@ export function askToken(reason = "") {
       event.preventDefault();
       const value = input.value.trim();
       if (!value) return;
-      setToken(value);
+      // Tried on its own before it is kept, so other requests never carry a wrong token.
       try {
-        await api("/v1/renders?limit=1");
-      } catch (err) {
-        if (err.status === 401) {
-          setToken("");
+        const probe = await fetch("/v1/renders?limit=1", { headers: { Authorization: `Bearer ${value}` } });
+        if (probe.status === 401) {
           message.textContent = "The server did not accept this token.";
           return;
         }
+      } catch (err) {
+        message.textContent = `The server cannot be reached: ${err.message}`;
+        return;
       }
+      setToken(value);
       tokenDialog.close();
       window.dispatchEvent(new CustomEvent("earfold-token", { detail: {} }));
       const waiters = tokenWaiters;
@@ -129,8 +131,10 @@ export function askToken(reason = "") {
     });
     document.body.append(tokenDialog);
   }
-  tokenDialog.querySelector("#token-message").textContent = reason || "";
-  if (!tokenDialog.open) tokenDialog.showModal();
+  if (!tokenDialog.open) {
+    tokenDialog.querySelector("#token-message").textContent = reason || "";
+    tokenDialog.showModal();
+  }
   return new Promise((resolve) => tokenWaiters.push(resolve));
 }
 
