@@ -271,12 +271,17 @@ def test_cancel_and_delete_a_queued_render(page, stems):
         first = row(page, ids[0])
         assert first.get_attribute("data-state") == "queued"
         assert first.locator(".render-queue").is_visible()
+        # Queue positions from the render view: 1 = next to start, 2 = one job ahead.
+        assert first.locator(".render-queue").inner_text() == "queued: next to start"
+        assert row(page, ids[1]).locator(".render-queue").inner_text() == "queued: 1 ahead"
         assert first.locator(".render-progress").is_hidden()
         assert first.locator(".act-download").count() == 0
         first.locator(".act-cancel").click()
         page.wait_for_selector(f".render-row[data-render='{ids[0]}'][data-state=cancelled]")
         with client(server) as http:
             assert http.get(f"/v1/renders/{ids[0]}").json()["state"] == "cancelled"
+        # The other render moves up, told by the server's event stream.
+        row(page, ids[1]).locator(".render-queue", has_text="next to start").wait_for()
         row(page, ids[0]).locator(".act-delete").click()
         row(page, ids[0]).locator(".act-delete-yes").click()
         row(page, ids[0]).wait_for(state="detached")
