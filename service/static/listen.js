@@ -620,7 +620,7 @@ export async function mountListen(root) {
       return out;
     },
     sources: () => ab.sources.map((s) => ({ key: s.key, renderId: s.renderId, label: s.label, lufs: s.lufs, match: s.match,
-      startTime: s.startTime, startFrame: s.startFrame, looping: Boolean(s.looping), length: s.buffer.length,
+      gain: s.gainNode.gain.value, startTime: s.startTime, startFrame: s.startFrame, looping: Boolean(s.looping), length: s.buffer.length,
       loopStart: s.node ? s.node.loopStart : null, loopEnd: s.node ? s.node.loopEnd : null })),
     state: () => ({ mode, playing: mode === "stream" ? !ui.audio.paused : ab.playing, active: ab.active,
       masterDb, loop: { ...ab.loop }, windowStart: ab.windowStart, referenceId: ab.referenceId, position: position() }),

@@ -176,6 +176,8 @@ def test_ab_switch_keeps_the_sources_sample_aligned(page, live_server, two_rende
     assert page.locator(".player-caution").is_visible()
     page.keyboard.press("Space")
     page.wait_for_function("earfoldDesk.player.state().playing")
+    started = [s["startTime"] for s in page.evaluate("earfoldDesk.player.sources()")]
+    assert len(set(started)) == 1  # one AudioContext time for every source
     for key in ["2", "1", "s", "s", "2", "1", "s"]:
         page.keyboard.press(key)
         page.wait_for_timeout(120)
@@ -184,7 +186,13 @@ def test_ab_switch_keeps_the_sources_sample_aligned(page, live_server, two_rende
         values = list(positions.values())
         assert max(values) - min(values) <= RENDER_QUANTUM, positions
         assert max(values) > 0
+        # Only the picked source is heard (the 5 ms ramp is over after 120 ms).
+        state = page.evaluate("earfoldDesk.player.state()")
+        gains = [s["gain"] for s in page.evaluate("earfoldDesk.player.sources()")]
+        assert [g > 0 for g in gains] == [i == state["active"] for i in range(2)], gains
     assert page.evaluate("earfoldDesk.player.state().active") == 1  # 1 -> s = second source
+    # A switch moves gains only: no source was started again.
+    assert [s["startTime"] for s in page.evaluate("earfoldDesk.player.sources()")] == started
     assert windows, "the player fetched no window"
     pressed = page.locator("#ab-switcher .ab-source[aria-pressed=true]")
     assert pressed.count() == 1 and pressed.get_attribute("data-key") == b
