@@ -507,3 +507,26 @@ def test_the_switchers_renders_start_a_blind_test(page, live_server, two_renders
     page.wait_for_selector("#tab-blind[aria-selected=true]")
     assert page.locator("#view-blind").is_visible()
     assert "tab=blind" in page.evaluate("location.hash")
+
+
+def test_theme_follows_the_system_until_one_is_chosen(browser, live_server):
+    context = browser.new_context(viewport={"width": 1280, "height": 800}, color_scheme="dark")
+    page = context.new_page()
+    try:
+        open_desk(page, live_server)
+        assert page.evaluate("document.documentElement.dataset.theme") == "dim"
+        assert page.input_value("#theme-choice") == "system"
+        page.emulate_media(color_scheme="light")
+        page.wait_for_function("document.documentElement.dataset.theme === 'light'")
+        page.select_option("#theme-choice", "dim")
+        assert page.evaluate("document.documentElement.dataset.theme") == "dim"
+        page.emulate_media(color_scheme="light")
+        page.reload()
+        page.wait_for_selector("body[data-ready]")
+        assert page.evaluate("document.documentElement.dataset.theme") == "dim"
+        assert page.evaluate("localStorage.getItem('earfold.theme')") == "dim"
+        page.select_option("#theme-choice", "system")
+        assert page.evaluate("document.documentElement.dataset.theme") == "light"
+        assert page.evaluate("localStorage.getItem('earfold.theme')") is None
+    finally:
+        context.close()
