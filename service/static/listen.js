@@ -153,10 +153,12 @@ function toggleAb(renderId) {
   setAbIds([...ab.ids, renderId]);
 }
 
-function sourceList() {
+/** The switcher's sources; with `ready`, only those whose render is done (loadable). */
+function sourceList({ ready = false } = {}) {
   const list = ab.ids.map((id, i) => ({ key: id, renderId: id, label: LETTERS[i] || String(i + 1) }));
   if (ab.referenceId) list.push({ key: "reference", renderId: ab.referenceId, label: "reference" });
-  return list;
+  if (!ready) return list;
+  return list.filter((s) => { const r = renderById(s.renderId); return r && r.state === "done"; });
 }
 
 async function ensureContext(rate) {
@@ -194,7 +196,7 @@ async function fetchWindow(renderId, start, seconds) {
 }
 
 async function loadWindow(around) {
-  const list = sourceList();
+  const list = sourceList({ ready: true });
   if (!list.length) return;
   const token = ++ab.loadToken;
   const wasPlaying = ab.playing;
