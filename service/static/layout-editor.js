@@ -528,6 +528,8 @@ function say(text, kind) {
 async function save(asNew) {
   if (!checkAll()) { say("The layout is not saved: see the marked rows.", "error"); return; }
   const b = body();
+  const twin = presetsOf("layout").find((p) => p.name.toLowerCase() === b.name.toLowerCase() && (asNew || p.id !== E.presetId));
+  if (twin) { say(`A saved layout is called “${twin.name}” already: give this one another name${asNew ? "" : ", or start from that one to change it"}.`, "error"); return; }
   try {
     const made = asNew || !E.presetId
       ? await createPreset(b.name, "layout", b)

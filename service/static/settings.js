@@ -910,6 +910,8 @@ function buildPresetBar() {
   save.addEventListener("click", async () => {
     const n = name.value.trim();
     if (!n) { say("Give the settings a name first.", "error"); name.focus(); return; }
+    const twin = presetsOf("settings").find((p) => p.name.toLowerCase() === n.toLowerCase());
+    if (twin) { say(`“${twin.name}” exists already: choose it above and Update it, or give another name.`, "error"); return; }
     let body;
     try { body = collect(); } catch (err) { if (err instanceof FieldProblem) { say(err.message, "error"); return; } throw err; }
     try {
