@@ -11,7 +11,9 @@
 //   setTitle(text)                   changes the page title in the header and the tab.
 //   notify(message, kind)            a toast ("info" | "ok" | "warn" | "error"); errors
 //                                    stay until closed, others fade after 6 s.
-//   askToken(reason)                 opens the token prompt; resolves when a token is set.
+//   askToken(reason)                 opens the token prompt; resolves when a token is set
+//                                    (window then gets an "earfold-token" event, so pages
+//                                    can load again what the server refused before).
 //   applyTheme(choice)               "system" | "light" | "dim": stores it and sets
 //                                    <html data-theme>; themeChoice() reads the stored one.
 //   CAUTION_TEXT                     the hearing caution, for pages that repeat it beside
@@ -109,25 +111,30 @@ export function askToken(reason = "") {
       event.preventDefault();
       const value = input.value.trim();
       if (!value) return;
-      setToken(value);
+      // Tried on its own before it is kept, so other requests never carry a wrong token.
       try {
-        await api("/v1/renders?limit=1");
-      } catch (err) {
-        if (err.status === 401) {
-          setToken("");
+        const probe = await fetch("/v1/renders?limit=1", { headers: { Authorization: `Bearer ${value}` } });
+        if (probe.status === 401) {
           message.textContent = "The server did not accept this token.";
           return;
         }
+      } catch (err) {
+        message.textContent = `The server cannot be reached: ${err.message}`;
+        return;
       }
+      setToken(value);
       tokenDialog.close();
+      window.dispatchEvent(new CustomEvent("earfold-token", { detail: {} }));
       const waiters = tokenWaiters;
       tokenWaiters = [];
       waiters.forEach((fn) => fn(value));
     });
     document.body.append(tokenDialog);
   }
-  tokenDialog.querySelector("#token-message").textContent = reason || "";
-  if (!tokenDialog.open) tokenDialog.showModal();
+  if (!tokenDialog.open) {
+    tokenDialog.querySelector("#token-message").textContent = reason || "";
+    tokenDialog.showModal();
+  }
   return new Promise((resolve) => tokenWaiters.push(resolve));
 }
 

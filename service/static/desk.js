@@ -117,6 +117,11 @@ async function start() {
     chrome.setTitle(stem ? stemNameOf(stem) : "");
   });
   const catalog = loadCatalog();
+  window.addEventListener("earfold-token", () => {
+    loadCatalog();
+    bus.emit("stems-refresh", {});
+    bus.emit("renders-refresh", {});
+  });
   await Promise.all([
     mount("mount-stems", "./stems.js", "mountStems", "Stems"),
     mount("view-settings", "./settings.js", "mountSettings", TAB_NAMES.settings),

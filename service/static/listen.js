@@ -153,10 +153,12 @@ function toggleAb(renderId) {
   setAbIds([...ab.ids, renderId]);
 }
 
-function sourceList() {
+/** The switcher's sources; with `ready`, only those whose render is done (loadable). */
+function sourceList({ ready = false } = {}) {
   const list = ab.ids.map((id, i) => ({ key: id, renderId: id, label: LETTERS[i] || String(i + 1) }));
   if (ab.referenceId) list.push({ key: "reference", renderId: ab.referenceId, label: "reference" });
-  return list;
+  if (!ready) return list;
+  return list.filter((s) => { const r = renderById(s.renderId); return r && r.state === "done"; });
 }
 
 async function ensureContext(rate) {
@@ -194,7 +196,7 @@ async function fetchWindow(renderId, start, seconds) {
 }
 
 async function loadWindow(around) {
-  const list = sourceList();
+  const list = sourceList({ ready: true });
   if (!list.length) return;
   const token = ++ab.loadToken;
   const wasPlaying = ab.playing;
@@ -328,6 +330,12 @@ function position() {
 
 function pick(index) {
   if (index < 0 || index >= ab.sources.length) return;
+  if (mode === "stream") {
+    // Back from the row player to the switcher.
+    stopStream();
+    mode = "ab";
+    drawState();
+  }
   ab.active = index;
   if (ab.ctx) {
     const t = ab.ctx.currentTime;
@@ -579,6 +587,7 @@ export async function mountListen(root) {
   drawState();
   ui.audio.addEventListener("play", () => { tick(); drawState(); });
   ui.audio.addEventListener("pause", drawState);
+  ui.audio.addEventListener("ended", drawState);
   ui.audio.addEventListener("loadedmetadata", drawState);
   document.addEventListener("keydown", onKey);
   document.addEventListener("keyup", onKeyUp, true);
@@ -613,7 +622,7 @@ export async function mountListen(root) {
       return out;
     },
     sources: () => ab.sources.map((s) => ({ key: s.key, renderId: s.renderId, label: s.label, lufs: s.lufs, match: s.match,
-      startTime: s.startTime, startFrame: s.startFrame, looping: Boolean(s.looping), length: s.buffer.length,
+      gain: s.gainNode.gain.value, startTime: s.startTime, startFrame: s.startFrame, looping: Boolean(s.looping), length: s.buffer.length,
       loopStart: s.node ? s.node.loopStart : null, loopEnd: s.node ? s.node.loopEnd : null })),
     state: () => ({ mode, playing: mode === "stream" ? !ui.audio.paused : ab.playing, active: ab.active,
       masterDb, loop: { ...ab.loop }, windowStart: ab.windowStart, referenceId: ab.referenceId, position: position() }),

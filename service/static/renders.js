@@ -342,6 +342,7 @@ async function loadAll() {
 // ---- live progress: the event stream, polling when it fails ----
 
 async function stream() {
+  if (live.streamAbort) live.streamAbort.abort(); // one stream at a time
   const controller = new AbortController();
   live.streamAbort = controller;
   let response;
@@ -349,7 +350,7 @@ async function stream() {
     response = await fetch("/v1/renders/events", { headers: tokenHeaders({ Accept: "text/event-stream" }), signal: controller.signal });
     if (!response.ok || !response.body) throw new Error(`the event stream answered ${response.status}`);
   } catch (err) {
-    streamFailed(err);
+    if (!controller.signal.aborted) streamFailed(err);
     return;
   }
   live.source = "stream";
@@ -436,7 +437,10 @@ export async function mountRenders(root) {
       if (!renders.has(render.id)) update(render);
     } else loadAll();
   });
-  bus.on("renders-refresh", () => loadAll());
+  bus.on("renders-refresh", () => {
+    loadAll();
+    if (live.source !== "stream") stream();
+  });
   bus.on("ab-changed", ({ renderIds }) => {
     abSet = renderIds || [];
     for (const [id, row] of rows) {

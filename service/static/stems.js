@@ -288,7 +288,11 @@ export async function mountStems(root) {
   });
   onThemeChange(drawLevels);
   bus.on("catalog-changed", drawLevels);
-  bus.on("stems-refresh", () => refresh());
+  bus.on("stems-refresh", async () => {
+    await refresh();
+    const wanted = selectedId || readHash().stem || localStorage.getItem(LAST_KEY) || "";
+    if (wanted && stems.some((s) => s.id === wanted)) select(wanted);
+  });
 
   await refresh();
   const wanted = readHash().stem || localStorage.getItem(LAST_KEY) || "";

@@ -176,6 +176,8 @@ def test_ab_switch_keeps_the_sources_sample_aligned(page, live_server, two_rende
     assert page.locator(".player-caution").is_visible()
     page.keyboard.press("Space")
     page.wait_for_function("earfoldDesk.player.state().playing")
+    started = [s["startTime"] for s in page.evaluate("earfoldDesk.player.sources()")]
+    assert len(set(started)) == 1  # one AudioContext time for every source
     for key in ["2", "1", "s", "s", "2", "1", "s"]:
         page.keyboard.press(key)
         page.wait_for_timeout(120)
@@ -184,7 +186,13 @@ def test_ab_switch_keeps_the_sources_sample_aligned(page, live_server, two_rende
         values = list(positions.values())
         assert max(values) - min(values) <= RENDER_QUANTUM, positions
         assert max(values) > 0
+        # Only the picked source is heard (the 5 ms ramp is over after 120 ms).
+        state = page.evaluate("earfoldDesk.player.state()")
+        gains = [s["gain"] for s in page.evaluate("earfoldDesk.player.sources()")]
+        assert [g > 0 for g in gains] == [i == state["active"] for i in range(2)], gains
     assert page.evaluate("earfoldDesk.player.state().active") == 1  # 1 -> s = second source
+    # A switch moves gains only: no source was started again.
+    assert [s["startTime"] for s in page.evaluate("earfoldDesk.player.sources()")] == started
     assert windows, "the player fetched no window"
     pressed = page.locator("#ab-switcher .ab-source[aria-pressed=true]")
     assert pressed.count() == 1 and pressed.get_attribute("data-key") == b
@@ -271,12 +279,17 @@ def test_cancel_and_delete_a_queued_render(page, stems):
         first = row(page, ids[0])
         assert first.get_attribute("data-state") == "queued"
         assert first.locator(".render-queue").is_visible()
+        # Queue positions from the render view: 1 = next to start, 2 = one job ahead.
+        assert first.locator(".render-queue").inner_text() == "queued: next to start"
+        assert row(page, ids[1]).locator(".render-queue").inner_text() == "queued: 1 ahead"
         assert first.locator(".render-progress").is_hidden()
         assert first.locator(".act-download").count() == 0
         first.locator(".act-cancel").click()
         page.wait_for_selector(f".render-row[data-render='{ids[0]}'][data-state=cancelled]")
         with client(server) as http:
             assert http.get(f"/v1/renders/{ids[0]}").json()["state"] == "cancelled"
+        # The other render moves up, told by the server's event stream.
+        row(page, ids[1]).locator(".render-queue", has_text="next to start").wait_for()
         row(page, ids[0]).locator(".act-delete").click()
         row(page, ids[0]).locator(".act-delete-yes").click()
         row(page, ids[0]).wait_for(state="detached")
@@ -317,6 +330,11 @@ def test_token_prompt_keeps_the_token_in_the_tab(page, tmp_path, stems):
         page.keyboard.press("Enter")
         page.wait_for_selector("dialog.token-dialog", state="hidden")
         assert page.evaluate("sessionStorage.getItem('earfold.token')") == token
+        # The desk loads again what the server refused before the token: the stems list,
+        # the renders (live) and the catalogue.
+        page.wait_for_selector("#renders-live:has-text('live')")
+        page.wait_for_function("earfoldDesk.state.catalog.layouts !== null")
+        assert page.locator("#stems-empty").is_visible()
         page.reload()
         page.wait_for_selector("body[data-ready]")
         assert page.locator("dialog.token-dialog[open]").count() == 0
@@ -489,3 +507,26 @@ def test_the_switchers_renders_start_a_blind_test(page, live_server, two_renders
     page.wait_for_selector("#tab-blind[aria-selected=true]")
     assert page.locator("#view-blind").is_visible()
     assert "tab=blind" in page.evaluate("location.hash")
+
+
+def test_theme_follows_the_system_until_one_is_chosen(browser, live_server):
+    context = browser.new_context(viewport={"width": 1280, "height": 800}, color_scheme="dark")
+    page = context.new_page()
+    try:
+        open_desk(page, live_server)
+        assert page.evaluate("document.documentElement.dataset.theme") == "dim"
+        assert page.input_value("#theme-choice") == "system"
+        page.emulate_media(color_scheme="light")
+        page.wait_for_function("document.documentElement.dataset.theme === 'light'")
+        page.select_option("#theme-choice", "dim")
+        assert page.evaluate("document.documentElement.dataset.theme") == "dim"
+        page.emulate_media(color_scheme="light")
+        page.reload()
+        page.wait_for_selector("body[data-ready]")
+        assert page.evaluate("document.documentElement.dataset.theme") == "dim"
+        assert page.evaluate("localStorage.getItem('earfold.theme')") == "dim"
+        page.select_option("#theme-choice", "system")
+        assert page.evaluate("document.documentElement.dataset.theme") == "light"
+        assert page.evaluate("localStorage.getItem('earfold.theme')") is None
+    finally:
+        context.close()
