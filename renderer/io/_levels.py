@@ -14,7 +14,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import signal
 
 from ..errors import AudioError
 from ._probe import StemInfo
@@ -164,6 +163,8 @@ def measure_levels(
     win_peak = np.zeros((points, channels))
     win_energy = np.zeros((points, channels))
     low_energy = np.zeros(channels)
+    from scipy import signal  # here, not at the top: listings must not load scipy.signal
+
     if fs > 2 * LOW_SHARE_HZ:
         sos = signal.butter(_LOW_ORDER, LOW_SHARE_HZ, fs=fs, output="sos")
         state = np.zeros((sos.shape[0], 2, channels))

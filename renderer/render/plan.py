@@ -315,6 +315,7 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         room_filters = _room_filters(hset, layout, requested_room, stem.samplerate, settings.seed)
         room_report = {"synthetic": True, "mode": settings.room_mode, **room_filters.report}
         warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
+        notes.extend(f"room: {n}" for n in room_filters.report.get("notes", []))
     elif _is_measured_room(hset):
         room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
 

@@ -103,6 +103,13 @@ MAX_SAMPLERATE = 384000
 MAX_CROSSFADE_S = 0.1
 """Longest early-to-tail crossfade (s)."""
 
+UNCOVERED_NOTE_DEG = 50.0
+"""Early paths outside a set's grid whose nearest measured direction is at most this far
+(degrees) are reported as a note, farther as a warning. Our choice: the largest gap under
+a set measured all round down to -40 degrees of elevation, as the shipped KEMAR set (a
+path straight down is 50 degrees from the lowest ring), so every room on such a set gets
+a note, and a set measured on the horizontal plane only a warning."""
+
 
 @dataclass(frozen=True, eq=False)
 class RoomFilters:
@@ -264,8 +271,10 @@ def build_room_filters(
     reflected_energy = np.zeros(len(speakers))
     per_speaker: list[dict[str, Any]] = []
     warnings: list[str] = []
+    notes: list[str] = []
     max_path = (window_end + bulk) / fs * c
     uncovered_total = 0
+    uncovered_worst = 0.0
     for i in active:
         images = image_sources(
             room, positions[i], order=int(n_order), reference_distance=r_ref, max_distance=max_path
@@ -286,7 +295,9 @@ def build_room_filters(
             acc = np.zeros((2, freqs.size), dtype=complex)
             for k in members:
                 pair = hset.pair(images.directions[k])
-                uncovered += pair.method == "nearest"
+                if pair.method == "nearest":
+                    uncovered += 1
+                    uncovered_worst = max(uncovered_worst, pair.angular_error)
                 delay = images.delays[k] * fs - bulk
                 spec = np.fft.rfft(pair.ir, n=nfft, axis=-1)
                 acc += images.spreading[k] * spec * np.exp(-2j * np.pi * bins * delay / nfft)
@@ -316,11 +327,15 @@ def build_room_filters(
         )
 
     if uncovered_total:
-        warnings.append(
-            f"{uncovered_total} early path(s) arrive from directions HRIR set {hset.name!r} does "
-            "not cover (e.g. floor reflections below its lowest measurements); the nearest "
-            "measured directions were used for them"
+        # Below the lowest measured elevation of a set (floor reflections under KEMAR's
+        # -40 degrees) every room meets this: a property of the set, said as a note. Far
+        # from any measurement (a sparse or horizontal-only set) it is a real problem.
+        message = (
+            f"{uncovered_total} early path(s) arrive from directions HRIR set {hset.name!r} "
+            "does not cover (e.g. floor reflections below its lowest measurements); the "
+            f"nearest measured directions were used, at most {uncovered_worst:.0f} degrees away"
         )
+        (notes if uncovered_worst <= UNCOVERED_NOTE_DEG else warnings).append(message)
     seq = np.random.SeedSequence([int(seed), int(room.seed)])
     rng = np.random.Generator(np.random.PCG64(seq))
     diffuse = diffuse_field(hset, np.fft.rfftfreq(4096, 1.0 / fs))
@@ -380,6 +395,7 @@ def build_room_filters(
         "lfe": "rows left at zero, tail weight 0: the render adds its LFE path",
         "build_seconds": round(t_built - t_start, 3),
         "warnings": warnings,
+        "notes": notes,
     }
     return RoomFilters(
         early=early,

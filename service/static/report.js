@@ -122,8 +122,9 @@ function summarySection(report, view) {
       `${report.layout.source ? ` · ${report.layout.source}` : ""}` : null],
     ["channel order", report.channel_order ? `${report.channel_order.labels.join(" ")} (${report.channel_order.source})` : null],
   ];
-  if (report.fold) rows.push(["fold", `${report.fold.mode === "stereo" ? "stereo fold-down" : report.fold.mode}` +
+  if (report.fold && report.fold.mode === "stereo") rows.push(["fold", "stereo fold-down" +
     `${report.fold.source ? ` (${report.fold.source})` : ""}: no HRTF, no room`]);
+  else if (report.fold) rows.push(["fold", `${report.fold.mode}`]);
   else if (has(req.fold) && req.fold !== "binaural") rows.push(["fold", String(req.fold)]);
   if (report.solo) rows.push(["solo", `loudspeaker ${report.solo.label} alone (file channel ${report.solo.channel}), the others silent`]);
   else if (has(req.solo)) rows.push(["solo", `loudspeaker ${req.solo} alone`]);

@@ -217,14 +217,15 @@ def test_sets_holding_a_room_are_not_equalised_by_default():
     ir = rng.standard_normal((len(grid), 2, 512)) * np.exp(-np.arange(512) / 80)
     room = HrirSet("hall", 48000.0, ir, grid, room_type="reverberant")
     warnings: list[str] = []
-    hset, report = _equalise(room, None, warnings)
+    notes: list[str] = []
+    hset, report = _equalise(room, None, warnings, notes)
     assert hset is room and report["type"] == "none" and "room" in report["chosen"]
     assert not warnings
-    hset, report = _equalise(room, "diffuse-field", warnings)
+    hset, report = _equalise(room, "diffuse-field", warnings, notes)
     assert report["type"] == "diffuse-field" and report["chosen"] == "requested"
     assert any("include a room" in w for w in warnings)
     free = HrirSet("free", 48000.0, ir, grid)
-    _, report = _equalise(free, None, [])
+    _, report = _equalise(free, None, [], [])
     assert report["type"] == "diffuse-field" and report["chosen"] == "default for a free-field set"
 
 

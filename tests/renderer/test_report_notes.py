@@ -49,3 +49,13 @@ def test_the_command_line_prints_notes_without_the_warning_mark(tmp_path, capsys
     assert any(line.startswith("no layout was given: rendered as 5.1") for line in lines), err
     assert any("boost limit" in line and not line.startswith("warning:") for line in lines)
     assert not any(line.startswith("warning:") for line in lines), err
+
+
+def test_a_room_on_the_shipped_set_has_notes_and_no_warnings(tmp_path):
+    # Floor reflections arrive from under the KEMAR set's lowest ring (-40 degrees): every
+    # room on it meets that, so it is a note (with the largest gap), not an alarm.
+    report = render(
+        [_stem(tmp_path)], tmp_path / "o.wav", RenderSettings(layout="5.1", room="small")
+    )
+    assert report["warnings"] == []
+    assert any(n.startswith("room: ") and "degrees away" in n for n in report["notes"])

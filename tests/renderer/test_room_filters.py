@@ -265,3 +265,26 @@ def test_loudspeaker_outside_the_room_is_rejected():
         build_room_filters(_omni_set(), _one(9.0), ROOMS["small"], FS)
     with pytest.raises(RoomError, match=r"sampling rate 100 Hz is outside 8000\.\.384000 Hz"):
         build_room_filters(_omni_set(), _one(), ROOMS["small"], 100)
+
+
+def test_paths_outside_the_grid_are_a_note_near_it_and_a_warning_far_from_it():
+    # The same room, two sets: one measured down to -40 degrees of elevation (as the shipped
+    # KEMAR set), one on the horizontal plane only. Floor reflections fall under both
+    # grids; under the first they are a property of the set (a note, with the largest gap),
+    # under the second tens of degrees from any measurement (a warning).
+    def omni(elevations):
+        az, el = sphere_grid(30.0)
+        keep = np.isin(np.round(el), elevations)
+        ir = np.zeros((int(keep.sum()), 2, 8))
+        ir[:, :, 0] = 1.0
+        dirs = direction_to_vector(az[keep], el[keep])
+        return HrirSet(name="omni", samplerate=float(FS), ir=ir, directions=dirs)
+
+    room = _uniform_room(order=2)
+    az, el = sphere_grid(30.0)
+    down_to_40 = [e for e in np.unique(np.round(el)) if e >= -40]
+    near = build_room_filters(omni(down_to_40), _one(1.5), room, FS, max_tail_seconds=0.1)
+    assert near.report["warnings"] == []
+    assert any("early path(s) arrive from directions" in n for n in near.report["notes"])
+    flat = build_room_filters(omni([0.0]), _one(1.5), room, FS, max_tail_seconds=0.1)
+    assert any("early path(s) arrive from directions" in w for w in flat.report["warnings"])
