@@ -499,10 +499,10 @@ function hrtfControl(spec) {
       const made = await upload("/v1/hrtf-sets", form, (loaded, total) => {
         status.textContent = total ? `sending ${chosen.name}: ${Math.round((100 * loaded) / total)} %` : "sending…";
       });
-      status.textContent = `${chosen.name} added.`;
       bus.state.catalog.hrtfSets = await api("/v1/hrtf-sets");
       ctrl.refresh();
       select.value = made.id;
+      status.textContent = `${chosen.name} added.`; // only once it is listed and chosen
       bus.emit("catalog-changed", { catalog: bus.state.catalog, source: "hrtf" });
       bus.emit("notify", { message: `HRTF set ${chosen.name} added.`, kind: "ok" });
     } catch (err) {
