@@ -9,6 +9,7 @@
 // {renderIds} (preselects those renders and opens this tab).
 
 import { api } from "./api.js";
+import { el } from "./dom.js";
 import { bus } from "./bus.js";
 import { askToken } from "./chrome.js";
 
@@ -20,18 +21,6 @@ const DESIGN_HELP = {
 };
 const STATE_NAMES = { preparing: "preparing", ready: "ready to listen", finished: "finished", failed: "failed" };
 
-function el(tag, attrs = {}, ...children) {
-  const node = document.createElement(tag);
-  for (const [key, value] of Object.entries(attrs)) {
-    if (value === null || value === undefined || value === false) continue;
-    if (key === "class") node.className = value;
-    else if (key === "text") node.textContent = value;
-    else if (key.startsWith("on") && typeof value === "function") node.addEventListener(key.slice(2), value);
-    else node.setAttribute(key, value === true ? "" : value);
-  }
-  for (const child of children) if (child !== null && child !== undefined) node.append(child);
-  return node;
-}
 
 function when(iso) {
   if (!iso) return "";

@@ -23,6 +23,7 @@
 // early does not flash the wrong palette. A 401 from api.js opens the token prompt.
 
 import { api, hooks, getToken, setToken } from "./api.js";
+import { el } from "./dom.js";
 
 const THEME_KEY = "earfold.theme";
 export const CAUTION_TEXT =
@@ -53,17 +54,6 @@ if (media && media.addEventListener) {
   });
 }
 
-function el(tag, attrs = {}, ...children) {
-  const node = document.createElement(tag);
-  for (const [key, value] of Object.entries(attrs)) {
-    if (value === null || value === undefined || value === false) continue;
-    if (key === "class") node.className = value;
-    else if (key === "text") node.textContent = value;
-    else node.setAttribute(key, value === true ? "" : value);
-  }
-  for (const child of children) if (child !== null && child !== undefined) node.append(child);
-  return node;
-}
 
 let chrome = null;
 let toastBox = null;

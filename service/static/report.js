@@ -7,6 +7,7 @@
 // problem with this render) as warnings.
 
 import { api, download } from "./api.js";
+import { el } from "./dom.js";
 import { askToken, mountChrome, setTitle } from "./chrome.js";
 import { decayChart, fmtFreq, loudnessChart, spectraChart } from "./draw.js";
 
@@ -14,17 +15,6 @@ const POLL_MS = 1500;
 const $ = (id) => document.getElementById(id);
 const renderId = location.pathname.split("/").filter(Boolean).pop() || "";
 
-function el(tag, attrs = {}, ...children) {
-  const node = document.createElement(tag);
-  for (const [key, value] of Object.entries(attrs)) {
-    if (value === null || value === undefined || value === false) continue;
-    if (key === "class") node.className = value;
-    else if (key === "text") node.textContent = value;
-    else node.setAttribute(key, value === true ? "" : value);
-  }
-  for (const child of children) if (child !== null && child !== undefined) node.append(child);
-  return node;
-}
 
 const has = (v) => v !== null && v !== undefined;
 
