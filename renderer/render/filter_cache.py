@@ -295,8 +295,7 @@ class FilterCache:
 
     def _load(self, path: Path, key: str, check: Check) -> tuple[Arrays, dict[str, Any]] | None:
         try:
-            with np.load(path, allow_pickle=False) as data:
-                members = {name: data[name] for name in data.files}
+            members = _read_members(path, self.limit_bytes)
         except FileNotFoundError:
             return None
         except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile, RuntimeError):
@@ -397,6 +396,44 @@ class FilterCache:
         for path in self._temporaries(older_than=_STALE_TEMP_S):
             with contextlib.suppress(OSError):
                 path.unlink()
+
+
+def _read_members(path: Path, limit: int) -> Arrays:
+    """The arrays of an ``.npz`` file, each checked before it is read.
+
+    Every member's header is read first and its data size compared with the size the zip
+    directory gives it, so a damaged or hostile header cannot make the reader allocate
+    more than the file holds; object arrays (which need pickle) are refused.
+
+    Raises
+    ------
+    OSError, ValueError, EOFError, zipfile.BadZipFile
+        If the file is no such archive.
+    """
+    members: Arrays = {}
+    with open(path, "rb") as fh:
+        if os.fstat(fh.fileno()).st_size > max(limit, 1):
+            raise ValueError("larger than the cache's bound")
+        with zipfile.ZipFile(fh) as archive:
+            for info in archive.infolist():
+                if not info.filename.endswith(".npy"):
+                    raise ValueError(f"unexpected member {info.filename!r}")
+                with archive.open(info) as member:
+                    version = np.lib.format.read_magic(member)
+                    if version == (1, 0):
+                        shape, _, dtype = np.lib.format.read_array_header_1_0(member)
+                    elif version == (2, 0):
+                        shape, _, dtype = np.lib.format.read_array_header_2_0(member)
+                    else:
+                        raise ValueError(f"npy format version {version}")
+                if dtype.hasobject:
+                    raise ValueError("object array")
+                if int(np.prod(shape, dtype=np.int64)) * dtype.itemsize > info.file_size:
+                    raise ValueError("header larger than its data")
+                with archive.open(info) as member:
+                    array = np.lib.format.read_array(member, allow_pickle=False)
+                members[info.filename[: -len(".npy")]] = array
+    return members
 
 
 def default_filter_cache() -> FilterCache | None:
