@@ -11,6 +11,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import os
+import stat
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -470,13 +471,24 @@ def _hash_of(path: str, mtime_ns: int, size: int) -> str:
     return file_sha256(path)
 
 
+#: Files larger than this are not hashed for the cache (the SOFA reader refuses them).
+_MAX_HASHED_BYTES = 1 << 30
+
+
 def _content_hash(path: str) -> str | None:
-    """SHA-256 of a file, remembered per (path, modification time, size); None if unreadable."""
+    """SHA-256 of a file, remembered per (path, modification time, size).
+
+    None, and no cache, for anything but a regular file of 1 byte to 1 GiB (a device such
+    as /dev/zero, a pipe, a folder, a missing file): the loader gives the error the user
+    reads, and hashing such a thing could read forever.
+    """
     try:
         st = os.stat(path)
+        if not stat.S_ISREG(st.st_mode) or not 0 < st.st_size <= _MAX_HASHED_BYTES:
+            return None
         return _hash_of(path, st.st_mtime_ns, st.st_size)
     except OSError:
-        return None  # the loader gives the error the user reads
+        return None
 
 
 def _prepared_set(

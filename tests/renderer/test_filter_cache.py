@@ -398,3 +398,15 @@ def test_a_header_claiming_more_than_the_file_holds_is_refused_unread(tmp_path):
         archive.writestr("a.npy", buf.getvalue())
     assert cache.get("test", key, lambda arrays, meta: True) is None
     assert cache.stats.rejected == 1
+
+
+def test_only_regular_files_are_hashed(tmp_path):
+    assert plan_module._content_hash(os.devnull) is None
+    assert plan_module._content_hash(str(tmp_path)) is None
+    assert plan_module._content_hash(str(tmp_path / "missing.sofa")) is None
+    (tmp_path / "empty.sofa").write_bytes(b"")
+    assert plan_module._content_hash(str(tmp_path / "empty.sofa")) is None
+    (tmp_path / "x.sofa").write_bytes(b"abc")
+    assert plan_module._content_hash(str(tmp_path / "x.sofa")) == (
+        "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+    )
