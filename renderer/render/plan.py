@@ -358,6 +358,7 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         ),
         warnings=warnings,
     )
+    _keep_lookups(hset, set_key, cache)
     shared = room_filters is not None and not exact
     return plan_from_feeds(
         stem,
@@ -520,7 +521,11 @@ def _prepared_set(
             notes.extend(meta["notes"])
             report: dict[str, Any] = meta["eq_report"]
             report["cache"] = REUSED
-            return _restored_set(arrays, meta, path), report, key
+            restored = _restored_set(arrays, meta, path)
+            prepared = cache.get("lookup", key, _lookups_entry_ok)
+            if prepared is not None:
+                _lookup_set(restored).with_lookup_state(prepared[0])
+            return restored, report, key
     added: list[str] = []
     added_notes: list[str] = []
     hset = load_hrir_set(path, samplerate, name=name)
@@ -604,6 +609,36 @@ def _restored_set(arrays: dict[str, NDArray[Any]], meta: dict[str, Any], path: s
     raw = _exact(HrirSet(**values, ir=raw_ir, directions=raw_dirs), raw_ir, raw_dirs)
     eq_set = EqualisedHrirSet(raw=raw, fir=arrays["fir"], **values, ir=ir, directions=dirs)
     return _exact(eq_set, ir, dirs)
+
+
+def _lookup_set(hset: HrirSet) -> HrirSet:
+    """The set whose lookups a render runs (an equalised set looks up its original)."""
+    if isinstance(hset, EqualisedHrirSet) and hset.raw is not None:
+        return hset.raw
+    return hset
+
+
+def _lookups_entry_ok(arrays: Any, meta: Any) -> bool:
+    names = set(arrays)
+    return names in ({"onsets"}, {"onsets", "aligned", "aligned_ref"}) and meta == {}
+
+
+def _keep_lookups(hset: HrirSet, key: dict[str, Any] | None, cache: FilterCache | None) -> None:
+    """Store what the set's direction lookups prepared (onsets, aligned responses), once.
+
+    A separate entry from the set's: it is known only after the feeds were built.
+    The shapes are checked against the set when taken back
+    (:meth:`~earfold.renderer.hrtf.HrirSet.with_lookup_state`).
+    """
+    if cache is None or key is None:
+        return
+    state = _lookup_set(hset).lookup_state()
+    if not state:
+        return
+    held = cache.get("lookup", key, _lookups_entry_ok)
+    if held is not None and len(held[0]) >= len(state):
+        return
+    cache.put("lookup", key, state, {})
 
 
 def _prepared_room(

@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
+import earfold.renderer.hrtf.hrir as hrir
 import earfold.renderer.render.plan as plan_module
 from earfold.renderer.errors import RendererError
 from earfold.renderer.layouts import Layout, get_layout
@@ -28,6 +29,7 @@ def cache_dir(tmp_path, monkeypatch):
     monkeypatch.setenv(fc.ENV_DIR, str(folder))
     monkeypatch.delenv(fc.ENV_OFF, raising=False)
     fc._PROCESS_MEMORY.clear()
+    hrir._load_cached.cache_clear()  # sets loaded earlier hold their lookups already
     yield folder
     fc._PROCESS_MEMORY.clear()
 
@@ -369,10 +371,11 @@ def test_cache_info_clear_and_render_no_cache(tmp_path, cache_dir, capsys):
     capsys.readouterr()
     assert main(["cache", "info", "--json"]) == 0
     info = json.loads(capsys.readouterr().out)
-    assert info["directory"] == str(cache_dir) and info["entries"] == 2 and info["bytes"] > 0
+    # the set, the room, and the set's prepared lookups
+    assert info["directory"] == str(cache_dir) and info["entries"] == 3 and info["bytes"] > 0
     (cache_dir / "someone-elses.txt").write_text("kept")
     assert main(["cache", "clear"]) == 0
-    assert "removed 2 entries" in capsys.readouterr().out
+    assert "removed 3 entries" in capsys.readouterr().out
     assert [p.name for p in cache_dir.iterdir()] == ["someone-elses.txt"]
     assert main(["cache", "info"]) == 0
     assert "entries  0" in capsys.readouterr().out
@@ -410,3 +413,37 @@ def test_only_regular_files_are_hashed(tmp_path):
     assert plan_module._content_hash(str(tmp_path / "x.sofa")) == (
         "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
     )
+
+
+def test_the_lookups_prepared_for_interpolation_are_reused_exactly(
+    tmp_path, cache_dir, builds, monkeypatch
+):
+    searches = []
+    real = hrir.onset_times
+    monkeypatch.setattr(hrir, "onset_times", lambda *a, **k: searches.append(1) or real(*a, **k))
+    stem = _stem(tmp_path / "mix714.wav", channels=12)
+    settings = RenderSettings(layout="7.1.4")  # heights at 45 degrees: interpolated
+    first = plan_render([stem], settings)
+    assert len(searches) == 1 and len(_files(cache_dir, "lookup")) == 1
+    fc._PROCESS_MEMORY.clear()
+    second = plan_render([stem], settings)
+    assert len(searches) == 1 and builds["load"] == 1
+    monkeypatch.setenv(fc.ENV_OFF, "1")
+    fresh = plan_render([stem], settings)
+    np.testing.assert_array_equal(first.filters, fresh.filters)
+    np.testing.assert_array_equal(second.filters, fresh.filters)
+
+
+def test_lookups_that_do_not_fit_the_set_are_not_taken(tmp_path, cache_dir):
+    stem = _stem(tmp_path / "mix714.wav", channels=12)
+    plan = plan_render([stem], RenderSettings(layout="7.1.4", eq="none"))
+    assert plan.hrir_set is not None
+    state = plan.hrir_set.lookup_state()
+    assert set(state) == {"onsets", "aligned", "aligned_ref"}
+    fresh = plan.hrir_set.derived()
+    assert not fresh.with_lookup_state({**state, "onsets": state["onsets"][:-1]})
+    assert not fresh.with_lookup_state({**state, "aligned": state["aligned"][..., :10]})
+    assert not fresh.with_lookup_state({"onsets": state["onsets"], "aligned": state["aligned"]})
+    assert fresh.lookup_state() == {}
+    assert fresh.with_lookup_state(state)
+    assert fresh.lookup_state().keys() == state.keys()
