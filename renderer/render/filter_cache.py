@@ -64,8 +64,9 @@ entries computed by older code are never used."""
 DEFAULT_LIMIT_BYTES = 1 << 30
 """Default bound of the disk cache: 1 GiB (``$EARFOLD_CACHE_LIMIT_MB`` overrides it)."""
 
-DEFAULT_MEMORY_BYTES = 512 << 20
-"""Bound of the in-memory layer of one process: 512 MiB."""
+DEFAULT_MEMORY_BYTES = 256 << 20
+"""Bound of the in-memory layer of one process: 256 MiB (a set at 48 kHz with its lookups
+is about 45 MB, a large room about 3 MB)."""
 
 ENV_DIR = "EARFOLD_CACHE_DIR"
 ENV_LIMIT_MB = "EARFOLD_CACHE_LIMIT_MB"
@@ -440,4 +441,8 @@ def default_filter_cache() -> FilterCache | None:
     """The cache a render uses: memory plus :func:`cache_directory`; None when turned off."""
     if cache_disabled():
         return None
-    return FilterCache(cache_directory(), limit_bytes=cache_limit_bytes())
+    try:
+        directory: Path | None = cache_directory()
+    except (RuntimeError, KeyError):  # no home folder to be found: memory only
+        directory = None
+    return FilterCache(directory, limit_bytes=cache_limit_bytes())
