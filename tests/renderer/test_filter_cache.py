@@ -379,6 +379,7 @@ def test_cache_info_clear_and_render_no_cache(tmp_path, cache_dir, capsys):
     assert [p.name for p in cache_dir.iterdir()] == ["someone-elses.txt"]
     assert main(["cache", "info"]) == 0
     assert "entries  0" in capsys.readouterr().out
+    assert main(["cache"]) != 0  # no action: the command's help
 
 
 def test_a_header_claiming_more_than_the_file_holds_is_refused_unread(tmp_path):
@@ -447,3 +448,17 @@ def test_lookups_that_do_not_fit_the_set_are_not_taken(tmp_path, cache_dir):
     assert fresh.lookup_state() == {}
     assert fresh.with_lookup_state(state)
     assert fresh.lookup_state().keys() == state.keys()
+
+
+def test_partial_files_left_by_a_dead_writer_are_removed_later(tmp_path):
+    stale, recent = tmp_path / ".partial-dead.npz", tmp_path / ".partial-busy.npz"
+    for path in (stale, recent):
+        path.write_bytes(b"half an entry")
+    hour_ago = time.time() - 2 * 3600
+    os.utime(stale, (hour_ago, hour_ago))
+    cache = FilterCache(tmp_path, memory=False)
+    assert cache.info()["entries"] == 0  # partial files are no entries
+    cache.put("e", {"n": 1}, {"a": np.zeros(3)}, {})
+    assert not stale.exists() and recent.exists()  # another writer may still be busy
+    cache.clear()
+    assert list(tmp_path.iterdir()) == []
