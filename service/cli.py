@@ -8,17 +8,19 @@ progress goes to stderr only when it is a terminal.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
 import signal
 import sys
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
 import earfold.renderer
 from earfold.renderer import RenderCancelled, RendererError
 
+from .cli_cache import add_cache_parser
 from .cli_commands import add_demo_parser, add_listing_parsers
 from .cli_output import EXIT_BAD_INPUT, EXIT_INTERRUPTED
 from .cli_output import Progress as _Progress
@@ -150,6 +152,24 @@ def render_settings_from_args(args: argparse.Namespace) -> Any:
     return settings_from_options({s.name: getattr(args, s.name) for s in RENDER_OPTIONS if s.cli})
 
 
+@contextlib.contextmanager
+def _cache_off(off: bool) -> Iterator[None]:
+    """``render --no-cache``: the cache's switch (``$EARFOLD_NO_CACHE``) set for the render."""
+    if not off:
+        yield
+        return
+    name = "EARFOLD_NO_CACHE"
+    before = os.environ.get(name)
+    os.environ[name] = "1"
+    try:
+        yield
+    finally:
+        if before is None:
+            os.environ.pop(name, None)
+        else:
+            os.environ[name] = before
+
+
 def cmd_render(args: argparse.Namespace) -> int:
     from earfold.renderer.render import render
 
@@ -158,7 +178,7 @@ def cmd_render(args: argparse.Namespace) -> int:
     report_path = (
         None if args.report == "none" else (args.report or _default_report_path(args.output))
     )
-    with _StopOnSignal() as stop:
+    with _StopOnSignal() as stop, _cache_off(args.no_cache):
         try:
             report = render(args.inputs, args.output, settings, progress=progress, cancelled=stop)
         except RenderCancelled:
@@ -242,6 +262,12 @@ def build_parser() -> argparse.ArgumentParser:
         "'none' to skip)",
     )
     p.add_argument("-q", "--quiet", action="store_true", help="no progress or summary")
+    p.add_argument(
+        "--no-cache",
+        action="store_true",
+        help="prepare the HRTF set and room afresh, neither reading nor writing the cache of "
+        "prepared filters ('earfold cache')",
+    )
     p.set_defaults(func=cmd_render)
 
     p = sub.add_parser(
@@ -258,6 +284,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_loudness)
 
     add_listing_parsers(sub)
+    add_cache_parser(sub)
 
     # serve and worker import the web and queue stack only when they run
     from .serve_cli import add_serve_parser

@@ -20,6 +20,19 @@ def _require_shared() -> Path:
     pytest.skip(reason)
 
 
+@pytest.fixture(scope="session", autouse=True)
+def _filter_cache_dir(tmp_path_factory):
+    """Renders under test keep prepared filters in the session's own folder, not the user's."""
+    folder = tmp_path_factory.mktemp("filter-cache")
+    before = os.environ.get("EARFOLD_CACHE_DIR")
+    os.environ["EARFOLD_CACHE_DIR"] = str(folder)
+    yield folder
+    if before is None:
+        os.environ.pop("EARFOLD_CACHE_DIR", None)
+    else:
+        os.environ["EARFOLD_CACHE_DIR"] = before
+
+
 @pytest.fixture(scope="session")
 def shared_sofa_dir() -> Path:
     """The SOFA corpus in ../shared/sofa: skipped where absent, required when CI=true."""

@@ -76,7 +76,7 @@ def test_the_cli_parser_agrees_with_the_declaration():
         else:
             assert action.metavar == spec.metavar
     # Nothing render-shaped on the command line that the declaration does not have.
-    own = {"help", "inputs", "output", "report", "quiet"}
+    own = {"help", "inputs", "output", "report", "quiet", "no_cache"}
     assert set(actions) - own == {s.name for s in RENDER_OPTIONS if s.cli}
 
 

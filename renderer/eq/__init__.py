@@ -6,6 +6,7 @@ from .calibration import REFERENCE, calibration_gain, pink_band
 from .diffuse_field import (
     MAX_BOOST_DB,
     MAX_CELL_FACTOR,
+    EqualisedHrirSet,
     check_eq,
     describe,
     diffuse_field,
@@ -28,6 +29,7 @@ from .headphone import (
 )
 
 __all__ = [
+    "EqualisedHrirSet",
     "BAND_TYPES",
     "DEFAULT_Q",
     "MAX_GAIN_DB",

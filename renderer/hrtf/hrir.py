@@ -291,6 +291,44 @@ class HrirSet:
         ]
         return float(min(itds)), float(max(itds))
 
+    # -- prepared lookups, for a cache ---------------------------------------------------
+
+    def lookup_state(self) -> dict[str, np.ndarray]:
+        """What the direction lookups have prepared so far, as plain arrays.
+
+        ``onsets`` (M, 2) and, once an interpolation has run, ``aligned`` (M, 2, L) and
+        ``aligned_ref`` (a 0-d array): what :meth:`with_lookup_state` takes back, so that
+        a cache can spare another process the onset search and alignment.
+        """
+        state: dict[str, np.ndarray] = {}
+        if "onsets" in self._cache:
+            state["onsets"] = self._cache["onsets"]
+        if "aligned" in self._cache:
+            aligned, ref = self._cache["aligned"]
+            state["aligned"] = aligned
+            state["aligned_ref"] = np.asarray(ref, dtype=np.float64)
+        return state
+
+    def with_lookup_state(self, state: dict[str, np.ndarray]) -> bool:
+        """Take prepared lookups from :meth:`lookup_state`; False (nothing taken) if their
+        shapes or types do not fit this set."""
+        onsets, aligned, ref = state.get("onsets"), state.get("aligned"), state.get("aligned_ref")
+        m = self.measurements
+        if onsets is None or onsets.dtype != np.float64 or onsets.shape != (m, 2):
+            return False
+        if (aligned is None) != (ref is None):
+            return False
+        if aligned is not None and ref is not None:
+            if aligned.dtype != np.float64 or aligned.ndim != 3:
+                return False
+            if aligned.shape[:2] != (m, 2) or aligned.shape[2] < self.taps:
+                return False
+            if ref.shape != () or not np.isfinite(ref):
+                return False
+            self._cache["aligned"] = (aligned, float(ref))
+        self._cache["onsets"] = onsets
+        return True
+
     # -- internals ----------------------------------------------------------------------
 
     def _onsets(self) -> np.ndarray:

@@ -10,6 +10,14 @@ report) and :mod:`.plot_data` (its plots); :func:`render` runs them in turn.
 from __future__ import annotations
 
 from .feeds import ChannelFeed, speaker_feeds
+from .filter_cache import (
+    PREPARATION_VERSION,
+    FilterCache,
+    cache_directory,
+    cache_disabled,
+    cache_limit_bytes,
+    default_filter_cache,
+)
 from .fold import BS775_DOWNMIX, FOLD_CHOICES, fold_coefficients, fold_feeds
 from .options import (
     DELIVERY_OPTIONS,
@@ -34,6 +42,12 @@ from .runner import render
 from .stream import engine_for
 
 __all__ = [
+    "PREPARATION_VERSION",
+    "FilterCache",
+    "cache_directory",
+    "cache_disabled",
+    "cache_limit_bytes",
+    "default_filter_cache",
     "BS775_DOWNMIX",
     "FOLD_CHOICES",
     "DELIVERY_OPTIONS",

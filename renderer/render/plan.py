@@ -9,7 +9,9 @@ equalises the HRTF set, builds the room, turns every input channel into a
 from __future__ import annotations
 
 import dataclasses
+import functools
 import os
+import stat
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -19,9 +21,16 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..eq import REFERENCE as CALIBRATION_REFERENCE
-from ..eq import HeadphoneEq, calibration_gain, check_eq, equalised, load_headphone_eq
+from ..eq import (
+    EqualisedHrirSet,
+    HeadphoneEq,
+    calibration_gain,
+    check_eq,
+    equalised,
+    load_headphone_eq,
+)
 from ..errors import LayoutError, RendererError
-from ..hrtf import HrirSet, load_hrir_set
+from ..hrtf import HrirSet, file_sha256, load_hrir_set
 from ..io import StemInfo, probe_stem
 from ..layouts import (
     Layout,
@@ -36,6 +45,7 @@ from ..layouts import (
 )
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
 from .feeds import ChannelFeed, speaker_feeds
+from .filter_cache import FilterCache, default_filter_cache
 from .fold import FOLD_CHOICES, fold_feeds, fold_section
 from .options import ROOM_MODES, RenderSettings
 
@@ -284,10 +294,10 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         )
     if settings.fold == "stereo":
         return _plan_fold(stem, layout, order, order_source, warnings, notes, settings, solo)
-    path, name = resolve_hrtf(settings.hrtf)
-    hset = load_hrir_set(path, stem.samplerate, name=name)
-    warnings.extend(hset.warnings)  # what the SOFA reader changed or found odd
-    hset, eq_report = _equalise(hset, settings.eq, warnings, notes)
+    cache = default_filter_cache()
+    hset, eq_report, set_key = _prepared_set(
+        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
+    )
     headphone = None
     if settings.headphone_eq is not None:
         headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
@@ -312,8 +322,15 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
             "requested": requested_room.name,
         }
     elif requested_room is not None:
-        room_filters = _room_filters(hset, layout, requested_room, stem.samplerate, settings.seed)
-        room_report = {"synthetic": True, "mode": settings.room_mode, **room_filters.report}
+        room_filters, prepared = _prepared_room(
+            hset, layout, requested_room, stem.samplerate, settings.seed, set_key, cache
+        )
+        room_report = {
+            "synthetic": True,
+            "mode": settings.room_mode,
+            **room_filters.report,
+            "cache": prepared,
+        }
         warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
         notes.extend(f"room: {n}" for n in room_filters.report.get("notes", []))
     elif _is_measured_room(hset):
@@ -341,6 +358,7 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         ),
         warnings=warnings,
     )
+    _keep_lookups(hset, set_key, cache)
     shared = room_filters is not None and not exact
     return plan_from_feeds(
         stem,
@@ -442,6 +460,263 @@ def _plan_fold(
         solo=solo,
         calibrate=False,
     )
+
+
+#: Where prepared filters came from, as the report says: taken from the cache, computed
+#: and stored in it, or computed with the cache turned off.
+REUSED, STORED, UNCACHED = "reused", "stored", "off"
+
+
+@functools.lru_cache(maxsize=64)
+def _hash_of(path: str, mtime_ns: int, size: int) -> str:
+    return file_sha256(path)
+
+
+#: Files larger than this are not hashed for the cache (the SOFA reader refuses them).
+_MAX_HASHED_BYTES = 1 << 30
+
+
+def _content_hash(path: str) -> str | None:
+    """SHA-256 of a file, remembered per (path, modification time, size).
+
+    None, and no cache, for anything but a regular file of 1 byte to 1 GiB (a device such
+    as /dev/zero, a pipe, a folder, a missing file): the loader gives the error the user
+    reads, and hashing such a thing could read forever.
+    """
+    try:
+        st = os.stat(path)
+        if not stat.S_ISREG(st.st_mode) or not 0 < st.st_size <= _MAX_HASHED_BYTES:
+            return None
+        return _hash_of(path, st.st_mtime_ns, st.st_size)
+    except OSError:
+        return None
+
+
+def _prepared_set(
+    hrtf: str | os.PathLike[str] | None,
+    eq: str | None,
+    samplerate: float,
+    warnings: list[str],
+    notes: list[str],
+    cache: FilterCache | None,
+) -> tuple[HrirSet, dict[str, Any], dict[str, Any] | None]:
+    """The HRTF set at ``samplerate``, equalised as asked; its EQ report and cache key.
+
+    Keyed by the file's content (SHA-256), the rate, the EQ choice and the display name
+    (which the warnings and notes quote). The key is None when the cache is off.
+    """
+    path, name = resolve_hrtf(hrtf)
+    choice = check_eq(eq)
+    digest = None if cache is None else _content_hash(path)
+    key = (
+        None
+        if digest is None
+        else {"sha256": digest, "samplerate": float(samplerate), "eq": choice, "name": name}
+    )
+    if cache is not None and key is not None:
+        found = cache.get("hrtf", key, _set_entry_ok)
+        if found is not None:
+            arrays, meta = found
+            warnings.extend(meta["warnings"])
+            notes.extend(meta["notes"])
+            report: dict[str, Any] = meta["eq_report"]
+            report["cache"] = REUSED
+            restored = _restored_set(arrays, meta, path)
+            prepared = cache.get("lookup", key, _lookups_entry_ok)
+            if prepared is not None:
+                _lookup_set(restored).with_lookup_state(prepared[0])
+            return restored, report, key
+    added: list[str] = []
+    added_notes: list[str] = []
+    hset = load_hrir_set(path, samplerate, name=name)
+    added.extend(hset.warnings)  # what the SOFA reader changed or found odd
+    hset, report = _equalise(hset, choice, added, added_notes)
+    warnings.extend(added)
+    notes.extend(added_notes)
+    if cache is not None and key is not None:
+        cache.put("hrtf", key, *_set_entry(hset, report, added, added_notes))
+        report["cache"] = STORED
+    else:
+        report["cache"] = UNCACHED
+    return hset, report, key
+
+
+_SET_FIELDS = ("name", "samplerate", "sha256", "convention", "room_type", "dropped", "warnings")
+
+
+def _set_entry(
+    hset: HrirSet, report: dict[str, Any], warnings: list[str], notes: list[str]
+) -> tuple[dict[str, NDArray[Any]], dict[str, Any]]:
+    arrays: dict[str, NDArray[Any]] = {"ir": hset.ir, "directions": hset.directions}
+    if isinstance(hset, EqualisedHrirSet):
+        if hset.raw is None or hset.fir is None:
+            raise RendererError(f"equalised set {hset.name!r} has no original set")
+        arrays.update(raw_ir=hset.raw.ir, raw_directions=hset.raw.directions, fir=hset.fir)
+    meta = {
+        "fields": {f: getattr(hset, f) for f in _SET_FIELDS},
+        "equalised": isinstance(hset, EqualisedHrirSet),
+        "eq_report": report,
+        "warnings": warnings,
+        "notes": notes,
+    }
+    return arrays, meta
+
+
+def _set_entry_ok(arrays: Any, meta: Any) -> bool:
+    """Is a stored set whole: fields present, arrays of consistent shapes, float64?"""
+    fields = meta.get("fields")
+    if not isinstance(fields, dict) or set(fields) != set(_SET_FIELDS):
+        return False
+    if not all(isinstance(meta.get(k), list) for k in ("warnings", "notes")):
+        return False
+    if not isinstance(meta.get("eq_report"), dict):
+        return False
+    names = {"ir", "directions"}
+    if meta.get("equalised") is True:
+        names |= {"raw_ir", "raw_directions", "fir"}
+    elif meta.get("equalised") is not False:
+        return False
+    if set(arrays) != names or any(arrays[n].dtype != np.float64 for n in names):
+        return False
+    ir, dirs = arrays["ir"], arrays["directions"]
+    m = ir.shape[0] if ir.ndim == 3 else -1
+    ok = ir.ndim == 3 and ir.shape[1] == 2 and m > 0 and ir.shape[2] > 0
+    ok = ok and dirs.shape == (m, 3)
+    if "fir" in names:
+        raw, fir = arrays["raw_ir"], arrays["fir"]
+        ok = ok and fir.ndim == 1 and fir.shape[0] > 0
+        ok = ok and raw.ndim == 3 and raw.shape[:2] == (m, 2)
+        ok = ok and raw.shape[2] + fir.shape[0] - 1 == ir.shape[2]
+        ok = ok and arrays["raw_directions"].shape == (m, 3)
+    return bool(ok)
+
+
+def _exact(hset: HrirSet, ir: NDArray[Any], directions: NDArray[Any]) -> HrirSet:
+    """``hset`` holding exactly the stored arrays (its constructor re-normalises the
+    directions, which could move their last bits: the cached plan must equal the fresh one)."""
+    object.__setattr__(hset, "ir", ir)
+    object.__setattr__(hset, "directions", directions)
+    return hset
+
+
+def _restored_set(arrays: dict[str, NDArray[Any]], meta: dict[str, Any], path: str) -> HrirSet:
+    """The prepared set from a cache entry (checked by :func:`_set_entry_ok`)."""
+    values = {**meta["fields"], "source": path, "warnings": tuple(meta["fields"]["warnings"])}
+    ir, dirs = arrays["ir"], arrays["directions"]
+    if not meta["equalised"]:
+        return _exact(HrirSet(**values, ir=ir, directions=dirs), ir, dirs)
+    raw_ir, raw_dirs = arrays["raw_ir"], arrays["raw_directions"]
+    raw = _exact(HrirSet(**values, ir=raw_ir, directions=raw_dirs), raw_ir, raw_dirs)
+    eq_set = EqualisedHrirSet(raw=raw, fir=arrays["fir"], **values, ir=ir, directions=dirs)
+    return _exact(eq_set, ir, dirs)
+
+
+def _lookup_set(hset: HrirSet) -> HrirSet:
+    """The set whose lookups a render runs (an equalised set looks up its original)."""
+    if isinstance(hset, EqualisedHrirSet) and hset.raw is not None:
+        return hset.raw
+    return hset
+
+
+def _lookups_entry_ok(arrays: Any, meta: Any) -> bool:
+    names = set(arrays)
+    return names in ({"onsets"}, {"onsets", "aligned", "aligned_ref"}) and meta == {}
+
+
+def _keep_lookups(hset: HrirSet, key: dict[str, Any] | None, cache: FilterCache | None) -> None:
+    """Store what the set's direction lookups prepared (onsets, aligned responses), once.
+
+    A separate entry from the set's: it is known only after the feeds were built.
+    The shapes are checked against the set when taken back
+    (:meth:`~earfold.renderer.hrtf.HrirSet.with_lookup_state`).
+    """
+    if cache is None or key is None:
+        return
+    state = _lookup_set(hset).lookup_state()
+    if not state:
+        return
+    held = cache.get("lookup", key, _lookups_entry_ok)
+    if held is not None and len(held[0]) >= len(state):
+        return
+    cache.put("lookup", key, state, {})
+
+
+def _prepared_room(
+    hset: HrirSet,
+    layout: Layout,
+    room: Room,
+    samplerate: float,
+    seed: int,
+    set_key: dict[str, Any] | None,
+    cache: FilterCache | None,
+) -> tuple[RoomFilters, str]:
+    """The room's filters (:func:`_room_filters`), from the cache when it holds them.
+
+    Keyed by the prepared set's key, the layout's loudspeakers, every parameter of the
+    room, the seed and the rate.
+    """
+    if cache is None or set_key is None:
+        return _room_filters(hset, layout, room, samplerate, seed), UNCACHED
+    key = {
+        "set": set_key,
+        "layout": {
+            "name": layout.name,
+            "speakers": [
+                [s.label, s.azimuth, s.elevation, s.distance, s.lfe, s.spread]
+                for s in layout.speakers
+            ],
+        },
+        "room": dataclasses.asdict(room),
+        "seed": int(seed),
+        "samplerate": float(samplerate),
+    }
+    channels = layout.channels
+
+    def whole(arrays: Any, meta: Any) -> bool:
+        if set(arrays) != {"early", "tail", "tail_weights"}:
+            return False
+        if any(a.dtype != np.float64 for a in arrays.values()):
+            return False
+        early, tail, weights = arrays["early"], arrays["tail"], arrays["tail_weights"]
+        offset, report = meta.get("tail_offset"), meta.get("report")
+        return bool(
+            early.ndim == 3
+            and early.shape[:2] == (channels, 2)
+            and early.shape[2] > 0
+            and tail.ndim == 2
+            and tail.shape[0] == 2
+            and weights.shape == (channels,)
+            and isinstance(offset, int)
+            and offset >= 0
+            and meta.get("samplerate") == float(samplerate)
+            and isinstance(report, dict)
+            and isinstance(report.get("reference_arrival_samples"), (int, float))
+        )
+
+    found = cache.get("room", key, whole)
+    if found is not None:
+        arrays, meta = found
+        filters = RoomFilters(
+            early=arrays["early"],
+            tail=arrays["tail"],
+            tail_offset=meta["tail_offset"],
+            tail_weights=arrays["tail_weights"],
+            report=meta["report"],
+            samplerate=meta["samplerate"],
+        )
+        return filters, REUSED
+    filters = _room_filters(hset, layout, room, samplerate, seed)
+    cache.put(
+        "room",
+        key,
+        {"early": filters.early, "tail": filters.tail, "tail_weights": filters.tail_weights},
+        {
+            "tail_offset": int(filters.tail_offset),
+            "report": filters.report,
+            "samplerate": float(filters.samplerate),
+        },
+    )
+    return filters, STORED
 
 
 def _room_filters(
