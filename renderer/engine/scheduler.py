@@ -33,6 +33,45 @@ TAIL_BLOCK_FRAMES = 32768
 _Audio = NDArray[np.float32]
 
 
+class _WholeHops:
+    """Feeds a convolver whole hops only, so that every transform is its fast path.
+
+    The convolver's hop (chosen by its cost model) need not match the caller's blocks;
+    frames wait here until a hop is complete, at most one hop per channel.
+    :meth:`finish` hands over the last, part-filled hop (the convolver's exact slow path,
+    once per stream).
+    """
+
+    def __init__(self, convolver: BinauralConvolver) -> None:
+        self.convolver = convolver
+        self._waiting: list[RealArray] = []
+        self._frames = 0
+
+    def push(self, block: RealArray) -> FloatArray:
+        """Output for the whole hops now complete (possibly none)."""
+        hop = self.convolver.hop
+        if not self._waiting and len(block) % hop == 0:
+            return self.convolver.process(block)
+        self._waiting.append(block)
+        self._frames += len(block)
+        if self._frames < hop:
+            return np.zeros((0, 2), dtype=self.convolver.dtype)
+        joined = np.concatenate(self._waiting) if len(self._waiting) > 1 else self._waiting[0]
+        whole = self._frames - self._frames % hop
+        self._waiting = [joined[whole:]] if whole < self._frames else []
+        self._frames -= whole
+        return self.convolver.process(joined[:whole])
+
+    def finish(self) -> FloatArray:
+        """Output for the frames still waiting."""
+        if not self._waiting:
+            return np.zeros((0, 2), dtype=self.convolver.dtype)
+        joined = np.concatenate(self._waiting) if len(self._waiting) > 1 else self._waiting[0]
+        self._waiting = []
+        self._frames = 0
+        return self.convolver.process(joined)
+
+
 class FoldEngine:
     """The per-channel convolution plus, optionally, a shared tail path and headphone EQ.
 
@@ -72,6 +111,7 @@ class FoldEngine:
         headphone: RealArray | None = None,
     ) -> None:
         self.direct = BinauralConvolver(filters, block_size=block_size)
+        self._direct_hops = _WholeHops(self.direct)
         self.block_size = self.direct.block_size
         self.channels: int = filters.shape[0]
         self.tail: BinauralConvolver | None = None
@@ -79,12 +119,14 @@ class FoldEngine:
         self.headphone = (
             None if headphone is None else BinauralConvolver(headphone, block_size=block_size)
         )
+        self._headphone_hops = None if self.headphone is None else _WholeHops(self.headphone)
         self.fifo: _Audio = np.zeros(0, dtype=np.float32)
         if tail is not None:
             if tail_weights is None:
                 raise ValueError("a shared tail needs its tail_weights")
             # A power of two (the convolver's rule) and so a whole number of engine blocks.
             chunk = max(self.block_size, 1 << max(0, int(TAIL_BLOCK_FRAMES) - 1).bit_length())
+            # The tail's chunks are its convolver's hops (its fast path).
             self.tail = BinauralConvolver(tail[None], block_size=chunk)
             self.weights: _Audio = np.asarray(tail_weights, dtype=np.float32)
             self.fifo = np.zeros(tail_offset, dtype=np.float32)
@@ -99,21 +141,21 @@ class FoldEngine:
     def process(self, block: RealArray) -> FloatArray:
         """The output frames that are complete after ``block`` (``(n, 2)``, possibly fewer)."""
         out = self._binaural(block)
-        return out if self.headphone is None else self.headphone.process(out)
+        return out if self._headphone_hops is None else self._headphone_hops.push(out)
 
     def _binaural(self, block: RealArray) -> FloatArray:
         if self.tail is None:
-            return self.direct.process(block)
+            return self._direct_hops.push(block)
         n = len(block)
         mono = np.concatenate([self.fifo, block @ self.weights])
         self.fifo = mono[n:]
         self._mix.append(mono[:n])
         self._mix_frames += n
-        if self._mix_frames >= self.tail.block_size:
+        if self._mix_frames >= self.tail.hop:
             self._submit_tail()
         # The direct part runs here while the thread convolves the last full tail chunk:
         # both are FFTs and array arithmetic that release the GIL.
-        out = self.direct.process(block)
+        out = self._direct_hops.push(block)
         self._direct.append(out)
         self._direct_frames += len(out)
         return self._take(min(self._direct_frames, len(self._tail_ready)))
@@ -122,7 +164,7 @@ class FoldEngine:
         """Hand the next tail chunk (zero-padded at the end of the stream) to the thread."""
         assert self.tail is not None
         mix = np.concatenate(self._mix)
-        size = self.tail.block_size
+        size = self.tail.hop
         chunk = mix[:size]
         if len(chunk) < size:
             chunk = np.concatenate([chunk, np.zeros(size - len(chunk), dtype=np.float32)])
@@ -162,19 +204,29 @@ class FoldEngine:
             if len(out):
                 yield out
             pushed -= n
+        last = self._direct_hops.finish()
         if self.tail is None:
+            out = self._headphone(last)
+            if len(out):
+                yield out
             return
+        self._direct.append(last)
+        self._direct_frames += len(last)
         # What is still waiting: the last tail chunks. Past the whole convolution's
         # length the tail is zero, so a padded last chunk is cut to the direct output.
         while len(self._tail_ready) < self._direct_frames:
             if self._pending is None:
                 self._submit_tail()
             self._collect_tail()
-        out = self._take(self._direct_frames)
-        if self.headphone is not None:
-            out = self.headphone.process(out)
+        out = self._headphone(self._take(self._direct_frames))
         if len(out):
             yield out
+
+    def _headphone(self, last: FloatArray) -> FloatArray:
+        """The headphone EQ's output for the stream's ``last`` frames and all it holds."""
+        if self._headphone_hops is None:
+            return last
+        return np.concatenate([self._headphone_hops.push(last), self._headphone_hops.finish()])
 
     def describe(self) -> dict[str, Any]:
         """The report's ``engine`` section: block size, partitions, filter lengths."""
@@ -182,17 +234,22 @@ class FoldEngine:
             "block_size": self.block_size,
             "partitions": self.direct.partitions,
             "filter_length": self.direct.filter_length,
+            "transform_size": self.direct.transform_size,
+            "hop": self.direct.hop,
         }
         if self.headphone is not None:
             info["headphone_eq"] = {
                 "length": self.headphone.filter_length,
                 "partitions": self.headphone.partitions,
+                "transform_size": self.headphone.transform_size,
             }
         if self.tail is not None:
             info["shared_tail"] = {
                 "length": self.tail.filter_length,
                 "block_size": self.tail.block_size,
                 "partitions": self.tail.partitions,
+                "transform_size": self.tail.transform_size,
+                "hop": self.tail.hop,
                 "offset": len(self.fifo),
             }
         return info
