@@ -370,14 +370,7 @@ class BinauralConvolver:
         numpy.ndarray
             Output of shape ``(n, 2)``, aligned with the input frames, in the engine's dtype.
         """
-        x = np.asarray(block)
-        if x.dtype.kind not in "fiu":
-            raise AudioError(f"audio blocks must be real numbers, got dtype {x.dtype.name!r}")
-        if x.ndim != 2 or x.shape[1] != self.channels:
-            raise AudioError(
-                f"expected a block of shape (frames, {self.channels}) for {self.channels} "
-                f"channels, got shape {x.shape!r}"
-            )
+        x = self._checked(block)
         n = x.shape[0]
         out = np.empty((n, 2), dtype=self.dtype)
         b = self.hop
@@ -397,6 +390,48 @@ class BinauralConvolver:
                 self._advance()
         return out
 
+    def push(self, block: RealArray) -> FloatArray:
+        """Take the next frames; return the output of the hops they complete, if any.
+
+        The fast path only, whatever the caller's block size: frames wait in the
+        engine's window until their hop is whole, and the output of a hop (``hop``
+        frames) is returned by the call that completes it, so a call returns a multiple
+        of :attr:`hop` frames, possibly none. :meth:`drain` returns the frames still
+        waiting. Output is the same as :meth:`process` gives for the same frames.
+        """
+        x = self._checked(block)
+        b = self.hop
+        history = self.transform_size - b
+        n = x.shape[0]
+        whole = (self._fill + n) // b
+        out = np.empty((whole * b, 2), dtype=self.dtype)
+        done = 0
+        pos = 0
+        while pos < n:
+            take = min(b - self._fill, n - pos)
+            start = history + self._fill
+            self._window[:, start : start + take] = x[pos : pos + take].T
+            self._fill += take
+            pos += take
+            if self._fill == b:
+                self._transform_window()
+                out[done : done + b] = self._accumulate(0, self.partitions).T
+                done += b
+                self._advance()
+        return out
+
+    def drain(self) -> FloatArray:
+        """The output of the frames :meth:`push` holds (fewer than :attr:`hop`).
+
+        Afterwards the engine is where :meth:`process` of the same frames leaves it.
+        """
+        fill = self._fill
+        if fill == 0:
+            return np.empty((0, 2), dtype=self.dtype)
+        self._earlier_valid = False
+        out: FloatArray = np.ascontiguousarray(self._part_block()[:, :fill].T)
+        return out
+
     def flush(self) -> Iterator[FloatArray]:
         """Yield the tail after the last input: ``L - 1`` frames in blocks of ``<= B``.
 
@@ -411,6 +446,17 @@ class BinauralConvolver:
         self.reset()
 
     # -- internals -------------------------------------------------------------------
+
+    def _checked(self, block: RealArray) -> RealArray:
+        x = np.asarray(block)
+        if x.dtype.kind not in "fiu":
+            raise AudioError(f"audio blocks must be real numbers, got dtype {x.dtype.name!r}")
+        if x.ndim != 2 or x.shape[1] != self.channels:
+            raise AudioError(
+                f"expected a block of shape (frames, {self.channels}) for {self.channels} "
+                f"channels, got shape {x.shape!r}"
+            )
+        return x
 
     def _transform_window(self) -> None:
         """Spectrum of the current N-sample window into FDL slots w and w + P."""

@@ -33,45 +33,6 @@ TAIL_BLOCK_FRAMES = 32768
 _Audio = NDArray[np.float32]
 
 
-class _WholeHops:
-    """Feeds a convolver whole hops only, so that every transform is its fast path.
-
-    The convolver's hop (chosen by its cost model) need not match the caller's blocks;
-    frames wait here until a hop is complete, at most one hop per channel.
-    :meth:`finish` hands over the last, part-filled hop (the convolver's exact slow path,
-    once per stream).
-    """
-
-    def __init__(self, convolver: BinauralConvolver) -> None:
-        self.convolver = convolver
-        self._waiting: list[RealArray] = []
-        self._frames = 0
-
-    def push(self, block: RealArray) -> FloatArray:
-        """Output for the whole hops now complete (possibly none)."""
-        hop = self.convolver.hop
-        if not self._waiting and len(block) % hop == 0:
-            return self.convolver.process(block)
-        self._waiting.append(block)
-        self._frames += len(block)
-        if self._frames < hop:
-            return np.zeros((0, 2), dtype=self.convolver.dtype)
-        joined = np.concatenate(self._waiting) if len(self._waiting) > 1 else self._waiting[0]
-        whole = self._frames - self._frames % hop
-        self._waiting = [joined[whole:]] if whole < self._frames else []
-        self._frames -= whole
-        return self.convolver.process(joined[:whole])
-
-    def finish(self) -> FloatArray:
-        """Output for the frames still waiting."""
-        if not self._waiting:
-            return np.zeros((0, 2), dtype=self.convolver.dtype)
-        joined = np.concatenate(self._waiting) if len(self._waiting) > 1 else self._waiting[0]
-        self._waiting = []
-        self._frames = 0
-        return self.convolver.process(joined)
-
-
 class FoldEngine:
     """The per-channel convolution plus, optionally, a shared tail path and headphone EQ.
 
@@ -88,7 +49,12 @@ class FoldEngine:
     filters : numpy.ndarray, shape (C, 2, L)
         Each input channel's two-ear filter pair.
     block_size : int
-        Frames per engine block (a power of two, :class:`BinauralConvolver`'s rule).
+        Frames per block of the stream (a power of two, :class:`BinauralConvolver`'s
+        rule). Each convolver's transforms come from its cost model
+        (:func:`~earfold.renderer.engine.convolution.choose_transform`); frames wait in a
+        convolver until its hop is whole (:meth:`BinauralConvolver.push`), so
+        :meth:`process` returns whole hops of output, possibly none, and
+        :meth:`tail_blocks` the rest.
     tail : numpy.ndarray, shape (2, Lt), optional
         The two-ear room tail shared by all channels.
     tail_weights : numpy.ndarray, shape (C,), optional
@@ -111,7 +77,6 @@ class FoldEngine:
         headphone: RealArray | None = None,
     ) -> None:
         self.direct = BinauralConvolver(filters, block_size=block_size)
-        self._direct_hops = _WholeHops(self.direct)
         self.block_size = self.direct.block_size
         self.channels: int = filters.shape[0]
         self.tail: BinauralConvolver | None = None
@@ -119,7 +84,7 @@ class FoldEngine:
         self.headphone = (
             None if headphone is None else BinauralConvolver(headphone, block_size=block_size)
         )
-        self._headphone_hops = None if self.headphone is None else _WholeHops(self.headphone)
+
         self.fifo: _Audio = np.zeros(0, dtype=np.float32)
         if tail is not None:
             if tail_weights is None:
@@ -141,11 +106,11 @@ class FoldEngine:
     def process(self, block: RealArray) -> FloatArray:
         """The output frames that are complete after ``block`` (``(n, 2)``, possibly fewer)."""
         out = self._binaural(block)
-        return out if self._headphone_hops is None else self._headphone_hops.push(out)
+        return out if self.headphone is None else self.headphone.push(out)
 
     def _binaural(self, block: RealArray) -> FloatArray:
         if self.tail is None:
-            return self._direct_hops.push(block)
+            return self.direct.push(block)
         n = len(block)
         mono = np.concatenate([self.fifo, block @ self.weights])
         self.fifo = mono[n:]
@@ -155,7 +120,7 @@ class FoldEngine:
             self._submit_tail()
         # The direct part runs here while the thread convolves the last full tail chunk:
         # both are FFTs and array arithmetic that release the GIL.
-        out = self._direct_hops.push(block)
+        out = self.direct.push(block)
         self._direct.append(out)
         self._direct_frames += len(out)
         return self._take(min(self._direct_frames, len(self._tail_ready)))
@@ -204,7 +169,7 @@ class FoldEngine:
             if len(out):
                 yield out
             pushed -= n
-        last = self._direct_hops.finish()
+        last = self.direct.drain()
         if self.tail is None:
             out = self._headphone(last)
             if len(out):
@@ -224,9 +189,9 @@ class FoldEngine:
 
     def _headphone(self, last: FloatArray) -> FloatArray:
         """The headphone EQ's output for the stream's ``last`` frames and all it holds."""
-        if self._headphone_hops is None:
+        if self.headphone is None:
             return last
-        return np.concatenate([self._headphone_hops.push(last), self._headphone_hops.finish()])
+        return np.concatenate([self.headphone.push(last), self.headphone.drain()])
 
     def describe(self) -> dict[str, Any]:
         """The report's ``engine`` section: block size, partitions, filter lengths."""

@@ -385,3 +385,32 @@ def test_errors_are_renderer_errors_and_value_errors():
         BinauralConvolver(np.zeros((1, 2, 4)), 100)
     with pytest.raises(ValueError, match="non-finite"):
         BinauralConvolver(np.full((1, 2, 4), np.nan))
+
+
+@pytest.mark.parametrize("plan", PLANS.values(), ids=PLANS.keys())
+@pytest.mark.parametrize("chunking", CHUNKINGS.values(), ids=CHUNKINGS.keys())
+def test_push_and_drain_give_what_process_gives(plan, chunking):
+    rng = np.random.default_rng([len(chunking), sum(chunking), 3])
+    signal, filters = random_case(rng, 5, 1900, 4 * BLOCK + 19)
+    engine = BinauralConvolver(filters, BLOCK, plan=plan)
+    pieces, pos, i = [], 0, 0
+    while pos < len(signal):
+        n = chunking[i % len(chunking)]
+        out = engine.push(signal[pos : pos + n])
+        assert len(out) % engine.hop == 0  # whole hops only
+        pieces.append(out)
+        pos, i = pos + n, i + 1
+    pieces.append(engine.drain())
+    assert sum(len(p) for p in pieces) == len(signal)
+    pieces.extend(engine.flush())
+    out = np.concatenate(pieces)
+    assert_close_to_full_scale(out, direct_binaural(signal, filters))
+    # The same frames through process(): the same output, to the float32 rounding.
+    again = BinauralConvolver(filters, BLOCK, plan=plan)
+    assert_close_to_full_scale(stream(again, signal, chunking), out)
+
+
+def test_drain_with_nothing_waiting_is_empty():
+    engine = BinauralConvolver(np.ones((2, 2, 10)), BLOCK)
+    assert engine.drain().shape == (0, 2)
+    assert engine.push(np.zeros((0, 2))).shape == (0, 2)
