@@ -51,10 +51,14 @@ __all__ = [
     "convolve_reference",
 ]
 
-#: Default number of frames per engine block.
+#: Default number of frames per block of the stream (reads, writes, the tail's blocks).
 #:
-#: Chosen by measurement: 12 channels, 48 kHz, 60 s of noise, engine alone (no file I/O),
-#: 2 shared cores, milliseconds of compute per second of audio, two runs (best of two each):
+#: The engine's own transforms no longer follow it: :func:`choose_transform` picks them
+#: (for the HRIR filters, one partition and transforms of about 17,000 points keeping
+#: 12,000-16,700 frames each, where the table below had transforms of 2B keeping B).
+#: The block was chosen when it was also the transform's unit, by measurement: 12
+#: channels, 48 kHz, 60 s of noise, engine alone (no file I/O), 2 shared cores,
+#: milliseconds of compute per second of audio, two runs (best of two each):
 #:
 #: ========  ==========  ==========  ===========  ==========  ==========
 #: L         B = 1024    2048        4096         8192        16384
