@@ -359,6 +359,7 @@ class BinauralConvolver:
         self._window[...] = 0
         self._slot = 0  # w: the FDL window is [w, w + P)
         self._fill = 0  # frames of the current block received so far
+        self._held = 0  # of those, frames taken by push() whose output is not given yet
         self._earlier_valid = False
 
     def process(self, block: RealArray) -> FloatArray:
@@ -375,6 +376,8 @@ class BinauralConvolver:
             Output of shape ``(n, 2)``, aligned with the input frames, in the engine's dtype.
         """
         x = self._checked(block)
+        if self._held and len(x):
+            raise AudioError("push() holds frames: call drain() before process()")
         n = x.shape[0]
         out = np.empty((n, 2), dtype=self.dtype)
         b = self.hop
@@ -407,6 +410,11 @@ class BinauralConvolver:
         b = self.hop
         history = self.transform_size - b
         n = x.shape[0]
+        if self._fill != self._held:
+            raise AudioError(
+                "process() left a hop part-filled: push() continues only from a hop boundary "
+                "or from its own frames"
+            )
         whole = (self._fill + n) // b
         out = np.empty((whole * b, 2), dtype=self.dtype)
         done = 0
@@ -416,12 +424,14 @@ class BinauralConvolver:
             start = history + self._fill
             self._window[:, start : start + take] = x[pos : pos + take].T
             self._fill += take
+            self._held += take
             pos += take
             if self._fill == b:
                 self._transform_window()
                 out[done : done + b] = self._accumulate(0, self.partitions).T
                 done += b
                 self._advance()
+                self._held = 0
         return out
 
     def drain(self) -> FloatArray:
@@ -429,19 +439,24 @@ class BinauralConvolver:
 
         Afterwards the engine is where :meth:`process` of the same frames leaves it.
         """
-        fill = self._fill
-        if fill == 0:
+        held = self._held
+        if held == 0:
             return np.empty((0, 2), dtype=self.dtype)
-        self._earlier_valid = False
-        out: FloatArray = np.ascontiguousarray(self._part_block()[:, :fill].T)
+        self._held = 0
+        fill = self._fill
+        out: FloatArray = np.ascontiguousarray(self._part_block()[:, fill - held : fill].T)
         return out
 
     def flush(self) -> Iterator[FloatArray]:
         """Yield the tail after the last input: ``L - 1`` frames in blocks of ``<= B``.
 
+        Frames :meth:`push` still holds come first (:meth:`drain`).
+
         A block is short where needed to end the current part-filled hop. When the
         generator is exhausted the engine is reset.
         """
+        if self._held:
+            yield self.drain()
         remaining = self.filter_length - 1
         while remaining > 0:
             take = min(remaining, self.block_size, self.hop - self._fill)

@@ -414,3 +414,24 @@ def test_drain_with_nothing_waiting_is_empty():
     engine = BinauralConvolver(np.ones((2, 2, 10)), BLOCK)
     assert engine.drain().shape == (0, 2)
     assert engine.push(np.zeros((0, 2))).shape == (0, 2)
+
+
+def test_flush_after_push_gives_the_held_frames_first():
+    rng = np.random.default_rng(21)
+    signal, filters = random_case(rng, 3, 300, 50)
+    engine = BinauralConvolver(filters, BLOCK)
+    assert engine.hop > 300  # everything is held
+    assert len(engine.push(signal)) == 0
+    out = np.concatenate(list(engine.flush()))
+    assert_close_to_full_scale(out, direct_binaural(signal, filters))
+
+
+def test_push_and_process_do_not_mix_mid_hop():
+    engine = BinauralConvolver(np.ones((1, 2, 10)), BLOCK)
+    engine.push(np.ones((5, 1)))
+    with pytest.raises(AudioError, match=r"call drain\(\) before process\(\)"):
+        engine.process(np.ones((5, 1)))
+    engine.drain()
+    engine.process(np.ones((5, 1)))  # after drain, process continues the hop
+    with pytest.raises(AudioError, match="push\\(\\) continues only from a hop boundary"):
+        engine.push(np.ones((5, 1)))
