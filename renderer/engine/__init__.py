@@ -7,6 +7,8 @@ from .convolution import (
     MAX_BLOCK_SIZE,
     MIN_BLOCK_SIZE,
     BinauralConvolver,
+    TransformPlan,
+    choose_transform,
     convolve_reference,
 )
 from .lfe import (
@@ -29,6 +31,8 @@ __all__ = [
     "FoldEngine",
     "LfeOptions",
     "TAIL_BLOCK_FRAMES",
+    "TransformPlan",
+    "choose_transform",
     "convolve_reference",
     "lfe_filter",
 ]

@@ -4,14 +4,20 @@
 (channel, ear) and sums the products into two ears, in bounded memory. It uses uniformly
 partitioned overlap-save convolution with a frequency-domain delay line (FDL):
 
-* the filters ``(C, 2, L)`` are cut into ``P = ceil(L / B)`` partitions of ``B`` samples,
-  each zero-padded to ``2B`` and transformed once, giving ``H`` of shape ``(P, C, 2, B + 1)``;
-* for each input block of ``B`` frames, the last ``2B`` input samples of every channel are
+* the filters ``(C, 2, L)`` are cut into ``P = ceil(L / K)`` partitions of ``K`` samples,
+  each zero-padded to ``N`` and transformed once, giving ``H`` of shape
+  ``(P, C, 2, N / 2 + 1)``;
+* for each hop of ``S`` new frames, the last ``N`` input samples of every channel are
   transformed once and the spectrum is pushed into the FDL, which holds the spectra of the
-  last ``P`` blocks;
+  last ``P`` hops;
 * each ear's spectrum is ``Y[e] = sum_p sum_c X[p, c] * H[p, c, e]``; two inverse transforms
-  give ``2B`` samples per ear, of which the last ``B`` are free of circular wrap-around and
-  are the output (overlap-save).
+  give ``N`` samples per ear, of which the last ``S`` are free of circular wrap-around and
+  are the output (overlap-save, ``S <= N - K + 1``).
+
+``K``, ``S`` and ``N`` come from a cost model (:func:`choose_transform`): a filter that
+fits one transform is one partition (``K = L``) and each transform keeps ``N - L + 1``
+frames, instead of half of a ``2B``-point transform; long filters are cut into uniform
+partitions with ``S = K`` and ``N = 2K``.
 
 References: A. V. Oppenheim and R. W. Schafer, *Discrete-Time Signal Processing*, overlap-save
 block convolution; F. Wefers, *Partitioned convolution algorithms for real-time auralization*
@@ -24,7 +30,9 @@ baseline.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterator
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -38,13 +46,19 @@ __all__ = [
     "MIN_BLOCK_SIZE",
     "MAX_BLOCK_SIZE",
     "BinauralConvolver",
+    "TransformPlan",
+    "choose_transform",
     "convolve_reference",
 ]
 
-#: Default number of frames per engine block.
+#: Default number of frames per block of the stream (reads, writes, the tail's blocks).
 #:
-#: Chosen by measurement: 12 channels, 48 kHz, 60 s of noise, engine alone (no file I/O),
-#: 2 shared cores, milliseconds of compute per second of audio, two runs (best of two each):
+#: The engine's own transforms no longer follow it: :func:`choose_transform` picks them
+#: (for the HRIR filters, one partition and transforms of about 17,000 points keeping
+#: 12,000-16,700 frames each, where the table below had transforms of 2B keeping B).
+#: The block was chosen when it was also the transform's unit, by measurement: 12
+#: channels, 48 kHz, 60 s of noise, engine alone (no file I/O), 2 shared cores,
+#: milliseconds of compute per second of audio, two runs (best of two each):
 #:
 #: ========  ==========  ==========  ===========  ==========  ==========
 #: L         B = 1024    2048        4096         8192        16384
@@ -80,6 +94,97 @@ _DTYPES: dict[np.dtype[Any], np.dtype[Any]] = {
 }
 
 
+@dataclass(frozen=True)
+class TransformPlan:
+    """How the engine cuts its filters and its input: ``hop`` new frames per transform of
+    ``size`` points, filters cut into partitions of ``partition`` taps.
+
+    Overlap-save keeps ``size - partition + 1`` outputs per transform, so ``hop`` is at
+    most that. With more than one partition the frequency-domain delay line delays
+    partition ``p`` by ``p`` hops, which must be its ``p * partition`` taps: then
+    ``hop == partition``.
+    """
+
+    hop: int
+    partition: int
+    size: int
+
+    @classmethod
+    def uniform(cls, block: int) -> TransformPlan:
+        """Partitions of ``block`` taps, a hop of ``block`` frames, transforms of ``2 * block``."""
+        return cls(hop=block, partition=block, size=2 * block)
+
+    def partitions(self, length: int) -> int:
+        """Partitions a filter of ``length`` taps needs."""
+        return -(-length // self.partition)
+
+    def cost(self, length: int, channels: int) -> float:
+        """Modelled seconds per output frame (see :func:`choose_transform`)."""
+        n = self.size
+        bins = n // 2 + 1
+        fft = _FFT_SECONDS * n * math.log2(n)
+        mac = _MAC_SECONDS * bins * 2 * channels * self.partitions(length)
+        # The spectra of one hop (C inputs, 2 ears, complex64) out of the cache: every
+        # pass over them costs more per point.
+        slow = _OUT_OF_CACHE if (channels + 2) * bins * 8 > _CACHE_BYTES else 1.0
+        return (slow * ((channels + 2) * fft + mac) + _HOP_SECONDS) / self.hop
+
+
+# The cost model's constants, measured with scipy.fft on float32 (2 shared cores, best of
+# five): a real transform of N points costs about 0.13 ns * N log2 N and a complex64
+# product with its share of the tree sum about 0.6 ns per bin, while one hop's spectra
+# stay in the cache (about 1 MB here); past that the whole engine, timed on 12 channels
+# and 30 s of noise, cost 1.3-1.6 times as much per frame (600 taps: 2.6 ms per second
+# of audio at N = 16384, 2.8 at 24576, 3.3 at 32768-65536, against 4.4 for the 2B =
+# 16384 transforms keeping B = 8192). Each hop costs about 40 us of Python calls.
+_FFT_SECONDS = 0.13e-9
+_MAC_SECONDS = 0.6e-9
+_CACHE_BYTES = 1 << 20
+_OUT_OF_CACHE = 1.6
+_HOP_SECONDS = 40e-6
+#: Largest transform the model considers (2**18 points: 1 MB per channel in float32).
+_MAX_TRANSFORM = 1 << 18
+
+
+def choose_transform(length: int, channels: int, block_size: int) -> TransformPlan:
+    """The transform plan with the least modelled cost per output frame.
+
+    Candidates, after Wefers (*Partitioned convolution algorithms for real-time
+    auralization*, 2015, ch. 5, the cost of uniformly partitioned overlap-save):
+
+    * one partition holding the whole filter, transforms of ``N`` points for ``N`` among
+      scipy's fast sizes (:func:`scipy.fft.next_fast_len`) of ``k * B / 4 + L - 1``,
+      keeping ``N - L + 1`` frames per transform (``k`` = 1 .. 64, ``N <= 2**18``);
+    * uniform partitions of ``K`` taps (a power of two from 64, at most
+      ``max(block_size, 2**16)``), transforms of ``2K`` points: the long filters' choice,
+      where one transform of the whole filter would be too large.
+
+    The cost per output frame is ``((C + 2) F(N) + 2 C P M(N) + O) / hop``: ``C`` forward
+    and two inverse real transforms, ``2 C P`` spectral products of ``N / 2 + 1`` bins and
+    a fixed cost per hop, with the measured constants above.
+
+    Examples
+    --------
+    >>> plan = choose_transform(4800, 12, 8192)
+    >>> plan.partitions(4800), plan.hop == plan.size - 4800 + 1, plan.hop > 8192
+    (1, True, True)
+    >>> choose_transform(1000, 12, 64).cost(1000, 12) < TransformPlan.uniform(64).cost(1000, 12)
+    True
+    """
+    candidates: list[TransformPlan] = []
+    step = max(block_size // 4, 1)
+    for k in range(1, 65):
+        n = int(scipy.fft.next_fast_len(k * step + length - 1, real=True))
+        if n > _MAX_TRANSFORM and candidates:
+            break
+        candidates.append(TransformPlan(hop=n - length + 1, partition=length, size=n))
+    part = MIN_BLOCK_SIZE
+    while part <= max(block_size, 1 << 16) and part < length:
+        candidates.append(TransformPlan.uniform(part))
+        part *= 2
+    return min(candidates, key=lambda plan: plan.cost(length, channels))
+
+
 def _check_filters(filters: RealArray) -> RealArray:
     arr = np.asarray(filters)
     if arr.dtype.kind not in "fiu":
@@ -110,19 +215,24 @@ class BinauralConvolver:
         Filters of shape ``(C, 2, L)``: ``filters[c, e]`` is the impulse response from
         input channel ``c`` to ear ``e`` (0 left, 1 right).
     block_size : int, optional
-        Partition and transform block ``B`` in frames: a power of two from
+        The block ``B`` of the stream in frames (the size of the tail's blocks from
+        :meth:`flush`, and the unit of the transform sizes tried): a power of two from
         :data:`MIN_BLOCK_SIZE` to :data:`MAX_BLOCK_SIZE`. See :data:`DEFAULT_BLOCK_SIZE`.
     dtype : numpy dtype, optional
         Working precision, ``float32`` (default; spectra in complex64) or ``float64``.
         Output blocks have this dtype.
+    plan : TransformPlan, optional
+        Hop, partition and transform size; by default the cheapest by the cost model of
+        :func:`choose_transform`. ``TransformPlan.uniform(B)`` gives the classic
+        ``2B``-point transforms keeping ``B`` frames each.
 
     Notes
     -----
     Frames out per call: :meth:`process` returns exactly as many frames as it was given,
     aligned with them (output frame ``t`` is ``sum_c sum_k x_c[t - k] h_c[k]`` and depends
     only on input frames ``<= t``); :attr:`latency` is 0. Calls may pass any number of frames;
-    the engine buffers them into blocks of ``B``. Whole blocks of ``B`` frames, starting on a
-    block boundary, take the fast path (one forward transform per channel, one
+    the engine buffers them into hops of :attr:`hop` frames. Whole hops, starting on a
+    hop boundary, take the fast path (one forward transform per channel, one
     multiply-accumulate over all partitions, two inverse transforms). A call that leaves a
     block part-filled is still exact: the missing future frames are taken as zeros, which
     do not affect the frames already present; the contribution of the earlier blocks is
@@ -131,6 +241,7 @@ class BinauralConvolver:
 
     After the last input, :meth:`flush` yields the remaining ``L - 1`` frames of the tail, so
     the whole output is ``input + L - 1`` frames long, and leaves the engine reset.
+    Callers that want only the fast path feed whole hops (:class:`FoldEngine` does).
 
     References
     ----------
@@ -160,6 +271,7 @@ class BinauralConvolver:
         block_size: int = DEFAULT_BLOCK_SIZE,
         *,
         dtype: np.dtype | type = np.float32,
+        plan: TransformPlan | None = None,
     ) -> None:
         arr = _check_filters(filters)
         if (
@@ -180,39 +292,55 @@ class BinauralConvolver:
             raise AudioError(f"dtype must be one of 'float32', 'float64', got {dtype!r}")
 
         channels, _, length = arr.shape
-        b = int(block_size)
-        parts = -(-length // b)
+        if plan is None:
+            plan = choose_transform(length, channels, int(block_size))
+        parts = plan.partitions(length)
+        if (
+            plan.hop < 1
+            or plan.size < plan.hop + plan.partition - 1
+            or (parts > 1 and plan.hop != plan.partition)
+        ):
+            raise AudioError(
+                f"transform plan {plan!r} does not fit filters of {length} taps: the size "
+                "must hold a hop and a partition, and several partitions need hop == partition"
+            )
+        b = plan.hop
+        n = plan.size
         self.channels: int = channels
-        self.block_size: int = b
+        self.block_size: int = int(block_size)
+        self.plan: TransformPlan = plan
+        self.hop: int = b
+        self.transform_size: int = n
         self.filter_length: int = length
         self.partitions: int = parts
         self.dtype: np.dtype[Any] = real
         cplx = _DTYPES[real]
-        bins = b + 1
+        bins = n // 2 + 1
+        k = plan.partition
 
         # Partition spectra, transformed once in float64 and then rounded, laid out
         # (ear, partition * channel, bin) so that each ear's multiply-accumulate is one
         # product over a contiguous (P * C, bins) block and one sum over its first axis.
-        padded = np.zeros((channels, 2, parts * b), dtype=np.float64)
+        padded = np.zeros((channels, 2, parts * k), dtype=np.float64)
         padded[:, :, :length] = arr
-        cut = padded.reshape(channels, 2, parts, b).transpose(1, 2, 0, 3)  # (2, P, C, B)
-        spectra = scipy.fft.rfft(cut, n=2 * b, axis=-1)
+        cut = padded.reshape(channels, 2, parts, k).transpose(1, 2, 0, 3)  # (2, P, C, K)
+        spectra = scipy.fft.rfft(cut, n=n, axis=-1)
         self._spectra = np.ascontiguousarray(spectra.reshape(2, parts * channels, bins), dtype=cplx)
 
         # The FDL holds each block's spectrum twice, at slots w and w + P, with w stepping
         # down by one per block: the P most recent spectra are then always the contiguous
         # window [w, w + P), newest first, matching partitions 0 .. P - 1 without a copy.
         self._fdl = np.zeros((2 * parts, channels, bins), dtype=cplx)
-        # Last 2B input samples per channel: the previous block, then the current one
+        # Last N input samples per channel: N - hop of history, then the current hop
         # (zeros where its frames have not arrived yet).
-        self._window = np.zeros((channels, 2 * b), dtype=real)
+        self._window = np.zeros((channels, n), dtype=real)
         # Scratch for the products and the two ear spectra, reused every block.
         self._products = np.empty((parts * channels, bins), dtype=cplx)
         self._ears = np.empty((2, bins), dtype=cplx)
-        # Output of partitions 1 .. P - 1 for the current block (time domain, last B samples),
+        # Output of partitions 1 .. P - 1 for the current hop (time domain, last hop samples),
         # valid only while a block is part-filled.
         self._earlier = np.zeros((2, b), dtype=real)
-        self._zeros = np.zeros((b, channels), dtype=real)
+        self._zeros = np.zeros((self.block_size, channels), dtype=real)
         self.reset()
 
     @property
@@ -231,6 +359,7 @@ class BinauralConvolver:
         self._window[...] = 0
         self._slot = 0  # w: the FDL window is [w, w + P)
         self._fill = 0  # frames of the current block received so far
+        self._held = 0  # of those, frames taken by push() whose output is not given yet
         self._earlier_valid = False
 
     def process(self, block: RealArray) -> FloatArray:
@@ -246,21 +375,17 @@ class BinauralConvolver:
         numpy.ndarray
             Output of shape ``(n, 2)``, aligned with the input frames, in the engine's dtype.
         """
-        x = np.asarray(block)
-        if x.dtype.kind not in "fiu":
-            raise AudioError(f"audio blocks must be real numbers, got dtype {x.dtype.name!r}")
-        if x.ndim != 2 or x.shape[1] != self.channels:
-            raise AudioError(
-                f"expected a block of shape (frames, {self.channels}) for {self.channels} "
-                f"channels, got shape {x.shape!r}"
-            )
+        x = self._checked(block)
+        if self._held and len(x):
+            raise AudioError("push() holds frames: call drain() before process()")
         n = x.shape[0]
         out = np.empty((n, 2), dtype=self.dtype)
-        b = self.block_size
+        b = self.hop
+        history = self.transform_size - b
         pos = 0
         while pos < n:
             take = min(b - self._fill, n - pos)
-            start = b + self._fill
+            start = history + self._fill
             self._window[:, start : start + take] = x[pos : pos + take].T
             if self._fill == 0 and take == b:
                 out[pos : pos + take] = self._whole_block().T
@@ -272,29 +397,94 @@ class BinauralConvolver:
                 self._advance()
         return out
 
+    def push(self, block: RealArray) -> FloatArray:
+        """Take the next frames; return the output of the hops they complete, if any.
+
+        The fast path only, whatever the caller's block size: frames wait in the
+        engine's window until their hop is whole, and the output of a hop (``hop``
+        frames) is returned by the call that completes it, so a call returns a multiple
+        of :attr:`hop` frames, possibly none. :meth:`drain` returns the frames still
+        waiting. Output is the same as :meth:`process` gives for the same frames.
+        """
+        x = self._checked(block)
+        b = self.hop
+        history = self.transform_size - b
+        n = x.shape[0]
+        if self._fill != self._held:
+            raise AudioError(
+                "process() left a hop part-filled: push() continues only from a hop boundary "
+                "or from its own frames"
+            )
+        whole = (self._fill + n) // b
+        out = np.empty((whole * b, 2), dtype=self.dtype)
+        done = 0
+        pos = 0
+        while pos < n:
+            take = min(b - self._fill, n - pos)
+            start = history + self._fill
+            self._window[:, start : start + take] = x[pos : pos + take].T
+            self._fill += take
+            self._held += take
+            pos += take
+            if self._fill == b:
+                self._transform_window()
+                out[done : done + b] = self._accumulate(0, self.partitions).T
+                done += b
+                self._advance()
+                self._held = 0
+        return out
+
+    def drain(self) -> FloatArray:
+        """The output of the frames :meth:`push` holds (fewer than :attr:`hop`).
+
+        Afterwards the engine is where :meth:`process` of the same frames leaves it.
+        """
+        held = self._held
+        if held == 0:
+            return np.empty((0, 2), dtype=self.dtype)
+        self._held = 0
+        fill = self._fill
+        out: FloatArray = np.ascontiguousarray(self._part_block()[:, fill - held : fill].T)
+        return out
+
     def flush(self) -> Iterator[FloatArray]:
         """Yield the tail after the last input: ``L - 1`` frames in blocks of ``<= B``.
 
-        The first block is short if needed to end the current part-filled block; the rest
-        are whole blocks. When the generator is exhausted the engine is reset.
+        Frames :meth:`push` still holds come first (:meth:`drain`).
+
+        A block is short where needed to end the current part-filled hop. When the
+        generator is exhausted the engine is reset.
         """
+        if self._held:
+            yield self.drain()
         remaining = self.filter_length - 1
         while remaining > 0:
-            take = min(remaining, self.block_size - self._fill)
+            take = min(remaining, self.block_size, self.hop - self._fill)
             yield self.process(self._zeros[:take])
             remaining -= take
         self.reset()
 
     # -- internals -------------------------------------------------------------------
 
+    def _checked(self, block: RealArray) -> RealArray:
+        x = np.asarray(block)
+        if x.dtype.kind not in "fiu":
+            raise AudioError(f"audio blocks must be real numbers, got dtype {x.dtype.name!r}")
+        if x.ndim != 2 or x.shape[1] != self.channels:
+            raise AudioError(
+                f"expected a block of shape (frames, {self.channels}) for {self.channels} "
+                f"channels, got shape {x.shape!r}"
+            )
+        return x
+
     def _transform_window(self) -> None:
-        """Spectrum of the current 2B-sample window into FDL slots w and w + P."""
+        """Spectrum of the current N-sample window into FDL slots w and w + P."""
         spec = scipy.fft.rfft(self._window, axis=-1)
         self._fdl[self._slot] = spec
         self._fdl[self._slot + self.partitions] = spec
 
     def _accumulate(self, first: int, last: int) -> FloatArray:
-        """Time-domain output (2, B) of partitions ``first .. last - 1``."""
+        """Time-domain output (2, hop) of partitions ``first .. last - 1``."""
         c = self.channels
         w = self._slot
         x = self._fdl[w + first : w + last].reshape((last - first) * c, -1)
@@ -302,8 +492,9 @@ class BinauralConvolver:
         for ear in range(2):
             np.multiply(x, self._spectra[ear, first * c : last * c], out=prod)
             self._ears[ear] = _pairwise_sum(prod)
-        out: FloatArray = scipy.fft.irfft(self._ears, n=2 * self.block_size, axis=-1)
-        return out[:, self.block_size :]
+        n = self.transform_size
+        out: FloatArray = scipy.fft.irfft(self._ears, n=n, axis=-1)
+        return out[:, n - self.hop :]
 
     def _whole_block(self) -> FloatArray:
         self._transform_window()
@@ -321,9 +512,10 @@ class BinauralConvolver:
 
     def _advance(self) -> None:
         """Close the current block: its spectrum stays in the FDL at slot w."""
-        b = self.block_size
-        self._window[:, :b] = self._window[:, b:]
-        self._window[:, b:] = 0
+        b = self.hop
+        history = self.transform_size - b
+        self._window[:, :history] = self._window[:, b:]
+        self._window[:, history:] = 0
         self._slot = (self._slot - 1) % self.partitions
         self._fill = 0
         self._earlier_valid = False

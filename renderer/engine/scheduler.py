@@ -49,7 +49,12 @@ class FoldEngine:
     filters : numpy.ndarray, shape (C, 2, L)
         Each input channel's two-ear filter pair.
     block_size : int
-        Frames per engine block (a power of two, :class:`BinauralConvolver`'s rule).
+        Frames per block of the stream (a power of two, :class:`BinauralConvolver`'s
+        rule). Each convolver's transforms come from its cost model
+        (:func:`~earfold.renderer.engine.convolution.choose_transform`); frames wait in a
+        convolver until its hop is whole (:meth:`BinauralConvolver.push`), so
+        :meth:`process` returns whole hops of output, possibly none, and
+        :meth:`tail_blocks` the rest.
     tail : numpy.ndarray, shape (2, Lt), optional
         The two-ear room tail shared by all channels.
     tail_weights : numpy.ndarray, shape (C,), optional
@@ -79,12 +84,14 @@ class FoldEngine:
         self.headphone = (
             None if headphone is None else BinauralConvolver(headphone, block_size=block_size)
         )
+
         self.fifo: _Audio = np.zeros(0, dtype=np.float32)
         if tail is not None:
             if tail_weights is None:
                 raise ValueError("a shared tail needs its tail_weights")
             # A power of two (the convolver's rule) and so a whole number of engine blocks.
             chunk = max(self.block_size, 1 << max(0, int(TAIL_BLOCK_FRAMES) - 1).bit_length())
+            # The tail's chunks are its convolver's hops (its fast path).
             self.tail = BinauralConvolver(tail[None], block_size=chunk)
             self.weights: _Audio = np.asarray(tail_weights, dtype=np.float32)
             self.fifo = np.zeros(tail_offset, dtype=np.float32)
@@ -99,21 +106,21 @@ class FoldEngine:
     def process(self, block: RealArray) -> FloatArray:
         """The output frames that are complete after ``block`` (``(n, 2)``, possibly fewer)."""
         out = self._binaural(block)
-        return out if self.headphone is None else self.headphone.process(out)
+        return out if self.headphone is None else self.headphone.push(out)
 
     def _binaural(self, block: RealArray) -> FloatArray:
         if self.tail is None:
-            return self.direct.process(block)
+            return self.direct.push(block)
         n = len(block)
         mono = np.concatenate([self.fifo, block @ self.weights])
         self.fifo = mono[n:]
         self._mix.append(mono[:n])
         self._mix_frames += n
-        if self._mix_frames >= self.tail.block_size:
+        if self._mix_frames >= self.tail.hop:
             self._submit_tail()
         # The direct part runs here while the thread convolves the last full tail chunk:
         # both are FFTs and array arithmetic that release the GIL.
-        out = self.direct.process(block)
+        out = self.direct.push(block)
         self._direct.append(out)
         self._direct_frames += len(out)
         return self._take(min(self._direct_frames, len(self._tail_ready)))
@@ -122,7 +129,7 @@ class FoldEngine:
         """Hand the next tail chunk (zero-padded at the end of the stream) to the thread."""
         assert self.tail is not None
         mix = np.concatenate(self._mix)
-        size = self.tail.block_size
+        size = self.tail.hop
         chunk = mix[:size]
         if len(chunk) < size:
             chunk = np.concatenate([chunk, np.zeros(size - len(chunk), dtype=np.float32)])
@@ -162,19 +169,29 @@ class FoldEngine:
             if len(out):
                 yield out
             pushed -= n
+        last = self.direct.drain()
         if self.tail is None:
+            out = self._headphone(last)
+            if len(out):
+                yield out
             return
+        self._direct.append(last)
+        self._direct_frames += len(last)
         # What is still waiting: the last tail chunks. Past the whole convolution's
         # length the tail is zero, so a padded last chunk is cut to the direct output.
         while len(self._tail_ready) < self._direct_frames:
             if self._pending is None:
                 self._submit_tail()
             self._collect_tail()
-        out = self._take(self._direct_frames)
-        if self.headphone is not None:
-            out = self.headphone.process(out)
+        out = self._headphone(self._take(self._direct_frames))
         if len(out):
             yield out
+
+    def _headphone(self, last: FloatArray) -> FloatArray:
+        """The headphone EQ's output for the stream's ``last`` frames and all it holds."""
+        if self.headphone is None:
+            return last
+        return np.concatenate([self.headphone.push(last), self.headphone.drain()])
 
     def describe(self) -> dict[str, Any]:
         """The report's ``engine`` section: block size, partitions, filter lengths."""
@@ -182,17 +199,22 @@ class FoldEngine:
             "block_size": self.block_size,
             "partitions": self.direct.partitions,
             "filter_length": self.direct.filter_length,
+            "transform_size": self.direct.transform_size,
+            "hop": self.direct.hop,
         }
         if self.headphone is not None:
             info["headphone_eq"] = {
                 "length": self.headphone.filter_length,
                 "partitions": self.headphone.partitions,
+                "transform_size": self.headphone.transform_size,
             }
         if self.tail is not None:
             info["shared_tail"] = {
                 "length": self.tail.filter_length,
                 "block_size": self.tail.block_size,
                 "partitions": self.tail.partitions,
+                "transform_size": self.tail.transform_size,
+                "hop": self.tail.hop,
                 "offset": len(self.fifo),
             }
         return info

@@ -13,7 +13,13 @@ import pytest
 import scipy.signal
 from numpy.testing import assert_allclose
 
-from earfold.renderer.engine import DEFAULT_BLOCK_SIZE, BinauralConvolver, convolve_reference
+from earfold.renderer.engine import (
+    DEFAULT_BLOCK_SIZE,
+    BinauralConvolver,
+    TransformPlan,
+    choose_transform,
+    convolve_reference,
+)
 from earfold.renderer.errors import AudioError, HrirError, RendererError
 
 TOLERANCE = 1e-6  # of full scale (the reference output's peak): the engine's accuracy target
@@ -80,14 +86,20 @@ CHUNKINGS = {
 }
 
 
+# Transform plans: the cost model's choice (one partition, transforms of a fast size that
+# is not a power of two) and uniform partitions of the block (many partitions).
+PLANS = {"chosen": None, "uniform": TransformPlan.uniform(BLOCK)}
+
+
 @pytest.mark.parametrize("length", LENGTHS.values(), ids=LENGTHS.keys())
 @pytest.mark.parametrize("chunking", CHUNKINGS.values(), ids=CHUNKINGS.keys())
-def test_matches_numpy_convolve(length, chunking):
+@pytest.mark.parametrize("plan", PLANS.values(), ids=PLANS.keys())
+def test_matches_numpy_convolve(length, chunking, plan):
     rng = np.random.default_rng([length, len(chunking), sum(chunking)])
     channels = int(rng.integers(1, 13))  # 1..12 channels
     frames = 700 if chunking == [1] else int(rng.integers(1500, 2500))
     signal, filters = random_case(rng, channels, frames, length)
-    engine = BinauralConvolver(filters, BLOCK)
+    engine = BinauralConvolver(filters, BLOCK, plan=plan)
     out = stream(engine, signal, chunking)
     assert_close_to_full_scale(out, direct_binaural(signal, filters))
 
@@ -126,7 +138,9 @@ def test_many_partitions_stay_within_tolerance():
     # numpy.convolve below); numpy.convolve itself is too slow at this length.
     rng = np.random.default_rng(2)
     signal, filters = random_case(rng, 12, 25000, 20000)
-    out = stream(BinauralConvolver(filters, BLOCK), signal, [BLOCK])
+    engine = BinauralConvolver(filters, BLOCK, plan=TransformPlan.uniform(BLOCK))
+    assert engine.partitions == 313
+    out = stream(engine, signal, [BLOCK])
     assert_close_to_full_scale(out, convolve_reference(signal, filters))
 
 
@@ -247,13 +261,50 @@ def test_reset_starts_a_new_stream():
 
 
 def test_attributes():
-    engine = BinauralConvolver(np.zeros((7, 2, 1000)), 256)
+    engine = BinauralConvolver(np.zeros((7, 2, 1000)), 256, plan=TransformPlan.uniform(256))
     assert engine.channels == 7
     assert engine.block_size == 256
     assert engine.filter_length == 1000
     assert engine.partitions == 4  # ceil(1000 / 256)
+    assert (engine.hop, engine.transform_size) == (256, 512)
     assert engine.latency == 0
     assert engine.process(np.zeros((10, 7))).dtype == np.float32
+
+
+@pytest.mark.parametrize(("taps", "channels"), [(600, 12), (4800, 12), (300, 2), (128801, 1)])
+def test_chosen_plan_is_valid_and_cheaper_than_2b_transforms(taps, channels):
+    plan = choose_transform(taps, channels, DEFAULT_BLOCK_SIZE)
+    parts = plan.partitions(taps)
+    # Overlap-save: a transform holds the hop and a partition; several partitions step
+    # by one hop each.
+    assert plan.size >= plan.hop + plan.partition - 1
+    assert parts == 1 or plan.hop == plan.partition
+    assert plan.size <= 1 << 18
+    uniform = TransformPlan.uniform(DEFAULT_BLOCK_SIZE)
+    assert plan.cost(taps, channels) <= uniform.cost(taps, channels)
+    if taps <= 4800:  # the HRIR filters: one partition, well over half of each transform kept
+        assert parts == 1 and plan.hop / plan.size > 0.6
+
+
+def test_chosen_plan_attributes():
+    engine = BinauralConvolver(np.zeros((12, 2, 4800)), DEFAULT_BLOCK_SIZE)
+    assert engine.plan == choose_transform(4800, 12, DEFAULT_BLOCK_SIZE)
+    assert engine.block_size == DEFAULT_BLOCK_SIZE
+    assert engine.partitions == 1
+    assert engine.hop == engine.transform_size - 4800 + 1
+
+
+@pytest.mark.parametrize(
+    "plan",
+    [
+        TransformPlan(hop=100, partition=64, size=100),  # no room for the partition
+        TransformPlan(hop=64, partition=32, size=128),  # several partitions, hop != partition
+        TransformPlan(hop=0, partition=10, size=64),
+    ],
+)
+def test_bad_plan_is_refused(plan):
+    with pytest.raises(AudioError, match="does not fit filters of 100 taps"):
+        BinauralConvolver(np.zeros((1, 2, 100)), 64, plan=plan)
 
 
 def test_convolve_reference_matches_numpy_convolve():
@@ -334,3 +385,53 @@ def test_errors_are_renderer_errors_and_value_errors():
         BinauralConvolver(np.zeros((1, 2, 4)), 100)
     with pytest.raises(ValueError, match="non-finite"):
         BinauralConvolver(np.full((1, 2, 4), np.nan))
+
+
+@pytest.mark.parametrize("plan", PLANS.values(), ids=PLANS.keys())
+@pytest.mark.parametrize("chunking", CHUNKINGS.values(), ids=CHUNKINGS.keys())
+def test_push_and_drain_give_what_process_gives(plan, chunking):
+    rng = np.random.default_rng([len(chunking), sum(chunking), 3])
+    signal, filters = random_case(rng, 5, 1900, 4 * BLOCK + 19)
+    engine = BinauralConvolver(filters, BLOCK, plan=plan)
+    pieces, pos, i = [], 0, 0
+    while pos < len(signal):
+        n = chunking[i % len(chunking)]
+        out = engine.push(signal[pos : pos + n])
+        assert len(out) % engine.hop == 0  # whole hops only
+        pieces.append(out)
+        pos, i = pos + n, i + 1
+    pieces.append(engine.drain())
+    assert sum(len(p) for p in pieces) == len(signal)
+    pieces.extend(engine.flush())
+    out = np.concatenate(pieces)
+    assert_close_to_full_scale(out, direct_binaural(signal, filters))
+    # The same frames through process(): the same output, to the float32 rounding.
+    again = BinauralConvolver(filters, BLOCK, plan=plan)
+    assert_close_to_full_scale(stream(again, signal, chunking), out)
+
+
+def test_drain_with_nothing_waiting_is_empty():
+    engine = BinauralConvolver(np.ones((2, 2, 10)), BLOCK)
+    assert engine.drain().shape == (0, 2)
+    assert engine.push(np.zeros((0, 2))).shape == (0, 2)
+
+
+def test_flush_after_push_gives_the_held_frames_first():
+    rng = np.random.default_rng(21)
+    signal, filters = random_case(rng, 3, 300, 50)
+    engine = BinauralConvolver(filters, BLOCK)
+    assert engine.hop > 300  # everything is held
+    assert len(engine.push(signal)) == 0
+    out = np.concatenate(list(engine.flush()))
+    assert_close_to_full_scale(out, direct_binaural(signal, filters))
+
+
+def test_push_and_process_do_not_mix_mid_hop():
+    engine = BinauralConvolver(np.ones((1, 2, 10)), BLOCK)
+    engine.push(np.ones((5, 1)))
+    with pytest.raises(AudioError, match=r"call drain\(\) before process\(\)"):
+        engine.process(np.ones((5, 1)))
+    engine.drain()
+    engine.process(np.ones((5, 1)))  # after drain, process continues the hop
+    with pytest.raises(AudioError, match="push\\(\\) continues only from a hop boundary"):
+        engine.push(np.ones((5, 1)))
