@@ -23,6 +23,7 @@ minute. Every run's time is kept in the result.
 from __future__ import annotations
 
 import os
+import platform
 import shutil
 import subprocess
 import sys
@@ -127,6 +128,14 @@ def _timed(argv: list[str], cwd: str) -> float:
     return seconds
 
 
+def _load_average() -> list[float] | None:
+    """The system's 1, 5 and 15 minute load averages: how busy a shared machine was."""
+    try:
+        return [round(x, 2) for x in os.getloadavg()]
+    except OSError:  # not available on this system
+        return None
+
+
 def _write_filters(stem: str, layout: str, room: str, path: str) -> int:
     """Save earfold's filters for these settings (the full room responses with a room) as
     float32 ``(C, 2, L)``; return their length in samples."""
@@ -163,6 +172,8 @@ def run_command_bench(
         "scale": seconds / NOMINAL_SECONDS,
         "rounds": rounds,
         "cpu_count": os.cpu_count(),
+        "python": platform.python_version(),
+        "numpy": np.__version__,
         "earfold_command": Path(earfold_command()[0]).name,
         "cases": [],
     }
@@ -214,6 +225,7 @@ def run_command_bench(
                     stem,
                     str(Path(tmp) / "out-floor.wav"),
                 ]
+            row["load_average_before"] = _load_average()
             runs: dict[str, list[float]] = {name: [] for name in argv}
             names = list(argv)
             for i in range(rounds):
@@ -228,6 +240,7 @@ def run_command_bench(
                 }
                 for name, times in runs.items()
             }
+            row["load_average_after"] = _load_average()
             row.update(command_ratios(row["commands"]))
             result["cases"].append(row)
             for path in Path(tmp).glob("*.wav"):
@@ -247,11 +260,17 @@ def command_ratios(commands: dict[str, dict[str, Any]]) -> dict[str, float]:
     return out
 
 
+def _first_load(result: dict[str, Any]) -> str:
+    load = result["cases"][0].get("load_average_before") if result["cases"] else None
+    return "unknown" if load is None else f"{load[0]:.2f}"
+
+
 def format_command_bench(result: dict[str, Any]) -> str:
     """The whole-command figures as a plain-text table."""
     lines = [
         f"earfold bench --commands: whole commands, each the fastest of {result['rounds']} "
-        f"interleaved rounds; {result['cpu_count']} CPU(s); lengths x{result['scale']:g}",
+        f"interleaved rounds; {result['cpu_count']} CPU(s); lengths x{result['scale']:g}; "
+        f"load average at the start {_first_load(result)}",
         "",
         f"{'case':<24} {'earfold':>10} {'xRT':>8} {'per-filter':>11} {'speed-up':>9} "
         f"{'I/O floor':>10} {'ours/floor':>11}",

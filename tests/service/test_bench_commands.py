@@ -25,6 +25,9 @@ def test_bench_commands_runs_tiny_and_its_ratios_follow_from_its_times(capsys, t
     assert [row["name"] for row in result["cases"]] == [c.name for c in COMMAND_CASES]
     for row, case in zip(result["cases"], COMMAND_CASES):
         commands = row["commands"]
+        for when in ("before", "after"):  # how busy the machine was (None where unknown)
+            load = row[f"load_average_{when}"]
+            assert load is None or (len(load) == 3 and min(load) >= 0)
         assert set(commands) == {"earfold", *case.against}
         for figures in commands.values():
             runs = figures["runs_s"]
