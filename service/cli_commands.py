@@ -142,6 +142,9 @@ def cmd_bench(args: argparse.Namespace) -> int:
 
     if args.commands:
         return _bench_commands(args)
+    if args.rounds:
+        print("earfold: error: --rounds goes with --commands", file=sys.stderr)
+        return EXIT_BAD_INPUT
 
     # Checked here, before any case runs: a bad name then fails in one line, not as the
     # error of a benchmark child process.
@@ -163,17 +166,18 @@ def cmd_bench(args: argparse.Namespace) -> int:
 
 
 def _bench_commands(args: argparse.Namespace) -> int:
-    from earfold.renderer.tools import format_command_bench, run_command_bench
+    from earfold.renderer.tools import COMMAND_ROUNDS, format_command_bench, run_command_bench
 
     if args.layout or args.room != "none" or args.no_memory:
         print(
             "earfold: error: --commands times its own fixed cases; "
-            "it takes only --seconds and --json",
+            "it takes only --seconds, --rounds and --json",
             file=sys.stderr,
         )
         return EXIT_BAD_INPUT
     result = run_command_bench(
         seconds=args.seconds,
+        rounds=args.rounds or COMMAND_ROUNDS,
         progress=None if args.json else lambda msg: print(msg, file=sys.stderr),
     )
     if args.json:
@@ -285,6 +289,13 @@ def add_listing_parsers(sub: argparse._SubParsersAction) -> None:
         "'earfold render' against a per-filter oaconvolve script and an I/O floor script, "
         "on 7.1.4 120 s, 5.1 600 s in the large room, 7.1.4 60 s in the large room and "
         "5.1 1 s (lengths scaled by --seconds/60)",
+    )
+    p.add_argument(
+        "--rounds",
+        type=positive(int),
+        metavar="N",
+        help="with --commands: interleaved rounds per case, each command's fastest counts "
+        "(default 2; more on a busy machine)",
     )
     p.set_defaults(func=cmd_bench)
 

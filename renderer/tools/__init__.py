@@ -16,12 +16,18 @@ from ._bench_cases import (
     make_noise_stem,
     round_ratios,
 )
-from ._bench_commands import COMMAND_CASES, format_command_bench, run_command_bench
+from ._bench_commands import (
+    COMMAND_CASES,
+    COMMAND_ROUNDS,
+    format_command_bench,
+    run_command_bench,
+)
 from ._demo import make_demo_stem, run_demo
 from ._inspect import inspect_sofa
 
 __all__ = [
     "COMMAND_CASES",
+    "COMMAND_ROUNDS",
     "DELIVERY_ROUNDS",
     "EQ_ROUNDS",
     "format_bench",

@@ -73,3 +73,19 @@ def test_seconds_scales_every_case_with_a_floor():
 def test_bench_commands_refuses_options_it_does_not_take(capsys):
     assert main(["bench", "--commands", "--layout", "5.1"]) == 2
     assert "--commands" in capsys.readouterr().err
+    assert main(["bench", "--rounds", "3"]) == 2
+    assert "--rounds goes with --commands" in capsys.readouterr().err
+
+
+def test_bench_commands_keeps_every_round(capsys):
+    """--rounds N: N runs of every command, all kept."""
+    from earfold.renderer.tools import run_command_bench
+    from earfold.renderer.tools._bench_commands import CommandCase
+
+    result = run_command_bench(0.3, cases=(CommandCase("tiny", "2.0", 1.0),), rounds=3)
+    (row,) = result["cases"]
+    assert result["rounds"] == 3
+    assert {k: len(v["runs_s"]) for k, v in row["commands"].items()} == {
+        "earfold": 3,
+        "io_floor": 3,
+    }
