@@ -22,6 +22,7 @@ minute. Every run's time is kept in the result.
 
 from __future__ import annotations
 
+import json
 import os
 import platform
 import shutil
@@ -128,6 +129,15 @@ def _timed(argv: list[str], cwd: str) -> float:
     return seconds
 
 
+def _stages(report: Path, wall: float) -> dict[str, float]:
+    """A render's stages from its report (planning, render pass, delivery pass) and the
+    rest of the command's wall time: start-up (interpreter, imports), the report, exit."""
+    timings = json.loads(report.read_text())["timings_s"]
+    out = {k: float(timings[k]) for k in ("plan", "render", "delivery") if k in timings}
+    out["outside_render"] = round(wall - float(timings["total"]), 4)
+    return out
+
+
 def _load_average() -> list[float] | None:
     """The system's 1, 5 and 15 minute load averages: how busy a shared machine was."""
     try:
@@ -188,6 +198,7 @@ def run_command_bench(
             stem = str(Path(tmp) / "stem.wav")
             say(f"bench: generating {length:g} s {case.layout} noise stem ({case.name})")
             make_noise_stem(stem, channels, length)
+            report = Path(tmp) / "out-earfold.report.json"  # the command's default report
             argv: dict[str, list[str]] = {
                 "earfold": [
                     *earfold_command(),
@@ -227,11 +238,14 @@ def run_command_bench(
                 ]
             row["load_average_before"] = _load_average()
             runs: dict[str, list[float]] = {name: [] for name in argv}
+            stages: list[dict[str, float]] = []
             names = list(argv)
             for i in range(rounds):
                 for name in names if i % 2 == 0 else names[::-1]:
                     say(f"bench: {case.name}: {name} (round {i + 1} of {rounds})")
                     runs[name].append(_timed(argv[name], tmp))
+                    if name == "earfold":
+                        stages.append(_stages(report, runs[name][-1]))
             row["commands"] = {
                 name: {
                     "runs_s": [round(t, 4) for t in times],
@@ -240,6 +254,9 @@ def run_command_bench(
                 }
                 for name, times in runs.items()
             }
+            # Where the fastest earfold run's time went, from its own report.
+            row["commands"]["earfold"]["stages_s"] = stages
+            row["earfold_stages_s"] = stages[int(np.argmin(runs["earfold"]))]
             row["load_average_after"] = _load_average()
             row.update(command_ratios(row["commands"]))
             result["cases"].append(row)
@@ -273,7 +290,8 @@ def format_command_bench(result: dict[str, Any]) -> str:
         f"load average at the start {_first_load(result)}",
         "",
         f"{'case':<24} {'earfold':>10} {'xRT':>8} {'per-filter':>11} {'speed-up':>9} "
-        f"{'I/O floor':>10} {'ours/floor':>11}",
+        f"{'I/O floor':>10} {'ours/floor':>11}   earfold's stages: plan, render, delivery, "
+        "outside the render (start-up, imports, report, exit)",
     ]
     for row in result["cases"]:
         c = row["commands"]
@@ -285,7 +303,9 @@ def format_command_bench(result: dict[str, Any]) -> str:
             + (f"{pf['seconds']:>10.2f}s " if pf else f"{'':>11} ")
             + (f"{row['speedup_vs_per_filter']:>8.2f}x " if pf else f"{'':>9} ")
             + (f"{fl['seconds']:>9.2f}s " if fl else f"{'':>10} ")
-            + (f"{row['ratio_to_io_floor']:>10.2f}x" if fl else "")
+            + (f"{row['ratio_to_io_floor']:>10.2f}x" if fl else f"{'':>11}")
+            + "   "
+            + ", ".join(f"{v:.2f}" for v in row["earfold_stages_s"].values())
         )
         lines.append(line.rstrip())
     lines += [

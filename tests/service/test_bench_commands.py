@@ -37,6 +37,13 @@ def test_bench_commands_runs_tiny_and_its_ratios_follow_from_its_times(capsys, t
                 row["seconds_of_audio"] / figures["seconds"], abs=0.01
             )
         ours = commands["earfold"]["seconds"]
+        # The earfold runs' stages, from each run's report; the row shows the fastest run's.
+        stages = commands["earfold"]["stages_s"]
+        assert len(stages) == COMMAND_ROUNDS
+        fastest = commands["earfold"]["runs_s"].index(ours)
+        assert row["earfold_stages_s"] == stages[fastest]
+        assert set(stages[fastest]) == {"plan", "render", "delivery", "outside_render"}
+        assert 0 < sum(stages[fastest].values()) <= ours + 0.01
         if "per_filter" in commands:
             assert row["speedup_vs_per_filter"] == pytest.approx(
                 commands["per_filter"]["seconds"] / ours, abs=0.01
