@@ -248,8 +248,8 @@ def run_command_bench(
                         stages.append(_stages(report, runs[name][-1]))
             row["commands"] = {
                 name: {
-                    "runs_s": [round(t, 4) for t in times],
-                    "seconds": round(min(times), 4),
+                    "runs_s": [round(t, 6) for t in times],
+                    "seconds": round(min(times), 6),
                     "x_real_time": round(length / min(times), 2),
                 }
                 for name, times in runs.items()
