@@ -173,6 +173,10 @@ def _cache_off(off: bool) -> Iterator[None]:
 def cmd_render(args: argparse.Namespace) -> int:
     from earfold.renderer.render import render
 
+    from .cli_imports import import_signal_deferring_stats
+
+    import_signal_deferring_stats()
+
     settings = render_settings_from_args(args)
     progress = _Progress("rendering", enabled=False if args.quiet else None)
     report_path = (
@@ -217,6 +221,10 @@ def cmd_render(args: argparse.Namespace) -> int:
 def cmd_loudness(args: argparse.Namespace) -> int:
     from earfold.renderer.layouts import get_layout
     from earfold.renderer.loudness import format_measurement, measure_for_layout
+
+    from .cli_imports import import_signal_deferring_stats
+
+    import_signal_deferring_stats()
 
     # The layout's weights go only to files with its channel count (the stem); any other
     # file, such as the stem's binaural render, is measured with plain weights.

@@ -140,6 +140,12 @@ def cmd_bench(args: argparse.Namespace) -> int:
     from earfold.renderer.room import get_room
     from earfold.renderer.tools import format_bench, run_bench
 
+    if args.commands:
+        return _bench_commands(args)
+    if args.rounds:
+        print("earfold: error: --rounds goes with --commands", file=sys.stderr)
+        return EXIT_BAD_INPUT
+
     # Checked here, before any case runs: a bad name then fails in one line, not as the
     # error of a benchmark child process.
     if args.layout:
@@ -156,6 +162,28 @@ def cmd_bench(args: argparse.Namespace) -> int:
         print_json(result)
     else:
         print(format_bench(result))
+    return 0
+
+
+def _bench_commands(args: argparse.Namespace) -> int:
+    from earfold.renderer.tools import COMMAND_ROUNDS, format_command_bench, run_command_bench
+
+    if args.layout or args.room != "none" or args.no_memory:
+        print(
+            "earfold: error: --commands times its own fixed cases; "
+            "it takes only --seconds, --rounds and --json",
+            file=sys.stderr,
+        )
+        return EXIT_BAD_INPUT
+    result = run_command_bench(
+        seconds=args.seconds,
+        rounds=args.rounds or COMMAND_ROUNDS,
+        progress=None if args.json else lambda msg: print(msg, file=sys.stderr),
+    )
+    if args.json:
+        print_json(result)
+    else:
+        print(format_command_bench(result))
     return 0
 
 
@@ -253,6 +281,21 @@ def add_listing_parsers(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument(
         "--no-memory", action="store_true", help="skip the memory-growth check (a 10x longer stem)"
+    )
+    p.add_argument(
+        "--commands",
+        action="store_true",
+        help="time whole commands instead, each a process of its own as a user runs it: "
+        "'earfold render' against a per-filter oaconvolve script and an I/O floor script, "
+        "on 7.1.4 120 s, 5.1 600 s in the large room, 7.1.4 60 s in the large room and "
+        "5.1 1 s (lengths scaled by --seconds/60)",
+    )
+    p.add_argument(
+        "--rounds",
+        type=positive(int),
+        metavar="N",
+        help="with --commands: interleaved rounds per case, each command's fastest counts "
+        "(default 2; more on a busy machine)",
     )
     p.set_defaults(func=cmd_bench)
 

@@ -1,8 +1,9 @@
 """Commands built on the renderer: the benchmark, the demo, SOFA inspection.
 
 Modules: ``_bench`` (``earfold bench``: processes, figures, the table), ``_bench_cases``
-(what each case times, interleaved rounds), ``_demo`` (the demo stem and its render) and
-``_inspect`` (a SOFA file's summary).
+(what each case times, interleaved rounds), ``_bench_commands`` (``earfold bench
+--commands``: whole commands, each a process, as a user times them), ``_demo`` (the demo
+stem and its render) and ``_inspect`` (a SOFA file's summary).
 """
 
 from __future__ import annotations
@@ -15,18 +16,28 @@ from ._bench_cases import (
     make_noise_stem,
     round_ratios,
 )
+from ._bench_commands import (
+    COMMAND_CASES,
+    COMMAND_ROUNDS,
+    format_command_bench,
+    run_command_bench,
+)
 from ._demo import make_demo_stem, run_demo
 from ._inspect import inspect_sofa
 
 __all__ = [
+    "COMMAND_CASES",
+    "COMMAND_ROUNDS",
     "DELIVERY_ROUNDS",
     "EQ_ROUNDS",
     "format_bench",
+    "format_command_bench",
     "inspect_sofa",
     "interleaved",
     "make_demo_stem",
     "make_noise_stem",
     "round_ratios",
     "run_bench",
+    "run_command_bench",
     "run_demo",
 ]

@@ -1,9 +1,9 @@
 """The command line stays lean: only ``serve`` and ``worker`` load the web and queue stack.
 
 Each command runs in a fresh interpreter through the CLI's ``main``; at exit the test
-reads which modules were loaded. (``scipy.stats`` is left out of the render's check on
-purpose: any import from ``scipy.signal`` loads it, and a render filters with
-``scipy.signal``; the listings load neither.)
+reads which modules were loaded. A render filters with ``scipy.signal``, whose own import
+would load all of ``scipy.stats``; the command line imports it with ``scipy.stats``
+deferred to a first use that a render never makes (``earfold.service.cli_imports``).
 """
 
 from __future__ import annotations
@@ -97,6 +97,58 @@ def test_render_loads_no_web_or_queue_module(tmp_path, stem):
     assert out.is_file()
     assert "earfold.renderer.render" in modules  # the render did run in that interpreter
     assert _heavy(modules) == []
+
+
+@pytest.mark.parametrize("extra", [[], ["--room", "small"]])
+def test_render_loads_scipy_signal_but_not_scipy_stats(tmp_path, stem, extra):
+    out = tmp_path / "tiny.bin.wav"
+    args = ["render", str(stem), "-o", str(out), "--layout", "2.0", *extra]
+    modules = _modules_after(tmp_path, *args)
+    assert out.is_file()
+    assert "scipy.signal" in modules  # it filtered: the check below means something
+    assert [m for m in modules if m == "scipy.stats" or m.startswith("scipy.stats.")] == []
+
+
+def test_loudness_loads_no_scipy_stats(tmp_path, stem):
+    modules = _modules_after(tmp_path, "loudness", str(stem), "--json")
+    assert "scipy.signal" in modules and "scipy.stats" not in modules
+
+
+_DEFERRED = """
+import json, sys
+import numpy as np
+if sys.argv[1] == "deferred":
+    from earfold.service.cli_imports import import_signal_deferring_stats
+    import_signal_deferring_stats()
+import scipy.signal
+before = "scipy.stats" in sys.modules
+x = np.sin(np.linspace(0, 6 * np.pi, 500)) + np.linspace(0, 1, 500)
+peaks = scipy.signal.find_peaks_cwt(x, np.arange(5, 30)).tolist()  # calls scoreatpercentile
+import scipy.stats
+print(json.dumps({"before": before, "peaks": peaks, "after": "scipy.stats" in sys.modules,
+                  "real": scipy.stats.norm.cdf(0.0), "file": scipy.stats.__file__ is not None}))
+"""
+
+
+def test_deferred_stats_load_on_first_use_and_give_the_same_results(tmp_path):
+    """scipy.signal imported with scipy.stats deferred: scipy.stats is absent until a
+    function that needs it runs, then the real module loads and the result is the one a
+    plain import gives."""
+    out = {}
+    for how in ("deferred", "plain"):
+        proc = subprocess.run(
+            [sys.executable, "-c", _DEFERRED, how],
+            capture_output=True,
+            text=True,
+            timeout=120,
+            cwd=tmp_path,
+            check=True,
+        )
+        out[how] = json.loads(proc.stdout)
+    assert out["deferred"]["before"] is False and out["plain"]["before"] is True
+    assert out["deferred"]["peaks"] == out["plain"]["peaks"] != []
+    assert out["deferred"]["after"] is True and out["deferred"]["real"] == 0.5
+    assert out["deferred"]["file"] is True
 
 
 def test_loudness_loads_no_web_or_queue_module(tmp_path, stem):
