@@ -23,7 +23,15 @@ from typing import TYPE_CHECKING, cast
 from ..settings import ServiceSettings
 from .parent_watch import die_with_parent, expected_parent, parent_gone
 from .queue import QueueUnavailable
-from .worker import RECOVER_INTERVAL_S, SETTINGS_ENV, WORKER_NICENESS, Worker, lower_priority
+from .warm import WarmSlot
+from .worker import (
+    RECOVER_INTERVAL_S,
+    SETTINGS_ENV,
+    WORKER_NICENESS,
+    Worker,
+    child_environment,
+    lower_priority,
+)
 
 if TYPE_CHECKING:
     from .redis_store import RedisJobQueue
@@ -102,10 +110,17 @@ def main() -> int:
     logging.getLogger("dramatiq").setLevel(logging.ERROR)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = RedisWorker(settings)
+    # The warm render process starts now and loads what jobs need while the consumer
+    # waits for the first message.
+    worker.worker.warm = WarmSlot(child_environment())
+    worker.worker.warm.prepare()
     signal.signal(signal.SIGTERM, lambda *_: worker.stop())
     signal.signal(signal.SIGINT, lambda *_: worker.stop())
     started = time.monotonic()
-    worker.run()
+    try:
+        worker.run()
+    finally:
+        worker.worker.warm.close()
     worker.queue.close()
     log.debug("worker %s stopped after %.0f s", worker.name, time.monotonic() - started)
     return 0

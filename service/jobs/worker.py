@@ -30,6 +30,7 @@ from .factory import open_queue
 from .parent_watch import PARENT_ENV, die_with_parent, expected_parent, parent_gone
 from .queue import Job, JobQueue, QueueUnavailable
 from .render_child import DISK_FULL_MESSAGE, EXIT_DISK_FULL, discard_outputs
+from .warm import HostedJob, WarmSlot
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
 
@@ -157,8 +158,13 @@ class Worker:
         #: "comparison"; it speaks the render child's protocol).
         self.comparison_command = [sys.executable, "-m", "earfold.service.comparisons.build_child"]
         #: Fork comparison builds from this (warmed-up) process instead of starting
-        #: ``comparison_command`` (earfold.service.comparisons.forked); ``main`` turns it on.
+        #: ``comparison_command`` (earfold.service.comparisons.forked).
         self.fork_builds = False
+        #: The warm render process that runs this worker's jobs (renders and builds) one
+        #: after the other (:mod:`.warm`); ``main`` sets it up. Without it, every job
+        #: starts a fresh child (``child_command``, ``comparison_command``).
+        self.warm: WarmSlot | None = None
+        self._warm_busy = threading.Lock()
 
     def stop(self) -> None:
         self._stop.set()
@@ -186,7 +192,7 @@ class Worker:
 
     def run_job(self, job: Job) -> None:
         """Render one claimed job in a child process and record how it ended."""
-        q, s = self.queue, self.settings
+        q = self.queue
         comparison = job.payload.get("kind") == COMPARISON_KIND
         try:
             if comparison:
@@ -200,6 +206,24 @@ class Worker:
             what = "the comparison" if comparison else "the render"
             q.fail(job.id, self.name, f"cannot start {what}: {detail}")
             return
+        proc: ChildProcess | None = None
+        hosted = self.warm is not None and self._warm_busy.acquire(blocking=False)
+        try:
+            if hosted:
+                assert self.warm is not None
+                proc = self.warm.start("comparison" if comparison else "render", spec)
+            else:
+                proc = self._fresh_child(spec, comparison)
+            self._watch(job, spec, proc)
+        finally:
+            if hosted:
+                assert self.warm is not None
+                if isinstance(proc, HostedJob):
+                    self.warm.finished(proc, restart=not self._stop.is_set())
+                self._warm_busy.release()
+
+    def _fresh_child(self, spec: dict, comparison: bool) -> ChildProcess:
+        """A process of its own for one job: forked (a build) or started."""
         proc: ChildProcess
         if comparison and self.fork_builds:
             from ..comparisons.forked import ForkedBuild
@@ -215,6 +239,11 @@ class Worker:
                 cwd=os.getcwd(),
                 env=child_environment(),
             )
+        return proc
+
+    def _watch(self, job: Job, spec: dict, proc: ChildProcess) -> None:
+        """Keep the lease of ``job`` while ``proc`` runs it, then record how it ended."""
+        q, s = self.queue, self.settings
         messages: list[dict] = []
         latest = {"progress": 0.0}
 
@@ -381,19 +410,16 @@ def main() -> int:
     lower_priority(WORKER_NICENESS)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
-    # Comparison builds fork from this process, so it loads what they need once, with
-    # the numeric libraries single-threaded as in every render child.
-    os.environ.update(SINGLE_THREADED)
-    from ..comparisons.forked import warm_up
-
-    try:
-        warm_up()
-    except Exception:  # noqa: BLE001 - a build reports such a problem itself, with context
-        pass
-    worker.fork_builds = True
+    # The warm render process starts now and loads what jobs need while the worker
+    # waits for the first one.
+    worker.warm = WarmSlot(child_environment())
+    worker.warm.prepare()
     signal.signal(signal.SIGTERM, lambda *_: worker.stop())
     signal.signal(signal.SIGINT, lambda *_: worker.stop())
-    worker.run()
+    try:
+        worker.run()
+    finally:
+        worker.warm.close()
     worker.queue.close()
     return 0
 
