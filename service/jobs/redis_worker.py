@@ -23,14 +23,13 @@ from typing import TYPE_CHECKING, cast
 from ..settings import ServiceSettings
 from .parent_watch import die_with_parent, expected_parent, parent_gone
 from .queue import QueueUnavailable
-from .warm import WarmSlot
 from .worker import (
     RECOVER_INTERVAL_S,
     SETTINGS_ENV,
     WORKER_NICENESS,
     Worker,
-    child_environment,
     lower_priority,
+    use_warm_process,
 )
 
 if TYPE_CHECKING:
@@ -110,17 +109,15 @@ def main() -> int:
     logging.getLogger("dramatiq").setLevel(logging.ERROR)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = RedisWorker(settings)
-    # The warm render process starts now and loads what jobs need while the consumer
-    # waits for the first message.
-    worker.worker.warm = WarmSlot(child_environment())
-    worker.worker.warm.prepare()
+    warm = use_warm_process(worker.worker, fork_builds=False)
     signal.signal(signal.SIGTERM, lambda *_: worker.stop())
     signal.signal(signal.SIGINT, lambda *_: worker.stop())
     started = time.monotonic()
     try:
         worker.run()
     finally:
-        worker.worker.warm.close()
+        if warm is not None:
+            warm.close()
     worker.queue.close()
     log.debug("worker %s stopped after %.0f s", worker.name, time.monotonic() - started)
     return 0

@@ -52,13 +52,36 @@ def peak_rss_bytes() -> int:
     return int(peak) * (1 if sys.platform == "darwin" else 1024)
 
 
-def warm_up() -> None:
-    """Import what a render and a comparison build need, and load the default HRIR set."""
-    from earfold.renderer.render import render  # noqa: F401
+#: The warm-up render: this many seconds of noise on a 5.1 stem, at 48 kHz.
+WARM_UP_SECONDS = 0.25
 
+
+def warm_up() -> None:
+    """Import what a render and a comparison build need, load the default HRIR set, and
+    render a short stem with it (nothing kept).
+
+    Loading alone leaves much for the first job: the modules a render imports on first
+    use, and what the set computes once and keeps (onsets, alignment, the direction
+    grid). A first render several times slower than the next is what the warm process
+    is there to avoid, so a throw-away render pays for it while no job waits.
+    """
+    import tempfile
+
+    import numpy as np
+
+    from earfold.renderer.io import write_audio
+    from earfold.renderer.render import render, settings_from_options
+
+    from ..comparisons.forked import WARM_SAMPLERATE
     from ..comparisons.forked import warm_up as warm_builds
 
     warm_builds()
+    rng = np.random.default_rng(0)
+    noise = 0.1 * rng.standard_normal((int(WARM_UP_SECONDS * WARM_SAMPLERATE), 6))
+    with tempfile.TemporaryDirectory(prefix="earfold-warm-up-") as folder:
+        stem = f"{folder}/stem.wav"
+        write_audio(stem, noise.astype(np.float32), WARM_SAMPLERATE)
+        render([stem], f"{folder}/out.wav", settings_from_options({"layout": "5.1"}))
 
 
 def run_one(message: dict) -> int:

@@ -21,7 +21,7 @@ import threading
 import time
 import uuid
 from pathlib import Path
-from typing import IO, Protocol
+from typing import IO, Protocol, cast
 
 from ..job_inputs import resolve_job_inputs
 from ..settings import ServiceSettings
@@ -34,7 +34,15 @@ from .warm import HostedJob, WarmSlot
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
 
-__all__ = ["PARENT_ENV", "SETTINGS_ENV", "Worker", "child_environment", "main"]
+__all__ = [
+    "PARENT_ENV",
+    "SETTINGS_ENV",
+    "WARM_ENV",
+    "Worker",
+    "child_environment",
+    "main",
+    "use_warm_process",
+]
 
 
 class ChildProcess(Protocol):
@@ -206,21 +214,18 @@ class Worker:
             what = "the comparison" if comparison else "the render"
             q.fail(job.id, self.name, f"cannot start {what}: {detail}")
             return
-        proc: ChildProcess | None = None
-        hosted = self.warm is not None and self._warm_busy.acquire(blocking=False)
-        try:
-            if hosted:
-                assert self.warm is not None
-                proc = self.warm.start("comparison" if comparison else "render", spec)
-            else:
-                proc = self._fresh_child(spec, comparison)
-            self._watch(job, spec, proc)
-        finally:
-            if hosted:
-                assert self.warm is not None
-                if isinstance(proc, HostedJob):
-                    self.warm.finished(proc, restart=not self._stop.is_set())
+        hosted: HostedJob | None = None
+        warm = self.warm
+        if warm is not None and self._warm_busy.acquire(blocking=False):
+            try:
+                hosted = warm.start("comparison" if comparison else "render", spec)
+                self._watch(job, spec, cast(ChildProcess, hosted))
+            finally:
+                if hosted is not None:
+                    warm.finished(hosted, restart=not self._stop.is_set())
                 self._warm_busy.release()
+        else:
+            self._watch(job, spec, self._fresh_child(spec, comparison))
 
     def _fresh_child(self, spec: dict, comparison: bool) -> ChildProcess:
         """A process of its own for one job: forked (a build) or started."""
@@ -246,18 +251,27 @@ class Worker:
         q, s = self.queue, self.settings
         messages: list[dict] = []
         latest = {"progress": 0.0}
+        # Wakes the lease loop early: at the first progress (so it is reported at once,
+        # not a tick later) and when the child's output ends (so the job's end is
+        # recorded at once).
+        wake = threading.Event()
 
         def read() -> None:
             assert proc.stdout is not None
-            for line in proc.stdout:
-                try:
-                    msg = json.loads(line)
-                except ValueError:
-                    continue
-                if "progress" in msg:
-                    latest["progress"] = float(msg["progress"])
-                else:
-                    messages.append(msg)
+            try:
+                for line in proc.stdout:
+                    try:
+                        msg = json.loads(line)
+                    except ValueError:
+                        continue
+                    if "progress" in msg:
+                        if latest["progress"] <= 0.0:
+                            wake.set()
+                        latest["progress"] = float(msg["progress"])
+                    else:
+                        messages.append(msg)
+            finally:
+                wake.set()
 
         reader = threading.Thread(target=read, daemon=True)
         reader.start()
@@ -273,7 +287,14 @@ class Worker:
         handed_back = False
         unreachable_since: float | None = None
         while proc.poll() is None:
-            time.sleep(s.tick_s)
+            if reader.is_alive():
+                wake.wait(s.tick_s)
+                wake.clear()
+            else:  # the output has ended: the child is exiting
+                try:
+                    proc.wait(s.tick_s)
+                except subprocess.TimeoutExpired:
+                    pass
             if proc.poll() is not None:
                 break
             try:
@@ -410,18 +431,43 @@ def main() -> int:
     lower_priority(WORKER_NICENESS)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
-    # The warm render process starts now and loads what jobs need while the worker
-    # waits for the first one.
-    worker.warm = WarmSlot(child_environment())
-    worker.warm.prepare()
+    warm = use_warm_process(worker)
     signal.signal(signal.SIGTERM, lambda *_: worker.stop())
     signal.signal(signal.SIGINT, lambda *_: worker.stop())
     try:
         worker.run()
     finally:
-        worker.warm.close()
+        if warm is not None:
+            warm.close()
     worker.queue.close()
     return 0
+
+
+#: Environment variable that turns the warm render process off (``0``): every job then
+#: starts a fresh child and comparison builds fork from the worker, as before the warm
+#: process existed (a fallback, and the baseline of the start-up measurements).
+WARM_ENV = "EARFOLD_WARM_PROCESS"
+
+
+def use_warm_process(worker: Worker, *, fork_builds: bool = True) -> WarmSlot | None:
+    """Give ``worker`` its warm render process, started now so that it loads what jobs
+    need while the worker waits for the first one; with :data:`WARM_ENV` ``=0`` instead,
+    and ``fork_builds``, fork comparison builds from this process (loaded here, once)."""
+    if os.environ.get(WARM_ENV, "1").strip() != "0":
+        worker.warm = WarmSlot(child_environment())
+        worker.warm.prepare()
+        return worker.warm
+    if not fork_builds:
+        return None
+    os.environ.update(SINGLE_THREADED)
+    from ..comparisons.forked import warm_up
+
+    try:
+        warm_up()
+    except Exception:  # noqa: BLE001 - a build reports such a problem itself, with context
+        pass
+    worker.fork_builds = True
+    return None
 
 
 if __name__ == "__main__":
