@@ -208,6 +208,27 @@ def _none(value: float) -> float | None:
     return None if math.isnan(value) else float(value)
 
 
+def _prepare_sets(jobs: list) -> None:
+    """Load and prepare each HRIR set of ``jobs`` in this process, before the forks.
+
+    A set computes some things once, on first use, and keeps them (earfold.renderer.hrtf:
+    the onsets and aligned responses that directions between measurements need). Done
+    here, the forks share them instead of each computing them again, and a process that
+    builds one comparison after another (a worker's warm render process) keeps them.
+    Planning a render of the first variant of each set, without its room, does it.
+    """
+    import dataclasses
+
+    from earfold.renderer.render import plan_render
+
+    seen = set()
+    for ins, _, settings in jobs:
+        if settings.hrtf in seen:
+            continue
+        seen.add(settings.hrtf)
+        plan_render(ins, dataclasses.replace(settings, room="none"))
+
+
 def _build_forked(
     jobs: list,
     processes: int,
@@ -230,12 +251,9 @@ def _build_forked(
     dies). Returns the measured loudness, true peaks and each trial file's figures.
     """
     from earfold.renderer.errors import RenderCancelled, RendererError
-    from earfold.renderer.hrtf import load_hrir_set
-    from earfold.renderer.render import render, resolve_hrtf
+    from earfold.renderer.render import render
 
-    for hrtf in {s.hrtf for _, _, s in jobs}:
-        path, name = resolve_hrtf(hrtf)
-        load_hrir_set(path, samplerate, name=name)
+    _prepare_sets(jobs)
     n = len(jobs)
     pre_f, frames = cut
     ctx = multiprocessing.get_context("fork")

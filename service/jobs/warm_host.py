@@ -52,8 +52,13 @@ def peak_rss_bytes() -> int:
     return int(peak) * (1 if sys.platform == "darwin" else 1024)
 
 
-#: The warm-up render: this many seconds of noise on a 5.1 stem, at 48 kHz.
+#: The warm-up render: this many seconds of noise on a stem of :data:`WARM_UP_LAYOUT`.
 WARM_UP_SECONDS = 0.25
+
+#: Layout of the warm-up render: with height loudspeakers, so the set prepares what
+#: directions between its measurements need (onsets, aligned responses), which a layout
+#: on measured directions only would leave for the first job.
+WARM_UP_LAYOUT = "7.1.4"
 
 
 def warm_up() -> None:
@@ -77,11 +82,13 @@ def warm_up() -> None:
 
     warm_builds()
     rng = np.random.default_rng(0)
-    noise = 0.1 * rng.standard_normal((int(WARM_UP_SECONDS * WARM_SAMPLERATE), 6))
+    channels = 12  # 7.1.4
+    noise = 0.1 * rng.standard_normal((int(WARM_UP_SECONDS * WARM_SAMPLERATE), channels))
     with tempfile.TemporaryDirectory(prefix="earfold-warm-up-") as folder:
         stem = f"{folder}/stem.wav"
         write_audio(stem, noise.astype(np.float32), WARM_SAMPLERATE)
-        render([stem], f"{folder}/out.wav", settings_from_options({"layout": "5.1"}))
+        settings = settings_from_options({"layout": WARM_UP_LAYOUT})
+        render([stem], f"{folder}/out.wav", settings)
 
 
 def run_one(message: dict) -> int:
