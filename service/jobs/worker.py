@@ -7,6 +7,11 @@ reports progress, and kills the child when the job is cancelled or its lease is 
 A child that dies without a word (a crash, the OOM killer) puts the job back in the
 queue with the attempt counted; after ``max_attempts`` the job fails with a message
 that says why.
+
+Started by ``earfold serve``, a worker keeps that child warm between jobs
+(:mod:`.warm`, :mod:`.warm_host`): started ahead with its imports done and the default
+HRIR set loaded, so a claimed job starts computing at once, and replaced whenever a job
+did not end well. ``EARFOLD_WARM_PROCESS=0`` starts a fresh child per job instead.
 """
 
 from __future__ import annotations

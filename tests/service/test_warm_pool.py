@@ -173,10 +173,15 @@ def test_a_failed_job_is_followed_by_a_good_one(make_client, tmp_path, slot):
     assert _audio(client, good) == _audio(client, reference)
 
 
-def test_a_process_retires_after_its_job_count(make_client, tmp_path):
-    code = (
-        "import sys; from earfold.service.jobs import warm_host as h; h.MAX_JOBS = 2; "
-        "sys.exit(h.main())"
+@pytest.mark.parametrize(
+    ("bound", "started", "reused"),
+    [("MAX_JOBS = 2", 2, 1), ("MAX_RSS_BYTES = 1", 4, 0)],
+    ids=["job count", "memory"],
+)
+def test_a_process_retires_past_its_bounds(make_client, tmp_path, bound, started, reused):
+    code = "\n".join(
+        ["import sys", "from earfold.service.jobs import warm_host as h", f"h.{bound}"]
+        + ["sys.exit(h.main())"]
     )
     warm = WarmSlot(child_environment(), [sys.executable, "-c", code])
     try:
@@ -185,8 +190,11 @@ def test_a_process_retires_after_its_job_count(make_client, tmp_path):
         jobs = [_render(client, stem) for _ in range(3)]
         for _ in jobs:
             _worker(client, warm).run(once=True)
+        # every job done, none counted as a crash: a retiring process says so first (and
+        # a replacement is started after each retirement, the last one included)
         assert [_view(client, j)["state"] for j in jobs] == ["done"] * 3
-        assert warm.started == 2 and warm.reused == 1
+        assert [_view(client, j)["attempts"] for j in jobs] == [1] * 3
+        assert warm.started == started and warm.reused == reused
     finally:
         warm.close()
 
