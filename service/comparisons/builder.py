@@ -176,28 +176,94 @@ def _job_progress(report: Callable[[float], None], index: int, jobs: int, f: flo
     report((index + f) / jobs)
 
 
-def _render_forked(
+def _excerpt(out: Path, pre_f: int, frames: int, samplerate: int) -> np.ndarray:
+    """The excerpt of a rendered variant (pre-roll and tail cut off, ends faded); the
+    rendered file is removed."""
+    from earfold.renderer.io import read_audio
+
+    audio, _ = read_audio(out)
+    os.unlink(out)
+    x = np.zeros((frames, 2), dtype=np.float32)
+    part = audio[pre_f : pre_f + frames]
+    x[: len(part)] = part
+    _fade(x, int(round(FADE_S * samplerate)))
+    return x
+
+
+def _write_trial(path: Path, x: np.ndarray, gain_db: float, samplerate: int) -> tuple:
+    """Write a variant's trial file at ``gain_db``; its loudness and true peak read back."""
+    from earfold.renderer.io import read_audio, write_audio
+
+    y = x * np.float32(10.0 ** (gain_db / 20.0))
+    write_audio(path, y, samplerate, subtype=TRIAL_SUBTYPE)
+    back, _ = read_audio(path)
+    return _measure(back, samplerate)
+
+
+def _nan(value: float | None) -> float:
+    return math.nan if value is None else float(value)
+
+
+def _none(value: float) -> float | None:
+    return None if math.isnan(value) else float(value)
+
+
+def _prepare_sets(jobs: list) -> None:
+    """Load and prepare each HRIR set of ``jobs`` in this process, before the forks.
+
+    A set computes some things once, on first use, and keeps them (earfold.renderer.hrtf:
+    the onsets and aligned responses that directions between measurements need). Done
+    here, the forks share them instead of each computing them again, and a process that
+    builds one comparison after another (a worker's warm render process) keeps them.
+    Planning a render of the first variant of each set, without its room, does it.
+    """
+    import dataclasses
+
+    from earfold.renderer.render import plan_render
+
+    seen = set()
+    for ins, _, settings in jobs:
+        if settings.hrtf in seen:
+            continue
+        seen.add(settings.hrtf)
+        plan_render(ins, dataclasses.replace(settings, room="none"))
+
+
+def _build_forked(
     jobs: list,
     processes: int,
     samplerate: int,
+    cut: tuple[int, int],
+    audio_dir: Path,
+    gains: Callable[[list[float | None], list[float | None]], list[float]],
     progress: Callable[[float], None],
     cancelled: Callable[[], bool] | None,
-) -> None:
-    """Render ``jobs`` (inputs, output, settings) in ``processes`` forked processes.
+) -> tuple[list[float], list[float], list[tuple[float | None, float | None]]]:
+    """Render, cut, measure and write ``jobs`` (inputs, output, settings) in
+    ``processes`` forked processes.
 
-    The HRIR sets are loaded first, so the forks share them; each fork renders every
-    ``processes``-th job, reports progress through shared memory and stops when the
-    parent asks (or dies). Errors come back as JSON text, not pickles.
+    The HRIR sets are loaded first, so the forks share them. Each fork takes every
+    ``processes``-th job: renders it, cuts and measures its excerpt, and keeps it in
+    memory; once every excerpt is measured the parent decides the gains (``gains``,
+    from the measured loudness and true peaks; it may raise), and each fork writes its
+    trial files and measures them again. Progress and figures cross through shared
+    memory, errors as JSON text (not pickles); the forks stop when the parent asks (or
+    dies). Returns the measured loudness, true peaks and each trial file's figures.
     """
     from earfold.renderer.errors import RenderCancelled, RendererError
-    from earfold.renderer.hrtf import load_hrir_set
-    from earfold.renderer.render import render, resolve_hrtf
+    from earfold.renderer.render import render
 
-    for hrtf in {s.hrtf for _, _, s in jobs}:
-        path, name = resolve_hrtf(hrtf)
-        load_hrir_set(path, samplerate, name=name)
+    _prepare_sets(jobs)
+    n = len(jobs)
+    pre_f, frames = cut
     ctx = multiprocessing.get_context("fork")
-    done = ctx.Array("d", len(jobs), lock=False)
+    done = ctx.Array("d", n, lock=False)
+    #: per job: loudness, true peak (measured), then loudness, true peak (trial file)
+    figures = ctx.Array("d", 4 * n, lock=False)
+    #: per job: 1 once measured, 2 once its trial file is written
+    stage = ctx.Array("b", n, lock=False)
+    gain_db = ctx.Array("d", n, lock=False)
+    go = ctx.Value("b", 0, lock=False)
     stop = ctx.Value("b", 0, lock=False)
     errors = ctx.SimpleQueue()
 
@@ -211,9 +277,11 @@ def _render_forked(
         def stopped() -> bool:
             return bool(stop.value) or os.getppid() != parent
 
-        for i in indices:
-            ins, out, settings = jobs[i]
-            try:
+        i = indices[0] if indices else 0
+        try:
+            excerpts = {}
+            for i in indices:
+                ins, out, settings = jobs[i]
                 render(
                     ins,
                     out,
@@ -221,32 +289,58 @@ def _render_forked(
                     cancelled=stopped,
                     progress=functools.partial(done.__setitem__, i),
                 )
-            except RenderCancelled:
-                os._exit(3)
-            except Exception as exc:
-                from ..jobs.render_child import EXIT_DISK_FULL, disk_full
+                x = _excerpt(out, pre_f, frames, samplerate)
+                lufs, tp = _measure(x, samplerate)
+                figures[4 * i], figures[4 * i + 1] = _nan(lufs), _nan(tp)
+                excerpts[i] = x
+                stage[i] = 1
+            while not go.value:
+                if stopped():
+                    os._exit(3)
+                time.sleep(0.002)
+            for i in indices:
+                lufs, tp = _write_trial(audio_dir / f"{i}.wav", excerpts[i], gain_db[i], samplerate)
+                figures[4 * i + 2], figures[4 * i + 3] = _nan(lufs), _nan(tp)
+                stage[i] = 2
+        except RenderCancelled:
+            os._exit(3)
+        except Exception as exc:
+            from ..jobs.render_child import EXIT_DISK_FULL, disk_full
 
-                full = disk_full(exc, None if isinstance(exc, RendererError) else out.parent)
-                if full or isinstance(exc, RendererError):
-                    errors.put(json.dumps({"index": i, "error": str(exc), "disk_full": full}))
-                    os._exit(EXIT_DISK_FULL if full else 2)
-                raise
+            full = disk_full(exc, None if isinstance(exc, RendererError) else audio_dir)
+            if full or isinstance(exc, RendererError):
+                errors.put(json.dumps({"index": i, "error": str(exc), "disk_full": full}))
+                os._exit(EXIT_DISK_FULL if full else 2)
+            raise
         os._exit(0)
 
     procs = [
-        ctx.Process(target=work, args=(list(range(k, len(jobs), processes)),))
-        for k in range(processes)
+        ctx.Process(target=work, args=(list(range(k, n, processes)),)) for k in range(processes)
     ]
     for p in procs:
         p.start()
+    failure: BaseException | None = None
     try:
         while any(p.is_alive() for p in procs):
             time.sleep(_GATHER_S)
-            progress(sum(done[:]) / len(jobs))
+            written = sum(1 for k in range(n) if stage[k] == 2)
+            progress(0.9 * sum(done[:]) / n + 0.1 * written / n)
             if cancelled is not None and cancelled():
                 stop.value = 1
+            if not go.value and not stop.value and all(stage[k] >= 1 for k in range(n)):
+                measured = [_none(figures[4 * k]) for k in range(n)]
+                peaks = [_none(figures[4 * k + 1]) for k in range(n)]
+                try:
+                    for k, g in enumerate(gains(measured, peaks)):
+                        gain_db[k] = g
+                    audio_dir.mkdir(exist_ok=True)
+                    go.value = 1
+                except BaseException as exc:  # a silent variant: stop the forks, then raise
+                    failure = exc
+                    stop.value = 1
     finally:
-        stop.value = 1
+        if not go.value:
+            stop.value = 1
         for p in procs:
             p.join()
     if cancelled is not None and cancelled():
@@ -256,12 +350,19 @@ def _render_forked(
         if error.get("disk_full"):
             raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
         raise RendererError(error["error"])
+    if failure is not None:
+        raise failure
     codes = [p.exitcode for p in procs]
     if any(code != 0 for code in codes):
         raise BuildError(
             f"a render process of the comparison died (exit status {codes}); "
             "the stem may be too large for this server"
         )
+    return (
+        [figures[4 * k] for k in range(n)],
+        [figures[4 * k + 1] for k in range(n)],
+        [(_none(figures[4 * k + 2]), _none(figures[4 * k + 3])) for k in range(n)],
+    )
 
 
 def build(
@@ -299,7 +400,7 @@ def build(
     """
     import dataclasses
 
-    from earfold.renderer.io import probe_stem, read_audio, write_audio
+    from earfold.renderer.io import probe_stem
     from earfold.renderer.render import render
 
     from ..jobs.render_child import build_settings
@@ -336,16 +437,42 @@ def build(
     pre_f = min(start_f, int(round(PREROLL_S * sr)))
     window = ((start_f - pre_f) / sr, (pre_f + frames) / sr)
 
-    cut: list[np.ndarray] = []
+    def silent(i: int) -> BuildError:
+        return BuildError(
+            f"variant {i + 1} is silent in the excerpt from {start_s:g} s "
+            f"({length_s:g} s long), so it cannot be level-matched; choose "
+            "another excerpt"
+        )
+
+    def gains(measured: list[float | None], tps: list[float | None]) -> list[float]:
+        for i, (lufs, tp) in enumerate(zip(measured, tps)):
+            if lufs is None or tp is None:
+                raise silent(i)
+        common = common_level(measured, tps)  # type: ignore[arg-type]
+        return [common - lufs for lufs in measured]  # type: ignore[operator]
+
+    audio_dir = folder / "audio"
     with tempfile.TemporaryDirectory(dir=folder, prefix=".build-") as tmp:
         jobs = [
             (list(inputs), Path(tmp) / f"{i}.wav", dataclasses.replace(s, excerpt=window))
             for i, s in enumerate(settings)
         ]
-        render_progress = lambda f: report(0.05 + 0.85 * f)  # noqa: E731
         if processes > 1 and len(jobs) > 1:
-            _render_forked(jobs, min(processes, len(jobs)), sr, render_progress, cancelled)
+            # Rendering, measuring and writing spread over the processes; the figures
+            # and files are those of the one-process path below.
+            lufs_values, peaks, matched = _build_forked(
+                jobs,
+                min(processes, len(jobs)),
+                sr,
+                (pre_f, frames),
+                audio_dir,
+                gains,
+                lambda f: report(0.05 + 0.95 * f),
+                cancelled,
+            )
+            gain_values = gains(list(lufs_values), list(peaks))
         else:
+            render_progress = lambda f: report(0.05 + 0.85 * f)  # noqa: E731
             for i, (ins, out, s) in enumerate(jobs):
                 render(
                     ins,
@@ -354,50 +481,31 @@ def build(
                     cancelled=cancelled,
                     progress=functools.partial(_job_progress, render_progress, i, len(jobs)),
                 )
-        for _, out, _ in jobs:
-            audio, _ = read_audio(out)
-            os.unlink(out)
-            x = np.zeros((frames, 2), dtype=np.float32)
-            part = audio[pre_f : pre_f + frames]
-            x[: len(part)] = part
-            _fade(x, int(round(FADE_S * sr)))
-            cut.append(x)
+            cut = [_excerpt(out, pre_f, frames, sr) for _, out, _ in jobs]
+            measured = [_measure(x, sr) for x in cut]
+            gain_values = gains([m[0] for m in measured], [m[1] for m in measured])
+            lufs_values = [float(m[0]) for m in measured]  # type: ignore[arg-type]
+            peaks = [float(m[1]) for m in measured]  # type: ignore[arg-type]
+            audio_dir.mkdir(exist_ok=True)
+            matched = []
+            for i, x in enumerate(cut):
+                matched.append(_write_trial(audio_dir / f"{i}.wav", x, gain_values[i], sr))
+                report(0.9 + 0.1 * (i + 1) / len(cut))
 
-    lufs_values: list[float] = []
-    peaks: list[float] = []
-    for i, x in enumerate(cut):
-        lufs, tp = _measure(x, sr)
-        if lufs is None or tp is None:
-            raise BuildError(
-                f"variant {i + 1} is silent in the excerpt from {start_s:g} s "
-                f"({length_s:g} s long), so it cannot be level-matched; choose "
-                "another excerpt"
-            )
-        lufs_values.append(lufs)
-        peaks.append(tp)
     common = common_level(lufs_values, peaks)
-    audio_dir = folder / "audio"
-    audio_dir.mkdir(exist_ok=True)
     out_variants = []
-    for i, x in enumerate(cut):
-        gain_db = common - lufs_values[i]
-        y = x * np.float32(10.0 ** (gain_db / 20.0))
-        path = audio_dir / f"{i}.wav"
-        write_audio(path, y, sr, subtype=TRIAL_SUBTYPE)
-        back, _ = read_audio(path)
-        after_lufs, after_tp = _measure(back, sr)
+    for i, (after_lufs, after_tp) in enumerate(matched):
         out_variants.append(
             {
                 "index": i,
                 "measured_lufs": round(lufs_values[i], 3),
                 "true_peak_dbtp": round(peaks[i], 3),
-                "gain_db": round(gain_db, 3),
+                "gain_db": round(gain_values[i], 3),
                 "matched_lufs": None if after_lufs is None else round(after_lufs, 3),
                 "matched_true_peak_dbtp": None if after_tp is None else round(after_tp, 3),
                 "file": f"audio/{i}.wav",
             }
         )
-        report(0.9 + 0.1 * (i + 1) / len(cut))
     return {
         "excerpt": {
             "start": round(start_f / sr, 6),

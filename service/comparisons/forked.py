@@ -2,14 +2,16 @@
 
 A fresh build child spends a second or more importing numpy and scipy and loading the
 HRIR set before it renders anything, and a listener is waiting for it. A worker started
-by ``earfold serve`` imports the renderer once (:func:`warm_up`) and forks each build
-from itself: the fork starts with everything loaded and shares the cached HRIR set.
+by ``earfold serve`` runs builds in its warm render process
+(:mod:`earfold.service.jobs.warm`); with that turned off (``EARFOLD_WARM_PROCESS=0``) it
+imports the renderer once (:func:`warm_up`) and forks each build from itself: the fork
+starts with everything loaded and shares the cached HRIR set.
 :class:`ForkedBuild` looks to the worker like the ``subprocess.Popen`` of a build child
 (the same JSON-lines protocol on its ``stdout``), so the worker's lease, progress and
 cancel handling stay the same.
 
-Renders keep their own fresh child: they are batch work, and a clean process per render
-bounds their memory.
+In that mode renders keep a fresh child each (in the warm process they share it, which
+retires past a memory bound, earfold.service.jobs.warm_host).
 """
 
 from __future__ import annotations

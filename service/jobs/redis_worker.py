@@ -23,7 +23,14 @@ from typing import TYPE_CHECKING, cast
 from ..settings import ServiceSettings
 from .parent_watch import die_with_parent, expected_parent, parent_gone
 from .queue import QueueUnavailable
-from .worker import RECOVER_INTERVAL_S, SETTINGS_ENV, WORKER_NICENESS, Worker, lower_priority
+from .worker import (
+    RECOVER_INTERVAL_S,
+    SETTINGS_ENV,
+    WORKER_NICENESS,
+    Worker,
+    lower_priority,
+    use_warm_process,
+)
 
 if TYPE_CHECKING:
     from .redis_store import RedisJobQueue
@@ -102,10 +109,15 @@ def main() -> int:
     logging.getLogger("dramatiq").setLevel(logging.ERROR)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = RedisWorker(settings)
+    warm = use_warm_process(worker.worker, fork_builds=False)
     signal.signal(signal.SIGTERM, lambda *_: worker.stop())
     signal.signal(signal.SIGINT, lambda *_: worker.stop())
     started = time.monotonic()
-    worker.run()
+    try:
+        worker.run()
+    finally:
+        if warm is not None:
+            warm.close()
     worker.queue.close()
     log.debug("worker %s stopped after %.0f s", worker.name, time.monotonic() - started)
     return 0

@@ -7,6 +7,11 @@ reports progress, and kills the child when the job is cancelled or its lease is 
 A child that dies without a word (a crash, the OOM killer) puts the job back in the
 queue with the attempt counted; after ``max_attempts`` the job fails with a message
 that says why.
+
+Started by ``earfold serve``, a worker keeps that child warm between jobs
+(:mod:`.warm`, :mod:`.warm_host`): started ahead with its imports done and the default
+HRIR set loaded, so a claimed job starts computing at once, and replaced whenever a job
+did not end well. ``EARFOLD_WARM_PROCESS=0`` starts a fresh child per job instead.
 """
 
 from __future__ import annotations
@@ -21,7 +26,7 @@ import threading
 import time
 import uuid
 from pathlib import Path
-from typing import IO, Protocol
+from typing import IO, Protocol, cast
 
 from ..job_inputs import resolve_job_inputs
 from ..settings import ServiceSettings
@@ -30,10 +35,19 @@ from .factory import open_queue
 from .parent_watch import PARENT_ENV, die_with_parent, expected_parent, parent_gone
 from .queue import Job, JobQueue, QueueUnavailable
 from .render_child import DISK_FULL_MESSAGE, EXIT_DISK_FULL, discard_outputs
+from .warm import HostedJob, WarmSlot
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
 
-__all__ = ["PARENT_ENV", "SETTINGS_ENV", "Worker", "child_environment", "main"]
+__all__ = [
+    "PARENT_ENV",
+    "SETTINGS_ENV",
+    "WARM_ENV",
+    "Worker",
+    "child_environment",
+    "main",
+    "use_warm_process",
+]
 
 
 class ChildProcess(Protocol):
@@ -157,8 +171,13 @@ class Worker:
         #: "comparison"; it speaks the render child's protocol).
         self.comparison_command = [sys.executable, "-m", "earfold.service.comparisons.build_child"]
         #: Fork comparison builds from this (warmed-up) process instead of starting
-        #: ``comparison_command`` (earfold.service.comparisons.forked); ``main`` turns it on.
+        #: ``comparison_command`` (earfold.service.comparisons.forked).
         self.fork_builds = False
+        #: The warm render process that runs this worker's jobs (renders and builds) one
+        #: after the other (:mod:`.warm`); ``main`` sets it up. Without it, every job
+        #: starts a fresh child (``child_command``, ``comparison_command``).
+        self.warm: WarmSlot | None = None
+        self._warm_busy = threading.Lock()
 
     def stop(self) -> None:
         self._stop.set()
@@ -186,7 +205,7 @@ class Worker:
 
     def run_job(self, job: Job) -> None:
         """Render one claimed job in a child process and record how it ended."""
-        q, s = self.queue, self.settings
+        q = self.queue
         comparison = job.payload.get("kind") == COMPARISON_KIND
         try:
             if comparison:
@@ -200,6 +219,21 @@ class Worker:
             what = "the comparison" if comparison else "the render"
             q.fail(job.id, self.name, f"cannot start {what}: {detail}")
             return
+        hosted: HostedJob | None = None
+        warm = self.warm
+        if warm is not None and self._warm_busy.acquire(blocking=False):
+            try:
+                hosted = warm.start("comparison" if comparison else "render", spec)
+                self._watch(job, spec, cast(ChildProcess, hosted))
+            finally:
+                if hosted is not None:
+                    warm.finished(hosted, restart=not self._stop.is_set())
+                self._warm_busy.release()
+        else:
+            self._watch(job, spec, self._fresh_child(spec, comparison))
+
+    def _fresh_child(self, spec: dict, comparison: bool) -> ChildProcess:
+        """A process of its own for one job: forked (a build) or started."""
         proc: ChildProcess
         if comparison and self.fork_builds:
             from ..comparisons.forked import ForkedBuild
@@ -215,20 +249,34 @@ class Worker:
                 cwd=os.getcwd(),
                 env=child_environment(),
             )
+        return proc
+
+    def _watch(self, job: Job, spec: dict, proc: ChildProcess) -> None:
+        """Keep the lease of ``job`` while ``proc`` runs it, then record how it ended."""
+        q, s = self.queue, self.settings
         messages: list[dict] = []
         latest = {"progress": 0.0}
+        # Wakes the lease loop early: at the first progress (so it is reported at once,
+        # not a tick later) and when the child's output ends (so the job's end is
+        # recorded at once).
+        wake = threading.Event()
 
         def read() -> None:
             assert proc.stdout is not None
-            for line in proc.stdout:
-                try:
-                    msg = json.loads(line)
-                except ValueError:
-                    continue
-                if "progress" in msg:
-                    latest["progress"] = float(msg["progress"])
-                else:
-                    messages.append(msg)
+            try:
+                for line in proc.stdout:
+                    try:
+                        msg = json.loads(line)
+                    except ValueError:
+                        continue
+                    if "progress" in msg:
+                        if latest["progress"] <= 0.0:
+                            wake.set()
+                        latest["progress"] = float(msg["progress"])
+                    else:
+                        messages.append(msg)
+            finally:
+                wake.set()
 
         reader = threading.Thread(target=read, daemon=True)
         reader.start()
@@ -244,7 +292,14 @@ class Worker:
         handed_back = False
         unreachable_since: float | None = None
         while proc.poll() is None:
-            time.sleep(s.tick_s)
+            if reader.is_alive():
+                wake.wait(s.tick_s)
+                wake.clear()
+            else:  # the output has ended: the child is exiting
+                try:
+                    proc.wait(s.tick_s)
+                except subprocess.TimeoutExpired:
+                    pass
             if proc.poll() is not None:
                 break
             try:
@@ -381,8 +436,34 @@ def main() -> int:
     lower_priority(WORKER_NICENESS)
     settings = ServiceSettings.from_json(os.environ[SETTINGS_ENV])
     worker = Worker(settings)
-    # Comparison builds fork from this process, so it loads what they need once, with
-    # the numeric libraries single-threaded as in every render child.
+    warm = use_warm_process(worker)
+    signal.signal(signal.SIGTERM, lambda *_: worker.stop())
+    signal.signal(signal.SIGINT, lambda *_: worker.stop())
+    try:
+        worker.run()
+    finally:
+        if warm is not None:
+            warm.close()
+    worker.queue.close()
+    return 0
+
+
+#: Environment variable that turns the warm render process off (``0``): every job then
+#: starts a fresh child and comparison builds fork from the worker, as before the warm
+#: process existed (a fallback, and the baseline of the start-up measurements).
+WARM_ENV = "EARFOLD_WARM_PROCESS"
+
+
+def use_warm_process(worker: Worker, *, fork_builds: bool = True) -> WarmSlot | None:
+    """Give ``worker`` its warm render process, started now so that it loads what jobs
+    need while the worker waits for the first one; with :data:`WARM_ENV` ``=0`` instead,
+    and ``fork_builds``, fork comparison builds from this process (loaded here, once)."""
+    if os.environ.get(WARM_ENV, "1").strip() != "0":
+        worker.warm = WarmSlot(child_environment())
+        worker.warm.prepare()
+        return worker.warm
+    if not fork_builds:
+        return None
     os.environ.update(SINGLE_THREADED)
     from ..comparisons.forked import warm_up
 
@@ -391,11 +472,7 @@ def main() -> int:
     except Exception:  # noqa: BLE001 - a build reports such a problem itself, with context
         pass
     worker.fork_builds = True
-    signal.signal(signal.SIGTERM, lambda *_: worker.stop())
-    signal.signal(signal.SIGINT, lambda *_: worker.stop())
-    worker.run()
-    worker.queue.close()
-    return 0
+    return None
 
 
 if __name__ == "__main__":

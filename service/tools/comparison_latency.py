@@ -15,12 +15,20 @@ session every ``POLL_S`` until it is ready, and downloads every label's audio of
 trial. It prints, per run and as the median, the POST's own latency, POST-to-ready and
 POST-to-playable (ready and the first trial's audio received; the browser's decoding is
 not included), in seconds to the millisecond, with the poll interval as resolution.
+
+``--modes fresh,warm`` compares how builds start instead: each round starts one spawned
+server per mode in turn, ``fresh`` with ``EARFOLD_WARM_PROCESS=0`` (each build forks from
+its worker, which loaded the renderer once) and ``warm`` as shipped (each build runs in
+the worker's warm render process, which keeps the HRIR sets it loaded); the modes
+alternate for ``--rounds`` rounds so both see the same machine load, and per mode the
+best round's median is printed.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
 import statistics
 import sys
 import time
@@ -101,6 +109,37 @@ def measure(
     }
 
 
+#: The environment variable that turns the warm render process off (see
+#: earfold.service.jobs.worker.WARM_ENV; repeated so this tool does not import the worker).
+WARM_ENV = "EARFOLD_WARM_PROCESS"
+
+MODES = {"fresh": "0", "warm": "1"}
+
+
+def compare_modes(args: argparse.Namespace, modes: list[str], start: float | None) -> dict:
+    """Alternate one spawned server per mode for ``args.rounds`` rounds."""
+    rounds = []
+    before = os.environ.get(WARM_ENV)
+    try:
+        for _ in range(args.rounds):
+            row = {}
+            for mode in modes:
+                os.environ[WARM_ENV] = MODES[mode]
+                with LocalServer(workers=args.workers) as server:
+                    time.sleep(args.settle)
+                    row[mode] = measure(
+                        server.url, None, args.runs, args.stem_seconds, args.length, start
+                    )
+            rounds.append(row)
+    finally:
+        if before is None:
+            os.environ.pop(WARM_ENV, None)
+        else:
+            os.environ[WARM_ENV] = before
+    best = {m: min((r[m]["median"] for r in rounds), key=lambda x: x["playable_s"]) for m in modes}
+    return {"rounds": rounds, "best_round_median": best}
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--url", help="a running server (loopback only); default: start one")
@@ -112,8 +151,31 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--start", type=float, default=20.0, help="excerpt start (s)")
     p.add_argument("--auto", action="store_true", help="automatic excerpt (loudest window)")
     p.add_argument("--json", action="store_true", help="print JSON only")
+    p.add_argument("--modes", help="compare build start-up: comma-separated fresh, warm")
+    p.add_argument("--rounds", type=int, default=2, help="rounds of --modes")
+    p.add_argument("--settle", type=float, default=4.0, help="idle wait after start (s)")
     args = p.parse_args(argv)
     start = None if args.auto else args.start
+    if args.modes:
+        modes = [m.strip() for m in args.modes.split(",") if m.strip()]
+        if args.url or not modes or any(m not in MODES for m in modes):
+            p.error(f"--modes takes {', '.join(MODES)} and spawns its own servers (no --url)")
+        if not 1 <= args.rounds <= 10:
+            p.error("--rounds 1-10")
+        compared = compare_modes(args, modes, start)
+        if args.json:
+            print(json.dumps(compared, indent=2))
+            return 0
+        for i, row in enumerate(compared["rounds"], 1):
+            for mode, res in row.items():
+                m = res["median"]
+                print(
+                    f"round {i} {mode:>5}: ready {m['ready_s']:.3f} s, first trial playable "
+                    f"{m['playable_s']:.3f} s (median of {len(res['runs'])})"
+                )
+        for mode, m in compared["best_round_median"].items():
+            print(f"best round, {mode:>5}: playable {m['playable_s']:.3f} s")
+        return 0
     if args.url:
         out = measure(
             require_loopback(args.url), args.token, args.runs, args.stem_seconds, args.length, start

@@ -227,3 +227,38 @@ def test_a_silent_variant_cannot_be_matched(tmp_path):
 def test_the_result_is_json(built):
     _, out = built
     assert json.loads(json.dumps(out)) == out
+
+
+def test_a_build_over_two_processes_equals_the_one_process_build(built, tmp_path):
+    """Rendering, measuring and writing spread over forked processes: the same trial
+    files byte for byte and the same figures as one process doing it all."""
+    folder, out = built
+    variants = [
+        {"layout": "5.1"},
+        {"layout": "5.1", "room": "small"},
+        {
+            "layout": "5.1",
+            "channel_order": ["L", "R", "LFE", "C", "Ls", "Rs"],
+            "hrtf": "rigid-sphere",
+        },
+    ]
+    spread = build(
+        [str(folder / "s.wav")], variants, {"start": 2.0, "length": 4.0}, tmp_path, processes=2
+    )
+    assert spread == out
+    for v in out["variants"]:
+        assert (tmp_path / v["file"]).read_bytes() == (folder / v["file"]).read_bytes()
+    assert not list(tmp_path.glob(".build-*"))  # the renders' scratch is gone
+
+
+def test_a_silent_variant_stops_a_build_over_two_processes(tmp_path):
+    write_audio(tmp_path / "s.wav", np.zeros((FS * 2, 6), np.float32), FS)
+    with pytest.raises(BuildError, match="variant 1 is silent"):
+        build(
+            [str(tmp_path / "s.wav")],
+            [{"layout": "5.1"}, {"layout": "5.1"}],
+            {"start": 0.0, "length": 1.0},
+            tmp_path,
+            processes=2,
+        )
+    assert not (tmp_path / "audio").exists() or not any((tmp_path / "audio").iterdir())
