@@ -47,7 +47,21 @@ EXIT_RETIRED = 0
 
 
 def peak_rss_bytes() -> int:
-    """This process's peak resident memory (bytes; ``ru_maxrss`` is in KiB on Linux)."""
+    """This process's own peak resident memory (bytes).
+
+    On Linux ``VmHWM`` of ``/proc/self/status``: the high-water mark of this program's
+    memory, which starts afresh at ``exec``. Not ``ru_maxrss``: Linux keeps that across
+    ``fork`` and ``exec``, so a host started by a parent that once used more than
+    :data:`MAX_RSS_BYTES` would read the parent's peak and retire after every job.
+    Elsewhere ``ru_maxrss`` (KiB on Linux, bytes on macOS).
+    """
+    try:
+        with open("/proc/self/status", encoding="ascii", errors="replace") as status:
+            for line in status:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     return int(peak) * (1 if sys.platform == "darwin" else 1024)
 

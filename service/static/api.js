@@ -32,7 +32,7 @@ function authHeaders(extra = {}) {
 /** Hook the page sets to be told about a 401 (it then asks for a token). */
 export const hooks = { unauthorized: () => {} };
 
-async function problem(response) {
+async function problem(response, sentToken = getToken()) {
   let body = null;
   let detail = `${response.status} ${response.statusText}`;
   try {
@@ -41,12 +41,19 @@ async function problem(response) {
   } catch {
     /* not JSON: keep the status line */
   }
-  if (response.status === 401) hooks.unauthorized(detail);
-  return new ApiError(response.status, detail, body);
+  // A 401 to a request sent before a token was given (or changed) is stale: the page has
+  // a token now, so it must not ask again; the error says so (tokenChanged) and the caller
+  // may simply ask again.
+  const tokenChanged = response.status === 401 && getToken() !== sentToken;
+  if (response.status === 401 && !tokenChanged) hooks.unauthorized(detail);
+  const error = new ApiError(response.status, detail, body);
+  error.tokenChanged = tokenChanged;
+  return error;
 }
 
 /** fetch() with the token; JSON answers parsed, problem details thrown as ApiError. */
 export async function api(path, { method = "GET", json, body, headers = {} } = {}) {
+  const sentToken = getToken();
   const init = { method, headers: authHeaders(headers) };
   if (json !== undefined) {
     init.body = JSON.stringify(json);
@@ -60,7 +67,7 @@ export async function api(path, { method = "GET", json, body, headers = {} } = {
   } catch (err) {
     throw new ApiError(0, `the server cannot be reached (${err.message})`, null);
   }
-  if (!response.ok) throw await problem(response);
+  if (!response.ok) throw await problem(response, sentToken);
   if (response.status === 204) return null;
   const type = response.headers.get("Content-Type") || "";
   return type.includes("json") ? response.json() : response;

@@ -140,6 +140,10 @@ export function mountBlindTests(root) {
       state.comparisons = await api("/v1/comparisons");
       state.listError = null;
     } catch (err) {
+      if (err.status === 401 && err.tokenChanged) {
+        refreshList(); // sent before the token was given: ask again with it
+        return;
+      }
       if (err.status === 401) {
         // The token prompt is open (chrome.js); list again once a token is given.
         state.listError = "this server needs an API token";
@@ -148,6 +152,13 @@ export function mountBlindTests(root) {
         return;
       }
       state.listError = err.status === 404 ? "this server has no blind tests (GET /v1/comparisons answered 404)" : err.message;
+      if (err.status === 0) {
+        // Not reached (a busy or restarting server, a dropped connection): say so and try
+        // again, so the list comes back by itself.
+        renderList();
+        state.pollTimer = setTimeout(refreshList, 2 * POLL_MS);
+        return;
+      }
     }
     // Older servers do not name the stem in the list: look the names up once.
     const unknown = [...new Set(state.comparisons.filter((c) => !c.stem_name).map((c) => c.stem_id))]

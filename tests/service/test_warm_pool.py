@@ -243,3 +243,24 @@ def test_same_output_bytes_through_the_warm_process(make_client, tmp_path, slot)
     a = read_audio(client.app.state.storage.root / "renders" / job["id"] / "output.wav")[0]
     b = read_audio(client.app.state.storage.root / "renders" / fresh["id"] / "output.wav")[0]
     assert_array_equal(a, b)
+
+
+def test_a_host_reads_its_own_peak_memory_not_its_parents():
+    # Linux keeps ru_maxrss across fork and exec: a host started by a parent that once held
+    # 400 MB would read 400 MB. Its own high-water mark (VmHWM) starts afresh at exec. This
+    # failed the whole suite once: the test process had grown past the 1 GiB bound, so every
+    # warm host retired after its first job.
+    import subprocess
+    import sys
+
+    code = (
+        "import numpy as np, subprocess, sys\n"
+        "held = np.ones(400 << 20, dtype=np.uint8)\n"
+        "held[::4096] = 2\n"
+        "out = subprocess.run([sys.executable, '-c', 'from earfold.service.jobs.warm_host "
+        "import peak_rss_bytes; print(peak_rss_bytes())'], capture_output=True, text=True,"
+        " check=True).stdout\n"
+        "print(out.strip())\n"
+    )
+    child = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert int(child.stdout.strip()) < 300 << 20, child.stdout
