@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 
-__all__ = ["minimum_phase_spectrum"]
+__all__ = ["minimum_phase_spectrum", "sos_response"]
 
 
 def minimum_phase_spectrum(
@@ -47,3 +47,33 @@ def minimum_phase_spectrum(
     folded[nfft // 2] = cepstrum[nfft // 2]
     spectrum: npt.NDArray[np.complex128] = np.exp(np.fft.rfft(folded))
     return spectrum
+
+
+def sos_response(
+    sos: npt.ArrayLike, freqs: npt.ArrayLike, samplerate: float
+) -> npt.NDArray[np.complex128]:
+    """Frequency response of a cascade of biquads at ``freqs`` (Hz), without scipy.signal.
+
+    Each section ``[b0, b1, b2, a0, a1, a2]`` is evaluated on the unit circle,
+    ``z = exp(2j pi f / fs)``: ``H(z) = (b0 + b1 z^-1 + b2 z^-2) / (a0 + a1 z^-1 + a2
+    z^-2)``, and the sections multiply. The same values as
+    ``scipy.signal.sosfreqz(sos, worN=freqs, fs=samplerate)[1]`` (a test compares them),
+    for callers that must not pay ``scipy.signal``'s import (a render's start-up).
+
+    Examples
+    --------
+    A pure delay of one sample has unit magnitude and a phase of ``-2 pi f / fs``:
+
+    >>> import numpy as np
+    >>> h = sos_response([[0.0, 1.0, 0.0, 1.0, 0.0, 0.0]], [0.0, 12000.0], 48000.0)
+    >>> np.round(np.abs(h), 12).tolist(), np.round(np.angle(h), 12).tolist()
+    ([1.0, 1.0], [0.0, -1.570796326795])
+    """
+    sections = np.atleast_2d(np.asarray(sos, dtype=np.float64))
+    if sections.ndim != 2 or sections.shape[1] != 6:
+        raise ValueError(f"sos must have shape (sections, 6), got {sections.shape!r}")
+    zinv = np.exp(-2j * np.pi * np.asarray(freqs, dtype=np.float64) / float(samplerate))
+    h = np.ones(zinv.shape, dtype=np.complex128)
+    for b0, b1, b2, a0, a1, a2 in sections:
+        h *= (b0 + zinv * (b1 + zinv * b2)) / (a0 + zinv * (a1 + zinv * a2))
+    return h

@@ -28,6 +28,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..loudness import k_weighting_sos
+from ..signals import sos_response
 
 #: Band of the reference pink noise (Hz): the audio band.
 PINK_BAND_HZ = (20.0, 20000.0)
@@ -46,13 +47,11 @@ def pink_band(samplerate: float) -> tuple[float, float]:
 
 def reference_weighting(freqs: NDArray[np.float64], samplerate: float) -> NDArray[np.float64]:
     """``K(f)^2 S(f)``: the K-weighted pink reference spectrum on ``freqs`` (per bin)."""
-    from scipy import signal
-
     lo, hi = pink_band(samplerate)
     pink = np.zeros_like(freqs, dtype=float)
     band = (freqs >= lo) & (freqs <= hi)
     pink[band] = 1.0 / freqs[band]
-    _, k = signal.sosfreqz(k_weighting_sos(samplerate), worN=freqs, fs=samplerate)
+    k = sos_response(k_weighting_sos(samplerate), freqs, samplerate)
     return cast(NDArray[np.float64], pink * np.abs(k) ** 2)
 
 
