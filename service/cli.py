@@ -173,10 +173,6 @@ def _cache_off(off: bool) -> Iterator[None]:
 def cmd_render(args: argparse.Namespace) -> int:
     from earfold.renderer.render import render
 
-    from .cli_imports import import_signal_deferring_stats
-
-    import_signal_deferring_stats()
-
     settings = render_settings_from_args(args)
     progress = _Progress("rendering", enabled=False if args.quiet else None)
     report_path = (

@@ -36,7 +36,6 @@ from typing import Any, cast
 import numpy as np
 import scipy.fft
 from numpy.typing import NDArray
-from scipy.spatial import SphericalVoronoi
 
 from ..engine import DEFAULT_BLOCK_SIZE
 from ..errors import EqualisationError, shown
@@ -140,6 +139,8 @@ def voronoi_areas(directions: NDArray[np.float64]) -> NDArray[np.float64]:
             f"{len(unique)} distinct directions do not span the sphere; no Voronoi weights"
         )
     unique = unique / np.linalg.norm(unique, axis=1, keepdims=True)
+    from scipy.spatial import SphericalVoronoi
+
     try:
         sv = SphericalVoronoi(unique, radius=1.0, center=np.zeros(3))
     except ValueError as exc:

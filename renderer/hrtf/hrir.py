@@ -26,15 +26,17 @@ import os
 from dataclasses import dataclass, field, fields
 from fractions import Fraction
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from ..errors import HrirError, shown
 from ..geometry import angle_between, normalize, vector_to_direction
 from ._sofa_data import MAX_VALUES
 from .guard import is_shipped, read_sofa_guarded
+if TYPE_CHECKING:  # scipy.spatial is imported where a grid is built, not by a cached render
+    from scipy.spatial import ConvexHull, cKDTree
+
 from .onsets import (
     cross_correlation_itd,
     fractional_delay,
@@ -386,6 +388,8 @@ class HrirSet:
 
 
 def _build_grid(directions: np.ndarray, name: str) -> _Grid:
+    from scipy.spatial import ConvexHull, QhullError, cKDTree
+
     tree = cKDTree(directions)
     m = len(directions)
     if m >= 2:

@@ -28,7 +28,6 @@ import os
 from collections.abc import Mapping
 from typing import cast
 
-import netCDF4
 import numpy as np
 import numpy.typing as npt
 
@@ -147,6 +146,8 @@ def read_sofa(path: str | os.PathLike[str], *, emitter: int | None = None) -> So
     check_file(p, label)
     try:
         # netCDF4's own types are richer than the helpers need: they see the protocol.
+        import netCDF4  # here: a render whose set comes from the cache never loads it
+
         ds = cast(NcDataset, netCDF4.Dataset(p, "r"))
     except NC_ERRORS as exc:
         raise SofaError(
@@ -232,6 +233,8 @@ def write_sofa(
     with AtomicPath(p) as spot:
         # The temporary file exists (created empty, so that no other writer can take its
         # name); netCDF truncates it.
+        import netCDF4
+
         ds = cast(NcDataset, netCDF4.Dataset(spot.tmp, "w", clobber=True, format="NETCDF4"))
         try:
             fill_dataset(ds, contents)

@@ -12,7 +12,7 @@ import dataclasses
 import functools
 import os
 import stat
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -303,12 +303,73 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
         eq_report["headphone"] = headphone.report
 
-    room_filters, room_report = None, None
     if settings.room_mode not in ROOM_MODES:
         raise RendererError(
             f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
         )
     requested_room = get_room(settings.room)
+    bank_key = (
+        None
+        if cache is None or set_key is None
+        else _bank_key(set_key, layout, order, requested_room, settings)
+    )
+    if cache is not None and bank_key is not None:
+        found = cache.get("bank", bank_key, _bank_entry_ok(stem.channels))
+        if found is not None:
+            return _restored_plan(
+                found,
+                stem,
+                hset,
+                warnings,
+                notes,
+                eq_report,
+                headphone,
+                layout=layout,
+                order=order,
+                order_source=order_source,
+                solo=solo,
+            )
+    added, added_notes = len(warnings), len(notes)
+    plan = _built_plan(
+        stem,
+        hset,
+        settings,
+        requested_room,
+        set_key,
+        cache,
+        warnings,
+        notes,
+        eq_report,
+        headphone,
+        layout=layout,
+        order=order,
+        order_source=order_source,
+        solo=solo,
+    )
+    if cache is not None and bank_key is not None:
+        cache.put("bank", bank_key, *_bank_entry(plan, warnings[added:], notes[added_notes:]))
+    return plan
+
+
+def _built_plan(
+    stem: StemInfo,
+    hset: HrirSet,
+    settings: RenderSettings,
+    requested_room: Room | None,
+    set_key: dict[str, Any] | None,
+    cache: FilterCache | None,
+    warnings: list[str],
+    notes: list[str],
+    eq_report: dict[str, Any],
+    headphone: HeadphoneEq | None,
+    *,
+    layout: Layout,
+    order: tuple[int, ...],
+    order_source: str,
+    solo: dict[str, Any] | None,
+) -> RenderPlan:
+    """The plan's filter bank computed: the feeds of every channel, the room, calibration."""
+    room_filters, room_report = None, None
     if requested_room is not None and _is_measured_room(hset):
         warnings.append(
             f"HRTF set {hset.name!r} already holds room responses (RoomType "
@@ -641,6 +702,158 @@ def _keep_lookups(hset: HrirSet, key: dict[str, Any] | None, cache: FilterCache 
     cache.put("lookup", key, state, {})
 
 
+def _layout_key(layout: Layout) -> dict[str, Any]:
+    """A layout as a cache key: its name and every loudspeaker's label and position."""
+    return {
+        "name": layout.name,
+        "speakers": [
+            [s.label, s.azimuth, s.elevation, s.distance, s.lfe, s.spread] for s in layout.speakers
+        ],
+    }
+
+
+def _bank_key(
+    set_key: dict[str, Any],
+    layout: Layout,
+    order: tuple[int, ...],
+    room: Room | None,
+    settings: RenderSettings,
+) -> dict[str, Any]:
+    """Everything the calibrated filter bank is computed from (besides the stem's rate,
+    which the set's key holds): the prepared set, the layout and channel order, the LFE,
+    the room with its seed and mode, and the soloed loudspeaker."""
+    return {
+        "set": set_key,
+        "layout": _layout_key(layout),
+        "order": list(order),
+        "lfe": dataclasses.asdict(settings.lfe),
+        "room": None if room is None else dataclasses.asdict(room),
+        "room_mode": settings.room_mode if room is not None else None,
+        "seed": int(settings.seed) if room is not None else None,
+        "solo": settings.solo,
+    }
+
+
+_FEED_FIELDS = ("label", "lfe", "tail_weight", "report")
+
+
+def _bank_entry(
+    plan: RenderPlan, warnings: list[str], notes: list[str]
+) -> tuple[dict[str, NDArray[Any]], dict[str, Any]]:
+    """What a plan's bank leaves in the cache: the calibrated filters and tail, and the
+    report's parts that came with them (feeds, room, calibration, warnings, notes)."""
+    arrays: dict[str, NDArray[Any]] = {"filters": plan.filters}
+    if plan.tail is not None and plan.tail_weights is not None:
+        arrays.update(tail=plan.tail, tail_weights=plan.tail_weights)
+    room = None if plan.room is None else {k: v for k, v in plan.room.items() if k != "cache"}
+    meta = {
+        "feeds": [{f: getattr(feed, f) for f in _FEED_FIELDS} for feed in plan.feeds],
+        "tail_offset": int(plan.tail_offset),
+        "room": room,
+        "calibration": plan.calibration,
+        "warnings": warnings,
+        "notes": notes,
+    }
+    return arrays, meta
+
+
+def _bank_entry_ok(channels: int) -> Callable[[Any, Any], bool]:
+    """The check of a stored bank for a stem of ``channels`` channels."""
+
+    def whole(arrays: Any, meta: Any) -> bool:
+        names = set(arrays)
+        if names not in ({"filters"}, {"filters", "tail", "tail_weights"}):
+            return False
+        if any(a.dtype != np.float64 for a in arrays.values()):
+            return False
+        filters = arrays["filters"]
+        if not (filters.ndim == 3 and filters.shape[:2] == (channels, 2) and filters.shape[2]):
+            return False
+        if "tail" in names:
+            tail, weights = arrays["tail"], arrays["tail_weights"]
+            if not (tail.ndim == 2 and tail.shape[0] == 2 and tail.shape[1] > 0):
+                return False
+            if weights.shape != (channels,):
+                return False
+        feeds, offset = meta.get("feeds"), meta.get("tail_offset")
+        return bool(
+            isinstance(feeds, list)
+            and len(feeds) == channels
+            and all(
+                isinstance(f, dict)
+                and set(f) == set(_FEED_FIELDS)
+                and isinstance(f["label"], str)
+                and isinstance(f["lfe"], bool)
+                and isinstance(f["tail_weight"], (int, float))
+                and isinstance(f["report"], dict)
+                for f in feeds
+            )
+            and isinstance(offset, int)
+            and offset >= 0
+            and (meta.get("room") is None or isinstance(meta.get("room"), dict))
+            and isinstance(meta.get("calibration"), dict)
+            and all(
+                isinstance(meta.get(k), list) and all(isinstance(t, str) for t in meta[k])
+                for k in ("warnings", "notes")
+            )
+        )
+
+    return whole
+
+
+def _restored_plan(
+    found: tuple[dict[str, NDArray[Any]], dict[str, Any]],
+    stem: StemInfo,
+    hset: HrirSet,
+    warnings: list[str],
+    notes: list[str],
+    eq_report: dict[str, Any],
+    headphone: HeadphoneEq | None,
+    *,
+    layout: Layout,
+    order: tuple[int, ...],
+    order_source: str,
+    solo: dict[str, Any] | None,
+) -> RenderPlan:
+    """The plan from a stored bank (checked by :func:`_bank_entry_ok`): the same filters,
+    report sections, warnings and notes as the plan that stored it. Each feed's
+    ``filters`` is its row of the calibrated bank."""
+    arrays, meta = found
+    filters = arrays["filters"]
+    feeds = tuple(
+        ChannelFeed(
+            label=f["label"],
+            filters=filters[i],
+            lfe=f["lfe"],
+            tail_weight=float(f["tail_weight"]),
+            report=f["report"],
+        )
+        for i, f in enumerate(meta["feeds"])
+    )
+    room = None if meta["room"] is None else {**meta["room"]}
+    if room is not None and room.get("synthetic"):
+        room["cache"] = REUSED
+    return RenderPlan(
+        stem=stem,
+        feeds=feeds,
+        hrir_set=hset,
+        filters=filters,
+        warnings=(*warnings, *meta["warnings"]),
+        layout=layout,
+        order=order,
+        order_source=order_source,
+        tail=arrays.get("tail"),
+        tail_weights=arrays.get("tail_weights"),
+        tail_offset=meta["tail_offset"],
+        room=room,
+        eq=eq_report,
+        calibration=meta["calibration"],
+        headphone=headphone,
+        notes=(*notes, *meta["notes"]),
+        solo=solo,
+    )
+
+
 def _prepared_room(
     hset: HrirSet,
     layout: Layout,
@@ -659,13 +872,7 @@ def _prepared_room(
         return _room_filters(hset, layout, room, samplerate, seed), UNCACHED
     key = {
         "set": set_key,
-        "layout": {
-            "name": layout.name,
-            "speakers": [
-                [s.label, s.azimuth, s.elevation, s.distance, s.lfe, s.spread]
-                for s in layout.speakers
-            ],
-        },
+        "layout": _layout_key(layout),
         "room": dataclasses.asdict(room),
         "seed": int(seed),
         "samplerate": float(samplerate),

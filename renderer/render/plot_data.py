@@ -91,6 +91,13 @@ def third_octave_bands(
     return centres[keep], lower[keep], upper[keep]
 
 
+def periodic_hann(n: int) -> NDArray[np.float64]:
+    """The periodic Hann window of ``n`` points, ``0.5 - 0.5 cos(2 pi k / n)``: the
+    DFT-even window of Welch's method (Harris, Proc. IEEE 66(1), 1978), equal to
+    ``scipy.signal.get_window("hann", n)`` (a test compares them), in numpy alone."""
+    return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
+
+
 class SpectrumMeter:
     """Long-term average spectrum of a multichannel signal, fed block by block.
 
@@ -124,12 +131,10 @@ class SpectrumMeter:
     def __init__(
         self, samplerate: float, channels: int, nfft: int | None = None, stride: int = 1
     ) -> None:
-        from scipy import signal
-
         self.samplerate = float(samplerate)
         self.channels = int(channels)
         self.nfft = int(nfft or 1 << int(math.ceil(math.log2(0.68 * samplerate))))
-        self._window = signal.get_window("hann", self.nfft)  # periodic
+        self._window = periodic_hann(self.nfft)
         self._window32 = self._window.astype(np.float32)
         self._hop = self.nfft // 2
         self._buffer = np.zeros((0, self.channels), dtype=np.float32)
@@ -172,13 +177,11 @@ class SpectrumMeter:
         The bins of a column sum to the signal's mean square (Parseval, one-sided: every
         bin but DC and Nyquist counted twice).
         """
-        from scipy import signal
-
         if self._segments:
             power, window, n = self._power / self._segments, self._window, self.nfft
         elif len(self._buffer):
             n_own = len(self._buffer)
-            window = signal.get_window("hann", n_own) if n_own > 1 else np.ones(1)
+            window = periodic_hann(n_own) if n_own > 1 else np.ones(1)
             power = (
                 np.abs(
                     np.fft.rfft(

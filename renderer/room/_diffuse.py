@@ -11,7 +11,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import numpy.typing as npt
-from scipy.spatial import QhullError, SphericalVoronoi
 
 from ..defaults import SPEED_OF_SOUND
 from ..hrtf import HrirSet
@@ -80,6 +79,8 @@ def _direction_weights(directions: FloatArray) -> tuple[FloatArray, str]:
     m = len(directions)
     centred = directions - directions.mean(axis=0)
     if np.linalg.matrix_rank(centred, tol=1e-6) == 3:
+        from scipy.spatial import QhullError, SphericalVoronoi
+
         try:
             areas = SphericalVoronoi(directions, radius=1.0, threshold=1e-6).calculate_areas()
         except (ValueError, QhullError):

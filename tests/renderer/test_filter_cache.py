@@ -196,6 +196,8 @@ def _damage_and_replan(tmp_path, cache_dir, builds, damage):
     good = plan_render([stem], settings)
     (room_file,) = _files(cache_dir, "room")
     damage(room_file)
+    for bank in _files(cache_dir, "bank"):  # the bank built on the room: taken back first
+        bank.unlink()
     fc._PROCESS_MEMORY.clear()
     again = plan_render([stem], settings)
     assert builds["room"] == 2  # ignored and rebuilt
@@ -205,6 +207,75 @@ def _damage_and_replan(tmp_path, cache_dir, builds, damage):
     fc._PROCESS_MEMORY.clear()
     third = plan_render([stem], settings)
     assert builds["room"] == 2 and third.room is not None and third.room["cache"] == "reused"
+
+
+@pytest.fixture
+def banks(monkeypatch):
+    """Counts of the filter banks a plan computes (feeds, room share, calibration)."""
+    counts = {"built": 0}
+    real = plan_module.speaker_feeds
+
+    def spy(*args, **kwargs):
+        counts["built"] += 1
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(plan_module, "speaker_feeds", spy)
+    return counts
+
+
+def test_a_stored_bank_makes_the_same_plan_and_misses_when_any_part_changes(
+    tmp_path, cache_dir, builds, banks
+):
+    stem = _stem(tmp_path / "mix.wav")
+    base = RenderSettings(layout="5.1", room="small", seed=2)
+    fresh = plan_render([stem], base)
+    fc._PROCESS_MEMORY.clear()  # from the disk, as a new command
+    again = plan_render([stem], base)
+    assert banks["built"] == 1 and builds == {"load": 1, "equalise": 1, "room": 1}
+    np.testing.assert_array_equal(fresh.filters, again.filters)
+    assert fresh.tail is not None and again.tail is not None
+    np.testing.assert_array_equal(fresh.tail, again.tail)
+    np.testing.assert_array_equal(fresh.tail_weights, again.tail_weights)
+    assert fresh.tail_offset == again.tail_offset and fresh.length == again.length
+    assert fresh.speakers == again.speakers and fresh.calibration == again.calibration
+    assert fresh.warnings == again.warnings and fresh.notes == again.notes
+    assert again.room is not None and again.room["cache"] == "reused"
+    assert fresh.room is not None
+    assert {k: v for k, v in fresh.room.items() if k != "cache"} == {
+        k: v for k, v in again.room.items() if k != "cache"
+    }
+    # LFE, channel order, solo and room mode change the bank only: set and room are reused
+    for changed in (
+        dataclasses.replace(base, lfe=dataclasses.replace(base.lfe, gain_db=0.0)),
+        dataclasses.replace(base, channel_order="film"),
+        dataclasses.replace(base, solo="C"),
+        dataclasses.replace(base, room_mode="exact"),
+    ):
+        plan_render([stem], changed)
+    assert banks["built"] == 5 and builds == {"load": 1, "equalise": 1, "room": 1}
+    no_room = plan_render([stem], dataclasses.replace(base, room=None))
+    assert banks["built"] == 6 and no_room.tail is None
+    plan_render([stem], dataclasses.replace(base, room=None, seed=9))  # no room: seed unused
+    assert banks["built"] == 6
+
+
+def test_a_damaged_bank_is_ignored_and_rebuilt_from_the_set_and_room(
+    tmp_path, cache_dir, builds, banks
+):
+    stem = _stem(tmp_path / "mix.wav")
+    settings = RenderSettings(layout="5.1", room="small")
+    good = plan_render([stem], settings)
+    (bank,) = _files(cache_dir, "bank")
+    with np.load(bank, allow_pickle=False) as z:
+        members = {k: z[k] for k in z.files}
+    members["filters"] = members["filters"][:, :, :10]  # shapes still fine: a short bank
+    members["tail_weights"] = members["tail_weights"][:3]  # this one is not
+    with open(bank, "wb") as fh:
+        np.savez(fh, **members)
+    fc._PROCESS_MEMORY.clear()
+    again = plan_render([stem], settings)
+    assert banks["built"] == 2 and builds == {"load": 1, "equalise": 1, "room": 1}
+    np.testing.assert_array_equal(good.filters, again.filters)
 
 
 def test_a_corrupt_file_is_ignored_and_rebuilt(tmp_path, cache_dir, builds):
@@ -371,11 +442,11 @@ def test_cache_info_clear_and_render_no_cache(tmp_path, cache_dir, capsys):
     capsys.readouterr()
     assert main(["cache", "info", "--json"]) == 0
     info = json.loads(capsys.readouterr().out)
-    # the set, the room, and the set's prepared lookups
-    assert info["directory"] == str(cache_dir) and info["entries"] == 3 and info["bytes"] > 0
+    # the set, the room, the set's prepared lookups and the calibrated bank
+    assert info["directory"] == str(cache_dir) and info["entries"] == 4 and info["bytes"] > 0
     (cache_dir / "someone-elses.txt").write_text("kept")
     assert main(["cache", "clear"]) == 0
-    assert "removed 3 entries" in capsys.readouterr().out
+    assert "removed 4 entries" in capsys.readouterr().out
     assert [p.name for p in cache_dir.iterdir()] == ["someone-elses.txt"]
     assert main(["cache", "info"]) == 0
     assert "entries  0" in capsys.readouterr().out
