@@ -34,9 +34,6 @@ from ..errors import HrirError, shown
 from ..geometry import angle_between, normalize, vector_to_direction
 from ._sofa_data import MAX_VALUES
 from .guard import is_shipped, read_sofa_guarded
-if TYPE_CHECKING:  # scipy.spatial is imported where a grid is built, not by a cached render
-    from scipy.spatial import ConvexHull, cKDTree
-
 from .onsets import (
     cross_correlation_itd,
     fractional_delay,
@@ -44,6 +41,9 @@ from .onsets import (
     onset_times,
 )
 from .sofa import SofaData, read_sofa
+
+if TYPE_CHECKING:  # scipy.spatial is imported where a grid is built, not by a cached render
+    from scipy.spatial import ConvexHull, cKDTree
 
 #: A requested direction this close (degrees) to a measured one uses that measurement as it is.
 MEASURED_TOLERANCE_DEG = 0.01
