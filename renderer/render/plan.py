@@ -48,6 +48,7 @@ from .feeds import ChannelFeed, speaker_feeds
 from .filter_cache import FilterCache, default_filter_cache
 from .fold import FOLD_CHOICES, fold_feeds, fold_section
 from .options import ROOM_MODES, RenderSettings
+from .plot_data import room_decay
 
 __all__ = ["RenderPlan", "plan_from_feeds", "plan_render", "resolve_hrtf"]
 
@@ -88,6 +89,10 @@ class RenderPlan:
         fold-down's coefficients and source.
     solo : dict or None
         The loudspeaker rendered alone (label, layout index, file channel), or None.
+    room_decay : dict or None
+        The report's room decay plot, computed with the filters
+        (:func:`~earfold.renderer.render.plot_data.room_decay`) and cached with them;
+        None when there is no synthetic room or it is left to the report.
     """
 
     stem: StemInfo
@@ -108,6 +113,7 @@ class RenderPlan:
     notes: tuple[str, ...] = ()
     fold: dict[str, Any] = dataclasses.field(default_factory=lambda: {"mode": "binaural"})
     solo: dict[str, Any] | None = None
+    room_decay: dict[str, Any] | None = None
 
     @property
     def speakers(self) -> tuple[dict[str, Any], ...]:
@@ -346,6 +352,8 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         order_source=order_source,
         solo=solo,
     )
+    if plan.room is not None and plan.room.get("synthetic"):
+        plan = dataclasses.replace(plan, room_decay=room_decay(plan))
     if cache is not None and bank_key is not None:
         cache.put("bank", bank_key, *_bank_entry(plan, warnings[added:], notes[added_notes:]))
     return plan
@@ -751,6 +759,7 @@ def _bank_entry(
         "tail_offset": int(plan.tail_offset),
         "room": room,
         "calibration": plan.calibration,
+        "room_decay": plan.room_decay,
         "warnings": warnings,
         "notes": notes,
     }
@@ -792,6 +801,7 @@ def _bank_entry_ok(channels: int) -> Callable[[Any, Any], bool]:
             and offset >= 0
             and (meta.get("room") is None or isinstance(meta.get("room"), dict))
             and isinstance(meta.get("calibration"), dict)
+            and (meta.get("room_decay") is None or isinstance(meta.get("room_decay"), dict))
             and all(
                 isinstance(meta.get(k), list) and all(isinstance(t, str) for t in meta[k])
                 for k in ("warnings", "notes")
@@ -851,6 +861,7 @@ def _restored_plan(
         headphone=headphone,
         notes=(*notes, *meta["notes"]),
         solo=solo,
+        room_decay=meta["room_decay"],
     )
 
 

@@ -45,6 +45,7 @@ __all__ = [
     "SpectrumMeter",
     "energy_decay",
     "plot_section",
+    "room_decay",
     "schroeder_db",
     "thin_series",
     "third_octave_bands",
@@ -348,6 +349,26 @@ def _room_response(plan: RenderPlan) -> tuple[NDArray[np.float64], str] | None:
     return ir, plan.layout.speakers[speaker].label
 
 
+def room_decay(plan: RenderPlan) -> dict[str, Any] | None:
+    """The report's ``room_decay`` plot: the energy decay per octave band of the first
+    non-LFE loudspeaker's binaural room response (None without a synthetic room).
+
+    It depends on the plan's filters alone, so a plan computes it once and the cache of
+    prepared filters keeps it with the filter bank
+    (:attr:`~earfold.renderer.render.plan.RenderPlan.room_decay`).
+    """
+    room = _room_response(plan)
+    if room is None:
+        return None
+    ir, label = room
+    return {
+        "what": f"binaural room response of {label!r}, both ears; Schroeder "
+        "integration per octave band",
+        "speaker": label,
+        **energy_decay(ir, plan.stem.samplerate),
+    }
+
+
 def plot_section(
     plan: RenderPlan, output: str | os.PathLike[str], delivery: dict[str, Any] | None
 ) -> dict[str, Any]:
@@ -394,16 +415,7 @@ def plot_section(
         assert delivery is not None  # the series came from it
         integrated = delivery["output"].get("integrated_lufs")
     bands = spectrum.band_levels()
-    room = _room_response(plan)
-    decay = None
-    if room is not None:
-        ir, label = room
-        decay = {
-            "what": f"binaural room response of {label!r}, both ears; Schroeder "
-            "integration per octave band",
-            "speaker": label,
-            **energy_decay(ir, info.samplerate),
-        }
+    decay = plan.room_decay if plan.room_decay is not None else room_decay(plan)
     assert series is not None
     return {
         "loudness": _loudness(series, delivery, integrated),

@@ -237,6 +237,7 @@ def test_a_stored_bank_makes_the_same_plan_and_misses_when_any_part_changes(
     np.testing.assert_array_equal(fresh.tail, again.tail)
     np.testing.assert_array_equal(fresh.tail_weights, again.tail_weights)
     assert fresh.tail_offset == again.tail_offset and fresh.length == again.length
+    assert fresh.room_decay is not None and fresh.room_decay == again.room_decay
     assert fresh.speakers == again.speakers and fresh.calibration == again.calibration
     assert fresh.warnings == again.warnings and fresh.notes == again.notes
     assert again.room is not None and again.room["cache"] == "reused"
