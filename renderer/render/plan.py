@@ -405,6 +405,10 @@ def _built_plan(
     elif _is_measured_room(hset):
         room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
 
+    if cache is not None and set_key is not None:  # what the set's lookups prepared before
+        prepared = cache.get("lookup", set_key, _lookups_entry_ok)
+        if prepared is not None:
+            _lookup_set(hset).with_lookup_state(prepared[0])
     exact = room_filters is not None and settings.room_mode == "exact"
     feeds = speaker_feeds(
         layout,
@@ -590,11 +594,7 @@ def _prepared_set(
             notes.extend(meta["notes"])
             report: dict[str, Any] = meta["eq_report"]
             report["cache"] = REUSED
-            restored = _restored_set(arrays, meta, path)
-            prepared = cache.get("lookup", key, _lookups_entry_ok)
-            if prepared is not None:
-                _lookup_set(restored).with_lookup_state(prepared[0])
-            return restored, report, key
+            return _restored_set(arrays, meta, path), report, key
     added: list[str] = []
     added_notes: list[str] = []
     hset = load_hrir_set(path, samplerate, name=name)
@@ -801,7 +801,8 @@ def _bank_entry_ok(channels: int) -> Callable[[Any, Any], bool]:
             and offset >= 0
             and (meta.get("room") is None or isinstance(meta.get("room"), dict))
             and isinstance(meta.get("calibration"), dict)
-            and (meta.get("room_decay") is None or isinstance(meta.get("room_decay"), dict))
+            and "room_decay" in meta
+            and (meta["room_decay"] is None or isinstance(meta["room_decay"], dict))
             and all(
                 isinstance(meta.get(k), list) and all(isinstance(t, str) for t in meta[k])
                 for k in ("warnings", "notes")
