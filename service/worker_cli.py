@@ -13,7 +13,6 @@ import argparse
 import os
 import signal
 import sys
-import threading
 from pathlib import Path
 
 from .cli_output import EXIT_BAD_INPUT, positive
@@ -137,10 +136,11 @@ def cmd_worker(args: argparse.Namespace) -> int:
         return EXIT_BAD_INPUT
     from .jobs.pool import WorkerPool
     from .jobs.redis_keys import display_url
+    from .jobs.stop_flag import StopFlag
 
-    stop = threading.Event()
-    signal.signal(signal.SIGTERM, lambda *_: stop.set())
-    signal.signal(signal.SIGINT, lambda *_: stop.set())
+    stop = StopFlag()
+    signal.signal(signal.SIGTERM, lambda *_: stop.ask())
+    signal.signal(signal.SIGINT, lambda *_: stop.ask())
     pool = WorkerPool(settings, args.processes)
     pool.start()
     where = display_url(settings.queue_url) if "://" in settings.queue_url else settings.queue_url

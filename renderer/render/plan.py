@@ -406,9 +406,9 @@ def _built_plan(
         room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
 
     if cache is not None and set_key is not None:  # what the set's lookups prepared before
-        prepared = cache.get("lookup", set_key, _lookups_entry_ok)
-        if prepared is not None:
-            _lookup_set(hset).with_lookup_state(prepared[0])
+        lookups = cache.get("lookup", set_key, _lookups_entry_ok)
+        if lookups is not None:
+            _lookup_set(hset).with_lookup_state(lookups[0])
     exact = room_filters is not None and settings.room_mode == "exact"
     feeds = speaker_feeds(
         layout,

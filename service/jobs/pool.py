@@ -8,6 +8,7 @@ import sys
 import threading
 
 from ..settings import ServiceSettings
+from .stop_flag import StopFlag
 from .worker import PARENT_ENV, SETTINGS_ENV
 
 #: How often the pool checks that its workers are alive (s).
@@ -42,7 +43,7 @@ class WorkerPool:
         self.module = module or worker_module(settings.queue_url)
         self.procs: list[subprocess.Popen] = []
         self.restarts = 0
-        self._stop = threading.Event()
+        self._stop = StopFlag()
         self._watcher: threading.Thread | None = None
         self._lock = threading.Lock()
 
@@ -59,7 +60,7 @@ class WorkerPool:
 
     def begin_shutdown(self) -> None:
         """Stop (re)starting workers; safe to call from a signal handler (no lock)."""
-        self._stop.set()
+        self._stop.ask()
 
     def start(self) -> None:
         with self._lock:

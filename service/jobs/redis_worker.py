@@ -16,13 +16,13 @@ import logging
 import os
 import signal
 import sys
-import threading
 import time
 from typing import TYPE_CHECKING, cast
 
 from ..settings import ServiceSettings
 from .parent_watch import die_with_parent, expected_parent, parent_gone
 from .queue import QueueUnavailable
+from .stop_flag import StopFlag
 from .worker import (
     RECOVER_INTERVAL_S,
     SETTINGS_ENV,
@@ -50,10 +50,11 @@ class RedisWorker:
         # this worker's store is the Redis one: it has claim_id() and the delivery
         self.queue = cast("RedisJobQueue", self.worker.queue)
         self.name = self.worker.name
-        self._stop = threading.Event()
+        self._stop = StopFlag()
 
     def stop(self) -> None:
-        self._stop.set()
+        """Ask to stop; safe in a signal handler (:class:`.stop_flag.StopFlag`)."""
+        self._stop.ask()
         self.worker.stop()
 
     def handle(self, job_id: str) -> None:

@@ -36,6 +36,7 @@ from .factory import open_queue
 from .parent_watch import PARENT_ENV, die_with_parent, expected_parent, parent_gone
 from .queue import Job, JobQueue, QueueUnavailable
 from .render_child import DISK_FULL_MESSAGE, EXIT_DISK_FULL, discard_outputs
+from .stop_flag import StopFlag
 from .warm import HostedJob, WarmSlot
 
 SETTINGS_ENV = "EARFOLD_WORKER_SETTINGS"
@@ -163,7 +164,7 @@ class Worker:
             settings.queue_url, str(settings.data_dir), **settings.broker_options()
         )
         self.name = name or f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
-        self._stop = threading.Event()
+        self._stop = StopFlag()
         #: The process this worker belongs to (its server); gone, the worker stops.
         self._parent = expected_parent()
         #: The render child's command line (tests substitute one that crashes).
@@ -181,7 +182,8 @@ class Worker:
         self._warm_busy = threading.Lock()
 
     def stop(self) -> None:
-        self._stop.set()
+        """Ask the worker to stop; safe in a signal handler (:class:`.stop_flag.StopFlag`)."""
+        self._stop.ask()
 
     def _orphaned(self) -> bool:
         return parent_gone(self._parent)
