@@ -7,30 +7,33 @@ to 1e-10), convolved by overlap-save with :mod:`scipy.fft`. Why not the recursio
 * it needs ``scipy.signal``, whose import (it pulls in scipy's interpolation, linear
   algebra, spatial and optimisation packages) costs about 0.2 s of every render's
   start-up, while ``scipy.fft`` is loaded by the engine anyway;
-* transforms of many segments at once are faster: the segments of a block (both ways
-  of every channel) go through one batched float32 transform, which scipy's pocketfft
-  vectorises across rows. Measured on this project's 2-core test machine: about 3 ns
-  per sample against 4.7 ns for ``sosfilt`` in float64 (the float64 transform takes
-  5.5 ns, and single rows lose the vectorisation).
+* batched transforms are faster: two channels share a complex transform and the
+  segments of a block go through scipy's pocketfft several rows at a time, in float32,
+  in place. Measured on this project's 2-core test machine over 600 s of stereo noise
+  in blocks of 262 144 frames: the meter without true peak in 0.26 s against 0.31 s
+  with ``sosfilt`` (float64 transforms alone cost more than the recursion).
 
 Segments lie on a fixed grid counted from the start of the stream (``hop`` new frames
-each, after ``taps - 1`` frames of history), whatever block sizes the caller uses, so
-the result does not depend on them. Frames that do not yet fill a hop wait in a buffer
-of at most ``hop`` frames; :meth:`KWeightingSquares.pending` filters them, zero-padded,
-without consuming them.
+each, after ``taps - 1`` frames of history) and are transformed in groups of hops also
+counted from the start, whatever block sizes the caller uses, so the result does not
+depend on them (to the bit). Frames that do not yet fill a group wait in a buffer of at
+most ``group * hop`` frames; :meth:`KWeightingSquares.pending` filters them,
+zero-padded, without consuming them.
 
-Precision: the transforms run in float32 where a segment's peak lies within
-``2**-100 .. 2**100`` (an all-zero segment is skipped: its output is exactly zero),
-otherwise in float64. The float32 rounding is about ``1e-7`` of a segment's RMS, that
-is, 140 dB under the programme: a passage near the -70 LUFS gate next to one at -10
-LUFS reads within 1e-6 LU of the recursive filter. The squares are summed in float64.
+Precision: the transforms run in float32 where both channels of a pair peak within
+``2**-100 .. 2**100`` over a segment, otherwise in float64; a pair silent over a
+segment is skipped (its output is exactly zero). The float32 rounding is about 1e-7 of
+the segment's RMS, 140 dB under the programme: loudness reads within 1e-6 LU of the
+recursive filter, also for blocks near the -70 LUFS gate after loud ones, and a silent
+channel paired with a sounding one reads that rounding (about -130 dB re the other)
+instead of zero. The squares are summed in float64.
 """
 
 from __future__ import annotations
 
 import functools
 import math
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -242,4 +245,4 @@ def _peaks(x: NDArray[Any]) -> NDArray[np.float64]:
     """Peak magnitude along the last axis (NaN where there is a NaN)."""
     hi = x.max(axis=-1).astype(np.float64)
     lo = x.min(axis=-1).astype(np.float64)
-    return np.maximum(hi, -lo)
+    return cast(NDArray[np.float64], np.maximum(hi, -lo))

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import functools
 import math
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -134,10 +134,10 @@ def k_weighting_impulse_response(samplerate: float) -> NDArray[np.float64]:
 
     The response of the two biquads of :func:`k_weighting_sos` is evaluated on a grid
     of ``M`` frequencies and transformed back (an inverse real FFT), which gives the
-    impulse response folded onto ``M`` samples (the IIR filter's response sampled in
-    frequency, then the inverse DFT: aliasing in time is the only approximation). ``M`` is a power of two at least twice
-    the time the slowest pole (radius ``r``) takes to decay by 1e-40, so the folding
-    is far below float64 precision; no recursion is run. The response then stops where
+    impulse response folded onto ``M`` samples (sampling a response in frequency
+    aliases it in time; nothing else is approximated). ``M`` is a power of two at
+    least twice the time the slowest pole (radius ``r``) takes to decay by 1e-40, so
+    the folding is far below float64 precision; no recursion is run. The response then stops where
     the sum of the magnitudes after it is at most :data:`TAIL_BOUND`.
 
     Parameters
@@ -180,7 +180,7 @@ def k_weighting_impulse_response(samplerate: float) -> NDArray[np.float64]:
     tail = np.cumsum(np.abs(folded[::-1]))[::-1]  # tail[n] = sum of |h[n:]|
     taps = folded[: int(np.argmax(tail <= TAIL_BOUND))].copy()
     taps.flags.writeable = False
-    return taps
+    return cast(NDArray[np.float64], taps)
 
 
 def channel_weights(layout: Layout | str) -> NDArray[np.float64]:

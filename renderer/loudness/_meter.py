@@ -4,6 +4,10 @@ Methods
 -------
 * Loudness: ITU-R BS.1770-4. K-weighting (a high-frequency shelf, then a high-pass),
   mean square per channel, channel weights, ``L = -0.691 + 10 log10(sum_i G_i z_i)``.
+  The K-weighting's two biquads are applied as their impulse response (cut where the
+  rest sums to 1e-10) by overlap-save FFT convolution (:mod:`._kfilter`): no
+  ``scipy.signal`` to import, and faster than the recursion; loudness within 1e-6 LU
+  of it. Channels of weight 0 are not filtered.
   Integrated loudness gates 400 ms blocks stepped by 100 ms (75 % overlap): absolute gate
   -70 LKFS, then a relative gate 10 LU below the power mean of the blocks that passed;
   the result is the power mean of the blocks that pass both.
@@ -155,9 +159,11 @@ class LoudnessMeter:
     Notes
     -----
     Filter state is carried from block to block, so any block sizes give the same
-    result as one block. 100 ms sub-blocks start at frame ``k * samplerate // 10``
-    (lengths differ by a frame where 100 ms is not whole); a trailing part shorter than
-    a full block does not count, as in BS.1770. The true peak is measured alongside
+    result as one block (the filter works on a fixed grid of segments; frames waiting
+    for a segment are measured as the end of the signal when :meth:`result` is read).
+    100 ms sub-blocks start at frame ``k * samplerate // 10`` (lengths differ by a frame
+    where 100 ms is not whole); a trailing part shorter than a full block does not
+    count, as in BS.1770. The true peak is measured alongside
     (:class:`TruePeakMeter`).
     """
 
