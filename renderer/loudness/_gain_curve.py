@@ -14,7 +14,6 @@ from typing import NamedTuple, cast
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.ndimage import maximum_filter1d
 
 __all__ = ["U_SCALE", "GainCurve", "forward_max", "gain_curve", "quantise", "release"]
 
@@ -123,6 +122,10 @@ def forward_max(a: NDArray[np.float64], size: int) -> NDArray[np.float64]:
     """m[i] = max(a[i : i + size]), with a taken as 0 beyond its end."""
     if size <= 1 or a.size == 0:
         return a.copy()
+    # Imported here: only a limiter that limits computes a gain curve, and a render
+    # without one need not load scipy.ndimage.
+    from scipy.ndimage import maximum_filter1d
+
     return cast(
         NDArray[np.float64],
         maximum_filter1d(a, size, origin=-(size // 2), mode="constant", cval=0.0),

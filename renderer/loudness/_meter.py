@@ -4,6 +4,10 @@ Methods
 -------
 * Loudness: ITU-R BS.1770-4. K-weighting (a high-frequency shelf, then a high-pass),
   mean square per channel, channel weights, ``L = -0.691 + 10 log10(sum_i G_i z_i)``.
+  The K-weighting's two biquads are applied as their impulse response (cut where the
+  rest sums to 1e-10) by overlap-save FFT convolution (:mod:`._kfilter`): no
+  ``scipy.signal`` to import, and faster than the recursion; loudness within 1e-6 LU
+  of it. Channels of weight 0 are not filtered.
   Integrated loudness gates 400 ms blocks stepped by 100 ms (75 % overlap): absolute gate
   -70 LKFS, then a relative gate 10 LU below the power mean of the blocks that passed;
   the result is the power mean of the blocks that pass both.
@@ -21,6 +25,7 @@ series (:mod:`._gating`).
 
 from __future__ import annotations
 
+import copy
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -37,7 +42,7 @@ from ._gating import (
     BlockHistogram,
     LoudnessSeries,
 )
-from ._kweighting import k_weighting_sos
+from ._kfilter import KWeightingSquares
 from ._levels import (
     amplitude_db,
     check_channels,
@@ -154,9 +159,11 @@ class LoudnessMeter:
     Notes
     -----
     Filter state is carried from block to block, so any block sizes give the same
-    result as one block. 100 ms sub-blocks start at frame ``k * samplerate // 10``
-    (lengths differ by a frame where 100 ms is not whole); a trailing part shorter than
-    a full block does not count, as in BS.1770. The true peak is measured alongside
+    result as one block (the filter works on a fixed grid of segments; frames waiting
+    for a segment are measured as the end of the signal when :meth:`result` is read).
+    100 ms sub-blocks start at frame ``k * samplerate // 10`` (lengths differ by a frame
+    where 100 ms is not whole); a trailing part shorter than a full block does not
+    count, as in BS.1770. The true peak is measured alongside
     (:class:`TruePeakMeter`).
     """
 
@@ -192,9 +199,12 @@ class LoudnessMeter:
                     f"numbers, one per channel; got {got}"
                 )
         self.weights = w
-        self._sos = k_weighting_sos(samplerate)
-        self._zi = np.zeros((self._sos.shape[0], self.channels, 2))  # time-last layout
+        # Channels of weight 0 (LFE) add nothing to the loudness: not filtered at all.
+        active = w > 0.0
+        self._filter = KWeightingSquares(samplerate, active)
+        self._filtered_weights = w[active]
         self.frames = 0
+        self._done = 0  # frames filtered and accounted (the rest wait in the filter)
         self._sub = 0  # completed sub-blocks
         self._part_energy = 0.0
         self._part_count = 0
@@ -218,8 +228,6 @@ class LoudnessMeter:
 
     def process(self, block: NDArray[np.floating[Any]]) -> None:
         """Meter a ``(n, channels)`` block of float samples."""
-        from scipy import signal
-
         x = check_block(block, self.channels)
         n = x.shape[0]
         if n == 0:
@@ -228,28 +236,31 @@ class LoudnessMeter:
             self.true_peak.process(x)
         else:
             self._sample_peak = max(self._sample_peak, float(x.max()), -float(x.min()))
-        # Filtered with time last (x.T is a view): sosfilt copies the block once into
-        # float64 in that layout, and squaring in place reuses the copy.
-        yt, self._zi = signal.sosfilt(self._sos, x.T, axis=-1, zi=self._zi)
-        sq = np.multiply(yt, yt, out=yt)  # (C, n)
+        self.frames += n
+        self._account(self._filter.push(x))
 
-        start, stop = self.frames, self.frames + n
-        # Sub-block ends inside this block, relative to its first frame.
+    def _account(self, sq: NDArray[np.float64]) -> None:
+        """Add the squared K-weighted frames that follow those accounted so far."""
+        n = sq.shape[1]
+        if n == 0:
+            return
+        start, stop = self._done, self._done + n
+        # Sub-block ends inside these frames, relative to the first.
         ends = []
         k = self._sub + 1
         while self._boundary(k) <= stop:
             ends.append(self._boundary(k) - start)
             k += 1
-        self.frames = stop
+        self._done = stop
         starts = [0] + [c for c in ends if c < n]
         sums_c = np.add.reduceat(sq, starts, axis=1)  # per channel, per segment
-        energy = (sums_c * self.weights[:, None]).sum(axis=0)
+        energy = (sums_c * self._filtered_weights[:, None]).sum(axis=0)
         if not ends:
             self._part_energy += float(energy[0])
             self._part_count += n
             return
         # Segments: [0, ends[0]), [ends[0], ends[1]), ..., and a trailing partial one
-        # [ends[-1], n) unless the block ends on a sub-block boundary.
+        # [ends[-1], n) unless the frames end on a sub-block boundary.
         complete = len(ends)
         sums = energy[:complete].copy()
         counts = np.diff(np.array([0] + ends)).astype(np.int64)
@@ -304,6 +315,15 @@ class LoudnessMeter:
                 f"gain_db must be a finite number up to {MAX_RESULT_GAIN_DB:g} dB, "
                 f"not {shown(gain_db)}"
             )
+        # Frames still waiting for a whole hop of the filter are measured as if the
+        # signal ended there, on a copy: the meter itself goes on as if not asked.
+        state = self
+        tail = self._filter.pending()
+        if tail.shape[1]:
+            state = copy.copy(self)
+            for name in ("_gating", "_short", "_momentary", "_short_series"):
+                setattr(state, name, copy.deepcopy(getattr(self, name)))
+            state._account(tail)
         tp = self.true_peak
         if tp is None:
             true_peak_dbtp, sample_peak = None, self._sample_peak
@@ -316,14 +336,14 @@ class LoudnessMeter:
             samplerate=self.samplerate,
             channels=self.channels,
             frames=self.frames,
-            integrated_lufs=self._gating.gated_loudness(RELATIVE_GATE_LU, shift),
-            momentary_max_lufs=finite_or_none(self._m_max + shift),
-            short_term_max_lufs=finite_or_none(self._s_max + shift),
-            loudness_range_lu=self._short.loudness_range(shift),
+            integrated_lufs=state._gating.gated_loudness(RELATIVE_GATE_LU, shift),
+            momentary_max_lufs=finite_or_none(state._m_max + shift),
+            short_term_max_lufs=finite_or_none(state._s_max + shift),
+            loudness_range_lu=state._short.loudness_range(shift),
             true_peak_dbtp=true_peak_dbtp,
             sample_peak_dbfs=finite_or_none(amplitude_db(sample_peak) + shift),
-            momentary_series=self._momentary.snapshot(shift),
-            short_term_series=self._short_series.snapshot(shift),
-            momentary_interval_s=round(0.1 * self._momentary.factor, 6),
-            short_term_interval_s=round(0.1 * self._short_series.factor, 6),
+            momentary_series=state._momentary.snapshot(shift),
+            short_term_series=state._short_series.snapshot(shift),
+            momentary_interval_s=round(0.1 * state._momentary.factor, 6),
+            short_term_interval_s=round(0.1 * state._short_series.factor, 6),
         )
