@@ -2,10 +2,73 @@
 
 from __future__ import annotations
 
+import importlib
+import sys
+import types
+from collections.abc import Callable
+from typing import Any
+
 import numpy as np
 import numpy.typing as npt
 
-__all__ = ["minimum_phase_spectrum", "sos_response"]
+__all__ = ["minimum_phase_spectrum", "scipy_signal", "sos_response"]
+
+#: Names of ``scipy.stats`` that ``scipy.signal`` takes at its import but calls only
+#: inside functions: these get a stand-in that loads ``scipy.stats`` when called.
+_CALLED_LATER = ("scoreatpercentile",)
+
+
+def _real_stats(stand_in: types.ModuleType) -> types.ModuleType:
+    if sys.modules.get("scipy.stats") is stand_in:
+        del sys.modules["scipy.stats"]
+    return importlib.import_module("scipy.stats")
+
+
+def _deferred(stand_in: types.ModuleType, name: str) -> Callable[..., Any]:
+    def call(*args: Any, **kwargs: Any) -> Any:
+        return getattr(_real_stats(stand_in), name)(*args, **kwargs)
+
+    call.__name__ = name
+    return call
+
+
+def scipy_signal() -> Any:
+    """``scipy.signal``, imported (the first time) without importing ``scipy.stats``.
+
+    The renderer filters with ``scipy.signal`` only where it must (preparing filters that
+    the cache then keeps; a repeated render does not import it at all). Its own import
+    loads all of ``scipy.stats`` for one function (``scoreatpercentile``, which only its
+    wavelet peak finder calls): a tenth to a quarter of a second for a module no render
+    uses. While ``scipy.signal`` imports here, ``sys.modules["scipy.stats"]`` is a
+    stand-in: the names of :data:`_CALLED_LATER` are functions that load the real module
+    when called; any other name loads it at once (so a change in what ``scipy.signal``
+    takes costs time, never correctness). The stand-in is gone once ``scipy.signal`` is
+    imported; a later ``import scipy.stats`` is the real one. When either module is
+    already loaded, this is a plain import.
+    """
+    if "scipy.signal" in sys.modules or "scipy.stats" in sys.modules:
+        return importlib.import_module("scipy.signal")
+    import scipy
+
+    stand_in = types.ModuleType("scipy.stats")
+
+    def lookup(name: str) -> Any:
+        if name in _CALLED_LATER:
+            return _deferred(stand_in, name)
+        if name.startswith("__"):
+            raise AttributeError(name)
+        return getattr(_real_stats(stand_in), name)
+
+    stand_in.__getattr__ = lookup  # type: ignore[method-assign]
+    sys.modules["scipy.stats"] = stand_in
+    try:
+        return importlib.import_module("scipy.signal")
+    finally:
+        if sys.modules.get("scipy.stats") is stand_in:
+            del sys.modules["scipy.stats"]
+        # (read from the package's dict: its attribute lookup would import the real module)
+        if vars(scipy).get("stats") is stand_in:  # pragma: no cover - not set by the import
+            delattr(scipy, "stats")
 
 
 def minimum_phase_spectrum(

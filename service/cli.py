@@ -218,10 +218,6 @@ def cmd_loudness(args: argparse.Namespace) -> int:
     from earfold.renderer.layouts import get_layout
     from earfold.renderer.loudness import format_measurement, measure_for_layout
 
-    from .cli_imports import import_signal_deferring_stats
-
-    import_signal_deferring_stats()
-
     # The layout's weights go only to files with its channel count (the stem); any other
     # file, such as the stem's binaural render, is measured with plain weights.
     layout = get_layout(args.layout) if args.layout else None

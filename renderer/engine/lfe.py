@@ -18,6 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..errors import RendererError
+from ..signals import scipy_signal
 
 #: LFE low-pass corner in Hz (common practice).
 DEFAULT_LFE_CUTOFF_HZ = 120.0
@@ -83,7 +84,7 @@ def lfe_filter(
     delay : int
         Samples of delay, to arrive with the front-centre direct sound.
     """
-    from scipy import signal
+    signal = scipy_signal()
 
     gain = reference_gain * 10 ** (options.gain_db / 20)
     if options.cutoff_hz == 0 or options.cutoff_hz >= samplerate / 2:

@@ -30,6 +30,7 @@ from numpy.typing import NDArray
 
 from ..errors import HeadphoneEqError, shown
 from ..files import read_bytes_bounded
+from ..signals import scipy_signal
 
 #: Band types of a JSON headphone EQ (Audio EQ Cookbook names, in snake case).
 BAND_TYPES = ("peaking", "low_shelf", "high_shelf", "low_pass", "high_pass")
@@ -239,7 +240,7 @@ def bands_impulse_response(
     bands: list[Band], gain_db: float, samplerate: float
 ) -> NDArray[np.float64]:
     """Impulse response of the cascade, cut once it has decayed by :data:`IIR_DECAY_DB`."""
-    from scipy import signal
+    signal = scipy_signal()
 
     sos = bands_sos(bands, samplerate)
     n_max = int(MAX_IR_SECONDS * samplerate)
@@ -296,7 +297,7 @@ def _from_bands(
 
 
 def _from_audio(path: Path, samplerate: float, meta: dict[str, Any]) -> HeadphoneEq:
-    from scipy import signal
+    signal = scipy_signal()
 
     from ..errors import AudioError
     from ..io import read_audio  # soundfile stays behind audio_io

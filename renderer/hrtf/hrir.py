@@ -32,6 +32,7 @@ import numpy as np
 
 from ..errors import HrirError, shown
 from ..geometry import angle_between, normalize, vector_to_direction
+from ..signals import scipy_signal
 from ._sofa_data import MAX_VALUES
 from .guard import is_shipped, read_sofa_guarded
 from .onsets import (
@@ -200,7 +201,7 @@ class HrirSet:
 
     def resampled(self, samplerate: float) -> HrirSet:
         """The same set at another rate (polyphase resampling, scipy.signal.resample_poly)."""
-        from scipy import signal
+        signal = scipy_signal()
 
         if samplerate == self.samplerate:
             return self

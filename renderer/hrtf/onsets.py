@@ -23,6 +23,7 @@ import numpy.typing as npt
 from scipy import fft as sp_fft
 
 from ..errors import HrirError, shown
+from ..signals import scipy_signal
 
 #: Default onset threshold in dB relative to each IR's absolute peak (common practice for
 #: onset-based ITD estimation on measured HRIRs).
@@ -203,7 +204,7 @@ def cross_correlation_itd(
     -------
     float
     """
-    from scipy import signal
+    signal = scipy_signal()
 
     pair = _check_pair(ir_pair, samplerate)
     if not (0 < cutoff < samplerate / 2):

@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import AudioError
+from ..signals import scipy_signal
 from ._probe import StemInfo
 from ._reader import StemReader
 
@@ -163,7 +164,7 @@ def measure_levels(
     win_peak = np.zeros((points, channels))
     win_energy = np.zeros((points, channels))
     low_energy = np.zeros(channels)
-    from scipy import signal  # here, not at the top: listings must not load scipy.signal
+    signal = scipy_signal()  # here, not at the top: listings must not load scipy.signal
 
     if fs > 2 * LOW_SHARE_HZ:
         sos = signal.butter(_LOW_ORDER, LOW_SHARE_HZ, fs=fs, output="sos")

@@ -34,6 +34,7 @@ from numpy.typing import NDArray
 
 from ..loudness import LoudnessMeter
 from ..room import BANDS_HZ
+from ..signals import scipy_signal
 
 if TYPE_CHECKING:
     from .plan import RenderPlan
@@ -264,7 +265,7 @@ def energy_decay(
     dict
         ``{"bands_hz": [...], "time_s": [...], "levels_db": [[...] per band]}``.
     """
-    from scipy import signal
+    signal = scipy_signal()
 
     x = np.asarray(ir, dtype=np.float64)
     x = x.reshape(-1, x.shape[-1])

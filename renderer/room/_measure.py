@@ -13,6 +13,7 @@ import numpy as np
 import numpy.typing as npt
 
 from ..errors import RoomError, shown
+from ..signals import scipy_signal
 from ._acoustics import BANDS_HZ
 
 __all__ = ["measure_rt60"]
@@ -60,7 +61,7 @@ def measure_rt60(
         ``{"bands_hz": [...], "edt_s": [...], "t20_s": [...], "t30_s": [...]}``, None where
         a band cannot be measured (too short a decay, or above Nyquist).
     """
-    from scipy import signal
+    signal = scipy_signal()
 
     x = np.asarray(ir, dtype=float)
     if x.ndim < 1 or x.shape[-1] < 8:

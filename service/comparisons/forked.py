@@ -3,8 +3,8 @@
 A fresh build child spends a second or more importing numpy and scipy and loading the
 HRIR set before it renders anything, and a listener is waiting for it. A worker started
 by ``earfold serve`` runs builds in its warm render process
-(:mod:`earfold.service.jobs.warm`) when ``EARFOLD_WARM_PROCESS=1``; without it (the
-default) it imports the renderer once (:func:`warm_up`) and forks each build from itself: the fork
+(:mod:`earfold.service.jobs.warm`), the default; with ``EARFOLD_WARM_PROCESS=0`` it
+imports the renderer once (:func:`warm_up`) and forks each build from itself: the fork
 starts with everything loaded and shares the cached HRIR set.
 :class:`ForkedBuild` looks to the worker like the ``subprocess.Popen`` of a build child
 (the same JSON-lines protocol on its ``stdout``), so the worker's lease, progress and

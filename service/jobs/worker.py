@@ -11,8 +11,8 @@ that says why.
 Started by ``earfold serve``, a worker keeps that child warm between jobs
 (:mod:`.warm`, :mod:`.warm_host`): started ahead with its imports done and the default
 HRIR set loaded, so a claimed job starts computing at once, and replaced whenever a job
-did not end well. It is opt-in for now (``EARFOLD_WARM_PROCESS=1``); by default each job
-starts a fresh child.
+did not end well. ``EARFOLD_WARM_PROCESS=0`` turns it off: then each render starts a
+fresh child and comparison builds fork from the worker.
 """
 
 from __future__ import annotations
@@ -451,11 +451,8 @@ def main() -> int:
     return 0
 
 
-#: Environment variable that turns the warm render process on (``1``). Off by default for
-#: now: every job starts a fresh child and comparison builds fork from the worker, the
-#: path proven under every shutdown test; a clean-clone run of the whole suite once left
-#: processes behind when a server was killed while its warm processes started, not yet
-#: explained, so the warm process stays opt-in until it is.
+#: Environment variable that turns the warm render process off (``0``; on by default).
+#: Off, every render starts a fresh child and comparison builds fork from the worker.
 WARM_ENV = "EARFOLD_WARM_PROCESS"
 
 
@@ -463,7 +460,7 @@ def use_warm_process(worker: Worker, *, fork_builds: bool = True) -> WarmSlot | 
     """Give ``worker`` its warm render process, started now so that it loads what jobs
     need while the worker waits for the first one; with :data:`WARM_ENV` ``=0`` instead,
     and ``fork_builds``, fork comparison builds from this process (loaded here, once)."""
-    if os.environ.get(WARM_ENV, "0").strip() == "1":
+    if os.environ.get(WARM_ENV, "1").strip() != "0":
         worker.warm = WarmSlot(child_environment())
         worker.warm.prepare()
         return worker.warm

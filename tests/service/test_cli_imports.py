@@ -1,9 +1,11 @@
 """The command line stays lean: only ``serve`` and ``worker`` load the web and queue stack.
 
 Each command runs in a fresh interpreter through the CLI's ``main``; at exit the test
-reads which modules were loaded. A render filters with ``scipy.signal``, whose own import
-would load all of ``scipy.stats``; the command line imports it with ``scipy.stats``
-deferred to a first use that a render never makes (``earfold.service.cli_imports``).
+reads which modules were loaded. A render from cached filters and a loudness measurement
+load no part of scipy but ``scipy.fft`` (and what it takes); a render that prepares filters
+filters with ``scipy.signal``, whose own import would load all of ``scipy.stats``: the
+renderer imports it with ``scipy.stats`` deferred to a first use that a render never makes
+(``earfold.renderer.signals.scipy_signal``).
 """
 
 from __future__ import annotations
@@ -99,19 +101,61 @@ def test_render_loads_no_web_or_queue_module(tmp_path, stem):
     assert _heavy(modules) == []
 
 
+#: What a render from cached filters never needs: filter design, the limiter's running
+#: maximum (it is bypassed here), the direction grid, the SOFA reader, and what they load.
+NOT_FOR_A_CACHED_RENDER = (
+    "scipy.signal",
+    "scipy.ndimage",
+    "scipy.spatial",
+    "scipy.interpolate",
+    "scipy.optimize",
+    "scipy.stats",
+    "netCDF4",
+)
+
+
+def _stats(modules: list[str]) -> list[str]:
+    return [m for m in modules if m == "scipy.stats" or m.startswith("scipy.stats.")]
+
+
 @pytest.mark.parametrize("extra", [[], ["--room", "small"]])
-def test_render_loads_scipy_signal_but_not_scipy_stats(tmp_path, stem, extra):
+def test_a_render_that_prepares_filters_loads_scipy_signal_but_not_scipy_stats(
+    tmp_path, stem, extra
+):
     out = tmp_path / "tiny.bin.wav"
-    args = ["render", str(stem), "-o", str(out), "--layout", "2.0", *extra]
+    args = ["render", str(stem), "-o", str(out), "--layout", "2.0", "--no-cache", *extra]
     modules = _modules_after(tmp_path, *args)
     assert out.is_file()
     assert "scipy.signal" in modules  # it filtered: the check below means something
-    assert [m for m in modules if m == "scipy.stats" or m.startswith("scipy.stats.")] == []
+    assert _stats(modules) == []
 
 
-def test_loudness_loads_no_scipy_stats(tmp_path, stem):
+@pytest.mark.parametrize("extra", [["--layout", "2.0"], ["--layout", "5.1", "--room", "small"]])
+def test_a_repeated_render_loads_only_what_it_computes_with(tmp_path, extra, monkeypatch):
+    monkeypatch.setenv("EARFOLD_CACHE_DIR", str(tmp_path / "cache"))
+    monkeypatch.delenv("EARFOLD_NO_CACHE", raising=False)
+    rate = 48000
+    channels = 2 if "2.0" in extra else 6
+    noise = 0.05 * np.random.default_rng(3).standard_normal((rate // 2, channels))
+    stem = tmp_path / "stem.wav"
+    write_audio(stem, noise.astype(np.float32), rate)
+    first = _modules_after(tmp_path, "render", str(stem), "-o", str(tmp_path / "a.wav"), *extra)
+    again = _modules_after(tmp_path, "render", str(stem), "-o", str(tmp_path / "b.wav"), *extra)
+    assert "scipy.signal" in first  # the first render prepared its filters
+    assert (tmp_path / "a.wav").read_bytes() == (tmp_path / "b.wav").read_bytes()
+    assert "scipy.fft" in again and "earfold.renderer.render" in again
+    assert [
+        m
+        for m in again
+        if m.split(".")[0] == "netCDF4"
+        or any(m == heavy or m.startswith(heavy + ".") for heavy in NOT_FOR_A_CACHED_RENDER)
+    ] == []
+
+
+def test_loudness_loads_no_scipy_signal_or_stats(tmp_path, stem):
     modules = _modules_after(tmp_path, "loudness", str(stem), "--json")
-    assert "scipy.signal" in modules and "scipy.stats" not in modules
+    assert "earfold.renderer.loudness" in modules
+    assert "scipy.signal" not in modules and _stats(modules) == []
 
 
 _DEFERRED = """
