@@ -47,7 +47,7 @@ _SEEDS = 8
 
 
 def design_error(points: npt.ArrayLike, t: int) -> float:
-    """Largest |mean over ``points``| of an SN3D harmonic of degree 1 to ``t`` (0 for a t-design)."""
+    """Largest |mean over ``points``| of an SN3D harmonic of degree 1 to ``t`` (0: a design)."""
     y = real_harmonics(points, t, "sn3d")
     return float(np.abs(y[:, 1:].mean(axis=0)).max())
 

@@ -90,53 +90,55 @@ def sh_rotation(rotation: npt.ArrayLike, degree: int) -> FloatArray:
         return out
     r1 = _band_one(r)
     out[1:4, 1:4] = r1
-    prev = r1  # indices: [m + l - 1, m' + l - 1] for degree l - 1
+    prev = r1  # indices: [m + deg - 1, m' + deg - 1] for degree deg - 1
 
-    def p(i: int, l: int, a: int, b: int) -> float:
-        # The helper P_i^l(a, b) of the recursion; r1 is indexed by i + 1, prev by (. + l - 1).
+    def p(i: int, deg: int, a: int, b: int) -> float:
+        # The helper P_i^deg(a, b) of the recursion; r1 is indexed by i + 1, prev by (. + deg - 1).
         ri1, rim1, ri0 = r1[i + 1, 2], r1[i + 1, 0], r1[i + 1, 1]
-        if b == l:
-            return float(ri1 * prev[a + l - 1, 2 * l - 2] - rim1 * prev[a + l - 1, 0])
-        if b == -l:
-            return float(ri1 * prev[a + l - 1, 0] + rim1 * prev[a + l - 1, 2 * l - 2])
-        return float(ri0 * prev[a + l - 1, b + l - 1])
+        if b == deg:
+            return float(ri1 * prev[a + deg - 1, 2 * deg - 2] - rim1 * prev[a + deg - 1, 0])
+        if b == -deg:
+            return float(ri1 * prev[a + deg - 1, 0] + rim1 * prev[a + deg - 1, 2 * deg - 2])
+        return float(ri0 * prev[a + deg - 1, b + deg - 1])
 
-    for l in range(2, degree + 1):  # noqa: E741 - the paper's name for the degree
-        block = np.zeros((2 * l + 1, 2 * l + 1))
-        for m in range(-l, l + 1):
+    for deg in range(2, degree + 1):
+        block = np.zeros((2 * deg + 1, 2 * deg + 1))
+        for m in range(-deg, deg + 1):
             am = abs(m)
             d0 = 1.0 if m == 0 else 0.0
-            for n in range(-l, l + 1):
-                denom = float((l + n) * (l - n)) if abs(n) < l else float(2 * l * (2 * l - 1))
-                u = math.sqrt((l + m) * (l - m) / denom)
-                v = 0.5 * math.sqrt((1 + d0) * (l + am - 1) * (l + am) / denom) * (1 - 2 * d0)
-                w = -0.5 * math.sqrt((l - am - 1) * (l - am) / denom) * (1 - d0)
+            for n in range(-deg, deg + 1):
+                denom = (
+                    float((deg + n) * (deg - n)) if abs(n) < deg else float(2 * deg * (2 * deg - 1))
+                )
+                u = math.sqrt((deg + m) * (deg - m) / denom)
+                v = 0.5 * math.sqrt((1 + d0) * (deg + am - 1) * (deg + am) / denom) * (1 - 2 * d0)
+                w = -0.5 * math.sqrt((deg - am - 1) * (deg - am) / denom) * (1 - d0)
                 value = 0.0
                 if u:
-                    value += u * p(0, l, m, n)
+                    value += u * p(0, deg, m, n)
                 if v:
                     if m == 0:
-                        big_v = p(1, l, 1, n) + p(-1, l, -1, n)
+                        big_v = p(1, deg, 1, n) + p(-1, deg, -1, n)
                     elif m > 0:
                         d1 = 1.0 if m == 1 else 0.0
-                        big_v = p(1, l, m - 1, n) * math.sqrt(1 + d1) - p(-1, l, -m + 1, n) * (
+                        big_v = p(1, deg, m - 1, n) * math.sqrt(1 + d1) - p(-1, deg, -m + 1, n) * (
                             1 - d1
                         )
                     else:
                         d1 = 1.0 if m == -1 else 0.0
-                        big_v = p(1, l, m + 1, n) * (1 - d1) + p(-1, l, -m - 1, n) * math.sqrt(
+                        big_v = p(1, deg, m + 1, n) * (1 - d1) + p(-1, deg, -m - 1, n) * math.sqrt(
                             1 + d1
                         )
                     value += v * big_v
                 if w:
                     if m > 0:
-                        big_w = p(1, l, m + 1, n) + p(-1, l, -m - 1, n)
+                        big_w = p(1, deg, m + 1, n) + p(-1, deg, -m - 1, n)
                     else:
-                        big_w = p(1, l, m - 1, n) - p(-1, l, -m + 1, n)
+                        big_w = p(1, deg, m - 1, n) - p(-1, deg, -m + 1, n)
                     value += w * big_w
-                block[m + l, n + l] = value
-        start = l * l
-        out[start : start + 2 * l + 1, start : start + 2 * l + 1] = block
+                block[m + deg, n + deg] = value
+        start = deg * deg
+        out[start : start + 2 * deg + 1, start : start + 2 * deg + 1] = block
         prev = block
     return out
 
