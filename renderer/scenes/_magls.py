@@ -53,7 +53,7 @@ def magls_spectra(
     spectra: ComplexArray,
     directions: FloatArray,
     order: int,
-    freqs: FloatArray,
+    freqs: npt.ArrayLike,
     cutoff: float,
     *,
     delay: float = 0.0,
@@ -72,6 +72,7 @@ def magls_spectra(
     (before the covariance constraint restores the diffuse-field level). Returns the
     responses and how the grid was weighted.
     """
+    freqs = np.asarray(freqs, dtype=float)
     shift = np.exp(2j * np.pi * freqs * delay)
     spectra = spectra * shift
     w, how = grid_weights(directions)

@@ -28,10 +28,12 @@ import numpy as np
 import numpy.typing as npt
 from scipy import signal
 
-from ._harmonics import acn_degrees, real_harmonics
-from ._weights import max_re_weights
+from ..errors import SceneError
+from ._fir import design_size, to_fir
+from ._harmonics import acn_degrees, check_order, real_harmonics
+from ._weights import crossover_frequency, max_re_weights
 
-__all__ = ["crossover_responses", "speaker_decoding", "speaker_gains"]
+__all__ = ["crossover_responses", "decode_speaker_filters", "speaker_decoding", "speaker_gains"]
 
 FloatArray = npt.NDArray[np.float64]
 ComplexArray = npt.NDArray[np.complex128]
@@ -57,9 +59,10 @@ def speaker_gains(directions: FloatArray, order: int, weighting: str = "basic") 
 
 
 def crossover_responses(
-    freqs: FloatArray, crossover: float, samplerate: float
+    freqs: npt.ArrayLike, crossover: float, samplerate: float
 ) -> tuple[ComplexArray, ComplexArray]:
     """Low and high band responses of a Linkwitz-Riley 4th-order crossover at ``freqs``."""
+    freqs = np.asarray(freqs, dtype=float)
     low = signal.butter(2, crossover, "lowpass", fs=samplerate, output="sos")
     high = signal.butter(2, crossover, "highpass", fs=samplerate, output="sos")
     _, h_low = signal.sosfreqz(low, worN=freqs, fs=samplerate)
@@ -71,7 +74,7 @@ def speaker_decoding(
     speaker_spectra: ComplexArray,
     directions: FloatArray,
     order: int,
-    freqs: FloatArray,
+    freqs: npt.ArrayLike,
     samplerate: float,
     crossover: float | None,
 ) -> ComplexArray:
@@ -91,3 +94,34 @@ def speaker_decoding(
         + np.einsum("lc,lef->cef", max_re, speaker_spectra) * h_high
     )
     return result
+
+
+def decode_speaker_filters(
+    speaker_filters: npt.ArrayLike,
+    directions: npt.ArrayLike,
+    order: int,
+    samplerate: float,
+    *,
+    max_re: bool = True,
+) -> FloatArray:
+    """Scene filters (C, 2, T) from two-ear filters (L, 2, T) of the virtual loudspeakers.
+
+    For a scene rendered in a room: render each direction of :func:`virtual_layout` in the
+    room (its HRIR pair plus reflections, L x 2 x T), then fold them with the same gains
+    and crossover as the headphone decoder. The result keeps length ``T`` (the crossover's
+    ringing, a few milliseconds, fits in the fade of the last eighth).
+    """
+    order = check_order(order)
+    f = np.asarray(speaker_filters, dtype=float)
+    d = np.asarray(directions, dtype=float)
+    if f.ndim != 3 or f.shape[1] != 2 or f.shape[0] != len(d):
+        raise SceneError(
+            f"speaker filters of shape {f.shape!r} do not fit {len(d)} directions (L, 2, T)"
+        )
+    nfft = design_size(f.shape[-1])
+    freqs = np.fft.rfftfreq(nfft, 1.0 / samplerate)
+    spectra = np.fft.rfft(f, n=nfft, axis=-1)
+    crossover = crossover_frequency(order) if max_re else None
+    responses = speaker_decoding(spectra, d, order, freqs, samplerate, crossover)
+    filters, _ = to_fir(responses, nfft, f.shape[-1])
+    return filters
