@@ -174,6 +174,12 @@ def scene_decoder(
         raise SceneError(
             f"unknown Ambisonic decoder {shown(method)}; choose one of {', '.join(DECODER_METHODS)}"
         )
+    if method == "magls" and hrir_set.measurements < (order + 1) ** 2:
+        raise SceneError(
+            f"HRIR set {hrir_set.name!r} has {hrir_set.measurements} directions; a MagLS "
+            f"decoder of order {order} fits {(order + 1) ** 2} harmonics and needs at least "
+            f"that many (choose a lower order or method='virtual')"
+        )
     if samplerate is not None and samplerate != hrir_set.samplerate:
         hrir_set = hrir_set.resampled(samplerate)
     rate = float(hrir_set.samplerate)

@@ -1,6 +1,6 @@
 """Antipodal spherical t-designs: half of each set (the other half is its negative).
 
-Written by ``python -m earfold.renderer.scenes._designs``; do not edit by hand.
+Written by ``python -m earfold.renderer.scenes._design_search``; do not edit by hand.
 """
 
 from __future__ import annotations

@@ -332,3 +332,53 @@ def test_room_path_folds_speaker_filters_like_the_headphone_decoder(sets):
     assert_allclose(decode_speaker_filters(pairs, points, 2, FS), plain.filters, atol=1e-12)
     with pytest.raises(SceneError, match="do not fit 20 directions"):
         decode_speaker_filters(pairs[:-1], points, 2, FS)
+
+
+def test_magls_needs_as_many_directions_as_harmonics(sets):
+    hset = sets["rigid-sphere"]
+    few = hset.derived(ir=hset.ir[::40], directions=hset.directions[::40])  # 11 directions
+    with pytest.raises(SceneError, match="has 11 directions; a MagLS decoder of order 3 fits 16"):
+        scene_decoder(few, 3, method="magls")
+    assert scene_decoder(few, 2, method="magls").filters.shape[0] == 9
+
+
+# -- the shared SOFA corpus ------------------------------------------------------------------
+
+MEASURED = ("MIT_KEMAR_large_pinna.sofa", "LISTEN_1002_IRC_1002_C_HRIR.sofa", "hrtf_c_nh898.sofa")
+
+
+@pytest.mark.parametrize("filename", MEASURED)
+def test_measured_sets_decode_with_their_own_diffuse_field(shared_sofa_dir, filename):
+    # Any set: spectral distortion at its measured directions falls from order 1 to 3 to 5
+    # (MagLS), and a diffuse scene has the set's own level (1 dB) and coherence (0.15).
+    hset = load_hrir_set(shared_sofa_dir / "measured" / filename, FS)
+    sample = _measured_sample(hset)
+    diffuse = diffuse_field(hset, FREQS)
+    band = (FREQS >= 100) & (FREQS <= 16000)
+    own = 10 * np.log10(np.sum(diffuse.power[:, band]))
+    sd = []
+    for order in (1, 3, 5):
+        decoder = scene_decoder(hset, order, method="magls")
+        assert np.all(np.isfinite(decoder.filters))
+        sd.append(_plane_wave_errors(hset, decoder, sample)[2])
+        cov = decoder_covariance(np.fft.rfft(decoder.filters, NFFT, axis=-1), order)
+        level = 10 * np.log10(np.sum(cov[band, 0, 0].real + cov[band, 1, 1].real))
+        assert level == pytest.approx(own, abs=1.0)
+        for fc in (500.0, 2000.0):
+            assert abs(_decoder_coherence(decoder, fc) - _target_coherence(diffuse, fc)) <= 0.15
+    assert sd[0] > sd[1] > sd[2], sd
+
+
+def test_a_set_alike_in_every_direction_decodes_to_its_one_response(shared_sofa_dir):
+    # Pulse.sofa holds the same impulse in all 1250 directions: a plane wave from anywhere
+    # must decode to that impulse (only W carries anything), whatever the order or method.
+    hset = load_hrir_set(shared_sofa_dir / "measured" / "Pulse.sofa", FS)
+    probe = direction_to_vector([0.0, 75.0, -120.0], [0.0, 30.0, -60.0])
+    for method in ("magls", "virtual"):
+        decoder = scene_decoder(hset, 3, method=method)
+        for d in probe:
+            out = np.fft.rfft(_decoded(decoder, d), NFFT)
+            ref = np.fft.rfft(hset.ir[0], NFFT)
+            band = (FREQS >= 200) & (FREQS <= 16000)
+            err = 20 * np.log10(np.abs(out[:, band]) / np.abs(ref[:, band]))
+            assert np.abs(err).max() < 0.5, (method, np.abs(err).max())

@@ -20,9 +20,9 @@ from earfold.renderer.scenes import (
     real_harmonics,
     to_sn3d,
 )
+from earfold.renderer.scenes._design_search import construct_design
 from earfold.renderer.scenes._designs import (
     DESIGN_TOLERANCE,
-    construct_design,
     design_error,
     t_design,
     virtual_layout,
