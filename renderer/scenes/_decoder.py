@@ -202,7 +202,11 @@ def scene_decoder(
     }
     if method == "magls":
         spectra = np.fft.rfft(hrir_set.ir, n=nfft, axis=-1)
-        delay = float(np.median(onset_times(hrir_set.ir.reshape(-1, hrir_set.taps)))) / rate
+        # The median onset of all responses, to a sample (no oversampling: the delay only
+        # centres the magnitude fit's band in time, and oversampling a long equalised
+        # set's responses took seconds).
+        onsets = onset_times(hrir_set.ir.reshape(-1, hrir_set.taps), oversample=1)
+        delay = float(np.median(onsets)) / rate
         responses, how = magls_spectra(
             spectra,
             hrir_set.directions,

@@ -81,16 +81,25 @@ def magls_spectra(
     gram = y.T @ (w[:, None] * y)
     pinv = np.linalg.solve(gram + REGULARISATION * np.eye(channels), y.T * w)  # (C, M)
 
-    target = np.abs(spectra)
-    out = np.empty((channels, 2, len(freqs)), dtype=complex)
+    # Bins first and contiguous: the loop below runs once per bin on small matrices,
+    # and real matrix products on real and imaginary parts avoid converting Y and P to
+    # complex in every bin.
+    by_bin = np.ascontiguousarray(np.moveaxis(spectra, -1, 0))  # (F, M, 2)
+    target = np.abs(by_bin)
+    out = np.empty((len(freqs), channels, 2), dtype=complex)
     below = freqs <= cutoff
-    out[:, :, below] = np.einsum("cm,mef->cef", pinv, spectra[:, :, below])
     start = int(np.count_nonzero(below))
-    for k in range(max(start, 1), len(freqs)):
-        phase = np.angle(y @ out[:, :, k - 1])  # (M, 2)
-        out[:, :, k] = pinv @ (target[:, :, k] * np.exp(1j * phase))
+    out[:start] = np.einsum("cm,fme->fce", pinv, by_bin[:start])
     if start == 0:  # a cutoff below the first bin: the DC bin has no previous bin
-        out[:, :, 0] = pinv @ spectra[:, :, 0]
+        out[0] = pinv @ by_bin[0]
+    for k in range(max(start, 1), len(freqs)):
+        prev = out[k - 1]
+        decoded = (y @ prev.real) + 1j * (y @ prev.imag)  # (M, 2)
+        size = np.abs(decoded)
+        unit = np.divide(decoded, size, out=np.ones_like(decoded), where=size > 0)
+        wanted = target[k] * unit  # the measured magnitude with the decoded phase
+        out[k] = (pinv @ wanted.real) + 1j * (pinv @ wanted.imag)
+    out = np.moveaxis(out, 0, -1)  # (C, 2, F)
 
     if max_re:
         taper = max_re_weights(order)[acn_degrees(order)]
