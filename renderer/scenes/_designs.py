@@ -6,7 +6,7 @@ Dedicata 6 (1977) 363). Equivalently, the mean over the points of every spherica
 of degree ``1 <= n <= t`` is zero. A decoder for order ``N`` that samples the sphere at a
 ``(2N + 1)``-design keeps the harmonics up to order ``N`` orthogonal on its points, so a
 plane wave keeps its pressure and energy whatever its direction (Zotter and Frank,
-*Ambisonics*, Springer 2019, ch. 4).
+*Ambisonics*, Springer 2019).
 
 The designs here are antipodal (``x`` and ``-x`` both in the set), which makes every
 odd-degree mean zero by symmetry; the even degrees ``2 .. t - 1`` are driven to zero by

@@ -5,7 +5,7 @@ through the set's own HRIR pair.
   sampling decoder ``g = (1/L) Y diag(2n + 1) b`` (SN3D input) keeps the harmonics
   orthogonal on its points: a plane wave's gains sum to exactly 1 (its pressure) from any
   direction, and its energy is the same from any direction.
-* Weights, dual band (Zotter and Frank, *Ambisonics*, Springer 2019, sec. 4.9.5 and 7.3):
+* Weights, dual band (Zotter and Frank, *Ambisonics*, Springer 2019):
   below :func:`._weights.crossover_frequency` the basic (mode-matching) weights, which
   rebuild the field around the head, hence the interaural time difference, up to
   ``k a = N``; above it, where no order can do that, max-rE weights (:func:`max_re_weights`)

@@ -1,15 +1,16 @@
 """Weights the decoders share: max-rE order weights, the crossover frequency, quadrature.
 
-* max-rE (Zotter and Frank, *Ambisonics*, Springer 2019, sec. 3.3.4 and A.3; Daniel's
-  thesis before them): weighting degree ``n`` by ``a_n = P_n(r_E)``, where ``r_E`` is the
-  largest root of the Legendre polynomial ``P_{N+1}``, concentrates a plane wave's energy
-  most tightly around its direction. Zotter and Frank give the approximation
-  ``r_E ~ cos(137.9 deg / (N + 1.51))``; the exact root is used here.
-* The frequency up to which order ``N`` describes the field around a head exactly enough:
-  ``k a = N``, i.e. ``f_N = N c / (2 pi a)`` for a head of radius ``a`` (the rule
-  ``N >= k r`` of Zotter and Frank, ch. 4 and 7): about 624 Hz per order for the Woodworth
-  radius 8.75 cm. The virtual-loudspeaker decoder switches from basic to max-rE weights
-  there, and MagLS from least squares to magnitude least squares.
+* max-rE (Zotter and Frank, *Ambisonics*, Springer 2019): weighting degree ``n`` by
+  ``a_n = P_n(r_E)``, where ``r_E`` is the largest root of the Legendre polynomial
+  ``P_{N+1}``, concentrates a plane wave's energy most tightly around its direction.
+  Zotter and Frank give the approximation ``r_E ~ cos(137.9 deg / (N + 1.51))``; the
+  exact root is used here.
+* The frequency up to which order ``N`` describes the field around a head exactly
+  enough: ``k a = N``, i.e. ``f_N = N c / (2 pi a)`` for a head of radius ``a`` (the
+  common rule ``N >= k r`` for the order a field of radius ``r`` needs): about 624 Hz
+  per order for the Woodworth radius 8.75 cm. The virtual-loudspeaker decoder switches
+  from basic to max-rE weights there, and MagLS from least squares to magnitude least
+  squares.
 * Quadrature on a measurement grid: the solid angle of each direction's spherical Voronoi
   cell (:class:`scipy.spatial.SphericalVoronoi`), capped at :data:`MAX_CELL_RATIO` times
   the median cell, so that a direction next to an unmeasured cap (no measurements below
