@@ -382,3 +382,14 @@ def test_a_set_alike_in_every_direction_decodes_to_its_one_response(shared_sofa_
             band = (FREQS >= 200) & (FREQS <= 16000)
             err = 20 * np.log10(np.abs(out[:, band]) / np.abs(ref[:, band]))
             assert np.abs(err).max() < 0.5, (method, np.abs(err).max())
+
+
+def test_decoders_say_where_the_set_has_no_measurements(decoders):
+    # KEMAR has nothing below -40 degrees elevation (hrtf_sets/MIT_KEMAR_normal_pinna.md).
+    assert decoders("rigid-sphere", 5).warnings == ()
+    assert decoders("rigid-sphere", 5, "virtual").warnings == ()
+    (magls,) = decoders("mit-kemar", 5).warnings
+    assert "no measurement within 49 degrees" in magls and "elevation -89" in magls
+    (virtual,) = decoders("mit-kemar", 5, "virtual").warnings
+    assert virtual.startswith("11 of 70 virtual loudspeakers lie where HRIR set")
+    assert decoders("mit-kemar", 5).description["largest_gap_deg"] == pytest.approx(48.7, abs=0.1)
