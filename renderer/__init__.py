@@ -18,6 +18,7 @@ from .errors import (
     RenderCancelled,
     RendererError,
     RoomError,
+    SceneError,
     SofaError,
 )
 
@@ -53,6 +54,8 @@ _LAZY = {
     "Room": "room",
     "get_room": "room",
     "load_room_file": "room",
+    "SceneDecoder": "scenes",
+    "scene_decoder": "scenes",
     "SofaData": "hrtf",
     "read_sofa": "hrtf",
     "write_sofa": "hrtf",
@@ -93,6 +96,8 @@ __all__ = [
     "RendererError",
     "Room",
     "RoomError",
+    "SceneDecoder",
+    "SceneError",
     "SofaData",
     "SofaError",
     "Speaker",
@@ -113,6 +118,7 @@ __all__ = [
     "probe_stem",
     "read_audio",
     "read_sofa",
+    "scene_decoder",
     "write_audio",
     "write_sofa",
 ]

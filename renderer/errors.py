@@ -22,6 +22,7 @@ __all__ = [
     "RenderCancelled",
     "RendererError",
     "RoomError",
+    "SceneError",
     "SofaError",
 ]
 
@@ -48,6 +49,10 @@ class AudioError(RendererError, ValueError):
 
 class RoomError(RendererError, ValueError):
     """A room description is invalid, or a loudspeaker does not fit in the room."""
+
+
+class SceneError(RendererError, ValueError):
+    """An Ambisonic scene cannot be decoded as asked (order, channels, normalisation)."""
 
 
 class EqualisationError(RendererError, ValueError):

@@ -29,6 +29,7 @@ WINGS: dict[str, set[str]] = {
     "engine": set(),
     "loudness": {"io", "layouts"},
     "room": {"hrtf", "layouts"},
+    "scenes": {"hrtf", "layouts", "room"},
     "eq": {"hrtf", "engine", "io", "loudness"},
     "render": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq"},
     "tools": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "render"},
