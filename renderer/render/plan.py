@@ -44,11 +44,11 @@ from ..layouts import (
     suggest_layout,
 )
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
+from ._decay import energy_decay
 from .feeds import ChannelFeed, speaker_feeds
 from .filter_cache import FilterCache, default_filter_cache
 from .fold import FOLD_CHOICES, fold_feeds, fold_section
 from .options import ROOM_MODES, RenderSettings
-from .plot_data import room_decay
 
 __all__ = ["RenderPlan", "plan_from_feeds", "plan_render", "resolve_hrtf"]
 
@@ -91,7 +91,7 @@ class RenderPlan:
         The loudspeaker rendered alone (label, layout index, file channel), or None.
     room_decay : dict or None
         The report's room decay plot, computed with the filters
-        (:func:`~earfold.renderer.render.plot_data.room_decay`) and cached with them;
+        (:func:`room_decay`) and cached with them;
         None when there is no synthetic room or it is left to the report.
     """
 
@@ -1123,3 +1123,47 @@ def _is_measured_room(hset: HrirSet) -> bool:
         room_type not in ("", "free field", "freefield", "anechoic")
         or "brir" in hset.convention.lower()
     )
+
+
+def _room_response(plan: RenderPlan) -> tuple[NDArray[np.float64], str] | None:
+    """The binaural room response of the first non-LFE loudspeaker, in layout order."""
+    if plan.room is None:
+        return None
+    channels = [
+        (speaker, ch)
+        for ch, speaker in enumerate(plan.order)
+        if not plan.layout.speakers[speaker].lfe
+    ]
+    if not channels:
+        return None
+    speaker, ch = min(channels)
+    ir = plan.filters[ch]
+    if plan.tail is not None and plan.tail_weights is not None:
+        length = max(ir.shape[-1], plan.tail_offset + plan.tail.shape[-1])
+        full = np.zeros((2, length))
+        full[:, : ir.shape[-1]] = ir
+        full[:, plan.tail_offset : plan.tail_offset + plan.tail.shape[-1]] += (
+            float(plan.tail_weights[ch]) * plan.tail
+        )
+        ir = full
+    return ir, plan.layout.speakers[speaker].label
+
+
+def room_decay(plan: RenderPlan) -> dict[str, Any] | None:
+    """The report's ``room_decay`` plot: the energy decay per octave band of the first
+    non-LFE loudspeaker's binaural room response (None without a synthetic room).
+
+    It depends on the plan's filters alone, so a plan computes it once and the cache of
+    prepared filters keeps it with the filter bank
+    (:attr:`~earfold.renderer.render.plan.RenderPlan.room_decay`).
+    """
+    room = _room_response(plan)
+    if room is None:
+        return None
+    ir, label = room
+    return {
+        "what": f"binaural room response of {label!r}, both ears; Schroeder "
+        "integration per octave band",
+        "speaker": label,
+        **energy_decay(ir, plan.stem.samplerate),
+    }

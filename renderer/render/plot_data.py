@@ -33,8 +33,7 @@ import scipy.fft
 from numpy.typing import NDArray
 
 from ..loudness import LoudnessMeter
-from ..room import BANDS_HZ
-from ..signals import scipy_signal
+from ._decay import DECAY_FLOOR_DB, DECAY_POINTS, energy_decay, schroeder_db
 
 if TYPE_CHECKING:
     from .plan import RenderPlan
@@ -46,7 +45,6 @@ __all__ = [
     "SpectrumMeter",
     "energy_decay",
     "plot_section",
-    "room_decay",
     "schroeder_db",
     "thin_series",
     "third_octave_bands",
@@ -55,12 +53,6 @@ __all__ = [
 LOUDNESS_POINTS = 1200
 """Most points per loudness series: about one per pixel of a wide plot; 2 hours of
 programme then plot at 6 s per point (each the loudest reading of its 6 s)."""
-
-DECAY_POINTS = 160
-"""Points per band of the energy decay curves (enough for a smooth line on screen)."""
-
-DECAY_FLOOR_DB = -90.0
-"""Energy decay curves stop at this level (60 dB of decay plus a margin for the plot)."""
 
 SPECTRUM_LEVEL_FLOOR_DB = -200.0
 """Level reported for a band with no energy at all (digital silence)."""
@@ -219,79 +211,6 @@ class SpectrumMeter:
         }
 
 
-def schroeder_db(energy: NDArray[np.floating[Any]]) -> NDArray[np.float64]:
-    """Schroeder's backward integral of ``energy`` (squared samples), in dB re its start.
-
-    ``EDC(n) = sum_{m >= n} e(m)``, normalised so that ``EDC(0)`` is 0 dB (Schroeder 1965).
-    """
-    e = np.asarray(energy, dtype=np.float64)
-    edc = np.cumsum(e[::-1])[::-1]
-    if edc.size == 0 or edc[0] <= 0:
-        return np.full(e.shape, -np.inf)
-    with np.errstate(divide="ignore"):
-        levels: NDArray[np.float64] = 10.0 * np.log10(edc / edc[0])
-    return levels
-
-
-def energy_decay(
-    ir: NDArray[np.floating[Any]],
-    samplerate: float,
-    bands: tuple[float, ...] = BANDS_HZ,
-    points: int = DECAY_POINTS,
-    floor_db: float = DECAY_FLOOR_DB,
-) -> dict[str, Any]:
-    """Energy decay curves of an impulse response per octave band.
-
-    Each band is filtered as for ISO 3382-1 measurements (a 6th-order Butterworth
-    band-pass from ``fc / sqrt(2)`` to ``fc sqrt(2)``, as
-    :func:`earfold.renderer.room.filters.measure_rt60` does), squared, summed over rows (ears) and
-    integrated backwards (:func:`schroeder_db`).
-
-    Parameters
-    ----------
-    ir : ndarray, shape (N,) or (rows, N)
-    samplerate : float
-    bands : tuple of float
-        Octave band centres in Hz; bands whose upper edge is above 0.95 x Nyquist are left
-        out.
-    points : int
-        Points per curve, evenly spaced in time from 0 to where the slowest band reaches
-        ``floor_db`` (or the response ends).
-    floor_db : float
-        Lowest level kept; values below it read ``floor_db``.
-
-    Returns
-    -------
-    dict
-        ``{"bands_hz": [...], "time_s": [...], "levels_db": [[...] per band]}``.
-    """
-    signal = scipy_signal()
-
-    x = np.asarray(ir, dtype=np.float64)
-    x = x.reshape(-1, x.shape[-1])
-    fs = float(samplerate)
-    curves, kept = [], []
-    for fc in bands:
-        lo, hi = fc / math.sqrt(2.0), fc * math.sqrt(2.0)
-        if hi >= 0.95 * fs / 2:
-            continue
-        sos = signal.butter(3, [lo, hi], btype="bandpass", fs=fs, output="sos")
-        energy = np.sum(signal.sosfilt(sos, x, axis=-1) ** 2, axis=0)
-        curves.append(schroeder_db(energy))
-        kept.append(float(fc))
-    n = x.shape[-1]
-    end = 1
-    for c in curves:
-        below = np.flatnonzero(c <= floor_db)
-        end = max(end, int(below[0]) if below.size else n - 1)
-    idx = np.unique(np.linspace(0, min(end, n - 1), max(2, int(points))).round().astype(int))
-    return {
-        "bands_hz": kept,
-        "time_s": [round(float(i) / fs, 5) for i in idx],
-        "levels_db": [[round(float(max(v, floor_db)), 2) for v in c[idx]] for c in curves],
-    }
-
-
 def thin_series(
     values: list[float] | tuple[float, ...], interval_s: float, max_points: int = LOUDNESS_POINTS
 ) -> tuple[list[float], float]:
@@ -323,50 +242,6 @@ def _loudness(
         "short_term_start_s": series.get("short_term_start_s", 3.0),
         "integrated_lufs": integrated,
         "target_lufs": None if delivery is None else delivery.get("target_lufs"),
-    }
-
-
-def _room_response(plan: RenderPlan) -> tuple[NDArray[np.float64], str] | None:
-    """The binaural room response of the first non-LFE loudspeaker, in layout order."""
-    if plan.room is None:
-        return None
-    channels = [
-        (speaker, ch)
-        for ch, speaker in enumerate(plan.order)
-        if not plan.layout.speakers[speaker].lfe
-    ]
-    if not channels:
-        return None
-    speaker, ch = min(channels)
-    ir = plan.filters[ch]
-    if plan.tail is not None and plan.tail_weights is not None:
-        length = max(ir.shape[-1], plan.tail_offset + plan.tail.shape[-1])
-        full = np.zeros((2, length))
-        full[:, : ir.shape[-1]] = ir
-        full[:, plan.tail_offset : plan.tail_offset + plan.tail.shape[-1]] += (
-            float(plan.tail_weights[ch]) * plan.tail
-        )
-        ir = full
-    return ir, plan.layout.speakers[speaker].label
-
-
-def room_decay(plan: RenderPlan) -> dict[str, Any] | None:
-    """The report's ``room_decay`` plot: the energy decay per octave band of the first
-    non-LFE loudspeaker's binaural room response (None without a synthetic room).
-
-    It depends on the plan's filters alone, so a plan computes it once and the cache of
-    prepared filters keeps it with the filter bank
-    (:attr:`~earfold.renderer.render.plan.RenderPlan.room_decay`).
-    """
-    room = _room_response(plan)
-    if room is None:
-        return None
-    ir, label = room
-    return {
-        "what": f"binaural room response of {label!r}, both ears; Schroeder "
-        "integration per octave band",
-        "speaker": label,
-        **energy_decay(ir, plan.stem.samplerate),
     }
 
 
@@ -416,7 +291,7 @@ def plot_section(
         assert delivery is not None  # the series came from it
         integrated = delivery["output"].get("integrated_lufs")
     bands = spectrum.band_levels()
-    decay = plan.room_decay if plan.room_decay is not None else room_decay(plan)
+    decay = plan.room_decay
     assert series is not None
     return {
         "loudness": _loudness(series, delivery, integrated),
