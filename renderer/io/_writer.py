@@ -197,6 +197,7 @@ class OutputWriter:
         self.samplerate = int(samplerate)
         self.channels = int(channels)
         self.frames_written = 0
+        self._frames_encoded = 0
         self.clipped_samples = 0
         self.peak = 0.0
         self.durable = bool(durable)
@@ -241,41 +242,67 @@ class OutputWriter:
     def write(self, block: npt.NDArray[np.floating[Any]]) -> None:
         """Append a ``(n, channels)`` block of float samples (nominal range [-1, 1)).
 
+        The same as :meth:`write_encoded` of :meth:`encode`.
+
         Raises
         ------
         AudioError
             If the block has the wrong shape, holds NaN or infinity, the writer is
             closed, or a WAV without ``frames_hint`` would grow past the RIFF limit.
         """
+        self.write_encoded(self.encode(block))
+
+    def encode(self, block: npt.NDArray[np.floating[Any]]) -> npt.NDArray[Any]:
+        """Check, count and convert a block for :meth:`write_encoded`, without writing it.
+
+        Encoding (the checks, the peak, clipping, dither and quantisation) and writing
+        may run on two threads, one block after another on each, in the same order:
+        the file's encoder (libsndfile) then works beside the conversion. Blocks must
+        be written in the order they were encoded (the dither noise follows it).
+        :attr:`peak` and :attr:`clipped_samples` count the blocks encoded.
+
+        Raises
+        ------
+        AudioError
+            As :meth:`write`.
+        """
         if self._sf is None:
             raise AudioError(f"the writer of {self.path!r} is closed")
         x = check_block(block, self.channels)
         n = x.shape[0]
         if n == 0:
-            return
+            return np.zeros((0, self.channels), dtype=np.float32)
         # Two reductions stand for the finiteness check, the peak and the clip test: min
         # and max propagate NaN and show infinities, and most blocks need nothing more.
         lo, hi = float(np.min(x)), float(np.max(x))
         if not (np.isfinite(lo) and np.isfinite(hi)):
             bad = int(np.argmax(~np.all(np.isfinite(x), axis=1)))
             raise AudioError(
-                f"block holds NaN or infinity at frame {self.frames_written + bad} of {self.path!r}"
+                f"block holds NaN or infinity at frame {self._frames_encoded + bad} of "
+                f"{self.path!r}"
             )
         if self.format == "WAV" and _exceeds_riff(
-            self.frames_written + n, self.channels, self.subtype
+            self._frames_encoded + n, self.channels, self.subtype
         ):
             raise AudioError(
                 f"{self.path!r} would exceed the 4 GiB WAV limit; pass frames_hint so it is "
                 "written as RF64, or write .rf64 or .w64"
             )
         self.peak = max(self.peak, -lo, hi)
+        self._frames_encoded += n
         if self.subtype == "FLOAT":
-            self._sf.write(x.astype(np.float32, copy=False))
-        else:
-            if hi >= 1.0 or lo < -1.0:
-                self.clipped_samples += int(np.count_nonzero((x >= 1.0) | (x < -1.0)))
-            self._sf.write(self._quantise(x))
-        self.frames_written += n
+            return x.astype(np.float32, copy=False)
+        if hi >= 1.0 or lo < -1.0:
+            self.clipped_samples += int(np.count_nonzero((x >= 1.0) | (x < -1.0)))
+        return self._quantise(x)
+
+    def write_encoded(self, data: npt.NDArray[Any]) -> None:
+        """Append a block :meth:`encode` returned (the next in encoding order)."""
+        if self._sf is None:
+            raise AudioError(f"the writer of {self.path!r} is closed")
+        if len(data):
+            self._sf.write(data)
+            self.frames_written += len(data)
 
     def _quantise(self, x: npt.NDArray[np.floating[Any]]) -> npt.NDArray[np.signedinteger[Any]]:
         bits = _PCM_BITS[self.subtype]
