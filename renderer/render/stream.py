@@ -136,7 +136,9 @@ def stream(
 
     def emit(block: NDArray[np.floating[Any]]) -> None:
         if block.size:
-            peak = float(np.max(np.abs(block)))
+            # The peak without a temporary array: max and min propagate NaN and show
+            # infinities.
+            peak = max(float(np.max(block)), -float(np.min(block)))
             if not math.isfinite(peak):
                 raise EngineOverflow(_OVERFLOW)
             state["peak"] = max(state["peak"], peak)
@@ -173,7 +175,13 @@ def stream(
                 else threads.enter_context(BackgroundWriter(meter, _QUEUE_BLOCKS))
             )
             step = engine.block_size
-            blocks = reader.blocks(max(step, _READ_FRAMES // step * step))
+            # The reader fills the queue and one more block while this thread holds
+            # one: each read block is a view of one of QUEUE + 3 buffers, overwritten only
+            # after the engine has taken it (the input scale, when there is one, makes
+            # new arrays; the engine copies what it keeps).
+            blocks = reader.blocks(
+                max(step, _READ_FRAMES // step * step), reuse=True, buffers=_QUEUE_BLOCKS + 3
+            )
             for block in prefetch(metered(blocks), _QUEUE_BLOCKS):
                 if cancelled is not None and cancelled():
                     raise RenderCancelled("render cancelled")
