@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from types import TracebackType
@@ -121,7 +121,12 @@ class StemReader:
         self._files = []
 
     def blocks(
-        self, blocksize: int, *, reuse: bool = False, buffers: int = 1
+        self,
+        blocksize: int,
+        *,
+        reuse: bool = False,
+        buffers: int = 1,
+        wanted: Callable[[int, int], bool] | None = None,
     ) -> Iterator[npt.NDArray[np.float32]]:
         """Yield the stem from its start as ``(n, channels)`` float32 blocks.
 
@@ -138,6 +143,11 @@ class StemReader:
             Buffers a reused block cycles through: one more than the blocks a consumer
             may hold at once, such as a queue's depth plus the block each side holds
             (:func:`earfold.renderer.pipeline.prefetch`).
+        wanted : callable, optional
+            ``wanted(first, stop)`` says whether the caller needs the block of frames
+            ``first`` to ``stop`` (counted from the stem's start). A block it does not
+            want is not read (nor decoded): the files are moved past it and it comes as
+            silence, of the same length. By default every block is read.
 
         Notes
         -----
@@ -160,10 +170,14 @@ class StemReader:
             # A mono file shorter than the window's start contributes silence.
             f.seek(min(self.info.start, f.frames))
         self.frames_read = 0
-        return self._iterate(blocksize, channels, int(buffers) if reuse else 0)
+        return self._iterate(blocksize, channels, int(buffers) if reuse else 0, wanted)
 
     def _iterate(
-        self, blocksize: int, channels: int, buffers: int
+        self,
+        blocksize: int,
+        channels: int,
+        buffers: int,
+        wanted: Callable[[int, int], bool] | None,
     ) -> Iterator[npt.NDArray[np.float32]]:
         total = self.info.frames
         single = len(self._files) == 1
@@ -181,6 +195,13 @@ class StemReader:
                 turn = (turn + 1) % len(ring)
             else:
                 out = np.empty((n, channels), np.float32)
+            if wanted is not None and not wanted(self.frames_read, self.frames_read + n):
+                for f in self._files:
+                    f.seek(min(self.info.start + self.frames_read + n, f.frames))
+                out[...] = 0.0
+                self.frames_read += n
+                yield out
+                continue
             if single:
                 got = len(self._files[0].read(n, dtype="float32", always_2d=True, out=out))
                 if got == 0:

@@ -121,6 +121,18 @@ class SpectrumMeter:
         meter.stride = max(1, -(-total // max_segments))
         return meter
 
+    def needs(self, first: int, stop: int) -> bool:
+        """Whether frames ``first`` to ``stop`` of the stream (from its start, not from
+        what was fed so far) fall in a segment the meter analyses; frames no such segment
+        holds never enter the result, so they may be fed as silence."""
+        if stop <= first:
+            return False
+        span = self.stride * self._hop  # frames between the starts of analysed segments
+        # The first analysed segment that ends after `first`, and whether it starts
+        # before `stop`.
+        k = max(0, (first - self.nfft) // span + 1)
+        return k * span < stop
+
     def __init__(
         self, samplerate: float, channels: int, nfft: int | None = None, stride: int = 1
     ) -> None:
@@ -376,8 +388,11 @@ def plot_section(
         if series is not None
         else LoudnessMeter(info.samplerate, info.channels, measure_true_peak=False)
     )
+    # With the loudness series from the delivery stage, only the segments the spectrum
+    # analyses are read: at most SPECTRUM_SEGMENTS, a third of a 600 s render.
+    wanted = spectrum.needs if meter is None else None
     with StemReader(info) as reader:
-        for block in reader.blocks(_READ_FRAMES, reuse=True):
+        for block in reader.blocks(_READ_FRAMES, reuse=True, wanted=wanted):
             spectrum.process(block)
             if meter is not None:
                 meter.process(block)

@@ -238,6 +238,76 @@ def test_reuse_yields_views_of_one_buffer(tmp_path):
     assert len(bases) == 1
 
 
+def test_reuse_cycles_through_the_buffers_asked_for(tmp_path):
+    # A block is overwritten `buffers` blocks later, not before: a queue of blocks between
+    # two threads may hold that many.
+    x = _noise(5000, 2)
+    path = write_wav(tmp_path / "r.wav", x, FS, floating=True)
+    whole, _ = read_audio(path)
+    with StemReader(probe_stem([path])) as r:
+        blocks = r.blocks(512, reuse=True, buffers=3)
+        held = [next(blocks) for _ in range(3)]
+        assert len({id(b.base) for b in held}) == 3
+        assert_array_equal(np.concatenate(held), whole[:1536])
+        fourth = next(blocks)
+        assert fourth.base is held[0].base
+        assert_array_equal(held[1], whole[512:1024])  # still intact
+        assert_array_equal(fourth, whole[1536:2048])
+    with pytest.raises(AudioError, match="buffers"):
+        StemReader(probe_stem([path])).blocks(512, reuse=True, buffers=0)
+
+
+def test_blocks_not_wanted_are_silence_and_the_rest_is_read_in_place(tmp_path):
+    x = _noise(10000, 2, seed=4)
+    for name, paths in (
+        ("one", [write_wav(tmp_path / "st.wav", x, FS, floating=True)]),
+        (
+            "mono",
+            [
+                write_wav(tmp_path / "a.wav", x[:, :1], FS, floating=True),
+                write_wav(tmp_path / "b.wav", x[:7000, 1:], FS, floating=True),
+            ],
+        ),
+    ):
+        expected = np.zeros((10000, 2), dtype=np.float32)
+        whole = np.concatenate(list(StemReader(probe_stem(paths)).blocks(4096)))
+        asked: list[tuple[int, int]] = []
+
+        def wanted(first: int, stop: int, asked: list[tuple[int, int]] = asked) -> bool:
+            asked.append((first, stop))
+            return first // 1000 % 3 != 1  # blocks 1, 4, 7 are skipped
+
+        with StemReader(probe_stem(paths)) as r:
+            got = np.concatenate([b.copy() for b in r.blocks(1000, reuse=True, wanted=wanted)])
+            assert r.frames_read == 10000
+        for k in range(10):
+            if k % 3 != 1:
+                expected[k * 1000 : (k + 1) * 1000] = whole[k * 1000 : (k + 1) * 1000]
+        assert asked == [(k * 1000, (k + 1) * 1000) for k in range(10)], name
+        assert_array_equal(got, expected, err_msg=name)
+
+
+def test_encode_then_write_encoded_is_write(tmp_path):
+    # The delivery stage encodes on one thread and writes on another: the file, the peak
+    # and the clipping count are those of write().
+    x = _noise(9000, 2, seed=8, amplitude=1.2)
+    for subtype in ("PCM_16", "PCM_24", "FLOAT"):
+        with OutputWriter(tmp_path / "a.wav", FS, 2, subtype=subtype, seed=3) as one:
+            for start in range(0, len(x), 2500):
+                one.write(x[start : start + 2500])
+        with OutputWriter(tmp_path / "b.wav", FS, 2, subtype=subtype, seed=3) as two:
+            encoded = [two.encode(x[start : start + 2500]) for start in range(0, len(x), 2500)]
+            assert two.frames_written == 0
+            for data in encoded:
+                two.write_encoded(data)
+            assert two.frames_written == len(x)
+        assert (one.peak, one.clipped_samples) == (two.peak, two.clipped_samples)
+        assert two.clipped_samples > 0 or subtype == "FLOAT"
+        a, _ = soundfile.read(tmp_path / "a.wav", dtype="float64")
+        b, _ = soundfile.read(tmp_path / "b.wav", dtype="float64")
+        assert_array_equal(a, b, err_msg=subtype)
+
+
 def test_blocks_memory_does_not_grow_with_file_length(tmp_path):
     # 60 s of 12 channels at 48 kHz: 138 MB as float32. Reading it in 4096-frame blocks
     # should hold about two blocks (2 x 197 kB) at a time.

@@ -7,7 +7,7 @@ import math
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose
+from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
 from earfold.renderer.io import write_audio
@@ -236,3 +236,32 @@ def test_render_without_delivery_meters_the_file_itself(stem_51):
     assert plots["loudness"]["target_lufs"] is None
     assert plots["loudness"]["integrated_lufs"] is not None
     assert len(plots["loudness"]["short_term_lufs"]) > 10
+
+
+def test_frames_outside_the_analysed_segments_never_count():
+    # The report reads only what a strided spectrum analyses (SpectrumMeter.needs): the
+    # rest fed as silence gives the same figures, bit for bit.
+    rng = np.random.default_rng(6)
+    x = 0.1 * rng.standard_normal((50 * FS, 2)).astype(np.float32)
+    full = SpectrumMeter.for_length(FS, 2, len(x), max_segments=12)
+    sparse = SpectrumMeter.for_length(FS, 2, len(x), max_segments=12)
+    assert sparse.stride > 2
+    skipped = 0
+    for start in range(0, len(x), 20000):
+        block = x[start : start + 20000]
+        full.process(block)
+        if sparse.needs(start, start + len(block)):
+            sparse.process(block)
+        else:
+            sparse.process(np.zeros_like(block))
+            skipped += 1
+    assert skipped > len(x) // 20000 // 3
+    assert sparse._segments == full._segments
+    assert_array_equal(sparse.mean_square()[1], full.mean_square()[1])
+    # needs() against the segments themselves: frames [a, b) meet an analysed segment.
+    hop, span = full.nfft // 2, full.stride * full.nfft // 2
+    starts = np.arange(0, len(x), span)
+    for a, b in ((0, 1), (hop, hop + 1), (full.nfft, span), (span - 1, span), (span + 5, span + 9)):
+        meets = bool(np.any((starts < b) & (starts + full.nfft > a)))
+        assert full.needs(a, b) == meets, (a, b)
+    assert not full.needs(10, 10)
