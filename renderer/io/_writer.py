@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import threading
 from pathlib import Path
 from types import TracebackType
 from typing import Any
@@ -41,10 +42,65 @@ _HEADER_ALLOWANCE = 1 << 16
 Generous on purpose: over-estimating only means a file just under 4 GiB is written as
 RF64, under-estimating would write a WAV whose sizes overflow."""
 
+_SYNC_BYTES = 32 << 20
+"""Bytes a durable writer lets pile up before a thread of its own starts flushing them
+to disk (:class:`_EarlySync`), so that the fsync before the rename has little left to
+do. Measured on 600 s of stereo PCM_24 (173 MB): that fsync took 0.05-0.15 s of the
+delivery pass, which ran on while the pages went out."""
+
 _FLAC_SUBTYPES = ("PCM_16", "PCM_24")
 _FLAC_MAX_CHANNELS = 8  # the FLAC format's own limit (RFC 9639; common practice)
 _BYTES_PER_SAMPLE = {"PCM_16": 2, "PCM_24": 3, "FLOAT": 4}
 _PCM_BITS = {"PCM_16": 16, "PCM_24": 24}
+
+
+class _EarlySync:
+    """Flush a file being written to disk on a thread of its own, while it grows.
+
+    Each :meth:`flush` (the writer calls it every :data:`_SYNC_BYTES`) has the thread
+    run ``fdatasync`` on a descriptor of its own (the kernel waits for the disk, not
+    Python). The final fsync before the rename stays the guarantee
+    (:class:`earfold.renderer.files.AtomicPath`); a failure here is kept and raised by
+    :meth:`stop`, so that it cannot be lost between the two.
+    """
+
+    def __init__(self, path: str) -> None:
+        self._fd = os.open(path, os.O_WRONLY)
+        self._wake = threading.Event()
+        self._stopping = False
+        self.error: OSError | None = None
+        self._thread = threading.Thread(target=self._run, name="earfold-sync", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while True:
+            self._wake.wait()
+            self._wake.clear()
+            if self._stopping:
+                return
+            try:
+                os.fdatasync(self._fd)
+            except OSError as exc:
+                self.error = exc
+                return
+
+    def flush(self) -> None:
+        """Wake the thread: it flushes what was written so far (or, when it is busy,
+        flushes again once done)."""
+        self._wake.set()
+
+    def stop(self) -> None:
+        """Stop the thread (after its flush in progress) and close its descriptor; raise
+        the error a flush met, if any."""
+        if self._fd < 0:
+            return
+        self._stopping = True
+        self._wake.set()
+        self._thread.join()
+        os.close(self._fd)
+        self._fd = -1
+        if self.error is not None:
+            raise self.error
 
 
 def subtype_for(name: str) -> str:
@@ -224,6 +280,9 @@ class OutputWriter:
             if isinstance(exc, (CodecError, OSError)):
                 raise AudioError(f"cannot write {str(dest)!r}: {failure_reason(exc)}") from exc
             raise
+        # Started with the first _SYNC_BYTES written (a small file needs no thread).
+        self._sync: _EarlySync | None = None
+        self._unsynced = 0 if self.durable else None
 
     def __enter__(self) -> OutputWriter:
         return self
@@ -303,6 +362,11 @@ class OutputWriter:
         if len(data):
             self._sf.write(data)
             self.frames_written += len(data)
+            if self._unsynced is not None:
+                self._unsynced += len(data) * self.channels * _BYTES_PER_SAMPLE[self.subtype]
+                if self._unsynced >= _SYNC_BYTES:
+                    self._unsynced = 0
+                    self._flush_early()
 
     def _quantise(self, x: npt.NDArray[np.floating[Any]]) -> npt.NDArray[np.signedinteger[Any]]:
         bits = _PCM_BITS[self.subtype]
@@ -337,8 +401,11 @@ class OutputWriter:
         try:
             self._sf.close()
             self._sf = None
-        except BaseException:
+            self._stop_sync()
+        except BaseException as exc:
             self.abort()
+            if isinstance(exc, OSError):
+                raise AudioError(f"cannot write {self.path!r}: {failure_reason(exc)}") from exc
             raise
         # Removes the temporary file itself if the fsync or the rename fails.
         self._spot.commit()
@@ -351,7 +418,26 @@ class OutputWriter:
             except Exception:  # already failing; the file is removed next anyway
                 pass
             self._sf = None
+        try:
+            self._stop_sync()
+        except OSError:  # already failing; the file is removed next anyway
+            pass
         self._spot.discard()
+
+    def _flush_early(self) -> None:
+        """Have the bytes written so far flushed to disk, on the sync thread."""
+        if self._sync is None:
+            try:
+                self._sync = _EarlySync(self._tmp)
+            except OSError:  # no early flushing; the fsync before the rename still runs
+                self._unsynced = None
+                return
+        self._sync.flush()
+
+    def _stop_sync(self) -> None:
+        sync, self._sync = self._sync, None
+        if sync is not None:
+            sync.stop()
 
 
 def _valid_subtypes(fmt: str) -> tuple[str, ...]:

@@ -329,6 +329,45 @@ def test_blocks_memory_does_not_grow_with_file_length(tmp_path):
     assert peak < 3 * 2**20, f"peak {peak} bytes while reading a {frames * channels * 4} B stem"
 
 
+def test_durable_writer_flushes_early_on_a_thread_and_still_commits(tmp_path, monkeypatch):
+    # Every _SYNC_BYTES a thread flushes what was written; the file is the same, the
+    # thread is gone after close, and a small file starts no thread at all.
+    monkeypatch.setattr(writer_module, "_SYNC_BYTES", 6000)
+    synced = []
+    real = writer_module.os.fdatasync
+    monkeypatch.setattr(writer_module.os, "fdatasync", lambda fd: (synced.append(fd), real(fd)))
+    x = _noise(10000, 2, amplitude=0.5)
+    with OutputWriter(tmp_path / "big.wav", FS, 2) as w:
+        for start in range(0, len(x), 1000):
+            w.write(x[start : start + 1000])
+        thread = w._sync._thread
+    assert not thread.is_alive() and synced
+    with OutputWriter(tmp_path / "small.wav", FS, 2) as w:
+        w.write(x[:500])
+        assert w._sync is None
+    assert_allclose(soundfile.read(tmp_path / "big.wav", dtype="float32")[0], x, atol=2**-23)
+    assert _parts(tmp_path) == []
+    # Not durable: no early flushing either.
+    with OutputWriter(tmp_path / "scratch.wav", FS, 2, durable=False) as w:
+        w.write(x)
+        assert w._sync is None
+
+
+def test_a_failed_early_flush_fails_the_write_and_leaves_no_file(tmp_path, monkeypatch):
+    monkeypatch.setattr(writer_module, "_SYNC_BYTES", 6000)
+
+    def broken(fd: int) -> None:
+        raise OSError(5, "Input/output error")
+
+    monkeypatch.setattr(writer_module.os, "fdatasync", broken)
+    w = OutputWriter(tmp_path / "out.wav", FS, 2)
+    w.write(_noise(4000, 2, amplitude=0.5))
+    w._sync._thread.join()  # the thread stops at its failure
+    with pytest.raises(AudioError, match="Input/output error"):
+        w.close()
+    assert not (tmp_path / "out.wav").exists() and _parts(tmp_path) == []
+
+
 # ---------------------------------------------------------------- channel mask
 
 
