@@ -355,6 +355,17 @@ class OutputWriter:
             self.clipped_samples += int(np.count_nonzero((x >= 1.0) | (x < -1.0)))
         return self._quantise(x)
 
+    def decoded(self, data: npt.NDArray[Any]) -> npt.NDArray[np.float32]:
+        """The float32 samples reading the file back gives for a block :meth:`encode`
+        returned (as :class:`earfold.renderer.io.StemReader` reads them): the codes
+        times the library's scale, 2**-15 at 16 bits and 2**-31 for the top 24 bits of
+        an int32, exact in float32; FLOAT blocks as they are."""
+        if data.dtype == np.float32:
+            return data
+        scale = np.float32(2.0**-15 if data.dtype == np.int16 else 2.0**-31)
+        out: npt.NDArray[np.float32] = np.multiply(data, scale, dtype=np.float32)
+        return out
+
     def write_encoded(self, data: npt.NDArray[Any]) -> None:
         """Append a block :meth:`encode` returned (the next in encoding order)."""
         if self._sf is None:
