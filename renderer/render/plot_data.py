@@ -17,8 +17,10 @@ Three kinds of curve, each bounded in size whatever the length of the render:
   re its value at time 0, for the binaural room response of one loudspeaker (the same
   one whose RT60 the room section reports). Only when a room was used.
 
-:func:`plot_section` builds the whole section with one extra read of the output file;
-:func:`earfold.renderer.render.render` calls it last.
+:func:`plot_section` builds the whole section; :func:`earfold.renderer.render.render`
+calls it last. After a delivery stage it reads nothing: the loudness series are the
+delivery's and the spectrum was fed the delivered samples as they were written
+(:class:`OutputSpectrum`). Without one, it reads the output file once.
 """
 
 from __future__ import annotations
