@@ -126,15 +126,22 @@ class FoldEngine:
         return self._take(min(self._direct_frames, len(self._tail_ready)))
 
     def _submit_tail(self) -> None:
-        """Hand the next tail chunk (zero-padded at the end of the stream) to the thread."""
+        """Hand the whole tail chunks waiting (at least one, the last zero-padded at the
+        end of the stream) to the thread, as one job.
+
+        Blocks larger than a chunk then keep the thread as busy as the direct part: the
+        convolver takes the chunks one hop after another, so the output is the same as
+        with one job per chunk.
+        """
         assert self.tail is not None
-        mix = np.concatenate(self._mix)
+        mix = np.concatenate(self._mix) if len(self._mix) != 1 else self._mix[0]
         size = self.tail.hop
-        chunk = mix[:size]
-        if len(chunk) < size:
-            chunk = np.concatenate([chunk, np.zeros(size - len(chunk), dtype=np.float32)])
-        self._mix = [mix[size:]]
-        self._mix_frames = max(0, len(mix) - size)
+        whole = max(1, len(mix) // size) * size
+        chunk = mix[:whole]
+        if len(chunk) < whole:
+            chunk = np.concatenate([chunk, np.zeros(whole - len(chunk), dtype=np.float32)])
+        self._mix = [mix[whole:]]
+        self._mix_frames = max(0, len(mix) - whole)
         self._collect_tail()
         self._pending = self._pool.submit(self.tail.process, chunk[:, None])
 

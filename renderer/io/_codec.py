@@ -83,11 +83,30 @@ def open_for_reading(path: str) -> SoundFileHandle:
     return handle
 
 
+class _UnsyncedFile(sf.SoundFile):  # type: ignore[misc]
+    """A file written without the library's fsync when it is closed.
+
+    soundfile's ``close`` first calls ``flush``, which asks libsndfile to fsync the
+    whole file. Our writer decides itself what must reach the disk
+    (:class:`earfold.renderer.files.AtomicPath` fsyncs the finished file, header
+    included, before renaming it): a scratch render read back at once need not be
+    synced at all, and a delivered file need not be synced twice. Measured on a 230 MB
+    scratch render: the library's fsync took 0.07-0.09 s of the writer's close.
+    """
+
+    def flush(self) -> None:
+        """Check the file is open; write nothing to disk (see the class)."""
+        self._check_if_closed()
+
+
 def open_for_writing(
     path: str, *, samplerate: int, channels: int, format: str, subtype: str
 ) -> SoundFileHandle:
-    """Open ``path`` for writing, truncating it (raises :data:`CodecError` or :class:`OSError`)."""
-    handle: SoundFileHandle = sf.SoundFile(
+    """Open ``path`` for writing, truncating it (raises :data:`CodecError` or :class:`OSError`).
+
+    Closing the handle does not fsync the file: the caller syncs what must be durable.
+    """
+    handle: SoundFileHandle = _UnsyncedFile(
         path, mode="w", samplerate=samplerate, channels=channels, format=format, subtype=subtype
     )
     return handle

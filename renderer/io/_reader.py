@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from types import TracebackType
@@ -120,7 +120,14 @@ class StemReader:
             f.close()
         self._files = []
 
-    def blocks(self, blocksize: int, *, reuse: bool = False) -> Iterator[npt.NDArray[np.float32]]:
+    def blocks(
+        self,
+        blocksize: int,
+        *,
+        reuse: bool = False,
+        buffers: int = 1,
+        wanted: Callable[[int, int], bool] | None = None,
+    ) -> Iterator[npt.NDArray[np.float32]]:
         """Yield the stem from its start as ``(n, channels)`` float32 blocks.
 
         Parameters
@@ -128,9 +135,19 @@ class StemReader:
         blocksize : int
             Most frames per block; every block but the last has exactly this many.
         reuse : bool, optional
-            If True, every block is a view of one buffer that the next block overwrites
-            (no allocation per block; copy what you keep). By default each block is a
-            new array. Either way memory depends on ``blocksize``, not on file length.
+            If True, every block is a view of one of ``buffers`` buffers, used in turn: a
+            block is overwritten ``buffers`` blocks later (no allocation per block; copy
+            what you keep longer). By default each block is a new array. Either way
+            memory depends on ``blocksize``, not on file length.
+        buffers : int, optional
+            Buffers a reused block cycles through: one more than the blocks a consumer
+            may hold at once, such as a queue's depth plus the block each side holds
+            (:func:`earfold.renderer.pipeline.prefetch`).
+        wanted : callable, optional
+            ``wanted(first, stop)`` says whether the caller needs the block of frames
+            ``first`` to ``stop`` (counted from the stem's start). A block it does not
+            want is not read (nor decoded): the files are moved past it and it comes as
+            silence, of the same length. By default every block is read.
 
         Notes
         -----
@@ -145,26 +162,46 @@ class StemReader:
             raise AudioError(f"blocksize must be a positive integer, not {shown(blocksize)}")
         if not self._files:
             raise AudioError(f"the reader of {self.info.paths[0]!r} is closed")
+        if isinstance(buffers, bool) or not isinstance(buffers, (int, np.integer)) or buffers < 1:
+            raise AudioError(f"buffers must be a positive integer, not {shown(buffers)}")
         blocksize = int(blocksize)
         channels = self.info.channels
         for f in self._files:
             # A mono file shorter than the window's start contributes silence.
             f.seek(min(self.info.start, f.frames))
         self.frames_read = 0
-        return self._iterate(blocksize, channels, reuse)
+        return self._iterate(blocksize, channels, int(buffers) if reuse else 0, wanted)
 
     def _iterate(
-        self, blocksize: int, channels: int, reuse: bool
+        self,
+        blocksize: int,
+        channels: int,
+        buffers: int,
+        wanted: Callable[[int, int], bool] | None,
     ) -> Iterator[npt.NDArray[np.float32]]:
         total = self.info.frames
         single = len(self._files) == 1
         # One (blocksize, 1) column buffer for the mono files: soundfile reads only into
         # contiguous memory, and a column of the stacked block is not contiguous.
         column = None if single else np.empty((blocksize, 1), dtype=np.float32)
-        shared = np.empty((blocksize, channels), dtype=np.float32) if reuse else None
+        # Reused buffers also spare the pages of a new array: a fresh block of a few MB is
+        # new memory the kernel maps and zeroes, page by page, at every read.
+        ring = [np.empty((blocksize, channels), dtype=np.float32) for _ in range(buffers)]
+        turn = 0
         while self.frames_read < total:
             n = min(blocksize, total - self.frames_read)
-            out = shared[:n] if shared is not None else np.empty((n, channels), np.float32)
+            if ring:
+                out = ring[turn][:n]
+                turn = (turn + 1) % len(ring)
+            else:
+                out = np.empty((n, channels), np.float32)
+            if wanted is not None and not wanted(self.frames_read, self.frames_read + n):
+                for f in self._files:
+                    f.seek(min(self.info.start + self.frames_read + n, f.frames))
+                out[...] = 0.0
+                self.frames_read += n
+                yield out
+                continue
             if single:
                 got = len(self._files[0].read(n, dtype="float32", always_2d=True, out=out))
                 if got == 0:

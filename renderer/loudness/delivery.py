@@ -67,6 +67,8 @@ def deliver(
     progress: Callable[[float], None] | None = None,
     cancelled: Callable[[], bool] | None = None,
     render_meter: LoudnessMeter | None = None,
+    observe: Callable[[NDArray[Any], Callable[[NDArray[Any]], NDArray[np.float32]]], None]
+    | None = None,
 ) -> dict[str, Any]:
     """Normalise, limit and write a render; return the report's delivery section.
 
@@ -80,6 +82,13 @@ def deliver(
         integrated loudness sets the gain; its true peak tells the limiter whether it
         has anything to do (``known_true_peak`` of
         :class:`earfold.renderer.loudness.limiter.TruePeakLimiter`). It is not changed.
+    observe : callable, optional
+        ``observe(codes, decode)`` is called on a thread of its own, in order, with
+        every block of the delivered file as written (``codes``, from
+        :meth:`earfold.renderer.io.OutputWriter.encode`) and the function that turns
+        such a block into the float32 samples reading the file back gives
+        (:meth:`earfold.renderer.io.OutputWriter.decoded`): what a caller would
+        otherwise read again (the report's spectra), converting only what it uses.
     output_path : path-like
         The delivered file, written under a temporary name and renamed when complete.
     options : DeliveryOptions
@@ -232,18 +241,31 @@ def deliver(
         # output run in threads of their own beside the reading and the limiter
         # (earfold.renderer.pipeline), in order; both are drained before the output file is
         # closed and before the meter is read. The blocks are new arrays that nobody
-        # changes, so the two threads may share them.
+        # changes, so the two threads may share them. This thread converts each block to
+        # the output's samples (OutputWriter.encode: checks, clipping, dither) and the
+        # writer's thread only hands them to the file's encoder, the larger part of the
+        # pass's work: measured on 600 s of stereo PCM_24, 0.2 s against 0.03 s.
         with contextlib.ExitStack() as threads:
-            writing = threads.enter_context(BackgroundWriter(writer.write))
+            writing = threads.enter_context(BackgroundWriter(writer.write_encoded))
             metering = (
                 None if after is None else threads.enter_context(BackgroundWriter(after.process))
+            )
+            observing = (
+                None
+                if observe is None
+                else threads.enter_context(
+                    BackgroundWriter(lambda codes: observe(codes, writer.decoded))
+                )
             )
 
             def emit(block: NDArray[np.float32]) -> None:
                 if block.shape[0]:
                     if metering is not None:
                         metering.submit(block)
-                    writing.submit(block)
+                    encoded = writer.encode(block)
+                    writing.submit(encoded)
+                    if observing is not None:
+                        observing.submit(encoded)
 
             # Reading runs a block ahead on its own thread (new arrays each time, so the
             # writer thread may hold them): this thread only scales and limits.

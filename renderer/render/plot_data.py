@@ -17,8 +17,10 @@ Three kinds of curve, each bounded in size whatever the length of the render:
   re its value at time 0, for the binaural room response of one loudspeaker (the same
   one whose RT60 the room section reports). Only when a room was used.
 
-:func:`plot_section` builds the whole section with one extra read of the output file;
-:func:`earfold.renderer.render.render` calls it last.
+:func:`plot_section` builds the whole section; :func:`earfold.renderer.render.render`
+calls it last. After a delivery stage it reads nothing: the loudness series are the
+delivery's and the spectrum was fed the delivered samples as they were written
+(:class:`OutputSpectrum`). Without one, it reads the output file once.
 """
 
 from __future__ import annotations
@@ -26,6 +28,7 @@ from __future__ import annotations
 import math
 import os
 import time
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -42,6 +45,7 @@ __all__ = [
     "DECAY_FLOOR_DB",
     "DECAY_POINTS",
     "LOUDNESS_POINTS",
+    "OutputSpectrum",
     "SpectrumMeter",
     "energy_decay",
     "plot_section",
@@ -121,6 +125,18 @@ class SpectrumMeter:
         total = (frames - meter.nfft) // meter._hop + 1 if frames >= meter.nfft else 0
         meter.stride = max(1, -(-total // max_segments))
         return meter
+
+    def needs(self, first: int, stop: int) -> bool:
+        """Whether frames ``first`` to ``stop`` of the stream (from its start, not from
+        what was fed so far) fall in a segment the meter analyses; frames no such segment
+        holds never enter the result, so they may be fed as silence."""
+        if stop <= first:
+            return False
+        span = self.stride * self._hop  # frames between the starts of analysed segments
+        # The first analysed segment that ends after `first`, and whether it starts
+        # before `stop`.
+        k = max(0, (first - self.nfft) // span + 1)
+        return k * span < stop
 
     def __init__(
         self, samplerate: float, channels: int, nfft: int | None = None, stride: int = 1
@@ -245,8 +261,68 @@ def _loudness(
     }
 
 
+class OutputSpectrum:
+    """The report's spectrum of a file, fed with its samples as they are written.
+
+    Called with blocks of any length as the file holds them and the function that
+    decodes them (the delivery stage's ``observe``), it hands the meter the same blocks
+    :func:`plot_section` would read from the finished file, so the figures are those of
+    reading it, bit for bit, and the file need not be read. Blocks no analysed segment
+    holds go in as silence, not decoded (they never count).
+
+    Parameters
+    ----------
+    samplerate : float
+    channels : int
+    frames : int
+        The file's length (the segments analysed depend on it).
+    """
+
+    def __init__(self, samplerate: float, channels: int, frames: int) -> None:
+        self.meter = SpectrumMeter.for_length(samplerate, channels, frames)
+        self.frames = int(frames)
+        self._held: list[NDArray[Any]] = []
+        self._count = 0  # frames held
+        self._done = 0  # frames handed to the meter
+        self._decode: Callable[[NDArray[Any]], NDArray[np.float32]] | None = None
+
+    def __call__(
+        self, block: NDArray[Any], decode: Callable[[NDArray[Any]], NDArray[np.float32]]
+    ) -> None:
+        """Take the next frames of the file, as written, and the function that decodes
+        them into the samples reading the file gives."""
+        self._decode = decode
+        self._held.append(block)
+        self._count += len(block)
+        while self._count >= _READ_FRAMES:
+            self._hand(_READ_FRAMES)
+
+    def finish(self) -> SpectrumMeter | None:
+        """Hand over the last frames and return the meter, which then holds the whole
+        file's figures; None if the frames fed were not the file's length (then the
+        file is to be read instead)."""
+        if self._count:
+            self._hand(self._count)
+        return self.meter if self._done == self.frames else None
+
+    def _hand(self, n: int) -> None:
+        whole = self._held[0] if len(self._held) == 1 else np.concatenate(self._held)
+        block, rest = whole[:n], whole[n:]
+        self._held = [rest] if len(rest) else []
+        self._count -= n
+        if self.meter.needs(self._done, self._done + n):
+            assert self._decode is not None
+            self.meter.process(self._decode(block))
+        else:
+            self.meter.process(np.zeros(block.shape, dtype=np.float32))
+        self._done += n
+
+
 def plot_section(
-    plan: RenderPlan, output: str | os.PathLike[str], delivery: dict[str, Any] | None
+    plan: RenderPlan,
+    output: str | os.PathLike[str],
+    delivery: dict[str, Any] | None,
+    spectrum: OutputSpectrum | None = None,
 ) -> dict[str, Any]:
     """The report's ``plots`` section for a finished render.
 
@@ -258,6 +334,9 @@ def plot_section(
         The delivered file (two channels); read once, in blocks.
     delivery : dict or None
         The report's delivery section; its loudness series are reused when present.
+    spectrum : OutputSpectrum, optional
+        The output's spectrum, fed while the file was written; with it and the
+        delivery's series the file is not read at all.
 
     Returns
     -------
@@ -269,18 +348,26 @@ def plot_section(
 
     t0 = time.perf_counter()
     info = probe_stem([output])
-    spectrum = SpectrumMeter.for_length(info.samplerate, info.channels, info.frames)
     series = None if delivery is None else delivery.get("output", {}).get("series")
     meter = (
         None
         if series is not None
         else LoudnessMeter(info.samplerate, info.channels, measure_true_peak=False)
     )
-    with StemReader(info) as reader:
-        for block in reader.blocks(_READ_FRAMES, reuse=True):
-            spectrum.process(block)
-            if meter is not None:
-                meter.process(block)
+    fed = None if meter is not None or spectrum is None else spectrum.finish()
+    if fed is not None and (fed.frames, fed.channels) == (info.frames, info.channels):
+        spectrum_meter = fed
+    else:
+        spectrum_meter = SpectrumMeter.for_length(info.samplerate, info.channels, info.frames)
+        # With the loudness series from the delivery stage, only the segments the
+        # spectrum analyses are read: at most SPECTRUM_SEGMENTS, a third of a 600 s
+        # render.
+        wanted = spectrum_meter.needs if meter is None else None
+        with StemReader(info) as reader:
+            for block in reader.blocks(_READ_FRAMES, reuse=True, wanted=wanted):
+                spectrum_meter.process(block)
+                if meter is not None:
+                    meter.process(block)
     if meter is not None:
         measured = meter.result()
         series = measured.to_dict()["series"]
@@ -290,7 +377,7 @@ def plot_section(
     else:
         assert delivery is not None  # the series came from it
         integrated = delivery["output"].get("integrated_lufs")
-    bands = spectrum.band_levels()
+    bands = spectrum_meter.band_levels()
     decay = plan.room_decay
     assert series is not None
     return {
@@ -301,8 +388,8 @@ def plot_section(
             "-3.01 dB); Welch, Hann, 50 % overlap, at most "
             f"{SPECTRUM_SEGMENTS} segments evenly spread",
             "ears": ["left", "right"][: info.channels],
-            "nfft": spectrum.nfft,
-            "segments": spectrum._segments,
+            "nfft": spectrum_meter.nfft,
+            "segments": spectrum_meter._segments,
             **bands,
         },
         "room_decay": decay,

@@ -12,7 +12,7 @@ import numpy as np
 from .. import __version__
 from .options import RenderSettings
 from .plan import RenderPlan
-from .plot_data import plot_section
+from .plot_data import OutputSpectrum, plot_section
 
 __all__ = ["render_report"]
 
@@ -26,6 +26,7 @@ def render_report(
     *,
     subtype: str,
     timings: tuple[float, float, float, float],
+    spectrum: OutputSpectrum | None = None,
 ) -> dict[str, Any]:
     """The report of a finished render.
 
@@ -49,6 +50,9 @@ def render_report(
     timings : (float, float, float, float)
         ``time.perf_counter()`` at the start, after the plan, after the render pass and
         at the end.
+    spectrum : OutputSpectrum, optional
+        The output's spectrum, fed by the delivery stage as it wrote the file
+        (:func:`~earfold.renderer.render.plot_data.plot_section`).
     """
     stem = plan.stem
     t0, t_plan, t_render, t_end = timings
@@ -140,7 +144,7 @@ def render_report(
             "x_real_time": round(duration / max(t_end - t_plan, 1e-9), 1),
         },
         "platform": {"python": platform.python_version(), "machine": platform.machine()},
-        "plots": plot_section(plan, out_path, delivery),
+        "plots": plot_section(plan, out_path, delivery, spectrum),
         "warnings": warnings,
         "notes": notes,
     }

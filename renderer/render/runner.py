@@ -16,6 +16,7 @@ from ..io import subtype_for
 from ..loudness import DeliveryOptions, deliver
 from .options import RenderSettings, output_format
 from .plan import RenderPlan, plan_render
+from .plot_data import OutputSpectrum
 from .report import render_report
 from .stream import HOT_INPUT_SCALE, EngineOverflow, stream
 
@@ -118,7 +119,11 @@ def render(
                     raise
         t_render = time.perf_counter()
         delivery: dict[str, Any] | None = None
+        spectrum: OutputSpectrum | None = None
         if not direct:
+            # The report's spectra are taken from the delivered samples as they are
+            # written, on a thread of their own, instead of reading the file again.
+            spectrum = OutputSpectrum(plan.stem.samplerate, 2, streamed["frames"])
             delivery = deliver(
                 temp,
                 out_path,
@@ -132,6 +137,7 @@ def render(
                 else (lambda f: progress(share + (1 - share) * f)),
                 cancelled=cancelled,
                 render_meter=streamed["render_meter"],
+                observe=spectrum,
             )
     finally:
         if not direct:
@@ -147,6 +153,7 @@ def render(
         delivery,
         subtype=subtype,
         timings=(t0, t_plan, t_render, t_end),
+        spectrum=spectrum,
     )
 
 

@@ -238,6 +238,76 @@ def test_reuse_yields_views_of_one_buffer(tmp_path):
     assert len(bases) == 1
 
 
+def test_reuse_cycles_through_the_buffers_asked_for(tmp_path):
+    # A block is overwritten `buffers` blocks later, not before: a queue of blocks between
+    # two threads may hold that many.
+    x = _noise(5000, 2)
+    path = write_wav(tmp_path / "r.wav", x, FS, floating=True)
+    whole, _ = read_audio(path)
+    with StemReader(probe_stem([path])) as r:
+        blocks = r.blocks(512, reuse=True, buffers=3)
+        held = [next(blocks) for _ in range(3)]
+        assert len({id(b.base) for b in held}) == 3
+        assert_array_equal(np.concatenate(held), whole[:1536])
+        fourth = next(blocks)
+        assert fourth.base is held[0].base
+        assert_array_equal(held[1], whole[512:1024])  # still intact
+        assert_array_equal(fourth, whole[1536:2048])
+    with pytest.raises(AudioError, match="buffers"):
+        StemReader(probe_stem([path])).blocks(512, reuse=True, buffers=0)
+
+
+def test_blocks_not_wanted_are_silence_and_the_rest_is_read_in_place(tmp_path):
+    x = _noise(10000, 2, seed=4)
+    for name, paths in (
+        ("one", [write_wav(tmp_path / "st.wav", x, FS, floating=True)]),
+        (
+            "mono",
+            [
+                write_wav(tmp_path / "a.wav", x[:, :1], FS, floating=True),
+                write_wav(tmp_path / "b.wav", x[:7000, 1:], FS, floating=True),
+            ],
+        ),
+    ):
+        expected = np.zeros((10000, 2), dtype=np.float32)
+        whole = np.concatenate(list(StemReader(probe_stem(paths)).blocks(4096)))
+        asked: list[tuple[int, int]] = []
+
+        def wanted(first: int, stop: int, asked: list[tuple[int, int]] = asked) -> bool:
+            asked.append((first, stop))
+            return first // 1000 % 3 != 1  # blocks 1, 4, 7 are skipped
+
+        with StemReader(probe_stem(paths)) as r:
+            got = np.concatenate([b.copy() for b in r.blocks(1000, reuse=True, wanted=wanted)])
+            assert r.frames_read == 10000
+        for k in range(10):
+            if k % 3 != 1:
+                expected[k * 1000 : (k + 1) * 1000] = whole[k * 1000 : (k + 1) * 1000]
+        assert asked == [(k * 1000, (k + 1) * 1000) for k in range(10)], name
+        assert_array_equal(got, expected, err_msg=name)
+
+
+def test_encode_then_write_encoded_is_write(tmp_path):
+    # The delivery stage encodes on one thread and writes on another: the file, the peak
+    # and the clipping count are those of write().
+    x = _noise(9000, 2, seed=8, amplitude=1.2)
+    for subtype in ("PCM_16", "PCM_24", "FLOAT"):
+        with OutputWriter(tmp_path / "a.wav", FS, 2, subtype=subtype, seed=3) as one:
+            for start in range(0, len(x), 2500):
+                one.write(x[start : start + 2500])
+        with OutputWriter(tmp_path / "b.wav", FS, 2, subtype=subtype, seed=3) as two:
+            encoded = [two.encode(x[start : start + 2500]) for start in range(0, len(x), 2500)]
+            assert two.frames_written == 0
+            for data in encoded:
+                two.write_encoded(data)
+            assert two.frames_written == len(x)
+        assert (one.peak, one.clipped_samples) == (two.peak, two.clipped_samples)
+        assert two.clipped_samples > 0 or subtype == "FLOAT"
+        a, _ = soundfile.read(tmp_path / "a.wav", dtype="float64")
+        b, _ = soundfile.read(tmp_path / "b.wav", dtype="float64")
+        assert_array_equal(a, b, err_msg=subtype)
+
+
 def test_blocks_memory_does_not_grow_with_file_length(tmp_path):
     # 60 s of 12 channels at 48 kHz: 138 MB as float32. Reading it in 4096-frame blocks
     # should hold about two blocks (2 x 197 kB) at a time.
@@ -257,6 +327,45 @@ def test_blocks_memory_does_not_grow_with_file_length(tmp_path):
     assert count == frames
     assert_allclose(block[-1], (np.arange(1, 13) / 2**15).astype(np.float32))
     assert peak < 3 * 2**20, f"peak {peak} bytes while reading a {frames * channels * 4} B stem"
+
+
+def test_durable_writer_flushes_early_on_a_thread_and_still_commits(tmp_path, monkeypatch):
+    # Every _SYNC_BYTES a thread flushes what was written; the file is the same, the
+    # thread is gone after close, and a small file starts no thread at all.
+    monkeypatch.setattr(writer_module, "_SYNC_BYTES", 6000)
+    synced = []
+    real = writer_module.os.fdatasync
+    monkeypatch.setattr(writer_module.os, "fdatasync", lambda fd: (synced.append(fd), real(fd)))
+    x = _noise(10000, 2, amplitude=0.5)
+    with OutputWriter(tmp_path / "big.wav", FS, 2) as w:
+        for start in range(0, len(x), 1000):
+            w.write(x[start : start + 1000])
+        thread = w._sync._thread
+    assert not thread.is_alive() and synced
+    with OutputWriter(tmp_path / "small.wav", FS, 2) as w:
+        w.write(x[:500])
+        assert w._sync is None
+    assert_allclose(soundfile.read(tmp_path / "big.wav", dtype="float32")[0], x, atol=2**-23)
+    assert _parts(tmp_path) == []
+    # Not durable: no early flushing either.
+    with OutputWriter(tmp_path / "scratch.wav", FS, 2, durable=False) as w:
+        w.write(x)
+        assert w._sync is None
+
+
+def test_a_failed_early_flush_fails_the_write_and_leaves_no_file(tmp_path, monkeypatch):
+    monkeypatch.setattr(writer_module, "_SYNC_BYTES", 6000)
+
+    def broken(fd: int) -> None:
+        raise OSError(5, "Input/output error")
+
+    monkeypatch.setattr(writer_module.os, "fdatasync", broken)
+    w = OutputWriter(tmp_path / "out.wav", FS, 2)
+    w.write(_noise(4000, 2, amplitude=0.5))
+    w._sync._thread.join()  # the thread stops at its failure
+    with pytest.raises(AudioError, match="Input/output error"):
+        w.close()
+    assert not (tmp_path / "out.wav").exists() and _parts(tmp_path) == []
 
 
 # ---------------------------------------------------------------- channel mask

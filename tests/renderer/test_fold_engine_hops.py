@@ -6,8 +6,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose
+from numpy.testing import assert_allclose, assert_array_equal
 
+import earfold.renderer.engine.scheduler as scheduler
 from earfold.renderer.engine import FoldEngine, convolve_reference
 
 
@@ -61,3 +62,28 @@ def test_direct_and_shared_tail_equal_the_whole_convolution(block):
     ref = convolve_reference(signal, whole)
     assert out.shape == ref.shape
     assert_allclose(out, ref, rtol=0, atol=2e-6 * np.max(np.abs(ref)))
+
+
+def test_stream_blocks_larger_than_the_tail_chunk_give_the_same_samples(monkeypatch):
+    # Reads of several tail chunks at once hand every whole chunk to the tail's thread in
+    # one job: the samples are those of engine-sized blocks, bit for bit, and the whole
+    # convolution still (oracle: convolve_reference).
+    monkeypatch.setattr(scheduler, "TAIL_BLOCK_FRAMES", 64)  # small chunks: many per read
+    rng, signal, filters = _case(11, 3, 20000, 300)
+    weights = np.array([0.5, 0.3, 0.2], dtype=np.float32)
+    tail = (0.05 * rng.standard_normal((2, 3000)) * np.exp(-np.arange(3000) / 700)).astype(
+        np.float32
+    )
+    offset = 120
+    length = max(filters.shape[2], offset + tail.shape[1])
+    outs = []
+    for block in (64, 7 * 1024):
+        engine = FoldEngine(filters, 64, tail=tail, tail_weights=weights, tail_offset=offset)
+        assert engine.tail is not None and block in (64, 3 * engine.tail.hop + 1024)
+        outs.append(_run(engine, signal, block, length - 1))
+    assert_array_equal(outs[0], outs[1])
+    whole = np.zeros((3, 2, length), dtype=np.float64)
+    whole[:, :, : filters.shape[2]] = filters
+    whole[:, :, offset : offset + tail.shape[1]] += weights[:, None, None] * tail[None]
+    ref = convolve_reference(signal, whole)
+    assert_allclose(outs[1], ref, rtol=0, atol=2e-6 * np.max(np.abs(ref)))

@@ -7,7 +7,7 @@ import math
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose
+from numpy.testing import assert_allclose, assert_array_equal
 from scipy import signal
 
 from earfold.renderer.io import write_audio
@@ -21,6 +21,7 @@ from earfold.renderer.render import (
     thin_series,
     third_octave_bands,
 )
+from earfold.renderer.render.plot_data import OutputSpectrum
 
 FS = 48000
 
@@ -236,3 +237,79 @@ def test_render_without_delivery_meters_the_file_itself(stem_51):
     assert plots["loudness"]["target_lufs"] is None
     assert plots["loudness"]["integrated_lufs"] is not None
     assert len(plots["loudness"]["short_term_lufs"]) > 10
+
+
+def test_frames_outside_the_analysed_segments_never_count():
+    # The report reads only what a strided spectrum analyses (SpectrumMeter.needs): the
+    # rest fed as silence gives the same figures, bit for bit.
+    rng = np.random.default_rng(6)
+    x = 0.1 * rng.standard_normal((50 * FS, 2)).astype(np.float32)
+    full = SpectrumMeter.for_length(FS, 2, len(x), max_segments=12)
+    sparse = SpectrumMeter.for_length(FS, 2, len(x), max_segments=12)
+    assert sparse.stride > 2
+    skipped = 0
+    for start in range(0, len(x), 20000):
+        block = x[start : start + 20000]
+        full.process(block)
+        if sparse.needs(start, start + len(block)):
+            sparse.process(block)
+        else:
+            sparse.process(np.zeros_like(block))
+            skipped += 1
+    assert skipped > len(x) // 20000 // 3
+    assert sparse._segments == full._segments
+    assert_array_equal(sparse.mean_square()[1], full.mean_square()[1])
+    # needs() against the segments themselves: frames [a, b) meet an analysed segment.
+    hop, span = full.nfft // 2, full.stride * full.nfft // 2
+    starts = np.arange(0, len(x), span)
+    for a, b in ((0, 1), (hop, hop + 1), (full.nfft, span), (span - 1, span), (span + 5, span + 9)):
+        meets = bool(np.any((starts < b) & (starts + full.nfft > a)))
+        assert full.needs(a, b) == meets, (a, b)
+    assert not full.needs(10, 10)
+
+
+@pytest.mark.parametrize(
+    "settings",
+    [
+        {"subtype": "PCM_16"},  # dithered, and the limiter at work (-3 LUFS is loud)
+        {"loudness": -3.0, "room": "small"},
+        {"subtype": "FLOAT", "loudness": -14.0},
+    ],
+)
+def test_spectrum_fed_while_delivering_equals_reading_the_file(stem_51, monkeypatch, settings):
+    # The delivery stage feeds the report's spectrum the samples it writes
+    # (OutputSpectrum); the figures are those of reading the delivered file again.
+    import earfold.renderer.render.runner as runner
+
+    kwargs = {"layout": "5.1", "loudness": -3.0}
+    kwargs.update(settings)
+    fed = render([stem_51 / "bells.wav"], stem_51 / "fed.wav", RenderSettings(**kwargs))
+    monkeypatch.setattr(runner, "OutputSpectrum", lambda *args: None)  # read the file
+    read = render([stem_51 / "bells.wav"], stem_51 / "read.wav", RenderSettings(**kwargs))
+    assert fed["delivery"]["limiter"]["samples_limited"] > 0 or kwargs.get("subtype") == "FLOAT"
+    assert fed["plots"]["spectra"] == read["plots"]["spectra"]
+    assert fed["plots"]["loudness"] == read["plots"]["loudness"]
+
+
+def test_output_spectrum_takes_codes_in_any_blocks_and_knows_its_length(tmp_path):
+    rng = np.random.default_rng(12)
+    codes = (rng.integers(-(2**23), 2**23, (300_000, 2)) << 8).astype(np.int32)
+
+    def decode(block: np.ndarray) -> np.ndarray:
+        return np.multiply(block, np.float32(2.0**-31), dtype=np.float32)
+
+    # The reference: the report's own reading, 65536-frame blocks of the decoded file.
+    samples = decode(codes)
+    ref = SpectrumMeter.for_length(FS, 2, len(codes), max_segments=6)
+    for start in range(0, len(samples), 65536):
+        ref.process(samples[start : start + 65536])
+    feed = OutputSpectrum(FS, 2, len(codes))
+    feed.meter.stride = ref.stride  # the same sparse choice as the reference
+    for start in range(0, len(codes), 7001):
+        feed(codes[start : start + 7001], decode)
+    meter = feed.finish()
+    assert meter is not None and meter._segments == ref._segments
+    assert_array_equal(meter.mean_square()[1], ref.mean_square()[1])
+    short = OutputSpectrum(FS, 2, len(codes) + 1)
+    short(codes, decode)
+    assert short.finish() is None  # not the file's length: the report reads the file
