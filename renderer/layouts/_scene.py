@@ -162,7 +162,7 @@ def scene_layout(name: str, normalisation: str = "sn3d") -> SceneLayout:
 
 def _scene(order: int, normalisation: str) -> SceneLayout:
     channels = (order + 1) ** 2
-    what = "first-order" if order == 1 else f"order-{order}"
+    what = "first order" if order == 1 else f"order {order}"
     return SceneLayout(
         name=_name(order),
         speakers=tuple(Speaker(label, 0.0, 0.0) for label in _labels(order, normalisation)),

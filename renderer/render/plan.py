@@ -596,7 +596,7 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
             "requested": requested_room.name,
         }
     elif requested_room is not None:
-        virtual = virtual_room_layout(scene.order)
+        virtual = virtual_room_layout(scene.order, requested_room)
         room_filters, prepared = _prepared_room(
             hset, virtual, requested_room, stem.samplerate, settings.seed, set_key, cache
         )

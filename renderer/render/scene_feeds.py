@@ -48,7 +48,8 @@ from ..eq import calibration_gain
 from ..geometry import vector_to_direction
 from ..hrtf import HrirSet
 from ..layouts import Layout, SceneLayout, Speaker
-from ..room import RoomFilters, exact_brirs
+from ..errors import RoomError
+from ..room import Room, RoomFilters, exact_brirs
 from ..scenes import (
     acn_degrees,
     conversion_matrix,
@@ -67,6 +68,7 @@ __all__ = [
     "SceneBank",
     "scene_bank",
     "scene_calibration_gain",
+    "virtual_distance",
     "virtual_room_layout",
 ]
 
@@ -107,18 +109,51 @@ class SceneBank:
     notes: list[str] = field(default_factory=list)
 
 
-def virtual_room_layout(order: int) -> Layout:
-    """The virtual loudspeakers of ``order`` as a layout (``V1`` ...) for the room model."""
-    az, el = vector_to_direction(virtual_layout(order))
+#: Virtual loudspeakers keep at least this far (m) from every surface of the room.
+VIRTUAL_CLEARANCE_M = 0.1
+
+
+def virtual_distance(room: Room, directions: NDArray[np.float64]) -> float:
+    """One distance (m) for every virtual loudspeaker: the room's ``speaker_radius``, or
+    less where a direction would reach a surface (a t-design points at the floor, which
+    is closer than the radius in most rooms), keeping :data:`VIRTUAL_CLEARANCE_M`.
+
+    One distance for all keeps the decoder's directions at equal level and delay.
+    """
+    low = np.zeros(3)
+    high = np.asarray(room.dimensions, dtype=float)
+    listener = np.asarray(room.listener, dtype=float)
+    reach = np.inf
+    for v in np.asarray(directions, dtype=float):
+        for axis in range(3):
+            if v[axis] > 1e-12:
+                reach = min(reach, (high[axis] - listener[axis]) / v[axis])
+            elif v[axis] < -1e-12:
+                reach = min(reach, (low[axis] - listener[axis]) / v[axis])
+    distance = min(float(room.speaker_radius), reach - VIRTUAL_CLEARANCE_M)
+    if distance <= VIRTUAL_CLEARANCE_M:
+        raise RoomError(
+            f"room {room.name!r} leaves no space around the listener for the virtual "
+            "loudspeakers of a scene (the listener stands at a surface)"
+        )
+    return round(distance, 4)
+
+
+def virtual_room_layout(order: int, room: Room) -> Layout:
+    """The virtual loudspeakers of ``order`` as a layout (``V1`` ...) for the room model,
+    all at :func:`virtual_distance`."""
+    directions = virtual_layout(order)
+    distance = virtual_distance(room, directions)
+    az, el = vector_to_direction(directions)
     speakers = tuple(
-        Speaker(f"V{i + 1}", round(float(a), 6), round(float(e), 6))
+        Speaker(f"V{i + 1}", round(float(a), 6), round(float(e), 6), distance)
         for i, (a, e) in enumerate(zip(np.atleast_1d(az), np.atleast_1d(el), strict=True))
     )
     return Layout(
         f"virtual-{order}",
         speakers,
         f"the {len(speakers)} virtual loudspeakers of an order-{order} scene "
-        f"(antipodal spherical {2 * order + 1}-design)",
+        f"(antipodal spherical {2 * order + 1}-design) at {distance:g} m",
         "earfold.renderer.scenes.virtual_layout",
     )
 
