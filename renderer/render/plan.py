@@ -550,6 +550,8 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
     if settings.headphone_eq is not None:
         headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
         eq_report["headphone"] = headphone.report
+    from .scene_feeds import SCENE_REFERENCE, scene_bank, scene_taps, virtual_room_layout
+
     requested_room = get_room(settings.room)
     bank_key = None
     if cache is not None and set_key is not None:
@@ -560,7 +562,7 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
                 "normalisation": scene.normalisation,
                 "decoder": settings.ambisonic_decoder,
                 "rotation": None if settings.rotate is None else list(settings.rotate),
-                "taps": None,
+                "taps": scene_taps(hset),
                 "version": SCENE_BANK_VERSION,
             },
         }
@@ -580,8 +582,6 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
                 solo=solo,
             )
     added, added_notes = len(warnings), len(notes)
-    from .scene_feeds import SCENE_REFERENCE, scene_bank, virtual_room_layout
-
     room_filters, room_report = None, None
     if requested_room is not None and _is_measured_room(hset):
         warnings.append(
