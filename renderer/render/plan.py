@@ -39,10 +39,10 @@ from ..layouts import (
     filename_label,
     get_layout,
     labels_from_filenames,
-    scene_layout,
     labels_from_mask,
     order_name,
     resolve_channel_order,
+    scene_layout,
     suggest_layout,
 )
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
@@ -487,8 +487,7 @@ def _scene_channels_error(scene: SceneLayout, channels: int) -> LayoutError:
         f"; {channels} channels is an order-{root - 1} scene: choose layout "
         f"{'foa' if root == 2 else f'hoa{root - 1}'}"
         if fits
-        else "; a full-sphere scene of order N has (N + 1)^2 channels: 4, 9, 16, 25, 36, 49 "
-        "or 64"
+        else "; a full-sphere scene of order N has (N + 1)^2 channels: 4, 9, 16, 25, 36, 49 or 64"
     )
     return LayoutError(
         f"the stem has {channels} channel(s) but layout {scene.name!r} is an order-"

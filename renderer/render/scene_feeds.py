@@ -45,10 +45,10 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..eq import calibration_gain
+from ..errors import RoomError
 from ..geometry import vector_to_direction
 from ..hrtf import HrirSet
 from ..layouts import Layout, SceneLayout, Speaker
-from ..errors import RoomError
 from ..room import Room, RoomFilters, exact_brirs
 from ..scenes import (
     acn_degrees,
@@ -291,9 +291,7 @@ def scene_bank(
             "room, folded back to ACN channels with the decoder's gains"
             + (" (whole responses: exact mode)" if exact else "; shared tail fed by W")
         )
-    gain = scene_calibration_gain(
-        sn3d, order, samplerate, tail, sn3d_tail_weights, tail_offset
-    )
+    gain = scene_calibration_gain(sn3d, order, samplerate, tail, sn3d_tail_weights, tail_offset)
     filters = fold_matrix(sn3d, matrix)
     tail_weights = None if sn3d_tail_weights is None else matrix.T @ sn3d_tail_weights
     feeds = tuple(

@@ -175,13 +175,13 @@ def run_bench(
                 say(f"bench: {layout.name} {case}")
                 r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"), room)
 
-                def figures(r: Figures) -> dict[str, Any]:
+                def figures(r: Figures, channels: int = layout.channels) -> dict[str, Any]:
                     f = {
                         "seconds": round(r["seconds"], 4),
                         "runs_s": r["all_seconds"],
                         "x_real_time": round(seconds / r["seconds"], 1),
                         # Seconds of one input channel rendered per second of wall time.
-                        "channel_x_real_time": round(layout.channels * seconds / r["seconds"], 1),
+                        "channel_x_real_time": round(channels * seconds / r["seconds"], 1),
                     }
                     if "plan_seconds" in r:
                         f["plan_seconds"] = round(r["plan_seconds"], 4)
