@@ -228,9 +228,9 @@ class OptionSpec:
             if value.strip().lower() in _OFF_WORDS:
                 return None
             parts: list[object] = []
-            for part in value.split(","):
+            for text in value.split(","):
                 try:
-                    parts.append(float(part))
+                    parts.append(float(text))
                 except ValueError:
                     raise self._error(value, expected) from None
         elif isinstance(value, (list, tuple)):
