@@ -175,8 +175,19 @@ def _layout(stem: StemInfo, value: str | os.PathLike[str] | Layout | None) -> La
         raise LayoutError(
             f"no layout was given and none is suggested for a stem of {stem.channels} "
             "channel(s); choose the layout the stem was mixed for ('earfold layouts')"
+            + _scene_hint(stem.channels)
         )
     return layout
+
+
+def _scene_hint(channels: int) -> str:
+    """For (N + 1)**2 channels, the Ambisonic scene they may be (never chosen unasked: a
+    4-channel file may be 4.0 or first order)."""
+    root = int(np.sqrt(channels))
+    if root * root != channels or not 2 <= root <= 8:
+        return ""
+    name = "foa" if root == 2 else f"hoa{root - 1}"
+    return f" (or, if it is an order-{root - 1} Ambisonic scene, layout {name})"
 
 
 def _partly_labelled(
@@ -309,7 +320,8 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         # Said every time: a layout guessed from a channel count can be the wrong one.
         notes.append(
             f"no layout was given: rendered as {layout.name}, the layout suggested for "
-            f"{stem.channels} channel(s); name the layout if the stem was mixed for another",
+            f"{stem.channels} channel(s); name the layout if the stem was mixed for another"
+            + _scene_hint(stem.channels),
         )
     if settings.fold == "stereo":
         return _plan_fold(stem, layout, order, order_source, warnings, notes, settings, solo)

@@ -261,6 +261,10 @@ def test_a_room_on_request_adds_a_tail_fed_by_the_pressure(tmp_path):
     directions = virtual_layout(1)
     gains = speaker_gains(directions, 1, "basic")
     assert np.isclose(gains[:, 0].sum(), 1.0)
+    # Exact mode folds each virtual loudspeaker's whole response: no shared tail, and the
+    # filters reach as far as the shared form's tail does.
+    exact = plan_render([stem], RenderSettings(layout="foa", room="small", room_mode="exact"))
+    assert exact.tail is None and exact.filters.shape[-1] >= roomy.length
     out_free = render([stem], tmp_path / "f.wav", RenderSettings(layout="foa", loudness=None))
     out_room = render(
         [stem], tmp_path / "r.wav", RenderSettings(layout="foa", room="small", loudness=None)
@@ -299,3 +303,11 @@ def test_layouts_json_lists_scenes_beside_the_loudspeaker_layouts(capsys):
     assert hoa3["normalisations"] == ["sn3d", "n3d"]
     assert entries["foa"]["normalisations"] == ["sn3d", "n3d", "fuma"]
     assert "AmbiX" in hoa3["source"] and hoa3["labels"][:2] == ["ACN0", "ACN1"]
+
+
+def test_a_square_channel_count_is_never_taken_for_a_scene_unasked(tmp_path):
+    stem = tmp_path / "four.wav"
+    write_audio(stem, 0.1 * np.ones((FS // 10, 4), np.float32), FS)
+    plan = plan_render([stem], RenderSettings())
+    assert plan.scene is None and plan.layout.kind == "loudspeakers"
+    assert any("layout foa" in n for n in plan.notes)
