@@ -269,8 +269,8 @@ def get_layout(name_or_path: str | os.PathLike[str]) -> Layout:
             return SCENES[key]
         if not (key.endswith(".json") or os.path.isfile(name_or_path)):
             raise LayoutError(
-                f"unknown layout {shown(name_or_path)}; choose one of {', '.join(LAYOUTS)}, "
-                f"an Ambisonic scene ({', '.join(SCENES)}) or give a .json layout file"
+                f"unknown layout {shown(name_or_path)}; choose one of {', '.join(LAYOUTS)} or "
+                f"give a .json layout file; Ambisonic scenes: {', '.join(SCENES)}"
             )
     elif not isinstance(name_or_path, os.PathLike):
         raise LayoutError(f"a layout is a name or a file path, got {shown(name_or_path)}")
