@@ -20,10 +20,13 @@ JSON_HELP = "print JSON (machine-readable) instead of text"
 
 
 def cmd_layouts(args: argparse.Namespace) -> int:
-    from earfold.renderer.layouts import LAYOUTS
+    from earfold.renderer.layouts import LAYOUTS, SCENE_SOURCE, SCENES
 
     if args.json:
-        print_json([layout.listing() for layout in LAYOUTS.values()])
+        # Loudspeaker layouts as before ("kind": "loudspeakers"), then the Ambisonic
+        # scenes ("kind": "scene": order, channels, normalisations, labels; no speakers).
+        entries = [layout.listing() for layout in LAYOUTS.values()]
+        print_json(entries + [scene.listing() for scene in SCENES.values()])
         return 0
     for layout in LAYOUTS.values():
         print(f"{layout.name:<7} {layout.channels:>2} channels  {layout.description}")
@@ -41,6 +44,11 @@ def cmd_layouts(args: argparse.Namespace) -> int:
         for name, labels in layout.orders.items():
             if name != "wav" and labels != layout.labels:
                 print(f"        order {name}: {','.join(labels)}")
+    print("\nAmbisonic scenes (--ambisonic-norm, --ambisonic-decoder, --rotate):")
+    for scene in SCENES.values():
+        norms = "/".join(scene.normalisations)
+        print(f"{scene.name:<7} {scene.channels:>2} channels  order {scene.order}, ACN, {norms}")
+    print(f"        {SCENE_SOURCE}")
     print("\nAngles: azimuth/elevation in degrees, azimuth positive to the left (ITU-R BS.2051).")
     print(
         "Channel order shown is the default file order ('wav'); choose another with "

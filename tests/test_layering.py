@@ -31,8 +31,8 @@ WINGS: dict[str, set[str]] = {
     "room": {"hrtf", "layouts"},
     "scenes": {"hrtf", "layouts", "room"},
     "eq": {"hrtf", "engine", "io", "loudness"},
-    "render": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq"},
-    "tools": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "render"},
+    "render": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "scenes"},
+    "tools": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "scenes", "render"},
 }
 
 

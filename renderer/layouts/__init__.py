@@ -3,7 +3,8 @@
 Modules, each one concept: ``_labels`` (canonical labels, aliases, BS.2051 names, labels
 from file names), ``_model`` (:class:`Speaker`, :class:`Layout`), ``_order`` (channel
 orders), ``_catalogue`` (the built-in :data:`LAYOUTS`, :func:`suggest_layout`), ``_files``
-(custom layouts as JSON, :func:`get_layout`) and ``_channel_mask`` (WAV channel masks).
+(custom layouts as JSON, :func:`get_layout`), ``_channel_mask`` (WAV channel masks) and
+``_scene`` (Ambisonic scenes as an input kind: :class:`SceneLayout`, :data:`SCENES`).
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ from ._files import (
 from ._labels import canonical_label, filename_label, labels_from_filenames
 from ._model import Layout, Speaker
 from ._order import ORDER_NAMES, order_labels, order_name, resolve_channel_order
+from ._scene import SCENE_NORMALISATIONS, SCENE_SOURCE, SCENES, SceneLayout, scene_layout
 
 __all__ = [
     "LAYOUTS",
@@ -29,7 +31,11 @@ __all__ = [
     "MAX_LAYOUT_FILE_BYTES",
     "MAX_SPEAKERS",
     "ORDER_NAMES",
+    "SCENES",
+    "SCENE_NORMALISATIONS",
+    "SCENE_SOURCE",
     "SPEAKER_BITS",
+    "SceneLayout",
     "Speaker",
     "canonical_label",
     "filename_label",
@@ -43,5 +49,6 @@ __all__ = [
     "order_labels",
     "order_name",
     "resolve_channel_order",
+    "scene_layout",
     "suggest_layout",
 ]

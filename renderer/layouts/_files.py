@@ -18,6 +18,7 @@ from ..files import read_json_file
 from ._catalogue import LAYOUTS
 from ._labels import label_key, wrap_azimuth
 from ._model import Layout, Speaker
+from ._scene import SCENES
 
 __all__ = [
     "MAX_LABEL_LENGTH",
@@ -251,7 +252,8 @@ def load_layout_file(path: str | os.PathLike[str]) -> Layout:
 
 
 def get_layout(name_or_path: str | os.PathLike[str]) -> Layout:
-    """A built-in layout by name (case-insensitive), or a custom layout from a JSON file.
+    """A built-in layout by name (case-insensitive), an Ambisonic scene (``foa``,
+    ``hoa2`` ... ``hoa7``: :data:`SCENES`, in SN3D), or a custom layout from a JSON file.
 
     Raises
     ------
@@ -263,10 +265,12 @@ def get_layout(name_or_path: str | os.PathLike[str]) -> Layout:
         for layout_name, layout in LAYOUTS.items():
             if layout_name.lower() == key:
                 return layout
+        if key in SCENES:
+            return SCENES[key]
         if not (key.endswith(".json") or os.path.isfile(name_or_path)):
             raise LayoutError(
                 f"unknown layout {shown(name_or_path)}; choose one of {', '.join(LAYOUTS)} or "
-                "give a .json layout file"
+                f"give a .json layout file; Ambisonic scenes: {', '.join(SCENES)}"
             )
     elif not isinstance(name_or_path, os.PathLike):
         raise LayoutError(f"a layout is a name or a file path, got {shown(name_or_path)}")

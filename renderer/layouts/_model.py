@@ -202,9 +202,20 @@ class Layout:
                 return i
         return None
 
+    @property
+    def kind(self) -> str:
+        """``"loudspeakers"``; an Ambisonic scene (:class:`~._scene.SceneLayout`) says
+        ``"scene"``."""
+        return "loudspeakers"
+
     def listing(self) -> dict[str, Any]:
-        """The layout as catalogues list it: :meth:`to_dict` plus ``orders`` (name -> labels)."""
-        return {**self.to_dict(), "orders": {k: list(v) for k, v in self.orders.items()}}
+        """The layout as catalogues list it: :meth:`to_dict` plus ``orders`` (name -> labels)
+        and ``kind`` (``"loudspeakers"``)."""
+        return {
+            **self.to_dict(),
+            "orders": {k: list(v) for k, v in self.orders.items()},
+            "kind": self.kind,
+        }
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form, in the schema :func:`layout_from_dict` reads."""

@@ -190,7 +190,9 @@ def channel_weights(layout: Layout | str) -> NDArray[np.float64]:
     ``60 <= |azimuth| <= 120`` degrees weighs 1.41 (+1.5 dB); every other speaker 1.0.
     For 5.1 this is the Recommendation's table (L, R, C 1.0; Ls, Rs 1.41). The position
     rule for other layouts is as seen in open implementations of BS.1770 (confirm in the
-    Recommendation).
+    Recommendation). An Ambisonic scene (:class:`~earfold.renderer.layouts.SceneLayout`)
+    is weighed by its W channel alone, its omnidirectional pressure
+    (:attr:`~earfold.renderer.layouts.SceneLayout.loudness_weights`).
 
     Parameters
     ----------
@@ -202,10 +204,12 @@ def channel_weights(layout: Layout | str) -> NDArray[np.float64]:
     numpy.ndarray
         One weight per channel, in the layout's default order.
     """
-    if isinstance(layout, str):
-        from ..layouts import get_layout
+    from ..layouts import SceneLayout, get_layout
 
+    if isinstance(layout, str):
         layout = get_layout(layout)
+    if isinstance(layout, SceneLayout):
+        return np.array(layout.loudness_weights)
     weights: list[float] = []
     for spk in layout.speakers:
         if spk.lfe:

@@ -22,7 +22,17 @@ _OFF_WORDS = ("none", "off")
 _LEVEL = re.compile(r"^\s*([+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:e[+-]?\d+)?)\s*([a-z]*)\s*$", re.I)
 
 #: Kinds of option value.
-KINDS = ("text", "choice", "number", "integer", "level", "labels", "excerpt", "headphone_eq")
+KINDS = (
+    "text",
+    "choice",
+    "number",
+    "integer",
+    "level",
+    "labels",
+    "excerpt",
+    "headphone_eq",
+    "rotation",
+)
 
 
 def _fmt(value: float) -> str:
@@ -54,7 +64,9 @@ class OptionSpec:
         One of :data:`KINDS`: ``text``, ``choice`` (one of ``choices``), ``number``,
         ``integer``, ``level`` (a number in ``unit`` or one of the words in ``choices``),
         ``labels`` (a list of channel labels), ``excerpt`` (start and length in seconds),
-        ``headphone_eq`` (a file on the command line, a band list over HTTP).
+        ``headphone_eq`` (a file on the command line, a band list over HTTP),
+        ``rotation`` (yaw, pitch and roll in degrees: ``YAW[,PITCH[,ROLL]]`` as text or
+        a list of one to three numbers; the words ``none``/``off`` mean no rotation).
     help : str
         One sentence or two for users; the command line's help and the HTTP schema's
         description.
@@ -196,6 +208,8 @@ class OptionSpec:
                     f"not {_fmt(start)} s and {_fmt(length)} s"
                 )
             return (start, length)
+        if self.kind == "rotation":
+            return self._rotation(value)
         if self.kind == "headphone_eq":
             if isinstance(value, (str, os.PathLike, list, dict)):
                 return value
@@ -206,6 +220,36 @@ class OptionSpec:
         ):
             return value
         raise self._error(value, "text")
+
+    def _rotation(self, value: object) -> tuple[float, float, float] | None:
+        """Yaw, pitch, roll (degrees) from ``"YAW[,PITCH[,ROLL]]"`` or 1 to 3 numbers."""
+        expected = "yaw[,pitch[,roll]] in degrees, e.g. 90 or 90,0,10"
+        if isinstance(value, str):
+            if value.strip().lower() in _OFF_WORDS:
+                return None
+            parts: list[object] = []
+            for text in value.split(","):
+                try:
+                    parts.append(float(text))
+                except ValueError:
+                    raise self._error(value, expected) from None
+        elif isinstance(value, (list, tuple)):
+            parts = list(value)
+        else:
+            parts = [value]
+        if not 1 <= len(parts) <= 3:
+            raise self._error(value, expected)
+        angles: list[float] = []
+        for part in parts:
+            if (
+                isinstance(part, bool)
+                or not isinstance(part, (int, float))
+                or not math.isfinite(float(part))
+            ):
+                raise self._error(value, expected + " (finite numbers)")
+            angles.append(float(part))
+        angles += [0.0] * (3 - len(angles))
+        return (angles[0], angles[1], angles[2])
 
     def parse_number(self, text: str) -> float | str:
         """A number from text with an optional unit (``-23``, ``-23 LUFS``); else the text."""

@@ -34,7 +34,7 @@ from ..engine import (
     LfeOptions,
 )
 from ..errors import OptionError
-from ..layouts import Layout
+from ..layouts import SCENE_NORMALISATIONS, Layout
 from ..room import Room
 from ._spec import KINDS, OptionSpec
 from .fold import FOLD_CHOICES
@@ -43,6 +43,7 @@ __all__ = [
     "DELIVERY_OPTIONS",
     "KINDS",
     "RENDER_OPTIONS",
+    "DECODER_CHOICES",
     "ROOM_MODES",
     "SOUND_OPTIONS",
     "OptionSpec",
@@ -61,6 +62,9 @@ SUBTYPES = ("PCM_16", "PCM_24", "FLOAT")
 
 #: HRTF set equalisations.
 EQ_CHOICES = ("none", "diffuse-field")
+
+#: Ambisonic scene decoders (the scenes wing's methods, in the order its help names them).
+DECODER_CHOICES = ("magls", "virtual")
 
 #: Largest seed: seeds are unsigned 32-bit numbers (a JSON-safe, portable range).
 MAX_SEED = 2**32 - 1
@@ -112,6 +116,32 @@ RENDER_OPTIONS: tuple[OptionSpec, ...] = (
         "HRTF set: a shipped set's name ('earfold hrtf list' or GET /v1/hrtf-sets), a SOFA "
         "file on the command line or an uploaded set's id over HTTP; default mit-kemar",
         metavar="NAME|FILE.sofa",
+    ),
+    OptionSpec(
+        "ambisonic_norm",
+        "choice",
+        "normalisation of an Ambisonic scene (--layout foa, hoa2 ... hoa7): sn3d (AmbiX, the "
+        "default), n3d, or fuma (first order only, channels W X Y Z with W at -3 dB); "
+        "refused for loudspeaker layouts",
+        choices=SCENE_NORMALISATIONS,
+    ),
+    OptionSpec(
+        "ambisonic_decoder",
+        "choice",
+        "binaural decoder of an Ambisonic scene: magls (magnitude least squares with the "
+        "diffuse-field covariance constraint) or virtual (virtual loudspeakers on a "
+        "t-design); default: virtual at first order, magls from second order; refused for "
+        "loudspeaker layouts",
+        choices=DECODER_CHOICES,
+    ),
+    OptionSpec(
+        "rotate",
+        "rotation",
+        "turn an Ambisonic scene before decoding: yaw[,pitch[,roll]] in degrees (a source "
+        "at azimuth a is heard at a + yaw; positive pitch lifts the front, positive roll "
+        "the left); default none; refused for loudspeaker layouts",
+        unit="deg",
+        metavar="YAW[,PITCH[,ROLL]]",
     ),
     OptionSpec("room", "text", _ROOM_HELP + "; default none", default="none", metavar="ROOM"),
     OptionSpec(
@@ -310,7 +340,14 @@ class RenderSettings:
         channels (:mod:`earfold.renderer.render.fold`), without HRTF or room.
     solo : str, optional
         A channel label of the layout: render that loudspeaker alone (the others
-        silent), everything else as asked; None renders every channel.
+        silent), everything else as asked; None renders every channel. For a scene, an
+        ACN channel (``ACN3``; ``W``, ``X``, ``Y``, ``Z`` for FuMa) decoded alone.
+    ambisonic_norm : str, optional
+        A scene's normalisation: ``"sn3d"`` (None: the default), ``"n3d"`` or ``"fuma"``.
+    ambisonic_decoder : str, optional
+        ``"magls"`` or ``"virtual"``; None: virtual at first order, MagLS above.
+    rotate : (float, float, float), optional
+        Yaw, pitch, roll in degrees applied to a scene before decoding; None: none.
     """
 
     layout: str | os.PathLike[str] | Layout | None = None
@@ -330,6 +367,9 @@ class RenderSettings:
     headphone_eq: str | os.PathLike[str] | list[Any] | dict[str, Any] | None = None
     fold: str = "binaural"
     solo: str | None = None
+    ambisonic_norm: str | None = None
+    ambisonic_decoder: str | None = None
+    rotate: tuple[float, float, float] | None = None
 
 
 def output_format(path: str | os.PathLike[str], format: str | None = None) -> str:

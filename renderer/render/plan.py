@@ -29,11 +29,12 @@ from ..eq import (
     equalised,
     load_headphone_eq,
 )
-from ..errors import LayoutError, RendererError
+from ..errors import LayoutError, OptionError, RendererError
 from ..hrtf import HrirSet, file_sha256, load_hrir_set
 from ..io import StemInfo, probe_stem
 from ..layouts import (
     Layout,
+    SceneLayout,
     Speaker,
     filename_label,
     get_layout,
@@ -41,6 +42,7 @@ from ..layouts import (
     labels_from_mask,
     order_name,
     resolve_channel_order,
+    scene_layout,
     suggest_layout,
 )
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
@@ -93,6 +95,13 @@ class RenderPlan:
         The report's room decay plot, computed with the filters
         (:func:`room_decay`) and cached with them;
         None when there is no synthetic room or it is left to the report.
+    scene : dict or None
+        The report's ``scene`` section for an Ambisonic scene (order, normalisation, the
+        decoder's description, rotation, room), None for loudspeakers. A scene's
+        ``layout`` is then a :class:`~earfold.renderer.layouts.SceneLayout`: one
+        placeholder "speaker" per file channel, labelled ``ACN0`` ... (``W X Y Z`` for
+        FuMa), which gives the stream its channel names and the BS.1770 input weights
+        (W alone); ``order`` is the identity (a scene keeps its own channel order).
     """
 
     stem: StemInfo
@@ -114,6 +123,7 @@ class RenderPlan:
     fold: dict[str, Any] = dataclasses.field(default_factory=lambda: {"mode": "binaural"})
     solo: dict[str, Any] | None = None
     room_decay: dict[str, Any] | None = None
+    scene: dict[str, Any] | None = None
 
     @property
     def speakers(self) -> tuple[dict[str, Any], ...]:
@@ -165,8 +175,19 @@ def _layout(stem: StemInfo, value: str | os.PathLike[str] | Layout | None) -> La
         raise LayoutError(
             f"no layout was given and none is suggested for a stem of {stem.channels} "
             "channel(s); choose the layout the stem was mixed for ('earfold layouts')"
+            + _scene_hint(stem.channels)
         )
     return layout
+
+
+def _scene_hint(channels: int) -> str:
+    """For (N + 1)**2 channels, the Ambisonic scene they may be (never chosen unasked: a
+    4-channel file may be 4.0 or first order)."""
+    root = int(np.sqrt(channels))
+    if root * root != channels or not 2 <= root <= 8:
+        return ""
+    name = "foa" if root == 2 else f"hoa{root - 1}"
+    return f" (or, if it is an order-{root - 1} Ambisonic scene, layout {name})"
 
 
 def _partly_labelled(
@@ -283,6 +304,9 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
             f"unknown fold {settings.fold!r}; choose one of {', '.join(FOLD_CHOICES)}"
         )
     layout = _layout(stem, settings.layout)
+    if isinstance(layout, SceneLayout):
+        return _plan_scene(stem, layout, settings)
+    _refuse_scene_options(layout, settings)
     order, order_source, warnings = _choose_order(stem, layout, settings.channel_order)
     solo = _solo(layout, order, settings.solo)
     notes: list[str] = []
@@ -296,7 +320,8 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         # Said every time: a layout guessed from a channel count can be the wrong one.
         notes.append(
             f"no layout was given: rendered as {layout.name}, the layout suggested for "
-            f"{stem.channels} channel(s); name the layout if the stem was mixed for another",
+            f"{stem.channels} channel(s); name the layout if the stem was mixed for another"
+            + _scene_hint(stem.channels),
         )
     if settings.fold == "stereo":
         return _plan_fold(stem, layout, order, order_source, warnings, notes, settings, solo)
@@ -451,6 +476,193 @@ def _built_plan(
     )
 
 
+#: The options that only an Ambisonic scene takes.
+SCENE_OPTIONS = ("ambisonic_norm", "ambisonic_decoder", "rotate")
+
+
+def _refuse_scene_options(layout: Layout, settings: RenderSettings) -> None:
+    """:class:`OptionError` when a loudspeaker render is given a scene's option."""
+    given = [name for name in SCENE_OPTIONS if getattr(settings, name) is not None]
+    if given:
+        raise OptionError(
+            f"{', '.join(given)} appl{'ies' if len(given) == 1 else 'y'} to Ambisonic scenes "
+            f"only (layout foa, hoa2 ... hoa7); layout {layout.name!r} is loudspeakers: "
+            "leave the option out, or name the scene's layout"
+        )
+
+
+def _scene_channels_error(scene: SceneLayout, channels: int) -> LayoutError:
+    """The error for a stem whose channel count is not the scene's."""
+    root = int(np.sqrt(channels))
+    fits = root * root == channels and 2 <= root <= 8
+    hint = (
+        f"; {channels} channels is an order-{root - 1} scene: choose layout "
+        f"{'foa' if root == 2 else f'hoa{root - 1}'}"
+        if fits
+        else "; a full-sphere scene of order N has (N + 1)^2 channels: 4, 9, 16, 25, 36, 49 or 64"
+    )
+    return LayoutError(
+        f"the stem has {channels} channel(s) but layout {scene.name!r} is an order-"
+        f"{scene.order} Ambisonic scene of {scene.channels} channels ((order + 1)^2, "
+        f"{'W X Y Z' if scene.normalisation == 'fuma' else 'ACN order'}){hint}"
+    )
+
+
+def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -> RenderPlan:
+    """The plan of an Ambisonic scene: the decoder's filters as the bank (see
+    :mod:`.scene_feeds` for the decoder, the room and the calibration).
+
+    The bank is cached like a loudspeaker layout's (kind ``"bank"``), keyed by the
+    prepared set, the order, normalisation, decoder, rotation, room, seed and solo, so a
+    repeated render loads it and builds no decoder.
+    """
+    warnings: list[str] = []
+    notes: list[str] = []
+    if settings.channel_order:
+        raise LayoutError(
+            f"channel_order does not apply to Ambisonic scene {layout.name!r}: a scene's "
+            "channels are in ACN order (AmbiX), or W X Y Z with ambisonic_norm fuma; "
+            "leave channel_order out"
+        )
+    if settings.fold == "stereo":
+        raise LayoutError(
+            f"fold stereo is the ITU-R BS.775 fold-down of loudspeaker channels; "
+            f"{layout.name!r} is an Ambisonic scene, which has no loudspeaker channels to "
+            "fold: render it binaurally"
+        )
+    if settings.fold not in FOLD_CHOICES:
+        raise RendererError(
+            f"unknown fold {settings.fold!r}; choose one of {', '.join(FOLD_CHOICES)}"
+        )
+    scene = scene_layout(layout.name, settings.ambisonic_norm or layout.normalisation)
+    if stem.channels != scene.channels:
+        raise _scene_channels_error(scene, stem.channels)
+    order = tuple(range(scene.channels))
+    order_source = (
+        "FuMa channel order (W X Y Z)"
+        if scene.normalisation == "fuma"
+        else "ACN channel order (AmbiX)"
+    )
+    solo = _solo(scene, order, settings.solo)
+    if solo is not None and settings.loudness is not None:
+        notes.append(
+            f"solo {solo['label']!r}: the loudness target applies to this channel alone "
+            "(loudness none keeps the render's own level)"
+        )
+    if settings.room_mode not in ROOM_MODES:
+        raise RendererError(
+            f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
+        )
+    cache = default_filter_cache()
+    hset, eq_report, set_key = _prepared_set(
+        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
+    )
+    headphone = None
+    if settings.headphone_eq is not None:
+        headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
+        eq_report["headphone"] = headphone.report
+    from .scene_feeds import SCENE_REFERENCE, scene_bank, scene_taps, virtual_room_layout
+
+    requested_room = get_room(settings.room)
+    bank_key = None
+    if cache is not None and set_key is not None:
+        bank_key = {
+            **_bank_key(set_key, scene, order, requested_room, settings),
+            "scene": {
+                "order": scene.order,
+                "normalisation": scene.normalisation,
+                "decoder": settings.ambisonic_decoder,
+                "rotation": None if settings.rotate is None else list(settings.rotate),
+                "taps": scene_taps(hset),
+                "version": SCENE_BANK_VERSION,
+            },
+        }
+        found = cache.get("bank", bank_key, _bank_entry_ok(stem.channels))
+        if found is not None and isinstance(found[1].get("scene"), dict):
+            return _restored_plan(
+                found,
+                stem,
+                hset,
+                warnings,
+                notes,
+                eq_report,
+                headphone,
+                layout=scene,
+                order=order,
+                order_source=order_source,
+                solo=solo,
+            )
+    added, added_notes = len(warnings), len(notes)
+    room_filters, room_report = None, None
+    if requested_room is not None and _is_measured_room(hset):
+        warnings.append(
+            f"HRTF set {hset.name!r} already holds room responses (RoomType "
+            f"{hset.room_type!r}); rendered as measured, the synthetic room "
+            f"{requested_room.name!r} was not added"
+        )
+        room_report = {
+            "synthetic": False,
+            "measured_room": True,
+            "room_type": hset.room_type,
+            "requested": requested_room.name,
+        }
+    elif requested_room is not None:
+        virtual = virtual_room_layout(scene.order, requested_room)
+        room_filters, prepared = _prepared_room(
+            hset, virtual, requested_room, stem.samplerate, settings.seed, set_key, cache
+        )
+        room_report = {
+            "synthetic": True,
+            "mode": settings.room_mode,
+            **room_filters.report,
+            "cache": prepared,
+            "virtual_layout": virtual.description,
+        }
+        warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
+        notes.extend(f"room: {n}" for n in room_filters.report.get("notes", []))
+    elif _is_measured_room(hset):
+        room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
+    if cache is not None and set_key is not None:
+        lookups = cache.get("lookup", set_key, _lookups_entry_ok)
+        if lookups is not None:
+            _lookup_set(hset).with_lookup_state(lookups[0])
+    bank = scene_bank(
+        scene,
+        hset,
+        stem.samplerate,
+        method=settings.ambisonic_decoder,
+        rotation=settings.rotate,
+        room=room_filters,
+        exact=settings.room_mode == "exact",
+    )
+    _keep_lookups(hset, set_key, cache)
+    warnings.extend(bank.warnings)
+    notes.extend(bank.notes)
+    plan = plan_from_feeds(
+        stem,
+        bank.feeds,
+        hset,
+        warnings,
+        layout=scene,
+        order=order,
+        order_source=order_source,
+        tail=bank.tail,
+        tail_offset=bank.tail_offset,
+        room=room_report,
+        eq=eq_report,
+        headphone=headphone,
+        notes=notes,
+        solo=solo,
+        calibration=(bank.gain, SCENE_REFERENCE),
+    )
+    plan = dataclasses.replace(plan, scene=bank.section)
+    if plan.room is not None and plan.room.get("synthetic"):
+        plan = dataclasses.replace(plan, room_decay=room_decay(plan))
+    if cache is not None and bank_key is not None:
+        cache.put("bank", bank_key, *_bank_entry(plan, warnings[added:], notes[added_notes:]))
+    return plan
+
+
 def _solo(layout: Layout, order: Sequence[int], label: str | None) -> dict[str, Any] | None:
     """The loudspeaker ``label`` names (layout index, file channel), or None.
 
@@ -534,6 +746,9 @@ def _plan_fold(
         calibrate=False,
     )
 
+
+#: Bump when the scenes wing's decoders change what a scene's bank holds.
+SCENE_BANK_VERSION = 1
 
 #: Where prepared filters came from, as the report says: taken from the cache, computed
 #: and stored in it, or computed with the cache turned off.
@@ -760,6 +975,7 @@ def _bank_entry(
         "room": room,
         "calibration": plan.calibration,
         "room_decay": plan.room_decay,
+        "scene": plan.scene,
         "warnings": warnings,
         "notes": notes,
     }
@@ -803,6 +1019,7 @@ def _bank_entry_ok(channels: int) -> Callable[[Any, Any], bool]:
             and isinstance(meta.get("calibration"), dict)
             and "room_decay" in meta
             and (meta["room_decay"] is None or isinstance(meta["room_decay"], dict))
+            and (meta.get("scene") is None or isinstance(meta.get("scene"), dict))
             and all(
                 isinstance(meta.get(k), list) and all(isinstance(t, str) for t in meta[k])
                 for k in ("warnings", "notes")
@@ -863,6 +1080,7 @@ def _restored_plan(
         notes=(*notes, *meta["notes"]),
         solo=solo,
         room_decay=meta["room_decay"],
+        scene=meta.get("scene"),
     )
 
 
@@ -991,6 +1209,7 @@ def plan_from_feeds(
     fold: dict[str, Any] | None = None,
     solo: dict[str, Any] | None = None,
     calibrate: bool = True,
+    calibration: tuple[float, str] | None = None,
 ) -> RenderPlan:
     """Stack the feeds' filters into one bank, calibrate it with the tail, and plan.
 
@@ -999,7 +1218,9 @@ def plan_from_feeds(
     tail; ``calibrate=False`` leaves the filters as they are (the stereo fold-down, whose
     coefficients are the standard's). With ``solo`` (``{"channel": i, ...}``) every other
     channel's filters and tail share are then zeroed, so the soloed loudspeaker sounds
-    exactly as in the full render.
+    exactly as in the full render. ``calibration`` ``(gain, reference)``: a gain the
+    caller computed for a reference of its own (an Ambisonic scene's diffuse field,
+    :mod:`.scene_feeds`), applied the same way.
     """
     pairs = [f.filters for f in feeds]
     length = max(p.shape[-1] for p in pairs)
@@ -1010,15 +1231,19 @@ def plan_from_feeds(
     if tail is not None:
         tail_weights = np.asarray([f.tail_weight for f in feeds], dtype=np.float64)
     if calibrate:
-        gain = _calibrate(filters, feeds, tail, tail_weights, tail_offset, stem.samplerate)
-        calibration = {
+        if calibration is None:
+            gain = _calibrate(filters, feeds, tail, tail_weights, tail_offset, stem.samplerate)
+            reference = CALIBRATION_REFERENCE
+        else:
+            gain, reference = calibration
+        section = {
             "gain_db": round(float(20 * np.log10(gain)), 3),
-            "reference": CALIBRATION_REFERENCE,
+            "reference": reference,
             "applied": "to every filter, before the delivery stage",
         }
     else:
         gain = 1.0
-        calibration = {
+        section = {
             "gain_db": 0.0,
             "reference": "none: the feeds' gains are used as they are",
             "applied": "not applied",
@@ -1045,7 +1270,7 @@ def plan_from_feeds(
         tail_offset=tail_offset,
         room=room,
         eq=eq,
-        calibration=calibration,
+        calibration=section,
         headphone=headphone,
         notes=tuple(notes),
         fold=fold if fold is not None else {"mode": "binaural"},

@@ -111,6 +111,7 @@ def render_report(
             "taps": hset.taps,
         },
         "fold": plan.fold,
+        "scene": plan.scene,
         "solo": plan.solo,
         "speakers": list(plan.speakers),
         "lfe": {

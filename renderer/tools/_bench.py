@@ -1,7 +1,12 @@
 """``earfold bench``: speed and memory of the render, as ratios measured in one run.
 
 For each layout a noise stem (48 kHz, PCM_24 WAV) is generated, then three cases run,
-each in a fresh process so that its peak memory is its own:
+each in a fresh process so that its peak memory is its own. ``hoa3`` is an order-3
+Ambisonic scene (16 channels of noise read as ACN/SN3D, decoded by the default MagLS
+decoder); each row has ``channel_x_real_time`` (xRT times the input channels), and a
+scene's row also ``scene_per_channel``: the scene and a 7.1.4 stem of the same length
+rendered raw in interleaved rounds in one process, the median of the rounds' ratios of
+their speeds per input channel (issue 17 asks for at least 1):
 
 * **earfold** — the streaming engine, end to end (read, convolve, write), raw: no
   loudness gain, no limiter;
@@ -54,6 +59,7 @@ from ._bench_cases import (
     BENCH_SAMPLERATE,
     CASES,
     MEMORY_CASES,
+    SCENE_CASES,
     SELF_REPEATING,
     Figures,
     make_noise_stem,
@@ -61,7 +67,9 @@ from ._bench_cases import (
 
 __all__ = ["BENCH_LAYOUTS", "MEMORY_FACTOR", "REPEATS", "format_bench", "run_bench"]
 
-BENCH_LAYOUTS = ("2.0", "5.1", "7.1.4")
+#: The default layouts; ``hoa3`` is an order-3 Ambisonic scene (16 channels) rendered
+#: through the scene decoder, to compare per input channel with 7.1.4.
+BENCH_LAYOUTS = ("2.0", "5.1", "7.1.4", "hoa3")
 #: Runs of each case in its process; the fastest counts.
 REPEATS = 3
 #: The memory-growth check renders a stem this many times longer than the speed cases.
@@ -165,16 +173,23 @@ def run_bench(
             say(f"bench: generating {seconds:g} s {layout.name} noise stem")
             make_noise_stem(stem, layout.channels, seconds)
             row: dict[str, Any] = {"channels": layout.channels}
-            cases = [c for c in CASES if room != "none" or c != "earfold_exact"]
+            cases = [
+                c
+                for c in CASES
+                if (room != "none" or c != "earfold_exact")
+                and (c not in SCENE_CASES or layout.kind == "scene")
+            ]
             for case in cases:
                 say(f"bench: {layout.name} {case}")
                 r = _run_case(case, stem, layout.name, str(Path(tmp) / f"out-{case}.wav"), room)
 
-                def figures(r: Figures) -> dict[str, Any]:
+                def figures(r: Figures, channels: int = layout.channels) -> dict[str, Any]:
                     f = {
                         "seconds": round(r["seconds"], 4),
                         "runs_s": r["all_seconds"],
                         "x_real_time": round(seconds / r["seconds"], 1),
+                        # Seconds of one input channel rendered per second of wall time.
+                        "channel_x_real_time": round(channels * seconds / r["seconds"], 1),
                     }
                     if "plan_seconds" in r:
                         f["plan_seconds"] = round(r["plan_seconds"], 4)
@@ -194,6 +209,15 @@ def run_bench(
                     row["eq_engine"] = {k: v for k, v in r["engine"].items() if k != "ratio"}
                     row["eq_engine_added"] = round(r["engine"]["ratio"] - 1, 4)
                     row["eq_prepare_s"] = round(r["plan_seconds"] - r["off"]["plan_seconds"], 3)
+                elif case == "scene_pair":
+                    # Issue 17: per input channel against 7.1.4, interleaved in one process.
+                    row["scene_per_channel"] = {
+                        "reference": r["reference"]["layout"],
+                        "median_ratio": round(r["median_channel_ratio"], 3),
+                        "round_ratios": r["channel_ratios"],
+                        "scene_seconds": round(r["seconds"], 4),
+                        "reference_seconds": round(r["reference"]["seconds"], 4),
+                    }
                 elif case == "delivery":
                     # What the delivery stage (measure, gain, limiter, final write) adds.
                     row["earfold_delivered"] = {
@@ -270,12 +294,13 @@ def format_bench(result: dict[str, Any]) -> str:
         f"HRTF {result['hrtf']}, room {result.get('room', 'none')}, {result['cpu_count']} CPU(s), "
         f"numpy {result['numpy']}",
         "",
-        f"{'layout':<7} {'ch':>3} {'earfold xRT':>12} {'baseline xRT':>13} {'I/O floor xRT':>14}"
-        f" {'speed-up':>9} {'ours/floor':>11} {'peak MB':>8}",
+        f"{'layout':<7} {'ch':>3} {'earfold xRT':>12} {'per ch':>7} {'baseline xRT':>13} "
+        f"{'I/O floor xRT':>14} {'speed-up':>9} {'ours/floor':>11} {'peak MB':>8}",
     ]
     for name, row in result["layouts"].items():
         lines.append(
             f"{name:<7} {row['channels']:>3} {row['earfold']['x_real_time']:>12.1f} "
+            f"{row['earfold'].get('channel_x_real_time', 0.0):>7.0f} "
             f"{row['baseline']['x_real_time']:>13.1f} {row['io_floor']['x_real_time']:>14.1f} "
             f"{row['speedup_vs_baseline']:>8.2f}x {row['ratio_to_io_floor']:>10.2f}x "
             f"{row['earfold']['peak_memory_mb']:>8.1f}"
@@ -291,6 +316,15 @@ def format_bench(result: dict[str, Any]) -> str:
                 else ""
             )
         )
+    for name, row in result["layouts"].items():
+        scene = row.get("scene_per_channel")
+        if scene:
+            lines += [
+                "",
+                f"{name} per input channel against {scene['reference']}: "
+                f"{scene['median_ratio']:.2f}x as fast (median of {len(scene['round_ratios'])} "
+                "interleaved rounds in one process)",
+            ]
     mem = result.get("memory")
     if mem:
         lines += [
@@ -309,7 +343,8 @@ def format_bench(result: dict[str, Any]) -> str:
             )
     lines += [
         "",
-        "xRT = seconds of audio per second of wall time (higher is faster); "
+        "xRT = seconds of audio per second of wall time (higher is faster); per ch = xRT "
+        "times the input channels (hoa3: an order-3 Ambisonic scene, 16 channels); "
         "baseline = scipy.signal.oaconvolve per filter on the whole stem; "
         "delivery = loudness + limiter + final write, as a share of the raw render "
         "(default -23 LUFS, and a loud target at which the limiter works); "

@@ -25,6 +25,9 @@ __all__ = [
     "EQ_ROUNDS",
     "LOUD_TARGET_LUFS",
     "MEMORY_CASES",
+    "SCENE_CASES",
+    "SCENE_REFERENCE_LAYOUT",
+    "SCENE_ROUNDS",
     "SELF_REPEATING",
     "Figures",
     "interleaved",
@@ -301,6 +304,52 @@ def _case_delivery(stem: str, layout: str, out: str, room: str) -> Figures:
     }
 
 
+#: Rounds of a scene's per-channel comparison with :data:`SCENE_REFERENCE_LAYOUT`.
+SCENE_ROUNDS = 7
+
+#: The loudspeaker layout a scene is compared with per input channel (issue 17).
+SCENE_REFERENCE_LAYOUT = "7.1.4"
+
+
+def _case_scene_pair(stem: str, layout: str, out: str, room: str) -> Figures:
+    """A scene and a 7.1.4 noise stem of the same length, rendered raw in interleaved
+    rounds in this one process; each round's ratio of their speeds per input channel
+    (the scene's channels per second over 7.1.4's), and the median of those ratios
+    (above 1: the scene renders faster per input channel)."""
+    from pathlib import Path
+
+    from ..io import probe_stem
+    from ..layouts import get_layout
+
+    info = probe_stem([stem])
+    reference = get_layout(SCENE_REFERENCE_LAYOUT)
+    channels = get_layout(layout).channels
+    other = str(Path(stem).with_name(f"scene-pair-{reference.name}.wav"))
+    make_noise_stem(other, reference.channels, info.frames / info.samplerate)
+    try:
+        runs = interleaved(
+            {
+                "scene": lambda: _case_ours(stem, layout, out, room),
+                "reference": lambda: _case_ours(other, reference.name, out, room),
+            },
+            SCENE_ROUNDS,
+        )
+    finally:
+        os.remove(other)
+    ratios = [
+        (channels / s["seconds"]) / (reference.channels / r["seconds"])
+        for s, r in zip(runs["scene"], runs["reference"], strict=True)
+    ]
+    return {
+        **_summary(runs["scene"]),
+        "reference": {**_summary(runs["reference"]), "layout": reference.name},
+        "channels": channels,
+        "reference_channels": reference.channels,
+        "channel_ratios": [round(x, 4) for x in ratios],
+        "median_channel_ratio": float(np.median(ratios)),
+    }
+
+
 CASES: dict[str, Callable[..., Figures]] = {
     "earfold": _case_ours,
     "delivery": _case_delivery,
@@ -308,8 +357,11 @@ CASES: dict[str, Callable[..., Figures]] = {
     "baseline": _case_baseline,
     "io_floor": _case_io_floor,
     "eq_pair": _case_eq_pair,
+    "scene_pair": _case_scene_pair,
 }
 #: Cases that repeat themselves (their own interleaved rounds) instead of REPEATS times.
-SELF_REPEATING = {"eq_pair", "delivery"}
+SELF_REPEATING = {"eq_pair", "delivery", "scene_pair"}
+#: Cases run only for an Ambisonic scene's row.
+SCENE_CASES = {"scene_pair"}
 #: Cases run only by the memory check.
 MEMORY_CASES: dict[str, Callable[..., Figures]] = {"earfold_delivered": _case_delivered}

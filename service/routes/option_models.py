@@ -114,6 +114,11 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
     elif spec.kind == "level":
         number = Annotated[float, Field(allow_inf_nan=False, **_bounds(spec))]
         annotation = number | Literal[spec.choices]  # type: ignore[valid-type]
+    elif spec.kind == "rotation":
+        # [yaw], [yaw, pitch] or [yaw, pitch, roll] in degrees, or the text "yaw,pitch,roll"
+        # (the renderer's check reads both and says what it takes).
+        angle = Annotated[float, Field(allow_inf_nan=False)]
+        annotation = Annotated[list[angle], Field(min_length=1, max_length=3)] | Name
     else:
         raise ValueError(f"option {spec.name!r} of kind {spec.kind!r} has no HTTP form")
     if nullable:

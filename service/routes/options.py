@@ -44,6 +44,7 @@ HTTP_FORMS = {
     "headphone_eq": ["list of bands", "uploaded id"],
     "channel_order": ["list of labels", "order name"],
     "solo": ["channel label"],
+    "rotate": ["list of 1 to 3 numbers (yaw, pitch, roll)", "text yaw,pitch,roll"],
 }
 
 
