@@ -493,14 +493,15 @@ export function scenePicture(scene, directions, { caption = "" } = {}) {
     side.append(svgEl("line", { class: elv === 0 ? "axis" : "grid", x1: SCENE_SIDE.left, y1: y, x2: SCENE_SIDE.left + w, y2: y }),
       text(SCENE_SIDE.left - 4, y + 3, `${elv}°`, { class: "ring-label", "text-anchor": "end" }));
   }
+  const dot = dirs.length > 200 ? 1.6 : dirs.length > 60 ? 2.2 : 3; // a dense grid stays readable
   for (const [az, elv] of dirs) {
     const kind = elv < -0.5 ? "below" : "above";
     const p = topViewPoint(az, 0, rOf(elv));
     const tip = `azimuth ${Math.round(az * 10) / 10}°, elevation ${Math.round(elv * 10) / 10}°`;
-    top.append(titled(svgEl("circle", { cx: c + p.x, cy: c + p.y, r: 3, class: `dir-dot dir-${kind}`, "data-direction": "" }), tip));
+    top.append(titled(svgEl("circle", { cx: c + p.x, cy: c + p.y, r: dot, class: `dir-dot dir-${kind}`, "data-direction": "" }), tip));
     const x = SCENE_SIDE.left + ((180 - wrapAzimuth(az)) / 360) * w;
     const y = SCENE_SIDE.top + ((90 - elv) / 180) * h;
-    side.append(titled(svgEl("circle", { cx: x, cy: y, r: 3, class: `dir-dot dir-${kind}`, "data-direction": "" }), tip));
+    side.append(titled(svgEl("circle", { cx: x, cy: y, r: dot, class: `dir-dot dir-${kind}`, "data-direction": "" }), tip));
   }
   const figure = document.createElement("figure");
   figure.className = "scene-picture";

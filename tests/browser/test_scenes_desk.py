@@ -38,9 +38,8 @@ def stems(live_server, tmp_path_factory) -> dict[int, dict]:
     out = {}
     for channels, path in paths.items():
         with path.open("rb") as f:
-            answer = httpx.post(
-                f"{live_server.url}/v1/stems", files={"file": (path.name, f, "audio/wav")}, timeout=60
-            )
+            files = {"file": (path.name, f, "audio/wav")}
+            answer = httpx.post(f"{live_server.url}/v1/stems", files=files, timeout=60)
         answer.raise_for_status()
         out[channels] = answer.json()
     return out
@@ -88,7 +87,8 @@ def test_a_scene_is_picked_drawn_rendered_and_reported(page, live_server, stems,
     words = picture.locator("figcaption").inner_text()
     assert "order 3" in words and "16 channels" in words
     listed = next(
-        e for e in httpx.get(f"{live_server.url}/v1/layouts", timeout=30).json()
+        e
+        for e in httpx.get(f"{live_server.url}/v1/layouts", timeout=30).json()
         if e["name"] == "hoa3"
     )
     n = len(listed["directions"])
