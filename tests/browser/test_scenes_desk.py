@@ -166,3 +166,18 @@ def test_loudspeaker_stems_see_no_scene_fields(page, live_server, stems):
     )
     assert "b:5.1" in batch and not [v for v in batch if v.startswith(("b:foa", "b:hoa"))]
     assert page.evaluate(SHOWN_HIDDEN_JS) == []
+
+
+def test_blind_tab_words_scene_renders(page, live_server, stems):
+    """The Blind tests tab tells scene renders apart by decoder and rotation, in words."""
+    open_desk(page, live_server, stems[16])
+    words = page.evaluate(
+        """async () => (await import('/static/blind.js')).describeRenders([
+             {request: {layout: 'hoa3', ambisonic_decoder: 'magls', rotate: null}},
+             {request: {layout: 'hoa3', ambisonic_decoder: 'virtual', rotate: [30, 0, 0]}},
+           ], ['layout', 'ambisonic_decoder', 'rotate'])"""
+    )
+    assert words == [
+        "order 3 scene · MagLS decoder",
+        "order 3 scene · virtual-loudspeaker decoder · rotated 30°",
+    ]
