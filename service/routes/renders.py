@@ -27,6 +27,7 @@ from earfold.renderer.layouts import (
     layout_from_dict,
     resolve_channel_order,
     scene_layout,
+    stem_scene,
 )
 from earfold.renderer.render import option
 
@@ -184,19 +185,10 @@ def _scene_checks(req: Any, layout: Layout, stem: dict) -> None:
             f"fold stereo is the ITU-R BS.775 fold-down of loudspeaker channels; "
             f"{scene.name!r} is an Ambisonic scene: render it binaurally",
         )
-    if scene.channels != stem["channels"]:
-        hint = scene_hint(stem["channels"])
-        fits = (
-            f"; {stem['channels']} channels is an order-{hint['order']} scene: choose layout "
-            f"{hint['layout']}"
-            if hint
-            else "; a scene of order N has (N + 1)^2 channels: 4, 9, 16, 25, 36, 49 or 64"
-        )
-        raise _refuse(
-            "layout",
-            f"the stem has {stem['channels']} channel(s) but layout {scene.name!r} is an "
-            f"order-{scene.order} Ambisonic scene of {scene.channels} channels{fits}",
-        )
+    try:  # the stem's own scene: this order, or a higher one decoded at this order
+        stem_scene(scene, stem["channels"])
+    except LayoutError as exc:
+        raise _refuse("layout", str(exc)) from None
 
 
 def room_object(value: dict, field: str) -> None:
@@ -277,7 +269,7 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
     whose variants are renders of one stem."""
     layout = _layout(req.layout, stem)
     _scene_checks(req, layout, stem)
-    if layout.channels != stem["channels"]:
+    if not isinstance(layout, SceneLayout) and layout.channels != stem["channels"]:
         raise Problem(
             UNPROCESSABLE,
             f"the stem has {stem['channels']} channel(s) but layout "

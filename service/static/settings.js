@@ -244,6 +244,16 @@ function hasHeights(layout) {
   return layout.speakers.some((s) => !s.lfe && Math.abs(s.elevation) > 0.01);
 }
 
+/**
+ * Whether a stem of `channels` channels can be rendered as `scene`: a full-sphere scene of
+ * the scene's order or a higher one (the renderer then decodes its first (order + 1)^2
+ * channels: how orders of one master are compared).
+ */
+function sceneFits(scene, channels) {
+  const root = Math.round(Math.sqrt(channels));
+  return root * root === channels && root >= 2 && root - 1 >= scene.order;
+}
+
 /** An Ambisonic scene of GET /v1/layouts (kind "scene": channels, no speakers). */
 export function isScene(layout) {
   return Boolean(layout) && layout.kind === "scene";
@@ -305,7 +315,8 @@ function layoutControl(spec) {
   node.append(hint, picture);
 
   function fits(layout) {
-    return !S.stem || channelsOf(layout) === S.stem.channels;
+    if (!S.stem) return true;
+    return isScene(layout) ? sceneFits(layout, S.stem.channels) : channelsOf(layout) === S.stem.channels;
   }
 
   function option(value, layout, text) {
@@ -1128,7 +1139,7 @@ function buildBatch() {
     const ticked = new Set([...cols.querySelectorAll("input:checked")].map((i) => `${i.dataset.batchItem}|${i.value}`));
     cols.replaceChildren();
     // Scenes only where the stem's channel count is the scene's ((order + 1)^2).
-    const fits = (l) => (isScene(l) ? Boolean(S.stem) && l.channels === S.stem.channels : !S.stem || l.speakers.length === S.stem.channels);
+    const fits = (l) => (isScene(l) ? Boolean(S.stem) && sceneFits(l, S.stem.channels) : !S.stem || l.speakers.length === S.stem.channels);
     const layouts = [
       ...builtinLayouts().map((l) => [`b:${l.name}`, isScene(l) ? `${l.name} (scene)` : l.name, !fits(l)]),
       ...presetsOf("layout").map((p) => [`p:${p.id}`, p.name, !fits(p.body)]),

@@ -120,3 +120,30 @@ def test_two_decoders_of_one_scene_compared_blind(make_client, tmp_path):
     result = client.get(f"/v1/comparisons/{cid}/results").json()
     for v in result["variants"]:
         assert v["matched_lufs"] == pytest.approx(result["level_lufs"], abs=0.1)
+
+
+def test_two_orders_of_one_scene_compared_blind(make_client, tmp_path):
+    # An order-3 master heard at order 3 and at order 2 (its first 9 ACN channels).
+    client = make_client(**FAST)
+    stem = _scene_stem(client, tmp_path)
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"layout": "hoa3"}, {"layout": "hoa2"}],
+        "trials": 2,
+        "excerpt": {"start": 0.5, "length": 2.0},
+    }
+    resp = client.post("/v1/comparisons", json=body)
+    assert resp.status_code == 202, resp.text
+    cid = resp.json()["id"]
+    summaries = [v["summary"] for v in resp.json()["variants"]]
+    assert summaries[0].startswith("order 3 scene") and summaries[1].startswith("order 2 scene")
+    Worker(client.app.state.settings, queue=client.app.state.queue, name="w").run(once=True)
+    view = client.get(f"/v1/comparisons/{cid}").json()
+    assert view["state"] == "ready", view
+    a = client.get(view["trials"][0]["audio"]["A"])
+    b = client.get(view["trials"][0]["audio"]["B"])
+    assert a.status_code == b.status_code == 200 and a.content != b.content
+    # a stem of a lower order than asked is refused before anything is queued
+    low = {**body, "variants": [{"layout": "hoa3"}, {"layout": "hoa4"}]}
+    refused = client.post("/v1/comparisons", json=low)
+    assert refused.status_code == 422 and "hoa4" in refused.text
