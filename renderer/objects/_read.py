@@ -326,7 +326,7 @@ class _Resolver:
             else:
                 self.ignored.append(
                     f"audioObject {object_id} ({obj.name!r}): pack {pack_id} is of type {kind}, "
-                    f"which is not supported; track {track + 1} is not rendered"
+                    f"which is not supported; chna track {track + 1} is not rendered"
                 )
         for pack_id, members in hoa_groups.items():
             self.hoa.append(self.hoa_pack(obj, span, pack_id, members))
