@@ -19,14 +19,14 @@ __all__ = [
 ]
 
 MAX_AXML_BYTES = 64 * 1024 * 1024
-"""Largest ``axml`` chunk read into memory (64 MiB). A two-hour master with 32 objects
-updated every 20 ms holds about 11.5 million elements' worth of blocks; masters in practice
-update far less often and hold a few MB of XML."""
+"""Largest ``axml`` chunk read into memory (64 MiB). Measured: 80 000 object blocks take
+18.7 MB of XML (about 230 bytes each); masters in practice hold a few MB."""
 
-MAX_ELEMENTS = 2_000_000
-"""Most XML elements in one ``axml`` chunk. Each parsed element costs a few hundred bytes
-while the document is read, so this bounds the parse at roughly 0.5-1 GB in the worst case;
-typical masters hold tens of thousands."""
+MAX_ELEMENTS = 1_000_000
+"""Most XML elements in one ``axml`` chunk. Measured (tracemalloc, Python 3.11): a parsed
+element with two short attributes and a text costs about 500 bytes at the peak of the
+parse, so this bounds the parse near 0.5 GB whatever the file; a block of an object is
+3 to 6 elements, so this allows about 200 000 blocks in all."""
 
 MAX_DEPTH = 32
 """Deepest XML nesting. The ADM's own nesting (ebuCoreMain, coreMetadata, format,
@@ -41,13 +41,13 @@ MAX_ATTRIBUTE_CHARS = 4096
 MAX_TEXT_CHARS = 65536
 """Longest text of one element, in characters (descriptions and labels)."""
 
-MAX_BLOCKS_PER_CHANNEL = 400_000
+MAX_BLOCKS_PER_CHANNEL = 200_000
 """Most audioBlockFormats in one audioChannelFormat: a two-hour object updated every
-20 ms has 360 000. The renderer's memory grows with the number of blocks (a few floats
-each), never with the length of the audio."""
+36 ms. The model's memory grows with the number of blocks (about 2.2 kB each at the peak
+of reading, measured), never with the length of the audio."""
 
-MAX_TOTAL_BLOCKS = 1_000_000
-"""Most audioBlockFormats in the whole file."""
+MAX_TOTAL_BLOCKS = 250_000
+"""Most audioBlockFormats in the whole file (also bounded by :data:`MAX_ELEMENTS`)."""
 
 MAX_CHUNKS = 10_000
 """Most RIFF chunks walked before the reader gives up on a header."""

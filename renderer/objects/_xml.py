@@ -33,7 +33,7 @@ __all__ = ["XmlNode", "parse_axml"]
 _FEED = 1 << 20  # bytes handed to expat at a time, so a limit stops the parse early
 
 
-@dataclass(eq=False)
+@dataclass(eq=False, slots=True)
 class XmlNode:
     """One element: local name, attributes, text (stripped) and children, with its line."""
 
@@ -55,8 +55,15 @@ class XmlNode:
         return None
 
 
-def _local(name: str) -> str:
-    return name.rpartition(":")[2]
+def _local(name: str, cache: dict[str, str]) -> str:
+    """``name`` without its namespace prefix (cached: a document repeats a few dozen names)."""
+    local = cache.get(name)
+    if local is None:
+        if len(cache) < 4096:
+            local = cache[name] = name.rpartition(":")[2]
+        else:
+            local = name.rpartition(":")[2]
+    return local
 
 
 class _Builder:
@@ -67,6 +74,7 @@ class _Builder:
         self.texts: list[list[str]] = []
         self.text_sizes: list[int] = []
         self.count = 0
+        self.names: dict[str, str] = {}
 
     def _fail(self, message: str) -> AdmError:
         return AdmError(f"axml line {self.parser.CurrentLineNumber}: {message}")
@@ -85,8 +93,11 @@ class _Builder:
                     f"attribute {key!r} of <{name}> is {len(value)} characters long, "
                     f"more than {MAX_ATTRIBUTE_CHARS}"
                 )
+        names = self.names
         node = XmlNode(
-            _local(name), {_local(k): v for k, v in attrs.items()}, self.parser.CurrentLineNumber
+            _local(name, names),
+            {_local(k, names): v for k, v in attrs.items()},
+            self.parser.CurrentLineNumber,
         )
         if self.stack:
             self.stack[-1].children.append(node)
