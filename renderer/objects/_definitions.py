@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import re
+from collections import deque
 from dataclasses import dataclass, field
 from fractions import Fraction
 
@@ -29,6 +30,10 @@ _UNSUPPORTED_OBJECT_PARTS = {
     "objectDivergence": "objectDivergence is not rendered",
     "zoneExclusion": "zoneExclusion needs a loudspeaker layout",
     "headLocked": "headLocked is not rendered (objects are placed relative to the head anyway)",
+    "headphoneVirtualise": (
+        "headphoneVirtualise (bypass, direct-to-reverberant ratio) is not applied: the object "
+        "is rendered binaurally like the others"
+    ),
 }
 
 
@@ -56,17 +61,17 @@ class Definitions:
     objects: dict[str, RawObject] = field(default_factory=dict)
     packs: dict[str, PackFormat] = field(default_factory=dict)
     channels: dict[str, ChannelFormat] = field(default_factory=dict)
-    streams: dict[str, str] = field(default_factory=dict)  # AS -> AC
-    tracks: dict[str, str] = field(default_factory=dict)  # AT -> AS
+    streams: dict[str, str | None] = field(default_factory=dict)  # AS -> AC
+    tracks: dict[str, str | None] = field(default_factory=dict)  # AT -> AS
     uids: dict[str, tuple[str | None, str | None]] = field(default_factory=dict)
     ignored: list[str] = field(default_factory=list)
 
 
 def _find_root(root: XmlNode) -> XmlNode:
     """The audioFormatExtended element, wherever the wrapper puts it (breadth first)."""
-    queue = [root]
+    queue = deque([root])
     while queue:
-        node = queue.pop(0)
+        node = queue.popleft()
         if node.tag == "audioFormatExtended":
             return node
         queue.extend(node.children)
@@ -200,22 +205,23 @@ def read_definitions(root: XmlNode) -> Definitions:
             ident = _attr_id(node, "audioStreamFormatID", "audioStreamFormat")
             define(ident, node)
             channel_refs = _refs(node, "audioChannelFormatIDRef", "audioChannelFormat")
-            if len(channel_refs) != 1:
+            if len(channel_refs) > 1:
                 raise AdmError(
                     f"axml line {node.line}: audioStreamFormat {ident} refers to "
-                    f"{len(channel_refs)} audioChannelFormats; a PCM stream refers to one"
+                    f"{len(channel_refs)} audioChannelFormats; a stream refers to one"
                 )
-            defs.streams[ident] = channel_refs[0]
+            # None: a coded stream (no channel format), refused only where a track plays it
+            defs.streams[ident] = channel_refs[0] if channel_refs else None
         elif tag == "audioTrackFormat":
             ident = _attr_id(node, "audioTrackFormatID", "audioTrackFormat")
             define(ident, node)
             stream_refs = _refs(node, "audioStreamFormatIDRef", "audioStreamFormat")
-            if len(stream_refs) != 1:
+            if len(stream_refs) > 1:
                 raise AdmError(
                     f"axml line {node.line}: audioTrackFormat {ident} refers to "
                     f"{len(stream_refs)} audioStreamFormats; it must refer to one"
                 )
-            defs.tracks[ident] = stream_refs[0]
+            defs.tracks[ident] = stream_refs[0] if stream_refs else None
         elif tag == "audioTrackUID":
             ident = _attr_id(node, "UID", "audioTrackUID")
             define(ident, node)
@@ -433,7 +439,8 @@ def _hoa_block(node: XmlNode, channel: str) -> HoaBlock:
         raise AdmError(f"{what}: an HOA block needs both order and degree")
     order = int(_number(order_node.text, f"{what}: order", 0, 32))
     degree = int(_number(degree_node.text, f"{what}: degree", -32, 32))
-    if str(order) != order_node.text.strip() or abs(degree) > order:
+    whole = str(order) == order_node.text.strip() and str(degree) == degree_node.text.strip()
+    if not whole or abs(degree) > order:
         raise AdmError(
             f"{what}: order {order_node.text!r} and degree {degree_node.text!r} are not whole "
             "numbers with |degree| <= order"

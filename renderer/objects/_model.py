@@ -290,7 +290,7 @@ class AdmMaster:
         The programme chosen (None when the file has no audioProgramme and every
         audioContent, or every top-level audioObject, is played instead; see ``notes``).
     programmes
-        Every programme in the file, as (ID, name).
+        Every programme in the file, as (ID, name, audioContent IDs).
     contents
         The chosen programme's audioContents, as (ID, name, top-level object IDs).
     objects, beds, hoa
@@ -311,7 +311,7 @@ class AdmMaster:
     frames: int
     programme_id: str | None
     programme_name: str | None
-    programmes: tuple[tuple[str, str], ...]
+    programmes: tuple[tuple[str, str, tuple[str, ...]], ...]
     contents: tuple[tuple[str, str, tuple[str, ...]], ...]
     objects: tuple[ObjectChannel, ...]
     beds: tuple[BedChannel, ...]
@@ -329,7 +329,9 @@ class AdmMaster:
             "channels": self.channels,
             "frames": self.frames,
             "programme": {"id": self.programme_id, "name": self.programme_name},
-            "programmes": [{"id": i, "name": n} for i, n in self.programmes],
+            "programmes": [
+                {"id": i, "name": n, "contents": list(c)} for i, n, c in self.programmes
+            ],
             "contents": [
                 {"id": i, "name": n, "objects": list(objs)} for i, n, objs in self.contents
             ],

@@ -142,8 +142,11 @@ class _Resolver:
         """The channel format a chna/axml track reference leads to."""
         if ref.startswith("AC_"):
             return ref
-        stream = self.defs.tracks.get(ref)
-        if stream is None:
+        if ref in self.defs.tracks:
+            stream = self.defs.tracks[ref]
+            if stream is None:
+                raise AdmError(f"audioTrackFormat {ref} (of {uid}) refers to no audioStreamFormat")
+        else:
             common = common_track_channel(ref)
             if common is None or common_channel(common) is None:
                 raise AdmError(
@@ -151,11 +154,16 @@ class _Resolver:
                     "common definition this reader knows"
                 )
             return common
-        channel = self.defs.streams.get(stream)
-        if channel is None:
+        if stream not in self.defs.streams:
             raise AdmError(
                 f"audioStreamFormat {stream} (referenced by audioTrackFormat {ref}) is not "
                 "defined in the file"
+            )
+        channel = self.defs.streams[stream]
+        if channel is None:
+            raise AdmError(
+                f"audioStreamFormat {stream} (of {uid}) refers to no audioChannelFormat: a "
+                "coded stream, which is not supported (PCM tracks only)"
             )
         return channel
 
@@ -185,12 +193,14 @@ class _Resolver:
 
     def master(self, programme: str | None) -> AdmMaster:
         defs = self.defs
-        programmes = tuple((k, v[0]) for k, v in defs.programmes.items())
+        programmes = tuple((k, v[0], v[1]) for k, v in defs.programmes.items())
         chosen: str | None = None
         if programme is not None:
-            matches = [k for k, name in programmes if programme.upper() == k or programme == name]
+            matches = [
+                k for k, name, _ in programmes if programme.upper() == k or programme == name
+            ]
             if not matches:
-                choices = ", ".join(f"{k} ({n!r})" for k, n in programmes) or "none"
+                choices = ", ".join(f"{k} ({n!r})" for k, n, _ in programmes) or "none"
                 raise AdmError(
                     f"no audioProgramme {programme!r} in the file; its programmes: {choices}"
                 )

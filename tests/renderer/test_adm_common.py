@@ -75,7 +75,9 @@ def test_common_hoa_channels_are_acn_numbered():
     assert common_pack("AP_00040003").channel_ids[-1] == "AC_00040010"
 
 
-def _hoa_master(tmp_path, norms, order=2, acns=(0, 1, 2, 3, 4, 5, 6, 7, 8), pack_norm=None):
+def _hoa_master(
+    tmp_path, norms, order=2, acns=(0, 1, 2, 3, 4, 5, 6, 7, 8), pack_norm=None, tweak=None
+):
     channels = []
     entries = []
     for k, acn in enumerate(acns):
@@ -106,7 +108,7 @@ def _hoa_master(tmp_path, norms, order=2, acns=(0, 1, 2, 3, 4, 5, 6, 7, 8), pack
         tmp_path / "h.wav",
         audio=np.zeros((8, len(acns)), np.float32),
         chna=chna_body(entries),
-        axml=document(*elements),
+        axml=(tweak or (lambda x: x))(document(*elements)),
     )
 
 
@@ -120,6 +122,15 @@ def test_hoa_channels_out_of_acn_order_are_sorted(tmp_path):
     path = _hoa_master(tmp_path, [None] * 4, acns=(3, 0, 2, 1))
     (scene,) = read_adm(path).hoa
     assert scene.acns == (0, 1, 2, 3) and scene.tracks == (1, 3, 2, 0)
+
+
+def test_hoa_order_and_degree_are_whole_numbers(tmp_path):
+    def tweak(xml):
+        return xml.replace("<degree>0</degree>", "<degree>0.5</degree>")
+
+    path = _hoa_master(tmp_path, [None], acns=(0,), tweak=tweak)
+    with pytest.raises(AdmError, match=r"degree '0.5' are not whole numbers"):
+        read_adm(path)
 
 
 def test_an_incomplete_hoa_pack_is_noted(tmp_path):

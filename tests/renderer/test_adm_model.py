@@ -140,7 +140,10 @@ def test_the_whole_master(tmp_path, container):
     master = read_adm(_write(tmp_path, container=container))
     assert master.container == container
     assert (master.programme_id, master.programme_name) == ("APR_1001", "Main")
-    assert master.programmes == (("APR_1001", "Main"), ("APR_1002", "Bed only"))
+    assert master.programmes == (
+        ("APR_1001", "Main", ("ACO_1001", "ACO_1002", "ACO_1003")),
+        ("APR_1002", "Bed only", ("ACO_1001",)),
+    )
     assert [c[0] for c in master.contents] == ["ACO_1001", "ACO_1002", "ACO_1003"]
     # Beds: the common 5.1 pack (BS.2094, from memory), labels as BS.2051 names.
     assert [b.label for b in master.beds] == ["M+030", "M-030", "M+000", "LFE", "M+110", "M-110"]
@@ -224,7 +227,7 @@ def test_unsupported_block_parameters_are_listed_once_with_a_count(tmp_path):
             duration="00:00:01.00000",
             az=0,
             el=0,
-            extra="<objectDivergence>0.5</objectDivergence>",
+            extra='<objectDivergence>0.5</objectDivergence><headphoneVirtualise bypass="1"/>',
         )
         for k in range(3)
     ]
@@ -233,6 +236,7 @@ def test_unsupported_block_parameters_are_listed_once_with_a_count(tmp_path):
     assert "audioChannelFormat AC_00031002: objectDivergence is not rendered (3 times)" in (
         master.ignored
     )
+    assert any("headphoneVirtualise (bypass" in m and "(3 times)" in m for m in master.ignored)
 
 
 def test_a_loudspeaker_that_moves_is_placed_at_its_first_position(tmp_path):
@@ -292,6 +296,18 @@ MALFORMED = {
     "missing content": (_drop("bed_content"), r"audioContent ACO_1001 .* is not defined"),
     "missing pack": (_drop("pack2"), r"audioPackFormat AP_00031002 .* neither defined"),
     "missing channel": (_drop("ch2"), r"audioChannelFormat AC_00031002 .* neither defined"),
+    "coded stream": (
+        _replace(
+            "st2",
+            "<audioChannelFormatIDRef>AC_00031002</audioChannelFormatIDRef>",
+            "",
+        ),
+        r"audioStreamFormat AS_00031002 \(of ATU_00000008\) refers to no audioChannelFormat",
+    ),
+    "track without stream": (
+        _replace("st2", "<audioStreamFormatIDRef>AS_00031002</audioStreamFormatIDRef>", ""),
+        r"audioTrackFormat AT_00031002_01 \(of ATU_00000008\) refers to no audioStreamFormat",
+    ),
     "missing stream": (
         _replace("st2", 'audioStreamFormatID="AS_00031002"', 'audioStreamFormatID="AS_00031009"'),
         r"audioStreamFormat AS_00031002 .* is not defined",
