@@ -299,22 +299,10 @@ def _read_channel(node: XmlNode, ident: str, ignored: list[str]) -> ChannelForma
         blocks = tuple(_hoa_block(b, ident) for b in block_nodes)
     else:
         blocks = ()  # Matrix and Binaural: listed as ignored where an object uses them
-    if (
-        type_definition != "Objects"
-        and not blocks
-        and type_definition
-        in (
-            "DirectSpeakers",
-            "HOA",
-        )
-    ):
+    if not blocks and type_definition in ("Objects", "DirectSpeakers", "HOA"):
         raise AdmError(
             f"axml line {node.line}: audioChannelFormat {ident} ({type_definition}) has no "
             "audioBlockFormat"
-        )
-    if type_definition == "Objects" and not blocks:
-        raise AdmError(
-            f"axml line {node.line}: audioChannelFormat {ident} (Objects) has no audioBlockFormat"
         )
     return ChannelFormat(ident, name, type_definition, blocks, low_pass)
 

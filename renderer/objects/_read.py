@@ -22,6 +22,7 @@ from ._chunks import WavChunks, read_wav_chunks
 from ._common import common_channel, common_pack, common_track_channel
 from ._common_data import LFE_LOW_PASS_HZ
 from ._definitions import Definitions, RawObject, read_definitions
+from ._ids import TYPE_NAMES, type_code
 from ._limits import MAX_DEPTH, MAX_NOTES
 from ._model import (
     AdmMaster,
@@ -38,6 +39,7 @@ from ._xml import parse_axml
 __all__ = ["read_adm"]
 
 _SILENT_UID = "ATU_00000000"  # BS.2076: a reference to this UID is a silent track
+_UNSUPPORTED_TYPES = ("Matrix", "Binaural")
 
 
 def read_adm(path: str | os.PathLike[str], *, programme: str | None = None) -> AdmMaster:
@@ -228,7 +230,7 @@ class _Resolver:
             name, object_ids = defs.contents[content_id]
             contents.append((content_id, name, object_ids))
             top_objects.extend(object_ids)
-        if not content_ids:
+        if chosen is None and not content_ids:
             nested = {o for obj in defs.objects.values() for o in obj.object_ids}
             top_objects = [k for k in defs.objects if k not in nested]
         visited: set[str] = set()
@@ -290,7 +292,13 @@ class _Resolver:
     def place_tracks(self, obj: RawObject, span: _Span) -> None:
         object_id = obj.object_id
         allowed: dict[str, str] = {}  # pack ID -> the object's pack it is in
+        unsupported: dict[str, str] = {}  # pack ID -> its type, for Matrix and Binaural packs
         for pack_id in obj.pack_ids:
+            kind = TYPE_NAMES[type_code(pack_id)]
+            if kind in _UNSUPPORTED_TYPES:
+                # Not resolved at all: their definitions (common or not) are not needed.
+                unsupported[pack_id] = kind
+                continue
             for inner in self.pack_closure(pack_id, object_id):
                 allowed.setdefault(inner, pack_id)
         if obj.uids and not obj.pack_ids:
@@ -298,6 +306,14 @@ class _Resolver:
         hoa_groups: dict[str, list[tuple[int, ChannelFormat]]] = {}
         for uid in obj.uids:
             if uid == _SILENT_UID:
+                continue
+            entry = self.chna.get(uid)
+            if entry is not None and entry.pack_ref in unsupported:
+                self.ignored.append(
+                    f"audioObject {object_id} ({obj.name!r}): pack {entry.pack_ref} is of type "
+                    f"{unsupported[entry.pack_ref]}, which is not supported; chna track "
+                    f"{entry.track + 1} is not rendered"
+                )
                 continue
             track, channel_id, pack_id = self.uid_target(uid, object_id)
             if pack_id not in allowed:

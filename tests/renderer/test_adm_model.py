@@ -173,6 +173,24 @@ def test_the_whole_master(tmp_path, container):
     json.dumps(master.to_dict())
 
 
+def test_a_common_binaural_pack_is_listed_without_its_definition(tmp_path):
+    """A Binaural pack need not be resolved (nor known) to be reported as not rendered."""
+    parts = _parts()
+    del parts["pack_b"], parts["ch_b"]
+    parts["binaural"] = audio_object("AO_1008", "Bin", packs=["AP_00050001"], uids=[_uid(15)])
+    entries = ENTRIES[:-1] + [(15, _uid(15), "AT_00050001_01", "AP_00050001")]
+    master = read_adm(_write(tmp_path, parts, entries))
+    assert any("AP_00050001 is of type Binaural" in m for m in master.ignored)
+
+
+def test_a_programme_without_contents_plays_nothing(tmp_path):
+    parts = _parts()
+    parts["prog"] = programme("APR_1001", "Empty", [])
+    master = read_adm(_write(tmp_path, parts))
+    assert master.programme_id == "APR_1001"
+    assert not master.objects and not master.beds and not master.hoa
+
+
 def test_a_programme_chosen_by_id_or_name(master_path):
     assert read_adm(master_path, programme="APR_1002").programme_name == "Bed only"
     bed_only = read_adm(master_path, programme="Bed only")
