@@ -584,3 +584,18 @@ def test_inspect_lists_everything(master_path):
     assert summary["hoa"][0]["order"] == 1
     assert math.isclose(summary["duration"], 480 / 48000)
     assert len(summary["ignored"]) == 2
+
+
+def test_the_inspect_command_prints_the_master_and_refuses_a_bad_one(master_path, tmp_path, capsys):
+    from earfold.service.cli import main
+
+    assert main(["adm", "inspect", str(master_path), "--json"]) == 0
+    printed = json.loads(capsys.readouterr().out)
+    assert printed == json.loads(json.dumps(inspect_adm(master_path)))
+    assert main(["adm", "inspect", str(master_path)]) == 0
+    text = capsys.readouterr().out
+    assert "programme" in text and "objects" in text and "beds" in text
+    plain = tmp_path / "plain.wav"
+    plain.write_bytes(b"RIFF\x04\x00\x00\x00WAVE")
+    assert main(["adm", "inspect", str(plain)]) == 2
+    assert capsys.readouterr().err.startswith("earfold: error:")
