@@ -32,8 +32,19 @@ WINGS: dict[str, set[str]] = {
     "scenes": {"hrtf", "layouts", "room"},
     "objects": {"io", "layouts", "scenes"},
     "eq": {"hrtf", "engine", "io", "loudness"},
-    "render": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "scenes"},
-    "tools": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "scenes", "render"},
+    "render": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "scenes", "objects"},
+    "tools": {
+        "io",
+        "layouts",
+        "hrtf",
+        "engine",
+        "loudness",
+        "room",
+        "eq",
+        "scenes",
+        "objects",
+        "render",
+    },
 }
 
 

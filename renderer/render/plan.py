@@ -46,6 +46,7 @@ from ..layouts import (
     stem_scene,
     suggest_layout,
 )
+from ..objects import read_wav_chunks
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
 from ._decay import energy_decay
 from .feeds import ChannelFeed, speaker_feeds
@@ -151,6 +152,28 @@ def resolve_hrtf(name_or_path: str | os.PathLike[str] | None) -> tuple[str, str]
         return value, Path(value).name
     shipped = get_shipped(value)
     return str(shipped.path), str(shipped.name)
+
+
+def _refuse_adm_master(stem: StemInfo) -> None:
+    """:class:`LayoutError` for an ADM object master (ITU-R BS.2076 in ``axml``, with a
+    ``chna`` track map): its tracks are objects, beds and scenes placed by the metadata,
+    and rendering them as loudspeaker channels of some layout would deliver a mix that
+    is not the one authored. ADM rendering is not in this version yet."""
+    if len(stem.paths) != 1 or stem.format not in ("WAV", "WAVEX", "RF64", "BW64"):
+        return
+    try:
+        chunks = read_wav_chunks(stem.paths[0])
+    except (RendererError, OSError):
+        return  # not a chunk structure we read: soundfile's view of it stands
+    if chunks.chna is None or chunks.axml is None or b"audioFormatExtended" not in chunks.axml:
+        return
+    name = Path(stem.paths[0]).name
+    raise LayoutError(
+        f"{name!r} is an ADM object master (ITU-R BS.2076 metadata in its axml chunk, "
+        "tracks mapped by chna): rendering ADM masters to binaural is not in this version "
+        "yet, and rendering its tracks as loudspeaker channels would not be the mix as "
+        f"authored; 'earfold adm inspect {name}' lists what it holds"
+    )
 
 
 def _stem_labels(stem: StemInfo) -> list[str] | None:
@@ -298,6 +321,7 @@ def _excerpt(stem: StemInfo, excerpt: tuple[float, float]) -> StemInfo:
 def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettings) -> RenderPlan:
     """Probe the stem and build the filter bank, validating everything up front."""
     stem = probe_stem(inputs)
+    _refuse_adm_master(stem)
     if settings.excerpt is not None:
         stem = _excerpt(stem, settings.excerpt)
     if settings.fold not in FOLD_CHOICES:

@@ -599,3 +599,26 @@ def test_the_inspect_command_prints_the_master_and_refuses_a_bad_one(master_path
     plain.write_bytes(b"RIFF\x04\x00\x00\x00WAVE")
     assert main(["adm", "inspect", str(plain)]) == 2
     assert capsys.readouterr().err.startswith("earfold: error:")
+
+
+def test_render_refuses_an_adm_master_rather_than_mixing_its_tracks_as_loudspeakers(
+    master_path, tmp_path, capsys
+):
+    from earfold.service.cli import main
+
+    out = tmp_path / "out.wav"
+    for extra in ([], ["--layout", "7.1.4"]):
+        assert main(["render", str(master_path), "-o", str(out), *extra]) == 2
+        err = capsys.readouterr().err
+        assert "ADM object master" in err and "adm inspect" in err
+    assert not out.exists()
+    # A broadcast WAV whose axml holds other metadata (no audioFormatExtended) and no chna
+    # is audio like any other.
+    other = write_master(
+        tmp_path / "described.wav",
+        audio=0.01 * np.ones((4800, 2), np.float32),
+        chna=None,
+        axml='<?xml version="1.0"?><ebuCoreMain><coreMetadata/></ebuCoreMain>',
+    )
+    assert main(["render", str(other), "-o", str(out), "--layout", "2.0", "--quiet"]) == 0
+    assert out.exists()
