@@ -258,6 +258,71 @@ class HrirSet:
             error,
         )
 
+    def pairs(self, directions: np.ndarray) -> np.ndarray:
+        """The impulse responses :meth:`pair` gives for many directions, computed in bulk.
+
+        Row ``i`` equals ``self.pair(directions[i]).ir`` (the same triangle, weights,
+        alignment and fractional delay, done for all rows at once, which spares the
+        per-call overhead), for renderers that need many directions (moving sources).
+        :meth:`pair` tells how each was found.
+
+        Parameters
+        ----------
+        directions : numpy.ndarray, shape (n, 3)
+            Directions (any non-zero length) in the listener frame.
+
+        Returns
+        -------
+        numpy.ndarray, shape (n, 2, N), float64
+        """
+        d = np.asarray(directions, dtype=float)
+        if d.ndim != 2 or d.shape[1] != 3:
+            raise HrirError(f"directions must have shape (n, 3), got {d.shape!r}")
+        length = np.linalg.norm(d, axis=1)
+        if not np.all(np.isfinite(length)) or np.any(length == 0):
+            raise HrirError("directions must be finite, non-zero vectors")
+        d = normalize(d)
+        out = np.empty((len(d), 2, self.taps))
+        if not len(d):
+            return out
+        grid = self._grid()
+        _, idx = grid.tree.query(d)
+        idx = np.asarray(idx, dtype=np.intp)
+        error = angle_between(d, self.directions[idx])
+        rest = np.flatnonzero(error > MEASURED_TOLERANCE_DEG)
+        out[...] = self.ir[idx]
+        if not len(rest) or grid.hull is None:
+            # Measured directions done; a ring or a tiny grid: one lookup at a time.
+            for i in rest:
+                out[i] = self.pair(d[i]).ir
+            return out
+        # A grid with a hull always has its facets' checks and inverses.
+        assert grid.facet_ok is not None and grid.inverse is not None
+        eq = grid.hull.equations
+        dr = d[rest]
+        facet = np.argmax((dr @ eq[:, :3].T) / -eq[:, 3], axis=1)
+        w = np.clip(np.einsum("nij,nj->ni", grid.inverse[facet], dr), 0.0, None)
+        total = w.sum(axis=1)
+        ok = grid.facet_ok[facet] & (total > 0)
+        rows, facet, w = rest[ok], facet[ok], w[ok] / total[ok, None]
+        if not len(rows):
+            return out
+        verts = grid.hull.simplices[facet]  # (n, 3)
+        aligned, ref = self._aligned()
+        on = self._onsets()
+        # As _interpolate, term by term in the same order (np.sum over three rows).
+        shape = w[:, 0, None, None] * aligned[verts[:, 0]]
+        shape += w[:, 1, None, None] * aligned[verts[:, 1]]
+        shape += w[:, 2, None, None] * aligned[verts[:, 2]]
+        onset = np.einsum("nk,nke->ne", w, on[verts]) - ref  # (n, 2)
+        # fractional_delay pads by the largest delay of its call: call it once per reach,
+        # so each row is delayed on exactly the transform pair() would use.
+        reach = np.ceil(np.max(np.abs(onset), axis=1)).astype(np.int64)
+        for value in np.unique(reach):
+            group = np.flatnonzero(reach == value)
+            out[rows[group]] = fractional_delay(shape[group], onset[group], length=self.taps)
+        return out
+
     def nearest_pair(self, direction: np.ndarray, *, exclude: int | None = None) -> HrirPair:
         """The nearest measured pair (the baseline the interpolation is tested against)."""
         d = normalize(np.asarray(direction, dtype=float).reshape(3))
