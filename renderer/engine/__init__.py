@@ -1,4 +1,5 @@
-"""The streaming convolution engine, the LFE path and the render's engine with its shared tail."""
+"""The streaming convolution engine, the LFE path, the render's engine with its shared tail,
+and the moving-source engine (time-varying filters, crossfaded)."""
 
 from __future__ import annotations
 
@@ -18,6 +19,15 @@ from .lfe import (
     LfeOptions,
     lfe_filter,
 )
+from .moving import (
+    GRID_STEP_DEG,
+    MAX_EXACT_PAIRS,
+    MAX_UPDATE_SECONDS,
+    MovingSourceEngine,
+    PairFunction,
+    PairTable,
+    SourcePath,
+)
 from .scheduler import TAIL_BLOCK_FRAMES, FoldEngine
 
 __all__ = [
@@ -29,6 +39,13 @@ __all__ = [
     "MAX_BLOCK_SIZE",
     "MIN_BLOCK_SIZE",
     "FoldEngine",
+    "GRID_STEP_DEG",
+    "MAX_EXACT_PAIRS",
+    "MAX_UPDATE_SECONDS",
+    "MovingSourceEngine",
+    "PairFunction",
+    "PairTable",
+    "SourcePath",
     "LfeOptions",
     "TAIL_BLOCK_FRAMES",
     "TransformPlan",
