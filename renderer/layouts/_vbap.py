@@ -48,6 +48,9 @@ MIN_SEPARATION_DEG = 0.01
 #: Most loudspeaker directions a panner takes (a dense virtual array has a few hundred).
 MAX_POINTS = 4096
 
+#: Triangles looked at per direction: the facet hit first and any sharing its plane.
+_COPLANAR_CANDIDATES = 8
+
 _POLES = np.array([[0.0, 0.0, 1.0], [0.0, 0.0, -1.0]])
 
 
@@ -167,16 +170,34 @@ class VbapPanner:
             bad = int(np.argmax(~np.isfinite(norms) | (norms < 1e-12)))
             raise LayoutError(f"source direction {bad} is zero or not finite: {shown(d[bad])}")
         p = d / norms[:, None]
-        # The ray along p leaves the hull through the facet whose plane it meets first:
-        # the largest p.n / -b (all planes have b < 0).
-        facet = np.argmax(p @ self._planes.T, axis=1)
-        g = np.einsum("nij,nj->ni", self._inverse[facet], p)
+        facet, g = self._active(p)
         g = np.clip(g, 0.0, None)  # rounding on an edge: a tiny negative is a zero
         full = np.zeros((len(p), self.loudspeakers + len(self.virtual)))
         np.put_along_axis(full, self.triangles[facet], g, axis=1)
         out: NDArray[np.float64] = full @ self._share
         out /= np.linalg.norm(out, axis=1, keepdims=True)
         return out
+
+    def _active(self, p: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
+        """The active triangle of each direction and its three gains before scaling.
+
+        The ray along ``p`` leaves the hull through the facet whose plane it meets first:
+        the largest ``p . n / -b`` (all planes have ``b < 0``). Where several triangles
+        share that plane (four loudspeakers on one plane, such as a square of height
+        loudspeakers, are split into two triangles), the one whose smallest gain is
+        largest holds the direction: Pulkki's rule that the active triangle has no
+        negative gain.
+        """
+        scores = p @ self._planes.T  # (n, F)
+        k = min(_COPLANAR_CANDIDATES, scores.shape[1])
+        candidates = np.argpartition(-scores, k - 1, axis=1)[:, :k]  # (n, k)
+        best = np.take_along_axis(scores, candidates, axis=1)
+        gains = np.einsum("nkij,nj->nki", self._inverse[candidates], p)  # (n, k, 3)
+        on_plane = best >= best.max(axis=1, keepdims=True) - 1e-9
+        merit = np.where(on_plane, gains.min(axis=2), -np.inf)
+        pick = np.argmax(merit, axis=1)
+        rows = np.arange(len(p))
+        return candidates[rows, pick], gains[rows, pick]
 
     def __repr__(self) -> str:
         return (
