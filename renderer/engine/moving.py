@@ -33,7 +33,7 @@ spectrum in a table, computed once:
 * a direction *in motion* is resolved to the nearest point of a fixed grid on the sphere
   (rings every :data:`GRID_STEP_DEG` degrees of elevation, points every
   :data:`GRID_STEP_DEG` degrees of arc along each ring), whose pairs are computed the
-  first time a source passes. The snap moves a direction by at most about 1.4 degrees
+  first time a source passes. The snap moves a direction by at most about 1.5 degrees
   at the default step, below the smallest change in direction listeners hear (about one
   degree in front, more elsewhere: J. Blauert, *Spatial Hearing*, 1997, section 2.1),
   and each step between neighbouring grid pairs is crossfaded like any other update.
