@@ -60,7 +60,7 @@ import scipy.fft
 from numpy.typing import ArrayLike, NDArray
 
 from ..errors import AudioError, HrirError, shown
-from .convolution import BinauralConvolver, FloatArray, RealArray
+from .convolution import BinauralConvolver, FloatArray, RealArray, TransformPlan
 
 __all__ = [
     "GRID_STEP_DEG",
@@ -89,6 +89,10 @@ BATCH_HOPS = 16
 #: Filter states worked out ahead at a time (about 0.64 s at 48 kHz): the paths read and
 #: the pairs computed in bulk, which costs far less per direction than a few at a time.
 LOOKAHEAD_HOPS = 64
+
+#: Partition bounds (frames) of the post filter's uniformly partitioned convolution.
+MIN_POST_PARTITION = 1024
+MAX_POST_PARTITION = 8192
 
 #: Directions to filter pairs: ``(n, 3)`` unit vectors to ``(n, 2, L)`` impulse responses.
 PairFunction = Callable[[NDArray[np.float64]], NDArray[Any]]
@@ -460,7 +464,13 @@ class MovingSourceEngine:
                 )
             bank = np.zeros((2, 2, post.shape[1]))
             bank[0, 0], bank[1, 1] = post[0], post[1]
-            self._post = BinauralConvolver(bank, dtype=self.dtype)
+            # Uniform partitions of a power of two (2048 for the KEMAR EQ at 48 kHz): the
+            # callers' blocks (8192) are whole hops. The cost model's choice for two
+            # channels, one hop of 62,000 frames, made every block a part-filled hop and
+            # cost 4.6 times as much (0.129 s against 0.028 s for 20 s, measured).
+            part = max(MIN_POST_PARTITION, 1 << (post.shape[1] - 1).bit_length())
+            plan = TransformPlan.uniform(min(part, MAX_POST_PARTITION))
+            self._post = BinauralConvolver(bank, dtype=self.dtype, plan=plan)
         self.post_length: int = 0 if self._post is None else self._post.filter_length
         self.reset()
 

@@ -115,8 +115,8 @@ def test_interaural_differences_follow_a_source_moving_left_to_right(kemar_eq):
     # snap adds at most 1.5 degrees, and the ITD of a head changes by at most about
     # 9 us per degree in front (2a/c per radian for a = 8.75 cm, Woodworth's formula):
     # 5.5 degrees = 50 us, plus the estimator's spread on 50 ms of noise -> 60 us (35 us
-    # measured). The
-    # ILD changes by at most about 0.5 dB per degree near the side: 3 dB (0.9 measured).
+    # measured). The ILD changes by at most about 0.5 dB per degree near the side: 3 dB
+    # (0.9 measured).
     seconds, window = 3.0, int(0.05 * RATE)
     frames = int(seconds * RATE)
     # Two breakpoints 180 degrees apart are refused (no unique way): go through the front.
