@@ -147,7 +147,7 @@ class SourcePath:
             )
         g = np.ones(len(f)) if gains is None else np.asarray(gains, dtype=np.float64).reshape(-1)
         if g.shape != f.shape:
-            raise AudioError(f"{len(f)} breakpoints but gains of shape {np.shape(gains)!r}")
+            raise AudioError(f"{len(f)} breakpoints but gains of shape {g.shape!r}")
         if not (np.all(np.isfinite(f)) and np.all(np.isfinite(v)) and np.all(np.isfinite(g))):
             raise AudioError("source path breakpoints must be finite numbers")
         if np.any(np.diff(f) < 0):
@@ -338,17 +338,21 @@ class PairTable:
         resting = np.array(resting, dtype=bool)
         rows = np.empty(len(vectors), dtype=np.int64)
         todo: list[NDArray[np.float64]] = []
-        for i in np.flatnonzero(resting):
-            key = vectors[i].tobytes()
-            row = self._exact_row.get(key)
-            if row is None and len(self._exact_row) >= MAX_EXACT_PAIRS:
-                resting[i] = False  # the table is full: snap like a moving direction
-                continue
-            if row is None:
-                row = self._rows + len(todo)
-                self._exact_row[key] = row
-                todo.append(vectors[i])
-            rows[i] = row
+        at = np.flatnonzero(resting)
+        if len(at):
+            # A resting direction repeats state after state: look each one up once.
+            unique, inverse = np.unique(vectors[at], axis=0, return_inverse=True)
+            found = np.empty(len(unique), dtype=np.int64)
+            for u, vector in enumerate(unique):
+                key = vector.tobytes()
+                row = self._exact_row.get(key)
+                if row is None and len(self._exact_row) < MAX_EXACT_PAIRS:
+                    row = self._rows + len(todo)
+                    self._exact_row[key] = row
+                    todo.append(vector)
+                found[u] = -1 if row is None else row
+            rows[at] = found[inverse.reshape(-1)]
+            resting[at[rows[at] < 0]] = False  # the table is full: snap like a moving one
         moving = np.flatnonzero(~resting)
         if len(moving):
             cells = self._grid.nearest(vectors[moving])
@@ -589,14 +593,18 @@ class MovingSourceEngine:
         if first < self._ahead_first or end > held_end:
             span = max(count + 1, LOOKAHEAD_HOPS)
             frames = (first - 1 + np.arange(span + 2)) * float(self.hop)
-            rows = np.empty((span, self.sources), dtype=np.int64)
+            vectors = np.empty((self.sources, span, 3))
+            resting = np.empty((self.sources, span), dtype=bool)
             gains = np.empty((span, self.sources))
             for k, path in enumerate(self.paths):
                 v, g = path.at(frames)
                 same = np.all(v[1:] == v[:-1], axis=1)  # state i + 1 equals state i
-                resting = same[:-1] | same[1:]  # states first .. first + span - 1
-                rows[:, k] = self.table.rows_for(v[1:-1], resting)
+                resting[k] = same[:-1] | same[1:]  # states first .. first + span - 1
+                vectors[k] = v[1:-1]
                 gains[:, k] = g[1:-1]
-            self._ahead_first, self._ahead_rows, self._ahead_gains = first, rows, gains
+            # All sources' new pairs in one call: the pair function works in bulk.
+            rows = self.table.rows_for(vectors.reshape(-1, 3), resting.reshape(-1))
+            self._ahead_first, self._ahead_gains = first, gains
+            self._ahead_rows = np.ascontiguousarray(rows.reshape(self.sources, span).T)
         lo = first - self._ahead_first
         return self._ahead_rows[lo : lo + count + 1], self._ahead_gains[lo : lo + count + 1]

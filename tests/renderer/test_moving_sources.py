@@ -98,7 +98,10 @@ def test_resting_sources_with_gains_sum_as_fixed_pairs_in_float64(kemar_eq):
     x = _noise(20000, 3, seed=1)
     paths = [SourcePath.fixed(d, g) for d, g in zip(directions, gains)]
     y = _render(moving_source_engine(kemar_eq, paths, gain=0.7, dtype=np.float64), x)
-    ref = sum(0.7 * g * _fixed(x[:, k], kemar_eq.pair(d).ir) for k, (d, g) in enumerate(zip(directions, gains)))
+    ref = sum(
+        0.7 * g * _fixed(x[:, k], kemar_eq.pair(d).ir)
+        for k, (d, g) in enumerate(zip(directions, gains))
+    )
     assert y.dtype == np.float64
     assert np.abs(y - ref).max() <= 1e-9 * np.abs(ref).max()
 
@@ -226,7 +229,9 @@ def test_a_gain_change_is_applied_smoothly(kemar):
 
 def test_blocks_of_any_size_give_the_same_render(kemar_eq):
     frames = 24000
-    path = SourcePath([0, frames], direction_to_vector(np.array([10.0, 100.0]), np.array([0.0, 20.0])))
+    path = SourcePath(
+        [0, frames], direction_to_vector(np.array([10.0, 100.0]), np.array([0.0, 20.0]))
+    )
     x = _noise(frames, seed=5)
     whole = _render(moving_source_engine(kemar_eq, [path]), x, blocks=(frames,))
     for blocks in [(1, 2, 3, 500), (480,), (479, 4801)]:

@@ -83,7 +83,9 @@ def test_between_two_horizontal_loudspeakers_the_tangent_law_holds():
     g = panner.gains(direction_to_vector(phi, np.zeros_like(phi)))
     assert np.all(g[:, 2:] < 1e-12)
     ratio = (g[:, 0] - g[:, 1]) / (g[:, 0] + g[:, 1])
-    np.testing.assert_allclose(ratio, np.tan(np.radians(phi)) / np.tan(np.radians(30.0)), atol=1e-12)
+    np.testing.assert_allclose(
+        ratio, np.tan(np.radians(phi)) / np.tan(np.radians(30.0)), atol=1e-12
+    )
 
 
 def _great_circle(start: np.ndarray, through: np.ndarray, steps: int) -> np.ndarray:
