@@ -298,10 +298,8 @@ class HrirSet:
             return out
         # A grid with a hull always has its facets' checks and inverses.
         assert grid.facet_ok is not None and grid.inverse is not None
-        eq = grid.hull.equations
-        dr = d[rest]
-        facet = np.argmax((dr @ eq[:, :3].T) / -eq[:, 3], axis=1)
-        w = np.clip(np.einsum("nij,nj->ni", grid.inverse[facet], dr), 0.0, None)
+        facet, w = _facet_weights(d[rest], grid)
+        w = np.clip(w, 0.0, None)
         total = w.sum(axis=1)
         ok = grid.facet_ok[facet] & (total > 0)
         rows, facet, w = rest[ok], facet[ok], w[ok] / total[ok, None]
@@ -435,15 +433,12 @@ class HrirSet:
         if grid.hull is not None:
             # A grid with a hull always has its facets' checks and inverses.
             assert grid.facet_ok is not None and grid.inverse is not None
-            eq = grid.hull.equations  # outward normals n and offsets b: n.x + b = 0, b < 0
-            # The ray from the centre along d leaves the hull through the facet with the
-            # largest n.d / -b (the first plane it crosses).
-            facet = int(np.argmax((eq[:, :3] @ d) / -eq[:, 3]))
+            facets, weights = _facet_weights(d[None, :], grid)
+            facet = int(facets[0])
             if not grid.facet_ok[facet]:
                 return None
             verts = grid.hull.simplices[facet]
-            w = grid.inverse[facet] @ d
-            w = np.clip(w, 0.0, None)
+            w = np.clip(weights[0], 0.0, None)
             total = w.sum()
             if total <= 0:
                 return None
@@ -451,6 +446,35 @@ class HrirSet:
         if grid.ring_order is not None:
             return _ring_weights(d, self.directions, grid)
         return None
+
+
+#: Facets looked at per direction: the one the ray meets first and any sharing its plane.
+_COPLANAR_CANDIDATES = 8
+
+
+def _facet_weights(d: np.ndarray, grid: _Grid) -> tuple[np.ndarray, np.ndarray]:
+    """The hull facet holding each direction and its barycentric weights (unclipped).
+
+    The ray from the centre along ``d`` leaves the hull through the facet with the
+    largest ``n.d / -b`` (outward normal ``n``, offset ``b < 0``: the first plane it
+    crosses). Measurement grids have many four-point faces (two rings with the same
+    azimuths make trapezoids) that the hull splits into two triangles on one plane; the
+    ray meets both planes at once, and only one of the two holds the direction, the one
+    whose weights are all non-negative. Of the facets on the first plane the one whose
+    smallest weight is largest is taken.
+    """
+    assert grid.hull is not None and grid.inverse is not None
+    eq = grid.hull.equations
+    scores = (d @ eq[:, :3].T) / -eq[:, 3]  # (n, F)
+    k = min(_COPLANAR_CANDIDATES, scores.shape[1])
+    candidates = np.argpartition(-scores, k - 1, axis=1)[:, :k]
+    best = np.take_along_axis(scores, candidates, axis=1)
+    weights = np.einsum("nkij,nj->nki", grid.inverse[candidates], d)
+    on_plane = best >= best.max(axis=1, keepdims=True) - 1e-9
+    merit = np.where(on_plane, weights.min(axis=2), -np.inf)
+    pick = np.argmax(merit, axis=1)
+    rows = np.arange(len(d))
+    return candidates[rows, pick], weights[rows, pick]
 
 
 def _build_grid(directions: np.ndarray, name: str) -> _Grid:
