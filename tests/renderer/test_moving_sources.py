@@ -258,6 +258,31 @@ def test_memory_does_not_grow_with_the_stream(kemar):
     assert table.rows <= table.grid_points
 
 
+def test_a_table_loaded_from_grid_pairs_renders_alike_without_computing_them(kemar):
+    # What a cache would do: one table computes every grid pair, another (a later process)
+    # takes them and never calls its pair function for a moving source.
+    first = PairTable(kemar.pairs, RATE, grid_step_deg=10.0)
+    stored = first.grid_pairs()
+    assert stored.shape == (first.grid_points, 2, kemar.taps) and stored.dtype == np.float32
+    calls = []
+
+    def counted(vectors):
+        calls.append(len(vectors))
+        return kemar.pairs(vectors)
+
+    second = PairTable(counted, RATE, grid_step_deg=10.0)
+    assert second.load_grid_pairs(stored)
+    assert not second.load_grid_pairs(stored[:-1])  # a grid of another size is refused
+    calls.clear()
+    frames = 24000
+    path = SourcePath([0, frames], direction_to_vector(np.array([0.0, 120.0]), np.zeros(2)))
+    x = _noise(frames, seed=8)
+    y = _render(MovingSourceEngine([path], second), x)
+    assert sum(calls) == 2  # only the two ends, where the path holds: exact pairs
+    ref = _render(MovingSourceEngine([path], first), x)
+    assert np.abs(y - ref).max() <= 1e-6 * np.abs(ref).max()
+
+
 def test_the_grid_snaps_by_less_than_a_step():
     table = PairTable(lambda v: np.zeros((len(v), 2, 4)), RATE)
     grid = table._grid
