@@ -1,5 +1,5 @@
 """The streaming convolution engine, the LFE path, the render's engine with its shared tail,
-and the moving-source engine (time-varying filters, crossfaded)."""
+the moving-source engine (time-varying filters, crossfaded) and the panning mixer."""
 
 from __future__ import annotations
 
@@ -28,6 +28,7 @@ from .moving import (
     PairTable,
     SourcePath,
 )
+from .panning import GainFunction, PanningMixer
 from .scheduler import TAIL_BLOCK_FRAMES, FoldEngine
 
 __all__ = [
@@ -39,12 +40,14 @@ __all__ = [
     "MAX_BLOCK_SIZE",
     "MIN_BLOCK_SIZE",
     "FoldEngine",
+    "GainFunction",
     "GRID_STEP_DEG",
     "MAX_EXACT_PAIRS",
     "MAX_UPDATE_SECONDS",
     "MovingSourceEngine",
     "PairFunction",
     "PairTable",
+    "PanningMixer",
     "SourcePath",
     "LfeOptions",
     "TAIL_BLOCK_FRAMES",

@@ -48,6 +48,9 @@ MIN_SEPARATION_DEG = 0.01
 #: Most loudspeaker directions a panner takes (a dense virtual array has a few hundred).
 MAX_POINTS = 4096
 
+#: Gains (of a triangle's, before scaling) at or below this are zeros.
+_ZERO_GAIN = 1e-12
+
 #: Triangles looked at per direction: the facet hit first and any sharing its plane.
 _COPLANAR_CANDIDATES = 8
 
@@ -171,7 +174,9 @@ class VbapPanner:
             raise LayoutError(f"source direction {bad} is zero or not finite: {shown(d[bad])}")
         p = d / norms[:, None]
         facet, g = self._active(p)
-        g = np.clip(g, 0.0, None)  # rounding on an edge: a tiny negative is a zero
+        # Rounding on an edge or a vertex leaves gains of some 1e-17 either side of 0:
+        # zeros, so that a source on a loudspeaker feeds that loudspeaker alone.
+        g = np.where(g > _ZERO_GAIN, g, 0.0)
         full = np.zeros((len(p), self.loudspeakers + len(self.virtual)))
         np.put_along_axis(full, self.triangles[facet], g, axis=1)
         out: NDArray[np.float64] = full @ self._share
