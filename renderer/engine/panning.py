@@ -26,7 +26,7 @@ from numpy.typing import NDArray
 
 from ..errors import AudioError, LayoutError
 from .convolution import FloatArray, RealArray
-from .moving import MAX_UPDATE_SECONDS, SourcePath
+from .moving import LOOKAHEAD_HOPS, MAX_UPDATE_SECONDS, SourcePath
 
 __all__ = ["GainFunction", "PanningMixer"]
 
@@ -96,12 +96,14 @@ class PanningMixer:
         self.dtype: np.dtype[Any] = real
         self._gains = gains
         self.channels: int = int(self._checked(np.array([[1.0, 0.0, 0.0]])).shape[1])
-        self._ramp = 0.5 - 0.5 * np.cos(np.pi * np.arange(self.hop) / self.hop)
-        self._frame = 0
+        self._ramp = (0.5 - 0.5 * np.cos(np.pi * np.arange(self.hop) / self.hop)).astype(real)
+        self.reset()
 
     def reset(self) -> None:
         """Start again at frame 0."""
         self._frame = 0
+        self._ahead_first = 0
+        self._ahead = np.zeros((0, self.sources, self.channels), dtype=self.dtype)
 
     def process(self, block: RealArray) -> FloatArray:
         """Mix the next frames: input ``(n, K)``, output ``(n, M)`` aligned with it."""
@@ -112,28 +114,45 @@ class PanningMixer:
                 f"{x.dtype.name} of shape {x.shape!r}"
             )
         n, s = x.shape[0], self.hop
-        out = np.zeros((n, self.channels), dtype=self.dtype)
         if n == 0:
-            return out
-        t = self._frame + np.arange(n)
+            return np.zeros((0, self.channels), dtype=self.dtype)
+        # The block laid out in whole hops (zeros before its first frame and after its
+        # last), so that each hop is two products with the gains of the states around it:
+        # y = x G_j + (ramp x) (G_j+1 - G_j), for all sources and channels at once.
+        lead = self._frame % s
+        hops = -(-(lead + n) // s)
         first = self._frame // s
-        states = (t[-1] // s) - first + 2  # the states around every frame of the block
-        frames = (first + np.arange(states)) * float(s)
-        hop_of = t // s - first
-        ramp = self._ramp[t % s]
-        for k, path in enumerate(self.paths):
-            vectors, path_gain = path.at(frames)
-            g = self._checked(vectors) * path_gain[:, None]  # (states, M)
-            active = np.flatnonzero(np.any(g != 0, axis=0))
-            if not len(active):
-                continue
-            g = g[:, active]
-            now = g[hop_of]
-            moving = np.any(g[1:] != g[:-1])
-            per_frame = now + ramp[:, None] * (g[hop_of + 1] - now) if moving else now
-            out[:, active] += (x[:, k, None] * per_frame).astype(self.dtype, copy=False)
+        g = self._states(first, hops + 1)
+        padded = np.zeros((hops * s, self.sources), dtype=self.dtype)
+        padded[lead : lead + n] = x
+        xh = padded.reshape(hops, s, self.sources)
+        out = np.matmul(xh, g[:-1])
+        change = g[1:] - g[:-1]
+        if np.any(change):
+            out += np.matmul(xh * self._ramp[None, :, None], change)
         self._frame += n
-        return out
+        mixed: FloatArray = out.reshape(hops * s, self.channels)[lead : lead + n]
+        return mixed
+
+    def _states(self, first: int, count: int) -> NDArray[Any]:
+        """Gains ``(count, K, M)`` of states ``first ..``, worked out
+        :data:`LOOKAHEAD_HOPS` at a time (paths read and gains computed in bulk)."""
+        held = self._ahead_first + len(self._ahead)
+        if first < self._ahead_first or first + count > held:
+            span = max(count, LOOKAHEAD_HOPS)
+            frames = (first + np.arange(span)) * float(self.hop)
+            vectors = np.empty((self.sources, span, 3))
+            path_gains = np.empty((self.sources, span))
+            for k, path in enumerate(self.paths):
+                vectors[k], path_gains[k] = path.at(frames)
+            # One call of the gain function for every source and state.
+            g = self._checked(vectors.reshape(-1, 3)).reshape(self.sources, span, -1)
+            g = g * path_gains[:, :, None]
+            self._ahead = np.ascontiguousarray(g.transpose(1, 0, 2), dtype=self.dtype)
+            self._ahead_first = first
+        lo = first - self._ahead_first
+        states: NDArray[Any] = self._ahead[lo : lo + count]
+        return states
 
     def _checked(self, vectors: NDArray[np.float64]) -> NDArray[Any]:
         g = np.asarray(self._gains(vectors))
