@@ -23,9 +23,9 @@ directions. It keeps the block structure of the fixed-filter engine:
   the output of state ``j`` is scaled by the path's gain at frame ``j S``, so a gain
   changes as smoothly as a direction.
 
-Where filter pairs come from. The engine takes a function from directions to pairs
-(``pairs(vectors) -> (n, 2, L)``, e.g. an HRIR set's bulk lookup) and keeps each pair's
-spectrum in a table, computed once:
+Where filter pairs come from. A :class:`PairTable` takes a function from directions to
+pairs (``pairs(vectors) -> (n, 2, L)``, e.g. an HRIR set's bulk lookup) and keeps each
+pair's spectrum, computed once (one table serves any number of engines):
 
 * a direction a source *rests* at (the same at an update as at the one before or after:
   a static source, or an object between movements) gets its own exact pair, so a static
@@ -34,13 +34,17 @@ spectrum in a table, computed once:
   (rings every :data:`GRID_STEP_DEG` degrees of elevation, points every
   :data:`GRID_STEP_DEG` degrees of arc along each ring), whose pairs are computed the
   first time a source passes. The snap moves a direction by at most about 1.5 degrees
-  at the default step, below the smallest change in direction listeners hear (about one
-  degree in front, more elsewhere: J. Blauert, *Spatial Hearing*, 1997, section 2.1),
-  and each step between neighbouring grid pairs is crossfaded like any other update.
+  at the default step, within a listener's localisation blur (about 1 to 4 degrees in
+  front, more to the sides: J. Blauert, *Spatial Hearing*, 1997, section 2.1; values
+  from memory), and each step between neighbouring grid pairs is crossfaded like any
+  other update.
 
 An optional post filter (``post_filter``), common to every source, is applied once to
 the two ears' sum: an equalisation shared by all directions (the diffuse-field inverse)
-so costs one two-channel convolution instead of lengthening every pair.
+so costs one two-channel convolution instead of lengthening every pair. For a resting
+source this equals filtering its pair; while filters or gains change, the equalisation
+follows the change instead of preceding it (a time-varying filter does not commute with
+a fixed one), which smooths it a little more.
 
 Memory is bounded: the engine holds its input window, one batch of hops and the table,
 whose grid part has at most :attr:`PairTable.grid_points` entries and whose
