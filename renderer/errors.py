@@ -12,6 +12,7 @@ from __future__ import annotations
 
 __all__ = [
     "shown",
+    "AdmError",
     "AudioError",
     "DeliveryError",
     "EqualisationError",
@@ -53,6 +54,10 @@ class RoomError(RendererError, ValueError):
 
 class SceneError(RendererError, ValueError):
     """An Ambisonic scene cannot be decoded as asked (order, channels, normalisation)."""
+
+
+class AdmError(RendererError, ValueError):
+    """An ADM broadcast WAV (BS.2076 ``axml``, BS.2088 ``chna``) cannot be read as a master."""
 
 
 class EqualisationError(RendererError, ValueError):

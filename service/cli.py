@@ -20,6 +20,7 @@ from typing import Any
 import earfold.renderer
 from earfold.renderer import RenderCancelled, RendererError
 
+from .cli_adm import add_adm_parser
 from .cli_cache import add_cache_parser
 from .cli_commands import add_demo_parser, add_listing_parsers
 from .cli_output import EXIT_BAD_INPUT, EXIT_INTERRUPTED
@@ -285,6 +286,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_listing_parsers(sub)
     add_cache_parser(sub)
+    add_adm_parser(sub)
 
     # serve and worker import the web and queue stack only when they run
     from .serve_cli import add_serve_parser

@@ -30,6 +30,7 @@ WINGS: dict[str, set[str]] = {
     "loudness": {"io", "layouts"},
     "room": {"hrtf", "layouts"},
     "scenes": {"hrtf", "layouts", "room"},
+    "objects": {"io", "layouts", "scenes"},
     "eq": {"hrtf", "engine", "io", "loudness"},
     "render": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "scenes"},
     "tools": {"io", "layouts", "hrtf", "engine", "loudness", "room", "eq", "scenes", "render"},

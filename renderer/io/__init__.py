@@ -25,6 +25,7 @@ from .audio import (
     subtype_for,
     write_audio,
 )
+from .bw64 import Rf64View, audio_source
 from .wav_header import WAVE_FORMAT_EXTENSIBLE, read_channel_mask
 
 __all__ = [
@@ -35,10 +36,12 @@ __all__ = [
     "ChannelLevels",
     "NonFiniteSample",
     "OutputWriter",
+    "Rf64View",
     "StemInfo",
     "StemLevels",
     "StemReader",
     "audio_formats",
+    "audio_source",
     "measure_levels",
     "probe_stem",
     "read_audio",

@@ -23,7 +23,14 @@ from ._files import (
 from ._labels import canonical_label, filename_label, labels_from_filenames
 from ._model import Layout, Speaker
 from ._order import ORDER_NAMES, order_labels, order_name, resolve_channel_order
-from ._scene import SCENE_NORMALISATIONS, SCENE_SOURCE, SCENES, SceneLayout, scene_layout
+from ._scene import (
+    SCENE_NORMALISATIONS,
+    SCENE_SOURCE,
+    SCENES,
+    SceneLayout,
+    scene_layout,
+    stem_scene,
+)
 from ._vbap import POLE_GAP_DEG, VbapPanner
 
 __all__ = [
@@ -54,5 +61,6 @@ __all__ = [
     "order_name",
     "resolve_channel_order",
     "scene_layout",
+    "stem_scene",
     "suggest_layout",
 ]

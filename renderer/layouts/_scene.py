@@ -35,6 +35,7 @@ __all__ = [
     "SCENE_SOURCE",
     "SceneLayout",
     "scene_layout",
+    "stem_scene",
 ]
 
 #: Where the scene convention comes from, as listings and reports say.
@@ -176,3 +177,43 @@ def _scene(order: int, normalisation: str) -> SceneLayout:
 
 #: The scenes by name, in SN3D: ``foa``, ``hoa2`` ... ``hoa7``.
 SCENES: dict[str, SceneLayout] = {_name(n): _scene(n, "sn3d") for n in _ORDERS}
+
+
+def stem_scene(scene: SceneLayout, channels: int) -> SceneLayout:
+    """The scene a stem of ``channels`` channels holds when it is rendered as ``scene``.
+
+    The stem's own order when it is ``scene``'s or higher: a higher-order stem rendered
+    at a lower order keeps its first ``(order + 1)^2`` ACN channels and leaves the rest out
+    (truncation of the order, common practice; how orders are compared on one master).
+    FuMa is first order only.
+
+    Raises
+    ------
+    LayoutError
+        For a channel count that is not a full-sphere scene's of ``scene``'s order or
+        higher, naming the counts that fit.
+
+    Examples
+    --------
+    >>> stem_scene(scene_layout("hoa2"), 16).name, stem_scene(scene_layout("hoa2"), 9).name
+    ('hoa3', 'hoa2')
+    """
+    root = int(round(float(channels) ** 0.5)) if channels > 0 else 0
+    square = root * root == channels and 2 <= root <= max(_ORDERS) + 1
+    if square and root - 1 >= scene.order and (scene.normalisation != "fuma" or root == 2):
+        return scene if root - 1 == scene.order else _scene(root - 1, scene.normalisation)
+    if square and scene.normalisation == "fuma":
+        hint = "; FuMa is read for first order only (4 channels, W X Y Z)"
+    elif square:
+        hint = (
+            f"; {channels} channels is an order-{root - 1} scene: choose layout "
+            f"{'foa' if root == 2 else f'hoa{root - 1}'} or a lower order"
+        )
+    else:
+        hint = "; a full-sphere scene of order N has (N + 1)^2 channels: 4, 9, 16, 25, 36, 49 or 64"
+    raise LayoutError(
+        f"the stem has {channels} channel(s) but layout {scene.name!r} is an order-"
+        f"{scene.order} Ambisonic scene of {scene.channels} channels ((order + 1)^2, "
+        f"{'W X Y Z' if scene.normalisation == 'fuma' else 'ACN order'}; a stem of a "
+        f"higher order is decoded at this order){hint}"
+    )

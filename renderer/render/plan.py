@@ -43,6 +43,7 @@ from ..layouts import (
     order_name,
     resolve_channel_order,
     scene_layout,
+    stem_scene,
     suggest_layout,
 )
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
@@ -491,23 +492,6 @@ def _refuse_scene_options(layout: Layout, settings: RenderSettings) -> None:
         )
 
 
-def _scene_channels_error(scene: SceneLayout, channels: int) -> LayoutError:
-    """The error for a stem whose channel count is not the scene's."""
-    root = int(np.sqrt(channels))
-    fits = root * root == channels and 2 <= root <= 8
-    hint = (
-        f"; {channels} channels is an order-{root - 1} scene: choose layout "
-        f"{'foa' if root == 2 else f'hoa{root - 1}'}"
-        if fits
-        else "; a full-sphere scene of order N has (N + 1)^2 channels: 4, 9, 16, 25, 36, 49 or 64"
-    )
-    return LayoutError(
-        f"the stem has {channels} channel(s) but layout {scene.name!r} is an order-"
-        f"{scene.order} Ambisonic scene of {scene.channels} channels ((order + 1)^2, "
-        f"{'W X Y Z' if scene.normalisation == 'fuma' else 'ACN order'}){hint}"
-    )
-
-
 def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -> RenderPlan:
     """The plan of an Ambisonic scene: the decoder's filters as the bank (see
     :mod:`.scene_feeds` for the decoder, the room and the calibration).
@@ -534,9 +518,15 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
         raise RendererError(
             f"unknown fold {settings.fold!r}; choose one of {', '.join(FOLD_CHOICES)}"
         )
-    scene = scene_layout(layout.name, settings.ambisonic_norm or layout.normalisation)
-    if stem.channels != scene.channels:
-        raise _scene_channels_error(scene, stem.channels)
+    asked = scene_layout(layout.name, settings.ambisonic_norm or layout.normalisation)
+    # The stem's own scene: the one asked for, or one of a higher order decoded at the
+    # order asked for (its higher channels left out).
+    scene = stem_scene(asked, stem.channels)
+    if scene.order > asked.order:
+        notes.append(
+            f"an order-{scene.order} scene decoded at order {asked.order} ({asked.name}): its "
+            f"ACN channels {asked.channels} to {scene.channels - 1} are left out"
+        )
     order = tuple(range(scene.channels))
     order_source = (
         "FuMa channel order (W X Y Z)"
@@ -569,7 +559,8 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
         bank_key = {
             **_bank_key(set_key, scene, order, requested_room, settings),
             "scene": {
-                "order": scene.order,
+                "order": asked.order,
+                "stem_order": scene.order,
                 "normalisation": scene.normalisation,
                 "decoder": settings.ambisonic_decoder,
                 "rotation": None if settings.rotate is None else list(settings.rotate),
@@ -607,7 +598,7 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
             "requested": requested_room.name,
         }
     elif requested_room is not None:
-        virtual = virtual_room_layout(scene.order, requested_room)
+        virtual = virtual_room_layout(asked.order, requested_room)
         room_filters, prepared = _prepared_room(
             hset, virtual, requested_room, stem.samplerate, settings.seed, set_key, cache
         )
@@ -632,6 +623,7 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
         stem.samplerate,
         method=settings.ambisonic_decoder,
         rotation=settings.rotate,
+        order=asked.order,
         room=room_filters,
         exact=settings.room_mode == "exact",
     )

@@ -228,6 +228,7 @@ def scene_bank(
     *,
     method: str | None = None,
     rotation: tuple[float, float, float] | None = None,
+    order: int | None = None,
     room: RoomFilters | None = None,
     exact: bool = False,
 ) -> SceneBank:
@@ -244,13 +245,20 @@ def scene_bank(
         The decoder; None: :func:`~earfold.renderer.scenes.default_method` of the order.
     rotation : (yaw, pitch, roll), optional
         Degrees (:func:`~earfold.renderer.scenes.rotation_matrix`); None: none.
+    order : int, optional
+        The order decoded, at most the scene's (default: the scene's): the channels of
+        the higher orders get no filters (truncation; a rotation keeps every order apart,
+        so it commutes with it).
     room : RoomFilters, optional
         The room's filters for :func:`virtual_room_layout` of the scene's order; None
         renders free field.
     exact : bool
         Fold each virtual loudspeaker's whole room response (no shared tail).
     """
-    order = scene.order
+    order = scene.order if order is None else int(order)
+    if not 1 <= order <= scene.order:
+        raise ValueError(f"cannot decode an order-{scene.order} scene at order {order}")
+    decoded = (order + 1) ** 2
     asked = method
     chosen = method if method is not None else default_method(order)
     warnings: list[str] = []
@@ -292,8 +300,12 @@ def scene_bank(
             + (" (whole responses: exact mode)" if exact else "; shared tail fed by W")
         )
     gain = scene_calibration_gain(sn3d, order, samplerate, tail, sn3d_tail_weights, tail_offset)
-    filters = fold_matrix(sn3d, matrix)
-    tail_weights = None if sn3d_tail_weights is None else matrix.T @ sn3d_tail_weights
+    filters = np.zeros((scene.channels, *sn3d.shape[1:]))
+    filters[:decoded] = fold_matrix(sn3d, matrix)
+    tail_weights = None
+    if sn3d_tail_weights is not None:
+        tail_weights = np.zeros(scene.channels)
+        tail_weights[:decoded] = matrix.T @ sn3d_tail_weights
     feeds = tuple(
         ChannelFeed(
             label=label,
@@ -306,7 +318,9 @@ def scene_bank(
     )
     section: dict[str, Any] = {
         "order": order,
+        "stem_order": scene.order,
         "channels": scene.channels,
+        "channels_decoded": decoded,
         "normalisation": scene.normalisation,
         "channel_order": "FuMa (W X Y Z)" if scene.normalisation == "fuma" else "ACN",
         "decoder": decoder.description,

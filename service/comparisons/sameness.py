@@ -10,6 +10,10 @@ make a difference to this render:
 * ``room_mode`` only matters with a room, and so does ``seed``: a comparison renders
   32-bit float files, which are not dithered, so the seed only draws the room's tail;
 * ``lfe_cutoff`` and ``lfe_gain`` only matter for a layout with an LFE channel;
+* an Ambisonic scene (layout ``foa``, ``hoa2`` ... ``hoa7``) resolves its own options:
+  ``ambisonic_norm`` left out is SN3D, ``ambisonic_decoder`` left out is the order's
+  default (virtual at first order, MagLS above), and a rotation is compared by its
+  three angles (``"30"``, ``[30]`` and ``[30, 0, 0]`` are one rotation; all zero is none);
 * ``fold`` ``stereo`` (the ITU-R BS.775 fold-down) uses no HRTF set, equalisation or
   room and leaves the LFE out, so those options do not matter to it.
 
@@ -23,7 +27,8 @@ import json
 from collections.abc import Sequence
 from typing import Any
 
-from earfold.renderer.render import SOUND_OPTIONS
+from earfold.renderer.layouts import SCENES
+from earfold.renderer.render import SOUND_OPTIONS, option
 
 __all__ = ["identical_pair", "sound_key"]
 
@@ -40,6 +45,9 @@ def sound_key(options: dict[str, Any], hrtf_id: str | None, lfe_in_layout: bool)
     }
     if hrtf_id:
         key["hrtf"] = {"uploaded": hrtf_id}
+    layout = key.get("layout")
+    if isinstance(layout, str) and layout.strip().lower() in SCENES:
+        _resolve_scene(key, SCENES[layout.strip().lower()].order)
     if key.get("fold") == "stereo":
         for name in ("hrtf", "eq", "room", "lfe_cutoff", "lfe_gain"):
             key.pop(name, None)
@@ -51,6 +59,16 @@ def sound_key(options: dict[str, Any], hrtf_id: str | None, lfe_in_layout: bool)
         key.pop("lfe_cutoff", None)
         key.pop("lfe_gain", None)
     return json.dumps(key, sort_keys=True, separators=(",", ":"))
+
+
+def _resolve_scene(key: dict[str, Any], order: int) -> None:
+    """A scene's options as the render resolves them (see the module docstring)."""
+    from earfold.renderer.scenes import default_method
+
+    key["ambisonic_norm"] = key.get("ambisonic_norm") or "sn3d"
+    key["ambisonic_decoder"] = key.get("ambisonic_decoder") or default_method(order)
+    angles = option("rotate").check(key.get("rotate"))  # the route has checked it
+    key["rotate"] = None if angles is None or not any(angles) else list(angles)
 
 
 def identical_pair(keys: Sequence[str]) -> tuple[int, int] | None:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from earfold.renderer.layouts import SCENES
 from earfold.renderer.render import RENDER_OPTIONS
 
 __all__ = ["variant_settings", "variant_summary"]
@@ -19,6 +20,26 @@ _SPECS = {s.name: s for s in RENDER_OPTIONS}
 
 #: Options shown by their value alone (the value says what it is).
 _BARE = ("layout",)
+
+#: Ambisonic decoders and normalisations in words.
+_DECODERS = {"magls": "MagLS decoder", "virtual": "virtual-loudspeaker decoder"}
+_NORMS = {"sn3d": "SN3D input", "n3d": "N3D input", "fuma": "FuMa input"}
+
+
+def _rotation(value: Any) -> str:
+    """``rotated 30 deg`` (yaw alone) or ``rotated 30, 10, 0 deg (yaw, pitch, roll)``."""
+    from earfold.renderer.render import option
+
+    try:
+        angles = option("rotate").check(value)
+    except ValueError:
+        return f"rotate {value}"
+    if angles is None:
+        return "not rotated"
+    yaw, pitch, roll = angles
+    if pitch == 0 and roll == 0:
+        return f"rotated {_number(yaw)} deg"
+    return f"rotated {_number(yaw)}, {_number(pitch)}, {_number(roll)} deg (yaw, pitch, roll)"
 
 
 def variant_settings(request: dict[str, Any]) -> dict[str, Any]:
@@ -55,6 +76,14 @@ def _word(name: str, value: Any, uploads: dict[str, str]) -> str:
         return f"headphone EQ ({len(value)} band{'s' if len(value) != 1 else ''})"
     if name == "hrtf" and isinstance(value, str) and len(value) == 32:
         return f"HRTF set {uploads['hrtf']}" if "hrtf" in uploads else "HRTF set (uploaded)"
+    if name == "layout" and isinstance(value, str) and value.strip().lower() in SCENES:
+        return f"order {SCENES[value.strip().lower()].order} scene"
+    if name == "ambisonic_decoder":
+        return _DECODERS.get(value, f"decoder {value}")
+    if name == "ambisonic_norm":
+        return _NORMS.get(value, str(value))
+    if name == "rotate":
+        return _rotation(value)
     if name == "channel_order" and isinstance(value, list):
         return "channel order " + ",".join(map(str, value))
     if isinstance(value, (int, float)) and not isinstance(value, bool):
@@ -75,6 +104,8 @@ def variant_summary(request: dict[str, Any], uploads: dict[str, str] | None = No
     --------
     >>> variant_summary({"layout": "5.1", "room": "small", "lfe_gain": 4.0, "seed": 0})
     '5.1, room small, lfe_gain 4 dB'
+    >>> variant_summary({"layout": "hoa3", "ambisonic_decoder": "magls", "rotate": [30]})
+    'order 3 scene, MagLS decoder, rotated 30 deg'
     >>> variant_summary({"room": "none"})
     'defaults'
     """

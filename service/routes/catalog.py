@@ -73,17 +73,35 @@ def health(request: Request) -> dict:
 @router.get(
     "/layouts",
     tags=["catalog"],
-    summary="Loudspeaker layouts",
+    summary="Loudspeaker layouts, then Ambisonic scenes",
     responses=problem_responses(UNAUTHORIZED),
 )
 def layouts(owner: str = Depends(current_owner)) -> list[dict]:
-    """Every built-in layout: name, description, source, speakers (label, azimuth,
-    elevation, lfe, and ``spread`` for a channel on several loudspeakers) and ``orders``,
-    the named channel orders (``wav``, ``film``) as label lists, which ``channel_order``
-    accepts by name."""
-    from earfold.renderer.layouts import LAYOUTS
+    """Every built-in layout: name, ``kind`` (``loudspeakers``), description, source,
+    speakers (label, azimuth, elevation, lfe, and ``spread`` for a channel on several
+    loudspeakers) and ``orders``, the named channel orders (``wav``, ``film``) as label
+    lists, which ``channel_order`` accepts by name.
 
-    return [layout.listing() for layout in LAYOUTS.values()]
+    Then the Ambisonic scenes (``kind`` ``scene``: ``foa``, ``hoa2`` ... ``hoa7``): order,
+    channels, ACN labels, the normalisations they take, no speakers, and ``directions``,
+    the [azimuth, elevation] pairs in degrees of the order's virtual loudspeakers (a
+    (2 order + 1)-design), to draw the scene's sphere."""
+    from earfold.renderer.layouts import LAYOUTS, SCENES
+
+    return [layout.listing() for layout in LAYOUTS.values()] + [
+        {**scene.listing(), "directions": scene_directions(scene.order)}
+        for scene in SCENES.values()
+    ]
+
+
+def scene_directions(order: int) -> list[list[float]]:
+    """[azimuth, elevation] in degrees (0.01 degree) of the virtual loudspeakers of an
+    order-``order`` scene (:func:`earfold.renderer.scenes.virtual_layout`)."""
+    from earfold.renderer.geometry import vector_to_direction
+    from earfold.renderer.scenes import virtual_layout
+
+    az, el = vector_to_direction(virtual_layout(order))
+    return [[round(float(a), 2), round(float(e), 2)] for a, e in zip(az, el)]
 
 
 def room_names() -> list[str]:

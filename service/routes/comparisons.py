@@ -22,7 +22,7 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Depends, Path, Query, Request, Response
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from earfold.renderer.layouts import LAYOUTS, layout_from_dict
+from earfold.renderer.layouts import LAYOUTS, SCENES, layout_from_dict
 
 from ..auth import current_owner
 from ..comparisons import session as sessions
@@ -321,6 +321,8 @@ def _has_lfe(layout: str | dict) -> bool:
     """True if the render job's layout (a catalogue name or a layout object) has an LFE."""
     if isinstance(layout, dict):
         return bool(layout_from_dict(layout, name="custom").lfe_indices)
+    if layout in SCENES:
+        return False  # a scene has no LFE channel
     return bool(LAYOUTS[layout].lfe_indices) if layout in LAYOUTS else True
 
 

@@ -19,7 +19,16 @@ from fastapi.responses import FileResponse
 from pydantic import Field
 
 from earfold.renderer.errors import LayoutError, OptionError
-from earfold.renderer.layouts import LAYOUTS, Layout, layout_from_dict, resolve_channel_order
+from earfold.renderer.layouts import (
+    LAYOUTS,
+    SCENES,
+    Layout,
+    SceneLayout,
+    layout_from_dict,
+    resolve_channel_order,
+    scene_layout,
+    stem_scene,
+)
 from earfold.renderer.render import option
 
 from ..auth import current_owner
@@ -44,6 +53,7 @@ from ..storage import Storage, new_id, valid_id
 from .catalog import room_names
 from .models import RenderView
 from .option_models import EqBand, http_options, options_model
+from .stems import scene_hint
 
 router = APIRouter(
     prefix="/v1/renders", tags=["renders"], responses=problem_responses(UNAUTHORIZED)
@@ -102,14 +112,21 @@ def queue_position(queue: Any, job: Job) -> int | None:
     return queue.queue_position(job.id) if job.state is JobState.QUEUED else None
 
 
+def _names() -> str:
+    """Every layout name a request may give: loudspeaker layouts, then scenes."""
+    return f"{', '.join(LAYOUTS)}, or an Ambisonic scene {', '.join(SCENES)}"
+
+
 def _layout(value: str | dict | None, stem: dict) -> Layout:
     if value is None:
         value = stem.get("suggested_layout")
         if value is None:
+            hint = scene_hint(stem["channels"])
+            maybe = f" (it may be Ambisonic scene {hint['layout']})" if hint else ""
             raise Problem(
                 UNPROCESSABLE,
                 f"the stem has {stem['channels']} channels and no layout "
-                f"is suggested for it; give 'layout' (one of {', '.join(LAYOUTS)}) "
+                f"is suggested for it{maybe}; give 'layout' (one of {_names()}) "
                 "or a layout object",
             )
     if isinstance(value, dict):
@@ -118,13 +135,60 @@ def _layout(value: str | dict | None, stem: dict) -> Layout:
         except LayoutError as exc:
             raise Problem(UNPROCESSABLE, str(exc)) from None
     # Names only: over HTTP a layout is never read from a server path.
-    for name, layout in LAYOUTS.items():
-        if name.lower() == value.strip().lower():
+    key = value.strip().lower()
+    for name, layout in (*LAYOUTS.items(), *SCENES.items()):
+        if name.lower() == key:
             return layout
     raise Problem(
         UNPROCESSABLE,
-        f"unknown layout {value!r}; choose one of {', '.join(LAYOUTS)} or send a layout object",
+        f"unknown layout {value!r}; choose one of {_names()} or send a layout object",
     )
+
+
+def _refuse(field: str, message: str) -> Problem:
+    return Problem(UNPROCESSABLE, message, errors=[{"field": field, "message": message}])
+
+
+def _scene_checks(req: Any, layout: Layout, stem: dict) -> None:
+    """422 naming the option for a scene option on loudspeakers, or a loudspeaker option
+    (channel order, stereo fold) or a channel count that does not fit on a scene; the
+    renderer's plan refuses the same (:mod:`earfold.renderer.render.plan`)."""
+    scene_opts = ("ambisonic_norm", "ambisonic_decoder", "rotate")
+    if not isinstance(layout, SceneLayout):
+        for name in scene_opts:
+            if getattr(req, name, None) is not None:
+                raise _refuse(
+                    name,
+                    f"{name} applies to Ambisonic scenes only (layout {', '.join(SCENES)}); "
+                    f"layout {layout.name!r} is loudspeakers: leave {name} out, or name "
+                    "the scene's layout",
+                )
+        return
+    try:
+        if getattr(req, "rotate", None) is not None:
+            option("rotate").check(req.rotate)
+    except OptionError as exc:
+        raise _refuse("rotate", str(exc)) from None
+    try:
+        scene = scene_layout(layout.name, req.ambisonic_norm or layout.normalisation)
+    except LayoutError as exc:
+        raise _refuse("ambisonic_norm", str(exc)) from None
+    if req.channel_order:
+        raise _refuse(
+            "channel_order",
+            f"channel_order does not apply to Ambisonic scene {scene.name!r}: its channels "
+            "are in ACN order (AmbiX), or W X Y Z with ambisonic_norm fuma; leave it out",
+        )
+    if getattr(req, "fold", None) == "stereo":
+        raise _refuse(
+            "fold",
+            f"fold stereo is the ITU-R BS.775 fold-down of loudspeaker channels; "
+            f"{scene.name!r} is an Ambisonic scene: render it binaurally",
+        )
+    try:  # the stem's own scene: this order, or a higher one decoded at this order
+        stem_scene(scene, stem["channels"])
+    except LayoutError as exc:
+        raise _refuse("layout", str(exc)) from None
 
 
 def room_object(value: dict, field: str) -> None:
@@ -204,7 +268,8 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
     checked against the stem's probe (422 problems otherwise). Also used by comparisons,
     whose variants are renders of one stem."""
     layout = _layout(req.layout, stem)
-    if layout.channels != stem["channels"]:
+    _scene_checks(req, layout, stem)
+    if not isinstance(layout, SceneLayout) and layout.channels != stem["channels"]:
         raise Problem(
             UNPROCESSABLE,
             f"the stem has {stem['channels']} channel(s) but layout "
@@ -212,7 +277,10 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
             "choose the layout the stem was mixed for",
         )
     try:
-        if req.channel_order:
+        if isinstance(layout, SceneLayout):
+            # its labels in the normalisation asked for (W X Y Z for FuMa)
+            layout = scene_layout(layout.name, req.ambisonic_norm or layout.normalisation)
+        elif req.channel_order:
             resolve_channel_order(layout, req.channel_order)
         elif stem.get("labels_source") == "file names" and stem.get("channel_labels"):
             resolve_channel_order(layout, stem["channel_labels"])

@@ -15,6 +15,7 @@ from earfold.renderer.errors import AudioError
 from earfold.renderer.io import measure_levels, probe_stem
 from earfold.renderer.layouts import (
     LAYOUTS,
+    SCENES,
     labels_from_filenames,
     labels_from_mask,
     suggest_layout,
@@ -96,11 +97,23 @@ _UPLOAD_BODY = {
 
 
 def stem_summary(meta: dict) -> dict:
-    """The public JSON of a stem (its metadata without the owner)."""
+    """The public JSON of a stem (its metadata without the owner), with its
+    ``scene_hint`` (:func:`scene_hint`)."""
     out = {k: v for k, v in meta.items() if k not in ("owner", "created_ts")}
+    out["scene_hint"] = scene_hint(meta["channels"])
     out["files"] = [{k: v for k, v in f.items() if k != "stored"} for f in meta["files"]]
     out["links"] = {"self": f"/v1/stems/{meta['id']}"}
     return out
+
+
+def scene_hint(channels: int) -> dict | None:
+    """For a stem of (N + 1)**2 channels (4, 9, ... 64), the Ambisonic scene it could be:
+    ``{"layout", "order", "channels"}``; None otherwise. Only a hint: a 4-channel file
+    may as well be 4.0, so the suggested layout is never a scene."""
+    for scene in SCENES.values():
+        if scene.channels == channels:
+            return {"layout": scene.name, "order": scene.order, "channels": channels}
+    return None
 
 
 def _stored_name(index: int, upload: UploadedFile, label: str | None) -> str:

@@ -34,7 +34,25 @@ function stemName(stem) {
   return files.length ? files[0].name + (files.length > 1 ? ` + ${files.length - 1}` : "") : stem.id.slice(0, 8);
 }
 
+/** Ambisonic decoders in words (as the comparison summaries word them). */
+const DECODER_WORDS = { magls: "MagLS decoder", virtual: "virtual-loudspeaker decoder" };
+
+/** A rotation ([yaw, pitch, roll] or "yaw,pitch,roll" in degrees) in words. */
+function rotationWords(v) {
+  const a = (Array.isArray(v) ? v : String(v).split(",")).map(Number);
+  if (a.some((x) => !Number.isFinite(x))) return `rotate ${v}`;
+  const [yaw = 0, pitch = 0, roll = 0] = a;
+  if (!yaw && !pitch && !roll) return "not rotated";
+  return pitch || roll ? `rotated ${yaw}, ${pitch}, ${roll}° (yaw, pitch, roll)` : `rotated ${yaw}°`;
+}
+
 function describeValue(key, v) {
+  if (key === "layout" && typeof v === "string") {
+    const m = /^(foa|hoa([2-7]))$/i.exec(v);
+    if (m) return `order ${m[2] || 1} scene`;
+  }
+  if (key === "ambisonic_decoder") return DECODER_WORDS[v] || `decoder ${v}`;
+  if (key === "rotate") return rotationWords(v);
   if (key === "layout") return typeof v === "object" ? `layout ${v.name || "custom"}` : String(v);
   if (key === "room") return typeof v === "object" ? `room ${v.name || "custom"}` : v === "none" ? "no room" : `room ${v}`;
   if (key === "hrtf") return `HRTF ${String(v).length === 32 ? `upload ${v.slice(0, 8)}` : v}`;

@@ -435,3 +435,87 @@ export function decayChart(decay) {
     description: "Schroeder energy decay curves of the room response, one per octave band",
   });
 }
+
+/** Size of the scene pictures (top view square, elevation view strip). */
+const SCENE_TOP = { size: 220, radius: 92 };
+const SCENE_SIDE = { width: 400, height: 210, left: 32, right: 10, top: 12, bottom: 22 };
+
+/**
+ * The picture of an Ambisonic scene: no loudspeakers, a sphere of directions. ``scene``
+ * is a listing of GET /v1/layouts (``order``, ``channels``) or a report's scene section;
+ * ``directions`` are [azimuth, elevation] pairs in degrees (the t-design of the order's
+ * virtual loudspeakers, or the decoder's own). Two views, as the Speakers tab draws a
+ * layout: from above (front up, left to the left; the distance from the centre is the
+ * zenith angle, so the ear-level ring is solid and the lower half lies outside it) and
+ * the elevation view (all around unrolled, left half = the listener's left). Directions
+ * are small dots: filled above the ear plane, hollow below it.
+ */
+export function scenePicture(scene, directions, { caption = "" } = {}) {
+  const dirs = (directions || []).filter((d) => Array.isArray(d) && d.length >= 2);
+  const order = scene.order;
+  const channels = scene.channels || (order + 1) ** 2;
+  const words = `order ${order} · ${channels} channels · ${dirs.length} directions`;
+  const c = SCENE_TOP.size / 2;
+  const zenithMax = 180; // the south pole on the outer ring
+  const rOf = (elv) => (SCENE_TOP.radius * (90 - elv)) / zenithMax;
+  const top = svgEl("svg", {
+    class: "scene-view scene-top", viewBox: `0 0 ${SCENE_TOP.size} ${SCENE_TOP.size}`,
+    role: "img", "data-view": "scene-top",
+    "aria-label": `Top view of an order-${order} Ambisonic scene: ${dirs.length} directions on the sphere`,
+  });
+  for (const elv of [60, 30, 0, -30, -60]) {
+    top.append(svgEl("circle", { cx: c, cy: c, r: rOf(elv), class: elv === 0 ? "ring ring-ear" : "ring" }));
+  }
+  top.append(
+    svgEl("line", { class: "axis", x1: c, y1: c - SCENE_TOP.radius - 4, x2: c, y2: c + SCENE_TOP.radius + 4 }),
+    svgEl("line", { class: "axis", x1: c - SCENE_TOP.radius - 4, y1: c, x2: c + SCENE_TOP.radius + 4, y2: c }),
+    text(c + 5, 10, "front", { class: "view-word" }),
+    text(3, c - 5, "left", { class: "view-word" }),
+    text(SCENE_TOP.size - 3, c - 5, "right", { class: "view-word", "text-anchor": "end" }),
+    text(SCENE_TOP.size - 3, SCENE_TOP.size - 4, "solid ring: ear level", { class: "ring-label", "text-anchor": "end" }),
+    svgEl("circle", { class: "head", cx: c, cy: c, r: 8 }),
+    svgEl("path", { class: "head", d: `M ${c - 4} ${c - 7} L ${c} ${c - 13} L ${c + 4} ${c - 7}` }),
+  );
+  const w = SCENE_SIDE.width - SCENE_SIDE.left - SCENE_SIDE.right;
+  const h = SCENE_SIDE.height - SCENE_SIDE.top - SCENE_SIDE.bottom;
+  const side = svgEl("svg", {
+    class: "scene-view scene-side", viewBox: `0 0 ${SCENE_SIDE.width} ${SCENE_SIDE.height}`,
+    role: "img", "data-view": "scene-side",
+    "aria-label": `Elevation view of an order-${order} Ambisonic scene: azimuth across, elevation up`,
+  });
+  for (let az = 180; az >= -180; az -= 45) {
+    const x = SCENE_SIDE.left + ((180 - az) / 360) * w;
+    side.append(svgEl("line", { class: az === 0 ? "axis" : "grid", x1: x, y1: SCENE_SIDE.top, x2: x, y2: SCENE_SIDE.top + h }),
+      text(x, SCENE_SIDE.height - 6, `${az}°`, { class: "ring-label", "text-anchor": "middle" }));
+  }
+  for (let elv = 90; elv >= -90; elv -= 30) {
+    const y = SCENE_SIDE.top + ((90 - elv) / 180) * h;
+    side.append(svgEl("line", { class: elv === 0 ? "axis" : "grid", x1: SCENE_SIDE.left, y1: y, x2: SCENE_SIDE.left + w, y2: y }),
+      text(SCENE_SIDE.left - 4, y + 3, `${elv}°`, { class: "ring-label", "text-anchor": "end" }));
+  }
+  const dot = dirs.length > 200 ? 1.6 : dirs.length > 60 ? 2.2 : 3; // a dense grid stays readable
+  for (const [az, elv] of dirs) {
+    const kind = elv < -0.5 ? "below" : "above";
+    const p = topViewPoint(az, 0, rOf(elv));
+    const tip = `azimuth ${Math.round(az * 10) / 10}°, elevation ${Math.round(elv * 10) / 10}°`;
+    top.append(titled(svgEl("circle", { cx: c + p.x, cy: c + p.y, r: dot, class: `dir-dot dir-${kind}`, "data-direction": "" }), tip));
+    const x = SCENE_SIDE.left + ((180 - wrapAzimuth(az)) / 360) * w;
+    const y = SCENE_SIDE.top + ((90 - elv) / 180) * h;
+    side.append(titled(svgEl("circle", { cx: x, cy: y, r: dot, class: `dir-dot dir-${kind}`, "data-direction": "" }), tip));
+  }
+  const figure = document.createElement("figure");
+  figure.className = "scene-picture";
+  figure.dataset.part = "scene-picture";
+  figure.dataset.order = String(order);
+  const cap = document.createElement("figcaption");
+  cap.className = "scene-words";
+  cap.textContent = caption ? `${words} · ${caption}` : words;
+  figure.append(cap, top, side);
+  return figure;
+}
+
+function wrapAzimuth(az) {
+  let a = ((((az + 180) % 360) + 360) % 360) - 180;
+  if (a === -180) a = 180;
+  return a;
+}

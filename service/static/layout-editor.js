@@ -512,7 +512,8 @@ function fillStartList() {
   const select = E.nodes.start;
   const keep = select.value;
   select.replaceChildren(el("option", { value: "" }, "nothing (empty)"));
-  const builtins = bus.state.catalog.layouts || [];
+  // Loudspeaker layouts only: a scene (kind "scene") has no loudspeakers to move.
+  const builtins = (bus.state.catalog.layouts || []).filter((l) => l.kind !== "scene");
   if (builtins.length) select.append(el("optgroup", { label: "Built-in" }, builtins.map((l) => el("option", { value: `b:${l.name}` }, `${l.name} · ${l.speakers.length} ch`))));
   const saved = presetsOf("layout");
   if (saved.length) select.append(el("optgroup", { label: "Saved" }, saved.map((p) => el("option", { value: `p:${p.id}` }, `${p.name} · ${p.body.speakers.length} ch`))));

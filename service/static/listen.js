@@ -412,6 +412,12 @@ async function addReference() {
     return;
   }
   const req = first.request;
+  if (/^(foa|hoa\d)$/.test(String(req.layout ?? ""))) {
+    // A scene has no loudspeaker channels to fold down: its reference is another render
+    // of it (another decoder or order), added to the A/B as any render is.
+    bus.emit("notify", { message: "An Ambisonic scene has no stereo fold-down: compare it with another render of the scene (another decoder or order).", kind: "info" });
+    return;
+  }
   const same = (a, b) => JSON.stringify(a ?? null) === JSON.stringify(b ?? null);
   const existing = rendersOf(req.stem_id).find((r) => r.request.fold === "stereo" && !r.request.solo &&
     same(r.request.layout, req.layout) && same(r.request.channel_order, req.channel_order) &&

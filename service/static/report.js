@@ -9,7 +9,7 @@
 import { api, download } from "./api.js";
 import { el } from "./dom.js";
 import { askToken, mountChrome, setTitle } from "./chrome.js";
-import { decayChart, fmtFreq, loudnessChart, spectraChart } from "./draw.js";
+import { decayChart, fmtFreq, loudnessChart, scenePicture, spectraChart } from "./draw.js";
 
 const POLL_MS = 1500;
 const $ = (id) => document.getElementById(id);
@@ -172,10 +172,61 @@ function messagesSection(report) {
   return box;
 }
 
+/** Decoders and normalisations in words. */
+const DECODER_WORDS = {
+  magls: "MagLS (magnitude least squares, diffuse-field covariance constraint)",
+  virtual: "virtual loudspeakers on a t-design",
+};
+const NORM_WORDS = { sn3d: "SN3D (AmbiX)", n3d: "N3D", fuma: "FuMa (W X Y Z)" };
+
+/** The scene section: what was decoded, how, turned how far, and the directions drawn. */
+function sceneSection(report) {
+  const sc = report.scene;
+  const deg = (v) => `${Number.isInteger(Number(v)) ? Number(v) : num(v, 1)}°`;
+  const chosen = sc.decoder_chosen === "requested" ? "as asked" : sc.decoder_chosen || "chosen";
+  const box = el("div");
+  const dec = sc.decoder || {};
+  const rot = sc.rotation;
+  const turned = rot
+    ? `turned by ${deg(rot.yaw_deg)} yaw, ${deg(rot.pitch_deg)} pitch and ${deg(rot.roll_deg)} roll before decoding`
+    : "not rotated";
+  const method = DECODER_WORDS[dec.method] || dec.method || "–";
+  box.append(el("p", { "data-part": "scene-words" },
+    `An order-${sc.order} Ambisonic scene of ${sc.channels} channels (${sc.channel_order}, ` +
+    `${NORM_WORDS[sc.normalisation] || sc.normalisation}), decoded to the ears by ` +
+    `${dec.method === "magls" ? "the MagLS decoder" : "a virtual-loudspeaker decoder"} ` +
+    `(${chosen}), ${turned}.`));
+  const dirs = dec.directions || [];
+  box.append(facts([
+    ["order", String(sc.order)],
+    ["channels", `${sc.channels} (${sc.channel_order})`],
+    ["normalisation", NORM_WORDS[sc.normalisation] || sc.normalisation],
+    ["decoder", method],
+    ["why this decoder", sc.decoder_chosen || null],
+    ["crossover", has(dec.cutoff_hz) ? `${num(dec.cutoff_hz, 0)} Hz (MagLS above)` : has(dec.crossover_hz) ? `${num(dec.crossover_hz, 0)} Hz` : null],
+    ["weighting", dec.weighting || null],
+    ["directions", `${dirs.length}${dec.grid ? ` · ${dec.grid}` : ""}`],
+    ["rotation", rot ? `yaw ${deg(rot.yaw_deg)}, pitch ${deg(rot.pitch_deg)}, roll ${deg(rot.roll_deg)}` : "none"],
+    ["filter length", has(dec.taps) ? `${dec.taps} taps` : null],
+    ["room", sc.room ? (typeof sc.room === "string" ? sc.room : JSON.stringify(sc.room)) : "none (a scene carries its own room)"],
+    ["level", sc.calibration || null],
+  ], "Ambisonic scene"));
+  const notes = sc.decoder_notes || [];
+  if (notes.length) box.append(el("ul", { class: "messages" }, ...notes.map((n) => el("li", { class: "note" }, n))));
+  box.append(scenePicture(sc, dirs, { caption: `dots: the ${dec.method === "magls" ? "decoder's grid" : "virtual loudspeakers"}` }));
+  return box;
+}
+
 function speakerRows(report) {
   return (report.speakers || []).map((s) => {
     let asked, how, used, error;
-    if (s.lfe || s.method === "lfe") {
+    if (has(s.acn)) {
+      // A scene's channel: a spherical harmonic, not a loudspeaker.
+      asked = `degree ${s.degree}, index ${s.index}`;
+      how = "spherical harmonic";
+      used = el("span", { class: "muted" }, "all directions, through the decoder");
+      error = "–";
+    } else if (s.lfe || s.method === "lfe") {
       asked = "no direction (LFE)";
       how = s.method === "lfe" || !s.method ? "LFE" : s.method;
       used = has(s.cutoff_hz)
@@ -414,6 +465,11 @@ function show() {
   $("summary-body").replaceChildren(summarySection(report, view));
   $("messages-body").replaceChildren(messagesSection(report));
   $("speaker-table").querySelector("tbody").replaceChildren(...speakerRows(report));
+  $("sec-scene").hidden = !report.scene;
+  if (report.scene) {
+    $("scene-body").replaceChildren(sceneSection(report));
+    $("h-speakers").textContent = "Channels";
+  }
   $("hrtf-body").replaceChildren(hrtfSection(report));
   $("headphone-body").replaceChildren(headphoneSection(report));
   $("room-body").replaceChildren(roomSection(report));

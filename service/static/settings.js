@@ -18,6 +18,7 @@ import {
 } from "./form-kit.js";
 import { createPreset, deletePreset, loadPresets, presetById, presetsOf, presetsState, updatePreset } from "./presets.js";
 import { createRoomEditor, roomFigures } from "./room-editor.js";
+import { scenePicture } from "./draw.js";
 
 /** Most renders one batch may start at once: enough for a 4 x 3 x 2 grid of candidates,
     few enough that one click cannot flood the queue (a page choice, not a server limit). */
@@ -29,8 +30,14 @@ const LABELS = {
   headphone_eq: "Headphone EQ", room: "Room", room_mode: "Room mode", lfe_cutoff: "LFE cutoff",
   lfe_gain: "LFE gain", loudness: "Loudness", true_peak: "True peak", format: "File format",
   subtype: "Sample format", seed: "Seed", block_size: "Block size", excerpt: "Excerpt",
-  fold: "Fold to", solo: "Solo loudspeaker",
+  fold: "Fold to", solo: "Solo loudspeaker", ambisonic_norm: "Normalisation",
+  ambisonic_decoder: "Decoder", rotate: "Rotation",
 };
+
+/** Options only an Ambisonic scene takes, and options only loudspeaker layouts take
+    (the server refuses each on the other kind). */
+const SCENE_ONLY = ["ambisonic_norm", "ambisonic_decoder", "rotate"];
+const SPEAKERS_ONLY = ["channel_order", "fold"];
 
 /** Words shown for declared choices that read better with a gloss. */
 const CHOICE_WORDS = {
@@ -40,6 +47,7 @@ const CHOICE_WORDS = {
 /** The panel's sections; options the server declares beyond these land in "More". */
 const GROUPS = [
   ["speakers", "Loudspeakers", ["layout", "channel_order", "solo"]],
+  ["scene", "Ambisonic scene", SCENE_ONLY],
   ["ears", "Ears", ["fold", "hrtf", "eq", "headphone_eq"]],
   ["room", "Room", ["room", "room_mode"]],
   ["lfe", "LFE", ["lfe_cutoff", "lfe_gain"]],
@@ -197,10 +205,82 @@ function textControl(spec) {
   });
 }
 
+/** A scene's rotation: yaw, pitch and roll in degrees (left out: not turned). */
+function rotationControl(spec) {
+  const id = uniqueId("set-rotate");
+  const part = (name, first) => el("input", {
+    id: first ? id : uniqueId(`set-rotate-${name}`), type: "number", step: "any", inputmode: "decimal",
+    name: `rotate-${name}`, placeholder: "0", "aria-label": `${name} in degrees`, "data-angle": name,
+  });
+  const yaw = part("yaw", true); const pitch = part("pitch"); const roll = part("roll");
+  const trio = el("div", { class: "pair rotation" },
+    el("span", { class: "muted" }, "yaw"), yaw, el("span", { class: "muted" }, "pitch"), pitch,
+    el("span", { class: "muted" }, "roll"), roll);
+  const { node, error } = fieldShell(spec, trio, { labelFor: id });
+  const inputs = [yaw, pitch, roll];
+  return control(spec, {
+    node, error, input: yaw,
+    read() {
+      if (inputs.every((i) => i.value.trim() === "")) return undefined;
+      return inputs.map((i, k) => {
+        const t = i.value.trim();
+        const v = t === "" ? 0 : Number(t);
+        if (!Number.isFinite(v)) throw new FieldProblem(`Rotation: ${["yaw", "pitch", "roll"][k]} must be a number of degrees.`);
+        return v;
+      });
+    },
+    write(v) {
+      let angles = [];
+      if (Array.isArray(v)) angles = v;
+      else if (typeof v === "string" && !["none", "off", ""].includes(v.trim().toLowerCase())) angles = v.split(",").map(Number);
+      inputs.forEach((i, k) => { i.value = angles[k] === undefined || angles[k] === null ? "" : angles[k]; });
+    },
+  });
+}
+
 // ------------------------------------------------------------------ layouts
 
 function hasHeights(layout) {
   return layout.speakers.some((s) => !s.lfe && Math.abs(s.elevation) > 0.01);
+}
+
+/**
+ * Whether a stem of `channels` channels can be rendered as `scene`: a full-sphere scene of
+ * the scene's order or a higher one (the renderer then decodes its first (order + 1)^2
+ * channels: how orders of one master are compared).
+ */
+function sceneFits(scene, channels) {
+  const root = Math.round(Math.sqrt(channels));
+  return root * root === channels && root >= 2 && root - 1 >= scene.order;
+}
+
+/** An Ambisonic scene of GET /v1/layouts (kind "scene": channels, no speakers). */
+export function isScene(layout) {
+  return Boolean(layout) && layout.kind === "scene";
+}
+
+/** Channels a layout or scene takes. */
+function channelsOf(layout) {
+  return isScene(layout) ? layout.channels : layout.speakers.length;
+}
+
+/** Show the scene fields only for a scene and the loudspeaker-only fields only for
+    loudspeakers; a hidden field sends nothing. */
+function applyLayoutKind() {
+  const layout = S.controls.get("layout")?.current() || null;
+  const scene = isScene(layout);
+  for (const name of SCENE_ONLY) {
+    const ctrl = S.controls.get(name);
+    if (ctrl) { ctrl.node.hidden = !scene; ctrl.off = !scene; }
+  }
+  for (const name of SPEAKERS_ONLY) {
+    const ctrl = S.controls.get(name);
+    if (ctrl) { ctrl.node.hidden = scene; ctrl.off = scene; }
+  }
+  const group = S.form && S.form.querySelector("[data-group='scene']");
+  if (group) group.hidden = !scene;
+  const solo = S.controls.get("solo");
+  if (solo) solo.node.querySelector("label").firstChild.textContent = scene ? "Solo channel" : labelOf("solo");
 }
 
 function hasLfe(layout) {
@@ -230,27 +310,36 @@ function layoutControl(spec) {
   const { node, error } = fieldShell(spec, select, { extra: facts });
   const ctrl = control(spec, { node, error, input: select });
 
+  const picture = el("div", { class: "scene-box", "data-part": "scene-box", hidden: true });
+  const hint = el("p", { class: "note scene-hint", "data-part": "scene-hint", hidden: true });
+  node.append(hint, picture);
+
   function fits(layout) {
-    return !S.stem || layout.speakers.length === S.stem.channels;
+    if (!S.stem) return true;
+    return isScene(layout) ? sceneFits(layout, S.stem.channels) : channelsOf(layout) === S.stem.channels;
   }
 
   function option(value, layout, text) {
     const ok = fits(layout);
-    return el("option", { value, disabled: !ok }, `${text} · ${layout.speakers.length} ch${ok ? "" : " (does not fit)"}`);
+    return el("option", { value, disabled: !ok }, `${text} · ${channelsOf(layout)} ch${ok ? "" : " (does not fit)"}`);
   }
 
   ctrl.refresh = () => {
     const keep = select.value;
     select.replaceChildren();
     const builtins = builtinLayouts();
+    const speakers = builtins.filter((l) => !isScene(l));
     const groups = [
-      ["With LFE", builtins.filter((l) => !hasHeights(l) && hasLfe(l))],
-      ["Without LFE", builtins.filter((l) => !hasHeights(l) && !hasLfe(l))],
-      ["With heights", builtins.filter((l) => hasHeights(l))],
+      ["With LFE", speakers.filter((l) => !hasHeights(l) && hasLfe(l))],
+      ["Without LFE", speakers.filter((l) => !hasHeights(l) && !hasLfe(l))],
+      ["With heights", speakers.filter((l) => hasHeights(l))],
+      ["Ambisonic scenes", builtins.filter(isScene)],
     ];
     for (const [title, list] of groups) {
       if (!list.length) continue;
-      select.append(el("optgroup", { label: title }, list.map((l) => option(`b:${l.name}`, l, l.name))));
+      const words = (l) => (isScene(l) ? `${l.name} (order ${l.order})` : l.name);
+      select.append(el("optgroup", { label: title, "data-kind": isScene(list[0]) ? "scene" : "loudspeakers" },
+        list.map((l) => option(`b:${l.name}`, l, words(l)))));
     }
     const saved = presetsOf("layout");
     if (saved.length) {
@@ -270,7 +359,9 @@ function layoutControl(spec) {
   };
 
   function pickForStem() {
-    const usable = [...select.options].filter((o) => !o.disabled && o.value);
+    // A scene is never chosen for the user (a 4-channel file may be 4.0 or first order):
+    // it is offered as a hint instead.
+    const usable = [...select.options].filter((o) => !o.disabled && o.value && !isScene(layoutFromValue(o.value)));
     const suggested = S.stem && S.stem.suggested_layout ? `b:${S.stem.suggested_layout}` : null;
     const pick = usable.find((o) => o.value === suggested) || usable[0];
     if (pick) select.value = pick.value;
@@ -285,12 +376,39 @@ function layoutControl(spec) {
   function describe() {
     const layout = layoutFromValue(select.value);
     facts.hidden = !layout;
+    showHint(layout);
+    picture.hidden = !isScene(layout);
+    picture.replaceChildren();
+    applyLayoutKind();
     if (!layout) return;
+    if (isScene(layout)) {
+      facts.textContent = `${layout.description || layout.name}: Ambisonic scene of order ${layout.order}, ` +
+        `${layout.channels} channels in ACN order, ${String(layout.default_normalisation || "sn3d").toUpperCase()} ` +
+        "unless chosen below; decoded to the ears, no loudspeakers" +
+        (S.stem && !fits(layout) ? ` · does not fit this ${S.stem.channels}-channel stem` : "");
+      picture.append(scenePicture(layout, layout.directions, { caption: "dots: the order's t-design directions" }));
+      return;
+    }
     const mains = layout.speakers.filter((s) => !s.lfe).length;
     const lfe = layout.speakers.length - mains;
     facts.textContent = `${layout.description || layout.name}: ${mains} loudspeaker${mains === 1 ? "" : "s"}` +
       `${lfe ? ` + ${lfe} LFE` : ""}${layout.source ? ` · ${layout.source}` : ""}` +
       (S.stem && !fits(layout) ? ` · does not fit this ${S.stem.channels}-channel stem` : "");
+  }
+
+  function showHint(layout) {
+    const h = S.stem && S.stem.scene_hint;
+    const scene = h && builtinLayouts().find((l) => l.name === h.layout);
+    hint.replaceChildren();
+    hint.hidden = !scene || (layout && layout.name === scene.name && isScene(layout));
+    if (hint.hidden) return;
+    const use = el("button", { type: "button", class: "btn btn-small", "data-action": "use-scene-hint" },
+      `Use ${scene.name} (order ${scene.order} scene)`);
+    use.addEventListener("click", () => {
+      select.value = `b:${scene.name}`;
+      select.dispatchEvent(new Event("change", { bubbles: true }));
+    });
+    hint.append(`${S.stem.channels} channels may also be an Ambisonic scene of order ${scene.order}. `, use);
   }
 
   select.addEventListener("change", () => { describe(); bus.emit("settings-layout-changed", {}); });
@@ -435,8 +553,9 @@ function soloControl(spec) {
   ctrl.refresh = () => {
     const keep = select.value;
     const layout = S.controls.get("layout") ? S.controls.get("layout").current() : null;
-    select.replaceChildren(el("option", { value: "" }, "none: every loudspeaker"));
-    for (const s of (layout && layout.speakers) || []) select.append(el("option", { value: s.label }, s.label));
+    select.replaceChildren(el("option", { value: "" }, isScene(layout) ? "none: every channel" : "none: every loudspeaker"));
+    const labels = isScene(layout) ? layout.labels || [] : ((layout && layout.speakers) || []).map((s) => s.label);
+    for (const label of labels) select.append(el("option", { value: label }, label));
     select.value = [...select.options].some((o) => o.value === keep) ? keep : "";
   };
   ctrl.read = () => (select.value === "" ? undefined : select.value);
@@ -718,6 +837,7 @@ function makeControl(spec) {
     default: break;
   }
   switch (spec.kind) {
+    case "rotation": return rotationControl(spec);
     case "number": case "integer": return numberControl(spec);
     case "choice": return choiceControl(spec);
     case "level": return levelControl(spec);
@@ -776,6 +896,7 @@ function build() {
     S.refreshBatch && S.refreshBatch();
   });
   for (const ctrl of S.controls.values()) if (ctrl.write && !["layout", "channel_order", "solo", "hrtf", "room", "headphone_eq"].includes(ctrl.name)) ctrl.write(undefined);
+  applyLayoutKind();
   S.form.addEventListener("input", (e) => clearProblemAt(e.target));
   S.form.addEventListener("change", (e) => clearProblemAt(e.target));
   showStem();
@@ -819,6 +940,7 @@ function collect() {
   const body = {};
   const problems = [];
   for (const [name, ctrl] of S.controls) {
+    if (ctrl.off) continue; // a field of the other kind of layout
     try {
       const v = ctrl.read();
       if (v !== undefined) body[name] = v;
@@ -852,6 +974,7 @@ function fill(values) {
     }
     if (name === "layout") for (const n of ["channel_order", "solo"]) S.controls.get(n)?.refresh();
   }
+  applyLayoutKind();
   S.refreshBatch && S.refreshBatch();
   bus.emit("settings-layout-changed", {});
   const ignored = Object.keys(values).filter((k) => k !== "stem_id" && !S.controls.has(k));
@@ -1015,9 +1138,10 @@ function buildBatch() {
   function refresh() {
     const ticked = new Set([...cols.querySelectorAll("input:checked")].map((i) => `${i.dataset.batchItem}|${i.value}`));
     cols.replaceChildren();
-    const fits = (l) => !S.stem || l.speakers.length === S.stem.channels;
+    // Scenes only where the stem's channel count is the scene's ((order + 1)^2).
+    const fits = (l) => (isScene(l) ? Boolean(S.stem) && sceneFits(l, S.stem.channels) : !S.stem || l.speakers.length === S.stem.channels);
     const layouts = [
-      ...builtinLayouts().map((l) => [`b:${l.name}`, l.name, !fits(l)]),
+      ...builtinLayouts().map((l) => [`b:${l.name}`, isScene(l) ? `${l.name} (scene)` : l.name, !fits(l)]),
       ...presetsOf("layout").map((p) => [`p:${p.id}`, p.name, !fits(p.body)]),
     ].filter((x) => !x[2]);
     const rooms = (bus.state.catalog.rooms || []).map((r) => [r.name, r.name, false]);
@@ -1074,8 +1198,19 @@ function buildBatch() {
         const named = S.controls.get("channel_order")?.namedOrder();
         const target = typeof layout === "string" ? builtinLayouts().find((l) => l.name === layout) : layout;
         delete body.channel_order;
-        if (named && target && target.orders && target.orders[named]) body.channel_order = named;
-        if (body.solo && !(target && target.speakers.some((s) => s.label === body.solo))) delete body.solo;
+        if (isScene(target)) {
+          // a scene takes no channel order or fold; its own options come from the form
+          delete body.fold;
+          for (const name of SCENE_ONLY) {
+            const v = S.controls.get(name)?.read();
+            if (v !== undefined) body[name] = v;
+          }
+          if (body.solo && !(target.labels || []).includes(body.solo)) delete body.solo;
+        } else {
+          for (const name of SCENE_ONLY) delete body[name];
+          if (named && target && target.orders && target.orders[named]) body.channel_order = named;
+          if (body.solo && !(target && target.speakers.some((s) => s.label === body.solo))) delete body.solo;
+        }
       }
       if (p.room && room !== null) body.room = room;
       if (p.hrtf && hrtf !== null) body.hrtf = hrtf;

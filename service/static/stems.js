@@ -58,7 +58,12 @@ function rowFor(stem) {
       el("span", { class: "chip", text: fmtSeconds(stem.duration_s) }),
       stem.suggested_layout
         ? el("span", { class: "chip note", title: "suggested layout", text: stem.suggested_layout })
-        : el("span", { class: "chip warn", text: "no layout suggested" })),
+        : el("span", { class: "chip warn", text: "no layout suggested" }),
+      // Only a hint: the Settings tab offers the scene as a one-click choice.
+      stem.scene_hint
+        ? el("span", { class: "chip", "data-part": "scene-hint", title: "the channel count of an Ambisonic scene; choose it under Settings",
+          text: `or ${stem.scene_hint.layout}?` })
+        : null),
     el("span", { class: "stem-labels muted", text: labelsText(stem) }));
   const item = el("li", { class: `stem-row${selected ? " selected" : ""}`, "data-stem": stem.id }, pick,
     el("div", { class: "stem-actions" }, del));

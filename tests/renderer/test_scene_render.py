@@ -311,3 +311,26 @@ def test_a_square_channel_count_is_never_taken_for_a_scene_unasked(tmp_path):
     plan = plan_render([stem], RenderSettings())
     assert plan.scene is None and plan.layout.kind == "loudspeakers"
     assert any("layout foa" in n for n in plan.notes)
+
+
+def test_a_higher_order_stem_is_decoded_at_the_order_asked_for(tmp_path):
+    # Truncation of the order (common practice): an order-3 stem rendered as hoa2 keeps
+    # its first 9 ACN channels; how orders of one master are compared.
+    stem = _plane_wave(tmp_path / "o3.wav", 3, 40.0, 10.0)
+    first9 = tmp_path / "o2.wav"
+    data, _ = read_audio(stem)
+    write_audio(first9, data[:, :9].astype(np.float32), FS, subtype="FLOAT")
+    assert _cli_render(stem, tmp_path / "a.wav", "--layout", "hoa2", "--rotate", "20") == 0
+    assert _cli_render(first9, tmp_path / "b.wav", "--layout", "hoa2", "--rotate", "20") == 0
+    a, _ = read_audio(tmp_path / "a.wav")
+    b, _ = read_audio(tmp_path / "b.wav")
+    np.testing.assert_allclose(a, b, atol=1e-6 * np.abs(b).max())
+    plan = plan_render([str(stem)], RenderSettings(layout="hoa2"))
+    assert plan.scene is not None
+    assert (plan.scene["order"], plan.scene["stem_order"]) == (2, 3)
+    assert plan.scene["channels_decoded"] == 9 and plan.filters.shape[0] == 16
+    assert not plan.filters[9:].any()
+    assert any("decoded at order 2" in n for n in plan.notes)
+    # A lower-order stem cannot be decoded at a higher order
+    with pytest.raises(RendererError, match="decoded at this order"):
+        plan_render([str(first9)], RenderSettings(layout="hoa3"))
