@@ -1,4 +1,5 @@
-"""The streaming convolution engine, the LFE path and the render's engine with its shared tail."""
+"""The streaming convolution engine, the LFE path, the render's engine with its shared tail,
+the moving-source engine (time-varying filters, crossfaded) and the panning mixer."""
 
 from __future__ import annotations
 
@@ -18,6 +19,16 @@ from .lfe import (
     LfeOptions,
     lfe_filter,
 )
+from .moving import (
+    GRID_STEP_DEG,
+    MAX_EXACT_PAIRS,
+    MAX_UPDATE_SECONDS,
+    MovingSourceEngine,
+    PairFunction,
+    PairTable,
+    SourcePath,
+)
+from .panning import GainFunction, PanningMixer
 from .scheduler import TAIL_BLOCK_FRAMES, FoldEngine
 
 __all__ = [
@@ -29,6 +40,15 @@ __all__ = [
     "MAX_BLOCK_SIZE",
     "MIN_BLOCK_SIZE",
     "FoldEngine",
+    "GainFunction",
+    "GRID_STEP_DEG",
+    "MAX_EXACT_PAIRS",
+    "MAX_UPDATE_SECONDS",
+    "MovingSourceEngine",
+    "PairFunction",
+    "PairTable",
+    "PanningMixer",
+    "SourcePath",
     "LfeOptions",
     "TAIL_BLOCK_FRAMES",
     "TransformPlan",

@@ -348,6 +348,9 @@ class EqualisedHrirSet(HrirSet):
     def pair(self, direction: NDArray[np.float64]) -> HrirPair:
         return self._filtered(self._lookup().pair(direction))
 
+    def pairs(self, directions: NDArray[np.float64]) -> NDArray[np.float64]:
+        return _convolve_all(self._lookup().pairs(directions), self._fir())
+
     def nearest_pair(
         self, direction: NDArray[np.float64], *, exclude: int | None = None
     ) -> HrirPair:
@@ -363,9 +366,12 @@ class EqualisedHrirSet(HrirSet):
         return self.raw
 
     def _filtered(self, pair: HrirPair) -> HrirPair:
+        return dataclasses.replace(pair, ir=_convolve_all(pair.ir, self._fir()))
+
+    def _fir(self) -> NDArray[np.float64]:
         if self.fir is None:  # only built by equalised(), which always sets it
             raise EqualisationError(f"equalised set {self.name!r} has no filter")
-        return dataclasses.replace(pair, ir=_convolve_all(pair.ir, self.fir))
+        return self.fir
 
 
 def equalised(hset: HrirSet) -> tuple[HrirSet, dict[str, Any]]:

@@ -258,6 +258,69 @@ class HrirSet:
             error,
         )
 
+    def pairs(self, directions: np.ndarray) -> np.ndarray:
+        """The impulse responses :meth:`pair` gives for many directions, computed in bulk.
+
+        Row ``i`` equals ``self.pair(directions[i]).ir`` (the same triangle, weights,
+        alignment and fractional delay, done for all rows at once, which spares the
+        per-call overhead), for renderers that need many directions (moving sources).
+        :meth:`pair` tells how each was found.
+
+        Parameters
+        ----------
+        directions : numpy.ndarray, shape (n, 3)
+            Directions (any non-zero length) in the listener frame.
+
+        Returns
+        -------
+        numpy.ndarray, shape (n, 2, N), float64
+        """
+        d = np.asarray(directions, dtype=float)
+        if d.ndim != 2 or d.shape[1] != 3:
+            raise HrirError(f"directions must have shape (n, 3), got {d.shape!r}")
+        length = np.linalg.norm(d, axis=1)
+        if not np.all(np.isfinite(length)) or np.any(length == 0):
+            raise HrirError("directions must be finite, non-zero vectors")
+        d = normalize(d)
+        out = np.empty((len(d), 2, self.taps))
+        if not len(d):
+            return out
+        grid = self._grid()
+        _, idx = grid.tree.query(d)
+        idx = np.asarray(idx, dtype=np.intp)
+        error = angle_between(d, self.directions[idx])
+        rest = np.flatnonzero(error > MEASURED_TOLERANCE_DEG)
+        out[...] = self.ir[idx]
+        if not len(rest) or grid.hull is None:
+            # Measured directions done; a ring or a tiny grid: one lookup at a time.
+            for i in rest:
+                out[i] = self.pair(d[i]).ir
+            return out
+        # A grid with a hull always has its facets' checks and inverses.
+        assert grid.facet_ok is not None and grid.inverse is not None
+        facet, w = _facet_weights(d[rest], grid)
+        w = np.clip(w, 0.0, None)
+        total = w.sum(axis=1)
+        ok = grid.facet_ok[facet] & (total > 0)
+        rows, facet, w = rest[ok], facet[ok], w[ok] / total[ok, None]
+        if not len(rows):
+            return out
+        verts = grid.hull.simplices[facet]  # (n, 3)
+        aligned, ref = self._aligned()
+        on = self._onsets()
+        # As _interpolate, term by term in the same order (np.sum over three rows).
+        shape = w[:, 0, None, None] * aligned[verts[:, 0]]
+        shape += w[:, 1, None, None] * aligned[verts[:, 1]]
+        shape += w[:, 2, None, None] * aligned[verts[:, 2]]
+        onset = np.einsum("nk,nke->ne", w, on[verts]) - ref  # (n, 2)
+        # fractional_delay pads by the largest delay of its call: call it once per reach,
+        # so each row is delayed on exactly the transform pair() would use.
+        reach = np.ceil(np.max(np.abs(onset), axis=1)).astype(np.int64)
+        for value in np.unique(reach):
+            group = np.flatnonzero(reach == value)
+            out[rows[group]] = fractional_delay(shape[group], onset[group], length=self.taps)
+        return out
+
     def nearest_pair(self, direction: np.ndarray, *, exclude: int | None = None) -> HrirPair:
         """The nearest measured pair (the baseline the interpolation is tested against)."""
         d = normalize(np.asarray(direction, dtype=float).reshape(3))
@@ -370,15 +433,12 @@ class HrirSet:
         if grid.hull is not None:
             # A grid with a hull always has its facets' checks and inverses.
             assert grid.facet_ok is not None and grid.inverse is not None
-            eq = grid.hull.equations  # outward normals n and offsets b: n.x + b = 0, b < 0
-            # The ray from the centre along d leaves the hull through the facet with the
-            # largest n.d / -b (the first plane it crosses).
-            facet = int(np.argmax((eq[:, :3] @ d) / -eq[:, 3]))
+            facets, weights = _facet_weights(d[None, :], grid)
+            facet = int(facets[0])
             if not grid.facet_ok[facet]:
                 return None
             verts = grid.hull.simplices[facet]
-            w = grid.inverse[facet] @ d
-            w = np.clip(w, 0.0, None)
+            w = np.clip(weights[0], 0.0, None)
             total = w.sum()
             if total <= 0:
                 return None
@@ -386,6 +446,35 @@ class HrirSet:
         if grid.ring_order is not None:
             return _ring_weights(d, self.directions, grid)
         return None
+
+
+#: Facets looked at per direction: the one the ray meets first and any sharing its plane.
+_COPLANAR_CANDIDATES = 8
+
+
+def _facet_weights(d: np.ndarray, grid: _Grid) -> tuple[np.ndarray, np.ndarray]:
+    """The hull facet holding each direction and its barycentric weights (unclipped).
+
+    The ray from the centre along ``d`` leaves the hull through the facet with the
+    largest ``n.d / -b`` (outward normal ``n``, offset ``b < 0``: the first plane it
+    crosses). Measurement grids have many four-point faces (two rings with the same
+    azimuths make trapezoids) that the hull splits into two triangles on one plane; the
+    ray meets both planes at once, and only one of the two holds the direction, the one
+    whose weights are all non-negative. Of the facets on the first plane the one whose
+    smallest weight is largest is taken.
+    """
+    assert grid.hull is not None and grid.inverse is not None
+    eq = grid.hull.equations
+    scores = (d @ eq[:, :3].T) / -eq[:, 3]  # (n, F)
+    k = min(_COPLANAR_CANDIDATES, scores.shape[1])
+    candidates = np.argpartition(-scores, k - 1, axis=1)[:, :k]
+    best = np.take_along_axis(scores, candidates, axis=1)
+    weights = np.einsum("nkij,nj->nki", grid.inverse[candidates], d)
+    on_plane = best >= best.max(axis=1, keepdims=True) - 1e-9
+    merit = np.where(on_plane, weights.min(axis=2), -np.inf)
+    pick = np.argmax(merit, axis=1)
+    rows = np.arange(len(d))
+    return candidates[rows, pick], weights[rows, pick]
 
 
 def _build_grid(directions: np.ndarray, name: str) -> _Grid:

@@ -4,7 +4,8 @@ Modules, each one concept: ``_labels`` (canonical labels, aliases, BS.2051 names
 from file names), ``_model`` (:class:`Speaker`, :class:`Layout`), ``_order`` (channel
 orders), ``_catalogue`` (the built-in :data:`LAYOUTS`, :func:`suggest_layout`), ``_files``
 (custom layouts as JSON, :func:`get_layout`), ``_channel_mask`` (WAV channel masks) and
-``_scene`` (Ambisonic scenes as an input kind: :class:`SceneLayout`, :data:`SCENES`).
+``_scene`` (Ambisonic scenes as an input kind: :class:`SceneLayout`, :data:`SCENES`) and
+``_vbap`` (vector base amplitude panning onto an array: :class:`VbapPanner`).
 """
 
 from __future__ import annotations
@@ -30,6 +31,7 @@ from ._scene import (
     scene_layout,
     stem_scene,
 )
+from ._vbap import POLE_GAP_DEG, VbapPanner
 
 __all__ = [
     "LAYOUTS",
@@ -38,12 +40,14 @@ __all__ = [
     "MAX_LAYOUT_FILE_BYTES",
     "MAX_SPEAKERS",
     "ORDER_NAMES",
+    "POLE_GAP_DEG",
     "SCENES",
     "SCENE_NORMALISATIONS",
     "SCENE_SOURCE",
     "SPEAKER_BITS",
     "SceneLayout",
     "Speaker",
+    "VbapPanner",
     "canonical_label",
     "filename_label",
     "get_layout",

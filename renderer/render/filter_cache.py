@@ -56,10 +56,11 @@ __all__ = [
     "default_filter_cache",
 ]
 
-PREPARATION_VERSION = 1
+PREPARATION_VERSION = 2
 """Version of the preparation of cached filters. Bump it whenever the computation of a
-prepared HRTF set or room filters changes (resampling, equalisation, room model), so that
-entries computed by older code are never used."""
+prepared HRTF set or room filters changes (resampling, equalisation, room model, the
+direction lookup), so that entries computed by older code are never used. 2: the lookup
+takes, of two triangles on one plane, the one holding the direction."""
 
 DEFAULT_LIMIT_BYTES = 1 << 30
 """Default bound of the disk cache: 1 GiB (``$EARFOLD_CACHE_LIMIT_MB`` overrides it)."""

@@ -66,6 +66,26 @@ def test_interpolation_weights_are_barycentric():
     assert_allclose(v / np.linalg.norm(v), d, atol=1e-9)
 
 
+def test_interpolation_picks_the_triangle_holding_the_direction_on_kemar():
+    """Regression: two rings of the KEMAR grid with the same azimuths make trapezoids that
+    the hull splits into two triangles on one plane; the lookup took the first of the two,
+    which for about one direction in five did not hold it (a weight down to -0.99, clipped
+    away). The weights must be barycentric on the triangle that holds the direction: none
+    negative, and the weighted vertices pointing back at it."""
+    kemar = load_hrir_set(get_shipped("mit-kemar").path)
+    rng = np.random.default_rng(11)
+    d = rng.standard_normal((400, 3))
+    d /= np.linalg.norm(d, axis=1, keepdims=True)
+    d = d[np.degrees(np.arcsin(d[:, 2])) > -39.0]  # the grid covers -40 degrees and up
+    for direction in d:
+        pair = kemar.pair(direction)
+        if pair.method != "interpolated":
+            continue
+        w = np.array(pair.weights)
+        v = kemar.directions[list(pair.neighbours)].T @ w
+        assert_allclose(v / np.linalg.norm(v), direction, atol=1e-9)
+
+
 def test_interpolation_aligns_onsets_so_impulses_do_not_split():
     """Two neighbours a few samples apart: a plain average would give two half-height
     impulses (a comb filter); onset alignment keeps one impulse at the weighted delay."""
