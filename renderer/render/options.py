@@ -143,6 +143,13 @@ RENDER_OPTIONS: tuple[OptionSpec, ...] = (
         unit="deg",
         metavar="YAW[,PITCH[,ROLL]]",
     ),
+    OptionSpec(
+        "adm_programme",
+        "text",
+        "the audioProgramme of an ADM master to render, by its ID or name; default the "
+        "file's first ('earfold adm inspect FILE' lists them); refused for other stems",
+        metavar="ID|NAME",
+    ),
     OptionSpec("room", "text", _ROOM_HELP + "; default none", default="none", metavar="ROOM"),
     OptionSpec(
         "room_mode",
@@ -348,6 +355,8 @@ class RenderSettings:
         ``"magls"`` or ``"virtual"``; None: virtual at first order, MagLS above.
     rotate : (float, float, float), optional
         Yaw, pitch, roll in degrees applied to a scene before decoding; None: none.
+    adm_programme : str, optional
+        The audioProgramme of an ADM master (ID or name); None: the first.
     """
 
     layout: str | os.PathLike[str] | Layout | None = None
@@ -370,6 +379,7 @@ class RenderSettings:
     ambisonic_norm: str | None = None
     ambisonic_decoder: str | None = None
     rotate: tuple[float, float, float] | None = None
+    adm_programme: str | None = None
 
 
 def output_format(path: str | os.PathLike[str], format: str | None = None) -> str:

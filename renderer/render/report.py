@@ -113,6 +113,7 @@ def render_report(
         "fold": plan.fold,
         "scene": plan.scene,
         "solo": plan.solo,
+        "adm": plan.adm,
         "speakers": list(plan.speakers),
         "lfe": {
             "cutoff_hz": settings.lfe.cutoff_hz,

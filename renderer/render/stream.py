@@ -21,8 +21,11 @@ from .plan import RenderPlan
 __all__ = ["HOT_INPUT_SCALE", "EngineOverflow", "engine_for", "stream"]
 
 
-def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine:
-    """The engine of ``plan``: its filter bank, shared tail and headphone EQ."""
+def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine | ObjectsEngine:
+    """The engine of ``plan``: its filter bank, shared tail and headphone EQ, and for an
+    ADM master with objects the moving-source engine beside it (:class:`ObjectsEngine`)."""
+    if plan.objects is not None:
+        return ObjectsEngine(plan, block_size)
     return FoldEngine(
         plan.filters,
         block_size,
@@ -31,6 +34,81 @@ def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine:
         tail_offset=plan.tail_offset,
         headphone=None if plan.headphone is None else plan.headphone.filters(),
     )
+
+
+class ObjectsEngine:
+    """An ADM master's engine: the fixed bank on its bed and HOA tracks
+    (:class:`FoldEngine`) and the moving-source engine on its object tracks
+    (:func:`~earfold.renderer.render.moving_sources.moving_source_engine`), summed frame
+    for frame.
+
+    The fixed engine hands back whole hops (possibly fewer frames than it was given), the
+    moving engine every frame: the moving output waits until the fixed output of the same
+    frames is there. After the input, both are given the same number of zero frames, so
+    the two outputs end together: ``input + frames`` frames in all.
+    """
+
+    def __init__(self, plan: RenderPlan, block_size: int) -> None:
+        from .moving_sources import moving_source_engine
+
+        objects, hset = plan.objects, plan.hrir_set
+        assert objects is not None and hset is not None
+        taken = set(objects.channels)
+        self.object_channels = list(objects.channels)
+        self.fixed_channels = [c for c in range(plan.stem.channels) if c not in taken]
+        filters = (
+            plan.filters[self.fixed_channels]
+            if self.fixed_channels
+            else np.zeros((1, 2, 1), dtype=np.float64)
+        )
+        self.fixed = FoldEngine(filters, block_size)
+        self.moving = moving_source_engine(hset, objects.paths, gain=objects.gain)
+        self.block_size = self.fixed.block_size
+        self._waiting: NDArray[np.float32] = np.zeros((0, 2), dtype=np.float32)
+
+    def _fixed_input(self, block: NDArray[Any]) -> NDArray[Any]:
+        if self.fixed_channels:
+            return block[:, self.fixed_channels]
+        return np.zeros((len(block), 1), dtype=np.float32)
+
+    def _summed(self, fixed: NDArray[Any]) -> NDArray[Any]:
+        n = len(fixed)
+        out = fixed + self._waiting[:n]
+        self._waiting = self._waiting[n:]
+        return out
+
+    def process(self, block: NDArray[Any]) -> NDArray[Any]:
+        """The output frames complete after ``block`` (``(n, 2)``, possibly fewer)."""
+        moving = self.moving.process(block[:, self.object_channels])
+        self._waiting = np.concatenate([self._waiting, moving.astype(np.float32, copy=False)])
+        return self._summed(self.fixed.process(self._fixed_input(block)))
+
+    def tail_blocks(self, frames: int) -> Iterator[NDArray[Any]]:
+        """The remaining output after the last input (``frames`` zero frames pushed)."""
+        sources = len(self.object_channels)
+        for fixed in self.fixed.tail_blocks(frames):
+            need = len(fixed) - len(self._waiting)
+            if need > 0:
+                more = self.moving.process(np.zeros((need, sources), dtype=np.float32))
+                self._waiting = np.concatenate([self._waiting, more.astype(np.float32)])
+            yield self._summed(fixed)
+
+    def close(self) -> None:
+        """Stop the fixed engine's threads."""
+        self.fixed.close()
+
+    def describe(self) -> dict[str, Any]:
+        """The report's ``engine`` section, with the moving engine's figures."""
+        return {
+            **self.fixed.describe(),
+            "objects": {
+                "sources": self.moving.sources,
+                "update_frames": self.moving.hop,
+                "filter_length": self.moving.filter_length,
+                "transform_size": self.moving.transform_size,
+                "post_filter_length": self.moving.post_length,
+            },
+        }
 
 
 _METER_BATCH = 262144

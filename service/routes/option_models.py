@@ -90,7 +90,7 @@ def _field(spec: OptionSpec) -> tuple[Any, Any]:
     elif spec.name == "room":
         # a room object is checked by the renderer's room schema (render_options)
         annotation = Name | Annotated[dict[str, Any], Field(json_schema_extra=_ROOM_OBJECT)]
-    elif spec.name == "hrtf":
+    elif spec.name in ("hrtf", "adm_programme"):
         annotation = Name
     elif spec.name == "solo":
         annotation = Label

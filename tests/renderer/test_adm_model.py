@@ -601,17 +601,19 @@ def test_the_inspect_command_prints_the_master_and_refuses_a_bad_one(master_path
     assert capsys.readouterr().err.startswith("earfold: error:")
 
 
-def test_render_refuses_an_adm_master_rather_than_mixing_its_tracks_as_loudspeakers(
+def test_render_takes_an_adm_master_by_its_metadata_and_refuses_a_layout_for_it(
     master_path, tmp_path, capsys
 ):
     from earfold.service.cli import main
 
     out = tmp_path / "out.wav"
-    for extra in ([], ["--layout", "7.1.4"]):
-        assert main(["render", str(master_path), "-o", str(out), *extra]) == 2
-        err = capsys.readouterr().err
-        assert "ADM object master" in err and "adm inspect" in err
+    assert main(["render", str(master_path), "-o", str(out), "--layout", "7.1.4"]) == 2
+    err = capsys.readouterr().err
+    assert "ADM object master" in err and "leave --layout out" in err and "adm inspect" in err
     assert not out.exists()
+    assert main(["render", str(master_path), "-o", str(out), "--quiet"]) == 0
+    assert out.exists()
+    out.unlink()
     # A broadcast WAV whose axml holds other metadata (no audioFormatExtended) and no chna
     # is audio like any other.
     other = write_master(

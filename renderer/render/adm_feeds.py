@@ -1,0 +1,188 @@
+"""What an ADM object master feeds the ears: beds, HOA packs and moving objects.
+
+An ADM master (:mod:`earfold.renderer.objects`) places each file track by its metadata:
+
+* a **bed** track (DirectSpeakers) is a loudspeaker at its position, rendered through the
+  HRTF set exactly as a channel render renders that loudspeaker (its LFE by label: the
+  LFE path, no HRIR);
+* the tracks of an **HOA** pack are Ambisonic channels of its order and normalisation,
+  decoded by the scene decoder (:func:`earfold.renderer.scenes.scene_decoder`);
+* an **object** track moves: its direction and gain are sampled from the metadata every
+  :data:`UPDATE_SECONDS` (BS.2076 interpolation, :func:`~earfold.renderer.objects.object_positions`)
+  into a :class:`~earfold.renderer.engine.SourcePath` that the moving-source engine follows
+  (filters updated every hop of at most 10 ms, outputs crossfaded).
+
+One calibration gain serves the whole master: the gain of its bed's loudspeakers as a
+channel render would calibrate them, or without a bed that of ITU-R BS.2051's 0+5+0
+(earfold's ``5.0``), so that an object resting at a loudspeaker's position renders as that
+loudspeaker does in a channel render of the same layout (a check of the tests).
+
+Coordinates: ADM polar positions are azimuth (positive to the left) and elevation in
+degrees, as ours; ADM cartesian positions (ITU-R BS.2076: X to the right, Y to the front,
+Z up) become our vector (x front, y left, z up) = (Y, -X, Z). Distance is not rendered (a
+direction only): the report says so when an object's distance changes.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..engine import SourcePath
+from ..geometry import direction_to_vector, vector_to_direction
+from ..layouts import Layout, Speaker
+from ..objects import AdmMaster, ObjectChannel, object_positions
+
+__all__ = [
+    "UPDATE_SECONDS",
+    "AdmTracks",
+    "adm_layout",
+    "object_path",
+    "position_vectors",
+]
+
+#: Interval of the samples of an object's metadata handed to the moving engine (s).
+UPDATE_SECONDS = 0.010
+
+
+@dataclass(frozen=True)
+class AdmTracks:
+    """The moving part of an ADM plan: which file tracks are objects and their paths.
+
+    Attributes
+    ----------
+    channels : tuple of int
+        File channels (0-based) of the objects, in the order of ``paths``.
+    paths : tuple of SourcePath
+        Each object's directions and gains over the stream's frames.
+    gain : float
+        The plan's calibration gain, applied to the objects' output.
+    report : tuple of dict
+        Each object's entry in the report (name, track, time span, motion).
+    """
+
+    channels: tuple[int, ...]
+    paths: tuple[SourcePath, ...]
+    gain: float
+    report: tuple[dict[str, Any], ...] = field(default_factory=tuple)
+    #: Length of the objects' whole response (moving filters and the set's EQ).
+    length: int = 1
+
+
+def position_vectors(positions: NDArray[np.float64], cartesian: bool) -> NDArray[np.float64]:
+    """Unit direction vectors (x front, y left, z up) of ADM positions ``(n, 3)``.
+
+    Polar: (azimuth, elevation, distance) in degrees, azimuth positive to the left.
+    Cartesian: (X right, Y front, Z up) per ITU-R BS.2076, so our vector is (Y, -X, Z); a
+    position at the centre (no direction) is taken as the front.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> position_vectors(np.array([[90.0, 0.0, 1.0]]), False).round(12).tolist()
+    [[0.0, 1.0, 0.0]]
+    >>> position_vectors(np.array([[-1.0, 0.0, 0.0]]), True).tolist()  # X = -1: the left
+    [[0.0, 1.0, 0.0]]
+    """
+    p = np.asarray(positions, dtype=np.float64).reshape(-1, 3)
+    if not cartesian:
+        v = np.stack([direction_to_vector(a, e) for a, e in p[:, :2]]) if len(p) else p
+        return np.asarray(v, dtype=np.float64)
+    v = np.stack([p[:, 1], -p[:, 0], p[:, 2]], axis=1)
+    norm = np.linalg.norm(v, axis=1, keepdims=True)
+    front = np.array([1.0, 0.0, 0.0])
+    return np.where(norm > 1e-9, v / np.maximum(norm, 1e-300), front)
+
+
+def object_path(
+    channel: ObjectChannel, frames: int, samplerate: float
+) -> tuple[SourcePath, dict[str, Any]]:
+    """The moving engine's path of an object track over ``frames`` frames, and its report.
+
+    The metadata is sampled every :data:`UPDATE_SECONDS`; runs of samples that neither
+    move nor change gain keep only their ends, so a static object holds two breakpoints
+    whatever the length.
+    """
+    step = max(1, int(round(UPDATE_SECONDS * samplerate)))
+    points = np.arange(0, frames + step, step, dtype=np.int64)
+    path = object_positions(channel, points / float(samplerate))
+    vectors = position_vectors(path.positions, path.cartesian)
+    gains = np.where(path.active, np.maximum(path.gain, 0.0), 0.0)
+    keep = np.ones(len(points), dtype=bool)
+    if len(points) > 2:
+        same = np.all(np.isclose(vectors[1:], vectors[:-1], atol=1e-12), axis=1) & np.isclose(
+            gains[1:], gains[:-1], atol=1e-15
+        )
+        # a sample is needed when it differs from its neighbour on either side
+        keep[1:-1] = ~(same[:-1] & same[1:])
+    entry: dict[str, Any] = {
+        "object": channel.object_name,
+        "object_id": channel.object_id,
+        "track": channel.track + 1,
+        "start_s": float(channel.start),
+        "end_s": None if channel.end is None else float(channel.end),
+        "muted": bool(channel.mute),
+        "breakpoints": int(keep.sum()),
+    }
+    for key, vector in (("first_direction_deg", vectors[0]), ("last_direction_deg", vectors[-1])):
+        az, el = vector_to_direction(vector)
+        entry[key] = [round(float(az), 2), round(float(el), 2)]
+    moving = np.flatnonzero(~np.all(np.isclose(vectors[1:], vectors[:-1], atol=1e-9), axis=1))
+    entry["moves_s"] = (
+        None
+        if moving.size == 0
+        else [
+            round(float(points[moving[0]] / samplerate), 3),
+            round(float(points[moving[-1] + 1] / samplerate), 3),
+        ]
+    )
+    extent = {
+        name: bool(np.any(np.asarray(getattr(path, name)) > 0))
+        for name in ("width", "height", "depth", "diffuse")
+    }
+    entry["not_rendered"] = [name for name, used in extent.items() if used]
+    if not path.cartesian and np.ptp(path.positions[:, 2]) > 1e-9:
+        entry["not_rendered"].append("distance")
+    return SourcePath(points[keep], vectors[keep], gains[keep]), entry
+
+
+def adm_layout(master: AdmMaster) -> Layout:
+    """A layout with one entry per file track, for the plan's bookkeeping (labels, the
+    meter's channel weights, the report): beds at their positions (LFE flagged), objects
+    at their first position, HOA and unused tracks at the front. Labels are unique:
+    ``"<track>:<name>"``."""
+    speakers: list[Speaker] = []
+    by_track: dict[int, Speaker] = {}
+    for bed in master.beds:
+        az, el = _polar(bed.position, bed.cartesian)
+        by_track[bed.track] = Speaker(
+            f"{bed.track + 1}:{bed.label or bed.object_name}", az, el, lfe=bed.lfe
+        )
+    for obj in master.objects:
+        first = object_positions(obj, np.array([float(obj.start)]))
+        obj_az, obj_el = vector_to_direction(position_vectors(first.positions, first.cartesian)[0])
+        by_track[obj.track] = Speaker(
+            f"{obj.track + 1}:{obj.object_name}", float(obj_az), float(obj_el)
+        )
+    for pack in master.hoa:
+        for track, acn in zip(pack.tracks, pack.acns):
+            by_track[track] = Speaker(f"{track + 1}:ACN{acn}", 0.0, 0.0)
+    for track in range(master.channels):
+        speakers.append(by_track.get(track, Speaker(f"{track + 1}:unused", 0.0, 0.0)))
+    return Layout(
+        "ADM",
+        tuple(speakers),
+        f"ADM master: {len(master.beds)} bed, {len(master.objects)} object and "
+        f"{sum(len(p.tracks) for p in master.hoa)} HOA track(s)",
+        "ITU-R BS.2076 metadata of the file",
+    )
+
+
+def _polar(position: tuple[float, float, float], cartesian: bool) -> tuple[float, float]:
+    if not cartesian:
+        return float(position[0]), float(position[1])
+    az, el = vector_to_direction(position_vectors(np.array([position]), True)[0])
+    return float(az), float(el)
