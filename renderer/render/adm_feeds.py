@@ -89,8 +89,7 @@ def position_vectors(positions: NDArray[np.float64], cartesian: bool) -> NDArray
     """
     p = np.asarray(positions, dtype=np.float64).reshape(-1, 3)
     if not cartesian:
-        v = np.stack([direction_to_vector(a, e) for a, e in p[:, :2]]) if len(p) else p
-        return np.asarray(v, dtype=np.float64)
+        return np.asarray(direction_to_vector(p[:, 0], p[:, 1]), dtype=np.float64)
     v = np.stack([p[:, 1], -p[:, 0], p[:, 2]], axis=1)
     norm = np.linalg.norm(v, axis=1, keepdims=True)
     front = np.array([1.0, 0.0, 0.0])

@@ -695,9 +695,7 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
     """The plan of an ADM object master (see :mod:`.adm_feeds`): beds and HOA tracks as
     the fixed filter bank, objects as paths for the moving-source engine, one calibration
     gain for all of them."""
-    from ..scenes import scene_decoder
     from .moving_sources import moving_source_engine
-    from .scene_feeds import scene_taps
 
     name = Path(stem.paths[0]).name
     refused = [
@@ -752,6 +750,9 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
         stacked[i, :, : feed.filters.shape[-1]] = feed.filters
     gain = _calibrate(stacked, reference_feeds, None, None, 0, rate)
     for pack in master.hoa:
+        from ..scenes import scene_decoder  # here: a master without HOA never loads it
+        from .scene_feeds import scene_taps
+
         decoder = scene_decoder(hset, pack.order, samplerate=rate, taps=scene_taps(hset))
         notes.extend(f"HOA {pack.object_name!r}: {w}" for w in decoder.warnings)
         bank = decoder.for_input(pack.normalization.lower())
