@@ -145,7 +145,9 @@ def test_render_events_follow_a_render_to_done_then_end(live, tmp_path, request,
     server = live(tokens=("alice-token",), **queue)
     auth = {"Authorization": "Bearer alice-token"}
     with httpx.Client(base_url=server.url, headers=auth, timeout=30) as http:
-        path = write_stem(tmp_path / "long.wav", FS * 20, 2)
+        # Long enough, with the engine fed 64-frame blocks, to take several of the render
+        # process's 0.1 s progress intervals even in a warm process on an idle machine.
+        path = write_stem(tmp_path / "long.wav", FS * 90, 2, subtype="PCM_16")
         stem = http.post("/v1/stems", files=files_field([path])).json()
         job = http.post(
             "/v1/renders", json={"stem_id": stem["id"], "layout": "2.0", "block_size": 64}
