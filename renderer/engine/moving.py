@@ -74,6 +74,7 @@ __all__ = [
     "PairFunction",
     "PairTable",
     "SourcePath",
+    "update_hop",
 ]
 
 #: Longest interval between filter updates (seconds): the hop is at most this long.
@@ -241,6 +242,35 @@ class _DirectionGrid:
         return np.stack([np.cos(el) * np.cos(az), np.cos(el) * np.sin(az), np.sin(el)], axis=1)
 
 
+def update_hop(samplerate: float, hop: int | None = None) -> int:
+    """The frames between filter or gain updates at ``samplerate``: ``hop``, checked to be
+    a whole number from 1 to :data:`MAX_UPDATE_SECONDS` of frames, or that longest hop.
+
+    Examples
+    --------
+    >>> update_hop(48000), update_hop(48000, 256)
+    (480, 256)
+    """
+    if (
+        isinstance(samplerate, bool)
+        or not isinstance(samplerate, (int, float, np.integer, np.floating))
+        or not math.isfinite(samplerate)
+        or samplerate <= 0
+    ):
+        raise AudioError(f"samplerate must be a positive number, got {shown(samplerate)}")
+    longest = int(MAX_UPDATE_SECONDS * samplerate + 1e-9)
+    if longest < 1:
+        raise AudioError(f"samplerate {shown(samplerate)} Hz is too low for 10 ms updates")
+    if hop is None:
+        return longest
+    if isinstance(hop, bool) or not isinstance(hop, (int, np.integer)) or not 1 <= hop <= longest:
+        raise AudioError(
+            f"hop must be a whole number of frames from 1 to {longest} (10 ms at "
+            f"{float(samplerate):g} Hz), got {shown(hop)}"
+        )
+    return int(hop)
+
+
 class PairTable:
     """Filter spectra of directions, each computed once (see the module's notes).
 
@@ -275,27 +305,7 @@ class PairTable:
         grid_step_deg: float = GRID_STEP_DEG,
         dtype: np.dtype[Any] | type = np.float32,
     ) -> None:
-        if (
-            isinstance(samplerate, bool)
-            or not isinstance(samplerate, (int, float, np.integer, np.floating))
-            or not math.isfinite(samplerate)
-            or samplerate <= 0
-        ):
-            raise AudioError(f"samplerate must be a positive number, got {shown(samplerate)}")
-        longest = int(MAX_UPDATE_SECONDS * samplerate + 1e-9)
-        if longest < 1:
-            raise AudioError(f"samplerate {shown(samplerate)} Hz is too low for 10 ms updates")
-        if hop is None:
-            hop = longest
-        if (
-            isinstance(hop, bool)
-            or not isinstance(hop, (int, np.integer))
-            or not 1 <= hop <= longest
-        ):
-            raise AudioError(
-                f"hop must be a whole number of frames from 1 to {longest} (10 ms at "
-                f"{float(samplerate):g} Hz), got {shown(hop)}"
-            )
+        hop = update_hop(samplerate, hop)
         if not 0.5 <= grid_step_deg <= 10.0:
             raise AudioError(f"grid_step_deg must be from 0.5 to 10, got {shown(grid_step_deg)}")
         try:

@@ -26,7 +26,7 @@ from numpy.typing import NDArray
 
 from ..errors import AudioError, LayoutError
 from .convolution import FloatArray, RealArray
-from .moving import LOOKAHEAD_HOPS, MAX_UPDATE_SECONDS, SourcePath
+from .moving import LOOKAHEAD_HOPS, SourcePath, update_hop
 
 __all__ = ["GainFunction", "PanningMixer"]
 
@@ -75,18 +75,7 @@ class PanningMixer:
         paths = list(paths)
         if not paths or not all(isinstance(p, SourcePath) for p in paths):
             raise AudioError("a panning mixer needs one SourcePath per source, at least one")
-        longest = int(MAX_UPDATE_SECONDS * float(samplerate) + 1e-9)
-        if not np.isfinite(samplerate) or longest < 1:
-            raise AudioError(f"samplerate must allow 10 ms updates, got {samplerate!r}")
-        hop = longest if hop is None else hop
-        if (
-            isinstance(hop, bool)
-            or not isinstance(hop, (int, np.integer))
-            or not 1 <= hop <= longest
-        ):
-            raise AudioError(
-                f"hop must be a whole number of frames from 1 to {longest}, got {hop!r}"
-            )
+        hop = update_hop(samplerate, hop)
         real = np.dtype(dtype)
         if real not in (np.dtype(np.float32), np.dtype(np.float64)):
             raise AudioError(f"dtype must be one of 'float32', 'float64', got {dtype!r}")
