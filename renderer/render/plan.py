@@ -439,38 +439,10 @@ def _built_plan(
     solo: dict[str, Any] | None,
 ) -> RenderPlan:
     """The plan's filter bank computed: the feeds of every channel, the room, calibration."""
-    room_filters, room_report = None, None
-    if requested_room is not None and _is_measured_room(hset):
-        warnings.append(
-            f"HRTF set {hset.name!r} already holds room responses (RoomType "
-            f"{hset.room_type!r}); rendered as measured, the synthetic room "
-            f"{requested_room.name!r} was not added"
-        )
-        room_report = {
-            "synthetic": False,
-            "measured_room": True,
-            "room_type": hset.room_type,
-            "requested": requested_room.name,
-        }
-    elif requested_room is not None:
-        room_filters, prepared = _prepared_room(
-            hset, layout, requested_room, stem.samplerate, settings.seed, set_key, cache
-        )
-        room_report = {
-            "synthetic": True,
-            "mode": settings.room_mode,
-            **room_filters.report,
-            "cache": prepared,
-        }
-        warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
-        notes.extend(f"room: {n}" for n in room_filters.report.get("notes", []))
-    elif _is_measured_room(hset):
-        room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
-
-    if cache is not None and set_key is not None:  # what the set's lookups prepared before
-        lookups = cache.get("lookup", set_key, _lookups_entry_ok)
-        if lookups is not None:
-            _lookup_set(hset).with_lookup_state(lookups[0])
+    room_filters, room_report = _room_part(
+        hset, layout, requested_room, stem.samplerate, settings, set_key, cache, warnings, notes
+    )
+    _take_lookups(hset, set_key, cache)
     exact = room_filters is not None and settings.room_mode == "exact"
     feeds = speaker_feeds(
         layout,
@@ -620,39 +592,17 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
                 solo=solo,
             )
     added, added_notes = len(warnings), len(notes)
-    room_filters, room_report = None, None
-    if requested_room is not None and _is_measured_room(hset):
-        warnings.append(
-            f"HRTF set {hset.name!r} already holds room responses (RoomType "
-            f"{hset.room_type!r}); rendered as measured, the synthetic room "
-            f"{requested_room.name!r} was not added"
-        )
-        room_report = {
-            "synthetic": False,
-            "measured_room": True,
-            "room_type": hset.room_type,
-            "requested": requested_room.name,
-        }
-    elif requested_room is not None:
-        virtual = virtual_room_layout(asked.order, requested_room)
-        room_filters, prepared = _prepared_room(
-            hset, virtual, requested_room, stem.samplerate, settings.seed, set_key, cache
-        )
-        room_report = {
-            "synthetic": True,
-            "mode": settings.room_mode,
-            **room_filters.report,
-            "cache": prepared,
-            "virtual_layout": virtual.description,
-        }
-        warnings.extend(f"room: {w}" for w in room_filters.report.get("warnings", []))
-        notes.extend(f"room: {n}" for n in room_filters.report.get("notes", []))
-    elif _is_measured_room(hset):
-        room_report = {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
-    if cache is not None and set_key is not None:
-        lookups = cache.get("lookup", set_key, _lookups_entry_ok)
-        if lookups is not None:
-            _lookup_set(hset).with_lookup_state(lookups[0])
+    virtual = (
+        None
+        if requested_room is None or _is_measured_room(hset)
+        else virtual_room_layout(asked.order, requested_room)
+    )
+    room_filters, room_report = _room_part(
+        hset, virtual, requested_room, stem.samplerate, settings, set_key, cache, warnings, notes
+    )
+    if room_report is not None and virtual is not None and room_report.get("synthetic"):
+        room_report["virtual_layout"] = virtual.description
+    _take_lookups(hset, set_key, cache)
     bank = scene_bank(
         scene,
         hset,
@@ -848,6 +798,55 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
         objects=objects,
         adm=section,
     )
+
+
+def _room_part(
+    hset: HrirSet,
+    layout: Layout | None,
+    room: Room | None,
+    samplerate: float,
+    settings: RenderSettings,
+    set_key: dict[str, Any] | None,
+    cache: FilterCache | None,
+    warnings: list[str],
+    notes: list[str],
+) -> tuple[RoomFilters | None, dict[str, Any] | None]:
+    """The synthetic room's filters for ``layout`` and the report's room section.
+
+    A set that holds room responses already is rendered as measured (a warning when a
+    synthetic room was asked for); the room's own warnings and notes join the plan's.
+    """
+    if room is not None and _is_measured_room(hset):
+        warnings.append(
+            f"HRTF set {hset.name!r} already holds room responses (RoomType "
+            f"{hset.room_type!r}); rendered as measured, the synthetic room "
+            f"{room.name!r} was not added"
+        )
+        return None, {
+            "synthetic": False,
+            "measured_room": True,
+            "room_type": hset.room_type,
+            "requested": room.name,
+        }
+    if room is not None and layout is not None:
+        filters, prepared = _prepared_room(
+            hset, layout, room, samplerate, settings.seed, set_key, cache
+        )
+        warnings.extend(f"room: {w}" for w in filters.report.get("warnings", []))
+        notes.extend(f"room: {n}" for n in filters.report.get("notes", []))
+        report = {"synthetic": True, "mode": settings.room_mode, **filters.report}
+        return filters, {**report, "cache": prepared}
+    if _is_measured_room(hset):
+        return None, {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
+    return None, None
+
+
+def _take_lookups(hset: HrirSet, set_key: dict[str, Any] | None, cache: FilterCache | None) -> None:
+    """Give ``hset`` the direction lookups a render of it prepared before (cache), if any."""
+    if cache is not None and set_key is not None:
+        lookups = cache.get("lookup", set_key, _lookups_entry_ok)
+        if lookups is not None:
+            _lookup_set(hset).with_lookup_state(lookups[0])
 
 
 def _solo(layout: Layout, order: Sequence[int], label: str | None) -> dict[str, Any] | None:
