@@ -42,7 +42,12 @@ _SILENT_UID = "ATU_00000000"  # BS.2076: a reference to this UID is a silent tra
 _UNSUPPORTED_TYPES = ("Matrix", "Binaural")
 
 
-def read_adm(path: str | os.PathLike[str], *, programme: str | None = None) -> AdmMaster:
+def read_adm(
+    path: str | os.PathLike[str],
+    *,
+    programme: str | None = None,
+    chunks: WavChunks | None = None,
+) -> AdmMaster:
     """Read an ADM broadcast WAV (RIFF, RF64 or BW64) and resolve one programme.
 
     Parameters
@@ -52,6 +57,8 @@ def read_adm(path: str | os.PathLike[str], *, programme: str | None = None) -> A
     programme
         The audioProgramme to play, by ID (``APR_1001``) or name; None for the first in
         the file.
+    chunks
+        The file's header walk (:func:`read_wav_chunks`) when the caller has it already.
 
     Returns
     -------
@@ -65,7 +72,8 @@ def read_adm(path: str | os.PathLike[str], *, programme: str | None = None) -> A
         If the header, ``chna`` or ``axml`` is broken or past a limit, a reference is
         missing or circular, or ``programme`` names none of the file's programmes.
     """
-    chunks = read_wav_chunks(path)
+    if chunks is None:
+        chunks = read_wav_chunks(path)
     if chunks.axml is None:
         raise AdmError(f"{chunks.path!r} has no axml chunk: it is not an ADM master")
     if chunks.chna is None:

@@ -178,7 +178,7 @@ def _adm_master(stem: StemInfo, settings: RenderSettings) -> AdmMaster | None:
             "chna) places every track, so no layout is given for it; leave --layout out "
             f"('earfold adm inspect {name}' lists what it holds)"
         )
-    return read_adm(stem.paths[0], programme=settings.adm_programme)
+    return read_adm(stem.paths[0], programme=settings.adm_programme, chunks=chunks)
 
 
 def _stem_labels(stem: StemInfo) -> list[str] | None:
