@@ -8,7 +8,11 @@ ITU-R BS.2094 for formats a file references without defining.
   (objects with their blocks, bed loudspeakers, HOA packs; what is ignored and why).
 - :func:`object_positions`: an object's position, gain and extent at any times
   (BS.2076-2 interpolation: ``jumpPosition``, ``interpolationLength``).
-- :func:`inspect_adm`: a JSON-ready summary for a command or a page.
+- :func:`inspect_adm`: a JSON-ready summary for a command or a page; :func:`probe_adm`
+  the short one an upload gives (None for a WAV that is not a master);
+  :func:`object_paths` each object's direction and gain over time, sampled for drawing.
+- :func:`direction_vectors`: ADM positions (polar, or cartesian X right, Y front, Z up)
+  as our unit vectors.
 - :func:`read_wav_chunks`: the header walk alone (``fmt ``, ``data``, ``chna``, ``axml``).
 
 Modules, each one concept: ``_chunks`` (RIFF/RF64/BW64), ``_chna``, ``_xml`` (safe
@@ -27,7 +31,15 @@ from ._common_data import (
     COMMON_HOA_PACKS,
     COMMON_SPEAKER_PACKS,
 )
-from ._inspect import inspect_adm, motion_summary
+from ._inspect import (
+    MAX_LISTED,
+    PATH_POINTS,
+    inspect_adm,
+    is_adm_chunks,
+    motion_summary,
+    object_paths,
+    probe_adm,
+)
 from ._limits import (
     MAX_ATTRIBUTE_CHARS,
     MAX_ATTRIBUTES,
@@ -49,7 +61,7 @@ from ._model import (
     PackFormat,
     SpeakerBlock,
 )
-from ._positions import ObjectPath, object_positions
+from ._positions import ObjectPath, direction_vectors, object_positions
 from ._read import read_adm
 from ._time import format_time, parse_time
 
@@ -64,8 +76,10 @@ __all__ = [
     "MAX_BLOCKS_PER_CHANNEL",
     "MAX_DEPTH",
     "MAX_ELEMENTS",
+    "MAX_LISTED",
     "MAX_TEXT_CHARS",
     "MAX_TOTAL_BLOCKS",
+    "PATH_POINTS",
     "AdmMaster",
     "BedChannel",
     "ChannelFormat",
@@ -78,12 +92,16 @@ __all__ = [
     "PackFormat",
     "SpeakerBlock",
     "WavChunks",
+    "direction_vectors",
     "format_time",
     "inspect_adm",
+    "is_adm_chunks",
     "motion_summary",
+    "object_paths",
     "object_positions",
     "parse_chna",
     "parse_time",
+    "probe_adm",
     "read_adm",
     "read_wav_chunks",
 ]

@@ -28,9 +28,10 @@ import numpy as np
 import numpy.typing as npt
 
 from ..errors import AdmError
+from ..geometry import direction_to_vector
 from ._model import ObjectChannel
 
-__all__ = ["ObjectPath", "object_positions"]
+__all__ = ["ObjectPath", "direction_vectors", "object_positions"]
 
 Floats = npt.NDArray[np.float64]
 
@@ -151,3 +152,27 @@ def object_positions(channel: ObjectChannel, times: npt.ArrayLike) -> ObjectPath
         diffuse=np.ascontiguousarray(current[:, 7]),
         active=active,
     )
+
+
+def direction_vectors(positions: npt.ArrayLike, cartesian: bool) -> Floats:
+    """Unit direction vectors (x front, y left, z up) of ADM positions ``(n, 3)``.
+
+    Polar: (azimuth, elevation, distance) in degrees, azimuth positive to the left, as
+    ours. Cartesian: (X right, Y front, Z up) per ITU-R BS.2076, so our vector is
+    (Y, -X, Z); a position at the centre (no direction) is taken as the front.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> direction_vectors(np.array([[90.0, 0.0, 1.0]]), False).round(12).tolist()
+    [[0.0, 1.0, 0.0]]
+    >>> direction_vectors(np.array([[-1.0, 0.0, 0.0]]), True).tolist()  # X = -1: the left
+    [[0.0, 1.0, 0.0]]
+    """
+    p = np.asarray(positions, dtype=np.float64).reshape(-1, 3)
+    if not cartesian:
+        return np.asarray(direction_to_vector(p[:, 0], p[:, 1]), dtype=np.float64)
+    v = np.stack([p[:, 1], -p[:, 0], p[:, 2]], axis=1)
+    norm = np.linalg.norm(v, axis=1, keepdims=True)
+    front = np.array([1.0, 0.0, 0.0])
+    return np.asarray(np.where(norm > 1e-9, v / np.maximum(norm, 1e-300), front))
