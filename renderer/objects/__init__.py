@@ -10,7 +10,8 @@ ITU-R BS.2094 for formats a file references without defining.
   (BS.2076-2 interpolation: ``jumpPosition``, ``interpolationLength``).
 - :func:`inspect_adm`: a JSON-ready summary for a command or a page; :func:`probe_adm`
   the short one an upload gives (None for a WAV that is not a master);
-  :func:`object_paths` each object's direction and gain over time, sampled for drawing.
+  :func:`object_paths` each object's direction and gain over time, sampled for drawing,
+  and :func:`adm_overview` both with the bed's directions, for a page.
 - :func:`direction_vectors`: ADM positions (polar, or cartesian X right, Y front, Z up)
   as our unit vectors.
 - :func:`read_wav_chunks`: the header walk alone (``fmt ``, ``data``, ``chna``, ``axml``).
@@ -34,6 +35,7 @@ from ._common_data import (
 from ._inspect import (
     MAX_LISTED,
     PATH_POINTS,
+    adm_overview,
     inspect_adm,
     is_adm_chunks,
     motion_summary,
@@ -92,6 +94,7 @@ __all__ = [
     "PackFormat",
     "SpeakerBlock",
     "WavChunks",
+    "adm_overview",
     "direction_vectors",
     "format_time",
     "inspect_adm",

@@ -11,13 +11,14 @@ import numpy as np
 
 from ..errors import AdmError, RendererError
 from ..geometry import vector_to_direction
-from ._chunks import read_wav_chunks
+from ._chunks import WavChunks, read_wav_chunks
 from ._model import AdmMaster, ObjectChannel
 from ._positions import direction_vectors, object_positions
 from ._read import read_adm
 
 __all__ = [
     "MAX_LISTED",
+    "adm_overview",
     "PATH_POINTS",
     "inspect_adm",
     "is_adm_chunks",
@@ -135,13 +136,25 @@ def probe_adm(
         return None  # not a chunk structure we read: plain audio, as the renderer sees it
     if not is_adm_chunks(chunks.chna, chunks.axml):
         return None
+    return _short_summary(_read_named(path, programme, chunks))
+
+
+def _read_named(
+    path: str | os.PathLike[str], programme: str | None, chunks: WavChunks | None = None
+) -> AdmMaster:
+    """:func:`read_adm`, its errors naming the file (the reader's messages about the XML
+    name the element, not the file)."""
     try:
-        master = read_adm(path, programme=programme, chunks=chunks)
+        return read_adm(path, programme=programme, chunks=chunks)
     except AdmError as exc:
         name = os.path.basename(os.fspath(path))
         if name in str(exc):
             raise
-        raise AdmError(f"{name!r} is an ADM master that cannot be read: {exc}") from None
+        raise AdmError(f"ADM master {name!r}: {exc}") from None
+
+
+def _short_summary(master: AdmMaster) -> dict[str, Any]:
+    """:func:`probe_adm`'s summary of a master read."""
     return {
         "container": master.container,
         "tracks": master.channels,
@@ -158,6 +171,41 @@ def probe_adm(
         "ignored": _listed(list(master.ignored)),
         "ignored_total": len(master.ignored),
         "notes": _listed(list(master.notes)),
+    }
+
+
+def adm_overview(
+    path: str | os.PathLike[str], *, programme: str | None = None, points: int = PATH_POINTS
+) -> dict[str, Any]:
+    """What a page draws of an ADM master: :func:`probe_adm`'s summary of ``programme``
+    (default the first) with each object's path (:func:`object_paths`, ``"paths"``) and
+    each bed loudspeaker's direction (``"bed_directions"``: ``{"label", "track",
+    "azimuth_deg", "elevation_deg", "lfe"}``, track 1-based).
+
+    Raises
+    ------
+    AdmError
+        If ``path`` is not an ADM master or cannot be read, as :func:`probe_adm`, or
+        ``points`` is out of range (:func:`object_paths`).
+    """
+    master = _read_named(path, programme)
+    beds = []
+    for bed in master.beds:
+        (vector,) = direction_vectors(np.array([bed.position]), bed.cartesian)
+        az, el = vector_to_direction(vector)
+        beds.append(
+            {
+                "label": bed.label,
+                "track": bed.track + 1,
+                "azimuth_deg": round(float(az), 2) + 0.0,
+                "elevation_deg": round(float(el), 2) + 0.0,
+                "lfe": bed.lfe,
+            }
+        )
+    return {
+        **_short_summary(master),
+        "paths": object_paths(master, points=points),
+        "bed_directions": beds,
     }
 
 

@@ -26,6 +26,7 @@ from earfold.renderer.errors import AdmError
 from earfold.renderer.io import write_audio
 from earfold.renderer.objects import (
     PATH_POINTS,
+    adm_overview,
     direction_vectors,
     object_paths,
     object_positions,
@@ -167,8 +168,39 @@ def test_the_probe_of_a_master_counts_what_its_programme_plays(tmp_path):
     assert summary["ignored"] == [] and summary["container"] == "RIFF"
     second = probe_adm(path, programme="Mix 2")
     assert second["programme"]["id"] == "APR_1002" and second["objects"] == 1
-    with pytest.raises(AdmError, match="Mix 3"):
+    with pytest.raises(AdmError, match="'m.wav': no audioProgramme 'Mix 3'"):
         probe_adm(path, programme="Mix 3")
+
+
+def test_the_overview_adds_paths_and_bed_directions(tmp_path):
+    """A 5.1 bed (common definitions, ITU-R BS.2094 AP_00010003) and one object: the bed's
+    loudspeakers at their BS.2051 directions (0+5+0: L at +30, Ls at +110, from memory)."""
+    bed = [(k, f"ATU_{k:08X}", f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
+    elements = [
+        programme("APR_1001", "Main", ["ACO_1001"]),
+        content("ACO_1001", "All", ["AO_1001", "AO_1002"]),
+        audio_object("AO_1001", "Bed", packs=["AP_00010003"], uids=[e[1] for e in bed]),
+        audio_object("AO_1002", "Gull", packs=["AP_00031001"], uids=["ATU_00000007"]),
+        pack("AP_00031001", "Objects", ["AC_00031001"]),
+        channel("AC_00031001", "Objects", [object_block("AC_00031001", 1, az=10.0, el=5.0)]),
+        stream_and_track("AC_00031001", "AP_00031001"),
+    ]
+    entries = [*bed, (7, "ATU_00000007", "AT_00031001_01", "AP_00031001")]
+    path = write_master(
+        tmp_path / "m.wav",
+        audio=np.zeros((RATE, 7), np.float32),
+        rate=RATE,
+        chna=chna_body(entries),
+        axml=document(*elements),
+    )
+    overview = adm_overview(path, points=50)
+    assert (overview["beds"], overview["objects"]) == (6, 1)
+    directions = {d["label"]: d for d in overview["bed_directions"]}
+    assert (directions["M+030"]["azimuth_deg"], directions["M+030"]["track"]) == (30.0, 1)
+    assert directions["M-110"]["azimuth_deg"] == -110.0
+    assert directions["LFE"]["lfe"] and not directions["M+000"]["lfe"]
+    (gull,) = overview["paths"]
+    assert gull["azimuth_deg"] == [10.0, 10.0] and gull["elevation_deg"] == [5.0, 5.0]
 
 
 def test_the_probe_says_none_for_plain_audio_and_names_a_broken_master(tmp_path):
@@ -192,5 +224,5 @@ def test_the_probe_says_none_for_plain_audio_and_names_a_broken_master(tmp_path)
             "</audioFormatExtended>", ""
         ),
     )
-    with pytest.raises(AdmError, match=r"'broken.wav' is an ADM master .*not well-formed"):
+    with pytest.raises(AdmError, match=r"ADM master 'broken.wav': axml is not well-formed"):
         probe_adm(broken)
