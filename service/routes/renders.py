@@ -191,6 +191,64 @@ def _scene_checks(req: Any, layout: Layout, stem: dict) -> None:
         raise _refuse("layout", str(exc)) from None
 
 
+#: Options an ADM master's render refuses in this version, with the value that means
+#: "not given" (the renderer's plan refuses the same: earfold.renderer.render.plan).
+_NOT_FOR_ADM = (
+    "channel_order",
+    "solo",
+    "fold",
+    "headphone_eq",
+    "room",
+    "ambisonic_norm",
+    "ambisonic_decoder",
+    "rotate",
+)
+
+
+def _adm_checks(req: Any, stem: dict) -> None:
+    """422 naming the option for a layout, or an option an ADM master's render does not
+    take, on an ADM master; for ``adm_programme``, a programme the master does not have;
+    and for ``adm_programme`` on any other stem."""
+    adm = stem.get("adm")
+    programme = getattr(req, "adm_programme", None)
+    if not adm:
+        if programme is not None:
+            raise _refuse(
+                "adm_programme",
+                "adm_programme applies to ADM masters only (a WAV with BS.2076 axml and "
+                "chna chunks); this stem is channels: leave it out",
+            )
+        return
+    name = stem["files"][0]["name"] if stem.get("files") else "the stem"
+    if req.layout is not None:
+        raise _refuse(
+            "layout",
+            f"{name!r} is an ADM object master: its metadata (ITU-R BS.2076, axml and chna) "
+            "places every track, so it takes no layout; leave 'layout' out",
+        )
+    for option_name in _NOT_FOR_ADM:
+        value = getattr(req, option_name, None)
+        given = value not in (None, [], "")
+        if option_name == "fold":
+            given = value == "stereo"
+        elif option_name == "room":
+            given = value not in (None, "none")
+        if given:
+            raise _refuse(
+                option_name,
+                f"{option_name}: not available for ADM masters in this version ({name!r} is "
+                "rendered as its metadata places it, free field); leave it out",
+            )
+    listed = adm.get("programmes") or []
+    if programme is not None and len(listed) == adm.get("programmes_total", len(listed)):
+        if not any(programme.upper() == p["id"] or programme == p["name"] for p in listed):
+            choices = ", ".join(f"{p['id']} ({p['name']!r})" for p in listed) or "none"
+            raise _refuse(
+                "adm_programme",
+                f"no audioProgramme {programme!r} in {name!r}; its programmes: {choices}",
+            )
+
+
 def room_object(value: dict, field: str) -> None:
     """422 naming ``field`` unless ``value`` is a room the renderer accepts (the schema of
     a ``--room FILE.json``, :func:`earfold.renderer.room.room_from_dict`)."""
@@ -263,10 +321,9 @@ def _job(request: Request, render_id: str, owner: str) -> Job:
     return job
 
 
-def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[dict, str | None]:
-    """A render job's options and uploaded HRTF id for ``req`` on ``stem``, every option
-    checked against the stem's probe (422 problems otherwise). Also used by comparisons,
-    whose variants are renders of one stem."""
+def _checked_layout(req: Any, stem: dict) -> Layout:
+    """The layout of a render of a stem of channels, checked with its scene options,
+    channel count, channel order and solo (422 problems otherwise)."""
     layout = _layout(req.layout, stem)
     _scene_checks(req, layout, stem)
     if not isinstance(layout, SceneLayout) and layout.channels != stem["channels"]:
@@ -288,6 +345,16 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
             layout.index(req.solo)  # an unknown label: 422 now, not a failed job later
     except LayoutError as exc:
         raise Problem(UNPROCESSABLE, str(exc)) from None
+    return layout
+
+
+def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[dict, str | None]:
+    """A render job's options and uploaded HRTF id for ``req`` on ``stem``, every option
+    checked against the stem's probe (422 problems otherwise). Also used by comparisons,
+    whose variants are renders of one stem. An ADM master (``stem["adm"]``) takes no
+    layout: its metadata places the tracks."""
+    _adm_checks(req, stem)
+    layout = None if stem.get("adm") else _checked_layout(req, stem)
     try:
         option("block_size").check(req.block_size)
     except OptionError as exc:
@@ -317,8 +384,9 @@ def render_options(req: Any, stem: dict, storage: Storage, owner: str) -> tuple[
     # Every declared option, as JSON; the worker checks them again against the declaration
     # (earfold.service.jobs.render_child.build_settings).
     options = req.model_dump(mode="json", include={s.name for s in http_options()})
+    if layout is not None:
+        options["layout"] = layout.to_dict() if isinstance(req.layout, dict) else layout.name
     options.update(
-        layout=layout.to_dict() if isinstance(req.layout, dict) else layout.name,
         hrtf=shipped,
         format=fmt,
     )

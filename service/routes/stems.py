@@ -8,10 +8,10 @@ import time
 from pathlib import Path
 
 from anyio import to_thread
-from fastapi import APIRouter, Depends, Request, Response
+from fastapi import APIRouter, Depends, Query, Request, Response
 from pydantic import BaseModel, Field
 
-from earfold.renderer.errors import AudioError
+from earfold.renderer.errors import AdmError, AudioError
 from earfold.renderer.io import measure_levels, probe_stem
 from earfold.renderer.layouts import (
     LAYOUTS,
@@ -20,6 +20,7 @@ from earfold.renderer.layouts import (
     labels_from_mask,
     suggest_layout,
 )
+from earfold.renderer.objects import PATH_POINTS, adm_overview, probe_adm
 
 from ..auth import current_owner
 from ..problems import (
@@ -68,6 +69,52 @@ class StemLevelsView(BaseModel):
     channels: list[ChannelLevelsView]
 
 
+class ObjectPathView(BaseModel):
+    """One object of an ADM master: its direction and gain over its time span."""
+
+    object: str = Field(description="the audioObject's name")
+    object_id: str = Field(description="the audioObject's ID, e.g. AO_1001")
+    track: int = Field(ge=1, description="the file track that carries it, from 1 (chna)")
+    start_s: float = Field(ge=0, description="when it starts, s from the file's start")
+    end_s: float | None = Field(description="when it ends (s); null: with the file")
+    muted: bool
+    cartesian: bool = Field(description="whether the file gives X, Y, Z rather than angles")
+    blocks: int = Field(ge=1, description="its audioBlockFormats")
+    times_s: list[float] = Field(description="sample times, s from the file's start")
+    azimuth_deg: list[float] = Field(
+        description="azimuth at each time, degrees counter-clockwise from the front (left +)"
+    )
+    elevation_deg: list[float] = Field(description="elevation at each time, degrees up")
+    gain: list[float] = Field(description="linear gain at each time (0 where muted)")
+
+
+class BedDirectionView(BaseModel):
+    """One bed loudspeaker (DirectSpeakers) of an ADM master."""
+
+    label: str | None = Field(description="its speaker label, e.g. M+030")
+    track: int = Field(ge=1)
+    azimuth_deg: float
+    elevation_deg: float
+    lfe: bool
+
+
+class StemObjectsView(BaseModel):
+    """An ADM master's programme: its summary, object paths and bed directions."""
+
+    model_config = {"extra": "allow"}
+
+    programme: dict = Field(description="the programme drawn: {id, name}")
+    programmes: list[dict] = Field(description="every programme of the file: {id, name}")
+    duration_s: float
+    objects: int = Field(ge=0, description="object tracks the programme plays")
+    beds: int = Field(ge=0, description="bed loudspeakers the programme plays")
+    hoa_tracks: int = Field(ge=0, description="HOA tracks the programme plays")
+    ignored: list[str] = Field(description="what is not rendered, and why")
+    points: int = Field(description="most samples of each path")
+    paths: list[ObjectPathView]
+    bed_directions: list[BedDirectionView]
+
+
 _SAFE_EXT = re.compile(r"\.[a-z0-9]{1,5}")
 _SAFE_LABEL = re.compile(r"[A-Za-z0-9+\-]{1,16}")
 
@@ -98,9 +145,11 @@ _UPLOAD_BODY = {
 
 def stem_summary(meta: dict) -> dict:
     """The public JSON of a stem (its metadata without the owner), with its
-    ``scene_hint`` (:func:`scene_hint`)."""
+    ``scene_hint`` (:func:`scene_hint`; none for an ADM master, whose metadata places its
+    tracks) and ``adm`` (the master's summary, null for other stems)."""
     out = {k: v for k, v in meta.items() if k not in ("owner", "created_ts")}
-    out["scene_hint"] = scene_hint(meta["channels"])
+    out["adm"] = meta.get("adm")
+    out["scene_hint"] = None if out["adm"] else scene_hint(meta["channels"])
     out["files"] = [{k: v for k, v in f.items() if k != "stored"} for f in meta["files"]]
     out["links"] = {"self": f"/v1/stems/{meta['id']}"}
     return out
@@ -170,11 +219,23 @@ def _probe(
             f"the stem lasts {stem.duration:.1f} s; this server "
             f"accepts at most {max_duration_s:.0f} s",
         )
+    # A single WAV may be an ADM master (BS.2076 metadata in axml, BS.2088 chna): its
+    # metadata places every track, so it gets no labels and no suggested layout. A master
+    # whose metadata cannot be read is refused now: the renderer would refuse it later,
+    # and as plain channels it cannot be rendered either.
+    adm = None
+    if not several:
+        try:
+            adm = probe_adm(stored[0])
+        except AdmError as exc:
+            raise Problem(UNPROCESSABLE, _user_message(exc, names)) from None
     source = "file names" if labels else None
-    if not several and stem.channel_mask:
+    if adm is not None:
+        labels, source = None, None
+    elif not several and stem.channel_mask:
         labels = labels_from_mask(stem.channel_mask, stem.channels)
         source = "WAV channel mask" if labels else None
-    layout = suggest_layout(stem.channels, labels)
+    layout = None if adm is not None else suggest_layout(stem.channels, labels)
     if layout is None and labels is not None:
         layout = suggest_layout(stem.channels)
     # One read of the whole stem, in blocks, measures its levels (kept beside it for the
@@ -211,6 +272,7 @@ def _probe(
         "channel_labels": labels,
         "labels_source": source,
         "suggested_layout": layout.name if layout else None,
+        "adm": adm,
         "warnings": [_user_message(w, names) for w in stem.warnings],
     }
 
@@ -289,6 +351,65 @@ def get_stem_levels(stem_id: str, request: Request, owner: str = Depends(current
         ) from None
     write_json_atomic(folder / LEVELS, levels, indent=None)
     return levels
+
+
+#: File of a stem's object paths for its default programme (GET /v1/stems/{id}/objects).
+OBJECTS = "objects.json"
+
+
+@router.get(
+    "/{stem_id}/objects",
+    summary="An ADM master's objects: each one's path over time, and the bed's directions",
+    response_model=StemObjectsView,
+    responses=problem_responses(NOT_FOUND),
+)
+def get_stem_objects(
+    stem_id: str,
+    request: Request,
+    owner: str = Depends(current_owner),
+    programme: str | None = Query(
+        None,
+        max_length=200,
+        description="the audioProgramme, by ID or name (stem.adm.programmes); default the "
+        "file's first, the one a render without adm_programme plays",
+    ),
+    points: int = Query(
+        PATH_POINTS, ge=2, le=1000, description="most samples of each object's path"
+    ),
+) -> dict:
+    """For a stem that is an ADM master (``stem.adm`` not null): the programme's summary
+    (as ``stem.adm``), ``paths`` (per object: ``times_s``, ``azimuth_deg``,
+    ``elevation_deg``, ``gain``, sampled evenly over the object's span with the BS.2076-2
+    interpolation, at most ``points`` samples; runs that neither move nor change gain
+    keep only their ends, so a resting object has two) and ``bed_directions`` (each bed
+    loudspeaker's label, track and direction). Azimuth counter-clockwise from the front
+    (left positive), elevation up, degrees. 422 for a stem that is not an ADM master or
+    a programme the file does not have."""
+    storage: Storage = request.app.state.storage
+    meta = storage.read_meta("stems", stem_id, owner)
+    if not meta.get("adm"):
+        raise Problem(
+            UNPROCESSABLE,
+            f"stem {stem_id!r} is not an ADM master (a WAV with BS.2076 axml and chna "
+            "chunks): it has channels, not objects",
+        )
+    folder = storage.path("stems", stem_id)
+    default = programme is None and points == PATH_POINTS
+    if default:
+        try:
+            return json.loads((folder / OBJECTS).read_text())
+        except (OSError, ValueError):
+            pass  # not kept yet (or damaged): read the metadata now
+    stored = folder / meta["files"][0]["stored"]  # a master is one file
+    try:
+        overview = adm_overview(stored, programme=programme, points=points)
+    except AdmError as exc:
+        why = str(exc).replace(f"{folder}/", "").replace(stored.name, meta["files"][0]["name"])
+        raise Problem(UNPROCESSABLE, why) from None
+    overview["points"] = points
+    if default:
+        write_json_atomic(folder / OBJECTS, overview, indent=None)
+    return overview
 
 
 @router.delete(
