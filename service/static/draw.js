@@ -450,21 +450,22 @@ const SCENE_SIDE = { width: 400, height: 210, left: 32, right: 10, top: 12, bott
  * the elevation view (all around unrolled, left half = the listener's left). Directions
  * are small dots: filled above the ear plane, hollow below it.
  */
-export function scenePicture(scene, directions, { caption = "" } = {}) {
-  const dirs = (directions || []).filter((d) => Array.isArray(d) && d.length >= 2);
-  const order = scene.order;
-  const channels = scene.channels || (order + 1) ** 2;
-  const words = `order ${order} · ${channels} channels · ${dirs.length} directions`;
+/** Distance from the centre of a whole-sphere top view (sphereTop) of elevation `elv`:
+    the zenith at the centre, ear level on the middle ring, the nadir on the outer one. */
+function sphereRadius(elv) {
+  return (SCENE_TOP.radius * (90 - elv)) / 180;
+}
+
+/** The frame of a whole-sphere top view: rings every 30° of elevation (solid at ear
+    level), the axes, the listener's head facing the front (the top). */
+function sphereTop(view, label) {
   const c = SCENE_TOP.size / 2;
-  const zenithMax = 180; // the south pole on the outer ring
-  const rOf = (elv) => (SCENE_TOP.radius * (90 - elv)) / zenithMax;
   const top = svgEl("svg", {
-    class: "scene-view scene-top", viewBox: `0 0 ${SCENE_TOP.size} ${SCENE_TOP.size}`,
-    role: "img", "data-view": "scene-top",
-    "aria-label": `Top view of an order-${order} Ambisonic scene: ${dirs.length} directions on the sphere`,
+    class: `scene-view ${view}`, viewBox: `0 0 ${SCENE_TOP.size} ${SCENE_TOP.size}`,
+    role: "img", "data-view": view, "aria-label": label,
   });
   for (const elv of [60, 30, 0, -30, -60]) {
-    top.append(svgEl("circle", { cx: c, cy: c, r: rOf(elv), class: elv === 0 ? "ring ring-ear" : "ring" }));
+    top.append(svgEl("circle", { cx: c, cy: c, r: sphereRadius(elv), class: elv === 0 ? "ring ring-ear" : "ring" }));
   }
   top.append(
     svgEl("line", { class: "axis", x1: c, y1: c - SCENE_TOP.radius - 4, x2: c, y2: c + SCENE_TOP.radius + 4 }),
@@ -476,6 +477,17 @@ export function scenePicture(scene, directions, { caption = "" } = {}) {
     svgEl("circle", { class: "head", cx: c, cy: c, r: 8 }),
     svgEl("path", { class: "head", d: `M ${c - 4} ${c - 7} L ${c} ${c - 13} L ${c + 4} ${c - 7}` }),
   );
+  return top;
+}
+
+export function scenePicture(scene, directions, { caption = "" } = {}) {
+  const dirs = (directions || []).filter((d) => Array.isArray(d) && d.length >= 2);
+  const order = scene.order;
+  const channels = scene.channels || (order + 1) ** 2;
+  const words = `order ${order} · ${channels} channels · ${dirs.length} directions`;
+  const c = SCENE_TOP.size / 2;
+  const top = sphereTop("scene-top",
+    `Top view of an order-${order} Ambisonic scene: ${dirs.length} directions on the sphere`);
   const w = SCENE_SIDE.width - SCENE_SIDE.left - SCENE_SIDE.right;
   const h = SCENE_SIDE.height - SCENE_SIDE.top - SCENE_SIDE.bottom;
   const side = svgEl("svg", {
@@ -496,7 +508,7 @@ export function scenePicture(scene, directions, { caption = "" } = {}) {
   const dot = dirs.length > 200 ? 1.6 : dirs.length > 60 ? 2.2 : 3; // a dense grid stays readable
   for (const [az, elv] of dirs) {
     const kind = elv < -0.5 ? "below" : "above";
-    const p = topViewPoint(az, 0, rOf(elv));
+    const p = topViewPoint(az, 0, sphereRadius(elv));
     const tip = `azimuth ${Math.round(az * 10) / 10}°, elevation ${Math.round(elv * 10) / 10}°`;
     top.append(titled(svgEl("circle", { cx: c + p.x, cy: c + p.y, r: dot, class: `dir-dot dir-${kind}`, "data-direction": "" }), tip));
     const x = SCENE_SIDE.left + ((180 - wrapAzimuth(az)) / 360) * w;
@@ -518,4 +530,150 @@ function wrapAzimuth(az) {
   let a = ((((az + 180) % 360) + 360) % 360) - 180;
   if (a === -180) a = 180;
   return a;
+}
+
+const HEIGHT_VIEW = { width: 400, height: 150, left: 32, right: 10, top: 10, bottom: 24 };
+
+/** Unit vector (x front, y left, z up) of a direction in degrees. */
+function unitVector(azDeg, elDeg) {
+  const az = (azDeg * Math.PI) / 180;
+  const elv = (elDeg * Math.PI) / 180;
+  return [Math.cos(elv) * Math.cos(az), Math.cos(elv) * Math.sin(az), Math.sin(elv)];
+}
+
+/**
+ * Where an object of GET /v1/stems/{id}/objects is at time `t` (s): its samples joined
+ * by straight lines between their unit vectors (so a path across the back does not wrap
+ * round through the front), null outside its samples or where its gain is 0.
+ */
+export function objectAt(path, t) {
+  const ts = path.times_s || [];
+  if (!ts.length || t < ts[0] || t > ts[ts.length - 1]) return null;
+  let k = 0;
+  while (k < ts.length - 2 && ts[k + 1] <= t) k += 1;
+  const span = ts[k + 1] !== undefined ? ts[k + 1] - ts[k] : 0;
+  const f = span > 0 ? Math.min(1, Math.max(0, (t - ts[k]) / span)) : 0;
+  const j = Math.min(k + 1, ts.length - 1);
+  const a = unitVector(path.azimuth_deg[k], path.elevation_deg[k]);
+  const b = unitVector(path.azimuth_deg[j], path.elevation_deg[j]);
+  const v = a.map((x, i) => x + (b[i] - x) * f);
+  const n = Math.hypot(...v) || 1;
+  const gain = path.gain[k] + (path.gain[j] - path.gain[k]) * f;
+  if (!(gain > 0)) return null;
+  return {
+    azimuth: (Math.atan2(v[1], v[0]) * 180) / Math.PI,
+    elevation: (Math.asin(Math.max(-1, Math.min(1, v[2] / n))) * 180) / Math.PI,
+    gain,
+  };
+}
+
+/**
+ * An ADM master's objects over time, from GET /v1/stems/{id}/objects: each object's path
+ * on a whole-sphere top view (the zenith at the centre, ear level on the solid ring, as
+ * the scene picture), begun with a hollow circle and ended with a filled square; the
+ * height of each object over time on a second view (time across, elevation up); the bed
+ * loudspeakers as small grey squares on the top view. Each object has its own colour and
+ * dash pattern (seriesStyle), named in a legend. `figure.setTime(t)` puts a marker on
+ * every object playing at `t` seconds and a line at `t` on the height view.
+ */
+export function objectPathsPicture(overview, { caption = "" } = {}) {
+  const paths = overview.paths || [];
+  const beds = (overview.bed_directions || []).filter((b) => !b.lfe);
+  const duration = Math.max(1e-6, Number(overview.duration_s) || 0);
+  const c = SCENE_TOP.size / 2;
+  const top = sphereTop("paths-top",
+    `Top view of ${paths.length} object path${paths.length === 1 ? "" : "s"}: the front at the top, ` +
+    "the zenith in the middle, ear level on the solid ring");
+  const at = (az, elv) => {
+    const p = topViewPoint(az, 0, sphereRadius(elv));
+    return [c + p.x, c + p.y];
+  };
+  for (const bed of beds) {
+    const [x, y] = at(bed.azimuth_deg, bed.elevation_deg);
+    top.append(titled(svgEl("rect", { class: "bed-mark", x: x - 2.5, y: y - 2.5, width: 5, height: 5, "data-bed": bed.label || "" }),
+      `bed loudspeaker ${bed.label || ""} (track ${bed.track}): ${Math.round(bed.azimuth_deg)}° az, ${Math.round(bed.elevation_deg)}° el`));
+  }
+  const W = HEIGHT_VIEW.width - HEIGHT_VIEW.left - HEIGHT_VIEW.right;
+  const H = HEIGHT_VIEW.height - HEIGHT_VIEW.top - HEIGHT_VIEW.bottom;
+  const xOf = (t) => HEIGHT_VIEW.left + (Math.min(Math.max(t, 0), duration) / duration) * W;
+  const yOf = (elv) => HEIGHT_VIEW.top + ((90 - elv) / 180) * H;
+  const side = svgEl("svg", {
+    class: "scene-view paths-height", viewBox: `0 0 ${HEIGHT_VIEW.width} ${HEIGHT_VIEW.height}`,
+    role: "img", "data-view": "paths-height",
+    "aria-label": "Height of each object over time: time across, elevation up",
+  });
+  for (let elv = 90; elv >= -90; elv -= 45) {
+    side.append(svgEl("line", { class: elv === 0 ? "axis" : "grid", x1: HEIGHT_VIEW.left, y1: yOf(elv), x2: HEIGHT_VIEW.left + W, y2: yOf(elv) }),
+      text(HEIGHT_VIEW.left - 4, yOf(elv) + 3, `${elv}°`, { class: "ring-label", "text-anchor": "end" }));
+  }
+  for (let i = 0; i <= 4; i += 1) {
+    const t = (duration * i) / 4;
+    side.append(text(xOf(t), HEIGHT_VIEW.height - 8, `${t < 10 ? t.toFixed(2) : t.toFixed(1)} s`,
+      { class: "ring-label", "text-anchor": i === 0 ? "start" : i === 4 ? "end" : "middle" }));
+  }
+  const cursor = svgEl("line", { class: "time-line", x1: xOf(0), y1: HEIGHT_VIEW.top, x2: xOf(0), y2: HEIGHT_VIEW.top + H, "data-part": "time-line" });
+  side.append(cursor);
+  const markers = [];
+  const legend = document.createElement("ul");
+  legend.className = "path-legend";
+  paths.forEach((path, i) => {
+    const style = seriesStyle(i);
+    const n = (path.times_s || []).length;
+    if (!n) return;
+    const points = path.times_s.map((_, k) => at(path.azimuth_deg[k], path.elevation_deg[k]));
+    const line = (pts, view) => svgEl("polyline", {
+      class: "object-path", points: pts.map(([x, y]) => `${x.toFixed(1)},${y.toFixed(1)}`).join(" "),
+      stroke: style.colour, "stroke-dasharray": style.dash || null, "data-object": path.object, "data-view-of": view,
+    });
+    const tip = `${path.object} (track ${path.track})`;
+    top.append(titled(line(points, "top"), tip));
+    const [x0, y0] = points[0];
+    const [x1, y1] = points[n - 1];
+    top.append(
+      titled(svgEl("circle", { class: "path-start", cx: x0, cy: y0, r: 3.5, stroke: style.colour, "data-start": path.object }), `${tip}: start`),
+      titled(svgEl("rect", { class: "path-end", x: x1 - 3, y: y1 - 3, width: 6, height: 6, fill: style.colour, "data-end": path.object }), `${tip}: end`),
+    );
+    const heights = path.times_s.map((t, k) => [xOf(t), yOf(path.elevation_deg[k])]);
+    side.append(titled(line(heights, "height"), tip));
+    const mark = svgEl("circle", { class: "path-now", r: 5, fill: style.colour, "data-now": path.object, visibility: "hidden" });
+    const markSide = svgEl("circle", { class: "path-now", r: 3.5, fill: style.colour, visibility: "hidden" });
+    top.append(mark);
+    side.append(markSide);
+    markers.push({ path, mark, markSide });
+    const moving = new Set(path.azimuth_deg.map((a, k) => `${a},${path.elevation_deg[k]}`)).size > 1;
+    const swatch = svgEl("svg", { class: "swatch", viewBox: "0 0 24 8", width: 24, height: 8, "aria-hidden": "true" },
+      [svgEl("line", { x1: 0, y1: 4, x2: 24, y2: 4, stroke: style.colour, "stroke-width": 2.5, "stroke-dasharray": style.dash || null })]);
+    const item = document.createElement("li");
+    item.dataset.object = path.object;
+    item.append(swatch, ` ${path.object} · track ${path.track}` +
+      `${moving ? "" : " · at rest"}${path.muted ? " · muted" : ""}`);
+    legend.append(item);
+  });
+  const figure = document.createElement("figure");
+  figure.className = "scene-picture paths-picture";
+  figure.dataset.part = "adm-picture";
+  const cap = document.createElement("figcaption");
+  cap.className = "scene-words";
+  const words = `${paths.length} object${paths.length === 1 ? "" : "s"} · ${beds.length} bed loudspeaker${beds.length === 1 ? "" : "s"}` +
+    " · circle: start, square: end";
+  cap.textContent = caption ? `${words} · ${caption}` : words;
+  figure.append(cap, top, side, legend);
+  figure.setTime = (t) => {
+    cursor.setAttribute("x1", xOf(t));
+    cursor.setAttribute("x2", xOf(t));
+    for (const { path, mark, markSide } of markers) {
+      const now = objectAt(path, t);
+      mark.setAttribute("visibility", now ? "visible" : "hidden");
+      markSide.setAttribute("visibility", now ? "visible" : "hidden");
+      if (!now) continue;
+      const [x, y] = at(now.azimuth, now.elevation);
+      mark.setAttribute("cx", x);
+      mark.setAttribute("cy", y);
+      markSide.setAttribute("cx", xOf(t));
+      markSide.setAttribute("cy", yOf(now.elevation));
+    }
+    figure.dataset.time = String(t);
+  };
+  figure.setTime(0);
+  return figure;
 }

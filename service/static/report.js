@@ -217,6 +217,46 @@ function sceneSection(report) {
   return box;
 }
 
+/** The ADM section: the programme rendered, its counts, and every object's path summary
+    from report.adm.objects_rendered. */
+function admSection(report) {
+  const adm = report.adm;
+  const rows = adm.objects_rendered || [];
+  const count = (n, one, many) => `${n} ${n === 1 ? one : many}`;
+  const p = adm.programme || {};
+  const hoaTracks = (adm.hoa || []).reduce((acc, h) => acc + (h.tracks || []).length, 0);
+  $("adm-words").textContent =
+    `An ADM master (${adm.container || "WAV"}, ${count(adm.channels, "track", "tracks")}): ` +
+    `${p.id ? `programme “${p.name || p.id}” (${p.id})` : "every object (no programme in the file)"} rendered as its metadata places it, ` +
+    `${count(rows.length, "object", "objects")}, ${count((adm.beds || []).length, "bed loudspeaker", "bed loudspeakers")}` +
+    `${hoaTracks ? `, ${count(hoaTracks, "HOA track", "HOA tracks")}` : ""}; one level for all of them, ` +
+    `calibrated on ${adm.calibration_reference === "5.0" ? "ITU-R BS.2051 0+5+0" : "the master's bed"}.`;
+  const dir = (d) => (Array.isArray(d) ? `${num(d[0], 1)}° az, ${num(d[1], 1)}° el` : "–");
+  const span = (a, b) => `${num(a, 2)} s to ${has(b) ? `${num(b, 2)} s` : "the end"}`;
+  const body = rows.map((o) => el("tr", { "data-object": o.object },
+    el("th", { scope: "row" }, o.object || "", el("span", { class: "muted" }, ` ${o.object_id || ""}`),
+      o.muted ? el("span", { class: "chip warn" }, " muted") : null),
+    el("td", { class: "num" }, String(o.track ?? "")),
+    el("td", {}, span(o.start_s, o.end_s)),
+    el("td", {}, dir(o.first_direction_deg)),
+    el("td", {}, dir(o.last_direction_deg)),
+    el("td", { "data-part": "moves" }, Array.isArray(o.moves_s) ? `${num(o.moves_s[0], 2)} s to ${num(o.moves_s[1], 2)} s` : "at rest"),
+    el("td", { class: "num" }, String(o.breakpoints ?? "–")),
+    el("td", { "data-part": "not-rendered" }, (o.not_rendered || []).length ? o.not_rendered.join(", ") : "–")));
+  $("adm-objects").querySelector("tbody").replaceChildren(...body);
+  const more = [];
+  const ignored = adm.ignored || [];
+  if (ignored.length) {
+    more.push(el("h3", {}, "Not rendered"),
+      el("ul", { class: "messages", "data-part": "adm-ignored" }, ...ignored.map((why) => el("li", { class: "warn" }, why))));
+  }
+  if ((adm.beds || []).length) {
+    more.push(el("p", { class: "muted", "data-part": "adm-beds" },
+      `Bed: ${adm.beds.map((b) => `${b.label || "?"} (track ${b.track + 1})`).join(", ")}.`));
+  }
+  $("adm-more").replaceChildren(...more);
+}
+
 function speakerRows(report) {
   return (report.speakers || []).map((s) => {
     let asked, how, used, error;
@@ -232,6 +272,12 @@ function speakerRows(report) {
       used = has(s.cutoff_hz)
         ? el("span", {}, `low-pass ${num(s.cutoff_hz, 0, "Hz")}, gain ${signed(s.gain_db, 1)}, to both ears`)
         : el("span", { class: "muted" }, "not used");
+      error = "–";
+    } else if (!has(s.azimuth) && report.adm) {
+      // An ADM object's track: it moves, so it has no one direction (see the Objects section).
+      asked = "an object's path";
+      how = "moving source";
+      used = el("span", { class: "muted" }, "the HRTF set's directions along the path (Objects, above)");
       error = "–";
     } else if (s.method === "fold") {
       asked = direction(s.azimuth, s.elevation);
@@ -469,6 +515,11 @@ function show() {
   if (report.scene) {
     $("scene-body").replaceChildren(sceneSection(report));
     $("h-speakers").textContent = "Channels";
+  }
+  $("sec-adm").hidden = !report.adm;
+  if (report.adm) {
+    admSection(report);
+    $("h-speakers").textContent = "Tracks";
   }
   $("hrtf-body").replaceChildren(hrtfSection(report));
   $("headphone-body").replaceChildren(headphoneSection(report));

@@ -18,7 +18,7 @@ import {
 } from "./form-kit.js";
 import { createPreset, deletePreset, loadPresets, presetById, presetsOf, presetsState, updatePreset } from "./presets.js";
 import { createRoomEditor, roomFigures } from "./room-editor.js";
-import { scenePicture } from "./draw.js";
+import { objectPathsPicture, scenePicture } from "./draw.js";
 
 /** Most renders one batch may start at once: enough for a 4 x 3 x 2 grid of candidates,
     few enough that one click cannot flood the queue (a page choice, not a server limit). */
@@ -31,13 +31,17 @@ const LABELS = {
   lfe_gain: "LFE gain", loudness: "Loudness", true_peak: "True peak", format: "File format",
   subtype: "Sample format", seed: "Seed", block_size: "Block size", excerpt: "Excerpt",
   fold: "Fold to", solo: "Solo loudspeaker", ambisonic_norm: "Normalisation",
-  ambisonic_decoder: "Decoder", rotate: "Rotation",
+  ambisonic_decoder: "Decoder", rotate: "Rotation", adm_programme: "Programme",
 };
 
 /** Options only an Ambisonic scene takes, and options only loudspeaker layouts take
     (the server refuses each on the other kind). */
 const SCENE_ONLY = ["ambisonic_norm", "ambisonic_decoder", "rotate"];
 const SPEAKERS_ONLY = ["channel_order", "fold"];
+
+/** Options a render of an ADM master does not take (its metadata places every track; the
+    server refuses each for a master), hidden and not sent for one. */
+const NOT_FOR_ADM = ["layout", "channel_order", "solo", "fold", "headphone_eq", "room", "room_mode", ...SCENE_ONLY];
 
 /** Words shown for declared choices that read better with a gloss. */
 const CHOICE_WORDS = {
@@ -46,6 +50,7 @@ const CHOICE_WORDS = {
 
 /** The panel's sections; options the server declares beyond these land in "More". */
 const GROUPS = [
+  ["adm", "ADM master", ["adm_programme"]],
   ["speakers", "Loudspeakers", ["layout", "channel_order", "solo"]],
   ["scene", "Ambisonic scene", SCENE_ONLY],
   ["ears", "Ears", ["fold", "hrtf", "eq", "headphone_eq"]],
@@ -254,6 +259,11 @@ function sceneFits(scene, channels) {
   return root * root === channels && root >= 2 && root - 1 >= scene.order;
 }
 
+/** Whether a stem is an ADM object master (its upload found BS.2076 metadata). */
+export function isAdm(stem) {
+  return Boolean(stem && stem.adm);
+}
+
 /** An Ambisonic scene of GET /v1/layouts (kind "scene": channels, no speakers). */
 export function isScene(layout) {
   return Boolean(layout) && layout.kind === "scene";
@@ -268,17 +278,20 @@ function channelsOf(layout) {
     loudspeakers; a hidden field sends nothing. */
 function applyLayoutKind() {
   const layout = S.controls.get("layout")?.current() || null;
-  const scene = isScene(layout);
-  for (const name of SCENE_ONLY) {
+  const adm = isAdm(S.stem);
+  const scene = isScene(layout) && !adm;
+  const hide = (name, hidden) => {
     const ctrl = S.controls.get(name);
-    if (ctrl) { ctrl.node.hidden = !scene; ctrl.off = !scene; }
+    if (ctrl) { ctrl.node.hidden = hidden; ctrl.off = hidden; }
+  };
+  for (const name of NOT_FOR_ADM) hide(name, adm);
+  for (const name of SCENE_ONLY) hide(name, !scene);
+  for (const name of SPEAKERS_ONLY) hide(name, scene || adm);
+  hide("adm_programme", !adm);
+  // A group shows while any of its fields does.
+  for (const group of S.form ? S.form.querySelectorAll("[data-group]") : []) {
+    group.hidden = [...group.querySelectorAll(":scope > [data-option]")].every((f) => f.hidden);
   }
-  for (const name of SPEAKERS_ONLY) {
-    const ctrl = S.controls.get(name);
-    if (ctrl) { ctrl.node.hidden = scene; ctrl.off = scene; }
-  }
-  const group = S.form && S.form.querySelector("[data-group='scene']");
-  if (group) group.hidden = !scene;
   const solo = S.controls.get("solo");
   if (solo) solo.node.querySelector("label").firstChild.textContent = scene ? "Solo channel" : labelOf("solo");
 }
@@ -443,6 +456,107 @@ function layoutControl(spec) {
   };
   ctrl.selectPreset = (id) => { ctrl.refresh(); select.value = `p:${id}`; describe(); bus.emit("settings-layout-changed", {}); };
   ctrl.refresh();
+  return ctrl;
+}
+
+// ------------------------------------------------------------------ ADM masters
+
+/** The summary of an ADM master's programme in words (stem.adm, or GET .../objects). */
+function admWords(adm) {
+  const n = (count, one, many) => `${count} ${count === 1 ? one : many}`;
+  const p = adm.programme || {};
+  const name = p.name ? `“${p.name}” (${p.id})` : "every object (the file names no programme)";
+  const beds = adm.beds ? `${n(adm.beds, "bed loudspeaker", "bed loudspeakers")}${(adm.bed_labels || []).length ? ` (${adm.bed_labels.filter(Boolean).join(" ")})` : ""}` : "no bed";
+  const hoa = adm.hoa_tracks ? `, ${n(adm.hoa_tracks, "HOA track", "HOA tracks")} (order ${(adm.hoa_orders || []).join(", ")})` : "";
+  return `ADM master (${adm.container || "WAV"}, ${n(adm.tracks, "track", "tracks")}, ${num(adm.duration_s, 2)} s): ` +
+    `programme ${name} plays ${n(adm.objects, "object", "objects")} (${adm.moving_objects ?? 0} moving), ${beds}${hoa}. ` +
+    "Its metadata places every track: no layout to choose.";
+}
+
+/**
+ * The ADM master of the chosen stem: its summary, the programme to render (a picker when
+ * the file has several; sent as adm_programme only when it is not the first, the one the
+ * server plays by default), what is not rendered, and the objects' paths over time
+ * (GET /v1/stems/{id}/objects, draw.js objectPathsPicture) with a time slider.
+ */
+function admControl(spec) {
+  const select = el("select", { id: uniqueId("set-adm-programme"), name: "adm_programme", "data-part": "adm-programme" });
+  const summary = el("p", { class: "note adm-summary", "data-part": "adm-summary" });
+  const ignored = el("ul", { class: "messages adm-ignored", "data-part": "adm-ignored", hidden: true });
+  const box = el("div", { class: "scene-box", "data-part": "adm-picture-box" });
+  const time = el("input", { type: "range", min: "0", max: "0", step: "1", value: "0", "data-part": "adm-time", "aria-label": "Time in the master" });
+  const timeText = el("output", { class: "mono", "data-part": "adm-time-text" }, "0.00 s");
+  const timeRow = el("label", { class: "adm-time", hidden: true }, el("span", { class: "muted" }, "Time "), time, timeText);
+  const { node, error } = fieldShell(spec, select, { extra: el("div", {}, summary, ignored, box, timeRow) });
+  const ctrl = control(spec, { node, error, input: select });
+  let first = null; // the programme played when none is named
+  let picture = null;
+  let asked = 0;
+
+  function showSummary(adm) {
+    summary.textContent = admWords(adm);
+    const lost = adm.ignored || [];
+    ignored.replaceChildren(...lost.map((why) => el("li", { class: "warn" }, `Not rendered: ${why}`)));
+    if ((adm.ignored_total || 0) > lost.length) ignored.append(el("li", { class: "warn" }, `… and ${adm.ignored_total - lost.length} more.`));
+    ignored.hidden = !lost.length;
+  }
+
+  function setTime() {
+    const t = Number(time.value) / 1000;
+    timeText.textContent = `${t.toFixed(2)} s`;
+    if (picture) picture.setTime(t);
+  }
+
+  async function draw() {
+    const stem = S.stem;
+    const mine = ++asked;
+    box.replaceChildren(el("p", { class: "muted" }, "Reading the objects' paths…"));
+    timeRow.hidden = true;
+    picture = null;
+    const programme = select.value && select.value !== first ? select.value : null;
+    try {
+      const overview = await api(`/v1/stems/${stem.id}/objects${programme ? `?programme=${encodeURIComponent(programme)}` : ""}`);
+      if (mine !== asked) return; // another stem or programme was chosen meanwhile
+      showSummary(overview);
+      picture = objectPathsPicture(overview, { caption: "dots: where each object is at the time below" });
+      box.replaceChildren(picture);
+      time.max = String(Math.max(0, Math.round(Number(overview.duration_s) * 1000) - 1));
+      time.value = "0";
+      timeRow.hidden = false;
+      setTime();
+    } catch (err) {
+      if (mine !== asked) return;
+      box.replaceChildren(el("p", { class: "warn" }, `The objects' paths cannot be read: ${err.message}`));
+    }
+  }
+
+  ctrl.refresh = () => {
+    const adm = isAdm(S.stem) ? S.stem.adm : null;
+    select.replaceChildren();
+    box.replaceChildren();
+    timeRow.hidden = true;
+    asked += 1;
+    if (!adm) { first = null; summary.textContent = ""; ignored.hidden = true; return; }
+    const programmes = adm.programmes || [];
+    first = programmes.length ? programmes[0].id : null;
+    for (const p of programmes) select.append(el("option", { value: p.id }, `${p.name || p.id} (${p.id})`));
+    select.hidden = programmes.length < 2;
+    select.value = (adm.programme && adm.programme.id) || first || "";
+    showSummary(adm);
+    draw();
+  };
+  select.addEventListener("change", draw);
+  time.addEventListener("input", setTime);
+  ctrl.read = () => (select.value && select.value !== first ? select.value : undefined);
+  ctrl.write = (v) => {
+    if (v === null || v === undefined || v === "") {
+      if (first && select.value !== first) { select.value = first; draw(); }
+      return;
+    }
+    const hit = [...select.options].find((o) => o.value === String(v).toUpperCase() || o.textContent.startsWith(`${v} (`));
+    if (!hit) throw new FieldProblem(`The programme “${v}” is not in this master.`);
+    if (select.value !== hit.value) { select.value = hit.value; draw(); }
+  };
   return ctrl;
 }
 
@@ -828,6 +942,7 @@ function roomControl(spec) {
 
 function makeControl(spec) {
   switch (spec.name) {
+    case "adm_programme": return admControl(spec);
     case "layout": return layoutControl(spec);
     case "channel_order": return channelOrderControl(spec);
     case "hrtf": return hrtfControl(spec);
@@ -916,7 +1031,8 @@ function showStem() {
     if (S.stem) {
       const name = stemName(S.stem);
       line.append(el("span", { class: "muted" }, "Stem "), el("strong", {}, name),
-        el("span", { class: "muted" }, ` · ${S.stem.channels} ch · ${num(S.stem.samplerate / 1000, 1)} kHz · ${num(S.stem.duration_s, 2)} s`));
+        el("span", { class: "muted" }, ` · ${S.stem.channels} ch · ${num(S.stem.samplerate / 1000, 1)} kHz · ${num(S.stem.duration_s, 2)} s` +
+          (isAdm(S.stem) ? " · ADM master" : "")));
     } else {
       line.append(el("span", { class: "muted" }, "No stem chosen: pick one under Stems to render."));
     }
@@ -1147,8 +1263,9 @@ function buildBatch() {
     const rooms = (bus.state.catalog.rooms || []).map((r) => [r.name, r.name, false]);
     if (S.controls.get("room")?.isCustom()) rooms.push(["__custom", "the custom room above", false]);
     const sets = (bus.state.catalog.hrtfSets || []).map((s) => [s.id || s.name, s.name || s.id, false]);
-    if (S.controls.has("layout")) cols.append(checkList("Layouts", layouts, "layout"));
-    if (S.controls.has("room")) cols.append(checkList("Rooms", rooms, "room"));
+    // An ADM master takes no layout and (in this version) no room: HRTF sets only.
+    if (S.controls.has("layout") && !isAdm(S.stem)) cols.append(checkList("Layouts", layouts, "layout"));
+    if (S.controls.has("room") && !isAdm(S.stem)) cols.append(checkList("Rooms", rooms, "room"));
     if (S.controls.has("hrtf")) cols.append(checkList("HRTF sets", sets, "hrtf"));
     for (const input of cols.querySelectorAll("input")) {
       if (ticked.has(`${input.dataset.batchItem}|${input.value}`)) input.checked = true;
@@ -1294,6 +1411,7 @@ export async function mountSettings(el0) {
   bus.on("stem-selected", ({ stem }) => {
     S.stem = stem || null;
     if (!S.controls.size) return;
+    S.controls.get("adm_programme")?.refresh();
     S.controls.get("layout")?.refresh();
     for (const name of ["channel_order", "solo"]) S.controls.get(name)?.refresh();
     S.refreshBatch && S.refreshBatch();

@@ -56,9 +56,13 @@ function rowFor(stem) {
       el("span", { class: "chip", text: `${stem.channels} ch` }),
       el("span", { class: "chip", text: fmtRate(stem.samplerate) }),
       el("span", { class: "chip", text: fmtSeconds(stem.duration_s) }),
-      stem.suggested_layout
-        ? el("span", { class: "chip note", title: "suggested layout", text: stem.suggested_layout })
-        : el("span", { class: "chip warn", text: "no layout suggested" }),
+      // An ADM master needs no layout: its metadata places every track.
+      stem.adm
+        ? el("span", { class: "chip note", "data-part": "adm-chip", title: "an ADM object master: its metadata places every track",
+          text: `ADM · ${stem.adm.objects} object${stem.adm.objects === 1 ? "" : "s"}` })
+        : stem.suggested_layout
+          ? el("span", { class: "chip note", title: "suggested layout", text: stem.suggested_layout })
+          : el("span", { class: "chip warn", text: "no layout suggested" }),
       // Only a hint: the Settings tab offers the scene as a one-click choice.
       stem.scene_hint
         ? el("span", { class: "chip", "data-part": "scene-hint", title: "the channel count of an Ambisonic scene; choose it under Settings",
