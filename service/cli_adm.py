@@ -26,7 +26,7 @@ def _when(item: dict[str, Any]) -> str:
 def cmd_adm_inspect(args: argparse.Namespace) -> int:
     from earfold.renderer.objects import inspect_adm
 
-    summary = inspect_adm(args.file, programme=args.programme)
+    summary = inspect_adm(args.file, programme=args.programme, path_points=args.paths)
     if args.json:
         print_json(summary)
         return 0
@@ -61,6 +61,17 @@ def _print_summary(summary: dict[str, Any]) -> None:
             f"    {o.get('object_name')!r} track {o.get('track')}, {_when(o)}, "
             f"{o.get('blocks')} block(s), {moves}, {where}{muted}"
         )
+    for p in (summary.get("paths") or [])[:50]:
+        times, az, el = (
+            p.get("times_s") or [],
+            p.get("azimuth_deg") or [],
+            p.get("elevation_deg") or [],
+        )
+        if times:
+            print(
+                f"    path of {p.get('object')!r}: {times[0]:g} s at ({az[0]:g}, {el[0]:g}) deg "
+                f"to {times[-1]:g} s at ({az[-1]:g}, {el[-1]:g}) deg, {len(times)} point(s)"
+            )
     beds = summary.get("beds") or []
     print(
         f"beds       {len(beds)}: " + " ".join(f"{b.get('label')}@{b.get('track')}" for b in beds)
@@ -92,6 +103,13 @@ def add_adm_parser(sub: argparse._SubParsersAction) -> None:
     q.add_argument("file", metavar="FILE", help="the ADM master (.wav)")
     q.add_argument(
         "--programme", help="the audioProgramme to read (its ID or name); default the first"
+    )
+    q.add_argument(
+        "--paths",
+        type=int,
+        metavar="N",
+        help="also give each object's direction and gain over time, at most N samples each "
+        "(2 to 10000; with --json every sample, in text the first and last)",
     )
     q.add_argument("--json", action="store_true", help="print JSON instead of text")
     q.set_defaults(func=cmd_adm_inspect)

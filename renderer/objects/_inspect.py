@@ -72,23 +72,32 @@ def motion_summary(channel: ObjectChannel) -> dict[str, Any]:
     }
 
 
-def inspect_adm(path: str | os.PathLike[str], *, programme: str | None = None) -> dict[str, Any]:
+def inspect_adm(
+    path: str | os.PathLike[str],
+    *,
+    programme: str | None = None,
+    path_points: int | None = None,
+) -> dict[str, Any]:
     """A JSON-ready summary of an ADM master's chosen programme.
 
     Lists the file's programmes, the chosen programme's contents, its objects (each with
     its number of blocks, span of motion and position ranges: :func:`motion_summary`), beds,
-    HOA packs, the packs used, and what is ignored and why.
+    HOA packs, the packs used, and what is ignored and why. With ``path_points``, also
+    ``"paths"``: each object's direction and gain over time (:func:`object_paths`, at most
+    that many samples each).
 
     Raises
     ------
     AdmError
-        As :func:`~earfold.renderer.objects.read_adm`.
+        As :func:`~earfold.renderer.objects.read_adm`; for ``path_points`` out of range.
     """
     master = read_adm(path, programme=programme)
     summary = master.to_dict()
     for entry, channel in zip(summary["objects"], master.objects):
         entry.update(motion_summary(channel))
     summary["duration"] = master.frames / master.sample_rate
+    if path_points is not None:
+        summary["paths"] = object_paths(master, points=path_points)
     return summary
 
 

@@ -226,3 +226,19 @@ def test_the_probe_says_none_for_plain_audio_and_names_a_broken_master(tmp_path)
     )
     with pytest.raises(AdmError, match=r"ADM master 'broken.wav': axml is not well-formed"):
         probe_adm(broken)
+
+
+def test_the_inspect_command_gives_the_paths(tmp_path, capsys):
+    import json
+
+    from earfold.service.cli import main
+
+    path = _objects(tmp_path / "m.wav", _moving_then_resting)
+    assert main(["adm", "inspect", str(path), "--paths", "40", "--json"]) == 0
+    printed = json.loads(capsys.readouterr().out)
+    assert printed["paths"] == object_paths(read_adm(path), points=40)
+    assert main(["adm", "inspect", str(path), "--paths", "40"]) == 0
+    text = capsys.readouterr().out
+    assert "path of 'Buoy': 0 s at (90, 0) deg to 8.999 s at (90, 0) deg, 2 point(s)" in text
+    assert main(["adm", "inspect", str(path), "--paths", "1"]) == 2
+    assert "points must be 2 to 10000" in capsys.readouterr().err
