@@ -25,7 +25,7 @@ import { api, tokenHeaders, blobUrl } from "./api.js";
 import { bus } from "./bus.js";
 import { CAUTION_TEXT } from "./chrome.js";
 import { el, fmtClock, fmtDb } from "./dom.js";
-import { describeRequest, postRender, renderById, renderLoudness, rendersOf } from "./renders.js";
+import { describeRequest, isAdmRequest, postRender, renderById, renderLoudness, rendersOf } from "./renders.js";
 
 const START_DB = -20;
 const RAMP_S = 0.005;
@@ -412,6 +412,11 @@ async function addReference() {
     return;
   }
   const req = first.request;
+  if (isAdmRequest(req)) {
+    // The renderer has no stereo fold-down of an ADM master in this version.
+    bus.emit("notify", { message: "An ADM master has no stereo fold-down yet: compare it with another render of it (another HRTF set or programme).", kind: "info" });
+    return;
+  }
   if (/^(foa|hoa\d)$/.test(String(req.layout ?? ""))) {
     // A scene has no loudspeaker channels to fold down: its reference is another render
     // of it (another decoder or order), added to the A/B as any render is.

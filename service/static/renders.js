@@ -103,11 +103,19 @@ function nameOf(stem) {
   return files.length ? `${files[0]} + ${files.length - 1}` : `stem ${stem.id.slice(0, 8)}`;
 }
 
+/** Whether a render request is of an ADM master (the chosen stem's upload says so). */
+export function isAdmRequest(request = {}) {
+  const stem = bus.state.stem;
+  return Boolean(request.adm_programme) || Boolean(stem && stem.adm && stem.id === request.stem_id);
+}
+
 export function describeRequest(request = {}) {
   const parts = [];
   if (request.fold === "stereo") parts.push("stereo fold-down");
-  const layout = typeof request.layout === "object" && request.layout
-    ? `custom layout${request.layout.name ? ` ${request.layout.name}` : ""}` : request.layout || "layout auto";
+  const layout = isAdmRequest(request)
+    ? `ADM master${request.adm_programme ? ` · programme ${request.adm_programme}` : ""}`
+    : typeof request.layout === "object" && request.layout
+      ? `custom layout${request.layout.name ? ` ${request.layout.name}` : ""}` : request.layout || "layout auto";
   parts.push(layout);
   if (request.fold !== "stereo") {
     const room = typeof request.room === "object" && request.room ? "custom room" : `room ${request.room || "none"}`;

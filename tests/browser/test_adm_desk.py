@@ -118,6 +118,10 @@ def test_a_master_shows_its_objects_instead_of_layouts(page, live_server, stems,
     request = view["request"]
     assert request["adm_programme"] == "APR_1002" and request["layout"] is None
     assert request["room"] == "none" and request["fold"] == "binaural"
+    # the renders panel names it as a master's render, not by a layout
+    page.locator(
+        "#mount-renders .render-title:has-text('ADM master · programme APR_1002')"
+    ).wait_for()
 
     # A plain stem afterwards: the layouts are back, the master's field is gone.
     page.evaluate("s => window.earfoldDesk.bus.emit('stem-selected', {stem: s})", stems["plain"])
