@@ -137,6 +137,8 @@ def test_object_paths_for_the_page(client, master):
     assert beds["M+110"]["azimuth_deg"] == 110.0 and beds["LFE"]["lfe"]
     again = client.get(f"/v1/stems/{stem['id']}/objects").json()  # kept, same answer
     assert again == body
+    folder = client.app.state.storage.path("stems", stem["id"])
+    assert [p.name for p in folder.glob("objects*.json")] == ["objects.json"]
     other = client.get(
         f"/v1/stems/{stem['id']}/objects", params={"programme": "APR_1002", "points": 5}
     ).json()
