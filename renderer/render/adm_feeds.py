@@ -39,6 +39,7 @@ from ..objects import AdmMaster, ObjectChannel, object_positions
 __all__ = [
     "UPDATE_SECONDS",
     "AdmTracks",
+    "TrackSpan",
     "adm_layout",
     "object_path",
     "position_vectors",
@@ -49,27 +50,65 @@ UPDATE_SECONDS = 0.010
 
 
 @dataclass(frozen=True)
+class TrackSpan:
+    """The frames a bed or HOA track plays: ``start <= frame < end`` (``end`` -1: to the
+    end of the file); outside them the track is silent (its object's BS.2076 span)."""
+
+    track: int
+    start: int
+    end: int
+
+    @classmethod
+    def of(cls, track: int, start: Any, end: Any, samplerate: float) -> TrackSpan:
+        """From an object's start and end in seconds (``end`` None: to the end)."""
+        first = int(round(float(start) * samplerate))
+        return cls(track, first, -1 if end is None else int(round(float(end) * samplerate)))
+
+    def to_dict(self) -> dict[str, Any]:
+        """The report's entry (the track numbered from 1, times in frames)."""
+        return {"track": self.track + 1, "start_frame": self.start, "end_frame": self.end}
+
+
+@dataclass(frozen=True, eq=False)
 class AdmTracks:
-    """The moving part of an ADM plan: which file tracks are objects and their paths.
+    """The time-varying part of an ADM plan: objects and their paths, and track spans.
 
     Attributes
     ----------
     channels : tuple of int
-        File channels (0-based) of the objects, in the order of ``paths``.
+        File channels (0-based) of the objects followed with per-object HRIR pairs (the
+        moving-source engine), in the order of ``paths``.
     paths : tuple of SourcePath
-        Each object's directions and gains over the stream's frames.
+        Each of those objects' directions and gains over the stream's frames.
     gain : float
-        The plan's calibration gain, applied to the objects' output.
+        The plan's calibration gain, applied to the moving engine's output.
     report : tuple of dict
         Each object's entry in the report (name, track, time span, motion).
+    length : int
+        Length of the moving engine's whole response (its pairs and the set's EQ).
+    panned_channels, panned_paths
+        The objects panned onto the virtual array instead (in a room), and their paths.
+    array : ndarray, shape (M, 3) or None
+        The array's unit vectors (VBAP's loudspeakers).
+    array_filters : ndarray, shape (M, 2, L) or None
+        Each array direction's calibrated filters (in the room).
+    array_tail_weights : ndarray, shape (M,) or None
+        Each array direction's share of the plan's shared tail.
+    spans : tuple of TrackSpan
+        Bed and HOA tracks that play only part of the time.
     """
 
     channels: tuple[int, ...]
     paths: tuple[SourcePath, ...]
     gain: float
     report: tuple[dict[str, Any], ...] = field(default_factory=tuple)
-    #: Length of the objects' whole response (moving filters and the set's EQ).
     length: int = 1
+    panned_channels: tuple[int, ...] = ()
+    panned_paths: tuple[SourcePath, ...] = ()
+    array: NDArray[np.float64] | None = None
+    array_filters: NDArray[np.float64] | None = None
+    array_tail_weights: NDArray[np.float64] | None = None
+    spans: tuple[TrackSpan, ...] = ()
 
 
 def position_vectors(positions: NDArray[np.float64], cartesian: bool) -> NDArray[np.float64]:

@@ -49,7 +49,7 @@ from ..layouts import (
 from ..objects import AdmMaster, read_adm, read_wav_chunks
 from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
 from ._decay import energy_decay
-from .adm_feeds import AdmTracks, adm_layout, object_path
+from .adm_feeds import AdmTracks
 from .feeds import ChannelFeed, speaker_feeds
 from .filter_cache import FilterCache, default_filter_cache
 from .fold import FOLD_CHOICES, fold_feeds, fold_section
@@ -328,7 +328,9 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
     stem = probe_stem(inputs)
     master = _adm_master(stem, settings)
     if master is not None:
-        return _plan_adm(stem, master, settings)
+        from .adm_plan import plan_adm  # here: only an ADM master loads it
+
+        return plan_adm(stem, master, settings)
     if settings.adm_programme is not None:
         raise OptionError(
             "adm_programme applies to ADM masters only (a WAV with axml and chna chunks); "
@@ -639,165 +641,6 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
     if cache is not None and bank_key is not None:
         cache.put("bank", bank_key, *_bank_entry(plan, warnings[added:], notes[added_notes:]))
     return plan
-
-
-def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> RenderPlan:
-    """The plan of an ADM object master (see :mod:`.adm_feeds`): beds and HOA tracks as
-    the fixed filter bank, objects as paths for the moving-source engine, one calibration
-    gain for all of them."""
-    from .moving_sources import moving_source_engine
-
-    name = Path(stem.paths[0]).name
-    refused = [
-        what
-        for what, given in (
-            ("channel_order", bool(settings.channel_order)),
-            ("solo", settings.solo is not None),
-            ("fold stereo", settings.fold == "stereo"),
-            ("headphone_eq", settings.headphone_eq is not None),
-            ("room", get_room(settings.room) is not None),
-            *((option, getattr(settings, option) is not None) for option in SCENE_OPTIONS),
-        )
-        if given
-    ]
-    if refused:
-        raise OptionError(
-            f"{', '.join(refused)}: not available for ADM masters in this version ({name!r} "
-            "is rendered as its metadata places it, free field); leave "
-            f"{'it' if len(refused) == 1 else 'them'} out"
-        )
-    if stem.channels != master.channels:
-        raise LayoutError(
-            f"{name!r}: the audio has {stem.channels} channel(s) but its ADM header says "
-            f"{master.channels}"
-        )
-    warnings: list[str] = []
-    notes: list[str] = []
-    cache = default_filter_cache()
-    hset, eq_report, _ = _prepared_set(
-        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
-    )
-    rate = stem.samplerate
-    layout = adm_layout(master)
-    fixed: dict[int, tuple[ChannelFeed, float]] = {}
-    if master.beds:
-        reference = Layout(
-            "ADM bed",
-            tuple(layout.speakers[bed.track] for bed in master.beds),
-            "the master's bed loudspeakers",
-            "ITU-R BS.2076 metadata of the file",
-        )
-    else:
-        reference = get_layout("5.0")
-    reference_feeds = speaker_feeds(
-        reference, tuple(range(reference.channels)), hset, rate, lfe=settings.lfe
-    )
-    if master.beds:
-        for bed, feed in zip(master.beds, reference_feeds):
-            fixed[bed.track] = (feed, 0.0 if bed.mute else float(bed.gain))
-    stacked = np.zeros((len(reference_feeds), 2, max(f.filters.shape[-1] for f in reference_feeds)))
-    for i, feed in enumerate(reference_feeds):
-        stacked[i, :, : feed.filters.shape[-1]] = feed.filters
-    gain = _calibrate(stacked, reference_feeds, None, None, 0, rate)
-    for pack in master.hoa:
-        from ..scenes import scene_decoder  # here: a master without HOA never loads it
-        from .scene_feeds import scene_taps
-
-        decoder = scene_decoder(hset, pack.order, samplerate=rate, taps=scene_taps(hset))
-        notes.extend(f"HOA {pack.object_name!r}: {w}" for w in decoder.warnings)
-        bank = decoder.for_input(pack.normalization.lower())
-        for track, acn in zip(pack.tracks, pack.acns):
-            report = {"channel": track, "label": f"ACN{acn}", "hoa": pack.object_name}
-            feed = ChannelFeed(label=f"ACN{acn}", filters=bank[acn], report=report)
-            fixed[track] = (feed, 0.0 if pack.mute else float(pack.gain))
-    spans = [f"{bed.object_name!r}" for bed in master.beds if bed.start or bed.end is not None] + [
-        f"{pack.object_name!r}" for pack in master.hoa if pack.start or pack.end is not None
-    ]
-    if spans:
-        warnings.append(
-            "ADM: the time spans (start, duration) of bed and HOA objects are not applied in "
-            f"this version; played throughout: {', '.join(sorted(set(spans)))}"
-        )
-    warnings.extend(f"ADM: not rendered: {reason}" for reason in master.ignored)
-    notes.extend(f"ADM: {note}" for note in master.notes)
-    length = max([1, *(f.filters.shape[-1] for f, _ in fixed.values())])
-    filters = np.zeros((stem.channels, 2, length))
-    for track, (feed, g) in fixed.items():
-        filters[track, :, : feed.filters.shape[-1]] = g * feed.filters
-    filters *= gain
-    objects = None
-    entries: list[dict[str, Any]] = []
-    if master.objects:
-        paths = []
-        for obj in master.objects:
-            path, entry = object_path(obj, stem.frames, rate)
-            paths.append(path)
-            entries.append(entry)
-            if entry["not_rendered"]:
-                warnings.append(
-                    f"ADM object {obj.object_name!r}: rendered as a point source; its "
-                    f"{', '.join(entry['not_rendered'])} "
-                    f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered yet"
-                )
-        engine = moving_source_engine(hset, paths, gain=gain)
-        objects = AdmTracks(
-            channels=tuple(obj.track for obj in master.objects),
-            paths=tuple(paths),
-            gain=gain,
-            report=tuple(entries),
-            length=engine.filter_length + engine.post_length - 1,
-        )
-    used = set(fixed) | {obj.track for obj in master.objects}
-    unused = [t + 1 for t in range(stem.channels) if t not in used]
-    if unused:
-        notes.append(
-            "ADM: track(s) "
-            + ", ".join(map(str, unused))
-            + " are not in the programme rendered and stay silent"
-        )
-    feeds = []
-    for track in range(stem.channels):
-        feed_gain = fixed.get(track)
-        speaker = layout.speakers[track]
-        report = (
-            {**feed_gain[0].report, "channel": track, "label": speaker.label}
-            if feed_gain is not None
-            else {"channel": track, "label": speaker.label}
-        )
-        feeds.append(
-            ChannelFeed(
-                label=speaker.label,
-                filters=filters[track],
-                lfe=feed_gain is not None and feed_gain[0].lfe,
-                report=report,
-            )
-        )
-    section = {
-        **master.to_dict(),
-        "calibration_reference": reference.name,
-        "objects_rendered": entries,
-    }
-    return RenderPlan(
-        stem=stem,
-        feeds=tuple(feeds),
-        hrir_set=hset,
-        filters=filters,
-        warnings=tuple(warnings),
-        layout=layout,
-        order=tuple(range(stem.channels)),
-        order_source="the ADM master's track map (chna)",
-        eq=eq_report,
-        calibration={
-            "gain_db": round(float(20 * np.log10(gain)), 3),
-            "reference": f"{CALIBRATION_REFERENCE}; the loudspeakers of "
-            + ("the master's bed" if master.beds else "ITU-R BS.2051 0+5+0 (5.0)")
-            + ", the same gain for objects and HOA",
-            "applied": "to every filter and to the objects, before the delivery stage",
-        },
-        notes=tuple(notes),
-        objects=objects,
-        adm=section,
-    )
 
 
 def _room_part(
