@@ -37,19 +37,11 @@ from ..layouts import Layout, Speaker, get_layout
 from ..objects import AdmMaster
 from ..room import exact_brirs, get_room
 from .adm_feeds import AdmTracks, TrackSpan, adm_layout, object_path
+from .bank import RenderPlan, calibrated_gain
 from .feeds import ChannelFeed, speaker_feeds
 from .filter_cache import default_filter_cache
-from .options import ROOM_MODES, RenderSettings
-from .plan import (
-    SCENE_OPTIONS,
-    RenderPlan,
-    _calibrate,
-    _is_measured_room,
-    _keep_lookups,
-    _prepared_set,
-    _room_part,
-    _take_lookups,
-)
+from .options import ROOM_MODES, SCENE_OPTIONS, RenderSettings
+from .prepared import is_measured_room, keep_lookups, prepared_set, room_part, take_lookups
 
 __all__ = ["ARRAY_ORDER", "plan_adm"]
 
@@ -93,13 +85,13 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     warnings: list[str] = []
     notes: list[str] = []
     cache = default_filter_cache()
-    hset, eq_report, set_key = _prepared_set(
+    hset, eq_report, set_key = prepared_set(
         settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
     )
     rate = stem.samplerate
     layout = adm_layout(master)
     room = get_room(settings.room)
-    in_room = room is not None and not _is_measured_room(hset)
+    in_room = room is not None and not is_measured_room(hset)
 
     # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), then
     # with a room the virtual array and each HOA order's virtual loudspeakers.
@@ -144,7 +136,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         ),
         "ITU-R BS.2076 metadata of the file",
     )
-    room_filters, room_report = _room_part(
+    room_filters, room_report = room_part(
         hset,
         rows_layout if in_room else None,
         room,
@@ -155,7 +147,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         warnings,
         notes,
     )
-    _take_lookups(hset, set_key, cache)
+    take_lookups(hset, set_key, cache)
     exact = room_filters is not None and settings.room_mode == "exact"
     row_feeds = speaker_feeds(
         rows_layout,
@@ -178,7 +170,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         ),
         warnings=warnings,
     )
-    _keep_lookups(hset, set_key, cache)
+    keep_lookups(hset, set_key, cache)
     shared = room_filters is not None and not exact
     tail = None if not shared or room_filters is None else np.asarray(room_filters.tail, float)
     tail_offset = 0 if tail is None or room_filters is None else int(room_filters.tail_offset)
@@ -194,15 +186,13 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         # at the beds' radius (an object must not jump in level as it pans).
         radius = float(room.speaker_radius)
         first = virtual_at.get(-1, len(rows))
-        for i in range(
-            first, first + (len(virtual_layout(ARRAY_ORDER)) if -1 in virtual_at else 0)
-        ):
-            distance = rows[i].distance
-            if distance and distance < radius:
-                row_filters[i] *= distance / radius
-                row_tail[i] *= distance / radius
+        for i in range(first, first + len(virtual_layout(ARRAY_ORDER)) if -1 in virtual_at else 0):
+            near = rows[i].distance
+            if near and near < radius:
+                row_filters[i] *= near / radius
+                row_tail[i] *= near / radius
     nref = len(reference)
-    gain = _calibrate(
+    gain = calibrated_gain(
         row_filters[:nref],
         row_feeds[:nref],
         tail,
