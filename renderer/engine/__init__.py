@@ -27,8 +27,9 @@ from .moving import (
     PairFunction,
     PairTable,
     SourcePath,
+    SPREAD_COLUMNS,
 )
-from .panning import GainFunction, PanningMixer
+from .panning import GainFunction, PanningMixer, SpreadGains
 from .scheduler import TAIL_BLOCK_FRAMES, FoldEngine
 
 __all__ = [
@@ -49,6 +50,8 @@ __all__ = [
     "PairTable",
     "PanningMixer",
     "SourcePath",
+    "SPREAD_COLUMNS",
+    "SpreadGains",
     "LfeOptions",
     "TAIL_BLOCK_FRAMES",
     "TransformPlan",
