@@ -23,11 +23,11 @@ from .moving import (
     GRID_STEP_DEG,
     MAX_EXACT_PAIRS,
     MAX_UPDATE_SECONDS,
+    SPREAD_COLUMNS,
     MovingSourceEngine,
     PairFunction,
     PairTable,
     SourcePath,
-    SPREAD_COLUMNS,
 )
 from .panning import GainFunction, PanningMixer, SpreadGains
 from .scheduler import TAIL_BLOCK_FRAMES, FoldEngine

@@ -171,9 +171,7 @@ class PanningMixer:
         states: NDArray[Any] = self._ahead[lo : lo + count]
         return states
 
-    def _checked(
-        self, vectors: NDArray[np.float64], spread: NDArray[np.float64]
-    ) -> NDArray[Any]:
+    def _checked(self, vectors: NDArray[np.float64], spread: NDArray[np.float64]) -> NDArray[Any]:
         if isinstance(self._gains, SpreadGains):
             g = np.asarray(self._gains.spread_gains(vectors, spread))
         else:

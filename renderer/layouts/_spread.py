@@ -207,9 +207,7 @@ class SpreadPanner:
             # Each distinct source once: a resting source's states are one row many
             # times, and so get bit-identical gains.
             unique, inverse = np.unique(rows, axis=0, return_inverse=True)
-            out[wide] = self._spread(unique[:, :3], unique[:, 3], unique[:, 4])[
-                inverse.reshape(-1)
-            ]
+            out[wide] = self._spread(unique[:, :3], unique[:, 3], unique[:, 4])[inverse.reshape(-1)]
         return out
 
     def spread_gains(

@@ -251,7 +251,7 @@ class VbapPanner:
         width = self.loudspeakers + len(self.virtual)
         slots = owners[:, None] * width + self.triangles[facet]
         sums = np.bincount(slots.reshape(-1), g.reshape(-1), minlength=count * width)
-        out: NDArray[np.float64] = sums.reshape(count, width)
+        out: NDArray[np.float64] = np.asarray(sums, dtype=np.float64).reshape(count, width)
         return out @ self._share if len(self.virtual) else out
 
     def _guess(self, p: NDArray[np.float64]) -> NDArray[np.intp]:
@@ -327,9 +327,9 @@ class _GuessGrid:
         ring = np.clip(np.round((el + 90.0) / self.elevation_step).astype(np.int64), 0, None)
         ring = np.minimum(ring, len(self.counts) - 1)
         count = self.counts[ring]
-        index: NDArray[np.int64] = self.offsets[ring] + np.round(az * count / 360.0).astype(
-            np.int64
-        ) % count
+        index: NDArray[np.int64] = (
+            self.offsets[ring] + np.round(az * count / 360.0).astype(np.int64) % count
+        )
         return index
 
     def vectors(self) -> NDArray[np.float64]:

@@ -343,9 +343,7 @@ def test_a_path_without_spread_has_none_and_reads_as_a_point():
     path = SourcePath([0, 100], [[1.0, 0, 0], [0, 1.0, 0]], [1.0, 0.5])
     assert path.spread is None
     np.testing.assert_array_equal(path.at_spread(np.array([0, 50, 500])), np.zeros((3, 4)))
-    with_spread = SourcePath(
-        [0, 100], [[1.0, 0, 0], [0, 1.0, 0]], [1.0, 0.5], np.zeros((2, 4))
-    )
+    with_spread = SourcePath([0, 100], [[1.0, 0, 0], [0, 1.0, 0]], [1.0, 0.5], np.zeros((2, 4)))
     frames = np.arange(0, 200, 7)
     for got, want in zip(with_spread.at(frames), path.at(frames)):
         np.testing.assert_array_equal(got, want)  # the spread leaves direction and gain alone
