@@ -81,6 +81,11 @@ MIN_STEP_DEG = 1.0
 #: for a width to change its gains smoothly.
 MAX_STEP_DEG = 15.0
 
+#: Most distinct extents in one call whose samples are worked out once each and shared
+#: by the sources that have them; past that (extents that change from state to state),
+#: every source's samples are worked out for it.
+_SHARED_EXTENTS = 16
+
 #: Sample points handed to the VBAP panner at once: bounds the memory of a call with
 #: many wide sources (some 30 floats of work per point).
 _CHUNK_POINTS = 131072
@@ -204,10 +209,13 @@ class SpreadPanner:
                 bad = int(wide[np.argmax(~np.isfinite(norms) | (norms < 1e-12))])
                 raise LayoutError(f"source direction {bad} is zero or not finite: {shown(d[bad])}")
             rows = np.column_stack([d[wide] / norms[:, None], w[wide], h[wide]])
-            # Each distinct source once: a resting source's states are one row many
-            # times, and so get bit-identical gains.
-            unique, inverse = np.unique(rows, axis=0, return_inverse=True)
-            out[wide] = self._spread(unique[:, :3], unique[:, 3], unique[:, 4])[inverse.reshape(-1)]
+            # Runs of equal rows once: a resting source's states are one row many times
+            # over, and so get one computation and bit-identical gains.
+            head = np.ones(len(rows), dtype=bool)
+            head[1:] = np.any(rows[1:] != rows[:-1], axis=1)
+            run = np.cumsum(head) - 1
+            heads = rows[head]
+            out[wide] = self._spread(heads[:, :3], heads[:, 3], heads[:, 4])[run]
         return out
 
     def spread_gains(
@@ -237,9 +245,6 @@ class SpreadPanner:
     ) -> NDArray[np.float64]:
         """Summed, power-scaled gains of unit directions ``f`` with extents ``w``, ``h``."""
         step = self.step_deg
-        na, ne = _nodes(0.5 * w, step), _nodes(0.5 * h, step)
-        counts = na * ne
-        starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
         # The source's frame: l = z x f (horizontal, to the source's left), u = f x l.
         left = np.column_stack([-f[:, 1], f[:, 0], np.zeros(len(f))])
         norm = np.linalg.norm(left, axis=1)
@@ -247,28 +252,61 @@ class SpreadPanner:
         left[norm <= 1e-9] = (0.0, 1.0, 0.0)
         frames = np.stack([f, left, np.cross(f, left)], axis=1)  # (n, 3, 3): f, l, u
         total = np.zeros((len(f), self.panner.loudspeakers))
-        # Sources in groups whose samples fit one chunk (a single wider source alone).
-        first = 0
-        while first < len(f):
-            last = int(np.searchsorted(starts, starts[first] + _CHUNK_POINTS, side="right"))
-            last = max(last, first + 1)
-            owner = np.repeat(np.arange(last - first), counts[first:last])
-            o = owner + first
-            within = np.arange(len(o)) - (starts[o] - starts[first])
-            ja, je = np.divmod(within, na[o])[::-1]
-            alpha, wa = _rule(ja, na[o], 0.5 * w[o], step)
-            beta, we = _rule(je, ne[o], 0.5 * h[o], step)
-            cb = np.cos(beta)
-            local = np.stack([cb * np.cos(alpha), cb * np.sin(alpha), np.sin(beta)], axis=1)
-            q = np.einsum("pk,pkj->pj", local, frames[o])
-            total[first:last] = self.panner.summed_gains(q, owner, wa * we * cb, last - first)
-            first = last
+        extents, which = np.unique(np.column_stack([w, h]), axis=0, return_inverse=True)
+        which = which.reshape(-1)
+        if len(extents) <= _SHARED_EXTENTS:
+            # Few extents (a moving source keeps its size): each one's samples in its own
+            # frame worked out once, then turned to every source that has it.
+            for k, (wk, hk) in enumerate(extents):
+                rows = np.flatnonzero(which == k)
+                local, weight = _patch(np.array([wk]), np.array([hk]), step)
+                per = max(1, _CHUNK_POINTS // len(weight))
+                for start in range(0, len(rows), per):
+                    part = rows[start : start + per]
+                    o = np.repeat(part, len(weight))
+                    q = np.einsum("pk,pkj->pj", np.tile(local, (len(part), 1)), frames[o])
+                    owner = np.repeat(np.arange(len(part)), len(weight))
+                    total[part] = self.panner.summed_gains(
+                        q, owner, np.tile(weight, len(part)), len(part)
+                    )
+        else:
+            # Sources in groups whose samples fit one chunk (a single wider one alone).
+            counts = _nodes(0.5 * w, step) * _nodes(0.5 * h, step)
+            starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+            first = 0
+            while first < len(f):
+                end = starts[first] + _CHUNK_POINTS
+                last = max(int(np.searchsorted(starts, end, side="right")), first + 1)
+                o = np.repeat(np.arange(first, last), counts[first:last])
+                local, weight = _patch(w[first:last], h[first:last], step)
+                q = np.einsum("pk,pkj->pj", local, frames[o])
+                total[first:last] = self.panner.summed_gains(q, o - first, weight, last - first)
+                first = last
         total /= np.linalg.norm(total, axis=1, keepdims=True)
         return total
 
     def __repr__(self) -> str:
         extra = ", diffuse channel" if self.diffuse_channel else ""
         return f"SpreadPanner({self.panner!r}, step {self.step_deg:.3g} deg{extra})"
+
+
+def _patch(
+    w: NDArray[np.float64], h: NDArray[np.float64], step: float
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The samples of extents ``w`` by ``h`` in their sources' own frames, source after
+    source: unit vectors ``(P, 3)`` (forward, left, up components) and weights ``(P,)``."""
+    na, ne = _nodes(0.5 * w, step), _nodes(0.5 * h, step)
+    counts = na * ne
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    o = np.repeat(np.arange(len(w)), counts)
+    within = np.arange(len(o)) - starts[o]
+    je, ja = np.divmod(within, na[o])
+    alpha, wa = _rule(ja, na[o], 0.5 * w[o], step)
+    beta, we = _rule(je, ne[o], 0.5 * h[o], step)
+    cb = np.cos(beta)
+    local = np.stack([cb * np.cos(alpha), cb * np.sin(alpha), np.sin(beta)], axis=1)
+    weight: NDArray[np.float64] = wa * we * cb
+    return local, weight
 
 
 def _nodes(half_deg: NDArray[np.float64], step: float) -> NDArray[np.int64]:
