@@ -252,14 +252,15 @@ class SpreadPanner:
         left[norm <= 1e-9] = (0.0, 1.0, 0.0)
         frames = np.stack([f, left, np.cross(f, left)], axis=1)  # (n, 3, 3): f, l, u
         total = np.zeros((len(f), self.panner.loudspeakers))
-        extents, which = np.unique(np.column_stack([w, h]), axis=0, return_inverse=True)
+        # Width and height as one complex key: a 1-D sort, cheaper than rows'.
+        extents, which = np.unique(w + 1j * h, return_inverse=True)
         which = which.reshape(-1)
         if len(extents) <= _SHARED_EXTENTS:
             # Few extents (a moving source keeps its size): each one's samples in its own
             # frame worked out once, then turned to every source that has it.
-            for k, (wk, hk) in enumerate(extents):
+            for k, key in enumerate(extents):
                 rows = np.flatnonzero(which == k)
-                local, weight = _patch(np.array([wk]), np.array([hk]), step)
+                local, weight = _patch(np.array([key.real]), np.array([key.imag]), step)
                 per = max(1, _CHUNK_POINTS // len(weight))
                 for start in range(0, len(rows), per):
                     part = rows[start : start + per]
