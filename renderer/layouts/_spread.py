@@ -43,6 +43,14 @@ array of a :class:`~earfold.renderer.layouts.VbapPanner`:
   exactly; an extent just above zero gives gains just beside them (the samples close in
   on the source).
 
+Cost. Each sample's triangle is guessed from a table and checked
+(:meth:`VbapPanner.summed_gains`), and its gains are added into its source's sum
+without a row of ``M`` gains per sample; states that repeat (a resting source) are
+worked out once per run, and an extent shared by many states (a moving source keeps its
+size) is sampled once. Measured on the 50-point array (best of 15, a shared 2-core
+machine): 1,000 sources in 0.35 ms as points, 2.4 ms at 30 x 15 degrees (9 samples
+each), 6.3 ms at 90 x 45, 57 ms at 360 x 180 (325 samples each).
+
 Depth (BS.2076: a range of distance) is not rendered in this version, since distance is
 not: it has no effect here. Cartesian extents (fractions of the room cube) are converted
 to angles before they come here (:func:`earfold.renderer.objects.object_spread`).
