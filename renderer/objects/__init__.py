@@ -8,13 +8,15 @@ ITU-R BS.2094 for formats a file references without defining.
   (objects with their blocks, bed loudspeakers, HOA packs; what is ignored and why).
 - :func:`object_positions`: an object's position, gain and extent at any times
   (BS.2076-2 interpolation: ``jumpPosition``, ``interpolationLength``).
+- :func:`object_spread`: an object's width, height, depth and diffuse as a source path's
+  spread (cartesian sizes turned into angles: :func:`cartesian_extent`).
 - :func:`inspect_adm`: a JSON-ready summary for a command or a page.
 - :func:`read_wav_chunks`: the header walk alone (``fmt ``, ``data``, ``chna``, ``axml``).
 
 Modules, each one concept: ``_chunks`` (RIFF/RF64/BW64), ``_chna``, ``_xml`` (safe
 parsing, limits in ``_limits``), ``_time``, ``_ids``, ``_definitions`` (XML to
 definitions), ``_common_data``/``_common`` (BS.2094 table), ``_read`` (the programme
-resolved), ``_positions``, ``_inspect``.
+resolved), ``_positions``, ``_extent``, ``_inspect``.
 """
 
 from __future__ import annotations
@@ -27,6 +29,7 @@ from ._common_data import (
     COMMON_HOA_PACKS,
     COMMON_SPEAKER_PACKS,
 )
+from ._extent import cartesian_extent, object_spread
 from ._inspect import inspect_adm, motion_summary
 from ._limits import (
     MAX_ATTRIBUTE_CHARS,
@@ -78,10 +81,12 @@ __all__ = [
     "PackFormat",
     "SpeakerBlock",
     "WavChunks",
+    "cartesian_extent",
     "format_time",
     "inspect_adm",
     "motion_summary",
     "object_positions",
+    "object_spread",
     "parse_chna",
     "parse_time",
     "read_adm",
