@@ -29,13 +29,14 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from ..engine import SourcePath
 from ..eq import REFERENCE as CALIBRATION_REFERENCE
 from ..errors import LayoutError, OptionError, RendererError
 from ..geometry import vector_to_direction
 from ..io import StemInfo
 from ..layouts import Layout, Speaker, get_layout
 from ..objects import AdmMaster
-from ..room import exact_brirs, get_room
+from ..room import RoomFilters, exact_brirs, get_room
 from .adm_feeds import AdmTracks, TrackSpan, adm_layout, object_path
 from .bank import RenderPlan, calibrated_gain
 from .feeds import ChannelFeed, speaker_feeds
@@ -93,47 +94,67 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     room = get_room(settings.room)
     in_room = room is not None and not is_measured_room(hset)
 
-    # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), then
-    # with a room the virtual array and each HOA order's virtual loudspeakers.
+    # The objects' paths, and how each is rendered: followed with its own HRIR pairs (free
+    # field, a point), or panned onto the virtual array (in a room, or with an extent).
+    paths: list[SourcePath] = []
+    entries: list[dict[str, Any]] = []
+    for obj in master.objects:
+        path, entry = object_path(obj, stem.frames, rate)
+        paths.append(path)
+        entries.append(entry)
+        if entry["not_rendered"]:
+            warnings.append(
+                f"ADM object {obj.object_name!r}: its {', '.join(entry['not_rendered'])} "
+                f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered in this "
+                "version (a direction only)"
+            )
+    spreads = [np.zeros((1, 4)) if p.spread is None else p.spread for p in paths]
+    panned = [k for k, sp in enumerate(spreads) if in_room or bool(np.any(sp[:, :2] > 0))]
+    followed = [k for k in range(len(paths)) if k not in panned]
+    has_diffuse = any(bool(np.any(sp[:, 3] > 0)) for sp in spreads)
+
+    # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), the
+    # virtual array when objects are panned, and in a room each HOA order's virtual
+    # loudspeakers.
     if master.beds:
         reference = tuple(layout.speakers[bed.track] for bed in master.beds)
     else:
         reference = get_layout("5.0").speakers
     rows = list(reference)
     virtual_at: dict[int, int] = {}  # first row of each HOA order; -1: the objects' array
+    groups: list[tuple[str, int, NDArray[np.float64], list[float | None]]] = []
     if in_room:
         from .scene_feeds import virtual_distance
 
         # The objects' array: each direction at the beds' radius where the room leaves
         # space, nearer where a surface is closer (towards the floor; its level is evened
         # out below). Each HOA order's virtual loudspeakers: at one distance, as a scene's.
-        groups: list[tuple[str, int, NDArray[np.float64], list[float]]] = []
-        if master.objects:
+        if panned:
             directions = virtual_layout(ARRAY_ORDER)
-            distances = [virtual_distance(room, v[None, :]) for v in directions]  # type: ignore[arg-type]
-            groups.append(("A", -1, directions, distances))
+            reach = [virtual_distance(room, v[None, :]) for v in directions]  # type: ignore[arg-type]
+            groups.append(("A", -1, directions, list(reach)))
         for order in sorted({pack.order for pack in master.hoa}):
             directions = virtual_layout(order)
             distance = virtual_distance(room, directions)  # type: ignore[arg-type]
             groups.append((f"H{order}.", order, directions, [distance] * len(directions)))
-        for prefix, order, directions, distances in groups:
-            virtual_at[order] = len(rows)
-            az, el = vector_to_direction(directions)
-            rows.extend(
-                Speaker(f"{prefix}{i + 1}", round(float(a), 6), round(float(e), 6), d)
-                for i, (a, e, d) in enumerate(
-                    zip(np.atleast_1d(az), np.atleast_1d(el), distances, strict=True)
-                )
+    elif panned:
+        directions = virtual_layout(ARRAY_ORDER)
+        groups.append(("A", -1, directions, [None] * len(directions)))
+    for prefix, order, directions, distances in groups:
+        virtual_at[order] = len(rows)
+        az, el = vector_to_direction(directions)
+        rows.extend(
+            Speaker(f"{prefix}{i + 1}", round(float(a), 6), round(float(e), 6), d)
+            for i, (a, e, d) in enumerate(
+                zip(np.atleast_1d(az), np.atleast_1d(el), distances, strict=True)
             )
+        )
     rows_layout = Layout(
         "ADM rows",
         tuple(rows),
         "the master's bed loudspeakers (or ITU-R BS.2051 0+5+0 for calibration)"
-        + (
-            ", the objects' virtual array and the HOA packs' virtual loudspeakers"
-            if in_room
-            else ""
-        ),
+        + (", the objects' virtual array" if panned else "")
+        + (", the HOA packs' virtual loudspeakers" if in_room and master.hoa else ""),
         "ITU-R BS.2076 metadata of the file",
     )
     room_filters, room_report = room_part(
@@ -249,44 +270,54 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     notes.extend(f"ADM: {note}" for note in master.notes)
 
     objects = None
-    entries: list[dict[str, Any]] = []
     if master.objects or spans:
-        paths = []
-        for obj in master.objects:
-            path, entry = object_path(obj, stem.frames, rate)
-            paths.append(path)
-            entries.append(entry)
-            if entry["not_rendered"]:
-                warnings.append(
-                    f"ADM object {obj.object_name!r}: rendered as a point source; its "
-                    f"{', '.join(entry['not_rendered'])} "
-                    f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered yet"
-                )
-        tracks = tuple(obj.track for obj in master.objects)
-        if in_room and master.objects:
+        bus: list[NDArray[np.float64]] = []
+        bus_tail: list[float] = []
+        array = None
+        if panned:
             at = virtual_at[-1]
-            count = len(virtual_layout(ARRAY_ORDER))
-            objects = AdmTracks(
-                channels=(),
-                paths=(),
-                gain=gain,
-                report=tuple(entries),
-                panned_channels=tracks,
-                panned_paths=tuple(paths),
-                array=np.asarray(virtual_layout(ARRAY_ORDER), dtype=np.float64),
-                array_filters=gain * row_filters[at : at + count],
-                array_tail_weights=row_tail[at : at + count].copy(),
-                spans=spans,
+            array = np.asarray(virtual_layout(ARRAY_ORDER), dtype=np.float64)
+            bus.extend(row_filters[at : at + len(array)])
+            bus_tail.extend(row_tail[at : at + len(array)])
+        if has_diffuse:
+            row, weight = _diffuse_row(hset, rate, settings.seed, room_filters, row_tail, rows)
+            bus.append(row)
+            bus_tail.append(weight)
+            notes.append(
+                "ADM: diffuse shares (BS.2076 diffuse) go through a short decorrelating "
+                "response with the set's diffuse-field spectrum and interaural coherence"
+                + (", and feed the room's tail" if tail is not None else "")
             )
-        else:
-            objects = AdmTracks(
-                channels=tracks,
-                paths=tuple(paths),
-                gain=gain,
-                report=tuple(entries),
-                length=_moving_length(hset, paths, gain) if paths else 1,
-                spans=spans,
-            )
+        bus_filters = None
+        if bus:
+            width = max(b.shape[-1] for b in bus)
+            bus_filters = np.zeros((len(bus), 2, width))
+            for i, b in enumerate(bus):
+                bus_filters[i, :, : b.shape[-1]] = b
+            bus_filters *= gain
+        direct = [_direct_part(paths[k]) for k in followed]
+        objects = AdmTracks(
+            channels=tuple(master.objects[k].track for k in followed),
+            paths=tuple(direct),
+            gain=gain,
+            report=tuple(entries),
+            length=_moving_length(hset, direct, gain) if direct else 1,
+            panned_channels=tuple(master.objects[k].track for k in panned),
+            panned_paths=tuple(paths[k] for k in panned),
+            array=array,
+            array_filters=bus_filters,
+            array_tail_weights=None if tail is None else np.asarray(bus_tail, dtype=np.float64),
+            diffuse=has_diffuse,
+            diffuse_channels=tuple(
+                master.objects[k].track for k in followed if np.any(spreads[k][:, 3] > 0)
+            ),
+            diffuse_paths=tuple(paths[k] for k in followed if np.any(spreads[k][:, 3] > 0)),
+            spans=spans,
+        )
+        for k in panned:
+            entries[k]["rendered"] = "panned onto the virtual array"
+        for k in followed:
+            entries[k]["rendered"] = "own HRIR pairs along its path"
     used = set(fixed) | {obj.track for obj in master.objects}
     unused = [t + 1 for t in range(stem.channels) if t not in used]
     if unused:
@@ -320,11 +351,13 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         "objects_method": (
             None
             if not master.objects
-            else f"panned by VBAP (Pulkki 1997) onto a virtual array of "
+            else "in the room: panned by VBAP (Pulkki 1997) onto a virtual array of "
             f"{len(virtual_layout(ARRAY_ORDER))} directions rendered in the room"
             if in_room
             else "followed along their paths with per-object HRIR pairs, updated every "
-            "10 ms or less and crossfaded"
+            "10 ms or less and crossfaded; objects with a width or height spread over "
+            f"them and panned onto a virtual array of {len(virtual_layout(ARRAY_ORDER))} "
+            "directions (multiple-direction VBAP)"
         ),
         "time_spans": [span.to_dict() for span in spans],
     }
@@ -333,7 +366,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
             **room_report,
             "virtual_array": f"{len(virtual_layout(ARRAY_ORDER))} directions (antipodal "
             f"spherical {2 * ARRAY_ORDER + 1}-design) for the objects"
-            if master.objects
+            if panned
             else None,
         }
     plan = RenderPlan(
@@ -446,3 +479,41 @@ def _with_decay(
         **energy_decay(gain * ir, plan.stem.samplerate),
     }
     return dataclasses.replace(plan, room_decay=decay)
+
+
+def _direct_part(path: SourcePath) -> SourcePath:
+    """``path`` with its gains scaled to the direct share ``sqrt(1 - diffuse)``."""
+    from ..layouts import diffuse_split
+
+    if path.spread is None or not np.any(path.spread[:, 3] > 0):
+        return path
+    direct, _ = diffuse_split(path.spread[:, 3])
+    return SourcePath(path.frames, path.vectors, path.gains * direct, spread=path.spread)
+
+
+def _diffuse_row(
+    hset: Any,
+    rate: float,
+    seed: int,
+    room_filters: RoomFilters | None,
+    row_tail: NDArray[np.float64],
+    rows: list[Speaker],
+) -> tuple[NDArray[np.float64], float]:
+    """The filters of the diffuse shares' channel, and its share of the room's tail.
+
+    A short decorrelating response with the set's diffuse-field spectrum and interaural
+    coherence at the mean energy of its pairs
+    (:func:`~earfold.renderer.room.diffuse_response`), so a diffuse share is as loud as a
+    direct one; in a room it starts with the rows' direct sound (the room's reference
+    arrival) and feeds the tail as much as a loudspeaker at the beds' radius does.
+    """
+    from ..room import diffuse_response
+
+    response = diffuse_response(hset, rate, seed=seed)
+    if room_filters is None:
+        return response, 0.0
+    onset = int(round(float(room_filters.report["reference_arrival_samples"])))
+    row = np.zeros((2, onset + response.shape[-1]))
+    row[:, onset:] = response
+    mains = [i for i, s in enumerate(rows) if not s.lfe]
+    return row, float(np.max(row_tail[mains])) if mains else 0.0

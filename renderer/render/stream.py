@@ -65,15 +65,22 @@ class ObjectsEngine:
             else plan.tail_weights[self.fixed_channels]
         ]
         self.mixer: PanningMixer | None = None
-        if self.panned_channels:
-            from ..layouts import VbapPanner
+        self.diffuse_mixer: PanningMixer | None = None
+        self.diffuse_channels = list(objects.diffuse_channels)
+        rate = plan.stem.samplerate
+        if objects.array_filters is not None:
+            from ..layouts import SpreadPanner, VbapPanner
 
-            assert objects.array is not None and objects.array_filters is not None
-            panner = VbapPanner(objects.array)
-            self.mixer = PanningMixer(objects.panned_paths, panner.gains, plan.stem.samplerate)
+            if self.panned_channels:
+                assert objects.array is not None
+                panner = SpreadPanner(VbapPanner(objects.array), diffuse_channel=objects.diffuse)
+                self.mixer = PanningMixer(objects.panned_paths, panner, rate)
+            if self.diffuse_channels:
+                self.diffuse_mixer = PanningMixer(objects.diffuse_paths, _DiffuseShare(), rate)
+            self._bus = int(objects.array_filters.shape[0])
             banks.append(objects.array_filters)
             weights.append(
-                np.zeros(len(objects.array))
+                np.zeros(self._bus)
                 if objects.array_tail_weights is None
                 else objects.array_tail_weights
             )
@@ -114,8 +121,15 @@ class ObjectsEngine:
                     outside = (frames < start) | ((frames >= end) if end >= 0 else False)
                     fixed[outside, column] = 0.0
             parts.append(fixed)
-        if self.mixer is not None:
-            parts.append(self.mixer.process(block[:, self.panned_channels]))
+        if self.mixer is not None or self.diffuse_mixer is not None:
+            bus = (
+                np.zeros((n, self._bus), dtype=np.float32)
+                if self.mixer is None
+                else self.mixer.process(block[:, self.panned_channels])
+            )
+            if self.diffuse_mixer is not None:
+                bus[:, -1:] += self.diffuse_mixer.process(block[:, self.diffuse_channels])
+            parts.append(bus)
         self._frame += n
         if not parts:
             return np.zeros((n, 1), dtype=np.float32)
@@ -167,7 +181,22 @@ class ObjectsEngine:
                 "array_channels": self.mixer.channels,
                 "update_frames": self.mixer.hop,
             }
+        if self.diffuse_mixer is not None:
+            out["diffuse_shares"] = {"sources": self.diffuse_mixer.sources}
         return out
+
+
+class _DiffuseShare:
+    """Gains of objects followed with their own pairs into the diffuse channel alone: the
+    diffuse share ``sqrt(d)`` of each state (their direct share is the moving engine's)."""
+
+    def spread_gains(self, vectors: NDArray[Any], spread: NDArray[Any]) -> NDArray[Any]:
+        from ..layouts import diffuse_split
+
+        return diffuse_split(spread[:, 3])[1][:, None]
+
+    def __call__(self, vectors: NDArray[Any]) -> NDArray[Any]:
+        return np.zeros((len(vectors), 1))
 
 
 def _padded(bank: NDArray[Any], length: int) -> NDArray[Any]:

@@ -306,3 +306,70 @@ def test_an_hoa_pack_in_a_room_stays_on_its_side(tmp_path):
     assert _ild_db(a[: FS // 2]) < -3.0  # from the right, reflections and tail beside it
     assert report["room"]["synthetic"] and report["room"]["virtual_array"] is None
     assert len(a) > 0.5 * FS + 0.3 * FS  # the room's tail rings on
+
+
+def _coherence(y: np.ndarray, low: float = 1000.0, high: float = 8000.0) -> float:
+    """Interaural coherence of a render, magnitude of the normalised cross-spectrum
+    averaged over ``low`` to ``high`` Hz (Welch)."""
+    f, c = signal.coherence(y[:, 0], y[:, 1], fs=FS, nperseg=1024)
+    band = (f >= low) & (f <= high)
+    return float(np.mean(c[band]))
+
+
+def _object_render(tmp_path, name, extra, az=0.0, **settings):
+    s = _noise(1.5, seed=11)
+    master = _master(
+        tmp_path / f"{name}.wav",
+        s[:, None],
+        [object_block("AC_00031001", 1, az=az, extra=extra)],
+        bed=False,
+    )
+    report = render([str(master)], tmp_path / f"{name}.out.wav", RenderSettings(**FLAT, **settings))
+    return read_audio(tmp_path / f"{name}.out.wav")[0], report
+
+
+def test_an_objects_width_spreads_it_over_the_array(tmp_path):
+    # BS.2076-2 width: the object spread over its extent (multiple-direction VBAP onto the
+    # virtual array: one signal on many directions, so the ears stay coherent; it is the
+    # directions that spread). An object at the left, 360 degrees wide, comes from all
+    # around the horizon: the large level difference of a point at the left (the head's
+    # shadow) is nearly gone, at about the same level (unit-power gains; the coherent
+    # low-frequency sum of a phantom source adds at most a few dB).
+    point, _ = _object_render(tmp_path, "point", "", az=90.0)
+    narrow, _ = _object_render(tmp_path, "narrow", "<width>60</width>", az=90.0)
+    wide, report = _object_render(tmp_path, "wide", "<width>360</width>", az=90.0)
+    entry = report["adm"]["objects_rendered"][0]
+    assert entry["rendered"] == "panned onto the virtual array"
+    assert entry["largest_extent_deg"] == [360.0, 0.0]
+    assert report["engine"]["panned_objects"]["sources"] == 1
+    assert not any("width" in w for w in report["warnings"])
+    assert _ild_db(point) > 10.0
+    assert _ild_db(point) > _ild_db(narrow) > _ild_db(wide)
+    assert abs(_ild_db(wide)) < 3.0
+    assert abs(10 * np.log10(_energy(wide) / _energy(point))) < 4.0
+
+
+def test_an_objects_diffuse_share_is_decorrelated_at_the_same_level(tmp_path):
+    # BS.2076-2 diffuse = 1: all of the object through the diffuse channel, a response with
+    # the set's diffuse-field spectrum and coherence at the mean energy of its pairs: as loud
+    # as the point (1.5 dB: a front pair is not the mean pair), its ears far less alike.
+    point, _ = _object_render(tmp_path, "point", "")
+    diffuse, report = _object_render(tmp_path, "diffuse", "<diffuse>1</diffuse>")
+    assert report["engine"]["diffuse_shares"] == {"sources": 1}
+    assert report["adm"]["objects_rendered"][0]["largest_diffuse"] == 1.0
+    assert abs(10 * np.log10(_energy(diffuse) / _energy(point))) < 1.5
+    assert _coherence(diffuse) < 0.5 < _coherence(point)
+    # half diffuse: the power split sqrt(1 - d), sqrt(d) keeps the level
+    half, _ = _object_render(tmp_path, "half", "<diffuse>0.5</diffuse>")
+    e_half, e_point, e_diffuse = _energy(half), _energy(point), _energy(diffuse)
+    assert abs(10 * np.log10(e_half / (0.5 * e_point + 0.5 * e_diffuse))) < 0.5
+
+
+def test_diffuse_and_wide_objects_in_a_room(tmp_path):
+    wide, report = _object_render(
+        tmp_path, "roomwide", "<width>90</width><diffuse>0.3</diffuse>", room="medium"
+    )
+    assert report["engine"]["panned_objects"]["array_channels"] == 51  # 50 + diffuse
+    assert "diffuse_shares" not in report["engine"]  # panned objects carry their own
+    assert np.all(np.isfinite(wide)) and len(wide) > 1.5 * FS
+    assert abs(_ild_db(wide)) < 1.5
