@@ -23,12 +23,13 @@ from .moving import (
     GRID_STEP_DEG,
     MAX_EXACT_PAIRS,
     MAX_UPDATE_SECONDS,
+    SPREAD_COLUMNS,
     MovingSourceEngine,
     PairFunction,
     PairTable,
     SourcePath,
 )
-from .panning import GainFunction, PanningMixer
+from .panning import GainFunction, PanningMixer, SpreadGains
 from .scheduler import TAIL_BLOCK_FRAMES, FoldEngine
 
 __all__ = [
@@ -49,6 +50,8 @@ __all__ = [
     "PairTable",
     "PanningMixer",
     "SourcePath",
+    "SPREAD_COLUMNS",
+    "SpreadGains",
     "LfeOptions",
     "TAIL_BLOCK_FRAMES",
     "TransformPlan",

@@ -73,6 +73,7 @@ __all__ = [
     "MovingSourceEngine",
     "PairFunction",
     "PairTable",
+    "SPREAD_COLUMNS",
     "SourcePath",
     "update_hop",
 ]
@@ -98,6 +99,11 @@ LOOKAHEAD_HOPS = 256
 #: Partition bounds (frames) of the post filter's uniformly partitioned convolution.
 MIN_POST_PARTITION = 1024
 MAX_POST_PARTITION = 8192
+
+#: The columns of a :class:`SourcePath`'s optional ``spread``: angular width and height
+#: (degrees, in the source's own frame), depth (kept, not rendered) and the diffuse share
+#: (0 to 1).
+SPREAD_COLUMNS = ("width", "height", "depth", "diffuse")
 
 #: Directions to filter pairs: ``(n, 3)`` unit vectors to ``(n, 2, L)`` impulse responses.
 PairFunction = Callable[[NDArray[np.float64]], NDArray[Any]]
@@ -126,6 +132,11 @@ class SourcePath:
         Directions (any non-zero length; x front, y left, z up).
     gains : array_like, shape (B,), optional
         Linear gains, finite and non-negative; default all 1.
+    spread : array_like, shape (B, 4), optional
+        The source's extent per breakpoint, columns :data:`SPREAD_COLUMNS`: width and
+        height in degrees, depth, diffuse share; finite, >= 0, diffuse <= 1.
+        Interpolated like the gains (:meth:`at_spread`). None (the default): a point
+        source with no diffuse share, and :attr:`spread` is None.
 
     Examples
     --------
@@ -139,8 +150,15 @@ class SourcePath:
     frames: NDArray[np.float64]
     vectors: NDArray[np.float64]
     gains: NDArray[np.float64]
+    spread: NDArray[np.float64] | None
 
-    def __init__(self, frames: ArrayLike, vectors: ArrayLike, gains: ArrayLike | None = None):
+    def __init__(
+        self,
+        frames: ArrayLike,
+        vectors: ArrayLike,
+        gains: ArrayLike | None = None,
+        spread: ArrayLike | None = None,
+    ):
         f = np.asarray(frames, dtype=np.float64).reshape(-1)
         v = np.asarray(vectors, dtype=np.float64)
         if v.ndim == 1:
@@ -175,14 +193,19 @@ class SourcePath:
                 f"source path breakpoints {at} and {at + 1} point in opposite directions; the "
                 "way between them is undefined: add a breakpoint on the way"
             )
-        for name, value in (("frames", f), ("vectors", v), ("gains", g)):
-            value.setflags(write=False)
+        e = None if spread is None else _checked_spread(spread, len(f))
+        for name, value in (("frames", f), ("vectors", v), ("gains", g), ("spread", e)):
+            if value is not None:
+                value.setflags(write=False)
             object.__setattr__(self, name, value)
 
     @classmethod
-    def fixed(cls, vector: ArrayLike, gain: float = 1.0) -> SourcePath:
-        """A source resting at one direction with one gain."""
-        return cls([0.0], np.asarray(vector, dtype=np.float64).reshape(1, 3), [gain])
+    def fixed(
+        cls, vector: ArrayLike, gain: float = 1.0, spread: ArrayLike | None = None
+    ) -> SourcePath:
+        """A source resting at one direction with one gain (and one spread, if given)."""
+        rows = None if spread is None else np.asarray(spread, dtype=np.float64).reshape(1, -1)
+        return cls([0.0], np.asarray(vector, dtype=np.float64).reshape(1, 3), [gain], rows)
 
     def at(self, frames: NDArray[Any]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
         """Unit vectors ``(n, 3)`` and gains ``(n,)`` at the given frames."""
@@ -205,6 +228,65 @@ class SourcePath:
         g0, g1 = self.gains[k], self.gains[k + 1]
         gains = np.where(g0 == g1, g0, g0 + a * (g1 - g0))
         return mix, gains
+
+    def at_spread(self, frames: NDArray[Any]) -> NDArray[np.float64]:
+        """The spread ``(n, 4)`` (columns :data:`SPREAD_COLUMNS`) at the given frames.
+
+        Interpolated linearly between breakpoints, column by column, exactly as the gains
+        are (a jump at two breakpoints on one frame, the end values held outside), and
+        exactly a breakpoint's value where two neighbours agree, so that a resting source
+        with a constant spread gives one value, not one per frame that differs in the
+        last bit. A path without a spread gives zeros: a point with no diffuse share.
+
+        Examples
+        --------
+        >>> path = SourcePath([0, 100], [[1.0, 0, 0], [1.0, 0, 0]],
+        ...                   spread=[[0.0, 0, 0, 0], [90.0, 30, 0, 0.5]])
+        >>> path.at_spread(np.array([0, 50, 200])).tolist()
+        [[0.0, 0.0, 0.0, 0.0], [45.0, 15.0, 0.0, 0.25], [90.0, 30.0, 0.0, 0.5]]
+        """
+        t = np.asarray(frames, dtype=np.float64).reshape(-1)
+        if self.spread is None:
+            return np.zeros((len(t), len(SPREAD_COLUMNS)))
+        f = self.frames
+        if len(f) == 1:
+            return np.repeat(self.spread, len(t), axis=0)
+        k = np.clip(np.searchsorted(f, t, side="right") - 1, 0, len(f) - 2)
+        span = f[k + 1] - f[k]
+        a = np.clip((t - f[k]) / np.where(span > 0, span, 1.0), 0.0, 1.0)
+        a = np.where(span > 0, a, 1.0)[:, None]
+        s0, s1 = self.spread[k], self.spread[k + 1]
+        mixed = np.where(s0 == s1, s0, s0 + a * (s1 - s0))
+        mixed = np.where(a == 1.0, s1, mixed)
+        out: NDArray[np.float64] = np.where(a == 0.0, s0, mixed)
+        return out
+
+
+def _checked_spread(spread: ArrayLike, breakpoints: int) -> NDArray[np.float64]:
+    """A path's spread as a float array ``(B, 4)``, checked."""
+    e = np.array(spread, dtype=np.float64)
+    columns = len(SPREAD_COLUMNS)
+    if e.shape != (breakpoints, columns):
+        raise AudioError(
+            f"a source path's spread needs one row of {columns} values "
+            f"({', '.join(SPREAD_COLUMNS)}) per breakpoint, shape ({breakpoints}, {columns}); "
+            f"got shape {e.shape!r}"
+        )
+    if not np.all(np.isfinite(e)):
+        raise AudioError("source path spread values must be finite numbers")
+    if np.any(e < 0):
+        row, col = np.argwhere(e < 0)[0]
+        raise AudioError(
+            f"source path spread {SPREAD_COLUMNS[col]} must be >= 0, got {shown(e[row, col])} "
+            f"at breakpoint {int(row)}"
+        )
+    if np.any(e[:, 3] > 1):
+        row = int(np.argmax(e[:, 3] > 1))
+        raise AudioError(
+            f"source path spread diffuse must be from 0 to 1, got {shown(e[row, 3])} at "
+            f"breakpoint {row}"
+        )
+    return e
 
 
 class _DirectionGrid:

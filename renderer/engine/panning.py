@@ -10,6 +10,13 @@ updates each gain moves along the same equal-gain raised-cosine ramp the moving-
 engine uses for its filters, so panning is as smooth as the filter changes and a path
 whose direction is the same at two updates keeps its gains exactly.
 
+Sources with an extent. A gain function may also take each state's spread (the path's
+width, height, depth and diffuse share, :meth:`SourcePath.at_spread`): an object with a
+``spread_gains(vectors, spread)`` method (the :class:`SpreadGains` protocol, such as
+:class:`earfold.renderer.layouts.SpreadPanner`) is called that way, with the spread of
+every state beside its direction; a plain callable is called with the directions alone,
+as before. The mixer asks by that method's presence, once, when it is built.
+
 This is the cheap half of rendering objects through a fixed array: its cost grows with
 the number of sources times the few channels each feeds (three for VBAP), and the
 array's channels then go through the fixed-filter engine (and a room) whatever the number
@@ -19,7 +26,7 @@ of sources. The mix has no latency: output frame ``t`` depends on input frame ``
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from typing import Any
+from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
 from numpy.typing import NDArray
@@ -28,10 +35,22 @@ from ..errors import AudioError, LayoutError
 from .convolution import FloatArray, RealArray
 from .moving import LOOKAHEAD_HOPS, SourcePath, update_hop
 
-__all__ = ["GainFunction", "PanningMixer"]
+__all__ = ["GainFunction", "PanningMixer", "SpreadGains"]
 
 #: Directions to channel gains: unit vectors ``(n, 3)`` to gains ``(n, M)``.
 GainFunction = Callable[[NDArray[np.float64]], NDArray[Any]]
+
+
+@runtime_checkable
+class SpreadGains(Protocol):
+    """Gains that depend on a source's spread as well as its direction."""
+
+    def spread_gains(
+        self, vectors: NDArray[np.float64], spread: NDArray[np.float64]
+    ) -> NDArray[Any]:
+        """Channel gains ``(n, M)`` of unit vectors ``(n, 3)`` with spreads ``(n, 4)``
+        (columns :data:`~earfold.renderer.engine.moving.SPREAD_COLUMNS`)."""
+        ...
 
 
 class PanningMixer:
@@ -41,9 +60,11 @@ class PanningMixer:
     ----------
     paths : sequence of SourcePath
         One per source; input blocks have ``K`` channels in this order.
-    gains : callable
+    gains : callable or SpreadGains
         ``gains(vectors)`` for unit vectors ``(n, 3)`` returns non-negative channel gains
-        ``(n, M)``; ``M`` is the same for every call.
+        ``(n, M)``; ``M`` is the same for every call. An object with a
+        ``spread_gains(vectors, spread)`` method (:class:`SpreadGains`) is called through
+        it instead, with each state's spread (zeros for a path without one).
     samplerate : float
         The stream's rate in Hz.
     hop : int, optional
@@ -66,7 +87,7 @@ class PanningMixer:
     def __init__(
         self,
         paths: Sequence[SourcePath],
-        gains: GainFunction,
+        gains: GainFunction | SpreadGains,
         samplerate: float,
         *,
         hop: int | None = None,
@@ -84,7 +105,10 @@ class PanningMixer:
         self.hop: int = int(hop)
         self.dtype: np.dtype[Any] = real
         self._gains = gains
-        self.channels: int = int(self._checked(np.array([[1.0, 0.0, 0.0]])).shape[1])
+        #: Whether the gain function takes the spread (checked once, by its method).
+        self.uses_spread: bool = isinstance(gains, SpreadGains)
+        front = np.array([[1.0, 0.0, 0.0]])
+        self.channels: int = int(self._checked(front, np.zeros((1, 4))).shape[1])
         self._ramp = (0.5 - 0.5 * np.cos(np.pi * np.arange(self.hop) / self.hop)).astype(real)
         self.reset()
 
@@ -132,10 +156,14 @@ class PanningMixer:
             frames = (first + np.arange(span)) * float(self.hop)
             vectors = np.empty((self.sources, span, 3))
             path_gains = np.empty((self.sources, span))
+            spread = np.zeros((self.sources, span, 4))
             for k, path in enumerate(self.paths):
                 vectors[k], path_gains[k] = path.at(frames)
+                if self.uses_spread:
+                    spread[k] = path.at_spread(frames)
             # One call of the gain function for every source and state.
-            g = self._checked(vectors.reshape(-1, 3)).reshape(self.sources, span, -1)
+            g = self._checked(vectors.reshape(-1, 3), spread.reshape(-1, 4))
+            g = g.reshape(self.sources, span, -1)
             g = g * path_gains[:, :, None]
             self._ahead = np.ascontiguousarray(g.transpose(1, 0, 2), dtype=self.dtype)
             self._ahead_first = first
@@ -143,8 +171,11 @@ class PanningMixer:
         states: NDArray[Any] = self._ahead[lo : lo + count]
         return states
 
-    def _checked(self, vectors: NDArray[np.float64]) -> NDArray[Any]:
-        g = np.asarray(self._gains(vectors))
+    def _checked(self, vectors: NDArray[np.float64], spread: NDArray[np.float64]) -> NDArray[Any]:
+        if isinstance(self._gains, SpreadGains):
+            g = np.asarray(self._gains.spread_gains(vectors, spread))
+        else:
+            g = np.asarray(self._gains(vectors))
         if g.dtype.kind not in "fiu" or g.ndim != 2 or g.shape[0] != len(vectors):
             raise LayoutError(
                 f"the gain function must return real gains of shape (n, M) for n = "

@@ -5,7 +5,8 @@ from file names), ``_model`` (:class:`Speaker`, :class:`Layout`), ``_order`` (ch
 orders), ``_catalogue`` (the built-in :data:`LAYOUTS`, :func:`suggest_layout`), ``_files``
 (custom layouts as JSON, :func:`get_layout`), ``_channel_mask`` (WAV channel masks) and
 ``_scene`` (Ambisonic scenes as an input kind: :class:`SceneLayout`, :data:`SCENES`) and
-``_vbap`` (vector base amplitude panning onto an array: :class:`VbapPanner`).
+``_vbap`` (vector base amplitude panning onto an array: :class:`VbapPanner`) and
+``_spread`` (sources with a width and height on such an array: :class:`SpreadPanner`).
 """
 
 from __future__ import annotations
@@ -31,14 +32,17 @@ from ._scene import (
     scene_layout,
     stem_scene,
 )
+from ._spread import MAX_HEIGHT_DEG, MAX_WIDTH_DEG, SpreadPanner, diffuse_split
 from ._vbap import POLE_GAP_DEG, VbapPanner
 
 __all__ = [
     "LAYOUTS",
     "Layout",
     "MAX_LABEL_LENGTH",
+    "MAX_HEIGHT_DEG",
     "MAX_LAYOUT_FILE_BYTES",
     "MAX_SPEAKERS",
+    "MAX_WIDTH_DEG",
     "ORDER_NAMES",
     "POLE_GAP_DEG",
     "SCENES",
@@ -47,8 +51,10 @@ __all__ = [
     "SPEAKER_BITS",
     "SceneLayout",
     "Speaker",
+    "SpreadPanner",
     "VbapPanner",
     "canonical_label",
+    "diffuse_split",
     "filename_label",
     "get_layout",
     "labels_from_filenames",

@@ -51,6 +51,11 @@ MAX_POINTS = 4096
 #: Gains (of a triangle's, before scaling) at or below this are zeros.
 _ZERO_GAIN = 1e-12
 
+#: Spacing (degrees) of the grid whose points' triangles :meth:`VbapPanner.summed_gains`
+#: tries first: fine against any triangle (a 50-point array's are 25-40 degrees across),
+#: so most guesses hold, and coarse enough to build in some 10 ms (10,300 points).
+_GUESS_STEP_DEG = 2.0
+
 #: Triangles looked at per direction: the facet hit first and any sharing its plane.
 _COPLANAR_CANDIDATES = 8
 
@@ -143,25 +148,35 @@ class VbapPanner:
             np.transpose(points[self.triangles], (0, 2, 1))
         )
         self._share = _sharing_matrix(len(v), len(virtual), self.triangles)
+        self._guess_grid: _GuessGrid | None = None
+        self._guesses: NDArray[np.intp] | None = None
 
     @property
     def loudspeakers(self) -> int:
         """Number of real loudspeakers M (the gains' width)."""
         return int(self.vectors.shape[0])
 
-    def gains(self, directions: ArrayLike) -> NDArray[np.float64]:
+    def gains(self, directions: ArrayLike, *, unit_power: bool = True) -> NDArray[np.float64]:
         """Unit-power gains of each source direction on the loudspeakers.
 
         Parameters
         ----------
         directions : array_like, shape (3,) or (n, 3)
             Source directions (any non-zero length).
+        unit_power : bool, optional
+            True (the default): scaled so that ``sum g_i^2 = 1`` (Pulkki's eq. 10).
+            False: the gains of Pulkki's eq. 8 for the unit vector ``p`` as they are, so
+            that ``sum_i g_i l_i = p`` exactly where real loudspeakers cover ``p`` (a
+            virtual point's share breaks the equality in a hole); sums of such gains
+            over several directions keep the sum of the directions (the spread panner's
+            use).
 
         Returns
         -------
         numpy.ndarray, shape (n, M)
-            Non-negative gains, ``sum g_i^2 = 1`` per row; at most three non-zero in the
-            covered part of the sphere (a virtual point's share adds its neighbours).
+            Non-negative gains, ``sum g_i^2 = 1`` per row when ``unit_power``; at most
+            three non-zero in the covered part of the sphere (a virtual point's share
+            adds its neighbours).
         """
         d = np.asarray(directions, dtype=np.float64)
         if d.ndim == 1:
@@ -179,9 +194,77 @@ class VbapPanner:
         g = np.where(g > _ZERO_GAIN, g, 0.0)
         full = np.zeros((len(p), self.loudspeakers + len(self.virtual)))
         np.put_along_axis(full, self.triangles[facet], g, axis=1)
-        out: NDArray[np.float64] = full @ self._share
-        out /= np.linalg.norm(out, axis=1, keepdims=True)
+        out: NDArray[np.float64] = full @ self._share if len(self.virtual) else full
+        if unit_power:
+            out /= np.linalg.norm(out, axis=1, keepdims=True)
         return out
+
+    @property
+    def spacing_deg(self) -> float:
+        """The longest edge of the triangulation in degrees: the widest gap between
+        neighbouring loudspeakers (virtual pole points included)."""
+        points = np.vstack([self.vectors, self.virtual])
+        tri = points[self.triangles]  # (F, 3, 3)
+        edges = np.concatenate([tri[:, [0, 1]], tri[:, [1, 2]], tri[:, [2, 0]]])
+        return float(np.max(angle_between(edges[:, 0], edges[:, 1])))
+
+    def summed_gains(
+        self,
+        directions: NDArray[np.float64],
+        owners: NDArray[np.intp],
+        weights: NDArray[np.float64],
+        count: int,
+    ) -> NDArray[np.float64]:
+        """Weighted sums of the gains of many directions (Pulkki's eq. 8, unscaled).
+
+        ``out[k] = sum over i with owners[i] == k of weights[i] * gains(p_i,
+        unit_power=False)``: what a source spread over many sample directions needs,
+        without the ``(n, M)`` rows of each sample. The active triangle of each unit
+        vector is first guessed from a table over a grid of directions
+        (:data:`_GUESS_STEP_DEG` apart, built on the first call) and kept where all its
+        gains are non-negative, which holds only for the triangle that contains the
+        direction; the few guesses that miss (directions near an edge) are searched for
+        as :meth:`gains` does. The gains are then the same.
+
+        Parameters
+        ----------
+        directions : numpy.ndarray, shape (n, 3)
+            Unit vectors (not checked: the caller makes them).
+        owners : numpy.ndarray of int, shape (n,)
+            The sum each direction adds to, ``0 <= owners < count``.
+        weights : numpy.ndarray, shape (n,)
+            Each direction's weight.
+        count : int
+            Number of sums.
+
+        Returns
+        -------
+        numpy.ndarray, shape (count, M)
+        """
+        p = np.asarray(directions, dtype=np.float64)
+        facet = self._guess(p)
+        g = np.einsum("nij,nj->ni", self._inverse[facet], p)
+        missed = np.flatnonzero(g.min(axis=1) < -_ZERO_GAIN)
+        if len(missed):
+            facet[missed], g[missed] = self._active(p[missed])
+        g = np.where(g > _ZERO_GAIN, g, 0.0) * weights[:, None]
+        width = self.loudspeakers + len(self.virtual)
+        slots = owners[:, None] * width + self.triangles[facet]
+        sums = np.bincount(slots.reshape(-1), g.reshape(-1), minlength=count * width)
+        out: NDArray[np.float64] = np.asarray(sums, dtype=np.float64).reshape(count, width)
+        return out @ self._share if len(self.virtual) else out
+
+    def _guess(self, p: NDArray[np.float64]) -> NDArray[np.intp]:
+        """The active triangle at the grid point nearest each unit vector."""
+        if self._guesses is None:
+            self._guess_grid = _GuessGrid(_GUESS_STEP_DEG)
+            centres = self._guess_grid.vectors()
+            self._guesses = np.concatenate(
+                [self._active(centres[i : i + 8192])[0] for i in range(0, len(centres), 8192)]
+            )
+        assert self._guess_grid is not None
+        found: NDArray[np.intp] = self._guesses[self._guess_grid.nearest(p)]
+        return found.copy()
 
     def _active(self, p: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
         """The active triangle of each direction and its three gains before scaling.
@@ -194,6 +277,20 @@ class VbapPanner:
         negative gain.
         """
         scores = p @ self._planes.T  # (n, F)
+        # The facet hit first holds the direction unless it shares its plane with
+        # another one and is the wrong one of them (one of its gains then negative):
+        # only those directions need the candidates below.
+        facet = np.argmax(scores, axis=1)
+        gains = np.einsum("nij,nj->ni", self._inverse[facet], p)
+        doubtful = np.flatnonzero(gains.min(axis=1) < -_ZERO_GAIN)
+        if len(doubtful):
+            facet[doubtful], gains[doubtful] = self._coplanar(p[doubtful], scores[doubtful])
+        return facet, gains
+
+    def _coplanar(
+        self, p: NDArray[np.float64], scores: NDArray[np.float64]
+    ) -> tuple[NDArray[np.intp], NDArray[np.float64]]:
+        """The active triangle among the facets sharing the plane hit first."""
         k = min(_COPLANAR_CANDIDATES, scores.shape[1])
         candidates = np.argpartition(-scores, k - 1, axis=1)[:, :k]  # (n, k)
         best = np.take_along_axis(scores, candidates, axis=1)
@@ -209,6 +306,38 @@ class VbapPanner:
             f"VbapPanner({self.loudspeakers} loudspeakers, {len(self.virtual)} virtual, "
             f"{len(self.triangles)} triangles)"
         )
+
+
+class _GuessGrid:
+    """Rings of points every ``step`` degrees of elevation and of arc along each ring;
+    the nearest point of a unit vector in closed form (ring by elevation, point by
+    azimuth)."""
+
+    def __init__(self, step_deg: float) -> None:
+        rings = int(round(180.0 / step_deg)) + 1
+        self.elevation_step = 180.0 / (rings - 1)
+        self.elevations = -90.0 + self.elevation_step * np.arange(rings)
+        cos = np.cos(np.radians(self.elevations))
+        self.counts = np.maximum(1, np.round(360.0 * cos / step_deg).astype(np.int64))
+        self.offsets = np.concatenate([[0], np.cumsum(self.counts)[:-1]])
+
+    def nearest(self, p: NDArray[np.float64]) -> NDArray[np.int64]:
+        el = np.degrees(np.arcsin(np.clip(p[:, 2], -1.0, 1.0)))
+        az = np.degrees(np.arctan2(p[:, 1], p[:, 0]))
+        ring = np.clip(np.round((el + 90.0) / self.elevation_step).astype(np.int64), 0, None)
+        ring = np.minimum(ring, len(self.counts) - 1)
+        count = self.counts[ring]
+        index: NDArray[np.int64] = (
+            self.offsets[ring] + np.round(az * count / 360.0).astype(np.int64) % count
+        )
+        return index
+
+    def vectors(self) -> NDArray[np.float64]:
+        ring = np.repeat(np.arange(len(self.counts)), self.counts)
+        point = np.arange(int(self.counts.sum())) - self.offsets[ring]
+        el = np.radians(self.elevations[ring])
+        az = np.radians(point * 360.0 / self.counts[ring])
+        return np.stack([np.cos(el) * np.cos(az), np.cos(el) * np.sin(az), np.sin(el)], axis=1)
 
 
 def _sharing_matrix(real: int, virtual: int, triangles: NDArray[np.intp]) -> NDArray[Any]:

@@ -8,6 +8,8 @@ ITU-R BS.2094 for formats a file references without defining.
   (objects with their blocks, bed loudspeakers, HOA packs; what is ignored and why).
 - :func:`object_positions`: an object's position, gain and extent at any times
   (BS.2076-2 interpolation: ``jumpPosition``, ``interpolationLength``).
+- :func:`object_spread`: an object's width, height, depth and diffuse as a source path's
+  spread (cartesian sizes turned into angles: :func:`cartesian_extent`).
 - :func:`inspect_adm`: a JSON-ready summary for a command or a page; :func:`probe_adm`
   the short one an upload gives (None for a WAV that is not a master);
   :func:`object_paths` each object's direction and gain over time, sampled for drawing,
@@ -19,7 +21,7 @@ ITU-R BS.2094 for formats a file references without defining.
 Modules, each one concept: ``_chunks`` (RIFF/RF64/BW64), ``_chna``, ``_xml`` (safe
 parsing, limits in ``_limits``), ``_time``, ``_ids``, ``_definitions`` (XML to
 definitions), ``_common_data``/``_common`` (BS.2094 table), ``_read`` (the programme
-resolved), ``_positions``, ``_inspect``.
+resolved), ``_positions``, ``_extent``, ``_inspect``.
 """
 
 from __future__ import annotations
@@ -32,6 +34,7 @@ from ._common_data import (
     COMMON_HOA_PACKS,
     COMMON_SPEAKER_PACKS,
 )
+from ._extent import cartesian_extent, object_spread
 from ._inspect import (
     MAX_LISTED,
     PATH_POINTS,
@@ -95,6 +98,7 @@ __all__ = [
     "SpeakerBlock",
     "WavChunks",
     "adm_overview",
+    "cartesian_extent",
     "direction_vectors",
     "format_time",
     "inspect_adm",
@@ -102,6 +106,7 @@ __all__ = [
     "motion_summary",
     "object_paths",
     "object_positions",
+    "object_spread",
     "parse_chna",
     "parse_time",
     "probe_adm",

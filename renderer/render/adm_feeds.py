@@ -34,11 +34,12 @@ from numpy.typing import NDArray
 from ..engine import SourcePath
 from ..geometry import direction_to_vector, vector_to_direction
 from ..layouts import Layout, Speaker
-from ..objects import AdmMaster, ObjectChannel, object_positions
+from ..objects import AdmMaster, ObjectChannel, object_positions, object_spread
 
 __all__ = [
     "UPDATE_SECONDS",
     "AdmTracks",
+    "TrackSpan",
     "adm_layout",
     "object_path",
     "position_vectors",
@@ -49,27 +50,76 @@ UPDATE_SECONDS = 0.010
 
 
 @dataclass(frozen=True)
+class TrackSpan:
+    """The frames a bed or HOA track plays: ``start <= frame < end`` (``end`` -1: to the
+    end of the file); outside them the track is silent (its object's BS.2076 span)."""
+
+    track: int
+    start: int
+    end: int
+
+    @classmethod
+    def of(cls, track: int, start: Any, end: Any, samplerate: float) -> TrackSpan:
+        """From an object's start and end in seconds (``end`` None: to the end)."""
+        first = int(round(float(start) * samplerate))
+        return cls(track, first, -1 if end is None else int(round(float(end) * samplerate)))
+
+    def to_dict(self) -> dict[str, Any]:
+        """The report's entry (the track numbered from 1, times in frames)."""
+        return {"track": self.track + 1, "start_frame": self.start, "end_frame": self.end}
+
+
+@dataclass(frozen=True, eq=False)
 class AdmTracks:
-    """The moving part of an ADM plan: which file tracks are objects and their paths.
+    """The time-varying part of an ADM plan: objects and their paths, and track spans.
 
     Attributes
     ----------
     channels : tuple of int
-        File channels (0-based) of the objects, in the order of ``paths``.
+        File channels (0-based) of the objects followed with per-object HRIR pairs (the
+        moving-source engine), in the order of ``paths``.
     paths : tuple of SourcePath
-        Each object's directions and gains over the stream's frames.
+        Each of those objects' directions and gains over the stream's frames (the gains
+        of their direct shares).
     gain : float
-        The plan's calibration gain, applied to the objects' output.
+        The plan's calibration gain, applied to the moving engine's output.
     report : tuple of dict
         Each object's entry in the report (name, track, time span, motion).
+    length : int
+        Length of the moving engine's whole response (its pairs and the set's EQ).
+    panned_channels, panned_paths
+        The objects panned onto the virtual array instead (in a room, or with a width or
+        height), and their paths (with their spreads).
+    array : ndarray, shape (M, 3) or None
+        The array's unit vectors (VBAP's loudspeakers).
+    array_filters : ndarray, shape (M + D, 2, L) or None
+        The calibrated filters of the array's directions (through the HRIRs, or in the
+        room), then with ``diffuse`` (``D = 1``) those of the diffuse shares' channel.
+    array_tail_weights : ndarray, shape (M + D,) or None
+        Their shares of the plan's shared tail.
+    diffuse : bool
+        Whether the last row of ``array_filters`` is the diffuse shares' channel.
+    diffuse_channels, diffuse_paths
+        Objects followed with their own pairs whose diffuse share (their paths' spread)
+        goes to the diffuse channel.
+    spans : tuple of TrackSpan
+        Bed and HOA tracks that play only part of the time.
     """
 
     channels: tuple[int, ...]
     paths: tuple[SourcePath, ...]
     gain: float
     report: tuple[dict[str, Any], ...] = field(default_factory=tuple)
-    #: Length of the objects' whole response (moving filters and the set's EQ).
     length: int = 1
+    panned_channels: tuple[int, ...] = ()
+    panned_paths: tuple[SourcePath, ...] = ()
+    array: NDArray[np.float64] | None = None
+    array_filters: NDArray[np.float64] | None = None
+    array_tail_weights: NDArray[np.float64] | None = None
+    diffuse: bool = False
+    diffuse_channels: tuple[int, ...] = ()
+    diffuse_paths: tuple[SourcePath, ...] = ()
+    spans: tuple[TrackSpan, ...] = ()
 
 
 def position_vectors(positions: NDArray[np.float64], cartesian: bool) -> NDArray[np.float64]:
@@ -110,10 +160,13 @@ def object_path(
     path = object_positions(channel, points / float(samplerate))
     vectors = position_vectors(path.positions, path.cartesian)
     gains = np.where(path.active, np.maximum(path.gain, 0.0), 0.0)
+    spread = object_spread(path)
     keep = np.ones(len(points), dtype=bool)
     if len(points) > 2:
-        same = np.all(np.isclose(vectors[1:], vectors[:-1], atol=1e-12), axis=1) & np.isclose(
-            gains[1:], gains[:-1], atol=1e-15
+        same = (
+            np.all(np.isclose(vectors[1:], vectors[:-1], atol=1e-12), axis=1)
+            & np.isclose(gains[1:], gains[:-1], atol=1e-15)
+            & np.all(spread[1:] == spread[:-1], axis=1)
         )
         # a sample is needed when it differs from its neighbour on either side
         keep[1:-1] = ~(same[:-1] & same[1:])
@@ -138,14 +191,18 @@ def object_path(
             round(float(points[moving[-1] + 1] / samplerate), 3),
         ]
     )
-    extent = {
-        name: bool(np.any(np.asarray(getattr(path, name)) > 0))
-        for name in ("width", "height", "depth", "diffuse")
-    }
-    entry["not_rendered"] = [name for name, used in extent.items() if used]
+    entry["largest_extent_deg"] = [
+        round(float(spread[:, 0].max()), 2),
+        round(float(spread[:, 1].max()), 2),
+    ]
+    entry["largest_diffuse"] = round(float(spread[:, 3].max()), 4)
+    entry["not_rendered"] = []
+    if np.any(np.asarray(path.depth) > 0) and not path.cartesian:
+        entry["not_rendered"].append("depth")
     if not path.cartesian and np.ptp(path.positions[:, 2]) > 1e-9:
         entry["not_rendered"].append("distance")
-    return SourcePath(points[keep], vectors[keep], gains[keep]), entry
+    source = SourcePath(points[keep], vectors[keep], gains[keep], spread=spread[keep])
+    return source, entry
 
 
 def adm_layout(master: AdmMaster) -> Layout:

@@ -280,6 +280,9 @@ SOUND_OPTIONS = tuple(s.name for s in RENDER_OPTIONS if s.shapes_sound)
 #: Names of the delivery and output options (a comparison sets these itself).
 DELIVERY_OPTIONS = tuple(s.name for s in RENDER_OPTIONS if not s.shapes_sound)
 
+#: The options that only an Ambisonic scene takes.
+SCENE_OPTIONS = ("ambisonic_norm", "ambisonic_decoder", "rotate")
+
 
 def option(name: str) -> OptionSpec:
     """The declaration of the option ``name``; :class:`OptionError` if there is none."""

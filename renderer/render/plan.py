@@ -9,33 +9,24 @@ equalises the HRTF set, builds the room, turns every input channel into a
 from __future__ import annotations
 
 import dataclasses
-import functools
 import os
-import stat
-from collections.abc import Callable, Iterator, Sequence
-from dataclasses import dataclass
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
-from ..eq import REFERENCE as CALIBRATION_REFERENCE
 from ..eq import (
-    EqualisedHrirSet,
     HeadphoneEq,
-    calibration_gain,
-    check_eq,
-    equalised,
     load_headphone_eq,
 )
 from ..errors import LayoutError, OptionError, RendererError
-from ..hrtf import HrirSet, file_sha256, load_hrir_set
+from ..hrtf import HrirSet
 from ..io import StemInfo, probe_stem
 from ..layouts import (
     Layout,
     SceneLayout,
-    Speaker,
     filename_label,
     get_layout,
     labels_from_filenames,
@@ -47,116 +38,24 @@ from ..layouts import (
     suggest_layout,
 )
 from ..objects import AdmMaster, read_adm, read_wav_chunks
-from ..room import Room, RoomFilters, build_room_filters, exact_brirs, get_room
-from ._decay import energy_decay
-from .adm_feeds import AdmTracks, adm_layout, object_path
+from ..room import Room, exact_brirs, get_room
+from .bank import RenderPlan, plan_from_feeds, room_decay
 from .feeds import ChannelFeed, speaker_feeds
 from .filter_cache import FilterCache, default_filter_cache
 from .fold import FOLD_CHOICES, fold_feeds, fold_section
-from .options import ROOM_MODES, RenderSettings
+from .options import ROOM_MODES, SCENE_OPTIONS, RenderSettings
+from .prepared import (
+    REUSED,
+    is_measured_room,
+    keep_lookups,
+    layout_key,
+    prepared_set,
+    resolve_hrtf,
+    room_part,
+    take_lookups,
+)
 
 __all__ = ["RenderPlan", "plan_from_feeds", "plan_render", "resolve_hrtf"]
-
-
-@dataclass(frozen=True)
-class RenderPlan:
-    """What a render will do, decided before any audio is read.
-
-    Attributes
-    ----------
-    stem : StemInfo
-        The input (or the excerpt of it that is rendered).
-    feeds : tuple of ChannelFeed
-        What feeds the ears, one per input channel in file order.
-    hrir_set : HrirSet or None
-        The (equalised) set the feeds were built from; None for the stereo fold-down.
-    filters : numpy.ndarray, shape (C, 2, L)
-        The calibrated filter bank, in file channel order.
-    warnings : tuple of str
-    layout : Layout
-        The loudspeaker layout the input channels belong to.
-    order : tuple of int
-        File channel ``i`` feeds layout loudspeaker ``order[i]``.
-    order_source : str
-        Where the channel order came from.
-    tail, tail_weights, tail_offset
-        The calibrated shared room tail ``(2, Lt)``, each channel's share of it ``(C,)``
-        and its delay in samples; None and 0 without a shared tail.
-    room, eq, calibration : dict or None
-        The report's sections.
-    headphone : HeadphoneEq or None
-        Applied to the two-channel output.
-    notes : tuple of str
-        Information the report gives without alarm (what every default render would
-        show); ``warnings`` are kept for real problems.
-    fold : dict
-        The report's ``fold`` section: ``{"mode": "binaural"}``, or the stereo
-        fold-down's coefficients and source.
-    solo : dict or None
-        The loudspeaker rendered alone (label, layout index, file channel), or None.
-    room_decay : dict or None
-        The report's room decay plot, computed with the filters
-        (:func:`room_decay`) and cached with them;
-        None when there is no synthetic room or it is left to the report.
-    scene : dict or None
-        The report's ``scene`` section for an Ambisonic scene (order, normalisation, the
-        decoder's description, rotation, room), None for loudspeakers. A scene's
-        ``layout`` is then a :class:`~earfold.renderer.layouts.SceneLayout`: one
-        placeholder "speaker" per file channel, labelled ``ACN0`` ... (``W X Y Z`` for
-        FuMa), which gives the stream its channel names and the BS.1770 input weights
-        (W alone); ``order`` is the identity (a scene keeps its own channel order).
-    """
-
-    stem: StemInfo
-    feeds: tuple[ChannelFeed, ...]
-    hrir_set: HrirSet | None
-    filters: NDArray[np.float64]
-    warnings: tuple[str, ...]
-    layout: Layout
-    order: tuple[int, ...]
-    order_source: str
-    tail: NDArray[np.float64] | None = None
-    tail_weights: NDArray[np.float64] | None = None
-    tail_offset: int = 0
-    room: dict[str, Any] | None = None
-    eq: dict[str, Any] | None = None
-    calibration: dict[str, Any] | None = None
-    headphone: HeadphoneEq | None = None
-    notes: tuple[str, ...] = ()
-    fold: dict[str, Any] = dataclasses.field(default_factory=lambda: {"mode": "binaural"})
-    solo: dict[str, Any] | None = None
-    room_decay: dict[str, Any] | None = None
-    scene: dict[str, Any] | None = None
-    objects: AdmTracks | None = None
-    adm: dict[str, Any] | None = None
-
-    @property
-    def speakers(self) -> tuple[dict[str, Any], ...]:
-        """The report entries of the input channels, in file order."""
-        return tuple(f.report for f in self.feeds)
-
-    @property
-    def length(self) -> int:
-        """Length of the whole response: output frames = input frames + length - 1."""
-        n = int(self.filters.shape[-1])
-        if self.tail is not None:
-            n = max(n, self.tail_offset + int(self.tail.shape[-1]))
-        if self.objects is not None:
-            n = max(n, self.objects.length)
-        if self.headphone is not None:
-            n += int(self.headphone.ir.shape[-1]) - 1
-        return n
-
-
-def resolve_hrtf(name_or_path: str | os.PathLike[str] | None) -> tuple[str, str]:
-    """Path and display name of an HRTF set given by shipped name or file path."""
-    from earfold.hrtf_sets import DEFAULT_SET, get_shipped
-
-    value = os.fspath(name_or_path) if name_or_path else DEFAULT_SET
-    if value.lower().endswith(".sofa") or os.sep in value or "/" in value:
-        return value, Path(value).name
-    shipped = get_shipped(value)
-    return str(shipped.path), str(shipped.name)
 
 
 def _adm_master(stem: StemInfo, settings: RenderSettings) -> AdmMaster | None:
@@ -328,7 +227,9 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
     stem = probe_stem(inputs)
     master = _adm_master(stem, settings)
     if master is not None:
-        return _plan_adm(stem, master, settings)
+        from .adm_plan import plan_adm  # here: only an ADM master loads it
+
+        return plan_adm(stem, master, settings)
     if settings.adm_programme is not None:
         raise OptionError(
             "adm_programme applies to ADM masters only (a WAV with axml and chna chunks); "
@@ -363,7 +264,7 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
     if settings.fold == "stereo":
         return _plan_fold(stem, layout, order, order_source, warnings, notes, settings, solo)
     cache = default_filter_cache()
-    hset, eq_report, set_key = _prepared_set(
+    hset, eq_report, set_key = prepared_set(
         settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
     )
     headphone = None
@@ -439,10 +340,10 @@ def _built_plan(
     solo: dict[str, Any] | None,
 ) -> RenderPlan:
     """The plan's filter bank computed: the feeds of every channel, the room, calibration."""
-    room_filters, room_report = _room_part(
+    room_filters, room_report = room_part(
         hset, layout, requested_room, stem.samplerate, settings, set_key, cache, warnings, notes
     )
-    _take_lookups(hset, set_key, cache)
+    take_lookups(hset, set_key, cache)
     exact = room_filters is not None and settings.room_mode == "exact"
     feeds = speaker_feeds(
         layout,
@@ -465,7 +366,7 @@ def _built_plan(
         ),
         warnings=warnings,
     )
-    _keep_lookups(hset, set_key, cache)
+    keep_lookups(hset, set_key, cache)
     shared = room_filters is not None and not exact
     return plan_from_feeds(
         stem,
@@ -483,10 +384,6 @@ def _built_plan(
         notes=notes,
         solo=solo,
     )
-
-
-#: The options that only an Ambisonic scene takes.
-SCENE_OPTIONS = ("ambisonic_norm", "ambisonic_decoder", "rotate")
 
 
 def _refuse_scene_options(layout: Layout, settings: RenderSettings) -> None:
@@ -552,7 +449,7 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
             f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
         )
     cache = default_filter_cache()
-    hset, eq_report, set_key = _prepared_set(
+    hset, eq_report, set_key = prepared_set(
         settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
     )
     headphone = None
@@ -594,15 +491,15 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
     added, added_notes = len(warnings), len(notes)
     virtual = (
         None
-        if requested_room is None or _is_measured_room(hset)
+        if requested_room is None or is_measured_room(hset)
         else virtual_room_layout(asked.order, requested_room)
     )
-    room_filters, room_report = _room_part(
+    room_filters, room_report = room_part(
         hset, virtual, requested_room, stem.samplerate, settings, set_key, cache, warnings, notes
     )
     if room_report is not None and virtual is not None and room_report.get("synthetic"):
         room_report["virtual_layout"] = virtual.description
-    _take_lookups(hset, set_key, cache)
+    take_lookups(hset, set_key, cache)
     bank = scene_bank(
         scene,
         hset,
@@ -613,7 +510,7 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
         room=room_filters,
         exact=settings.room_mode == "exact",
     )
-    _keep_lookups(hset, set_key, cache)
+    keep_lookups(hset, set_key, cache)
     warnings.extend(bank.warnings)
     notes.extend(bank.notes)
     plan = plan_from_feeds(
@@ -639,214 +536,6 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
     if cache is not None and bank_key is not None:
         cache.put("bank", bank_key, *_bank_entry(plan, warnings[added:], notes[added_notes:]))
     return plan
-
-
-def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> RenderPlan:
-    """The plan of an ADM object master (see :mod:`.adm_feeds`): beds and HOA tracks as
-    the fixed filter bank, objects as paths for the moving-source engine, one calibration
-    gain for all of them."""
-    from .moving_sources import moving_source_engine
-
-    name = Path(stem.paths[0]).name
-    refused = [
-        what
-        for what, given in (
-            ("channel_order", bool(settings.channel_order)),
-            ("solo", settings.solo is not None),
-            ("fold stereo", settings.fold == "stereo"),
-            ("headphone_eq", settings.headphone_eq is not None),
-            ("room", get_room(settings.room) is not None),
-            *((option, getattr(settings, option) is not None) for option in SCENE_OPTIONS),
-        )
-        if given
-    ]
-    if refused:
-        raise OptionError(
-            f"{', '.join(refused)}: not available for ADM masters in this version ({name!r} "
-            "is rendered as its metadata places it, free field); leave "
-            f"{'it' if len(refused) == 1 else 'them'} out"
-        )
-    if stem.channels != master.channels:
-        raise LayoutError(
-            f"{name!r}: the audio has {stem.channels} channel(s) but its ADM header says "
-            f"{master.channels}"
-        )
-    warnings: list[str] = []
-    notes: list[str] = []
-    cache = default_filter_cache()
-    hset, eq_report, _ = _prepared_set(
-        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
-    )
-    rate = stem.samplerate
-    layout = adm_layout(master)
-    fixed: dict[int, tuple[ChannelFeed, float]] = {}
-    if master.beds:
-        reference = Layout(
-            "ADM bed",
-            tuple(layout.speakers[bed.track] for bed in master.beds),
-            "the master's bed loudspeakers",
-            "ITU-R BS.2076 metadata of the file",
-        )
-    else:
-        reference = get_layout("5.0")
-    reference_feeds = speaker_feeds(
-        reference, tuple(range(reference.channels)), hset, rate, lfe=settings.lfe
-    )
-    if master.beds:
-        for bed, feed in zip(master.beds, reference_feeds):
-            fixed[bed.track] = (feed, 0.0 if bed.mute else float(bed.gain))
-    stacked = np.zeros((len(reference_feeds), 2, max(f.filters.shape[-1] for f in reference_feeds)))
-    for i, feed in enumerate(reference_feeds):
-        stacked[i, :, : feed.filters.shape[-1]] = feed.filters
-    gain = _calibrate(stacked, reference_feeds, None, None, 0, rate)
-    for pack in master.hoa:
-        from ..scenes import scene_decoder  # here: a master without HOA never loads it
-        from .scene_feeds import scene_taps
-
-        decoder = scene_decoder(hset, pack.order, samplerate=rate, taps=scene_taps(hset))
-        notes.extend(f"HOA {pack.object_name!r}: {w}" for w in decoder.warnings)
-        bank = decoder.for_input(pack.normalization.lower())
-        for track, acn in zip(pack.tracks, pack.acns):
-            report = {"channel": track, "label": f"ACN{acn}", "hoa": pack.object_name}
-            feed = ChannelFeed(label=f"ACN{acn}", filters=bank[acn], report=report)
-            fixed[track] = (feed, 0.0 if pack.mute else float(pack.gain))
-    spans = [f"{bed.object_name!r}" for bed in master.beds if bed.start or bed.end is not None] + [
-        f"{pack.object_name!r}" for pack in master.hoa if pack.start or pack.end is not None
-    ]
-    if spans:
-        warnings.append(
-            "ADM: the time spans (start, duration) of bed and HOA objects are not applied in "
-            f"this version; played throughout: {', '.join(sorted(set(spans)))}"
-        )
-    warnings.extend(f"ADM: not rendered: {reason}" for reason in master.ignored)
-    notes.extend(f"ADM: {note}" for note in master.notes)
-    length = max([1, *(f.filters.shape[-1] for f, _ in fixed.values())])
-    filters = np.zeros((stem.channels, 2, length))
-    for track, (feed, g) in fixed.items():
-        filters[track, :, : feed.filters.shape[-1]] = g * feed.filters
-    filters *= gain
-    objects = None
-    entries: list[dict[str, Any]] = []
-    if master.objects:
-        paths = []
-        for obj in master.objects:
-            path, entry = object_path(obj, stem.frames, rate)
-            paths.append(path)
-            entries.append(entry)
-            if entry["not_rendered"]:
-                warnings.append(
-                    f"ADM object {obj.object_name!r}: rendered as a point source; its "
-                    f"{', '.join(entry['not_rendered'])} "
-                    f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered yet"
-                )
-        engine = moving_source_engine(hset, paths, gain=gain)
-        objects = AdmTracks(
-            channels=tuple(obj.track for obj in master.objects),
-            paths=tuple(paths),
-            gain=gain,
-            report=tuple(entries),
-            length=engine.filter_length + engine.post_length - 1,
-        )
-    used = set(fixed) | {obj.track for obj in master.objects}
-    unused = [t + 1 for t in range(stem.channels) if t not in used]
-    if unused:
-        notes.append(
-            "ADM: track(s) "
-            + ", ".join(map(str, unused))
-            + " are not in the programme rendered and stay silent"
-        )
-    feeds = []
-    for track in range(stem.channels):
-        feed_gain = fixed.get(track)
-        speaker = layout.speakers[track]
-        report = (
-            {**feed_gain[0].report, "channel": track, "label": speaker.label}
-            if feed_gain is not None
-            else {"channel": track, "label": speaker.label}
-        )
-        feeds.append(
-            ChannelFeed(
-                label=speaker.label,
-                filters=filters[track],
-                lfe=feed_gain is not None and feed_gain[0].lfe,
-                report=report,
-            )
-        )
-    section = {
-        **master.to_dict(),
-        "calibration_reference": reference.name,
-        "objects_rendered": entries,
-    }
-    return RenderPlan(
-        stem=stem,
-        feeds=tuple(feeds),
-        hrir_set=hset,
-        filters=filters,
-        warnings=tuple(warnings),
-        layout=layout,
-        order=tuple(range(stem.channels)),
-        order_source="the ADM master's track map (chna)",
-        eq=eq_report,
-        calibration={
-            "gain_db": round(float(20 * np.log10(gain)), 3),
-            "reference": f"{CALIBRATION_REFERENCE}; the loudspeakers of "
-            + ("the master's bed" if master.beds else "ITU-R BS.2051 0+5+0 (5.0)")
-            + ", the same gain for objects and HOA",
-            "applied": "to every filter and to the objects, before the delivery stage",
-        },
-        notes=tuple(notes),
-        objects=objects,
-        adm=section,
-    )
-
-
-def _room_part(
-    hset: HrirSet,
-    layout: Layout | None,
-    room: Room | None,
-    samplerate: float,
-    settings: RenderSettings,
-    set_key: dict[str, Any] | None,
-    cache: FilterCache | None,
-    warnings: list[str],
-    notes: list[str],
-) -> tuple[RoomFilters | None, dict[str, Any] | None]:
-    """The synthetic room's filters for ``layout`` and the report's room section.
-
-    A set that holds room responses already is rendered as measured (a warning when a
-    synthetic room was asked for); the room's own warnings and notes join the plan's.
-    """
-    if room is not None and _is_measured_room(hset):
-        warnings.append(
-            f"HRTF set {hset.name!r} already holds room responses (RoomType "
-            f"{hset.room_type!r}); rendered as measured, the synthetic room "
-            f"{room.name!r} was not added"
-        )
-        return None, {
-            "synthetic": False,
-            "measured_room": True,
-            "room_type": hset.room_type,
-            "requested": room.name,
-        }
-    if room is not None and layout is not None:
-        filters, prepared = _prepared_room(
-            hset, layout, room, samplerate, settings.seed, set_key, cache
-        )
-        warnings.extend(f"room: {w}" for w in filters.report.get("warnings", []))
-        notes.extend(f"room: {n}" for n in filters.report.get("notes", []))
-        report = {"synthetic": True, "mode": settings.room_mode, **filters.report}
-        return filters, {**report, "cache": prepared}
-    if _is_measured_room(hset):
-        return None, {"synthetic": False, "measured_room": True, "room_type": hset.room_type}
-    return None, None
-
-
-def _take_lookups(hset: HrirSet, set_key: dict[str, Any] | None, cache: FilterCache | None) -> None:
-    """Give ``hset`` the direction lookups a render of it prepared before (cache), if any."""
-    if cache is not None and set_key is not None:
-        lookups = cache.get("lookup", set_key, _lookups_entry_ok)
-        if lookups is not None:
-            _lookup_set(hset).with_lookup_state(lookups[0])
 
 
 def _solo(layout: Layout, order: Sequence[int], label: str | None) -> dict[str, Any] | None:
@@ -936,190 +625,6 @@ def _plan_fold(
 #: Bump when the scenes wing's decoders change what a scene's bank holds.
 SCENE_BANK_VERSION = 1
 
-#: Where prepared filters came from, as the report says: taken from the cache, computed
-#: and stored in it, or computed with the cache turned off.
-REUSED, STORED, UNCACHED = "reused", "stored", "off"
-
-
-@functools.lru_cache(maxsize=64)
-def _hash_of(path: str, mtime_ns: int, size: int) -> str:
-    return file_sha256(path)
-
-
-#: Files larger than this are not hashed for the cache (the SOFA reader refuses them).
-_MAX_HASHED_BYTES = 1 << 30
-
-
-def _content_hash(path: str) -> str | None:
-    """SHA-256 of a file, remembered per (path, modification time, size).
-
-    None, and no cache, for anything but a regular file of 1 byte to 1 GiB (a device such
-    as /dev/zero, a pipe, a folder, a missing file): the loader gives the error the user
-    reads, and hashing such a thing could read forever.
-    """
-    try:
-        st = os.stat(path)
-        if not stat.S_ISREG(st.st_mode) or not 0 < st.st_size <= _MAX_HASHED_BYTES:
-            return None
-        return _hash_of(path, st.st_mtime_ns, st.st_size)
-    except OSError:
-        return None
-
-
-def _prepared_set(
-    hrtf: str | os.PathLike[str] | None,
-    eq: str | None,
-    samplerate: float,
-    warnings: list[str],
-    notes: list[str],
-    cache: FilterCache | None,
-) -> tuple[HrirSet, dict[str, Any], dict[str, Any] | None]:
-    """The HRTF set at ``samplerate``, equalised as asked; its EQ report and cache key.
-
-    Keyed by the file's content (SHA-256), the rate, the EQ choice and the display name
-    (which the warnings and notes quote). The key is None when the cache is off.
-    """
-    path, name = resolve_hrtf(hrtf)
-    choice = check_eq(eq)
-    digest = None if cache is None else _content_hash(path)
-    key = (
-        None
-        if digest is None
-        else {"sha256": digest, "samplerate": float(samplerate), "eq": choice, "name": name}
-    )
-    if cache is not None and key is not None:
-        found = cache.get("hrtf", key, _set_entry_ok)
-        if found is not None:
-            arrays, meta = found
-            warnings.extend(meta["warnings"])
-            notes.extend(meta["notes"])
-            report: dict[str, Any] = meta["eq_report"]
-            report["cache"] = REUSED
-            return _restored_set(arrays, meta, path), report, key
-    added: list[str] = []
-    added_notes: list[str] = []
-    hset = load_hrir_set(path, samplerate, name=name)
-    added.extend(hset.warnings)  # what the SOFA reader changed or found odd
-    hset, report = _equalise(hset, choice, added, added_notes)
-    warnings.extend(added)
-    notes.extend(added_notes)
-    if cache is not None and key is not None:
-        cache.put("hrtf", key, *_set_entry(hset, report, added, added_notes))
-        report["cache"] = STORED
-    else:
-        report["cache"] = UNCACHED
-    return hset, report, key
-
-
-_SET_FIELDS = ("name", "samplerate", "sha256", "convention", "room_type", "dropped", "warnings")
-
-
-def _set_entry(
-    hset: HrirSet, report: dict[str, Any], warnings: list[str], notes: list[str]
-) -> tuple[dict[str, NDArray[Any]], dict[str, Any]]:
-    arrays: dict[str, NDArray[Any]] = {"ir": hset.ir, "directions": hset.directions}
-    if isinstance(hset, EqualisedHrirSet):
-        if hset.raw is None or hset.fir is None:
-            raise RendererError(f"equalised set {hset.name!r} has no original set")
-        arrays.update(raw_ir=hset.raw.ir, raw_directions=hset.raw.directions, fir=hset.fir)
-    meta = {
-        "fields": {f: getattr(hset, f) for f in _SET_FIELDS},
-        "equalised": isinstance(hset, EqualisedHrirSet),
-        "eq_report": report,
-        "warnings": warnings,
-        "notes": notes,
-    }
-    return arrays, meta
-
-
-def _set_entry_ok(arrays: Any, meta: Any) -> bool:
-    """Is a stored set whole: fields present, arrays of consistent shapes, float64?"""
-    fields = meta.get("fields")
-    if not isinstance(fields, dict) or set(fields) != set(_SET_FIELDS):
-        return False
-    if not all(isinstance(meta.get(k), list) for k in ("warnings", "notes")):
-        return False
-    if not isinstance(meta.get("eq_report"), dict):
-        return False
-    names = {"ir", "directions"}
-    if meta.get("equalised") is True:
-        names |= {"raw_ir", "raw_directions", "fir"}
-    elif meta.get("equalised") is not False:
-        return False
-    if set(arrays) != names or any(arrays[n].dtype != np.float64 for n in names):
-        return False
-    ir, dirs = arrays["ir"], arrays["directions"]
-    m = ir.shape[0] if ir.ndim == 3 else -1
-    ok = ir.ndim == 3 and ir.shape[1] == 2 and m > 0 and ir.shape[2] > 0
-    ok = ok and dirs.shape == (m, 3)
-    if "fir" in names:
-        raw, fir = arrays["raw_ir"], arrays["fir"]
-        ok = ok and fir.ndim == 1 and fir.shape[0] > 0
-        ok = ok and raw.ndim == 3 and raw.shape[:2] == (m, 2)
-        ok = ok and raw.shape[2] + fir.shape[0] - 1 == ir.shape[2]
-        ok = ok and arrays["raw_directions"].shape == (m, 3)
-    return bool(ok)
-
-
-def _exact(hset: HrirSet, ir: NDArray[Any], directions: NDArray[Any]) -> HrirSet:
-    """``hset`` holding exactly the stored arrays (its constructor re-normalises the
-    directions, which could move their last bits: the cached plan must equal the fresh one)."""
-    object.__setattr__(hset, "ir", ir)
-    object.__setattr__(hset, "directions", directions)
-    return hset
-
-
-def _restored_set(arrays: dict[str, NDArray[Any]], meta: dict[str, Any], path: str) -> HrirSet:
-    """The prepared set from a cache entry (checked by :func:`_set_entry_ok`)."""
-    values = {**meta["fields"], "source": path, "warnings": tuple(meta["fields"]["warnings"])}
-    ir, dirs = arrays["ir"], arrays["directions"]
-    if not meta["equalised"]:
-        return _exact(HrirSet(**values, ir=ir, directions=dirs), ir, dirs)
-    raw_ir, raw_dirs = arrays["raw_ir"], arrays["raw_directions"]
-    raw = _exact(HrirSet(**values, ir=raw_ir, directions=raw_dirs), raw_ir, raw_dirs)
-    eq_set = EqualisedHrirSet(raw=raw, fir=arrays["fir"], **values, ir=ir, directions=dirs)
-    return _exact(eq_set, ir, dirs)
-
-
-def _lookup_set(hset: HrirSet) -> HrirSet:
-    """The set whose lookups a render runs (an equalised set looks up its original)."""
-    if isinstance(hset, EqualisedHrirSet) and hset.raw is not None:
-        return hset.raw
-    return hset
-
-
-def _lookups_entry_ok(arrays: Any, meta: Any) -> bool:
-    names = set(arrays)
-    return names in ({"onsets"}, {"onsets", "aligned", "aligned_ref"}) and meta == {}
-
-
-def _keep_lookups(hset: HrirSet, key: dict[str, Any] | None, cache: FilterCache | None) -> None:
-    """Store what the set's direction lookups prepared (onsets, aligned responses), once.
-
-    A separate entry from the set's: it is known only after the feeds were built.
-    The shapes are checked against the set when taken back
-    (:meth:`~earfold.renderer.hrtf.HrirSet.with_lookup_state`).
-    """
-    if cache is None or key is None:
-        return
-    state = _lookup_set(hset).lookup_state()
-    if not state:
-        return
-    held = cache.get("lookup", key, _lookups_entry_ok)
-    if held is not None and len(held[0]) >= len(state):
-        return
-    cache.put("lookup", key, state, {})
-
-
-def _layout_key(layout: Layout) -> dict[str, Any]:
-    """A layout as a cache key: its name and every loudspeaker's label and position."""
-    return {
-        "name": layout.name,
-        "speakers": [
-            [s.label, s.azimuth, s.elevation, s.distance, s.lfe, s.spread] for s in layout.speakers
-        ],
-    }
-
 
 def _bank_key(
     set_key: dict[str, Any],
@@ -1133,7 +638,7 @@ def _bank_key(
     the room with its seed and mode, and the soloed loudspeaker."""
     return {
         "set": set_key,
-        "layout": _layout_key(layout),
+        "layout": layout_key(layout),
         "order": list(order),
         "lfe": dataclasses.asdict(settings.lfe),
         "room": None if room is None else dataclasses.asdict(room),
@@ -1268,313 +773,3 @@ def _restored_plan(
         room_decay=meta["room_decay"],
         scene=meta.get("scene"),
     )
-
-
-def _prepared_room(
-    hset: HrirSet,
-    layout: Layout,
-    room: Room,
-    samplerate: float,
-    seed: int,
-    set_key: dict[str, Any] | None,
-    cache: FilterCache | None,
-) -> tuple[RoomFilters, str]:
-    """The room's filters (:func:`_room_filters`), from the cache when it holds them.
-
-    Keyed by the prepared set's key, the layout's loudspeakers, every parameter of the
-    room, the seed and the rate.
-    """
-    if cache is None or set_key is None:
-        return _room_filters(hset, layout, room, samplerate, seed), UNCACHED
-    key = {
-        "set": set_key,
-        "layout": _layout_key(layout),
-        "room": dataclasses.asdict(room),
-        "seed": int(seed),
-        "samplerate": float(samplerate),
-    }
-    channels = layout.channels
-
-    def whole(arrays: Any, meta: Any) -> bool:
-        if set(arrays) != {"early", "tail", "tail_weights"}:
-            return False
-        if any(a.dtype != np.float64 for a in arrays.values()):
-            return False
-        early, tail, weights = arrays["early"], arrays["tail"], arrays["tail_weights"]
-        offset, report = meta.get("tail_offset"), meta.get("report")
-        return bool(
-            early.ndim == 3
-            and early.shape[:2] == (channels, 2)
-            and early.shape[2] > 0
-            and tail.ndim == 2
-            and tail.shape[0] == 2
-            and weights.shape == (channels,)
-            and isinstance(offset, int)
-            and offset >= 0
-            and meta.get("samplerate") == float(samplerate)
-            and isinstance(report, dict)
-            and isinstance(report.get("reference_arrival_samples"), (int, float))
-        )
-
-    found = cache.get("room", key, whole)
-    if found is not None:
-        arrays, meta = found
-        filters = RoomFilters(
-            early=arrays["early"],
-            tail=arrays["tail"],
-            tail_offset=meta["tail_offset"],
-            tail_weights=arrays["tail_weights"],
-            report=meta["report"],
-            samplerate=meta["samplerate"],
-        )
-        return filters, REUSED
-    filters = _room_filters(hset, layout, room, samplerate, seed)
-    cache.put(
-        "room",
-        key,
-        {"early": filters.early, "tail": filters.tail, "tail_weights": filters.tail_weights},
-        {
-            "tail_offset": int(filters.tail_offset),
-            "report": filters.report,
-            "samplerate": float(filters.samplerate),
-        },
-    )
-    return filters, STORED
-
-
-def _room_filters(
-    hset: HrirSet, layout: Layout, room: Room, samplerate: float, seed: int
-) -> RoomFilters:
-    """The room's filters per loudspeaker channel of ``layout``, in the layout's order.
-
-    A channel spread over several directions (:attr:`Speaker.spread`, as LCRS's ``S``)
-    is modelled as one loudspeaker per direction, and their early responses are summed at
-    the channel's spread gain. Its share of the shared diffuse tail adds by power (the
-    loudspeakers' tails are uncorrelated in a real room), so the spread channel excites
-    the tail as much as one loudspeaker would.
-    """
-    if not any(s.spread for s in layout.speakers):
-        return build_room_filters(hset, layout, room, samplerate, seed=seed)
-    expanded: list[Speaker] = []
-    mix: list[list[tuple[int, float]]] = []
-    for s in layout.speakers:
-        if not s.spread:
-            mix.append([(len(expanded), 1.0)])
-            expanded.append(s)
-            continue
-        mix.append([(len(expanded) + k, s.spread_gain) for k in range(len(s.spread))])
-        expanded.extend(
-            Speaker(f"{s.label}~{k + 1}", a, e, s.distance) for k, (a, e) in enumerate(s.spread)
-        )
-    virtual = Layout(layout.name, tuple(expanded), layout.description, layout.source)
-    filters = build_room_filters(hset, virtual, room, samplerate, seed=seed)
-    early = np.zeros((layout.channels, *filters.early.shape[1:]))
-    weights = np.zeros(layout.channels)
-    for i, parts in enumerate(mix):
-        for v, gain in parts:
-            early[i] += gain * filters.early[v]
-            weights[i] += (gain * float(filters.tail_weights[v])) ** 2
-    return dataclasses.replace(filters, early=early, tail_weights=np.sqrt(weights))
-
-
-def plan_from_feeds(
-    stem: StemInfo,
-    feeds: Sequence[ChannelFeed],
-    hset: HrirSet | None,
-    warnings: Sequence[str],
-    *,
-    layout: Layout,
-    order: tuple[int, ...],
-    order_source: str,
-    tail: NDArray[np.float64] | None = None,
-    tail_offset: int = 0,
-    room: dict[str, Any] | None = None,
-    eq: dict[str, Any] | None = None,
-    headphone: HeadphoneEq | None = None,
-    notes: Sequence[str] = (),
-    fold: dict[str, Any] | None = None,
-    solo: dict[str, Any] | None = None,
-    calibrate: bool = True,
-    calibration: tuple[float, str] | None = None,
-) -> RenderPlan:
-    """Stack the feeds' filters into one bank, calibrate it with the tail, and plan.
-
-    The calibration gain (:mod:`earfold.renderer.eq.calibration`) is computed over the
-    non-LFE feeds, each with its share of the tail, and applied to every filter and to the
-    tail; ``calibrate=False`` leaves the filters as they are (the stereo fold-down, whose
-    coefficients are the standard's). With ``solo`` (``{"channel": i, ...}``) every other
-    channel's filters and tail share are then zeroed, so the soloed loudspeaker sounds
-    exactly as in the full render. ``calibration`` ``(gain, reference)``: a gain the
-    caller computed for a reference of its own (an Ambisonic scene's diffuse field,
-    :mod:`.scene_feeds`), applied the same way.
-    """
-    pairs = [f.filters for f in feeds]
-    length = max(p.shape[-1] for p in pairs)
-    filters = np.zeros((len(pairs), 2, length), dtype=np.float64)
-    for i, p in enumerate(pairs):
-        filters[i, :, : p.shape[-1]] = p
-    tail_weights = None
-    if tail is not None:
-        tail_weights = np.asarray([f.tail_weight for f in feeds], dtype=np.float64)
-    if calibrate:
-        if calibration is None:
-            gain = _calibrate(filters, feeds, tail, tail_weights, tail_offset, stem.samplerate)
-            reference = CALIBRATION_REFERENCE
-        else:
-            gain, reference = calibration
-        section = {
-            "gain_db": round(float(20 * np.log10(gain)), 3),
-            "reference": reference,
-            "applied": "to every filter, before the delivery stage",
-        }
-    else:
-        gain = 1.0
-        section = {
-            "gain_db": 0.0,
-            "reference": "none: the feeds' gains are used as they are",
-            "applied": "not applied",
-        }
-    filters *= gain
-    if tail is not None:
-        tail = tail * gain
-    if solo is not None:
-        others = [i for i in range(len(feeds)) if i != solo["channel"]]
-        filters[others] = 0.0
-        if tail_weights is not None:
-            tail_weights[others] = 0.0
-    return RenderPlan(
-        stem=stem,
-        feeds=tuple(feeds),
-        hrir_set=hset,
-        filters=filters,
-        warnings=tuple(warnings),
-        layout=layout,
-        order=order,
-        order_source=order_source,
-        tail=tail,
-        tail_weights=tail_weights,
-        tail_offset=tail_offset,
-        room=room,
-        eq=eq,
-        calibration=section,
-        headphone=headphone,
-        notes=tuple(notes),
-        fold=fold if fold is not None else {"mode": "binaural"},
-        solo=solo,
-    )
-
-
-def _equalise(
-    hset: HrirSet, choice: str | None, warnings: list[str], notes: list[str]
-) -> tuple[HrirSet, dict[str, Any]]:
-    """Apply the equalisation asked for (or the set's default); the report section."""
-    choice = check_eq(choice)
-    measured_room = _is_measured_room(hset)
-    if choice is None:
-        choice = "none" if measured_room else "diffuse-field"
-        reason = (
-            "default: the set holds room responses"
-            if measured_room
-            else "default for a free-field set"
-        )
-    else:
-        reason = "requested"
-        if choice == "diffuse-field" and measured_room:
-            warnings.append(
-                f"diffuse-field equalisation of {hset.name!r}, whose responses include a room "
-                f"(RoomType {hset.room_type!r}): the room's colour is averaged in and removed too"
-            )
-    report: dict[str, Any] = {
-        "type": choice,
-        "chosen": reason,
-        "diffuse_field": None,
-        "headphone": None,
-    }
-    if choice == "diffuse-field":
-        hset, summary = equalised(hset)
-        report["diffuse_field"] = summary
-        if summary.get("boost_limited"):
-            # A property of the set, shown by every render with it: information, no alarm.
-            notes.append(
-                f"HRTF set {hset.name!r}: the diffuse-field inverse reached its boost limit "
-                f"({summary['max_boost_db']:g} dB); the deepest dips are only partly filled"
-            )
-    return hset, report
-
-
-def _calibrate(
-    filters: NDArray[np.float64],
-    feeds: Sequence[ChannelFeed],
-    tail: NDArray[np.float64] | None,
-    tail_weights: NDArray[np.float64] | None,
-    tail_offset: int,
-    samplerate: float,
-) -> float:
-    """The calibration gain (:mod:`earfold.renderer.eq.calibration`) of a filter bank."""
-    mains = [i for i, f in enumerate(feeds) if not f.lfe]
-
-    def responses() -> Iterator[NDArray[np.float64]]:
-        for i in mains:
-            r: NDArray[np.float64] = filters[i]
-            if tail is not None and tail_weights is not None:
-                n = max(r.shape[-1], tail_offset + tail.shape[-1])
-                full = np.zeros((2, n))
-                full[:, : r.shape[-1]] = r
-                full[:, tail_offset : tail_offset + tail.shape[-1]] += tail_weights[i] * tail
-                r = full
-            yield r
-
-    return float(calibration_gain(responses(), len(mains), samplerate))
-
-
-def _is_measured_room(hset: HrirSet) -> bool:
-    """Does the set already hold room responses (a reverberant RoomType or a BRIR convention)?"""
-    room_type = (hset.room_type or "").lower().replace("-", " ")
-    return (
-        room_type not in ("", "free field", "freefield", "anechoic")
-        or "brir" in hset.convention.lower()
-    )
-
-
-def _room_response(plan: RenderPlan) -> tuple[NDArray[np.float64], str] | None:
-    """The binaural room response of the first non-LFE loudspeaker, in layout order."""
-    if plan.room is None:
-        return None
-    channels = [
-        (speaker, ch)
-        for ch, speaker in enumerate(plan.order)
-        if not plan.layout.speakers[speaker].lfe
-    ]
-    if not channels:
-        return None
-    speaker, ch = min(channels)
-    ir = plan.filters[ch]
-    if plan.tail is not None and plan.tail_weights is not None:
-        length = max(ir.shape[-1], plan.tail_offset + plan.tail.shape[-1])
-        full = np.zeros((2, length))
-        full[:, : ir.shape[-1]] = ir
-        full[:, plan.tail_offset : plan.tail_offset + plan.tail.shape[-1]] += (
-            float(plan.tail_weights[ch]) * plan.tail
-        )
-        ir = full
-    return ir, plan.layout.speakers[speaker].label
-
-
-def room_decay(plan: RenderPlan) -> dict[str, Any] | None:
-    """The report's ``room_decay`` plot: the energy decay per octave band of the first
-    non-LFE loudspeaker's binaural room response (None without a synthetic room).
-
-    It depends on the plan's filters alone, so a plan computes it once and the cache of
-    prepared filters keeps it with the filter bank
-    (:attr:`~earfold.renderer.render.plan.RenderPlan.room_decay`).
-    """
-    room = _room_response(plan)
-    if room is None:
-        return None
-    ir, label = room
-    return {
-        "what": f"binaural room response of {label!r}, both ears; Schroeder "
-        "integration per octave band",
-        "speaker": label,
-        **energy_decay(ir, plan.stem.samplerate),
-    }

@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ..engine import FoldEngine
+from ..engine import FoldEngine, MovingSourceEngine, PanningMixer
 from ..errors import AudioError, RenderCancelled
 from ..io import OutputWriter, StemReader
 from ..loudness import LoudnessMeter, channel_weights
@@ -37,41 +37,107 @@ def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine | ObjectsEngine:
 
 
 class ObjectsEngine:
-    """An ADM master's engine: the fixed bank on its bed and HOA tracks
-    (:class:`FoldEngine`) and the moving-source engine on its object tracks
-    (:func:`~earfold.renderer.render.moving_sources.moving_source_engine`), summed frame
-    for frame.
+    """An ADM master's engine (:mod:`.adm_plan`): the fixed bank on its bed and HOA tracks
+    (:class:`FoldEngine`, with the room's shared tail), objects either followed by the
+    moving-source engine (free field,
+    :func:`~earfold.renderer.render.moving_sources.moving_source_engine`) or panned by a
+    :class:`~earfold.renderer.engine.PanningMixer` onto the virtual array, whose channels
+    join the fixed bank (in a room); the two outputs summed frame for frame.
 
     The fixed engine hands back whole hops (possibly fewer frames than it was given), the
     moving engine every frame: the moving output waits until the fixed output of the same
     frames is there. After the input, both are given the same number of zero frames, so
-    the two outputs end together: ``input + frames`` frames in all.
+    the two outputs end together: ``input + frames`` frames in all. Bed and HOA tracks
+    with a time span are silent outside it.
     """
 
     def __init__(self, plan: RenderPlan, block_size: int) -> None:
-        from .moving_sources import moving_source_engine
-
         objects, hset = plan.objects, plan.hrir_set
         assert objects is not None and hset is not None
-        taken = set(objects.channels)
+        taken = set(objects.channels) | set(objects.panned_channels)
         self.object_channels = list(objects.channels)
+        self.panned_channels = list(objects.panned_channels)
         self.fixed_channels = [c for c in range(plan.stem.channels) if c not in taken]
-        filters = (
-            plan.filters[self.fixed_channels]
-            if self.fixed_channels
-            else np.zeros((1, 2, 1), dtype=np.float64)
+        banks = [plan.filters[self.fixed_channels]]
+        weights = [
+            np.zeros(len(self.fixed_channels))
+            if plan.tail_weights is None
+            else plan.tail_weights[self.fixed_channels]
+        ]
+        self.mixer: PanningMixer | None = None
+        self.diffuse_mixer: PanningMixer | None = None
+        self.diffuse_channels = list(objects.diffuse_channels)
+        rate = plan.stem.samplerate
+        if objects.array_filters is not None:
+            from ..layouts import SpreadPanner, VbapPanner
+
+            if self.panned_channels:
+                assert objects.array is not None
+                panner = SpreadPanner(VbapPanner(objects.array), diffuse_channel=objects.diffuse)
+                self.mixer = PanningMixer(objects.panned_paths, panner, rate)
+            if self.diffuse_channels:
+                self.diffuse_mixer = PanningMixer(objects.diffuse_paths, _DiffuseShare(), rate)
+            self._bus = int(objects.array_filters.shape[0])
+            banks.append(objects.array_filters)
+            weights.append(
+                np.zeros(self._bus)
+                if objects.array_tail_weights is None
+                else objects.array_tail_weights
+            )
+        filters = np.concatenate([_padded(b, plan.filters.shape[-1]) for b in banks])
+        if not len(filters):
+            filters = np.zeros((1, 2, 1), dtype=np.float64)
+            weights = [np.zeros(1)]
+        self.fixed = FoldEngine(
+            filters,
+            block_size,
+            tail=plan.tail,
+            tail_weights=None if plan.tail is None else np.concatenate(weights),
+            tail_offset=plan.tail_offset,
         )
-        self.fixed = FoldEngine(filters, block_size)
-        self.moving = moving_source_engine(hset, objects.paths, gain=objects.gain)
+        self.moving: MovingSourceEngine | None = None
+        if self.object_channels:
+            from .moving_sources import moving_source_engine
+
+            self.moving = moving_source_engine(hset, objects.paths, gain=objects.gain)
         self.block_size = self.fixed.block_size
+        self._gates = [
+            (self.fixed_channels.index(span.track), span.start, span.end)
+            for span in objects.spans
+            if span.track in self.fixed_channels
+        ]
+        self._frame = 0
         self._waiting: NDArray[np.float32] = np.zeros((0, 2), dtype=np.float32)
 
     def _fixed_input(self, block: NDArray[Any]) -> NDArray[Any]:
+        n = len(block)
+        parts = []
         if self.fixed_channels:
-            return block[:, self.fixed_channels]
-        return np.zeros((len(block), 1), dtype=np.float32)
+            fixed = block[:, self.fixed_channels]
+            if self._gates:
+                fixed = np.array(fixed, dtype=np.float32)
+                frames = self._frame + np.arange(n)
+                for column, start, end in self._gates:
+                    outside = (frames < start) | ((frames >= end) if end >= 0 else False)
+                    fixed[outside, column] = 0.0
+            parts.append(fixed)
+        if self.mixer is not None or self.diffuse_mixer is not None:
+            bus = (
+                np.zeros((n, self._bus), dtype=np.float32)
+                if self.mixer is None
+                else self.mixer.process(block[:, self.panned_channels])
+            )
+            if self.diffuse_mixer is not None:
+                bus[:, -1:] += self.diffuse_mixer.process(block[:, self.diffuse_channels])
+            parts.append(bus)
+        self._frame += n
+        if not parts:
+            return np.zeros((n, 1), dtype=np.float32)
+        return parts[0] if len(parts) == 1 else np.concatenate(parts, axis=1)
 
     def _summed(self, fixed: NDArray[Any]) -> NDArray[Any]:
+        if self.moving is None:
+            return fixed
         n = len(fixed)
         out = fixed + self._waiting[:n]
         self._waiting = self._waiting[n:]
@@ -79,8 +145,9 @@ class ObjectsEngine:
 
     def process(self, block: NDArray[Any]) -> NDArray[Any]:
         """The output frames complete after ``block`` (``(n, 2)``, possibly fewer)."""
-        moving = self.moving.process(block[:, self.object_channels])
-        self._waiting = np.concatenate([self._waiting, moving.astype(np.float32, copy=False)])
+        if self.moving is not None:
+            moving = self.moving.process(block[:, self.object_channels])
+            self._waiting = np.concatenate([self._waiting, moving.astype(np.float32, copy=False)])
         return self._summed(self.fixed.process(self._fixed_input(block)))
 
     def tail_blocks(self, frames: int) -> Iterator[NDArray[Any]]:
@@ -88,7 +155,7 @@ class ObjectsEngine:
         sources = len(self.object_channels)
         for fixed in self.fixed.tail_blocks(frames):
             need = len(fixed) - len(self._waiting)
-            if need > 0:
+            if self.moving is not None and need > 0:
                 more = self.moving.process(np.zeros((need, sources), dtype=np.float32))
                 self._waiting = np.concatenate([self._waiting, more.astype(np.float32)])
             yield self._summed(fixed)
@@ -98,17 +165,47 @@ class ObjectsEngine:
         self.fixed.close()
 
     def describe(self) -> dict[str, Any]:
-        """The report's ``engine`` section, with the moving engine's figures."""
-        return {
-            **self.fixed.describe(),
-            "objects": {
+        """The report's ``engine`` section, with the object engines' figures."""
+        out: dict[str, Any] = dict(self.fixed.describe())
+        if self.moving is not None:
+            out["objects"] = {
                 "sources": self.moving.sources,
                 "update_frames": self.moving.hop,
                 "filter_length": self.moving.filter_length,
                 "transform_size": self.moving.transform_size,
                 "post_filter_length": self.moving.post_length,
-            },
-        }
+            }
+        if self.mixer is not None:
+            out["panned_objects"] = {
+                "sources": self.mixer.sources,
+                "array_channels": self.mixer.channels,
+                "update_frames": self.mixer.hop,
+            }
+        if self.diffuse_mixer is not None:
+            out["diffuse_shares"] = {"sources": self.diffuse_mixer.sources}
+        return out
+
+
+class _DiffuseShare:
+    """Gains of objects followed with their own pairs into the diffuse channel alone: the
+    diffuse share ``sqrt(d)`` of each state (their direct share is the moving engine's)."""
+
+    def spread_gains(self, vectors: NDArray[Any], spread: NDArray[Any]) -> NDArray[Any]:
+        from ..layouts import diffuse_split
+
+        return diffuse_split(spread[:, 3])[1][:, None]
+
+    def __call__(self, vectors: NDArray[Any]) -> NDArray[Any]:
+        return np.zeros((len(vectors), 1))
+
+
+def _padded(bank: NDArray[Any], length: int) -> NDArray[Any]:
+    """``bank`` ``(C, 2, L)`` zero-padded to ``length`` taps."""
+    if bank.shape[-1] >= length:
+        return bank
+    out = np.zeros((*bank.shape[:-1], length), dtype=bank.dtype)
+    out[..., : bank.shape[-1]] = bank
+    return out
 
 
 _METER_BATCH = 262144

@@ -5,7 +5,8 @@ Modules, each one concept: ``_acoustics`` (Sabine, Eyring, air absorption, absor
 from RT60, mixing time), ``_model`` (the :class:`Room` and its checks), ``_schema`` (rooms
 as JSON and room files), ``_presets`` (:data:`ROOMS`, :func:`get_room`),
 ``_image_source`` (direct path and early reflections), ``_diffuse`` (an HRIR set's
-diffuse-field response), ``_late_tail`` (octave bands and the decaying tail),
+diffuse-field response), ``_diffuse_response`` (a short binaural noise through which a
+mono signal sounds diffuse, free field), ``_late_tail`` (octave bands and the decaying tail),
 ``_measure`` (RT60 measured back) and ``_filters`` (the filters a render runs).
 """
 
@@ -20,6 +21,7 @@ from ._acoustics import (
     sabine_rt60,
 )
 from ._diffuse import EAR_DISTANCE, DiffuseField, diffuse_coherence, diffuse_field, sphere_coherence
+from ._diffuse_response import DIFFUSE_RESPONSE_SECONDS, diffuse_response, mean_pair_energy
 from ._filters import RoomFilters, build_room_filters, exact_brirs
 from ._image_source import ImageSources, image_sources
 from ._late_tail import TAIL_RANGE_DB, band_weights, late_tail, tail_length
@@ -31,6 +33,7 @@ from ._schema import load_room_file, room_from_dict
 __all__ = [
     "BANDS_HZ",
     "DEFAULT_ORDER",
+    "DIFFUSE_RESPONSE_SECONDS",
     "EAR_DISTANCE",
     "MAX_ORDER",
     "ROOMS",
@@ -46,12 +49,14 @@ __all__ = [
     "build_room_filters",
     "diffuse_coherence",
     "diffuse_field",
+    "diffuse_response",
     "exact_brirs",
     "eyring_rt60",
     "get_room",
     "image_sources",
     "late_tail",
     "load_room_file",
+    "mean_pair_energy",
     "measure_rt60",
     "polack_mixing_time",
     "room_from_dict",

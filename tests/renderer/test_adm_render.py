@@ -36,9 +36,10 @@ def _uid(k: int) -> str:
 BED = [(k, _uid(k), f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
 
 
-def _master(path, audio, blocks, *, bed=True):
-    """A master with (optionally) a 5.1 bed on tracks 1-6 and one object on the next
-    track, whose channel holds ``blocks`` (object_block strings)."""
+def _master(path, audio, blocks, *, bed=True, bed_span=(None, None)):
+    """A master with (optionally) a 5.1 bed on tracks 1-6 (playing within ``bed_span``,
+    start and duration strings) and one object on the next track, whose channel holds
+    ``blocks`` (object_block strings)."""
     track = 7 if bed else 1
     entries = ([*BED] if bed else []) + [(track, _uid(track), "AT_00031001_01", "AP_00031001")]
     objects = ["AO_1002"] + (["AO_1001"] if bed else [])
@@ -52,7 +53,14 @@ def _master(path, audio, blocks, *, bed=True):
     ]
     if bed:
         parts.append(
-            audio_object("AO_1001", "Bed", packs=["AP_00010003"], uids=[e[1] for e in BED])
+            audio_object(
+                "AO_1001",
+                "Bed",
+                packs=["AP_00010003"],
+                uids=[e[1] for e in BED],
+                start=bed_span[0],
+                duration=bed_span[1],
+            )
         )
     return write_master(path, audio=audio, chna=chna_body(entries), axml=document(*parts))
 
@@ -136,7 +144,7 @@ def test_options_that_do_not_apply_to_an_adm_master_are_refused(tmp_path):
     master = str(_master(tmp_path / "m.wav", audio, [object_block("AC_00031001", 1, az=0.0)]))
     for settings, words in (
         (RenderSettings(layout="5.1"), "leave --layout out"),
-        (RenderSettings(room="small"), "room"),
+        (RenderSettings(headphone_eq="flat.csv"), "headphone_eq"),
         (RenderSettings(solo="L"), "solo"),
         (RenderSettings(adm_programme="Elsewhere"), "Elsewhere"),
     ):
@@ -148,3 +156,220 @@ def test_options_that_do_not_apply_to_an_adm_master_are_refused(tmp_path):
     write_audio(plain, audio[:, :2], FS)
     with pytest.raises(RendererError, match="ADM masters only"):
         plan_render([str(plain)], RenderSettings(layout="2.0", adm_programme="Main"))
+
+
+def _channel_render(tmp_path, bed, **settings):
+    write_audio(tmp_path / "s.wav", bed, FS, subtype="FLOAT")
+    render([str(tmp_path / "s.wav")], tmp_path / "b.wav", RenderSettings(layout="5.1", **settings))
+    return read_audio(tmp_path / "b.wav")[0]
+
+
+def test_a_bed_in_a_room_renders_as_a_channel_render_in_that_room(tmp_path):
+    # The bed's rows come from the same room build as a channel render's (the objects'
+    # array added beside them at the same radius): the same filters and shared tail.
+    bed = np.stack([_noise(0.5, seed) for seed in range(6)], axis=1)
+    audio = np.concatenate([bed, np.zeros((len(bed), 1), np.float32)], axis=1)
+    master = _master(tmp_path / "m.wav", audio, [object_block("AC_00031001", 1, az=0.0)])
+    report = render([str(master)], tmp_path / "a.wav", RenderSettings(room="small", **FLAT))
+    a = read_audio(tmp_path / "a.wav")[0]
+    b = _channel_render(tmp_path, bed, room="small", **FLAT)
+    # The array stands nearer than the beds where the room's floor is close (the
+    # virtual_distance of scenes): the room's time zero is its nearest arrival, so the
+    # whole bed arrives that much later, otherwise unchanged.
+    lag = len(a) - len(b)
+    assert 0 <= lag < 0.002 * FS
+    # The room build's transform length follows its longest early response, so the walls'
+    # filters are sampled on another grid: the difference stays 80 dB down (1e-4 of peak).
+    diff = a[lag:] - b
+    assert 10 * np.log10(_energy(diff) / _energy(b)) < -80.0
+    np.testing.assert_allclose(a[lag:], b, atol=1e-4 * np.abs(b).max())
+    assert np.abs(a[:lag]).max() <= 1e-4 * np.abs(b).max()
+    assert "virtual array" in report["adm"]["objects_method"]
+    assert report["room"]["virtual_array"].startswith("50 directions")
+    assert report["plots"]["room_decay"]["speaker"] == "1:M+030"
+
+
+def _energy(y: np.ndarray) -> float:
+    return float(np.sum(np.asarray(y, dtype=np.float64) ** 2))
+
+
+def test_objects_in_a_room_are_panned_onto_the_array_and_keep_their_side_and_level(tmp_path):
+    # An object at M+030 in the room against the 5.1 L loudspeaker in the same room. VBAP's
+    # gains have unit power (Pulkki 1997, eq. 10): where the array's responses add
+    # incoherently (high frequencies, reflections) the object has the loudspeaker's level;
+    # where they add coherently (low frequencies, neighbouring HRIRs alike) its amplitude
+    # is the gains' sum. So its level lies between the two bounds (with 0.5 dB for the
+    # array's directions and reflections not being the loudspeaker's), from the left.
+    s = _noise(1.0, seed=7)
+    audio = np.zeros((len(s), 7), np.float32)
+    audio[:, 6] = s
+    master = _master(tmp_path / "m.wav", audio, [object_block("AC_00031001", 1, az=30.0)])
+    report = render([str(master)], tmp_path / "a.wav", RenderSettings(room="small", **FLAT))
+    a = read_audio(tmp_path / "a.wav")[0]
+    stem = np.zeros((len(s), 6), np.float32)
+    stem[:, 0] = s
+    b = _channel_render(tmp_path, stem, room="small", **FLAT)
+    from earfold.renderer.geometry import direction_to_vector
+    from earfold.renderer.layouts import VbapPanner
+    from earfold.renderer.scenes import virtual_layout
+
+    g = VbapPanner(virtual_layout(4)).gains(np.asarray(direction_to_vector(30.0, 0.0))[None])
+    coherent_db = 20 * np.log10(g.sum())
+    assert coherent_db > 1.0  # a phantom source between array directions
+    level_db = 10 * np.log10(_energy(a) / _energy(b))
+    assert -0.5 < level_db < coherent_db + 0.5
+    assert _ild_db(a) > 1.0 and _ild_db(b) > 1.0
+    assert report["engine"]["panned_objects"] == {
+        "sources": 1,
+        "array_channels": 50,
+        "update_frames": 480,
+    }
+    assert "objects" not in report["engine"]  # no per-object HRIRs in a room
+
+
+def test_the_rooms_rows_do_not_grow_with_the_number_of_objects(tmp_path):
+    # 1 object or 12: the same 50 array rows (plus the bed's) go through the room.
+    audio = np.zeros((FS // 10, 7), np.float32)
+    master = _master(tmp_path / "m.wav", audio, [object_block("AC_00031001", 1, az=0.0)])
+    plan = plan_render([str(master)], RenderSettings(room="small"))
+    assert plan.objects is not None and plan.objects.array_filters is not None
+    assert plan.objects.array_filters.shape[0] == 50
+    assert plan.objects.panned_channels == (6,) and plan.objects.channels == ()
+    assert plan.tail is not None and plan.objects.array_tail_weights is not None
+    assert np.all(plan.objects.array_tail_weights > 0)
+
+
+def test_a_bed_plays_only_within_its_objects_time_span(tmp_path):
+    # BS.2076-2 audioObject start and duration: the bed object from 0.25 s for 0.25 s.
+    bed = np.stack([_noise(1.0, seed) for seed in range(6)], axis=1)
+    audio = np.concatenate([bed, np.zeros((len(bed), 1), np.float32)], axis=1)
+    master = _master(
+        tmp_path / "m.wav",
+        audio,
+        [object_block("AC_00031001", 1, az=0.0)],
+        bed_span=("00:00:00.25000", "00:00:00.25000"),
+    )
+    report = render([str(master)], tmp_path / "a.wav", RenderSettings(**FLAT))
+    a = read_audio(tmp_path / "a.wav")[0]
+    gated = np.zeros_like(bed)
+    gated[FS // 4 : FS // 2] = bed[FS // 4 : FS // 2]
+    b = _channel_render(tmp_path, gated, **FLAT)
+    np.testing.assert_allclose(a[: len(b)], b, atol=1e-5 * np.abs(b).max())
+    assert np.abs(a[: FS // 5]).max() < 1e-6 * np.abs(b).max()  # float32 FFT rounding
+    assert report["adm"]["time_spans"][0] == {
+        "track": 1,
+        "start_frame": FS // 4,
+        "end_frame": FS // 2,
+    }
+    assert not any("time spans" in w for w in report["warnings"])
+
+
+def _hoa_master(path, audio):
+    """A master holding one first-order HOA pack (the BS.2094 common AP_00040001: ACN
+    order, SN3D) on tracks 1-4."""
+    entries = [(k + 1, _uid(k + 1), f"AT_0004000{k + 1}_01", "AP_00040001") for k in range(4)]
+    parts = [
+        programme("APR_1001", "Main", ["ACO_1001"]),
+        content("ACO_1001", "Scene", ["AO_1001"]),
+        audio_object("AO_1001", "Air", packs=["AP_00040001"], uids=[e[1] for e in entries]),
+    ]
+    return write_master(path, audio=audio, chna=chna_body(entries), axml=document(*parts))
+
+
+def _plane_wave_foa(s: np.ndarray, azimuth_deg: float) -> np.ndarray:
+    """First-order AmbiX (ACN, SN3D) of a plane wave on the horizon: W, Y, Z, X."""
+    a = np.radians(azimuth_deg)
+    return np.stack([s, np.sin(a) * s, 0 * s, np.cos(a) * s], axis=1).astype(np.float32)
+
+
+def test_an_hoa_pack_renders_as_the_scene_it_is(tmp_path):
+    # The pack's tracks are decoded as an Ambisonic scene of its order is; the master's one
+    # calibration (the 5.0 reference) differs from a scene's own (W's loudness) by a
+    # constant, so the two renders are proportional.
+    foa = _plane_wave_foa(_noise(0.5, seed=3), 90.0)
+    master = _hoa_master(tmp_path / "m.wav", foa)
+    render([str(master)], tmp_path / "a.wav", RenderSettings(**FLAT))
+    write_audio(tmp_path / "s.wav", foa, FS, subtype="FLOAT")
+    render([str(tmp_path / "s.wav")], tmp_path / "b.wav", RenderSettings(layout="foa", **FLAT))
+    a = read_audio(tmp_path / "a.wav")[0]
+    b = read_audio(tmp_path / "b.wav")[0]
+    ratio = float(np.sum(a * b) / np.sum(b * b))
+    np.testing.assert_allclose(a[: len(b)], ratio * b, atol=1e-4 * np.abs(a).max())
+    assert _ild_db(a) > 6.0  # from the left
+
+
+def test_an_hoa_pack_in_a_room_stays_on_its_side(tmp_path):
+    foa = _plane_wave_foa(_noise(0.5, seed=5), -90.0)
+    master = _hoa_master(tmp_path / "m.wav", foa)
+    report = render([str(master)], tmp_path / "a.wav", RenderSettings(room="medium", **FLAT))
+    a = read_audio(tmp_path / "a.wav")[0]
+    assert _ild_db(a[: FS // 2]) < -3.0  # from the right, reflections and tail beside it
+    assert report["room"]["synthetic"] and report["room"]["virtual_array"] is None
+    assert len(a) > 0.5 * FS + 0.3 * FS  # the room's tail rings on
+
+
+def _coherence(y: np.ndarray, low: float = 1000.0, high: float = 8000.0) -> float:
+    """Interaural coherence of a render, magnitude of the normalised cross-spectrum
+    averaged over ``low`` to ``high`` Hz (Welch)."""
+    f, c = signal.coherence(y[:, 0], y[:, 1], fs=FS, nperseg=1024)
+    band = (f >= low) & (f <= high)
+    return float(np.mean(c[band]))
+
+
+def _object_render(tmp_path, name, extra, az=0.0, **settings):
+    s = _noise(1.5, seed=11)
+    master = _master(
+        tmp_path / f"{name}.wav",
+        s[:, None],
+        [object_block("AC_00031001", 1, az=az, extra=extra)],
+        bed=False,
+    )
+    report = render([str(master)], tmp_path / f"{name}.out.wav", RenderSettings(**FLAT, **settings))
+    return read_audio(tmp_path / f"{name}.out.wav")[0], report
+
+
+def test_an_objects_width_spreads_it_over_the_array(tmp_path):
+    # BS.2076-2 width: the object spread over its extent (multiple-direction VBAP onto the
+    # virtual array: one signal on many directions, so the ears stay coherent; it is the
+    # directions that spread). An object at the left, 360 degrees wide, comes from all
+    # around the horizon: the large level difference of a point at the left (the head's
+    # shadow) is nearly gone, at about the same level (unit-power gains; the coherent
+    # low-frequency sum of a phantom source adds at most a few dB).
+    point, _ = _object_render(tmp_path, "point", "", az=90.0)
+    narrow, _ = _object_render(tmp_path, "narrow", "<width>60</width>", az=90.0)
+    wide, report = _object_render(tmp_path, "wide", "<width>360</width>", az=90.0)
+    entry = report["adm"]["objects_rendered"][0]
+    assert entry["rendered"] == "panned onto the virtual array"
+    assert entry["largest_extent_deg"] == [360.0, 0.0]
+    assert report["engine"]["panned_objects"]["sources"] == 1
+    assert not any("width" in w for w in report["warnings"])
+    assert _ild_db(point) > 10.0
+    assert _ild_db(point) > _ild_db(narrow) > _ild_db(wide)
+    assert abs(_ild_db(wide)) < 3.0
+    assert abs(10 * np.log10(_energy(wide) / _energy(point))) < 4.0
+
+
+def test_an_objects_diffuse_share_is_decorrelated_at_the_same_level(tmp_path):
+    # BS.2076-2 diffuse = 1: all of the object through the diffuse channel, a response with
+    # the set's diffuse-field spectrum and coherence at the mean energy of its pairs: as loud
+    # as the point (1.5 dB: a front pair is not the mean pair), its ears far less alike.
+    point, _ = _object_render(tmp_path, "point", "")
+    diffuse, report = _object_render(tmp_path, "diffuse", "<diffuse>1</diffuse>")
+    assert report["engine"]["diffuse_shares"] == {"sources": 1}
+    assert report["adm"]["objects_rendered"][0]["largest_diffuse"] == 1.0
+    assert abs(10 * np.log10(_energy(diffuse) / _energy(point))) < 1.5
+    assert _coherence(diffuse) < 0.5 < _coherence(point)
+    # half diffuse: the power split sqrt(1 - d), sqrt(d) keeps the level
+    half, _ = _object_render(tmp_path, "half", "<diffuse>0.5</diffuse>")
+    e_half, e_point, e_diffuse = _energy(half), _energy(point), _energy(diffuse)
+    assert abs(10 * np.log10(e_half / (0.5 * e_point + 0.5 * e_diffuse))) < 0.5
+
+
+def test_diffuse_and_wide_objects_in_a_room(tmp_path):
+    wide, report = _object_render(
+        tmp_path, "roomwide", "<width>90</width><diffuse>0.3</diffuse>", room="medium"
+    )
+    assert report["engine"]["panned_objects"]["array_channels"] == 51  # 50 + diffuse
+    assert "diffuse_shares" not in report["engine"]  # panned objects carry their own
+    assert np.all(np.isfinite(wide)) and len(wide) > 1.5 * FS
+    assert abs(_ild_db(wide)) < 1.5

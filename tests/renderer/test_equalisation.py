@@ -210,7 +210,7 @@ def test_lookups_filter_after_interpolating_like_interpolating_filtered_response
 
 
 def test_sets_holding_a_room_are_not_equalised_by_default():
-    from earfold.renderer.render.plan import _equalise
+    from earfold.renderer.render.prepared import _equalise
 
     grid = _icosahedron()
     rng = np.random.default_rng(1)

@@ -16,6 +16,7 @@ import soundfile as sf
 
 import earfold.renderer.hrtf.hrir as hrir
 import earfold.renderer.render.plan as plan_module
+import earfold.renderer.render.prepared as prepared_module
 from earfold.renderer.errors import RendererError
 from earfold.renderer.layouts import Layout, get_layout
 from earfold.renderer.render import FilterCache, RenderSettings, plan_render, render
@@ -46,10 +47,14 @@ def builds(monkeypatch):
 
         return spy
 
-    monkeypatch.setattr(plan_module, "load_hrir_set", counted("load", plan_module.load_hrir_set))
-    monkeypatch.setattr(plan_module, "equalised", counted("equalise", plan_module.equalised))
     monkeypatch.setattr(
-        plan_module, "build_room_filters", counted("room", plan_module.build_room_filters)
+        prepared_module, "load_hrir_set", counted("load", prepared_module.load_hrir_set)
+    )
+    monkeypatch.setattr(
+        prepared_module, "equalised", counted("equalise", prepared_module.equalised)
+    )
+    monkeypatch.setattr(
+        prepared_module, "build_room_filters", counted("room", prepared_module.build_room_filters)
     )
     return counts
 
@@ -477,13 +482,13 @@ def test_a_header_claiming_more_than_the_file_holds_is_refused_unread(tmp_path):
 
 
 def test_only_regular_files_are_hashed(tmp_path):
-    assert plan_module._content_hash(os.devnull) is None
-    assert plan_module._content_hash(str(tmp_path)) is None
-    assert plan_module._content_hash(str(tmp_path / "missing.sofa")) is None
+    assert prepared_module._content_hash(os.devnull) is None
+    assert prepared_module._content_hash(str(tmp_path)) is None
+    assert prepared_module._content_hash(str(tmp_path / "missing.sofa")) is None
     (tmp_path / "empty.sofa").write_bytes(b"")
-    assert plan_module._content_hash(str(tmp_path / "empty.sofa")) is None
+    assert prepared_module._content_hash(str(tmp_path / "empty.sofa")) is None
     (tmp_path / "x.sofa").write_bytes(b"abc")
-    assert plan_module._content_hash(str(tmp_path / "x.sofa")) == (
+    assert prepared_module._content_hash(str(tmp_path / "x.sofa")) == (
         "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
     )
 

@@ -334,3 +334,48 @@ def test_bad_engines_are_refused(kemar):
     engine = MovingSourceEngine([SourcePath.fixed([1.0, 0, 0])], table)
     with pytest.raises(AudioError, match=r"shape \(frames, 1\)"):
         engine.process(np.zeros((10, 2)))
+
+
+# -- spread (width, height, depth, diffuse per breakpoint) ---------------------------
+
+
+def test_a_path_without_spread_has_none_and_reads_as_a_point():
+    path = SourcePath([0, 100], [[1.0, 0, 0], [0, 1.0, 0]], [1.0, 0.5])
+    assert path.spread is None
+    np.testing.assert_array_equal(path.at_spread(np.array([0, 50, 500])), np.zeros((3, 4)))
+    with_spread = SourcePath([0, 100], [[1.0, 0, 0], [0, 1.0, 0]], [1.0, 0.5], np.zeros((2, 4)))
+    frames = np.arange(0, 200, 7)
+    for got, want in zip(with_spread.at(frames), path.at(frames)):
+        np.testing.assert_array_equal(got, want)  # the spread leaves direction and gain alone
+
+
+def test_spread_holds_jumps_and_interpolates_like_the_gains():
+    front = direction_to_vector(0.0, 0.0)
+    spread = [[0, 0, 0, 0], [90, 30, 0.2, 0.5], [10, 10, 0, 1.0], [10, 10, 0, 1.0]]
+    path = SourcePath([100, 200, 200, 300], [front] * 4, [1.0, 0.0, 1.0, 1.0], spread)
+    frames = np.array([0, 100, 150, 199, 200, 250, 400])
+    s = path.at_spread(frames)
+    g = path.at(frames)[1]
+    # Column by column the same weights as the gains (linear, held, the jump at 200).
+    np.testing.assert_allclose(s[:, 0], [0, 0, 45, 89.1, 10, 10, 10], atol=1e-12)
+    np.testing.assert_allclose(s[:, 3], [0, 0, 0.25, 0.495, 1.0, 1.0, 1.0], atol=1e-12)
+    np.testing.assert_allclose(1.0 - g[:4], s[:4, 3] / 0.5, atol=1e-12)
+    # Resting with a constant spread: bit for bit the breakpoint's row, frame after frame.
+    rest = path.at_spread(np.arange(200, 400, 3))
+    assert np.all(rest == np.array(spread[2], dtype=float))
+    fixed = SourcePath.fixed(front, 0.5, [20.0, 5.0, 0.0, 0.1])
+    assert np.all(fixed.at_spread(np.arange(10)) == [20.0, 5.0, 0.0, 0.1])
+
+
+@pytest.mark.parametrize(
+    "spread, match",
+    [
+        (np.zeros((2, 3)), r"shape \(2, 4\)"),
+        ([[0, 0, 0, 0], [-1, 0, 0, 0]], "width must be >= 0"),
+        ([[0, 0, 0, 0], [0, 0, 0, 1.5]], "diffuse must be from 0 to 1"),
+        ([[0, np.inf, 0, 0], [0, 0, 0, 0]], "finite"),
+    ],
+)
+def test_bad_spreads_are_refused(spread, match):
+    with pytest.raises(AudioError, match=match):
+        SourcePath([0, 10], [[1, 0, 0], [0, 1, 0]], None, spread)

@@ -9,7 +9,7 @@ import pytest
 from earfold.renderer.engine import PanningMixer, SourcePath
 from earfold.renderer.errors import AudioError, LayoutError
 from earfold.renderer.geometry import direction_to_vector
-from earfold.renderer.layouts import VbapPanner
+from earfold.renderer.layouts import SpreadPanner, VbapPanner
 from earfold.renderer.scenes import virtual_layout
 
 RATE = 48000.0
@@ -83,3 +83,61 @@ def test_bad_mixers_are_refused(panner):
     mixer = PanningMixer([SourcePath.fixed([1.0, 0, 0])], panner.gains, RATE)
     with pytest.raises(AudioError, match=r"shape \(frames, 1\)"):
         mixer.process(np.zeros((4, 2)))
+
+
+# -- gain functions that take the spread ---------------------------------------------
+
+
+class _Recorder:
+    """A SpreadGains: the spread's width as channel 0, the direction's x as channel 1."""
+
+    def __init__(self):
+        self.calls = 0
+
+    def spread_gains(self, vectors, spread):
+        self.calls += 1
+        return np.column_stack([spread[:, 0], vectors[:, 0]])
+
+
+def test_a_spread_gain_function_gets_each_states_spread():
+    frames = 9600
+    path = SourcePath(
+        [0, frames], [[1.0, 0, 0], [1.0, 0, 0]], spread=[[0, 0, 0, 0], [100, 0, 0, 0]]
+    )
+    recorder = _Recorder()
+    mixer = PanningMixer([path], recorder, RATE, dtype=np.float64)
+    assert mixer.uses_spread and mixer.channels == 2
+    y = _mix(mixer, np.ones((frames, 1)), blocks=(1000, 333))
+    hop = mixer.hop
+    updates = np.arange(0, frames, hop)
+    # At each update the gain is the path's width there (SourcePath.at_spread).
+    np.testing.assert_allclose(y[updates, 0], path.at_spread(updates)[:, 0], atol=1e-12)
+    assert recorder.calls >= 2  # the check at construction, then the states
+    # A plain callable is still called with the directions alone.
+    plain = PanningMixer([path], lambda v: v[:, :1], RATE)
+    assert not plain.uses_spread
+
+
+def test_a_resting_source_with_a_constant_spread_keeps_its_gains_exactly(panner):
+    spread_panner = SpreadPanner(panner, diffuse_channel=True)
+    d = direction_to_vector(33.0, 21.0)
+    path = SourcePath.fixed(d, 0.5, [60.0, 20.0, 0.0, 0.3])
+    mixer = PanningMixer([path], spread_panner, RATE, dtype=np.float64)
+    assert mixer.channels == panner.loudspeakers + 1
+    x = np.random.default_rng(2).standard_normal((30000, 1))  # past one lookahead
+    y = _mix(mixer, x, blocks=(4096, 1001))
+    g = spread_panner.spread_gains(d[None, :], np.array([[60.0, 20.0, 0.0, 0.3]]))[0]
+    # No per-state float noise: every frame is the input times the same gains.
+    np.testing.assert_array_equal(y, 0.5 * x * g[None, :])
+    # Power preserving split (common practice): direct sqrt(0.7) at unit power, diffuse
+    # sqrt(0.3).
+    np.testing.assert_allclose(np.sum(g[:-1] ** 2), 0.7, rtol=1e-12)
+    np.testing.assert_allclose(g[-1] ** 2, 0.3, rtol=1e-12)
+
+
+def test_a_path_without_spread_pans_as_a_point_through_a_spread_panner(panner):
+    x = np.random.default_rng(3).standard_normal((5000, 1))
+    path = SourcePath([0, 5000], direction_to_vector(np.array([10.0, 80.0]), np.zeros(2)))
+    plain = PanningMixer([path], panner.gains, RATE, dtype=np.float64).process(x)
+    spread = PanningMixer([path], SpreadPanner(panner), RATE, dtype=np.float64).process(x)
+    np.testing.assert_array_equal(spread, plain)

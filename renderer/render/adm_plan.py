@@ -1,0 +1,519 @@
+"""The plan of an ADM object master: beds, HOA packs and objects, free field or in a room.
+
+What each kind of track feeds is described in :mod:`.adm_feeds`. This module builds the
+filters:
+
+* **Free field.** Bed tracks get their loudspeaker's HRIR pair (as a channel render
+  does), HOA tracks the scene decoder's filters, and objects are followed along their
+  paths by the moving-source engine with per-object HRIR pairs.
+* **In a room.** One room build holds every row the master needs: the bed loudspeakers
+  (at the room's loudspeaker radius, as a channel render places them), a dense virtual
+  loudspeaker array that every object is panned onto (VBAP, V. Pulkki, *J. Audio Eng.
+  Soc.* 45(6), 1997; the array is the antipodal spherical design of
+  :data:`ARRAY_ORDER`, :func:`~earfold.renderer.scenes.virtual_layout`, at one distance,
+  :func:`~earfold.renderer.render.scene_feeds.virtual_distance`), and each HOA order's
+  virtual loudspeakers (decoded as a scene in a room is). All rows share the room's one
+  diffuse tail, and the room's cost is that of its rows: it does not grow with the number
+  of objects, only the panning does (a few gains per object and update).
+
+One calibration gain serves the whole master (:mod:`.adm_feeds`): that of the bed's
+loudspeakers, or without a bed of ITU-R BS.2051's 0+5+0, computed on the same rows as the
+render uses (with the room's tail when there is one).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..engine import SourcePath
+from ..eq import REFERENCE as CALIBRATION_REFERENCE
+from ..errors import LayoutError, OptionError, RendererError
+from ..geometry import vector_to_direction
+from ..io import StemInfo
+from ..layouts import Layout, Speaker, get_layout
+from ..objects import AdmMaster
+from ..room import RoomFilters, exact_brirs, get_room
+from .adm_feeds import AdmTracks, TrackSpan, adm_layout, object_path
+from .bank import RenderPlan, calibrated_gain
+from .feeds import ChannelFeed, speaker_feeds
+from .filter_cache import default_filter_cache
+from .options import ROOM_MODES, SCENE_OPTIONS, RenderSettings
+from .prepared import is_measured_room, keep_lookups, prepared_set, room_part, take_lookups
+
+__all__ = ["ARRAY_ORDER", "plan_adm"]
+
+#: Order of the spherical design whose directions make the virtual array objects are
+#: panned onto in a room: 50 directions (an antipodal 9-design), about 30 degrees apart,
+#: so VBAP's phantom sources span small triangles while the room's rows stay few.
+ARRAY_ORDER = 4
+
+
+def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> RenderPlan:
+    """The plan of an ADM object master (see the module's notes)."""
+    from ..scenes import virtual_layout
+
+    name = Path(stem.paths[0]).name
+    refused = [
+        what
+        for what, given in (
+            ("channel_order", bool(settings.channel_order)),
+            ("solo", settings.solo is not None),
+            ("fold stereo", settings.fold == "stereo"),
+            ("headphone_eq", settings.headphone_eq is not None),
+            *((option, getattr(settings, option) is not None) for option in SCENE_OPTIONS),
+        )
+        if given
+    ]
+    if refused:
+        raise OptionError(
+            f"{', '.join(refused)}: not available for ADM masters in this version ({name!r} "
+            "is rendered as its metadata places it); leave "
+            f"{'it' if len(refused) == 1 else 'them'} out"
+        )
+    if settings.room_mode not in ROOM_MODES:
+        raise RendererError(
+            f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
+        )
+    if stem.channels != master.channels:
+        raise LayoutError(
+            f"{name!r}: the audio has {stem.channels} channel(s) but its ADM header says "
+            f"{master.channels}"
+        )
+    warnings: list[str] = []
+    notes: list[str] = []
+    cache = default_filter_cache()
+    hset, eq_report, set_key = prepared_set(
+        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
+    )
+    rate = stem.samplerate
+    layout = adm_layout(master)
+    room = get_room(settings.room)
+    in_room = room is not None and not is_measured_room(hset)
+
+    # The objects' paths, and how each is rendered: followed with its own HRIR pairs (free
+    # field, a point), or panned onto the virtual array (in a room, or with an extent).
+    paths: list[SourcePath] = []
+    entries: list[dict[str, Any]] = []
+    for obj in master.objects:
+        path, entry = object_path(obj, stem.frames, rate)
+        paths.append(path)
+        entries.append(entry)
+        if entry["not_rendered"]:
+            warnings.append(
+                f"ADM object {obj.object_name!r}: its {', '.join(entry['not_rendered'])} "
+                f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered in this "
+                "version (a direction only)"
+            )
+    spreads = [np.zeros((1, 4)) if p.spread is None else p.spread for p in paths]
+    panned = [k for k, sp in enumerate(spreads) if in_room or bool(np.any(sp[:, :2] > 0))]
+    followed = [k for k in range(len(paths)) if k not in panned]
+    has_diffuse = any(bool(np.any(sp[:, 3] > 0)) for sp in spreads)
+
+    # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), the
+    # virtual array when objects are panned, and in a room each HOA order's virtual
+    # loudspeakers.
+    if master.beds:
+        reference = tuple(layout.speakers[bed.track] for bed in master.beds)
+    else:
+        reference = get_layout("5.0").speakers
+    rows = list(reference)
+    virtual_at: dict[int, int] = {}  # first row of each HOA order; -1: the objects' array
+    groups: list[tuple[str, int, NDArray[np.float64], list[float | None]]] = []
+    if in_room:
+        from .scene_feeds import virtual_distance
+
+        # The objects' array: each direction at the beds' radius where the room leaves
+        # space, nearer where a surface is closer (towards the floor; its level is evened
+        # out below). Each HOA order's virtual loudspeakers: at one distance, as a scene's.
+        if panned:
+            directions = virtual_layout(ARRAY_ORDER)
+            reach = [virtual_distance(room, v[None, :]) for v in directions]  # type: ignore[arg-type]
+            groups.append(("A", -1, directions, list(reach)))
+        for order in sorted({pack.order for pack in master.hoa}):
+            directions = virtual_layout(order)
+            distance = virtual_distance(room, directions)  # type: ignore[arg-type]
+            groups.append((f"H{order}.", order, directions, [distance] * len(directions)))
+    elif panned:
+        directions = virtual_layout(ARRAY_ORDER)
+        groups.append(("A", -1, directions, [None] * len(directions)))
+    for prefix, order, directions, distances in groups:
+        virtual_at[order] = len(rows)
+        az, el = vector_to_direction(directions)
+        rows.extend(
+            Speaker(f"{prefix}{i + 1}", round(float(a), 6), round(float(e), 6), d)
+            for i, (a, e, d) in enumerate(
+                zip(np.atleast_1d(az), np.atleast_1d(el), distances, strict=True)
+            )
+        )
+    rows_layout = Layout(
+        "ADM rows",
+        tuple(rows),
+        "the master's bed loudspeakers (or ITU-R BS.2051 0+5+0 for calibration)"
+        + (", the objects' virtual array" if panned else "")
+        + (", the HOA packs' virtual loudspeakers" if in_room and master.hoa else ""),
+        "ITU-R BS.2076 metadata of the file",
+    )
+    room_filters, room_report = room_part(
+        hset,
+        rows_layout if in_room else None,
+        room,
+        rate,
+        settings,
+        set_key,
+        cache,
+        warnings,
+        notes,
+    )
+    take_lookups(hset, set_key, cache)
+    exact = room_filters is not None and settings.room_mode == "exact"
+    row_feeds = speaker_feeds(
+        rows_layout,
+        tuple(range(len(rows))),
+        hset,
+        rate,
+        lfe=settings.lfe,
+        room_responses=(
+            None
+            if room_filters is None
+            else exact_brirs(room_filters)
+            if exact
+            else room_filters.early
+        ),
+        room_tail_weights=(
+            None if room_filters is None or exact else np.asarray(room_filters.tail_weights)
+        ),
+        room_arrival_samples=(
+            0.0 if room_filters is None else float(room_filters.report["reference_arrival_samples"])
+        ),
+        warnings=warnings,
+    )
+    keep_lookups(hset, set_key, cache)
+    shared = room_filters is not None and not exact
+    tail = None if not shared or room_filters is None else np.asarray(room_filters.tail, float)
+    tail_offset = 0 if tail is None or room_filters is None else int(room_filters.tail_offset)
+    length = max(f.filters.shape[-1] for f in row_feeds)
+    row_filters = np.zeros((len(rows), 2, length))
+    for i, feed in enumerate(row_feeds):
+        row_filters[i, :, : feed.filters.shape[-1]] = feed.filters
+    row_tail = np.array([f.tail_weight if tail is not None else 0.0 for f in row_feeds])
+    if room is not None and in_room:
+        # The room model plays a nearer loudspeaker louder (1/r against the farthest); a
+        # virtual row brought nearer than the beds' radius by a surface is scaled back by
+        # d / R, so that every direction of the array plays at the level of a loudspeaker
+        # at the beds' radius (an object must not jump in level as it pans).
+        radius = float(room.speaker_radius)
+        first = virtual_at.get(-1, len(rows))
+        for i in range(first, first + len(virtual_layout(ARRAY_ORDER)) if -1 in virtual_at else 0):
+            near = rows[i].distance
+            if near and near < radius:
+                row_filters[i] *= near / radius
+                row_tail[i] *= near / radius
+    nref = len(reference)
+    gain = calibrated_gain(
+        row_filters[:nref],
+        row_feeds[:nref],
+        tail,
+        None if tail is None else row_tail[:nref],
+        tail_offset,
+        rate,
+    )
+
+    # The fixed tracks: beds and HOA, with their gains (a muted one silent).
+    fixed: dict[int, tuple[ChannelFeed, NDArray[np.float64], float]] = {}
+    for i, bed in enumerate(master.beds):
+        g = 0.0 if bed.mute else float(bed.gain)
+        fixed[bed.track] = (row_feeds[i], g * row_filters[i], g * row_tail[i])
+    for pack in master.hoa:
+        g = 0.0 if pack.mute else float(pack.gain)
+        acn_filters, acn_tail = _hoa_filters(
+            pack.order,
+            pack.normalization,
+            hset,
+            rate,
+            row_filters,
+            row_tail,
+            virtual_at,
+            notes,
+            pack.object_name,
+        )
+        for track, acn in zip(pack.tracks, pack.acns):
+            report = {"channel": track, "label": f"ACN{acn}", "hoa": pack.object_name}
+            feed = ChannelFeed(label=f"ACN{acn}", filters=acn_filters[acn], report=report)
+            padded = np.zeros((2, max(length, acn_filters.shape[-1])))
+            padded[:, : acn_filters.shape[-1]] = acn_filters[acn]
+            fixed[track] = (feed, g * padded, g * float(acn_tail[acn]))
+    length = max([length, *(f.shape[-1] for _, f, _ in fixed.values())])
+    filters = np.zeros((stem.channels, 2, length))
+    tail_weights = np.zeros(stem.channels)
+    for track, (_, f, w) in fixed.items():
+        filters[track, :, : f.shape[-1]] = f
+        tail_weights[track] = w
+    filters *= gain
+
+    # Beds and HOA packs play only within their objects' time spans (BS.2076-2 start,
+    # duration): their tracks are gated to them.
+    spans = tuple(
+        TrackSpan.of(bed.track, bed.start, bed.end, rate)
+        for bed in master.beds
+        if bed.start or bed.end is not None
+    ) + tuple(
+        TrackSpan.of(track, pack.start, pack.end, rate)
+        for pack in master.hoa
+        if pack.start or pack.end is not None
+        for track in pack.tracks
+    )
+    warnings.extend(f"ADM: not rendered: {reason}" for reason in master.ignored)
+    notes.extend(f"ADM: {note}" for note in master.notes)
+
+    objects = None
+    if master.objects or spans:
+        bus: list[NDArray[np.float64]] = []
+        bus_tail: list[float] = []
+        array = None
+        if panned:
+            at = virtual_at[-1]
+            array = np.asarray(virtual_layout(ARRAY_ORDER), dtype=np.float64)
+            bus.extend(row_filters[at : at + len(array)])
+            bus_tail.extend(row_tail[at : at + len(array)])
+        if has_diffuse:
+            row, weight = _diffuse_row(hset, rate, settings.seed, room_filters, row_tail, rows)
+            bus.append(row)
+            bus_tail.append(weight)
+            notes.append(
+                "ADM: diffuse shares (BS.2076 diffuse) go through a short decorrelating "
+                "response with the set's diffuse-field spectrum and interaural coherence"
+                + (", and feed the room's tail" if tail is not None else "")
+            )
+        bus_filters = None
+        if bus:
+            width = max(b.shape[-1] for b in bus)
+            bus_filters = np.zeros((len(bus), 2, width))
+            for i, b in enumerate(bus):
+                bus_filters[i, :, : b.shape[-1]] = b
+            bus_filters *= gain
+        direct = [_direct_part(paths[k]) for k in followed]
+        objects = AdmTracks(
+            channels=tuple(master.objects[k].track for k in followed),
+            paths=tuple(direct),
+            gain=gain,
+            report=tuple(entries),
+            length=_moving_length(hset, direct, gain) if direct else 1,
+            panned_channels=tuple(master.objects[k].track for k in panned),
+            panned_paths=tuple(paths[k] for k in panned),
+            array=array,
+            array_filters=bus_filters,
+            array_tail_weights=None if tail is None else np.asarray(bus_tail, dtype=np.float64),
+            diffuse=has_diffuse,
+            diffuse_channels=tuple(
+                master.objects[k].track for k in followed if np.any(spreads[k][:, 3] > 0)
+            ),
+            diffuse_paths=tuple(paths[k] for k in followed if np.any(spreads[k][:, 3] > 0)),
+            spans=spans,
+        )
+        for k in panned:
+            entries[k]["rendered"] = "panned onto the virtual array"
+        for k in followed:
+            entries[k]["rendered"] = "own HRIR pairs along its path"
+    used = set(fixed) | {obj.track for obj in master.objects}
+    unused = [t + 1 for t in range(stem.channels) if t not in used]
+    if unused:
+        notes.append(
+            "ADM: track(s) "
+            + ", ".join(map(str, unused))
+            + " are not in the programme rendered and stay silent"
+        )
+    feeds = []
+    for track in range(stem.channels):
+        entry_of = fixed.get(track)
+        speaker = layout.speakers[track]
+        report = (
+            {**entry_of[0].report, "channel": track, "label": speaker.label}
+            if entry_of is not None
+            else {"channel": track, "label": speaker.label}
+        )
+        feeds.append(
+            ChannelFeed(
+                label=speaker.label,
+                filters=filters[track],
+                lfe=entry_of is not None and entry_of[0].lfe,
+                tail_weight=float(tail_weights[track]),
+                report=report,
+            )
+        )
+    section: dict[str, Any] = {
+        **master.to_dict(),
+        "calibration_reference": "ADM bed" if master.beds else "5.0",
+        "objects_rendered": entries,
+        "objects_method": (
+            None
+            if not master.objects
+            else "in the room: panned by VBAP (Pulkki 1997) onto a virtual array of "
+            f"{len(virtual_layout(ARRAY_ORDER))} directions rendered in the room"
+            if in_room
+            else "followed along their paths with per-object HRIR pairs, updated every "
+            "10 ms or less and crossfaded; objects with a width or height spread over "
+            f"them and panned onto a virtual array of {len(virtual_layout(ARRAY_ORDER))} "
+            "directions (multiple-direction VBAP)"
+        ),
+        "time_spans": [span.to_dict() for span in spans],
+    }
+    if room_report is not None and in_room:
+        room_report = {
+            **room_report,
+            "virtual_array": f"{len(virtual_layout(ARRAY_ORDER))} directions (antipodal "
+            f"spherical {2 * ARRAY_ORDER + 1}-design) for the objects"
+            if panned
+            else None,
+        }
+    plan = RenderPlan(
+        stem=stem,
+        feeds=tuple(feeds),
+        hrir_set=hset,
+        filters=filters,
+        warnings=tuple(warnings),
+        layout=layout,
+        order=tuple(range(stem.channels)),
+        order_source="the ADM master's track map (chna)",
+        tail=None if tail is None else gain * tail,
+        tail_weights=None if tail is None else tail_weights,
+        tail_offset=tail_offset,
+        room=room_report,
+        eq=eq_report,
+        calibration={
+            "gain_db": round(float(20 * np.log10(gain)), 3),
+            "reference": f"{CALIBRATION_REFERENCE}; the loudspeakers of "
+            + ("the master's bed" if master.beds else "ITU-R BS.2051 0+5+0 (5.0)")
+            + ", the same gain for objects and HOA",
+            "applied": "to every filter and to the objects, before the delivery stage",
+        },
+        notes=tuple(notes),
+        objects=objects,
+        adm=section,
+    )
+    if room_filters is not None:
+        plan = _with_decay(plan, row_filters, row_tail, tail, tail_offset, rows, gain)
+    return plan
+
+
+def _hoa_filters(
+    order: int,
+    normalization: str,
+    hset: Any,
+    rate: float,
+    row_filters: NDArray[np.float64],
+    row_tail: NDArray[np.float64],
+    virtual_at: dict[int, int],
+    notes: list[str],
+    name: str,
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Filters ``((order + 1)**2, 2, L)`` of an HOA pack's ACN channels in its
+    normalisation, and each one's share of the room's tail: free field the scene decoder's
+    filters, in a room the pack's virtual loudspeakers' rows decoded as a scene in a room is
+    (:func:`~earfold.renderer.render.scene_feeds.scene_bank`)."""
+    from ..scenes import (
+        conversion_matrix,
+        decode_speaker_filters,
+        fold_matrix,
+        scene_decoder,
+        speaker_gains,
+        virtual_layout,
+    )
+    from .scene_feeds import scene_taps
+
+    norm = normalization.lower()
+    if order not in virtual_at:
+        decoder = scene_decoder(hset, order, samplerate=rate, taps=scene_taps(hset))
+        notes.extend(f"HOA {name!r}: {w}" for w in decoder.warnings)
+        bank = np.asarray(decoder.for_input(norm), dtype=np.float64)
+        return bank, np.zeros(len(bank))
+    directions = virtual_layout(order)
+    at = virtual_at[order]
+    rows = row_filters[at : at + len(directions)]
+    sn3d = decode_speaker_filters(rows, directions, order, rate)
+    matrix = conversion_matrix(order, norm)
+    sn3d_tail = speaker_gains(directions, order, "basic").T @ row_tail[at : at + len(directions)]
+    return fold_matrix(sn3d, matrix), matrix.T @ sn3d_tail
+
+
+def _moving_length(hset: Any, paths: list[Any], gain: float) -> int:
+    """Length of the moving engine's whole response (its pairs and the set's EQ)."""
+    from .moving_sources import moving_source_engine
+
+    engine = moving_source_engine(hset, paths, gain=gain)
+    return int(engine.filter_length + engine.post_length - 1)
+
+
+def _with_decay(
+    plan: RenderPlan,
+    row_filters: NDArray[np.float64],
+    row_tail: NDArray[np.float64],
+    tail: NDArray[np.float64] | None,
+    tail_offset: int,
+    rows: list[Speaker],
+    gain: float,
+) -> RenderPlan:
+    """The plan with the report's room decay plot, of the first non-LFE reference row."""
+    import dataclasses
+
+    from ._decay import energy_decay
+
+    if not plan.room or not plan.room.get("synthetic"):
+        return plan
+    first = next(i for i, s in enumerate(rows) if not s.lfe)
+    ir = row_filters[first]
+    if tail is not None:
+        n = max(ir.shape[-1], tail_offset + tail.shape[-1])
+        full = np.zeros((2, n))
+        full[:, : ir.shape[-1]] = ir
+        full[:, tail_offset : tail_offset + tail.shape[-1]] += row_tail[first] * tail
+        ir = full
+    label = rows[first].label
+    decay = {
+        "what": f"binaural room response of {label!r}, both ears; Schroeder integration "
+        "per octave band",
+        "speaker": label,
+        **energy_decay(gain * ir, plan.stem.samplerate),
+    }
+    return dataclasses.replace(plan, room_decay=decay)
+
+
+def _direct_part(path: SourcePath) -> SourcePath:
+    """``path`` with its gains scaled to the direct share ``sqrt(1 - diffuse)``."""
+    from ..layouts import diffuse_split
+
+    if path.spread is None or not np.any(path.spread[:, 3] > 0):
+        return path
+    direct, _ = diffuse_split(path.spread[:, 3])
+    return SourcePath(path.frames, path.vectors, path.gains * direct, spread=path.spread)
+
+
+def _diffuse_row(
+    hset: Any,
+    rate: float,
+    seed: int,
+    room_filters: RoomFilters | None,
+    row_tail: NDArray[np.float64],
+    rows: list[Speaker],
+) -> tuple[NDArray[np.float64], float]:
+    """The filters of the diffuse shares' channel, and its share of the room's tail.
+
+    A short decorrelating response with the set's diffuse-field spectrum and interaural
+    coherence at the mean energy of its pairs
+    (:func:`~earfold.renderer.room.diffuse_response`), so a diffuse share is as loud as a
+    direct one; in a room it starts with the rows' direct sound (the room's reference
+    arrival) and feeds the tail as much as a loudspeaker at the beds' radius does.
+    """
+    from ..room import diffuse_response
+
+    response = diffuse_response(hset, rate, seed=seed)
+    if room_filters is None:
+        return response, 0.0
+    onset = int(round(float(room_filters.report["reference_arrival_samples"])))
+    row = np.zeros((2, onset + response.shape[-1]))
+    row[:, onset:] = response
+    mains = [i for i, s in enumerate(rows) if not s.lfe]
+    return row, float(np.max(row_tail[mains])) if mains else 0.0
