@@ -59,10 +59,13 @@ class TrackSpan:
     end: int
 
     @classmethod
-    def of(cls, track: int, start: Any, end: Any, samplerate: float) -> TrackSpan:
-        """From an object's start and end in seconds (``end`` None: to the end)."""
-        first = int(round(float(start) * samplerate))
-        return cls(track, first, -1 if end is None else int(round(float(end) * samplerate)))
+    def of(cls, track: int, start: Any, end: Any, samplerate: float, first: int = 0) -> TrackSpan:
+        """From an object's start and end in seconds (``end`` None: to the end), in frames
+        counted from the file's frame ``first`` (an excerpt's start)."""
+        begin = int(round(float(start) * samplerate)) - first
+        return cls(
+            track, begin, -1 if end is None else max(0, int(round(float(end) * samplerate)) - first)
+        )
 
     def to_dict(self) -> dict[str, Any]:
         """The report's entry (the track numbered from 1, times in frames)."""
@@ -147,9 +150,10 @@ def position_vectors(positions: NDArray[np.float64], cartesian: bool) -> NDArray
 
 
 def object_path(
-    channel: ObjectChannel, frames: int, samplerate: float
+    channel: ObjectChannel, frames: int, samplerate: float, first: int = 0
 ) -> tuple[SourcePath, dict[str, Any]]:
-    """The moving engine's path of an object track over ``frames`` frames, and its report.
+    """The moving engine's path of an object track over ``frames`` frames from the file's
+    frame ``first`` (an excerpt's start; the path's frames count from it), and its report.
 
     The metadata is sampled every :data:`UPDATE_SECONDS`; runs of samples that neither
     move nor change gain keep only their ends, so a static object holds two breakpoints
@@ -157,7 +161,7 @@ def object_path(
     """
     step = max(1, int(round(UPDATE_SECONDS * samplerate)))
     points = np.arange(0, frames + step, step, dtype=np.int64)
-    path = object_positions(channel, points / float(samplerate))
+    path = object_positions(channel, (first + points) / float(samplerate))
     vectors = position_vectors(path.positions, path.cartesian)
     gains = np.where(path.active, np.maximum(path.gain, 0.0), 0.0)
     spread = object_spread(path)
@@ -187,8 +191,8 @@ def object_path(
         None
         if moving.size == 0
         else [
-            round(float(points[moving[0]] / samplerate), 3),
-            round(float(points[moving[-1] + 1] / samplerate), 3),
+            round(float((first + points[moving[0]]) / samplerate), 3),
+            round(float((first + points[moving[-1] + 1]) / samplerate), 3),
         ]
     )
     entry["largest_extent_deg"] = [

@@ -99,7 +99,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     paths: list[SourcePath] = []
     entries: list[dict[str, Any]] = []
     for obj in master.objects:
-        path, entry = object_path(obj, stem.frames, rate)
+        path, entry = object_path(obj, stem.frames, rate, stem.start)
         paths.append(path)
         entries.append(entry)
         if entry["not_rendered"]:
@@ -257,11 +257,11 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     # Beds and HOA packs play only within their objects' time spans (BS.2076-2 start,
     # duration): their tracks are gated to them.
     spans = tuple(
-        TrackSpan.of(bed.track, bed.start, bed.end, rate)
+        TrackSpan.of(bed.track, bed.start, bed.end, rate, stem.start)
         for bed in master.beds
         if bed.start or bed.end is not None
     ) + tuple(
-        TrackSpan.of(track, pack.start, pack.end, rate)
+        TrackSpan.of(track, pack.start, pack.end, rate, stem.start)
         for pack in master.hoa
         if pack.start or pack.end is not None
         for track in pack.tracks

@@ -226,6 +226,8 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
     """Probe the stem and build the filter bank, validating everything up front."""
     stem = probe_stem(inputs)
     master = _adm_master(stem, settings)
+    if settings.excerpt is not None:
+        stem = _excerpt(stem, settings.excerpt)
     if master is not None:
         from .adm_plan import plan_adm  # here: only an ADM master loads it
 
@@ -235,8 +237,6 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
             "adm_programme applies to ADM masters only (a WAV with axml and chna chunks); "
             "leave it out"
         )
-    if settings.excerpt is not None:
-        stem = _excerpt(stem, settings.excerpt)
     if settings.fold not in FOLD_CHOICES:
         raise RendererError(
             f"unknown fold {settings.fold!r}; choose one of {', '.join(FOLD_CHOICES)}"

@@ -218,14 +218,6 @@ def create_comparison(
 ) -> Response:
     storage: Storage = request.app.state.storage
     stem = storage.read_meta("stems", req.stem_id, owner)
-    if stem.get("adm"):
-        # The renderer plans an ADM master whole (no excerpt window yet): refused here
-        # rather than by a build that fails after queueing.
-        raise Problem(
-            UNPROCESSABLE,
-            "blind comparisons of ADM object masters are not available in this version; "
-            "render the master (POST /v1/renders) and listen to it on the desk",
-        )
     if req.mode == "abx" and len(req.variants) != 2:
         raise Problem(
             UNPROCESSABLE,

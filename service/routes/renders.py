@@ -198,7 +198,6 @@ _NOT_FOR_ADM = (
     "solo",
     "fold",
     "headphone_eq",
-    "room",
     "ambisonic_norm",
     "ambisonic_decoder",
     "rotate",
@@ -231,13 +230,11 @@ def _adm_checks(req: Any, stem: dict) -> None:
         given = value not in (None, [], "")
         if option_name == "fold":
             given = value == "stereo"
-        elif option_name == "room":
-            given = value not in (None, "none")
         if given:
             raise _refuse(
                 option_name,
                 f"{option_name}: not available for ADM masters in this version ({name!r} is "
-                "rendered as its metadata places it, free field); leave it out",
+                "rendered as its metadata places it); leave it out",
             )
     listed = adm.get("programmes") or []
     if programme is not None and len(listed) == adm.get("programmes_total", len(listed)):

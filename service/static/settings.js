@@ -41,7 +41,7 @@ const SPEAKERS_ONLY = ["channel_order", "fold"];
 
 /** Options a render of an ADM master does not take (its metadata places every track; the
     server refuses each for a master), hidden and not sent for one. */
-const NOT_FOR_ADM = ["layout", "channel_order", "solo", "fold", "headphone_eq", "room", "room_mode", ...SCENE_ONLY];
+const NOT_FOR_ADM = ["layout", "channel_order", "solo", "fold", "headphone_eq", ...SCENE_ONLY];
 
 /** Words shown for declared choices that read better with a gloss. */
 const CHOICE_WORDS = {
@@ -1263,9 +1263,9 @@ function buildBatch() {
     const rooms = (bus.state.catalog.rooms || []).map((r) => [r.name, r.name, false]);
     if (S.controls.get("room")?.isCustom()) rooms.push(["__custom", "the custom room above", false]);
     const sets = (bus.state.catalog.hrtfSets || []).map((s) => [s.id || s.name, s.name || s.id, false]);
-    // An ADM master takes no layout and (in this version) no room: HRTF sets only.
+    // An ADM master takes no layout: rooms and HRTF sets only.
     if (S.controls.has("layout") && !isAdm(S.stem)) cols.append(checkList("Layouts", layouts, "layout"));
-    if (S.controls.has("room") && !isAdm(S.stem)) cols.append(checkList("Rooms", rooms, "room"));
+    if (S.controls.has("room")) cols.append(checkList("Rooms", rooms, "room"));
     if (S.controls.has("hrtf")) cols.append(checkList("HRTF sets", sets, "hrtf"));
     for (const input of cols.querySelectorAll("input")) {
       if (ticked.has(`${input.dataset.batchItem}|${input.value}`)) input.checked = true;

@@ -22,7 +22,7 @@ pytestmark = pytest.mark.browser
 RENDER_TIMEOUT_S = 240
 
 #: Options hidden (and not sent) for a master: its metadata places every track.
-NOT_FOR_ADM = ("layout", "channel_order", "solo", "fold", "headphone_eq", "room", "rotate")
+NOT_FOR_ADM = ("layout", "channel_order", "solo", "fold", "headphone_eq", "rotate")
 
 
 @pytest.fixture(scope="module")
@@ -60,8 +60,8 @@ def test_a_master_shows_its_objects_instead_of_layouts(page, live_server, stems,
     for name in NOT_FOR_ADM:
         assert field(page, name).is_hidden(), name
     assert page.locator("#view-settings [data-group='speakers']").is_hidden()
-    assert page.locator("#view-settings [data-group='room']").is_hidden()
     assert field(page, "hrtf").is_visible()  # what a master does take stays
+    assert field(page, "room").is_visible()
     picker = adm.locator("select[data-part='adm-programme']")
     assert picker.is_visible()
     assert picker.locator("option").evaluate_all("os => os.map(o => o.value)") == [

@@ -71,12 +71,18 @@ def test_a_master_with_broken_metadata_is_refused_naming_the_file(client, tmp_pa
     assert client.get("/v1/stems").json() == []  # nothing kept, as for other refusals
 
 
-def test_a_master_renders_without_a_layout_and_reports_its_objects(make_client, master):
+@pytest.mark.parametrize("room", ["none", "small"])
+def test_a_master_renders_without_a_layout_and_reports_its_objects(make_client, master, room):
     client = make_client(**FAST)
     stem = _upload(client, master).json()
     job = client.post(
         "/v1/renders",
-        json={"stem_id": stem["id"], "adm_programme": "Harbour without bell", "loudness": "none"},
+        json={
+            "stem_id": stem["id"],
+            "adm_programme": "Harbour without bell",
+            "loudness": "none",
+            "room": room,
+        },
     )
     assert job.status_code == 202, job.text
     assert job.json()["request"]["layout"] is None
@@ -92,6 +98,8 @@ def test_a_master_renders_without_a_layout_and_reports_its_objects(make_client, 
     assert gull["moves_s"] is not None
     assert client.get(done["links"]["audio"]).status_code == 200
     assert "00.wav" not in str(adm)  # no server path in the report
+    if room != "none":  # in a room the objects go through the virtual array
+        assert report["room"]["synthetic"] and "virtual array" in adm["objects_method"]
 
 
 @pytest.mark.parametrize(
@@ -99,7 +107,6 @@ def test_a_master_renders_without_a_layout_and_reports_its_objects(make_client, 
     [
         ({"layout": "5.1"}, "layout", "takes no layout; leave 'layout' out"),
         ({"layout": "hoa3"}, "layout", "its metadata (ITU-R BS.2076"),
-        ({"room": "small"}, "room", "not available for ADM masters"),
         ({"fold": "stereo"}, "fold", "not available for ADM masters"),
         ({"solo": "L"}, "solo", "not available for ADM masters"),
         ({"rotate": [30, 0, 0]}, "rotate", "not available for ADM masters"),
@@ -151,11 +158,28 @@ def test_object_paths_for_the_page(client, master):
     assert client.get(f"/v1/stems/{stem['id']}/objects?points=1").status_code == 422
 
 
-def test_blind_comparisons_of_a_master_are_refused_for_now(client, master):
-    stem = _upload(client, master).json()
-    resp = client.post(
-        "/v1/comparisons",
-        json={"stem_id": stem["id"], "variants": [{"hrtf": "mit-kemar"}, {"hrtf": "sphere"}]},
-    )
-    assert resp.status_code == 422
-    assert "ADM object masters" in resp.json()["detail"]
+def test_a_master_is_compared_blind_free_field_against_a_room(make_client, tmp_path):
+    # An excerpt of the master in two renders, level-matched: the comparison renders the
+    # excerpt's window with the objects where they are at those times.
+    client = make_client(**FAST)
+    stem = _upload(client, write_harbour_master(tmp_path / "long.wav", duration_s=2.5)).json()
+    body = {
+        "stem_id": stem["id"],
+        "variants": [{"room": "none"}, {"room": "small", "name": "small room"}],
+        "trials": 2,
+        "excerpt": {"start": 0.5, "length": 1.5},
+    }
+    resp = client.post("/v1/comparisons", json=body)
+    assert resp.status_code == 202, resp.text
+    cid = resp.json()["id"]
+    Worker(client.app.state.settings, queue=client.app.state.queue, name="w").run(once=True)
+    view = client.get(f"/v1/comparisons/{cid}").json()
+    assert view["state"] == "ready", view
+    a = client.get(view["trials"][0]["audio"]["A"])
+    b = client.get(view["trials"][0]["audio"]["B"])
+    assert a.status_code == b.status_code == 200 and a.content != b.content
+    client.post(f"/v1/comparisons/{cid}/trials/0/answer", json={"choice": "A"})
+    client.post(f"/v1/comparisons/{cid}/finish")
+    result = client.get(f"/v1/comparisons/{cid}/results").json()
+    for v in result["variants"]:
+        assert v["matched_lufs"] == pytest.approx(result["level_lufs"], abs=0.1)
