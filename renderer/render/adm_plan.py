@@ -301,7 +301,10 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
             paths=tuple(direct),
             gain=gain,
             report=tuple(entries),
-            length=_moving_length(hset, direct, gain) if direct else 1,
+            length=max(
+                _moving_length(hset, direct, gain) if direct else 1,
+                1 if bus_filters is None else int(bus_filters.shape[-1]),
+            ),
             panned_channels=tuple(master.objects[k].track for k in panned),
             panned_paths=tuple(paths[k] for k in panned),
             array=array,

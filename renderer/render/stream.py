@@ -84,7 +84,8 @@ class ObjectsEngine:
                 if objects.array_tail_weights is None
                 else objects.array_tail_weights
             )
-        filters = np.concatenate([_padded(b, plan.filters.shape[-1]) for b in banks])
+        longest = max(b.shape[-1] for b in banks)
+        filters = np.concatenate([_padded(b, longest) for b in banks])
         if not len(filters):
             filters = np.zeros((1, 2, 1), dtype=np.float64)
             weights = [np.zeros(1)]

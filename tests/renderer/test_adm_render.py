@@ -401,3 +401,25 @@ def test_an_excerpt_of_a_master_renders_that_part_of_it(tmp_path):
         part[settle:end], whole[FS + settle : FS + end], atol=1e-4 * np.abs(whole).max()
     )
     assert report["adm"]["objects_rendered"][0]["moves_s"][0] == 1.0  # in the file's time
+
+
+def test_a_diffuse_share_longer_than_the_sets_pairs_is_rendered_whole(tmp_path):
+    # The diffuse channel's response (20 ms) may outlast a set's short pairs: the output
+    # holds all of it (input frames + the longest response - 1).
+    s = _noise(0.3, seed=2)
+    master = _master(
+        tmp_path / "m.wav",
+        s[:, None],
+        [object_block("AC_00031001", 1, az=0.0, extra="<diffuse>1</diffuse>")],
+        bed=False,
+    )
+    plan = plan_render([str(master)], RenderSettings(hrtf="rigid-sphere", eq="none"))
+    assert plan.objects is not None and plan.objects.array_filters is not None
+    longest = plan.objects.array_filters.shape[-1]
+    assert plan.length >= longest
+    render(
+        [str(master)], tmp_path / "a.wav", RenderSettings(hrtf="rigid-sphere", eq="none", **FLAT)
+    )
+    y = read_audio(tmp_path / "a.wav")[0]
+    assert len(y) == len(s) + plan.length - 1
+    assert np.abs(y[len(s) : len(s) + longest // 2]).max() > 0  # the response rings on
