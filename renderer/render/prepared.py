@@ -78,11 +78,14 @@ def room_part(
     cache: FilterCache | None,
     warnings: list[str],
     notes: list[str],
+    without_direct: tuple[int, ...] = (),
 ) -> tuple[RoomFilters | None, dict[str, Any] | None]:
     """The synthetic room's filters for ``layout`` and the report's room section.
 
     A set that holds room responses already is rendered as measured (a warning when a
     synthetic room was asked for); the room's own warnings and notes join the plan's.
+    ``without_direct``: rows holding their reflections only (see
+    :func:`~earfold.renderer.room.build_room_filters`).
     """
     if room is not None and is_measured_room(hset):
         warnings.append(
@@ -98,7 +101,7 @@ def room_part(
         }
     if room is not None and layout is not None:
         filters, prepared = _prepared_room(
-            hset, layout, room, samplerate, settings.seed, set_key, cache
+            hset, layout, room, samplerate, settings.seed, set_key, cache, without_direct
         )
         warnings.extend(f"room: {w}" for w in filters.report.get("warnings", []))
         notes.extend(f"room: {n}" for n in filters.report.get("notes", []))
@@ -305,20 +308,22 @@ def _prepared_room(
     seed: int,
     set_key: dict[str, Any] | None,
     cache: FilterCache | None,
+    without_direct: tuple[int, ...] = (),
 ) -> tuple[RoomFilters, str]:
     """The room's filters (:func:`_room_filters`), from the cache when it holds them.
 
     Keyed by the prepared set's key, the layout's loudspeakers, every parameter of the
-    room, the seed and the rate.
+    room, the seed, the rate and the rows without their direct sound.
     """
     if cache is None or set_key is None:
-        return _room_filters(hset, layout, room, samplerate, seed), UNCACHED
+        return _room_filters(hset, layout, room, samplerate, seed, without_direct), UNCACHED
     key = {
         "set": set_key,
         "layout": layout_key(layout),
         "room": dataclasses.asdict(room),
         "seed": int(seed),
         "samplerate": float(samplerate),
+        **({"without_direct": list(without_direct)} if without_direct else {}),
     }
     channels = layout.channels
 
@@ -355,7 +360,7 @@ def _prepared_room(
             samplerate=meta["samplerate"],
         )
         return filters, REUSED
-    filters = _room_filters(hset, layout, room, samplerate, seed)
+    filters = _room_filters(hset, layout, room, samplerate, seed, without_direct)
     cache.put(
         "room",
         key,
@@ -370,7 +375,12 @@ def _prepared_room(
 
 
 def _room_filters(
-    hset: HrirSet, layout: Layout, room: Room, samplerate: float, seed: int
+    hset: HrirSet,
+    layout: Layout,
+    room: Room,
+    samplerate: float,
+    seed: int,
+    without_direct: tuple[int, ...] = (),
 ) -> RoomFilters:
     """The room's filters per loudspeaker channel of ``layout``, in the layout's order.
 
@@ -378,10 +388,14 @@ def _room_filters(
     is modelled as one loudspeaker per direction, and their early responses are summed at
     the channel's spread gain. Its share of the shared diffuse tail adds by power (the
     loudspeakers' tails are uncorrelated in a real room), so the spread channel excites
-    the tail as much as one loudspeaker would.
+    the tail as much as one loudspeaker would. ``without_direct``: rows that hold their
+    reflections only (:func:`~earfold.renderer.room.build_room_filters`; layouts without
+    spread channels).
     """
-    if not any(s.spread for s in layout.speakers):
-        return build_room_filters(hset, layout, room, samplerate, seed=seed)
+    if without_direct or not any(s.spread for s in layout.speakers):
+        return build_room_filters(
+            hset, layout, room, samplerate, seed=seed, without_direct=without_direct
+        )
     expanded: list[Speaker] = []
     mix: list[list[tuple[int, float]]] = []
     for s in layout.speakers:

@@ -51,6 +51,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -179,6 +180,7 @@ def build_room_filters(
     order: int | None = None,
     crossfade_s: float = DEFAULT_CROSSFADE_S,
     max_tail_seconds: float | None = None,
+    without_direct: Sequence[int] = (),
 ) -> RoomFilters:
     """Early filters per loudspeaker and the shared tail for a layout in a room.
 
@@ -201,6 +203,10 @@ def build_room_filters(
         Early-to-tail crossfade (s).
     max_tail_seconds : float, optional
         Cap on the tail's length (s).
+    without_direct : sequence of int, optional
+        Rows whose early filters hold the reflections only: their direct sound is
+        rendered elsewhere (an ADM object's own HRIR pairs); the report's figures (DRR)
+        are those of the whole response all the same.
 
     Raises
     ------
@@ -266,6 +272,7 @@ def build_room_filters(
                 )
         return filter_cache[key]
 
+    reflections_only = {int(i) for i in without_direct}
     early = np.zeros((len(speakers), 2, early_len))
     direct_energy = np.zeros(len(speakers))
     reflected_energy = np.zeros(len(speakers))
@@ -309,7 +316,7 @@ def build_room_filters(
         uncovered_total += uncovered
         direct = np.fft.irfft(direct_spec, n=nfft, axis=-1)[:, :early_len]
         reflected = np.fft.irfft(reflected_spec, n=nfft, axis=-1)[:, :early_len] * fade_window
-        early[i] = direct + reflected
+        early[i] = reflected if i in reflections_only else direct + reflected
         direct_energy[i] = float(np.sum(direct**2))
         reflected_energy[i] = float(np.sum(reflected**2))
         used = sum(len(m) for key, m in groups.items() if key[0] != "direct")

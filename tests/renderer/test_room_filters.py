@@ -288,3 +288,20 @@ def test_paths_outside_the_grid_are_a_note_near_it_and_a_warning_far_from_it():
     assert any("early path(s) arrive from directions" in n for n in near.report["notes"])
     flat = build_room_filters(omni([0.0]), _one(1.5), room, FS, max_tail_seconds=0.1)
     assert any("early path(s) arrive from directions" in w for w in flat.report["warnings"])
+
+
+def test_rows_without_their_direct_sound_hold_the_reflections_alone():
+    # The image-source model's order 0 is the direct path alone (Allen and Berkley 1979):
+    # a row built without its direct sound is the whole row less the order-0 build's.
+    room = _uniform_room()
+    layout = get_layout("5.0")
+    whole = build_room_filters(_omni_set(), layout, room, FS, max_tail_seconds=0.1)
+    apart = build_room_filters(
+        _omni_set(), layout, room, FS, max_tail_seconds=0.1, without_direct=(0, 2)
+    )
+    direct = build_room_filters(_omni_set(), layout, room, FS, max_tail_seconds=0.1, order=0)
+    assert_allclose(apart.early[[1, 3, 4]], whole.early[[1, 3, 4]], atol=1e-15)
+    assert_allclose(apart.early[[0, 2]] + direct.early[[0, 2]], whole.early[[0, 2]], atol=1e-12)
+    assert np.abs(direct.early[0]).max() > 0.1  # a direct sound was there to leave out
+    assert_allclose(apart.tail, whole.tail)
+    assert apart.report["speakers"] == whole.report["speakers"]  # DRR of the whole row
