@@ -25,7 +25,7 @@ direction only): the report says so when an object's distance changes.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -39,6 +39,8 @@ from ..objects import AdmMaster, ObjectChannel, object_positions, object_spread
 __all__ = [
     "UPDATE_SECONDS",
     "AdmTracks",
+    "ObjectGains",
+    "ObjectMix",
     "TrackSpan",
     "adm_layout",
     "object_path",
@@ -73,38 +75,110 @@ class TrackSpan:
 
 
 @dataclass(frozen=True, eq=False)
+class ObjectMix:
+    """Objects mixed into some of the bus's channels with gains that follow their paths
+    (a :class:`~earfold.renderer.engine.PanningMixer` with :class:`ObjectGains`).
+
+    Attributes
+    ----------
+    channels : tuple of int
+        The objects' file channels (0-based), in the order of ``paths``.
+    paths : tuple of SourcePath
+        Their paths, with their spreads (width, height, depth, diffuse).
+    first : int
+        The bus column of the mix's first channel.
+    array : ndarray, shape (M, 3) or None
+        The VBAP array the objects are panned onto (scaled by their direct share
+        ``sqrt(1 - d)``); None: none, the diffuse channel only.
+    diffuse : bool
+        Whether one more channel follows: the objects' diffuse share ``sqrt(d)``.
+    tail : bool
+        Whether one more channel follows that: the room's tail fed by each object at its
+        whole level (gain 1), as a loudspeaker feeds it, however the object is panned.
+    """
+
+    channels: tuple[int, ...]
+    paths: tuple[SourcePath, ...]
+    first: int
+    array: NDArray[np.float64] | None
+    diffuse: bool
+    tail: bool = False
+
+    @property
+    def width(self) -> int:
+        """Bus channels the mix writes: the array's directions, diffuse and tail channels."""
+        return (0 if self.array is None else len(self.array)) + int(self.diffuse) + int(self.tail)
+
+    def gains(self) -> ObjectGains:
+        """The gain function of the mix's mixer."""
+        from ..layouts import SpreadPanner, VbapPanner
+
+        panner = None if self.array is None else SpreadPanner(VbapPanner(self.array))
+        return ObjectGains(panner, self.diffuse, self.tail)
+
+
+class ObjectGains:
+    """Gains of objects with spreads (the :class:`~earfold.renderer.engine.SpreadGains`
+    protocol): the spread panner's unit-power gains times the direct share
+    ``sqrt(1 - d)``, then, with ``diffuse``, the diffuse share ``sqrt(d)``, then, with
+    ``tail``, 1 (the room's tail channel).
+
+    Why a tail channel of its own: the room's shared tail is one filter fed by a weighted
+    sum of channels, so an object panned with gains ``g`` onto rows that each fed the tail
+    would feed it ``sum(g)`` (up to about 1.7 for three VBAP gains of unit power), louder
+    than a loudspeaker; through its own channel it feeds it as one loudspeaker does.
+    """
+
+    def __init__(self, panner: Any, diffuse: bool, tail: bool = False) -> None:
+        if panner is None and not diffuse and not tail:
+            raise ValueError("object gains need an array, a diffuse or a tail channel")
+        self.panner = panner
+        self.diffuse = bool(diffuse)
+        self.tail = bool(tail)
+
+    def spread_gains(self, vectors: NDArray[np.float64], spread: NDArray[np.float64]) -> Any:
+        """Gains ``(n, width)`` of unit vectors ``(n, 3)`` with spreads ``(n, 4)``."""
+        from ..layouts import diffuse_split
+
+        direct, diffuse = diffuse_split(spread[:, 3])
+        parts = []
+        if self.panner is not None:
+            g = self.panner.gains(vectors, spread[:, 0], spread[:, 1])
+            parts.append(g * direct[:, None])
+        if self.diffuse:
+            parts.append(diffuse[:, None])
+        if self.tail:
+            parts.append(np.ones((len(vectors), 1)))
+        return np.column_stack(parts)
+
+
+@dataclass(frozen=True, eq=False)
 class AdmTracks:
     """The time-varying part of an ADM plan: objects and their paths, and track spans.
 
     Attributes
     ----------
     channels : tuple of int
-        File channels (0-based) of the objects followed with per-object HRIR pairs (the
+        File channels (0-based) of the objects followed with their own HRIR pairs (the
         moving-source engine), in the order of ``paths``.
     paths : tuple of SourcePath
         Each of those objects' directions and gains over the stream's frames (the gains
         of their direct shares).
     gain : float
         The plan's calibration gain, applied to the moving engine's output.
-    report : tuple of dict
-        Each object's entry in the report (name, track, time span, motion).
     length : int
-        Length of the moving engine's whole response (its pairs and the set's EQ).
-    panned_channels, panned_paths
-        The objects panned onto the virtual array instead (in a room, or with a width or
-        height), and their paths (with their spreads).
-    array : ndarray, shape (M, 3) or None
-        The array's unit vectors (VBAP's loudspeakers).
-    array_filters : ndarray, shape (M + D, 2, L) or None
-        The calibrated filters of the array's directions (through the HRIRs, or in the
-        room), then with ``diffuse`` (``D = 1``) those of the diffuse shares' channel.
-    array_tail_weights : ndarray, shape (M + D,) or None
+        Length of the objects' whole response: the moving engine's (its pairs and the
+        set's EQ, after ``moving_delay``) or the bus's filters, the longer.
+    moving_delay : int
+        Frames the moving engine's output is delayed by (in a room: to the room's direct
+        arrival, where the beds' direct sound is).
+    mixes : tuple of ObjectMix
+        The mixers that feed the bus from object tracks.
+    bus_filters : ndarray, shape (B, 2, L) or None
+        The calibrated filters of the bus's channels (spread array through the HRIRs,
+        the room's reflection array, the diffuse channel), joined to the fixed bank.
+    bus_tail_weights : ndarray, shape (B,) or None
         Their shares of the plan's shared tail.
-    diffuse : bool
-        Whether the last row of ``array_filters`` is the diffuse shares' channel.
-    diffuse_channels, diffuse_paths
-        Objects followed with their own pairs whose diffuse share (their paths' spread)
-        goes to the diffuse channel.
     spans : tuple of TrackSpan
         Bed and HOA tracks that play only part of the time.
     """
@@ -112,16 +186,11 @@ class AdmTracks:
     channels: tuple[int, ...]
     paths: tuple[SourcePath, ...]
     gain: float
-    report: tuple[dict[str, Any], ...] = field(default_factory=tuple)
     length: int = 1
-    panned_channels: tuple[int, ...] = ()
-    panned_paths: tuple[SourcePath, ...] = ()
-    array: NDArray[np.float64] | None = None
-    array_filters: NDArray[np.float64] | None = None
-    array_tail_weights: NDArray[np.float64] | None = None
-    diffuse: bool = False
-    diffuse_channels: tuple[int, ...] = ()
-    diffuse_paths: tuple[SourcePath, ...] = ()
+    moving_delay: int = 0
+    mixes: tuple[ObjectMix, ...] = ()
+    bus_filters: NDArray[np.float64] | None = None
+    bus_tail_weights: NDArray[np.float64] | None = None
     spans: tuple[TrackSpan, ...] = ()
 
 

@@ -7,14 +7,22 @@ filters:
   does), HOA tracks the scene decoder's filters, and objects are followed along their
   paths by the moving-source engine with per-object HRIR pairs.
 * **In a room.** One room build holds every row the master needs: the bed loudspeakers
-  (at the room's loudspeaker radius, as a channel render places them), a dense virtual
-  loudspeaker array that every object is panned onto (VBAP, V. Pulkki, *J. Audio Eng.
-  Soc.* 45(6), 1997; the array is the antipodal spherical design of
-  :data:`ARRAY_ORDER`, :func:`~earfold.renderer.scenes.virtual_layout`, at one distance,
-  :func:`~earfold.renderer.render.scene_feeds.virtual_distance`), and each HOA order's
-  virtual loudspeakers (decoded as a scene in a room is). All rows share the room's one
-  diffuse tail, and the room's cost is that of its rows: it does not grow with the number
-  of objects, only the panning does (a few gains per object and update).
+  (at the room's loudspeaker radius, as a channel render places them), a virtual
+  loudspeaker array for the objects' reflections (the antipodal spherical design of
+  :data:`ROOM_ARRAY_ORDER`, :func:`~earfold.renderer.scenes.virtual_layout`, each direction
+  at the beds' radius where the room leaves space) whose rows hold the reflections only
+  (:func:`~earfold.renderer.room.build_room_filters` ``without_direct``), and each HOA
+  order's virtual loudspeakers (decoded as a scene in a room is). An object's direct sound
+  is its own, as free field (delayed to the room's direct arrival); its reflections come
+  from panning it by VBAP (V. Pulkki, *J. Audio Eng. Soc.* 45(6), 1997) onto the array.
+  All rows share the room's one diffuse tail, and the room's cost is that of its rows: it
+  does not grow with the number of objects, only the panning does (a few gains per object
+  and update).
+* **Extent.** An object with a width or height is spread over the virtual array of
+  :data:`ARRAY_ORDER` (50 directions) through the set's HRIRs (multiple-direction VBAP,
+  :class:`~earfold.renderer.layouts.SpreadPanner`) instead of one pair, in a room too.
+* **Diffuse.** An object's diffuse share goes to one more row: a decorrelating response
+  with the set's diffuse-field spectrum and coherence, plus the room's tail in a room.
 
 One calibration gain serves the whole master (:mod:`.adm_feeds`): that of the bed's
 loudspeakers, or without a bed of ITU-R BS.2051's 0+5+0, computed on the same rows as the
@@ -37,19 +45,24 @@ from ..io import StemInfo
 from ..layouts import Layout, Speaker, get_layout
 from ..objects import AdmMaster
 from ..room import RoomFilters, exact_brirs, get_room
-from .adm_feeds import AdmTracks, TrackSpan, adm_layout, object_path
+from .adm_feeds import AdmTracks, ObjectMix, TrackSpan, adm_layout, object_path
 from .bank import RenderPlan, calibrated_gain
 from .feeds import ChannelFeed, speaker_feeds
 from .filter_cache import default_filter_cache
 from .options import ROOM_MODES, SCENE_OPTIONS, RenderSettings
 from .prepared import is_measured_room, keep_lookups, prepared_set, room_part, take_lookups
 
-__all__ = ["ARRAY_ORDER", "plan_adm"]
+__all__ = ["ARRAY_ORDER", "ROOM_ARRAY_ORDER", "plan_adm"]
 
 #: Order of the spherical design whose directions make the virtual array objects are
 #: panned onto in a room: 50 directions (an antipodal 9-design), about 30 degrees apart,
 #: so VBAP's phantom sources span small triangles while the room's rows stay few.
 ARRAY_ORDER = 4
+
+#: Order of the spherical design whose directions carry the objects' reflections in a
+#: room: 20 directions (an antipodal 5-design). The reflections of a source between them
+#: are a VBAP mix of theirs; the rows are long (the room's early part), so they are few.
+ROOM_ARRAY_ORDER = 2
 
 
 def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> RenderPlan:
@@ -109,51 +122,52 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
                 "version (a direction only)"
             )
     spreads = [np.zeros((1, 4)) if p.spread is None else p.spread for p in paths]
-    panned = [k for k, sp in enumerate(spreads) if in_room or bool(np.any(sp[:, :2] > 0))]
-    followed = [k for k in range(len(paths)) if k not in panned]
+    spread_out = [k for k, sp in enumerate(spreads) if bool(np.any(sp[:, :2] > 0))]
+    followed = [k for k in range(len(paths)) if k not in spread_out]
     has_diffuse = any(bool(np.any(sp[:, 3] > 0)) for sp in spreads)
 
-    # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), the
-    # virtual array when objects are panned, and in a room each HOA order's virtual
-    # loudspeakers.
+    # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), and in
+    # a room the objects' reflection array and each HOA order's virtual loudspeakers.
     if master.beds:
         reference = tuple(layout.speakers[bed.track] for bed in master.beds)
     else:
         reference = get_layout("5.0").speakers
     rows = list(reference)
     virtual_at: dict[int, int] = {}  # first row of each HOA order; -1: the objects' array
-    groups: list[tuple[str, int, NDArray[np.float64], list[float | None]]] = []
     if in_room:
         from .scene_feeds import virtual_distance
 
-        # The objects' array: each direction at the beds' radius where the room leaves
+        # The reflection array: each direction at the beds' radius where the room leaves
         # space, nearer where a surface is closer (towards the floor; its level is evened
         # out below). Each HOA order's virtual loudspeakers: at one distance, as a scene's.
-        if panned:
-            directions = virtual_layout(ARRAY_ORDER)
+        groups: list[tuple[str, int, NDArray[np.float64], list[float]]] = []
+        if master.objects:
+            directions = virtual_layout(ROOM_ARRAY_ORDER)
             reach = [virtual_distance(room, v[None, :]) for v in directions]  # type: ignore[arg-type]
-            groups.append(("A", -1, directions, list(reach)))
+            groups.append(("R", -1, directions, list(reach)))
         for order in sorted({pack.order for pack in master.hoa}):
             directions = virtual_layout(order)
             distance = virtual_distance(room, directions)  # type: ignore[arg-type]
             groups.append((f"H{order}.", order, directions, [distance] * len(directions)))
-    elif panned:
-        directions = virtual_layout(ARRAY_ORDER)
-        groups.append(("A", -1, directions, [None] * len(directions)))
-    for prefix, order, directions, distances in groups:
-        virtual_at[order] = len(rows)
-        az, el = vector_to_direction(directions)
-        rows.extend(
-            Speaker(f"{prefix}{i + 1}", round(float(a), 6), round(float(e), 6), d)
-            for i, (a, e, d) in enumerate(
-                zip(np.atleast_1d(az), np.atleast_1d(el), distances, strict=True)
+        for prefix, order, directions, distances in groups:
+            virtual_at[order] = len(rows)
+            az, el = vector_to_direction(directions)
+            rows.extend(
+                Speaker(f"{prefix}{i + 1}", round(float(a), 6), round(float(e), 6), d)
+                for i, (a, e, d) in enumerate(
+                    zip(np.atleast_1d(az), np.atleast_1d(el), distances, strict=True)
+                )
             )
-        )
+    reflections = (
+        tuple(range(virtual_at[-1], virtual_at[-1] + len(virtual_layout(ROOM_ARRAY_ORDER))))
+        if -1 in virtual_at
+        else ()
+    )
     rows_layout = Layout(
         "ADM rows",
         tuple(rows),
         "the master's bed loudspeakers (or ITU-R BS.2051 0+5+0 for calibration)"
-        + (", the objects' virtual array" if panned else "")
+        + (", the objects' reflection array" if reflections else "")
         + (", the HOA packs' virtual loudspeakers" if in_room and master.hoa else ""),
         "ITU-R BS.2076 metadata of the file",
     )
@@ -167,6 +181,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         cache,
         warnings,
         notes,
+        without_direct=reflections,
     )
     take_lookups(hset, set_key, cache)
     exact = room_filters is not None and settings.room_mode == "exact"
@@ -206,8 +221,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         # d / R, so that every direction of the array plays at the level of a loudspeaker
         # at the beds' radius (an object must not jump in level as it pans).
         radius = float(room.speaker_radius)
-        first = virtual_at.get(-1, len(rows))
-        for i in range(first, first + len(virtual_layout(ARRAY_ORDER)) if -1 in virtual_at else 0):
+        for i in reflections:
             near = rows[i].distance
             if near and near < radius:
                 row_filters[i] *= near / radius
@@ -271,56 +285,34 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
 
     objects = None
     if master.objects or spans:
-        bus: list[NDArray[np.float64]] = []
-        bus_tail: list[float] = []
-        array = None
-        if panned:
-            at = virtual_at[-1]
-            array = np.asarray(virtual_layout(ARRAY_ORDER), dtype=np.float64)
-            bus.extend(row_filters[at : at + len(array)])
-            bus_tail.extend(row_tail[at : at + len(array)])
-        if has_diffuse:
-            row, weight = _diffuse_row(hset, rate, settings.seed, room_filters, row_tail, rows)
-            bus.append(row)
-            bus_tail.append(weight)
-            notes.append(
-                "ADM: diffuse shares (BS.2076 diffuse) go through a short decorrelating "
-                "response with the set's diffuse-field spectrum and interaural coherence"
-                + (", and feed the room's tail" if tail is not None else "")
-            )
-        bus_filters = None
-        if bus:
-            width = max(b.shape[-1] for b in bus)
-            bus_filters = np.zeros((len(bus), 2, width))
-            for i, b in enumerate(bus):
-                bus_filters[i, :, : b.shape[-1]] = b
-            bus_filters *= gain
-        direct = [_direct_part(paths[k]) for k in followed]
-        objects = AdmTracks(
-            channels=tuple(master.objects[k].track for k in followed),
-            paths=tuple(direct),
-            gain=gain,
-            report=tuple(entries),
-            length=max(
-                _moving_length(hset, direct, gain) if direct else 1,
-                1 if bus_filters is None else int(bus_filters.shape[-1]),
-            ),
-            panned_channels=tuple(master.objects[k].track for k in panned),
-            panned_paths=tuple(paths[k] for k in panned),
-            array=array,
-            array_filters=bus_filters,
-            array_tail_weights=None if tail is None else np.asarray(bus_tail, dtype=np.float64),
-            diffuse=has_diffuse,
-            diffuse_channels=tuple(
-                master.objects[k].track for k in followed if np.any(spreads[k][:, 3] > 0)
-            ),
-            diffuse_paths=tuple(paths[k] for k in followed if np.any(spreads[k][:, 3] > 0)),
-            spans=spans,
+        arrival = 0 if room_filters is None else _arrival(room_filters)
+        objects = _object_tracks(
+            master,
+            paths,
+            spreads,
+            spread_out,
+            followed,
+            has_diffuse,
+            hset,
+            rate,
+            settings,
+            room_filters,
+            row_filters,
+            row_tail,
+            rows,
+            reflections,
+            arrival,
+            gain,
+            spans,
+            notes,
         )
-        for k in panned:
-            entries[k]["rendered"] = "panned onto the virtual array"
+        for k in spread_out:
+            entries[k]["rendered"] = "spread over the virtual array"
         for k in followed:
             entries[k]["rendered"] = "own HRIR pairs along its path"
+        if reflections:
+            for entry in entries:
+                entry["rendered"] += "; reflections from the room's virtual array"
     used = set(fixed) | {obj.track for obj in master.objects}
     unused = [t + 1 for t in range(stem.channels) if t not in used]
     if unused:
@@ -354,22 +346,25 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         "objects_method": (
             None
             if not master.objects
-            else "in the room: panned by VBAP (Pulkki 1997) onto a virtual array of "
-            f"{len(virtual_layout(ARRAY_ORDER))} directions rendered in the room"
-            if in_room
-            else "followed along their paths with per-object HRIR pairs, updated every "
-            "10 ms or less and crossfaded; objects with a width or height spread over "
-            f"them and panned onto a virtual array of {len(virtual_layout(ARRAY_ORDER))} "
-            "directions (multiple-direction VBAP)"
+            else "followed along their paths with per-object HRIR pairs, updated every 10 ms "
+            "or less and crossfaded; objects with a width or height spread over a virtual "
+            f"array of {len(virtual_layout(ARRAY_ORDER))} directions (multiple-direction "
+            "VBAP)"
+            + (
+                f"; in the room their reflections come from a virtual array of "
+                f"{len(reflections)} directions they are panned onto by VBAP (Pulkki 1997)"
+                if reflections
+                else ""
+            )
         ),
         "time_spans": [span.to_dict() for span in spans],
     }
     if room_report is not None and in_room:
         room_report = {
             **room_report,
-            "virtual_array": f"{len(virtual_layout(ARRAY_ORDER))} directions (antipodal "
-            f"spherical {2 * ARRAY_ORDER + 1}-design) for the objects"
-            if panned
+            "virtual_array": f"{len(reflections)} directions (antipodal spherical "
+            f"{2 * ROOM_ARRAY_ORDER + 1}-design) carrying the objects' reflections"
+            if reflections
             else None,
         }
     plan = RenderPlan(
@@ -494,29 +489,157 @@ def _direct_part(path: SourcePath) -> SourcePath:
     return SourcePath(path.frames, path.vectors, path.gains * direct, spread=path.spread)
 
 
-def _diffuse_row(
+def _arrival(room_filters: RoomFilters) -> int:
+    """The room's direct arrival at the beds' radius, in whole frames from its time zero:
+    where an object's own direct sound goes in a room."""
+    return int(round(float(room_filters.report["reference_arrival_samples"])))
+
+
+def _object_tracks(
+    master: AdmMaster,
+    paths: list[SourcePath],
+    spreads: list[NDArray[np.float64]],
+    spread_out: list[int],
+    followed: list[int],
+    has_diffuse: bool,
     hset: Any,
     rate: float,
-    seed: int,
+    settings: RenderSettings,
     room_filters: RoomFilters | None,
+    row_filters: NDArray[np.float64],
     row_tail: NDArray[np.float64],
     rows: list[Speaker],
-) -> tuple[NDArray[np.float64], float]:
-    """The filters of the diffuse shares' channel, and its share of the room's tail.
+    reflections: tuple[int, ...],
+    arrival: int,
+    gain: float,
+    spans: tuple[TrackSpan, ...],
+    notes: list[str],
+) -> AdmTracks:
+    """The objects' part of the plan: the moving engine's paths (their direct shares), and
+    the bus the mixers feed: the spread array's rows (HRIR pairs, delayed to the room's
+    direct arrival), the reflection array's rows, the diffuse row; each mixer's sources
+    and columns."""
+    from ..scenes import virtual_layout
+
+    bus: list[NDArray[np.float64]] = []
+    bus_tail: list[float] = []
+    mixes: list[ObjectMix] = []
+    tracks = [obj.track for obj in master.objects]
+    room_tail = room_filters is not None and settings.room_mode != "exact"
+    if spread_out:
+        array = np.asarray(virtual_layout(ARRAY_ORDER), dtype=np.float64)
+        az, el = vector_to_direction(array)
+        spread_layout = Layout(
+            "ADM spread array",
+            tuple(
+                Speaker(f"A{i + 1}", float(a), float(e))
+                for i, (a, e) in enumerate(zip(np.atleast_1d(az), np.atleast_1d(el)))
+            ),
+            "the virtual array objects with an extent are spread over",
+            "earfold.renderer.scenes.virtual_layout",
+        )
+        pairs = speaker_feeds(spread_layout, tuple(range(len(array))), hset, rate, lfe=settings.lfe)
+        for feed in pairs:
+            row = np.zeros((2, arrival + feed.filters.shape[-1]))
+            row[:, arrival:] = feed.filters
+            bus.append(row)
+            bus_tail.append(0.0)
+        in_free_field = not reflections
+        mixes.append(
+            ObjectMix(
+                channels=tuple(tracks[k] for k in spread_out),
+                paths=tuple(paths[k] for k in spread_out),
+                first=0,
+                array=array,
+                diffuse=has_diffuse and in_free_field,
+            )
+        )
+    if reflections:
+        first = len(bus)
+        bus.extend(row_filters[list(reflections)])
+        bus_tail.extend(0.0 for _ in reflections)  # the tail has a channel of its own
+        mixes.append(
+            ObjectMix(
+                channels=tuple(tracks),
+                paths=tuple(paths),
+                first=first,
+                array=np.asarray(virtual_layout(ROOM_ARRAY_ORDER), dtype=np.float64),
+                diffuse=has_diffuse,
+                tail=room_tail,
+            )
+        )
+    if has_diffuse:
+        diffuse_col = len(bus)
+        bus.append(_diffuse_row(hset, rate, settings.seed, room_filters))
+        bus_tail.append(0.0)
+        notes.append(
+            "ADM: diffuse shares (BS.2076 diffuse) go through a short decorrelating response "
+            "with the set's diffuse-field spectrum and interaural coherence"
+            + (", and feed the room's tail" if room_filters is not None else "")
+        )
+        # Objects whose diffuse share no mixer above carries: those followed with their
+        # own pairs, free field.
+        alone = [k for k in followed if not reflections and bool(np.any(spreads[k][:, 3] > 0))]
+        if alone:
+            mixes.append(
+                ObjectMix(
+                    channels=tuple(tracks[k] for k in alone),
+                    paths=tuple(paths[k] for k in alone),
+                    first=diffuse_col,
+                    array=None,
+                    diffuse=True,
+                )
+            )
+    if reflections and room_tail:
+        # The objects' tail channel (after the reflection array's rows and the diffuse
+        # row, the reflection mix's last column): no filter of its own, the tail's share
+        # of a loudspeaker at the beds' radius.
+        mains = [i for i, speaker in enumerate(rows) if not speaker.lfe]
+        bus.append(np.zeros((2, 1)))
+        bus_tail.append(float(np.max(row_tail[mains])) if mains else 0.0)
+    bus_filters = None
+    if bus:
+        width = max(b.shape[-1] for b in bus)
+        bus_filters = np.zeros((len(bus), 2, width))
+        for i, b in enumerate(bus):
+            bus_filters[i, :, : b.shape[-1]] = b
+        bus_filters *= gain
+    direct = [_direct_part(paths[k]) for k in followed]
+    moving = _moving_length(hset, direct, gain) if direct else 1
+    return AdmTracks(
+        channels=tuple(tracks[k] for k in followed),
+        paths=tuple(direct),
+        gain=gain,
+        length=max(arrival + moving, 1 if bus_filters is None else int(bus_filters.shape[-1])),
+        moving_delay=arrival,
+        mixes=tuple(mixes),
+        bus_filters=bus_filters,
+        bus_tail_weights=(
+            None
+            if room_filters is None or bus_filters is None
+            else np.asarray(bus_tail, dtype=np.float64)
+        ),
+        spans=spans,
+    )
+
+
+def _diffuse_row(
+    hset: Any, rate: float, seed: int, room_filters: RoomFilters | None
+) -> NDArray[np.float64]:
+    """The filters of the diffuse shares' channel.
 
     A short decorrelating response with the set's diffuse-field spectrum and interaural
     coherence at the mean energy of its pairs
     (:func:`~earfold.renderer.room.diffuse_response`), so a diffuse share is as loud as a
     direct one; in a room it starts with the rows' direct sound (the room's reference
-    arrival) and feeds the tail as much as a loudspeaker at the beds' radius does.
+    arrival), and the object's tail channel feeds the room's tail.
     """
     from ..room import diffuse_response
 
     response = diffuse_response(hset, rate, seed=seed)
     if room_filters is None:
-        return response, 0.0
-    onset = int(round(float(room_filters.report["reference_arrival_samples"])))
+        return np.asarray(response, dtype=np.float64)
+    onset = _arrival(room_filters)
     row = np.zeros((2, onset + response.shape[-1]))
     row[:, onset:] = response
-    mains = [i for i, s in enumerate(rows) if not s.lfe]
-    return row, float(np.max(row_tail[mains])) if mains else 0.0
+    return row

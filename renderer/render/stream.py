@@ -37,12 +37,13 @@ def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine | ObjectsEngine:
 
 
 class ObjectsEngine:
-    """An ADM master's engine (:mod:`.adm_plan`): the fixed bank on its bed and HOA tracks
-    (:class:`FoldEngine`, with the room's shared tail), objects either followed by the
-    moving-source engine (free field,
-    :func:`~earfold.renderer.render.moving_sources.moving_source_engine`) or panned by a
-    :class:`~earfold.renderer.engine.PanningMixer` onto the virtual array, whose channels
-    join the fixed bank (in a room); the two outputs summed frame for frame.
+    """An ADM master's engine (:mod:`.adm_plan`): the fixed bank (:class:`FoldEngine`, with
+    the room's shared tail) on the bed and HOA tracks and on the bus the objects' mixers
+    feed (:class:`~earfold.renderer.engine.PanningMixer`: the spread array, the room's
+    reflection array, the diffuse channel), and the moving-source engine on the objects
+    followed with their own pairs
+    (:func:`~earfold.renderer.render.moving_sources.moving_source_engine`), its output
+    delayed to the room's direct arrival and summed frame for frame.
 
     The fixed engine hands back whole hops (possibly fewer frames than it was given), the
     moving engine every frame: the moving output waits until the fixed output of the same
@@ -54,9 +55,8 @@ class ObjectsEngine:
     def __init__(self, plan: RenderPlan, block_size: int) -> None:
         objects, hset = plan.objects, plan.hrir_set
         assert objects is not None and hset is not None
-        taken = set(objects.channels) | set(objects.panned_channels)
         self.object_channels = list(objects.channels)
-        self.panned_channels = list(objects.panned_channels)
+        taken = set(objects.channels) | {c for mix in objects.mixes for c in mix.channels}
         self.fixed_channels = [c for c in range(plan.stem.channels) if c not in taken]
         banks = [plan.filters[self.fixed_channels]]
         weights = [
@@ -64,25 +64,19 @@ class ObjectsEngine:
             if plan.tail_weights is None
             else plan.tail_weights[self.fixed_channels]
         ]
-        self.mixer: PanningMixer | None = None
-        self.diffuse_mixer: PanningMixer | None = None
-        self.diffuse_channels = list(objects.diffuse_channels)
         rate = plan.stem.samplerate
-        if objects.array_filters is not None:
-            from ..layouts import SpreadPanner, VbapPanner
-
-            if self.panned_channels:
-                assert objects.array is not None
-                panner = SpreadPanner(VbapPanner(objects.array), diffuse_channel=objects.diffuse)
-                self.mixer = PanningMixer(objects.panned_paths, panner, rate)
-            if self.diffuse_channels:
-                self.diffuse_mixer = PanningMixer(objects.diffuse_paths, _DiffuseShare(), rate)
-            self._bus = int(objects.array_filters.shape[0])
-            banks.append(objects.array_filters)
+        self.mixers = [
+            (list(mix.channels), mix.first, PanningMixer(mix.paths, mix.gains(), rate))
+            for mix in objects.mixes
+        ]
+        self._bus = 0
+        if objects.bus_filters is not None:
+            self._bus = int(objects.bus_filters.shape[0])
+            banks.append(objects.bus_filters)
             weights.append(
                 np.zeros(self._bus)
-                if objects.array_tail_weights is None
-                else objects.array_tail_weights
+                if objects.bus_tail_weights is None
+                else objects.bus_tail_weights
             )
         longest = max(b.shape[-1] for b in banks)
         filters = np.concatenate([_padded(b, longest) for b in banks])
@@ -108,7 +102,9 @@ class ObjectsEngine:
             if span.track in self.fixed_channels
         ]
         self._frame = 0
-        self._waiting: NDArray[np.float32] = np.zeros((0, 2), dtype=np.float32)
+        # The moving output waits for the fixed output of the same frames, after the
+        # delay that puts it at the room's direct arrival.
+        self._waiting: NDArray[np.float32] = np.zeros((objects.moving_delay, 2), np.float32)
 
     def _fixed_input(self, block: NDArray[Any]) -> NDArray[Any]:
         n = len(block)
@@ -122,14 +118,10 @@ class ObjectsEngine:
                     outside = (frames < start) | ((frames >= end) if end >= 0 else False)
                     fixed[outside, column] = 0.0
             parts.append(fixed)
-        if self.mixer is not None or self.diffuse_mixer is not None:
-            bus = (
-                np.zeros((n, self._bus), dtype=np.float32)
-                if self.mixer is None
-                else self.mixer.process(block[:, self.panned_channels])
-            )
-            if self.diffuse_mixer is not None:
-                bus[:, -1:] += self.diffuse_mixer.process(block[:, self.diffuse_channels])
+        if self._bus:
+            bus = np.zeros((n, self._bus), dtype=np.float32)
+            for channels, first, mixer in self.mixers:
+                bus[:, first : first + mixer.channels] += mixer.process(block[:, channels])
             parts.append(bus)
         self._frame += n
         if not parts:
@@ -176,28 +168,12 @@ class ObjectsEngine:
                 "transform_size": self.moving.transform_size,
                 "post_filter_length": self.moving.post_length,
             }
-        if self.mixer is not None:
-            out["panned_objects"] = {
-                "sources": self.mixer.sources,
-                "array_channels": self.mixer.channels,
-                "update_frames": self.mixer.hop,
-            }
-        if self.diffuse_mixer is not None:
-            out["diffuse_shares"] = {"sources": self.diffuse_mixer.sources}
+        if self.mixers:
+            out["object_mixes"] = [
+                {"sources": mixer.sources, "first": first, "channels": mixer.channels}
+                for _, first, mixer in self.mixers
+            ]
         return out
-
-
-class _DiffuseShare:
-    """Gains of objects followed with their own pairs into the diffuse channel alone: the
-    diffuse share ``sqrt(d)`` of each state (their direct share is the moving engine's)."""
-
-    def spread_gains(self, vectors: NDArray[Any], spread: NDArray[Any]) -> NDArray[Any]:
-        from ..layouts import diffuse_split
-
-        return diffuse_split(spread[:, 3])[1][:, None]
-
-    def __call__(self, vectors: NDArray[Any]) -> NDArray[Any]:
-        return np.zeros((len(vectors), 1))
 
 
 def _padded(bank: NDArray[Any], length: int) -> NDArray[Any]:
