@@ -137,17 +137,19 @@ class RiffWalk:
         """``n`` bytes from ``pos`` (:func:`read_exact` with this file's name and error)."""
         return read_exact(self.file, pos, n, self.name, what, self.error)
 
-    def body(self, chunk: RiffChunk, what: str) -> bytes:
-        """The body of ``chunk``; ``what`` names it in the message if the file is cut short."""
+    def body(self, chunk: RiffChunk, most: int, beyond: str) -> bytes:
+        """The body of ``chunk``, refused unread if it declares more than ``most`` bytes.
+
+        ``beyond`` ends the refusal's message, after "the <id> chunk declares N bytes".
+        """
+        what = f"{chunk.name.strip()} chunk"
+        if chunk.size > most:
+            raise self.error(f"{self.name!r}: the {what} declares {chunk.size} bytes{beyond}")
         return self.read(chunk.body_at, chunk.size, what)
 
     def format_body(self, chunk: RiffChunk) -> bytes:
         """The body of a ``fmt `` chunk, refused unread past :data:`_MAX_FMT` bytes."""
-        if chunk.size > _MAX_FMT:
-            raise self.error(
-                f"{self.name!r}: the fmt chunk declares {chunk.size} bytes (at most {_MAX_FMT})"
-            )
-        return self.body(chunk, "fmt chunk")
+        return self.body(chunk, _MAX_FMT, f" (at most {_MAX_FMT})")
 
     def _read_ds64(self) -> RiffChunk:
         pos = 12

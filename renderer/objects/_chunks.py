@@ -108,19 +108,9 @@ def _walk(f: BinaryIO, path: str, size: int, max_axml: int) -> WavChunks:
         if chunk.id == b"fmt ":
             fmt = walk.format_body(chunk)
         elif chunk.id == b"chna":
-            if chunk.size > _MAX_CHNA:
-                raise AdmError(
-                    f"{path!r}: the chna chunk declares {chunk.size} bytes, more than 65535 "
-                    f"entries need ({_MAX_CHNA})"
-                )
-            chna = walk.body(chunk, "chna chunk")
+            chna = walk.body(chunk, _MAX_CHNA, f", more than 65535 entries need ({_MAX_CHNA})")
         elif chunk.id == b"axml":
-            if chunk.size > max_axml:
-                raise AdmError(
-                    f"{path!r}: the axml chunk declares {chunk.size} bytes, more than the "
-                    f"{max_axml} this reader accepts"
-                )
-            axml = walk.body(chunk, "axml chunk")
+            axml = walk.body(chunk, max_axml, f", more than the {max_axml} this reader accepts")
         elif chunk.id == b"data":
             data = (chunk.body_at, chunk.size)
     if fmt is None:
