@@ -1,10 +1,14 @@
 """Audio in and out: probing stems, streaming reads, the output writer, WAV headers.
 
+WAV headers are walked by one chunk walker (:class:`RiffWalk`) for every reader of them:
+the channel mask here, the ADM reader's ``chna``/``axml`` in ``objects``.
+
 soundfile is imported in :mod:`._codec` and nowhere else in the renderer.
 """
 
 from __future__ import annotations
 
+from ._chunks import RiffChunk, RiffWalk, WaveFormat, parse_wave_format
 from ._levels import (
     LOW_SHARE_HZ,
     OVERVIEW_POINTS,
@@ -36,13 +40,17 @@ __all__ = [
     "ChannelLevels",
     "NonFiniteSample",
     "OutputWriter",
+    "RiffChunk",
+    "RiffWalk",
     "Rf64View",
     "StemInfo",
     "StemLevels",
     "StemReader",
+    "WaveFormat",
     "audio_formats",
     "audio_source",
     "measure_levels",
+    "parse_wave_format",
     "probe_stem",
     "read_audio",
     "read_channel_mask",

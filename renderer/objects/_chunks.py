@@ -1,14 +1,8 @@
-"""Walking the chunks of a RIFF/WAVE, RF64 (EBU Tech 3306) or BW64 (ITU-R BS.2088) file.
+"""The header of an ADM master: a RIFF/WAVE, RF64 (EBU Tech 3306) or BW64 (ITU-R BS.2088) file.
 
 The audio library reads the samples but does not expose ``chna`` or ``axml``, so the
-header is walked here with plain, bounded reads:
-
-- RIFF/WAVE: ``RIFF`` size ``WAVE``, then chunks of a 4-byte id and a 32-bit little-endian
-  size, each body padded to an even length (the pad byte is not counted in the size).
-- RF64 and BW64: the same, with ``RF64``/``BW64`` in place of ``RIFF`` and a ``ds64``
-  chunk first, holding the 64-bit RIFF size, ``data`` size and sample count and a table of
-  other 64-bit chunk sizes; a 32-bit size of 0xFFFFFFFF defers to it (EBU Tech 3306,
-  BS.2088 section 3).
+header is walked with plain, bounded reads by the renderer's one chunk walker
+(:class:`earfold.renderer.io.RiffWalk`, where the three layouts are described).
 
 Only ``fmt ``, ``chna`` and ``axml`` bodies are read (``chna`` up to the size its entry
 count needs, ``axml`` up to :data:`MAX_AXML_BYTES`); the ``data`` chunk is located, never
@@ -19,19 +13,16 @@ byte of the last chunk, which writers often leave out.
 from __future__ import annotations
 
 import os
-import struct
 from dataclasses import dataclass
 from typing import BinaryIO
 
 from ..errors import AdmError
+from ..io import RiffWalk, parse_wave_format
 from ._limits import MAX_AXML_BYTES, MAX_CHUNKS
 
 __all__ = ["WavChunks", "read_wav_chunks"]
 
-_SIZE_IN_DS64 = 0xFFFFFFFF
-_MAX_DS64 = 28 + 12 * 1024  # the fixed part and a generous table
 _MAX_CHNA = 4 + 40 * 0xFFFF  # the counts and 65535 entries of 40 bytes
-_FORMAT_EXTENSIBLE = 0xFFFE
 _FORMAT_NAMES = {1: "PCM", 3: "IEEE float"}
 
 
@@ -72,21 +63,6 @@ class WavChunks:
     chunks: tuple[tuple[str, int, int], ...]
 
 
-def _name(ck_id: bytes) -> str:
-    return repr(ck_id.decode("latin-1"))
-
-
-def _read(f: BinaryIO, pos: int, n: int, path: str, what: str) -> bytes:
-    f.seek(pos)
-    data = f.read(n)
-    if len(data) != n:
-        raise AdmError(
-            f"{path!r}: the file is cut short: the {what} needs {n} bytes at offset {pos}, "
-            f"the file holds {len(data)}"
-        )
-    return data
-
-
 def read_wav_chunks(
     path: str | os.PathLike[str], *, max_axml_bytes: int = MAX_AXML_BYTES
 ) -> WavChunks:
@@ -121,82 +97,22 @@ def _walk(f: BinaryIO, path: str, size: int, max_axml: int) -> WavChunks:
             f"{path!r} is not a RIFF/WAVE, RF64 or BW64 file (it starts {head[:12]!r}); "
             "an ADM master is a broadcast WAV with axml and chna chunks"
         )
-    container = head[:4].decode()
-    sizes64: dict[bytes, int] = {}
-    pos = 12
-    end = size
-    chunks: list[tuple[str, int, int]] = []
-    if container in ("RF64", "BW64"):
-        ck_id, ck_size = struct.unpack("<4sI", _read(f, pos, 8, path, "ds64 chunk header"))
-        if ck_id != b"ds64":
-            raise AdmError(
-                f"{path!r}: an {container} file must start with a ds64 chunk (EBU Tech 3306), "
-                f"found {_name(ck_id)}"
-            )
-        if not 28 <= ck_size <= _MAX_DS64:
-            raise AdmError(
-                f"{path!r}: the ds64 chunk declares {ck_size} bytes; 28 to {_MAX_DS64} are valid"
-            )
-        body = _read(f, pos + 8, ck_size, path, "ds64 chunk")
-        riff_size, data_size, _samples, table_len = struct.unpack_from("<QQQI", body)
-        if table_len > (ck_size - 28) // 12:
-            raise AdmError(
-                f"{path!r}: the ds64 table lists {table_len} chunk sizes, its chunk has room "
-                f"for {(ck_size - 28) // 12}"
-            )
-        sizes64[b"data"] = data_size
-        for k in range(table_len):
-            entry_id, entry_size = struct.unpack_from("<4sQ", body, 28 + 12 * k)
-            sizes64[entry_id] = entry_size
-        chunks.append(("ds64", pos + 8, ck_size))
-        pos += 8 + ck_size + (ck_size & 1)
-        end = min(size, riff_size + 8)
-    else:
-        end = min(size, struct.unpack_from("<I", head, 4)[0] + 8)
+    walk = RiffWalk(f, path, size, head, error=AdmError)
     fmt: bytes | None = None
     chna: bytes | None = None
     axml: bytes | None = None
     data: tuple[int, int] | None = None
-    while pos + 8 <= end:
-        if len(chunks) >= MAX_CHUNKS:
-            raise AdmError(f"{path!r}: more than {MAX_CHUNKS} chunks; the header is not usable")
-        ck_id, ck_size = struct.unpack("<4sI", _read(f, pos, 8, path, "chunk header"))
-        if ck_size == _SIZE_IN_DS64 and sizes64:
-            if ck_id not in sizes64:
-                raise AdmError(
-                    f"{path!r}: chunk {_name(ck_id)} defers its size to ds64, which does not "
-                    "list it"
-                )
-            ck_size = sizes64[ck_id]
-        body_at = pos + 8
-        if body_at + ck_size > size:
-            raise AdmError(
-                f"{path!r}: chunk {_name(ck_id)} at offset {pos} declares {ck_size} bytes, "
-                f"past the end of the file ({size - body_at} remain): the file is cut short "
-                "or its header is wrong"
-            )
-        chunks.append((ck_id.decode("latin-1"), body_at, ck_size))
-        if ck_id == b"fmt ":
-            if ck_size > 1024:
-                raise AdmError(f"{path!r}: the fmt chunk declares {ck_size} bytes (at most 1024)")
-            fmt = _read(f, body_at, ck_size, path, "fmt chunk")
-        elif ck_id == b"chna":
-            if ck_size > _MAX_CHNA:
-                raise AdmError(
-                    f"{path!r}: the chna chunk declares {ck_size} bytes, more than 65535 "
-                    f"entries need ({_MAX_CHNA})"
-                )
-            chna = _read(f, body_at, ck_size, path, "chna chunk")
-        elif ck_id == b"axml":
-            if ck_size > max_axml:
-                raise AdmError(
-                    f"{path!r}: the axml chunk declares {ck_size} bytes, more than the "
-                    f"{max_axml} this reader accepts"
-                )
-            axml = _read(f, body_at, ck_size, path, "axml chunk")
-        elif ck_id == b"data":
-            data = (body_at, ck_size)
-        pos = body_at + ck_size + (ck_size & 1)
+    chunks: list[tuple[str, int, int]] = []
+    for chunk in walk.chunks(whole=True, limit=MAX_CHUNKS):
+        chunks.append((chunk.name, chunk.body_at, chunk.size))
+        if chunk.id == b"fmt ":
+            fmt = walk.format_body(chunk)
+        elif chunk.id == b"chna":
+            chna = walk.body(chunk, _MAX_CHNA, f", more than 65535 entries need ({_MAX_CHNA})")
+        elif chunk.id == b"axml":
+            axml = walk.body(chunk, max_axml, f", more than the {max_axml} this reader accepts")
+        elif chunk.id == b"data":
+            data = (chunk.body_at, chunk.size)
     if fmt is None:
         raise AdmError(f"{path!r}: the file has no fmt chunk")
     if data is None:
@@ -204,7 +120,7 @@ def _walk(f: BinaryIO, path: str, size: int, max_axml: int) -> WavChunks:
     tag, channels, rate, bits, align = _parse_fmt(fmt, path)
     return WavChunks(
         path=path,
-        container=container,
+        container=walk.container,
         format_tag=tag,
         channels=channels,
         sample_rate=rate,
@@ -220,24 +136,17 @@ def _walk(f: BinaryIO, path: str, size: int, max_axml: int) -> WavChunks:
 
 
 def _parse_fmt(body: bytes, path: str) -> tuple[int, int, int, int, int]:
-    if len(body) < 16:
-        raise AdmError(f"{path!r}: the fmt chunk is {len(body)} bytes, at least 16 are needed")
-    tag, channels, rate, _byte_rate, align, bits = struct.unpack_from("<HHIIHH", body)
-    if tag == _FORMAT_EXTENSIBLE:
-        if len(body) < 40:
-            raise AdmError(
-                f"{path!r}: the WAVE_FORMAT_EXTENSIBLE fmt chunk is {len(body)} bytes, "
-                "40 are needed"
-            )
-        tag = struct.unpack_from("<H", body, 24)[0]  # first two bytes of the sub-format GUID
+    fmt = parse_wave_format(body, path, error=AdmError)
+    tag = fmt.tag if fmt.sub_format_tag is None else fmt.sub_format_tag
     if tag not in _FORMAT_NAMES:
         raise AdmError(
             f"{path!r}: sample format tag {tag:#06x} is neither PCM (0x0001) nor IEEE float "
             "(0x0003)"
         )
+    channels, rate, align = fmt.channels, fmt.sample_rate, fmt.block_align
     if channels == 0 or rate == 0 or align == 0 or align % channels:
         raise AdmError(
             f"{path!r}: the fmt chunk gives {channels} channels at {rate} Hz with {align}-byte "
             "frames, which is not a usable format"
         )
-    return tag, channels, rate, bits, align
+    return tag, channels, rate, fmt.bits_per_sample, align

@@ -18,9 +18,9 @@ from __future__ import annotations
 
 import os
 import signal
-import subprocess
 import sys
-import time
+
+from ..jobs.child_handle import ChildHandle
 
 __all__ = ["ForkedBuild", "warm_up"]
 
@@ -41,8 +41,10 @@ def warm_up() -> None:
     load_hrir_set(path, WARM_SAMPLERATE, name=name)
 
 
-class ForkedBuild:
+class ForkedBuild(ChildHandle):
     """A build running in a fork of this process, with the interface of ``Popen``."""
+
+    label = "comparison build"
 
     def __init__(self, spec: dict, niceness: int) -> None:
         read, write = os.pipe()
@@ -58,10 +60,8 @@ class ForkedBuild:
             finally:
                 os._exit(code)
         os.close(write)
-        self.pid = pid
-        self.stdin = None
+        super().__init__(pid)
         self.stdout = os.fdopen(read, "r")
-        self.returncode: int | None = None
 
     def poll(self) -> int | None:
         if self.returncode is None:
@@ -69,28 +69,6 @@ class ForkedBuild:
             if pid:
                 self.returncode = os.waitstatus_to_exitcode(status)
         return self.returncode
-
-    def wait(self, timeout: float | None = None) -> int:
-        deadline = None if timeout is None else time.monotonic() + timeout
-        while self.poll() is None:
-            if deadline is not None and time.monotonic() > deadline:
-                raise subprocess.TimeoutExpired("comparison build", timeout or 0.0)
-            time.sleep(0.01)
-        assert self.returncode is not None
-        return self.returncode
-
-    def terminate(self) -> None:
-        self._signal(signal.SIGTERM)
-
-    def kill(self) -> None:
-        self._signal(signal.SIGKILL)
-
-    def _signal(self, sig: int) -> None:
-        if self.poll() is None:
-            try:
-                os.kill(self.pid, sig)
-            except ProcessLookupError:
-                pass
 
 
 def _child(spec: dict, niceness: int, worker: int) -> int:

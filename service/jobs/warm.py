@@ -20,12 +20,12 @@ from __future__ import annotations
 
 import json
 import os
-import signal
 import subprocess
 import sys
 import threading
-import time
 from collections.abc import Iterator
+
+from .child_handle import ChildHandle
 
 __all__ = ["HOST_COMMAND", "HostedJob", "WarmSlot"]
 
@@ -65,15 +65,16 @@ class _JobLines:
         """Nothing to close: the stream is the host's, which may run the next job."""
 
 
-class HostedJob:
+class HostedJob(ChildHandle):
     """One job running in a warm host, with the interface of ``Popen``."""
 
+    label = "warm render host"
+    poll_interval_s = 0.005
+
     def __init__(self, host: subprocess.Popen) -> None:
+        super().__init__(host.pid)
         self.host = host
-        self.pid = host.pid
-        self.stdin = None  # the spec has been sent
         self.stdout = _JobLines(self)
-        self.returncode: int | None = None
         #: True once the job was signalled: its host is not used again.
         self.signalled = False
         #: True if the host said it exits after this job (or it died).
@@ -106,28 +107,13 @@ class HostedJob:
                 self.returncode = self.host.returncode
         return self.returncode
 
-    def wait(self, timeout: float | None = None) -> int:
-        deadline = None if timeout is None else time.monotonic() + timeout
-        while self.poll() is None:
-            if deadline is not None and time.monotonic() > deadline:
-                raise subprocess.TimeoutExpired("warm render host", timeout or 0.0)
-            time.sleep(0.005)
-        assert self.returncode is not None
-        return self.returncode
-
-    def terminate(self) -> None:
-        self._signal(signal.SIGTERM)
-
-    def kill(self) -> None:
-        self._signal(signal.SIGKILL)
+    def _running(self) -> bool:
+        # The host, not the job: a job that has ended leaves its host running.
+        return self.host.poll() is None
 
     def _signal(self, sig: int) -> None:
         self.signalled = True
-        if self.host.poll() is None:
-            try:
-                os.kill(self.host.pid, sig)
-            except ProcessLookupError:
-                pass
+        super()._signal(sig)
 
 
 class WarmSlot:
