@@ -27,6 +27,7 @@ from .moving import (
     MovingSourceEngine,
     PairFunction,
     PairTable,
+    PathLike,
     SourcePath,
 )
 from .panning import GainFunction, PanningMixer, SpreadGains
@@ -49,6 +50,7 @@ __all__ = [
     "PairFunction",
     "PairTable",
     "PanningMixer",
+    "PathLike",
     "SourcePath",
     "SPREAD_COLUMNS",
     "SpreadGains",

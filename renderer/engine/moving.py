@@ -57,7 +57,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
 import scipy.fft
@@ -112,6 +112,22 @@ _DTYPES: dict[np.dtype[Any], np.dtype[Any]] = {
     np.dtype(np.float32): np.dtype(np.complex64),
     np.dtype(np.float64): np.dtype(np.complex128),
 }
+
+
+@runtime_checkable
+class PathLike(Protocol):
+    """What the engines ask of a source's path: its directions and gains at frames
+    (:meth:`SourcePath.at`), and its spreads (:meth:`SourcePath.at_spread`). A
+    :class:`SourcePath` holds breakpoints; another path may compute them when asked (an
+    ADM object's, from its metadata), so that a long stream needs no table of them."""
+
+    def at(self, frames: NDArray[Any]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Unit vectors ``(n, 3)`` and gains ``(n,)`` at the given frames."""
+        ...
+
+    def at_spread(self, frames: NDArray[Any]) -> NDArray[np.float64]:
+        """Spreads ``(n, 4)`` (width, height, depth, diffuse) at the given frames."""
+        ...
 
 
 @dataclass(frozen=True, eq=False)
@@ -565,20 +581,20 @@ class MovingSourceEngine:
 
     def __init__(
         self,
-        paths: Sequence[SourcePath],
+        paths: Sequence[PathLike],
         table: PairTable,
         *,
         gain: float = 1.0,
         post_filter: RealArray | None = None,
     ) -> None:
         paths = list(paths)
-        if not paths or not all(isinstance(p, SourcePath) for p in paths):
-            raise AudioError("a moving-source engine needs one SourcePath per source, at least one")
+        if not paths or not all(isinstance(p, PathLike) for p in paths):
+            raise AudioError("a moving-source engine needs one path per source, at least one")
         if not isinstance(table, PairTable):
             raise AudioError(f"table must be a PairTable, got {type(table).__name__}")
         if not math.isfinite(gain) or gain < 0:
             raise AudioError(f"gain must be a finite number >= 0, got {shown(gain)}")
-        self.paths: list[SourcePath] = paths
+        self.paths: list[PathLike] = paths
         self.sources: int = len(paths)
         self.table: PairTable = table
         self.gain: float = float(gain)

@@ -33,7 +33,7 @@ from numpy.typing import NDArray
 
 from ..errors import AudioError, LayoutError
 from .convolution import FloatArray, RealArray
-from .moving import LOOKAHEAD_HOPS, SourcePath, update_hop
+from .moving import LOOKAHEAD_HOPS, PathLike, update_hop
 
 __all__ = ["GainFunction", "PanningMixer", "SpreadGains"]
 
@@ -86,7 +86,7 @@ class PanningMixer:
 
     def __init__(
         self,
-        paths: Sequence[SourcePath],
+        paths: Sequence[PathLike],
         gains: GainFunction | SpreadGains,
         samplerate: float,
         *,
@@ -94,13 +94,13 @@ class PanningMixer:
         dtype: np.dtype[Any] | type = np.float32,
     ) -> None:
         paths = list(paths)
-        if not paths or not all(isinstance(p, SourcePath) for p in paths):
-            raise AudioError("a panning mixer needs one SourcePath per source, at least one")
+        if not paths or not all(isinstance(p, PathLike) for p in paths):
+            raise AudioError("a panning mixer needs one path per source, at least one")
         hop = update_hop(samplerate, hop)
         real = np.dtype(dtype)
         if real not in (np.dtype(np.float32), np.dtype(np.float64)):
             raise AudioError(f"dtype must be one of 'float32', 'float64', got {dtype!r}")
-        self.paths: list[SourcePath] = paths
+        self.paths: list[PathLike] = paths
         self.sources: int = len(paths)
         self.hop: int = int(hop)
         self.dtype: np.dtype[Any] = real

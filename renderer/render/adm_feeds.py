@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ..engine import SourcePath
+from ..engine import PathLike
 from ..geometry import direction_to_vector, vector_to_direction
 from ..layouts import Layout, Speaker
 from ..objects import AdmMaster, ObjectChannel, object_positions, object_spread
@@ -39,8 +39,10 @@ from ..objects import AdmMaster, ObjectChannel, object_positions, object_spread
 __all__ = [
     "UPDATE_SECONDS",
     "AdmTracks",
+    "MetadataPath",
     "ObjectGains",
     "ObjectMix",
+    "PathSummary",
     "TrackSpan",
     "adm_layout",
     "object_path",
@@ -98,7 +100,7 @@ class ObjectMix:
     """
 
     channels: tuple[int, ...]
-    paths: tuple[SourcePath, ...]
+    paths: tuple[PathLike, ...]
     first: int
     array: NDArray[np.float64] | None
     diffuse: bool
@@ -184,7 +186,7 @@ class AdmTracks:
     """
 
     channels: tuple[int, ...]
-    paths: tuple[SourcePath, ...]
+    paths: tuple[PathLike, ...]
     gain: float
     length: int = 1
     moving_delay: int = 0
@@ -218,31 +220,168 @@ def position_vectors(positions: NDArray[np.float64], cartesian: bool) -> NDArray
     return np.where(norm > 1e-9, v / np.maximum(norm, 1e-300), front)
 
 
-def object_path(
-    channel: ObjectChannel, frames: int, samplerate: float, first: int = 0
-) -> tuple[SourcePath, dict[str, Any]]:
-    """The moving engine's path of an object track over ``frames`` frames from the file's
-    frame ``first`` (an excerpt's start; the path's frames count from it), and its report.
+#: Metadata samples summarised at a time for the report (10 minutes at 10 ms): a plan's
+#: memory does not grow with the master's length.
+SUMMARY_SAMPLES = 60_000
 
-    The metadata is sampled every :data:`UPDATE_SECONDS`; runs of samples that neither
-    move nor change gain keep only their ends, so a static object holds two breakpoints
-    whatever the length.
+
+class MetadataPath:
+    """An ADM object's path read from its metadata when an engine asks for it.
+
+    Duck-types :class:`~earfold.renderer.engine.SourcePath` (the
+    :class:`~earfold.renderer.engine.PathLike` protocol): the engines ask for the
+    directions, gains and spreads of the updates ahead (a few seconds at a time), which
+    are then worked out with BS.2076's interpolation (:func:`object_positions`) from the
+    blocks, so no table of the whole path is ever held, however long the master.
+
+    Parameters
+    ----------
+    channel : ObjectChannel
+        The object's track.
+    samplerate : float
+        The stream's rate.
+    first : int, optional
+        The file's frame at the stream's frame 0 (an excerpt's start).
+    direct_share : bool, optional
+        Scale the gains by the direct share ``sqrt(1 - diffuse)`` (an object whose
+        diffuse share goes elsewhere).
     """
-    step = max(1, int(round(UPDATE_SECONDS * samplerate)))
-    points = np.arange(0, frames + step, step, dtype=np.int64)
-    path = object_positions(channel, (first + points) / float(samplerate))
+
+    def __init__(
+        self,
+        channel: ObjectChannel,
+        samplerate: float,
+        first: int = 0,
+        *,
+        direct_share: bool = False,
+    ) -> None:
+        self.channel = channel
+        self.samplerate = float(samplerate)
+        self.first = int(first)
+        self.direct_share = bool(direct_share)
+        self._frames: NDArray[Any] | None = None
+        self._value: tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]] = (
+            np.zeros((0, 3)),
+            np.zeros(0),
+            np.zeros((0, 4)),
+        )
+
+    def with_direct_share(self) -> MetadataPath:
+        """The same path with its gains scaled to the direct share."""
+        return MetadataPath(self.channel, self.samplerate, self.first, direct_share=True)
+
+    def sample(
+        self, frames: NDArray[Any]
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+        """Unit vectors ``(n, 3)``, gains ``(n,)`` and spreads ``(n, 4)`` at ``frames``."""
+        t = np.asarray(frames, dtype=np.float64).reshape(-1)
+        if self._frames is not None and np.array_equal(t, self._frames):
+            return self._value  # the panning mixer asks for gains, then spreads
+        _, vectors, gains, spread = _sampled(self.channel, (self.first + t) / self.samplerate)
+        if self.direct_share:
+            gains = gains * np.sqrt(1.0 - spread[:, 3])
+        self._frames, self._value = t.copy(), (vectors, gains, spread)
+        return self._value
+
+    def at(self, frames: NDArray[Any]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Unit vectors ``(n, 3)`` and gains ``(n,)`` at the given frames."""
+        vectors, gains, _ = self.sample(frames)
+        return vectors, gains
+
+    def at_spread(self, frames: NDArray[Any]) -> NDArray[np.float64]:
+        """Spreads ``(n, 4)``: width and height (degrees), depth, diffuse."""
+        return self.sample(frames)[2]
+
+
+def _sampled(
+    channel: ObjectChannel, seconds: NDArray[np.float64]
+) -> tuple[Any, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """An object's metadata at ``seconds`` (:func:`object_positions`), and from it unit
+    vectors, gains (zero where the object is not active) and spreads."""
+    path = object_positions(channel, seconds)
     vectors = position_vectors(path.positions, path.cartesian)
     gains = np.where(path.active, np.maximum(path.gain, 0.0), 0.0)
-    spread = object_spread(path)
-    keep = np.ones(len(points), dtype=bool)
-    if len(points) > 2:
+    return path, vectors, gains, object_spread(path)
+
+
+@dataclass(frozen=True)
+class PathSummary:
+    """What the plan needs to know of a whole path, read in bounded pieces."""
+
+    extent: bool
+    diffuse: bool
+    entry: dict[str, Any]
+
+
+def object_path(
+    channel: ObjectChannel, frames: int, samplerate: float, first: int = 0
+) -> tuple[MetadataPath, PathSummary]:
+    """An object track's path over ``frames`` frames from the file's frame ``first`` (an
+    excerpt's start; the path's frames count from it), and its summary and report entry.
+
+    The summary samples the metadata every :data:`UPDATE_SECONDS` (the engines' update
+    interval) in pieces of :data:`SUMMARY_SAMPLES`; ``breakpoints`` counts the samples a
+    table of the path would keep (those that differ from a neighbour, and the ends), so a
+    static object has two whatever the length.
+    """
+    step = max(1, int(round(UPDATE_SECONDS * samplerate)))
+    total = frames // step + 2  # samples 0, step, ... up to one past the last frame
+    extent = diffuse = False
+    kept = 0
+    moves: list[int] = []
+    depth = False
+    widest = [0.0, 0.0]
+    most_diffuse = 0.0
+    first_vector = last_vector = None
+    previous: tuple[Any, ...] | None = None  # the last sample of the piece before
+    same_before = False  # whether that sample equalled the one before it
+    distance_range: list[float] = []
+    for start in range(0, total, SUMMARY_SAMPLES):
+        points = np.arange(start, min(total, start + SUMMARY_SAMPLES), dtype=np.int64) * step
+        raw, vectors, gains, spread = _sampled(channel, (first + points) / float(samplerate))
+        if first_vector is None:
+            first_vector = vectors[0]
+        last_vector = vectors[-1]
+        extent = extent or bool(np.any(spread[:, :2] > 0))
+        diffuse = diffuse or bool(np.any(spread[:, 3] > 0))
+        widest = [
+            max(widest[0], float(spread[:, 0].max())),
+            max(widest[1], float(spread[:, 1].max())),
+        ]
+        most_diffuse = max(most_diffuse, float(spread[:, 3].max()))
+        if not raw.cartesian:
+            depth = depth or bool(np.any(np.asarray(raw.depth) > 0))
+            distance_range.extend(
+                [float(raw.positions[:, 2].min()), float(raw.positions[:, 2].max())]
+            )
+        if previous is not None:
+            vectors = np.concatenate([previous[0][None], vectors])
+            gains = np.concatenate([[previous[1]], gains])
+            spread = np.concatenate([previous[2][None], spread])
+            points = np.concatenate([[previous[3]], points])
         same = (
             np.all(np.isclose(vectors[1:], vectors[:-1], atol=1e-12), axis=1)
             & np.isclose(gains[1:], gains[:-1], atol=1e-15)
             & np.all(spread[1:] == spread[:-1], axis=1)
         )
-        # a sample is needed when it differs from its neighbour on either side
-        keep[1:-1] = ~(same[:-1] & same[1:])
+        # A sample is kept when it differs from its neighbour on either side, the ends
+        # always. Each piece counts its samples but its last (whose right neighbour comes
+        # with the next piece), and the last piece's last is an end.
+        head = (
+            np.array([True])
+            if previous is None
+            else np.array([not (same_before and bool(same[0]))])
+        )
+        kept += int(head.sum()) + int(np.sum(~(same[:-1] & same[1:])))
+        moving = np.flatnonzero(~np.all(np.isclose(vectors[1:], vectors[:-1], atol=1e-9), axis=1))
+        if moving.size:
+            if not moves:
+                moves.append(int(points[moving[0]]))
+            moves[1:] = [int(points[moving[-1] + 1])]
+        same_before = bool(same[-1]) if len(same) else same_before
+        previous = (vectors[-1], gains[-1], spread[-1], points[-1])
+    kept += 1  # the last sample: an end is always kept
+    assert first_vector is not None and last_vector is not None
     entry: dict[str, Any] = {
         "object": channel.object_name,
         "object_id": channel.object_id,
@@ -250,32 +389,24 @@ def object_path(
         "start_s": float(channel.start),
         "end_s": None if channel.end is None else float(channel.end),
         "muted": bool(channel.mute),
-        "breakpoints": int(keep.sum()),
+        "breakpoints": kept,
     }
-    for key, vector in (("first_direction_deg", vectors[0]), ("last_direction_deg", vectors[-1])):
+    for key, vector in (("first_direction_deg", first_vector), ("last_direction_deg", last_vector)):
         az, el = vector_to_direction(vector)
         entry[key] = [round(float(az), 2), round(float(el), 2)]
-    moving = np.flatnonzero(~np.all(np.isclose(vectors[1:], vectors[:-1], atol=1e-9), axis=1))
     entry["moves_s"] = (
         None
-        if moving.size == 0
-        else [
-            round(float((first + points[moving[0]]) / samplerate), 3),
-            round(float((first + points[moving[-1] + 1]) / samplerate), 3),
-        ]
+        if not moves
+        else [round(float((first + m) / samplerate), 3) for m in (moves[0], moves[-1])]
     )
-    entry["largest_extent_deg"] = [
-        round(float(spread[:, 0].max()), 2),
-        round(float(spread[:, 1].max()), 2),
-    ]
-    entry["largest_diffuse"] = round(float(spread[:, 3].max()), 4)
+    entry["largest_extent_deg"] = [round(widest[0], 2), round(widest[1], 2)]
+    entry["largest_diffuse"] = round(most_diffuse, 4)
     entry["not_rendered"] = []
-    if np.any(np.asarray(path.depth) > 0) and not path.cartesian:
+    if depth:
         entry["not_rendered"].append("depth")
-    if not path.cartesian and np.ptp(path.positions[:, 2]) > 1e-9:
+    if distance_range and max(distance_range) - min(distance_range) > 1e-9:
         entry["not_rendered"].append("distance")
-    source = SourcePath(points[keep], vectors[keep], gains[keep], spread=spread[keep])
-    return source, entry
+    return MetadataPath(channel, samplerate, first), PathSummary(extent, diffuse, entry)
 
 
 def adm_layout(master: AdmMaster) -> Layout:

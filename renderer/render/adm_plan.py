@@ -37,7 +37,6 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ..engine import SourcePath
 from ..eq import REFERENCE as CALIBRATION_REFERENCE
 from ..errors import LayoutError, OptionError, RendererError
 from ..geometry import vector_to_direction
@@ -45,7 +44,15 @@ from ..io import StemInfo
 from ..layouts import Layout, Speaker, get_layout
 from ..objects import AdmMaster
 from ..room import RoomFilters, exact_brirs, get_room
-from .adm_feeds import AdmTracks, ObjectMix, TrackSpan, adm_layout, object_path
+from .adm_feeds import (
+    AdmTracks,
+    MetadataPath,
+    ObjectMix,
+    PathSummary,
+    TrackSpan,
+    adm_layout,
+    object_path,
+)
 from .bank import RenderPlan, calibrated_gain
 from .feeds import ChannelFeed, speaker_feeds
 from .filter_cache import default_filter_cache
@@ -109,11 +116,14 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
 
     # The objects' paths, and how each is rendered: followed with its own HRIR pairs (free
     # field, a point), or panned onto the virtual array (in a room, or with an extent).
-    paths: list[SourcePath] = []
+    paths: list[MetadataPath] = []
+    summaries: list[PathSummary] = []
     entries: list[dict[str, Any]] = []
     for obj in master.objects:
-        path, entry = object_path(obj, stem.frames, rate, stem.start)
+        path, summary = object_path(obj, stem.frames, rate, stem.start)
+        entry = summary.entry
         paths.append(path)
+        summaries.append(summary)
         entries.append(entry)
         if entry["not_rendered"]:
             warnings.append(
@@ -121,10 +131,9 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
                 f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered in this "
                 "version (a direction only)"
             )
-    spreads = [np.zeros((1, 4)) if p.spread is None else p.spread for p in paths]
-    spread_out = [k for k, sp in enumerate(spreads) if bool(np.any(sp[:, :2] > 0))]
+    spread_out = [k for k, summary in enumerate(summaries) if summary.extent]
     followed = [k for k in range(len(paths)) if k not in spread_out]
-    has_diffuse = any(bool(np.any(sp[:, 3] > 0)) for sp in spreads)
+    has_diffuse = any(summary.diffuse for summary in summaries)
 
     # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), and in
     # a room the objects' reflection array and each HOA order's virtual loudspeakers.
@@ -289,7 +298,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         objects = _object_tracks(
             master,
             paths,
-            spreads,
+            summaries,
             spread_out,
             followed,
             has_diffuse,
@@ -437,7 +446,7 @@ def _hoa_filters(
     return fold_matrix(sn3d, matrix), matrix.T @ sn3d_tail
 
 
-def _moving_length(hset: Any, paths: list[Any], gain: float) -> int:
+def _moving_length(hset: Any, paths: list[MetadataPath], gain: float) -> int:
     """Length of the moving engine's whole response (its pairs and the set's EQ)."""
     from .moving_sources import moving_source_engine
 
@@ -479,16 +488,6 @@ def _with_decay(
     return dataclasses.replace(plan, room_decay=decay)
 
 
-def _direct_part(path: SourcePath) -> SourcePath:
-    """``path`` with its gains scaled to the direct share ``sqrt(1 - diffuse)``."""
-    from ..layouts import diffuse_split
-
-    if path.spread is None or not np.any(path.spread[:, 3] > 0):
-        return path
-    direct, _ = diffuse_split(path.spread[:, 3])
-    return SourcePath(path.frames, path.vectors, path.gains * direct, spread=path.spread)
-
-
 def _arrival(room_filters: RoomFilters) -> int:
     """The room's direct arrival at the beds' radius, in whole frames from its time zero:
     where an object's own direct sound goes in a room."""
@@ -497,8 +496,8 @@ def _arrival(room_filters: RoomFilters) -> int:
 
 def _object_tracks(
     master: AdmMaster,
-    paths: list[SourcePath],
-    spreads: list[NDArray[np.float64]],
+    paths: list[MetadataPath],
+    summaries: list[PathSummary],
     spread_out: list[int],
     followed: list[int],
     has_diffuse: bool,
@@ -579,7 +578,7 @@ def _object_tracks(
         )
         # Objects whose diffuse share no mixer above carries: those followed with their
         # own pairs, free field.
-        alone = [k for k in followed if not reflections and bool(np.any(spreads[k][:, 3] > 0))]
+        alone = [k for k in followed if not reflections and summaries[k].diffuse]
         if alone:
             mixes.append(
                 ObjectMix(
@@ -604,7 +603,7 @@ def _object_tracks(
         for i, b in enumerate(bus):
             bus_filters[i, :, : b.shape[-1]] = b
         bus_filters *= gain
-    direct = [_direct_part(paths[k]) for k in followed]
+    direct = [paths[k].with_direct_share() if summaries[k].diffuse else paths[k] for k in followed]
     moving = _moving_length(hset, direct, gain) if direct else 1
     return AdmTracks(
         channels=tuple(tracks[k] for k in followed),

@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ..engine import MovingSourceEngine, PairTable, SourcePath
+from ..engine import MovingSourceEngine, PairTable, PathLike
 from ..eq import EqualisedHrirSet
 from ..hrtf import HrirSet
 
@@ -28,7 +28,7 @@ __all__ = ["moving_source_engine", "pair_table"]
 
 def moving_source_engine(
     hset: HrirSet,
-    paths: Sequence[SourcePath],
+    paths: Sequence[PathLike],
     *,
     gain: float = 1.0,
     hop: int | None = None,

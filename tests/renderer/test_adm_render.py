@@ -429,3 +429,29 @@ def test_a_diffuse_share_longer_than_the_sets_pairs_is_rendered_whole(tmp_path):
     y = read_audio(tmp_path / "a.wav")[0]
     assert len(y) == len(s) + plan.length - 1
     assert np.abs(y[len(s) : len(s) + longest // 2]).max() > 0  # the response rings on
+
+
+def test_an_objects_summary_is_the_same_read_in_small_pieces(tmp_path, monkeypatch):
+    # The plan reads a path in bounded pieces (its memory does not grow with the master's
+    # length): pieces of 7 samples must give what one piece gives, breakpoints included.
+    from earfold.renderer.objects import read_adm
+    from earfold.renderer.render import adm_feeds
+
+    blocks = [
+        object_block("AC_00031001", 1, rtime=seconds(0), duration=seconds(0.3), az=90.0),
+        object_block("AC_00031001", 2, rtime=seconds(0.3), duration=seconds(0.4), az=-30.0),
+        object_block(
+            "AC_00031001", 3, rtime=seconds(0.7), duration=seconds(0.3), az=10.0, jump="1"
+        ),
+        object_block("AC_00031001", 4, rtime=seconds(1.0), duration=seconds(0.5), az=10.0),
+    ]
+    master = _master(
+        tmp_path / "m.wav", np.zeros((int(1.5 * FS), 1), np.float32), blocks, bed=False
+    )
+    (channel,) = read_adm(master).objects
+    _, whole = adm_feeds.object_path(channel, int(1.5 * FS), FS)
+    monkeypatch.setattr(adm_feeds, "SUMMARY_SAMPLES", 7)
+    _, pieces = adm_feeds.object_path(channel, int(1.5 * FS), FS)
+    assert pieces == whole
+    assert whole.entry["moves_s"] == [0.3, 0.7]  # moving 0.3 to 0.7 s, then a jump to rest
+    assert 3 < whole.entry["breakpoints"] < 60
