@@ -31,6 +31,7 @@ render uses (with the room's tail when there is one).
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -70,6 +71,49 @@ ARRAY_ORDER = 4
 #: room: 20 directions (an antipodal 5-design). The reflections of a source between them
 #: are a VBAP mix of theirs; the rows are long (the room's early part), so they are few.
 ROOM_ARRAY_ORDER = 2
+
+
+@dataclass(frozen=True)
+class _Objects:
+    """The objects' paths and summaries, and how each is rendered."""
+
+    paths: list[MetadataPath]
+    summaries: list[PathSummary]
+
+    @property
+    def spread_out(self) -> list[int]:
+        """Objects with a width or height: spread over the virtual array."""
+        return [k for k, summary in enumerate(self.summaries) if summary.extent]
+
+    @property
+    def followed(self) -> list[int]:
+        """Points: followed by the moving engine with their own pairs."""
+        return [k for k, summary in enumerate(self.summaries) if not summary.extent]
+
+    @property
+    def has_diffuse(self) -> bool:
+        """Whether any object has a diffuse share."""
+        return any(summary.diffuse for summary in self.summaries)
+
+
+@dataclass(frozen=True)
+class _Rows:
+    """The rows rendered (beds or the reference, the reflection array, HOA loudspeakers):
+    their uncalibrated filters and tail shares, and the room they were built in."""
+
+    speakers: list[Speaker]
+    filters: NDArray[np.float64]
+    tail: NDArray[np.float64]
+    reflections: tuple[int, ...]
+    room: RoomFilters | None
+
+    @property
+    def arrival(self) -> int:
+        """The room's direct arrival at the beds' radius in whole frames (0 free field):
+        where an object's own direct sound goes."""
+        if self.room is None:
+            return 0
+        return int(round(float(self.room.report["reference_arrival_samples"])))
 
 
 def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> RenderPlan:
@@ -131,9 +175,8 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
                 f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered in this "
                 "version (a direction only)"
             )
-    spread_out = [k for k, summary in enumerate(summaries) if summary.extent]
-    followed = [k for k in range(len(paths)) if k not in spread_out]
-    has_diffuse = any(summary.diffuse for summary in summaries)
+    paths_of = _Objects(paths, summaries)
+    spread_out, followed = paths_of.spread_out, paths_of.followed
 
     # The rows rendered: the calibration reference (the bed's loudspeakers, or 5.0), and in
     # a room the objects' reflection array and each HOA order's virtual loudspeakers.
@@ -294,23 +337,12 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
 
     objects = None
     if master.objects or spans:
-        arrival = 0 if room_filters is None else _arrival(room_filters)
         objects = _object_tracks(
             master,
-            paths,
-            summaries,
-            spread_out,
-            followed,
-            has_diffuse,
+            paths_of,
+            _Rows(rows, row_filters, row_tail, reflections, room_filters),
             hset,
-            rate,
             settings,
-            room_filters,
-            row_filters,
-            row_tail,
-            rows,
-            reflections,
-            arrival,
             gain,
             spans,
             notes,
@@ -488,44 +520,30 @@ def _with_decay(
     return dataclasses.replace(plan, room_decay=decay)
 
 
-def _arrival(room_filters: RoomFilters) -> int:
-    """The room's direct arrival at the beds' radius, in whole frames from its time zero:
-    where an object's own direct sound goes in a room."""
-    return int(round(float(room_filters.report["reference_arrival_samples"])))
-
-
 def _object_tracks(
     master: AdmMaster,
-    paths: list[MetadataPath],
-    summaries: list[PathSummary],
-    spread_out: list[int],
-    followed: list[int],
-    has_diffuse: bool,
+    objects: _Objects,
+    rows: _Rows,
     hset: Any,
-    rate: float,
     settings: RenderSettings,
-    room_filters: RoomFilters | None,
-    row_filters: NDArray[np.float64],
-    row_tail: NDArray[np.float64],
-    rows: list[Speaker],
-    reflections: tuple[int, ...],
-    arrival: int,
     gain: float,
     spans: tuple[TrackSpan, ...],
     notes: list[str],
 ) -> AdmTracks:
     """The objects' part of the plan: the moving engine's paths (their direct shares), and
     the bus the mixers feed: the spread array's rows (HRIR pairs, delayed to the room's
-    direct arrival), the reflection array's rows, the diffuse row; each mixer's sources
+    direct rows.arrival), the reflection array's rows, the diffuse row; each mixer's sources
     and columns."""
     from ..scenes import virtual_layout
+
+    rate = float(hset.samplerate)
 
     bus: list[NDArray[np.float64]] = []
     bus_tail: list[float] = []
     mixes: list[ObjectMix] = []
     tracks = [obj.track for obj in master.objects]
-    room_tail = room_filters is not None and settings.room_mode != "exact"
-    if spread_out:
+    room_tail = rows.room is not None and settings.room_mode != "exact"
+    if objects.spread_out:
         array = np.asarray(virtual_layout(ARRAY_ORDER), dtype=np.float64)
         az, el = vector_to_direction(array)
         spread_layout = Layout(
@@ -539,63 +557,65 @@ def _object_tracks(
         )
         pairs = speaker_feeds(spread_layout, tuple(range(len(array))), hset, rate, lfe=settings.lfe)
         for feed in pairs:
-            row = np.zeros((2, arrival + feed.filters.shape[-1]))
-            row[:, arrival:] = feed.filters
+            row = np.zeros((2, rows.arrival + feed.filters.shape[-1]))
+            row[:, rows.arrival :] = feed.filters
             bus.append(row)
             bus_tail.append(0.0)
-        in_free_field = not reflections
+        in_free_field = not rows.reflections
         mixes.append(
             ObjectMix(
-                channels=tuple(tracks[k] for k in spread_out),
-                paths=tuple(paths[k] for k in spread_out),
+                channels=tuple(tracks[k] for k in objects.spread_out),
+                paths=tuple(objects.paths[k] for k in objects.spread_out),
                 first=0,
                 array=array,
-                diffuse=has_diffuse and in_free_field,
+                diffuse=objects.has_diffuse and in_free_field,
             )
         )
-    if reflections:
+    if rows.reflections:
         first = len(bus)
-        bus.extend(row_filters[list(reflections)])
-        bus_tail.extend(0.0 for _ in reflections)  # the tail has a channel of its own
+        bus.extend(rows.filters[list(rows.reflections)])
+        bus_tail.extend(0.0 for _ in rows.reflections)  # the tail has a channel of its own
         mixes.append(
             ObjectMix(
                 channels=tuple(tracks),
-                paths=tuple(paths),
+                paths=tuple(objects.paths),
                 first=first,
                 array=np.asarray(virtual_layout(ROOM_ARRAY_ORDER), dtype=np.float64),
-                diffuse=has_diffuse,
+                diffuse=objects.has_diffuse,
                 tail=room_tail,
             )
         )
-    if has_diffuse:
+    if objects.has_diffuse:
         diffuse_col = len(bus)
-        bus.append(_diffuse_row(hset, rate, settings.seed, room_filters))
+        bus.append(_diffuse_row(hset, rate, settings.seed, rows.room))
         bus_tail.append(0.0)
         notes.append(
             "ADM: diffuse shares (BS.2076 diffuse) go through a short decorrelating response "
             "with the set's diffuse-field spectrum and interaural coherence"
-            + (", and feed the room's tail" if room_filters is not None else "")
+            + (", and feed the room's tail" if rows.room is not None else "")
         )
-        # Objects whose diffuse share no mixer above carries: those followed with their
+        # Objects whose diffuse share no mixer above carries: those objects.followed with their
         # own pairs, free field.
-        alone = [k for k in followed if not reflections and summaries[k].diffuse]
+        alone = [
+            k for k in objects.followed if not rows.reflections and objects.summaries[k].diffuse
+        ]
         if alone:
             mixes.append(
                 ObjectMix(
                     channels=tuple(tracks[k] for k in alone),
-                    paths=tuple(paths[k] for k in alone),
+                    paths=tuple(objects.paths[k] for k in alone),
                     first=diffuse_col,
                     array=None,
                     diffuse=True,
                 )
             )
-    if reflections and room_tail:
+    if rows.reflections and room_tail:
         # The objects' tail channel (after the reflection array's rows and the diffuse
         # row, the reflection mix's last column): no filter of its own, the tail's share
         # of a loudspeaker at the beds' radius.
-        mains = [i for i, speaker in enumerate(rows) if not speaker.lfe]
+        mains = [i for i, speaker in enumerate(rows.speakers) if not speaker.lfe]
         bus.append(np.zeros((2, 1)))
-        bus_tail.append(float(np.max(row_tail[mains])) if mains else 0.0)
+        bus_tail.append(float(np.max(rows.tail[mains])) if mains else 0.0)
     bus_filters = None
     if bus:
         width = max(b.shape[-1] for b in bus)
@@ -603,19 +623,22 @@ def _object_tracks(
         for i, b in enumerate(bus):
             bus_filters[i, :, : b.shape[-1]] = b
         bus_filters *= gain
-    direct = [paths[k].with_direct_share() if summaries[k].diffuse else paths[k] for k in followed]
+    direct = [
+        objects.paths[k].with_direct_share() if objects.summaries[k].diffuse else objects.paths[k]
+        for k in objects.followed
+    ]
     moving = _moving_length(hset, direct, gain) if direct else 1
     return AdmTracks(
-        channels=tuple(tracks[k] for k in followed),
+        channels=tuple(tracks[k] for k in objects.followed),
         paths=tuple(direct),
         gain=gain,
-        length=max(arrival + moving, 1 if bus_filters is None else int(bus_filters.shape[-1])),
-        moving_delay=arrival,
+        length=max(rows.arrival + moving, 1 if bus_filters is None else int(bus_filters.shape[-1])),
+        moving_delay=rows.arrival,
         mixes=tuple(mixes),
         bus_filters=bus_filters,
         bus_tail_weights=(
             None
-            if room_filters is None or bus_filters is None
+            if rows.room is None or bus_filters is None
             else np.asarray(bus_tail, dtype=np.float64)
         ),
         spans=spans,
@@ -638,7 +661,7 @@ def _diffuse_row(
     response = diffuse_response(hset, rate, seed=seed)
     if room_filters is None:
         return np.asarray(response, dtype=np.float64)
-    onset = _arrival(room_filters)
+    onset = int(round(float(room_filters.report["reference_arrival_samples"])))
     row = np.zeros((2, onset + response.shape[-1]))
     row[:, onset:] = response
     return row
