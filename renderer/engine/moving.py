@@ -68,6 +68,7 @@ from .convolution import BinauralConvolver, FloatArray, RealArray, TransformPlan
 
 __all__ = [
     "GRID_STEP_DEG",
+    "GRID_VERSION",
     "MAX_EXACT_PAIRS",
     "MAX_UPDATE_SECONDS",
     "MovingSourceEngine",
@@ -82,6 +83,10 @@ MAX_UPDATE_SECONDS = 0.010
 
 #: Spacing (degrees) of the direction grid that moving directions snap to.
 GRID_STEP_DEG = 2.0
+
+#: Version of the direction grid's layout (rings, points, their order): part of the key
+#: of a cached grid (:meth:`PairTable.grid_pairs`); bump it when the grid changes.
+GRID_VERSION = 1
 
 #: Most resting directions with exact pairs of their own in one engine's table.
 MAX_EXACT_PAIRS = 4096
@@ -294,6 +299,11 @@ class PairTable:
         Spacing of the grid moving directions snap to (0.5 to 10 degrees).
     dtype : numpy dtype, optional
         Working precision, ``float32`` (default; spectra in complex64) or ``float64``.
+        Pairs are rounded to it before their spectra are taken, so a pair computed here
+        and one loaded from a cache (:meth:`load_grid_pairs`) give the same spectrum.
+    filter_length : int, optional
+        The pairs' length ``L`` when known (an HRIR set's ``taps``); otherwise the pair
+        function is asked for the front direction's pair to learn it.
     """
 
     def __init__(
@@ -304,6 +314,7 @@ class PairTable:
         hop: int | None = None,
         grid_step_deg: float = GRID_STEP_DEG,
         dtype: np.dtype[Any] | type = np.float32,
+        filter_length: int | None = None,
     ) -> None:
         hop = update_hop(samplerate, hop)
         if not 0.5 <= grid_step_deg <= 10.0:
@@ -320,8 +331,13 @@ class PairTable:
         self.grid_step_deg: float = float(grid_step_deg)
         self._pairs = pairs
         self._grid = _DirectionGrid(grid_step_deg)
-        front = self._checked_pairs(np.array([[1.0, 0.0, 0.0]]), None)
-        self.filter_length: int = int(front.shape[-1])
+        if filter_length is None:
+            filter_length = self._checked_pairs(np.array([[1.0, 0.0, 0.0]]), None).shape[-1]
+        elif isinstance(filter_length, bool) or not isinstance(filter_length, (int, np.integer)):
+            raise AudioError(f"filter_length must be a whole number, got {shown(filter_length)}")
+        if filter_length < 1:
+            raise AudioError(f"filter_length must be 1 or more, got {shown(filter_length)}")
+        self.filter_length: int = int(filter_length)
         self.transform_size: int = int(
             scipy.fft.next_fast_len(self.hop + self.filter_length - 1, real=True)
         )
@@ -337,6 +353,11 @@ class PairTable:
     def grid_points(self) -> int:
         """Points of the direction grid (the most grid pairs the table may hold)."""
         return self._grid.size
+
+    @property
+    def has_grid_pairs(self) -> bool:
+        """Does the table hold every grid point's pair (:meth:`grid_pairs`)?"""
+        return self._grid_irs is not None
 
     @property
     def rows(self) -> int:
@@ -382,27 +403,32 @@ class PairTable:
     def grid_pairs(self) -> NDArray[np.float32]:
         """Every grid point's pair, ``(G, 2, L)`` float32 in grid order: what a cache keeps.
 
-        Computes the grid points not yet passed (in bulk: about a second for the KEMAR
-        set's 10,314 points at 2 degrees), so :meth:`load_grid_pairs` in another process
-        spares it all of them.
+        Computes them all the first time (in bulk: about a second for the KEMAR set's
+        10,314 points at 2 degrees) and keeps them, so that the grid's spectra are made
+        from these as sources pass; :meth:`load_grid_pairs` in another process spares it
+        all of them.
         """
         if self._grid_irs is None:
-            missing = np.flatnonzero(self._grid_row < 0)
-            for start in range(0, len(missing), 1024):
-                self._add_grid(missing[start : start + 1024])
-            spectra = self.spectra[self._grid_row]
-            irs = scipy.fft.irfft(spectra, n=self.transform_size, axis=-1)
-            self._grid_irs = np.ascontiguousarray(irs[..., : self.filter_length], np.float32)
+            cells = np.arange(self._grid.size)
+            irs = np.empty((self._grid.size, 2, self.filter_length), dtype=np.float32)
+            for start in range(0, len(cells), 1024):
+                part = cells[start : start + 1024]
+                irs[part] = self._checked_pairs(self._grid.vectors(part), self.filter_length)
+            irs.setflags(write=False)
+            self._grid_irs = irs
         return self._grid_irs
 
     def load_grid_pairs(self, pairs: NDArray[Any]) -> bool:
-        """Take the grid's pairs from :meth:`grid_pairs` of a table with the same pair
-        function, rate, hop and grid; their spectra are then made as sources pass, with
+        """Take the grid's pairs from :meth:`grid_pairs` of a float32 table with the same
+        pair function, rate and grid; their spectra are then made as sources pass, with
         no call to the pair function. False (nothing taken) if the shape or values do
-        not fit."""
+        not fit, or this table works in float64 (whose pairs are not rounded to float32).
+        """
         irs = np.asarray(pairs)
         shape = (self._grid.size, 2, self.filter_length)
-        if irs.dtype != np.float32 or irs.shape != shape or not np.all(np.isfinite(irs)):
+        if self.dtype != np.float32 or irs.dtype != np.float32 or irs.shape != shape:
+            return False
+        if not np.all(np.isfinite(irs)):
             return False
         self._grid_irs = irs
         return True
@@ -417,8 +443,9 @@ class PairTable:
         self._add(irs)
 
     def _add(self, irs: NDArray[Any]) -> None:
-        """Spectra of new pairs, appended in order."""
-        spectra = scipy.fft.rfft(irs, n=self.transform_size, axis=-1)
+        """Spectra of new pairs, appended in order (the pairs rounded to the table's
+        precision first: the same spectrum whether a pair was computed or loaded)."""
+        spectra = scipy.fft.rfft(np.asarray(irs, dtype=self.dtype), n=self.transform_size, axis=-1)
         need = self._rows + len(irs)
         if need > len(self.spectra):
             grown = np.zeros((max(need, 2 * len(self.spectra)), 2, self._bins), dtype=self._cplx)

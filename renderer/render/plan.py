@@ -645,7 +645,8 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
     """The plan of an ADM object master (see :mod:`.adm_feeds`): beds and HOA tracks as
     the fixed filter bank, objects as paths for the moving-source engine, one calibration
     gain for all of them."""
-    from .moving_sources import moving_source_engine
+    from .feed_cache import cached_speaker_feeds
+    from .moving_sources import moving_response_length, prepare_pair_grid
 
     name = Path(stem.paths[0]).name
     refused = [
@@ -674,7 +675,7 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
     warnings: list[str] = []
     notes: list[str] = []
     cache = default_filter_cache()
-    hset, eq_report, _ = _prepared_set(
+    hset, eq_report, set_key = _prepared_set(
         settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
     )
     rate = stem.samplerate
@@ -689,8 +690,14 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
         )
     else:
         reference = get_layout("5.0")
-    reference_feeds = speaker_feeds(
-        reference, tuple(range(reference.channels)), hset, rate, lfe=settings.lfe
+    reference_feeds = cached_speaker_feeds(
+        reference,
+        range(reference.channels),
+        hset,
+        rate,
+        lfe=settings.lfe,
+        set_key=set_key,
+        cache=cache,
     )
     if master.beds:
         for bed, feed in zip(master.beds, reference_feeds):
@@ -739,13 +746,13 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
                     f"{', '.join(entry['not_rendered'])} "
                     f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered yet"
                 )
-        engine = moving_source_engine(hset, paths, gain=gain)
+        eq_report["moving_pairs_cache"] = prepare_pair_grid(hset, set_key, cache)
         objects = AdmTracks(
             channels=tuple(obj.track for obj in master.objects),
             paths=tuple(paths),
             gain=gain,
             report=tuple(entries),
-            length=engine.filter_length + engine.post_length - 1,
+            length=moving_response_length(hset),
         )
     used = set(fixed) | {obj.track for obj in master.objects}
     unused = [t + 1 for t in range(stem.channels) if t not in used]
