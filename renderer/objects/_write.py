@@ -17,6 +17,7 @@ and attribute values are escaped, IDs are written as given.
 
 from __future__ import annotations
 
+import os
 import struct
 from collections.abc import Iterable, Iterator, Sequence
 from pathlib import Path
@@ -105,7 +106,7 @@ def _encoded(block: NDArray[np.floating], subtype: str) -> bytes:
 
 
 def write_master(
-    path: str | Path,
+    path: str | os.PathLike[str],
     *,
     audio: ArrayLike | Iterable[NDArray[np.floating]],
     rate: int = 48000,

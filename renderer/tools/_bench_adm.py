@@ -14,8 +14,10 @@ like the other cases' stems: nothing is silent, so nothing can be skipped.
 from __future__ import annotations
 
 import os
+from collections.abc import Iterator
 
 import numpy as np
+from numpy.typing import NDArray
 
 __all__ = ["ADM_BED", "BLOCK_SECONDS", "adm_master_xml", "make_adm_master"]
 
@@ -145,7 +147,7 @@ def make_adm_master(
     rng = np.random.default_rng(seed)
     step = 1 << 16
 
-    def blocks():  # type: ignore[no-untyped-def]
+    def blocks() -> Iterator[NDArray[np.float32]]:
         for start in range(0, frames, step):
             n = min(step, frames - start)
             yield (0.1 * rng.standard_normal((n, channels))).astype(np.float32)
