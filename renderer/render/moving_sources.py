@@ -37,6 +37,7 @@ if TYPE_CHECKING:
 
 __all__ = [
     "GRID_ENTRY",
+    "moving_post_filter",
     "moving_response_length",
     "moving_source_engine",
     "pair_table",
@@ -54,6 +55,7 @@ def moving_source_engine(
     gain: float = 1.0,
     hop: int | None = None,
     dtype: np.dtype[Any] | type = np.float32,
+    post: bool = True,
 ) -> MovingSourceEngine:
     """An engine rendering ``paths`` through ``hset`` at the set's rate.
 
@@ -72,16 +74,22 @@ def moving_source_engine(
         Frames between filter updates (default and most: 10 ms).
     dtype : numpy dtype, optional
         The engine's working precision.
+    post : bool, optional
+        Apply the set's equalisation (:func:`moving_post_filter`) to the ears' sums; False
+        leaves it to the caller (who may convolve it with other work of its own).
     """
     return MovingSourceEngine(
-        paths, pair_table(hset, hop=hop, dtype=dtype), gain=gain, post_filter=_post_filter(hset)
+        paths,
+        pair_table(hset, hop=hop, dtype=dtype),
+        gain=gain,
+        post_filter=moving_post_filter(hset) if post else None,
     )
 
 
 def moving_response_length(hset: HrirSet) -> int:
     """Length of the moving engine's whole response through ``hset`` (its pairs and the
     post filter together), known without building an engine or looking up a pair."""
-    post = _post_filter(hset)
+    post = moving_post_filter(hset)
     return _lookup(hset).taps + (0 if post is None else int(np.shape(post)[-1]) - 1)
 
 
@@ -162,8 +170,9 @@ def _lookup(hset: HrirSet) -> HrirSet:
     return hset
 
 
-def _post_filter(hset: HrirSet) -> NDArray[np.float64] | None:
-    """The filter common to every pair, applied to the ears' sums: the set's EQ."""
+def moving_post_filter(hset: HrirSet) -> NDArray[np.float64] | None:
+    """The filter common to every pair, applied to the ears' sums: the set's EQ (None
+    for a set without one)."""
     if isinstance(hset, EqualisedHrirSet) and hset.raw is not None and hset.fir is not None:
         return hset.fir
     return None

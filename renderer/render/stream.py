@@ -37,61 +37,63 @@ def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine | ObjectsEngine:
 
 
 class ObjectsEngine:
-    """An ADM master's engine: the fixed bank on its bed and HOA tracks
-    (:class:`FoldEngine`) and the moving-source engine on its object tracks
-    (:func:`~earfold.renderer.render.moving_sources.moving_source_engine`), summed frame
-    for frame.
+    """An ADM master's engine: the moving-source engine on its object tracks
+    (:func:`~earfold.renderer.render.moving_sources.moving_source_engine`) and the fixed
+    bank (:class:`FoldEngine`) on its bed and HOA tracks and on the moving engine's two
+    ears.
 
-    The fixed engine hands back whole hops (possibly fewer frames than it was given), the
-    moving engine every frame: the moving output waits until the fixed output of the same
-    frames is there. After the input, both are given the same number of zero frames, so
-    the two outputs end together: ``input + frames`` frames in all.
+    The moving engine's ears enter the fixed engine as two more channels, filtered there
+    by the set's equalisation (the moving engine's post filter, or a unit impulse for a
+    set without one): one convolver does the bed's work and the objects' equalisation
+    together, instead of a second two-channel convolver behind the moving engine (which
+    cost about a fifth of the moving engine's time, measured with 16 objects). After the
+    input, the moving engine's tail enters the fixed engine, then zeros: the output ends
+    ``frames`` after the input, as for any engine.
     """
 
     def __init__(self, plan: RenderPlan, block_size: int) -> None:
-        from .moving_sources import moving_source_engine
+        from .moving_sources import moving_post_filter, moving_source_engine
 
         objects, hset = plan.objects, plan.hrir_set
         assert objects is not None and hset is not None
         taken = set(objects.channels)
         self.object_channels = list(objects.channels)
         self.fixed_channels = [c for c in range(plan.stem.channels) if c not in taken]
-        filters = (
-            plan.filters[self.fixed_channels]
-            if self.fixed_channels
-            else np.zeros((1, 2, 1), dtype=np.float64)
-        )
+        self.moving = moving_source_engine(hset, objects.paths, gain=objects.gain, post=False)
+        post = moving_post_filter(hset)
+        ears = np.ones((2, 1)) if post is None else np.atleast_2d(post) * np.ones((2, 1))
+        bed = plan.filters[self.fixed_channels]
+        filters = np.zeros((len(self.fixed_channels) + 2, 2, max(bed.shape[-1], ears.shape[-1])))
+        filters[: len(self.fixed_channels), :, : bed.shape[-1]] = bed
+        filters[-2, 0, : ears.shape[-1]] = ears[0]  # the left ear's sum to the left ear
+        filters[-1, 1, : ears.shape[-1]] = ears[1]
+        self.post_length = 0 if post is None else int(ears.shape[-1])
         self.fixed = FoldEngine(filters, block_size)
-        self.moving = moving_source_engine(hset, objects.paths, gain=objects.gain)
         self.block_size = self.fixed.block_size
-        self._waiting: NDArray[np.float32] = np.zeros((0, 2), dtype=np.float32)
+        self._fixed_count = len(self.fixed_channels)
 
-    def _fixed_input(self, block: NDArray[Any]) -> NDArray[Any]:
-        if self.fixed_channels:
-            return block[:, self.fixed_channels]
-        return np.zeros((len(block), 1), dtype=np.float32)
-
-    def _summed(self, fixed: NDArray[Any]) -> NDArray[Any]:
-        n = len(fixed)
-        out = fixed + self._waiting[:n]
-        self._waiting = self._waiting[n:]
+    def _joined(self, bed: NDArray[Any] | None, ears: NDArray[Any]) -> NDArray[np.float32]:
+        """The fixed engine's input: the bed and HOA tracks, then the two ears."""
+        out = np.zeros((len(ears), self._fixed_count + 2), dtype=np.float32)
+        if bed is not None and self._fixed_count:
+            out[:, : self._fixed_count] = bed
+        out[:, self._fixed_count :] = ears
         return out
 
     def process(self, block: NDArray[Any]) -> NDArray[Any]:
         """The output frames complete after ``block`` (``(n, 2)``, possibly fewer)."""
-        moving = self.moving.process(block[:, self.object_channels])
-        self._waiting = np.concatenate([self._waiting, moving.astype(np.float32, copy=False)])
-        return self._summed(self.fixed.process(self._fixed_input(block)))
+        ears = self.moving.process(block[:, self.object_channels])
+        return self.fixed.process(self._joined(block[:, self.fixed_channels], ears))
 
     def tail_blocks(self, frames: int) -> Iterator[NDArray[Any]]:
         """The remaining output after the last input (``frames`` zero frames pushed)."""
-        sources = len(self.object_channels)
-        for fixed in self.fixed.tail_blocks(frames):
-            need = len(fixed) - len(self._waiting)
-            if need > 0:
-                more = self.moving.process(np.zeros((need, sources), dtype=np.float32))
-                self._waiting = np.concatenate([self._waiting, more.astype(np.float32)])
-            yield self._summed(fixed)
+        pushed = 0
+        for ears in self.moving.flush():  # the moving engine's own tail: L - 1 frames
+            pushed += len(ears)
+            out = self.fixed.process(self._joined(None, ears))
+            if len(out):
+                yield out
+        yield from self.fixed.tail_blocks(frames - pushed)
 
     def close(self) -> None:
         """Stop the fixed engine's threads."""
@@ -106,7 +108,7 @@ class ObjectsEngine:
                 "update_frames": self.moving.hop,
                 "filter_length": self.moving.filter_length,
                 "transform_size": self.moving.transform_size,
-                "post_filter_length": self.moving.post_length,
+                "post_filter_length": self.post_length,
             },
         }
 
