@@ -556,6 +556,14 @@ class MovingSourceEngine:
         self.reset()
 
     @property
+    def batch_frames(self) -> int:
+        """Frames of one batch of hops (:data:`BATCH_HOPS` hops). Blocks of a multiple of
+        this length are rendered in whole batches: no part-filled hop is rendered ahead
+        and again on the next call (with 8192-frame blocks at 48 kHz that cost 12 % more
+        than with 7680, measured with 16 sources)."""
+        return self.hop * BATCH_HOPS
+
+    @property
     def nbytes(self) -> int:
         """Bytes held by the engine's own arrays (the shared table left out)."""
         own = sum(v.nbytes for v in vars(self).values() if isinstance(v, np.ndarray))

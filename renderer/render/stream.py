@@ -69,7 +69,10 @@ class ObjectsEngine:
         filters[-1, 1, : ears.shape[-1]] = ears[1]
         self.post_length = 0 if post is None else int(ears.shape[-1])
         self.fixed = FoldEngine(filters, block_size)
-        self.block_size = self.fixed.block_size
+        # Blocks of whole batches of the moving engine's hops (7680 frames for 8192 at
+        # 48 kHz): the fixed engine takes blocks of any length.
+        batch = self.moving.batch_frames
+        self.block_size = max(batch, block_size // batch * batch)
         self._fixed_count = len(self.fixed_channels)
 
     def _joined(self, bed: NDArray[Any] | None, ears: NDArray[Any]) -> NDArray[np.float32]:
