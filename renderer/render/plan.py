@@ -690,6 +690,7 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
         )
     else:
         reference = get_layout("5.0")
+    _take_lookups(hset, set_key, cache)  # objects resting in place look up exact pairs
     reference_feeds = cached_speaker_feeds(
         reference,
         range(reference.channels),
@@ -747,6 +748,7 @@ def _plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Re
                     f"{'is' if len(entry['not_rendered']) == 1 else 'are'} not rendered yet"
                 )
         eq_report["moving_pairs_cache"] = prepare_pair_grid(hset, set_key, cache)
+        _keep_lookups(hset, set_key, cache)
         objects = AdmTracks(
             channels=tuple(obj.track for obj in master.objects),
             paths=tuple(paths),

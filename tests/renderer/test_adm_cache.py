@@ -161,14 +161,15 @@ def test_cache_info_lists_the_grid_and_clear_removes_it(tmp_path, cache_dir, cap
     assert main(["cache", "info", "--json"]) == 0
     info = json.loads(capsys.readouterr().out)
     kinds = info["kinds"]
-    assert set(kinds) == {"hrtf", "feeds", "moving-grid"}
-    assert sum(k["entries"] for k in kinds.values()) == info["entries"] == 3
+    # the set, its prepared lookups, the bed's feeds and the grid
+    assert set(kinds) == {"hrtf", "lookup", "feeds", "moving-grid"}
+    assert sum(k["entries"] for k in kinds.values()) == info["entries"] == 4
     assert sum(k["bytes"] for k in kinds.values()) == info["bytes"]
     assert kinds["moving-grid"]["bytes"] > 10 * kinds["feeds"]["bytes"]
     assert main(["cache", "info"]) == 0
     assert "moving-grid" in capsys.readouterr().out
     assert main(["cache", "clear"]) == 0
-    assert "removed 3 entries" in capsys.readouterr().out
+    assert "removed 4 entries" in capsys.readouterr().out
     assert not _entries(cache_dir, "moving-grid")
 
 
