@@ -45,10 +45,11 @@ class ObjectsEngine:
     The moving engine's ears enter the fixed engine as two more channels, filtered there
     by the set's equalisation (the moving engine's post filter, or a unit impulse for a
     set without one): one convolver does the bed's work and the objects' equalisation
-    together, instead of a second two-channel convolver behind the moving engine (which
-    cost about a fifth of the moving engine's time, measured with 16 objects). After the
-    input, the moving engine's tail enters the fixed engine, then zeros: the output ends
-    ``frames`` after the input, as for any engine.
+    together, instead of a second two-channel convolver behind the moving engine and a
+    buffer that held the moving output until the fixed output of the same frames came
+    (measured with a 7.1.4 bed and 16 objects: 1.13 s of engine time per minute of audio
+    against 1.18 s). After the input, the moving engine's tail enters the fixed engine,
+    then zeros: the output ends ``frames`` after the input, as for any engine.
     """
 
     def __init__(self, plan: RenderPlan, block_size: int) -> None:
