@@ -214,12 +214,16 @@ def _bench_adm(args: argparse.Namespace) -> int:
         )
         return EXIT_BAD_INPUT
     get_room(args.room)  # a bad name fails here, in one line
-    result = run_command_bench(
-        seconds=args.seconds,
-        cases=(adm_case(args.room),),
-        rounds=args.rounds or COMMAND_ROUNDS,
-        progress=None if args.json else lambda msg: print(msg, file=sys.stderr),
-    )
+    try:
+        result = run_command_bench(
+            seconds=args.seconds,
+            cases=(adm_case(args.room),),
+            rounds=args.rounds or COMMAND_ROUNDS,
+            progress=None if args.json else lambda msg: print(msg, file=sys.stderr),
+        )
+    except RuntimeError as exc:  # a timed command failed: its own message says why
+        print(f"earfold: error: {exc}", file=sys.stderr)
+        return 1
     if args.json:
         print_json(result)
     else:

@@ -126,3 +126,15 @@ def test_bench_adm_takes_a_room_and_refuses_what_it_does_not_use(capsys):
     assert main(["bench", "--adm", "--layout", "5.1"]) != 0
     assert "--adm times its own master" in capsys.readouterr().err
     assert main(["bench", "--adm", "--room", "no-such-room"]) != 0
+
+
+def test_bench_adm_says_why_a_timed_command_failed(capsys, monkeypatch):
+    # Until ADM masters render in a room, the room case fails with the render's own words.
+    from earfold.renderer.tools import _bench_commands
+
+    def failing(argv, cwd):
+        raise RuntimeError("bench command 'earfold' failed: earfold: error: room: not available")
+
+    monkeypatch.setattr(_bench_commands, "_timed", failing)
+    assert main(["bench", "--adm", "--room", "large", "--seconds", "0.1", "--rounds", "1"]) == 1
+    assert "earfold: error: bench command 'earfold' failed" in capsys.readouterr().err
