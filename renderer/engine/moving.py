@@ -22,6 +22,9 @@ directions. It keeps the block structure of the fixed-filter engine:
 * **Gains** (an ADM object's gain, say) are applied per filter state, on the same ramp:
   the output of state ``j`` is scaled by the path's gain at frame ``j S``, so a gain
   changes as smoothly as a direction.
+* **Silence costs nothing.** A source whose input is zero over a batch's windows, or
+  whose gain is 0 in all of the batch's states, is left out of that batch's transforms
+  and sums (it would add exact zeros).
 
 Where filter pairs come from. A :class:`PairTable` takes a function from directions to
 pairs (``pairs(vectors) -> (n, 2, L)``, e.g. an HRIR set's bulk lookup) and keeps each
@@ -645,9 +648,17 @@ class MovingSourceEngine:
         """Output (count * S, 2) of ``count`` hops from ``self._next_hop`` on."""
         n, s = self.transform_size, self.hop
         buf = np.concatenate([self._history, frames], axis=1)  # (K, N - S + count S)
+        rows, gains = self._states(count)  # (count + 1, K)
+        # A source silent over the batch's windows, or at gain 0 in all its states (an
+        # object outside its time span, or muted), adds exactly nothing: it is left out
+        # of the transforms and the sums, which gives the same bits.
+        active = np.flatnonzero(np.any(buf != 0, axis=1) & np.any(gains != 0, axis=0))
+        if len(active) == 0:
+            return np.zeros((count * s, 2), dtype=self.dtype)
+        if len(active) < self.sources:
+            buf, rows, gains = buf[active], rows[:, active], gains[:, active]
         windows = np.lib.stride_tricks.sliding_window_view(buf, n, axis=1)[:, ::s][:, :count]
         spectra = scipy.fft.rfft(windows, axis=-1)  # (K, count, bins)
-        rows, gains = self._states(count)  # (count + 1, K)
         table = self.table.spectra[rows]  # (count + 1, K, 2, bins)
         if np.any(gains != 1.0):
             table *= gains.astype(self.dtype)[:, :, None, None]

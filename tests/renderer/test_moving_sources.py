@@ -304,6 +304,29 @@ def test_grid_pairs_that_do_not_fit_are_not_taken(kemar):
         PairTable(kemar.pairs, RATE, filter_length=0)
 
 
+def test_silent_and_muted_sources_add_exactly_nothing(kemar):
+    # Sources that are silent over a batch, or at gain 0 in all its states, are left out
+    # of its transforms and sums: the render is the same bits as without them.
+    frames = 48000
+    moving = SourcePath([0, frames], direction_to_vector(np.array([30.0, -60.0]), np.zeros(2)))
+    muted = SourcePath([0, frames], direction_to_vector(np.array([90.0, 0.0]), np.zeros(2)), [0, 0])
+    later = SourcePath.fixed(direction_to_vector(-120.0, 20.0))
+    x = np.zeros((frames, 4), np.float32)
+    x[:, 0] = _noise(frames, seed=3)[:, 0]
+    x[:, 2] = _noise(frames, seed=4)[:, 0]  # loud, but its gain is 0 throughout
+    start = 30000
+    x[start:, 3] = _noise(frames - start, seed=5)[:, 0]  # silent until `start`
+    table = PairTable(kemar.pairs, RATE)
+    silent = SourcePath.fixed([1.0, 0.0, 0.0])
+    y = _render(MovingSourceEngine([moving, silent, muted, later], table), x, (7680, 1000))
+    alone = _render(MovingSourceEngine([moving], table), x[:, :1], (7680, 1000))
+    before = start - 2 * 7680  # batches whose windows end before the late source starts
+    np.testing.assert_array_equal(y[:before], alone[:before])
+    assert np.abs(y[start + 1000 :] - alone[start + 1000 :]).max() > 0.01  # it plays later
+    quiet = MovingSourceEngine([silent, muted], table)
+    assert not np.any(_render(quiet, x[:, 1:3], (7680,)))
+
+
 def test_the_grid_snaps_by_less_than_a_step():
     table = PairTable(lambda v: np.zeros((len(v), 2, 4)), RATE)
     grid = table._grid
