@@ -10,11 +10,13 @@ ITU-R BS.2094 for formats a file references without defining.
   (BS.2076-2 interpolation: ``jumpPosition``, ``interpolationLength``).
 - :func:`inspect_adm`: a JSON-ready summary for a command or a page.
 - :func:`read_wav_chunks`: the header walk alone (``fmt ``, ``data``, ``chna``, ``axml``).
+- :func:`write_master`: a master written byte by byte (the benchmark's, the tests'), with
+  the ``axml`` element builders in ``_write``.
 
 Modules, each one concept: ``_chunks`` (RIFF/RF64/BW64), ``_chna``, ``_xml`` (safe
 parsing, limits in ``_limits``), ``_time``, ``_ids``, ``_definitions`` (XML to
 definitions), ``_common_data``/``_common`` (BS.2094 table), ``_read`` (the programme
-resolved), ``_positions``, ``_inspect``.
+resolved), ``_positions``, ``_inspect``, ``_write``.
 """
 
 from __future__ import annotations
@@ -52,6 +54,7 @@ from ._model import (
 from ._positions import ObjectPath, object_positions
 from ._read import read_adm
 from ._time import format_time, parse_time
+from ._write import write_master
 
 __all__ = [
     "BS2051_SYSTEMS",
@@ -86,4 +89,5 @@ __all__ = [
     "parse_time",
     "read_adm",
     "read_wav_chunks",
+    "write_master",
 ]
