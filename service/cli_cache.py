@@ -28,6 +28,11 @@ def cmd_cache_info(args: argparse.Namespace) -> int:
     print(f"entries  {info['entries']}")
     size, limit = info["bytes"] / 2**20, info["limit_bytes"] / 2**20
     print(f"size     {size:.1f} MiB of at most {limit:.0f} MiB")
+    for kind, held in info["kinds"].items():
+        print(
+            f"  {kind:<12} {held['entries']:>4} entr{'y' if held['entries'] == 1 else 'ies'}"
+            f"  {held['bytes'] / 2**20:8.1f} MiB"
+        )
     return 0
 
 
@@ -47,7 +52,8 @@ def add_cache_parser(sub: argparse._SubParsersAction) -> None:
         "cache",
         help="show or clear the cache of prepared filters",
         description="Renders keep the HRTF sets and rooms they prepare (resampled, "
-        "equalised, room filters) in a folder, so that the next render with the same set "
+        "equalised, room filters, filter banks, an ADM render's moving pair grid) in a "
+        "folder, so that the next render with the same set "
         "and room starts sooner: $EARFOLD_CACHE_DIR, else the user's cache folder. Its size "
         "is bounded ($EARFOLD_CACHE_LIMIT_MB, default 1024), the least recently used "
         "entries going first. $EARFOLD_NO_CACHE=1 or 'render --no-cache' bypasses it.",

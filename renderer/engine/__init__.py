@@ -21,6 +21,7 @@ from .lfe import (
 )
 from .moving import (
     GRID_STEP_DEG,
+    GRID_VERSION,
     MAX_EXACT_PAIRS,
     MAX_UPDATE_SECONDS,
     SPREAD_COLUMNS,
@@ -44,6 +45,7 @@ __all__ = [
     "FoldEngine",
     "GainFunction",
     "GRID_STEP_DEG",
+    "GRID_VERSION",
     "MAX_EXACT_PAIRS",
     "MAX_UPDATE_SECONDS",
     "MovingSourceEngine",

@@ -79,6 +79,7 @@ class PanningMixer:
     >>> import numpy as np
     >>> def two(v):  # left and right by the sign of y, for the example
     ...     return np.stack([v[:, 1] >= 0, v[:, 1] < 0], axis=1).astype(float)
+    >>> from earfold.renderer.engine import SourcePath
     >>> mixer = PanningMixer([SourcePath.fixed([0.0, -1.0, 0.0])], two, 48000.0)
     >>> mixer.process(np.ones((3, 1))).tolist()
     [[0.0, 1.0], [0.0, 1.0], [0.0, 1.0]]

@@ -17,11 +17,14 @@ ITU-R BS.2094 for formats a file references without defining.
 - :func:`direction_vectors`: ADM positions (polar, or cartesian X right, Y front, Z up)
   as our unit vectors.
 - :func:`read_wav_chunks`: the header walk alone (``fmt ``, ``data``, ``chna``, ``axml``).
+- :func:`write_master`: a master written byte by byte (the benchmark's, the tests'), with
+  the ``axml`` element builders in ``writer`` (a public module: the bench and the tests
+  build masters with them).
 
 Modules, each one concept: ``_chunks`` (RIFF/RF64/BW64), ``_chna``, ``_xml`` (safe
 parsing, limits in ``_limits``), ``_time``, ``_ids``, ``_definitions`` (XML to
 definitions), ``_common_data``/``_common`` (BS.2094 table), ``_read`` (the programme
-resolved), ``_positions``, ``_extent``, ``_inspect``.
+resolved), ``_positions``, ``_extent``, ``_inspect``, ``writer``.
 """
 
 from __future__ import annotations
@@ -69,6 +72,7 @@ from ._model import (
 from ._positions import ObjectPath, direction_vectors, object_positions
 from ._read import read_adm
 from ._time import format_time, parse_time
+from .writer import write_master
 
 __all__ = [
     "BS2051_SYSTEMS",
@@ -112,4 +116,5 @@ __all__ = [
     "probe_adm",
     "read_adm",
     "read_wav_chunks",
+    "write_master",
 ]

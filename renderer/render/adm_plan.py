@@ -55,8 +55,9 @@ from .adm_feeds import (
     object_path,
 )
 from .bank import RenderPlan, calibrated_gain
+from .feed_cache import cached_speaker_feeds
 from .feeds import ChannelFeed, speaker_feeds
-from .filter_cache import default_filter_cache
+from .filter_cache import FilterCache, default_filter_cache
 from .options import ROOM_MODES, SCENE_OPTIONS, RenderSettings
 from .prepared import is_measured_room, keep_lookups, prepared_set, room_part, take_lookups
 
@@ -235,30 +236,32 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         notes,
         without_direct=reflections,
     )
-    take_lookups(hset, set_key, cache)
+    take_lookups(hset, set_key, cache)  # objects resting in place look up exact pairs
     exact = room_filters is not None and settings.room_mode == "exact"
-    row_feeds = speaker_feeds(
-        rows_layout,
-        tuple(range(len(rows))),
-        hset,
-        rate,
-        lfe=settings.lfe,
-        room_responses=(
-            None
-            if room_filters is None
-            else exact_brirs(room_filters)
-            if exact
-            else room_filters.early
-        ),
-        room_tail_weights=(
-            None if room_filters is None or exact else np.asarray(room_filters.tail_weights)
-        ),
-        room_arrival_samples=(
-            0.0 if room_filters is None else float(room_filters.report["reference_arrival_samples"])
-        ),
-        warnings=warnings,
-    )
-    keep_lookups(hset, set_key, cache)
+    if room_filters is None:
+        # Free field: the bed's feeds as a channel render's, kept in the cache.
+        row_feeds = cached_speaker_feeds(
+            rows_layout,
+            range(len(rows)),
+            hset,
+            rate,
+            lfe=settings.lfe,
+            set_key=set_key,
+            cache=cache,
+            warnings=warnings,
+        )
+    else:
+        row_feeds = speaker_feeds(
+            rows_layout,
+            tuple(range(len(rows))),
+            hset,
+            rate,
+            lfe=settings.lfe,
+            room_responses=exact_brirs(room_filters) if exact else room_filters.early,
+            room_tail_weights=None if exact else np.asarray(room_filters.tail_weights),
+            room_arrival_samples=float(room_filters.report["reference_arrival_samples"]),
+            warnings=warnings,
+        )
     shared = room_filters is not None and not exact
     tail = None if not shared or room_filters is None else np.asarray(room_filters.tail, float)
     tail_offset = 0 if tail is None or room_filters is None else int(room_filters.tail_offset)
@@ -343,6 +346,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
             _Rows(rows, row_filters, row_tail, reflections, room_filters),
             hset,
             settings,
+            (set_key, cache, eq_report),
             gain,
             spans,
             notes,
@@ -354,6 +358,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         if reflections:
             for entry in entries:
                 entry["rendered"] += "; reflections from the room's virtual array"
+    keep_lookups(hset, set_key, cache)  # with what the feeds and the pair grid looked up
     used = set(fixed) | {obj.track for obj in master.objects}
     unused = [t + 1 for t in range(stem.channels) if t not in used]
     if unused:
@@ -478,14 +483,6 @@ def _hoa_filters(
     return fold_matrix(sn3d, matrix), matrix.T @ sn3d_tail
 
 
-def _moving_length(hset: Any, paths: list[MetadataPath], gain: float) -> int:
-    """Length of the moving engine's whole response (its pairs and the set's EQ)."""
-    from .moving_sources import moving_source_engine
-
-    engine = moving_source_engine(hset, paths, gain=gain)
-    return int(engine.filter_length + engine.post_length - 1)
-
-
 def _with_decay(
     plan: RenderPlan,
     row_filters: NDArray[np.float64],
@@ -526,17 +523,20 @@ def _object_tracks(
     rows: _Rows,
     hset: Any,
     settings: RenderSettings,
+    prepared: tuple[dict[str, Any] | None, FilterCache | None, dict[str, Any]],
     gain: float,
     spans: tuple[TrackSpan, ...],
     notes: list[str],
 ) -> AdmTracks:
     """The objects' part of the plan: the moving engine's paths (their direct shares), and
     the bus the mixers feed: the spread array's rows (HRIR pairs, delayed to the room's
-    direct rows.arrival), the reflection array's rows, the diffuse row; each mixer's sources
+    direct arrival), the reflection array's rows, the diffuse row; each mixer's sources
     and columns."""
     from ..scenes import virtual_layout
+    from .moving_sources import moving_response_length, prepare_pair_grid
 
     rate = float(hset.samplerate)
+    set_key, cache, eq_report = prepared
 
     bus: list[NDArray[np.float64]] = []
     bus_tail: list[float] = []
@@ -555,7 +555,15 @@ def _object_tracks(
             "the virtual array objects with an extent are spread over",
             "earfold.renderer.scenes.virtual_layout",
         )
-        pairs = speaker_feeds(spread_layout, tuple(range(len(array))), hset, rate, lfe=settings.lfe)
+        pairs = cached_speaker_feeds(
+            spread_layout,
+            range(len(array)),
+            hset,
+            rate,
+            lfe=settings.lfe,
+            set_key=set_key,
+            cache=cache,
+        )
         for feed in pairs:
             row = np.zeros((2, rows.arrival + feed.filters.shape[-1]))
             row[:, rows.arrival :] = feed.filters
@@ -627,7 +635,10 @@ def _object_tracks(
         objects.paths[k].with_direct_share() if objects.summaries[k].diffuse else objects.paths[k]
         for k in objects.followed
     ]
-    moving = _moving_length(hset, direct, gain) if direct else 1
+    moving = 1
+    if direct:
+        eq_report["moving_pairs_cache"] = prepare_pair_grid(hset, set_key, cache)
+        moving = moving_response_length(hset)
     return AdmTracks(
         channels=tuple(tracks[k] for k in objects.followed),
         paths=tuple(direct),

@@ -265,13 +265,22 @@ class FilterCache:
     # -- the user's view ----------------------------------------------------------------
 
     def info(self) -> dict[str, Any]:
-        """The disk cache's folder, bound, entries and bytes (JSON-ready)."""
+        """The disk cache's folder, bound, entries and bytes, also by kind of entry
+        (``hrtf``, ``lookup``, ``room``, ``bank``, ``feeds``, ``moving-grid``; JSON-ready)."""
         files = self._entries()
+        kinds: dict[str, dict[str, int]] = {}
+        for path, size, _ in files:
+            # Entry files are named "<kind>-<digest>.npz"; kinds may hold dashes.
+            kind = path.name[: -len(_SUFFIX)].rpartition("-")[0] or "?"
+            held = kinds.setdefault(kind, {"entries": 0, "bytes": 0})
+            held["entries"] += 1
+            held["bytes"] += size
         return {
             "directory": None if self.directory is None else str(self.directory),
             "limit_bytes": self.limit_bytes,
             "entries": len(files),
             "bytes": sum(size for _, size, _ in files),
+            "kinds": dict(sorted(kinds.items())),
             "version": PREPARATION_VERSION,
         }
 

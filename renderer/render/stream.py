@@ -37,19 +37,23 @@ def engine_for(plan: RenderPlan, block_size: int) -> FoldEngine | ObjectsEngine:
 
 
 class ObjectsEngine:
-    """An ADM master's engine (:mod:`.adm_plan`): the fixed bank (:class:`FoldEngine`, with
-    the room's shared tail) on the bed and HOA tracks and on the bus the objects' mixers
+    """An ADM master's engine (:mod:`.adm_plan`): one fixed bank (:class:`FoldEngine`,
+    with the room's shared tail) on the bed and HOA tracks, on the bus the objects' mixers
     feed (:class:`~earfold.renderer.engine.PanningMixer`: the spread array, the room's
-    reflection array, the diffuse channel), and the moving-source engine on the objects
-    followed with their own pairs
-    (:func:`~earfold.renderer.render.moving_sources.moving_source_engine`), its output
-    delayed to the room's direct arrival and summed frame for frame.
+    reflection array, the diffuse and tail channels) and on the two ears of the moving
+    engine that follows the other objects with their own pairs
+    (:func:`~earfold.renderer.render.moving_sources.moving_source_engine`).
 
-    The fixed engine hands back whole hops (possibly fewer frames than it was given), the
-    moving engine every frame: the moving output waits until the fixed output of the same
-    frames is there. After the input, both are given the same number of zero frames, so
-    the two outputs end together: ``input + frames`` frames in all. Bed and HOA tracks
-    with a time span are silent outside it.
+    The moving engine's ears enter the fixed engine as two more channels, filtered there
+    by the set's equalisation (the moving engine's post filter, or a unit impulse for a
+    set without one) delayed to the room's direct arrival: one convolver does the bed's
+    work and the objects' equalisation together, instead of a second two-channel
+    convolver behind the moving engine and a buffer that held the moving output until
+    the fixed output of the same frames came (measured with a 7.1.4 bed and 16 objects:
+    1.13 s of engine time per minute of audio against 1.18 s). Blocks are whole batches
+    of the moving engine's hops. After the input, the moving engine's tail enters the
+    fixed engine, then zeros: the output ends ``frames`` after the input, as for any
+    engine. Bed and HOA tracks with a time span are silent outside it.
     """
 
     def __init__(self, plan: RenderPlan, block_size: int) -> None:
@@ -78,6 +82,26 @@ class ObjectsEngine:
                 if objects.bus_tail_weights is None
                 else objects.bus_tail_weights
             )
+        self.moving: MovingSourceEngine | None = None
+        self.post_length = 0
+        self.block_size = block_size
+        if self.object_channels:
+            from .moving_sources import moving_post_filter, moving_source_engine
+
+            self.moving = moving_source_engine(hset, objects.paths, gain=objects.gain, post=False)
+            post = moving_post_filter(hset)
+            eq = np.ones((2, 1)) if post is None else np.atleast_2d(post) * np.ones((2, 1))
+            delay = objects.moving_delay
+            ears = np.zeros((2, 2, delay + eq.shape[-1]))
+            ears[0, 0, delay:] = eq[0]  # the left ear's sum to the left ear
+            ears[1, 1, delay:] = eq[1]
+            self.post_length = 0 if post is None else int(eq.shape[-1])
+            banks.append(ears)
+            weights.append(np.zeros(2))
+            # Blocks of whole batches of the moving engine's hops (7680 frames for 8192 at
+            # 48 kHz): the fixed engine takes blocks of any length.
+            batch = self.moving.batch_frames
+            self.block_size = max(batch, block_size // batch * batch)
         longest = max(b.shape[-1] for b in banks)
         filters = np.concatenate([_padded(b, longest) for b in banks])
         if not len(filters):
@@ -90,68 +114,49 @@ class ObjectsEngine:
             tail_weights=None if plan.tail is None else np.concatenate(weights),
             tail_offset=plan.tail_offset,
         )
-        self.moving: MovingSourceEngine | None = None
-        if self.object_channels:
-            from .moving_sources import moving_source_engine
-
-            self.moving = moving_source_engine(hset, objects.paths, gain=objects.gain)
-        self.block_size = self.fixed.block_size
+        self._inputs = max(1, len(filters))
         self._gates = [
             (self.fixed_channels.index(span.track), span.start, span.end)
             for span in objects.spans
             if span.track in self.fixed_channels
         ]
         self._frame = 0
-        # The moving output waits for the fixed output of the same frames, after the
-        # delay that puts it at the room's direct arrival.
-        self._waiting: NDArray[np.float32] = np.zeros((objects.moving_delay, 2), np.float32)
 
-    def _fixed_input(self, block: NDArray[Any]) -> NDArray[Any]:
-        n = len(block)
-        parts = []
-        if self.fixed_channels:
-            fixed = block[:, self.fixed_channels]
-            if self._gates:
-                fixed = np.array(fixed, dtype=np.float32)
+    def _joined(self, block: NDArray[Any] | None, ears: NDArray[Any] | None, n: int) -> Any:
+        """The fixed engine's input for ``n`` frames: the bed and HOA tracks (gated by their
+        spans), the bus the mixers feed, then the moving engine's two ears."""
+        out = np.zeros((n, self._inputs), dtype=np.float32)
+        fixed = len(self.fixed_channels)
+        if block is not None:
+            if fixed:
+                out[:, :fixed] = block[:, self.fixed_channels]
                 frames = self._frame + np.arange(n)
                 for column, start, end in self._gates:
                     outside = (frames < start) | ((frames >= end) if end >= 0 else False)
-                    fixed[outside, column] = 0.0
-            parts.append(fixed)
-        if self._bus:
-            bus = np.zeros((n, self._bus), dtype=np.float32)
+                    out[outside, column] = 0.0
             for channels, first, mixer in self.mixers:
-                bus[:, first : first + mixer.channels] += mixer.process(block[:, channels])
-            parts.append(bus)
-        self._frame += n
-        if not parts:
-            return np.zeros((n, 1), dtype=np.float32)
-        return parts[0] if len(parts) == 1 else np.concatenate(parts, axis=1)
-
-    def _summed(self, fixed: NDArray[Any]) -> NDArray[Any]:
-        if self.moving is None:
-            return fixed
-        n = len(fixed)
-        out = fixed + self._waiting[:n]
-        self._waiting = self._waiting[n:]
+                at = fixed + first
+                out[:, at : at + mixer.channels] += mixer.process(block[:, channels])
+            self._frame += n
+        if ears is not None:
+            out[:, fixed + self._bus : fixed + self._bus + 2] = ears
         return out
 
     def process(self, block: NDArray[Any]) -> NDArray[Any]:
         """The output frames complete after ``block`` (``(n, 2)``, possibly fewer)."""
-        if self.moving is not None:
-            moving = self.moving.process(block[:, self.object_channels])
-            self._waiting = np.concatenate([self._waiting, moving.astype(np.float32, copy=False)])
-        return self._summed(self.fixed.process(self._fixed_input(block)))
+        ears = None if self.moving is None else self.moving.process(block[:, self.object_channels])
+        return self.fixed.process(self._joined(block, ears, len(block)))
 
     def tail_blocks(self, frames: int) -> Iterator[NDArray[Any]]:
         """The remaining output after the last input (``frames`` zero frames pushed)."""
-        sources = len(self.object_channels)
-        for fixed in self.fixed.tail_blocks(frames):
-            need = len(fixed) - len(self._waiting)
-            if self.moving is not None and need > 0:
-                more = self.moving.process(np.zeros((need, sources), dtype=np.float32))
-                self._waiting = np.concatenate([self._waiting, more.astype(np.float32)])
-            yield self._summed(fixed)
+        pushed = 0
+        if self.moving is not None:
+            for ears in self.moving.flush():  # the moving engine's own tail: L - 1 frames
+                pushed += len(ears)
+                out = self.fixed.process(self._joined(None, ears, len(ears)))
+                if len(out):
+                    yield out
+        yield from self.fixed.tail_blocks(frames - pushed)
 
     def close(self) -> None:
         """Stop the fixed engine's threads."""
@@ -166,7 +171,7 @@ class ObjectsEngine:
                 "update_frames": self.moving.hop,
                 "filter_length": self.moving.filter_length,
                 "transform_size": self.moving.transform_size,
-                "post_filter_length": self.moving.post_length,
+                "post_filter_length": self.post_length,
             }
         if self.mixers:
             out["object_mixes"] = [

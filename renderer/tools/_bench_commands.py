@@ -14,6 +14,13 @@ own, from start to exit:
 * **io_floor** — a script that only reads the stem (all channels, in blocks) and writes a
   2-channel PCM_24 file of the same length: what any tool must pay.
 
+The ADM case (:data:`ADM_CASE`, alone with ``earfold bench --adm``) renders a synthetic
+ADM master instead of a stem (:func:`~._bench_adm.make_adm_master`: a 7.1.4 bed and 16
+moving objects, RF64 with ``axml`` and ``chna``), ``earfold render MASTER -o OUT`` with no
+layout, as issue 18 times it; there is no per-filter script for moving sources, so its
+figures are the real-time factor (against its target, :attr:`CommandCase.target_x_real_time`)
+and the ratio to the I/O floor of reading the master's 28 tracks.
+
 The commands of a case run in :data:`COMMAND_ROUNDS` interleaved rounds (the order reversed
 every other round), and each command's fastest round counts: the machine's other work only
 ever adds time. Ratios are taken between the fastest runs of one case, measured in the same
@@ -22,6 +29,7 @@ minute. Every run's time is kept in the result.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import platform
@@ -37,12 +45,16 @@ from typing import Any
 
 import numpy as np
 
+from ._bench_adm import ADM_BED, make_adm_master
 from ._bench_cases import BENCH_SAMPLERATE, make_noise_stem
 
 __all__ = [
+    "ADM_CASE",
+    "ADM_LAYOUT",
     "COMMAND_CASES",
     "COMMAND_ROUNDS",
     "CommandCase",
+    "adm_case",
     "format_command_bench",
     "run_command_bench",
 ]
@@ -68,14 +80,50 @@ class CommandCase:
     room: str = "none"
     #: The scripts timed against ``earfold render`` in this case.
     against: tuple[str, ...] = ("io_floor",)
+    #: Moving objects of an ADM master (``layout`` "adm"); 0 for a stem of ``layout``.
+    objects: int = 0
+    #: The real-time factor an issue asks of the whole command, if any.
+    target_x_real_time: float | None = None
 
+    @property
+    def channels(self) -> int:
+        """The input's channels: the layout's, or an ADM master's bed and objects."""
+        if self.layout == ADM_LAYOUT:
+            return len(ADM_BED) + self.objects
+        from ..layouts import get_layout
+
+        return get_layout(self.layout).channels
+
+
+#: The ``layout`` of a case that renders the benchmark's ADM master.
+ADM_LAYOUT = "adm"
+
+#: Issue 18's case: a 60 s master, a 7.1.4 bed and 16 moving objects, at >= 100x real
+#: time free field (>= 60x with the large room: :func:`adm_case`).
+ADM_CASE = CommandCase(
+    "ADM 7.1.4 + 16 objects 60 s", ADM_LAYOUT, 60.0, objects=16, target_x_real_time=100.0
+)
 
 COMMAND_CASES: tuple[CommandCase, ...] = (
     CommandCase("7.1.4 120 s", "7.1.4", 120.0, against=("per_filter", "io_floor")),
     CommandCase("5.1 600 s large room", "5.1", 600.0, room="large"),
     CommandCase("7.1.4 60 s large room", "7.1.4", 60.0, room="large", against=("per_filter",)),
     CommandCase("5.1 1 s", "5.1", 1.0),
+    ADM_CASE,
 )
+
+
+def adm_case(room: str = "none") -> CommandCase:
+    """The ADM case, in ``room`` (issue 18: >= 60x real time with the large room)."""
+    if room == "none":
+        return ADM_CASE
+    return dataclasses.replace(
+        ADM_CASE,
+        name=f"{ADM_CASE.name} {room} room",
+        room=room,
+        target_x_real_time=60.0 if room == "large" else None,
+    )
+
 
 #: The per-filter script: argv = stem, filters (.npy, shape (C, 2, L)), output.
 PER_FILTER_SCRIPT = """\
@@ -173,8 +221,6 @@ def run_command_bench(
     workdir: str | os.PathLike[str] | None = None,
 ) -> dict[str, Any]:
     """Time the whole commands of every case and return the figures (JSON-ready)."""
-    from ..layouts import get_layout
-
     say = progress or (lambda msg: None)
     result: dict[str, Any] = {
         "kind": "commands",
@@ -194,10 +240,15 @@ def run_command_bench(
             Path(scripts[name]).write_text(text)
         for case in cases:
             length = scaled_seconds(case, seconds)
-            channels = get_layout(case.layout).channels
+            channels = case.channels
             stem = str(Path(tmp) / "stem.wav")
-            say(f"bench: generating {length:g} s {case.layout} noise stem ({case.name})")
-            make_noise_stem(stem, channels, length)
+            adm = case.layout == ADM_LAYOUT
+            if adm:
+                say(f"bench: generating {length:g} s ADM master ({case.name})")
+                make_adm_master(stem, length, objects=case.objects)
+            else:
+                say(f"bench: generating {length:g} s {case.layout} noise stem ({case.name})")
+                make_noise_stem(stem, channels, length)
             report = Path(tmp) / "out-earfold.report.json"  # the command's default report
             argv: dict[str, list[str]] = {
                 "earfold": [
@@ -206,8 +257,7 @@ def run_command_bench(
                     stem,
                     "-o",
                     str(Path(tmp) / "out-earfold.wav"),
-                    "--layout",
-                    case.layout,
+                    *([] if adm else ["--layout", case.layout]),
                     *(["--room", case.room] if case.room != "none" else []),
                     "--quiet",
                 ]
@@ -219,6 +269,10 @@ def run_command_bench(
                 "room": case.room,
                 "seconds_of_audio": round(length, 4),
             }
+            if adm:
+                row["objects"] = case.objects
+            if case.target_x_real_time is not None:
+                row["target_x_real_time"] = case.target_x_real_time
             if "per_filter" in case.against:
                 filters = str(Path(tmp) / "filters.npy")
                 row["per_filter_taps"] = _write_filters(stem, case.layout, case.room, filters)
@@ -259,6 +313,10 @@ def run_command_bench(
             row["earfold_stages_s"] = stages[int(np.argmin(runs["earfold"]))]
             row["load_average_after"] = _load_average()
             row.update(command_ratios(row["commands"]))
+            if case.target_x_real_time is not None:
+                row["meets_target"] = (
+                    row["commands"]["earfold"]["x_real_time"] >= case.target_x_real_time
+                )
             result["cases"].append(row)
             for path in Path(tmp).glob("*.wav"):
                 path.unlink()
@@ -289,7 +347,7 @@ def format_command_bench(result: dict[str, Any]) -> str:
         f"interleaved rounds; {result['cpu_count']} CPU(s); lengths x{result['scale']:g}; "
         f"load average at the start {_first_load(result)}",
         "",
-        f"{'case':<24} {'earfold':>10} {'xRT':>8} {'per-filter':>11} {'speed-up':>9} "
+        f"{'case':<28} {'earfold':>10} {'xRT':>8} {'per-filter':>11} {'speed-up':>9} "
         f"{'I/O floor':>10} {'ours/floor':>11}   earfold's stages: plan, render, delivery, "
         "outside the render (start-up, imports, report, exit)",
     ]
@@ -298,7 +356,7 @@ def format_command_bench(result: dict[str, Any]) -> str:
         pf = c.get("per_filter")
         fl = c.get("io_floor")
         line = (
-            f"{row['name']:<24} {c['earfold']['seconds']:>9.2f}s "
+            f"{row['name']:<28} {c['earfold']['seconds']:>9.2f}s "
             f"{c['earfold']['x_real_time']:>8.1f} "
             + (f"{pf['seconds']:>10.2f}s " if pf else f"{'':>11} ")
             + (f"{row['speedup_vs_per_filter']:>8.2f}x " if pf else f"{'':>9} ")
@@ -306,6 +364,12 @@ def format_command_bench(result: dict[str, Any]) -> str:
             + (f"{row['ratio_to_io_floor']:>10.2f}x" if fl else f"{'':>11}")
             + "   "
             + ", ".join(f"{v:.2f}" for v in row["earfold_stages_s"].values())
+            + (
+                f"   target >= {row['target_x_real_time']:g}x real time: "
+                + ("met" if row["meets_target"] else "not met")
+                if "target_x_real_time" in row
+                else ""
+            )
         )
         lines.append(line.rstrip())
     lines += [
@@ -315,6 +379,7 @@ def format_command_bench(result: dict[str, Any]) -> str:
         "scipy.signal.oaconvolve per (channel, ear) filter (with a room: the full room "
         "responses), float32; I/O floor = a script that reads the stem and writes 2 "
         "channels. Each a separate process, wall time from start to exit; xRT = seconds of "
-        "audio per second.",
+        "audio per second. ADM: a synthetic master (7.1.4 bed and moving objects, no "
+        "layout given); the floor reads all of its tracks.",
     ]
     return "\n".join(lines)

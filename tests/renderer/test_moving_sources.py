@@ -258,9 +258,11 @@ def test_memory_does_not_grow_with_the_stream(kemar):
     assert table.rows <= table.grid_points
 
 
-def test_a_table_loaded_from_grid_pairs_renders_alike_without_computing_them(kemar):
-    # What a cache would do: one table computes every grid pair, another (a later process)
-    # takes them and never calls its pair function for a moving source.
+def test_a_table_loaded_from_grid_pairs_renders_the_same_bits_without_computing_them(kemar):
+    # What the cache does: one table computes every grid pair, another (a later process)
+    # takes them and never calls its pair function for a moving source; a third computes
+    # the pairs as the source passes. The pairs are rounded to float32 before their
+    # spectra are taken in all three, so the renders are the same bits.
     first = PairTable(kemar.pairs, RATE, grid_step_deg=10.0)
     stored = first.grid_pairs()
     assert stored.shape == (first.grid_points, 2, kemar.taps) and stored.dtype == np.float32
@@ -270,17 +272,59 @@ def test_a_table_loaded_from_grid_pairs_renders_alike_without_computing_them(kem
         calls.append(len(vectors))
         return kemar.pairs(vectors)
 
-    second = PairTable(counted, RATE, grid_step_deg=10.0)
-    assert second.load_grid_pairs(stored)
-    assert not second.load_grid_pairs(stored[:-1])  # a grid of another size is refused
-    calls.clear()
+    second = PairTable(counted, RATE, grid_step_deg=10.0, filter_length=kemar.taps)
+    assert not calls  # the length was given: no pair looked up to learn it
+    assert second.load_grid_pairs(stored) and second.has_grid_pairs
     frames = 24000
     path = SourcePath([0, frames], direction_to_vector(np.array([0.0, 120.0]), np.zeros(2)))
     x = _noise(frames, seed=8)
     y = _render(MovingSourceEngine([path], second), x)
     assert sum(calls) == 2  # only the two ends, where the path holds: exact pairs
     ref = _render(MovingSourceEngine([path], first), x)
-    assert np.abs(y - ref).max() <= 1e-6 * np.abs(ref).max()
+    as_passed = _render(
+        MovingSourceEngine([path], PairTable(kemar.pairs, RATE, grid_step_deg=10.0)), x
+    )
+    np.testing.assert_array_equal(y, ref)
+    np.testing.assert_array_equal(as_passed, ref)
+
+
+def test_grid_pairs_that_do_not_fit_are_not_taken(kemar):
+    table = PairTable(kemar.pairs, RATE, grid_step_deg=10.0)
+    good = PairTable(kemar.pairs, RATE, grid_step_deg=10.0).grid_pairs()
+    bad = good.copy()
+    bad[3, 1, 7] = np.nan
+    assert not table.load_grid_pairs(good[:-1])  # a grid of another size
+    assert not table.load_grid_pairs(good[:, :, :-1])  # pairs of another length
+    assert not table.load_grid_pairs(good.astype(np.float64))  # not what a cache keeps
+    assert not table.load_grid_pairs(bad)
+    wide = PairTable(kemar.pairs, RATE, grid_step_deg=10.0, dtype=np.float64)
+    assert not wide.load_grid_pairs(good)  # float64 pairs are not rounded to float32
+    assert not table.has_grid_pairs and table.load_grid_pairs(good)
+    with pytest.raises(AudioError, match="filter_length must be 1 or more"):
+        PairTable(kemar.pairs, RATE, filter_length=0)
+
+
+def test_silent_and_muted_sources_add_exactly_nothing(kemar):
+    # Sources that are silent over a batch, or at gain 0 in all its states, are left out
+    # of its transforms and sums: the render is the same bits as without them.
+    frames = 48000
+    moving = SourcePath([0, frames], direction_to_vector(np.array([30.0, -60.0]), np.zeros(2)))
+    muted = SourcePath([0, frames], direction_to_vector(np.array([90.0, 0.0]), np.zeros(2)), [0, 0])
+    later = SourcePath.fixed(direction_to_vector(-120.0, 20.0))
+    x = np.zeros((frames, 4), np.float32)
+    x[:, 0] = _noise(frames, seed=3)[:, 0]
+    x[:, 2] = _noise(frames, seed=4)[:, 0]  # loud, but its gain is 0 throughout
+    start = 30000
+    x[start:, 3] = _noise(frames - start, seed=5)[:, 0]  # silent until `start`
+    table = PairTable(kemar.pairs, RATE)
+    silent = SourcePath.fixed([1.0, 0.0, 0.0])
+    y = _render(MovingSourceEngine([moving, silent, muted, later], table), x, (7680, 1000))
+    alone = _render(MovingSourceEngine([moving], table), x[:, :1], (7680, 1000))
+    before = start - 2 * 7680  # batches whose windows end before the late source starts
+    np.testing.assert_array_equal(y[:before], alone[:before])
+    assert np.abs(y[start + 1000 :] - alone[start + 1000 :]).max() > 0.01  # it plays later
+    quiet = MovingSourceEngine([silent, muted], table)
+    assert not np.any(_render(quiet, x[:, 1:3], (7680,)))
 
 
 def test_the_grid_snaps_by_less_than_a_step():
