@@ -119,8 +119,6 @@ class _Rows:
 
 def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> RenderPlan:
     """The plan of an ADM object master (see the module's notes)."""
-    from ..scenes import virtual_layout
-
     name = Path(stem.paths[0]).name
     refused = [
         what
@@ -187,7 +185,9 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
         reference = get_layout("5.0").speakers
     rows = list(reference)
     virtual_at: dict[int, int] = {}  # first row of each HOA order; -1: the objects' array
+    reflections: tuple[int, ...] = ()
     if in_room:
+        from ..scenes import virtual_layout  # here: a free-field render never loads it
         from .scene_feeds import virtual_distance
 
         # The reflection array: each direction at the beds' radius where the room leaves
@@ -211,11 +211,9 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
                     zip(np.atleast_1d(az), np.atleast_1d(el), distances, strict=True)
                 )
             )
-    reflections = (
-        tuple(range(virtual_at[-1], virtual_at[-1] + len(virtual_layout(ROOM_ARRAY_ORDER))))
-        if -1 in virtual_at
-        else ()
-    )
+        if -1 in virtual_at:
+            first = virtual_at[-1]
+            reflections = tuple(range(first, first + len(virtual_layout(ROOM_ARRAY_ORDER))))
     rows_layout = Layout(
         "ADM rows",
         tuple(rows),
@@ -394,8 +392,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
             if not master.objects
             else "followed along their paths with per-object HRIR pairs, updated every 10 ms "
             "or less and crossfaded; objects with a width or height spread over a virtual "
-            f"array of {len(virtual_layout(ARRAY_ORDER))} directions (multiple-direction "
-            "VBAP)"
+            "array (multiple-direction VBAP)"
             + (
                 f"; in the room their reflections come from a virtual array of "
                 f"{len(reflections)} directions they are panned onto by VBAP (Pulkki 1997)"
@@ -532,7 +529,6 @@ def _object_tracks(
     the bus the mixers feed: the spread array's rows (HRIR pairs, delayed to the room's
     direct arrival), the reflection array's rows, the diffuse row; each mixer's sources
     and columns."""
-    from ..scenes import virtual_layout
     from .moving_sources import moving_response_length, prepare_pair_grid
 
     rate = float(hset.samplerate)
@@ -544,7 +540,7 @@ def _object_tracks(
     tracks = [obj.track for obj in master.objects]
     room_tail = rows.room is not None and settings.room_mode != "exact"
     if objects.spread_out:
-        array = np.asarray(virtual_layout(ARRAY_ORDER), dtype=np.float64)
+        array = _design(ARRAY_ORDER)
         az, el = vector_to_direction(array)
         spread_layout = Layout(
             "ADM spread array",
@@ -588,7 +584,7 @@ def _object_tracks(
                 channels=tuple(tracks),
                 paths=tuple(objects.paths),
                 first=first,
-                array=np.asarray(virtual_layout(ROOM_ARRAY_ORDER), dtype=np.float64),
+                array=_design(ROOM_ARRAY_ORDER),
                 diffuse=objects.has_diffuse,
                 tail=room_tail,
             )
@@ -654,6 +650,15 @@ def _object_tracks(
         ),
         spans=spans,
     )
+
+
+def _design(order: int) -> NDArray[np.float64]:
+    """The directions of the virtual array of ``order``
+    (:func:`~earfold.renderer.scenes.virtual_layout`; the scenes wing is loaded only by a
+    master that needs an array)."""
+    from ..scenes import virtual_layout
+
+    return np.asarray(virtual_layout(order), dtype=np.float64)
 
 
 def _diffuse_row(

@@ -213,3 +213,65 @@ def test_hrtf_inspect_and_demo_load_no_web_or_queue_module(tmp_path, repo_root):
     sofa = repo_root / "hrtf_sets" / "rigid_sphere.sofa"
     assert _heavy(_modules_after(tmp_path, "hrtf", "inspect", str(sofa), "--json")) == []
     assert _heavy(_modules_after(tmp_path, "demo", str(tmp_path / "demo"))) == []
+
+
+def test_a_repeated_render_of_an_adm_master_loads_only_what_it_computes_with(tmp_path, monkeypatch):
+    # A master of moving point objects, free field, from cached filters (the bed's feeds,
+    # the moving engine's pair grid): no filter design, no scenes wing, no VBAP hull.
+    sys.path.insert(0, str(__import__("pathlib").Path(__file__).parents[1] / "renderer"))
+    from adm_factory import (  # the tests' masters
+        audio_object,
+        channel,
+        chna_body,
+        content,
+        document,
+        object_block,
+        pack,
+        programme,
+        stream_and_track,
+        write_master,
+    )
+
+    monkeypatch.setenv("EARFOLD_CACHE_DIR", str(tmp_path / "cache"))
+    monkeypatch.delenv("EARFOLD_NO_CACHE", raising=False)
+    uid = "ATU_00000001"
+    axml = document(
+        programme("APR_1001", "Main", ["ACO_1001"]),
+        content("ACO_1001", "All", ["AO_1001"]),
+        audio_object("AO_1001", "Kite", packs=["AP_00031001"], uids=[uid]),
+        pack("AP_00031001", "Objects", ["AC_00031001"]),
+        channel(
+            "AC_00031001",
+            "Objects",
+            [
+                object_block(
+                    "AC_00031001", 1, rtime="00:00:00.00000", duration="00:00:00.20000", az=60.0
+                ),
+                object_block(
+                    "AC_00031001", 2, rtime="00:00:00.20000", duration="00:00:00.30000", az=-60.0
+                ),
+            ],
+        ),
+        stream_and_track("AC_00031001", "AP_00031001"),
+    )
+    noise = 0.05 * np.random.default_rng(3).standard_normal((24000, 1))
+    master = write_master(
+        tmp_path / "master.wav",
+        audio=noise.astype(np.float32),
+        chna=chna_body([(1, uid, "AT_00031001_01", "AP_00031001")]),
+        axml=axml,
+    )
+    first = _modules_after(tmp_path, "render", str(master), "-o", str(tmp_path / "a.wav"))
+    again = _modules_after(tmp_path, "render", str(master), "-o", str(tmp_path / "b.wav"))
+    assert (tmp_path / "a.wav").read_bytes() == (tmp_path / "b.wav").read_bytes()
+    assert "earfold.renderer.objects" in again and "earfold.renderer.render.adm_plan" in again
+    assert "earfold.renderer.scenes" not in first and "earfold.renderer.scenes" not in again
+    # An object at rest looks up its exact pair through the set's triangulation
+    # (scipy.spatial), which the cache of lookups does not hold; nothing else heavy.
+    heavy_here = [h for h in NOT_FOR_A_CACHED_RENDER if h != "scipy.spatial"]
+    assert [
+        m
+        for m in again
+        if m.split(".")[0] == "netCDF4"
+        or any(m == heavy or m.startswith(heavy + ".") for heavy in heavy_here)
+    ] == []
