@@ -32,9 +32,15 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..engine import PathLike
-from ..geometry import direction_to_vector, vector_to_direction
+from ..geometry import vector_to_direction
 from ..layouts import Layout, Speaker
-from ..objects import AdmMaster, ObjectChannel, object_positions, object_spread
+from ..objects import (
+    AdmMaster,
+    ObjectChannel,
+    direction_vectors,
+    object_positions,
+    object_spread,
+)
 
 __all__ = [
     "UPDATE_SECONDS",
@@ -197,27 +203,10 @@ class AdmTracks:
 
 
 def position_vectors(positions: NDArray[np.float64], cartesian: bool) -> NDArray[np.float64]:
-    """Unit direction vectors (x front, y left, z up) of ADM positions ``(n, 3)``.
-
-    Polar: (azimuth, elevation, distance) in degrees, azimuth positive to the left.
-    Cartesian: (X right, Y front, Z up) per ITU-R BS.2076, so our vector is (Y, -X, Z); a
-    position at the centre (no direction) is taken as the front.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> position_vectors(np.array([[90.0, 0.0, 1.0]]), False).round(12).tolist()
-    [[0.0, 1.0, 0.0]]
-    >>> position_vectors(np.array([[-1.0, 0.0, 0.0]]), True).tolist()  # X = -1: the left
-    [[0.0, 1.0, 0.0]]
-    """
-    p = np.asarray(positions, dtype=np.float64).reshape(-1, 3)
-    if not cartesian:
-        return np.asarray(direction_to_vector(p[:, 0], p[:, 1]), dtype=np.float64)
-    v = np.stack([p[:, 1], -p[:, 0], p[:, 2]], axis=1)
-    norm = np.linalg.norm(v, axis=1, keepdims=True)
-    front = np.array([1.0, 0.0, 0.0])
-    return np.where(norm > 1e-9, v / np.maximum(norm, 1e-300), front)
+    """Unit direction vectors (x front, y left, z up) of ADM positions ``(n, 3)``: the
+    objects wing's :func:`~earfold.renderer.objects.direction_vectors` (polar azimuth
+    positive to the left; cartesian X right, Y front, Z up becomes (Y, -X, Z))."""
+    return np.asarray(direction_vectors(positions, cartesian), dtype=np.float64)
 
 
 #: Metadata samples summarised at a time for the report (10 minutes at 10 ms): a plan's

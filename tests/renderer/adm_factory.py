@@ -25,6 +25,7 @@ from earfold.renderer.objects.writer import (
 )
 
 __all__ = [
+    "BED_51",
     "audio_object",
     "channel",
     "chna_body",
@@ -37,5 +38,16 @@ __all__ = [
     "seconds",
     "speaker_block",
     "stream_and_track",
+    "uid",
     "write_master",
 ]
+
+
+def uid(track: int) -> str:
+    """The audioTrackUID the tests give file track ``track`` (1-based)."""
+    return f"ATU_{track:08X}"
+
+
+#: A 5.1 bed on tracks 1-6 as chna entries (track, UID, track format, the BS.2094 common
+#: 5.1 pack AP_00010003).
+BED_51 = [(k, uid(k), f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]

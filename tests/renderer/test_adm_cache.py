@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 from adm_factory import (
+    BED_51,
     audio_object,
     channel,
     chna_body,
@@ -38,7 +39,7 @@ from earfold.renderer.render.moving_sources import (
 
 FS = 48000
 FLAT = {"loudness": None, "true_peak": None, "subtype": "FLOAT"}
-BED = [(k, f"ATU_{k:08X}", f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
+BED = BED_51
 
 
 @pytest.fixture

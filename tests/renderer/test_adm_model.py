@@ -12,6 +12,7 @@ import time
 import numpy as np
 import pytest
 from adm_factory import (
+    BED_51,
     audio_object,
     channel,
     chna_body,
@@ -21,6 +22,7 @@ from adm_factory import (
     pack,
     programme,
     stream_and_track,
+    uid,
     write_master,
 )
 from numpy.testing import assert_allclose
@@ -31,19 +33,15 @@ from earfold.renderer.objects import inspect_adm, read_adm
 TRACKS = 15
 
 
-def _uid(k: int) -> str:
-    return f"ATU_{k:08X}"
-
-
-BED = [(k, _uid(k), f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
+BED = BED_51
 OBJECT_TRACKS = [
-    (7, _uid(7), "AT_00031001_01", "AP_00031001"),
-    (8, _uid(8), "AT_00031002_01", "AP_00031002"),
-    (9, _uid(9), "AT_00031003_01", "AP_00031003"),
+    (7, uid(7), "AT_00031001_01", "AP_00031001"),
+    (8, uid(8), "AT_00031002_01", "AP_00031002"),
+    (9, uid(9), "AT_00031003_01", "AP_00031003"),
 ]
-HOA = [(10 + k, _uid(10 + k), f"AT_0004000{k + 1}_01", "AP_00040001") for k in range(4)]
-MATRIX = [(14, _uid(14), "AC_00021001", "AP_00021001")]
-BINAURAL = [(15, _uid(15), "AC_00051001", "AP_00051001")]
+HOA = [(10 + k, uid(10 + k), f"AT_0004000{k + 1}_01", "AP_00040001") for k in range(4)]
+MATRIX = [(14, uid(14), "AC_00021001", "AP_00021001")]
+BINAURAL = [(15, uid(15), "AC_00051001", "AP_00051001")]
 ENTRIES = BED + OBJECT_TRACKS + HOA + MATRIX + BINAURAL
 
 
@@ -55,7 +53,7 @@ def _parts() -> dict[str, str]:
         "bed_content": content("ACO_1001", "Bed", ["AO_1001"]),
         "obj_content": content("ACO_1002", "Objects", ["AO_1002", "AO_1003", "AO_1006"]),
         "bed": audio_object("AO_1001", "Bed", packs=["AP_00010003"], uids=[e[1] for e in BED]),
-        "bird": audio_object("AO_1002", "Bird", packs=["AP_00031001"], uids=[_uid(7)]),
+        "bird": audio_object("AO_1002", "Bird", packs=["AP_00031001"], uids=[uid(7)]),
         "group": audio_object(
             "AO_1003",
             "Group",
@@ -68,15 +66,15 @@ def _parts() -> dict[str, str]:
             "AO_1004",
             "Voice",
             packs=["AP_00031002"],
-            uids=[_uid(8)],
+            uids=[uid(8)],
             gain="0.5",
             start="00:00:00.50000",
             duration="00:00:10.00000",
         ),
-        "muted": audio_object("AO_1005", "Muted", packs=["AP_00031003"], uids=[_uid(9)], mute="1"),
+        "muted": audio_object("AO_1005", "Muted", packs=["AP_00031003"], uids=[uid(9)], mute="1"),
         "scene": audio_object("AO_1006", "Scene", packs=["AP_00040001"], uids=[e[1] for e in HOA]),
-        "matrix": audio_object("AO_1007", "Matrix", packs=["AP_00021001"], uids=[_uid(14)]),
-        "binaural": audio_object("AO_1008", "Bin", packs=["AP_00051001"], uids=[_uid(15)]),
+        "matrix": audio_object("AO_1007", "Matrix", packs=["AP_00021001"], uids=[uid(14)]),
+        "binaural": audio_object("AO_1008", "Bin", packs=["AP_00051001"], uids=[uid(15)]),
         "matrix_content": content("ACO_1003", "Other", ["AO_1007", "AO_1008"]),
         "pack1": pack("AP_00031001", "Objects", ["AC_00031001"]),
         "pack2": pack("AP_00031002", "Objects", ["AC_00031002"]),
@@ -177,8 +175,8 @@ def test_a_common_binaural_pack_is_listed_without_its_definition(tmp_path):
     """A Binaural pack need not be resolved (nor known) to be reported as not rendered."""
     parts = _parts()
     del parts["pack_b"], parts["ch_b"]
-    parts["binaural"] = audio_object("AO_1008", "Bin", packs=["AP_00050001"], uids=[_uid(15)])
-    entries = ENTRIES[:-1] + [(15, _uid(15), "AT_00050001_01", "AP_00050001")]
+    parts["binaural"] = audio_object("AO_1008", "Bin", packs=["AP_00050001"], uids=[uid(15)])
+    entries = ENTRIES[:-1] + [(15, uid(15), "AT_00050001_01", "AP_00050001")]
     master = read_adm(_write(tmp_path, parts, entries))
     assert any("AP_00050001 is of type Binaural" in m for m in master.ignored)
 
@@ -220,7 +218,7 @@ def test_track_uid_to_channel_directly(tmp_path):
     """BS.2076-2: a track UID may name its channel format (chna trackRef AC_...)."""
     parts = _parts()
     del parts["st1"]
-    entries = [e if e[0] != 7 else (7, _uid(7), "AC_00031001", "AP_00031001") for e in ENTRIES]
+    entries = [e if e[0] != 7 else (7, uid(7), "AC_00031001", "AP_00031001") for e in ENTRIES]
     master = read_adm(_write(tmp_path, parts, entries))
     assert master.objects[0].channel.channel_id == "AC_00031001"
 
@@ -229,7 +227,7 @@ def test_nested_packs(tmp_path):
     parts = _parts()
     parts["pack1"] = pack("AP_00031001", "Objects", [], packs=["AP_00031004"])
     parts["pack4"] = pack("AP_00031004", "Objects", ["AC_00031001"])
-    entries = [e if e[0] != 7 else (7, _uid(7), "AT_00031001_01", "AP_00031004") for e in ENTRIES]
+    entries = [e if e[0] != 7 else (7, uid(7), "AT_00031001_01", "AP_00031004") for e in ENTRIES]
     master = read_adm(_write(tmp_path, parts, entries))
     assert master.objects[0].channel.channel_id == "AC_00031001"
     assert master.packs["AP_00031001"].pack_ids == ("AP_00031004",)
@@ -266,7 +264,7 @@ def test_a_loudspeaker_that_moves_is_placed_at_its_first_position(tmp_path):
         '<position coordinate="azimuth" bound="min">40</position>'
         '<position coordinate="elevation">30</position></audioBlockFormat>'
     )
-    parts["bed"] = audio_object("AO_1001", "Bed", packs=["AP_00011001"], uids=[_uid(1)])
+    parts["bed"] = audio_object("AO_1001", "Bed", packs=["AP_00011001"], uids=[uid(1)])
     parts["bedpack"] = pack("AP_00011001", "DirectSpeakers", ["AC_00011001"])
     parts["bedch"] = channel(
         "AC_00011001",
@@ -274,7 +272,7 @@ def test_a_loudspeaker_that_moves_is_placed_at_its_first_position(tmp_path):
         [speaker.format(k=1, t=0, az=45), speaker.format(k=2, t=1, az=50)],
         extra='<frequency typeDefinition="lowPass">120</frequency>',
     )
-    entries = [(1, _uid(1), "AC_00011001", "AP_00011001")] + ENTRIES[6:]
+    entries = [(1, uid(1), "AC_00011001", "AP_00011001")] + ENTRIES[6:]
     master = read_adm(_write(tmp_path, parts, entries))
     (bed,) = master.beds
     assert (bed.label, bed.position, bed.lfe) == ("U+045", (45.0, 30.0, 1.0), True)
@@ -518,13 +516,13 @@ def test_malformed_master(tmp_path, case):
 
 
 def test_an_unknown_common_track_format(tmp_path):
-    entries = [e if e[0] != 1 else (1, _uid(1), "AT_000100FF_01", "AP_00010003") for e in ENTRIES]
+    entries = [e if e[0] != 1 else (1, uid(1), "AT_000100FF_01", "AP_00010003") for e in ENTRIES]
     with pytest.raises(AdmError, match=r"AT_000100FF_01 \(of ATU_00000001\) is neither defined"):
         read_adm(_write(tmp_path, entries=entries))
 
 
 def test_a_channel_outside_its_pack(tmp_path):
-    entries = [e if e[0] != 1 else (1, _uid(1), "AT_00010009_01", "AP_00010003") for e in ENTRIES]
+    entries = [e if e[0] != 1 else (1, uid(1), "AT_00010009_01", "AP_00010003") for e in ENTRIES]
     with pytest.raises(
         AdmError, match=r"channel format AC_00010009 is not in its pack AP_00010003"
     ):

@@ -8,6 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from adm_factory import (
+    BED_51,
     audio_object,
     channel,
     chna_body,
@@ -175,7 +176,7 @@ def test_the_probe_of_a_master_counts_what_its_programme_plays(tmp_path):
 def test_the_overview_adds_paths_and_bed_directions(tmp_path):
     """A 5.1 bed (common definitions, ITU-R BS.2094 AP_00010003) and one object: the bed's
     loudspeakers at their BS.2051 directions (0+5+0: L at +30, Ls at +110, from memory)."""
-    bed = [(k, f"ATU_{k:08X}", f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
+    bed = BED_51
     elements = [
         programme("APR_1001", "Main", ["ACO_1001"]),
         content("ACO_1001", "All", ["AO_1001", "AO_1002"]),

@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from adm_factory import (
+    BED_51,
     audio_object,
     channel,
     chna_body,
@@ -17,6 +18,7 @@ from adm_factory import (
     programme,
     seconds,
     stream_and_track,
+    uid,
     write_master,
 )
 from scipy import signal
@@ -29,11 +31,7 @@ FS = 48000
 FLAT = {"loudness": None, "true_peak": None, "subtype": "FLOAT"}
 
 
-def _uid(k: int) -> str:
-    return f"ATU_{k:08X}"
-
-
-BED = [(k, _uid(k), f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
+BED = BED_51
 
 
 def _master(path, audio, blocks, *, bed=True, bed_span=(None, None)):
@@ -41,12 +39,12 @@ def _master(path, audio, blocks, *, bed=True, bed_span=(None, None)):
     start and duration strings) and one object on the next track, whose channel holds
     ``blocks`` (object_block strings)."""
     track = 7 if bed else 1
-    entries = ([*BED] if bed else []) + [(track, _uid(track), "AT_00031001_01", "AP_00031001")]
+    entries = ([*BED] if bed else []) + [(track, uid(track), "AT_00031001_01", "AP_00031001")]
     objects = ["AO_1002"] + (["AO_1001"] if bed else [])
     parts = [
         programme("APR_1001", "Main", ["ACO_1001"]),
         content("ACO_1001", "All", objects),
-        audio_object("AO_1002", "Voice", packs=["AP_00031001"], uids=[_uid(track)]),
+        audio_object("AO_1002", "Voice", packs=["AP_00031001"], uids=[uid(track)]),
         pack("AP_00031001", "Objects", ["AC_00031001"]),
         channel("AC_00031001", "Objects", blocks),
         stream_and_track("AC_00031001", "AP_00031001"),
@@ -285,7 +283,7 @@ def test_a_bed_plays_only_within_its_objects_time_span(tmp_path):
 def _hoa_master(path, audio):
     """A master holding one first-order HOA pack (the BS.2094 common AP_00040001: ACN
     order, SN3D) on tracks 1-4."""
-    entries = [(k + 1, _uid(k + 1), f"AT_0004000{k + 1}_01", "AP_00040001") for k in range(4)]
+    entries = [(k + 1, uid(k + 1), f"AT_0004000{k + 1}_01", "AP_00040001") for k in range(4)]
     parts = [
         programme("APR_1001", "Main", ["ACO_1001"]),
         content("ACO_1001", "Scene", ["AO_1001"]),

@@ -20,6 +20,7 @@ from tests.renderer.adm_factory import (
     programme,
     seconds,
     stream_and_track,
+    uid,
     write_master,
 )
 
@@ -29,13 +30,9 @@ FS = 48000
 OBJECTS = {"Gull": 7, "Bell": 8}
 
 
-def _uid(k: int) -> str:
-    return f"ATU_{k:08X}"
-
-
 def harbour_xml(duration_s: float) -> str:
     """The axml of :func:`write_harbour_master`."""
-    bed = [_uid(k) for k in range(1, 7)]
+    bed = [uid(k) for k in range(1, 7)]
     quarter = duration_s / 4
     gull = [  # from the front round the left to the back and the right, rising to 30 deg
         object_block("AC_00031001", k + 1, rtime=seconds(k * quarter), duration=seconds(quarter),
@@ -48,8 +45,8 @@ def harbour_xml(duration_s: float) -> str:
         content("ACO_1001", "All", ["AO_1001", "AO_1002", "AO_1003"]),
         content("ACO_1002", "No bell", ["AO_1001", "AO_1002"]),
         audio_object("AO_1001", "Bed", packs=["AP_00010003"], uids=bed),
-        audio_object("AO_1002", "Gull", packs=["AP_00031001"], uids=[_uid(7)]),
-        audio_object("AO_1003", "Bell", packs=["AP_00031002"], uids=[_uid(8)]),
+        audio_object("AO_1002", "Gull", packs=["AP_00031001"], uids=[uid(7)]),
+        audio_object("AO_1003", "Bell", packs=["AP_00031002"], uids=[uid(8)]),
         pack("AP_00031001", "Objects", ["AC_00031001"]),
         pack("AP_00031002", "Objects", ["AC_00031002"]),
         channel("AC_00031001", "Objects", gull),
@@ -63,9 +60,9 @@ def write_harbour_master(path: Path, duration_s: float = 0.5, seed: int = 2) -> 
     """An 8-track ADM master (tracks 1-6 a 5.1 bed, 7 Gull, 8 Bell) of quiet noise."""
     frames = int(duration_s * FS)
     audio = 0.02 * np.random.default_rng(seed).standard_normal((frames, 8))
-    entries = [(k, _uid(k), f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
-    entries += [(7, _uid(7), "AT_00031001_01", "AP_00031001")]
-    entries += [(8, _uid(8), "AT_00031002_01", "AP_00031002")]
+    entries = [(k, uid(k), f"AT_0001000{k}_01", "AP_00010003") for k in range(1, 7)]
+    entries += [(7, uid(7), "AT_00031001_01", "AP_00031001")]
+    entries += [(8, uid(8), "AT_00031002_01", "AP_00031002")]
     return write_master(
         path,
         audio=audio.astype(np.float32),
