@@ -654,7 +654,7 @@ export function objectPathsPicture(overview, { caption = "" } = {}) {
   figure.dataset.part = "adm-picture";
   const cap = document.createElement("figcaption");
   cap.className = "scene-words";
-  const words = `${paths.length} object${paths.length === 1 ? "" : "s"} · ${beds.length} bed loudspeaker${beds.length === 1 ? "" : "s"}` +
+  const words = `${paths.length} object${paths.length === 1 ? "" : "s"} · ${beds.length} bed loudspeaker${beds.length === 1 ? "" : "s"} drawn (an LFE has no direction)` +
     " · circle: start, square: end";
   cap.textContent = caption ? `${words} · ${caption}` : words;
   figure.append(cap, top, side, legend);

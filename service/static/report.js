@@ -242,9 +242,13 @@ function admSection(report) {
     el("td", {}, dir(o.last_direction_deg)),
     el("td", { "data-part": "moves" }, Array.isArray(o.moves_s) ? `${num(o.moves_s[0], 2)} s to ${num(o.moves_s[1], 2)} s` : "at rest"),
     el("td", { class: "num" }, String(o.breakpoints ?? "–")),
+    el("td", { "data-part": "rendered" }, o.rendered || "–"),
     el("td", { "data-part": "not-rendered" }, (o.not_rendered || []).length ? o.not_rendered.join(", ") : "–")));
   $("adm-objects").querySelector("tbody").replaceChildren(...body);
   const more = [];
+  if (adm.objects_method) {
+    more.push(el("p", { class: "muted", "data-part": "adm-method" }, `How objects are rendered: ${adm.objects_method}.`));
+  }
   const ignored = adm.ignored || [];
   if (ignored.length) {
     more.push(el("h3", {}, "Not rendered"),

@@ -150,12 +150,16 @@ def test_the_report_lists_every_object_with_its_path(page, live_server, stems, a
     gull = section.locator("#adm-objects tr[data-object='Gull']")
     bell = section.locator("#adm-objects tr[data-object='Bell']")
     cells = gull.locator("td").all_inner_texts()
-    # track, plays, first direction, last direction, moves, breakpoints, not rendered
+    # track, plays, first direction, last direction, moves, breakpoints, rendered as,
+    # not rendered
     assert cells[0] == "7" and cells[1] == "0.00 s to the end"
     assert cells[2] == "0.0° az, 0.0° el"
     entry = next(o for o in report["adm"]["objects_rendered"] if o["object"] == "Gull")
     assert cells[4] == f"{entry['moves_s'][0]:.2f} s to {entry['moves_s'][1]:.2f} s"
-    assert cells[5] == str(entry["breakpoints"]) and cells[6] == "–"
+    assert cells[5] == str(entry["breakpoints"]) and cells[7] == "–"
+    assert cells[6] == entry["rendered"] == "own HRIR pairs along its path"
+    method = section.locator("[data-part='adm-method']").inner_text()
+    assert method.startswith("How objects are rendered: followed along their paths")
     bell_cells = bell.locator("td").all_inner_texts()
     assert bell_cells[2] == bell_cells[3] == "−90.0° az, 0.0° el"
     assert bell_cells[4] == "at rest"
