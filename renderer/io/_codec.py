@@ -13,6 +13,8 @@ import numpy as np
 import numpy.typing as npt
 import soundfile as sf
 
+from .bw64 import audio_source
+
 __all__ = [
     "CodecError",
     "FileFacts",
@@ -69,18 +71,46 @@ def failure_reason(exc: BaseException) -> str:
 
 
 def file_info(path: str) -> FileFacts:
-    """Format, subtype, rate, channels and frames of ``path``, from its header.
+    """Format, subtype, rate, channels and frames of ``path``, from its header (an RF64
+    or BW64 file through :class:`~earfold.renderer.io.bw64.Rf64View`).
 
-    Raises the library's :data:`CodecError`, or :class:`OSError`.
+    Raises the library's :data:`CodecError`, :class:`OSError`, or
+    :class:`~earfold.renderer.errors.AudioError` for an RF64/BW64 header we cannot use.
     """
-    facts: FileFacts = sf.info(path)
-    return facts
+    source = audio_source(path)
+    if isinstance(source, str):
+        facts: FileFacts = sf.info(source)
+        return facts
+    with source:
+        viewed: FileFacts = sf.info(source)
+        return viewed
+
+
+class _ViewedFile(sf.SoundFile):  # type: ignore[misc]
+    """A file read through a view of ours, which closing the handle closes too."""
+
+    def close(self) -> None:
+        """Close the handle, then the view."""
+        try:
+            super().close()
+        finally:
+            self.name.close()
 
 
 def open_for_reading(path: str) -> SoundFileHandle:
-    """Open ``path`` for reading (raises :data:`CodecError` or :class:`OSError`)."""
-    handle: SoundFileHandle = sf.SoundFile(path)
-    return handle
+    """Open ``path`` for reading (an RF64 or BW64 file through
+    :class:`~earfold.renderer.io.bw64.Rf64View`; raises :data:`CodecError`,
+    :class:`OSError` or :class:`~earfold.renderer.errors.AudioError`)."""
+    source = audio_source(path)
+    if isinstance(source, str):
+        handle: SoundFileHandle = sf.SoundFile(source)
+        return handle
+    try:
+        viewed: SoundFileHandle = _ViewedFile(source)
+    except BaseException:
+        source.close()
+        raise
+    return viewed
 
 
 class _UnsyncedFile(sf.SoundFile):  # type: ignore[misc]

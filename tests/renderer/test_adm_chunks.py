@@ -43,7 +43,7 @@ def test_each_container_gives_its_chunks_and_audio(tmp_path, container, axml_aft
     assert chunks.chna == chna_body(ENTRIES)
     raw = path.read_bytes()[chunks.data_offset : chunks.data_offset + chunks.data_size]
     assert_array_equal(np.frombuffer(raw, "<f4").reshape(101, 3), AUDIO)
-    # The audio library reads what we wrote: RIFF and RF64 by path, BW64 through the view.
+    # The audio library reads what we wrote: RIFF by path, RF64 and BW64 through the view.
     source = audio_source(path)
     try:
         samples, rate = sf.read(source, dtype="float32")
@@ -65,7 +65,7 @@ def test_libsndfile_refuses_the_bw64_id_by_path(tmp_path):
 
 def test_rf64_view_refuses_other_files(tmp_path):
     path = write_master(tmp_path / "m.wav", audio=AUDIO, chna=None, axml=None)
-    with pytest.raises(AudioError, match="not a BW64 file"):
+    with pytest.raises(AudioError, match="not an RF64 or BW64 file"):
         Rf64View(path)
     assert audio_source(path) == str(path)
 
