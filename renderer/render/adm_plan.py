@@ -249,6 +249,7 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
             warnings=warnings,
         )
     else:
+        row_warnings: list[str] = []
         row_feeds = speaker_feeds(
             rows_layout,
             tuple(range(len(rows))),
@@ -258,8 +259,12 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
             room_responses=exact_brirs(room_filters) if exact else room_filters.early,
             room_tail_weights=None if exact else np.asarray(room_filters.tail_weights),
             room_arrival_samples=float(room_filters.report["reference_arrival_samples"]),
-            warnings=warnings,
+            warnings=row_warnings,
         )
+        # The reflection array's rows have no direct sound: where a set does not cover
+        # their directions (below KEMAR's -40 degrees) the room's own note says so.
+        quiet = tuple(f"{rows[i].label}: " for i in reflections)
+        warnings.extend(w for w in row_warnings if not w.startswith(quiet))
     shared = room_filters is not None and not exact
     tail = None if not shared or room_filters is None else np.asarray(room_filters.tail, float)
     tail_offset = 0 if tail is None or room_filters is None else int(room_filters.tail_offset)
