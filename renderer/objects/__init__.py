@@ -69,12 +69,13 @@ from ._model import (
     PackFormat,
     SpeakerBlock,
 )
-from ._positions import ObjectPath, direction_vectors, object_positions
+from ._positions import BlockTable, ObjectPath, direction_vectors, object_positions
 from ._read import read_adm
 from ._time import format_time, parse_time
 from .writer import write_master
 
 __all__ = [
+    "BlockTable",
     "BS2051_SYSTEMS",
     "COMMON_DIRECT_SPEAKERS",
     "COMMON_HOA_PACKS",

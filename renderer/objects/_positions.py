@@ -31,7 +31,7 @@ from ..errors import AdmError
 from ..geometry import direction_to_vector
 from ._model import ObjectChannel
 
-__all__ = ["ObjectPath", "direction_vectors", "object_positions"]
+__all__ = ["BlockTable", "ObjectPath", "direction_vectors", "object_positions"]
 
 Floats = npt.NDArray[np.float64]
 
@@ -99,59 +99,112 @@ def object_positions(channel: ObjectChannel, times: npt.ArrayLike) -> ObjectPath
     >>> object_positions(obj, [0.5, 2.0, 5.0]).positions[:, 0].tolist()
     [0.0, 45.0, 90.0]
     """
-    t = np.asarray(times, dtype=np.float64).reshape(-1)
-    if not np.all(np.isfinite(t)):
-        raise AdmError("object_positions: times must be finite seconds")
-    blocks = channel.blocks
-    if not blocks:
-        raise AdmError(f"audioChannelFormat {channel.channel.channel_id} has no blocks")
-    n = len(blocks)
-    origin = float(channel.start)
-    values = np.array(
-        [(*b.position, b.gain, b.width, b.height, b.depth, b.diffuse) for b in blocks],
-        dtype=np.float64,
-    )
-    if blocks[0].rtime is None:
-        # One block for the whole object: nothing moves.
-        current = np.broadcast_to(values[0], (t.size, values.shape[1]))
-    else:
-        starts = np.array([origin + float(b.rtime or 0) for b in blocks])
-        lengths = np.array(
-            [
-                float(b.duration or 0)
-                if not b.jump_position
-                else float(b.interpolation_length or 0)
-                for b in blocks
-            ]
+    return BlockTable.of(channel).at(times)
+
+
+@dataclass(frozen=True, eq=False)
+class BlockTable:
+    """An object channel's blocks as arrays, made once, for many lookups
+    (:meth:`at`: :func:`object_positions` without going through the blocks again, so a
+    stream that asks a few seconds at a time costs no more per second the longer the
+    master).
+
+    Attributes
+    ----------
+    values : ndarray, shape (n, 8)
+        Each block's position (3), gain, width, height, depth, diffuse.
+    starts, lengths : ndarray, shape (n,) or None
+        Each block's start (s, from the file's start) and interpolation length; None
+        for one block with no ``rtime`` (nothing moves).
+    cartesian : bool
+    start, end, gain, mute
+        The object's span (``end`` None: to the end of the file), gain and mute.
+    """
+
+    channel_id: str
+    values: Floats
+    starts: Floats | None
+    lengths: Floats | None
+    cartesian: bool
+    start: float
+    end: float | None
+    gain: float
+    mute: bool
+
+    @classmethod
+    def of(cls, channel: ObjectChannel) -> BlockTable:
+        """The table of ``channel``'s blocks."""
+        blocks = channel.blocks
+        if not blocks:
+            raise AdmError(f"audioChannelFormat {channel.channel.channel_id} has no blocks")
+        origin = float(channel.start)
+        values = np.array(
+            [(*b.position, b.gain, b.width, b.height, b.depth, b.diffuse) for b in blocks],
+            dtype=np.float64,
         )
-        previous = np.vstack([values[:1], values[:-1]])
-        k = np.searchsorted(starts, t, side="right") - 1
-        before = k < 0
-        k = np.clip(k, 0, n - 1)
-        length = lengths[k]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            frac = np.where(length > 0, (t - starts[k]) / np.where(length > 0, length, 1), 1.0)
-        frac = np.clip(frac, 0.0, 1.0)
-        frac[before] = 1.0  # before the first block: its own values (k was clipped to 0)
-        current = previous[k] + (values[k] - previous[k]) * frac[:, None]
-    end = None if channel.end is None else float(channel.end)
-    active = t >= float(channel.start)
-    if end is not None:
-        active &= t < end
-    if channel.mute:
-        active[:] = False
-    gain = np.where(active, current[:, 3] * channel.gain, 0.0)
-    return ObjectPath(
-        times=t,
-        cartesian=blocks[0].cartesian,
-        positions=np.ascontiguousarray(current[:, :3]),
-        gain=gain,
-        width=np.ascontiguousarray(current[:, 4]),
-        height=np.ascontiguousarray(current[:, 5]),
-        depth=np.ascontiguousarray(current[:, 6]),
-        diffuse=np.ascontiguousarray(current[:, 7]),
-        active=active,
-    )
+        starts = lengths = None
+        if blocks[0].rtime is not None:
+            starts = np.array([origin + float(b.rtime or 0) for b in blocks])
+            lengths = np.array(
+                [
+                    float(b.duration or 0)
+                    if not b.jump_position
+                    else float(b.interpolation_length or 0)
+                    for b in blocks
+                ]
+            )
+        return cls(
+            channel_id=channel.channel.channel_id,
+            values=values,
+            starts=starts,
+            lengths=lengths,
+            cartesian=bool(blocks[0].cartesian),
+            start=origin,
+            end=None if channel.end is None else float(channel.end),
+            gain=float(channel.gain),
+            mute=bool(channel.mute),
+        )
+
+    def at(self, times: npt.ArrayLike) -> ObjectPath:
+        """The object's parameters at ``times`` (seconds from the start of the file)."""
+        t = np.asarray(times, dtype=np.float64).reshape(-1)
+        if not np.all(np.isfinite(t)):
+            raise AdmError("object_positions: times must be finite seconds")
+        values = self.values
+        if self.starts is None or self.lengths is None:
+            # One block for the whole object: nothing moves.
+            current = np.broadcast_to(values[0], (t.size, values.shape[1]))
+        else:
+            n = len(values)
+            k = np.searchsorted(self.starts, t, side="right") - 1
+            before = k < 0
+            k = np.clip(k, 0, n - 1)
+            length = self.lengths[k]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                frac = np.where(
+                    length > 0, (t - self.starts[k]) / np.where(length > 0, length, 1), 1.0
+                )
+            frac = np.clip(frac, 0.0, 1.0)
+            frac[before] = 1.0  # before the first block: its own values (k was clipped to 0)
+            previous = values[np.maximum(k - 1, 0)]
+            current = previous + (values[k] - previous) * frac[:, None]
+        active = t >= self.start
+        if self.end is not None:
+            active &= t < self.end
+        if self.mute:
+            active[:] = False
+        gain = np.where(active, current[:, 3] * self.gain, 0.0)
+        return ObjectPath(
+            times=t,
+            cartesian=self.cartesian,
+            positions=np.ascontiguousarray(current[:, :3]),
+            gain=gain,
+            width=np.ascontiguousarray(current[:, 4]),
+            height=np.ascontiguousarray(current[:, 5]),
+            depth=np.ascontiguousarray(current[:, 6]),
+            diffuse=np.ascontiguousarray(current[:, 7]),
+            active=active,
+        )
 
 
 def direction_vectors(positions: npt.ArrayLike, cartesian: bool) -> Floats:

@@ -36,6 +36,7 @@ from ..geometry import vector_to_direction
 from ..layouts import Layout, Speaker
 from ..objects import (
     AdmMaster,
+    BlockTable,
     ObjectChannel,
     direction_vectors,
     object_positions,
@@ -243,8 +244,10 @@ class MetadataPath:
         first: int = 0,
         *,
         direct_share: bool = False,
+        table: BlockTable | None = None,
     ) -> None:
         self.channel = channel
+        self.table = BlockTable.of(channel) if table is None else table  # made once
         self.samplerate = float(samplerate)
         self.first = int(first)
         self.direct_share = bool(direct_share)
@@ -257,7 +260,9 @@ class MetadataPath:
 
     def with_direct_share(self) -> MetadataPath:
         """The same path with its gains scaled to the direct share."""
-        return MetadataPath(self.channel, self.samplerate, self.first, direct_share=True)
+        return MetadataPath(
+            self.channel, self.samplerate, self.first, direct_share=True, table=self.table
+        )
 
     def sample(
         self, frames: NDArray[Any]
@@ -266,7 +271,7 @@ class MetadataPath:
         t = np.asarray(frames, dtype=np.float64).reshape(-1)
         if self._frames is not None and np.array_equal(t, self._frames):
             return self._value  # the panning mixer asks for gains, then spreads
-        _, vectors, gains, spread = _sampled(self.channel, (self.first + t) / self.samplerate)
+        _, vectors, gains, spread = _sampled(self.table, (self.first + t) / self.samplerate)
         if self.direct_share:
             gains = gains * np.sqrt(1.0 - spread[:, 3])
         self._frames, self._value = t.copy(), (vectors, gains, spread)
@@ -283,11 +288,11 @@ class MetadataPath:
 
 
 def _sampled(
-    channel: ObjectChannel, seconds: NDArray[np.float64]
+    table: BlockTable, seconds: NDArray[np.float64]
 ) -> tuple[Any, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
-    """An object's metadata at ``seconds`` (:func:`object_positions`), and from it unit
-    vectors, gains (zero where the object is not active) and spreads."""
-    path = object_positions(channel, seconds)
+    """An object's metadata at ``seconds`` (:func:`object_positions` from its block table),
+    and from it unit vectors, gains (zero where the object is not active) and spreads."""
+    path = table.at(seconds)
     vectors = position_vectors(path.positions, path.cartesian)
     gains = np.where(path.active, np.maximum(path.gain, 0.0), 0.0)
     return path, vectors, gains, object_spread(path)
@@ -315,6 +320,7 @@ def object_path(
     """
     step = max(1, int(round(UPDATE_SECONDS * samplerate)))
     total = frames // step + 2  # samples 0, step, ... up to one past the last frame
+    table = BlockTable.of(channel)
     extent = diffuse = False
     kept = 0
     moves: list[int] = []
@@ -327,7 +333,7 @@ def object_path(
     distance_range: list[float] = []
     for start in range(0, total, SUMMARY_SAMPLES):
         points = np.arange(start, min(total, start + SUMMARY_SAMPLES), dtype=np.int64) * step
-        raw, vectors, gains, spread = _sampled(channel, (first + points) / float(samplerate))
+        raw, vectors, gains, spread = _sampled(table, (first + points) / float(samplerate))
         if first_vector is None:
             first_vector = vectors[0]
         last_vector = vectors[-1]
@@ -395,7 +401,9 @@ def object_path(
         entry["not_rendered"].append("depth")
     if distance_range and max(distance_range) - min(distance_range) > 1e-9:
         entry["not_rendered"].append("distance")
-    return MetadataPath(channel, samplerate, first), PathSummary(extent, diffuse, entry)
+    return MetadataPath(channel, samplerate, first, table=table), PathSummary(
+        extent, diffuse, entry
+    )
 
 
 def adm_layout(master: AdmMaster) -> Layout:

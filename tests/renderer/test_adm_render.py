@@ -507,3 +507,41 @@ def test_a_master_renders_the_same_in_every_container(tmp_path, container, odd):
         outputs.append(read_audio(tmp_path / f"{name}.out.wav")[0])
     assert len(xml.encode()) % 2 == odd
     np.testing.assert_array_equal(outputs[1], outputs[0])
+
+
+def test_an_objects_blocks_are_turned_into_arrays_a_fixed_number_of_times(tmp_path, monkeypatch):
+    # The engines ask for an object's path a few seconds at a time: each lookup must use
+    # the block arrays made once (objects.BlockTable), not walk the blocks again, or a long
+    # master with many blocks would cost its blocks times its seconds.
+    from earfold.renderer.objects import BlockTable
+
+    made = []
+    real = BlockTable.of.__func__
+
+    def counted(cls, channel):
+        made.append(channel.object_name)
+        return real(cls, channel)
+
+    monkeypatch.setattr(BlockTable, "of", classmethod(counted))
+    counts = []
+    for seconds_ in (3.0, 12.0):
+        blocks = [
+            object_block(
+                "AC_00031001",
+                k + 1,
+                rtime=seconds(0.5 * k),
+                duration=seconds(0.5),
+                az=float(90 - 15 * (k % 12)),
+            )
+            for k in range(int(seconds_ / 0.5))
+        ]
+        master = _master(
+            tmp_path / f"m{seconds_}.wav",
+            np.zeros((int(seconds_ * FS), 1), np.float32),
+            blocks,
+            bed=False,
+        )
+        made.clear()
+        render([str(master)], tmp_path / "out.wav", RenderSettings(**FLAT))
+        counts.append(len(made))
+    assert counts[0] == counts[1] <= 3
