@@ -273,6 +273,13 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     for i, feed in enumerate(row_feeds):
         row_filters[i, :, : feed.filters.shape[-1]] = feed.filters
     row_tail = np.array([f.tail_weight if tail is not None else 0.0 for f in row_feeds])
+    if exact and room_filters is not None:
+        # The reflection rows hold their reflections alone in exact mode too: the objects'
+        # tail is a row of its own (below), not one tail per row added up through VBAP.
+        for i in reflections:
+            row_filters[i] = 0.0
+            early = room_filters.early[i]
+            row_filters[i, :, : early.shape[-1]] = early
     if room is not None and in_room:
         # The room model plays a nearer loudspeaker louder (1/r against the farthest); a
         # virtual row brought nearer than the beds' radius by a surface is scaled back by
@@ -543,7 +550,8 @@ def _object_tracks(
     bus_tail: list[float] = []
     mixes: list[ObjectMix] = []
     tracks = [obj.track for obj in master.objects]
-    room_tail = rows.room is not None and settings.room_mode != "exact"
+    room_tail = rows.room is not None
+    exact = settings.room_mode == "exact"
     if objects.spread_out:
         array = _design(ARRAY_ORDER)
         az, el = vector_to_direction(array)
@@ -618,13 +626,21 @@ def _object_tracks(
                     diffuse=True,
                 )
             )
-    if rows.reflections and room_tail:
+    if rows.reflections and rows.room is not None:
         # The objects' tail channel (after the reflection array's rows and the diffuse
-        # row, the reflection mix's last column): no filter of its own, the tail's share
-        # of a loudspeaker at the beds' radius.
-        mains = [i for i, speaker in enumerate(rows.speakers) if not speaker.lfe]
-        bus.append(np.zeros((2, 1)))
-        bus_tail.append(float(np.max(rows.tail[mains])) if mains else 0.0)
+        # row, the reflection mix's last column): the tail's share of a loudspeaker at the
+        # beds' radius; in exact mode the tail itself as the row's filter.
+        weight = float(np.max(rows.room.tail_weights))
+        if exact:
+            offset, tail = int(rows.room.tail_offset), np.asarray(rows.room.tail, float)
+            row = np.zeros((2, offset + tail.shape[-1]))
+            row[:, offset:] = weight * tail
+            bus.append(row)
+            bus_tail.append(0.0)
+        else:
+            mains = [i for i, speaker in enumerate(rows.speakers) if not speaker.lfe]
+            bus.append(np.zeros((2, 1)))
+            bus_tail.append(float(np.max(rows.tail[mains])) if mains else 0.0)
     bus_filters = None
     if bus:
         width = max(b.shape[-1] for b in bus)
