@@ -157,8 +157,9 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     room = get_room(settings.room)
     in_room = room is not None and not is_measured_room(hset)
 
-    # The objects' paths, and how each is rendered: followed with its own HRIR pairs (free
-    # field, a point), or panned onto the virtual array (in a room, or with an extent).
+    # The objects' paths, and how each is rendered: followed with its own HRIR pairs (a
+    # point), or spread over the virtual array (a width or height); in a room all of them
+    # also take their reflections from the reflection array.
     paths: list[MetadataPath] = []
     summaries: list[PathSummary] = []
     entries: list[dict[str, Any]] = []
