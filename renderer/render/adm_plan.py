@@ -188,8 +188,8 @@ def plan_adm(stem: StemInfo, master: AdmMaster, settings: RenderSettings) -> Ren
     virtual_at: dict[int, int] = {}  # first row of each HOA order; -1: the objects' array
     reflections: tuple[int, ...] = ()
     if in_room:
+        from ..room import virtual_distance
         from ..scenes import virtual_layout  # here: a free-field render never loads it
-        from .scene_feeds import virtual_distance
 
         # The reflection array: each direction at the beds' radius where the room leaves
         # space, nearer where a surface is closer (towards the floor; its level is evened

@@ -45,11 +45,10 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..eq import calibration_gain
-from ..errors import RoomError
 from ..geometry import vector_to_direction
 from ..hrtf import HrirSet
 from ..layouts import Layout, SceneLayout, Speaker
-from ..room import Room, RoomFilters, exact_brirs
+from ..room import Room, RoomFilters, exact_brirs, virtual_distance
 from ..scenes import (
     acn_degrees,
     conversion_matrix,
@@ -125,36 +124,6 @@ class SceneBank:
     section: dict[str, Any]
     warnings: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
-
-
-#: Virtual loudspeakers keep at least this far (m) from every surface of the room.
-VIRTUAL_CLEARANCE_M = 0.1
-
-
-def virtual_distance(room: Room, directions: NDArray[np.float64]) -> float:
-    """One distance (m) for every virtual loudspeaker: the room's ``speaker_radius``, or
-    less where a direction would reach a surface (a t-design points at the floor, which
-    is closer than the radius in most rooms), keeping :data:`VIRTUAL_CLEARANCE_M`.
-
-    One distance for all keeps the decoder's directions at equal level and delay.
-    """
-    low = np.zeros(3)
-    high = np.asarray(room.dimensions, dtype=float)
-    listener = np.asarray(room.listener, dtype=float)
-    reach = np.inf
-    for v in np.asarray(directions, dtype=float):
-        for axis in range(3):
-            if v[axis] > 1e-12:
-                reach = min(reach, (high[axis] - listener[axis]) / v[axis])
-            elif v[axis] < -1e-12:
-                reach = min(reach, (low[axis] - listener[axis]) / v[axis])
-    distance = min(float(room.speaker_radius), reach - VIRTUAL_CLEARANCE_M)
-    if distance <= VIRTUAL_CLEARANCE_M:
-        raise RoomError(
-            f"room {room.name!r} leaves no space around the listener for the virtual "
-            "loudspeakers of a scene (the listener stands at a surface)"
-        )
-    return round(distance, 4)
 
 
 def virtual_room_layout(order: int, room: Room) -> Layout:

@@ -27,10 +27,13 @@ from ._image_source import ImageSources, image_sources
 from ._late_tail import TAIL_RANGE_DB, band_weights, late_tail, tail_length
 from ._measure import measure_rt60
 from ._model import DEFAULT_ORDER, MAX_ORDER, SURFACES, Room
+from ._placement import VIRTUAL_CLEARANCE_M, virtual_distance
 from ._presets import ROOMS, get_room
 from ._schema import load_room_file, room_from_dict
 
 __all__ = [
+    "VIRTUAL_CLEARANCE_M",
+    "virtual_distance",
     "BANDS_HZ",
     "DEFAULT_ORDER",
     "DIFFUSE_RESPONSE_SECONDS",
