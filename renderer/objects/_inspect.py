@@ -287,7 +287,7 @@ def object_paths(master: AdmMaster, *, points: int = PATH_POINTS) -> list[dict[s
         end = duration if obj.end is None else min(float(obj.end), duration)
         last = max(start, end - frame)
         times = np.linspace(start, last, points)
-        path = object_positions(obj, times)
+        path = object_positions(obj, times, short_way=True)
         az, el = vector_to_direction(direction_vectors(path.positions, path.cartesian))
         gain = np.where(path.active, path.gain, 0.0)
         keep = _changes(np.stack([az, el, gain], axis=1))

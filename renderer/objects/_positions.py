@@ -14,10 +14,14 @@ its interpolation*, starting from the previous block's position at the block's `
   first block, the first block's position.
 
 The same weights move the block's gain, width, height, depth and diffuse. Coordinates are
-interpolated as given, component by component: polar (azimuth, elevation, distance) or
-cartesian (X, Y, Z), never converted. So an azimuth from 170 to -170 degrees passes
-through 0 (the front), exactly as the numbers say; a renderer that wants the short way
-round must ask for it.
+interpolated component by component: polar (azimuth, elevation, distance) or cartesian
+(X, Y, Z), never converted. Azimuths are given in -180 to 180 degrees, so an object that
+circles past the back is written as, say, 170 then -170: as numbers that passes through 0
+(the front), as directions it moves 20 degrees across the back. ``short_way=True`` (what
+the renderer and the pages ask for) takes the azimuth the shorter way round, which is
+where a circling object is, and what rendering each block's position and crossfading
+between them (the reference renderer's way, ITU-R BS.2127, from memory) amounts to; the
+default keeps the numbers as given.
 """
 
 from __future__ import annotations
@@ -68,7 +72,9 @@ class ObjectPath:
     active: npt.NDArray[np.bool_]
 
 
-def object_positions(channel: ObjectChannel, times: npt.ArrayLike) -> ObjectPath:
+def object_positions(
+    channel: ObjectChannel, times: npt.ArrayLike, *, short_way: bool = False
+) -> ObjectPath:
     """Position, gain and extent of an object channel at ``times`` (BS.2076-2 interpolation).
 
     Parameters
@@ -77,6 +83,8 @@ def object_positions(channel: ObjectChannel, times: npt.ArrayLike) -> ObjectPath
         An Objects track of an :class:`~earfold.renderer.objects.AdmMaster`.
     times
         Seconds from the start of the file (sample ``n`` at rate ``fs`` is ``n / fs``).
+    short_way
+        Interpolate polar azimuths the shorter way round (see the module's notes).
 
     Returns
     -------
@@ -99,7 +107,7 @@ def object_positions(channel: ObjectChannel, times: npt.ArrayLike) -> ObjectPath
     >>> object_positions(obj, [0.5, 2.0, 5.0]).positions[:, 0].tolist()
     [0.0, 45.0, 90.0]
     """
-    return BlockTable.of(channel).at(times)
+    return BlockTable.of(channel).at(times, short_way=short_way)
 
 
 @dataclass(frozen=True, eq=False)
@@ -165,8 +173,9 @@ class BlockTable:
             mute=bool(channel.mute),
         )
 
-    def at(self, times: npt.ArrayLike) -> ObjectPath:
-        """The object's parameters at ``times`` (seconds from the start of the file)."""
+    def at(self, times: npt.ArrayLike, *, short_way: bool = False) -> ObjectPath:
+        """The object's parameters at ``times`` (seconds from the start of the file);
+        ``short_way``: polar azimuths interpolated the shorter way round."""
         t = np.asarray(times, dtype=np.float64).reshape(-1)
         if not np.all(np.isfinite(t)):
             raise AdmError("object_positions: times must be finite seconds")
@@ -187,7 +196,12 @@ class BlockTable:
             frac = np.clip(frac, 0.0, 1.0)
             frac[before] = 1.0  # before the first block: its own values (k was clipped to 0)
             previous = values[np.maximum(k - 1, 0)]
-            current = previous + (values[k] - previous) * frac[:, None]
+            change = values[k] - previous
+            if short_way and not self.cartesian:
+                change[:, 0] = (change[:, 0] + 180.0) % 360.0 - 180.0
+            current = previous + change * frac[:, None]
+            if short_way and not self.cartesian:
+                current[:, 0] = (current[:, 0] + 180.0) % 360.0 - 180.0
         active = t >= self.start
         if self.end is not None:
             active &= t < self.end

@@ -292,7 +292,7 @@ def _sampled(
 ) -> tuple[Any, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
     """An object's metadata at ``seconds`` (:func:`object_positions` from its block table),
     and from it unit vectors, gains (zero where the object is not active) and spreads."""
-    path = table.at(seconds)
+    path = table.at(seconds, short_way=True)
     vectors = position_vectors(path.positions, path.cartesian)
     gains = np.where(path.active, np.maximum(path.gain, 0.0), 0.0)
     return path, vectors, gains, object_spread(path)
@@ -419,7 +419,7 @@ def adm_layout(master: AdmMaster) -> Layout:
             f"{bed.track + 1}:{bed.label or bed.object_name}", az, el, lfe=bed.lfe
         )
     for obj in master.objects:
-        first = object_positions(obj, np.array([float(obj.start)]))
+        first = object_positions(obj, np.array([float(obj.start)]), short_way=True)
         obj_az, obj_el = vector_to_direction(position_vectors(first.positions, first.cartesian)[0])
         by_track[obj.track] = Speaker(
             f"{obj.track + 1}:{obj.object_name}", float(obj_az), float(obj_el)

@@ -166,6 +166,11 @@ def test_polar_azimuth_is_interpolated_as_written(tmp_path):
 
     (obj,) = _master(tmp_path, blocks).objects
     assert_allclose(object_positions(obj, [1.5]).positions[0, 0], 0.0, atol=1e-12)
+    # Asked the short way round (as the renderer and the pages ask), the object crosses
+    # the back: 175 degrees a quarter of the way, the back halfway, -175 at three quarters,
+    # and it arrives where the block says.
+    short = object_positions(obj, [1.25, 1.5, 1.75, 2.0], short_way=True).positions[:, 0]
+    assert_allclose(short, [175.0, -180.0, -175.0, -170.0], atol=1e-9)
 
 
 def test_sample_exact_block_edges(tmp_path):

@@ -569,3 +569,30 @@ def test_an_object_in_a_room_renders_alike_with_shared_and_exact_tails(tmp_path)
     shared, exact = outs
     n = min(len(shared), len(exact))
     np.testing.assert_allclose(exact[:n], shared[:n], atol=1e-4 * np.abs(shared).max())
+
+
+def test_an_object_circling_past_the_back_stays_behind(tmp_path):
+    # Azimuths are written within -180..180, so a circling object crosses from 170 to
+    # -170 degrees: rendered, it moves 20 degrees across the back, never through the front
+    # (the short way round, as crossfading the two positions' renderings would).
+    from earfold.renderer.objects import read_adm
+    from earfold.renderer.render import adm_feeds
+
+    blocks = [
+        object_block("AC_00031001", 1, rtime=seconds(0), duration=seconds(0.5), az=170.0),
+        object_block("AC_00031001", 2, rtime=seconds(0.5), duration=seconds(1.0), az=-170.0),
+    ]
+    s = _noise(1.5, seed=13)
+    master = _master(tmp_path / "m.wav", s[:, None], blocks, bed=False)
+    (channel,) = read_adm(master).objects
+    path, summary = adm_feeds.object_path(channel, len(s), FS)
+    vectors, _ = path.at(np.arange(0, len(s), 480))
+    assert np.all(vectors[:, 0] < -0.93)  # cos(160 degrees): behind all the way
+    assert summary.entry["moves_s"] == [0.5, 1.5]
+    report = render([str(master)], tmp_path / "a.wav", RenderSettings(**FLAT))
+    y = read_audio(tmp_path / "a.wav")[0]
+    # Behind, the ears hear it nearly alike; the numbers' way (170, 90, 0, -90, -170)
+    # would pass the left and the right side, 10 dB and more louder at one ear.
+    for start in range(FS // 2, int(1.5 * FS) - FS // 10, FS // 10):
+        assert abs(_ild_db(y[start : start + FS // 10])) < 6.0
+    assert report["adm"]["objects_rendered"][0]["first_direction_deg"] == [170.0, 0.0]
