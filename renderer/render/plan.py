@@ -263,91 +263,30 @@ def plan_render(inputs: Sequence[str | os.PathLike[str]], settings: RenderSettin
         )
     if settings.fold == "stereo":
         return _plan_fold(stem, layout, order, order_source, warnings, notes, settings, solo)
-    cache = default_filter_cache()
-    hset, eq_report, set_key = prepared_set(
-        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
-    )
-    headphone = None
-    if settings.headphone_eq is not None:
-        headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
-        eq_report["headphone"] = headphone.report
-
-    if settings.room_mode not in ROOM_MODES:
-        raise RendererError(
-            f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
-        )
+    ctx = _context(stem, settings, warnings, notes, layout, order, order_source, solo)
     requested_room = get_room(settings.room)
     bank_key = (
         None
-        if cache is None or set_key is None
-        else _bank_key(set_key, layout, order, requested_room, settings)
+        if ctx.cache is None or ctx.set_key is None
+        else _bank_key(ctx.set_key, layout, order, requested_room, settings)
     )
-    if cache is not None and bank_key is not None:
-        found = cache.get("bank", bank_key, _bank_entry_ok(stem.channels))
-        if found is not None:
-            return _restored_plan(
-                found,
-                stem,
-                hset,
-                warnings,
-                notes,
-                eq_report,
-                headphone,
-                layout=layout,
-                order=order,
-                order_source=order_source,
-                solo=solo,
-            )
-    added, added_notes = len(warnings), len(notes)
-    plan = _built_plan(
-        stem,
-        hset,
-        settings,
-        requested_room,
-        set_key,
-        cache,
-        warnings,
-        notes,
-        eq_report,
-        headphone,
-        layout=layout,
-        order=order,
-        order_source=order_source,
-        solo=solo,
-    )
-    if plan.room is not None and plan.room.get("synthetic"):
-        plan = dataclasses.replace(plan, room_decay=room_decay(plan))
-    if cache is not None and bank_key is not None:
-        cache.put("bank", bank_key, *_bank_entry(plan, warnings[added:], notes[added_notes:]))
-    return plan
+    return _through_bank_cache(ctx, bank_key, lambda: _built_plan(ctx, settings, requested_room))
 
 
 def _built_plan(
-    stem: StemInfo,
-    hset: HrirSet,
-    settings: RenderSettings,
-    requested_room: Room | None,
-    set_key: dict[str, Any] | None,
-    cache: FilterCache | None,
-    warnings: list[str],
-    notes: list[str],
-    eq_report: dict[str, Any],
-    headphone: HeadphoneEq | None,
-    *,
-    layout: Layout,
-    order: tuple[int, ...],
-    order_source: str,
-    solo: dict[str, Any] | None,
+    ctx: _PlanContext, settings: RenderSettings, requested_room: Room | None
 ) -> RenderPlan:
     """The plan's filter bank computed: the feeds of every channel, the room, calibration."""
+    stem, hset, set_key, cache = ctx.stem, ctx.hset, ctx.set_key, ctx.cache
+    layout, warnings = ctx.layout, ctx.warnings
     room_filters, room_report = room_part(
-        hset, layout, requested_room, stem.samplerate, settings, set_key, cache, warnings, notes
+        hset, layout, requested_room, stem.samplerate, settings, set_key, cache, warnings, ctx.notes
     )
     take_lookups(hset, set_key, cache)
     exact = room_filters is not None and settings.room_mode == "exact"
     feeds = speaker_feeds(
         layout,
-        order,
+        ctx.order,
         hset,
         stem.samplerate,
         lfe=settings.lfe,
@@ -374,15 +313,15 @@ def _built_plan(
         hset,
         warnings,
         layout=layout,
-        order=order,
-        order_source=order_source,
+        order=ctx.order,
+        order_source=ctx.order_source,
         tail=room_filters.tail if shared and room_filters is not None else None,
         tail_offset=int(room_filters.tail_offset) if shared and room_filters is not None else 0,
         room=room_report,
-        eq=eq_report,
-        headphone=headphone,
-        notes=notes,
-        solo=solo,
+        eq=ctx.eq_report,
+        headphone=ctx.headphone,
+        notes=ctx.notes,
+        solo=ctx.solo,
     )
 
 
@@ -444,23 +383,13 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
             f"solo {solo['label']!r}: the loudness target applies to this channel alone "
             "(loudness none keeps the render's own level)"
         )
-    if settings.room_mode not in ROOM_MODES:
-        raise RendererError(
-            f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
-        )
-    cache = default_filter_cache()
-    hset, eq_report, set_key = prepared_set(
-        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
-    )
-    headphone = None
-    if settings.headphone_eq is not None:
-        headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
-        eq_report["headphone"] = headphone.report
+    ctx = _context(stem, settings, warnings, notes, scene, order, order_source, solo)
+    hset, set_key = ctx.hset, ctx.set_key
     from .scene_feeds import SCENE_REFERENCE, scene_bank, scene_taps, virtual_room_layout
 
     requested_room = get_room(settings.room)
     bank_key = None
-    if cache is not None and set_key is not None:
+    if ctx.cache is not None and set_key is not None:
         bank_key = {
             **_bank_key(set_key, scene, order, requested_room, settings),
             "scene": {
@@ -473,68 +402,143 @@ def _plan_scene(stem: StemInfo, layout: SceneLayout, settings: RenderSettings) -
                 "version": SCENE_BANK_VERSION,
             },
         }
-        found = cache.get("bank", bank_key, _bank_entry_ok(stem.channels))
-        if found is not None and isinstance(found[1].get("scene"), dict):
-            return _restored_plan(
-                found,
-                stem,
-                hset,
-                warnings,
-                notes,
-                eq_report,
-                headphone,
-                layout=scene,
-                order=order,
-                order_source=order_source,
-                solo=solo,
-            )
-    added, added_notes = len(warnings), len(notes)
-    virtual = (
-        None
-        if requested_room is None or is_measured_room(hset)
-        else virtual_room_layout(asked.order, requested_room)
+
+    def built() -> RenderPlan:
+        virtual = (
+            None
+            if requested_room is None or is_measured_room(hset)
+            else virtual_room_layout(asked.order, requested_room)
+        )
+        room_filters, room_report = room_part(
+            hset,
+            virtual,
+            requested_room,
+            stem.samplerate,
+            settings,
+            set_key,
+            ctx.cache,
+            warnings,
+            notes,
+        )
+        if room_report is not None and virtual is not None and room_report.get("synthetic"):
+            room_report["virtual_layout"] = virtual.description
+        take_lookups(hset, set_key, ctx.cache)
+        bank = scene_bank(
+            scene,
+            hset,
+            stem.samplerate,
+            method=settings.ambisonic_decoder,
+            rotation=settings.rotate,
+            order=asked.order,
+            room=room_filters,
+            exact=settings.room_mode == "exact",
+        )
+        keep_lookups(hset, set_key, ctx.cache)
+        warnings.extend(bank.warnings)
+        notes.extend(bank.notes)
+        plan = plan_from_feeds(
+            stem,
+            bank.feeds,
+            hset,
+            warnings,
+            layout=scene,
+            order=order,
+            order_source=order_source,
+            tail=bank.tail,
+            tail_offset=bank.tail_offset,
+            room=room_report,
+            eq=ctx.eq_report,
+            headphone=ctx.headphone,
+            notes=notes,
+            solo=solo,
+            calibration=(bank.gain, SCENE_REFERENCE),
+        )
+        return dataclasses.replace(plan, scene=bank.section)
+
+    return _through_bank_cache(
+        ctx, bank_key, built, accept=lambda meta: isinstance(meta.get("scene"), dict)
     )
-    room_filters, room_report = room_part(
-        hset, virtual, requested_room, stem.samplerate, settings, set_key, cache, warnings, notes
+
+
+@dataclasses.dataclass
+class _PlanContext:
+    """What a plan of loudspeakers or of a scene has decided before its filter bank: the
+    stem, the prepared set and its cache key, the channel order, the report's lists."""
+
+    stem: StemInfo
+    hset: HrirSet
+    set_key: dict[str, Any] | None
+    cache: FilterCache | None
+    eq_report: dict[str, Any]
+    headphone: HeadphoneEq | None
+    warnings: list[str]
+    notes: list[str]
+    layout: Layout
+    order: tuple[int, ...]
+    order_source: str
+    solo: dict[str, Any] | None
+
+
+def _context(
+    stem: StemInfo,
+    settings: RenderSettings,
+    warnings: list[str],
+    notes: list[str],
+    layout: Layout,
+    order: tuple[int, ...],
+    order_source: str,
+    solo: dict[str, Any] | None,
+) -> _PlanContext:
+    """The room mode checked, the HRTF set prepared (:func:`prepared_set`) and the
+    headphone EQ loaded: what every loudspeaker or scene plan starts from."""
+    if settings.room_mode not in ROOM_MODES:
+        raise RendererError(
+            f"unknown room mode {settings.room_mode!r}; choose one of {', '.join(ROOM_MODES)}"
+        )
+    cache = default_filter_cache()
+    hset, eq_report, set_key = prepared_set(
+        settings.hrtf, settings.eq, stem.samplerate, warnings, notes, cache
     )
-    if room_report is not None and virtual is not None and room_report.get("synthetic"):
-        room_report["virtual_layout"] = virtual.description
-    take_lookups(hset, set_key, cache)
-    bank = scene_bank(
-        scene,
-        hset,
-        stem.samplerate,
-        method=settings.ambisonic_decoder,
-        rotation=settings.rotate,
-        order=asked.order,
-        room=room_filters,
-        exact=settings.room_mode == "exact",
-    )
-    keep_lookups(hset, set_key, cache)
-    warnings.extend(bank.warnings)
-    notes.extend(bank.notes)
-    plan = plan_from_feeds(
+    headphone = None
+    if settings.headphone_eq is not None:
+        headphone = load_headphone_eq(settings.headphone_eq, stem.samplerate)
+        eq_report["headphone"] = headphone.report
+    return _PlanContext(
         stem,
-        bank.feeds,
         hset,
+        set_key,
+        cache,
+        eq_report,
+        headphone,
         warnings,
-        layout=scene,
-        order=order,
-        order_source=order_source,
-        tail=bank.tail,
-        tail_offset=bank.tail_offset,
-        room=room_report,
-        eq=eq_report,
-        headphone=headphone,
-        notes=notes,
-        solo=solo,
-        calibration=(bank.gain, SCENE_REFERENCE),
+        notes,
+        layout,
+        order,
+        order_source,
+        solo,
     )
-    plan = dataclasses.replace(plan, scene=bank.section)
+
+
+def _through_bank_cache(
+    ctx: _PlanContext,
+    bank_key: dict[str, Any] | None,
+    build: Callable[[], RenderPlan],
+    accept: Callable[[dict[str, Any]], bool] = lambda meta: True,
+) -> RenderPlan:
+    """The plan from the cached bank under ``bank_key`` when there is one (and ``accept``
+    takes its metadata), else ``build()`` with its room decay plot, stored under the key
+    with the warnings and notes the build added."""
+    if ctx.cache is not None and bank_key is not None:
+        found = ctx.cache.get("bank", bank_key, _bank_entry_ok(ctx.stem.channels))
+        if found is not None and accept(found[1]):
+            return _restored_plan(found, ctx)
+    added, added_notes = len(ctx.warnings), len(ctx.notes)
+    plan = build()
     if plan.room is not None and plan.room.get("synthetic"):
         plan = dataclasses.replace(plan, room_decay=room_decay(plan))
-    if cache is not None and bank_key is not None:
-        cache.put("bank", bank_key, *_bank_entry(plan, warnings[added:], notes[added_notes:]))
+    if ctx.cache is not None and bank_key is not None:
+        entry = _bank_entry(plan, ctx.warnings[added:], ctx.notes[added_notes:])
+        ctx.cache.put("bank", bank_key, *entry)
     return plan
 
 
@@ -721,18 +725,7 @@ def _bank_entry_ok(channels: int) -> Callable[[Any, Any], bool]:
 
 
 def _restored_plan(
-    found: tuple[dict[str, NDArray[Any]], dict[str, Any]],
-    stem: StemInfo,
-    hset: HrirSet,
-    warnings: list[str],
-    notes: list[str],
-    eq_report: dict[str, Any],
-    headphone: HeadphoneEq | None,
-    *,
-    layout: Layout,
-    order: tuple[int, ...],
-    order_source: str,
-    solo: dict[str, Any] | None,
+    found: tuple[dict[str, NDArray[Any]], dict[str, Any]], ctx: _PlanContext
 ) -> RenderPlan:
     """The plan from a stored bank (checked by :func:`_bank_entry_ok`): the same filters,
     report sections, warnings and notes as the plan that stored it. Each feed's
@@ -753,23 +746,23 @@ def _restored_plan(
     if room is not None and room.get("synthetic"):
         room["cache"] = REUSED
     return RenderPlan(
-        stem=stem,
+        stem=ctx.stem,
         feeds=feeds,
-        hrir_set=hset,
+        hrir_set=ctx.hset,
         filters=filters,
-        warnings=(*warnings, *meta["warnings"]),
-        layout=layout,
-        order=order,
-        order_source=order_source,
+        warnings=(*ctx.warnings, *meta["warnings"]),
+        layout=ctx.layout,
+        order=ctx.order,
+        order_source=ctx.order_source,
         tail=arrays.get("tail"),
         tail_weights=arrays.get("tail_weights"),
         tail_offset=meta["tail_offset"],
         room=room,
-        eq=eq_report,
+        eq=ctx.eq_report,
         calibration=meta["calibration"],
-        headphone=headphone,
-        notes=(*notes, *meta["notes"]),
-        solo=solo,
+        headphone=ctx.headphone,
+        notes=(*ctx.notes, *meta["notes"]),
+        solo=ctx.solo,
         room_decay=meta["room_decay"],
         scene=meta.get("scene"),
     )
