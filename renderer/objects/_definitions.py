@@ -204,24 +204,19 @@ def read_definitions(root: XmlNode) -> Definitions:
         elif tag == "audioStreamFormat":
             ident = _attr_id(node, "audioStreamFormatID", "audioStreamFormat")
             define(ident, node)
-            channel_refs = _refs(node, "audioChannelFormatIDRef", "audioChannelFormat")
-            if len(channel_refs) > 1:
-                raise AdmError(
-                    f"axml line {node.line}: audioStreamFormat {ident} refers to "
-                    f"{len(channel_refs)} audioChannelFormats; a stream refers to one"
-                )
             # None: a coded stream (no channel format), refused only where a track plays it
-            defs.streams[ident] = channel_refs[0] if channel_refs else None
+            defs.streams[ident] = _one_ref(
+                node,
+                f"audioStreamFormat {ident}",
+                "audioChannelFormat",
+                "a stream refers to one",
+            )
         elif tag == "audioTrackFormat":
             ident = _attr_id(node, "audioTrackFormatID", "audioTrackFormat")
             define(ident, node)
-            stream_refs = _refs(node, "audioStreamFormatIDRef", "audioStreamFormat")
-            if len(stream_refs) > 1:
-                raise AdmError(
-                    f"axml line {node.line}: audioTrackFormat {ident} refers to "
-                    f"{len(stream_refs)} audioStreamFormats; it must refer to one"
-                )
-            defs.tracks[ident] = stream_refs[0] if stream_refs else None
+            defs.tracks[ident] = _one_ref(
+                node, f"audioTrackFormat {ident}", "audioStreamFormat", "it must refer to one"
+            )
         elif tag == "audioTrackUID":
             ident = _attr_id(node, "UID", "audioTrackUID")
             define(ident, node)
@@ -236,6 +231,15 @@ def read_definitions(root: XmlNode) -> Definitions:
                 )
             defs.uids[ident] = (refs[0] if refs else None, packs[0] if packs else None)
     return defs
+
+
+def _one_ref(node: XmlNode, owner: str, kind: str, rule: str) -> str | None:
+    """The one ``<kind>IDRef`` of ``node`` (``owner`` names it), None without one; more
+    than one is an error ending in ``rule``."""
+    refs = _refs(node, f"{kind}IDRef", kind)
+    if len(refs) > 1:
+        raise AdmError(f"axml line {node.line}: {owner} refers to {len(refs)} {kind}s; {rule}")
+    return refs[0] if refs else None
 
 
 def _read_object(node: XmlNode, ident: str, ignored: list[str]) -> RawObject:
